@@ -1,0 +1,3 @@
+from cdcnorm.cli import entry
+
+entry()

@@ -1,0 +1,137 @@
+"""Every error cdcnorm raises on purpose, under one root.
+
+Each error says where (file, line or row, field), what was expected and what
+was found, and, for a misspelt name, the closest valid one. Each class carries
+the process exit code the CLI uses for it; the codes are documented in the
+README ("Exit codes").
+"""
+
+from __future__ import annotations
+
+import difflib
+from collections.abc import Iterable
+
+EXIT_OK = 0
+EXIT_USAGE = 2
+EXIT_MAPPING = 3
+EXIT_INPUT = 4
+EXIT_REJECTS = 5
+EXIT_LEDGER = 6
+EXIT_LINEAGE = 7
+EXIT_BREAKS = 8
+
+
+def closest(name: str, candidates: Iterable[str]) -> str | None:
+    """The closest valid name to a misspelt one, or None when nothing is near."""
+    pool = list(candidates)
+    found = difflib.get_close_matches(name, pool, n=1, cutoff=0.6)
+    if not found:
+        lowered = {c.lower(): c for c in pool}
+        found = difflib.get_close_matches(name.lower(), list(lowered), n=1, cutoff=0.6)
+        return lowered[found[0]] if found else None
+    return found[0]
+
+
+def did_you_mean(name: str, candidates: Iterable[str]) -> str:
+    guess = closest(name, candidates)
+    return f' (did you mean "{guess}"?)' if guess else ""
+
+
+class CdcnormError(Exception):
+    """Root of every error cdcnorm raises on purpose."""
+
+    exit_code = 1
+
+    def __init__(
+        self,
+        message: str,
+        *,
+        file: str | None = None,
+        line: int | None = None,
+        field: str | None = None,
+        expected: str | None = None,
+        found: str | None = None,
+        hint: str | None = None,
+    ) -> None:
+        self.message = message
+        self.file = file
+        self.line = line
+        self.field = field
+        self.expected = expected
+        self.found = found
+        self.hint = hint
+        super().__init__(self.render())
+
+    def render(self) -> str:
+        where = ""
+        if self.file:
+            where = self.file + (f":{self.line}" if self.line else "")
+        parts = [f"{where}: {self.message}" if where else self.message]
+        if self.field:
+            parts.append(f"  field: {self.field}")
+        if self.expected is not None:
+            parts.append(f"  expected: {self.expected}")
+        if self.found is not None:
+            parts.append(f"  found: {self.found}")
+        if self.hint:
+            parts.append(f"  hint: {self.hint}")
+        return "\n".join(parts)
+
+    def as_dict(self) -> dict[str, object]:
+        return {
+            "error": type(self).__name__,
+            "message": self.message,
+            "file": self.file,
+            "line": self.line,
+            "field": self.field,
+            "expected": self.expected,
+            "found": self.found,
+            "hint": self.hint,
+            "exit_code": self.exit_code,
+        }
+
+
+class UsageError(CdcnormError):
+    """The command line itself is wrong."""
+
+    exit_code = EXIT_USAGE
+
+
+class MappingError(CdcnormError):
+    """A mapping file is invalid: bad YAML, an unknown key or type, a bad value."""
+
+    exit_code = EXIT_MAPPING
+
+
+class InputError(CdcnormError):
+    """An input file cannot be used at all: unreadable, matches no mapping, unknown format."""
+
+    exit_code = EXIT_INPUT
+
+
+class DriftError(InputError):
+    """A dump's columns no longer match its mapping (a mapped raw column is missing)."""
+
+
+class RejectLimitError(CdcnormError):
+    """More rows were quarantined than --max-rejects allows (outputs are still written)."""
+
+    exit_code = EXIT_REJECTS
+
+
+class LedgerError(CdcnormError):
+    """Rows read do not equal the sum of their fates: a bug, never expected."""
+
+    exit_code = EXIT_LEDGER
+
+
+class LineageError(CdcnormError):
+    """A lineage question cannot be answered: unknown column or model."""
+
+    exit_code = EXIT_LINEAGE
+
+
+class GraphvizMissing(CdcnormError):
+    """The Graphviz `dot` program is needed for SVG/PNG but is not installed."""
+
+    exit_code = EXIT_USAGE

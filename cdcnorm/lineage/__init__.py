@@ -1,0 +1,1 @@
+"""Column lineage over SQL models."""

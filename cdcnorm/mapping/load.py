@@ -1,0 +1,184 @@
+"""Load and validate the mapping files of a folder.
+
+Errors name the file, the line of the offending key, what was expected and
+what was found, and suggest the closest valid key or type.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import yaml
+from pydantic import BaseModel, ValidationError
+
+from cdcnorm import types
+from cdcnorm.errors import MappingError, did_you_mean
+from cdcnorm.mapping.model import FieldSpec, Mapping
+from cdcnorm.types.base import FieldType
+
+
+@dataclass(frozen=True)
+class LoadedMapping:
+    mapping: Mapping
+    path: Path
+    field_types: dict[str, FieldType]
+
+    @property
+    def table(self) -> str:
+        return self.mapping.table
+
+
+def _lines(node: yaml.Node, path: tuple[Any, ...], out: dict[tuple[Any, ...], int]) -> None:
+    out[path] = node.start_mark.line + 1
+    if isinstance(node, yaml.MappingNode):
+        for k, v in node.value:
+            key = k.value
+            out[(*path, key)] = k.start_mark.line + 1
+            _lines(v, (*path, key), out)
+    elif isinstance(node, yaml.SequenceNode):
+        for i, v in enumerate(node.value):
+            _lines(v, (*path, i), out)
+
+
+def _model_keys(model: type[BaseModel]) -> list[str]:
+    return [f.alias or name for name, f in model.model_fields.items()]
+
+
+def _submodel(loc: tuple[Any, ...]) -> type[BaseModel] | None:
+    """The pydantic model that owns the keys at ``loc`` (for did-you-mean suggestions)."""
+    from cdcnorm.mapping import model as m
+
+    current: type[BaseModel] | None = Mapping
+    i = 0
+    while current is not None and i < len(loc):
+        part = loc[i]
+        if current is Mapping and part == "fields":
+            if i + 1 < len(loc):
+                i += 2
+                current = FieldSpec
+                continue
+            return None
+        field = current.model_fields.get(str(part))
+        if field is None:
+            return current
+        ann = field.annotation
+        nxt = None
+        for cand in (m.ChangeSpec, m.ActionSpec, m.PositionSpec, m.SequenceSpec, m.CommittedAtSpec, m.CsvOptions):
+            if ann is cand or (hasattr(ann, "__args__") and cand in getattr(ann, "__args__", ())):
+                nxt = cand
+        if nxt is None:
+            return current
+        current = nxt
+        i += 1
+    return current
+
+
+def _clean_loc(loc: tuple[Any, ...]) -> tuple[Any, ...]:
+    # pydantic inserts union member names ("FieldSpec", "str") into locations
+    return tuple(p for p in loc if not (isinstance(p, str) and p[:1].isupper() and p in ("FieldSpec",)))
+
+
+def load_mapping(path: Path) -> LoadedMapping:
+    text_name = str(path)
+    try:
+        raw_text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as e:
+        raise MappingError(f"cannot read mapping file: {e}", file=text_name) from None
+    try:
+        node = yaml.compose(raw_text)
+        data = yaml.safe_load(raw_text)
+    except yaml.YAMLError as e:
+        mark = getattr(e, "problem_mark", None)
+        raise MappingError(
+            f"not valid YAML: {getattr(e, 'problem', e)}",
+            file=text_name,
+            line=(mark.line + 1) if mark else None,
+        ) from None
+    if not isinstance(data, dict):
+        raise MappingError(
+            "a mapping file must be a YAML mapping with keys table, files, key, change, fields",
+            file=text_name,
+            line=1,
+            found=type(data).__name__,
+        )
+    lines: dict[tuple[Any, ...], int] = {}
+    if node is not None:
+        _lines(node, (), lines)
+    try:
+        mapping = Mapping.model_validate(data)
+    except ValidationError as e:
+        err = e.errors()[0]
+        loc = _clean_loc(tuple(err["loc"]))
+        line = None
+        for n in range(len(loc), -1, -1):
+            if loc[:n] in lines:
+                line = lines[loc[:n]]
+                break
+        key = ".".join(str(p) for p in loc) or "(top level)"
+        hint = None
+        if err["type"] == "extra_forbidden" and loc:
+            owner = _submodel(loc[:-1])
+            if owner is not None:
+                hint = f"valid keys here: {', '.join(_model_keys(owner))}{did_you_mean(str(loc[-1]), _model_keys(owner))}"
+        elif err["type"] == "missing":
+            hint = f"add the key {loc[-1]!r}"
+        found = err.get("input")
+        raise MappingError(
+            f"invalid key {key}: {err['msg']}",
+            file=text_name,
+            line=line,
+            field=key,
+            found=None if err["type"] in ("missing",) else repr(found)[:200],
+            hint=hint,
+        ) from None
+    field_types: dict[str, FieldType] = {}
+    for name, spec in mapping.fields.items():
+        try:
+            field_types[name] = types.resolve(spec)
+        except ValueError as e:
+            raise MappingError(
+                str(e),
+                file=text_name,
+                line=lines.get(("fields", name, "type"), lines.get(("fields", name))),
+                field=f"fields.{name}",
+                expected=", ".join(types.TYPES),
+                found=spec.type,
+            ) from None
+        if spec.encoding and field_types[name].name != "bytes":
+            raise MappingError(
+                "encoding applies to bytes fields only",
+                file=text_name,
+                line=lines.get(("fields", name, "encoding")),
+                field=f"fields.{name}.encoding",
+            )
+        if spec.zone and field_types[name].name != "timestamp":
+            raise MappingError(
+                "zone applies to timestamp fields only",
+                file=text_name,
+                line=lines.get(("fields", name, "zone")),
+                field=f"fields.{name}.zone",
+            )
+    return LoadedMapping(mapping=mapping, path=path, field_types=field_types)
+
+
+def load_mappings(folder: Path) -> list[LoadedMapping]:
+    """Every ``*.yaml``/``*.yml`` mapping in ``folder`` (or one file), sorted by table name."""
+    if folder.is_file():
+        paths = [folder]
+    elif folder.is_dir():
+        paths = sorted([*folder.glob("*.yaml"), *folder.glob("*.yml")])
+    else:
+        raise MappingError("mappings folder does not exist", file=str(folder))
+    if not paths:
+        raise MappingError("no mapping files (*.yaml) in this folder", file=str(folder))
+    loaded = [load_mapping(p) for p in paths]
+    seen: dict[str, Path] = {}
+    for lm in loaded:
+        if lm.table in seen:
+            raise MappingError(
+                f"table {lm.table} is declared twice (also in {seen[lm.table]})", file=str(lm.path), line=1
+            )
+        seen[lm.table] = lm.path
+    return sorted(loaded, key=lambda m: m.table)

@@ -1,0 +1,176 @@
+"""The mapping file's model: one YAML file declares one table.
+
+Every key is documented here and in the README ("Mapping files"); unknown keys
+are errors (with the closest valid key suggested), never ignored.
+"""
+
+from __future__ import annotations
+
+import re
+from typing import Annotated, Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+
+ACTIONS = ("delete", "insert", "before", "after", "snapshot")
+Action = Literal["delete", "insert", "before", "after", "snapshot"]
+PositionKind = Literal["integer", "hex", "hex-pair", "timestamp", "text"]
+
+_ZONE = re.compile(r"^(Z|UTC|[+-](0\d|1\d|2[0-3]):?[0-5]\d)$")
+
+
+def check_zone(value: str) -> str:
+    if not _ZONE.match(value):
+        raise ValueError(f'zone must be a fixed UTC offset such as "+00:00", "-05:30" or "Z", not "{value}"')
+    return value
+
+
+class Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True, populate_by_name=True)
+
+
+class ActionSpec(Strict):
+    """Which raw column holds the operation code, and what each code means."""
+
+    column: str = Field(description="Raw column with the operation code.")
+    codes: dict[str, Action] = Field(
+        description="Raw code -> one of delete, insert, before, after, snapshot."
+    )
+
+    @field_validator("codes", mode="before")
+    @classmethod
+    def _codes_as_text(cls, value: Any) -> Any:
+        if isinstance(value, dict):
+            return {str(k): v for k, v in value.items()}
+        return value
+
+
+class PositionSpec(Strict):
+    """The log position: the primary order of changes."""
+
+    column: str
+    kind: PositionKind = Field(
+        description="integer | hex (byte string, any case, optional 0x) | hex-pair (two hex numbers 16/B374D848) | timestamp | text"
+    )
+    width: int = Field(
+        default=32,
+        ge=1,
+        le=128,
+        description="hex only: digits the normalised position is padded to (32 = 16 bytes).",
+    )
+    zone: str = Field(default="+00:00", description="timestamp only: offset for values written without one.")
+
+    @field_validator("zone")
+    @classmethod
+    def _zone_ok(cls, v: str) -> str:
+        return check_zone(v)
+
+
+class SequenceSpec(Strict):
+    """Optional tie-breaker inside one position (a non-negative integer)."""
+
+    column: str
+    kind: Literal["integer"] = "integer"
+
+
+class CommittedAtSpec(Strict):
+    column: str
+    zone: str = Field(default="+00:00", description="Offset for values written without one.")
+
+    @field_validator("zone")
+    @classmethod
+    def _zone_ok(cls, v: str) -> str:
+        return check_zone(v)
+
+
+class ChangeSpec(Strict):
+    action: ActionSpec
+    position: PositionSpec
+    sequence: SequenceSpec | None = None
+    committed_at: CommittedAtSpec | None = None
+    updates: Literal["paired", "after-only"] = Field(
+        default="paired",
+        description="paired: an update is a before row and an after row at one position; after-only: one after row.",
+    )
+
+
+class FieldSpec(Strict):
+    """One typed output field."""
+
+    type: str = Field(description="integer, decimal(p,s), float, boolean, date, time, timestamp, text, bytes, uuid, json")
+    from_: str | None = Field(default=None, alias="from", description="Raw column name, when it differs from the field name.")
+    zone: str | None = Field(default=None, description="timestamp: offset for values without one (default +00:00).")
+    encoding: Literal["hex", "base64"] | None = Field(default=None, description="bytes: hex or base64 (default hex).")
+    max_length: int | None = Field(default=None, ge=1, description="text: longest value allowed, in characters.")
+    required: bool = Field(default=False, description="A NULL value is a quarantine reason (always true for key fields).")
+
+    @field_validator("zone")
+    @classmethod
+    def _zone_ok(cls, v: str | None) -> str | None:
+        return None if v is None else check_zone(v)
+
+
+def _field_shorthand(value: Any) -> Any:
+    if isinstance(value, str):
+        return {"type": value}
+    return value
+
+
+class CsvOptions(Strict):
+    delimiter: str = Field(default=",", min_length=1, max_length=1)
+    quote: str = Field(default='"', min_length=1, max_length=1)
+    header: bool = Field(default=True, description="false: columns are named by `columns`.")
+    columns: list[str] | None = Field(default=None, description="Column names when the file has no header row.")
+
+
+class Mapping(Strict):
+    """One table: which dumps it reads, how changes are coded, and its typed fields."""
+
+    table: str = Field(description="Canonical table name, e.g. ferry.bookings.")
+    files: list[str] = Field(min_length=1, description="Glob patterns on the dump file name.")
+    key: list[str] = Field(min_length=1, description="Fields that identify a row.")
+    nulls: list[str] = Field(default_factory=lambda: [""], description="Raw tokens that mean NULL.")
+    change: ChangeSpec
+    fields: dict[str, Annotated[FieldSpec, Field()]]
+    csv: CsvOptions = Field(default_factory=CsvOptions, description="CSV dialect of this table's CSV dumps.")
+
+    @field_validator("fields", mode="before")
+    @classmethod
+    def _shorthand(cls, value: Any) -> Any:
+        if isinstance(value, dict):
+            return {str(k): _field_shorthand(v) for k, v in value.items()}
+        return value
+
+    @model_validator(mode="after")
+    def _keys_are_fields(self) -> Mapping:
+        missing = [k for k in self.key if k not in self.fields]
+        if missing:
+            raise ValueError(f"key names {missing} but fields has no such field; fields are {list(self.fields)}")
+        return self
+
+    def raw_column(self, field: str) -> str:
+        spec = self.fields[field]
+        return spec.from_ or field
+
+    def change_columns(self) -> dict[str, str]:
+        """Role -> raw column for the change metadata."""
+        c = self.change
+        cols = {"action": c.action.column, "position": c.position.column}
+        if c.sequence:
+            cols["sequence"] = c.sequence.column
+        if c.committed_at:
+            cols["committed_at"] = c.committed_at.column
+        return cols
+
+    def mapped_columns(self) -> list[str]:
+        """Every raw column this mapping reads, change columns first, without repeats."""
+        seen: dict[str, None] = {}
+        for col in self.change_columns().values():
+            seen.setdefault(col)
+        for name in self.fields:
+            seen.setdefault(self.raw_column(name))
+        return list(seen)
+
+    @property
+    def slug(self) -> str:
+        """A name safe for files and SQL identifiers."""
+        return re.sub(r"[^0-9A-Za-z_]+", "_", self.table)

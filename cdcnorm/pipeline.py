@@ -1,0 +1,410 @@
+"""The conversion pipeline: the stages, in order, and what runs them.
+
+    read -> source -> type -> order -> dedupe -> pair -> envelope -> write
+
+``read`` loads each dump file (readers/) into the engine as raw text; every
+later stage adds its steps to the table's plan (stages/); the engine runs the
+plan; the writers (writers/), the quarantine and the ledger read its results.
+"""
+
+from __future__ import annotations
+
+import fnmatch
+import json
+import os
+from collections.abc import Callable, Iterable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+import sqlglot
+
+from cdcnorm import ledger as ledger_mod
+from cdcnorm import quarantine
+from cdcnorm.engines.duckdb import DuckDBEngine
+from cdcnorm.errors import DriftError, InputError, LedgerError, RejectLimitError, UsageError, closest
+from cdcnorm.mapping.load import LoadedMapping
+from cdcnorm.plan import Plan, Source
+from cdcnorm.readers import RawSource, reader_for
+from cdcnorm.sql import PLAN_DIALECT, ident
+from cdcnorm.stages.dedupe import dedupe_rows
+from cdcnorm.stages.envelope import build_envelopes
+from cdcnorm.stages.order import order_rows
+from cdcnorm.stages.pair import pair_images
+from cdcnorm.stages.source import unite_sources
+from cdcnorm.stages.type import type_rows
+from cdcnorm.writers import WRITERS
+
+#: The plan-building stages, in order. ``read`` comes before them all.
+STAGES: list[tuple[str, Callable[[Plan], Plan]]] = [
+    ("source", unite_sources),
+    ("type", type_rows),
+    ("order", order_rows),
+    ("dedupe", dedupe_rows),
+    ("pair", pair_images),
+    ("envelope", build_envelopes),
+]
+STAGE_NAMES = ["read", *(name for name, _ in STAGES)]
+
+Progress = Callable[[str, int, int], None]
+
+
+def _no_progress(label: str, done: int, total: int) -> None:
+    return None
+
+
+@dataclass
+class Options:
+    out: Path | None = None
+    fmt: str = "jsonl"
+    max_rejects: int = 0
+    memory_limit: str | None = None
+    threads: int | None = None
+    input_format: str | None = None
+    write: bool = True
+
+
+@dataclass
+class TableRun:
+    mapping: LoadedMapping
+    sources: list[RawSource]
+    plan: Plan
+    unmapped: dict[str, list[str]] = field(default_factory=dict)
+
+
+@dataclass
+class Drift:
+    file: str
+    table: str
+    field: str
+    column: str
+    suggestion: str | None
+
+    def message(self) -> str:
+        s = f' (did you mean "{self.suggestion}"?)' if self.suggestion else ""
+        return f"{self.file}: field {self.field} of {self.table} reads raw column {self.column!r}, which the file does not have{s}"
+
+
+@dataclass
+class Result:
+    engine: DuckDBEngine
+    tables: dict[str, TableRun]
+    ledger: ledger_mod.Ledger
+    drift: list[Drift]
+    outputs: dict[str, Path] = field(default_factory=dict)
+    stopped_after: str | None = None
+
+    @property
+    def quarantined(self) -> int:
+        return self.ledger.total.quarantined
+
+    def stage_output(self, table: str, stage: str, limit: int | None = None) -> pa.Table:
+        """The rows of the last step of ``stage`` for ``table`` (after a run)."""
+        run = self.tables[table]
+        if stage == "read":
+            tables = [s.table for s in run.sources]
+            out = pa.concat_tables(tables, promote_options="permissive") if tables else pa.table({})
+            return out.slice(0, limit) if limit else out
+        step = [s for s in run.plan.steps if s.stage == stage][-1]
+        sql = f"SELECT * FROM {ident(step.relation)}" + (f" LIMIT {limit}" if limit else "")
+        return self.engine.arrow(sql)
+
+    def events(self, table: str, *, render: bool = False) -> pa.Table:
+        """The table's envelopes in output order: native types, or their JSON forms."""
+        from cdcnorm.writers.base import project
+
+        run = self.tables[table]
+        return self.engine.arrow(sqlglot.parse_one(project(run.plan, "__files", render=render), read=PLAN_DIALECT))
+
+
+def route(files: Iterable[Path], mappings: Sequence[LoadedMapping]) -> dict[str, list[Path]]:
+    """Which mapping reads each file: by the mapping's file globs, or a file named ``<table>.jsonl``."""
+    by_table: dict[str, list[Path]] = {m.table: [] for m in mappings}
+    for path in files:
+        matches = [m for m in mappings if any(fnmatch.fnmatchcase(path.name, g) for g in m.mapping.files)]
+        if not matches:
+            stem = path.name.split(".jsonl")[0] if ".jsonl" in path.name else None
+            matches = [m for m in mappings if stem == m.table]
+        if not matches:
+            globs = [g for m in mappings for g in m.mapping.files]
+            near = closest(path.name, globs + [m.table for m in mappings])
+            raise InputError(
+                "this file matches no mapping",
+                file=str(path),
+                expected="a file name matching one of " + ", ".join(globs),
+                found=path.name,
+                hint=f"closest mapping pattern: {near}" if near else "add its pattern to a mapping's files list",
+            )
+        if len(matches) > 1:
+            raise InputError(
+                "this file matches more than one mapping: " + ", ".join(m.table for m in matches),
+                file=str(path),
+                hint="make the mappings' files patterns disjoint",
+            )
+        by_table[matches[0].table].append(path)
+    return by_table
+
+
+def expand_inputs(inputs: Iterable[str | Path]) -> list[Path]:
+    """Files as given; a folder stands for the dump files directly inside it."""
+    out: list[Path] = []
+    for raw in inputs:
+        p = Path(raw)
+        if p.is_dir():
+            out.extend(sorted(c for c in p.iterdir() if c.is_file() and not c.name.startswith(".")))
+        elif p.exists():
+            out.append(p)
+        else:
+            raise InputError("no such file", file=str(p))
+    seen: set[Path] = set()
+    unique = []
+    for p in out:
+        r = p.resolve()
+        if r not in seen:
+            seen.add(r)
+            unique.append(p)
+    return unique
+
+
+def _display_names(files: list[Path]) -> dict[Path, str]:
+    names = [f.name for f in files]
+    return {f: (f.name if names.count(f.name) == 1 else f.as_posix()) for f in files}
+
+
+def read_all(
+    mappings: Sequence[LoadedMapping], routed: dict[str, list[Path]], engine: DuckDBEngine, options: Options, progress: Progress
+) -> dict[str, list[RawSource]]:
+    all_files = [p for ps in routed.values() for p in ps]
+    names = _display_names(all_files)
+    by_name = {m.table: m for m in mappings}
+    out: dict[str, list[RawSource]] = {}
+    done = 0
+    for table, paths in routed.items():
+        sources = []
+        for path in sorted(paths, key=lambda p: names[p]):
+            progress(f"read {names[path]}", done, len(all_files))
+            reader = reader_for(path, options.input_format)
+            sources.append(reader.read(path, by_name[table].mapping, engine, names[path]))
+            done += 1
+        out[table] = sources
+    progress("read", done, len(all_files))
+    return out
+
+
+def find_drift(mapping: LoadedMapping, sources: list[RawSource]) -> tuple[list[Drift], dict[str, list[str]]]:
+    m = mapping.mapping
+    drift = []
+    unmapped = {}
+    wanted = m.mapped_columns()
+    roles = {v: k for k, v in m.change_columns().items()}
+    for src in sources:
+        if src.empty:
+            continue
+        for col in wanted:
+            if col not in src.columns:
+                fields = [f for f in m.fields if m.raw_column(f) == col] or [roles.get(col, col)]
+                drift.append(Drift(src.name, m.table, fields[0], col, closest(col, src.columns)))
+        unmapped[src.name] = [
+            c for c in src.columns if c not in wanted and not c.startswith(quarantine.META_KEY)
+        ]
+    return drift, unmapped
+
+
+def compile_table(mapping: LoadedMapping, sources: list[RawSource], first_id: int) -> Plan:
+    """Build the table's plan: every stage adds its steps, in order."""
+    plan = Plan(
+        mapping=mapping,
+        sources=tuple(
+            Source(first_id + i, s.name, f"{mapping.mapping.slug}__src{i}", tuple(s.columns))
+            for i, s in enumerate(sources)
+        ),
+    )
+    for _, stage in STAGES:
+        plan = stage(plan)
+    return plan
+
+
+def run(
+    mappings: Sequence[LoadedMapping],
+    inputs: Iterable[str | Path],
+    options: Options | None = None,
+    *,
+    stop_after: str | None = None,
+    progress: Progress = _no_progress,
+    strict_drift: bool = True,
+) -> Result:
+    """Read, plan, execute and (when ``options.write``) write every table."""
+    options = options or Options()
+    if stop_after is not None and stop_after not in STAGE_NAMES:
+        raise UsageError(f"unknown stage {stop_after!r}; stages are {', '.join(STAGE_NAMES)}")
+    if options.fmt not in WRITERS:
+        raise UsageError(f"unknown output format {options.fmt!r}; formats are {', '.join(WRITERS)}")
+    files = expand_inputs(inputs)
+    if not files:
+        raise UsageError("no input files given")
+    routed = route(files, mappings)
+    engine = DuckDBEngine(memory_limit=options.memory_limit, threads=options.threads)
+    read = read_all(mappings, routed, engine, options, progress)
+    runs: dict[str, TableRun] = {}
+    drifts: list[Drift] = []
+    file_names: list[tuple[int, str]] = []
+    next_id = 0
+    by_name = {m.table: m for m in mappings}
+    for table, sources in read.items():
+        if not routed[table]:
+            continue
+        drift, unmapped = find_drift(by_name[table], sources)
+        drifts.extend(drift)
+        plan = compile_table(by_name[table], sources, next_id)
+        for src, raw in zip(plan.sources, sources, strict=True):
+            engine.register(src.relation, raw.table)
+            file_names.append((src.file_id, src.name))
+        next_id += len(sources)
+        runs[table] = TableRun(by_name[table], sources, plan, unmapped)
+    if drifts and strict_drift:
+        d = drifts[0]
+        raise DriftError(
+            f"schema drift: the mapping's field {d.field} reads raw column {d.column!r}, which this dump does not have"
+            + (f" ({len(drifts) - 1} more drift errors: run cdcnorm check)" if len(drifts) > 1 else ""),
+            file=d.file,
+            field=d.field,
+            expected=f"a column named {d.column!r}",
+            found="columns " + ", ".join(next(s.columns for s in runs[d.table].sources if s.name == d.file)),
+            hint=f'did you mean "{d.suggestion}"? (or set fields.{d.field}.from)' if d.suggestion else "rename the column or fix the mapping",
+        )
+    engine.register(
+        "__files",
+        pa.table({"id": pa.array([i for i, _ in file_names], pa.int64()), "name": pa.array([n for _, n in file_names], pa.string())}),
+    )
+    result = Result(engine, runs, ledger_mod.Ledger(), drifts, stopped_after=stop_after)
+    if stop_after == "read":
+        return result
+    drifted = {d.table for d in drifts}
+    total = len(runs)
+    for i, (table, trun) in enumerate(runs.items()):
+        if table in drifted:
+            continue
+        progress(f"convert {table}", i, total)
+        plan = trun.plan if stop_after is None else trun.plan.until(stop_after)
+        for step in plan.steps:
+            if step.materialize:
+                engine.materialize(step.relation, step.expression)
+            else:
+                engine.view(step.relation, step.expression)
+        if stop_after is not None:
+            continue
+        result.ledger.tables[table] = _account(trun, engine)
+    progress("convert", total, total)
+    if stop_after is not None:
+        return result
+    if not result.ledger.balanced:
+        raise LedgerError(
+            "the row ledger does not balance: " + json.dumps(result.ledger.as_dict()["total"]),
+            hint="this is a bug in cdcnorm; please report it with the inputs",
+        )
+    if options.write and options.out is not None:
+        _write(result, options)
+    if options.max_rejects and result.quarantined > options.max_rejects:
+        raise RejectLimitError(
+            f"{result.quarantined} rows were quarantined, more than --max-rejects {options.max_rejects}"
+            + (" (all outputs were written)" if options.write and options.out else ""),
+            expected=f"at most {options.max_rejects} rejected rows",
+            found=str(result.quarantined),
+            hint=f"see {options.out / 'quarantine'}" if options.out else None,
+        )
+    return result
+
+
+def _rejected_relation(trun: TableRun) -> str:
+    return f"{trun.mapping.mapping.slug}__quarantined"
+
+
+def _account(trun: TableRun, engine: DuckDBEngine) -> ledger_mod.TableLedger:
+    plan = trun.plan
+    malformed = {}
+    for src, raw in zip(plan.sources, trun.sources, strict=True):
+        if raw.malformed.num_rows:
+            rel = f"{src.relation}__malformed"
+            engine.register(rel, raw.malformed)
+            malformed[src.file_id] = rel
+    rejected = _rejected_relation(trun)
+    engine.materialize(rejected, sqlglot.parse_one(quarantine.rejected_rows(plan, malformed), read=PLAN_DIALECT))
+    tl = ledger_mod.TableLedger(trun.mapping.table)
+    ids = {s.file_id: s.name for s in plan.sources}
+    for src, raw in zip(plan.sources, trun.sources, strict=True):
+        fc = ledger_mod.FileCounts(read=raw.rows_read, quarantined=raw.malformed.num_rows)
+        tl.files[src.name] = fc
+    fates = engine.rows(sqlglot.parse_one(ledger_mod.fate_counts(plan), read=PLAN_DIALECT))
+    for file_id, fate, n in fates:
+        fc = tl.files[ids[file_id]]
+        setattr(fc, fate, getattr(fc, fate) + int(n))
+    for reason, n in engine.rows(ledger_mod.reason_counts(ident(rejected))):
+        tl.reasons[str(reason)] = int(n)
+    return tl
+
+
+def _write_lines(lines: pa.ChunkedArray, path: Path) -> None:
+    """Write a column of text lines, each followed by a newline, atomically."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f"{path.name}.tmp-{os.getpid()}")
+    try:
+        with open(tmp, "wb") as f:
+            for chunk in lines.chunks:
+                if len(chunk) == 0:
+                    continue
+                f.write(_concat(pc.binary_join_element_wise(chunk, pa.scalar("\n"), pa.scalar(""))))
+        os.replace(tmp, path)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+
+
+def _concat(arr: pa.Array) -> bytes:
+    """The bytes of all strings of an array, back to back (no copy per row)."""
+    arr = arr.cast(pa.large_string())
+    offsets = arr.buffers()[1]
+    data = arr.buffers()[2]
+    off = np.frombuffer(offsets, dtype=np.int64)[arr.offset : arr.offset + len(arr) + 1]
+    return bytes(memoryview(data)[off[0] : off[-1]]) if data is not None else b""
+
+
+def _write(result: Result, options: Options) -> None:
+    assert options.out is not None
+    writer = WRITERS[options.fmt]
+    out = options.out
+    for table, trun in result.tables.items():
+        writer.write(trun.plan, result.engine, "__files", out / "events" / f"{table}{writer.SUFFIX}")
+        qpath = out / "quarantine" / f"{table}.jsonl"
+        lines_sql = quarantine.quarantine_lines(trun.plan, _rejected_relation(trun))
+        lines = result.engine.arrow(sqlglot.parse_one(lines_sql, read=PLAN_DIALECT))["line"]
+        if len(lines):
+            _write_lines(lines, qpath)
+        elif qpath.exists():
+            qpath.unlink()
+        result.outputs[table] = out / "events" / f"{table}{writer.SUFFIX}"
+    ledger_path = out / "ledger.json"
+    tmp = ledger_path.with_name(f"ledger.json.tmp-{os.getpid()}")
+    out.mkdir(parents=True, exist_ok=True)
+    tmp.write_text(json.dumps(result.ledger.as_dict(), indent=2) + "\n", encoding="utf-8")
+    os.replace(tmp, ledger_path)
+
+
+def describe_sources(result: Result) -> list[dict[str, Any]]:
+    rows = []
+    for table, trun in result.tables.items():
+        for src in trun.sources:
+            rows.append(
+                {
+                    "table": table,
+                    "file": src.name,
+                    "format": src.format,
+                    "rows": src.rows_read,
+                    "malformed": src.malformed.num_rows,
+                    "unmapped_columns": trun.unmapped.get(src.name, []),
+                    "notes": src.notes,
+                }
+            )
+    return rows

@@ -1,0 +1,79 @@
+"""A table's relational plan: named steps, each a sqlglot expression over earlier steps.
+
+Stages (``cdcnorm/stages``) each take a plan and return it with their steps
+added; the engine runs the steps in order, materialising those marked so (the
+rest are views the engine's optimiser inlines).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+
+import sqlglot
+from sqlglot import exp
+
+from cdcnorm.mapping.load import LoadedMapping
+from cdcnorm.sql import PLAN_DIALECT, ident
+
+
+@dataclass(frozen=True)
+class Source:
+    """A dump file registered with the engine for this table."""
+
+    file_id: int
+    name: str
+    relation: str
+    columns: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class Step:
+    stage: str
+    name: str
+    relation: str
+    expression: exp.Expression
+    materialize: bool
+
+
+@dataclass(frozen=True)
+class Plan:
+    mapping: LoadedMapping
+    sources: tuple[Source, ...]
+    steps: tuple[Step, ...] = field(default_factory=tuple)
+
+    @property
+    def fields(self) -> list[str]:
+        return list(self.mapping.mapping.fields)
+
+    @property
+    def key_index(self) -> list[int]:
+        names = self.fields
+        return [names.index(k) for k in self.mapping.mapping.key]
+
+    def rel(self, name: str) -> str:
+        """The quoted engine relation name of a step."""
+        return ident(f"{self.mapping.mapping.slug}__{name}")
+
+    def add(self, stage: str, name: str, sql: str, *, materialize: bool = False) -> Plan:
+        expression = sqlglot.parse_one(sql, read=PLAN_DIALECT)
+        step = Step(stage, name, f"{self.mapping.mapping.slug}__{name}", expression, materialize)
+        return replace(self, steps=(*self.steps, step))
+
+    def step(self, name: str) -> Step:
+        for s in self.steps:
+            if s.name == name:
+                return s
+        raise KeyError(name)
+
+    def until(self, stage: str) -> Plan:
+        """The plan cut after the last step of ``stage``."""
+        last = max(i for i, s in enumerate(self.steps) if s.stage == stage)
+        return replace(self, steps=self.steps[: last + 1])
+
+    def show(self, dialect: str = PLAN_DIALECT) -> str:
+        out = [f"-- plan for {self.mapping.table}"]
+        for s in self.steps:
+            kind = "TABLE" if s.materialize else "VIEW"
+            out.append(f"-- stage {s.stage}: {s.name}")
+            out.append(f"CREATE TEMP {kind} {ident(s.relation)} AS\n{s.expression.sql(dialect=dialect, pretty=True)};")
+        return "\n".join(out)

@@ -1,0 +1,1 @@
+"""Plan-building stages, in pipeline order: source, type, order, dedupe, pair, envelope."""

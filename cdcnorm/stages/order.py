@@ -1,0 +1,24 @@
+"""Stage order: the sortable ``position`` of every good row.
+
+position = normalised log position, then the zero-padded sequence (when the
+mapping has one), then the image rank (before 1 < after 2; other rows 0),
+joined by '.'; plain byte-wise order of the string is the change order.
+"""
+
+from __future__ import annotations
+
+from cdcnorm.plan import Plan
+
+SEQUENCE_WIDTH = 20
+RANK = "CASE __act WHEN 'before' THEN 1 WHEN 'after' THEN 2 ELSE 0 END"
+
+
+def order_rows(plan: Plan) -> Plan:
+    base = "__pos"
+    if plan.mapping.mapping.change.sequence:
+        base = f"__pos || '.' || lpad(CAST(__seq AS VARCHAR), {SEQUENCE_WIDTH}, '0')"
+    sql = (
+        f"SELECT *, {base} AS __pbase, {base} || '.' || CAST({RANK} AS VARCHAR) AS __position "
+        f"FROM {plan.rel('typed')} WHERE __ok"
+    )
+    return plan.add("order", "ordered", sql)

@@ -1,0 +1,119 @@
+"""Stage type: guarded casts of every raw value, and the reasons for every bad row."""
+
+from __future__ import annotations
+
+from cdcnorm import positions
+from cdcnorm.plan import Plan
+from cdcnorm.sql import ident, lit
+from cdcnorm.types.timestamp import timestamp_cast, timestamp_explain
+
+SEQUENCE = "'[0-9]{1,20}'"
+
+
+def _reason(field: str | None, column: str, expected: str, found: str, reason: str) -> str:
+    return (
+        f"{{'field': {lit(field) if field else 'CAST(NULL AS VARCHAR)'}, 'column': {lit(column)}, "
+        f"'expected': {lit(expected)}, 'found': {found}, 'reason': {reason}}}"
+    )
+
+
+class _Checks:
+    """Typed columns, the ok condition and the reasons, written against raw ``s`` and typed ``t``."""
+
+    def __init__(self) -> None:
+        self.typed: list[tuple[str, str]] = []  # (name, SQL over raw columns)
+        self.ok: list[str] = []  # SQL with {s} and {t} placeholders
+        self.reasons: list[str] = []  # SQL over s. and t.
+
+    def check(self, bad: str, reason: str) -> None:
+        """``bad`` uses {s}/{t}; the row is ok only when no ``bad`` holds."""
+        self.ok.append(f"NOT coalesce({bad}, FALSE)")
+        self.reasons.append(f"CASE WHEN {bad.format(s='s.', t='t.')} THEN {reason} END")
+
+
+def type_rows(plan: Plan) -> Plan:
+    """Add ``typed`` (all rows, typed, with an ``__ok`` flag) and ``rejects`` (bad rows with reasons)."""
+    m = plan.mapping.mapping
+    ch = m.change
+    c = _Checks()
+
+    c.check(
+        "{s}__enc IS NOT NULL",
+        "{'field': CAST(NULL AS VARCHAR), 'column': array_to_string(json_keys(s.__enc), ', '), "
+        "'expected': 'UTF-8 text', 'found': s.__enc, 'reason': 'not UTF-8 (found shows the bytes, base64)'}",
+    )
+    act_col = ident(ch.action.column)
+    codes = " ".join(f"WHEN {lit(k)} THEN {lit(v)}" for k, v in sorted(ch.action.codes.items()))
+    c.typed.append(("__act", f"CASE {act_col} {codes} END"))
+    c.check(
+        "{t}__act IS NULL",
+        _reason(
+            "action",
+            ch.action.column,
+            "one of codes " + ", ".join(sorted(ch.action.codes)),
+            f"s.{act_col}",
+            f"CASE WHEN s.{act_col} IS NULL THEN 'missing action code' ELSE 'unknown action code' END",
+        ),
+    )
+    pos_col = ident(ch.position.column)
+    c.typed.append(("__pos", positions.normalise(ch.position, pos_col)))
+    c.check(
+        "{t}__pos IS NULL",
+        _reason(
+            "position",
+            ch.position.column,
+            positions.expected(ch.position),
+            f"s.{pos_col}",
+            f"CASE WHEN s.{pos_col} IS NULL THEN 'missing position' ELSE 'malformed position' END",
+        ),
+    )
+    if ch.sequence:
+        col = ident(ch.sequence.column)
+        c.typed.append(("__seq", f"CASE WHEN regexp_full_match({col}, {SEQUENCE}) THEN TRY_CAST({col} AS UBIGINT) END"))
+        c.check(
+            "{t}__seq IS NULL",
+            _reason(
+                "sequence",
+                ch.sequence.column,
+                "a non-negative integer below 2**64",
+                f"s.{col}",
+                f"CASE WHEN s.{col} IS NULL THEN 'missing sequence' ELSE 'malformed sequence' END",
+            ),
+        )
+    else:
+        c.typed.append(("__seq", "CAST(NULL AS UBIGINT)"))
+    if ch.committed_at:
+        col = ident(ch.committed_at.column)
+        c.typed.append(("__cat", timestamp_cast(col, ch.committed_at.zone)))
+        c.check(
+            "{s}" + col + " IS NOT NULL AND {t}__cat IS NULL",
+            _reason("committed_at", ch.committed_at.column, "an RFC 3339 timestamp", f"s.{col}", timestamp_explain(f"s.{col}")),
+        )
+    else:
+        c.typed.append(("__cat", "CAST(NULL AS TIMESTAMPTZ)"))
+    keys = set(m.key)
+    for i, (name, ftype) in enumerate(plan.mapping.field_types.items()):
+        column = m.raw_column(name)
+        raw = ident(column)
+        c.typed.append((f"v{i}", ftype.cast(raw)))
+        c.check(
+            "{s}" + raw + " IS NOT NULL AND {t}" + f"v{i} IS NULL",
+            _reason(name, column, ftype.describe(), f"s.{raw}", ftype.explain(f"s.{raw}")),
+        )
+        if name in keys or m.fields[name].required:
+            what = "missing key" if name in keys else "missing required value"
+            c.check("{s}" + raw + " IS NULL", _reason(name, column, ftype.describe(), "CAST(NULL AS VARCHAR)", lit(what)))
+
+    src = plan.rel("source")
+    raw_cols = ", ".join(ident(col) for col in m.mapped_columns())
+    inner = f"SELECT __file, __row, __enc, {raw_cols}, {', '.join(f'{sql} AS {n}' for n, sql in c.typed)} FROM {src}"
+    ok = " AND ".join(cond.format(s="q.", t="q.") for cond in c.ok)
+    typed_cols = ", ".join(f"q.{n}" for n, _ in c.typed)
+    plan = plan.add(
+        "type", "typed", f"SELECT q.__file, q.__row, {typed_cols}, ({ok}) AS __ok FROM ({inner}) q", materialize=True
+    )
+    rejects = (
+        f"SELECT t.__file, t.__row, list_filter([{', '.join(c.reasons)}], x -> x IS NOT NULL) AS reasons "
+        f"FROM {plan.rel('typed')} t JOIN {src} s ON s.__file = t.__file AND s.__row = t.__row WHERE NOT t.__ok"
+    )
+    return plan.add("type", "rejects", rejects)

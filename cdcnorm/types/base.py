@@ -1,0 +1,46 @@
+"""What a field type provides to the plan.
+
+A type turns a raw text expression into a typed one with a *guarded* cast: the
+cast yields NULL whenever the text is not a valid value of the type, so
+``raw IS NOT NULL AND typed IS NULL`` is exactly the set of bad values, and
+nothing is ever rounded, truncated or wrapped silently. ``explain`` is only
+evaluated for bad values and says what is wrong with one.
+"""
+
+from __future__ import annotations
+
+from typing import ClassVar
+
+from cdcnorm.mapping.model import FieldSpec
+
+
+class FieldType:
+    name: ClassVar[str]
+    #: DuckDB type of the typed value (the native Parquet/Arrow type follows it).
+    sql_type: str = "VARCHAR"
+
+    def __init__(self, spec: FieldSpec, params: list[int]) -> None:
+        self.spec = spec
+        self.params = params
+
+    @classmethod
+    def parse_params(cls, params: list[int]) -> list[int]:
+        """Validate the type's parameters; raise ValueError with a readable message."""
+        if params:
+            raise ValueError(f"type {cls.name} takes no parameters")
+        return params
+
+    def describe(self) -> str:
+        return self.name
+
+    def cast(self, x: str) -> str:
+        """SQL: the typed value of raw text ``x``, NULL when invalid."""
+        raise NotImplementedError
+
+    def explain(self, x: str) -> str:
+        """SQL: why raw text ``x`` is not a valid value (only evaluated when it is not)."""
+        return "'not a valid " + self.describe() + "'"
+
+    def render(self, v: str) -> str:
+        """SQL: the JSON form of typed value ``v`` (a string, number, boolean or JSON value)."""
+        return v

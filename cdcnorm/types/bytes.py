@@ -1,0 +1,35 @@
+from __future__ import annotations
+
+from cdcnorm.types.base import FieldType
+
+# RFC 4648 section 8 (base16, either case) and section 4 (base64 with padding);
+# section 3.3: characters outside the alphabet are rejected.
+HEX = "'([0-9A-Fa-f]{2})*'"
+BASE64 = "'([A-Za-z0-9+/]{4})*([A-Za-z0-9+/]{2}==|[A-Za-z0-9+/]{3}=)?'"
+
+
+class BytesType(FieldType):
+    """Binary data written as hex or base64 text; emitted as base64."""
+
+    name = "bytes"
+    sql_type = "BLOB"
+
+    @property
+    def encoding(self) -> str:
+        return self.spec.encoding or "hex"
+
+    def describe(self) -> str:
+        return f"bytes ({self.encoding})"
+
+    def cast(self, x: str) -> str:
+        if self.encoding == "hex":
+            return f"CASE WHEN regexp_full_match({x}, {HEX}) THEN unhex({x}) END"
+        return f"CASE WHEN regexp_full_match({x}, {BASE64}) THEN from_base64({x}) END"
+
+    def explain(self, x: str) -> str:
+        if self.encoding == "hex":
+            return "'not an even number of hex digits'"
+        return "'not padded base64 (RFC 4648 section 4)'"
+
+    def render(self, v: str) -> str:
+        return f"to_base64({v})"

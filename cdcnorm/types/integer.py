@@ -1,0 +1,21 @@
+from __future__ import annotations
+
+from cdcnorm.types.base import FieldType
+
+PATTERN = "'[+-]?[0-9]+'"
+
+
+class IntegerType(FieldType):
+    """64-bit signed integer; values outside [-2**63, 2**63-1] are rejected, never wrapped."""
+
+    name = "integer"
+    sql_type = "BIGINT"
+
+    def cast(self, x: str) -> str:
+        return f"CASE WHEN regexp_full_match({x}, {PATTERN}) THEN TRY_CAST({x} AS BIGINT) END"
+
+    def explain(self, x: str) -> str:
+        return (
+            f"CASE WHEN NOT regexp_full_match({x}, {PATTERN}) THEN 'not an integer' "
+            "ELSE 'outside the 64-bit integer range' END"
+        )

@@ -1,0 +1,66 @@
+from __future__ import annotations
+
+from cdcnorm.sql import lit
+from cdcnorm.types.base import FieldType
+
+# RFC 3339 date-time (section 5.6) with ISO 8601's space separator, lower-case
+# t/z and +hh / +hhmm offsets also accepted. The fraction may have any length,
+# but digits past microseconds must be zeros: nothing is truncated silently.
+# Seconds may be 60 (a leap second): it is taken as the first instant of the
+# next minute, as PostgreSQL does, since POSIX time has no value for it.
+PATTERN = (
+    r"'[0-9]{4}-(0[1-9]|1[0-2])-[0-3][0-9][Tt ]([01][0-9]|2[0-3]):[0-5][0-9]:([0-5][0-9]|60)"
+    r"(\.[0-9]{1,6}0*)?([Zz]|[+-]([01][0-9]|2[0-3])(:?[0-5][0-9])?)?'"
+)
+HAS_OFFSET = r"'.*([Zz]|[+-][0-9]{2}(:?[0-9]{2})?)$'"
+
+
+def normalise_zone(zone: str) -> str:
+    return "+00:00" if zone in ("Z", "UTC") else zone
+
+
+def timestamp_cast(x: str, zone: str) -> str:
+    """SQL: raw text -> TIMESTAMPTZ in UTC, NULL when invalid."""
+    upper = f"upper({x})"
+    leap = f"regexp_full_match({x}, '.{{17}}60.*')"
+    unleaped = f"CASE WHEN {leap} THEN substr({upper}, 1, 17) || '59' || substr({upper}, 20) ELSE {upper} END"
+    zoned = (
+        f"CASE WHEN regexp_full_match(substr({x}, 20), {HAS_OFFSET}) THEN {unleaped} "
+        f"ELSE {unleaped} || {lit(normalise_zone(zone))} END"
+    )
+    cast = f"TRY_CAST({zoned} AS TIMESTAMPTZ)"
+    return (
+        f"CASE WHEN regexp_full_match({x}, {PATTERN}) THEN "
+        f"CASE WHEN {leap} THEN {cast} + INTERVAL 1 SECOND ELSE {cast} END END"
+    )
+
+
+def timestamp_explain(x: str) -> str:
+    return (
+        rf"CASE WHEN regexp_full_match({x}, '.{{19}}\.[0-9]{{7,}}.*') "
+        "THEN 'more than 6 fractional digits (would truncate)' "
+        f"WHEN regexp_full_match({x}, {PATTERN}) THEN 'no such calendar date' "
+        "ELSE 'not an RFC 3339 timestamp' END"
+    )
+
+
+def timestamp_render(v: str) -> str:
+    """SQL: RFC 3339 in UTC with Z, a fraction only when there is one, without trailing zeros."""
+    return (
+        f"strftime({v}, '%Y-%m-%dT%H:%M:%S') || CASE WHEN epoch_us({v}) % 1000000 = 0 THEN '' "
+        f"ELSE rtrim(strftime({v}, '.%f'), '0') END || 'Z'"
+    )
+
+
+class TimestampType(FieldType):
+    name = "timestamp"
+    sql_type = "TIMESTAMPTZ"
+
+    def cast(self, x: str) -> str:
+        return timestamp_cast(x, self.spec.zone or "+00:00")
+
+    def explain(self, x: str) -> str:
+        return timestamp_explain(x)
+
+    def render(self, v: str) -> str:
+        return timestamp_render(v)

@@ -1,0 +1,20 @@
+"""Events as JSON Lines (RFC 8259), one envelope per line."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import sqlglot
+
+from cdcnorm.engines.duckdb import DuckDBEngine
+from cdcnorm.plan import Plan
+from cdcnorm.sql import PLAN_DIALECT
+from cdcnorm.writers.base import project
+
+FORMAT = "jsonl"
+SUFFIX = ".jsonl"
+
+
+def write(plan: Plan, engine: DuckDBEngine, files_relation: str, path: Path) -> None:
+    query = sqlglot.parse_one(project(plan, files_relation, render=True), read=PLAN_DIALECT)
+    engine.copy(query, path, "json")

@@ -1,0 +1,20 @@
+"""Events as Parquet with native Arrow types (decimal128(p,s), timestamp[us, UTC], ...)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import sqlglot
+
+from cdcnorm.engines.duckdb import DuckDBEngine
+from cdcnorm.plan import Plan
+from cdcnorm.sql import PLAN_DIALECT
+from cdcnorm.writers.base import project
+
+FORMAT = "parquet"
+SUFFIX = ".parquet"
+
+
+def write(plan: Plan, engine: DuckDBEngine, files_relation: str, path: Path) -> None:
+    query = sqlglot.parse_one(project(plan, files_relation, render=False), read=PLAN_DIALECT)
+    engine.copy(query, path, "parquet")

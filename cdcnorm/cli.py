@@ -19,7 +19,7 @@ from cdcnorm.mapping import load_mappings
 from cdcnorm.pipeline import STAGE_NAMES, Options, Result, describe_sources, run
 
 err = Console(stderr=True, highlight=False)
-out = Console(highlight=False, soft_wrap=True)
+out = Console(highlight=False, soft_wrap=True, width=None if sys.stdout.isatty() else 200)
 
 
 class _Parser(argparse.ArgumentParser):

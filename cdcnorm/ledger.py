@@ -9,6 +9,7 @@ before-image, emitted as upserts). ``convert`` checks the balance and says so.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from collections.abc import Callable
 from typing import Any
 
 from cdcnorm.plan import Plan
@@ -90,19 +91,51 @@ class Ledger:
         }
 
 
-def fate_counts(plan: Plan) -> str:
-    """SQL: (__file, fate, n) over every row that reached the type stage."""
-    return (
-        "SELECT __file, fate, count(*) AS n FROM ("
-        f"SELECT __file, 'quarantined' AS fate FROM {plan.rel('typed')} WHERE NOT __ok UNION ALL "
-        f"SELECT __file, CASE WHEN __fate = 'duplicate' THEN 'duplicate' ELSE 'quarantined' END FROM {plan.rel('deduped')} "
-        "WHERE __fate <> 'keep' UNION ALL "
-        "SELECT __file, CASE __role WHEN 'merged' THEN 'merged' WHEN 'unpaired_before' THEN 'quarantined' "
-        f"ELSE 'emitted' END FROM {plan.rel('paired')} UNION ALL "
-        f"SELECT __file, 'unpaired_after' FROM {plan.rel('paired')} WHERE __unpaired_after UNION ALL "
-        f"SELECT __file, CASE __action WHEN 'upsert' THEN 'upserts' ELSE 'deletes' END FROM {plan.rel('events')}"
-        ") GROUP BY __file, fate"
-    )
+def count_fates(plan: Plan, rows: Callable[[str], list[tuple[Any, ...]]], ledger: TableLedger, ids: dict[int, str]) -> None:
+    """Fill each file's fates from small aggregates of the plan's materialised steps.
+
+    Rows that reach the type stage are either bad (quarantined) or good; good
+    rows are duplicates, conflicts (quarantined) or kept; kept before-images are
+    merged (paired, same key), emitted (paired, key changed: a delete) or
+    unpaired (quarantined); every other kept row is emitted as one event.
+    """
+    paired_mode = plan.mapping.mapping.change.updates == "paired"
+    kept: dict[tuple[int, str], int] = {}
+    for file_id, act, ok, n in rows(f"SELECT __file, __act, __ok, count(*) FROM {plan.rel('typed')} GROUP BY ALL"):
+        fc = ledger.files[ids[file_id]]
+        if ok:
+            kept[(file_id, act)] = kept.get((file_id, act), 0) + int(n)
+        else:
+            fc.quarantined += int(n)
+    for file_id, act, fate, n in rows(
+        f"SELECT __file, __act, __fate, count(*) FROM {plan.rel('repeat_fates')} WHERE __fate <> 'keep' GROUP BY ALL"
+    ):
+        fc = ledger.files[ids[file_id]]
+        kept[(file_id, act)] -= int(n)
+        if fate == "duplicate":
+            fc.duplicate += int(n)
+        else:
+            fc.quarantined += int(n)
+    merged: dict[int, int] = {}
+    rekeyed: dict[int, int] = {}
+    for file_id, same_key, n in rows(f"SELECT bf, same_key, count(*) FROM {plan.rel('pairs')} GROUP BY ALL"):
+        (merged if same_key else rekeyed)[file_id] = int(n)
+    after_paired = dict(rows(f"SELECT af, count(*) FROM {plan.rel('pairs')} GROUP BY ALL"))
+    for file_id, name in ids.items():
+        fc = ledger.files[name]
+
+        def k(act: str, file_id: int = file_id) -> int:
+            return kept.get((file_id, act), 0)
+
+        befores = k("before")
+        lonely = befores - merged.get(file_id, 0) - rekeyed.get(file_id, 0)
+        fc.merged += merged.get(file_id, 0)
+        fc.quarantined += lonely
+        fc.emitted += k("insert") + k("snapshot") + k("after") + k("delete") + rekeyed.get(file_id, 0)
+        fc.upserts += k("insert") + k("snapshot") + k("after")
+        fc.deletes += k("delete") + rekeyed.get(file_id, 0)
+        if paired_mode:
+            fc.unpaired_after += k("after") - int(after_paired.get(file_id, 0))
 
 
 def reason_counts(rejected_relation: str) -> str:

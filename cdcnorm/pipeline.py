@@ -337,10 +337,7 @@ def _account(trun: TableRun, engine: DuckDBEngine) -> ledger_mod.TableLedger:
     for src, raw in zip(plan.sources, trun.sources, strict=True):
         fc = ledger_mod.FileCounts(read=raw.rows_read, quarantined=raw.malformed.num_rows)
         tl.files[src.name] = fc
-    fates = engine.rows(sqlglot.parse_one(ledger_mod.fate_counts(plan), read=PLAN_DIALECT))
-    for file_id, fate, n in fates:
-        fc = tl.files[ids[file_id]]
-        setattr(fc, fate, getattr(fc, fate) + int(n))
+    ledger_mod.count_fates(plan, engine.rows, tl, ids)
     for reason, n in engine.rows(ledger_mod.reason_counts(ident(rejected))):
         tl.reasons[str(reason)] = int(n)
     return tl
@@ -376,10 +373,18 @@ def _write(result: Result, options: Options) -> None:
     writer = WRITERS[options.fmt]
     out = options.out
     for table, trun in result.tables.items():
-        writer.write(trun.plan, result.engine, "__files", out / "events" / f"{table}{writer.SUFFIX}")
+        written = writer.write(trun.plan, result.engine, "__files", out / "events" / f"{table}{writer.SUFFIX}")
         qpath = out / "quarantine" / f"{table}.jsonl"
         lines_sql = quarantine.quarantine_lines(trun.plan, _rejected_relation(trun))
         lines = result.engine.arrow(sqlglot.parse_one(lines_sql, read=PLAN_DIALECT))["line"]
+        counts = result.ledger.tables[table].total
+        # The ledger is counted from aggregates; the files are written from the rows themselves.
+        if written != counts.emitted or len(lines) != counts.quarantined:
+            raise LedgerError(
+                f"{table}: wrote {written} events and {len(lines)} quarantine lines, but the ledger counts "
+                f"{counts.emitted} emitted and {counts.quarantined} quarantined rows",
+                hint="this is a bug in cdcnorm; please report it with the inputs",
+            )
         if len(lines):
             _write_lines(lines, qpath)
         elif qpath.exists():

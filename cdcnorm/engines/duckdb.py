@@ -68,14 +68,15 @@ class DuckDBEngine:
     def rows(self, expression: exp.Expression | str) -> list[tuple[Any, ...]]:
         return self.con.execute(self.render(expression)).fetchall()
 
-    def copy(self, expression: exp.Expression, path: Path, fmt: str) -> None:
-        """Write a query's rows to ``path`` atomically (temporary name, then rename)."""
+    def copy(self, expression: exp.Expression, path: Path, fmt: str) -> int:
+        """Write a query's rows to ``path`` atomically (temporary name, then rename); rows written."""
         path.parent.mkdir(parents=True, exist_ok=True)
         tmp = path.with_name(f"{path.name}.tmp-{os.getpid()}")
-        options = {"json": "FORMAT JSON", "parquet": "FORMAT PARQUET, COMPRESSION ZSTD"}[fmt]
+        options = {"json": "FORMAT JSON", "parquet": "FORMAT PARQUET"}[fmt]
         try:
-            self.con.execute(f"COPY ({self.render(expression)}) TO {lit(str(tmp))} ({options})")
+            written = self.con.execute(f"COPY ({self.render(expression)}) TO {lit(str(tmp))} ({options})").fetchone()
             os.replace(tmp, path)
+            return int(written[0]) if written else 0
         finally:
             if tmp.exists():
                 tmp.unlink()

@@ -44,5 +44,5 @@ def build_envelopes(plan: Plan) -> Plan:
            {", ".join(f"CASE WHEN {has_image} THEN e.v{i} END AS p{i}" for i in range(n))}, NULL AS __changed
     FROM {paired} e WHERE e.__act = 'delete'
     """
-    plan = plan.add("envelope", "events", sql, materialize=True)
+    plan = plan.add("envelope", "events", sql)
     return plan

@@ -42,4 +42,4 @@ def pair_images(plan: Plan) -> Plan:
         f"FROM {kept} k LEFT JOIN {p} pa ON k.__file = pa.af AND k.__row = pa.ar "
         f"LEFT JOIN {p} pb ON k.__file = pb.bf AND k.__row = pb.br"
     )
-    return plan.add("pair", "paired", sql, materialize=True)
+    return plan.add("pair", "paired", sql)

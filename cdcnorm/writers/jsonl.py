@@ -15,6 +15,6 @@ FORMAT = "jsonl"
 SUFFIX = ".jsonl"
 
 
-def write(plan: Plan, engine: DuckDBEngine, files_relation: str, path: Path) -> None:
+def write(plan: Plan, engine: DuckDBEngine, files_relation: str, path: Path) -> int:
     query = sqlglot.parse_one(project(plan, files_relation, render=True), read=PLAN_DIALECT)
-    engine.copy(query, path, "json")
+    return engine.copy(query, path, "json")

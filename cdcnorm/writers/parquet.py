@@ -15,6 +15,6 @@ FORMAT = "parquet"
 SUFFIX = ".parquet"
 
 
-def write(plan: Plan, engine: DuckDBEngine, files_relation: str, path: Path) -> None:
+def write(plan: Plan, engine: DuckDBEngine, files_relation: str, path: Path) -> int:
     query = sqlglot.parse_one(project(plan, files_relation, render=False), read=PLAN_DIALECT)
-    engine.copy(query, path, "parquet")
+    return engine.copy(query, path, "parquet")

@@ -111,7 +111,7 @@ class DuckDBEngine:
                 f"THEN '\"' || {key} || '\":\"' || to_base64({col}) || '\"' END"
             )
         enc = f"CASE WHEN concat_ws(',', {', '.join(bad)}) = '' THEN NULL ELSE '{{' || concat_ws(',', {', '.join(bad)}) || '}}' END"
-        rest = [c for c in table.column_names if c not in columns]
+        rest = [c for c in table.column_names if c not in columns and c != "__enc"]
         parts.extend(ident(c) for c in rest)
         out = self.arrow(f"SELECT {', '.join(parts)}, {enc} AS __enc FROM __decode_in")
         self.con.unregister("__decode_in")

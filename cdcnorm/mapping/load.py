@@ -122,6 +122,8 @@ def load_mapping(path: Path) -> LoadedMapping:
             owner = _submodel(loc[:-1])
             if owner is not None:
                 hint = f"valid keys here: {', '.join(_model_keys(owner))}{did_you_mean(str(loc[-1]), _model_keys(owner))}"
+            if str(loc[-1]).endswith(")"):
+                hint = 'inside {...} a comma splits keys: quote a type with a comma, e.g. type: "decimal(12,2)"'
         elif err["type"] == "missing":
             hint = f"add the key {loc[-1]!r}"
         found = err.get("input")

@@ -1,0 +1,133 @@
+"""Readers: RFC 4180 CSV, JSON Lines, Parquet, and bad input that must lose nothing."""
+
+from __future__ import annotations
+
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from tests.conftest import ConvertFn
+
+MAPPING = """
+table: t.notes
+files: ["n*"]
+key: [id]
+change:
+  action: {column: op, codes: {I: insert}}
+  position: {column: pos, kind: integer}
+fields:
+  id: integer
+  a: text
+  b: text
+"""
+
+
+def test_rfc4180_section_2_examples(convert: ConvertFn) -> None:
+    # RFC 4180 section 2: quoted fields may hold CRLF, commas and doubled quotes; spaces are part of
+    # a field; the last record's line break is optional.
+    data = (
+        'op,pos,id,a,b\r\n'
+        'I,1,1,"b\r\nbb","c,cc"\r\n'
+        'I,2,2,"b""bb", bbb \r\n'
+        'I,3,3,aaa,'
+    )
+    done = convert(MAPPING, {"n.csv": data})
+    values = {e["key"]["id"]: e["values"] for e in done.events("t.notes")}
+    assert values[1]["a"] == "b\r\nbb" and values[1]["b"] == "c,cc"
+    assert values[2]["a"] == 'b"bb' and values[2]["b"] == " bbb "
+    assert values[3]["a"] == "aaa" and values[3]["b"] is None  # "a,b," has three fields, the last empty
+    assert [e["origin"]["row"] for e in done.events("t.notes")] == [1, 2, 3]
+
+
+def test_null_versus_quoted_empty_string(convert: ConvertFn) -> None:
+    # PostgreSQL manual, COPY CSV format: an unquoted empty field is NULL, a quoted "" is an empty string
+    done = convert(MAPPING, {"n.csv": 'op,pos,id,a,b\nI,1,1,,""\n'})
+    (e,) = done.events("t.notes")
+    assert e["values"]["a"] is None and e["values"]["b"] == ""
+
+
+def test_null_tokens_apply_unquoted_only(convert: ConvertFn) -> None:
+    mapping = MAPPING + 'nulls: ["", "\\\\N"]\n'
+    done = convert(mapping, {"n.csv": 'op,pos,id,a,b\nI,1,1,\\N,"\\N"\n'})
+    (e,) = done.events("t.notes")
+    assert e["values"]["a"] is None and e["values"]["b"] == "\\N"
+
+
+def test_unbalanced_quote_is_quarantined_with_its_text(convert: ConvertFn) -> None:
+    data = 'op,pos,id,a,b\nI,1,1,x,y\nI,2,2,"open,y\nI,3,3,x,y\n'
+    done = convert(MAPPING, {"n.csv": data})
+    assert [e["key"]["id"] for e in done.events("t.notes")] == [1]
+    (q,) = done.quarantine("t.notes")
+    meta = q["_cdcnorm"]
+    assert meta["row"] == 2 and meta["text"] == 'I,2,2,"open,y\nI,3,3,x,y\n'  # runs to the end of the file
+    assert meta["reasons"][0]["reason"].startswith("unterminated quote")
+    assert done.ledger()["total"]["read"] == 2 and done.ledger()["balanced"]
+
+
+def test_wrong_field_count_keeps_record_numbers(convert: ConvertFn) -> None:
+    data = 'op,pos,id,a,b\nI,1,1,x,y\nI,2,2,x\nI,3,3,"multi\nline",y\nI,4,4,x,y,z\nI,5,5,x,y\n'
+    done = convert(MAPPING, {"n.csv": data})
+    rows = {e["key"]["id"]: e["origin"]["row"] for e in done.events("t.notes")}
+    assert rows == {1: 1, 3: 3, 5: 5}
+    bad = {q["_cdcnorm"]["row"]: q["_cdcnorm"] for q in done.quarantine("t.notes")}
+    assert set(bad) == {2, 4}
+    assert bad[2]["text"] == "I,2,2,x" and bad[2]["reasons"][0]["reason"] == "expected 5 fields, found 4"
+    assert bad[4]["text"] == "I,4,4,x,y,z"
+
+
+def test_invalid_utf8_is_quarantined_with_its_bytes(convert: ConvertFn) -> None:
+    data = b"op,pos,id,a,b\nI,1,1,ok,fine\nI,2,2,caf\xe9,fine\n"
+    done = convert(MAPPING, {"n.csv": data})
+    assert [e["key"]["id"] for e in done.events("t.notes")] == [1]
+    (q,) = done.quarantine("t.notes")
+    assert q["_cdcnorm"]["raw_base64"] == {"a": "Y2Fm6Q=="}  # RFC 4648 base64 of b"caf\xe9"
+    assert q["_cdcnorm"]["reasons"][0]["column"] == "a"
+    assert q["id"] == "2" and q["a"] is None
+
+
+def test_empty_and_header_only_files(convert: ConvertFn) -> None:
+    done = convert(MAPPING, {"n1.csv": "", "n2.csv": "op,pos,id,a,b\n", "n3.csv": "op,pos,id,a,b\nI,1,1,x,y\n"})
+    led = done.ledger()["tables"]["t.notes"]["files"]
+    assert led["n1.csv"]["read"] == 0 and led["n2.csv"]["read"] == 0 and led["n3.csv"]["emitted"] == 1
+
+
+def test_jsonl_nested_flat_and_malformed_lines(convert: ConvertFn) -> None:
+    mapping = """
+    table: t.nested
+    files: ["n*.jsonl"]
+    key: [id]
+    change:
+      action: {column: op, codes: {I: insert}}
+      position: {column: pos, kind: integer}
+    fields:
+      id: {from: after.id, type: integer}
+      price: {from: after.price, type: "decimal(12,2)"}
+      tags: {from: after.tags, type: json}
+    """
+    data = (
+        '{"op": "I", "pos": 1, "after": {"id": 1, "price": 12.34, "tags": ["a"]}}\n'
+        "\n"
+        '{"op": "I", "pos": 2, "after": {"id": 2, "price": 12.345}}\n'
+        "[1, 2]\n"
+        '{"op": "I", "pos": 3, "after": {"id": 3, "price": "7"}\n'
+        '{"op": "I", "pos": 4, "after": {"id": 4, "price": null}}\r\n'
+    )
+    done = convert(mapping, {"n.jsonl": data})
+    ev = {e["key"]["id"]: e for e in done.events("t.nested")}
+    assert ev[1]["values"] == {"id": 1, "price": "12.34", "tags": ["a"]}
+    assert ev[4]["values"]["price"] is None and ev[4]["origin"]["row"] == 6
+    qs = {q["_cdcnorm"]["row"]: q["_cdcnorm"]["reasons"][0]["reason"] for q in done.quarantine("t.nested")}
+    # JSON numbers keep their digits: 12.345 must not be rounded into decimal(12,2)
+    assert qs == {3: "more than 2 fractional digits (would round)", 4: "not a JSON object", 5: "not valid JSON (RFC 8259)"}
+    assert done.ledger()["total"]["read"] == 5
+
+
+def test_parquet_dump(convert: ConvertFn, tmp_path: object) -> None:
+    table = pa.table({"op": ["I", "I"], "pos": [1, 2], "id": [1, 2], "a": ["x", None], "b": [b"\x00\x01", b""]})
+    import io
+
+    buf = io.BytesIO()
+    pq.write_table(table, buf)
+    mapping = MAPPING.replace("b: text", "b: {type: bytes, encoding: hex}")
+    done = convert(mapping, {"n.parquet": buf.getvalue()})
+    ev = {e["key"]["id"]: e["values"] for e in done.events("t.notes")}
+    assert ev[1] == {"id": 1, "a": "x", "b": "AAE="} and ev[2]["a"] is None and ev[2]["b"] == ""

@@ -1,0 +1,169 @@
+"""Field types against published standards and reference libraries."""
+
+from __future__ import annotations
+
+import base64
+import datetime as dt
+import json
+import uuid
+from decimal import ROUND_HALF_UP, Decimal, InvalidOperation
+
+import pytest
+
+from tests.conftest import ConvertFn
+from tests.typing_helper import type_values
+
+
+def test_rfc3339_section_5_8_examples(convert: ConvertFn) -> None:
+    # RFC 3339 section 5.8 examples; UTC instants as stated in the RFC / computed with Python datetime.
+    raw = [
+        "1985-04-12T23:20:50.52Z",
+        "1996-12-19T16:39:57-08:00",
+        "1990-12-31T23:59:60Z",
+        "1990-12-31T15:59:60-08:00",
+        "1937-01-01T12:00:27.87+00:20",
+    ]
+    got = type_values(convert, "timestamp", raw)
+    assert [v for v, _ in got] == [
+        "1985-04-12T23:20:50.52Z",
+        "1996-12-20T00:39:57Z",  # stated in RFC 3339 section 5.8
+        # leap second policy (documented): the first instant of the next minute, as PostgreSQL does
+        "1991-01-01T00:00:00Z",
+        "1991-01-01T00:00:00Z",  # RFC 3339: the same leap second as the one above
+        "1937-01-01T11:40:27.87Z",
+    ]
+    # Unix time 482196050.52 for the first example (RFC 3339 section 5.8), checked with Python datetime
+    first = dt.datetime.fromisoformat(got[0][0].replace("Z", "+00:00"))
+    assert first.timestamp() == pytest.approx(482196050.52)
+    assert dt.datetime.fromisoformat("1996-12-20T00:39:57+00:00").timestamp() == 851042397
+
+
+def test_timestamp_forms_and_rejections(convert: ConvertFn) -> None:
+    raw = [
+        "2026-03-01t08:00:00z",  # RFC 3339 section 5.6 note: t and z may be lower case
+        "2026-03-01 08:00:00",  # no offset: the field's zone (+00:00)
+        "2026-03-01T08:00:00-00:00",  # RFC 3339 section 4.3: -00:00 is UTC, unknown local offset
+        "2026-03-01T08:00:00.1234560000Z",  # fraction of any length (section 5.6), zeros past microseconds
+        "2026-03-01T08:00:00.1234567Z",  # would truncate: rejected
+        "2026-02-30T08:00:00Z",  # no such day
+        "2026-03-01T24:00:00Z",  # hours are 00-23 (section 5.6)
+        "01/03/2026 08:00",
+    ]
+    got = type_values(convert, "timestamp", raw)
+    assert got[0] == ("2026-03-01T08:00:00Z", None)
+    assert got[1] == ("2026-03-01T08:00:00Z", None)
+    assert got[2] == ("2026-03-01T08:00:00Z", None)
+    assert got[3] == ("2026-03-01T08:00:00.123456Z", None)
+    assert got[4][1] == "more than 6 fractional digits (would truncate)"
+    assert got[5][1] == "no such calendar date"
+    assert got[6][1] == "not an RFC 3339 timestamp"
+    assert got[7][1] == "not an RFC 3339 timestamp"
+
+
+def test_timestamp_zone_for_values_without_offset(convert: ConvertFn) -> None:
+    got = type_values(convert, '{type: timestamp, zone: "+02:00"}', ["2026-03-01T08:00:00", "2026-03-01T08:00:00Z"])
+    assert [v for v, _ in got] == ["2026-03-01T06:00:00Z", "2026-03-01T08:00:00Z"]
+
+
+EXACT = ["12.34", "123.4", "12.340000", "+7", ".5", "1E+3", "9999999999.99", "-9999999999.99", "0", "-0.10"]
+ROUNDING = ["12.345", "12.365", "0.005", "0.125", "1.005"]
+OVERFLOW = ["9999999999.995", "10000000000", "1E+10"]
+INVALID = ["NaN", "Infinity", "1,234.56", "1_000", "", " 12.34", "12.34.5", "e5"]
+
+
+def test_decimal_12_2_against_python_decimal(convert: ConvertFn) -> None:
+    # Values from shared reference-values.md (Python decimal and PostgreSQL numeric, run); the
+    # TPC-H specification clause 1.3.1 domain is DECIMAL(12,2). Every accepted value must equal
+    # Python's exact Decimal quantized to 2 places with no rounding; nothing else may pass.
+    raw = EXACT + ROUNDING + OVERFLOW + INVALID
+    got = dict(zip(raw, type_values(convert, "decimal(12,2)", raw), strict=True))
+    for text in EXACT:
+        value, reason = got[text]
+        assert reason is None, text
+        exact = Decimal(text)
+        assert exact.quantize(Decimal("0.01")) == exact  # no rounding needed (Python decimal)
+        assert value == str(exact.quantize(Decimal("0.01")))  # string with exactly the declared scale
+    for text in ROUNDING:
+        assert got[text] == (None, "more than 2 fractional digits (would round)"), text
+    for text in OVERFLOW:
+        assert got[text][0] is None and got[text][1] is not None, text
+        # Python decimal: even rounded, the value needs more than 10 integer digits
+        assert abs(Decimal(text).quantize(Decimal("0.01"), rounding=ROUND_HALF_UP)) >= Decimal("1E+10")
+    for text in INVALID:
+        assert got[text][0] is None, text
+    # Python's decimal parses NaN and Infinity but they are not finite; 1,234.56 is no number at all
+    assert not Decimal("NaN").is_finite() and not Decimal("Infinity").is_finite()
+    with pytest.raises(InvalidOperation):
+        Decimal("1,234.56")
+
+
+def test_decimal_scale_is_exact_in_output(convert: ConvertFn) -> None:
+    got = type_values(convert, "decimal(5,3)", ["1", "1.5", "-12.125", "99.9999"])
+    assert [v for v, _ in got[:3]] == ["1.000", "1.500", "-12.125"]
+    assert got[3][1] == "more than 3 fractional digits (would round)"
+
+
+def test_rfc4648_section_10_base64_and_base16(convert: ConvertFn) -> None:
+    # RFC 4648 section 10 test vectors; emitted as base64 (checked with Python base64)
+    plain = [b"", b"f", b"fo", b"foo", b"foob", b"fooba", b"foobar"]
+    b64 = ["", "Zg==", "Zm8=", "Zm9v", "Zm9vYg==", "Zm9vYmE=", "Zm9vYmFy"]
+    b16 = ["", "66", "666F", "666F6F", "666F6F62", "666F6F6261", "666F6F626172"]
+    got64 = type_values(convert, "{type: bytes, encoding: base64}", b64)
+    got16 = type_values(convert, "{type: bytes, encoding: hex}", [*b16, "666f6f"])
+    for p, (value, reason) in zip(plain, got64, strict=True):
+        assert reason is None and base64.b64decode(value) == p == base64.b64decode(base64.b64encode(p))
+    for p, (value, reason) in zip([*plain, b"foo"], got16, strict=True):
+        assert reason is None and base64.b64decode(value) == p
+    # RFC 4648 section 3.3: characters outside the alphabet are rejected; section 4: padding
+    bad = type_values(convert, "{type: bytes, encoding: base64}", ["Zm9v!", "Zg=", "Zm9vY", "Zm 9v"])
+    assert all(v is None for v, _ in bad)
+    bad16 = type_values(convert, "{type: bytes, encoding: hex}", ["6", "6G", "0x66"])
+    assert all(v is None for v, _ in bad16)
+
+
+def test_rfc9562_uuid_forms(convert: ConvertFn) -> None:
+    # RFC 9562 Appendix A vectors (v3 and v5 of www.example.com in the DNS namespace, run with
+    # Python uuid), the Nil and Max UUIDs (section 5.9, 5.10); lower case on output.
+    v3 = str(uuid.uuid3(uuid.NAMESPACE_DNS, "www.example.com"))
+    v5 = str(uuid.uuid5(uuid.NAMESPACE_DNS, "www.example.com"))
+    assert v3 == "5df41881-3aed-3515-88a7-2f4a814cf09e" and v5 == "2ed6657d-e927-568b-95e1-2665a8aea6a2"
+    raw = [v3.upper(), v5, "00000000-0000-0000-0000-000000000000", "FFFFFFFF-FFFF-FFFF-FFFF-FFFFFFFFFFFF"]
+    got = type_values(convert, "uuid", [*raw, "5df418813aed351588a72f4a814cf09e", "{5df41881-3aed-3515-88a7-2f4a814cf09e}", "not-a-uuid"])
+    assert [v for v, _ in got[:4]] == [v3, v5, "00000000-0000-0000-0000-000000000000", "ffffffff-ffff-ffff-ffff-ffffffffffff"]
+    assert all(v is None for v, _ in got[4:])
+
+
+def test_integer_is_64_bit_and_never_wraps(convert: ConvertFn) -> None:
+    # 2**63 - 1 and -2**63 are the 64-bit limits (common practice: SQL BIGINT)
+    raw = [str(2**63 - 1), str(-(2**63)), str(2**63), "+42", "007", "4.0", "1e3", " 1", ""]
+    got = type_values(convert, "integer", raw)
+    assert [v for v, _ in got[:2]] == [2**63 - 1, -(2**63)]
+    assert got[2] == (None, "outside the 64-bit integer range")
+    assert got[3] == (42, None) and got[4] == (7, None)
+    assert all(r == "not an integer" for _, r in got[5:])
+
+
+def test_boolean_spellings(convert: ConvertFn) -> None:
+    raw = ["true", "FALSE", "t", "F", "1", "0", "Yes", "no", "maybe", "y"]
+    got = type_values(convert, "boolean", raw)
+    assert [v for v, _ in got[:8]] == [True, False, True, False, True, False, True, False]
+    assert got[8][0] is None and got[9][0] is None
+
+
+def test_float_date_time_text_json(convert: ConvertFn) -> None:
+    f = type_values(convert, "float", ["0.1", "-2.5e-3", "1e308", "1e309", "NaN", "inf"])
+    assert [v for v, _ in f[:3]] == [0.1, -0.0025, 1e308]
+    assert all(v is None for v, _ in f[3:])
+    d = type_values(convert, "date", ["2024-02-29", "2023-02-29", "2024-2-1"])
+    assert d[0] == ("2024-02-29", None)  # 2024 is a leap year (Python datetime agrees)
+    assert dt.date(2024, 2, 29).isoformat() == "2024-02-29"
+    assert d[1][1] == "no such calendar date" and d[2][1] == "not a YYYY-MM-DD date"
+    t = type_values(convert, "time", ["08:00:00", "23:59:59.5", "24:00:00", "08:00:00.1234567"])
+    assert [v for v, _ in t[:2]] == ["08:00:00", "23:59:59.5"]
+    assert t[2][0] is None and t[3][1] == "more than 6 fractional digits (would truncate)"
+    x = type_values(convert, "text(5)", ["abcde", "abcdef", "ÅÄÖåä"])
+    assert x[0] == ("abcde", None) and x[1][1] == "longer than 5 characters" and x[2] == ("ÅÄÖåä", None)
+    j = type_values(convert, "json", ['{"a": [1, 2.50, null]}', "[1,", "12345678901234567890"])
+    # RFC 8259: parsed and embedded, numbers keep their digits
+    assert j[0][0] == json.loads('{"a": [1, 2.50, null]}') and j[1][0] is None
+    assert j[2][0] == 12345678901234567890

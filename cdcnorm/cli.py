@@ -18,7 +18,7 @@ from cdcnorm.errors import EXIT_OK, CdcnormError, UsageError
 from cdcnorm.mapping import load_mappings
 from cdcnorm.pipeline import STAGE_NAMES, Options, Result, describe_sources, run
 
-err = Console(stderr=True, highlight=False)
+err = Console(stderr=True, highlight=False, width=None if sys.stderr.isatty() else 200)
 out = Console(highlight=False, soft_wrap=True, width=None if sys.stdout.isatty() else 200)
 
 
@@ -30,15 +30,21 @@ class _Parser(argparse.ArgumentParser):
 def _conversion_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("inputs", nargs="+", help="dump files or folders of dump files (CSV, JSON Lines, Parquet)")
     p.add_argument("--mappings", default="mappings", help="folder of mapping files (default: mappings/)")
-    p.add_argument("--input-format", choices=["csv", "jsonl", "parquet"], help="read every input as this format")
-    p.add_argument("--memory-limit", help="engine memory limit, e.g. 2GB (the engine spills to disk beyond it)")
+    p.add_argument(
+        "--input-format", choices=["csv", "jsonl", "parquet"], help="read every input as this format"
+    )
+    p.add_argument(
+        "--memory-limit", help="engine memory limit, e.g. 2GB (the engine spills to disk beyond it)"
+    )
     p.add_argument("--threads", type=int, help="engine threads (default: all cores)")
     p.add_argument("--json", action="store_true", help="print the result as JSON on stdout")
     p.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = _Parser(prog="cdcnorm", description="Normalise CDC dumps into upsert/delete envelopes; trace column lineage.")
+    parser = _Parser(
+        prog="cdcnorm", description="Normalise CDC dumps into upsert/delete envelopes; trace column lineage."
+    )
     parser.add_argument("--version", action="version", version=f"cdcnorm {__version__}")
     sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
 
@@ -48,8 +54,12 @@ def build_parser() -> argparse.ArgumentParser:
     conv = sub.add_parser("convert", help="convert dumps into envelopes, quarantine and ledger")
     _conversion_args(conv)
     conv.add_argument("--out", default="build", help="output folder (default: build/)")
-    conv.add_argument("--format", dest="fmt", choices=["jsonl", "parquet"], default="jsonl", help="event file format")
-    conv.add_argument("--max-rejects", type=int, default=0, help="exit 5 when more rows are quarantined (0: no limit)")
+    conv.add_argument(
+        "--format", dest="fmt", choices=["jsonl", "parquet"], default="jsonl", help="event file format"
+    )
+    conv.add_argument(
+        "--max-rejects", type=int, default=0, help="exit 5 when more rows are quarantined (0: no limit)"
+    )
     conv.add_argument("--show-plan", action="store_true", help="print each table's plan as SQL and stop")
     conv.add_argument("--stop-after", choices=STAGE_NAMES, help="run up to this stage and show its output")
     conv.add_argument("--limit", type=int, default=20, help="rows shown by --stop-after (default 20)")
@@ -57,7 +67,9 @@ def build_parser() -> argparse.ArgumentParser:
 
     sub.add_parser("mapping-schema", help="print the JSON Schema of mapping files (for editors)")
 
-    demo = sub.add_parser("demo", help="convert the example dumps with the example mappings and print the ledger")
+    demo = sub.add_parser(
+        "demo", help="convert the example dumps with the example mappings and print the ledger"
+    )
     demo.add_argument("--out", default="build/demo", help="output folder (default: build/demo)")
     demo.add_argument("--root", default=".", help="project folder holding examples/ and mappings/")
 
@@ -70,7 +82,14 @@ def build_parser() -> argparse.ArgumentParser:
 def _progress(quiet: bool) -> tuple[Progress | None, Any]:
     if quiet or not err.is_terminal:
         return None, lambda label, done, total: None
-    bar = Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.completed}/{task.total}"), TimeElapsedColumn(), console=err, transient=True)
+    bar = Progress(
+        TextColumn("{task.description}"),
+        BarColumn(),
+        TextColumn("{task.completed}/{task.total}"),
+        TimeElapsedColumn(),
+        console=err,
+        transient=True,
+    )
     task = bar.add_task("cdcnorm", total=1)
 
     def update(label: str, done: int, total: int) -> None:
@@ -81,13 +100,57 @@ def _progress(quiet: bool) -> tuple[Progress | None, Any]:
 
 def _ledger_table(result: Result) -> Table:
     t = Table(title="row ledger (read = emitted + merged + duplicate + quarantined)")
-    for col in ("table", "file", "read", "emitted", "merged", "duplicate", "quarantined", "upserts", "deletes", "unpaired"):
+    for col in (
+        "table",
+        "file",
+        "read",
+        "emitted",
+        "merged",
+        "duplicate",
+        "quarantined",
+        "upserts",
+        "deletes",
+        "unpaired",
+    ):
         t.add_column(col, justify="left" if col in ("table", "file") else "right")
     for name, tl in sorted(result.ledger.tables.items()):
         for fname, c in sorted(tl.files.items()):
-            t.add_row(name, fname, *(str(v) for v in (c.read, c.emitted, c.merged, c.duplicate, c.quarantined, c.upserts, c.deletes, c.unpaired_after)))
+            t.add_row(
+                name,
+                fname,
+                *(
+                    str(v)
+                    for v in (
+                        c.read,
+                        c.emitted,
+                        c.merged,
+                        c.duplicate,
+                        c.quarantined,
+                        c.upserts,
+                        c.deletes,
+                        c.unpaired_after,
+                    )
+                ),
+            )
     c = result.ledger.total
-    t.add_row("all", "", *(str(v) for v in (c.read, c.emitted, c.merged, c.duplicate, c.quarantined, c.upserts, c.deletes, c.unpaired_after)), style="bold")
+    t.add_row(
+        "all",
+        "",
+        *(
+            str(v)
+            for v in (
+                c.read,
+                c.emitted,
+                c.merged,
+                c.duplicate,
+                c.quarantined,
+                c.upserts,
+                c.deletes,
+                c.unpaired_after,
+            )
+        ),
+        style="bold",
+    )
     return t
 
 
@@ -119,8 +182,8 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
         write=not check,
     )
     if getattr(args, "show_plan", False):
-        from cdcnorm.pipeline import compile_table, expand_inputs, read_all, route
         from cdcnorm.engines.duckdb import DuckDBEngine
+        from cdcnorm.pipeline import compile_table, expand_inputs, read_all, route
 
         engine = DuckDBEngine()
         routed = route(expand_inputs(args.inputs), mappings)
@@ -149,12 +212,22 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
     if check:
         return _report_check(result, args)
     if args.json:
-        out.print_json(json.dumps({"ledger": result.ledger.as_dict(), "outputs": {k: str(v) for k, v in result.outputs.items()}}))
+        out.print_json(
+            json.dumps(
+                {"ledger": result.ledger.as_dict(), "outputs": {k: str(v) for k, v in result.outputs.items()}}
+            )
+        )
     elif not args.quiet:
         out.print(_ledger_table(result))
         out.print(f"ledger balanced: {result.ledger.total.read} rows read, every row accounted for")
-        out.print(f"events in {Path(args.out) / 'events'}; ledger in {Path(args.out) / 'ledger.json'}"
-                  + (f"; {result.quarantined} quarantined rows in {Path(args.out) / 'quarantine'}" if result.quarantined else ""))
+        out.print(
+            f"events in {Path(args.out) / 'events'}; ledger in {Path(args.out) / 'ledger.json'}"
+            + (
+                f"; {result.quarantined} quarantined rows in {Path(args.out) / 'quarantine'}"
+                if result.quarantined
+                else ""
+            )
+        )
     return EXIT_OK
 
 
@@ -176,7 +249,9 @@ def _report_check(result: Result, args: argparse.Namespace) -> int:
             tl = result.ledger.tables.get(s["table"])
             fc = tl.files.get(s["file"]) if tl else None
             t.add_row(
-                s["table"], s["file"], str(s["rows"]),
+                s["table"],
+                s["file"],
+                str(s["rows"]),
                 str(fc.emitted + fc.merged + fc.duplicate) if fc else "-",
                 str(fc.quarantined) if fc else "-",
                 ", ".join(s["unmapped_columns"]) or "-",
@@ -193,9 +268,20 @@ def _report_check(result: Result, args: argparse.Namespace) -> int:
 def cmd_demo(args: argparse.Namespace) -> int:
     root = Path(args.root)
     ns = argparse.Namespace(
-        mappings=str(root / "mappings"), inputs=[str(root / "examples" / "dumps")], out=args.out, fmt="jsonl",
-        max_rejects=0, memory_limit=None, threads=None, input_format=None, json=False, quiet=False,
-        show_plan=False, stop_after=None, limit=20, table=None,
+        mappings=str(root / "mappings"),
+        inputs=[str(root / "examples" / "dumps")],
+        out=args.out,
+        fmt="jsonl",
+        max_rejects=0,
+        memory_limit=None,
+        threads=None,
+        input_format=None,
+        json=False,
+        quiet=False,
+        show_plan=False,
+        stop_after=None,
+        limit=20,
+        table=None,
     )
     code = cmd_convert(ns)
     if code == EXIT_OK:

@@ -8,8 +8,8 @@ before-image, emitted as upserts). ``convert`` checks the balance and says so.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
 from collections.abc import Callable
+from dataclasses import dataclass, field
 from typing import Any
 
 from cdcnorm.plan import Plan
@@ -91,7 +91,9 @@ class Ledger:
         }
 
 
-def count_fates(plan: Plan, rows: Callable[[str], list[tuple[Any, ...]]], ledger: TableLedger, ids: dict[int, str]) -> None:
+def count_fates(
+    plan: Plan, rows: Callable[[str], list[tuple[Any, ...]]], ledger: TableLedger, ids: dict[int, str]
+) -> None:
     """Fill each file's fates from small aggregates of the plan's materialised steps.
 
     Rows that reach the type stage are either bad (quarantined) or good; good
@@ -101,7 +103,9 @@ def count_fates(plan: Plan, rows: Callable[[str], list[tuple[Any, ...]]], ledger
     """
     paired_mode = plan.mapping.mapping.change.updates == "paired"
     kept: dict[tuple[int, str], int] = {}
-    for file_id, act, ok, n in rows(f"SELECT __file, __act, __ok, count(*) FROM {plan.rel('typed')} GROUP BY ALL"):
+    for file_id, act, ok, n in rows(
+        f"SELECT __file, __act, __ok, count(*) FROM {plan.rel('typed')} GROUP BY ALL"
+    ):
         fc = ledger.files[ids[file_id]]
         if ok:
             kept[(file_id, act)] = kept.get((file_id, act), 0) + int(n)
@@ -139,6 +143,4 @@ def count_fates(plan: Plan, rows: Callable[[str], list[tuple[Any, ...]]], ledger
 
 
 def reason_counts(rejected_relation: str) -> str:
-    return (
-        f"SELECT r.reason, count(*) FROM (SELECT unnest(reasons) AS r FROM {rejected_relation}) GROUP BY r.reason"
-    )
+    return f"SELECT r.reason, count(*) FROM (SELECT unnest(reasons) AS r FROM {rejected_relation}) GROUP BY r.reason"

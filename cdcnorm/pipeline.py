@@ -117,7 +117,9 @@ class Result:
         from cdcnorm.writers.base import project
 
         run = self.tables[table]
-        return self.engine.arrow(sqlglot.parse_one(project(run.plan, "__files", render=render), read=PLAN_DIALECT))
+        return self.engine.arrow(
+            sqlglot.parse_one(project(run.plan, "__files", render=render), read=PLAN_DIALECT)
+        )
 
 
 def route(files: Iterable[Path], mappings: Sequence[LoadedMapping]) -> dict[str, list[Path]]:
@@ -136,7 +138,9 @@ def route(files: Iterable[Path], mappings: Sequence[LoadedMapping]) -> dict[str,
                 file=str(path),
                 expected="a file name matching one of " + ", ".join(globs),
                 found=path.name,
-                hint=f"closest mapping pattern: {near}" if near else "add its pattern to a mapping's files list",
+                hint=f"closest mapping pattern: {near}"
+                if near
+                else "add its pattern to a mapping's files list",
             )
         if len(matches) > 1:
             raise InputError(
@@ -175,7 +179,11 @@ def _display_names(files: list[Path]) -> dict[Path, str]:
 
 
 def read_all(
-    mappings: Sequence[LoadedMapping], routed: dict[str, list[Path]], engine: DuckDBEngine, options: Options, progress: Progress
+    mappings: Sequence[LoadedMapping],
+    routed: dict[str, list[Path]],
+    engine: DuckDBEngine,
+    options: Options,
+    progress: Progress,
 ) -> dict[str, list[RawSource]]:
     all_files = [p for ps in routed.values() for p in ps]
     names = _display_names(all_files)
@@ -206,7 +214,8 @@ def find_drift(mapping: LoadedMapping, sources: list[RawSource]) -> tuple[list[D
         for col in wanted:
             if col not in src.columns:
                 fields = [f for f in m.fields if m.raw_column(f) == col] or [roles.get(col, col)]
-                drift.append(Drift(src.name, m.table, fields[0], col, closest(col, src.columns)))
+                spare = [c for c in src.columns if c not in wanted]  # a renamed column is not mapped yet
+                drift.append(Drift(src.name, m.table, fields[0], col, closest(col, spare)))
         unmapped[src.name] = [
             c for c in src.columns if c not in wanted and not c.startswith(quarantine.META_KEY)
         ]
@@ -273,11 +282,18 @@ def run(
             field=d.field,
             expected=f"a column named {d.column!r}",
             found="columns " + ", ".join(next(s.columns for s in runs[d.table].sources if s.name == d.file)),
-            hint=f'did you mean "{d.suggestion}"? (or set fields.{d.field}.from)' if d.suggestion else "rename the column or fix the mapping",
+            hint=f'did you mean "{d.suggestion}"? (or set fields.{d.field}.from)'
+            if d.suggestion
+            else "rename the column or fix the mapping",
         )
     engine.register(
         "__files",
-        pa.table({"id": pa.array([i for i, _ in file_names], pa.int64()), "name": pa.array([n for _, n in file_names], pa.string())}),
+        pa.table(
+            {
+                "id": pa.array([i for i, _ in file_names], pa.int64()),
+                "name": pa.array([n for _, n in file_names], pa.string()),
+            }
+        ),
     )
     result = Result(engine, runs, ledger_mod.Ledger(), drifts, stopped_after=stop_after)
     if stop_after == "read":
@@ -331,7 +347,9 @@ def _account(trun: TableRun, engine: DuckDBEngine) -> ledger_mod.TableLedger:
             engine.register(rel, raw.malformed)
             malformed[src.file_id] = rel
     rejected = _rejected_relation(trun)
-    engine.materialize(rejected, sqlglot.parse_one(quarantine.rejected_rows(plan, malformed), read=PLAN_DIALECT))
+    engine.materialize(
+        rejected, sqlglot.parse_one(quarantine.rejected_rows(plan, malformed), read=PLAN_DIALECT)
+    )
     tl = ledger_mod.TableLedger(trun.mapping.table)
     ids = {s.file_id: s.name for s in plan.sources}
     for src, raw in zip(plan.sources, trun.sources, strict=True):
@@ -373,7 +391,9 @@ def _write(result: Result, options: Options) -> None:
     writer = WRITERS[options.fmt]
     out = options.out
     for table, trun in result.tables.items():
-        written = writer.write(trun.plan, result.engine, "__files", out / "events" / f"{table}{writer.SUFFIX}")
+        written = writer.write(
+            trun.plan, result.engine, "__files", out / "events" / f"{table}{writer.SUFFIX}"
+        )
         qpath = out / "quarantine" / f"{table}.jsonl"
         lines_sql = quarantine.quarantine_lines(trun.plan, _rejected_relation(trun))
         lines = result.engine.arrow(sqlglot.parse_one(lines_sql, read=PLAN_DIALECT))["line"]

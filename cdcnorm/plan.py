@@ -31,7 +31,7 @@ class Step:
     stage: str
     name: str
     relation: str
-    expression: exp.Expression
+    expression: exp.Expr
     materialize: bool
 
 
@@ -75,5 +75,7 @@ class Plan:
         for s in self.steps:
             kind = "TABLE" if s.materialize else "VIEW"
             out.append(f"-- stage {s.stage}: {s.name}")
-            out.append(f"CREATE TEMP {kind} {ident(s.relation)} AS\n{s.expression.sql(dialect=dialect, pretty=True)};")
+            out.append(
+                f"CREATE TEMP {kind} {ident(s.relation)} AS\n{s.expression.sql(dialect=dialect, pretty=True)};"
+            )
         return "\n".join(out)

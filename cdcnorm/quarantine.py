@@ -16,7 +16,9 @@ from cdcnorm.sql import ident, lit
 
 META_KEY = "_cdcnorm"
 
-_NO_REASONS = "CAST([] AS STRUCT(field VARCHAR, \"column\" VARCHAR, expected VARCHAR, found VARCHAR, reason VARCHAR)[])"
+_NO_REASONS = (
+    'CAST([] AS STRUCT(field VARCHAR, "column" VARCHAR, expected VARCHAR, found VARCHAR, reason VARCHAR)[])'
+)
 
 
 def _reason(expected: str, found: str, reason: str) -> str:
@@ -33,9 +35,15 @@ def rejected_rows(plan: Plan, malformed: dict[int, str]) -> str:
     """
     paired_mode = plan.mapping.mapping.change.updates == "paired"
     unpaired = (
-        "'before-image without an after-image at its position'" if paired_mode else "'before-image in an after-only mapping'"
+        "'before-image without an after-image at its position'"
+        if paired_mode
+        else "'before-image in an after-only mapping'"
     )
-    conflict = _reason(lit("one version per (position, action, key)"), "CAST(__versions AS VARCHAR) || ' versions'", lit("conflict"))
+    conflict = _reason(
+        lit("one version per (position, action, key)"),
+        "CAST(__versions AS VARCHAR) || ' versions'",
+        lit("conflict"),
+    )
     lonely = _reason(lit("an after-image at the same position"), "__position", unpaired)
     parts = [
         f"SELECT __file, __row, reasons, CAST(NULL AS VARCHAR) AS text FROM {plan.rel('rejects')}",

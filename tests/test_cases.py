@@ -23,7 +23,9 @@ ALL = sorted(p for p in CASES.glob("*/*") if (p / "mapping.yaml").exists())
 
 
 def _files(folder: Path) -> dict[str, bytes]:
-    return {p.relative_to(folder).as_posix(): p.read_bytes() for p in sorted(folder.rglob("*")) if p.is_file()}
+    return {
+        p.relative_to(folder).as_posix(): p.read_bytes() for p in sorted(folder.rglob("*")) if p.is_file()
+    }
 
 
 @pytest.mark.parametrize("case", ALL, ids=[f"{p.parent.name}/{p.name}" for p in ALL])

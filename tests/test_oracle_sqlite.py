@@ -75,8 +75,14 @@ def workload(db: sqlite3.Connection, rng: random.Random, steps: int) -> None:
             )
             next_id += 1
         elif roll < 0.65:
-            db.execute("UPDATE berths SET fee = ?, note = ? WHERE berth_id = ?",
-                       (f"{rng.randint(0, 99999)}.{rng.randint(0, 99):02d}", rng.choice([None, "resurfaced"]), rng.choice(live)))
+            db.execute(
+                "UPDATE berths SET fee = ?, note = ? WHERE berth_id = ?",
+                (
+                    f"{rng.randint(0, 99999)}.{rng.randint(0, 99):02d}",
+                    rng.choice([None, "resurfaced"]),
+                    rng.choice(live),
+                ),
+            )
         elif roll < 0.75:
             db.execute("UPDATE berths SET berth_id = ? WHERE berth_id = ?", (next_id, rng.choice(live)))
             next_id += 1
@@ -153,7 +159,13 @@ def test_convert_reproduces_the_sqlite_change_log(tmp_path: Path, seed: int) -> 
         else:
             state.pop(e["key"]["berth_id"])
     final = {
-        r[0]: {"berth_id": r[0], "harbour": r[1], "fee": None if r[2] is None else str(Decimal(r[2])), "length_m": r[3], "note": r[4]}
+        r[0]: {
+            "berth_id": r[0],
+            "harbour": r[1],
+            "fee": None if r[2] is None else str(Decimal(r[2])),
+            "length_m": r[3],
+            "note": r[4],
+        }
         for r in db.execute("SELECT * FROM berths")
     }
     assert state == final

@@ -7,7 +7,9 @@ import random
 from tests.conftest import ConvertFn
 
 
-def _positions(convert: ConvertFn, kind: str, raw: list[str], extra: str = "") -> tuple[list[str], dict[str, str]]:
+def _positions(
+    convert: ConvertFn, kind: str, raw: list[str], extra: str = ""
+) -> tuple[list[str], dict[str, str]]:
     mapping = f"""
     table: t.pos
     files: ["p*.csv"]

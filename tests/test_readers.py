@@ -24,12 +24,7 @@ fields:
 def test_rfc4180_section_2_examples(convert: ConvertFn) -> None:
     # RFC 4180 section 2: quoted fields may hold CRLF, commas and doubled quotes; spaces are part of
     # a field; the last record's line break is optional.
-    data = (
-        'op,pos,id,a,b\r\n'
-        'I,1,1,"b\r\nbb","c,cc"\r\n'
-        'I,2,2,"b""bb", bbb \r\n'
-        'I,3,3,aaa,'
-    )
+    data = 'op,pos,id,a,b\r\nI,1,1,"b\r\nbb","c,cc"\r\nI,2,2,"b""bb", bbb \r\nI,3,3,aaa,'
     done = convert(MAPPING, {"n.csv": data})
     values = {e["key"]["id"]: e["values"] for e in done.events("t.notes")}
     assert values[1]["a"] == "b\r\nbb" and values[1]["b"] == "c,cc"
@@ -85,7 +80,9 @@ def test_invalid_utf8_is_quarantined_with_its_bytes(convert: ConvertFn) -> None:
 
 
 def test_empty_and_header_only_files(convert: ConvertFn) -> None:
-    done = convert(MAPPING, {"n1.csv": "", "n2.csv": "op,pos,id,a,b\n", "n3.csv": "op,pos,id,a,b\nI,1,1,x,y\n"})
+    done = convert(
+        MAPPING, {"n1.csv": "", "n2.csv": "op,pos,id,a,b\n", "n3.csv": "op,pos,id,a,b\nI,1,1,x,y\n"}
+    )
     led = done.ledger()["tables"]["t.notes"]["files"]
     assert led["n1.csv"]["read"] == 0 and led["n2.csv"]["read"] == 0 and led["n3.csv"]["emitted"] == 1
 
@@ -117,12 +114,18 @@ def test_jsonl_nested_flat_and_malformed_lines(convert: ConvertFn) -> None:
     assert ev[4]["values"]["price"] is None and ev[4]["origin"]["row"] == 6
     qs = {q["_cdcnorm"]["row"]: q["_cdcnorm"]["reasons"][0]["reason"] for q in done.quarantine("t.nested")}
     # JSON numbers keep their digits: 12.345 must not be rounded into decimal(12,2)
-    assert qs == {3: "more than 2 fractional digits (would round)", 4: "not a JSON object", 5: "not valid JSON (RFC 8259)"}
+    assert qs == {
+        3: "more than 2 fractional digits (would round)",
+        4: "not a JSON object",
+        5: "not valid JSON (RFC 8259)",
+    }
     assert done.ledger()["total"]["read"] == 5
 
 
 def test_parquet_dump(convert: ConvertFn, tmp_path: object) -> None:
-    table = pa.table({"op": ["I", "I"], "pos": [1, 2], "id": [1, 2], "a": ["x", None], "b": [b"\x00\x01", b""]})
+    table = pa.table(
+        {"op": ["I", "I"], "pos": [1, 2], "id": [1, 2], "a": ["x", None], "b": [b"\x00\x01", b""]}
+    )
     import io
 
     buf = io.BytesIO()

@@ -61,7 +61,9 @@ def test_timestamp_forms_and_rejections(convert: ConvertFn) -> None:
 
 
 def test_timestamp_zone_for_values_without_offset(convert: ConvertFn) -> None:
-    got = type_values(convert, '{type: timestamp, zone: "+02:00"}', ["2026-03-01T08:00:00", "2026-03-01T08:00:00Z"])
+    got = type_values(
+        convert, '{type: timestamp, zone: "+02:00"}', ["2026-03-01T08:00:00", "2026-03-01T08:00:00Z"]
+    )
     assert [v for v, _ in got] == ["2026-03-01T06:00:00Z", "2026-03-01T08:00:00Z"]
 
 
@@ -128,8 +130,17 @@ def test_rfc9562_uuid_forms(convert: ConvertFn) -> None:
     v5 = str(uuid.uuid5(uuid.NAMESPACE_DNS, "www.example.com"))
     assert v3 == "5df41881-3aed-3515-88a7-2f4a814cf09e" and v5 == "2ed6657d-e927-568b-95e1-2665a8aea6a2"
     raw = [v3.upper(), v5, "00000000-0000-0000-0000-000000000000", "FFFFFFFF-FFFF-FFFF-FFFF-FFFFFFFFFFFF"]
-    got = type_values(convert, "uuid", [*raw, "5df418813aed351588a72f4a814cf09e", "{5df41881-3aed-3515-88a7-2f4a814cf09e}", "not-a-uuid"])
-    assert [v for v, _ in got[:4]] == [v3, v5, "00000000-0000-0000-0000-000000000000", "ffffffff-ffff-ffff-ffff-ffffffffffff"]
+    got = type_values(
+        convert,
+        "uuid",
+        [*raw, "5df418813aed351588a72f4a814cf09e", "{5df41881-3aed-3515-88a7-2f4a814cf09e}", "not-a-uuid"],
+    )
+    assert [v for v, _ in got[:4]] == [
+        v3,
+        v5,
+        "00000000-0000-0000-0000-000000000000",
+        "ffffffff-ffff-ffff-ffff-ffffffffffff",
+    ]
     assert all(v is None for v, _ in got[4:])
 
 

@@ -6,6 +6,7 @@ registers Arrow tables as relations, materialises steps and writes files.
 
 from __future__ import annotations
 
+import contextlib
 import os
 from pathlib import Path
 from typing import Any
@@ -36,15 +37,13 @@ class DuckDBEngine:
         if temp_directory:
             config["temp_directory"] = temp_directory
         self.con = duckdb.connect(":memory:", config=config)
-        try:
+        with contextlib.suppress(duckdb.Error):
             # Without the ICU extension DuckDB already treats TIMESTAMPTZ as UTC.
             self.con.execute("SET TimeZone = 'UTC'")
-        except duckdb.Error:
-            pass
         # keep Arrow tables alive while DuckDB scans them
         self._registered: dict[str, pa.Table] = {}
 
-    def render(self, expression: exp.Expression | str) -> str:
+    def render(self, expression: exp.Expr | str) -> str:
         if isinstance(expression, str):
             return expression
         return expression.sql(dialect=self.dialect)
@@ -53,28 +52,30 @@ class DuckDBEngine:
         self._registered[name] = table
         self.con.register(name, table)
 
-    def execute(self, expression: exp.Expression | str) -> None:
+    def execute(self, expression: exp.Expr | str) -> None:
         self.con.execute(self.render(expression))
 
-    def materialize(self, name: str, expression: exp.Expression) -> None:
+    def materialize(self, name: str, expression: exp.Expr) -> None:
         self.con.execute(f"CREATE OR REPLACE TEMP TABLE {ident(name)} AS {self.render(expression)}")
 
-    def view(self, name: str, expression: exp.Expression) -> None:
+    def view(self, name: str, expression: exp.Expr) -> None:
         self.con.execute(f"CREATE OR REPLACE TEMP VIEW {ident(name)} AS {self.render(expression)}")
 
-    def arrow(self, expression: exp.Expression | str) -> pa.Table:
+    def arrow(self, expression: exp.Expr | str) -> pa.Table:
         return self.con.sql(self.render(expression)).to_arrow_table()
 
-    def rows(self, expression: exp.Expression | str) -> list[tuple[Any, ...]]:
+    def rows(self, expression: exp.Expr | str) -> list[tuple[Any, ...]]:
         return self.con.execute(self.render(expression)).fetchall()
 
-    def copy(self, expression: exp.Expression, path: Path, fmt: str) -> int:
+    def copy(self, expression: exp.Expr, path: Path, fmt: str) -> int:
         """Write a query's rows to ``path`` atomically (temporary name, then rename); rows written."""
         path.parent.mkdir(parents=True, exist_ok=True)
         tmp = path.with_name(f"{path.name}.tmp-{os.getpid()}")
         options = {"json": "FORMAT JSON", "parquet": "FORMAT PARQUET"}[fmt]
         try:
-            written = self.con.execute(f"COPY ({self.render(expression)}) TO {lit(str(tmp))} ({options})").fetchone()
+            written = self.con.execute(
+                f"COPY ({self.render(expression)}) TO {lit(str(tmp))} ({options})"
+            ).fetchone()
             os.replace(tmp, path)
             return int(written[0]) if written else 0
         finally:

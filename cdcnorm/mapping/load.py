@@ -65,7 +65,14 @@ def _submodel(loc: tuple[Any, ...]) -> type[BaseModel] | None:
             return current
         ann = field.annotation
         nxt = None
-        for cand in (m.ChangeSpec, m.ActionSpec, m.PositionSpec, m.SequenceSpec, m.CommittedAtSpec, m.CsvOptions):
+        for cand in (
+            m.ChangeSpec,
+            m.ActionSpec,
+            m.PositionSpec,
+            m.SequenceSpec,
+            m.CommittedAtSpec,
+            m.CsvOptions,
+        ):
             if ann is cand or (hasattr(ann, "__args__") and cand in getattr(ann, "__args__", ())):
                 nxt = cand
         if nxt is None:
@@ -109,7 +116,9 @@ def load_mapping(path: Path) -> LoadedMapping:
     try:
         mapping = Mapping.model_validate(data)
     except ValidationError as e:
-        err = e.errors()[0]
+        errors = e.errors()
+        # a misspelt key is both an unknown key and a missing one: report the unknown key
+        err = next((x for x in errors if x["type"] == "extra_forbidden"), errors[0])
         loc = _clean_loc(tuple(err["loc"]))
         line = None
         for n in range(len(loc), -1, -1):
@@ -123,7 +132,9 @@ def load_mapping(path: Path) -> LoadedMapping:
             if owner is not None:
                 hint = f"valid keys here: {', '.join(_model_keys(owner))}{did_you_mean(str(loc[-1]), _model_keys(owner))}"
             if str(loc[-1]).endswith(")"):
-                hint = 'inside {...} a comma splits keys: quote a type with a comma, e.g. type: "decimal(12,2)"'
+                hint = (
+                    'inside {...} a comma splits keys: quote a type with a comma, e.g. type: "decimal(12,2)"'
+                )
         elif err["type"] == "missing":
             hint = f"add the key {loc[-1]!r}"
         found = err.get("input")

@@ -96,12 +96,24 @@ class ChangeSpec(Strict):
 class FieldSpec(Strict):
     """One typed output field."""
 
-    type: str = Field(description="integer, decimal(p,s), float, boolean, date, time, timestamp, text, bytes, uuid, json")
-    from_: str | None = Field(default=None, alias="from", description="Raw column name, when it differs from the field name.")
-    zone: str | None = Field(default=None, description="timestamp: offset for values without one (default +00:00).")
-    encoding: Literal["hex", "base64"] | None = Field(default=None, description="bytes: hex or base64 (default hex).")
-    max_length: int | None = Field(default=None, ge=1, description="text: longest value allowed, in characters.")
-    required: bool = Field(default=False, description="A NULL value is a quarantine reason (always true for key fields).")
+    type: str = Field(
+        description="integer, decimal(p,s), float, boolean, date, time, timestamp, text, bytes, uuid, json"
+    )
+    from_: str | None = Field(
+        default=None, alias="from", description="Raw column name, when it differs from the field name."
+    )
+    zone: str | None = Field(
+        default=None, description="timestamp: offset for values without one (default +00:00)."
+    )
+    encoding: Literal["hex", "base64"] | None = Field(
+        default=None, description="bytes: hex or base64 (default hex)."
+    )
+    max_length: int | None = Field(
+        default=None, ge=1, description="text: longest value allowed, in characters."
+    )
+    required: bool = Field(
+        default=False, description="A NULL value is a quarantine reason (always true for key fields)."
+    )
 
     @field_validator("zone")
     @classmethod
@@ -119,7 +131,9 @@ class CsvOptions(Strict):
     delimiter: str = Field(default=",", min_length=1, max_length=1)
     quote: str = Field(default='"', min_length=1, max_length=1)
     header: bool = Field(default=True, description="false: columns are named by `columns`.")
-    columns: list[str] | None = Field(default=None, description="Column names when the file has no header row.")
+    columns: list[str] | None = Field(
+        default=None, description="Column names when the file has no header row."
+    )
 
 
 class Mapping(Strict):
@@ -144,7 +158,9 @@ class Mapping(Strict):
     def _keys_are_fields(self) -> Mapping:
         missing = [k for k in self.key if k not in self.fields]
         if missing:
-            raise ValueError(f"key names {missing} but fields has no such field; fields are {list(self.fields)}")
+            raise ValueError(
+                f"key names {missing} but fields has no such field; fields are {list(self.fields)}"
+            )
         return self
 
     def raw_column(self, field: str) -> str:

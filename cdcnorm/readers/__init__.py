@@ -15,7 +15,9 @@ READERS: dict[str, ModuleType] = {m.FORMAT: m for m in (csv, jsonl, parquet)}
 def reader_for(path: Path, fmt: str | None = None) -> ModuleType:
     if fmt:
         if fmt not in READERS:
-            raise InputError(f"unknown input format {fmt!r}; formats are {', '.join(READERS)}", file=str(path))
+            raise InputError(
+                f"unknown input format {fmt!r}; formats are {', '.join(READERS)}", file=str(path)
+            )
         return READERS[fmt]
     name = path.name.lower()
     for module in READERS.values():
@@ -23,7 +25,9 @@ def reader_for(path: Path, fmt: str | None = None) -> ModuleType:
             return module
     suffixes = ", ".join(s for m in READERS.values() for s in m.SUFFIXES)
     raise InputError(
-        "cannot tell this file's format from its name", file=str(path), expected=f"a name ending in {suffixes}"
+        "cannot tell this file's format from its name",
+        file=str(path),
+        expected=f"a name ending in {suffixes}",
     )
 
 

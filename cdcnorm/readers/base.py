@@ -36,7 +36,7 @@ class RawSource:
 
     @property
     def rows_read(self) -> int:
-        return self.table.num_rows + self.malformed.num_rows
+        return int(self.table.num_rows) + int(self.malformed.num_rows)
 
 
 def with_rows(table: pa.Table, rows: pa.Array | None = None, enc: pa.Array | None = None) -> pa.Table:

@@ -42,7 +42,9 @@ def _header(path: Path, delimiter: str, quote: str) -> list[str]:
         return []
 
 
-def _layout(data: bytes, delimiter: str, quote: str, expected: int, header: bool) -> tuple[np.ndarray, list[tuple[int, str, str]]]:
+def _layout(
+    data: bytes, delimiter: str, quote: str, expected: int, header: bool
+) -> tuple[np.ndarray, list[tuple[int, str, str]]]:
     """Record numbers of the good and the malformed records, by quote parity (numpy, no row loop).
 
     A line break ends a record only outside quotes, i.e. where the count of
@@ -86,7 +88,9 @@ def read(path: Path, mapping: Mapping, engine: DuckDBEngine, name: str) -> RawSo
     opts = mapping.csv
     delimiter = "\t" if path.name.endswith(".tsv") and opts.delimiter == "," else opts.delimiter
     if path.stat().st_size == 0:
-        return RawSource(path, name, FORMAT, [], with_rows(pa.table({})), empty=True, notes=["the file is empty"])
+        return RawSource(
+            path, name, FORMAT, [], with_rows(pa.table({})), empty=True, notes=["the file is empty"]
+        )
     if opts.header:
         columns = _header(path, delimiter, opts.quote)
     else:
@@ -94,7 +98,9 @@ def read(path: Path, mapping: Mapping, engine: DuckDBEngine, name: str) -> RawSo
             raise InputError("csv.header is false but csv.columns names no columns", file=str(path))
         columns = list(opts.columns)
     if not columns:
-        return RawSource(path, name, FORMAT, [], with_rows(pa.table({})), empty=True, notes=["the file is empty"])
+        return RawSource(
+            path, name, FORMAT, [], with_rows(pa.table({})), empty=True, notes=["the file is empty"]
+        )
     dupes = sorted({c for c in columns if columns.count(c) > 1})
     if dupes:
         raise InputError(f"the header repeats column names {dupes}", file=str(path), line=1)

@@ -47,7 +47,9 @@ def read(path: Path, mapping: Mapping, engine: DuckDBEngine, name: str) -> RawSo
     except OSError as e:
         raise InputError(f"cannot read this file: {e}", file=str(path)) from None
     if not data.strip():
-        return RawSource(path, name, FORMAT, [], with_rows(pa.table({})), empty=True, notes=["the file is empty"])
+        return RawSource(
+            path, name, FORMAT, [], with_rows(pa.table({})), empty=True, notes=["the file is empty"]
+        )
     if data.endswith(b"\n"):
         data = data[:-1]
     lines = pc.list_flatten(pc.split_pattern(pa.array([data], pa.large_binary()), b"\n"))
@@ -87,4 +89,6 @@ def read(path: Path, mapping: Mapping, engine: DuckDBEngine, name: str) -> RawSo
     select = ", ".join([*parts, "__row"])
     table = engine.arrow(f"SELECT {select} FROM __jsonl_ok ORDER BY __row")
     engine.con.execute("DROP TABLE __jsonl; DROP TABLE __jsonl_ok")
-    return RawSource(path, name, FORMAT, columns, with_rows(table.drop_columns(["__row"]), table["__row"]), bad)
+    return RawSource(
+        path, name, FORMAT, columns, with_rows(table.drop_columns(["__row"]), table["__row"]), bad
+    )

@@ -17,5 +17,7 @@ def unite_sources(plan: Plan) -> Plan:
         )
     if not parts:
         nulls = ", ".join(f"CAST(NULL AS VARCHAR) AS {ident(c)}" for c in cols)
-        parts.append(f"SELECT 0 AS __file, CAST(0 AS BIGINT) AS __row, CAST(NULL AS VARCHAR) AS __enc, {nulls} WHERE FALSE")
+        parts.append(
+            f"SELECT 0 AS __file, CAST(0 AS BIGINT) AS __row, CAST(NULL AS VARCHAR) AS __enc, {nulls} WHERE FALSE"
+        )
     return plan.add("source", "source", " UNION ALL ".join(parts))

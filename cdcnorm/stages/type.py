@@ -69,7 +69,9 @@ def type_rows(plan: Plan) -> Plan:
     )
     if ch.sequence:
         col = ident(ch.sequence.column)
-        c.typed.append(("__seq", f"CASE WHEN regexp_full_match({col}, {SEQUENCE}) THEN TRY_CAST({col} AS UBIGINT) END"))
+        c.typed.append(
+            ("__seq", f"CASE WHEN regexp_full_match({col}, {SEQUENCE}) THEN TRY_CAST({col} AS UBIGINT) END")
+        )
         c.check(
             "{t}__seq IS NULL",
             _reason(
@@ -87,7 +89,13 @@ def type_rows(plan: Plan) -> Plan:
         c.typed.append(("__cat", timestamp_cast(col, ch.committed_at.zone)))
         c.check(
             "{s}" + col + " IS NOT NULL AND {t}__cat IS NULL",
-            _reason("committed_at", ch.committed_at.column, "an RFC 3339 timestamp", f"s.{col}", timestamp_explain(f"s.{col}")),
+            _reason(
+                "committed_at",
+                ch.committed_at.column,
+                "an RFC 3339 timestamp",
+                f"s.{col}",
+                timestamp_explain(f"s.{col}"),
+            ),
         )
     else:
         c.typed.append(("__cat", "CAST(NULL AS TIMESTAMPTZ)"))
@@ -102,7 +110,10 @@ def type_rows(plan: Plan) -> Plan:
         )
         if name in keys or m.fields[name].required:
             what = "missing key" if name in keys else "missing required value"
-            c.check("{s}" + raw + " IS NULL", _reason(name, column, ftype.describe(), "CAST(NULL AS VARCHAR)", lit(what)))
+            c.check(
+                "{s}" + raw + " IS NULL",
+                _reason(name, column, ftype.describe(), "CAST(NULL AS VARCHAR)", lit(what)),
+            )
 
     src = plan.rel("source")
     raw_cols = ", ".join(ident(col) for col in m.mapped_columns())
@@ -110,7 +121,10 @@ def type_rows(plan: Plan) -> Plan:
     ok = " AND ".join(cond.format(s="q.", t="q.") for cond in c.ok)
     typed_cols = ", ".join(f"q.{n}" for n, _ in c.typed)
     plan = plan.add(
-        "type", "typed", f"SELECT q.__file, q.__row, {typed_cols}, ({ok}) AS __ok FROM ({inner}) q", materialize=True
+        "type",
+        "typed",
+        f"SELECT q.__file, q.__row, {typed_cols}, ({ok}) AS __ok FROM ({inner}) q",
+        materialize=True,
     )
     rejects = (
         f"SELECT t.__file, t.__row, list_filter([{', '.join(c.reasons)}], x -> x IS NOT NULL) AS reasons "

@@ -46,7 +46,9 @@ def resolve(spec: FieldSpec) -> FieldType:
         raise ValueError(f'"{spec.type}" is not a type; write e.g. integer, text, decimal(12,2)')
     name = m.group(1).lower()
     if name not in TYPES:
-        raise ValueError(f'unknown type "{m.group(1)}"{did_you_mean(name, TYPES)}; types are {", ".join(TYPES)}')
+        raise ValueError(
+            f'unknown type "{m.group(1)}"{did_you_mean(name, TYPES)}; types are {", ".join(TYPES)}'
+        )
     raw = m.group(2)
     try:
         params = [int(p) for p in raw.split(",")] if raw and raw.strip() else []

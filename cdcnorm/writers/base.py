@@ -14,8 +14,11 @@ from cdcnorm.types.timestamp import timestamp_render
 
 
 def order_by(plan: Plan) -> str:
+    """Position order; ties (one position, no sequence) broken by content, so input order never matters."""
     keys = ", ".join(f"v{i}" for i in plan.key_index)
-    return f"__position, {keys}, __action, __file, __row"
+    n = len(plan.fields)
+    content = ", ".join([*(f"v{i}" for i in range(n)), *(f"p{i}" for i in range(n))])
+    return f"__position, {keys}, __action, {content}, __file, __row"
 
 
 def project(plan: Plan, files_relation: str, *, render: bool) -> str:
@@ -32,7 +35,7 @@ def project(plan: Plan, files_relation: str, *, render: bool) -> str:
     all_idx = list(range(len(names)))
     cat = timestamp_render("__cat") if render else "__cat"
     return (
-        f"SELECT {lit(plan.mapping.table)} AS \"table\", __action AS action, {struct(plan.key_index, 'v')} AS key, "
+        f'SELECT {lit(plan.mapping.table)} AS "table", __action AS action, {struct(plan.key_index, "v")} AS key, '
         f"__position AS position, {cat} AS committed_at, "
         f"CASE WHEN __action = 'upsert' THEN {struct(all_idx, 'v')} END AS \"values\", "
         f"CASE WHEN __has_prior THEN {struct(all_idx, 'p')} END AS prior, "

@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import resource
 import shutil
 import subprocess
 import sys
@@ -53,7 +52,9 @@ def generate(rows: int, folder: Path, seed: int = 7) -> list[Path]:
     """About ``rows`` rows over two overlapping files, shuffled."""
     rng = np.random.default_rng(seed)
     changes = int(rows / 1.5)
-    kind = rng.choice(np.array([0, 1, 2], dtype=np.int8), size=changes, p=[0.45, 0.45, 0.10])  # insert, update, delete
+    kind = rng.choice(
+        np.array([0, 1, 2], dtype=np.int8), size=changes, p=[0.45, 0.45, 0.10]
+    )  # insert, update, delete
     pos = np.arange(changes, dtype=np.int64) * 40 + 0x16_0000_0000
     ids = rng.integers(1, max(changes // 2, 2), size=changes)
     reps = np.where(kind == 1, 2, 1)
@@ -66,7 +67,9 @@ def generate(rows: int, folder: Path, seed: int = 7) -> list[Path]:
     p = pos[c_idx]
     lsn = np.char.add(np.char.add(np.char.mod("%X", p >> 32), "/"), np.char.mod("%X", p & 0xFFFFFFFF))
     cents = rng.integers(0, 10_000_000, size=n)
-    amount = np.char.add(np.char.add((cents // 100).astype(str), "."), np.char.zfill((cents % 100).astype(str), 2))
+    amount = np.char.add(
+        np.char.add((cents // 100).astype(str), "."), np.char.zfill((cents % 100).astype(str), 2)
+    )
     secs = (1_767_225_600 + c_idx * 3).astype("datetime64[s]")
     commit = np.char.add(np.datetime_as_string(secs, unit="s").astype(str), "Z")
     created = np.char.add(np.datetime_as_string(secs - 86_400, unit="s").astype(str), "+01:00")
@@ -105,17 +108,6 @@ pq.write_table(pa.concat_tables(tables, promote_options="permissive"), sys.argv[
 """
 
 
-def measure(cmd: list[str]) -> tuple[float, float]:
-    """Wall seconds and peak RSS (MiB) of one child process."""
-    before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
-    t0 = time.perf_counter()
-    subprocess.run(cmd, check=True, stdout=subprocess.DEVNULL)
-    wall = time.perf_counter() - t0
-    peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
-    # ru_maxrss of children is the max over all children so far: run each in a fresh helper
-    return wall, max(peak, before) / 1024
-
-
 def run_isolated(cmd: list[str]) -> tuple[float, float]:
     helper = (
         "import resource, subprocess, sys, time, json\n"
@@ -143,15 +135,36 @@ def main() -> None:
         files = generate(rows, work)
         gen = time.perf_counter() - t0
         size = sum(f.stat().st_size for f in files)
-        n = sum(1 for _ in open(files[0], "rb")) + sum(1 for _ in open(files[1], "rb")) - 2
         best: dict[str, tuple[float, float]] = {}
         for _ in range(args.repeat):
             runs = {
                 "floor": [sys.executable, "-c", FLOOR, str(work / "floor.parquet"), *map(str, files)],
-                "convert": [sys.executable, "-m", "cdcnorm", "convert", "--quiet", "--mappings", str(work / "mappings"),
-                            "--out", str(work / "out-parquet"), "--format", "parquet", *map(str, files)],
-                "convert-jsonl": [sys.executable, "-m", "cdcnorm", "convert", "--quiet", "--mappings", str(work / "mappings"),
-                                  "--out", str(work / "out-jsonl"), *map(str, files)],
+                "convert": [
+                    sys.executable,
+                    "-m",
+                    "cdcnorm",
+                    "convert",
+                    "--quiet",
+                    "--mappings",
+                    str(work / "mappings"),
+                    "--out",
+                    str(work / "out-parquet"),
+                    "--format",
+                    "parquet",
+                    *map(str, files),
+                ],
+                "convert-jsonl": [
+                    sys.executable,
+                    "-m",
+                    "cdcnorm",
+                    "convert",
+                    "--quiet",
+                    "--mappings",
+                    str(work / "mappings"),
+                    "--out",
+                    str(work / "out-jsonl"),
+                    *map(str, files),
+                ],
             }
             for name, cmd in runs.items():
                 wall, mib = run_isolated(cmd)
@@ -160,7 +173,7 @@ def main() -> None:
         ledger = json.loads((work / "out-parquet" / "ledger.json").read_text())
         floor_t, floor_m = best["floor"]
         entry = {
-            "rows": n,
+            "rows": ledger["total"]["read"],
             "csv_mib": round(size / 2**20, 1),
             "generate_s": round(gen, 1),
             "floor_s": round(floor_t, 2),

@@ -1,0 +1,39 @@
+# Two commands on a fresh machine:  make demo  and  make test
+PY ?= python3
+VENV ?= .venv
+BIN := $(VENV)/bin
+
+.PHONY: setup system demo test lint bench clean
+
+$(BIN)/cdcnorm: pyproject.toml
+	$(PY) -m venv $(VENV)
+	$(BIN)/pip install --quiet --upgrade pip
+	$(BIN)/pip install --quiet -e '.[dev]'
+	touch $@
+
+# Graphviz's dot program draws the lineage diagrams (SVG/PNG); DOT, GraphML and JSON need nothing.
+system:
+	@command -v dot >/dev/null 2>&1 || { \
+	  echo "installing graphviz (the dot program)"; \
+	  SUDO=$$( [ "$$(id -u)" = 0 ] || echo sudo ); \
+	  $$SUDO apt-get update -qq && $$SUDO apt-get install -y -qq graphviz >/dev/null; }
+
+setup: $(BIN)/cdcnorm system
+
+demo: setup
+	$(BIN)/cdcnorm demo
+
+lint: setup
+	$(BIN)/ruff check cdcnorm tests
+	$(BIN)/ruff format --check cdcnorm tests
+	$(BIN)/mypy cdcnorm
+
+test: lint
+	$(BIN)/pytest
+
+bench: setup
+	$(BIN)/python tests/bench/bench_convert.py --rows 1000000 5000000
+	$(BIN)/python tests/bench/bench_lineage.py
+
+clean:
+	rm -rf build $(VENV) *.egg-info

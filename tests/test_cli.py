@@ -1,0 +1,199 @@
+"""End to end through the command line, on the demo files and on broken input."""
+
+from __future__ import annotations
+
+import json
+import shutil
+from pathlib import Path
+
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+import sqlglot
+
+from tests.conftest import ROOT, cli
+
+DUMPS = ROOT / "examples" / "dumps"
+MAPPINGS = ROOT / "mappings"
+
+
+def test_demo_runs_and_balances(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    assert cli("demo", "--root", str(ROOT), "--out", str(tmp_path)) == 0
+    text = capsys.readouterr().out
+    assert "ledger balanced: 37 rows read" in text
+    ledger = json.loads((tmp_path / "ledger.json").read_text())
+    assert ledger["balanced"] and ledger["total"]["read"] == 37
+    assert sorted(p.name for p in (tmp_path / "events").iterdir()) == [
+        "ferry.bookings.jsonl",
+        "ferry.passengers.jsonl",
+        "ferry.sailings.jsonl",
+    ]
+    assert not list(tmp_path.rglob("*.tmp-*"))  # atomic writes leave no temporary files
+
+
+def test_convert_json_output_and_parquet_types(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    out = tmp_path / "pq"
+    assert (
+        cli(
+            "convert",
+            "--mappings",
+            str(MAPPINGS),
+            str(DUMPS),
+            "--out",
+            str(out),
+            "--format",
+            "parquet",
+            "--json",
+        )
+        == 0
+    )
+    report = json.loads(capsys.readouterr().out)
+    assert report["ledger"]["balanced"]
+    table = pq.read_table(out / "events" / "ferry.bookings.parquet")
+    values = table.schema.field("values").type
+    assert values.field("fare").type == pa.decimal128(12, 2)
+    assert values.field("booked_at").type == pa.timestamp("us", tz="UTC")
+    assert table.schema.field("committed_at").type == pa.timestamp("us", tz="UTC")
+    # the same events as the JSON Lines output, in the same order
+    jl = tmp_path / "jl"
+    assert cli("convert", "--mappings", str(MAPPINGS), str(DUMPS), "--out", str(jl), "--quiet") == 0
+    lines = [json.loads(x) for x in (jl / "events" / "ferry.bookings.jsonl").read_text().splitlines()]
+    assert table.column("position").to_pylist() == [e["position"] for e in lines]
+    fares = [None if v is None else str(v["fare"]) for v in table.column("values").to_pylist()]
+    assert fares == [None if e["values"] is None else e["values"]["fare"] for e in lines]
+
+
+def test_output_is_byte_identical_whatever_the_input_order(tmp_path: Path) -> None:
+    files = sorted(str(p) for p in DUMPS.iterdir())
+    assert cli("convert", "--quiet", "--mappings", str(MAPPINGS), *files, "--out", str(tmp_path / "a")) == 0
+    assert (
+        cli("convert", "--quiet", "--mappings", str(MAPPINGS), *reversed(files), "--out", str(tmp_path / "b"))
+        == 0
+    )
+    for p in (tmp_path / "a").rglob("*"):
+        if p.is_file():
+            assert p.read_bytes() == (tmp_path / "b" / p.relative_to(tmp_path / "a")).read_bytes(), p
+
+
+def test_check_reports_unmapped_columns_and_rejects(capsys: pytest.CaptureFixture[str]) -> None:
+    assert cli("check", "--mappings", str(MAPPINGS), str(DUMPS), "--json") == 0
+    report = json.loads(capsys.readouterr().out)
+    by_file = {f["file"]: f for f in report["files"]}
+    assert by_file["bookings-live.csv"]["unmapped_columns"] == ["export_batch"]
+    assert report["tables"]["ferry.bookings"]["reasons"]["conflict"] == 2
+    assert report["drift"] == []
+
+
+def test_drift_names_field_and_column(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    dumps = tmp_path / "d"
+    dumps.mkdir()
+    text = (DUMPS / "bookings-live.csv").read_text().replace("pax_name", "passenger_name", 1)
+    (dumps / "bookings-live.csv").write_text(text)
+    assert cli("convert", "--mappings", str(MAPPINGS), str(dumps), "--out", str(tmp_path / "o")) == 4
+    err = capsys.readouterr().err
+    assert "field passenger reads raw column 'pax_name'" in err and 'did you mean "passenger_name"' in err
+    assert not (tmp_path / "o").exists()  # nothing written
+    assert cli("check", "--mappings", str(MAPPINGS), str(dumps)) == 4
+    assert "drift" in capsys.readouterr().out
+
+
+def test_file_matching_no_mapping(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    p = tmp_path / "booking-extra.csv"
+    p.write_text("op\n")
+    assert cli("convert", "--mappings", str(MAPPINGS), str(p), "--out", str(tmp_path / "o")) == 4
+    err = capsys.readouterr().err
+    assert "matches no mapping" in err and "bookings-*.csv" in err
+
+
+def test_mapping_error_exit_code(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    m = tmp_path / "m"
+    m.mkdir()
+    (m / "x.yaml").write_text("table: a\nfiles: [a]\nkey: [id]\nchange: {}\nfields: {id: integr}\n")
+    assert cli("convert", "--mappings", str(m), str(DUMPS), "--out", str(tmp_path / "o")) == 3
+    assert "x.yaml" in capsys.readouterr().err
+
+
+def test_max_rejects_exits_5_but_writes_everything(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    code = cli(
+        "convert", "--mappings", str(MAPPINGS), str(DUMPS), "--out", str(tmp_path), "--max-rejects", "5"
+    )
+    assert code == 5
+    assert "13 rows were quarantined" in capsys.readouterr().err
+    assert (tmp_path / "ledger.json").exists() and len(list((tmp_path / "quarantine").iterdir())) == 3
+
+
+def test_show_plan_prints_parseable_sql(capsys: pytest.CaptureFixture[str]) -> None:
+    assert (
+        cli("convert", "--mappings", str(MAPPINGS), str(DUMPS), "--show-plan", "--table", "ferry.bookings")
+        == 0
+    )
+    text = capsys.readouterr().out
+    statements = [s for s in sqlglot.parse(text, read="duckdb") if s is not None]
+    assert len(statements) >= 8
+    assert "-- stage dedupe" in text and "-- stage envelope" in text
+
+
+@pytest.mark.parametrize("stage", ["read", "type", "order", "dedupe", "pair", "envelope"])
+def test_stop_after_each_stage(stage: str, capsys: pytest.CaptureFixture[str]) -> None:
+    assert (
+        cli(
+            "convert",
+            "--mappings",
+            str(MAPPINGS),
+            str(DUMPS),
+            "--stop-after",
+            stage,
+            "--table",
+            "ferry.sailings",
+            "--json",
+        )
+        == 0
+    )
+    report = json.loads(capsys.readouterr().out)
+    assert report["stage"] == stage and report["rows"]
+
+
+def test_a_fixed_quarantine_file_feeds_back(tmp_path: Path) -> None:
+    out = tmp_path / "o"
+    assert cli("convert", "--quiet", "--mappings", str(MAPPINGS), str(DUMPS), "--out", str(out)) == 0
+    q = out / "quarantine" / "ferry.bookings.jsonl"
+    lines = [json.loads(x) for x in q.read_text().splitlines()]
+    fixable = [x for x in lines if x.get("fare") == "12.345"]
+    assert len(fixable) == 1
+    fixable[0]["fare"] = "12.35"
+    fixed = tmp_path / "ferry.bookings.jsonl"
+    fixed.write_text(json.dumps(fixable[0]) + "\n")
+    again = tmp_path / "again"
+    assert cli("convert", "--quiet", "--mappings", str(MAPPINGS), str(fixed), "--out", str(again)) == 0
+    (event,) = [json.loads(x) for x in (again / "events" / "ferry.bookings.jsonl").read_text().splitlines()]
+    assert event["key"] == {"booking_id": 1004} and event["values"]["fare"] == "12.35"
+    assert event["position"].startswith("00000017/00000020")
+
+
+def test_empty_inputs_and_unknown_format(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    d = tmp_path / "d"
+    d.mkdir()
+    shutil.copy(MAPPINGS / "bookings.yaml", tmp_path / "bookings.yaml")
+    (d / "bookings-empty.csv").write_text("")
+    assert (
+        cli(
+            "convert",
+            "--quiet",
+            "--mappings",
+            str(tmp_path / "bookings.yaml"),
+            str(d),
+            "--out",
+            str(tmp_path / "o"),
+        )
+        == 0
+    )
+    ledger = json.loads((tmp_path / "o" / "ledger.json").read_text())
+    assert ledger["total"]["read"] == 0
+    (d / "bookings-x.xlsx").write_text("?")
+    (d / "bookings-empty.csv").unlink()
+    m = tmp_path / "m2.yaml"
+    m.write_text((MAPPINGS / "bookings.yaml").read_text().replace('["bookings-*.csv"]', '["bookings-*"]'))
+    assert cli("convert", "--mappings", str(m), str(d), "--out", str(tmp_path / "o2")) == 4
+    assert "cannot tell this file's format" in capsys.readouterr().err

@@ -1,0 +1,83 @@
+"""Mapping files: validation errors name the file, line and key and suggest the closest valid name."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+
+from cdcnorm.errors import MappingError
+from cdcnorm.mapping import load_mapping, load_mappings
+from tests.conftest import ROOT, cli
+
+GOOD = """\
+table: ferry.bookings
+files: ["bookings*.csv"]
+key: [booking_id]
+change:
+  action: {column: op, codes: {"1": delete, "2": insert}}
+  position: {column: log_pos, kind: hex}
+fields:
+  booking_id: integer
+  fare: decimal(12,2)
+"""
+
+
+def _load(tmp_path: Path, text: str) -> MappingError:
+    p = tmp_path / "m.yaml"
+    p.write_text(text)
+    with pytest.raises(MappingError) as e:
+        load_mapping(p)
+    return e.value
+
+
+def test_the_example_mappings_load() -> None:
+    tables = [m.table for m in load_mappings(ROOT / "mappings")]
+    assert tables == ["ferry.bookings", "ferry.passengers", "ferry.sailings"]
+
+
+def test_misspelt_key_is_named_with_line_and_suggestion(tmp_path: Path) -> None:
+    err = _load(tmp_path, GOOD.replace("  position:", "  postion:"))
+    assert err.line == 6 and "change.postion" in err.message
+    assert err.hint and 'did you mean "position"' in err.hint
+
+
+def test_unknown_type_suggests_the_closest(tmp_path: Path) -> None:
+    err = _load(tmp_path, GOOD.replace("fare: decimal(12,2)", "fare: decimel(12,2)"))
+    assert err.line == 9 and err.field == "fields.fare"
+    assert 'did you mean "decimal"' in err.message
+
+
+def test_bad_type_parameters(tmp_path: Path) -> None:
+    assert "scale" in _load(tmp_path, GOOD.replace("decimal(12,2)", "decimal(2,5)")).message
+    assert "precision" in _load(tmp_path, GOOD.replace("decimal(12,2)", "decimal(40,2)")).message
+
+
+def test_unknown_action_and_position_kind(tmp_path: Path) -> None:
+    err = _load(tmp_path, GOOD.replace('"2": insert', '"2": upsert'))
+    assert err.line == 5 and "codes" in (err.field or "")
+    err = _load(tmp_path, GOOD.replace("kind: hex}", "kind: lsn}"))
+    assert err.line == 6 and "hex-pair" in err.message
+
+
+def test_key_must_name_a_field(tmp_path: Path) -> None:
+    err = _load(tmp_path, GOOD.replace("key: [booking_id]", "key: [booking]"))
+    assert "booking" in err.message
+
+
+def test_yaml_syntax_error_has_a_line(tmp_path: Path) -> None:
+    err = _load(tmp_path, GOOD.replace("fields:\n", "fields:\n  - [\n"))
+    assert err.line is not None and "YAML" in err.message
+
+
+def test_flow_mapping_comma_hint(tmp_path: Path) -> None:
+    err = _load(tmp_path, GOOD.replace("fare: decimal(12,2)", "fare: {type: decimal(12,2)}"))
+    assert err.hint and "quote" in err.hint
+
+
+def test_mapping_schema_command(capsys: pytest.CaptureFixture[str]) -> None:
+    assert cli("mapping-schema") == 0
+    schema = json.loads(capsys.readouterr().out)
+    assert schema["title"] == "Mapping" and "change" in schema["properties"]
+    assert set(schema["required"]) >= {"table", "files", "key", "change", "fields"}

@@ -1,12 +1,145 @@
+"""Commands trace, impact and lineage (a thin layer over lineage.questions and lineage.export)."""
+
 from __future__ import annotations
 
 import argparse
+import json
+from pathlib import Path
 from typing import Any
+
+from rich.console import Console
+from rich.tree import Tree
+
+from cdcnorm.errors import EXIT_BREAKS, EXIT_OK, UsageError
+from cdcnorm.lineage.export import around, export
+from cdcnorm.lineage.graph import Project, build_project
+from cdcnorm.lineage.models import load_models
+from cdcnorm.lineage.questions import Edit, breaks, find_column, impact, trace_target
+from cdcnorm.mapping import load_mappings
+
+
+def _common(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--models", default="models", help="folder of SQL model files (default: models/)")
+    p.add_argument("--mappings", default="mappings", help="folder of mapping files (default: mappings/)")
+    p.add_argument("--dialect", default="duckdb", help="SQL dialect of the models, by sqlglot's names (default: duckdb)")
+    p.add_argument("--json", action="store_true", help="print the answer as JSON")
 
 
 def add_commands(sub: Any) -> None:
-    return None
+    t = sub.add_parser("trace", help="the source columns behind an output column (or every column of a model)")
+    _common(t)
+    t.add_argument("target", help="<model>.<column>, or a model name for all its columns")
+
+    i = sub.add_parser("impact", help="what depends on a column, and what a schema edit would break (exit 8)")
+    _common(i)
+    i.add_argument("column", help="<mapping table>.<field>, <model>.<column> or a raw dump column")
+    edit = i.add_mutually_exclusive_group()
+    edit.add_argument("--drop", action="store_true", help="simulate dropping the column")
+    edit.add_argument("--rename", metavar="NEW", help="simulate renaming the column")
+    edit.add_argument("--retype", metavar="TYPE", help="simulate changing the column's type, e.g. float, decimal(10,2)")
+
+    g = sub.add_parser("lineage", help="export the lineage graph: .dot .svg .png .graphml .json")
+    _common(g)
+    g.add_argument("--out", default="lineage.svg", help="output file; its suffix picks the format (default lineage.svg)")
+    g.add_argument("--around", metavar="COLUMN", help="draw only the neighbourhood of this column")
+    g.add_argument("--depth", type=int, default=2, help="hops around --around (default 2)")
 
 
-def run_command(args: argparse.Namespace, out: Any) -> int:
-    raise NotImplementedError(args.command)
+def load_project(args: argparse.Namespace) -> tuple[Project, list[Any], Any]:
+    mappings_dir = Path(args.mappings)
+    mappings = load_mappings(mappings_dir) if mappings_dir.exists() else []
+    models_dir = Path(args.models)
+    if not models_dir.exists():
+        raise UsageError(f"models folder {models_dir} does not exist", hint="pass --models")
+    loaded = load_models(models_dir, args.dialect)
+    return build_project(None, mappings, args.dialect, loaded=loaded), mappings, loaded
+
+
+def _trace_tree(answer: dict[str, Any]) -> Tree:
+    tree = Tree(f"[bold]{answer['column']}[/bold]")
+    for lineage in ("value", "influence"):
+        branch = tree.add(f"{lineage} lineage: {len(answer[lineage])} source columns")
+        for p in answer["paths"]:
+            if p["lineage"] != lineage:
+                continue
+            leaf = branch.add(p["source"])
+            for step in p["steps"]:
+                leaf = leaf.add(f"{step['edge']} ({step['how']}) -> {step['to']}  [dim]{step['file']}:{step['line']}[/dim]")
+    if answer["raw"]:
+        tree.add("dump columns: " + ", ".join(answer["raw"]))
+    for d in answer["unresolved"]:
+        tree.add(f"[red]unresolved[/red] {d['file']}:{d['line']}: {d['reason']}: {d['reference']}")
+    return tree
+
+
+def run_command(args: argparse.Namespace, out: Console) -> int:
+    project, mappings, loaded = load_project(args)
+    if args.command == "trace":
+        answers = trace_target(project, args.target)
+        if args.json:
+            payload: Any = answers if args.target in project.models else answers[0]
+            print(json.dumps(payload, indent=2))
+        else:
+            for a in answers:
+                out.print(_trace_tree(a))
+        return EXIT_OK
+    if args.command == "impact":
+        edit = None
+        if args.drop:
+            edit = Edit("drop")
+        elif args.rename:
+            edit = Edit("rename", args.rename)
+        elif args.retype:
+            edit = Edit("retype", args.retype)
+        result = impact(project, args.column, edit, mappings=mappings, loaded=loaded)
+        if args.json:
+            print(json.dumps(result, indent=2))
+        else:
+            _print_impact(result, out)
+        return EXIT_BREAKS if breaks(result) else EXIT_OK
+    if args.command == "lineage":
+        g = project.graph
+        title = "column lineage"
+        if args.around:
+            node = find_column(project, args.around)
+            g = around(g, node, args.depth)
+            title = f"around {args.around} (depth {args.depth})"
+        path = export(g, Path(args.out), title=title)
+        summary = {
+            "out": str(path),
+            "nodes": g.number_of_nodes(),
+            "edges": g.number_of_edges(),
+            "models": len(project.models),
+            "diagnostics": [d.as_dict() for d in project.diagnostics],
+        }
+        if args.json:
+            print(json.dumps(summary, indent=2))
+        else:
+            out.print(f"wrote {path}: {summary['nodes']} columns, {summary['edges']} edges, {summary['models']} models")
+            for d in project.diagnostics:
+                out.print(f"unresolved {d.render()}", markup=False)
+        return EXIT_OK
+    raise UsageError(f"unknown command {args.command}")
+
+
+def _print_impact(r: dict[str, Any], out: Console) -> None:
+    edit = r["edit"]
+    head = f"impact of {r['column']}" + (f" ({edit['kind']}{' ' + edit['value'] if edit['value'] else ''})" if edit else "")
+    tree = Tree(f"[bold]{head}[/bold]")
+    for key, label in (("value_dependents", "value dependents"), ("influence_dependents", "influence dependents")):
+        b = tree.add(f"{label}: {len(r[key])}")
+        for c in r[key]:
+            b.add(c)
+    if edit:
+        b = tree.add(f"breaks: {len(r['broken_models']) + len(r['broken_mappings'])}")
+        for m in r["broken_mappings"]:
+            b.add(f"[red]mapping[/red] {m['mapping']}: field {m['field']}: {m['reason']} (fix: {m['fix']})")
+        for d in r["broken_models"]:
+            b.add(f"[red]model[/red] {d['model']} {d['file']}:{d['line']}: {d['reason']}: {d['reference']}")
+        b = tree.add(f"value changes: {len(r['value_changes'])}")
+        for v in r["value_changes"]:
+            b.add(f"{v['column']}: {v['how']}; {v['change']}")
+        b = tree.add(f"row changes: {len(r['row_changes'])}")
+        for v in r["row_changes"]:
+            b.add(f"{v['column']}: the column is a {'/'.join(v['clauses']) or 'row'} key upstream")
+    out.print(tree)

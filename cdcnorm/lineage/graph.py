@@ -1,0 +1,308 @@
+"""Build the column-level lineage graph of a project: mappings plus SQL models.
+
+Nodes are columns: ``raw`` (a dump column), ``source`` (a mapping's canonical
+field) and ``model`` (an output column of a model). Edges go one hop
+downstream, keyed by their kind, ``value`` or ``influence``, with the sub-kind
+(copy/transform/aggregate) or the clauses, the model file and the line.
+
+Models are built upstream first (topological order of the tables they read);
+each model's output columns join the schema used to qualify the next.
+"""
+
+from __future__ import annotations
+
+from collections import defaultdict
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import networkx as nx
+from sqlglot import exp
+
+from cdcnorm.lineage.diagnostics import Diagnostic
+from cdcnorm.lineage.models import LoadedModels, ModelStatement, load_models
+from cdcnorm.lineage.resolve import Catalog, Deps, Node, StatementResolver, TableInfo, table_parts
+from cdcnorm.mapping.load import LoadedMapping
+
+SQL_TYPES = {
+    "integer": "BIGINT",
+    "float": "DOUBLE",
+    "boolean": "BOOLEAN",
+    "date": "DATE",
+    "time": "TIME",
+    "timestamp": "TIMESTAMPTZ",
+    "text": "TEXT",
+    "bytes": "BLOB",
+    "uuid": "UUID",
+    "json": "JSON",
+}
+
+
+def node_name(node: Node) -> str:
+    return f"{node[1]}.{node[2]}"
+
+
+def node_id(node: Node) -> str:
+    return f"{node[0]}:{node[1]}.{node[2]}"
+
+
+@dataclass
+class ModelInfo:
+    name: str
+    files: list[str]
+    columns: list[str]
+    lines: dict[str, int] = field(default_factory=dict)
+
+
+@dataclass
+class Project:
+    graph: nx.MultiDiGraph
+    catalog: Catalog
+    models: dict[str, ModelInfo]
+    sources: dict[str, LoadedMapping]
+    diagnostics: list[Diagnostic]
+    dialect: str
+    order: list[str]
+
+    def column_nodes(self) -> list[Node]:
+        return list(self.graph.nodes)
+
+
+def source_type(lm: LoadedMapping, field_name: str) -> str:
+    ftype = lm.field_types[field_name]
+    if ftype.name == "decimal":
+        p, s = ftype.params
+        return f"DECIMAL({p},{s})"
+    if ftype.name == "text" and getattr(ftype, "max_length", None):
+        return f"VARCHAR({ftype.max_length})"  # type: ignore[attr-defined]
+    return SQL_TYPES[ftype.name]
+
+
+def _normalise_name(name: str, dialect: str) -> tuple[str, ...]:
+    from sqlglot.optimizer.normalize_identifiers import normalize_identifiers
+
+    table = exp.to_table(name, dialect=dialect)
+    return table_parts(normalize_identifiers(table, dialect=dialect))  # type: ignore[arg-type]
+
+
+def _normalise_column(name: str, dialect: str) -> str:
+    from sqlglot.optimizer.normalize_identifiers import normalize_identifiers
+
+    return str(normalize_identifiers(exp.to_identifier(name), dialect=dialect).name)
+
+
+def mapping_catalog(mappings: list[LoadedMapping], dialect: str, edits: dict[Node, Any] | None = None) -> Catalog:
+    """Source tables from the mappings; ``edits`` simulate a schema edit (see questions.simulate)."""
+    cat = Catalog()
+    for lm in mappings:
+        parts = _normalise_name(lm.table, dialect)
+        cols = []
+        types = {}
+        for f in lm.mapping.fields:
+            col = _normalise_column(f, dialect)
+            node: Node = ("source", lm.table, col)
+            edit = (edits or {}).get(node)
+            typ = source_type(lm, f)
+            if edit is not None:
+                if edit[0] == "drop":
+                    continue
+                if edit[0] == "rename":
+                    col = _normalise_column(edit[1], dialect)
+                if edit[0] == "retype":
+                    typ = edit[1]
+            cols.append(col)
+            types[col] = typ
+        cat.add(TableInfo("source", lm.table, parts, cols, types))
+    return cat
+
+
+def _referenced_tables(stmt: ModelStatement) -> list[tuple[str, ...]]:
+    ctes = {c.alias_or_name for c in stmt.statement.find_all(exp.CTE)}
+    out = []
+    for t in stmt.statement.find_all(exp.Table):
+        if not t.name or (len(t.parts) == 1 and t.name in ctes):
+            continue
+        out.append(table_parts(t))
+    return out
+
+
+def _dedupe_names(names: list[str]) -> list[str]:
+    """Duplicate output names get _1, _2 ... (as DuckDB names the columns of such a view)."""
+    seen: dict[str, int] = {}
+    out = []
+    for n in names:
+        if n in seen:
+            seen[n] += 1
+            candidate = f"{n}_{seen[n]}"
+            while candidate in seen:
+                seen[n] += 1
+                candidate = f"{n}_{seen[n]}"
+            seen[candidate] = 0
+            out.append(candidate)
+        else:
+            seen[n] = 0
+            out.append(n)
+    return out
+
+
+def _merge_query(resolver: StatementResolver, stmt: ModelStatement, catalog: Catalog, dialect: str) -> list[tuple[str, Deps]] | None:
+    """MERGE INTO t USING s ON c WHEN ...: each SET/INSERT column as a SELECT over t JOIN s ON c."""
+    merge = stmt.statement
+    target = merge.this
+    using = merge.args.get("using")
+    on = merge.args.get("on")
+    whens = merge.args.get("whens")
+    clauses = whens.expressions if isinstance(whens, exp.Whens) else (merge.expressions or [])
+    assignments: list[tuple[str, exp.Expr, exp.Expr | None, bool]] = []
+    for when in clauses:
+        then = when.args.get("then")
+        cond = when.args.get("condition")
+        matched = bool(when.args.get("matched"))
+        if isinstance(then, exp.Update):
+            for eq in then.expressions:
+                assignments.append((eq.this.name, eq.expression, cond, matched))
+        elif isinstance(then, exp.Insert):
+            cols = then.this.expressions if isinstance(then.this, exp.Tuple) else []
+            vals = then.expression.expressions if isinstance(then.expression, exp.Tuple) else []
+            for c, v in zip(cols, vals, strict=False):
+                assignments.append((c.name, v, cond, matched))
+    if not assignments:
+        return []
+    names = _dedupe_names(list(dict.fromkeys(a[0] for a in assignments)))
+    parts = _normalise_name(target.sql(dialect=dialect).split(" AS ")[0], dialect) if isinstance(target, exp.Table) else stmt.target
+    if catalog.find(tuple(parts)) is None:
+        catalog.add(TableInfo("model", stmt.name, tuple(parts), names))
+    out: dict[str, Deps] = {}
+    for name, value, cond, matched in assignments:
+        where = f" WHERE {cond.sql(dialect=dialect)}" if cond is not None else ""
+        join = "JOIN" if matched else "RIGHT JOIN"
+        sql = (
+            f"SELECT {value.sql(dialect=dialect)} AS {exp.to_identifier(name).sql(dialect=dialect)} "
+            f"FROM {target.sql(dialect=dialect)} {join} {using.sql(dialect=dialect) if using else ''} "
+            f"ON {on.sql(dialect=dialect) if on else 'TRUE'}{where}"
+        )
+        from sqlglot import parse_one
+
+        query = parse_one(sql, read=dialect)
+        for n in query.find_all(exp.Identifier):
+            n.meta.setdefault("line", stmt.line)
+        res = resolver.resolve(query)
+        if not res:
+            continue
+        d = out.setdefault(name, Deps())
+        d.merge(res[0][1])
+    return [(n, out.get(n, Deps())) for n in names]
+
+
+def build_project(
+    models_dir: Path | None,
+    mappings: list[LoadedMapping],
+    dialect: str = "duckdb",
+    *,
+    loaded: LoadedModels | None = None,
+    edits: dict[Node, Any] | None = None,
+) -> Project:
+    """Load, order and resolve every model; return the graph with its diagnostics."""
+    if loaded is None:
+        loaded = load_models(models_dir, dialect) if models_dir is not None and models_dir.exists() else LoadedModels()
+    catalog = mapping_catalog(mappings, dialect, edits)
+    g = nx.MultiDiGraph()
+    diagnostics = list(loaded.diagnostics)
+    # mapping layer: raw dump column -> canonical field
+    for lm in mappings:
+        for f in lm.mapping.fields:
+            col = _normalise_column(f, dialect)
+            node: Node = ("source", lm.table, col)
+            edit = (edits or {}).get(node)
+            raw: Node = ("raw", lm.table, lm.mapping.raw_column(f))
+            g.add_node(raw, kind="raw", table=lm.table, column=raw[2])
+            if edit is not None and edit[0] in ("drop", "rename"):
+                continue
+            if edit is not None and edit[0] == "rename":
+                node = ("source", lm.table, _normalise_column(edit[1], dialect))
+            ftype = lm.field_types[f]
+            sub = "copy" if ftype.name == "text" and not getattr(ftype, "max_length", None) else "transform"
+            g.add_node(node, kind="source", table=lm.table, column=col, type=source_type(lm, f))
+            g.add_edge(raw, node, key="value", kind="value", sub=sub, clauses="", file=str(lm.path.name), line=0)
+    by_model: dict[str, list[ModelStatement]] = defaultdict(list)
+    for st in loaded.statements:
+        by_model[st.name].append(st)
+    parts_of = {name: sts[0].target for name, sts in by_model.items()}
+    deps = nx.DiGraph()
+    deps.add_nodes_from(by_model)
+    for name, sts in by_model.items():
+        for st in sts:
+            for parts in _referenced_tables(st):
+                for other, oparts in parts_of.items():
+                    if other != name and (oparts == parts or oparts[-len(parts) :] == parts):
+                        deps.add_edge(other, name)
+    try:
+        order = list(nx.lexicographical_topological_sort(deps))
+    except nx.NetworkXUnfeasible:
+        cycle = nx.find_cycle(deps)
+        first = by_model[cycle[0][0]][0]
+        diagnostics.append(
+            Diagnostic(first.file, first.line, first.name, "unsupported", "models read each other in a cycle: " + " -> ".join(a for a, _ in cycle))
+        )
+        order = sorted(by_model)
+    models: dict[str, ModelInfo] = {}
+    for name in order:
+        sts = by_model[name]
+        merged: dict[str, Deps] = {}
+        columns: list[str] = []
+        lines: dict[str, int] = {}
+        for st in sts:
+            resolver = StatementResolver(catalog, dialect, st.file, name, st.line)
+            if st.kind == "merge":
+                outs = _merge_query(resolver, st, catalog, dialect)
+            else:
+                assert st.query is not None
+                outs = resolver.resolve(st.query)
+            diagnostics.extend(resolver.diagnostics)
+            if outs is None:
+                continue
+            names = [n for n, _ in outs]
+            if st.columns is not None:
+                if len(st.columns) != len(outs):
+                    diagnostics.append(
+                        Diagnostic(st.file, st.line, name, "unsupported", f"column list names {len(st.columns)} columns, the query has {len(outs)}")
+                    )
+                names = list(st.columns[: len(outs)]) + names[len(st.columns) :]
+            elif st.kind == "insert" and name in models:
+                known = models[name].columns
+                names = known[: len(outs)] + names[len(known) :]
+            names = _dedupe_names(names) if st.kind != "insert" else names
+            for n, (_, d) in zip(names, outs, strict=False):
+                if n not in merged:
+                    merged[n] = Deps()
+                    columns.append(n)
+                    lines[n] = st.line
+                merged[n].merge(d)
+        info = ModelInfo(name, sorted({s.file for s in sts}), columns, lines)
+        models[name] = info
+        visible = list(columns)
+        for (kind, table, col), (what, new) in (edits or {}).items():
+            if kind == "model" and table == name and col in visible:  # a simulated edit of this model's output
+                visible.remove(col)
+                if what == "rename" and new:
+                    visible.append(new)
+        catalog.add(TableInfo("model", name, parts_of[name], visible))
+        file_of = sts[0].file
+        for col in columns:
+            target: Node = ("model", name, col)
+            g.add_node(target, kind="model", table=name, column=col)
+            d = merged[col]
+            for src, sub in d.value.items():
+                if src == target:
+                    continue
+                g.add_node(src, kind=src[0], table=src[1], column=src[2])
+                g.add_edge(src, target, key="value", kind="value", sub=sub, clauses="", file=file_of, line=d.lines.get(src, lines[col]))
+            for src, clauses in d.influence.items():
+                if src == target:
+                    continue
+                g.add_node(src, kind=src[0], table=src[1], column=src[2])
+                g.add_edge(
+                    src, target, key="influence", kind="influence", sub="", clauses=",".join(sorted(clauses)),
+                    file=file_of, line=d.lines.get(src, lines[col]),
+                )
+    return Project(g, catalog, models, {m.table: m for m in mappings}, diagnostics, dialect, order)

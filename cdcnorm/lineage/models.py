@@ -1,0 +1,144 @@
+"""Load SQL model files: every statement that defines (part of) an output table.
+
+A model file may hold several statements. Each of CREATE VIEW/TABLE ... AS
+SELECT, INSERT INTO t [(cols)] SELECT, MERGE INTO t, and a bare SELECT (named
+after its file) defines the columns of one target table, the model. A file
+that does not parse is reported, and the rest of the project still builds.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import sqlglot
+from sqlglot import exp
+from sqlglot.errors import ParseError, TokenError
+
+from cdcnorm.lineage.diagnostics import Diagnostic
+
+
+@dataclass
+class ModelStatement:
+    file: str
+    line: int
+    kind: str  # create | insert | merge | select
+    target: tuple[str, ...]  # normalised name parts, e.g. ("mart", "daily_revenue")
+    statement: exp.Expr
+    query: exp.Expr | None  # the SELECT / set operation feeding the target (None for MERGE)
+    columns: list[str] | None = None  # explicit column list (CREATE VIEW v (a, b), INSERT INTO t (a, b))
+
+    @property
+    def name(self) -> str:
+        return ".".join(self.target)
+
+
+@dataclass
+class LoadedModels:
+    statements: list[ModelStatement] = field(default_factory=list)
+    diagnostics: list[Diagnostic] = field(default_factory=list)
+    files: list[str] = field(default_factory=list)
+
+
+def _normalise(name: exp.Expr, dialect: str) -> tuple[str, ...]:
+    from sqlglot.optimizer.normalize_identifiers import normalize_identifiers
+
+    norm = normalize_identifiers(name.copy(), dialect=dialect)
+    if isinstance(norm, exp.Table):
+        return tuple(p.name for p in norm.parts)
+    return (norm.name,)
+
+
+def _statement_lines(sql: str, dialect: str) -> list[int]:
+    """The line where each statement starts (statements split at top-level semicolons)."""
+    tokens = sqlglot.Dialect.get_or_raise(dialect).tokenize(sql)
+    lines = []
+    start = True
+    for tok in tokens:
+        if start:
+            lines.append(tok.line)
+            start = False
+        if tok.token_type == sqlglot.tokens.TokenType.SEMICOLON:
+            start = True
+    return lines
+
+
+def _column_names(schema: exp.Expr | None) -> list[str] | None:
+    if isinstance(schema, exp.Schema) and schema.expressions:
+        names = []
+        for col in schema.expressions:
+            ident = col.this if isinstance(col, exp.ColumnDef) else col
+            names.append(ident.name)
+        return names
+    return None
+
+
+def _target_and_columns(target: exp.Expr, dialect: str) -> tuple[tuple[str, ...], list[str] | None]:
+    from sqlglot.optimizer.normalize_identifiers import normalize_identifiers
+
+    if isinstance(target, exp.Schema):
+        table = target.this
+        cols = normalize_identifiers(target.copy(), dialect=dialect)
+        return _normalise(table, dialect), _column_names(cols)
+    return _normalise(target, dialect), None
+
+
+def load_model_file(path: Path, dialect: str, root: Path | None = None) -> LoadedModels:
+    shown = path.relative_to(root).as_posix() if root and path.is_relative_to(root) else str(path)
+    out = LoadedModels(files=[shown])
+    try:
+        sql = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as e:
+        out.diagnostics.append(Diagnostic(shown, None, path.stem, "parse error", f"cannot read the file: {e}"))
+        return out
+    try:
+        statements = sqlglot.parse(sql, read=dialect)
+        lines = _statement_lines(sql, dialect)
+    except (ParseError, TokenError) as e:
+        errs = getattr(e, "errors", None) or [{}]
+        line = errs[0].get("line") if isinstance(errs[0], dict) else None
+        message = str(e).splitlines()[0]
+        out.diagnostics.append(Diagnostic(shown, line, path.stem, "parse error", message))
+        return out
+    stmts = [s for s in statements if s is not None]
+    for i, stmt in enumerate(stmts):
+        line = lines[i] if i < len(lines) else 1
+        ms = _classify(stmt, path.stem, shown, line, dialect)
+        if ms is None:
+            continue
+        out.statements.append(ms)
+    return out
+
+
+def _classify(stmt: exp.Expr, stem: str, file: str, line: int, dialect: str) -> ModelStatement | None:
+    if isinstance(stmt, exp.Create):
+        query = stmt.expression
+        if not isinstance(query, exp.Query):
+            return None  # CREATE TABLE t (a INT) without AS: no lineage
+        target, cols = _target_and_columns(stmt.this, dialect)
+        return ModelStatement(file, line, "create", target, stmt, query, cols)
+    if isinstance(stmt, exp.Insert):
+        query = stmt.expression
+        if not isinstance(query, exp.Query):
+            return None  # INSERT ... VALUES: constants only
+        target, cols = _target_and_columns(stmt.this, dialect)
+        return ModelStatement(file, line, "insert", target, stmt, query, cols)
+    if isinstance(stmt, exp.Merge):
+        target, _ = _target_and_columns(stmt.this, dialect)
+        return ModelStatement(file, line, "merge", target, stmt, None)
+    if isinstance(stmt, exp.Query):
+        return ModelStatement(file, line, "select", _normalise(exp.to_identifier(stem), dialect), stmt, stmt)
+    return None
+
+
+def load_models(folder: Path, dialect: str) -> LoadedModels:
+    """Every ``*.sql`` file under ``folder`` (recursively), in path order."""
+    out = LoadedModels()
+    paths = [folder] if folder.is_file() else sorted(folder.rglob("*.sql"))
+    root = folder if folder.is_dir() else folder.parent
+    for p in paths:
+        one = load_model_file(p, dialect, root)
+        out.statements.extend(one.statements)
+        out.diagnostics.extend(one.diagnostics)
+        out.files.extend(one.files)
+    return out

@@ -1,0 +1,258 @@
+"""Questions over the graph: trace a column upstream, the impact of a column downstream,
+and the simulated effect of a schema edit (drop, rename, retype).
+
+A source is in the *value* lineage of C when a path of value edges connects
+it to C; in the *influence* lineage when some path to C holds at least one
+influence edge. Dependents downstream are split the same way.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import networkx as nx
+from sqlglot import exp
+
+from cdcnorm.errors import LineageError, did_you_mean
+from cdcnorm.lineage.graph import Project, build_project, node_name
+from cdcnorm.lineage.models import LoadedModels
+from cdcnorm.lineage.resolve import Node
+from cdcnorm.mapping.load import LoadedMapping
+
+
+def _value_view(g: nx.MultiDiGraph) -> Any:
+    return nx.subgraph_view(g, filter_edge=lambda u, v, k: k == "value")
+
+
+def find_column(project: Project, text: str) -> Node:
+    """A column written <table>.<column>: a mapping field, a model column, or a raw dump column."""
+    if "." not in text:
+        raise LineageError(f"write a column as <table>.<column>, not {text!r}")
+    table, column = text.rsplit(".", 1)
+    g = project.graph
+    norm = column.lower() if project.dialect in ("duckdb", "postgres", "sqlite", "spark", "databricks") else column
+    for kind in ("source", "model", "raw"):
+        for col in (column, norm):
+            node: Node = (kind, table, col)
+            if node in g:
+                return node
+    names = sorted({node_name(n) for n in g.nodes})
+    raise LineageError(f"no column {text} in the mappings or models{did_you_mean(text, names)}")
+
+
+def model_columns(project: Project, name: str) -> list[Node]:
+    if name in project.models:
+        return [("model", name, c) for c in project.models[name].columns]
+    names = list(project.models)
+    raise LineageError(f"no model {name!r}{did_you_mean(name, names)}; models are {', '.join(sorted(names))}")
+
+
+def _upstream(project: Project, node: Node) -> tuple[set[Node], set[Node]]:
+    g = project.graph
+    value = nx.ancestors(_value_view(g), node)
+    every = nx.ancestors(g, node) | {node}
+    influence: set[Node] = set()
+    for u, v, k in g.in_edges(every, keys=True):
+        if k == "influence":
+            influence |= {u} | nx.ancestors(g, u)
+    return value, influence
+
+
+def _downstream(project: Project, node: Node) -> tuple[set[Node], set[Node]]:
+    g = project.graph
+    value = nx.descendants(_value_view(g), node)
+    every = nx.descendants(g, node) | {node}
+    influence: set[Node] = set()
+    for u, v, k in g.out_edges(every, keys=True):
+        if k == "influence":
+            influence |= {v} | nx.descendants(g, v)
+    return value, influence
+
+
+def _path(project: Project, a: Node, b: Node, value_only: bool) -> list[dict[str, Any]]:
+    g = project.graph
+    view = _value_view(g) if value_only else g
+    try:
+        nodes = nx.shortest_path(view, a, b)
+    except nx.NetworkXNoPath:
+        nodes = nx.shortest_path(g, a, b)
+    steps = []
+    for u, v in zip(nodes, nodes[1:], strict=False):
+        edges = g.get_edge_data(u, v)
+        key = "value" if "value" in edges and (value_only or "influence" not in edges) else "influence"
+        data = edges[key]
+        steps.append(
+            {
+                "from": node_name(u),
+                "to": node_name(v),
+                "edge": key,
+                "how": data["sub"] if key == "value" else data["clauses"],
+                "file": data["file"],
+                "line": data["line"],
+            }
+        )
+    return steps
+
+
+def trace(project: Project, column: str) -> dict[str, Any]:
+    node = find_column(project, column)
+    value, influence = _upstream(project, node)
+    vsrc = sorted(n for n in value if n[0] == "source")
+    isrc = sorted(n for n in influence if n[0] == "source")
+    raw = sorted({r for s in (*vsrc, *isrc) for r in project.graph.predecessors(s) if r[0] == "raw"})
+    if node[0] == "source":
+        raw = sorted({*raw, *(r for r in project.graph.predecessors(node) if r[0] == "raw")})
+    paths = [{"source": node_name(s), "lineage": "value", "steps": _path(project, s, node, True)} for s in vsrc]
+    paths += [{"source": node_name(s), "lineage": "influence", "steps": _path(project, s, node, False)} for s in isrc]
+    model = node[1] if node[0] == "model" else None
+    unresolved = [d.as_dict() for d in project.diagnostics if model is not None and d.model == model]
+    return {
+        "column": node_name(node),
+        "value": [node_name(n) for n in vsrc],
+        "influence": [node_name(n) for n in isrc],
+        "raw": [node_name(n) for n in raw],
+        "paths": paths,
+        "unresolved": unresolved,
+    }
+
+
+def trace_target(project: Project, target: str) -> list[dict[str, Any]]:
+    """``trace model`` answers for each of its columns; ``trace table.column`` for one."""
+    if target in project.models:
+        return [trace(project, node_name(n)) for n in model_columns(project, target)]
+    return [trace(project, target)]
+
+
+@dataclass
+class Edit:
+    kind: str  # drop | rename | retype
+    value: str | None = None
+
+    def as_dict(self) -> dict[str, Any]:
+        return {"kind": self.kind, "value": self.value}
+
+
+def _kind_of_type(sql_type: str, dialect: str) -> tuple[str, int | None, int | None]:
+    """(class, width, scale): exact | float | text | other, for comparing a retype."""
+    try:
+        dt = exp.DataType.build(sql_type, dialect=dialect)
+    except Exception:  # an unknown type name: compare by its text only
+        return ("other", None, None)
+    t = dt.this
+    params = [int(p.this.this) for p in dt.expressions if isinstance(p, exp.DataTypeParam) and p.this.is_int]
+    if t in exp.DataType.REAL_TYPES - {exp.DataType.Type.DECIMAL}:
+        return ("float", None, None)
+    if t == exp.DataType.Type.DECIMAL:
+        return ("exact", params[0] if params else 18, params[1] if len(params) > 1 else 0)
+    widths = {
+        exp.DataType.Type.TINYINT: 8, exp.DataType.Type.SMALLINT: 16, exp.DataType.Type.INT: 32,
+        exp.DataType.Type.BIGINT: 64, exp.DataType.Type.HUGEINT: 128,
+    }
+    if t in widths:
+        return ("integer", widths[t], None)
+    if t in exp.DataType.TEXT_TYPES:
+        return ("text", params[0] if params else None, None)
+    return ("other", None, None)
+
+
+def _type_change(old: str, new: str, dialect: str) -> str | None:
+    a, b = _kind_of_type(old, dialect), _kind_of_type(new, dialect)
+    if a[0] == "exact" and b[0] == "float":
+        return f"an exact decimal becomes a float ({old} -> {new}): values become approximate"
+    if a[0] == b[0] == "exact" and ((b[1] or 0) < (a[1] or 0) or (b[2] or 0) < (a[2] or 0)):
+        return f"the decimal narrows ({old} -> {new}): larger or finer values no longer fit"
+    if a[0] == b[0] == "integer" and (b[1] or 0) < (a[1] or 0):
+        return f"the integer narrows ({old} -> {new}): large values no longer fit"
+    if a[0] == b[0] == "text" and b[1] is not None and (a[1] is None or b[1] < a[1]):
+        return f"the text narrows ({old} -> {new}): longer values no longer fit"
+    if a[0] == "integer" and b[0] == "float" and (a[1] or 0) > 53:
+        return f"a 64-bit integer becomes a float ({old} -> {new}): values above 2**53 lose precision"
+    if old.lower() != new.lower():
+        return f"the type changes ({old} -> {new})"
+    return None
+
+
+def impact(
+    project: Project,
+    column: str,
+    edit: Edit | None,
+    *,
+    mappings: list[LoadedMapping],
+    loaded: LoadedModels | None = None,
+) -> dict[str, Any]:
+    node = find_column(project, column)
+    value, influence = _downstream(project, node)
+    vdep = sorted(n for n in value if n[0] == "model")
+    idep = sorted(n for n in influence if n[0] == "model")
+    result: dict[str, Any] = {
+        "column": node_name(node),
+        "edit": edit.as_dict() if edit else None,
+        "value_dependents": [node_name(n) for n in vdep],
+        "influence_dependents": [node_name(n) for n in idep],
+        "broken_models": [],
+        "broken_mappings": [],
+        "value_changes": [],
+        "row_changes": [],
+    }
+    if edit is None:
+        return result
+    g = project.graph
+    # which canonical fields does the edit touch (a raw column edit reaches its fields)
+    fields = [node] if node[0] == "source" else [s for s in g.successors(node) if s[0] == "source"] if node[0] == "raw" else []
+    if node[0] == "raw" or node[0] == "source":
+        raws = [node] if node[0] == "raw" else [r for r in g.predecessors(node) if r[0] == "raw"]
+        if edit.kind in ("drop", "rename"):
+            for r in raws:
+                for f in g.successors(r):
+                    if f[0] == "source":
+                        lm = project.sources[f[1]]
+                        result["broken_mappings"].append(
+                            {
+                                "mapping": lm.path.name,
+                                "table": f[1],
+                                "field": f[2],
+                                "raw_column": r[2],
+                                "reason": "the raw column is dropped" if edit.kind == "drop" else f"the raw column is renamed to {edit.value}",
+                                "fix": f"set fields.{f[2]}.from: {edit.value}" if edit.kind == "rename" else f"remove field {f[2]} (and what reads it)",
+                            }
+                        )
+    if node[0] == "model":
+        fields = []
+    if fields or node[0] == "model":
+        edits: dict[Node, Any] = {}
+        for f in fields:
+            edits[f] = (edit.kind, edit.value)
+        before = {(d.model, d.reason, d.reference) for d in project.diagnostics}
+        if node[0] == "model":
+            edits[node] = (edit.kind, edit.value)
+        simulated = build_project(None, mappings, project.dialect, loaded=loaded, edits=edits)
+        for d in simulated.diagnostics:
+            if (d.model, d.reason, d.reference) not in before:
+                result["broken_models"].append(d.as_dict())
+    if edit.kind == "retype" and edit.value:
+        old = g.nodes[node].get("type") or "TEXT"
+        change = _type_change(old, edit.value, project.dialect)
+        if change:
+            for n in vdep:
+                path = _path(project, node, n, True)
+                copies = all(step["how"] == "copy" for step in path)
+                result["value_changes"].append(
+                    {
+                        "column": node_name(n),
+                        "how": "copied: the output's type changes with it" if copies else "computed from it: results may change",
+                        "change": change,
+                    }
+                )
+    # the edited column decides rows through these influence edges (join, filter, group keys ...)
+    reach = nx.descendants(g, node) | {node}
+    keyed = [(v, d["clauses"]) for u in reach for _, v, k, d in g.out_edges(u, keys=True, data=True) if k == "influence"]
+    for n in idep:
+        upstream = nx.ancestors(g, n) | {n}
+        clauses = sorted({c for v, cs in keyed if v in upstream for c in cs.split(",") if c})
+        result["row_changes"].append({"column": node_name(n), "clauses": clauses})
+    return result
+
+
+def breaks(result: dict[str, Any]) -> bool:
+    return bool(result["broken_models"] or result["broken_mappings"])

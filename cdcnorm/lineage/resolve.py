@@ -1,0 +1,470 @@
+"""Resolve one statement's output columns to the base columns they depend on.
+
+Each statement is qualified once (sqlglot's ``qualify``: stars expanded from the
+schema, columns bound to their sources), then its scope tree is walked. For
+every output column the resolver collects
+
+- value dependencies: columns whose values flow into the output, with the
+  kind of flow: ``copy`` (the value as is), ``transform`` (an expression of it)
+  or ``aggregate`` (an aggregate over it);
+- influence dependencies: columns that decide which rows appear or how they
+  are grouped or ordered, without flowing into the value, with the clause:
+  ``join`` (ON/USING/NATURAL), ``where``, ``group``, ``having``, ``qualify``,
+  ``distinct`` (also UNION/INTERSECT/EXCEPT without ALL), ``window`` (PARTITION
+  BY/ORDER BY), ``filter`` and ``order`` (an aggregate's FILTER/ORDER BY),
+  ``exists``, ``limit`` (ORDER BY under LIMIT), ``unnest``, ``intersect``,
+  ``except``.
+
+Base columns are columns of tables outside the statement: mapping tables
+(source fields) and other models. CTEs, derived tables and subqueries are
+resolved through, so they never appear as nodes.
+"""
+
+from __future__ import annotations
+
+import difflib
+from collections.abc import Iterable
+from dataclasses import dataclass, field
+
+from sqlglot import exp
+from sqlglot.errors import OptimizeError
+from sqlglot.optimizer.qualify import qualify
+from sqlglot.optimizer.scope import Scope, build_scope
+from sqlglot.schema import MappingSchema
+
+from cdcnorm.lineage.diagnostics import Diagnostic
+
+Node = tuple[str, str, str]  # (kind: source | model | raw, table, column)
+RANK = {"copy": 0, "transform": 1, "aggregate": 2}
+
+
+def compose(a: str, b: str) -> str:
+    return a if RANK[a] >= RANK[b] else b
+
+
+@dataclass
+class Deps:
+    value: dict[Node, str] = field(default_factory=dict)
+    influence: dict[Node, set[str]] = field(default_factory=dict)
+    lines: dict[Node, int] = field(default_factory=dict)
+
+    def add_value(self, node: Node, sub: str, line: int | None) -> None:
+        self.value[node] = compose(self.value.get(node, sub), sub)
+        if line and node not in self.lines:
+            self.lines[node] = line
+
+    def add_influence(self, node: Node, clauses: Iterable[str], line: int | None) -> None:
+        self.influence.setdefault(node, set()).update(clauses)
+        if line and node not in self.lines:
+            self.lines[node] = line
+
+    def merge(self, other: Deps, *, sub: str = "copy", as_influence: str | None = None) -> None:
+        for node, s in other.value.items():
+            if as_influence:
+                self.add_influence(node, [as_influence], other.lines.get(node))
+            else:
+                self.add_value(node, compose(sub, s), other.lines.get(node))
+        for node, clauses in other.influence.items():
+            self.add_influence(node, clauses, other.lines.get(node))
+
+    def copy(self) -> Deps:
+        return Deps(dict(self.value), {k: set(v) for k, v in self.influence.items()}, dict(self.lines))
+
+    def __eq__(self, other: object) -> bool:
+        return isinstance(other, Deps) and self.value == other.value and self.influence == other.influence
+
+
+@dataclass
+class TableInfo:
+    kind: str  # source | model
+    name: str  # display name: mapping table or model name
+    parts: tuple[str, ...]
+    columns: list[str]
+    types: dict[str, str] = field(default_factory=dict)
+
+
+class Catalog:
+    """The tables a statement may read: mapping tables and the models built so far."""
+
+    def __init__(self) -> None:
+        self.tables: dict[tuple[str, ...], TableInfo] = {}
+
+    def add(self, info: TableInfo) -> None:
+        self.tables[info.parts] = info
+
+    def find(self, parts: tuple[str, ...]) -> TableInfo | None:
+        if parts in self.tables:
+            return self.tables[parts]
+        matches = [t for p, t in self.tables.items() if p[-len(parts) :] == parts or parts[-len(p) :] == p]
+        return matches[0] if len(matches) == 1 else None
+
+    def schema(self, dialect: str) -> MappingSchema:
+        depth = max((len(p) for p in self.tables), default=1)
+        pad = ("memory", "main")
+        nested: dict[str, object] = {}
+        for parts, info in self.tables.items():
+            full = (*pad[len(pad) - (depth - len(parts)) :], *parts) if len(parts) < depth else parts
+            cur = nested
+            for p in full[:-1]:
+                cur = cur.setdefault(p, {})  # type: ignore[assignment]
+            cur[full[-1]] = {c: info.types.get(c, "TEXT") or "TEXT" for c in info.columns}
+        return MappingSchema(nested, dialect=dialect, normalize=False)
+
+
+def _line(node: exp.Expr) -> int | None:
+    for n in (node, getattr(node, "this", None)):
+        if isinstance(n, exp.Expr):
+            line = n.meta.get("line") if n.meta else None
+            if line:
+                return int(line)
+    return None
+
+
+def table_parts(table: exp.Table) -> tuple[str, ...]:
+    return tuple(p.name for p in table.parts)
+
+
+class StatementResolver:
+    def __init__(self, catalog: Catalog, dialect: str, file: str, model: str, default_line: int) -> None:
+        self.catalog = catalog
+        self.dialect = dialect
+        self.file = file
+        self.model = model
+        self.default_line = default_line
+        self.diagnostics: list[Diagnostic] = []
+        self._memo: dict[int, list[tuple[str, Deps]]] = {}
+        self._rows_memo: dict[int, Deps] = {}
+        self._busy: set[int] = set()
+        self._partial: dict[int, list[tuple[str, Deps]]] = {}
+        self._scope_of: dict[int, Scope] = {}
+        self._reported: set[tuple[str, str]] = set()
+
+    # --- entry points ---------------------------------------------------------------------
+
+    def resolve(self, query: exp.Expr, schema: MappingSchema | None = None) -> list[tuple[str, Deps]] | None:
+        try:
+            qualified = qualify(
+                query.copy(),
+                schema=schema or self.catalog.schema(self.dialect),
+                dialect=self.dialect,
+                validate_qualify_columns=False,
+                identify=False,
+            )
+        except OptimizeError as e:
+            self._diag(_line(query), "unsupported", str(e).splitlines()[0])
+            return None
+        root = build_scope(qualified)
+        if root is None:
+            self._diag(_line(query), "unsupported", "no query to resolve")
+            return None
+        for s in root.traverse():
+            self._scope_of[id(s.expression)] = s
+        return self.outputs(root)
+
+    # --- scopes -----------------------------------------------------------------------------
+
+    def outputs(self, scope: Scope) -> list[tuple[str, Deps]]:
+        key = id(scope)
+        if key in self._memo:
+            return self._memo[key]
+        if key in self._busy:
+            return self._partial.get(key, [])
+        self._busy.add(key)
+        try:
+            e = scope.expression
+            if isinstance(e, exp.SetOperation):
+                result = self._set_operation(scope)
+            elif scope.is_udtf:
+                result = self._udtf(scope)
+            elif isinstance(e, exp.Select):
+                result = self._select(scope)
+            else:
+                result = []
+        finally:
+            self._busy.discard(key)
+        self._memo[key] = result
+        return result
+
+    def _select(self, scope: Scope) -> list[tuple[str, Deps]]:
+        sel = scope.expression
+        rows = self.rows(scope)
+        outs: list[tuple[str, Deps]] = []
+        for proj in sel.expressions:
+            target = proj.this if isinstance(proj, exp.Alias) else proj
+            if isinstance(target, exp.Star) or (isinstance(target, exp.Column) and isinstance(target.this, exp.Star)):
+                self._diag(_line(proj) or self.default_line, "star over unknown sources", proj.sql(self.dialect))
+                continue
+            d = Deps()
+            self.expr(target, scope, d, "copy", None)
+            for node, clauses in rows.influence.items():
+                d.add_influence(node, clauses, rows.lines.get(node))
+            outs.append((proj.alias_or_name, d))
+        return outs
+
+    def _set_operation(self, scope: Scope) -> list[tuple[str, Deps]]:
+        e = scope.expression
+        left_scope, right_scope = scope.set_operation_scopes
+        result: list[tuple[str, Deps]] = []
+        for _ in range(4):  # a recursive CTE refers to itself: iterate to a fixed point
+            left = self.outputs(left_scope) if id(left_scope) not in self._busy else []
+            self._partial[id(scope)] = result or left
+            self._memo.pop(id(right_scope), None)
+            self._rows_memo.pop(id(right_scope), None)
+            right = self.outputs(right_scope)
+            new = self._combine(e, left, right)
+            if new == result:
+                break
+            result = new
+        self._partial.pop(id(scope), None)
+        return result
+
+    def _combine(self, e: exp.Expr, left: list[tuple[str, Deps]], right: list[tuple[str, Deps]]) -> list[tuple[str, Deps]]:
+        by_name = bool(e.args.get("by_name"))
+        right_map = dict(right)
+        out: list[tuple[str, Deps]] = []
+        names = [n for n, _ in left]
+        if by_name:
+            names += [n for n, _ in right if n not in names]
+        left_map = dict(left)
+        for i, name in enumerate(names):
+            d = left_map[name].copy() if name in left_map else Deps()
+            other = right_map.get(name) if by_name else (right[i][1] if i < len(right) else None)
+            if other is not None:
+                if isinstance(e, exp.Union):
+                    d.merge(other)
+                else:
+                    for _, r in right:
+                        d.merge(r, as_influence="intersect" if isinstance(e, exp.Intersect) else "except")
+            out.append((name, d))
+        if e.args.get("distinct"):  # UNION, INTERSECT, EXCEPT without ALL remove duplicate rows
+            every = Deps()
+            for _, d in out:
+                every.merge(d, as_influence="distinct")
+            for _, d in out:
+                for node, clauses in every.influence.items():
+                    if "distinct" in clauses:
+                        d.add_influence(node, ["distinct"], every.lines.get(node))
+        return out
+
+    def _udtf(self, scope: Scope) -> list[tuple[str, Deps]]:
+        e = scope.expression
+        d = Deps()
+        exprs = e.expressions if isinstance(e, exp.Unnest) else [e]
+        for x in exprs:
+            self.expr(x, scope, d, "transform", None)
+        alias = e.args.get("alias")
+        names = [c.name for c in alias.columns] if isinstance(alias, exp.TableAlias) and alias.columns else []
+        if not names:
+            names = [alias.name] if isinstance(alias, exp.TableAlias) and alias.name else ["unnest"]
+        return [(n, d.copy()) for n in names]
+
+    def rows(self, scope: Scope) -> Deps:
+        """Columns that decide which rows the scope yields (influence only)."""
+        key = id(scope)
+        if key in self._rows_memo:
+            return self._rows_memo[key]
+        d = Deps()
+        self._rows_memo[key] = d
+        e = scope.expression
+        if isinstance(e, exp.SetOperation):
+            for part in scope.set_operation_scopes:
+                d.merge(self.rows(part))
+            self._rows_memo[key] = d
+            return d
+        if scope.is_udtf:
+            exprs = e.expressions if isinstance(e, exp.Unnest) else [e]
+            for x in exprs:
+                self.expr(x, scope, d, "copy", "unnest")
+            return d
+        if not isinstance(e, exp.Select):
+            return d
+        where = e.args.get("where")
+        if where is not None:
+            self.expr(where.this, scope, d, "copy", "where")
+        for join in e.args.get("joins") or []:
+            on = join.args.get("on")
+            if on is not None:
+                self.expr(on, scope, d, "copy", "join")
+            using = join.args.get("using") or []
+            natural = str(join.args.get("method") or "").upper() == "NATURAL"
+            if using or natural:
+                self._join_columns(scope, join, [u.name for u in using], natural, d)
+        group = e.args.get("group")
+        if group is not None:
+            for g in group.expressions:
+                self.expr(g, scope, d, "copy", "group")
+            for k in ("rollup", "cube", "grouping_sets"):
+                for g in group.args.get(k) or []:
+                    self.expr(g, scope, d, "copy", "group")
+        for clause in ("having", "qualify"):
+            node = e.args.get(clause)
+            if node is not None:
+                self.expr(node.this, scope, d, "copy", clause)
+        if e.args.get("distinct") is not None:
+            for proj in e.expressions:
+                self.expr(proj, scope, d, "copy", "distinct")
+        if e.args.get("limit") is not None or e.args.get("offset") is not None:
+            order = e.args.get("order")
+            if order is not None:
+                for o in order.expressions:
+                    self.expr(o, scope, d, "copy", "limit")
+        for _alias, (_node, source) in scope.selected_sources.items():
+            if isinstance(source, Scope):
+                d.merge(self.rows(source))
+        return d
+
+    def _join_columns(self, scope: Scope, join: exp.Join, names: list[str], natural: bool, d: Deps) -> None:
+        """USING and NATURAL joins: the shared columns of both sides decide the rows."""
+        cols: dict[str, list[str]] = {}
+        for alias in scope.selected_sources:
+            cols[alias] = self._source_columns(scope, alias)
+        joined = join.this.alias_or_name
+        if natural:
+            others = {c for a, cs in cols.items() if a != joined for c in cs}
+            names = [c for c in cols.get(joined, []) if c in others]
+        for name in names:
+            for alias, cs in cols.items():
+                if name in cs:
+                    ref = self.column(exp.column(name, table=alias), scope)
+                    d.merge(ref, as_influence="join")
+
+    def _source_columns(self, scope: Scope, alias: str) -> list[str]:
+        src = scope.sources.get(alias)
+        if isinstance(src, Scope):
+            return [n for n, _ in self.outputs(src)]
+        if isinstance(src, exp.Table):
+            info = self.catalog.find(table_parts(src))
+            return list(info.columns) if info else []
+        return []
+
+    # --- expressions --------------------------------------------------------------------------
+
+    def expr(self, node: exp.Expr, scope: Scope, d: Deps, ctx: str, infl: str | None) -> None:
+        if isinstance(node, exp.Column):
+            if isinstance(node.this, exp.Star):
+                self._diag(_line(node), "star over unknown sources", node.sql(self.dialect))
+                return
+            ref = self.column(node, scope)
+            if infl:
+                d.merge(ref, as_influence=infl)
+            else:
+                d.merge(ref, sub=ctx)
+            return
+        if isinstance(node, (exp.Literal, exp.Null, exp.Boolean, exp.Star, exp.DataType, exp.Var)):
+            return
+        if isinstance(node, (exp.Alias, exp.Paren)):
+            self.expr(node.this, scope, d, ctx, infl)
+            return
+        if isinstance(node, exp.Window):
+            self.expr(node.this, scope, d, ctx, infl)
+            for p in node.args.get("partition_by") or []:
+                self.expr(p, scope, d, ctx, infl or "window")
+            order = node.args.get("order")
+            if order is not None:
+                for o in order.expressions:
+                    self.expr(o, scope, d, ctx, infl or "window")
+            return
+        if isinstance(node, exp.Filter):
+            self.expr(node.this, scope, d, ctx, infl)
+            self.expr(node.expression, scope, d, ctx, infl or "filter")
+            return
+        if isinstance(node, exp.WithinGroup):
+            self.expr(node.this, scope, d, ctx, infl)
+            self.expr(node.expression, scope, d, ctx, infl or "order")
+            return
+        if isinstance(node, exp.Order) and ctx == "aggregate":
+            if node.this is not None:
+                self.expr(node.this, scope, d, ctx, infl)
+            for o in node.expressions:
+                self.expr(o, scope, d, ctx, infl or "order")
+            return
+        if isinstance(node, exp.Exists):
+            self._subquery(node.this, d, "copy", infl or "exists", exists=True)
+            return
+        if isinstance(node, (exp.Subquery, exp.Select, exp.SetOperation)):
+            inner = node.this if isinstance(node, exp.Subquery) else node
+            self._subquery(inner, d, compose(ctx, "transform") if ctx != "copy" else "copy", infl, exists=False)
+            return
+        if isinstance(node, exp.AggFunc):
+            for child in node.iter_expressions():
+                self.expr(child, scope, d, "aggregate", infl)
+            return
+        sub = compose(ctx, "transform")
+        for child in node.iter_expressions():
+            self.expr(child, scope, d, sub, infl)
+
+    def _subquery(self, inner: exp.Expr, d: Deps, sub: str, infl: str | None, *, exists: bool) -> None:
+        scope = self._scope_of.get(id(inner))
+        if scope is None:
+            return
+        outs = self.outputs(scope)
+        for _, o in outs:
+            if exists or infl:
+                d.merge(o, as_influence=infl or "exists")
+            else:
+                d.merge(o, sub=sub)
+        rows = self.rows(scope)
+        d.merge(rows)
+
+    def column(self, col: exp.Column, scope: Scope) -> Deps:
+        table = col.table
+        name = col.name
+        line = _line(col)
+        if not table:
+            holders = [a for a in scope.selected_sources if name in self._source_columns(scope, a)]
+            if len(holders) > 1:
+                self._diag(line, "ambiguous", name, [f"{a}.{name}" for a in holders])
+            else:
+                known = sorted({c for a in scope.selected_sources for c in self._source_columns(scope, a)})
+                self._diag(line, "not in schema", name, difflib.get_close_matches(name, known, n=3))
+            return Deps()
+        src = self._find_source(table, scope)
+        if src is None:
+            self._diag(line, "unknown table", f"{table}.{name}", difflib.get_close_matches(table, list(scope.sources), n=3))
+            return Deps()
+        if isinstance(src, Scope):
+            outs = dict(self.outputs(src))
+            if name in outs:
+                return outs[name]
+            if id(src) in self._busy:
+                return Deps()
+            self._diag(line, "not in schema", f"{table}.{name}", difflib.get_close_matches(name, list(outs), n=3))
+            return Deps()
+        if isinstance(src, exp.Table):
+            parts = table_parts(src)
+            info = self.catalog.find(parts)
+            if info is None:
+                self._diag(
+                    line,
+                    "unknown table",
+                    ".".join(parts),
+                    difflib.get_close_matches(".".join(parts), [t.name for t in self.catalog.tables.values()], n=3),
+                )
+                return Deps()
+            if name not in info.columns:
+                self._diag(line, "not in schema", f"{info.name}.{name}", difflib.get_close_matches(name, info.columns, n=3))
+                return Deps()
+            d = Deps()
+            d.add_value((info.kind, info.name, name), "copy", line)
+            return d
+        return Deps()
+
+    def _find_source(self, alias: str, scope: Scope) -> Scope | exp.Table | None:
+        s: Scope | None = scope
+        while s is not None:
+            if alias in s.sources:
+                found = s.sources[alias]
+                if isinstance(found, (Scope, exp.Table)):
+                    return found
+                return None
+            s = s.parent
+        return None
+
+    def _diag(self, line: int | None, reason: str, reference: str, candidates: Iterable[str] = ()) -> None:
+        key = (reason, reference)
+        if key in self._reported:
+            return
+        self._reported.add(key)
+        self.diagnostics.append(
+            Diagnostic(self.file, line or self.default_line, self.model, reason, reference, tuple(candidates))
+        )

@@ -21,12 +21,16 @@ from cdcnorm.mapping import load_mappings
 def _common(p: argparse.ArgumentParser) -> None:
     p.add_argument("--models", default="models", help="folder of SQL model files (default: models/)")
     p.add_argument("--mappings", default="mappings", help="folder of mapping files (default: mappings/)")
-    p.add_argument("--dialect", default="duckdb", help="SQL dialect of the models, by sqlglot's names (default: duckdb)")
+    p.add_argument(
+        "--dialect", default="duckdb", help="SQL dialect of the models, by sqlglot's names (default: duckdb)"
+    )
     p.add_argument("--json", action="store_true", help="print the answer as JSON")
 
 
 def add_commands(sub: Any) -> None:
-    t = sub.add_parser("trace", help="the source columns behind an output column (or every column of a model)")
+    t = sub.add_parser(
+        "trace", help="the source columns behind an output column (or every column of a model)"
+    )
     _common(t)
     t.add_argument("target", help="<model>.<column>, or a model name for all its columns")
 
@@ -36,11 +40,15 @@ def add_commands(sub: Any) -> None:
     edit = i.add_mutually_exclusive_group()
     edit.add_argument("--drop", action="store_true", help="simulate dropping the column")
     edit.add_argument("--rename", metavar="NEW", help="simulate renaming the column")
-    edit.add_argument("--retype", metavar="TYPE", help="simulate changing the column's type, e.g. float, decimal(10,2)")
+    edit.add_argument(
+        "--retype", metavar="TYPE", help="simulate changing the column's type, e.g. float, decimal(10,2)"
+    )
 
     g = sub.add_parser("lineage", help="export the lineage graph: .dot .svg .png .graphml .json")
     _common(g)
-    g.add_argument("--out", default="lineage.svg", help="output file; its suffix picks the format (default lineage.svg)")
+    g.add_argument(
+        "--out", default="lineage.svg", help="output file; its suffix picks the format (default lineage.svg)"
+    )
     g.add_argument("--around", metavar="COLUMN", help="draw only the neighbourhood of this column")
     g.add_argument("--depth", type=int, default=2, help="hops around --around (default 2)")
 
@@ -64,7 +72,9 @@ def _trace_tree(answer: dict[str, Any]) -> Tree:
                 continue
             leaf = branch.add(p["source"])
             for step in p["steps"]:
-                leaf = leaf.add(f"{step['edge']} ({step['how']}) -> {step['to']}  [dim]{step['file']}:{step['line']}[/dim]")
+                leaf = leaf.add(
+                    f"{step['edge']} ({step['how']}) -> {step['to']}  [dim]{step['file']}:{step['line']}[/dim]"
+                )
     if answer["raw"]:
         tree.add("dump columns: " + ", ".join(answer["raw"]))
     for d in answer["unresolved"]:
@@ -115,7 +125,9 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
         if args.json:
             print(json.dumps(summary, indent=2))
         else:
-            out.print(f"wrote {path}: {summary['nodes']} columns, {summary['edges']} edges, {summary['models']} models")
+            out.print(
+                f"wrote {path}: {summary['nodes']} columns, {summary['edges']} edges, {summary['models']} models"
+            )
             for d in project.diagnostics:
                 out.print(f"unresolved {d.render()}", markup=False)
         return EXIT_OK
@@ -124,9 +136,14 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
 
 def _print_impact(r: dict[str, Any], out: Console) -> None:
     edit = r["edit"]
-    head = f"impact of {r['column']}" + (f" ({edit['kind']}{' ' + edit['value'] if edit['value'] else ''})" if edit else "")
+    head = f"impact of {r['column']}" + (
+        f" ({edit['kind']}{' ' + edit['value'] if edit['value'] else ''})" if edit else ""
+    )
     tree = Tree(f"[bold]{head}[/bold]")
-    for key, label in (("value_dependents", "value dependents"), ("influence_dependents", "influence dependents")):
+    for key, label in (
+        ("value_dependents", "value dependents"),
+        ("influence_dependents", "influence dependents"),
+    ):
         b = tree.add(f"{label}: {len(r[key])}")
         for c in r[key]:
             b.add(c)

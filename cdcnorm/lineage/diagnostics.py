@@ -5,7 +5,14 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
-REASONS = ("ambiguous", "unknown table", "not in schema", "star over unknown sources", "parse error", "unsupported")
+REASONS = (
+    "ambiguous",
+    "unknown table",
+    "not in schema",
+    "star over unknown sources",
+    "parse error",
+    "unsupported",
+)
 
 
 @dataclass(frozen=True)

@@ -36,14 +36,20 @@ def _dot_id(n: Node) -> str:
 
 
 def to_dot(g: nx.MultiDiGraph, title: str = "column lineage") -> graphviz.Digraph:
-    dot = graphviz.Digraph("lineage", graph_attr={"rankdir": "LR", "label": title, "fontname": "Helvetica", "fontsize": "12"})
+    dot = graphviz.Digraph(
+        "lineage", graph_attr={"rankdir": "LR", "label": title, "fontname": "Helvetica", "fontsize": "12"}
+    )
     dot.attr("node", shape="box", style="rounded,filled", fontname="Helvetica", fontsize="10")
     dot.attr("edge", fontname="Helvetica", fontsize="8")
     tables: dict[tuple[str, str], list[Node]] = {}
     for n in sorted(g.nodes):
         tables.setdefault((n[0], n[1]), []).append(n)
     for i, ((kind, table), nodes) in enumerate(sorted(tables.items())):
-        label = {"raw": f"dump columns of {table}", "source": f"{table} (mapping)", "model": f"{table} (model)"}[kind]
+        label = {
+            "raw": f"dump columns of {table}",
+            "source": f"{table} (mapping)",
+            "model": f"{table} (model)",
+        }[kind]
         with dot.subgraph(name=f"cluster_{i}") as c:
             c.attr(label=label, style="rounded", color="#999999", fontname="Helvetica", fontsize="11")
             for n in nodes:
@@ -52,7 +58,14 @@ def to_dot(g: nx.MultiDiGraph, title: str = "column lineage") -> graphviz.Digrap
         if k == "value":
             dot.edge(_dot_id(u), _dot_id(v), label="" if d["sub"] == "copy" else d["sub"])
         else:
-            dot.edge(_dot_id(u), _dot_id(v), style="dashed", color="#c0504d", fontcolor="#c0504d", label=d["clauses"])
+            dot.edge(
+                _dot_id(u),
+                _dot_id(v),
+                style="dashed",
+                color="#c0504d",
+                fontcolor="#c0504d",
+                label=d["clauses"],
+            )
     return dot
 
 

@@ -38,6 +38,21 @@ SQL_TYPES = {
 }
 
 
+_VALUE_GRAPHS: dict[int, tuple[nx.MultiDiGraph, nx.DiGraph]] = {}
+
+
+def value_graph(g: nx.MultiDiGraph) -> nx.DiGraph:
+    """The value edges only (built with the project, reused by every question)."""
+    cached = _VALUE_GRAPHS.get(id(g))
+    if cached is None or cached[0] is not g:
+        h = nx.DiGraph()
+        h.add_nodes_from(g.nodes)
+        h.add_edges_from((u, v) for u, v, k in g.edges(keys=True) if k == "value")
+        cached = (g, h)
+        _VALUE_GRAPHS[id(g)] = cached
+    return cached[1]
+
+
 def node_name(node: Node) -> str:
     return f"{node[1]}.{node[2]}"
 
@@ -63,6 +78,7 @@ class Project:
     diagnostics: list[Diagnostic]
     dialect: str
     order: list[str]
+    tables: dict[str, dict[str, str]] | None = None
 
     def column_nodes(self) -> list[Node]:
         return list(self.graph.nodes)
@@ -82,7 +98,7 @@ def _normalise_name(name: str, dialect: str) -> tuple[str, ...]:
     from sqlglot.optimizer.normalize_identifiers import normalize_identifiers
 
     table = exp.to_table(name, dialect=dialect)
-    return table_parts(normalize_identifiers(table, dialect=dialect))  # type: ignore[arg-type]
+    return table_parts(normalize_identifiers(table, dialect=dialect))
 
 
 def _normalise_column(name: str, dialect: str) -> str:
@@ -91,13 +107,30 @@ def _normalise_column(name: str, dialect: str) -> str:
     return str(normalize_identifiers(exp.to_identifier(name), dialect=dialect).name)
 
 
-def mapping_catalog(mappings: list[LoadedMapping], dialect: str, edits: dict[Node, Any] | None = None) -> Catalog:
-    """Source tables from the mappings; ``edits`` simulate a schema edit (see questions.simulate)."""
+def mapping_catalog(
+    mappings: list[LoadedMapping],
+    dialect: str,
+    edits: dict[Node, Any] | None = None,
+    tables: dict[str, dict[str, str]] | None = None,
+) -> Catalog:
+    """Source tables from the mappings (and plain ``tables``: name -> column -> SQL type);
+    ``edits`` simulate a schema edit (see questions.impact)."""
     cat = Catalog()
+    for name, declared in (tables or {}).items():
+        kept: dict[str, str] = {}
+        for c, t in declared.items():
+            col = _normalise_column(c, dialect)
+            what, new = (edits or {}).get(("source", name, col), ("", ""))
+            if what == "drop":
+                continue
+            kept[_normalise_column(new, dialect) if what == "rename" else col] = (
+                new if what == "retype" else t
+            )
+        cat.add(TableInfo("source", name, _normalise_name(name, dialect), list(kept), kept))
     for lm in mappings:
         parts = _normalise_name(lm.table, dialect)
-        cols = []
-        types = {}
+        cols: list[str] = []
+        types: dict[str, str] = {}
         for f in lm.mapping.fields:
             col = _normalise_column(f, dialect)
             node: Node = ("source", lm.table, col)
@@ -145,7 +178,9 @@ def _dedupe_names(names: list[str]) -> list[str]:
     return out
 
 
-def _merge_query(resolver: StatementResolver, stmt: ModelStatement, catalog: Catalog, dialect: str) -> list[tuple[str, Deps]] | None:
+def _merge_query(
+    resolver: StatementResolver, stmt: ModelStatement, catalog: Catalog, dialect: str
+) -> list[tuple[str, Deps]] | None:
     """MERGE INTO t USING s ON c WHEN ...: each SET/INSERT column as a SELECT over t JOIN s ON c."""
     merge = stmt.statement
     target = merge.this
@@ -169,7 +204,11 @@ def _merge_query(resolver: StatementResolver, stmt: ModelStatement, catalog: Cat
     if not assignments:
         return []
     names = _dedupe_names(list(dict.fromkeys(a[0] for a in assignments)))
-    parts = _normalise_name(target.sql(dialect=dialect).split(" AS ")[0], dialect) if isinstance(target, exp.Table) else stmt.target
+    parts = (
+        _normalise_name(target.sql(dialect=dialect).split(" AS ")[0], dialect)
+        if isinstance(target, exp.Table)
+        else stmt.target
+    )
     if catalog.find(tuple(parts)) is None:
         catalog.add(TableInfo("model", stmt.name, tuple(parts), names))
     out: dict[str, Deps] = {}
@@ -201,12 +240,29 @@ def build_project(
     *,
     loaded: LoadedModels | None = None,
     edits: dict[Node, Any] | None = None,
+    tables: dict[str, dict[str, str]] | None = None,
 ) -> Project:
-    """Load, order and resolve every model; return the graph with its diagnostics."""
+    """Load, order and resolve every model; return the graph with its diagnostics.
+
+    ``tables`` adds source tables known by schema only (name -> column -> SQL type).
+    """
     if loaded is None:
-        loaded = load_models(models_dir, dialect) if models_dir is not None and models_dir.exists() else LoadedModels()
-    catalog = mapping_catalog(mappings, dialect, edits)
+        loaded = (
+            load_models(models_dir, dialect)
+            if models_dir is not None and models_dir.exists()
+            else LoadedModels()
+        )
+    catalog = mapping_catalog(mappings, dialect, edits, tables)
     g = nx.MultiDiGraph()
+    for info in catalog.tables.values():
+        for col in info.columns:
+            g.add_node(
+                ("source", info.name, col),
+                kind="source",
+                table=info.name,
+                column=col,
+                type=info.types.get(col),
+            )
     diagnostics = list(loaded.diagnostics)
     # mapping layer: raw dump column -> canonical field
     for lm in mappings:
@@ -223,7 +279,9 @@ def build_project(
             ftype = lm.field_types[f]
             sub = "copy" if ftype.name == "text" and not getattr(ftype, "max_length", None) else "transform"
             g.add_node(node, kind="source", table=lm.table, column=col, type=source_type(lm, f))
-            g.add_edge(raw, node, key="value", kind="value", sub=sub, clauses="", file=str(lm.path.name), line=0)
+            g.add_edge(
+                raw, node, key="value", kind="value", sub=sub, clauses="", file=str(lm.path.name), line=0
+            )
     by_model: dict[str, list[ModelStatement]] = defaultdict(list)
     for st in loaded.statements:
         by_model[st.name].append(st)
@@ -242,7 +300,13 @@ def build_project(
         cycle = nx.find_cycle(deps)
         first = by_model[cycle[0][0]][0]
         diagnostics.append(
-            Diagnostic(first.file, first.line, first.name, "unsupported", "models read each other in a cycle: " + " -> ".join(a for a, _ in cycle))
+            Diagnostic(
+                first.file,
+                first.line,
+                first.name,
+                "unsupported",
+                "models read each other in a cycle: " + " -> ".join(a for a, _ in cycle),
+            )
         )
         order = sorted(by_model)
     models: dict[str, ModelInfo] = {}
@@ -265,7 +329,13 @@ def build_project(
             if st.columns is not None:
                 if len(st.columns) != len(outs):
                     diagnostics.append(
-                        Diagnostic(st.file, st.line, name, "unsupported", f"column list names {len(st.columns)} columns, the query has {len(outs)}")
+                        Diagnostic(
+                            st.file,
+                            st.line,
+                            name,
+                            "unsupported",
+                            f"column list names {len(st.columns)} columns, the query has {len(outs)}",
+                        )
                     )
                 names = list(st.columns[: len(outs)]) + names[len(st.columns) :]
             elif st.kind == "insert" and name in models:
@@ -278,11 +348,12 @@ def build_project(
                     columns.append(n)
                     lines[n] = st.line
                 merged[n].merge(d)
-        info = ModelInfo(name, sorted({s.file for s in sts}), columns, lines)
-        models[name] = info
+        models[name] = ModelInfo(name, sorted({s.file for s in sts}), columns, lines)
         visible = list(columns)
         for (kind, table, col), (what, new) in (edits or {}).items():
-            if kind == "model" and table == name and col in visible:  # a simulated edit of this model's output
+            if (
+                kind == "model" and table == name and col in visible
+            ):  # a simulated edit of this model's output
                 visible.remove(col)
                 if what == "rename" and new:
                     visible.append(new)
@@ -296,13 +367,29 @@ def build_project(
                 if src == target:
                     continue
                 g.add_node(src, kind=src[0], table=src[1], column=src[2])
-                g.add_edge(src, target, key="value", kind="value", sub=sub, clauses="", file=file_of, line=d.lines.get(src, lines[col]))
+                g.add_edge(
+                    src,
+                    target,
+                    key="value",
+                    kind="value",
+                    sub=sub,
+                    clauses="",
+                    file=file_of,
+                    line=d.lines.get(src, lines[col]),
+                )
             for src, clauses in d.influence.items():
                 if src == target:
                     continue
                 g.add_node(src, kind=src[0], table=src[1], column=src[2])
                 g.add_edge(
-                    src, target, key="influence", kind="influence", sub="", clauses=",".join(sorted(clauses)),
-                    file=file_of, line=d.lines.get(src, lines[col]),
+                    src,
+                    target,
+                    key="influence",
+                    kind="influence",
+                    sub="",
+                    clauses=",".join(sorted(clauses)),
+                    file=file_of,
+                    line=d.lines.get(src, lines[col]),
                 )
-    return Project(g, catalog, models, {m.table: m for m in mappings}, diagnostics, dialect, order)
+    value_graph(g)
+    return Project(g, catalog, models, {m.table: m for m in mappings}, diagnostics, dialect, order, tables)

@@ -14,6 +14,7 @@ from pathlib import Path
 import sqlglot
 from sqlglot import exp
 from sqlglot.errors import ParseError, TokenError
+from sqlglot.tokens import TokenType  # type: ignore[attr-defined]
 
 from cdcnorm.lineage.diagnostics import Diagnostic
 
@@ -58,7 +59,7 @@ def _statement_lines(sql: str, dialect: str) -> list[int]:
         if start:
             lines.append(tok.line)
             start = False
-        if tok.token_type == sqlglot.tokens.TokenType.SEMICOLON:
+        if tok.token_type == TokenType.SEMICOLON:
             start = True
     return lines
 
@@ -89,7 +90,9 @@ def load_model_file(path: Path, dialect: str, root: Path | None = None) -> Loade
     try:
         sql = path.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as e:
-        out.diagnostics.append(Diagnostic(shown, None, path.stem, "parse error", f"cannot read the file: {e}"))
+        out.diagnostics.append(
+            Diagnostic(shown, None, path.stem, "parse error", f"cannot read the file: {e}")
+        )
         return out
     try:
         statements = sqlglot.parse(sql, read=dialect)

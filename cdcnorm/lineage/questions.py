@@ -8,6 +8,7 @@ influence edge. Dependents downstream are split the same way.
 
 from __future__ import annotations
 
+import itertools
 from dataclasses import dataclass
 from typing import Any
 
@@ -16,13 +17,19 @@ from sqlglot import exp
 
 from cdcnorm.errors import LineageError, did_you_mean
 from cdcnorm.lineage.graph import Project, build_project, node_name
+from cdcnorm.lineage.graph import value_graph as _value_view
 from cdcnorm.lineage.models import LoadedModels
 from cdcnorm.lineage.resolve import Node
 from cdcnorm.mapping.load import LoadedMapping
 
 
-def _value_view(g: nx.MultiDiGraph) -> Any:
-    return nx.subgraph_view(g, filter_edge=lambda u, v, k: k == "value")
+def _closure(g: nx.MultiDiGraph, starts: set[Node], up: bool) -> set[Node]:
+    """Every node reachable from any of ``starts`` (ancestors when ``up``), the starts included:
+    one multi-source search, however many starts."""
+    if not starts:
+        return set()
+    view = g.reverse(copy=False) if up else g
+    return set(nx.multi_source_dijkstra_path_length(view, starts))
 
 
 def find_column(project: Project, text: str) -> Node:
@@ -31,7 +38,11 @@ def find_column(project: Project, text: str) -> Node:
         raise LineageError(f"write a column as <table>.<column>, not {text!r}")
     table, column = text.rsplit(".", 1)
     g = project.graph
-    norm = column.lower() if project.dialect in ("duckdb", "postgres", "sqlite", "spark", "databricks") else column
+    norm = (
+        column.lower()
+        if project.dialect in ("duckdb", "postgres", "sqlite", "spark", "databricks")
+        else column
+    )
     for kind in ("source", "model", "raw"):
         for col in (column, norm):
             node: Node = (kind, table, col)
@@ -52,22 +63,16 @@ def _upstream(project: Project, node: Node) -> tuple[set[Node], set[Node]]:
     g = project.graph
     value = nx.ancestors(_value_view(g), node)
     every = nx.ancestors(g, node) | {node}
-    influence: set[Node] = set()
-    for u, v, k in g.in_edges(every, keys=True):
-        if k == "influence":
-            influence |= {u} | nx.ancestors(g, u)
-    return value, influence
+    heads = {u for u, _, k in g.in_edges(every, keys=True) if k == "influence"}
+    return value, _closure(g, heads, up=True)
 
 
 def _downstream(project: Project, node: Node) -> tuple[set[Node], set[Node]]:
     g = project.graph
     value = nx.descendants(_value_view(g), node)
     every = nx.descendants(g, node) | {node}
-    influence: set[Node] = set()
-    for u, v, k in g.out_edges(every, keys=True):
-        if k == "influence":
-            influence |= {v} | nx.descendants(g, v)
-    return value, influence
+    tails = {v for _, v, k in g.out_edges(every, keys=True) if k == "influence"}
+    return value, _closure(g, tails, up=False)
 
 
 def _path(project: Project, a: Node, b: Node, value_only: bool) -> list[dict[str, Any]]:
@@ -78,7 +83,7 @@ def _path(project: Project, a: Node, b: Node, value_only: bool) -> list[dict[str
     except nx.NetworkXNoPath:
         nodes = nx.shortest_path(g, a, b)
     steps = []
-    for u, v in zip(nodes, nodes[1:], strict=False):
+    for u, v in itertools.pairwise(nodes):
         edges = g.get_edge_data(u, v)
         key = "value" if "value" in edges and (value_only or "influence" not in edges) else "influence"
         data = edges[key]
@@ -103,8 +108,13 @@ def trace(project: Project, column: str) -> dict[str, Any]:
     raw = sorted({r for s in (*vsrc, *isrc) for r in project.graph.predecessors(s) if r[0] == "raw"})
     if node[0] == "source":
         raw = sorted({*raw, *(r for r in project.graph.predecessors(node) if r[0] == "raw")})
-    paths = [{"source": node_name(s), "lineage": "value", "steps": _path(project, s, node, True)} for s in vsrc]
-    paths += [{"source": node_name(s), "lineage": "influence", "steps": _path(project, s, node, False)} for s in isrc]
+    paths = [
+        {"source": node_name(s), "lineage": "value", "steps": _path(project, s, node, True)} for s in vsrc
+    ]
+    paths += [
+        {"source": node_name(s), "lineage": "influence", "steps": _path(project, s, node, False)}
+        for s in isrc
+    ]
     model = node[1] if node[0] == "model" else None
     unresolved = [d.as_dict() for d in project.diagnostics if model is not None and d.model == model]
     return {
@@ -146,8 +156,10 @@ def _kind_of_type(sql_type: str, dialect: str) -> tuple[str, int | None, int | N
     if t == exp.DataType.Type.DECIMAL:
         return ("exact", params[0] if params else 18, params[1] if len(params) > 1 else 0)
     widths = {
-        exp.DataType.Type.TINYINT: 8, exp.DataType.Type.SMALLINT: 16, exp.DataType.Type.INT: 32,
-        exp.DataType.Type.BIGINT: 64, exp.DataType.Type.HUGEINT: 128,
+        exp.DataType.Type.TINYINT: 8,
+        exp.DataType.Type.SMALLINT: 16,
+        exp.DataType.Type.INT: 32,
+        exp.DataType.Type.BIGINT: 64,
     }
     if t in widths:
         return ("integer", widths[t], None)
@@ -199,7 +211,13 @@ def impact(
         return result
     g = project.graph
     # which canonical fields does the edit touch (a raw column edit reaches its fields)
-    fields = [node] if node[0] == "source" else [s for s in g.successors(node) if s[0] == "source"] if node[0] == "raw" else []
+    fields = (
+        [node]
+        if node[0] == "source"
+        else [s for s in g.successors(node) if s[0] == "source"]
+        if node[0] == "raw"
+        else []
+    )
     if node[0] == "raw" or node[0] == "source":
         raws = [node] if node[0] == "raw" else [r for r in g.predecessors(node) if r[0] == "raw"]
         if edit.kind in ("drop", "rename"):
@@ -213,8 +231,12 @@ def impact(
                                 "table": f[1],
                                 "field": f[2],
                                 "raw_column": r[2],
-                                "reason": "the raw column is dropped" if edit.kind == "drop" else f"the raw column is renamed to {edit.value}",
-                                "fix": f"set fields.{f[2]}.from: {edit.value}" if edit.kind == "rename" else f"remove field {f[2]} (and what reads it)",
+                                "reason": "the raw column is dropped"
+                                if edit.kind == "drop"
+                                else f"the raw column is renamed to {edit.value}",
+                                "fix": f"set fields.{f[2]}.from: {edit.value}"
+                                if edit.kind == "rename"
+                                else f"remove field {f[2]} (and what reads it)",
                             }
                         )
     if node[0] == "model":
@@ -226,7 +248,9 @@ def impact(
         before = {(d.model, d.reason, d.reference) for d in project.diagnostics}
         if node[0] == "model":
             edits[node] = (edit.kind, edit.value)
-        simulated = build_project(None, mappings, project.dialect, loaded=loaded, edits=edits)
+        simulated = build_project(
+            None, mappings, project.dialect, loaded=loaded, edits=edits, tables=project.tables
+        )
         for d in simulated.diagnostics:
             if (d.model, d.reason, d.reference) not in before:
                 result["broken_models"].append(d.as_dict())
@@ -240,13 +264,20 @@ def impact(
                 result["value_changes"].append(
                     {
                         "column": node_name(n),
-                        "how": "copied: the output's type changes with it" if copies else "computed from it: results may change",
+                        "how": "copied: the output's type changes with it"
+                        if copies
+                        else "computed from it: results may change",
                         "change": change,
                     }
                 )
     # the edited column decides rows through these influence edges (join, filter, group keys ...)
     reach = nx.descendants(g, node) | {node}
-    keyed = [(v, d["clauses"]) for u in reach for _, v, k, d in g.out_edges(u, keys=True, data=True) if k == "influence"]
+    keyed = [
+        (v, d["clauses"])
+        for u in reach
+        for _, v, k, d in g.out_edges(u, keys=True, data=True)
+        if k == "influence"
+    ]
     for n in idep:
         upstream = nx.ancestors(g, n) | {n}
         clauses = sorted({c for v, cs in keyed if v in upstream for c in cs.split(",") if c})

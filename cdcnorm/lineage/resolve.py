@@ -111,6 +111,19 @@ class Catalog:
         return MappingSchema(nested, dialect=dialect, normalize=False)
 
 
+def _with_column(schema: MappingSchema, query: exp.Expr, column: str, dialect: str) -> MappingSchema:
+    """A copy of ``schema`` in which every table the query reads also has ``column``."""
+    copy = MappingSchema(schema.mapping, dialect=dialect, normalize=False)
+    for t in query.find_all(exp.Table):
+        try:
+            cols = copy.column_names(t)
+        except Exception:  # a CTE or unknown table: nothing to extend
+            continue
+        if cols and column not in cols:
+            copy.add_table(t, {**{c: "TEXT" for c in cols}, column: "TEXT"}, dialect=dialect)
+    return copy
+
+
 def _line(node: exp.Expr) -> int | None:
     for n in (node, getattr(node, "this", None)):
         if isinstance(n, exp.Expr):
@@ -142,16 +155,33 @@ class StatementResolver:
     # --- entry points ---------------------------------------------------------------------
 
     def resolve(self, query: exp.Expr, schema: MappingSchema | None = None) -> list[tuple[str, Deps]] | None:
-        try:
-            qualified = qualify(
-                query.copy(),
-                schema=schema or self.catalog.schema(self.dialect),
-                dialect=self.dialect,
-                validate_qualify_columns=False,
-                identify=False,
-            )
-        except OptimizeError as e:
-            self._diag(_line(query), "unsupported", str(e).splitlines()[0])
+        schema = schema or self.catalog.schema(self.dialect)
+        qualified = None
+        for _ in range(20):
+            try:
+                qualified = qualify(
+                    query.copy(),
+                    schema=schema,
+                    dialect=self.dialect,
+                    validate_qualify_columns=False,
+                    identify=False,
+                )
+                break
+            except OptimizeError as e:
+                message = str(e).splitlines()[0]
+                missing = (
+                    message.removeprefix("Unknown column: ").strip()
+                    if message.startswith("Unknown column:")
+                    else None
+                )
+                if not missing:
+                    self._diag(_line(query), "unsupported", message)
+                    return None
+                # A qualified reference to a column its table lacks: let qualification go on with a
+                # stand-in column; the resolver reports the reference as "not in schema".
+                schema = _with_column(schema, query, missing, self.dialect)
+        if qualified is None:
+            self._diag(_line(query), "unsupported", "too many unknown columns")
             return None
         root = build_scope(qualified)
         if root is None:
@@ -191,8 +221,12 @@ class StatementResolver:
         outs: list[tuple[str, Deps]] = []
         for proj in sel.expressions:
             target = proj.this if isinstance(proj, exp.Alias) else proj
-            if isinstance(target, exp.Star) or (isinstance(target, exp.Column) and isinstance(target.this, exp.Star)):
-                self._diag(_line(proj) or self.default_line, "star over unknown sources", proj.sql(self.dialect))
+            if isinstance(target, exp.Star) or (
+                isinstance(target, exp.Column) and isinstance(target.this, exp.Star)
+            ):
+                self._diag(
+                    _line(proj) or self.default_line, "star over unknown sources", proj.sql(self.dialect)
+                )
                 continue
             d = Deps()
             self.expr(target, scope, d, "copy", None)
@@ -218,7 +252,9 @@ class StatementResolver:
         self._partial.pop(id(scope), None)
         return result
 
-    def _combine(self, e: exp.Expr, left: list[tuple[str, Deps]], right: list[tuple[str, Deps]]) -> list[tuple[str, Deps]]:
+    def _combine(
+        self, e: exp.Expr, left: list[tuple[str, Deps]], right: list[tuple[str, Deps]]
+    ) -> list[tuple[str, Deps]]:
         by_name = bool(e.args.get("by_name"))
         right_map = dict(right)
         out: list[tuple[str, Deps]] = []
@@ -246,8 +282,15 @@ class StatementResolver:
                         d.add_influence(node, ["distinct"], every.lines.get(node))
         return out
 
+    def _lateral_query(self, e: exp.Expr) -> Scope | None:
+        inner = e.this.this if isinstance(e, exp.Lateral) and isinstance(e.this, exp.Subquery) else None
+        return self._scope_of.get(id(inner)) if inner is not None else None
+
     def _udtf(self, scope: Scope) -> list[tuple[str, Deps]]:
         e = scope.expression
+        sub = self._lateral_query(e)
+        if sub is not None:  # LATERAL (SELECT ...): a correlated derived table
+            return self.outputs(sub)
         d = Deps()
         exprs = e.expressions if isinstance(e, exp.Unnest) else [e]
         for x in exprs:
@@ -272,6 +315,10 @@ class StatementResolver:
             self._rows_memo[key] = d
             return d
         if scope.is_udtf:
+            sub = self._lateral_query(e)
+            if sub is not None:
+                d.merge(self.rows(sub))
+                return d
             exprs = e.expressions if isinstance(e, exp.Unnest) else [e]
             for x in exprs:
                 self.expr(x, scope, d, "copy", "unnest")
@@ -310,7 +357,9 @@ class StatementResolver:
                     self.expr(o, scope, d, "copy", "limit")
         for _alias, (_node, source) in scope.selected_sources.items():
             if isinstance(source, Scope):
-                d.merge(self.rows(source))
+                canonical = self._canonical(source)
+                if id(canonical) not in self._busy:
+                    d.merge(self.rows(canonical))
         return d
 
     def _join_columns(self, scope: Scope, join: exp.Join, names: list[str], natural: bool, d: Deps) -> None:
@@ -383,15 +432,17 @@ class StatementResolver:
             return
         if isinstance(node, (exp.Subquery, exp.Select, exp.SetOperation)):
             inner = node.this if isinstance(node, exp.Subquery) else node
-            self._subquery(inner, d, compose(ctx, "transform") if ctx != "copy" else "copy", infl, exists=False)
+            self._subquery(
+                inner, d, compose(ctx, "transform") if ctx != "copy" else "copy", infl, exists=False
+            )
             return
         if isinstance(node, exp.AggFunc):
-            for child in node.iter_expressions():
-                self.expr(child, scope, d, "aggregate", infl)
+            for arg in node.iter_expressions():
+                self.expr(arg, scope, d, "aggregate", infl)
             return
         sub = compose(ctx, "transform")
-        for child in node.iter_expressions():
-            self.expr(child, scope, d, sub, infl)
+        for part in node.iter_expressions():
+            self.expr(part, scope, d, sub, infl)
 
     def _subquery(self, inner: exp.Expr, d: Deps, sub: str, infl: str | None, *, exists: bool) -> None:
         scope = self._scope_of.get(id(inner))
@@ -411,6 +462,11 @@ class StatementResolver:
         name = col.name
         line = _line(col)
         if not table:
+            alias = self._projection_alias(scope, name)
+            if alias is not None:  # ORDER BY / GROUP BY naming an output column by its alias
+                d = Deps()
+                self.expr(alias, scope, d, "copy", None)
+                return d
             holders = [a for a in scope.selected_sources if name in self._source_columns(scope, a)]
             if len(holders) > 1:
                 self._diag(line, "ambiguous", name, [f"{a}.{name}" for a in holders])
@@ -420,15 +476,23 @@ class StatementResolver:
             return Deps()
         src = self._find_source(table, scope)
         if src is None:
-            self._diag(line, "unknown table", f"{table}.{name}", difflib.get_close_matches(table, list(scope.sources), n=3))
+            self._diag(
+                line,
+                "unknown table",
+                f"{table}.{name}",
+                difflib.get_close_matches(table, list(scope.sources), n=3),
+            )
             return Deps()
         if isinstance(src, Scope):
+            src = self._canonical(src)
             outs = dict(self.outputs(src))
             if name in outs:
                 return outs[name]
             if id(src) in self._busy:
                 return Deps()
-            self._diag(line, "not in schema", f"{table}.{name}", difflib.get_close_matches(name, list(outs), n=3))
+            self._diag(
+                line, "not in schema", f"{table}.{name}", difflib.get_close_matches(name, list(outs), n=3)
+            )
             return Deps()
         if isinstance(src, exp.Table):
             parts = table_parts(src)
@@ -438,16 +502,50 @@ class StatementResolver:
                     line,
                     "unknown table",
                     ".".join(parts),
-                    difflib.get_close_matches(".".join(parts), [t.name for t in self.catalog.tables.values()], n=3),
+                    difflib.get_close_matches(
+                        ".".join(parts), [t.name for t in self.catalog.tables.values()], n=3
+                    ),
                 )
                 return Deps()
             if name not in info.columns:
-                self._diag(line, "not in schema", f"{info.name}.{name}", difflib.get_close_matches(name, info.columns, n=3))
+                self._diag(
+                    line,
+                    "not in schema",
+                    f"{info.name}.{name}",
+                    difflib.get_close_matches(name, info.columns, n=3),
+                )
                 return Deps()
             d = Deps()
             d.add_value((info.kind, info.name, name), "copy", line)
             return d
         return Deps()
+
+    def _projection_alias(self, scope: Scope, name: str) -> exp.Expr | None:
+        sel = scope.expression
+        if not isinstance(sel, exp.Select):
+            return None
+        for proj in sel.expressions:
+            if (
+                isinstance(proj, exp.Alias)
+                and proj.alias == name
+                and not isinstance(proj.this, exp.Column | exp.Star)
+            ):
+                return proj.this  # type: ignore[no-any-return]
+            if (
+                isinstance(proj, exp.Alias)
+                and proj.alias == name
+                and isinstance(proj.this, exp.Column)
+                and proj.this.table
+            ):
+                return proj.this
+        return None
+
+    def _canonical(self, src: Scope) -> Scope:
+        """A recursive CTE's self-reference is bound to a scope of its anchor SELECT: use the CTE's own."""
+        parent = src.expression.parent
+        if src.is_cte and isinstance(parent, exp.SetOperation) and id(parent) in self._scope_of:
+            return self._scope_of[id(parent)]
+        return src
 
     def _find_source(self, alias: str, scope: Scope) -> Scope | exp.Table | None:
         s: Scope | None = scope

@@ -1,0 +1,170 @@
+"""Diagnostics, impact of schema edits, exports and the lineage commands on the demo models."""
+
+from __future__ import annotations
+
+import json
+import shutil
+import xml.etree.ElementTree as ET
+from pathlib import Path
+
+import networkx as nx
+import pytest
+
+from cdcnorm.lineage.export import export
+from cdcnorm.lineage.graph import build_project
+from cdcnorm.lineage.models import load_models
+from cdcnorm.lineage.questions import Edit, impact, trace
+from cdcnorm.mapping import load_mappings
+from tests.conftest import ROOT, cli
+from tests.test_lineage import CASES, project_from
+
+MODELS = ROOT / "examples" / "models"
+MAPPINGS = ROOT / "mappings"
+SCHEMA = CASES["schema"]
+
+
+def test_unresolvable_references_are_reported_not_guessed(tmp_path: Path) -> None:
+    project = project_from(
+        tmp_path,
+        {
+            "amb.sql": "SELECT id FROM shop.orders o JOIN shop.customers c ON c.id = o.customer_id",
+            "unknown.sql": "SELECT x.a FROM warehouse.stock x",
+            "missing.sql": "SELECT o.amout FROM shop.orders o",
+            "star.sql": "SELECT * FROM nowhere",
+            "broken.sql": "SELECT FROM WHERE (",
+            "fine.sql": "SELECT id FROM shop.orders",
+        },
+        SCHEMA,
+    )
+    got = {(d.model, d.reason): d for d in project.diagnostics}
+    assert got[("amb", "ambiguous")].candidates == ("o.id", "c.id")
+    assert ("unknown", "unknown table") in got
+    missing = got[("missing", "not in schema")]
+    assert (
+        missing.reference == "shop.orders.amout" and missing.candidates[0] == "amount" and missing.line == 1
+    )
+    assert ("star", "unknown table") in got or ("star", "star over unknown sources") in got
+    assert got[("broken", "parse error")].file == "broken.sql"
+    assert trace(project, "fine.id")["value"] == ["shop.orders.id"]  # the rest of the project still builds
+    assert trace(project, "amb.id")["unresolved"][0]["reason"] == "ambiguous"
+
+
+@pytest.fixture(scope="module")
+def demo() -> tuple[object, list[object], object]:
+    mappings = load_mappings(MAPPINGS)
+    loaded = load_models(MODELS, "duckdb")
+    return build_project(None, mappings, "duckdb", loaded=loaded), mappings, loaded
+
+
+def test_demo_builds_without_diagnostics(demo: tuple) -> None:  # type: ignore[type-arg]
+    project = demo[0]
+    assert project.diagnostics == []
+    assert len(project.models) >= 6
+    # models built on models, upstream first
+    assert (
+        project.order.index("stg_bookings")
+        < project.order.index("daily_revenue")
+        < project.order.index("route_rankings")
+    )
+
+
+def test_trace_reaches_the_dump_columns(demo: tuple) -> None:  # type: ignore[type-arg]
+    answer = trace(demo[0], "people.display_name")
+    assert answer["value"] == ["ferry.bookings.passenger", "ferry.passengers.full_name"]
+    assert "ferry.bookings.pax_name" in answer["raw"]  # the mapping renames pax_name to passenger
+
+
+def test_impact_of_a_retype_to_float(demo: tuple) -> None:  # type: ignore[type-arg]
+    project, mappings, loaded = demo
+    r = impact(project, "ferry.bookings.fare", Edit("retype", "float"), mappings=mappings, loaded=loaded)
+    assert r["broken_models"] == [] and r["broken_mappings"] == []
+    changes = {v["column"]: v for v in r["value_changes"]}
+    assert changes["stg_bookings.fare"]["how"].startswith("copied")
+    assert "exact decimal becomes a float" in changes["daily_revenue.total_fare"]["change"]
+
+
+def test_impact_of_dropping_a_join_key(demo: tuple) -> None:  # type: ignore[type-arg]
+    project, mappings, loaded = demo
+    r = impact(project, "ferry.bookings.sailing_ref", Edit("drop"), mappings=mappings, loaded=loaded)
+    assert [m["field"] for m in r["broken_mappings"]] == ["sailing_ref"]
+    assert [(d["model"], d["reference"]) for d in r["broken_models"]] == [
+        ("stg_bookings", "ferry.bookings.sailing_ref")
+    ]
+    assert "daily_revenue.total_fare" in r["influence_dependents"]
+    rows = {x["column"]: x["clauses"] for x in r["row_changes"]}
+    assert "join" in rows["daily_revenue.total_fare"]
+
+
+def test_impact_of_renaming_a_model_column(demo: tuple) -> None:  # type: ignore[type-arg]
+    project, mappings, loaded = demo
+    r = impact(
+        project, "daily_revenue.total_fare", Edit("rename", "fare_total"), mappings=mappings, loaded=loaded
+    )
+    assert {d["model"] for d in r["broken_models"]} == {"route_rankings"}
+
+
+def test_exports(demo: tuple, tmp_path: Path) -> None:  # type: ignore[type-arg]
+    g = demo[0].graph
+    dot = export(g, tmp_path / "g.dot").read_text()
+    assert "cluster_" in dot and "style=dashed" in dot
+    g2 = nx.read_graphml(export(g, tmp_path / "g.graphml"))
+    assert g2.number_of_nodes() == g.number_of_nodes() and g2.number_of_edges() == g.number_of_edges()
+    data = json.loads(export(g, tmp_path / "g.json").read_text())
+    assert len(data["links"]) == g.number_of_edges()
+    if shutil.which("dot"):
+        svg = export(g, tmp_path / "g.svg").read_text()
+        assert ET.fromstring(svg).tag.endswith("svg")
+        assert export(g, tmp_path / "g.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature
+
+
+def test_lineage_commands_end_to_end(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    args = ["--models", str(MODELS), "--mappings", str(MAPPINGS)]
+    assert cli("trace", *args, "daily_revenue.total_fare", "--json") == 0
+    one = json.loads(capsys.readouterr().out)
+    assert set(one) == {"column", "value", "influence", "raw", "paths", "unresolved"}
+    assert one["value"] == ["ferry.bookings.fare", "ferry.bookings.seats"]
+    assert "ferry.bookings.refunded" in one["influence"] and "ferry.bookings.is_refunded" in one["raw"]
+    assert cli("trace", *args, "daily_revenue", "--json") == 0
+    many = json.loads(capsys.readouterr().out)
+    assert [a["column"] for a in many] == [
+        f"daily_revenue.{c}" for c in ("route", "booking_day", "total_fare", "seats_sold")
+    ]
+    assert cli("trace", *args, "daily_revenue.total_fare") == 0
+    assert "influence lineage" in capsys.readouterr().out
+    assert cli("impact", *args, "ferry.bookings.fare", "--retype", "float", "--json") == 0
+    r = json.loads(capsys.readouterr().out)
+    assert set(r) == {
+        "column",
+        "edit",
+        "value_dependents",
+        "influence_dependents",
+        "broken_models",
+        "broken_mappings",
+        "value_changes",
+        "row_changes",
+    }
+    assert cli("impact", *args, "ferry.bookings.sailing_ref", "--drop") == 8  # a CI gate: something breaks
+    capsys.readouterr()
+    assert (
+        cli("impact", *args, "ferry.bookings.pax_phone", "--drop", "--json") == 8
+    )  # the mapping field breaks
+    assert json.loads(capsys.readouterr().out)["broken_models"] == []  # no model reads pax_phone
+    out = tmp_path / "around.dot"
+    assert (
+        cli(
+            "lineage",
+            *args,
+            "--out",
+            str(out),
+            "--around",
+            "daily_revenue.total_fare",
+            "--depth",
+            "1",
+            "--json",
+        )
+        == 0
+    )
+    summary = json.loads(capsys.readouterr().out)
+    assert 0 < summary["nodes"] < 20 and out.exists()
+    assert cli("trace", *args, "daily_revenu.total_fare") == 7
+    assert 'did you mean "daily_revenue.total_fare"' in capsys.readouterr().err

@@ -17,9 +17,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-import numpy as np
 import pyarrow as pa
-import pyarrow.compute as pc
 import sqlglot
 
 from cdcnorm import ledger as ledger_mod
@@ -37,6 +35,7 @@ from cdcnorm.stages.pair import pair_images
 from cdcnorm.stages.source import unite_sources
 from cdcnorm.stages.type import type_rows
 from cdcnorm.writers import WRITERS
+from cdcnorm.writers.lines import write_lines
 
 #: The plan-building stages, in order. ``read`` comes before them all.
 STAGES: list[tuple[str, Callable[[Plan], Plan]]] = [
@@ -114,12 +113,9 @@ class Result:
 
     def events(self, table: str, *, render: bool = False) -> pa.Table:
         """The table's envelopes in output order: native types, or their JSON forms."""
-        from cdcnorm.writers.base import project
 
         run = self.tables[table]
-        return self.engine.arrow(
-            sqlglot.parse_one(project(run.plan, "__files", render=render), read=PLAN_DIALECT)
-        )
+        return sorted_envelopes(run.plan, self.engine, "__files", render=render)
 
 
 def route(files: Iterable[Path], mappings: Sequence[LoadedMapping]) -> dict[str, list[Path]]:
@@ -361,31 +357,6 @@ def _account(trun: TableRun, engine: DuckDBEngine) -> ledger_mod.TableLedger:
     return tl
 
 
-def _write_lines(lines: pa.ChunkedArray, path: Path) -> None:
-    """Write a column of text lines, each followed by a newline, atomically."""
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f"{path.name}.tmp-{os.getpid()}")
-    try:
-        with open(tmp, "wb") as f:
-            for chunk in lines.chunks:
-                if len(chunk) == 0:
-                    continue
-                f.write(_concat(pc.binary_join_element_wise(chunk, pa.scalar("\n"), pa.scalar(""))))
-        os.replace(tmp, path)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
-
-
-def _concat(arr: pa.Array) -> bytes:
-    """The bytes of all strings of an array, back to back (no copy per row)."""
-    arr = arr.cast(pa.large_string())
-    offsets = arr.buffers()[1]
-    data = arr.buffers()[2]
-    off = np.frombuffer(offsets, dtype=np.int64)[arr.offset : arr.offset + len(arr) + 1]
-    return bytes(memoryview(data)[off[0] : off[-1]]) if data is not None else b""
-
-
 def _write(result: Result, options: Options) -> None:
     assert options.out is not None
     writer = WRITERS[options.fmt]
@@ -406,7 +377,7 @@ def _write(result: Result, options: Options) -> None:
                 hint="this is a bug in cdcnorm; please report it with the inputs",
             )
         if len(lines):
-            _write_lines(lines, qpath)
+            write_lines(lines, qpath)
         elif qpath.exists():
             qpath.unlink()
         result.outputs[table] = out / "events" / f"{table}{writer.SUFFIX}"

@@ -50,7 +50,8 @@ def rejected_rows(plan: Plan, malformed: dict[int, str]) -> str:
         f"SELECT __file, __row, {conflict} AS reasons, CAST(NULL AS VARCHAR) AS text "
         f"FROM {plan.rel('deduped')} WHERE __fate = 'conflict'",
         f"SELECT __file, __row, {lonely} AS reasons, CAST(NULL AS VARCHAR) AS text "
-        f"FROM {plan.rel('paired')} WHERE __role = 'unpaired_before'",
+        f"FROM {plan.rel('kept')} k WHERE __act = 'before' AND NOT EXISTS "
+        f"(SELECT 1 FROM {plan.rel('pairs')} p WHERE p.bf = k.__file AND p.br = k.__row)",
     ]
     for file_id, rel in sorted(malformed.items()):
         parts.append(

@@ -7,15 +7,18 @@ import json
 from pathlib import Path
 from typing import Any
 
+from typing import TYPE_CHECKING
+
 from rich.console import Console
 from rich.tree import Tree
 
 from cdcnorm.errors import EXIT_BREAKS, EXIT_OK, UsageError
-from cdcnorm.lineage.export import around, export
-from cdcnorm.lineage.graph import Project, build_project
-from cdcnorm.lineage.models import load_models
-from cdcnorm.lineage.questions import Edit, breaks, find_column, impact, trace_target
-from cdcnorm.mapping import load_mappings
+
+if TYPE_CHECKING:
+    from cdcnorm.lineage.graph import Project
+
+# The lineage modules (sqlglot's optimizer, networkx, graphviz) load only when a lineage
+# command runs, so that convert starts fast.
 
 
 def _common(p: argparse.ArgumentParser) -> None:
@@ -54,6 +57,10 @@ def add_commands(sub: Any) -> None:
 
 
 def load_project(args: argparse.Namespace) -> tuple[Project, list[Any], Any]:
+    from cdcnorm.lineage.graph import build_project
+    from cdcnorm.lineage.models import load_models
+    from cdcnorm.mapping import load_mappings
+
     mappings_dir = Path(args.mappings)
     mappings = load_mappings(mappings_dir) if mappings_dir.exists() else []
     models_dir = Path(args.models)
@@ -83,6 +90,9 @@ def _trace_tree(answer: dict[str, Any]) -> Tree:
 
 
 def run_command(args: argparse.Namespace, out: Console) -> int:
+    from cdcnorm.lineage.export import around, export
+    from cdcnorm.lineage.questions import Edit, breaks, find_column, impact, trace_target
+
     project, mappings, loaded = load_project(args)
     if args.command == "trace":
         answers = trace_target(project, args.target)

@@ -20,22 +20,21 @@ def build_envelopes(plan: Plan) -> Plan:
     keys = plan.key_index
     nonkey = [i for i in range(n) if i not in keys] or keys
     paired = plan.rel("paired")
-    kept = plan.rel("kept")
     vals = ", ".join(f"e.v{i}" for i in range(n))
-    priors = ", ".join(f"b.v{i} AS p{i}" for i in range(n))
+    has_prior = "(e.__act = 'after' AND coalesce(e.__same_key, FALSE))"
+    priors = ", ".join(f"CASE WHEN {has_prior} THEN e.p{i} END AS p{i}" for i in range(n))
     own_priors = ", ".join(f"e.v{i} AS p{i}" for i in range(n))
     changed = (
         "list_filter(["
-        + ", ".join(f"CASE WHEN e.v{i} IS DISTINCT FROM b.v{i} THEN {lit(names[i])} END" for i in range(n))
+        + ", ".join(f"CASE WHEN e.v{i} IS DISTINCT FROM e.p{i} THEN {lit(names[i])} END" for i in range(n))
         + "], x -> x IS NOT NULL)"
     )
     has_image = " OR ".join(f"e.v{i} IS NOT NULL" for i in nonkey)
-    common = "e.__position, e.__pbase, e.__cat, e.__file, e.__row"
+    common = "e.__position, e.__pbase, e.__act, e.__cat, e.__file, e.__row"
     sql = f"""
-    SELECT 'upsert' AS __action, {common}, {vals}, (b.__file IS NOT NULL) AS __has_prior, {priors},
-           CASE WHEN b.__file IS NOT NULL THEN {changed} END AS __changed
-    FROM {paired} e LEFT JOIN {kept} b ON e.__same_key AND b.__file = e.__pf AND b.__row = e.__pr
-    WHERE e.__act IN ('insert', 'snapshot', 'after')
+    SELECT 'upsert' AS __action, {common}, {vals}, {has_prior} AS __has_prior, {priors},
+           CASE WHEN {has_prior} THEN {changed} END AS __changed
+    FROM {paired} e WHERE e.__act IN ('insert', 'snapshot', 'after')
     UNION ALL
     SELECT 'delete' AS __action, {common}, {vals}, TRUE AS __has_prior, {own_priors}, NULL AS __changed
     FROM {paired} e WHERE e.__act = 'before' AND e.__role = 'emitted'

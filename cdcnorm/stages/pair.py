@@ -19,27 +19,39 @@ def pair_images(plan: Plan) -> Plan:
     deduped = plan.rel("deduped")
     plan = plan.add("pair", "kept", f"SELECT * FROM {deduped} WHERE __fate = 'keep'")
     kept = plan.rel("kept")
+    n = len(plan.fields)
     same_key = " AND ".join(f"a.v{i} = b.v{i}" for i in keys)
+    before_values = ", ".join(f"b.v{i} AS p{i}" for i in range(n))
     if paired_mode:
         pairs = (
-            f"SELECT a.__file AS af, a.__row AS ar, b.__file AS bf, b.__row AS br, ({same_key}) AS same_key FROM "
+            f"SELECT a.__file AS af, a.__row AS ar, b.__file AS bf, b.__row AS br, ({same_key}) AS same_key, "
+            f"{before_values} FROM "
             f"(SELECT *, count(*) OVER (PARTITION BY __pbase) AS __n FROM {kept} WHERE __act = 'after') a JOIN "
             f"(SELECT *, count(*) OVER (PARTITION BY __pbase) AS __n FROM {kept} WHERE __act = 'before') b "
             f"ON a.__pbase = b.__pbase AND (({same_key}) OR (a.__n = 1 AND b.__n = 1))"
         )
     else:
-        pairs = "SELECT 0 AS af, CAST(0 AS BIGINT) AS ar, 0 AS bf, CAST(0 AS BIGINT) AS br, TRUE AS same_key WHERE FALSE"
+        pairs = (
+            f"SELECT a.__file AS af, a.__row AS ar, a.__file AS bf, a.__row AS br, TRUE AS same_key, "
+            f"{before_values} FROM {kept} a, {kept} b WHERE FALSE"
+        )
     plan = plan.add("pair", "pairs", pairs, materialize=True)
     p = plan.rel("pairs")
+    nulls = ", ".join(f"NULL AS p{i}" for i in range(n))
+    priors = ", ".join(f"p{i}" for i in range(n))
+    plan = plan.add(
+        "pair",
+        "links",
+        f"SELECT af AS f, ar AS r, same_key, {priors} FROM {p} UNION ALL SELECT bf, br, same_key, {nulls} FROM {p}",
+    )
     role = (
-        "CASE WHEN k.__act = 'before' AND pb.bf IS NULL THEN 'unpaired_before' "
-        "WHEN k.__act = 'before' AND pb.same_key THEN 'merged' ELSE 'emitted' END"
+        "CASE WHEN k.__act = 'before' AND l.f IS NULL THEN 'unpaired_before' "
+        "WHEN k.__act = 'before' AND l.same_key THEN 'merged' ELSE 'emitted' END"
     )
     sql = (
-        f"SELECT k.*, {role} AS __role, pa.bf AS __pf, pa.br AS __pr, "
-        f"coalesce(pa.same_key, pb.same_key) AS __same_key, "
-        f"(k.__act = 'after' AND pa.bf IS NULL AND {str(paired_mode).upper()}) AS __unpaired_after "
-        f"FROM {kept} k LEFT JOIN {p} pa ON k.__file = pa.af AND k.__row = pa.ar "
-        f"LEFT JOIN {p} pb ON k.__file = pb.bf AND k.__row = pb.br"
+        f"SELECT k.*, {role} AS __role, l.same_key AS __same_key, "
+        f"(k.__act = 'after' AND l.f IS NULL AND {str(paired_mode).upper()}) AS __unpaired_after, "
+        f"{', '.join(f'l.p{i}' for i in range(n))} "
+        f"FROM {kept} k LEFT JOIN {plan.rel('links')} l ON k.__file = l.f AND k.__row = l.r"
     )
     return plan.add("pair", "paired", sql)

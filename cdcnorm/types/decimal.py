@@ -9,8 +9,8 @@ class DecimalType(FieldType):
     """Exact decimal(p,s): a value needing rounding or more than p-s integer digits is rejected.
 
     DuckDB's own cast rounds ``12.345`` to ``12.35`` without a word, so the
-    digits are counted first (plain notation) or the value is compared with
-    a wider exact cast (exponent notation).
+    value is compared with a wider exact cast: they differ exactly when the
+    narrow cast rounded.
     """
 
     name = "decimal"
@@ -43,13 +43,16 @@ class DecimalType(FieldType):
 
     def cast(self, x: str) -> str:
         p, s = self.params
-        wide = f"DECIMAL(38,{38 - (p - s)})"
+        wide = f"DECIMAL(38,{38 - (p - s)})"  # every value with p-s integer digits, exactly
+        narrow = self.sql_type
+        # Equal to its wide exact cast means no digit was rounded away. The wide cast itself is
+        # exact only up to 38-(p-s) fractional digits, so longer fractions are counted first.
+        fits = f"TRY_CAST({x} AS {wide}) = TRY_CAST({x} AS {narrow})"
+        short = f"(strpos({x}, '.') = 0 OR length({x}) - strpos({x}, '.') <= {38 - (p - s)})"
         return (
             f"CASE WHEN NOT regexp_full_match({x}, {PATTERN}) THEN NULL "
-            f"WHEN NOT contains(lower({x}), 'e') THEN CASE WHEN {self._frac_digits(x)} <= {s} "
-            f"AND {self._int_digits(x)} <= {p - s} THEN CAST({x} AS {self.sql_type}) END "
-            f"WHEN TRY_CAST({x} AS {wide}) = TRY_CAST({x} AS {self.sql_type}) "
-            f"THEN TRY_CAST({x} AS {self.sql_type}) END"
+            f"WHEN NOT contains(lower({x}), 'e') THEN CASE WHEN {short} AND {fits} THEN TRY_CAST({x} AS {narrow}) END "
+            f"WHEN length({x}) <= 30 AND {fits} THEN TRY_CAST({x} AS {narrow}) END"
         )
 
     def explain(self, x: str) -> str:

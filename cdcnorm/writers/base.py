@@ -1,27 +1,28 @@
-"""The envelope projection shared by the writers.
+"""The envelope projection shared by the writers, and its order.
 
 Columns, in this order: table, action, key, position, committed_at, values,
 prior, changed, origin. ``render=True`` gives the JSON forms (decimals as
 strings with their exact scale, timestamps RFC 3339 UTC with Z, bytes base64);
 ``render=False`` keeps native types (decimal128(p,s), timestamp[us, UTC], ...).
+
+Events are sorted by position, then key, action and the row's own action
+code. After dedupe (position, action code, key) is unique among kept rows, so
+the order is total: the output never depends on the order of the input.
 """
 
 from __future__ import annotations
 
+import pyarrow as pa
+import pyarrow.compute as pc
+import sqlglot
+
+from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.plan import Plan
-from cdcnorm.sql import lit
+from cdcnorm.sql import PLAN_DIALECT, ident, lit
 from cdcnorm.types.timestamp import timestamp_render
 
 
-def order_by(plan: Plan) -> str:
-    """Position order; ties (one position, no sequence) broken by content, so input order never matters."""
-    keys = ", ".join(f"v{i}" for i in plan.key_index)
-    n = len(plan.fields)
-    content = ", ".join([*(f"v{i}" for i in range(n)), *(f"p{i}" for i in range(n))])
-    return f"__position, {keys}, __action, {content}, __file, __row"
-
-
-def project(plan: Plan, files_relation: str, *, render: bool) -> str:
+def envelope_columns(plan: Plan, *, render: bool) -> list[tuple[str, str]]:
     types = plan.mapping.field_types
     names = plan.fields
 
@@ -32,13 +33,54 @@ def project(plan: Plan, files_relation: str, *, render: bool) -> str:
     def struct(indices: list[int], prefix: str) -> str:
         return "{" + ", ".join(f"{lit(names[i])}: {value(i, prefix)}" for i in indices) + "}"
 
-    all_idx = list(range(len(names)))
-    cat = timestamp_render("__cat") if render else "__cat"
-    return (
-        f'SELECT {lit(plan.mapping.table)} AS "table", __action AS action, {struct(plan.key_index, "v")} AS key, '
-        f"__position AS position, {cat} AS committed_at, "
-        f"CASE WHEN __action = 'upsert' THEN {struct(all_idx, 'v')} END AS \"values\", "
-        f"CASE WHEN __has_prior THEN {struct(all_idx, 'p')} END AS prior, "
-        f"__changed AS changed, {{'file': f.name, 'row': __row}} AS origin "
-        f"FROM {plan.rel('events')} JOIN {files_relation} f ON f.id = __file ORDER BY {order_by(plan)}"
-    )
+    every = list(range(len(names)))
+    return [
+        ("table", lit(plan.mapping.table)),
+        ("action", "__action"),
+        ("key", struct(plan.key_index, "v")),
+        ("position", "__position"),
+        ("committed_at", timestamp_render("__cat") if render else "__cat"),
+        ("values", f"CASE WHEN __action = 'upsert' THEN {struct(every, 'v')} END"),
+        ("prior", f"CASE WHEN __has_prior THEN {struct(every, 'p')} END"),
+        ("changed", "__changed"),
+        ("origin", "{'file': f.name, 'row': __row}"),
+    ]
+
+
+def sort_columns(plan: Plan) -> list[tuple[str, str]]:
+    keys = [(f"__k_key{j}", f"v{i}") for j, i in enumerate(plan.key_index)]
+    return [("__k_position", "__position"), *keys, ("__k_action", "__action"), ("__k_act", "__act")]
+
+
+def project(plan: Plan, files_relation: str, *, render: bool, as_line: bool = False, sort_keys: bool = False) -> str:
+    """SQL of the envelopes (one JSON text per event as ``line`` with ``as_line``),
+    sorted, or with the sort keys as extra columns when ``sort_keys``."""
+    cols = envelope_columns(plan, render=render)
+    if as_line:
+        select = ["to_json({" + ", ".join(f"{lit(n)}: {e}" for n, e in cols) + "}) AS line"]
+    else:
+        select = [f"{e} AS {ident(n)}" for n, e in cols]
+    source = f"FROM {plan.rel('events')} JOIN {files_relation} f ON f.id = __file"
+    if not sort_keys:
+        order = ", ".join(e for _, e in sort_columns(plan))
+        return f"SELECT {', '.join(select)} {source} ORDER BY {order}"
+    select += [f"{e} AS {n}" for n, e in sort_columns(plan)]
+    return f"SELECT {', '.join(select)} {source}"
+
+
+def sorted_envelopes(plan: Plan, engine: DuckDBEngine, files_relation: str, *, render: bool, as_line: bool = False) -> pa.Table:
+    """The envelopes in output order, as an Arrow table (the library API): the engine
+    computes them with their sort keys, Arrow sorts by the keys and gathers the rows."""
+    sql = project(plan, files_relation, render=render, as_line=as_line, sort_keys=True)
+    table = engine.arrow(sqlglot.parse_one(sql, read=PLAN_DIALECT))
+    keys = [n for n, _ in sort_columns(plan)]
+    sortable = pa.table({k: _sortable(table[k]) for k in keys})
+    order = pc.sort_indices(sortable, sort_keys=[(k, "ascending") for k in keys])
+    return table.drop_columns(keys).take(order)
+
+
+def _sortable(column: pa.ChunkedArray) -> pa.ChunkedArray:
+    """Extension types (uuid, json) sort by their storage: bytes, as the engine does."""
+    if isinstance(column.type, pa.ExtensionType):
+        return pa.chunked_array([c.storage for c in column.chunks], type=column.type.storage_type)
+    return column

@@ -113,6 +113,7 @@ class Result:
 
     def events(self, table: str, *, render: bool = False) -> pa.Table:
         """The table's envelopes in output order: native types, or their JSON forms."""
+        from cdcnorm.writers.base import sorted_envelopes
 
         run = self.tables[table]
         return sorted_envelopes(run.plan, self.engine, "__files", render=render)

@@ -52,7 +52,9 @@ def sort_columns(plan: Plan) -> list[tuple[str, str]]:
     return [("__k_position", "__position"), *keys, ("__k_action", "__action"), ("__k_act", "__act")]
 
 
-def project(plan: Plan, files_relation: str, *, render: bool, as_line: bool = False, sort_keys: bool = False) -> str:
+def project(
+    plan: Plan, files_relation: str, *, render: bool, as_line: bool = False, sort_keys: bool = False
+) -> str:
     """SQL of the envelopes (one JSON text per event as ``line`` with ``as_line``),
     sorted, or with the sort keys as extra columns when ``sort_keys``."""
     cols = envelope_columns(plan, render=render)
@@ -68,7 +70,9 @@ def project(plan: Plan, files_relation: str, *, render: bool, as_line: bool = Fa
     return f"SELECT {', '.join(select)} {source}"
 
 
-def sorted_envelopes(plan: Plan, engine: DuckDBEngine, files_relation: str, *, render: bool, as_line: bool = False) -> pa.Table:
+def sorted_envelopes(
+    plan: Plan, engine: DuckDBEngine, files_relation: str, *, render: bool, as_line: bool = False
+) -> pa.Table:
     """The envelopes in output order, as an Arrow table (the library API): the engine
     computes them with their sort keys, Arrow sorts by the keys and gathers the rows."""
     sql = project(plan, files_relation, render=render, as_line=as_line, sort_keys=True)

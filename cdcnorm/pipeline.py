@@ -35,6 +35,7 @@ from cdcnorm.stages.pair import pair_images
 from cdcnorm.stages.source import unite_sources
 from cdcnorm.stages.type import type_rows
 from cdcnorm.writers import WRITERS
+from cdcnorm.writers.base import sorted_events
 from cdcnorm.writers.lines import write_lines
 
 #: The plan-building stages, in order. ``read`` comes before them all.
@@ -363,12 +364,21 @@ def _write(result: Result, options: Options) -> None:
     writer = WRITERS[options.fmt]
     out = options.out
     for table, trun in result.tables.items():
-        written = writer.write(
-            trun.plan, result.engine, "__files", out / "events" / f"{table}{writer.SUFFIX}"
-        )
+        engine = result.engine
         qpath = out / "quarantine" / f"{table}.jsonl"
         lines_sql = quarantine.quarantine_lines(trun.plan, _rejected_relation(trun))
-        lines = result.engine.arrow(sqlglot.parse_one(lines_sql, read=PLAN_DIALECT))["line"]
+        lines = engine.arrow(sqlglot.parse_one(lines_sql, read=PLAN_DIALECT))["line"]
+        # the raw rows are needed no more: free them before the events are sorted
+        for src in trun.plan.sources:
+            engine.unregister(src.relation)
+        for raw in trun.sources:
+            raw.table = raw.table.slice(0, 0)
+        ordered = f"{trun.mapping.mapping.slug}__ordered_events"
+        engine.materialize(ordered, sqlglot.parse_one(sorted_events(trun.plan, "__files"), read=PLAN_DIALECT))
+        written = writer.write(
+            trun.plan, engine, "__files", out / "events" / f"{table}{writer.SUFFIX}", ident(ordered)
+        )
+        engine.drop(ordered)
         counts = result.ledger.tables[table].total
         # The ledger is counted from aggregates; the files are written from the rows themselves.
         if written != counts.emitted or len(lines) != counts.quarantined:

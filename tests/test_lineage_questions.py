@@ -168,3 +168,13 @@ def test_lineage_commands_end_to_end(tmp_path: Path, capsys: pytest.CaptureFixtu
     assert 0 < summary["nodes"] < 20 and out.exists()
     assert cli("trace", *args, "daily_revenu.total_fare") == 7
     assert 'did you mean "daily_revenue.total_fare"' in capsys.readouterr().err
+
+
+def test_renaming_a_source_column_breaks_only_its_mapping(demo: tuple) -> None:  # type: ignore[type-arg]
+    project, mappings, loaded = demo
+    r = impact(
+        project, "ferry.bookings.sailing_ref", Edit("rename", "sailing"), mappings=mappings, loaded=loaded
+    )
+    (broken,) = r["broken_mappings"]
+    assert broken["fix"] == "set fields.sailing_ref.from: sailing"
+    assert r["broken_models"] == []  # the canonical field keeps its name once the mapping follows the rename

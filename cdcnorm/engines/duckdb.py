@@ -52,6 +52,13 @@ class DuckDBEngine:
         self._registered[name] = table
         self.con.register(name, table)
 
+    def unregister(self, name: str) -> None:
+        self.con.unregister(name)
+        self._registered.pop(name, None)
+
+    def drop(self, name: str) -> None:
+        self.con.execute(f"DROP TABLE IF EXISTS {ident(name)}")
+
     def execute(self, expression: exp.Expr | str) -> None:
         self.con.execute(self.render(expression))
 

@@ -241,7 +241,11 @@ def impact(
                         )
     if node[0] == "model":
         fields = []
-    if fields or node[0] == "model":
+    # A source column renamed at the source keeps its canonical field (the mapping's `from`
+    # follows it), so only the mapping breaks; dropped, the field loses its data and every
+    # reference to it breaks. A model column's drop or rename breaks its readers.
+    simulate = (node[0] == "model" and edit.kind in ("drop", "rename")) or (fields and edit.kind == "drop")
+    if simulate:
         edits: dict[Node, Any] = {}
         for f in fields:
             edits[f] = (edit.kind, edit.value)

@@ -53,21 +53,43 @@ def sort_columns(plan: Plan) -> list[tuple[str, str]]:
 
 
 def project(
-    plan: Plan, files_relation: str, *, render: bool, as_line: bool = False, sort_keys: bool = False
+    plan: Plan,
+    files_relation: str,
+    *,
+    render: bool,
+    as_line: bool = False,
+    sort_keys: bool = False,
+    relation: str | None = None,
 ) -> str:
-    """SQL of the envelopes (one JSON text per event as ``line`` with ``as_line``),
-    sorted, or with the sort keys as extra columns when ``sort_keys``."""
+    """SQL of the envelopes (one JSON text per event as ``line`` with ``as_line``), sorted.
+
+    ``sort_keys`` adds the sort keys as columns instead of sorting; ``relation`` reads events
+    already in output order (see ``sorted_events``) and keeps their order.
+    """
     cols = envelope_columns(plan, render=render)
     if as_line:
         select = ["to_json({" + ", ".join(f"{lit(n)}: {e}" for n, e in cols) + "}) AS line"]
     else:
         select = [f"{e} AS {ident(n)}" for n, e in cols]
+    if relation is not None:
+        select = [x.replace("f.name", "__fname") for x in select]
+        return f"SELECT {', '.join(select)} FROM {relation}"
     source = f"FROM {plan.rel('events')} JOIN {files_relation} f ON f.id = __file"
     if not sort_keys:
         order = ", ".join(e for _, e in sort_columns(plan))
         return f"SELECT {', '.join(select)} {source} ORDER BY {order}"
     select += [f"{e} AS {n}" for n, e in sort_columns(plan)]
     return f"SELECT {', '.join(select)} {source}"
+
+
+def sorted_events(plan: Plan, files_relation: str) -> str:
+    """SQL: the flat events with their file names, in output order. Sorting the flat rows and
+    building the nested envelopes afterwards costs much less than sorting the envelopes."""
+    order = ", ".join(f"e.{e}" for _, e in sort_columns(plan))
+    return (
+        f"SELECT e.*, f.name AS __fname FROM {plan.rel('events')} e JOIN {files_relation} f "
+        f"ON f.id = e.__file ORDER BY {order}"
+    )
 
 
 def sorted_envelopes(

@@ -15,6 +15,11 @@ FORMAT = "jsonl"
 SUFFIX = ".jsonl"
 
 
-def write(plan: Plan, engine: DuckDBEngine, files_relation: str, path: Path) -> int:
-    query = sqlglot.parse_one(project(plan, files_relation, render=True), read=PLAN_DIALECT)
+def write(
+    plan: Plan, engine: DuckDBEngine, files_relation: str, path: Path, relation: str | None = None
+) -> int:
+    """Write the events; ``relation`` holds them already sorted (see base.sorted_events)."""
+    query = sqlglot.parse_one(
+        project(plan, files_relation, render=True, relation=relation), read=PLAN_DIALECT
+    )
     return engine.copy(query, path, "json")

@@ -15,6 +15,11 @@ FORMAT = "parquet"
 SUFFIX = ".parquet"
 
 
-def write(plan: Plan, engine: DuckDBEngine, files_relation: str, path: Path) -> int:
-    query = sqlglot.parse_one(project(plan, files_relation, render=False), read=PLAN_DIALECT)
+def write(
+    plan: Plan, engine: DuckDBEngine, files_relation: str, path: Path, relation: str | None = None
+) -> int:
+    """Write the events; ``relation`` holds them already sorted (see base.sorted_events)."""
+    query = sqlglot.parse_one(
+        project(plan, files_relation, render=False, relation=relation), read=PLAN_DIALECT
+    )
     return engine.copy(query, path, "parquet")

@@ -18,7 +18,7 @@ from cdcnorm.plan import Plan
 
 def dedupe_rows(plan: Plan) -> Plan:
     keys = ", ".join(f"v{i}" for i in plan.key_index)
-    identity = f"__pbase, __act, {keys}"
+    identity = f"__pos, __seq, __act, {keys}"
     content = "{" + ", ".join(["'c': __cat", *(f"'v{i}': v{i}" for i in range(len(plan.fields)))]) + "}"
     ordered = plan.rel("ordered")
     plan = plan.add(
@@ -27,7 +27,9 @@ def dedupe_rows(plan: Plan) -> Plan:
         f"SELECT {identity}, count(*) AS __versions FROM {ordered} GROUP BY {identity} HAVING count(*) > 1",
         materialize=True,
     )
-    on = " AND ".join(f"o.{c} = r.{c}" for c in ["__pbase", "__act", *(f"v{i}" for i in plan.key_index)])
+    on = " AND ".join(
+        f"o.{c} = r.{c}" for c in ["__pos", "__seq", "__act", *(f"v{i}" for i in plan.key_index)]
+    )
     window = f"PARTITION BY {identity}"
     plan = plan.add(
         "dedupe",

@@ -19,29 +19,34 @@ def build_envelopes(plan: Plan) -> Plan:
     names = plan.fields
     keys = plan.key_index
     nonkey = [i for i in range(n) if i not in keys] or keys
-    paired = plan.rel("paired")
-    vals = ", ".join(f"e.v{i}" for i in range(n))
-    has_prior = "(e.__act = 'after' AND coalesce(e.__same_key, FALSE))"
-    priors = ", ".join(f"CASE WHEN {has_prior} THEN e.p{i} END AS p{i}" for i in range(n))
-    own_priors = ", ".join(f"e.v{i} AS p{i}" for i in range(n))
+    kept = plan.rel("kept")
+    pairs = plan.rel("pairs")
+    nulls = ", ".join(f"NULL AS p{i}" for i in range(n))
     changed = (
         "list_filter(["
-        + ", ".join(f"CASE WHEN e.v{i} IS DISTINCT FROM e.p{i} THEN {lit(names[i])} END" for i in range(n))
+        + ", ".join(f"CASE WHEN p.a{i} IS DISTINCT FROM p.p{i} THEN {lit(names[i])} END" for i in range(n))
         + "], x -> x IS NOT NULL)"
     )
     has_image = " OR ".join(f"e.v{i} IS NOT NULL" for i in nonkey)
-    common = "e.__position, e.__pbase, e.__act, e.__cat, e.__file, e.__row"
+    vals = ", ".join(f"e.v{i}" for i in range(n))
+    own = "e.__position, e.__pos, e.__seq, e.__rank, e.__act, e.__cat, e.__file, e.__row"
+    lonely_after = f"NOT EXISTS (SELECT 1 FROM {pairs} q WHERE q.af = e.__file AND q.ar = e.__row)"
     sql = f"""
-    SELECT 'upsert' AS __action, {common}, {vals}, {has_prior} AS __has_prior, {priors},
-           CASE WHEN {has_prior} THEN {changed} END AS __changed
-    FROM {paired} e WHERE e.__act IN ('insert', 'snapshot', 'after')
+    SELECT 'upsert' AS __action, {own}, {vals}, FALSE AS __has_prior, {nulls}, NULL AS __changed
+    FROM {kept} e WHERE e.__act IN ('insert', 'snapshot') OR (e.__act = 'after' AND {lonely_after})
     UNION ALL
-    SELECT 'delete' AS __action, {common}, {vals}, TRUE AS __has_prior, {own_priors}, NULL AS __changed
-    FROM {paired} e WHERE e.__act = 'before' AND e.__role = 'emitted'
+    SELECT 'upsert', p.a_position, p.a_pos, p.a_seq, 2, 'after', p.a_cat, p.af, p.ar, {", ".join(f"p.a{i}" for i in range(n))},
+           p.same_key, {", ".join(f"CASE WHEN p.same_key THEN p.p{i} END" for i in range(n))},
+           CASE WHEN p.same_key THEN {changed} END
+    FROM {pairs} p
     UNION ALL
-    SELECT 'delete' AS __action, {common}, {vals}, ({has_image}) AS __has_prior,
-           {", ".join(f"CASE WHEN {has_image} THEN e.v{i} END AS p{i}" for i in range(n))}, NULL AS __changed
-    FROM {paired} e WHERE e.__act = 'delete'
+    SELECT 'delete', p.b_position, p.b_pos, p.b_seq, 1, 'before', p.b_cat, p.bf, p.br, {", ".join(f"p.p{i}" for i in range(n))},
+           TRUE, {", ".join(f"p.p{i}" for i in range(n))}, NULL
+    FROM {pairs} p WHERE NOT p.same_key
+    UNION ALL
+    SELECT 'delete', {own}, {vals}, ({has_image}),
+           {", ".join(f"CASE WHEN {has_image} THEN e.v{i} END" for i in range(n))}, NULL
+    FROM {kept} e WHERE e.__act = 'delete'
     """
     plan = plan.add("envelope", "events", sql)
     return plan

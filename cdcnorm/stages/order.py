@@ -17,8 +17,10 @@ def order_rows(plan: Plan) -> Plan:
     base = "__pos"
     if plan.mapping.mapping.change.sequence:
         base = f"__pos || '.' || lpad(CAST(__seq AS VARCHAR), {SEQUENCE_WIDTH}, '0')"
+    # Later stages group and join on the parts (__pos, __seq), which is cheaper than on the
+    # joined string; the string is built only where it is output.
     sql = (
-        f"SELECT *, {base} AS __pbase, {base} || '.' || CAST({RANK} AS VARCHAR) AS __position "
+        f"SELECT *, {RANK} AS __rank, {base} || '.' || CAST({RANK} AS VARCHAR) AS __position "
         f"FROM {plan.rel('typed')} WHERE __ok"
     )
     return plan.add("order", "ordered", sql)

@@ -21,14 +21,22 @@ def pair_images(plan: Plan) -> Plan:
     kept = plan.rel("kept")
     n = len(plan.fields)
     same_key = " AND ".join(f"a.v{i} = b.v{i}" for i in keys)
-    before_values = ", ".join(f"b.v{i} AS p{i}" for i in range(n))
+    # a pair carries both images, so the envelope stage needs no join of its own
+    before_values = ", ".join(
+        [
+            "a.__position AS a_position, a.__pos AS a_pos, a.__seq AS a_seq, a.__cat AS a_cat",
+            "b.__position AS b_position, b.__pos AS b_pos, b.__seq AS b_seq, b.__cat AS b_cat",
+            *(f"a.v{i} AS a{i}" for i in range(n)),
+            *(f"b.v{i} AS p{i}" for i in range(n)),
+        ]
+    )
     if paired_mode:
         pairs = (
             f"SELECT a.__file AS af, a.__row AS ar, b.__file AS bf, b.__row AS br, ({same_key}) AS same_key, "
             f"{before_values} FROM "
-            f"(SELECT *, count(*) OVER (PARTITION BY __pbase) AS __n FROM {kept} WHERE __act = 'after') a JOIN "
-            f"(SELECT *, count(*) OVER (PARTITION BY __pbase) AS __n FROM {kept} WHERE __act = 'before') b "
-            f"ON a.__pbase = b.__pbase AND (({same_key}) OR (a.__n = 1 AND b.__n = 1))"
+            f"(SELECT *, count(*) OVER (PARTITION BY __pos, __seq) AS __n FROM {kept} WHERE __act = 'after') a JOIN "
+            f"(SELECT *, count(*) OVER (PARTITION BY __pos, __seq) AS __n FROM {kept} WHERE __act = 'before') b "
+            f"ON a.__pos = b.__pos AND a.__seq = b.__seq AND (({same_key}) OR (a.__n = 1 AND b.__n = 1))"
         )
     else:
         pairs = (

@@ -83,7 +83,7 @@ def type_rows(plan: Plan) -> Plan:
             ),
         )
     else:
-        c.typed.append(("__seq", "CAST(NULL AS UBIGINT)"))
+        c.typed.append(("__seq", "CAST(0 AS UBIGINT)"))  # no sequence: one constant
     if ch.committed_at:
         col = ident(ch.committed_at.column)
         c.typed.append(("__cat", timestamp_cast(col, ch.committed_at.zone)))

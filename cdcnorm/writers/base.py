@@ -49,7 +49,14 @@ def envelope_columns(plan: Plan, *, render: bool) -> list[tuple[str, str]]:
 
 def sort_columns(plan: Plan) -> list[tuple[str, str]]:
     keys = [(f"__k_key{j}", f"v{i}") for j, i in enumerate(plan.key_index)]
-    return [("__k_position", "__position"), *keys, ("__k_action", "__action"), ("__k_act", "__act")]
+    return [
+        ("__k_pos", "__pos"),
+        ("__k_seq", "__seq"),
+        ("__k_rank", "__rank"),
+        *keys,
+        ("__k_action", "__action"),
+        ("__k_act", "__act"),
+    ]
 
 
 def project(

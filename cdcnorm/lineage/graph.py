@@ -101,7 +101,7 @@ def _normalise_name(name: str, dialect: str) -> tuple[str, ...]:
     return table_parts(normalize_identifiers(table, dialect=dialect))
 
 
-def _normalise_column(name: str, dialect: str) -> str:
+def normalise_column(name: str, dialect: str) -> str:
     from sqlglot.optimizer.normalize_identifiers import normalize_identifiers
 
     return str(normalize_identifiers(exp.to_identifier(name), dialect=dialect).name)
@@ -119,20 +119,18 @@ def mapping_catalog(
     for name, declared in (tables or {}).items():
         kept: dict[str, str] = {}
         for c, t in declared.items():
-            col = _normalise_column(c, dialect)
+            col = normalise_column(c, dialect)
             what, new = (edits or {}).get(("source", name, col), ("", ""))
             if what == "drop":
                 continue
-            kept[_normalise_column(new, dialect) if what == "rename" else col] = (
-                new if what == "retype" else t
-            )
+            kept[normalise_column(new, dialect) if what == "rename" else col] = new if what == "retype" else t
         cat.add(TableInfo("source", name, _normalise_name(name, dialect), list(kept), kept))
     for lm in mappings:
         parts = _normalise_name(lm.table, dialect)
         cols: list[str] = []
         types: dict[str, str] = {}
         for f in lm.mapping.fields:
-            col = _normalise_column(f, dialect)
+            col = normalise_column(f, dialect)
             node: Node = ("source", lm.table, col)
             edit = (edits or {}).get(node)
             typ = source_type(lm, f)
@@ -140,7 +138,7 @@ def mapping_catalog(
                 if edit[0] == "drop":
                     continue
                 if edit[0] == "rename":
-                    col = _normalise_column(edit[1], dialect)
+                    col = normalise_column(edit[1], dialect)
                 if edit[0] == "retype":
                     typ = edit[1]
             cols.append(col)
@@ -267,7 +265,7 @@ def build_project(
     # mapping layer: raw dump column -> canonical field
     for lm in mappings:
         for f in lm.mapping.fields:
-            col = _normalise_column(f, dialect)
+            col = normalise_column(f, dialect)
             node: Node = ("source", lm.table, col)
             edit = (edits or {}).get(node)
             raw: Node = ("raw", lm.table, lm.mapping.raw_column(f))
@@ -275,7 +273,7 @@ def build_project(
             if edit is not None and edit[0] in ("drop", "rename"):
                 continue
             if edit is not None and edit[0] == "rename":
-                node = ("source", lm.table, _normalise_column(edit[1], dialect))
+                node = ("source", lm.table, normalise_column(edit[1], dialect))
             ftype = lm.field_types[f]
             sub = "copy" if ftype.name == "text" and not getattr(ftype, "max_length", None) else "transform"
             g.add_node(node, kind="source", table=lm.table, column=col, type=source_type(lm, f))

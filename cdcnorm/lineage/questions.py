@@ -16,7 +16,7 @@ import networkx as nx
 from sqlglot import exp
 
 from cdcnorm.errors import LineageError, did_you_mean
-from cdcnorm.lineage.graph import Project, build_project, node_name
+from cdcnorm.lineage.graph import Project, build_project, node_name, normalise_column
 from cdcnorm.lineage.graph import value_graph as _value_view
 from cdcnorm.lineage.models import LoadedModels
 from cdcnorm.lineage.resolve import Node
@@ -38,14 +38,11 @@ def find_column(project: Project, text: str) -> Node:
         raise LineageError(f"write a column as <table>.<column>, not {text!r}")
     table, column = text.rsplit(".", 1)
     g = project.graph
-    norm = (
-        column.lower()
-        if project.dialect in ("duckdb", "postgres", "sqlite", "spark", "databricks")
-        else column
-    )
+    # as written first, then as the dialect folds unquoted names
+    folded_table = ".".join(normalise_column(p, project.dialect) for p in table.split("."))
     for kind in ("source", "model", "raw"):
-        for col in (column, norm):
-            node: Node = (kind, table, col)
+        for t, col in ((table, column), (folded_table, normalise_column(column, project.dialect))):
+            node: Node = (kind, t, col)
             if node in g:
                 return node
     names = sorted({node_name(n) for n in g.nodes})

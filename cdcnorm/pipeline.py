@@ -120,6 +120,21 @@ class Result:
         return sorted_envelopes(run.plan, self.engine, "__files", render=render)
 
 
+def _drift_hint(d: Drift, columns: list[str]) -> str:
+    if len(columns) == 1:
+        for sep in (";", "\t", "|"):
+            if sep in columns[0]:
+                return f"the file seems to use {sep!r} between fields: set csv.delimiter in the mapping"
+    key = (
+        f"fields.{d.field}.from"
+        if d.field not in ("action", "position", "sequence", "committed_at")
+        else f"change.{d.field}.column"
+    )
+    if d.suggestion:
+        return f'did you mean "{d.suggestion}"? (or set {key})'
+    return f"rename the column in the dump or set {key}"
+
+
 def route(files: Iterable[Path], mappings: Sequence[LoadedMapping]) -> dict[str, list[Path]]:
     """Which mapping reads each file: by the mapping's file globs, or a file named ``<table>.jsonl``."""
     by_table: dict[str, list[Path]] = {m.table: [] for m in mappings}
@@ -280,9 +295,7 @@ def run(
             field=d.field,
             expected=f"a column named {d.column!r}",
             found="columns " + ", ".join(next(s.columns for s in runs[d.table].sources if s.name == d.file)),
-            hint=f'did you mean "{d.suggestion}"? (or set fields.{d.field}.from)'
-            if d.suggestion
-            else "rename the column or fix the mapping",
+            hint=_drift_hint(d, next(s.columns for s in runs[d.table].sources if s.name == d.file)),
         )
     engine.register(
         "__files",

@@ -278,7 +278,14 @@ def build_project(
             sub = "copy" if ftype.name == "text" and not getattr(ftype, "max_length", None) else "transform"
             g.add_node(node, kind="source", table=lm.table, column=col, type=source_type(lm, f))
             g.add_edge(
-                raw, node, key="value", kind="value", sub=sub, clauses="", file=str(lm.path.name), line=0
+                raw,
+                node,
+                key="value",
+                kind="value",
+                sub=sub,
+                clauses="",
+                file=lm.path.name,
+                line=lm.field_lines.get(f, 0),
             )
     by_model: dict[str, list[ModelStatement]] = defaultdict(list)
     for st in loaded.statements:

@@ -6,7 +6,7 @@ what was found, and suggest the closest valid key or type.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -24,6 +24,7 @@ class LoadedMapping:
     mapping: Mapping
     path: Path
     field_types: dict[str, FieldType]
+    field_lines: dict[str, int] = field(default_factory=dict)  # field -> line in the mapping file
 
     @property
     def table(self) -> str:
@@ -173,7 +174,8 @@ def load_mapping(path: Path) -> LoadedMapping:
                 line=lines.get(("fields", name, "zone")),
                 field=f"fields.{name}.zone",
             )
-    return LoadedMapping(mapping=mapping, path=path, field_types=field_types)
+    field_lines = {name: lines.get(("fields", name), 0) for name in mapping.fields}
+    return LoadedMapping(mapping=mapping, path=path, field_types=field_types, field_lines=field_lines)
 
 
 def load_mappings(folder: Path) -> list[LoadedMapping]:

@@ -29,6 +29,7 @@ SUFFIXES = (".csv", ".csv.gz", ".tsv")
 def _header(path: Path, delimiter: str, quote: str) -> list[str]:
     with pa.input_stream(str(path), compression="detect") as stream:
         head = stream.read(1 << 20)
+    head = head.removeprefix(b"\xef\xbb\xbf")  # a UTF-8 byte order mark is not part of the first name
     try:
         text = head.decode("utf-8")
     except UnicodeDecodeError as e:

@@ -115,42 +115,9 @@ def _ledger_table(result: Result) -> Table:
         t.add_column(col, justify="left" if col in ("table", "file") else "right")
     for name, tl in sorted(result.ledger.tables.items()):
         for fname, c in sorted(tl.files.items()):
-            t.add_row(
-                name,
-                fname,
-                *(
-                    str(v)
-                    for v in (
-                        c.read,
-                        c.emitted,
-                        c.merged,
-                        c.duplicate,
-                        c.quarantined,
-                        c.upserts,
-                        c.deletes,
-                        c.unpaired_after,
-                    )
-                ),
-            )
-    c = result.ledger.total
-    t.add_row(
-        "all",
-        "",
-        *(
-            str(v)
-            for v in (
-                c.read,
-                c.emitted,
-                c.merged,
-                c.duplicate,
-                c.quarantined,
-                c.upserts,
-                c.deletes,
-                c.unpaired_after,
-            )
-        ),
-        style="bold",
-    )
+            t.add_row(name, fname, *(str(v) for v in c.as_dict().values()))
+    total = result.ledger.total.as_dict().values()
+    t.add_row("all", "", *(str(v) for v in total), style="bold")
     return t
 
 

@@ -368,33 +368,15 @@ def build_project(
             target: Node = ("model", name, col)
             g.add_node(target, kind="model", table=name, column=col)
             d = merged[col]
-            for src, sub in d.value.items():
+            edges = [(src, "value", sub, "") for src, sub in d.value.items()]
+            edges += [(src, "influence", "", ",".join(sorted(cs))) for src, cs in d.influence.items()]
+            for src, kind, sub, clauses in edges:
                 if src == target:
                     continue
                 g.add_node(src, kind=src[0], table=src[1], column=src[2])
+                line = d.lines.get(src, lines[col])
                 g.add_edge(
-                    src,
-                    target,
-                    key="value",
-                    kind="value",
-                    sub=sub,
-                    clauses="",
-                    file=file_of,
-                    line=d.lines.get(src, lines[col]),
-                )
-            for src, clauses in d.influence.items():
-                if src == target:
-                    continue
-                g.add_node(src, kind=src[0], table=src[1], column=src[2])
-                g.add_edge(
-                    src,
-                    target,
-                    key="influence",
-                    kind="influence",
-                    sub="",
-                    clauses=",".join(sorted(clauses)),
-                    file=file_of,
-                    line=d.lines.get(src, lines[col]),
+                    src, target, key=kind, kind=kind, sub=sub, clauses=clauses, file=file_of, line=line
                 )
     value_graph(g)
     return Project(g, catalog, models, {m.table: m for m in mappings}, diagnostics, dialect, order, tables)

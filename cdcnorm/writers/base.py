@@ -12,6 +12,8 @@ the order is total: the output never depends on the order of the input.
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import pyarrow as pa
 import pyarrow.compute as pc
 import sqlglot
@@ -87,6 +89,15 @@ def project(
         return f"SELECT {', '.join(select)} {source} ORDER BY {order}"
     select += [f"{e} AS {n}" for n, e in sort_columns(plan)]
     return f"SELECT {', '.join(select)} {source}"
+
+
+def write_events(
+    plan: Plan, engine: DuckDBEngine, files_relation: str, path: Path, relation: str | None, *, fmt: str
+) -> int:
+    """Write the events (JSON forms for json, native types for parquet); rows written.
+    ``relation`` holds them already sorted (see ``sorted_events``)."""
+    sql = project(plan, files_relation, render=fmt == "json", relation=relation)
+    return engine.copy(sqlglot.parse_one(sql, read=PLAN_DIALECT), path, fmt)
 
 
 def sorted_events(plan: Plan, files_relation: str) -> str:

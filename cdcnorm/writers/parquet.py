@@ -4,12 +4,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import sqlglot
-
 from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.plan import Plan
-from cdcnorm.sql import PLAN_DIALECT
-from cdcnorm.writers.base import project
+from cdcnorm.writers.base import write_events
 
 FORMAT = "parquet"
 SUFFIX = ".parquet"
@@ -18,8 +15,4 @@ SUFFIX = ".parquet"
 def write(
     plan: Plan, engine: DuckDBEngine, files_relation: str, path: Path, relation: str | None = None
 ) -> int:
-    """Write the events; ``relation`` holds them already sorted (see base.sorted_events)."""
-    query = sqlglot.parse_one(
-        project(plan, files_relation, render=False, relation=relation), read=PLAN_DIALECT
-    )
-    return engine.copy(query, path, "parquet")
+    return write_events(plan, engine, files_relation, path, relation, fmt="parquet")

@@ -5,6 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import numpy as np
 import pyarrow as pa
 
 MALFORMED_SCHEMA = pa.schema([("__row", pa.int64()), ("text", pa.string()), ("reason", pa.string())])
@@ -42,7 +43,7 @@ class RawSource:
 def with_rows(table: pa.Table, rows: pa.Array | None = None, enc: pa.Array | None = None) -> pa.Table:
     n = table.num_rows
     if rows is None:
-        rows = pa.array(range(1, n + 1), pa.int64())
+        rows = pa.array(np.arange(1, n + 1, dtype=np.int64))
     table = table.append_column("__row", rows)
     if "__enc" not in table.column_names:
         table = table.append_column("__enc", enc if enc is not None else pa.nulls(n, pa.string()))

@@ -13,6 +13,7 @@ import json
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
@@ -53,7 +54,7 @@ def read(path: Path, mapping: Mapping, engine: DuckDBEngine, name: str) -> RawSo
     if data.endswith(b"\n"):
         data = data[:-1]
     lines = pc.list_flatten(pc.split_pattern(pa.array([data], pa.large_binary()), b"\n"))
-    numbers = pa.array(range(1, len(lines) + 1), pa.int64())
+    numbers = pa.array(np.arange(1, len(lines) + 1, dtype=np.int64))
     engine.register("__jsonl_lines", pa.table({"raw": lines, "__row": numbers}))
     engine.con.execute(
         "CREATE OR REPLACE TEMP TABLE __jsonl AS "

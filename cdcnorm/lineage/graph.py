@@ -38,19 +38,32 @@ SQL_TYPES = {
 }
 
 
-_VALUE_GRAPHS: dict[int, tuple[nx.MultiDiGraph, nx.DiGraph]] = {}
+@dataclass
+class Views:
+    """Plain graphs for the questions, built once with the project: value edges only, every
+    edge, and each column's influence edges in both directions."""
+
+    value: nx.DiGraph
+    every: nx.DiGraph
+    influence_out: dict[Node, set[Node]]
+    influence_in: dict[Node, set[Node]]
 
 
-def value_graph(g: nx.MultiDiGraph) -> nx.DiGraph:
-    """The value edges only (built with the project, reused by every question)."""
-    cached = _VALUE_GRAPHS.get(id(g))
-    if cached is None or cached[0] is not g:
-        h = nx.DiGraph()
-        h.add_nodes_from(g.nodes)
-        h.add_edges_from((u, v) for u, v, k in g.edges(keys=True) if k == "value")
-        cached = (g, h)
-        _VALUE_GRAPHS[id(g)] = cached
-    return cached[1]
+def views_of(g: nx.MultiDiGraph) -> Views:
+    value = nx.DiGraph()
+    value.add_nodes_from(g.nodes)
+    every = nx.DiGraph()
+    every.add_nodes_from(g.nodes)
+    out: dict[Node, set[Node]] = {}
+    into: dict[Node, set[Node]] = {}
+    for u, v, k in g.edges(keys=True):
+        every.add_edge(u, v)
+        if k == "value":
+            value.add_edge(u, v)
+        else:
+            out.setdefault(u, set()).add(v)
+            into.setdefault(v, set()).add(u)
+    return Views(value, every, out, into)
 
 
 def node_name(node: Node) -> str:
@@ -79,6 +92,12 @@ class Project:
     dialect: str
     order: list[str]
     tables: dict[str, dict[str, str]] | None = None
+    views: Views | None = None
+
+    def view(self) -> Views:
+        if self.views is None:
+            self.views = views_of(self.graph)
+        return self.views
 
     def column_nodes(self) -> list[Node]:
         return list(self.graph.nodes)
@@ -378,5 +397,6 @@ def build_project(
                 g.add_edge(
                     src, target, key=kind, kind=kind, sub=sub, clauses=clauses, file=file_of, line=line
                 )
-    value_graph(g)
-    return Project(g, catalog, models, {m.table: m for m in mappings}, diagnostics, dialect, order, tables)
+    return Project(
+        g, catalog, models, {m.table: m for m in mappings}, diagnostics, dialect, order, tables, views_of(g)
+    )

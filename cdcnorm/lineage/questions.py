@@ -17,13 +17,12 @@ from sqlglot import exp
 
 from cdcnorm.errors import LineageError, did_you_mean
 from cdcnorm.lineage.graph import Project, build_project, node_name, normalise_column
-from cdcnorm.lineage.graph import value_graph as _value_view
 from cdcnorm.lineage.models import LoadedModels
 from cdcnorm.lineage.resolve import Node
 from cdcnorm.mapping.load import LoadedMapping
 
 
-def _closure(g: nx.MultiDiGraph, starts: set[Node], up: bool) -> set[Node]:
+def _closure(g: nx.DiGraph, starts: set[Node], up: bool) -> set[Node]:
     """Every node reachable from any of ``starts`` (ancestors when ``up``), the starts included:
     one multi-source search, however many starts."""
     if not starts:
@@ -57,24 +56,24 @@ def model_columns(project: Project, name: str) -> list[Node]:
 
 
 def _upstream(project: Project, node: Node) -> tuple[set[Node], set[Node]]:
-    g = project.graph
-    value = nx.ancestors(_value_view(g), node)
-    every = nx.ancestors(g, node) | {node}
-    heads = {u for u, _, k in g.in_edges(every, keys=True) if k == "influence"}
-    return value, _closure(g, heads, up=True)
+    v = project.view()
+    value = nx.ancestors(v.value, node)
+    every = nx.ancestors(v.every, node) | {node}
+    heads = {u for n in every for u in v.influence_in.get(n, ())}
+    return value, _closure(v.every, heads, up=True)
 
 
 def _downstream(project: Project, node: Node) -> tuple[set[Node], set[Node]]:
-    g = project.graph
-    value = nx.descendants(_value_view(g), node)
-    every = nx.descendants(g, node) | {node}
-    tails = {v for _, v, k in g.out_edges(every, keys=True) if k == "influence"}
-    return value, _closure(g, tails, up=False)
+    v = project.view()
+    value = nx.descendants(v.value, node)
+    every = nx.descendants(v.every, node) | {node}
+    tails = {t for n in every for t in v.influence_out.get(n, ())}
+    return value, _closure(v.every, tails, up=False)
 
 
 def _path(project: Project, a: Node, b: Node, value_only: bool) -> list[dict[str, Any]]:
     g = project.graph
-    view = _value_view(g) if value_only else g
+    view = project.view().value if value_only else g
     try:
         nodes = nx.shortest_path(view, a, b)
     except nx.NetworkXNoPath:

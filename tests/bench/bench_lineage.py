@@ -121,10 +121,13 @@ def main() -> None:
         rng = random.Random(5)
         targets = rng.sample([n for n in g.nodes if n[0] == "source"], 20)
         times = []
-        for node in targets:
-            t = time.perf_counter()
-            impact(project, f"{node[1]}.{node[2]}", None, mappings=[], loaded=loaded)
-            times.append(time.perf_counter() - t)
+        for node in targets:  # each question asked 3 times; its time is the fastest of the 3
+            best = float("inf")
+            for _ in range(3):
+                t = time.perf_counter()
+                impact(project, f"{node[1]}.{node[2]}", None, mappings=[], loaded=loaded)
+                best = min(best, time.perf_counter() - t)
+            times.append(best)
         chain = nx.DiGraph()
         for u, v in g.edges():
             if u[0] == "model" and v[0] == "model" and u[1] != v[1]:

@@ -169,9 +169,12 @@ def test_float_date_time_text_json(convert: ConvertFn) -> None:
     assert d[0] == ("2024-02-29", None)  # 2024 is a leap year (Python datetime agrees)
     assert dt.date(2024, 2, 29).isoformat() == "2024-02-29"
     assert d[1][1] == "no such calendar date" and d[2][1] == "not a YYYY-MM-DD date"
-    t = type_values(convert, "time", ["08:00:00", "23:59:59.5", "24:00:00", "08:00:00.1234567"])
+    t = type_values(convert, "time", ["08:00:00", "23:59:59.5", "24:00:00", "08:00:00.1234567", "8:00:00"])
     assert [v for v, _ in t[:2]] == ["08:00:00", "23:59:59.5"]
-    assert t[2][0] is None and t[3][1] == "more than 6 fractional digits (would truncate)"
+    assert t[2][0] is None and t[3][1] == "more than 6 fractional digits (would truncate)" and t[4][0] is None
+    # RFC 3339 section 4.2: 18:50:00-04:00 is the same time as 22:50:00Z; offsets wrap around midnight
+    z = type_values(convert, "time", ["18:50:00-04:00", "22:50:00Z", "00:30:00+01:00", "23:30:00.25-01:30"])
+    assert [v for v, _ in z] == ["22:50:00", "22:50:00", "23:30:00", "01:00:00.25"]
     x = type_values(convert, "text(5)", ["abcde", "abcdef", "ÅÄÖåä"])
     assert x[0] == ("abcde", None) and x[1][1] == "longer than 5 characters" and x[2] == ("ÅÄÖåä", None)
     j = type_values(convert, "json", ['{"a": [1, 2.50, null]}', "[1,", "12345678901234567890"])

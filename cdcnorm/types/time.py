@@ -2,9 +2,12 @@ from __future__ import annotations
 
 from cdcnorm.types.base import FieldType
 
-# RFC 3339 partial-time: hours 00-23, minutes 00-59, seconds 00-59, a fraction
-# of up to microseconds (further digits must be zeros: nothing is truncated).
-PATTERN = r"'([01][0-9]|2[0-3]):[0-5][0-9]:[0-5][0-9](\.[0-9]{1,6}0*)?'"
+# RFC 3339 partial-time (hours 00-23, minutes 00-59, seconds 00-59, a fraction of up to
+# microseconds; further digits must be zeros: nothing is truncated), optionally with a
+# time-offset (full-time). An offset is applied and the time kept in UTC, modulo a day:
+# RFC 3339 section 4.2 gives 18:50:00-04:00 as the same time as 22:50:00Z.
+PARTIAL = r"([01][0-9]|2[0-3]):[0-5][0-9]:[0-5][0-9](\.[0-9]{1,6}0*)?"
+PATTERN = rf"'{PARTIAL}([Zz]|[+-]([01][0-9]|2[0-3]):[0-5][0-9])?'"
 
 
 class TimeType(FieldType):
@@ -12,13 +15,22 @@ class TimeType(FieldType):
     sql_type = "TIME"
 
     def cast(self, x: str) -> str:
-        return f"CASE WHEN regexp_full_match({x}, {PATTERN}) THEN TRY_CAST({x} AS TIME) END"
+        sign = f"substr({x}, length({x}) - 5, 1)"
+        has_offset = f"{sign} IN ('+', '-')"
+        base = f"CASE WHEN {has_offset} THEN substr({x}, 1, length({x}) - 6) ELSE rtrim(rtrim({x}, 'Z'), 'z') END"
+        hours = f"CAST(substr({x}, length({x}) - 4, 2) AS INTEGER)"
+        minutes = f"CAST(substr({x}, length({x}) - 1, 2) AS INTEGER)"
+        shift = f"CASE WHEN {has_offset} THEN ({hours} * 60 + {minutes}) * CASE {sign} WHEN '-' THEN -1 ELSE 1 END ELSE 0 END"
+        return (
+            f"CASE WHEN regexp_full_match({x}, {PATTERN}) "
+            f"THEN TRY_CAST({base} AS TIME) - to_minutes(CAST({shift} AS BIGINT)) END"
+        )
 
     def explain(self, x: str) -> str:
         return (
-            rf"CASE WHEN regexp_full_match({x}, '[0-9]{{2}}:[0-9]{{2}}:[0-9]{{2}}\.[0-9]{{7,}}') "
+            rf"CASE WHEN regexp_full_match({x}, '[0-9]{{2}}:[0-9]{{2}}:[0-9]{{2}}\.[0-9]{{7,}}.*') "
             "THEN 'more than 6 fractional digits (would truncate)' "
-            "ELSE 'not an HH:MM:SS[.ffffff] time' END"
+            "ELSE 'not an HH:MM:SS[.ffffff][offset] time' END"
         )
 
     def render(self, v: str) -> str:

@@ -32,6 +32,7 @@ def test_unresolvable_references_are_reported_not_guessed(tmp_path: Path) -> Non
             "missing.sql": "SELECT o.amout FROM shop.orders o",
             "star.sql": "SELECT * FROM nowhere",
             "broken.sql": "SELECT FROM WHERE (",
+            "typo.sql": "SELEC broken",
             "fine.sql": "SELECT id FROM shop.orders",
         },
         SCHEMA,
@@ -45,6 +46,7 @@ def test_unresolvable_references_are_reported_not_guessed(tmp_path: Path) -> Non
     )
     assert ("star", "unknown table") in got or ("star", "star over unknown sources") in got
     assert got[("broken", "parse error")].file == "broken.sql"
+    assert got[("typo", "parse error")].reference.startswith("not a SQL statement")
     assert trace(project, "fine.id")["value"] == ["shop.orders.id"]  # the rest of the project still builds
     assert trace(project, "amb.id")["unresolved"][0]["reason"] == "ambiguous"
 

@@ -106,6 +106,15 @@ def load_model_file(path: Path, dialect: str, root: Path | None = None) -> Loade
     stmts = [s for s in statements if s is not None]
     for i, stmt in enumerate(stmts):
         line = lines[i] if i < len(lines) else 1
+        if isinstance(
+            stmt, (exp.Alias, exp.Column, exp.Identifier, exp.Literal, exp.Paren, exp.Binary, exp.Func)
+        ):
+            # a bare expression where a statement should be, e.g. a misspelt keyword: "SELEC x"
+            text = stmt.sql(dialect=dialect)
+            out.diagnostics.append(
+                Diagnostic(shown, line, path.stem, "parse error", f"not a SQL statement: {text[:80]}")
+            )
+            continue
         ms = _classify(stmt, path.stem, shown, line, dialect)
         if ms is None:
             continue

@@ -136,35 +136,24 @@ def main() -> None:
         gen = time.perf_counter() - t0
         size = sum(f.stat().st_size for f in files)
         best: dict[str, tuple[float, float]] = {}
+
+        def convert(out: str, *extra: str) -> list[str]:
+            head = [
+                sys.executable,
+                "-m",
+                "cdcnorm",
+                "convert",
+                "--quiet",
+                "--mappings",
+                str(work / "mappings"),
+            ]
+            return [*head, "--out", str(work / out), *extra, *map(str, files)]
+
         for _ in range(args.repeat):
             runs = {
                 "floor": [sys.executable, "-c", FLOOR, str(work / "floor.parquet"), *map(str, files)],
-                "convert": [
-                    sys.executable,
-                    "-m",
-                    "cdcnorm",
-                    "convert",
-                    "--quiet",
-                    "--mappings",
-                    str(work / "mappings"),
-                    "--out",
-                    str(work / "out-parquet"),
-                    "--format",
-                    "parquet",
-                    *map(str, files),
-                ],
-                "convert-jsonl": [
-                    sys.executable,
-                    "-m",
-                    "cdcnorm",
-                    "convert",
-                    "--quiet",
-                    "--mappings",
-                    str(work / "mappings"),
-                    "--out",
-                    str(work / "out-jsonl"),
-                    *map(str, files),
-                ],
+                "convert": convert("out-parquet", "--format", "parquet"),
+                "convert-jsonl": convert("out-jsonl"),
             }
             for name, cmd in runs.items():
                 wall, mib = run_isolated(cmd)

@@ -108,6 +108,11 @@ pq.write_table(pa.concat_tables(tables, promote_options="permissive"), sys.argv[
 """
 
 
+def convert_command(work: Path, files: list[Path], out: str, *extra: str) -> list[str]:
+    head = [sys.executable, "-m", "cdcnorm", "convert", "--quiet", "--mappings", str(work / "mappings")]
+    return [*head, "--out", str(work / out), *extra, *map(str, files)]
+
+
 def run_isolated(cmd: list[str]) -> tuple[float, float]:
     helper = (
         "import resource, subprocess, sys, time, json\n"
@@ -137,23 +142,11 @@ def main() -> None:
         size = sum(f.stat().st_size for f in files)
         best: dict[str, tuple[float, float]] = {}
 
-        def convert(out: str, *extra: str) -> list[str]:
-            head = [
-                sys.executable,
-                "-m",
-                "cdcnorm",
-                "convert",
-                "--quiet",
-                "--mappings",
-                str(work / "mappings"),
-            ]
-            return [*head, "--out", str(work / out), *extra, *map(str, files)]
-
         for _ in range(args.repeat):
             runs = {
                 "floor": [sys.executable, "-c", FLOOR, str(work / "floor.parquet"), *map(str, files)],
-                "convert": convert("out-parquet", "--format", "parquet"),
-                "convert-jsonl": convert("out-jsonl"),
+                "convert": convert_command(work, files, "out-parquet", "--format", "parquet"),
+                "convert-jsonl": convert_command(work, files, "out-jsonl"),
             }
             for name, cmd in runs.items():
                 wall, mib = run_isolated(cmd)

@@ -311,12 +311,12 @@ def run(
         return result
     drifted = {d.table for d in drifts}
     total = len(runs)
-    for i, (table, trun) in enumerate(runs.items()):
+    for table, trun in runs.items():
         if table in drifted:
             continue
-        progress(f"convert {table}", i, total)
         plan = trun.plan if stop_after is None else trun.plan.until(stop_after)
-        for step in plan.steps:
+        for j, step in enumerate(plan.steps):
+            progress(f"{table}: {step.stage} ({step.name})", j, len(plan.steps))
             if step.materialize:
                 engine.materialize(step.relation, step.expression)
             else:
@@ -324,7 +324,7 @@ def run(
         if stop_after is not None:
             continue
         result.ledger.tables[table] = _account(trun, engine)
-    progress("convert", total, total)
+    progress("account", total, total)
     if stop_after is not None:
         return result
     if not result.ledger.balanced:

@@ -134,3 +134,24 @@ def test_parquet_dump(convert: ConvertFn, tmp_path: object) -> None:
     done = convert(mapping, {"n.parquet": buf.getvalue()})
     ev = {e["key"]["id"]: e["values"] for e in done.events("t.notes")}
     assert ev[1] == {"id": 1, "a": "x", "b": "AAE="} and ev[2]["a"] is None and ev[2]["b"] == ""
+
+
+def test_names_with_quotes_braces_and_commas(convert: ConvertFn) -> None:
+    mapping = """
+    table: odd.names
+    files: ["*.csv"]
+    key: ["id's"]
+    change:
+      action: {column: "op code", codes: {I: insert}}
+      position: {column: "pos,x", kind: integer}
+    fields:
+      "id's": {from: "ID (raw)", type: integer}
+      'say "hi"': {from: 'say "hi"', type: text}
+      "{braces}": text
+    """
+    data = '"op code","pos,x","ID (raw)","say ""hi""",{braces}\nI,1,1,a,b\nI,2,x,c,d\n'
+    done = convert(mapping, {"a.csv": data})
+    (e,) = done.events("odd.names")
+    assert e["key"] == {"id's": 1} and e["values"] == {"id's": 1, 'say "hi"': "a", "{braces}": "b"}
+    (q,) = done.quarantine("odd.names")
+    assert q["ID (raw)"] == "x" and q["pos,x"] == "2"

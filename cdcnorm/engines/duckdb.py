@@ -15,6 +15,7 @@ import duckdb
 import pyarrow as pa
 from sqlglot import exp
 
+from cdcnorm.errors import CdcnormError
 from cdcnorm.sql import ident, lit
 
 
@@ -63,10 +64,20 @@ class DuckDBEngine:
         self.con.execute(self.render(expression))
 
     def materialize(self, name: str, expression: exp.Expr) -> None:
-        self.con.execute(f"CREATE OR REPLACE TEMP TABLE {ident(name)} AS {self.render(expression)}")
+        self._run(name, f"CREATE OR REPLACE TEMP TABLE {ident(name)} AS {self.render(expression)}")
 
     def view(self, name: str, expression: exp.Expr) -> None:
-        self.con.execute(f"CREATE OR REPLACE TEMP VIEW {ident(name)} AS {self.render(expression)}")
+        self._run(name, f"CREATE OR REPLACE TEMP VIEW {ident(name)} AS {self.render(expression)}")
+
+    def _run(self, name: str, sql: str) -> None:
+        try:
+            self.con.execute(sql)
+        except duckdb.Error as e:
+            first = str(e).splitlines()[0]
+            raise CdcnormError(
+                f"the engine could not run plan step {name}: {first}",
+                hint="this is a bug in cdcnorm; `cdcnorm convert --show-plan` prints the SQL for a report",
+            ) from None
 
     def arrow(self, expression: exp.Expr | str) -> pa.Table:
         return self.con.sql(self.render(expression)).to_arrow_table()

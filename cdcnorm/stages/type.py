@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 from cdcnorm import positions
 from cdcnorm.plan import Plan
 from cdcnorm.sql import ident, lit
@@ -17,18 +19,28 @@ def _reason(field: str | None, column: str, expected: str, found: str, reason: s
     )
 
 
+def _invalid(raw: str, typed: str) -> Callable[[str, str], str]:
+    """A raw value is there, but its typed value is not: the text is not a valid value."""
+    return lambda s, t: f"{s}{raw} IS NOT NULL AND {t}{typed} IS NULL"
+
+
+def _missing(raw: str) -> Callable[[str, str], str]:
+    return lambda s, t: f"{s}{raw} IS NULL"
+
+
 class _Checks:
     """Typed columns, the ok condition and the reasons, written against raw ``s`` and typed ``t``."""
 
     def __init__(self) -> None:
         self.typed: list[tuple[str, str]] = []  # (name, SQL over raw columns)
-        self.ok: list[str] = []  # SQL with {s} and {t} placeholders
+        self.ok: list[str] = []  # SQL over the one-pass relation q
         self.reasons: list[str] = []  # SQL over s. and t.
 
-    def check(self, bad: str, reason: str) -> None:
-        """``bad`` uses {s}/{t}; the row is ok only when no ``bad`` holds."""
-        self.ok.append(f"NOT coalesce({bad}, FALSE)")
-        self.reasons.append(f"CASE WHEN {bad.format(s='s.', t='t.')} THEN {reason} END")
+    def check(self, bad: Callable[[str, str], str], reason: str) -> None:
+        """``bad(s, t)`` writes the condition with raw columns under prefix s, typed under t;
+        the row is ok only when no ``bad`` holds."""
+        self.ok.append(f"NOT coalesce({bad('q.', 'q.')}, FALSE)")
+        self.reasons.append(f"CASE WHEN {bad('s.', 't.')} THEN {reason} END")
 
 
 def type_rows(plan: Plan) -> Plan:
@@ -38,7 +50,7 @@ def type_rows(plan: Plan) -> Plan:
     c = _Checks()
 
     c.check(
-        "{s}__enc IS NOT NULL",
+        lambda s, t: f"{s}__enc IS NOT NULL",
         "{'field': CAST(NULL AS VARCHAR), 'column': array_to_string(json_keys(s.__enc), ', '), "
         "'expected': 'UTF-8 text', 'found': s.__enc, 'reason': 'not UTF-8 (found shows the bytes, base64)'}",
     )
@@ -46,7 +58,7 @@ def type_rows(plan: Plan) -> Plan:
     codes = " ".join(f"WHEN {lit(k)} THEN {lit(v)}" for k, v in sorted(ch.action.codes.items()))
     c.typed.append(("__act", f"CASE {act_col} {codes} END"))
     c.check(
-        "{t}__act IS NULL",
+        lambda s, t: f"{t}__act IS NULL",
         _reason(
             "action",
             ch.action.column,
@@ -58,7 +70,7 @@ def type_rows(plan: Plan) -> Plan:
     pos_col = ident(ch.position.column)
     c.typed.append(("__pos", positions.normalise(ch.position, pos_col)))
     c.check(
-        "{t}__pos IS NULL",
+        lambda s, t: f"{t}__pos IS NULL",
         _reason(
             "position",
             ch.position.column,
@@ -73,7 +85,7 @@ def type_rows(plan: Plan) -> Plan:
             ("__seq", f"CASE WHEN regexp_full_match({col}, {SEQUENCE}) THEN TRY_CAST({col} AS UBIGINT) END")
         )
         c.check(
-            "{t}__seq IS NULL",
+            lambda s, t: f"{t}__seq IS NULL",
             _reason(
                 "sequence",
                 ch.sequence.column,
@@ -88,7 +100,7 @@ def type_rows(plan: Plan) -> Plan:
         col = ident(ch.committed_at.column)
         c.typed.append(("__cat", timestamp_cast(col, ch.committed_at.zone)))
         c.check(
-            "{s}" + col + " IS NOT NULL AND {t}__cat IS NULL",
+            _invalid(col, "__cat"),
             _reason(
                 "committed_at",
                 ch.committed_at.column,
@@ -105,20 +117,20 @@ def type_rows(plan: Plan) -> Plan:
         raw = ident(column)
         c.typed.append((f"v{i}", ftype.cast(raw)))
         c.check(
-            "{s}" + raw + " IS NOT NULL AND {t}" + f"v{i} IS NULL",
+            _invalid(raw, f"v{i}"),
             _reason(name, column, ftype.describe(), f"s.{raw}", ftype.explain(f"s.{raw}")),
         )
         if name in keys or m.fields[name].required:
             what = "missing key" if name in keys else "missing required value"
             c.check(
-                "{s}" + raw + " IS NULL",
+                _missing(raw),
                 _reason(name, column, ftype.describe(), "CAST(NULL AS VARCHAR)", lit(what)),
             )
 
     src = plan.rel("source")
     raw_cols = ", ".join(ident(col) for col in m.mapped_columns())
     inner = f"SELECT __file, __row, __enc, {raw_cols}, {', '.join(f'{sql} AS {n}' for n, sql in c.typed)} FROM {src}"
-    ok = " AND ".join(cond.format(s="q.", t="q.") for cond in c.ok)
+    ok = " AND ".join(c.ok)
     typed_cols = ", ".join(f"q.{n}" for n, _ in c.typed)
     plan = plan.add(
         "type",

@@ -155,3 +155,20 @@ def test_names_with_quotes_braces_and_commas(convert: ConvertFn) -> None:
     assert e["key"] == {"id's": 1} and e["values"] == {"id's": 1, 'say "hi"': "a", "{braces}": "b"}
     (q,) = done.quarantine("odd.names")
     assert q["ID (raw)"] == "x" and q["pos,x"] == "2"
+
+
+def test_jsonl_dotted_path_under_a_key_that_is_not_always_an_object(convert: ConvertFn) -> None:
+    mapping = """
+    table: j.t
+    files: ["*.jsonl"]
+    key: [id]
+    change:
+      action: {column: op, codes: {I: insert}}
+      position: {column: pos, kind: integer}
+    fields:
+      id: integer
+      v: {from: a.b, type: text}
+    """
+    data = '{"op": "I", "pos": 1, "id": 1, "a": {"b": "x"}}\n{"op": "I", "pos": 2, "id": 2, "a": "plain"}\n'
+    done = convert(mapping, {"x.jsonl": data})
+    assert [e["values"]["v"] for e in done.events("j.t")] == ["x", None]

@@ -77,6 +77,13 @@ def read(path: Path, mapping: Mapping, engine: DuckDBEngine, name: str) -> RawSo
     structure = json.loads(structure_text) if structure_text else {}
     paths = _paths(structure, set(mapping.mapped_columns()))
     columns = [".".join(p) for p in paths]
+    # A mapped dotted path under a key whose values are not always objects (so the merged
+    # structure does not list it) is still read; rows where it is absent give NULL.
+    for wanted in mapping.mapped_columns():
+        parts = tuple(wanted.split("."))
+        if wanted not in columns and len(parts) > 1 and parts[0] in structure:
+            paths.append(parts)
+            columns.append(wanted)
     dupes = sorted({c for c in columns if columns.count(c) > 1})
     if dupes:
         raise InputError(f"nested keys flatten to the same column names {dupes}", file=str(path))

@@ -80,9 +80,9 @@ def read(path: Path, mapping: Mapping, engine: DuckDBEngine, name: str) -> RawSo
     # A mapped dotted path under a key whose values are not always objects (so the merged
     # structure does not list it) is still read; rows where it is absent give NULL.
     for wanted in mapping.mapped_columns():
-        parts = tuple(wanted.split("."))
-        if wanted not in columns and len(parts) > 1 and parts[0] in structure:
-            paths.append(parts)
+        steps = tuple(wanted.split("."))
+        if wanted not in columns and len(steps) > 1 and steps[0] in structure:
+            paths.append(steps)
             columns.append(wanted)
     dupes = sorted({c for c in columns if columns.count(c) > 1})
     if dupes:

@@ -55,20 +55,24 @@ def model_columns(project: Project, name: str) -> list[Node]:
     raise LineageError(f"no model {name!r}{did_you_mean(name, names)}; models are {', '.join(sorted(names))}")
 
 
-def _upstream(project: Project, node: Node) -> tuple[set[Node], set[Node]]:
+def _reach(project: Project, node: Node, up: bool) -> tuple[set[Node], set[Node]]:
+    """Columns in the value lineage (value edges only) and in the influence lineage (through at
+    least one influence edge) of ``node``: upstream when ``up``, downstream otherwise."""
     v = project.view()
-    value = nx.ancestors(v.value, node)
-    every = nx.ancestors(v.every, node) | {node}
-    heads = {u for n in every for u in v.influence_in.get(n, ())}
-    return value, _closure(v.every, heads, up=True)
+    step = nx.ancestors if up else nx.descendants
+    crossing = v.influence_in if up else v.influence_out
+    value = step(v.value, node)
+    every = step(v.every, node) | {node}
+    ends = {e for n in every for e in crossing.get(n, ())}
+    return value, _closure(v.every, ends, up=up)
+
+
+def _upstream(project: Project, node: Node) -> tuple[set[Node], set[Node]]:
+    return _reach(project, node, up=True)
 
 
 def _downstream(project: Project, node: Node) -> tuple[set[Node], set[Node]]:
-    v = project.view()
-    value = nx.descendants(v.value, node)
-    every = nx.descendants(v.every, node) | {node}
-    tails = {t for n in every for t in v.influence_out.get(n, ())}
-    return value, _closure(v.every, tails, up=False)
+    return _reach(project, node, up=False)
 
 
 def _path(project: Project, a: Node, b: Node, value_only: bool) -> list[dict[str, Any]]:
@@ -206,48 +210,40 @@ def impact(
     if edit is None:
         return result
     g = project.graph
-    # which canonical fields does the edit touch (a raw column edit reaches its fields)
-    fields = (
-        [node]
-        if node[0] == "source"
-        else [s for s in g.successors(node) if s[0] == "source"]
-        if node[0] == "raw"
-        else []
-    )
-    if node[0] == "raw" or node[0] == "source":
-        raws = [node] if node[0] == "raw" else [r for r in g.predecessors(node) if r[0] == "raw"]
-        if edit.kind in ("drop", "rename"):
-            for r in raws:
-                for f in g.successors(r):
-                    if f[0] == "source":
-                        lm = project.sources[f[1]]
-                        result["broken_mappings"].append(
-                            {
-                                "mapping": lm.path.name,
-                                "table": f[1],
-                                "field": f[2],
-                                "raw_column": r[2],
-                                "reason": "the raw column is dropped"
-                                if edit.kind == "drop"
-                                else f"the raw column is renamed to {edit.value}",
-                                "fix": f"set fields.{f[2]}.from: {edit.value}"
-                                if edit.kind == "rename"
-                                else f"remove field {f[2]} (and what reads it)",
-                            }
-                        )
-    if node[0] == "model":
-        fields = []
+    # the dump columns and canonical fields the edit touches (a raw column edit reaches its fields)
+    if node[0] == "raw":
+        raws, fields = [node], [s for s in g.successors(node) if s[0] == "source"]
+    elif node[0] == "source":
+        raws, fields = [r for r in g.predecessors(node) if r[0] == "raw"], [node]
+    else:
+        raws, fields = [], []
+    if edit.kind in ("drop", "rename"):
+        for r in raws:
+            for f in g.successors(r):
+                if f[0] == "source":
+                    lm = project.sources[f[1]]
+                    result["broken_mappings"].append(
+                        {
+                            "mapping": lm.path.name,
+                            "table": f[1],
+                            "field": f[2],
+                            "raw_column": r[2],
+                            "reason": "the raw column is dropped"
+                            if edit.kind == "drop"
+                            else f"the raw column is renamed to {edit.value}",
+                            "fix": f"set fields.{f[2]}.from: {edit.value}"
+                            if edit.kind == "rename"
+                            else f"remove field {f[2]} (and what reads it)",
+                        }
+                    )
     # A source column renamed at the source keeps its canonical field (the mapping's `from`
     # follows it), so only the mapping breaks; dropped, the field loses its data and every
     # reference to it breaks. A model column's drop or rename breaks its readers.
     simulate = (node[0] == "model" and edit.kind in ("drop", "rename")) or (fields and edit.kind == "drop")
     if simulate:
-        edits: dict[Node, Any] = {}
-        for f in fields:
-            edits[f] = (edit.kind, edit.value)
+        targets = [node] if node[0] == "model" else fields
+        edits: dict[Node, Any] = {t: (edit.kind, edit.value) for t in targets}
         before = {(d.model, d.reason, d.reference) for d in project.diagnostics}
-        if node[0] == "model":
-            edits[node] = (edit.kind, edit.value)
         simulated = build_project(
             None, mappings, project.dialect, loaded=loaded, edits=edits, tables=project.tables
         )

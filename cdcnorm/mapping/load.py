@@ -84,8 +84,8 @@ def _submodel(loc: tuple[Any, ...]) -> type[BaseModel] | None:
 
 
 def _clean_loc(loc: tuple[Any, ...]) -> tuple[Any, ...]:
-    # pydantic inserts union member names ("FieldSpec", "str") into locations
-    return tuple(p for p in loc if not (isinstance(p, str) and p[:1].isupper() and p in ("FieldSpec",)))
+    # pydantic puts the model's name into locations inside the fields mapping
+    return tuple(p for p in loc if p != "FieldSpec")
 
 
 def load_mapping(path: Path) -> LoadedMapping:

@@ -52,6 +52,8 @@ def pair_images(plan: Plan) -> Plan:
         "links",
         f"SELECT af AS f, ar AS r, same_key, {priors} FROM {p} UNION ALL SELECT bf, br, same_key, {nulls} FROM {p}",
     )
+    # `paired` is what --stop-after pair shows: every kept row with its role. The envelope
+    # stage reads `pairs` and `kept` directly, and the ledger counts from their aggregates.
     role = (
         "CASE WHEN k.__act = 'before' AND l.f IS NULL THEN 'unpaired_before' "
         "WHEN k.__act = 'before' AND l.same_key THEN 'merged' ELSE 'emitted' END"

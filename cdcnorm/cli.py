@@ -149,20 +149,10 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
         write=not check,
     )
     if getattr(args, "show_plan", False):
-        from cdcnorm.engines.duckdb import DuckDBEngine
-        from cdcnorm.pipeline import compile_table, expand_inputs, read_all, route
+        from cdcnorm.pipeline import show_plans
 
-        engine = DuckDBEngine()
-        routed = route(expand_inputs(args.inputs), mappings)
-        read = read_all(mappings, routed, engine, options, lambda *a: None)
-        first = 0
-        for m in mappings:
-            if not routed[m.table] or (args.table and m.table != args.table):
-                first += len(routed[m.table])
-                continue
-            plan = compile_table(m, read[m.table], first)
-            first += len(routed[m.table])
-            out.print(plan.show(), markup=False)
+        for text in show_plans(mappings, args.inputs, options, args.table):
+            out.print(text, markup=False)
         return EXIT_OK
     bar, update = _progress(args.quiet or args.json)
     stop = getattr(args, "stop_after", None)

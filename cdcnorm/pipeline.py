@@ -12,6 +12,7 @@ from __future__ import annotations
 import fnmatch
 import json
 import os
+import tempfile
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -25,8 +26,8 @@ from cdcnorm import quarantine
 from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.errors import DriftError, InputError, LedgerError, RejectLimitError, UsageError, closest
 from cdcnorm.mapping.load import LoadedMapping
-from cdcnorm.plan import Plan, Source
-from cdcnorm.readers import RawSource, reader_for
+from cdcnorm.plan import Plan, RawRelation, Source
+from cdcnorm.readers import RawFile, RawTable, reader_for, streams
 from cdcnorm.sql import PLAN_DIALECT, ident
 from cdcnorm.stages.dedupe import dedupe_rows
 from cdcnorm.stages.envelope import build_envelopes
@@ -65,12 +66,14 @@ class Options:
     threads: int | None = None
     input_format: str | None = None
     write: bool = True
+    recursive: bool = False
+    scratch: Path | None = None  # where readers may put temporary files (default: the system's)
 
 
 @dataclass
 class TableRun:
     mapping: LoadedMapping
-    sources: list[RawSource]
+    raw: RawTable
     plan: Plan
     unmapped: dict[str, list[str]] = field(default_factory=dict)
 
@@ -105,11 +108,31 @@ class Result:
         """The rows of the last step of ``stage`` for ``table`` (after a run)."""
         run = self.tables[table]
         if stage == "read":
-            tables = [s.table for s in run.sources]
-            out = pa.concat_tables(tables, promote_options="permissive") if tables else pa.table({})
-            return out.slice(0, limit) if limit else out
+            return self._read_rows(run, limit)
         step = [s for s in run.plan.steps if s.stage == stage][-1]
         sql = f"SELECT * FROM {ident(step.relation)}" + (f" LIMIT {limit}" if limit else "")
+        return self.engine.arrow(sql)
+
+    def _read_rows(self, run: TableRun, limit: int | None) -> pa.Table:
+        """The raw rows as read, under their raw column names, with file names."""
+        names = {r.name: r for r in run.plan.relations}
+        cols = [(c, run.plan.internal[c]) for c in run.raw.columns]
+        parts = []
+        for rel in names.values():
+            picked = ", ".join(
+                ident(i) if i in rel.columns else f"CAST(NULL AS VARCHAR) AS {ident(i)}" for _, i in cols
+            )
+            parts.append(
+                f"SELECT __file, __row, __enc{', ' + picked if picked else ''} FROM {ident(rel.name)}"
+            )
+        if not parts:
+            return pa.table({})
+        shown = ", ".join(f"{ident(i)} AS {ident(c)}" for c, i in cols)
+        sql = (
+            f"SELECT f.name AS file, u.__row AS record{', ' + shown if shown else ''}, u.__enc AS not_utf8 "
+            f"FROM ({' UNION ALL '.join(parts)}) u JOIN __files f ON f.id = u.__file ORDER BY f.name, u.__row"
+            + (f" LIMIT {limit}" if limit else "")
+        )
         return self.engine.arrow(sql)
 
     def events(self, table: str, *, render: bool = False) -> pa.Table:
@@ -135,13 +158,19 @@ def _drift_hint(d: Drift, columns: list[str]) -> str:
     return f"rename the column in the dump or set {key}"
 
 
+def _matches(path: Path, pattern: str) -> bool:
+    """A mapping's file pattern matches the name, or the name without a compression suffix."""
+    return fnmatch.fnmatchcase(path.name, pattern) or fnmatch.fnmatchcase(streams.base_name(path), pattern)
+
+
 def route(files: Iterable[Path], mappings: Sequence[LoadedMapping]) -> dict[str, list[Path]]:
     """Which mapping reads each file: by the mapping's file globs, or a file named ``<table>.jsonl``."""
     by_table: dict[str, list[Path]] = {m.table: [] for m in mappings}
     for path in files:
-        matches = [m for m in mappings if any(fnmatch.fnmatchcase(path.name, g) for g in m.mapping.files)]
+        matches = [m for m in mappings if any(_matches(path, g) for g in m.mapping.files)]
         if not matches:
-            stem = path.name.split(".jsonl")[0] if ".jsonl" in path.name else None
+            base = streams.base_name(path)
+            stem = base.split(".jsonl")[0] if ".jsonl" in base else None
             matches = [m for m in mappings if stem == m.table]
         if not matches:
             globs = [g for m in mappings for g in m.mapping.files]
@@ -165,12 +194,29 @@ def route(files: Iterable[Path], mappings: Sequence[LoadedMapping]) -> dict[str,
     return by_table
 
 
-def expand_inputs(inputs: Iterable[str | Path]) -> list[Path]:
-    """Files as given; a folder stands for the dump files directly inside it."""
+def expand_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> list[Path]:
+    """Files as given; a folder stands for the dump files directly inside it (and, with
+    ``recursive``, in its sub-folders). A folder's sub-folders are never skipped silently:
+    without ``recursive`` they are an error that says so. Hidden files and folders are left out."""
     out: list[Path] = []
     for raw in inputs:
         p = Path(raw)
         if p.is_dir():
+            if recursive:
+                found = sorted(
+                    c
+                    for c in p.rglob("*")
+                    if c.is_file() and not any(part.startswith(".") for part in c.relative_to(p).parts)
+                )
+                out.extend(found)
+                continue
+            subs = sorted(c.name for c in p.iterdir() if c.is_dir() and not c.name.startswith("."))
+            if subs:
+                raise InputError(
+                    f"this folder has sub-folders ({', '.join(subs[:5])}{', ...' if len(subs) > 5 else ''})",
+                    file=str(p),
+                    hint="add --recursive to read their files too, or name the files to read",
+                )
             out.extend(sorted(c for c in p.iterdir() if c.is_file() and not c.name.startswith(".")))
         elif p.exists():
             out.append(p)
@@ -197,31 +243,44 @@ def read_all(
     engine: DuckDBEngine,
     options: Options,
     progress: Progress,
-) -> dict[str, list[RawSource]]:
+    scratch: Path,
+) -> dict[str, RawTable]:
+    """Load every routed file into the engine, a table at a time; file ids follow display names."""
     all_files = [p for ps in routed.values() for p in ps]
     names = _display_names(all_files)
     by_name = {m.table: m for m in mappings}
-    out: dict[str, list[RawSource]] = {}
+    out: dict[str, RawTable] = {}
+    next_id = 0
     done = 0
     for table, paths in routed.items():
-        sources = []
+        if not paths:
+            continue
+        raw = RawTable(by_name[table].mapping.slug)
         for path in sorted(paths, key=lambda p: names[p]):
-            progress(f"read {names[path]}", done, len(all_files))
-            reader = reader_for(path, options.input_format)
-            sources.append(reader.read(path, by_name[table].mapping, engine, names[path]))
-            done += 1
-        out[table] = sources
+            raw.files.append(RawFile(next_id, path, names[path]))
+            next_id += 1
+        by_format: dict[str, list[RawFile]] = {}
+        modules = {}
+        for f in raw.files:
+            module = reader_for(f.path, options.input_format)
+            modules[module.FORMAT] = module
+            by_format.setdefault(module.FORMAT, []).append(f)
+        for fmt, files in by_format.items():
+            progress(f"read {table} ({len(files)} {fmt} files)", done, len(all_files))
+            modules[fmt].read_files(files, by_name[table].mapping, engine, raw, scratch / raw.slug)
+            done += len(files)
+        out[table] = raw
     progress("read", done, len(all_files))
     return out
 
 
-def find_drift(mapping: LoadedMapping, sources: list[RawSource]) -> tuple[list[Drift], dict[str, list[str]]]:
+def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict[str, list[str]]]:
     m = mapping.mapping
     drift = []
     unmapped = {}
     wanted = m.mapped_columns()
     roles = {v: k for k, v in m.change_columns().items()}
-    for src in sources:
+    for src in raw.files:
         if src.empty:
             continue
         for col in wanted:
@@ -235,14 +294,16 @@ def find_drift(mapping: LoadedMapping, sources: list[RawSource]) -> tuple[list[D
     return drift, unmapped
 
 
-def compile_table(mapping: LoadedMapping, sources: list[RawSource], first_id: int) -> Plan:
+def compile_table(mapping: LoadedMapping, raw: RawTable) -> Plan:
     """Build the table's plan: every stage adds its steps, in order."""
+    for c in mapping.mapping.mapped_columns():
+        raw.internal(c)  # a mapped column no file has still has a name (its values are NULL)
     plan = Plan(
         mapping=mapping,
-        sources=tuple(
-            Source(first_id + i, s.name, f"{mapping.mapping.slug}__src{i}", tuple(s.columns))
-            for i, s in enumerate(sources)
-        ),
+        sources=tuple(Source(f.file_id, f.name, tuple(f.columns)) for f in raw.files),
+        relations=tuple(RawRelation(name, tuple(cols)) for name, cols in raw.relations),
+        internal={c: raw.internal(c) for c in raw.columns},
+        malformed=raw.malformed_relation if any(f.malformed for f in raw.files) else None,
     )
     for _, stage in STAGES:
         plan = stage(plan)
@@ -264,44 +325,57 @@ def run(
         raise UsageError(f"unknown stage {stop_after!r}; stages are {', '.join(STAGE_NAMES)}")
     if options.fmt not in WRITERS:
         raise UsageError(f"unknown output format {options.fmt!r}; formats are {', '.join(WRITERS)}")
-    files = expand_inputs(inputs)
+    files = expand_inputs(inputs, recursive=options.recursive)
     if not files:
         raise UsageError("no input files given")
     routed = route(files, mappings)
-    engine = DuckDBEngine(memory_limit=options.memory_limit, threads=options.threads)
-    read = read_all(mappings, routed, engine, options, progress)
+    scratch = Path(tempfile.mkdtemp(prefix="cdcnorm-", dir=options.scratch))
+    try:
+        return _run(mappings, routed, options, scratch, stop_after, progress, strict_drift)
+    finally:
+        streams.remove(scratch)
+
+
+def _run(
+    mappings: Sequence[LoadedMapping],
+    routed: dict[str, list[Path]],
+    options: Options,
+    scratch: Path,
+    stop_after: str | None,
+    progress: Progress,
+    strict_drift: bool,
+) -> Result:
+    engine = DuckDBEngine(
+        memory_limit=options.memory_limit, threads=options.threads, temp_directory=str(scratch / "spill")
+    )
+    read = read_all(mappings, routed, engine, options, progress, scratch)
     runs: dict[str, TableRun] = {}
     drifts: list[Drift] = []
     file_names: list[tuple[int, str]] = []
-    next_id = 0
     by_name = {m.table: m for m in mappings}
-    for table, sources in read.items():
-        if not routed[table]:
-            continue
-        drift, unmapped = find_drift(by_name[table], sources)
+    for table, raw in read.items():
+        drift, unmapped = find_drift(by_name[table], raw)
         drifts.extend(drift)
-        plan = compile_table(by_name[table], sources, next_id)
-        for src, raw in zip(plan.sources, sources, strict=True):
-            engine.register(src.relation, raw.table)
-            file_names.append((src.file_id, src.name))
-        next_id += len(sources)
-        runs[table] = TableRun(by_name[table], sources, plan, unmapped)
+        plan = compile_table(by_name[table], raw)
+        file_names.extend((f.file_id, f.name) for f in raw.files)
+        runs[table] = TableRun(by_name[table], raw, plan, unmapped)
     if drifts and strict_drift:
         d = drifts[0]
+        columns = next(f.columns for f in runs[d.table].raw.files if f.name == d.file)
         raise DriftError(
             f"schema drift: the mapping's field {d.field} reads raw column {d.column!r}, which this dump does not have"
             + (f" ({len(drifts) - 1} more drift errors: run cdcnorm check)" if len(drifts) > 1 else ""),
             file=d.file,
             field=d.field,
             expected=f"a column named {d.column!r}",
-            found="columns " + ", ".join(next(s.columns for s in runs[d.table].sources if s.name == d.file)),
-            hint=_drift_hint(d, next(s.columns for s in runs[d.table].sources if s.name == d.file)),
+            found="columns " + ", ".join(columns),
+            hint=_drift_hint(d, columns),
         )
     engine.register(
         "__files",
         pa.table(
             {
-                "id": pa.array([i for i, _ in file_names], pa.int64()),
+                "id": pa.array([i for i, _ in file_names], pa.int32()),
                 "name": pa.array([n for _, n in file_names], pa.string()),
             }
         ),
@@ -351,21 +425,12 @@ def _rejected_relation(trun: TableRun) -> str:
 
 def _account(trun: TableRun, engine: DuckDBEngine) -> ledger_mod.TableLedger:
     plan = trun.plan
-    malformed = {}
-    for src, raw in zip(plan.sources, trun.sources, strict=True):
-        if raw.malformed.num_rows:
-            rel = f"{src.relation}__malformed"
-            engine.register(rel, raw.malformed)
-            malformed[src.file_id] = rel
     rejected = _rejected_relation(trun)
-    engine.materialize(
-        rejected, sqlglot.parse_one(quarantine.rejected_rows(plan, malformed), read=PLAN_DIALECT)
-    )
+    engine.materialize(rejected, sqlglot.parse_one(quarantine.rejected_rows(plan), read=PLAN_DIALECT))
     tl = ledger_mod.TableLedger(trun.mapping.table)
     ids = {s.file_id: s.name for s in plan.sources}
-    for src, raw in zip(plan.sources, trun.sources, strict=True):
-        fc = ledger_mod.FileCounts(read=raw.rows_read, quarantined=raw.malformed.num_rows)
-        tl.files[src.name] = fc
+    for f in trun.raw.files:
+        tl.files[f.name] = ledger_mod.FileCounts(read=f.rows_read, quarantined=f.malformed)
     ledger_mod.count_fates(plan, engine.rows, tl, ids)
     for reason, n in engine.rows(ledger_mod.reason_counts(ident(rejected))):
         tl.reasons[str(reason)] = int(n)
@@ -382,10 +447,7 @@ def _write(result: Result, options: Options) -> None:
         lines_sql = quarantine.quarantine_lines(trun.plan, _rejected_relation(trun))
         lines = engine.arrow(sqlglot.parse_one(lines_sql, read=PLAN_DIALECT))["line"]
         # the raw rows are needed no more: free them before the events are sorted
-        for src in trun.plan.sources:
-            engine.unregister(src.relation)
-        for raw in trun.sources:
-            raw.table = raw.table.slice(0, 0)
+        free_raw(trun, engine)
         ordered = f"{trun.mapping.mapping.slug}__ordered_events"
         engine.materialize(ordered, sqlglot.parse_one(sorted_events(trun.plan, "__files"), read=PLAN_DIALECT))
         written = writer.write(
@@ -412,17 +474,42 @@ def _write(result: Result, options: Options) -> None:
     os.replace(tmp, ledger_path)
 
 
+def show_plans(
+    mappings: Sequence[LoadedMapping], inputs: Iterable[str | Path], options: Options, table: str | None
+) -> list[str]:
+    """Each table's plan as SQL (the files are read, so the plan names their relations)."""
+    routed = route(expand_inputs(inputs, recursive=options.recursive), mappings)
+    scratch = Path(tempfile.mkdtemp(prefix="cdcnorm-", dir=options.scratch))
+    try:
+        engine = DuckDBEngine(temp_directory=str(scratch / "spill"))
+        read = read_all(mappings, routed, engine, options, _no_progress, scratch)
+        by_name = {m.table: m for m in mappings}
+        return [compile_table(by_name[t], raw).show() for t, raw in read.items() if not table or t == table]
+    finally:
+        streams.remove(scratch)
+
+
+def free_raw(trun: TableRun, engine: DuckDBEngine) -> None:
+    """Drop the table's raw relations (and the tables under them)."""
+    for rel in trun.plan.relations:
+        if rel.name.endswith("_rows"):  # a view over the engine reader's table
+            engine.con.execute(f"DROP VIEW IF EXISTS {ident(rel.name)}")
+            engine.drop(rel.name.removesuffix("_rows"))
+        else:
+            engine.drop(rel.name)
+
+
 def describe_sources(result: Result) -> list[dict[str, Any]]:
     rows = []
     for table, trun in result.tables.items():
-        for src in trun.sources:
+        for src in trun.raw.files:
             rows.append(
                 {
                     "table": table,
                     "file": src.name,
                     "format": src.format,
                     "rows": src.rows_read,
-                    "malformed": src.malformed.num_rows,
+                    "malformed": src.malformed,
                     "unmapped_columns": trun.unmapped.get(src.name, []),
                     "notes": src.notes,
                 }

@@ -18,11 +18,18 @@ from cdcnorm.sql import PLAN_DIALECT, ident
 
 @dataclass(frozen=True)
 class Source:
-    """A dump file registered with the engine for this table."""
+    """A dump file of this table: its id, display name and raw column names."""
 
     file_id: int
     name: str
-    relation: str
+    columns: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class RawRelation:
+    """An engine relation holding raw rows (``__file``, ``__row``, ``__enc`` and internal columns)."""
+
+    name: str
     columns: tuple[str, ...]
 
 
@@ -39,7 +46,15 @@ class Step:
 class Plan:
     mapping: LoadedMapping
     sources: tuple[Source, ...]
+    #: where the raw rows are, and the internal column name of every raw column name
+    relations: tuple[RawRelation, ...] = ()
+    internal: dict[str, str] = field(default_factory=dict)
+    malformed: str | None = None
     steps: tuple[Step, ...] = field(default_factory=tuple)
+
+    def raw(self, column: str) -> str:
+        """The quoted internal name of a raw column (what the plan's SQL says for it)."""
+        return ident(self.internal[column])
 
     @property
     def fields(self) -> list[str]:

@@ -28,11 +28,9 @@ def _reason(expected: str, found: str, reason: str) -> str:
     )
 
 
-def rejected_rows(plan: Plan, malformed: dict[int, str]) -> str:
-    """SQL: (__file, __row, reasons, text) of every quarantined row of the table.
-
-    ``malformed`` maps file ids to the relations of records the reader could not split.
-    """
+def rejected_rows(plan: Plan) -> str:
+    """SQL: (__file, __row, reasons, text) of every quarantined row of the table, including the
+    records the reader could not split (``plan.malformed``)."""
     paired_mode = plan.mapping.mapping.change.updates == "paired"
     unpaired = (
         "'before-image without an after-image at its position'"
@@ -53,33 +51,62 @@ def rejected_rows(plan: Plan, malformed: dict[int, str]) -> str:
         f"FROM {plan.rel('kept')} k WHERE __act = 'before' AND NOT EXISTS "
         f"(SELECT 1 FROM {plan.rel('pairs')} p WHERE p.bf = k.__file AND p.br = k.__row)",
     ]
-    for file_id, rel in sorted(malformed.items()):
+    if plan.malformed:
         parts.append(
-            f"SELECT {file_id} AS __file, __row, {_reason(lit('a well-formed record'), 'text', 'reason')} AS reasons, "
-            f"text FROM {ident(rel)}"
+            f"SELECT __file, __row, {_reason(lit('a well-formed record'), 'text', 'reason')} AS reasons, "
+            f"text FROM {ident(plan.malformed)}"
         )
     return " UNION ALL ".join(parts)
 
 
-def quarantine_lines(plan: Plan, rejected_relation: str) -> str:
-    """SQL: one JSON line per rejected row, sorted by file name and row."""
-    parts = []
+def quarantine_lines(plan: Plan, rejected_relation: str, files_relation: str = "__files") -> str:
+    """SQL: one JSON line per rejected row, sorted by file name and row. The raw values come
+    from the raw relations (only rejected rows are looked up), under each file's own names."""
+    used = {c for r in plan.relations for c in r.columns} | {
+        plan.internal[c] for s in plan.sources for c in s.columns
+    }
+    internal = sorted(used, key=lambda c: int(c[1:]))
+    rejected = ident(rejected_relation)
+    unions = []
+    for rel in plan.relations:
+        picked = "".join(
+            f", x.{ident(c)}" if c in rel.columns else f", CAST(NULL AS VARCHAR) AS {ident(c)}"
+            for c in internal
+        )
+        unions.append(
+            f"SELECT x.__file, x.__row, x.__enc{picked} "
+            f"FROM {ident(rel.name)} x SEMI JOIN {rejected} q ON x.__file = q.__file AND x.__row = q.__row"
+        )
+    if not unions:
+        nulls = "".join(f", CAST(NULL AS VARCHAR) AS {ident(c)}" for c in internal)
+        unions.append(
+            "SELECT CAST(NULL AS INTEGER) AS __file, CAST(NULL AS BIGINT) AS __row, "
+            f"CAST(NULL AS VARCHAR) AS __enc{nulls} WHERE FALSE"
+        )
+    by_columns: dict[tuple[str, ...], list[int]] = {}
     for src in plan.sources:
-        raw = "{" + ", ".join(f"{lit(c)}: s.{ident(c)}" for c in src.columns) + "}" if src.columns else None
+        by_columns.setdefault(src.columns, []).append(src.file_id)
+    parts = []
+    for columns, ids in by_columns.items():
+        raw = "{" + ", ".join(f"{lit(c)}: s.{plan.raw(c)}" for c in columns) + "}" if columns else None
         raw_json = f"to_json({raw})" if raw else "'{}'"
-        enc = "s.__enc"
         meta = (
-            f"to_json({{'table': {lit(plan.mapping.table)}, 'file': {lit(src.name)}, 'row': r.__row, "
-            f"'reasons': r.reasons, 'text': r.text, 'raw_base64': CAST({enc} AS JSON)}})"
+            f"to_json({{'table': {lit(plan.mapping.table)}, 'file': f.name, 'row': r.__row, "
+            f"'reasons': r.reasons, 'text': r.text, 'raw_base64': CAST(s.__enc AS JSON)}})"
         )
         line = (
             f"'{{\"{META_KEY}\":' || {meta} || CASE WHEN {raw_json} = '{{}}' OR s.__row IS NULL THEN '}}' "
             f"ELSE ',' || substr({raw_json}, 2) END"
         )
         parts.append(
-            f"SELECT {lit(src.name)} AS __name, r.__row, {line} AS line FROM {ident(rejected_relation)} r "
-            f"LEFT JOIN {ident(src.relation)} s ON s.__row = r.__row WHERE r.__file = {src.file_id}"
+            f"SELECT f.name AS __name, r.__row, {line} AS line FROM {rejected} r "
+            f"JOIN {files_relation} f ON f.id = r.__file "
+            f"LEFT JOIN raw_rows s ON s.__file = r.__file AND s.__row = r.__row "
+            f"WHERE r.__file IN ({', '.join(str(i) for i in ids)})"
         )
     if not parts:
         return "SELECT CAST(NULL AS VARCHAR) AS line WHERE FALSE"
-    return f"SELECT line FROM ({' UNION ALL '.join(parts)}) ORDER BY __name, __row"
+    return (
+        f"WITH raw_rows AS ({' UNION ALL '.join(unions)}) "
+        f"SELECT line FROM ({' UNION ALL '.join(parts)}) ORDER BY __name, __row"
+    )

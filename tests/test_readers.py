@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import pyarrow as pa
 import pyarrow.parquet as pq
+import pytest
 
 from tests.conftest import ConvertFn
 
@@ -48,14 +49,43 @@ def test_null_tokens_apply_unquoted_only(convert: ConvertFn) -> None:
 
 
 def test_unbalanced_quote_is_quarantined_with_its_text(convert: ConvertFn) -> None:
+    # The quote never closes: its record's first line is malformed and reading resumes at the next
+    # line, so the records after it are read, not swallowed into one field.
     data = 'op,pos,id,a,b\nI,1,1,x,y\nI,2,2,"open,y\nI,3,3,x,y\n'
     done = convert(MAPPING, {"n.csv": data})
-    assert [e["key"]["id"] for e in done.events("t.notes")] == [1]
+    assert [(e["key"]["id"], e["origin"]["row"]) for e in done.events("t.notes")] == [(1, 1), (3, 3)]
     (q,) = done.quarantine("t.notes")
     meta = q["_cdcnorm"]
-    assert meta["row"] == 2 and meta["text"] == 'I,2,2,"open,y\nI,3,3,x,y\n'  # runs to the end of the file
+    assert meta["row"] == 2 and meta["text"] == 'I,2,2,"open,y'
     assert meta["reasons"][0]["reason"].startswith("unterminated quote")
-    assert done.ledger()["total"]["read"] == 2 and done.ledger()["balanced"]
+    assert done.ledger()["total"]["read"] == 3 and done.ledger()["balanced"]
+
+
+@pytest.mark.parametrize(
+    ("data", "good", "bad"),
+    [
+        # an unterminated quote in the last field (it used to swallow the rest of the file)
+        ('op,pos,id,a,b\nI,1,1,x,ok\nI,2,2,x,"b\nI,3,3,x,a\nI,4,4,x,c\n', [1, 3, 4], {2: 'I,2,2,x,"b'}),
+        # read as one field, the stray quote would pair with the next quote and be followed by
+        # text (`"multi`): broken; resuming at the next line reads the two-line record that follows
+        (
+            'op,pos,id,a,b\nI,1,1,x,ok\nI,2,2,x,"b\nI,3,3,x,a\nI,5,5,x,"multi\nline"\nI,6,6,x,z\n',
+            [1, 3, 5, 6],
+            {2: 'I,2,2,x,"b'},
+        ),
+        # CR-only line ends, and CRLF inside a quoted field with LF record ends
+        ('op,pos,id,a,b\rI,1,1,x,y\rI,2,2,"two\r\nlines",y\r', [1, 2], {}),
+        ('op,pos,id,a,b\nI,1,1,x,y\r\nI,2,2,"two\r\nlines",y\n\nI,3,3,x,y', [1, 2, 3], {}),
+    ],
+)
+def test_broken_quotes_and_line_ends_resume_at_the_next_line(
+    convert: ConvertFn, data: str, good: list[int], bad: dict[int, str]
+) -> None:
+    done = convert(MAPPING, {"n.csv": data})
+    assert [e["key"]["id"] for e in done.events("t.notes")] == good
+    assert {q["_cdcnorm"]["row"]: q["_cdcnorm"]["text"] for q in done.quarantine("t.notes")} == bad
+    ledger = done.ledger()
+    assert ledger["balanced"] and ledger["total"]["read"] == len(good) + len(bad)
 
 
 def test_wrong_field_count_keeps_record_numbers(convert: ConvertFn) -> None:

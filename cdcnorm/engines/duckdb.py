@@ -99,39 +99,3 @@ class DuckDBEngine:
         finally:
             if tmp.exists():
                 tmp.unlink()
-
-    # --- reading helpers used by readers --------------------------------------------------
-
-    def parquet_as_text(self, path: Path) -> tuple[list[str], pa.Table]:
-        """Every column of a Parquet file as text (BLOB as hex), with its 1-based row number."""
-        src = f"read_parquet({lit(str(path))}, file_row_number = true)"
-        described = self.con.execute(f"DESCRIBE SELECT * FROM {src}").fetchall()
-        cols = [(r[0], r[1]) for r in described if r[0] != "file_row_number"]
-        parts = []
-        for name, typ in cols:
-            col = ident(name)
-            expr = f"hex({col})" if typ == "BLOB" else f"CAST({col} AS VARCHAR)"
-            parts.append(f"{expr} AS {col}")
-        parts.append("CAST(file_row_number + 1 AS BIGINT) AS __row")
-        table = self.arrow(f"SELECT {', '.join(parts)} FROM {src} ORDER BY file_row_number")
-        return [c for c, _ in cols], table
-
-    def decode_utf8(self, table: pa.Table, columns: list[str]) -> pa.Table:
-        """Binary columns -> text; invalid UTF-8 cells become NULL and are listed, base64, in __enc."""
-        self.register("__decode_in", table)
-        parts = []
-        bad = []
-        for name in columns:
-            col = ident(name)
-            parts.append(f"try(decode({col})) AS {col}")
-            key = lit(name.replace("\\", "\\\\").replace('"', '\\"'))
-            bad.append(
-                f"CASE WHEN {col} IS NOT NULL AND try(decode({col})) IS NULL "
-                f"THEN '\"' || {key} || '\":\"' || to_base64({col}) || '\"' END"
-            )
-        enc = f"CASE WHEN concat_ws(',', {', '.join(bad)}) = '' THEN NULL ELSE '{{' || concat_ws(',', {', '.join(bad)}) || '}}' END"
-        rest = [c for c in table.column_names if c not in columns and c != "__enc"]
-        parts.extend(ident(c) for c in rest)
-        out = self.arrow(f"SELECT {', '.join(parts)}, {enc} AS __enc FROM __decode_in")
-        self.con.unregister("__decode_in")
-        return out

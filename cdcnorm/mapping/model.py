@@ -65,11 +65,23 @@ class PositionSpec(Strict):
         return check_zone(v)
 
 
+SequenceKind = Literal["integer", "hex", "hex-pair", "text"]
+
+
 class SequenceSpec(Strict):
-    """Optional tie-breaker inside one position (a non-negative integer)."""
+    """Optional tie-breaker inside one position: the order of changes within one transaction."""
 
     column: str
-    kind: Literal["integer"] = "integer"
+    kind: SequenceKind = Field(
+        default="integer",
+        description="integer | hex (byte string, any case, optional 0x; at most `width` digits) | hex-pair | text",
+    )
+    width: int | None = Field(
+        default=None,
+        ge=1,
+        le=128,
+        description="hex only: digits the sequence is padded to (default: the position's width, or 32).",
+    )
 
 
 class CommittedAtSpec(Strict):
@@ -134,6 +146,20 @@ class CsvOptions(Strict):
     columns: list[str] | None = Field(
         default=None, description="Column names when the file has no header row."
     )
+    encoding: str = Field(
+        default="utf-8",
+        description="Text encoding of the dumps (any Python codec name: utf-8, latin-1, cp1252, ...).",
+    )
+
+    @field_validator("encoding")
+    @classmethod
+    def _known_encoding(cls, v: str) -> str:
+        import codecs
+
+        try:
+            return codecs.lookup(v).name
+        except LookupError:
+            raise ValueError(f'unknown text encoding "{v}"; write e.g. utf-8, latin-1 or cp1252') from None
 
 
 class Mapping(Strict):

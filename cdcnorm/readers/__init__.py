@@ -1,4 +1,10 @@
-"""Dump readers, one file per format, looked up by name or by file suffix."""
+"""Dump readers, one file per format, looked up by name or by file suffix.
+
+Each reader module has ``FORMAT``, ``SUFFIXES`` and ``read_files(files, mapping, engine,
+raw, scratch)``, which loads a table's files of that format into the engine (see base.py).
+A compression suffix (``.gz``, ``.zst``, ``.bz2``) after the format's suffix is read
+transparently.
+"""
 
 from __future__ import annotations
 
@@ -6,8 +12,8 @@ from pathlib import Path
 from types import ModuleType
 
 from cdcnorm.errors import InputError
-from cdcnorm.readers import csv, jsonl, parquet
-from cdcnorm.readers.base import RawSource
+from cdcnorm.readers import csv, jsonl, parquet, streams
+from cdcnorm.readers.base import RawFile, RawTable
 
 READERS: dict[str, ModuleType] = {m.FORMAT: m for m in (csv, jsonl, parquet)}
 
@@ -19,7 +25,7 @@ def reader_for(path: Path, fmt: str | None = None) -> ModuleType:
                 f"unknown input format {fmt!r}; formats are {', '.join(READERS)}", file=str(path)
             )
         return READERS[fmt]
-    name = path.name.lower()
+    name = streams.base_name(path).lower()
     for module in READERS.values():
         if name.endswith(module.SUFFIXES):
             return module
@@ -27,8 +33,8 @@ def reader_for(path: Path, fmt: str | None = None) -> ModuleType:
     raise InputError(
         "cannot tell this file's format from its name",
         file=str(path),
-        expected=f"a name ending in {suffixes}",
+        expected=f"a name ending in {suffixes}, optionally followed by {', '.join(streams.COMPRESSIONS)}",
     )
 
 
-__all__ = ["READERS", "RawSource", "reader_for"]
+__all__ = ["READERS", "RawFile", "RawTable", "reader_for"]

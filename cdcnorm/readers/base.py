@@ -1,50 +1,90 @@
-"""What a reader returns: the raw rows of one dump file, all values as text."""
+"""What readers produce: a table's raw rows in the engine, every value as text.
+
+A reader never holds a dump in Python. It loads the rows into engine tables
+(which the engine spills to disk beyond its memory limit) and describes each
+file in a :class:`RawFile`. All files of one table share one :class:`RawTable`:
+
+- every raw column name any of its files has gets a positional internal name,
+  ``c0``, ``c1``, ... (``RawTable.internal``), so no name in a dump (``__row``,
+  ``__$start_lsn``, ``v0``, ``a "b".c``) can collide with the plan's own columns;
+- ``relations`` are engine relations with the columns ``__file`` (file id),
+  ``__row`` (the record's 1-based number in its file: the data record for CSV,
+  the line for JSON Lines, the row for Parquet), ``__enc`` (NULL, or a JSON
+  object of the cells that were not valid text, base64) and the internal
+  columns; a relation may lack some internal columns (NULL);
+- ``malformed`` rows are records that could not be split into columns at all,
+  with their raw text and the reason.
+"""
 
 from __future__ import annotations
 
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import numpy as np
-import pyarrow as pa
+from cdcnorm.engines.duckdb import DuckDBEngine
+from cdcnorm.sql import ident
 
-MALFORMED_SCHEMA = pa.schema([("__row", pa.int64()), ("text", pa.string()), ("reason", pa.string())])
+MALFORMED_COLUMNS = "__file INTEGER, __row BIGINT, text VARCHAR, reason VARCHAR"
 
-
-def empty_malformed() -> pa.Table:
-    return MALFORMED_SCHEMA.empty_table()
+#: The longest record (or field) the readers take, in bytes. A longer CSV record is quarantined
+#: as malformed (its first line, with the reason) and reading resumes at the next line.
+MAX_RECORD_BYTES = 32 << 20
 
 
 @dataclass
-class RawSource:
-    """One dump file as read.
+class RawFile:
+    """One dump file as read."""
 
-    ``table`` holds one text column per raw column, ``__row`` (the record's
-    1-based number in the file: the data record for CSV, the line for JSON
-    Lines, the row for Parquet) and ``__enc`` (NULL, or a JSON object of the
-    cells that were not UTF-8, base64). ``malformed`` holds records that could
-    not be split into columns at all, with their raw text.
-    """
-
+    file_id: int
     path: Path
     name: str
-    format: str
-    columns: list[str]
-    table: pa.Table
-    malformed: pa.Table = field(default_factory=empty_malformed)
+    format: str = ""
+    columns: list[str] = field(default_factory=list)
+    rows: int = 0  # records split into columns
+    malformed: int = 0  # records that could not be
     empty: bool = False
     notes: list[str] = field(default_factory=list)
 
     @property
     def rows_read(self) -> int:
-        return int(self.table.num_rows) + int(self.malformed.num_rows)
+        return self.rows + self.malformed
 
 
-def with_rows(table: pa.Table, rows: pa.Array | None = None, enc: pa.Array | None = None) -> pa.Table:
-    n = table.num_rows
-    if rows is None:
-        rows = pa.array(np.arange(1, n + 1, dtype=np.int64))
-    table = table.append_column("__row", rows)
-    if "__enc" not in table.column_names:
-        table = table.append_column("__enc", enc if enc is not None else pa.nulls(n, pa.string()))
-    return table
+@dataclass
+class RawTable:
+    """Every file of one table, loaded into the engine."""
+
+    slug: str
+    files: list[RawFile] = field(default_factory=list)
+    columns: list[str] = field(default_factory=list)  # raw names; the i-th is stored as c{i}
+    relations: list[tuple[str, list[str]]] = field(default_factory=list)  # (relation, internal columns)
+    _internal: dict[str, str] = field(default_factory=dict)
+
+    def internal(self, raw: str) -> str:
+        """The internal column name of a raw column, given on first sight."""
+        if raw not in self._internal:
+            self._internal[raw] = f"c{len(self.columns)}"
+            self.columns.append(raw)
+        return self._internal[raw]
+
+    def has(self, raw: str) -> bool:
+        return raw in self._internal
+
+    def relation(self, kind: str) -> str:
+        return f"{self.slug}__{kind}{len(self.relations)}"
+
+    @property
+    def malformed_relation(self) -> str:
+        return f"{self.slug}__malformed"
+
+    def ensure_malformed(self, engine: DuckDBEngine) -> str:
+        rel = self.malformed_relation
+        engine.execute(f"CREATE TEMP TABLE IF NOT EXISTS {ident(rel)} ({MALFORMED_COLUMNS})")
+        return rel
+
+    def add_relation(self, relation: str, internal_columns: list[str]) -> None:
+        self.relations.append((relation, internal_columns))
+
+    @property
+    def rows_read(self) -> int:
+        return sum(f.rows_read for f in self.files)

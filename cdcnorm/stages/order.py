@@ -7,16 +7,17 @@ joined by '.'; plain byte-wise order of the string is the change order.
 
 from __future__ import annotations
 
+from cdcnorm import positions
 from cdcnorm.plan import Plan
 
-SEQUENCE_WIDTH = 20
 RANK = "CASE __act WHEN 'before' THEN 1 WHEN 'after' THEN 2 ELSE 0 END"
 
 
 def order_rows(plan: Plan) -> Plan:
     base = "__pos"
-    if plan.mapping.mapping.change.sequence:
-        base = f"__pos || '.' || lpad(CAST(__seq AS VARCHAR), {SEQUENCE_WIDTH}, '0')"
+    sequence = plan.mapping.mapping.change.sequence
+    if sequence:
+        base = f"__pos || '.' || {positions.sequence_text(sequence, '__seq')}"
     # Later stages group and join on the parts (__pos, __seq), which is cheaper than on the
     # joined string; the string is built only where it is output.
     sql = (

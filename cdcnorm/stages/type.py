@@ -6,10 +6,8 @@ from collections.abc import Callable
 
 from cdcnorm import positions
 from cdcnorm.plan import Plan
-from cdcnorm.sql import ident, lit
+from cdcnorm.sql import lit
 from cdcnorm.types.timestamp import timestamp_cast, timestamp_explain
-
-SEQUENCE = "'[0-9]{1,20}'"
 
 
 def _reason(field: str | None, column: str, expected: str, found: str, reason: str) -> str:
@@ -54,7 +52,7 @@ def type_rows(plan: Plan) -> Plan:
         "{'field': CAST(NULL AS VARCHAR), 'column': array_to_string(json_keys(s.__enc), ', '), "
         "'expected': 'UTF-8 text', 'found': s.__enc, 'reason': 'not UTF-8 (found shows the bytes, base64)'}",
     )
-    act_col = ident(ch.action.column)
+    act_col = plan.raw(ch.action.column)
     codes = " ".join(f"WHEN {lit(k)} THEN {lit(v)}" for k, v in sorted(ch.action.codes.items()))
     c.typed.append(("__act", f"CASE {act_col} {codes} END"))
     c.check(
@@ -67,7 +65,7 @@ def type_rows(plan: Plan) -> Plan:
             f"CASE WHEN s.{act_col} IS NULL THEN 'missing action code' ELSE 'unknown action code' END",
         ),
     )
-    pos_col = ident(ch.position.column)
+    pos_col = plan.raw(ch.position.column)
     c.typed.append(("__pos", positions.normalise(ch.position, pos_col)))
     c.check(
         lambda s, t: f"{t}__pos IS NULL",
@@ -80,16 +78,14 @@ def type_rows(plan: Plan) -> Plan:
         ),
     )
     if ch.sequence:
-        col = ident(ch.sequence.column)
-        c.typed.append(
-            ("__seq", f"CASE WHEN regexp_full_match({col}, {SEQUENCE}) THEN TRY_CAST({col} AS UBIGINT) END")
-        )
+        col = plan.raw(ch.sequence.column)
+        c.typed.append(("__seq", positions.sequence_value(ch.sequence, ch.position, col)))
         c.check(
             lambda s, t: f"{t}__seq IS NULL",
             _reason(
                 "sequence",
                 ch.sequence.column,
-                "a non-negative integer below 2**64",
+                positions.expected_kind(ch.sequence.kind, positions.sequence_width(ch.sequence, ch.position)),
                 f"s.{col}",
                 f"CASE WHEN s.{col} IS NULL THEN 'missing sequence' ELSE 'malformed sequence' END",
             ),
@@ -97,7 +93,7 @@ def type_rows(plan: Plan) -> Plan:
     else:
         c.typed.append(("__seq", "CAST(0 AS UBIGINT)"))  # no sequence: one constant
     if ch.committed_at:
-        col = ident(ch.committed_at.column)
+        col = plan.raw(ch.committed_at.column)
         c.typed.append(("__cat", timestamp_cast(col, ch.committed_at.zone)))
         c.check(
             _invalid(col, "__cat"),
@@ -114,7 +110,7 @@ def type_rows(plan: Plan) -> Plan:
     keys = set(m.key)
     for i, (name, ftype) in enumerate(plan.mapping.field_types.items()):
         column = m.raw_column(name)
-        raw = ident(column)
+        raw = plan.raw(column)
         c.typed.append((f"v{i}", ftype.cast(raw)))
         c.check(
             _invalid(raw, f"v{i}"),
@@ -128,7 +124,7 @@ def type_rows(plan: Plan) -> Plan:
             )
 
     src = plan.rel("source")
-    raw_cols = ", ".join(ident(col) for col in m.mapped_columns())
+    raw_cols = ", ".join(plan.raw(col) for col in m.mapped_columns())
     inner = f"SELECT __file, __row, __enc, {raw_cols}, {', '.join(f'{sql} AS {n}' for n, sql in c.typed)} FROM {src}"
     ok = " AND ".join(c.ok)
     typed_cols = ", ".join(f"q.{n}" for n, _ in c.typed)

@@ -1,8 +1,12 @@
-"""Log position kinds: raw text -> a fixed-width string whose byte order is the log order.
+"""Log positions and sequences: raw text -> a fixed-width sort key -> the ``position`` text.
 
 Comparing raw position text is wrong: ``16/B374D85`` is a lower position than
-``16/B374D848`` but sorts higher as text. Each kind normalises to one case and
-one width so plain byte-wise comparison is the change order.
+``16/B374D848`` but sorts higher as text. Each kind is parsed once into a
+fixed-width *key* whose order is the log order: an unsigned integer (integer,
+hex up to 32 digits, hex-pair), a timestamp, or (text, hex wider than 32
+digits) a text whose byte order is the order. The plan groups, joins and sorts
+on keys; only the writers turn a key into its normalised text (one case, one
+width), so plain byte-wise comparison of ``position`` is the change order too.
 """
 
 from __future__ import annotations
@@ -11,56 +15,101 @@ from cdcnorm.mapping.model import PositionSpec, SequenceSpec
 from cdcnorm.types.timestamp import timestamp_cast
 
 INTEGER_WIDTH = 20  # 2**64 - 1 has 20 digits
+HEX = "'(0[xX])?[0-9A-Fa-f]+'"
+NUMERIC_HEX_DIGITS = 32  # a hex key of up to 32 digits fits UHUGEINT
 
 
-def integer_position(x: str) -> str:
+def _strip0x(x: str) -> str:
+    return f"CASE WHEN {x}[1:2] IN ('0x', '0X') THEN {x}[3:] ELSE {x} END"
+
+
+def integer_key(x: str) -> str:
+    return f"CASE WHEN regexp_full_match({x}, '[0-9]{{1,{INTEGER_WIDTH}}}') THEN TRY_CAST({x} AS UBIGINT) END"
+
+
+def integer_text(k: str) -> str:
+    return f"lpad(CAST({k} AS VARCHAR), {INTEGER_WIDTH}, '0')"
+
+
+def hex_key(x: str, width: int) -> str:
+    """Up to 32 digits: UHUGEINT (the regex keeps out what the cast would also take, such as ``_``);
+    wider: the upper-case digits without leading zeros, left-padded to ``width``."""
+    digits = _strip0x(x)
+    if width <= NUMERIC_HEX_DIGITS:
+        bound = f" AND length(ltrim({digits}, '0')) <= {width}" if width < NUMERIC_HEX_DIGITS else ""
+        return (
+            f"CASE WHEN regexp_full_match({x}, {HEX}){bound} "
+            f"THEN TRY_CAST('0x' || {digits} AS UHUGEINT) END"
+        )
+    trimmed = f"ltrim(upper({digits}), '0')"
     return (
-        f"CASE WHEN regexp_full_match({x}, '[0-9]{{1,{INTEGER_WIDTH}}}') AND TRY_CAST({x} AS UBIGINT) IS NOT NULL "
-        f"THEN lpad(CAST(TRY_CAST({x} AS UBIGINT) AS VARCHAR), {INTEGER_WIDTH}, '0') END"
+        f"CASE WHEN regexp_full_match({x}, {HEX}) AND length({trimmed}) <= {width} "
+        f"THEN lpad({trimmed}, {width}, '0') END"
     )
 
 
-def hex_position(x: str, width: int) -> str:
-    digits = f"ltrim(upper(regexp_replace({x}, '^0[xX]', '')), '0')"
-    return (
-        f"CASE WHEN regexp_full_match({x}, '(0[xX])?[0-9A-Fa-f]+') AND length({digits}) <= {width} "
-        f"THEN lpad({digits}, {width}, '0') END"
-    )
+def hex_text(k: str, width: int) -> str:
+    if width <= NUMERIC_HEX_DIGITS:
+        return f"lpad(hex({k}), {width}, '0')"
+    return k
 
 
-def hex_pair_position(x: str) -> str:
+def hex_pair_key(x: str) -> str:
     # Two hex numbers of up to 8 digits around a slash: (hi << 32) | lo.
-    hi = f"split_part({x}, '/', 1)"
-    lo = f"split_part({x}, '/', 2)"
-    return (
-        f"CASE WHEN regexp_full_match({x}, '[0-9A-Fa-f]{{1,8}}/[0-9A-Fa-f]{{1,8}}') "
-        f"THEN lpad(upper({hi}), 8, '0') || '/' || lpad(upper({lo}), 8, '0') END"
-    )
+    hi = f"TRY_CAST('0x' || split_part({x}, '/', 1) AS UBIGINT)"
+    lo = f"TRY_CAST('0x' || split_part({x}, '/', 2) AS UBIGINT)"
+    return f"CASE WHEN regexp_full_match({x}, '[0-9A-Fa-f]{{1,8}}/[0-9A-Fa-f]{{1,8}}') THEN ({hi} << 32) | {lo} END"
 
 
-def timestamp_position(x: str, zone: str) -> str:
-    return f"strftime({timestamp_cast(x, zone)}, '%Y-%m-%dT%H:%M:%S.%fZ')"
+def hex_pair_text(k: str) -> str:
+    return f"lpad(hex({k} >> 32), 8, '0') || '/' || lpad(hex({k} & 4294967295), 8, '0')"
 
 
-def text_position(x: str) -> str:
+def timestamp_text(k: str) -> str:
+    return f"strftime({k}, '%Y-%m-%dT%H:%M:%S.%fZ')"
+
+
+def text_key(x: str) -> str:
     return f"CASE WHEN length({x}) > 0 THEN {x} END"
 
 
-def normalise(spec: PositionSpec, x: str) -> str:
-    """SQL: the normalised position of raw text ``x``, NULL when malformed."""
-    return normalise_kind(spec.kind, x, width=spec.width, zone=spec.zone)
-
-
-def normalise_kind(kind: str, x: str, *, width: int = 32, zone: str = "+00:00") -> str:
+def key(kind: str, x: str, *, width: int = 32, zone: str = "+00:00") -> str:
+    """SQL: the sort key of raw text ``x`` (NULL when malformed)."""
     if kind == "integer":
-        return integer_position(x)
+        return integer_key(x)
     if kind == "hex":
-        return hex_position(x, width)
+        return hex_key(x, width)
     if kind == "hex-pair":
-        return hex_pair_position(x)
+        return hex_pair_key(x)
     if kind == "timestamp":
-        return timestamp_position(x, zone)
-    return text_position(x)
+        return timestamp_cast(x, zone)
+    return text_key(x)
+
+
+def text(kind: str, k: str, *, width: int = 32) -> str:
+    """SQL: the normalised fixed-width text of key ``k``."""
+    if kind == "integer":
+        return integer_text(k)
+    if kind == "hex":
+        return hex_text(k, width)
+    if kind == "hex-pair":
+        return hex_pair_text(k)
+    if kind == "timestamp":
+        return timestamp_text(k)
+    return k
+
+
+def normalise(spec: PositionSpec, x: str) -> str:
+    """SQL: the normalised position text of raw text ``x``, NULL when malformed."""
+    return text(spec.kind, position_key(spec, x), width=spec.width)
+
+
+def position_key(spec: PositionSpec, x: str) -> str:
+    return key(spec.kind, x, width=spec.width, zone=spec.zone)
+
+
+def position_text(spec: PositionSpec, k: str) -> str:
+    return text(spec.kind, k, width=spec.width)
 
 
 def sequence_width(spec: SequenceSpec, position: PositionSpec) -> int:
@@ -70,19 +119,12 @@ def sequence_width(spec: SequenceSpec, position: PositionSpec) -> int:
     return position.width if position.kind == "hex" else 32
 
 
-def sequence_value(spec: SequenceSpec, position: PositionSpec, x: str) -> str:
-    """SQL: the sequence of raw text ``x`` as a value whose order is the change order (NULL when
-    malformed): an unsigned integer for ``integer``, a fixed-width text for the other kinds."""
-    if spec.kind == "integer":
-        return f"CASE WHEN regexp_full_match({x}, '[0-9]{{1,{INTEGER_WIDTH}}}') THEN TRY_CAST({x} AS UBIGINT) END"
-    return normalise_kind(spec.kind, x, width=sequence_width(spec, position))
+def sequence_key(spec: SequenceSpec, position: PositionSpec, x: str) -> str:
+    return key(spec.kind, x, width=sequence_width(spec, position))
 
 
-def sequence_text(spec: SequenceSpec, v: str) -> str:
-    """SQL: the sequence value ``v`` as the fixed-width text that goes into ``position``."""
-    if spec.kind == "integer":
-        return f"lpad(CAST({v} AS VARCHAR), {INTEGER_WIDTH}, '0')"
-    return v
+def sequence_text(spec: SequenceSpec, position: PositionSpec, k: str) -> str:
+    return text(spec.kind, k, width=sequence_width(spec, position))
 
 
 def expected(spec: PositionSpec) -> str:

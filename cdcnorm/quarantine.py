@@ -13,6 +13,7 @@ from __future__ import annotations
 
 from cdcnorm.plan import Plan
 from cdcnorm.sql import ident, lit
+from cdcnorm.stages.order import position_text
 
 META_KEY = "_cdcnorm"
 
@@ -42,7 +43,7 @@ def rejected_rows(plan: Plan) -> str:
         "CAST(__versions AS VARCHAR) || ' versions'",
         lit("conflict"),
     )
-    lonely = _reason(lit("an after-image at the same position"), "__position", unpaired)
+    lonely = _reason(lit("an after-image at the same position"), position_text(plan), unpaired)
     parts = [
         f"SELECT __file, __row, reasons, CAST(NULL AS VARCHAR) AS text FROM {plan.rel('rejects')}",
         f"SELECT __file, __row, {conflict} AS reasons, CAST(NULL AS VARCHAR) AS text "

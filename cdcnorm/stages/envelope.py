@@ -29,18 +29,18 @@ def build_envelopes(plan: Plan) -> Plan:
     )
     has_image = " OR ".join(f"e.v{i} IS NOT NULL" for i in nonkey)
     vals = ", ".join(f"e.v{i}" for i in range(n))
-    own = "e.__position, e.__pos, e.__seq, e.__rank, e.__act, e.__cat, e.__file, e.__row"
+    own = "e.__pos, e.__seq, e.__rank, e.__act, e.__cat, e.__file, e.__row"
     lonely_after = f"NOT EXISTS (SELECT 1 FROM {pairs} q WHERE q.af = e.__file AND q.ar = e.__row)"
     sql = f"""
     SELECT 'upsert' AS __action, {own}, {vals}, FALSE AS __has_prior, {nulls}, NULL AS __changed
     FROM {kept} e WHERE e.__act IN ('insert', 'snapshot') OR (e.__act = 'after' AND {lonely_after})
     UNION ALL
-    SELECT 'upsert', p.a_position, p.a_pos, p.a_seq, 2, 'after', p.a_cat, p.af, p.ar, {", ".join(f"p.a{i}" for i in range(n))},
+    SELECT 'upsert', p.a_pos, p.a_seq, 2, 'after', p.a_cat, p.af, p.ar, {", ".join(f"p.a{i}" for i in range(n))},
            p.same_key, {", ".join(f"CASE WHEN p.same_key THEN p.p{i} END" for i in range(n))},
            CASE WHEN p.same_key THEN {changed} END
     FROM {pairs} p
     UNION ALL
-    SELECT 'delete', p.b_position, p.b_pos, p.b_seq, 1, 'before', p.b_cat, p.bf, p.br, {", ".join(f"p.p{i}" for i in range(n))},
+    SELECT 'delete', p.b_pos, p.b_seq, 1, 'before', p.b_cat, p.bf, p.br, {", ".join(f"p.p{i}" for i in range(n))},
            TRUE, {", ".join(f"p.p{i}" for i in range(n))}, NULL
     FROM {pairs} p WHERE NOT p.same_key
     UNION ALL

@@ -1,8 +1,11 @@
-"""Stage order: the sortable ``position`` of every good row.
+"""Stage order: the image rank of every good row, and how its ``position`` is written.
 
-position = normalised log position, then the zero-padded sequence (when the
-mapping has one), then the image rank (before 1 < after 2; other rows 0),
-joined by '.'; plain byte-wise order of the string is the change order.
+The change order is (position key, sequence key, image rank): before 1 < after 2;
+other rows 0. Later stages group, join and sort on these fixed-width keys; the
+``position`` text (``position_text``) is built only where it is output: the
+normalised log position, the fixed-width sequence (when the mapping has one)
+and the rank joined by '.', so plain byte-wise order of the text is the change
+order too.
 """
 
 from __future__ import annotations
@@ -13,15 +16,16 @@ from cdcnorm.plan import Plan
 RANK = "CASE __act WHEN 'before' THEN 1 WHEN 'after' THEN 2 ELSE 0 END"
 
 
+def position_text(plan: Plan, pos: str = "__pos", seq: str = "__seq", rank: str = "__rank") -> str:
+    """SQL: the ``position`` text of a row from its keys."""
+    change = plan.mapping.mapping.change
+    parts = [positions.position_text(change.position, pos)]
+    if change.sequence:
+        parts.append(positions.sequence_text(change.sequence, change.position, seq))
+    parts.append(f"CAST({rank} AS VARCHAR)")
+    return " || '.' || ".join(parts)
+
+
 def order_rows(plan: Plan) -> Plan:
-    base = "__pos"
-    sequence = plan.mapping.mapping.change.sequence
-    if sequence:
-        base = f"__pos || '.' || {positions.sequence_text(sequence, '__seq')}"
-    # Later stages group and join on the parts (__pos, __seq), which is cheaper than on the
-    # joined string; the string is built only where it is output.
-    sql = (
-        f"SELECT *, {RANK} AS __rank, {base} || '.' || CAST({RANK} AS VARCHAR) AS __position "
-        f"FROM {plan.rel('typed')} WHERE __ok"
-    )
+    sql = f"SELECT *, {RANK} AS __rank FROM {plan.rel('typed')} WHERE __ok"
     return plan.add("order", "ordered", sql)

@@ -24,8 +24,8 @@ def pair_images(plan: Plan) -> Plan:
     # a pair carries both images, so the envelope stage needs no join of its own
     before_values = ", ".join(
         [
-            "a.__position AS a_position, a.__pos AS a_pos, a.__seq AS a_seq, a.__cat AS a_cat",
-            "b.__position AS b_position, b.__pos AS b_pos, b.__seq AS b_seq, b.__cat AS b_cat",
+            "a.__pos AS a_pos, a.__seq AS a_seq, a.__cat AS a_cat",
+            "b.__pos AS b_pos, b.__seq AS b_seq, b.__cat AS b_cat",
             *(f"a.v{i} AS a{i}" for i in range(n)),
             *(f"b.v{i} AS p{i}" for i in range(n)),
         ]

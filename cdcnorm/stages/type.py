@@ -66,7 +66,7 @@ def type_rows(plan: Plan) -> Plan:
         ),
     )
     pos_col = plan.raw(ch.position.column)
-    c.typed.append(("__pos", positions.normalise(ch.position, pos_col)))
+    c.typed.append(("__pos", positions.position_key(ch.position, pos_col)))
     c.check(
         lambda s, t: f"{t}__pos IS NULL",
         _reason(
@@ -79,7 +79,7 @@ def type_rows(plan: Plan) -> Plan:
     )
     if ch.sequence:
         col = plan.raw(ch.sequence.column)
-        c.typed.append(("__seq", positions.sequence_value(ch.sequence, ch.position, col)))
+        c.typed.append(("__seq", positions.sequence_key(ch.sequence, ch.position, col)))
         c.check(
             lambda s, t: f"{t}__seq IS NULL",
             _reason(

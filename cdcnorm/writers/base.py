@@ -21,6 +21,7 @@ import sqlglot
 from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.plan import Plan
 from cdcnorm.sql import PLAN_DIALECT, ident, lit
+from cdcnorm.stages.order import position_text
 from cdcnorm.types.timestamp import timestamp_render
 
 
@@ -40,7 +41,7 @@ def envelope_columns(plan: Plan, *, render: bool) -> list[tuple[str, str]]:
         ("table", lit(plan.mapping.table)),
         ("action", "__action"),
         ("key", struct(plan.key_index, "v")),
-        ("position", "__position"),
+        ("position", position_text(plan)),
         ("committed_at", timestamp_render("__cat") if render else "__cat"),
         ("values", f"CASE WHEN __action = 'upsert' THEN {struct(every, 'v')} END"),
         ("prior", f"CASE WHEN __has_prior THEN {struct(every, 'p')} END"),

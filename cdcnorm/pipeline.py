@@ -397,6 +397,7 @@ def _run(
                 engine.view(step.relation, step.expression)
         if stop_after is not None:
             continue
+        progress(f"{table}: account", 0, 1)
         result.ledger.tables[table] = _account(trun, engine)
     progress("account", total, total)
     if stop_after is not None:
@@ -407,7 +408,7 @@ def _run(
             hint="this is a bug in cdcnorm; please report it with the inputs",
         )
     if options.write and options.out is not None:
-        _write(result, options)
+        _write(result, options, progress)
     if options.max_rejects and result.quarantined > options.max_rejects:
         raise RejectLimitError(
             f"{result.quarantined} rows were quarantined, more than --max-rejects {options.max_rejects}"
@@ -437,7 +438,7 @@ def _account(trun: TableRun, engine: DuckDBEngine) -> ledger_mod.TableLedger:
     return tl
 
 
-def _write(result: Result, options: Options) -> None:
+def _write(result: Result, options: Options, progress: Progress) -> None:
     assert options.out is not None
     writer = WRITERS[options.fmt]
     out = options.out
@@ -445,15 +446,16 @@ def _write(result: Result, options: Options) -> None:
         engine = result.engine
         qpath = out / "quarantine" / f"{table}.jsonl"
         lines_sql = quarantine.quarantine_lines(trun.plan, _rejected_relation(trun))
+        progress(f"{table}: quarantine", 0, 1)
         lines = engine.arrow(sqlglot.parse_one(lines_sql, read=PLAN_DIALECT))["line"]
         # the raw rows are needed no more: free them before the events are sorted
         free_raw(trun, engine)
-        ordered = f"{trun.mapping.mapping.slug}__ordered_events"
-        engine.materialize(ordered, sqlglot.parse_one(sorted_events(trun.plan, "__files"), read=PLAN_DIALECT))
+        progress(f"{table}: sort and write events", 0, 1)
+        # one streaming pass: the engine sorts the flat events, then builds and writes the envelopes
+        ordered = f"({sorted_events(trun.plan, '__files')}) AS ordered_events"
         written = writer.write(
-            trun.plan, engine, "__files", out / "events" / f"{table}{writer.SUFFIX}", ident(ordered)
+            trun.plan, engine, "__files", out / "events" / f"{table}{writer.SUFFIX}", ordered
         )
-        engine.drop(ordered)
         counts = result.ledger.tables[table].total
         # The ledger is counted from aggregates; the files are written from the rows themselves.
         if written != counts.emitted or len(lines) != counts.quarantined:

@@ -20,7 +20,7 @@ NUMERIC_HEX_DIGITS = 32  # a hex key of up to 32 digits fits UHUGEINT
 
 
 def _strip0x(x: str) -> str:
-    return f"CASE WHEN {x}[1:2] IN ('0x', '0X') THEN {x}[3:] ELSE {x} END"
+    return f"CASE WHEN starts_with({x}, '0x') OR starts_with({x}, '0X') THEN substr({x}, 3) ELSE {x} END"
 
 
 def integer_key(x: str) -> str:
@@ -36,11 +36,9 @@ def hex_key(x: str, width: int) -> str:
     wider: the upper-case digits without leading zeros, left-padded to ``width``."""
     digits = _strip0x(x)
     if width <= NUMERIC_HEX_DIGITS:
-        bound = f" AND length(ltrim({digits}, '0')) <= {width}" if width < NUMERIC_HEX_DIGITS else ""
-        return (
-            f"CASE WHEN regexp_full_match({x}, {HEX}){bound} "
-            f"THEN TRY_CAST('0x' || {digits} AS UHUGEINT) END"
-        )
+        cast = f"TRY_CAST('0x' || {digits} AS UHUGEINT)"
+        bound = f" AND {cast} < CAST('{1 << (4 * width)}' AS UHUGEINT)" if width < NUMERIC_HEX_DIGITS else ""
+        return f"CASE WHEN regexp_full_match({x}, {HEX}){bound} THEN {cast} END"
     trimmed = f"ltrim(upper({digits}), '0')"
     return (
         f"CASE WHEN regexp_full_match({x}, {HEX}) AND length({trimmed}) <= {width} "

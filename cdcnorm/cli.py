@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import re
 import sys
 from collections.abc import Sequence
 from pathlib import Path
@@ -27,6 +28,25 @@ class _Parser(argparse.ArgumentParser):
         raise UsageError(f"{self.prog}: {message}", hint=f"see {self.prog} --help")
 
 
+_SIZE = re.compile(r"^\s*[0-9]+(\.[0-9]+)?\s*(B|KB|MB|GB|TB|KiB|MiB|GiB|TiB)\s*$", re.IGNORECASE)
+
+
+def _memory(text: str) -> str:
+    if not _SIZE.match(text):
+        raise argparse.ArgumentTypeError(f"{text!r} is not a memory size; write e.g. 500MB, 2GB or 1.5GiB")
+    return text.strip()
+
+
+def _positive(text: str) -> int:
+    try:
+        n = int(text)
+    except ValueError:
+        n = 0
+    if n < 1:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number of at least 1")
+    return n
+
+
 def _conversion_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("inputs", nargs="+", help="dump files or folders of dump files (CSV, JSON Lines, Parquet)")
     p.add_argument("--mappings", default="mappings", help="folder of mapping files (default: mappings/)")
@@ -34,9 +54,14 @@ def _conversion_args(p: argparse.ArgumentParser) -> None:
         "--input-format", choices=["csv", "jsonl", "parquet"], help="read every input as this format"
     )
     p.add_argument(
-        "--memory-limit", help="engine memory limit, e.g. 2GB (the engine spills to disk beyond it)"
+        "--memory-limit",
+        type=_memory,
+        help="engine memory limit, e.g. 2GB (default: half the machine's memory); the engine spills to disk beyond it",
     )
-    p.add_argument("--threads", type=int, help="engine threads (default: all cores)")
+    p.add_argument("--threads", type=_positive, help="engine threads (default: all cores)")
+    p.add_argument(
+        "--recursive", action="store_true", help="read the dump files in sub-folders of folders too"
+    )
     p.add_argument("--json", action="store_true", help="print the result as JSON on stdout")
     p.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
@@ -147,6 +172,7 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
         threads=args.threads,
         input_format=args.input_format,
         write=not check,
+        recursive=args.recursive,
     )
     if getattr(args, "show_plan", False):
         from cdcnorm.pipeline import show_plans
@@ -233,6 +259,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
         memory_limit=None,
         threads=None,
         input_format=None,
+        recursive=False,
         json=False,
         quiet=False,
         show_plan=False,

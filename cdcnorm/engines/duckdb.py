@@ -18,6 +18,18 @@ from sqlglot import exp
 from cdcnorm.errors import CdcnormError
 from cdcnorm.sql import ident, lit
 
+#: Share of the machine's physical memory the engine may use when no limit is given; beyond its
+#: limit the engine spills to the run's temporary folder.
+DEFAULT_MEMORY_SHARE = 0.5
+
+
+def default_memory_limit() -> str:
+    try:
+        total = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
+    except (ValueError, OSError, AttributeError):
+        return "4GB"
+    return f"{int(total * DEFAULT_MEMORY_SHARE) >> 20}MB"
+
 
 class DuckDBEngine:
     name = "duckdb"
@@ -30,9 +42,10 @@ class DuckDBEngine:
         threads: int | None = None,
         temp_directory: str | None = None,
     ) -> None:
-        config: dict[str, Any] = {"preserve_insertion_order": True}
-        if memory_limit:
-            config["memory_limit"] = memory_limit
+        config: dict[str, Any] = {
+            "preserve_insertion_order": True,
+            "memory_limit": memory_limit or default_memory_limit(),
+        }
         if threads:
             config["threads"] = threads
         if temp_directory:

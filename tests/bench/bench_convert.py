@@ -1,21 +1,27 @@
 """Benchmark: convert against the floor of reading the same CSV with pyarrow and writing Parquet.
 
-Generates synthetic dumps (a 12-column table with paired updates, deletes, 2%
-overlap duplicates, rows out of order), then runs, each in a fresh process:
+The dump is the realistic one of ``dumpgen.py`` (13 columns, 10-byte hex log positions
+and sequences, ``__$`` column names, quoted fields with commas, quotes, LF and CRLF,
+Unicode, overlap duplicates, late rows, a few dirty values). Each command runs in a
+fresh process; wall time and peak resident memory (max RSS of the child, from the
+operating system's accounting) are reported, best of ``--repeat`` runs:
 
-- floor: pyarrow.csv.read_csv + pyarrow.parquet.write_table
-- convert: cdcnorm convert --format parquet (all validation on)
-- convert-jsonl: cdcnorm convert --format jsonl
+- floor: pyarrow reads every column as text with ``newlines_in_values=True`` (as the
+  data needs) and writes one Parquet file;
+- convert: ``cdcnorm convert --format parquet`` (every guard, dedupe, pairing, ledger
+  and its cross-check on);
+- convert-jsonl: ``cdcnorm convert --format jsonl``;
+- at ``--limited`` sizes: ``convert --format parquet --memory-limit 1GB``, once;
+- ``--small-files N``: N files of two rows each, converted in one run.
 
-and reports wall time and peak memory (max RSS), with the ratios to the floor.
-
-    python tests/bench/bench_convert.py --rows 1000000 5000000 [--keep DIR]
+    python tests/bench/bench_convert.py --rows 1000000 5000000 --limited 20000000 --small-files 3000
 """
 
 from __future__ import annotations
 
 import argparse
 import json
+import os
 import shutil
 import subprocess
 import sys
@@ -23,97 +29,28 @@ import tempfile
 import time
 from pathlib import Path
 
-import numpy as np
-import pyarrow as pa
-import pyarrow.csv as pacsv
-
-MAPPING = """\
-table: bench.orders
-files: ["orders*.csv"]
-key: [order_id]
-change:
-  action: {column: op, codes: {D: delete, I: insert, B: before, A: after}}
-  position: {column: lsn, kind: hex-pair}
-  sequence: {column: seq, kind: integer}
-  committed_at: {column: commit_ts}
-fields:
-  order_id: integer
-  customer: text
-  amount: decimal(12,2)
-  quantity: integer
-  created_at: timestamp
-  status: text
-  express: boolean
-  note: text
-"""
-
-
-def generate(rows: int, folder: Path, seed: int = 7) -> list[Path]:
-    """About ``rows`` rows over two overlapping files, shuffled."""
-    rng = np.random.default_rng(seed)
-    changes = int(rows / 1.5)
-    kind = rng.choice(
-        np.array([0, 1, 2], dtype=np.int8), size=changes, p=[0.45, 0.45, 0.10]
-    )  # insert, update, delete
-    pos = np.arange(changes, dtype=np.int64) * 40 + 0x16_0000_0000
-    ids = rng.integers(1, max(changes // 2, 2), size=changes)
-    reps = np.where(kind == 1, 2, 1)
-    c_idx = np.repeat(np.arange(changes), reps)
-    first = np.ones(len(c_idx), dtype=bool)
-    first[1:] = c_idx[1:] != c_idx[:-1]
-    k = kind[c_idx]
-    op = np.where(k == 0, "I", np.where(k == 2, "D", np.where(first, "B", "A")))
-    n = len(c_idx)
-    p = pos[c_idx]
-    lsn = np.char.add(np.char.add(np.char.mod("%X", p >> 32), "/"), np.char.mod("%X", p & 0xFFFFFFFF))
-    cents = rng.integers(0, 10_000_000, size=n)
-    amount = np.char.add(
-        np.char.add((cents // 100).astype(str), "."), np.char.zfill((cents % 100).astype(str), 2)
-    )
-    secs = (1_767_225_600 + c_idx * 3).astype("datetime64[s]")
-    commit = np.char.add(np.datetime_as_string(secs, unit="s").astype(str), "Z")
-    created = np.char.add(np.datetime_as_string(secs - 86_400, unit="s").astype(str), "+01:00")
-    table = pa.table(
-        {
-            "op": op,
-            "lsn": lsn,
-            "seq": np.zeros(n, dtype=np.int64),
-            "commit_ts": commit,
-            "order_id": ids[c_idx],
-            "customer": np.char.add("customer-", (ids[c_idx] % 9973).astype(str)),
-            "amount": amount,
-            "quantity": rng.integers(1, 50, size=n),
-            "created_at": created,
-            "status": rng.choice(np.array(["new", "paid", "shipped", "returned, partly"]), size=n),
-            "express": rng.choice(np.array(["true", "false"]), size=n),
-            "note": rng.choice(np.array(["", 'said "leave at door"', "fragile", "call ahead"]), size=n),
-        }
-    )
-    order = rng.permutation(n)
-    table = table.take(pa.array(order))
-    overlap = int(n * 0.02)
-    cut = n // 2
-    live = table.slice(0, cut + overlap)
-    archive = table.slice(cut)
-    paths = [folder / "orders-live.csv", folder / "orders-archive.csv"]
-    pacsv.write_csv(live, paths[0])
-    pacsv.write_csv(archive, paths[1])
-    return paths
-
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+import dumpgen
 
 FLOOR = """
-import sys, pyarrow.csv as c, pyarrow.parquet as pq, pyarrow as pa
-tables = [c.read_csv(p) for p in sys.argv[2:]]
-pq.write_table(pa.concat_tables(tables, promote_options="permissive"), sys.argv[1])
+import sys, pyarrow as pa, pyarrow.csv as c, pyarrow.parquet as pq
+tables = []
+for p in sys.argv[2:]:
+    with open(p, encoding="utf-8") as f:
+        names = next(__import__("csv").reader([f.readline()]))
+    tables.append(c.read_csv(p, parse_options=c.ParseOptions(newlines_in_values=True),
+        convert_options=c.ConvertOptions(column_types={n: pa.string() for n in names})))
+pq.write_table(pa.concat_tables(tables), sys.argv[1])
 """
 
 
-def convert_command(work: Path, files: list[Path], out: str, *extra: str) -> list[str]:
+def convert_command(work: Path, inputs: list[Path], out: str, *extra: str) -> list[str]:
     head = [sys.executable, "-m", "cdcnorm", "convert", "--quiet", "--mappings", str(work / "mappings")]
-    return [*head, "--out", str(work / out), *extra, *map(str, files)]
+    return [*head, "--out", str(work / out), *extra, *map(str, inputs)]
 
 
 def run_isolated(cmd: list[str]) -> tuple[float, float]:
+    """Wall seconds and the child's peak RSS in MiB."""
     helper = (
         "import resource, subprocess, sys, time, json\n"
         "t = time.perf_counter(); subprocess.run(sys.argv[1:], check=True, stdout=subprocess.DEVNULL)\n"
@@ -124,56 +61,110 @@ def run_isolated(cmd: list[str]) -> tuple[float, float]:
     return float(wall), float(mib)
 
 
+def prepare(rows: int, base: Path | None) -> tuple[Path, list[Path], float]:
+    work = Path(tempfile.mkdtemp(prefix="cdcnorm-bench-")) if base is None else base / str(rows)
+    work.mkdir(parents=True, exist_ok=True)
+    dumpgen.write_mapping(work / "mappings")
+    t0 = time.perf_counter()
+    files = dumpgen.generate(rows, work)
+    return work, files, time.perf_counter() - t0
+
+
+def bench_size(rows: int, repeat: int, keep: Path | None) -> dict[str, object]:
+    work, files, gen = prepare(rows, keep)
+    best: dict[str, tuple[float, float]] = {}
+    for _ in range(repeat):
+        runs = {
+            "floor": [sys.executable, "-c", FLOOR, str(work / "floor.parquet"), *map(str, files)],
+            "convert": convert_command(work, files, "out-parquet", "--format", "parquet"),
+            "convert-jsonl": convert_command(work, files, "out-jsonl"),
+        }
+        for name, cmd in runs.items():
+            wall, mib = run_isolated(cmd)
+            if name not in best or wall < best[name][0]:
+                best[name] = (wall, mib)
+    ledger = json.loads((work / "out-parquet" / "ledger.json").read_text())
+    floor_t, floor_m = best["floor"]
+    entry: dict[str, object] = {
+        "rows": ledger["total"]["read"],
+        "csv_mib": round(sum(f.stat().st_size for f in files) / 2**20, 1),
+        "generate_s": round(gen, 1),
+        "floor_s": round(floor_t, 2),
+        "floor_peak_mib": round(floor_m),
+        "ledger_balanced": ledger["balanced"],
+        "quarantined": ledger["total"]["quarantined"],
+    }
+    for name in ("convert", "convert-jsonl"):
+        t, m = best[name]
+        entry[f"{name}_s"] = round(t, 2)
+        entry[f"{name}_peak_mib"] = round(m)
+        entry[f"{name}_time_ratio"] = round(t / floor_t, 2)
+        entry[f"{name}_memory_ratio"] = round(m / floor_m, 2)
+    if keep is None:
+        shutil.rmtree(work)
+    return entry
+
+
+def bench_limited(rows: int, limit: str, keep: Path | None) -> dict[str, object]:
+    work, files, gen = prepare(rows, keep)
+    wall, mib = run_isolated(
+        convert_command(work, files, "out-limited", "--format", "parquet", "--memory-limit", limit)
+    )
+    ledger = json.loads((work / "out-limited" / "ledger.json").read_text())
+    entry: dict[str, object] = {
+        "rows": ledger["total"]["read"],
+        "csv_mib": round(sum(f.stat().st_size for f in files) / 2**20, 1),
+        "generate_s": round(gen, 1),
+        "memory_limit": limit,
+        "convert_s": round(wall, 2),
+        "convert_peak_mib": round(mib),
+        "ledger_balanced": ledger["balanced"],
+    }
+    if keep is None:
+        shutil.rmtree(work)
+    return entry
+
+
+def bench_small_files(count: int) -> dict[str, object]:
+    work = Path(tempfile.mkdtemp(prefix="cdcnorm-bench-small-"))
+    dumpgen.write_mapping(work / "mappings")
+    dumps = work / "dumps"
+    dumps.mkdir()
+    header = '"__$operation","__$start_lsn","__$seqval","__$commit_time","delivery_id","recipient","locker","fee","parcels","weight_kg","dropped_at","state","express","note"\n'
+    for i in range(count):
+        rows = "".join(
+            f"2,0x{2 * i + j:020X},0x{j:020X},2026-01-01T00:00:00Z,{2 * i + j},Åsa,L-1,1.00,1,1.5,"
+            f'2026-01-01T00:00:00Z,booked,true,"a, b"\n'
+            for j in range(2)
+        )
+        (dumps / f"deliveries-{i:05d}.csv").write_text(header + rows, encoding="utf-8")
+    wall, mib = run_isolated(convert_command(work, [dumps], "out", "--format", "parquet"))
+    ledger = json.loads((work / "out" / "ledger.json").read_text())
+    shutil.rmtree(work)
+    return {
+        "files": count,
+        "rows": ledger["total"]["read"],
+        "convert_s": round(wall, 2),
+        "peak_mib": round(mib),
+    }
+
+
 def main() -> None:
     ap = argparse.ArgumentParser()
-    ap.add_argument("--rows", type=int, nargs="+", default=[1_000_000, 5_000_000])
+    ap.add_argument("--rows", type=int, nargs="*", default=[1_000_000, 5_000_000])
+    ap.add_argument("--limited", type=int, nargs="*", default=[], help="sizes run once under --memory-limit")
+    ap.add_argument("--limit", default="1GB")
+    ap.add_argument("--small-files", type=int, default=0)
     ap.add_argument("--keep", type=Path, help="keep generated dumps and outputs here")
-    ap.add_argument("--repeat", type=int, default=1)
+    ap.add_argument("--repeat", type=int, default=2)
     args = ap.parse_args()
-    report = []
+    print(json.dumps({"cores": os.cpu_count(), "python": sys.version.split()[0]}), flush=True)
     for rows in args.rows:
-        work = Path(tempfile.mkdtemp(prefix="cdcnorm-bench-")) if not args.keep else args.keep / str(rows)
-        work.mkdir(parents=True, exist_ok=True)
-        (work / "mappings").mkdir(exist_ok=True)
-        (work / "mappings" / "orders.yaml").write_text(MAPPING)
-        t0 = time.perf_counter()
-        files = generate(rows, work)
-        gen = time.perf_counter() - t0
-        size = sum(f.stat().st_size for f in files)
-        best: dict[str, tuple[float, float]] = {}
-
-        for _ in range(args.repeat):
-            runs = {
-                "floor": [sys.executable, "-c", FLOOR, str(work / "floor.parquet"), *map(str, files)],
-                "convert": convert_command(work, files, "out-parquet", "--format", "parquet"),
-                "convert-jsonl": convert_command(work, files, "out-jsonl"),
-            }
-            for name, cmd in runs.items():
-                wall, mib = run_isolated(cmd)
-                if name not in best or wall < best[name][0]:
-                    best[name] = (wall, mib)
-        ledger = json.loads((work / "out-parquet" / "ledger.json").read_text())
-        floor_t, floor_m = best["floor"]
-        entry = {
-            "rows": ledger["total"]["read"],
-            "csv_mib": round(size / 2**20, 1),
-            "generate_s": round(gen, 1),
-            "floor_s": round(floor_t, 2),
-            "floor_peak_mib": round(floor_m),
-            "ledger_balanced": ledger["balanced"],
-            "ledger_total": ledger["total"],
-        }
-        for name in ("convert", "convert-jsonl"):
-            t, m = best[name]
-            entry[f"{name}_s"] = round(t, 2)
-            entry[f"{name}_peak_mib"] = round(m)
-            entry[f"{name}_time_ratio"] = round(t / floor_t, 2)
-            entry[f"{name}_memory_ratio"] = round(m / floor_m, 2)
-        report.append(entry)
-        print(json.dumps(entry), flush=True)
-        if not args.keep:
-            shutil.rmtree(work)
-    print(json.dumps(report, indent=2))
+        print(json.dumps(bench_size(rows, args.repeat, args.keep)), flush=True)
+    for rows in args.limited:
+        print(json.dumps(bench_limited(rows, args.limit, args.keep)), flush=True)
+    if args.small_files:
+        print(json.dumps(bench_small_files(args.small_files)), flush=True)
 
 
 if __name__ == "__main__":

@@ -79,17 +79,34 @@ def _hex(values: np.ndarray, digits: int) -> np.ndarray:
     return np.char.add("0x", np.char.zfill(np.char.upper(np.char.mod("%X", values)), digits))
 
 
+CHUNK = 5_000_000
+
+
 def generate(rows: int, folder: Path, seed: int = 11) -> list[Path]:
-    """About ``rows`` rows over two overlapping files (live and archive), shuffled."""
+    """About ``rows`` rows over overlapping live and archive files, shuffled, written in
+    chunks of at most 5M rows (two files each) so that memory stays small at any size."""
+    paths: list[Path] = []
+    done = 0
+    part = 0
+    while done < rows:
+        n = min(CHUNK, rows - done)
+        paths += _chunk(n, folder, seed + part, first_change=int(done / 1.5), part=part)
+        done += n
+        part += 1
+    return paths
+
+
+def _chunk(rows: int, folder: Path, seed: int, first_change: int, part: int) -> list[Path]:
     rng = np.random.default_rng(seed)
     changes = max(int(rows / 1.5), 4)
     kind = rng.choice(np.array([0, 1, 2], dtype=np.int8), size=changes, p=[0.45, 0.45, 0.10])
-    ids = rng.integers(1, max(changes // 2, 2), size=changes)
+    ids = rng.integers(1, max(changes // 2, 2), size=changes) + first_change // 2
     reps = np.where(kind == 1, 2, 1)
-    c_idx = np.repeat(np.arange(changes), reps)
+    c_idx = np.repeat(np.arange(changes), reps) + first_change
     first = np.ones(len(c_idx), dtype=bool)
     first[1:] = c_idx[1:] != c_idx[:-1]
-    k = kind[c_idx]
+    local = c_idx - first_change
+    k = kind[c_idx - first_change]
     op = np.where(k == 0, "2", np.where(k == 2, "1", np.where(first, "3", "4")))
     n = len(c_idx)
     # a transaction every 4 changes: the log position of its commit, the sequence within it
@@ -115,9 +132,9 @@ def generate(rows: int, folder: Path, seed: int = 11) -> list[Path]:
             "__$start_lsn": lsn,
             "__$seqval": seq,
             "__$commit_time": commit,
-            "delivery_id": ids[c_idx],
-            "recipient": NAMES[ids[c_idx] % len(NAMES)],
-            "locker": np.char.add("L-", (ids[c_idx] % 4099).astype(str)),
+            "delivery_id": ids[local],
+            "recipient": NAMES[ids[local] % len(NAMES)],
+            "locker": np.char.add("L-", (ids[local] % 4099).astype(str)),
             "fee": fee,
             "parcels": rng.integers(1, 6, size=n),
             "weight_kg": weight,
@@ -134,7 +151,8 @@ def generate(rows: int, folder: Path, seed: int = 11) -> list[Path]:
     table = table.take(pa.array(order))
     overlap = int(n * 0.02)
     cut = n // 2
-    paths = [folder / "deliveries-live.csv", folder / "deliveries-archive.csv"]
+    suffix = f"-{part}" if part else ""
+    paths = [folder / f"deliveries-live{suffix}.csv", folder / f"deliveries-archive{suffix}.csv"]
     opts = pacsv.WriteOptions(quoting_style="needed")
     pacsv.write_csv(table.slice(0, cut + overlap), paths[0], write_options=opts)
     pacsv.write_csv(table.slice(cut), paths[1], write_options=opts)

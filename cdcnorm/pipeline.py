@@ -13,6 +13,7 @@ import fnmatch
 import json
 import os
 import tempfile
+import time
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -55,6 +56,12 @@ Progress = Callable[[str, int, int], None]
 
 def _no_progress(label: str, done: int, total: int) -> None:
     return None
+
+
+def _rate(rows: int, since: float) -> str:
+    """``, N rows/s`` for a progress label, once there is something to measure."""
+    spent = time.perf_counter() - since
+    return f", {rows / spent:,.0f} rows/s" if rows and spent > 0.05 else ""
 
 
 @dataclass
@@ -252,6 +259,8 @@ def read_all(
     out: dict[str, RawTable] = {}
     next_id = 0
     done = 0
+    rows = 0
+    started = time.perf_counter()
     for table, paths in routed.items():
         if not paths:
             continue
@@ -266,11 +275,12 @@ def read_all(
             modules[module.FORMAT] = module
             by_format.setdefault(module.FORMAT, []).append(f)
         for fmt, files in by_format.items():
-            progress(f"read {table} ({len(files)} {fmt} files)", done, len(all_files))
+            progress(f"read {table}: {len(files)} {fmt} files{_rate(rows, started)}", done, len(all_files))
             modules[fmt].read_files(files, by_name[table].mapping, engine, raw, scratch / raw.slug)
             done += len(files)
+            rows += sum(f.rows_read for f in files)
         out[table] = raw
-    progress("read", done, len(all_files))
+    progress(f"read {rows:,} rows{_rate(rows, started)}", done, len(all_files))
     return out
 
 
@@ -389,12 +399,16 @@ def _run(
         if table in drifted:
             continue
         plan = trun.plan if stop_after is None else trun.plan.until(stop_after)
+        rows = trun.raw.rows_read
+        last = ""
         for j, step in enumerate(plan.steps):
-            progress(f"{table}: {step.stage} ({step.name})", j, len(plan.steps))
+            progress(f"{table}: {step.stage} ({step.name}), {rows:,} rows{last}", j, len(plan.steps))
+            began = time.perf_counter()
             if step.materialize:
                 engine.materialize(step.relation, step.expression)
             else:
                 engine.view(step.relation, step.expression)
+            last = f"; {step.name}{_rate(rows, began)}" if step.materialize else last
         if stop_after is not None:
             continue
         progress(f"{table}: account", 0, 1)

@@ -7,6 +7,7 @@ registers Arrow tables as relations, materialises steps and writes files.
 from __future__ import annotations
 
 import contextlib
+import json
 import os
 from pathlib import Path
 from typing import Any
@@ -112,3 +113,187 @@ class DuckDBEngine:
         finally:
             if tmp.exists():
                 tmp.unlink()
+
+    # --- loading dumps: what the readers ask of the engine ---------------------------------
+    #
+    # Readers decide what to read (files, columns, options, which records are malformed); these
+    # methods are how DuckDB reads it. Every loaded relation has __file, __row, __enc and the
+    # reader's internal column names, all text.
+
+    def count(self, relation: str, where: str = "TRUE") -> int:
+        return int(self.rows(f"SELECT count(*) FROM {ident(relation)} WHERE {where}")[0][0])
+
+    def scan_csv(
+        self,
+        table: str,
+        paths: list[str],
+        columns: list[str],
+        *,
+        header: bool,
+        delimiter: str,
+        quote: str,
+        nulls: list[str],
+        encoding: str,
+        max_line: int,
+    ) -> tuple[set[str], dict[str, tuple[int, int, int]]] | None:
+        """Load CSV files with the engine's strict parallel reader into ``table`` (rows in file
+        order, with ``__fname``). Returns the paths with any reject and, per path, (rows, first
+        rowid, last rowid); None when the reader cannot read the files at all."""
+        rejects = f"{table}_rejects"
+        cols = "{" + ", ".join(f"{lit(c)}: 'VARCHAR'" for c in columns) + "}"
+        scan = (
+            f"read_csv([{', '.join(lit(p) for p in paths)}], columns = {cols}, header = {str(header).lower()}, "
+            f"delim = {lit(delimiter)}, quote = {lit(quote)}, escape = {lit(quote)}, auto_detect = false, "
+            f"allow_quoted_nulls = false, nullstr = [{', '.join(lit(t) for t in nulls)}], "
+            f"encoding = {lit(encoding)}, strict_mode = true, ignore_errors = true, store_rejects = true, "
+            f"rejects_table = {lit(rejects)}, rejects_scan = {lit(rejects + '_scan')}, "
+            f"max_line_size = {max_line}, filename = '__fname', parallel = true)"
+        )
+        try:
+            self.con.execute(f"CREATE TEMP TABLE {ident(table)} AS SELECT * FROM {scan}")
+            rejected = {
+                str(p)
+                for (p,) in self.rows(
+                    f"SELECT DISTINCT s.file_path FROM {ident(rejects)} e JOIN {ident(rejects + '_scan')} s "
+                    "ON e.scan_id = s.scan_id AND e.file_id = s.file_id"
+                )
+            }
+        except duckdb.Error:
+            self.drop(table)
+            return None
+        finally:
+            self.con.execute(
+                f"DROP TABLE IF EXISTS {ident(rejects)}; DROP TABLE IF EXISTS {ident(rejects + '_scan')}"
+            )
+        spans = {
+            str(p): (int(n), int(lo), int(hi))
+            for p, n, lo, hi in self.rows(
+                f"SELECT __fname, count(*), min(rowid), max(rowid) FROM {ident(table)} GROUP BY __fname"
+            )
+        }
+        return rejected, spans
+
+    def number_rows(
+        self, view: str, table: str, files: list[tuple[str, int, int]], columns: list[str]
+    ) -> None:
+        """A view of a scanned table's rows with file ids and record numbers (rowid - first + 1)
+        for the files given as (path, id, first rowid); other files' rows are left out."""
+        values = (
+            "(VALUES " + ", ".join(f"({lit(p)}, {i}, {lo})" for p, i, lo in files) + ") f(path, id, base)"
+        )
+        self.con.execute(
+            f"CREATE TEMP VIEW {ident(view)} AS SELECT CAST(f.id AS INTEGER) AS __file, "
+            f"CAST(r.rowid - f.base + 1 AS BIGINT) AS __row, CAST(NULL AS VARCHAR) AS __enc, "
+            f"{', '.join(f'r.{ident(c)}' for c in columns)} FROM {ident(table)} r JOIN {values} ON r.__fname = f.path"
+        )
+
+    def load_batches(self, table: str, batches: pa.RecordBatchReader, select: str = "*") -> None:
+        """Stream record batches into a new table (the engine pulls them; nothing is held whole)."""
+        self.con.register("__incoming_batches", batches)
+        try:
+            self.con.execute(f"CREATE TEMP TABLE {ident(table)} AS SELECT {select} FROM __incoming_batches")
+        finally:
+            self.con.unregister("__incoming_batches")
+
+    def decode_text(self, table: str, source: str, file_id: int, columns: list[tuple[str, str]]) -> None:
+        """``source`` (``__row`` and binary cells) -> ``table`` with text cells; a cell that is not
+        UTF-8 becomes NULL and is listed in ``__enc`` as a JSON object {raw name: base64}.
+        ``columns`` are (internal name, raw name)."""
+        cells = []
+        bad = []
+        for c, raw_name in columns:
+            col = ident(c)
+            cells.append(f"try(decode({col})) AS {col}")
+            key = lit(json.dumps(raw_name) + ":")
+            bad.append(
+                f"CASE WHEN {col} IS NOT NULL AND try(decode({col})) IS NULL THEN {key} || to_json(to_base64({col})) END"
+            )
+        listed = f"concat_ws(',', {', '.join(bad)})"
+        enc = f"CASE WHEN {listed} <> '' THEN '{{' || {listed} || '}}' END"
+        self.con.execute(
+            f"CREATE TEMP TABLE {ident(table)} AS SELECT CAST({file_id} AS INTEGER) AS __file, __row, "
+            f"{enc} AS __enc, {', '.join(cells)} FROM {ident(source)}"
+        )
+
+    def create_malformed(self, table: str) -> None:
+        self.con.execute(
+            f"CREATE TEMP TABLE IF NOT EXISTS {ident(table)} "
+            "(__file INTEGER, __row BIGINT, text VARCHAR, reason VARCHAR)"
+        )
+
+    def append(self, table: str, rows: pa.Table) -> None:
+        self.con.register("__appended_rows", rows)
+        try:
+            self.con.execute(f"INSERT INTO {ident(table)} SELECT * FROM __appended_rows")
+        finally:
+            self.con.unregister("__appended_rows")
+
+    def scan_parquet(self, path: Path) -> list[tuple[str, str]]:
+        """The columns of a Parquet file and their engine types."""
+        src = f"read_parquet({lit(str(path))})"
+        return [(str(r[0]), str(r[1])) for r in self.rows(f"DESCRIBE SELECT * FROM {src}")]
+
+    def load_parquet_as_text(
+        self, table: str, path: Path, file_id: int, columns: list[tuple[str, str, str]], nulls: list[str]
+    ) -> None:
+        """Load a Parquet file with every value as text: BLOB as hex, structs, lists and maps as JSON
+        text; a text equal to a null token is NULL. ``columns`` are (name, type, internal name)."""
+
+        def as_text(col: str, typ: str) -> str:
+            if typ == "BLOB":
+                return f"hex({col})"
+            if typ.startswith(("STRUCT", "MAP")) or typ.endswith("]"):
+                return f"CAST(to_json({col}) AS VARCHAR)"
+            if nulls and typ == "VARCHAR":
+                return f"CASE WHEN {col} IN ({', '.join(lit(t) for t in nulls)}) THEN NULL ELSE {col} END"
+            return f"CAST({col} AS VARCHAR)"
+
+        parts = "".join(f", {as_text(ident(c), t)} AS {ident(i)}" for c, t, i in columns)
+        self.con.execute(
+            f"CREATE TEMP TABLE {ident(table)} AS SELECT CAST({file_id} AS INTEGER) AS __file, "
+            f"CAST(file_row_number + 1 AS BIGINT) AS __row, CAST(NULL AS VARCHAR) AS __enc{parts} "
+            f"FROM read_parquet({lit(str(path))}, file_row_number = true)"
+        )
+
+    def split_json_lines(self, lines: str, ok: str, malformed: str, file_id: int) -> str | None:
+        """Lines (``__row``, ``raw`` bytes) -> malformed lines appended to ``malformed`` (not UTF-8,
+        not RFC 8259 JSON, not an object; blank lines are not records) and the JSON objects in
+        ``ok`` (``__row``, ``j``). Returns the merged structure of the objects (JSON text)."""
+        src = ident(lines)
+        self.con.execute(
+            f"CREATE OR REPLACE TEMP TABLE {ident(lines + '_text')} AS SELECT __row, "
+            f"rtrim(try(decode(raw)), chr(13)) AS line, raw FROM {src} "
+            "WHERE NOT regexp_full_match(coalesce(try(decode(raw)), 'x'), '\\s*')"
+        )
+        text = ident(lines + "_text")
+        self.con.execute(
+            f"INSERT INTO {ident(malformed)} SELECT {file_id}, __row, "
+            "CASE WHEN line IS NULL THEN to_base64(raw) ELSE line END, "
+            "CASE WHEN line IS NULL THEN 'not UTF-8 (text shown base64)' "
+            "WHEN NOT json_valid(line) THEN 'not valid JSON (RFC 8259)' "
+            f"ELSE 'not a JSON object' END FROM {text} "
+            "WHERE line IS NULL OR NOT json_valid(line) OR json_type(line) <> 'OBJECT'"
+        )
+        self.con.execute(
+            f"CREATE OR REPLACE TEMP TABLE {ident(ok)} AS SELECT __row, CAST(line AS JSON) AS j FROM {text} "
+            "WHERE line IS NOT NULL AND json_valid(line) AND json_type(line) = 'OBJECT'"
+        )
+        self.drop(lines + "_text")
+        structure = self.rows(f"SELECT json_group_structure(j) FROM {ident(ok)}")[0][0]
+        return None if structure is None else str(structure)
+
+    def json_columns(
+        self, table: str, ok: str, file_id: int, paths: list[tuple[str, str]], nulls: list[str]
+    ) -> None:
+        """JSON objects -> one text column per (JSON path, internal name); a string equal to a
+        null token is NULL; objects and arrays stay JSON text."""
+        parts = []
+        for path, col in paths:
+            v = f"json_extract_string(j, {lit(path)})"
+            if nulls:
+                v = f"CASE WHEN {v} IN ({', '.join(lit(t) for t in nulls)}) THEN NULL ELSE {v} END"
+            parts.append(f", {v} AS {ident(col)}")
+        self.con.execute(
+            f"CREATE TEMP TABLE {ident(table)} AS SELECT CAST({file_id} AS INTEGER) AS __file, __row, "
+            f"CAST(NULL AS VARCHAR) AS __enc{''.join(parts)} FROM {ident(ok)}"
+        )

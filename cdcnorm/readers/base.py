@@ -22,9 +22,6 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from cdcnorm.engines.duckdb import DuckDBEngine
-from cdcnorm.sql import ident
-
-MALFORMED_COLUMNS = "__file INTEGER, __row BIGINT, text VARCHAR, reason VARCHAR"
 
 #: The longest record (or field) the readers take, in bytes. A longer CSV record is quarantined
 #: as malformed (its first line, with the reason) and reading resumes at the next line.
@@ -78,9 +75,8 @@ class RawTable:
         return f"{self.slug}__malformed"
 
     def ensure_malformed(self, engine: DuckDBEngine) -> str:
-        rel = self.malformed_relation
-        engine.execute(f"CREATE TEMP TABLE IF NOT EXISTS {ident(rel)} ({MALFORMED_COLUMNS})")
-        return rel
+        engine.create_malformed(self.malformed_relation)
+        return self.malformed_relation
 
     def add_relation(self, relation: str, internal_columns: list[str]) -> None:
         self.relations.append((relation, internal_columns))

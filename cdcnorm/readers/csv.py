@@ -24,12 +24,12 @@ from __future__ import annotations
 
 import csv as stdcsv
 import io
-import json
 from collections import deque
 from collections.abc import Iterator
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
-import duckdb
+import numpy as np
 import pyarrow as pa
 import pyarrow.csv as pacsv
 
@@ -38,7 +38,6 @@ from cdcnorm.errors import InputError
 from cdcnorm.mapping.model import Mapping
 from cdcnorm.readers import streams
 from cdcnorm.readers.base import MAX_RECORD_BYTES, RawFile, RawTable
-from cdcnorm.sql import ident, lit
 
 FORMAT = "csv"
 SUFFIXES = (".csv", ".tsv")
@@ -109,19 +108,47 @@ def read_files(
             _careful(f, internal, delimiter, mapping, engine, raw, scratch)
 
 
-def _read_csv(paths: list[str], internal: list[str], delimiter: str, mapping: Mapping, rejects: str) -> str:
-    opts = mapping.csv
-    tokens = list(mapping.nulls) or [NEVER]
-    cols = "{" + ", ".join(f"{lit(c)}: 'VARCHAR'" for c in internal) + "}"
-    return (
-        f"read_csv([{', '.join(lit(p) for p in paths)}], columns = {cols}, header = {str(opts.header).lower()}, "
-        f"delim = {lit(delimiter)}, quote = {lit(opts.quote)}, escape = {lit(opts.quote)}, auto_detect = false, "
-        f"allow_quoted_nulls = false, nullstr = [{', '.join(lit(t) for t in tokens)}], "
-        f"encoding = {lit(ENGINE_ENCODINGS[opts.encoding.lower()])}, strict_mode = true, "
-        f"ignore_errors = true, store_rejects = true, rejects_table = {lit(rejects)}, "
-        f"rejects_scan = {lit(rejects + '_scan')}, max_line_size = {MAX_RECORD_BYTES}, "
-        f"filename = '__fname', parallel = true)"
-    )
+def count_records(path: Path, quote: str, header: bool) -> tuple[int, bool]:
+    """The number of data records by quote parity, independently of any CSV parser, and whether the
+    quotes balance. A line break ends a record only outside quotes (RFC 4180 doubles a quote inside a
+    quoted field, which keeps the parity); blank lines are not records. Vectorised over blocks."""
+    q = ord(quote)
+    parity = 0
+    last_end = -1
+    pos = 0
+    last_byte = 10
+    count = 0
+    for chunk in streams.blocks(path):
+        buf = np.frombuffer(chunk, dtype=np.uint8)
+        nl = np.flatnonzero(buf == 10)
+        isq = (buf == q).view(np.uint8)
+        if len(nl):
+            starts = np.concatenate(([0], nl + 1))
+            if starts[-1] == len(buf):
+                starts = starts[:-1]
+            acc = np.bitwise_xor.accumulate(np.bitwise_xor.reduceat(isq, starts)) ^ parity
+            ends = nl[acc[: len(nl)] == 0] + pos  # the line breaks outside quotes
+            parity = int(acc[-1])
+        else:
+            ends = nl
+            parity ^= int(np.count_nonzero(isq) & 1)
+        if len(ends):
+            prev = np.empty_like(ends)
+            prev[0] = last_end
+            prev[1:] = ends[:-1]
+            gap = ends - prev
+            at = ends - 1 - pos
+            before = np.where(at >= 0, buf[np.maximum(at, 0)], last_byte)
+            empty = (gap == 1) | ((gap == 2) & (before == 13))
+            count += int(len(ends) - np.count_nonzero(empty))
+            last_end = int(ends[-1])
+        pos += len(buf)
+        if len(buf):
+            last_byte = int(buf[-1])
+    rest = pos - 1 - last_end  # bytes after the last record's line break
+    if rest > 1 or (rest == 1 and last_byte != 13):
+        count += 1
+    return count - (1 if header and count else 0), parity == 0
 
 
 def _fast(
@@ -134,58 +161,59 @@ def _fast(
     scratch: Path,
 ) -> list[RawFile]:
     """Scan the group with the engine's reader; return the files that need the careful path."""
-    if mapping.csv.encoding.lower() not in ENGINE_ENCODINGS:
+    opts = mapping.csv
+    if opts.encoding.lower() not in ENGINE_ENCODINGS:
         return group
     paths = {str(streams.engine_readable(f.path, scratch / "decompressed")): f for f in group}
-    staged = raw.relation("csv")
-    rejects = f"{staged}_rejects"
-    sql = f"SELECT * FROM {_read_csv(list(paths), internal, delimiter, mapping, rejects)}"
-    try:
-        engine.con.execute(f"CREATE TEMP TABLE {ident(staged)} AS {sql}")
-    except duckdb.Error:
-        engine.con.execute(
-            f"DROP TABLE IF EXISTS {ident(rejects)}; DROP TABLE IF EXISTS {ident(rejects + '_scan')}"
-        )
+    # The engine's reader does not report every broken record when it scans many files at once, so
+    # every file's records are also counted independently, by a thread, while the engine scans.
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        counted = {p: pool.submit(count_records, Path(p), opts.quote, opts.header) for p in paths}
+        staged = raw.relation("csv")
+        scanned = _scan(engine, staged, list(paths), internal, delimiter, mapping)
+        counts = {p: c.result() for p, c in counted.items()}
+    if scanned is None:
         if len(group) == 1:
             return group
-        # one file the strict reader cannot read at all: find it, and read the others fast
+        # a file the strict reader cannot read at all: find it, and read the others fast
         careful: list[RawFile] = []
         for f in group:
             careful.extend(_fast([f], internal, delimiter, mapping, engine, raw, scratch))
         return careful
-    rejected = {
-        str(p)
-        for (p,) in engine.rows(
-            f"SELECT DISTINCT s.file_path FROM {ident(rejects)} e JOIN {ident(rejects + '_scan')} s "
-            "ON e.scan_id = s.scan_id AND e.file_id = s.file_id"
-        )
-    }
-    engine.con.execute(f"DROP TABLE {ident(rejects)}; DROP TABLE {ident(rejects + '_scan')}")
-    spans = {
-        str(p): (int(n), int(lo), int(hi))
-        for p, n, lo, hi in engine.rows(
-            f"SELECT __fname, count(*), min(rowid), max(rowid) FROM {ident(staged)} GROUP BY __fname"
-        )
-    }
+    rejected, spans = scanned
     good = []
     for p, f in paths.items():
-        if p in rejected:
-            continue
         n, lo, hi = spans.get(p, (0, 0, -1))
+        records, balanced = counts[p]
+        if p in rejected or n != records or not balanced:
+            rejected.add(p)
+            continue
         if n and hi - lo + 1 != n:  # the engine's insertion order did not keep the file together
             raise InputError("the engine did not keep this file's records in order", file=str(f.path))
         f.rows = n
         good.append((p, f.file_id, lo))
     if good:
-        files = "(VALUES " + ", ".join(f"({lit(p)}, {i}, {lo})" for p, i, lo in good) + ") f(path, id, base)"
         view = f"{staged}_rows"
-        engine.con.execute(
-            f"CREATE TEMP VIEW {ident(view)} AS SELECT f.id AS __file, CAST(r.rowid - f.base + 1 AS BIGINT) AS __row, "
-            f"CAST(NULL AS VARCHAR) AS __enc, {', '.join(f'r.{ident(c)}' for c in internal)} "
-            f"FROM {ident(staged)} r JOIN {files} ON r.__fname = f.path"
-        )
+        engine.number_rows(view, staged, good, internal)
         raw.add_relation(view, internal)
     return [f for p, f in paths.items() if p in rejected]
+
+
+def _scan(
+    engine: DuckDBEngine, staged: str, paths: list[str], internal: list[str], delimiter: str, mapping: Mapping
+) -> tuple[set[str], dict[str, tuple[int, int, int]]] | None:
+    opts = mapping.csv
+    return engine.scan_csv(
+        staged,
+        paths,
+        internal,
+        header=opts.header,
+        delimiter=delimiter,
+        quote=opts.quote,
+        nulls=list(mapping.nulls) or [NEVER],
+        encoding=ENGINE_ENCODINGS[opts.encoding.lower()],
+        max_line=MAX_RECORD_BYTES,
+    )
 
 
 class _Overlong(Exception):
@@ -319,9 +347,7 @@ def _careful(
                 "reason": pa.array(bad_reason, pa.string()),
             }
         )
-        engine.register("__malformed_batch", batch)
-        engine.execute(f"INSERT INTO {ident(malformed)} SELECT * FROM __malformed_batch")
-        engine.unregister("__malformed_batch")
+        engine.append(malformed, batch)
         bad_rows.clear()
         bad_text.clear()
         bad_reason.clear()
@@ -378,24 +404,7 @@ def _load_cleaned(
         ),
     )
     staged = raw.relation("careful")
-    engine.con.register("__careful_batches", reader)
-    try:
-        engine.execute(f"CREATE TEMP TABLE {ident(staged + '_bin')} AS SELECT * FROM __careful_batches")
-    finally:
-        engine.con.unregister("__careful_batches")
-    cells = []
-    bad = []
-    for c in internal:
-        col = ident(c)
-        cells.append(f"try(decode({col})) AS {col}")
-        key = lit(json.dumps(raw.columns[int(c[1:])]) + ":")
-        bad.append(
-            f"CASE WHEN {col} IS NOT NULL AND try(decode({col})) IS NULL THEN {key} || to_json(to_base64({col})) END"
-        )
-    enc = f"CASE WHEN concat_ws(',', {', '.join(bad)}) <> '' THEN '{{' || concat_ws(',', {', '.join(bad)}) || '}}' END"
-    engine.execute(
-        f"CREATE TEMP TABLE {ident(staged)} AS SELECT CAST({f.file_id} AS INTEGER) AS __file, __row, "
-        f"{enc} AS __enc, {', '.join(cells)} FROM {ident(staged + '_bin')}"
-    )
+    engine.load_batches(staged + "_bin", reader)
+    engine.decode_text(staged, staged + "_bin", f.file_id, [(c, raw.columns[int(c[1:])]) for c in internal])
     engine.drop(staged + "_bin")
     raw.add_relation(staged, internal)

@@ -24,7 +24,6 @@ from cdcnorm.errors import InputError
 from cdcnorm.mapping.model import Mapping
 from cdcnorm.readers import streams
 from cdcnorm.readers.base import MAX_RECORD_BYTES, RawFile, RawTable
-from cdcnorm.sql import ident, lit
 
 FORMAT = "jsonl"
 SUFFIXES = (".jsonl", ".ndjson")
@@ -79,45 +78,33 @@ def read_files(
         _read(f, mapping, engine, raw)
 
 
+def _guarded(batches: Iterator[pa.RecordBatch], failure: list[InputError]) -> Iterator[pa.RecordBatch]:
+    """Stop cleanly on a reading error, keeping it to raise after the engine's scan: an error
+    raised inside the scan would reach the user in the engine's wording."""
+    try:
+        yield from batches
+    except InputError as e:
+        failure.append(e)
+
+
 def _read(f: RawFile, mapping: Mapping, engine: DuckDBEngine, raw: RawTable) -> None:
     lines = f"{raw.slug}__jsonl_lines"
-    engine.con.register("__jsonl_batches", pa.RecordBatchReader.from_batches(LINES, _batches(f)))
-    try:
-        engine.execute(
-            f"CREATE OR REPLACE TEMP TABLE {ident(lines)} AS SELECT __row, rtrim(try(decode(raw)), chr(13)) AS line, "
-            "raw FROM __jsonl_batches"
-        )
-    finally:
-        engine.con.unregister("__jsonl_batches")
-    src = ident(lines)
-    engine.execute(
-        f"DELETE FROM {src} WHERE line IS NOT NULL AND regexp_full_match(line, '\\s*')"  # blank lines
-    )
-    malformed = raw.ensure_malformed(engine)
-    engine.execute(
-        f"INSERT INTO {ident(malformed)} SELECT {f.file_id}, __row, "
-        "CASE WHEN line IS NULL THEN to_base64(raw) ELSE line END, "
-        "CASE WHEN line IS NULL THEN 'not UTF-8 (text shown base64)' "
-        "WHEN NOT json_valid(line) THEN 'not valid JSON (RFC 8259)' "
-        f"ELSE 'not a JSON object' END FROM {src} "
-        "WHERE line IS NULL OR NOT json_valid(line) OR json_type(line) <> 'OBJECT'"
-    )
-    f.malformed = int(
-        engine.rows(f"SELECT count(*) FROM {ident(malformed)} WHERE __file = {f.file_id}")[0][0]
-    )
     ok = f"{raw.slug}__jsonl_ok"
-    engine.execute(
-        f"CREATE OR REPLACE TEMP TABLE {ident(ok)} AS SELECT __row, CAST(line AS JSON) AS j FROM {src} "
-        "WHERE line IS NOT NULL AND json_valid(line) AND json_type(line) = 'OBJECT'"
-    )
+    failure: list[InputError] = []
+    engine.load_batches(lines, pa.RecordBatchReader.from_batches(LINES, _guarded(_batches(f), failure)))
+    if failure:
+        engine.drop(lines)
+        raise failure[0]
+    malformed = raw.ensure_malformed(engine)
+    structure_text = engine.split_json_lines(lines, ok, malformed, f.file_id)
     engine.drop(lines)
-    f.rows = int(engine.rows(f"SELECT count(*) FROM {ident(ok)}")[0][0])
+    f.malformed = engine.count(malformed, f"__file = {f.file_id}")
+    f.rows = engine.count(ok)
     if f.rows == 0 and f.malformed == 0:
         f.empty = True
         f.notes.append("the file is empty")
         engine.drop(ok)
         return
-    structure_text = engine.rows(f"SELECT json_group_structure(j) FROM {ident(ok)}")[0][0]
     structure = json.loads(structure_text) if structure_text else {}
     paths = _paths(structure, set(mapping.mapped_columns()))
     columns = [".".join(p) for p in paths]
@@ -134,16 +121,9 @@ def _read(f: RawFile, mapping: Mapping, engine: DuckDBEngine, raw: RawTable) -> 
     f.columns = columns
     internal = [raw.internal(c) for c in columns]
     tokens = [t for t in mapping.nulls if t != ""]
-    parts = []
-    for p, col in zip(paths, internal, strict=True):
-        v = f"json_extract_string(j, {lit(_json_path(p))})"
-        if tokens:
-            v = f"CASE WHEN {v} IN ({', '.join(lit(t) for t in tokens)}) THEN NULL ELSE {v} END"
-        parts.append(f"{v} AS {ident(col)}")
     rel = raw.relation("jsonl")
-    engine.execute(
-        f"CREATE TEMP TABLE {ident(rel)} AS SELECT CAST({f.file_id} AS INTEGER) AS __file, __row, "
-        f"CAST(NULL AS VARCHAR) AS __enc{''.join(', ' + p for p in parts)} FROM {ident(ok)}"
+    engine.json_columns(
+        rel, ok, f.file_id, [(_json_path(p), c) for p, c in zip(paths, internal, strict=True)], tokens
     )
     engine.drop(ok)
     raw.add_relation(rel, internal)

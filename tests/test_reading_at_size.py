@@ -1,0 +1,324 @@
+"""Reading real dumps: any column name, sequence kinds, compression, many files, encodings,
+over-long records, sub-folders, and a memory limit smaller than the input."""
+
+from __future__ import annotations
+
+import bz2
+import gzip
+import io
+import json
+from pathlib import Path
+
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+
+from tests.conftest import ConvertFn, cli, write_files
+
+# Names a dump may use that look like the plan's own columns, and names that need quoting.
+ODD = ["__$start_lsn", "__row", "__file", "__enc", "v0", "q", "name with space", 'a "quoted" name', "dot.ted"]
+
+ODD_MAPPING = """
+table: odd.cols
+files: ["odd*"]
+key: [id]
+change:
+  action: {column: "__$operation", codes: {I: insert, D: delete}}
+  position: {column: "__$start_lsn", kind: hex}
+  sequence: {column: "__row", kind: integer}
+fields:
+  id: {from: "__file", type: integer}
+  enc: {from: "__enc", type: text}
+  v0: {from: "v0", type: integer}
+  q: text
+  spaced: {from: "name with space", type: text}
+  quoted: {from: 'a "quoted" name', type: text}
+  dotted: {from: "dot.ted", type: text}
+"""
+
+ODD_ROWS = [
+    {
+        "__$operation": "I",
+        "__$start_lsn": "0x0A",
+        "__row": "2",
+        "__file": "7",
+        "__enc": "e",
+        "v0": "5",
+        "q": "x",
+        "name with space": "s",
+        'a "quoted" name': "qq",
+        "dot.ted": "d",
+    },
+    {
+        "__$operation": "I",
+        "__$start_lsn": "0x0B",
+        "__row": "1",
+        "__file": "oops",
+        "__enc": "f",
+        "v0": "6",
+        "q": "y",
+        "name with space": "t",
+        'a "quoted" name': "rr",
+        "dot.ted": "e",
+    },
+]
+
+
+def _odd_csv() -> str:
+    def cell(v: str) -> str:
+        return '"' + v.replace('"', '""') + '"'
+
+    names = ["__$operation", *ODD]
+    lines = [",".join(cell(n) for n in names)]
+    lines += [",".join(cell(r[n]) for n in names) for r in ODD_ROWS]
+    return "\n".join(lines) + "\n"
+
+
+def _odd_parquet() -> bytes:
+    names = ["__$operation", *ODD]
+    table = pa.table({n: [r[n] for r in ODD_ROWS] for n in names})
+    buf = io.BytesIO()
+    pq.write_table(table, buf)
+    return buf.getvalue()
+
+
+def _odd_jsonl() -> str:
+    return "".join(json.dumps({n: r[n] for n in ["__$operation", *ODD]}) + "\n" for r in ODD_ROWS)
+
+
+@pytest.mark.parametrize(
+    ("name", "content"),
+    [("odd.csv", _odd_csv()), ("odd.parquet", _odd_parquet()), ("odd.jsonl", _odd_jsonl())],
+)
+def test_any_column_name_in_every_reader(convert: ConvertFn, name: str, content: str | bytes) -> None:
+    done = convert(ODD_MAPPING, {name: content})
+    (e,) = done.events("odd.cols")
+    assert e["key"] == {"id": 7}
+    assert e["values"] == {
+        "id": 7,
+        "enc": "e",
+        "v0": 5,
+        "q": "x",
+        "spaced": "s",
+        "quoted": "qq",
+        "dotted": "d",
+    }
+    assert e["position"] == "0000000000000000000000000000000A.00000000000000000002.0"
+    (q,) = done.quarantine("odd.cols")  # the row whose "__file" (the key) is not an integer
+    assert {k: q[k] for k in ["__$operation", *ODD]} == ODD_ROWS[1]
+    assert q["_cdcnorm"]["row"] == 2 and q["_cdcnorm"]["reasons"][0]["column"] == "__file"
+    assert done.ledger()["balanced"]
+
+
+SEQ_MAPPING = """
+table: s.t
+files: ["s*"]
+key: [id]
+change:
+  action: {column: op, codes: {I: insert}}
+  position: {column: pos, kind: hex, width: 20}
+  sequence: {column: seq, kind: KIND}
+fields:
+  id: integer
+"""
+
+
+@pytest.mark.parametrize(
+    ("kind", "seqs", "order", "text"),
+    [
+        # text order would put 0x10 before 0x9 and 0x0100 before 0xff: value order does not
+        ("hex", ["0x10", "0x9", "0xff", "0x0100"], [2, 1, 3, 4], "00000000000000000009"),
+        ("hex-pair", ["1/0", "0/FFFFFFFF", "0/A", "0/9"], [4, 3, 2, 1], "00000000/00000009"),
+        ("integer", ["10", "9", "100", "0"], [4, 2, 1, 3], "00000000000000000000"),
+        ("text", ["b", "a", "ab", "B"], [4, 2, 3, 1], "B"),
+    ],
+)
+def test_sequences_order_by_value(
+    convert: ConvertFn, kind: str, seqs: list[str], order: list[int], text: str
+) -> None:
+    rows = "".join(f"I,0x2A,{s},{i}\n" for i, s in enumerate(seqs, 1))
+    done = convert(SEQ_MAPPING.replace("KIND", kind), {"s.csv": "op,pos,seq,id\n" + rows})
+    events = done.events("s.t")
+    assert [e["key"]["id"] for e in events] == order
+    assert events[0]["position"] == f"0000000000000000002A.{text}.0"
+    assert [e["position"] for e in events] == sorted(e["position"] for e in events)
+
+
+def test_hex_sequence_wider_than_its_width_is_quarantined(convert: ConvertFn) -> None:
+    mapping = SEQ_MAPPING.replace("kind: KIND", "kind: hex, width: 4")
+    done = convert(mapping, {"s.csv": "op,pos,seq,id\nI,1,0xFFFF,1\nI,1,0x10000,2\nI,1,0x1_0,3\n"})
+    assert [e["key"]["id"] for e in done.events("s.t")] == [1]
+    reasons = {q["id"]: q["_cdcnorm"]["reasons"][0] for q in done.quarantine("s.t")}
+    assert set(reasons) == {"2", "3"} and reasons["2"]["field"] == "sequence"
+    assert reasons["2"]["expected"] == "hex digits (optional 0x), at most 4 significant"
+
+
+PLAIN = """
+table: t.notes
+files: ["n*"]
+key: [id]
+change:
+  action: {column: op, codes: {I: insert}}
+  position: {column: pos, kind: integer}
+fields:
+  id: integer
+  a: text
+"""
+
+CSV = 'op,pos,id,a\nI,1,1,"x, ""y"""\nI,2,2,"two\nlines"\nI,3,3,\n'
+
+
+def csv_at(k: int) -> str:
+    """The same three records with positions and keys moved by 10 * k."""
+    return (
+        f'op,pos,id,a\nI,{10 * k + 1},{10 * k + 1},"x, ""y"""\nI,{10 * k + 2},{10 * k + 2},"two\nlines"\n'
+        f"I,{10 * k + 3},{10 * k + 3},\n"
+    )
+
+
+def test_compressed_files_are_read_transparently(convert: ConvertFn) -> None:
+    zst = pa.BufferOutputStream()
+    with pa.CompressedOutputStream(zst, "zstd") as s:
+        s.write(csv_at(3).encode())
+    files: dict[str, str | bytes] = {
+        "n1.csv.gz": gzip.compress(csv_at(1).encode()),
+        "n2.csv.bz2": bz2.compress(csv_at(2).encode()),
+        "n3.csv.zst": zst.getvalue().to_pybytes(),
+        "n4.jsonl.gz": gzip.compress(b'{"op": "I", "pos": 99, "id": 99, "a": "j"}\n'),
+    }
+    plain = convert(PLAIN, {f"n{k}.csv": csv_at(k) for k in (1, 2, 3)}).events("t.notes")
+    done = convert(PLAIN, files)
+    got = [(e["origin"]["file"], e["origin"]["row"], e["key"], e["values"]) for e in done.events("t.notes")]
+    want = [(e["origin"]["file"], e["origin"]["row"], e["key"], e["values"]) for e in plain]
+    names = {"n1.csv": "n1.csv.gz", "n2.csv": "n2.csv.bz2", "n3.csv": "n3.csv.zst"}
+    assert got[:-1] == [(names[f], r, k, v) for f, r, k, v in want]
+    assert got[-1] == ("n4.jsonl.gz", 1, {"id": 99}, {"id": 99, "a": "j"})
+    assert done.ledger()["balanced"] and done.ledger()["total"]["read"] == 10
+
+
+@pytest.mark.parametrize("name", ["n.csv.gz", "n.jsonl.gz", "n.csv.bz2"])
+def test_truncated_archive_is_a_clear_error(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], name: str
+) -> None:
+    payload = (CSV * 2000).encode() if ".csv" in name else b'{"op": "I", "pos": 1, "id": 1}\n' * 5000
+    packed = gzip.compress(payload) if name.endswith(".gz") else bz2.compress(payload)
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN.replace('files: ["n*"]', 'files: ["n.csv", "n.jsonl"]'))
+    (dump := tmp_path / name).write_bytes(packed[: len(packed) // 2])
+    code = cli("convert", "--mappings", str(mdir), str(dump), "--out", str(tmp_path / "out"))
+    err = capsys.readouterr().err
+    assert code == 4
+    assert str(dump) in err and "truncated or corrupt" in err and "Traceback" not in err
+
+
+def test_many_small_files_keep_their_record_numbers(convert: ConvertFn) -> None:
+    files: dict[str, str | bytes] = {
+        f"n{i:04d}.csv": f"op,pos,id,a\nI,{2 * i + 1},{2 * i + 1},x\nI,{2 * i + 2},{2 * i + 2},y\n"
+        for i in range(400)
+    }
+    files["n9999.csv"] = 'op,pos,id,a\nI,5000,5000,"open\n'  # one broken file among them
+    done = convert(PLAIN, files)
+    events = done.events("t.notes")
+    assert len(events) == 800
+    assert all(e["origin"]["row"] == 2 - e["key"]["id"] % 2 for e in events)
+    assert all(e["origin"]["file"] == f"n{(e['key']['id'] - 1) // 2:04d}.csv" for e in events)
+    ledger = done.ledger()
+    assert ledger["balanced"] and ledger["total"]["read"] == 801 and ledger["total"]["quarantined"] == 1
+
+
+@pytest.mark.parametrize(
+    ("encoding", "raw", "text"),
+    [("latin-1", b"Caf\xe9 cr\xe8me", "Café crème"), ("cp1252", b"\x80 5 \x93ok\x94", "€ 5 “ok”")],
+)
+def test_csv_encoding(convert: ConvertFn, encoding: str, raw: bytes, text: str) -> None:
+    # Python's codecs are the reference for both encodings
+    assert raw.decode(encoding) == text
+    mapping = PLAIN + f"csv: {{encoding: {encoding}}}\n"
+    done = convert(mapping, {"n.csv": b"op,pos,id,a\nI,1,1," + raw + b"\n"})
+    (e,) = done.events("t.notes")
+    assert e["values"]["a"] == text
+
+
+def test_unknown_encoding_is_a_mapping_error(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN + "csv: {encoding: klingon}\n")
+    write_files(tmp_path / "d", {"n.csv": CSV})
+    assert cli("check", "--mappings", str(mdir), str(tmp_path / "d")) == 3
+    assert 'unknown text encoding "klingon"' in capsys.readouterr().err
+
+
+def test_over_long_record_is_quarantined_and_reading_resumes(
+    convert: ConvertFn, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from cdcnorm.readers import csv as csv_reader
+
+    monkeypatch.setattr(csv_reader, "MAX_RECORD_BYTES", 1 << 20)
+    big = "z" * (3 << 20)
+    done = convert(PLAIN, {"n.csv": f"op,pos,id,a\nI,1,1,x\nI,2,2,{big}\nI,3,3,y\n"})
+    assert [e["key"]["id"] for e in done.events("t.notes")] == [1, 3]
+    (q,) = done.quarantine("t.notes")
+    assert q["_cdcnorm"]["row"] == 2 and q["_cdcnorm"]["text"] == f"I,2,2,{big}"
+    assert "longer than 1 MiB" in q["_cdcnorm"]["reasons"][0]["reason"]
+
+
+def test_sub_folders_need_recursive(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN)
+    write_files(tmp_path / "d", {"n1.csv": CSV})
+    write_files(tmp_path / "d" / "2026-03-02", {"n2.csv": CSV.replace("I,", "I,1", 1)})
+    base = ["convert", "--mappings", str(mdir), str(tmp_path / "d"), "--json"]
+    assert cli(*base, "--out", str(tmp_path / "o1")) == 4
+    assert "2026-03-02" in capsys.readouterr().err
+    assert cli(*base, "--out", str(tmp_path / "o2"), "--recursive") == 0
+    report = json.loads(capsys.readouterr().out)
+    assert set(report["ledger"]["tables"]["t.notes"]["files"]) == {"n1.csv", "n2.csv"}
+
+
+def test_broken_last_field_through_the_cli(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN.replace("a: text", "name: text"))
+    write_files(tmp_path / "d", {"n.csv": 'op,pos,id,name\nI,1,1,ok\nI,2,2,"b\nI,3,3,a\nI,4,4,c\n'})
+    assert cli("check", "--mappings", str(mdir), str(tmp_path / "d"), "--json") == 0
+    report = json.loads(capsys.readouterr().out)
+    assert report["files"][0]["rows"] == 4 and report["files"][0]["malformed"] == 1
+    out = tmp_path / "out"
+    assert cli("convert", "--mappings", str(mdir), str(tmp_path / "d"), "--out", str(out), "--json") == 0
+    ledger = json.loads(capsys.readouterr().out)["ledger"]
+    assert ledger["balanced"] and ledger["total"]["read"] == 4 and ledger["total"]["quarantined"] == 1
+    (line,) = (out / "quarantine" / "t.notes.jsonl").read_text().splitlines()
+    assert json.loads(line)["_cdcnorm"]["text"] == 'I,2,2,"b'
+
+
+def test_a_dump_larger_than_the_memory_limit_converts(tmp_path: Path) -> None:
+    """No timing: the engine's limit is far below the input's size, and the output is the same."""
+    import sys
+
+    sys.path.insert(0, str(Path(__file__).resolve().parent / "bench"))
+    import dumpgen
+
+    mdir = dumpgen.write_mapping(tmp_path / "m").parent
+    (tmp_path / "d").mkdir()
+    files = dumpgen.generate(150_000, tmp_path / "d")
+    assert sum(f.stat().st_size for f in files) > 25 << 20
+    outs = []
+    for name, extra in (("free", []), ("tight", ["--memory-limit", "64MB", "--threads", "1"])):
+        out = tmp_path / name
+        assert (
+            cli(
+                "convert",
+                "--quiet",
+                "--mappings",
+                str(mdir),
+                str(tmp_path / "d"),
+                "--out",
+                str(out),
+                "--format",
+                "parquet",
+                *extra,
+            )
+            == 0
+        )
+        outs.append(out)
+    a, b = (pq.read_table(o / "events" / "lockers.deliveries.parquet") for o in outs)
+    assert a.num_rows > 90_000 and a.equals(b)
+    assert (outs[0] / "ledger.json").read_text() == (outs[1] / "ledger.json").read_text()

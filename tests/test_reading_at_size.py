@@ -322,3 +322,12 @@ def test_a_dump_larger_than_the_memory_limit_converts(tmp_path: Path) -> None:
     a, b = (pq.read_table(o / "events" / "lockers.deliveries.parquet") for o in outs)
     assert a.num_rows > 90_000 and a.equals(b)
     assert (outs[0] / "ledger.json").read_text() == (outs[1] / "ledger.json").read_text()
+
+
+def test_control_characters_and_line_separators_stay_one_json_line(convert: ConvertFn) -> None:
+    # RFC 8259 section 7: control characters are escaped inside strings; U+2028 may stand as is
+    text = "a\x01b\x1fc\u2028d\re"
+    done = convert(PLAIN, {"n.csv": f'op,pos,id,a\nI,1,1,"{text}"\n'})
+    lines = (done.out / "events" / "t.notes.jsonl").read_text(encoding="utf-8").split("\n")
+    assert len(lines) == 2 and lines[1] == ""
+    assert json.loads(lines[0])["values"]["a"] == text

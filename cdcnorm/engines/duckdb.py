@@ -103,7 +103,13 @@ class DuckDBEngine:
         """Write a query's rows to ``path`` atomically (temporary name, then rename); rows written."""
         path.parent.mkdir(parents=True, exist_ok=True)
         tmp = path.with_name(f"{path.name}.tmp-{os.getpid()}")
-        options = {"json": "FORMAT JSON", "parquet": "FORMAT PARQUET"}[fmt]
+        # "lines": one text column written as is, one value per line (the values hold no line break:
+        # they are JSON texts, whose control characters are escaped), no header, no quoting.
+        options = {
+            "json": "FORMAT JSON",
+            "parquet": "FORMAT PARQUET",
+            "lines": "FORMAT CSV, HEADER false, QUOTE '', ESCAPE '', DELIMITER '\x01'",
+        }[fmt]
         try:
             written = self.con.execute(
                 f"COPY ({self.render(expression)}) TO {lit(str(tmp))} ({options})"

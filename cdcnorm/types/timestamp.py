@@ -21,16 +21,24 @@ def normalise_zone(zone: str) -> str:
 def timestamp_cast(x: str, zone: str) -> str:
     """SQL: raw text -> TIMESTAMPTZ in UTC, NULL when invalid."""
     # the pattern has been matched, so plain string tests suffice below
+    zone = normalise_zone(zone)
     upper = f"upper({x})"
     leap = f"substr({x}, 18, 2) = '60'"
     unleaped = f"CASE WHEN {leap} THEN substr({upper}, 1, 17) || '59' || substr({upper}, 20) ELSE {upper} END"
     tail = f"substr({upper}, 20)"
     has_offset = f"(contains({tail}, 'Z') OR contains({tail}, '+') OR contains({tail}, '-'))"
-    zoned = f"CASE WHEN {has_offset} THEN {unleaped} ELSE {unleaped} || {lit(normalise_zone(zone))} END"
+    zoned = f"CASE WHEN {has_offset} THEN {unleaped} ELSE {unleaped} || {lit(zone)} END"
     cast = f"TRY_CAST({zoned} AS TIMESTAMPTZ)"
+    adjusted = f"CASE WHEN {leap} THEN {cast} + INTERVAL 1 SECOND ELSE {cast} END"
+    # Most values need none of that: no leap second, no lower-case t or z, and an offset (or the
+    # engine's own zone, UTC, is the mapping's): the engine's cast takes them as they are.
+    plain = f"NOT {leap} AND NOT contains({x}, 't') AND NOT contains({x}, 'z')"
+    if zone != "+00:00":
+        raw_tail = f"substr({x}, 20)"
+        plain += f" AND (contains({raw_tail}, 'Z') OR contains({raw_tail}, '+') OR contains({raw_tail}, '-'))"
     return (
         f"CASE WHEN regexp_full_match({x}, {PATTERN}) THEN "
-        f"CASE WHEN {leap} THEN {cast} + INTERVAL 1 SECOND ELSE {cast} END END"
+        f"CASE WHEN {plain} THEN TRY_CAST({x} AS TIMESTAMPTZ) ELSE {adjusted} END END"
     )
 
 

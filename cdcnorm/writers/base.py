@@ -95,10 +95,11 @@ def project(
 def write_events(
     plan: Plan, engine: DuckDBEngine, files_relation: str, path: Path, relation: str | None, *, fmt: str
 ) -> int:
-    """Write the events (JSON forms for json, native types for parquet); rows written.
-    ``relation`` holds them already sorted (see ``sorted_events``)."""
-    sql = project(plan, files_relation, render=fmt == "json", relation=relation)
-    return engine.copy(sqlglot.parse_one(sql, read=PLAN_DIALECT), path, fmt)
+    """Write the events (one RFC 8259 JSON text per line for json, native types for parquet); rows
+    written. ``relation`` holds them already sorted (see ``sorted_events``)."""
+    json_lines = fmt == "json"
+    sql = project(plan, files_relation, render=json_lines, as_line=json_lines, relation=relation)
+    return engine.copy(sqlglot.parse_one(sql, read=PLAN_DIALECT), path, "lines" if json_lines else fmt)
 
 
 def sorted_events(plan: Plan, files_relation: str) -> str:

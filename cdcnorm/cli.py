@@ -47,6 +47,16 @@ def _positive(text: str) -> int:
     return n
 
 
+def _seconds(text: str) -> float:
+    try:
+        n = float(text)
+    except ValueError:
+        n = -1.0
+    if not n >= 0:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number of seconds (0 or more)")
+    return n
+
+
 def _conversion_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("inputs", nargs="+", help="dump files or folders of dump files (CSV, JSON Lines, Parquet)")
     p.add_argument("--mappings", default="mappings", help="folder of mapping files (default: mappings/)")
@@ -76,9 +86,22 @@ def build_parser() -> argparse.ArgumentParser:
     check = sub.add_parser("check", help="what would pass, what would be quarantined, schema drift")
     _conversion_args(check)
 
-    conv = sub.add_parser("convert", help="convert dumps into envelopes, quarantine and ledger")
+    conv = sub.add_parser(
+        "convert", help="convert dumps into one run of a landing area: envelopes, quarantine, ledger"
+    )
     _conversion_args(conv)
-    conv.add_argument("--out", default="build", help="output folder (default: build/)")
+    conv.add_argument(
+        "--out", default="build", help="the landing area: a folder that accumulates runs (default: build/)"
+    )
+    conv.add_argument(
+        "--replace", action="store_true", help="empty the landing area first (a one-off conversion)"
+    )
+    conv.add_argument(
+        "--wait",
+        type=_seconds,
+        default=30.0,
+        help="seconds to wait while another run writes to the area (default 30)",
+    )
     conv.add_argument(
         "--format", dest="fmt", choices=["jsonl", "parquet"], default="jsonl", help="event file format"
     )
@@ -89,6 +112,27 @@ def build_parser() -> argparse.ArgumentParser:
     conv.add_argument("--stop-after", choices=STAGE_NAMES, help="run up to this stage and show its output")
     conv.add_argument("--limit", type=int, default=20, help="rows shown by --stop-after (default 20)")
     conv.add_argument("--table", help="with --show-plan/--stop-after: only this table")
+
+    runs_cmd = sub.add_parser(
+        "runs", help="list the runs of a landing area: inputs, rows and their fates, pending"
+    )
+    runs_cmd.add_argument("landing", help="the landing area (convert's --out)")
+    runs_cmd.add_argument("--json", action="store_true", help="print the run records as JSON")
+
+    settle = sub.add_parser(
+        "settle", help="end the wait of pending before-images: they go to quarantine, as a run of their own"
+    )
+    settle.add_argument("landing", help="the landing area (convert's --out)")
+    settle.add_argument("--mappings", default="mappings", help="folder of mapping files (default: mappings/)")
+    which = settle.add_mutually_exclusive_group(required=True)
+    which.add_argument(
+        "--before", metavar="POSITION", help="settle images at log positions below this one (raw form)"
+    )
+    which.add_argument("--all", action="store_true", help="settle every pending image")
+    settle.add_argument("--format", dest="fmt", choices=["jsonl", "parquet"], default="jsonl")
+    settle.add_argument("--wait", type=_seconds, default=30.0)
+    settle.add_argument("--json", action="store_true")
+    settle.add_argument("--quiet", action="store_true")
 
     sub.add_parser("mapping-schema", help="print the JSON Schema of mapping files (for editors)")
 
@@ -124,15 +168,17 @@ def _progress(quiet: bool) -> tuple[Progress | None, Any]:
 
 
 def _ledger_table(result: Result) -> Table:
-    t = Table(title="row ledger (read = emitted + merged + duplicate + quarantined)")
+    t = Table(title="row ledger (read + carried in = emitted + merged + duplicate + quarantined + pending)")
     for col in (
         "table",
         "file",
         "read",
+        "carried in",
         "emitted",
         "merged",
         "duplicate",
         "quarantined",
+        "pending",
         "upserts",
         "deletes",
         "unpaired",
@@ -173,6 +219,8 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
         input_format=args.input_format,
         write=not check,
         recursive=args.recursive,
+        wait=getattr(args, "wait", 30.0),
+        replace=getattr(args, "replace", False),
     )
     if getattr(args, "show_plan", False):
         from cdcnorm.pipeline import show_plans
@@ -194,23 +242,84 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
         return EXIT_OK
     if check:
         return _report_check(result, args)
+    _report_run(result, args, Path(args.out))
+    return EXIT_OK
+
+
+def _report_run(result: Result, args: argparse.Namespace, landing: Path) -> None:
+    skipped = [f"{s['name']} (run {s['converted_by']})" for s in result.skipped]
     if args.json:
         out.print_json(
             json.dumps(
-                {"ledger": result.ledger.as_dict(), "outputs": {k: str(v) for k, v in result.outputs.items()}}
+                {
+                    "run": result.run,
+                    "ledger": result.ledger.as_dict(),
+                    "outputs": {k: str(v) for k, v in result.outputs.items()},
+                    "pending": result.pending,
+                    "skipped": result.skipped,
+                }
             )
         )
-    elif not args.quiet:
-        out.print(_ledger_table(result))
-        out.print(f"ledger balanced: {result.ledger.total.read} rows read, every row accounted for")
-        out.print(
-            f"events in {Path(args.out) / 'events'}; ledger in {Path(args.out) / 'ledger.json'}"
-            + (
-                f"; {result.quarantined} quarantined rows in {Path(args.out) / 'quarantine'}"
-                if result.quarantined
-                else ""
-            )
+        return
+    if args.quiet:
+        return
+    if skipped:
+        out.print("skipped, converted before: " + ", ".join(skipped))
+    if result.run is None:
+        out.print(f"nothing new to convert: no run was added to {landing}")
+        return
+    out.print(_ledger_table(result))
+    total = result.ledger.total
+    out.print(
+        f"ledger balanced: {total.read} rows read, {total.pending_in} carried in, every row accounted for"
+    )
+    out.print(
+        f"run {result.run} committed to {landing}: events in {landing / 'events'}"
+        + (f"; {total.quarantined} quarantined rows in {landing / 'quarantine'}" if total.quarantined else "")
+        + (
+            f"; {result.pending} before-images wait for their after-images (cdcnorm settle ends the wait)"
+            if result.pending
+            else ""
         )
+    )
+
+
+def cmd_runs(args: argparse.Namespace) -> int:
+    from cdcnorm.landing import runs
+
+    root = Path(args.landing)
+    if not (root / runs.RUNS).is_dir():
+        raise UsageError(
+            "this folder holds no runs", file=str(root), hint="name the --out folder of cdcnorm convert"
+        )
+    records = runs.records(root)
+    if args.json:
+        out.print_json(json.dumps(records))
+        return EXIT_OK
+    t = Table(title=f"runs of {root}")
+    cols = ["run", "finished", "inputs", "skipped", "read", "pending_in", "emitted", "merged", "duplicate"]
+    cols += ["quarantined", "pending", "settle"]
+    for col in cols:
+        t.add_column(
+            col.replace("_", " "), justify="left" if col in ("run", "finished", "settle") else "right"
+        )
+    for rec in records:
+        row = runs.summary(rec)
+        t.add_row(*("" if row[c] is None else str(row[c]) for c in cols))
+    out.print(t)
+    return EXIT_OK
+
+
+def cmd_settle(args: argparse.Namespace) -> int:
+    from cdcnorm.pipeline import Options, run
+
+    mappings = load_mappings(Path(args.mappings))
+    options = Options(
+        out=Path(args.landing), fmt=args.fmt, wait=args.wait, settle="all" if args.all else args.before
+    )
+    result = run(mappings, [], options)
+    args.out = args.landing
+    _report_run(result, args, Path(args.landing))
     return EXIT_OK
 
 
@@ -260,6 +369,8 @@ def cmd_demo(args: argparse.Namespace) -> int:
         threads=None,
         input_format=None,
         recursive=False,
+        replace=True,
+        wait=30.0,
         json=False,
         quiet=False,
         show_plan=False,
@@ -269,7 +380,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
     )
     code = cmd_convert(ns)
     if code == EXIT_OK:
-        out.print(f"demo done: see {args.out}/events, {args.out}/quarantine and {args.out}/ledger.json")
+        out.print(f"demo done: see {args.out}/events, {args.out}/quarantine and {args.out}/runs")
     return code
 
 
@@ -287,6 +398,10 @@ def main(argv: Sequence[str] | None = None) -> int:
             return EXIT_OK
         if args.command == "demo":
             return cmd_demo(args)
+        if args.command == "runs":
+            return cmd_runs(args)
+        if args.command == "settle":
+            return cmd_settle(args)
         from cdcnorm.lineage import cli as lineage_cli
 
         return lineage_cli.run_command(args, out)

@@ -19,6 +19,7 @@ EXIT_REJECTS = 5
 EXIT_LEDGER = 6
 EXIT_LINEAGE = 7
 EXIT_BREAKS = 8
+EXIT_BUSY = 9
 
 
 def closest(name: str, candidates: Iterable[str]) -> str | None:
@@ -129,6 +130,12 @@ class LineageError(CdcnormError):
     """A lineage question cannot be answered: unknown column or model."""
 
     exit_code = EXIT_LINEAGE
+
+
+class LandingBusyError(CdcnormError):
+    """Another run holds the landing area's lock longer than --wait."""
+
+    exit_code = EXIT_BUSY
 
 
 class GraphvizMissing(CdcnormError):

@@ -1,9 +1,14 @@
-"""The row ledger: every row read has exactly one fate.
+"""The row ledger: every row read has exactly one fate, in one run and across runs.
 
-Per table and per file: ``read`` = ``emitted`` + ``merged`` (a before-image
-folded into its upsert) + ``duplicate`` + ``quarantined``, plus the events
-written (``upserts``, ``deletes``) and ``unpaired_after`` (after-images with no
-before-image, emitted as upserts). ``convert`` checks the balance and says so.
+Per table and per file, a flow: ``read`` + ``pending_in`` (before-images that
+earlier runs left waiting, carried into this one) = ``emitted`` + ``merged`` (a
+before-image folded into its upsert) + ``duplicate`` + ``quarantined`` +
+``pending`` (before-images this run leaves waiting for their after-image);
+plus the events written (``upserts``, ``deletes``) and ``unpaired_after``
+(after-images with no before-image, emitted as upserts). A waiting image
+paired in a later run counts there as emitted (the delete of a key change) or
+merged, so the runs' counts add up to one run's. ``convert`` checks the
+balance and says so.
 """
 
 from __future__ import annotations
@@ -14,24 +19,30 @@ from typing import Any
 
 from cdcnorm.plan import Plan
 
-FATES = ("emitted", "merged", "duplicate", "quarantined")
-COUNTS = ("read", *FATES, "upserts", "deletes", "unpaired_after")
+FATES = ("emitted", "merged", "duplicate", "quarantined", "pending")
+COUNTS = ("read", "pending_in", *FATES, "upserts", "deletes", "unpaired_after")
+RULE = "read + pending_in = emitted + merged + duplicate + quarantined + pending"
 
 
 @dataclass
 class FileCounts:
     read: int = 0
+    pending_in: int = 0
     emitted: int = 0
     merged: int = 0
     duplicate: int = 0
     quarantined: int = 0
+    pending: int = 0
     upserts: int = 0
     deletes: int = 0
     unpaired_after: int = 0
 
     @property
     def balanced(self) -> bool:
-        return self.read == self.emitted + self.merged + self.duplicate + self.quarantined
+        return (
+            self.read + self.pending_in
+            == self.emitted + self.merged + self.duplicate + self.quarantined + self.pending
+        )
 
     def add(self, other: FileCounts) -> None:
         for name in COUNTS:
@@ -77,7 +88,7 @@ class Ledger:
     def as_dict(self) -> dict[str, Any]:
         return {
             "balanced": self.balanced,
-            "rule": "read = emitted + merged + duplicate + quarantined",
+            "rule": RULE,
             "total": self.total.as_dict(),
             "tables": {
                 name: {
@@ -97,49 +108,58 @@ def count_fates(
     """Fill each file's fates from small aggregates of the plan's materialised steps.
 
     Rows that reach the type stage are either bad (quarantined) or good; good
-    rows are duplicates, conflicts (quarantined) or kept; kept before-images are
-    merged (paired, same key), emitted (paired, key changed: a delete) or
-    unpaired (quarantined); every other kept row is emitted as one event.
+    rows are duplicates, conflicts (quarantined) or kept; kept before-images
+    (this run's and those carried in) are merged (paired, same key), emitted
+    (paired, key changed: a delete), pending, or settled (quarantined); every
+    other kept row is emitted as one event.
     """
     paired_mode = plan.mapping.mapping.change.updates == "paired"
+
+    def fc(file_id: int) -> FileCounts:
+        return ledger.files.setdefault(ids[file_id], FileCounts())
+
     kept: dict[tuple[int, str], int] = {}
     for file_id, act, ok, n in rows(
         f"SELECT __file, __act, __ok, count(*) FROM {plan.rel('typed')} GROUP BY ALL"
     ):
-        fc = ledger.files[ids[file_id]]
         if ok:
             kept[(file_id, act)] = kept.get((file_id, act), 0) + int(n)
         else:
-            fc.quarantined += int(n)
+            fc(file_id).quarantined += int(n)
     for file_id, act, fate, n in rows(
-        f"SELECT __file, __act, __fate, count(*) FROM {plan.rel('repeat_fates')} WHERE __fate <> 'keep' GROUP BY ALL"
+        f"SELECT __file, __act, __fate, count(*) FROM {plan.rel('fates')} GROUP BY ALL"
     ):
-        fc = ledger.files[ids[file_id]]
         kept[(file_id, act)] -= int(n)
         if fate == "duplicate":
-            fc.duplicate += int(n)
+            fc(file_id).duplicate += int(n)
         else:
-            fc.quarantined += int(n)
+            fc(file_id).quarantined += int(n)
+    for file_id, n in rows(f"SELECT __file, count(*) FROM {plan.rel('carried')} GROUP BY ALL"):
+        fc(file_id).pending_in += int(n)
+        kept[(file_id, "before")] = kept.get((file_id, "before"), 0) + int(n)
     merged: dict[int, int] = {}
     rekeyed: dict[int, int] = {}
     for file_id, same_key, n in rows(f"SELECT bf, same_key, count(*) FROM {plan.rel('pairs')} GROUP BY ALL"):
         (merged if same_key else rekeyed)[file_id] = int(n)
-    after_paired = dict(rows(f"SELECT af, count(*) FROM {plan.rel('pairs')} GROUP BY ALL"))
-    for file_id, name in ids.items():
-        fc = ledger.files[name]
+    after_paired = dict(rows(f"SELECT af, count(*) FROM {plan.rel('pairs')} WHERE NOT ghost GROUP BY ALL"))
+    waiting: dict[tuple[int, bool], int] = {
+        (int(f), bool(s)): int(n)
+        for f, s, n in rows(f"SELECT __file, __settled, count(*) FROM {plan.rel('waiting')} GROUP BY ALL")
+    }
+    for file_id in {f for f, _ in kept} | set(merged) | set(rekeyed):
+        c = fc(file_id)
 
         def k(act: str, file_id: int = file_id) -> int:
             return kept.get((file_id, act), 0)
 
-        befores = k("before")
-        lonely = befores - merged.get(file_id, 0) - rekeyed.get(file_id, 0)
-        fc.merged += merged.get(file_id, 0)
-        fc.quarantined += lonely
-        fc.emitted += k("insert") + k("snapshot") + k("after") + k("delete") + rekeyed.get(file_id, 0)
-        fc.upserts += k("insert") + k("snapshot") + k("after")
-        fc.deletes += k("delete") + rekeyed.get(file_id, 0)
+        c.merged += merged.get(file_id, 0)
+        c.pending += waiting.get((file_id, False), 0)
+        c.quarantined += waiting.get((file_id, True), 0)
+        c.emitted += k("insert") + k("snapshot") + k("after") + k("delete") + rekeyed.get(file_id, 0)
+        c.upserts += k("insert") + k("snapshot") + k("after")
+        c.deletes += k("delete") + rekeyed.get(file_id, 0)
         if paired_mode:
-            fc.unpaired_after += k("after") - int(after_paired.get(file_id, 0))
+            c.unpaired_after += k("after") - int(after_paired.get(file_id, 0))
 
 
 def reason_counts(rejected_relation: str) -> str:

@@ -9,9 +9,7 @@ plan; the writers (writers/), the quarantine and the ledger read its results.
 
 from __future__ import annotations
 
-import fnmatch
 import json
-import os
 import tempfile
 import time
 from collections.abc import Callable, Iterable, Sequence
@@ -25,7 +23,8 @@ import sqlglot
 from cdcnorm import ledger as ledger_mod
 from cdcnorm import quarantine
 from cdcnorm.engines.duckdb import DuckDBEngine
-from cdcnorm.errors import DriftError, InputError, LedgerError, RejectLimitError, UsageError, closest
+from cdcnorm.errors import DriftError, LedgerError, RejectLimitError, UsageError, closest
+from cdcnorm.inputs import display_names, expand_inputs, route
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.plan import Plan, RawRelation, Source
 from cdcnorm.readers import RawFile, RawTable, reader_for, streams
@@ -37,8 +36,6 @@ from cdcnorm.stages.pair import pair_images
 from cdcnorm.stages.source import unite_sources
 from cdcnorm.stages.type import type_rows
 from cdcnorm.writers import WRITERS
-from cdcnorm.writers.base import sorted_events
-from cdcnorm.writers.lines import write_lines
 
 #: The plan-building stages, in order. ``read`` comes before them all.
 STAGES: list[tuple[str, Callable[[Plan], Plan]]] = [
@@ -75,6 +72,9 @@ class Options:
     write: bool = True
     recursive: bool = False
     scratch: Path | None = None  # where readers may put temporary files (default: the system's)
+    wait: float = 30.0  # seconds to wait for another run's lock on the landing area
+    replace: bool = False  # empty the landing area first
+    settle: str | None = None  # "all", or a raw position: pending images below it go to quarantine
 
 
 @dataclass
@@ -83,6 +83,7 @@ class TableRun:
     raw: RawTable
     plan: Plan
     unmapped: dict[str, list[str]] = field(default_factory=dict)
+    carried: dict[int, str] = field(default_factory=dict)  # ids of the files carried images came from
 
 
 @dataclass
@@ -106,6 +107,10 @@ class Result:
     drift: list[Drift]
     outputs: dict[str, Path] = field(default_factory=dict)
     stopped_after: str | None = None
+    run: str | None = None  # the landing area's run id, once committed
+    inputs: list[dict[str, Any]] = field(default_factory=list)
+    skipped: list[dict[str, Any]] = field(default_factory=list)
+    pending: int = 0
 
     @property
     def quarantined(self) -> int:
@@ -165,85 +170,6 @@ def _drift_hint(d: Drift, columns: list[str]) -> str:
     return f"rename the column in the dump or set {key}"
 
 
-def _matches(path: Path, pattern: str) -> bool:
-    """A mapping's file pattern matches the name, or the name without a compression suffix."""
-    return fnmatch.fnmatchcase(path.name, pattern) or fnmatch.fnmatchcase(streams.base_name(path), pattern)
-
-
-def route(files: Iterable[Path], mappings: Sequence[LoadedMapping]) -> dict[str, list[Path]]:
-    """Which mapping reads each file: by the mapping's file globs, or a file named ``<table>.jsonl``."""
-    by_table: dict[str, list[Path]] = {m.table: [] for m in mappings}
-    for path in files:
-        matches = [m for m in mappings if any(_matches(path, g) for g in m.mapping.files)]
-        if not matches:
-            base = streams.base_name(path)
-            stem = base.split(".jsonl")[0] if ".jsonl" in base else None
-            matches = [m for m in mappings if stem == m.table]
-        if not matches:
-            globs = [g for m in mappings for g in m.mapping.files]
-            near = closest(path.name, globs + [m.table for m in mappings])
-            raise InputError(
-                "this file matches no mapping",
-                file=str(path),
-                expected="a file name matching one of " + ", ".join(globs),
-                found=path.name,
-                hint=f"closest mapping pattern: {near}"
-                if near
-                else "add its pattern to a mapping's files list",
-            )
-        if len(matches) > 1:
-            raise InputError(
-                "this file matches more than one mapping: " + ", ".join(m.table for m in matches),
-                file=str(path),
-                hint="make the mappings' files patterns disjoint",
-            )
-        by_table[matches[0].table].append(path)
-    return by_table
-
-
-def expand_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> list[Path]:
-    """Files as given; a folder stands for the dump files directly inside it (and, with
-    ``recursive``, in its sub-folders). A folder's sub-folders are never skipped silently:
-    without ``recursive`` they are an error that says so. Hidden files and folders are left out."""
-    out: list[Path] = []
-    for raw in inputs:
-        p = Path(raw)
-        if p.is_dir():
-            if recursive:
-                found = sorted(
-                    c
-                    for c in p.rglob("*")
-                    if c.is_file() and not any(part.startswith(".") for part in c.relative_to(p).parts)
-                )
-                out.extend(found)
-                continue
-            subs = sorted(c.name for c in p.iterdir() if c.is_dir() and not c.name.startswith("."))
-            if subs:
-                raise InputError(
-                    f"this folder has sub-folders ({', '.join(subs[:5])}{', ...' if len(subs) > 5 else ''})",
-                    file=str(p),
-                    hint="add --recursive to read their files too, or name the files to read",
-                )
-            out.extend(sorted(c for c in p.iterdir() if c.is_file() and not c.name.startswith(".")))
-        elif p.exists():
-            out.append(p)
-        else:
-            raise InputError("no such file", file=str(p))
-    seen: set[Path] = set()
-    unique = []
-    for p in out:
-        r = p.resolve()
-        if r not in seen:
-            seen.add(r)
-            unique.append(p)
-    return unique
-
-
-def _display_names(files: list[Path]) -> dict[Path, str]:
-    names = [f.name for f in files]
-    return {f: (f.name if names.count(f.name) == 1 else f.as_posix()) for f in files}
-
-
 def read_all(
     mappings: Sequence[LoadedMapping],
     routed: dict[str, list[Path]],
@@ -254,7 +180,7 @@ def read_all(
 ) -> dict[str, RawTable]:
     """Load every routed file into the engine, a table at a time; file ids follow display names."""
     all_files = [p for ps in routed.values() for p in ps]
-    names = _display_names(all_files)
+    names = display_names(all_files)
     by_name = {m.table: m for m in mappings}
     out: dict[str, RawTable] = {}
     next_id = 0
@@ -304,7 +230,7 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
     return drift, unmapped
 
 
-def compile_table(mapping: LoadedMapping, raw: RawTable) -> Plan:
+def compile_table(mapping: LoadedMapping, raw: RawTable, settle: str | None = None) -> Plan:
     """Build the table's plan: every stage adds its steps, in order."""
     for c in mapping.mapping.mapped_columns():
         raw.internal(c)  # a mapped column no file has still has a name (its values are NULL)
@@ -314,6 +240,7 @@ def compile_table(mapping: LoadedMapping, raw: RawTable) -> Plan:
         relations=tuple(RawRelation(name, tuple(cols)) for name, cols in raw.relations),
         internal={c: raw.internal(c) for c in raw.columns},
         malformed=raw.malformed_relation if any(f.malformed for f in raw.files) else None,
+        settle=settle,
     )
     for _, stage in STAGES:
         plan = stage(plan)
@@ -329,21 +256,64 @@ def run(
     progress: Progress = _no_progress,
     strict_drift: bool = True,
 ) -> Result:
-    """Read, plan, execute and (when ``options.write``) write every table."""
+    """Read, plan, execute and (when ``options.write``) write every table as one run of the
+    landing area ``options.out``."""
     options = options or Options()
     if stop_after is not None and stop_after not in STAGE_NAMES:
         raise UsageError(f"unknown stage {stop_after!r}; stages are {', '.join(STAGE_NAMES)}")
     if options.fmt not in WRITERS:
         raise UsageError(f"unknown output format {options.fmt!r}; formats are {', '.join(WRITERS)}")
     files = expand_inputs(inputs, recursive=options.recursive)
-    if not files:
+    if not files and options.settle is None:
         raise UsageError("no input files given")
     routed = route(files, mappings)
     scratch = Path(tempfile.mkdtemp(prefix="cdcnorm-", dir=options.scratch))
     try:
-        return _run(mappings, routed, options, scratch, stop_after, progress, strict_drift)
+        if not (options.write and options.out is not None and stop_after is None):
+            return _run(mappings, routed, options, scratch, stop_after, progress, strict_drift, None)
+        from cdcnorm.landing import open_landing
+        from cdcnorm.landing.outputs import commit_run, new_inputs
+
+        with open_landing(options.out, options.wait) as area:
+            if options.replace:
+                area.clear()
+            routed, inputs_info, skipped, later = new_inputs(area, routed)
+            has_pending = options.settle is not None and any(area.pending_file(m.table) for m in mappings)
+            if not any(routed.values()) and not has_pending:
+                engine = DuckDBEngine(temp_directory=str(scratch / "spill"))
+                return Result(engine, {}, ledger_mod.Ledger(), [], skipped=skipped)
+            result = _run(mappings, routed, options, scratch, None, progress, strict_drift, area)
+            result.skipped = skipped
+            commit_run(result, area, options, inputs_info, later, progress)
+        if options.max_rejects and result.quarantined > options.max_rejects:
+            raise RejectLimitError(
+                f"{result.quarantined} rows were quarantined, more than --max-rejects {options.max_rejects}"
+                " (the run was committed)",
+                expected=f"at most {options.max_rejects} rejected rows",
+                found=str(result.quarantined),
+                hint=f"see {options.out / 'quarantine'}",
+            )
+        return result
     finally:
         streams.remove(scratch)
+
+
+def _settle_key(engine: DuckDBEngine, mapping: LoadedMapping, settle: str | None) -> str | None:
+    """The settle option as SQL for the plan: None, "all", or the position's key (checked)."""
+    if settle is None or settle == "all":
+        return settle
+    from cdcnorm import positions
+    from cdcnorm.sql import lit
+
+    spec = mapping.mapping.change.position
+    key = positions.position_key(spec, lit(settle))
+    if engine.rows(f"SELECT {key}")[0][0] is None:
+        raise UsageError(
+            f"--before {settle!r} is not a position of {mapping.table}",
+            expected=positions.expected(spec),
+            found=settle,
+        )
+    return f"({key})"
 
 
 def _run(
@@ -354,21 +324,32 @@ def _run(
     stop_after: str | None,
     progress: Progress,
     strict_drift: bool,
+    area: Any,
 ) -> Result:
+    from cdcnorm.landing import memory
+
     engine = DuckDBEngine(
         memory_limit=options.memory_limit, threads=options.threads, temp_directory=str(scratch / "spill")
     )
     read = read_all(mappings, routed, engine, options, progress, scratch)
+    by_name = {m.table: m for m in mappings}
+    if area is not None and options.settle is not None:
+        for m in mappings:  # a settle run visits every table with images waiting
+            if m.table not in read and area.pending_file(m.table):
+                read[m.table] = RawTable(m.mapping.slug)
     runs: dict[str, TableRun] = {}
     drifts: list[Drift] = []
     file_names: list[tuple[int, str]] = []
-    by_name = {m.table: m for m in mappings}
+    next_id = sum(len(raw.files) for raw in read.values())
     for table, raw in read.items():
         drift, unmapped = find_drift(by_name[table], raw)
         drifts.extend(drift)
-        plan = compile_table(by_name[table], raw)
+        plan = compile_table(by_name[table], raw, _settle_key(engine, by_name[table], options.settle))
         file_names.extend((f.file_id, f.name) for f in raw.files)
-        runs[table] = TableRun(by_name[table], raw, plan, unmapped)
+        carried = memory.load_carried(engine, plan, area.pending_file(table) if area else None, next_id)
+        next_id += len(carried)
+        file_names.extend(carried)
+        runs[table] = TableRun(by_name[table], raw, plan, unmapped, dict(carried))
     if drifts and strict_drift:
         d = drifts[0]
         columns = next(f.columns for f in runs[d.table].raw.files if f.name == d.file)
@@ -404,6 +385,8 @@ def _run(
         for j, step in enumerate(plan.steps):
             progress(f"{table}: {step.stage} ({step.name}), {rows:,} rows{last}", j, len(plan.steps))
             began = time.perf_counter()
+            if step.name == "seen":  # what earlier runs emitted, at the positions this run has
+                memory.load_earlier(engine, plan, area.emitted_files(table) if area else [])
             if step.materialize:
                 engine.materialize(step.relation, step.expression)
             else:
@@ -421,73 +404,25 @@ def _run(
             "the row ledger does not balance: " + json.dumps(result.ledger.as_dict()["total"]),
             hint="this is a bug in cdcnorm; please report it with the inputs",
         )
-    if options.write and options.out is not None:
-        _write(result, options, progress)
-    if options.max_rejects and result.quarantined > options.max_rejects:
-        raise RejectLimitError(
-            f"{result.quarantined} rows were quarantined, more than --max-rejects {options.max_rejects}"
-            + (" (all outputs were written)" if options.write and options.out else ""),
-            expected=f"at most {options.max_rejects} rejected rows",
-            found=str(result.quarantined),
-            hint=f"see {options.out / 'quarantine'}" if options.out else None,
-        )
     return result
 
 
-def _rejected_relation(trun: TableRun) -> str:
+def rejected_relation(trun: TableRun) -> str:
     return f"{trun.mapping.mapping.slug}__quarantined"
 
 
 def _account(trun: TableRun, engine: DuckDBEngine) -> ledger_mod.TableLedger:
     plan = trun.plan
-    rejected = _rejected_relation(trun)
+    rejected = rejected_relation(trun)
     engine.materialize(rejected, sqlglot.parse_one(quarantine.rejected_rows(plan), read=PLAN_DIALECT))
     tl = ledger_mod.TableLedger(trun.mapping.table)
-    ids = {s.file_id: s.name for s in plan.sources}
+    ids = {s.file_id: s.name for s in plan.sources} | trun.carried
     for f in trun.raw.files:
         tl.files[f.name] = ledger_mod.FileCounts(read=f.rows_read, quarantined=f.malformed)
     ledger_mod.count_fates(plan, engine.rows, tl, ids)
     for reason, n in engine.rows(ledger_mod.reason_counts(ident(rejected))):
         tl.reasons[str(reason)] = int(n)
     return tl
-
-
-def _write(result: Result, options: Options, progress: Progress) -> None:
-    assert options.out is not None
-    writer = WRITERS[options.fmt]
-    out = options.out
-    for table, trun in result.tables.items():
-        engine = result.engine
-        qpath = out / "quarantine" / f"{table}.jsonl"
-        lines_sql = quarantine.quarantine_lines(trun.plan, _rejected_relation(trun))
-        progress(f"{table}: quarantine", 0, 1)
-        lines = engine.arrow(sqlglot.parse_one(lines_sql, read=PLAN_DIALECT))["line"]
-        # the raw rows are needed no more: free them before the events are sorted
-        free_raw(trun, engine)
-        progress(f"{table}: sort and write events", 0, 1)
-        # one streaming pass: the engine sorts the flat events, then builds and writes the envelopes
-        ordered = f"({sorted_events(trun.plan, '__files')}) AS ordered_events"
-        written = writer.write(
-            trun.plan, engine, "__files", out / "events" / f"{table}{writer.SUFFIX}", ordered
-        )
-        counts = result.ledger.tables[table].total
-        # The ledger is counted from aggregates; the files are written from the rows themselves.
-        if written != counts.emitted or len(lines) != counts.quarantined:
-            raise LedgerError(
-                f"{table}: wrote {written} events and {len(lines)} quarantine lines, but the ledger counts "
-                f"{counts.emitted} emitted and {counts.quarantined} quarantined rows",
-                hint="this is a bug in cdcnorm; please report it with the inputs",
-            )
-        if len(lines):
-            write_lines(lines, qpath)
-        elif qpath.exists():
-            qpath.unlink()
-        result.outputs[table] = out / "events" / f"{table}{writer.SUFFIX}"
-    ledger_path = out / "ledger.json"
-    tmp = ledger_path.with_name(f"ledger.json.tmp-{os.getpid()}")
-    out.mkdir(parents=True, exist_ok=True)
-    tmp.write_text(json.dumps(result.ledger.as_dict(), indent=2) + "\n", encoding="utf-8")
-    os.replace(tmp, ledger_path)
 
 
 def show_plans(

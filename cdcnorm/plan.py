@@ -50,7 +50,34 @@ class Plan:
     relations: tuple[RawRelation, ...] = ()
     internal: dict[str, str] = field(default_factory=dict)
     malformed: str | None = None
+    #: pending before-images carried in that this run sends to quarantine: None (they keep
+    #: waiting), "all", or SQL of a position key below which they do
+    settle: str | None = None
     steps: tuple[Step, ...] = field(default_factory=tuple)
+
+    def types(self) -> dict[str, str]:
+        """The engine types of the typed row's columns (what earlier runs' files are read back as)."""
+        from cdcnorm import positions
+
+        change = self.mapping.mapping.change
+        seq = change.sequence
+        out = {
+            "__act": "VARCHAR",
+            "__pos": positions.key_type(change.position.kind, change.position.width),
+            "__seq": positions.key_type(seq.kind, positions.sequence_width(seq, change.position))
+            if seq
+            else "UBIGINT",
+            "__cat": "TIMESTAMPTZ",
+        }
+        for i, ftype in enumerate(self.mapping.field_types.values()):
+            out[f"v{i}"] = ftype.sql_type
+        return out
+
+    def content(self, prefix: str = "") -> str:
+        """SQL: a 128-bit digest of a row's content (commit time and every value), to tell a
+        repeat of an identity that an earlier run emitted from a conflicting version."""
+        parts = [f"'c': {prefix}__cat", *(f"'v{i}': {prefix}v{i}" for i in range(len(self.fields)))]
+        return f"md5_number(CAST({{{', '.join(parts)}}} AS VARCHAR))"
 
     def raw(self, column: str) -> str:
         """The quoted internal name of a raw column (what the plan's SQL says for it)."""

@@ -125,6 +125,17 @@ def sequence_text(spec: SequenceSpec, position: PositionSpec, k: str) -> str:
     return text(spec.kind, k, width=sequence_width(spec, position))
 
 
+def key_type(kind: str, width: int = 32) -> str:
+    """The engine type of a key of this kind."""
+    if kind in ("integer", "hex-pair"):
+        return "UBIGINT"
+    if kind == "hex":
+        return "UHUGEINT" if width <= NUMERIC_HEX_DIGITS else "VARCHAR"
+    if kind == "timestamp":
+        return "TIMESTAMPTZ"
+    return "VARCHAR"
+
+
 def expected(spec: PositionSpec) -> str:
     return expected_kind(spec.kind, spec.width)
 

@@ -34,23 +34,24 @@ def rejected_rows(plan: Plan) -> str:
     records the reader could not split (``plan.malformed``)."""
     paired_mode = plan.mapping.mapping.change.updates == "paired"
     unpaired = (
-        "'before-image without an after-image at its position'"
+        "'before-image without an after-image: settled, it waits no more'"
         if paired_mode
         else "'before-image in an after-only mapping'"
     )
     conflict = _reason(
-        lit("one version per (position, action, key)"),
-        "CAST(__versions AS VARCHAR) || ' versions'",
-        lit("conflict"),
+        "CASE WHEN __earlier_run IS NULL THEN 'one version per (position, action, key)' "
+        "ELSE 'the version run ' || __earlier_run || ' emitted' END",
+        "CASE WHEN __earlier_run IS NULL THEN CAST(__versions AS VARCHAR) || ' versions' "
+        "ELSE 'other content' END",
+        "CASE WHEN __earlier_run IS NULL THEN 'conflict' ELSE 'conflict with run ' || __earlier_run END",
     )
     lonely = _reason(lit("an after-image at the same position"), position_text(plan), unpaired)
     parts = [
         f"SELECT __file, __row, reasons, CAST(NULL AS VARCHAR) AS text FROM {plan.rel('rejects')}",
         f"SELECT __file, __row, {conflict} AS reasons, CAST(NULL AS VARCHAR) AS text "
-        f"FROM {plan.rel('deduped')} WHERE __fate = 'conflict'",
+        f"FROM {plan.rel('fates')} WHERE __fate = 'conflict'",
         f"SELECT __file, __row, {lonely} AS reasons, CAST(NULL AS VARCHAR) AS text "
-        f"FROM {plan.rel('kept')} k WHERE __act = 'before' AND NOT EXISTS "
-        f"(SELECT 1 FROM {plan.rel('pairs')} p WHERE p.bf = k.__file AND p.br = k.__row)",
+        f"FROM {plan.rel('waiting')} WHERE __settled",
     ]
     if plan.malformed:
         parts.append(
@@ -60,14 +61,15 @@ def rejected_rows(plan: Plan) -> str:
     return " UNION ALL ".join(parts)
 
 
-def quarantine_lines(plan: Plan, rejected_relation: str, files_relation: str = "__files") -> str:
-    """SQL: one JSON line per rejected row, sorted by file name and row. The raw values come
-    from the raw relations (only rejected rows are looked up), under each file's own names."""
+def raw_rows(plan: Plan, wanted: str) -> str:
+    """SQL: (__file, __row, __enc, raw) for the rows of relation ``wanted`` (which has __file and
+    __row): ``raw`` is the JSON object of the row's raw columns under its own file's names, as read.
+    Only the wanted rows are looked up; a before-image carried in from an earlier run brings the
+    raw object it was read with."""
     used = {c for r in plan.relations for c in r.columns} | {
         plan.internal[c] for s in plan.sources for c in s.columns
     }
     internal = sorted(used, key=lambda c: int(c[1:]))
-    rejected = ident(rejected_relation)
     unions = []
     for rel in plan.relations:
         picked = "".join(
@@ -75,8 +77,8 @@ def quarantine_lines(plan: Plan, rejected_relation: str, files_relation: str = "
             for c in internal
         )
         unions.append(
-            f"SELECT x.__file, x.__row, x.__enc{picked} "
-            f"FROM {ident(rel.name)} x SEMI JOIN {rejected} q ON x.__file = q.__file AND x.__row = q.__row"
+            f"SELECT x.__file, x.__row, x.__enc{picked} FROM {ident(rel.name)} x "
+            f"SEMI JOIN {wanted} q ON x.__file = q.__file AND x.__row = q.__row"
         )
     if not unions:
         nulls = "".join(f", CAST(NULL AS VARCHAR) AS {ident(c)}" for c in internal)
@@ -89,25 +91,37 @@ def quarantine_lines(plan: Plan, rejected_relation: str, files_relation: str = "
         by_columns.setdefault(src.columns, []).append(src.file_id)
     parts = []
     for columns, ids in by_columns.items():
-        raw = "{" + ", ".join(f"{lit(c)}: s.{plan.raw(c)}" for c in columns) + "}" if columns else None
-        raw_json = f"to_json({raw})" if raw else "'{}'"
-        meta = (
-            f"to_json({{'table': {lit(plan.mapping.table)}, 'file': f.name, 'row': r.__row, "
-            f"'reasons': r.reasons, 'text': r.text, 'raw_base64': CAST(s.__enc AS JSON)}})"
-        )
-        line = (
-            f"'{{\"{META_KEY}\":' || {meta} || CASE WHEN {raw_json} = '{{}}' OR s.__row IS NULL THEN '}}' "
-            f"ELSE ',' || substr({raw_json}, 2) END"
+        raw = (
+            "to_json({" + ", ".join(f"{lit(c)}: s.{plan.raw(c)}" for c in columns) + "})"
+            if columns
+            else "'{}'"
         )
         parts.append(
-            f"SELECT f.name AS __name, r.__row, {line} AS line FROM {rejected} r "
-            f"JOIN {files_relation} f ON f.id = r.__file "
-            f"LEFT JOIN raw_rows s ON s.__file = r.__file AND s.__row = r.__row "
-            f"WHERE r.__file IN ({', '.join(str(i) for i in ids)})"
+            f"SELECT s.__file, s.__row, s.__enc, CAST({raw} AS VARCHAR) AS raw FROM ({' UNION ALL '.join(unions)}) s "
+            f"WHERE s.__file IN ({', '.join(str(i) for i in ids)})"
         )
-    if not parts:
-        return "SELECT CAST(NULL AS VARCHAR) AS line WHERE FALSE"
+    parts.append(
+        f"SELECT c.__file, c.__row, CAST(NULL AS VARCHAR), c.__raw FROM {plan.rel('carried')} c "
+        f"SEMI JOIN {wanted} q ON c.__file = q.__file AND c.__row = q.__row"
+    )
+    return " UNION ALL ".join(parts)
+
+
+def quarantine_lines(plan: Plan, rejected_relation: str, files_relation: str = "__files") -> str:
+    """SQL: one JSON line per rejected row, sorted by file name and row: the ``_cdcnorm`` object,
+    then the row's raw columns as read."""
+    rejected = ident(rejected_relation)
+    meta = (
+        f"to_json({{'table': {lit(plan.mapping.table)}, 'file': f.name, 'row': r.__row, "
+        f"'reasons': r.reasons, 'text': r.text, 'raw_base64': CAST(s.__enc AS JSON)}})"
+    )
+    line = (
+        f"'{{\"{META_KEY}\":' || {meta} || CASE WHEN s.raw IS NULL OR s.raw = '{{}}' THEN '}}' "
+        "ELSE ',' || substr(s.raw, 2) END"
+    )
     return (
-        f"WITH raw_rows AS ({' UNION ALL '.join(unions)}) "
-        f"SELECT line FROM ({' UNION ALL '.join(parts)}) ORDER BY __name, __row"
+        f"SELECT line FROM (SELECT f.name AS __name, r.__row, {line} AS line FROM {rejected} r "
+        f"JOIN {files_relation} f ON f.id = r.__file "
+        f"LEFT JOIN ({raw_rows(plan, rejected)}) s ON s.__file = r.__file AND s.__row = r.__row) "
+        "ORDER BY __name, __row"
     )

@@ -24,18 +24,42 @@ class Converted:
     out: Path
 
     def events(self, table: str) -> list[dict[str, Any]]:
-        path = self.out / "events" / f"{table}.jsonl"
-        return [json.loads(line) for line in path.read_text(encoding="utf-8").splitlines()]
+        """Every run's events of the table, run by run."""
+        return _lines(sorted((self.out / "events" / table).glob("*.jsonl")))
 
     def quarantine(self, table: str) -> list[dict[str, Any]]:
-        path = self.out / "quarantine" / f"{table}.jsonl"
-        if not path.exists():
-            return []
-        return [json.loads(line) for line in path.read_text(encoding="utf-8").splitlines()]
+        return _lines(sorted((self.out / "quarantine" / table).glob("*.jsonl")))
 
     def ledger(self) -> dict[str, Any]:
-        data: dict[str, Any] = json.loads((self.out / "ledger.json").read_text())
-        return data
+        """The ledger of the last run."""
+        return last_run(self.out)["ledger"]
+
+
+def _lines(paths: list[Path]) -> list[dict[str, Any]]:
+    return [json.loads(line) for p in paths for line in p.read_text(encoding="utf-8").splitlines()]
+
+
+def last_run(landing: Path) -> dict[str, Any]:
+    """The record of the landing area's last run."""
+    data: dict[str, Any] = json.loads(sorted((landing / "runs").glob("*.json"))[-1].read_text())
+    return data
+
+
+def run_files(landing: Path, folder: str, table: str) -> list[Path]:
+    return sorted((landing / folder / table).glob("*.*"))
+
+
+def landing_outputs(landing: Path) -> dict[str, bytes]:
+    """Events and quarantine per table, every run's file in run order, keyed like
+    ``events/<table>.jsonl``: what a comparison of two landing areas should look at."""
+    out: dict[str, bytes] = {}
+    for folder in ("events", "quarantine"):
+        for table_dir in sorted((landing / folder).glob("*")):
+            files = sorted(table_dir.iterdir())
+            out[f"{folder}/{table_dir.name}{''.join(files[0].suffixes)}"] = b"".join(
+                f.read_bytes() for f in files
+            )
+    return out
 
 
 def write_files(folder: Path, files: dict[str, str | bytes]) -> list[Path]:

@@ -11,7 +11,7 @@ import pyarrow.parquet as pq
 import pytest
 import sqlglot
 
-from tests.conftest import ROOT, cli
+from tests.conftest import ROOT, cli, last_run, run_files
 
 DUMPS = ROOT / "examples" / "dumps"
 MAPPINGS = ROOT / "mappings"
@@ -21,14 +21,23 @@ def test_demo_runs_and_balances(tmp_path: Path, capsys: pytest.CaptureFixture[st
     assert cli("demo", "--root", str(ROOT), "--out", str(tmp_path)) == 0
     text = capsys.readouterr().out
     assert "ledger balanced: 37 rows read" in text
-    ledger = json.loads((tmp_path / "ledger.json").read_text())
+    record = last_run(tmp_path)
+    ledger = record["ledger"]
     assert ledger["balanced"] and ledger["total"]["read"] == 37
     assert sorted(p.name for p in (tmp_path / "events").iterdir()) == [
-        "ferry.bookings.jsonl",
-        "ferry.passengers.jsonl",
-        "ferry.sailings.jsonl",
+        "ferry.bookings",
+        "ferry.passengers",
+        "ferry.sailings",
     ]
+    assert [p.name for p in (tmp_path / "events" / "ferry.bookings").iterdir()] == [f"{record['run']}.jsonl"]
     assert not list(tmp_path.rglob("*.tmp-*"))  # atomic writes leave no temporary files
+    assert (
+        not list((tmp_path / ".cdcnorm").glob("staging-*"))
+        and not (tmp_path / ".cdcnorm" / "journal.json").exists()
+    )
+    # the demo replaces its landing area: run again, one run
+    assert cli("demo", "--root", str(ROOT), "--out", str(tmp_path)) == 0
+    assert len(list((tmp_path / "runs").iterdir())) == 1
 
 
 def test_convert_json_output_and_parquet_types(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
@@ -49,7 +58,8 @@ def test_convert_json_output_and_parquet_types(tmp_path: Path, capsys: pytest.Ca
     )
     report = json.loads(capsys.readouterr().out)
     assert report["ledger"]["balanced"]
-    table = pq.read_table(out / "events" / "ferry.bookings.parquet")
+    (events,) = run_files(out, "events", "ferry.bookings")
+    table = pq.read_table(events)
     values = table.schema.field("values").type
     assert values.field("fare").type == pa.decimal128(12, 2)
     assert values.field("booked_at").type == pa.timestamp("us", tz="UTC")
@@ -57,7 +67,8 @@ def test_convert_json_output_and_parquet_types(tmp_path: Path, capsys: pytest.Ca
     # the same events as the JSON Lines output, in the same order
     jl = tmp_path / "jl"
     assert cli("convert", "--mappings", str(MAPPINGS), str(DUMPS), "--out", str(jl), "--quiet") == 0
-    lines = [json.loads(x) for x in (jl / "events" / "ferry.bookings.jsonl").read_text().splitlines()]
+    (jl_events,) = run_files(jl, "events", "ferry.bookings")
+    lines = [json.loads(x) for x in jl_events.read_text().splitlines()]
     assert table.column("position").to_pylist() == [e["position"] for e in lines]
     fares = [None if v is None else str(v["fare"]) for v in table.column("values").to_pylist()]
     assert fares == [None if e["values"] is None else e["values"]["fare"] for e in lines]
@@ -70,9 +81,12 @@ def test_output_is_byte_identical_whatever_the_input_order(tmp_path: Path) -> No
         cli("convert", "--quiet", "--mappings", str(MAPPINGS), *reversed(files), "--out", str(tmp_path / "b"))
         == 0
     )
-    for p in (tmp_path / "a").rglob("*"):
-        if p.is_file():
-            assert p.read_bytes() == (tmp_path / "b" / p.relative_to(tmp_path / "a")).read_bytes(), p
+    for folder in ("events", "quarantine"):
+        for table in ("ferry.bookings", "ferry.passengers", "ferry.sailings"):
+            a = [f.read_bytes() for f in run_files(tmp_path / "a", folder, table)]
+            b = [f.read_bytes() for f in run_files(tmp_path / "b", folder, table)]
+            assert a and a == b, (folder, table)
+    assert last_run(tmp_path / "a")["ledger"] == last_run(tmp_path / "b")["ledger"]
 
 
 def test_check_reports_unmapped_columns_and_rejects(capsys: pytest.CaptureFixture[str]) -> None:
@@ -92,7 +106,9 @@ def test_drift_names_field_and_column(tmp_path: Path, capsys: pytest.CaptureFixt
     assert cli("convert", "--mappings", str(MAPPINGS), str(dumps), "--out", str(tmp_path / "o")) == 4
     err = capsys.readouterr().err
     assert "field passenger reads raw column 'pax_name'" in err and 'did you mean "passenger_name"' in err
-    assert not (tmp_path / "o").exists()  # nothing written
+    assert (
+        not (tmp_path / "o" / "runs").exists() and not (tmp_path / "o" / "events").exists()
+    )  # nothing written
     assert cli("check", "--mappings", str(MAPPINGS), str(dumps)) == 4
     assert "drift" in capsys.readouterr().out
 
@@ -120,8 +136,9 @@ def test_max_rejects_exits_5_but_writes_everything(
         "convert", "--mappings", str(MAPPINGS), str(DUMPS), "--out", str(tmp_path), "--max-rejects", "5"
     )
     assert code == 5
-    assert "13 rows were quarantined" in capsys.readouterr().err
-    assert (tmp_path / "ledger.json").exists() and len(list((tmp_path / "quarantine").iterdir())) == 3
+    assert "11 rows were quarantined" in capsys.readouterr().err
+    assert last_run(tmp_path)["ledger"]["total"]["quarantined"] == 11
+    assert len(list((tmp_path / "quarantine").iterdir())) == 3
 
 
 def test_show_plan_prints_parseable_sql(capsys: pytest.CaptureFixture[str]) -> None:
@@ -155,19 +172,24 @@ def test_stop_after_each_stage(stage: str, capsys: pytest.CaptureFixture[str]) -
     assert report["stage"] == stage and report["rows"]
 
 
-def test_a_fixed_quarantine_file_feeds_back(tmp_path: Path) -> None:
+def test_a_fixed_quarantine_file_feeds_back_as_its_own_run(tmp_path: Path) -> None:
     out = tmp_path / "o"
     assert cli("convert", "--quiet", "--mappings", str(MAPPINGS), str(DUMPS), "--out", str(out)) == 0
-    q = out / "quarantine" / "ferry.bookings.jsonl"
+    before = {p: p.read_bytes() for p in out.rglob("*") if p.is_file() and ".cdcnorm" not in p.parts}
+    (q,) = run_files(out, "quarantine", "ferry.bookings")
     lines = [json.loads(x) for x in q.read_text().splitlines()]
     fixable = [x for x in lines if x.get("fare") == "12.345"]
     assert len(fixable) == 1
     fixable[0]["fare"] = "12.35"
-    fixed = tmp_path / "ferry.bookings.jsonl"
+    fixed = tmp_path / "fixes" / "ferry.bookings" / "fixed.jsonl"  # a folder named after the table routes it
+    fixed.parent.mkdir(parents=True)
     fixed.write_text(json.dumps(fixable[0]) + "\n")
-    again = tmp_path / "again"
-    assert cli("convert", "--quiet", "--mappings", str(MAPPINGS), str(fixed), "--out", str(again)) == 0
-    (event,) = [json.loads(x) for x in (again / "events" / "ferry.bookings.jsonl").read_text().splitlines()]
+    assert cli("convert", "--quiet", "--mappings", str(MAPPINGS), str(fixed), "--out", str(out)) == 0
+    after = {p: p.read_bytes() for p in out.rglob("*") if p.is_file() and ".cdcnorm" not in p.parts}
+    assert all(after[p] == b for p, b in before.items())  # nothing earlier changes
+    assert len(list((out / "runs").iterdir())) == 2
+    new_events = run_files(out, "events", "ferry.bookings")[-1]
+    (event,) = [json.loads(x) for x in new_events.read_text().splitlines()]
     assert event["key"] == {"booking_id": 1004} and event["values"]["fare"] == "12.35"
     assert event["position"].startswith("00000017/00000020")
 
@@ -189,7 +211,7 @@ def test_empty_inputs_and_unknown_format(tmp_path: Path, capsys: pytest.CaptureF
         )
         == 0
     )
-    ledger = json.loads((tmp_path / "o" / "ledger.json").read_text())
+    ledger = last_run(tmp_path / "o")["ledger"]
     assert ledger["total"]["read"] == 0
     (d / "bookings-x.xlsx").write_text("?")
     (d / "bookings-empty.csv").unlink()

@@ -13,7 +13,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from tests.conftest import ConvertFn, cli, write_files
+from tests.conftest import ConvertFn, cli, last_run, run_files, write_files
 
 # Names a dump may use that look like the plan's own columns, and names that need quoting.
 ODD = ["__$start_lsn", "__row", "__file", "__enc", "v0", "q", "name with space", 'a "quoted" name', "dot.ted"]
@@ -285,7 +285,7 @@ def test_broken_last_field_through_the_cli(tmp_path: Path, capsys: pytest.Captur
     assert cli("convert", "--mappings", str(mdir), str(tmp_path / "d"), "--out", str(out), "--json") == 0
     ledger = json.loads(capsys.readouterr().out)["ledger"]
     assert ledger["balanced"] and ledger["total"]["read"] == 4 and ledger["total"]["quarantined"] == 1
-    (line,) = (out / "quarantine" / "t.notes.jsonl").read_text().splitlines()
+    (line,) = run_files(out, "quarantine", "t.notes")[0].read_text().splitlines()
     assert json.loads(line)["_cdcnorm"]["text"] == 'I,2,2,"b'
 
 
@@ -319,15 +319,15 @@ def test_a_dump_larger_than_the_memory_limit_converts(tmp_path: Path) -> None:
             == 0
         )
         outs.append(out)
-    a, b = (pq.read_table(o / "events" / "lockers.deliveries.parquet") for o in outs)
+    a, b = (pq.read_table(run_files(o, "events", "lockers.deliveries")[0]) for o in outs)
     assert a.num_rows > 90_000 and a.equals(b)
-    assert (outs[0] / "ledger.json").read_text() == (outs[1] / "ledger.json").read_text()
+    assert last_run(outs[0])["ledger"] == last_run(outs[1])["ledger"]
 
 
 def test_control_characters_and_line_separators_stay_one_json_line(convert: ConvertFn) -> None:
     # RFC 8259 section 7: control characters are escaped inside strings; U+2028 may stand as is
     text = "a\x01b\x1fc\u2028d\re"
     done = convert(PLAIN, {"n.csv": f'op,pos,id,a\nI,1,1,"{text}"\n'})
-    lines = (done.out / "events" / "t.notes.jsonl").read_text(encoding="utf-8").split("\n")
+    lines = run_files(done.out, "events", "t.notes")[0].read_text(encoding="utf-8").split("\n")
     assert len(lines) == 2 and lines[1] == ""
     assert json.loads(lines[0])["values"]["a"] == text

@@ -180,6 +180,18 @@ class Mapping(Strict):
             return {str(k): _field_shorthand(v) for k, v in value.items()}
         return value
 
+    @field_validator("table")
+    @classmethod
+    def _table_is_a_safe_name(cls, v: str) -> str:
+        from cdcnorm.names import problem
+
+        why = problem(v)
+        if why:
+            raise ValueError(
+                f"table {v!r} cannot name the output's folders: {why}; write e.g. ferry.bookings"
+            )
+        return v
+
     @model_validator(mode="after")
     def _keys_are_fields(self) -> Mapping:
         missing = [k for k in self.key if k not in self.fields]

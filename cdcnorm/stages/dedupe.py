@@ -1,10 +1,14 @@
-"""Stage dedupe: drop exact duplicates, quarantine conflicting versions.
+"""Stage dedupe: one version per (position, sequence, action, key).
 
-A row's identity is (position without image rank, action, key). Rows with
-one identity and the same content (committed_at and every typed value) are
-duplicates: the one from the first file by name, lowest record number, is
-kept. Rows with one identity and different content are a conflict: every
-version goes to quarantine, none is chosen.
+Rows with the same identity and the same typed content are duplicates: the
+copy from the first file by name is kept. The same identity with different
+content is a conflict, and every version goes to quarantine: none is chosen.
+
+Across runs (a landing area), the identities earlier runs emitted or merged
+(``<table>__earlier``) and the before-images still waiting (``<table>__carried``)
+count too: a row repeating one of them with the same content is a duplicate of
+that run; with other content it is a conflict, quarantined with the earlier
+run named.
 
 Only identities seen more than once need a closer look, so the stage first
 finds those with a hash aggregate and compares the (few) rows of those
@@ -17,8 +21,8 @@ from cdcnorm.plan import Plan
 
 
 def dedupe_rows(plan: Plan) -> Plan:
-    keys = ", ".join(f"v{i}" for i in plan.key_index)
-    identity = f"__pos, __seq, __act, {keys}"
+    keys = [f"v{i}" for i in plan.key_index]
+    identity = ", ".join(["__pos", "__seq", "__act", *keys])
     content = "{" + ", ".join(["'c': __cat", *(f"'v{i}': v{i}" for i in range(len(plan.fields)))]) + "}"
     ordered = plan.rel("ordered")
     plan = plan.add(
@@ -27,9 +31,7 @@ def dedupe_rows(plan: Plan) -> Plan:
         f"SELECT {identity}, count(*) AS __versions FROM {ordered} GROUP BY {identity} HAVING count(*) > 1",
         materialize=True,
     )
-    on = " AND ".join(
-        f"o.{c} = r.{c}" for c in ["__pos", "__seq", "__act", *(f"v{i}" for i in plan.key_index)]
-    )
+    on = " AND ".join(f"o.{c} = r.{c}" for c in ["__pos", "__seq", "__act", *keys])
     window = f"PARTITION BY {identity}"
     plan = plan.add(
         "dedupe",
@@ -40,8 +42,32 @@ def dedupe_rows(plan: Plan) -> Plan:
         f"FROM (SELECT o.*, r.__versions FROM {ordered} o JOIN {plan.rel('repeats')} r ON {on})",
         materialize=True,
     )
+    earlier_cols = ", ".join(["__pos", "__seq", "__act", *keys])
+    seen_on = " AND ".join(f"o.{c} = e.{c}" for c in ["__pos", "__seq", "__act", *keys])
+    plan = plan.add(
+        "dedupe",
+        "seen",
+        f"SELECT o.__file, o.__row, o.__act, bool_and(e.__hash = {plan.content('o.')}) AS __same, "
+        f"min(e.__run) AS __earlier_run FROM {ordered} o JOIN ("
+        f"SELECT {earlier_cols}, __hash, __run FROM {plan.rel('earlier')} UNION ALL "
+        f"SELECT {earlier_cols}, {plan.content()} AS __hash, __run FROM {plan.rel('carried')}) e ON {seen_on} "
+        "GROUP BY o.__file, o.__row, o.__act",
+        materialize=True,
+    )
+    # every row whose fate is not 'keep': a repeat inside this run, or of an earlier run
+    plan = plan.add(
+        "dedupe",
+        "fates",
+        "SELECT coalesce(s.__file, f.__file) AS __file, coalesce(s.__row, f.__row) AS __row, "
+        "coalesce(s.__act, f.__act) AS __act, "
+        "CASE WHEN s.__same THEN 'duplicate' WHEN NOT s.__same THEN 'conflict' ELSE f.__fate END AS __fate, "
+        "coalesce(f.__versions, 1) AS __versions, s.__earlier_run AS __earlier_run "
+        f"FROM {plan.rel('seen')} s FULL JOIN (SELECT * FROM {plan.rel('repeat_fates')} WHERE __fate <> 'keep') f "
+        "ON s.__file = f.__file AND s.__row = f.__row",
+        materialize=True,
+    )
     sql = (
-        f"SELECT o.*, coalesce(f.__fate, 'keep') AS __fate, coalesce(f.__versions, 1) AS __versions "
-        f"FROM {ordered} o LEFT JOIN {plan.rel('repeat_fates')} f ON o.__file = f.__file AND o.__row = f.__row"
+        f"SELECT o.*, coalesce(f.__fate, 'keep') AS __fate, coalesce(f.__versions, 1) AS __versions, "
+        f"f.__earlier_run FROM {ordered} o LEFT JOIN {plan.rel('fates')} f ON o.__file = f.__file AND o.__row = f.__row"
     )
     return plan.add("dedupe", "deduped", sql)

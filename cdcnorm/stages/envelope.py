@@ -3,7 +3,8 @@
 - insert, snapshot, after: upsert; a paired after carries its before-image as
   ``prior`` and the names of the fields that differ as ``changed``.
 - a key-changing update: delete of the old key (prior = before-image) at the
-  before's position, then upsert of the new key at the after's position.
+  before's position, then upsert of the new key at the after's position. When
+  the after-image was emitted by an earlier run (a ghost), only the delete is.
 - delete: ``values`` null, ``prior`` the row's image when the dump has one
   (some non-key field is not NULL).
 """
@@ -30,7 +31,9 @@ def build_envelopes(plan: Plan) -> Plan:
     has_image = " OR ".join(f"e.v{i} IS NOT NULL" for i in nonkey)
     vals = ", ".join(f"e.v{i}" for i in range(n))
     own = "e.__pos, e.__seq, e.__rank, e.__act, e.__cat, e.__file, e.__row"
-    lonely_after = f"NOT EXISTS (SELECT 1 FROM {pairs} q WHERE q.af = e.__file AND q.ar = e.__row)"
+    lonely_after = (
+        f"NOT EXISTS (SELECT 1 FROM {pairs} q WHERE NOT q.ghost AND q.af = e.__file AND q.ar = e.__row)"
+    )
     sql = f"""
     SELECT 'upsert' AS __action, {own}, {vals}, FALSE AS __has_prior, {nulls}, NULL AS __changed
     FROM {kept} e WHERE e.__act IN ('insert', 'snapshot') OR (e.__act = 'after' AND {lonely_after})
@@ -38,7 +41,7 @@ def build_envelopes(plan: Plan) -> Plan:
     SELECT 'upsert', p.a_pos, p.a_seq, 2, 'after', p.a_cat, p.af, p.ar, {", ".join(f"p.a{i}" for i in range(n))},
            p.same_key, {", ".join(f"CASE WHEN p.same_key THEN p.p{i} END" for i in range(n))},
            CASE WHEN p.same_key THEN {changed} END
-    FROM {pairs} p
+    FROM {pairs} p WHERE NOT p.ghost
     UNION ALL
     SELECT 'delete', p.b_pos, p.b_seq, 1, 'before', p.b_cat, p.bf, p.br, {", ".join(f"p.p{i}" for i in range(n))},
            TRUE, {", ".join(f"p.p{i}" for i in range(n))}, NULL

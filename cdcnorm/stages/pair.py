@@ -1,11 +1,16 @@
-"""Stage pair: fold before-images into their after-images.
+"""Stage pair: fold before-images into their after-images; a before-image waits for its partner.
 
 Paired mode: a before row and an after row at one position (and sequence)
 form one update. Within a position, a before pairs with the after of the same
 key; when a position holds exactly one before and one after with different
-keys, the update changed the key. A before with no after is quarantined; an
-after with no before is an upsert, counted as unpaired. In after-only mode a
-before row is quarantined.
+keys, the update changed the key. An after with no before is an upsert,
+counted as unpaired. A before with no after is **pending**: it waits, in the
+landing area, for its after-image to arrive in a later run
+(``<table>__carried`` brings the waiting ones back), unless the run settles
+it (``Plan.settle``): then it is quarantined. An after-image an earlier run
+already emitted unpaired (``__unpaired`` in ``<table>__earlier``) stands in
+for the after of a late before-image (a *ghost*: nothing is emitted for it
+again). In after-only mode a before row is quarantined.
 """
 
 from __future__ import annotations
@@ -16,13 +21,20 @@ from cdcnorm.plan import Plan
 def pair_images(plan: Plan) -> Plan:
     paired_mode = plan.mapping.mapping.change.updates == "paired"
     keys = plan.key_index
-    deduped = plan.rel("deduped")
-    plan = plan.add("pair", "kept", f"SELECT * FROM {deduped} WHERE __fate = 'keep'")
-    kept = plan.rel("kept")
     n = len(plan.fields)
+    values = ", ".join(f"v{i}" for i in range(n))
+    deduped = plan.rel("deduped")
+    plan = plan.add(
+        "pair",
+        "kept",
+        f"SELECT __file, __row, __act, __pos, __seq, __cat, __rank, {values}, FALSE AS __carried "
+        f"FROM {deduped} WHERE __fate = 'keep' UNION ALL "
+        f"SELECT __file, __row, 'before', __pos, __seq, __cat, 1, {values}, TRUE FROM {plan.rel('carried')}",
+        materialize=True,
+    )
+    kept = plan.rel("kept")
     same_key = " AND ".join(f"a.v{i} = b.v{i}" for i in keys)
-    # a pair carries both images, so the envelope stage needs no join of its own
-    before_values = ", ".join(
+    carried = ", ".join(
         [
             "a.__pos AS a_pos, a.__seq AS a_seq, a.__cat AS a_cat",
             "b.__pos AS b_pos, b.__seq AS b_seq, b.__cat AS b_cat",
@@ -30,32 +42,55 @@ def pair_images(plan: Plan) -> Plan:
             *(f"b.v{i} AS p{i}" for i in range(n)),
         ]
     )
+    ghost_values = ", ".join(
+        f"e.v{i}" if i in keys else f"CAST(NULL AS {t}) AS v{i}" for i, t in _value_types(plan)
+    )
     if paired_mode:
+        afters = (
+            f"SELECT __file, __row, __pos, __seq, __cat, {values}, FALSE AS __ghost FROM {kept} WHERE __act = 'after' "
+            f"UNION ALL SELECT CAST(NULL AS INTEGER), CAST(NULL AS BIGINT), e.__pos, e.__seq, "
+            f"CAST(NULL AS TIMESTAMPTZ), {ghost_values}, TRUE FROM {plan.rel('earlier')} e "
+            f"WHERE e.__unpaired AND EXISTS (SELECT 1 FROM {kept} b WHERE b.__act = 'before' "
+            "AND b.__pos = e.__pos AND b.__seq = e.__seq)"
+        )
         pairs = (
-            f"SELECT a.__file AS af, a.__row AS ar, b.__file AS bf, b.__row AS br, ({same_key}) AS same_key, "
-            f"{before_values} FROM "
-            f"(SELECT *, count(*) OVER (PARTITION BY __pos, __seq) AS __n FROM {kept} WHERE __act = 'after') a JOIN "
+            f"SELECT a.__file AS af, a.__row AS ar, a.__ghost AS ghost, b.__file AS bf, b.__row AS br, "
+            f"({same_key}) AS same_key, {carried} FROM "
+            f"(SELECT *, count(*) OVER (PARTITION BY __pos, __seq) AS __n FROM ({afters})) a JOIN "
             f"(SELECT *, count(*) OVER (PARTITION BY __pos, __seq) AS __n FROM {kept} WHERE __act = 'before') b "
             f"ON a.__pos = b.__pos AND a.__seq = b.__seq AND (({same_key}) OR (a.__n = 1 AND b.__n = 1))"
         )
     else:
         pairs = (
-            f"SELECT a.__file AS af, a.__row AS ar, a.__file AS bf, a.__row AS br, TRUE AS same_key, "
-            f"{before_values} FROM {kept} a, {kept} b WHERE FALSE"
+            f"SELECT a.__file AS af, a.__row AS ar, FALSE AS ghost, a.__file AS bf, a.__row AS br, TRUE AS same_key, "
+            f"{carried} FROM {kept} a, {kept} b WHERE FALSE"
         )
     plan = plan.add("pair", "pairs", pairs, materialize=True)
     p = plan.rel("pairs")
+    # before-images without an after-image: they wait (pending), or this run settles them
+    if plan.settle == "all":
+        settled = "TRUE"
+    elif plan.settle is not None:
+        settled = f"k.__pos < {plan.settle}"
+    else:
+        settled = "FALSE"
+    waiting = (
+        f"SELECT k.*, (NOT {str(paired_mode).upper()} OR {settled}) AS __settled FROM {kept} k "
+        f"WHERE k.__act = 'before' AND NOT EXISTS (SELECT 1 FROM {p} q WHERE q.bf = k.__file AND q.br = k.__row)"
+    )
+    plan = plan.add("pair", "waiting", waiting, materialize=True)
     nulls = ", ".join(f"NULL AS p{i}" for i in range(n))
     priors = ", ".join(f"p{i}" for i in range(n))
     plan = plan.add(
         "pair",
         "links",
-        f"SELECT af AS f, ar AS r, same_key, {priors} FROM {p} UNION ALL SELECT bf, br, same_key, {nulls} FROM {p}",
+        f"SELECT af AS f, ar AS r, same_key, {priors} FROM {p} WHERE NOT ghost "
+        f"UNION ALL SELECT bf, br, same_key, {nulls} FROM {p}",
     )
     # `paired` is what --stop-after pair shows: every kept row with its role. The envelope
     # stage reads `pairs` and `kept` directly, and the ledger counts from their aggregates.
     role = (
-        "CASE WHEN k.__act = 'before' AND l.f IS NULL THEN 'unpaired_before' "
+        "CASE WHEN k.__act = 'before' AND l.f IS NULL THEN 'pending' "
         "WHEN k.__act = 'before' AND l.same_key THEN 'merged' ELSE 'emitted' END"
     )
     sql = (
@@ -65,3 +100,8 @@ def pair_images(plan: Plan) -> Plan:
         f"FROM {kept} k LEFT JOIN {plan.rel('links')} l ON k.__file = l.f AND k.__row = l.r"
     )
     return plan.add("pair", "paired", sql)
+
+
+def _value_types(plan: Plan) -> list[tuple[int, str]]:
+    types = plan.types()
+    return [(i, types[f"v{i}"]) for i in range(len(plan.fields))]

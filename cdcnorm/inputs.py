@@ -1,0 +1,101 @@
+"""Routing inputs: which files a run reads, and which mapping reads each of them."""
+
+from __future__ import annotations
+
+import fnmatch
+import hashlib
+from collections.abc import Iterable, Sequence
+from pathlib import Path
+
+from cdcnorm.errors import InputError, closest
+from cdcnorm.mapping.load import LoadedMapping
+from cdcnorm.readers import streams
+
+
+def _matches(path: Path, pattern: str) -> bool:
+    """A mapping's file pattern matches the name, or the name without a compression suffix."""
+    return fnmatch.fnmatchcase(path.name, pattern) or fnmatch.fnmatchcase(streams.base_name(path), pattern)
+
+
+def route(files: Iterable[Path], mappings: Sequence[LoadedMapping]) -> dict[str, list[Path]]:
+    """Which mapping reads each file: by the mapping's file globs, or a JSON Lines file named
+    ``<table>.jsonl`` or in a folder named ``<table>``."""
+    by_table: dict[str, list[Path]] = {m.table: [] for m in mappings}
+    for path in files:
+        matches = [m for m in mappings if any(_matches(path, g) for g in m.mapping.files)]
+        if not matches:
+            # a JSON Lines file named after a table, or in a folder named after one (as the
+            # quarantine files are: quarantine/<table>/<run>.jsonl), goes to that table
+            base = streams.base_name(path)
+            if ".jsonl" in base:
+                names = {base.split(".jsonl")[0], path.parent.name}
+                matches = [m for m in mappings if m.table in names]
+        if not matches:
+            globs = [g for m in mappings for g in m.mapping.files]
+            near = closest(path.name, globs + [m.table for m in mappings])
+            raise InputError(
+                "this file matches no mapping",
+                file=str(path),
+                expected="a file name matching one of " + ", ".join(globs),
+                found=path.name,
+                hint=f"closest mapping pattern: {near}"
+                if near
+                else "add its pattern to a mapping's files list",
+            )
+        if len(matches) > 1:
+            raise InputError(
+                "this file matches more than one mapping: " + ", ".join(m.table for m in matches),
+                file=str(path),
+                hint="make the mappings' files patterns disjoint",
+            )
+        by_table[matches[0].table].append(path)
+    return by_table
+
+
+def expand_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> list[Path]:
+    """Files as given; a folder stands for the dump files directly inside it (and, with
+    ``recursive``, in its sub-folders). A folder's sub-folders are never skipped silently:
+    without ``recursive`` they are an error that says so. Hidden files and folders are left out."""
+    out: list[Path] = []
+    for raw in inputs:
+        p = Path(raw)
+        if p.is_dir():
+            if recursive:
+                found = sorted(
+                    c
+                    for c in p.rglob("*")
+                    if c.is_file() and not any(part.startswith(".") for part in c.relative_to(p).parts)
+                )
+                out.extend(found)
+                continue
+            subs = sorted(c.name for c in p.iterdir() if c.is_dir() and not c.name.startswith("."))
+            if subs:
+                raise InputError(
+                    f"this folder has sub-folders ({', '.join(subs[:5])}{', ...' if len(subs) > 5 else ''})",
+                    file=str(p),
+                    hint="add --recursive to read their files too, or name the files to read",
+                )
+            out.extend(sorted(c for c in p.iterdir() if c.is_file() and not c.name.startswith(".")))
+        elif p.exists():
+            out.append(p)
+        else:
+            raise InputError("no such file", file=str(p))
+    seen: set[Path] = set()
+    unique = []
+    for p in out:
+        r = p.resolve()
+        if r not in seen:
+            seen.add(r)
+            unique.append(p)
+    return unique
+
+
+def display_names(files: list[Path]) -> dict[Path, str]:
+    names = [f.name for f in files]
+    return {f: (f.name if names.count(f.name) == 1 else f.as_posix()) for f in files}
+
+
+def checksum(path: Path) -> str:
+    """The file's SHA-256 (hex), streamed."""
+    with open(path, "rb") as f:
+        return hashlib.file_digest(f, "sha256").hexdigest()

@@ -1,0 +1,99 @@
+"""Opening a landing area: lock it, finish or clear what an earlier run left, and find its files."""
+
+from __future__ import annotations
+
+import shutil
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from pathlib import Path
+
+from cdcnorm.errors import InputError
+from cdcnorm.landing import journal, lock, runs
+from cdcnorm.names import path_part
+
+META = ".cdcnorm"
+DATA = ("events", "quarantine", "index", runs.RUNS)
+
+
+@dataclass
+class Landing:
+    root: Path
+
+    @property
+    def meta(self) -> Path:
+        return self.root / META
+
+    def recover(self) -> None:
+        """Finish a publish the journal names; remove unfinished runs' staging folders and any
+        temporary file an interrupted write left."""
+        journal.replay(self.root, self.meta)
+        for staging in self.meta.glob("staging-*"):
+            shutil.rmtree(staging, ignore_errors=True)
+        for folder in DATA:
+            for tmp in (self.root / folder).rglob("*.tmp-*"):
+                tmp.unlink()
+
+    def clear(self) -> None:
+        for folder in DATA:
+            shutil.rmtree(self.root / folder, ignore_errors=True)
+
+    def next_run(self) -> str:
+        done = runs.committed(self.root)
+        number = 1 + max((int(r.split("-")[0]) for r in done), default=0)
+        return f"{number:06d}-{datetime.now(UTC):%Y%m%dT%H%M%SZ}"
+
+    def staging(self, run: str) -> Path:
+        folder = self.meta / f"staging-{run}"
+        folder.mkdir(parents=True)
+        return folder
+
+    def publish(self, staging: Path, run: str) -> None:
+        """Commit a run: the journal names every move (the run record last), then they are made."""
+        record = f"{runs.RUNS}/{run}.json"
+        files = sorted(p.relative_to(staging).as_posix() for p in staging.rglob("*") if p.is_file())
+        moves = [(f, f) for f in files if f != record] + [(record, record)]
+        journal.write(self.meta, staging, moves)
+        journal.replay(self.root, self.meta)
+
+    def committed(self) -> set[str]:
+        return runs.committed(self.root)
+
+    def emitted_files(self, table: str) -> list[Path]:
+        folder = self.root / "index" / "emitted" / path_part(table)
+        done = self.committed()
+        return sorted(p for p in folder.glob("*.parquet") if p.stem in done) if folder.is_dir() else []
+
+    def pending_file(self, table: str) -> Path | None:
+        """The pending images as the latest committed run that touched the table left them."""
+        folder = self.root / "index" / "pending" / path_part(table)
+        done = self.committed()
+        found = sorted(p for p in folder.glob("*.parquet") if p.stem in done) if folder.is_dir() else []
+        return found[-1] if found else None
+
+
+def _check_folder(root: Path) -> None:
+    if root.exists() and not root.is_dir():
+        raise InputError("the output folder is a file", file=str(root), hint="name a folder for --out")
+    try:
+        root.mkdir(parents=True, exist_ok=True)
+        probe = root / f"{META}-write-probe"
+        probe.write_bytes(b"")
+        probe.unlink()
+    except OSError as e:
+        raise InputError(
+            f"cannot write to the output folder: {e.strerror or e}",
+            file=str(root),
+            hint="choose a writable --out",
+        ) from None
+
+
+@contextmanager
+def open_landing(root: Path, wait: float) -> Iterator[Landing]:
+    """The landing area at ``root``, locked for this process, recovered, ready for a run."""
+    _check_folder(root)
+    area = Landing(root)
+    with lock.hold(area.meta, wait):
+        area.recover()
+        yield area

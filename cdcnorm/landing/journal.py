@@ -1,0 +1,54 @@
+"""The commit journal: the list of moves that publish a run, replayed until it is done.
+
+A run's files are complete in its staging folder before the journal is written
+(atomically: temporary name, fsync, rename). From then on the run is committed:
+the moves are made in order, the run record last, and the journal is removed.
+If the process dies in between, the next opening of the area replays the
+remaining moves (a move whose source is gone is already done).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+from pathlib import Path
+
+NAME = "journal.json"
+
+
+def _fsync_dir(folder: Path) -> None:
+    fd = os.open(folder, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def write(meta: Path, staging: Path, moves: list[tuple[str, str]]) -> None:
+    """Record the moves (paths relative to the area) that publish ``staging``."""
+    tmp = meta / (NAME + ".tmp")
+    with open(tmp, "w", encoding="utf-8") as f:
+        json.dump({"staging": staging.name, "moves": moves}, f)
+        f.flush()
+        os.fsync(f.fileno())
+    os.replace(tmp, meta / NAME)
+    _fsync_dir(meta)
+
+
+def replay(root: Path, meta: Path) -> bool:
+    """Finish a committed publish; True when there was one."""
+    path = meta / NAME
+    if not path.exists():
+        return False
+    data = json.loads(path.read_text(encoding="utf-8"))
+    staging = meta / data["staging"]
+    for src, dst in data["moves"]:
+        source, target = staging / src, root / dst
+        if source.exists():
+            target.parent.mkdir(parents=True, exist_ok=True)
+            os.replace(source, target)
+    _fsync_dir(root)
+    path.unlink()
+    shutil.rmtree(staging, ignore_errors=True)
+    return True

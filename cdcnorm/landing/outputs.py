@@ -1,0 +1,163 @@
+"""Writing one run into the landing area: new inputs only, every file staged, then committed."""
+
+from __future__ import annotations
+
+import json
+from concurrent.futures import Future, ThreadPoolExecutor
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import sqlglot
+
+from cdcnorm import __version__
+from cdcnorm.errors import LedgerError
+from cdcnorm.inputs import checksum
+from cdcnorm.landing import memory, runs
+from cdcnorm.landing.area import Landing
+from cdcnorm.names import path_part
+from cdcnorm.quarantine import quarantine_lines, raw_rows
+from cdcnorm.sql import PLAN_DIALECT
+from cdcnorm.writers import WRITERS
+from cdcnorm.writers.base import sorted_events
+from cdcnorm.writers.lines import write_lines
+
+if TYPE_CHECKING:
+    from cdcnorm.pipeline import Options, Progress, Result
+
+
+@dataclass
+class Checksums:
+    """Checksums still being computed (in a thread, while the run converts)."""
+
+    pool: ThreadPoolExecutor = field(default_factory=lambda: ThreadPoolExecutor(max_workers=1))
+    pending: dict[str, Future[str]] = field(default_factory=dict)
+
+    def resolve(self, inputs: list[dict[str, Any]]) -> None:
+        for item in inputs:
+            if item["sha256"] is None:
+                item["sha256"] = self.pending[item["path"]].result()
+        self.pool.shutdown()
+
+
+def new_inputs(
+    area: Landing, routed: dict[str, list[Path]]
+) -> tuple[dict[str, list[Path]], list[dict[str, Any]], list[dict[str, Any]], Checksums]:
+    """Leave out inputs an earlier run converted (same SHA-256). Only a file whose size equals an
+    earlier input's can be one, so only those are hashed before the run; the others are hashed
+    while it converts, for the run record."""
+    earlier = runs.records(area.root)
+    by_sha = runs.checksums(area.root)
+    sizes = {item["bytes"] for rec in earlier for item in rec.get("inputs", [])}
+    later = Checksums()
+    kept: dict[str, list[Path]] = {}
+    info: list[dict[str, Any]] = []
+    skipped: list[dict[str, Any]] = []
+    for table, paths in routed.items():
+        kept[table] = []
+        for p in paths:
+            size = p.stat().st_size
+            item: dict[str, Any] = {
+                "path": str(p),
+                "name": p.name,
+                "table": table,
+                "bytes": size,
+                "sha256": None,
+            }
+            if size in sizes:
+                item["sha256"] = checksum(p)
+                if item["sha256"] in by_sha:
+                    skipped.append({**item, "converted_by": by_sha[item["sha256"]]})
+                    continue
+            else:
+                later.pending[str(p)] = later.pool.submit(checksum, p)
+            info.append(item)
+            kept[table].append(p)
+    return kept, info, skipped, later
+
+
+def _now() -> str:
+    return datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def commit_run(
+    result: Result,
+    area: Landing,
+    options: Options,
+    inputs: list[dict[str, Any]],
+    later: Checksums,
+    progress: Progress,
+) -> None:
+    """Stage every file of the run, then commit it (the run record last)."""
+    from cdcnorm.pipeline import free_raw, rejected_relation
+
+    started = _now()
+    run = area.next_run()
+    staging = area.staging(run)
+    writer = WRITERS[options.fmt]
+    engine = result.engine
+    outputs: dict[str, dict[str, Any]] = {}
+    for table, trun in result.tables.items():
+        plan = trun.plan
+        part = path_part(table)
+        progress(f"{table}: quarantine and index", 0, 1)
+        lines_sql = quarantine_lines(plan, rejected_relation(trun))
+        lines = engine.arrow(sqlglot.parse_one(lines_sql, read=PLAN_DIALECT))["line"]
+        memory.write_emitted(engine, plan, staging / "index" / "emitted" / part / f"{run}.parquet", run)
+        waiting = memory.write_pending(
+            engine,
+            plan,
+            staging / "index" / "pending" / part / f"{run}.parquet",
+            run,
+            raw_rows(plan, plan.rel("waiting")),
+        )
+        result.pending += waiting
+        free_raw(trun, engine)  # the raw rows are needed no more: free them before the events are sorted
+        counts = result.ledger.tables[table].total
+        out: dict[str, Any] = {"events": None, "quarantine": None, "pending": waiting}
+        written = 0
+        if counts.emitted:
+            progress(f"{table}: sort and write events", 0, 1)
+            rel = f"events/{part}/{run}{writer.SUFFIX}"
+            # one streaming pass: the engine sorts the flat events, then builds and writes the envelopes
+            ordered = f"({sorted_events(plan, '__files')}) AS ordered_events"
+            written = writer.write(plan, engine, "__files", staging / rel, ordered)
+            out["events"] = rel
+        # The ledger is counted from aggregates; the files are written from the rows themselves.
+        if written != counts.emitted or len(lines) != counts.quarantined:
+            raise LedgerError(
+                f"{table}: wrote {written} events and {len(lines)} quarantine lines, but the ledger counts "
+                f"{counts.emitted} emitted and {counts.quarantined} quarantined rows",
+                hint="this is a bug in cdcnorm; please report it with the inputs",
+            )
+        if len(lines):
+            rel = f"quarantine/{part}/{run}.jsonl"
+            write_lines(lines, staging / rel)
+            out["quarantine"] = rel
+        outputs[table] = out
+        if out["events"]:
+            result.outputs[table] = area.root / out["events"]
+    later.resolve(inputs)
+    record = {
+        "run": run,
+        "started": started,
+        "finished": _now(),
+        "cdcnorm": __version__,
+        "options": {
+            "format": options.fmt,
+            "settle": options.settle,
+            "replace": options.replace,
+            "memory_limit": options.memory_limit,
+        },
+        "inputs": inputs,
+        "skipped": result.skipped,
+        "ledger": result.ledger.as_dict(),
+        "pending": result.pending,
+        "tables": outputs,
+    }
+    folder = staging / runs.RUNS
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / f"{run}.json").write_text(json.dumps(record, indent=2) + "\n", encoding="utf-8")
+    area.publish(staging, run)
+    result.run = run

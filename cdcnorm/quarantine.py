@@ -101,7 +101,7 @@ def raw_rows(plan: Plan, wanted: str) -> str:
             f"WHERE s.__file IN ({', '.join(str(i) for i in ids)})"
         )
     parts.append(
-        f"SELECT c.__file, c.__row, CAST(NULL AS VARCHAR), c.__raw FROM {plan.rel('carried')} c "
+        f"SELECT c.__file, c.__row, CAST(NULL AS VARCHAR) AS __enc, c.__raw AS raw FROM {plan.rel('carried')} c "
         f"SEMI JOIN {wanted} q ON c.__file = q.__file AND c.__row = q.__row"
     )
     return " UNION ALL ".join(parts)

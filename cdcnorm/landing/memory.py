@@ -33,10 +33,10 @@ def _kinds(plan: Plan) -> tuple[tuple[str, int], tuple[str, int] | None]:
     return pos, ((seq.kind, positions.sequence_width(seq, change.position)) if seq else None)
 
 
-def _store(plan: Plan, col: str) -> str:
-    """SQL: a key column as stored (its normalised text)."""
+def _store(plan: Plan, col: str, which: str) -> str:
+    """SQL: a position (``which`` = "__pos") or sequence key as stored (its normalised text)."""
     pos, seq = _kinds(plan)
-    kind = pos if col.endswith("__pos") else seq
+    kind = pos if which == "__pos" else seq
     return col if kind is None else positions.text(kind[0], col, width=kind[1])
 
 
@@ -110,7 +110,7 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
         engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {_empty(earlier_columns(plan))}")
         return
     lo, hi = engine.rows(
-        f"SELECT {_store(plan, 'min(__pos)')}, {_store(plan, 'max(__pos)')} FROM {plan.rel('typed')} WHERE __ok"
+        f"SELECT {_store(plan, 'min(__pos)', '__pos')}, {_store(plan, 'max(__pos)', '__pos')} FROM {plan.rel('typed')} WHERE __ok"
     )[0]
     if lo is None:
         engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {_empty(earlier_columns(plan))}")
@@ -145,7 +145,7 @@ def write_emitted(engine: DuckDBEngine, plan: Plan, path: Path, run: str) -> Non
         else "FALSE"
     )
     sql = (
-        f"SELECT {_store(plan, 'k.__pos')} AS __pos, {_store(plan, 'k.__seq')} AS __seq, k.__act{keys}, "
+        f"SELECT {_store(plan, 'k.__pos', '__pos')} AS __pos, {_store(plan, 'k.__seq', '__seq')} AS __seq, k.__act{keys}, "
         f"lpad(hex({plan.content('k.')}), 32, '0') AS __hash, {lit(run)} AS __run, {unpaired} AS __unpaired "
         f"FROM {kept} k WHERE NOT EXISTS (SELECT 1 FROM {waiting} w WHERE NOT w.__settled "
         "AND w.__file = k.__file AND w.__row = k.__row) ORDER BY 1, 2"
@@ -159,7 +159,7 @@ def write_pending(engine: DuckDBEngine, plan: Plan, path: Path, run: str, raw_ro
     raw) giving this run's rows' raw columns as JSON. Returns how many."""
     values = "".join(f", w.v{i}" for i in range(len(plan.fields)))
     sql = (
-        f"SELECT f.name AS __name, w.__row, {_store(plan, 'w.__pos')} AS __pos, {_store(plan, 'w.__seq')} AS __seq, "
+        f"SELECT f.name AS __name, w.__row, {_store(plan, 'w.__pos', '__pos')} AS __pos, {_store(plan, 'w.__seq', '__seq')} AS __seq, "
         f"w.__cat{values}, coalesce(c.__run, {lit(run)}) AS __run, coalesce(c.__raw, r.raw) AS __raw "
         f"FROM {plan.rel('waiting')} w JOIN __files f ON f.id = w.__file "
         f"LEFT JOIN {plan.rel('carried')} c ON c.__file = w.__file AND c.__row = w.__row "

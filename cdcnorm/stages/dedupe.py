@@ -43,6 +43,7 @@ def dedupe_rows(plan: Plan) -> Plan:
         materialize=True,
     )
     earlier_cols = ", ".join(["__pos", "__seq", "__act", *keys])
+    carried_cols = ", ".join(["__pos", "__seq", "'before' AS __act", *keys])  # carried rows are before-images
     seen_on = " AND ".join(f"o.{c} = e.{c}" for c in ["__pos", "__seq", "__act", *keys])
     plan = plan.add(
         "dedupe",
@@ -50,7 +51,7 @@ def dedupe_rows(plan: Plan) -> Plan:
         f"SELECT o.__file, o.__row, o.__act, bool_and(e.__hash = {plan.content('o.')}) AS __same, "
         f"min(e.__run) AS __earlier_run FROM {ordered} o JOIN ("
         f"SELECT {earlier_cols}, __hash, __run FROM {plan.rel('earlier')} UNION ALL "
-        f"SELECT {earlier_cols}, {plan.content()} AS __hash, __run FROM {plan.rel('carried')}) e ON {seen_on} "
+        f"SELECT {carried_cols}, {plan.content()} AS __hash, __run FROM {plan.rel('carried')}) e ON {seen_on} "
         "GROUP BY o.__file, o.__row, o.__act",
         materialize=True,
     )

@@ -291,6 +291,7 @@ def test_a_conflict_with_an_earlier_run_is_quarantined_with_its_run(tmp_path: Pa
     for name in ("c1.csv", "c2.csv"):
         assert cli("convert", "--quiet", "--mappings", str(m), str(p[name]), "--out", str(landing)) == 0
     first, second = _totals(landing)
+    assert first["emitted"] == 1
     assert second["duplicate"] == 1 and second["quarantined"] == 1 and second["emitted"] == 0
     run1 = json.loads(sorted((landing / "runs").glob("*.json"))[0].read_text())["run"]
     (q,) = [

@@ -256,6 +256,7 @@ def _report_run(result: Result, args: argparse.Namespace, landing: Path) -> None
                     "ledger": result.ledger.as_dict(),
                     "outputs": {k: str(v) for k, v in result.outputs.items()},
                     "pending": result.pending,
+                    "waiting": result.waiting,
                     "skipped": result.skipped,
                 }
             )
@@ -277,8 +278,8 @@ def _report_run(result: Result, args: argparse.Namespace, landing: Path) -> None
         f"run {result.run} committed to {landing}: events in {landing / 'events'}"
         + (f"; {total.quarantined} quarantined rows in {landing / 'quarantine'}" if total.quarantined else "")
         + (
-            f"; {result.pending} before-images wait for their after-images (cdcnorm settle ends the wait)"
-            if result.pending
+            f"; {result.waiting} before-images wait for their after-images (cdcnorm settle ends the wait)"
+            if result.waiting
             else ""
         )
     )
@@ -298,7 +299,7 @@ def cmd_runs(args: argparse.Namespace) -> int:
         return EXIT_OK
     t = Table(title=f"runs of {root}")
     cols = ["run", "finished", "inputs", "skipped", "read", "pending_in", "emitted", "merged", "duplicate"]
-    cols += ["quarantined", "pending", "settle"]
+    cols += ["quarantined", "pending", "waiting", "settle"]
     for col in cols:
         t.add_column(
             col.replace("_", " "), justify="left" if col in ("run", "finished", "settle") else "right"

@@ -110,7 +110,8 @@ class Result:
     run: str | None = None  # the landing area's run id, once committed
     inputs: list[dict[str, Any]] = field(default_factory=list)
     skipped: list[dict[str, Any]] = field(default_factory=list)
-    pending: int = 0
+    pending: int = 0  # before-images this run's tables leave waiting
+    waiting: int = 0  # before-images waiting in the whole landing area after this run
 
     @property
     def quarantined(self) -> int:
@@ -278,7 +279,7 @@ def run(
             if options.replace:
                 area.clear()
             routed, inputs_info, skipped, later = new_inputs(area, routed)
-            has_pending = options.settle is not None and any(area.pending_file(m.table) for m in mappings)
+            has_pending = options.settle is not None and any(area.waiting(m.table) for m in mappings)
             if not any(routed.values()) and not has_pending:
                 engine = DuckDBEngine(temp_directory=str(scratch / "spill"))
                 return Result(engine, {}, ledger_mod.Ledger(), [], skipped=skipped)
@@ -335,7 +336,7 @@ def _run(
     by_name = {m.table: m for m in mappings}
     if area is not None and options.settle is not None:
         for m in mappings:  # a settle run visits every table with images waiting
-            if m.table not in read and area.pending_file(m.table):
+            if m.table not in read and area.waiting(m.table):
                 read[m.table] = RawTable(m.mapping.slug)
     runs: dict[str, TableRun] = {}
     drifts: list[Drift] = []

@@ -126,6 +126,10 @@ class DuckDBEngine:
     # methods are how DuckDB reads it. Every loaded relation has __file, __row, __enc and the
     # reader's internal column names, all text.
 
+    def count_file(self, path: Path) -> int:
+        """Rows of a Parquet file (from its footer)."""
+        return int(self.rows(f"SELECT count(*) FROM read_parquet({lit(str(path))})")[0][0])
+
     def count(self, relation: str, where: str = "TRUE") -> int:
         return int(self.rows(f"SELECT count(*) FROM {ident(relation)} WHERE {where}")[0][0])
 

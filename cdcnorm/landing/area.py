@@ -65,6 +65,13 @@ class Landing:
         done = self.committed()
         return sorted(p for p in folder.glob("*.parquet") if p.stem in done) if folder.is_dir() else []
 
+    def waiting(self, table: str) -> bool:
+        """Whether before-images of the table wait (its latest pending file has rows)."""
+        import pyarrow.parquet as pq
+
+        path = self.pending_file(table)
+        return path is not None and pq.ParquetFile(path).metadata.num_rows > 0
+
     def pending_file(self, table: str) -> Path | None:
         """The pending images as the latest committed run that touched the table left them."""
         folder = self.root / "index" / "pending" / path_part(table)

@@ -139,6 +139,14 @@ def commit_run(
         if out["events"]:
             result.outputs[table] = area.root / out["events"]
     later.resolve(inputs)
+    # images waiting in the whole area after this run: this run's tables, and the others' last word
+    waiting_by_table = {t: o["pending"] for t, o in outputs.items()}
+    folder = area.root / "index" / "pending"
+    for table_dir in sorted(folder.iterdir()) if folder.is_dir() else []:
+        latest = area.pending_file(table_dir.name)
+        if table_dir.name not in waiting_by_table and latest is not None:
+            waiting_by_table[table_dir.name] = engine.count_file(latest)
+    result.waiting = sum(waiting_by_table.values())
     record = {
         "run": run,
         "started": started,
@@ -154,6 +162,8 @@ def commit_run(
         "skipped": result.skipped,
         "ledger": result.ledger.as_dict(),
         "pending": result.pending,
+        "waiting": result.waiting,
+        "waiting_by_table": waiting_by_table,
         "tables": outputs,
     }
     folder = staging / runs.RUNS

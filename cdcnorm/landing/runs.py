@@ -47,4 +47,5 @@ def summary(rec: dict[str, Any]) -> dict[str, Any]:
             k: total[k]
             for k in ("read", "pending_in", "emitted", "merged", "duplicate", "quarantined", "pending")
         },
+        "waiting": rec.get("waiting", total["pending"]),  # images waiting in the whole area afterwards
     }

@@ -28,6 +28,7 @@ import sys
 import tempfile
 import time
 from pathlib import Path
+from typing import Any
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 import dumpgen
@@ -45,8 +46,24 @@ pq.write_table(pa.concat_tables(tables), sys.argv[1])
 
 
 def convert_command(work: Path, inputs: list[Path], out: str, *extra: str) -> list[str]:
-    head = [sys.executable, "-m", "cdcnorm", "convert", "--quiet", "--mappings", str(work / "mappings")]
+    head = [
+        sys.executable,
+        "-m",
+        "cdcnorm",
+        "convert",
+        "--quiet",
+        "--replace",
+        "--mappings",
+        str(work / "mappings"),
+    ]
     return [*head, "--out", str(work / out), *extra, *map(str, inputs)]
+
+
+def ledger_of(landing: Path) -> dict[str, object]:
+    """The ledger of the landing area's (only) run."""
+    (record,) = [json.loads(p.read_text()) for p in (landing / "runs").glob("*.json")]
+    ledger: dict[str, object] = record["ledger"]
+    return ledger
 
 
 def run_isolated(cmd: list[str]) -> tuple[float, float]:
@@ -83,7 +100,7 @@ def bench_size(rows: int, repeat: int, keep: Path | None) -> dict[str, object]:
             wall, mib = run_isolated(cmd)
             if name not in best or wall < best[name][0]:
                 best[name] = (wall, mib)
-    ledger = json.loads((work / "out-parquet" / "ledger.json").read_text())
+    ledger: dict[str, Any] = ledger_of(work / "out-parquet")
     floor_t, floor_m = best["floor"]
     entry: dict[str, object] = {
         "rows": ledger["total"]["read"],
@@ -110,7 +127,7 @@ def bench_limited(rows: int, limit: str, keep: Path | None) -> dict[str, object]
     wall, mib = run_isolated(
         convert_command(work, files, "out-limited", "--format", "parquet", "--memory-limit", limit)
     )
-    ledger = json.loads((work / "out-limited" / "ledger.json").read_text())
+    ledger: dict[str, Any] = ledger_of(work / "out-limited")
     entry: dict[str, object] = {
         "rows": ledger["total"]["read"],
         "csv_mib": round(sum(f.stat().st_size for f in files) / 2**20, 1),
@@ -139,7 +156,7 @@ def bench_small_files(count: int) -> dict[str, object]:
         )
         (dumps / f"deliveries-{i:05d}.csv").write_text(header + rows, encoding="utf-8")
     wall, mib = run_isolated(convert_command(work, [dumps], "out", "--format", "parquet"))
-    ledger = json.loads((work / "out" / "ledger.json").read_text())
+    ledger: dict[str, Any] = ledger_of(work / "out")
     shutil.rmtree(work)
     return {
         "files": count,

@@ -47,6 +47,16 @@ def _positive(text: str) -> int:
     return n
 
 
+def _count(text: str) -> int:
+    try:
+        n = int(text)
+    except ValueError:
+        n = -1
+    if n < 0:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number of 0 or more")
+    return n
+
+
 def _seconds(text: str) -> float:
     try:
         n = float(text)
@@ -106,11 +116,14 @@ def build_parser() -> argparse.ArgumentParser:
         "--format", dest="fmt", choices=["jsonl", "parquet"], default="jsonl", help="event file format"
     )
     conv.add_argument(
-        "--max-rejects", type=int, default=0, help="exit 5 when more rows are quarantined (0: no limit)"
+        "--max-rejects",
+        type=_count,
+        default=None,
+        help="exit 5 when more rows than this are quarantined (0: none allowed; default: no limit)",
     )
     conv.add_argument("--show-plan", action="store_true", help="print each table's plan as SQL and stop")
     conv.add_argument("--stop-after", choices=STAGE_NAMES, help="run up to this stage and show its output")
-    conv.add_argument("--limit", type=int, default=20, help="rows shown by --stop-after (default 20)")
+    conv.add_argument("--limit", type=_count, default=20, help="rows shown by --stop-after (default 20)")
     conv.add_argument("--table", help="with --show-plan/--stop-after: only this table")
 
     runs_cmd = sub.add_parser(
@@ -210,10 +223,26 @@ def _show_stage(result: Result, stage: str, limit: int, table: str | None, as_js
 
 def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
     mappings = load_mappings(Path(args.mappings))
+    table = getattr(args, "table", None)
+    if table is not None:
+        from cdcnorm.errors import did_you_mean
+
+        tables = [m.table for m in mappings]
+        if table not in tables:
+            raise UsageError(
+                f"--table {table!r} names no mapping's table{did_you_mean(table, tables)}",
+                expected="one of " + ", ".join(tables),
+                found=table,
+            )
+        if not (args.show_plan or args.stop_after):
+            raise UsageError(
+                "--table goes with --show-plan or --stop-after",
+                hint="to convert one table only, name only its files (or its mapping file with --mappings)",
+            )
     options = Options(
         out=None if check else Path(args.out),
         fmt=getattr(args, "fmt", "jsonl"),
-        max_rejects=getattr(args, "max_rejects", 0),
+        max_rejects=getattr(args, "max_rejects", None),
         memory_limit=args.memory_limit,
         threads=args.threads,
         input_format=args.input_format,
@@ -381,7 +410,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
         inputs=[str(root / "examples" / "dumps")],
         out=args.out,
         fmt="jsonl",
-        max_rejects=0,
+        max_rejects=None,
         memory_limit=None,
         threads=None,
         input_format=None,
@@ -428,8 +457,15 @@ def main(argv: Sequence[str] | None = None) -> int:
         err.print("error: " + e.render(), markup=False)
         return e.exit_code
     except KeyboardInterrupt:
-        err.print("interrupted: no output was left half-written", markup=False)
+        err.print("interrupted: nothing was committed and no output was left half-written", markup=False)
         return 130
+    except Exception as e:
+        import duckdb
+
+        if isinstance(e, duckdb.InterruptException):  # Ctrl-C while the engine was working
+            err.print("interrupted: nothing was committed and no output was left half-written", markup=False)
+            return 130
+        raise
 
 
 def entry() -> None:

@@ -53,8 +53,10 @@ class CdcnormError(Exception):
         expected: str | None = None,
         found: str | None = None,
         hint: str | None = None,
+        details: dict[str, object] | None = None,
     ) -> None:
         self.message = message
+        self.details = details or {}
         self.file = file
         self.line = line
         self.field = field
@@ -89,6 +91,7 @@ class CdcnormError(Exception):
             "found": self.found,
             "hint": self.hint,
             "exit_code": self.exit_code,
+            **self.details,
         }
 
 

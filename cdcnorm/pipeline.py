@@ -65,7 +65,7 @@ def _rate(rows: int, since: float) -> str:
 class Options:
     out: Path | None = None
     fmt: str = "jsonl"
-    max_rejects: int = 0
+    max_rejects: int | None = None  # None: no limit
     memory_limit: str | None = None
     threads: int | None = None
     input_format: str | None = None
@@ -286,13 +286,14 @@ def run(
             result = _run(mappings, routed, options, scratch, None, progress, strict_drift, area)
             result.skipped = skipped
             commit_run(result, area, options, inputs_info, later, progress)
-        if options.max_rejects and result.quarantined > options.max_rejects:
+        if options.max_rejects is not None and result.quarantined > options.max_rejects:
             raise RejectLimitError(
                 f"{result.quarantined} rows were quarantined, more than --max-rejects {options.max_rejects}"
                 " (the run was committed)",
                 expected=f"at most {options.max_rejects} rejected rows",
                 found=str(result.quarantined),
                 hint=f"see {options.out / 'quarantine'}",
+                details={"run": result.run, "ledger": result.ledger.as_dict()},
             )
         return result
     finally:

@@ -6,7 +6,8 @@ fixed-width *key* whose order is the log order: an unsigned integer (integer,
 hex up to 32 digits, hex-pair), a timestamp, or (text, hex wider than 32
 digits) a text whose byte order is the order. The plan groups, joins and sorts
 on keys; only the writers turn a key into its normalised text (one case, one
-width), so plain byte-wise comparison of ``position`` is the change order too.
+width; a text kind as the hex of its UTF-8 bytes), so plain byte-wise
+comparison of ``position`` is the change order too.
 """
 
 from __future__ import annotations
@@ -94,7 +95,10 @@ def text(kind: str, k: str, *, width: int = 32) -> str:
         return hex_pair_text(k)
     if kind == "timestamp":
         return timestamp_text(k)
-    return k
+    # A text has no fixed width: "a" is a prefix of "a-", and '.' sorts above '-', so joined
+    # parts would compare backwards. Its UTF-8 bytes in hex keep byte (and code point) order,
+    # and every hex digit sorts above the '.' between parts.
+    return f"hex({k})"
 
 
 def normalise(spec: PositionSpec, x: str) -> str:

@@ -37,7 +37,9 @@ def _store(plan: Plan, col: str, which: str) -> str:
     """SQL: a position (``which`` = "__pos") or sequence key as stored (its normalised text)."""
     pos, seq = _kinds(plan)
     kind = pos if which == "__pos" else seq
-    return col if kind is None else positions.text(kind[0], col, width=kind[1])
+    if kind is None or kind[0] == "text":  # a text key is stored as itself
+        return col
+    return positions.text(kind[0], col, width=kind[1])
 
 
 def _restore(plan: Plan, col: str, name: str) -> str:
@@ -45,6 +47,8 @@ def _restore(plan: Plan, col: str, name: str) -> str:
     kind = pos if name == "__pos" else seq
     if kind is None:
         return f"CAST({col} AS UBIGINT)"
+    if kind[0] == "text":
+        return col
     return positions.key(kind[0], col, width=kind[1])
 
 

@@ -40,7 +40,14 @@ class ActionSpec(Strict):
     @classmethod
     def _codes_as_text(cls, value: Any) -> Any:
         if isinstance(value, dict):
-            return {str(k): v for k, v in value.items()}
+            for k in value:
+                if not isinstance(k, str):
+                    # YAML reads 010 as the number 8 and 1.0 as 1.0: the code would not be the text
+                    raise ValueError(
+                        f"action code {k!r} was read as a {type(k).__name__}, not as text: "
+                        f'quote it, e.g. "{k}": ... (YAML reads an unquoted 010 as the number 8)'
+                    )
+            return dict(value)
         return value
 
 
@@ -63,6 +70,14 @@ class PositionSpec(Strict):
     @classmethod
     def _zone_ok(cls, v: str) -> str:
         return check_zone(v)
+
+    @model_validator(mode="after")
+    def _options_apply(self) -> PositionSpec:
+        if "width" in self.model_fields_set and self.kind != "hex":
+            raise ValueError(f"width applies to hex positions only, not to kind {self.kind}; remove it")
+        if "zone" in self.model_fields_set and self.kind != "timestamp":
+            raise ValueError(f"zone applies to timestamp positions only, not to kind {self.kind}; remove it")
+        return self
 
 
 SequenceKind = Literal["integer", "hex", "hex-pair", "text"]
@@ -131,6 +146,16 @@ class FieldSpec(Strict):
     @classmethod
     def _zone_ok(cls, v: str | None) -> str | None:
         return None if v is None else check_zone(v)
+
+    @model_validator(mode="after")
+    def _options_apply(self) -> FieldSpec:
+        name = self.type.split("(")[0].strip().lower()
+        for option, types in (("zone", ("timestamp",)), ("encoding", ("bytes",)), ("max_length", ("text",))):
+            if getattr(self, option) is not None and name not in types:
+                raise ValueError(
+                    f"{option} applies to {' and '.join(types)} fields only, not to {self.type}; remove it"
+                )
+        return self
 
 
 def _field_shorthand(value: Any) -> Any:

@@ -23,12 +23,19 @@ class BytesType(FieldType):
 
     def cast(self, x: str) -> str:
         if self.encoding == "hex":
-            return f"CASE WHEN regexp_full_match({x}, {HEX}) THEN unhex({x}) END"
+            # PostgreSQL's text form of bytea (what its COPY writes) starts with \x: accepted
+            digits = f"CASE WHEN starts_with({x}, '\\x') THEN substr({x}, 3) ELSE {x} END"
+            return f"CASE WHEN regexp_full_match({digits}, {HEX}) THEN unhex({digits}) END"
         return f"CASE WHEN regexp_full_match({x}, {BASE64}) THEN from_base64({x}) END"
 
     def explain(self, x: str) -> str:
         if self.encoding == "hex":
-            return "'not an even number of hex digits'"
+            digits = f"CASE WHEN starts_with({x}, '\\x') THEN substr({x}, 3) ELSE {x} END"
+            others = f"regexp_replace({digits}, '[0-9A-Fa-f]', '', 'g')"
+            return (
+                f"CASE WHEN {others} <> '' THEN 'not hex: the characters ' || to_json({others}) || ' are not hex digits' "
+                "ELSE 'an odd number of hex digits' END"
+            )
         return "'not padded base64 (RFC 4648 section 4)'"
 
     def render(self, v: str) -> str:

@@ -41,6 +41,18 @@ class DecimalType(FieldType):
     def _frac_digits(self, x: str) -> str:
         return rf"length(rtrim(regexp_extract({x}, '\.([0-9]*)', 1), '0'))"
 
+    def _exact_in_scale(self, x: str) -> str:
+        """SQL for exponent notation: no non-zero digit lies beyond the scale. The value is
+        digits D times 10^(e - len(fraction)); its last non-zero digit needs
+        -(e - len(fraction) + trailing zeros of D) fractional places."""
+        s = self.params[1]
+        mant = f"regexp_extract({x}, '^[+-]?([0-9]*[.]?[0-9]*)', 1)"
+        digits = f"replace({mant}, '.', '')"
+        frac = f"length(regexp_extract({mant}, '[.]([0-9]*)', 1))"
+        zeros = f"(length({digits}) - length(rtrim({digits}, '0')))"
+        exp = f"TRY_CAST(regexp_extract({x}, '[eE]([+-]?[0-9]+)$', 1) AS BIGINT)"
+        return f"(rtrim({digits}, '0') = '' OR -({exp} - {frac} + {zeros}) <= {s})"
+
     def cast(self, x: str) -> str:
         p, s = self.params
         wide = f"DECIMAL(38,{38 - (p - s)})"  # every value with p-s integer digits, exactly
@@ -52,7 +64,10 @@ class DecimalType(FieldType):
         return (
             f"CASE WHEN NOT regexp_full_match({x}, {PATTERN}) THEN NULL "
             f"WHEN NOT contains(lower({x}), 'e') THEN CASE WHEN {short} AND {fits} THEN TRY_CAST({x} AS {narrow}) END "
-            f"WHEN length({x}) <= 30 AND {fits} THEN TRY_CAST({x} AS {narrow}) END"
+            # exponent notation: no digit beyond the scale, so the engine's exact cast at scale s
+            # rounds nothing; narrowing at the same scale only fails (too many integer digits)
+            f"WHEN length({x}) <= 60 AND {self._exact_in_scale(x)} "
+            f"THEN TRY_CAST(TRY_CAST({x} AS DECIMAL(38,{s})) AS {narrow}) END"
         )
 
     def explain(self, x: str) -> str:
@@ -62,6 +77,7 @@ class DecimalType(FieldType):
             f"WHEN NOT contains(lower({x}), 'e') AND {self._frac_digits(x)} > {s} "
             f"THEN 'more than {s} fractional digits (would round)' "
             f"WHEN NOT contains(lower({x}), 'e') THEN 'more than {p - s} integer digits' "
+            f"WHEN NOT coalesce({self._exact_in_scale(x)}, FALSE) THEN 'non-zero digits beyond {s} fractional places (would round)' "
             f"ELSE 'does not fit decimal({p},{s}) exactly' END"
         )
 

@@ -14,6 +14,10 @@ PATTERN = (
 )
 
 
+FIRST_US = -62135596800000000  # 0001-01-01T00:00:00Z in microseconds since 1970 (Python datetime)
+LAST_US = 253402300799999999  # 9999-12-31T23:59:59.999999Z
+
+
 def normalise_zone(zone: str) -> str:
     return "+00:00" if zone in ("Z", "UTC") else zone
 
@@ -36,16 +40,21 @@ def timestamp_cast(x: str, zone: str) -> str:
     if zone != "+00:00":
         raw_tail = f"substr({x}, 20)"
         plain += f" AND (contains({raw_tail}, 'Z') OR contains({raw_tail}, '+') OR contains({raw_tail}, '-'))"
-    return (
-        f"CASE WHEN regexp_full_match({x}, {PATTERN}) THEN "
-        f"CASE WHEN {plain} THEN TRY_CAST({x} AS TIMESTAMPTZ) ELSE {adjusted} END END"
-    )
+    value = f"CASE WHEN {plain} THEN TRY_CAST({x} AS TIMESTAMPTZ) ELSE {adjusted} END"
+    # RFC 3339 has years 0000-9999; in UTC a time must stay within 0001-01-01 and 9999-12-31
+    # (9999-12-31T23:00:00-02:00 is in year 10000: it would sort before year 0001 as text)
+    # only a year 0000, 0001 or 9999 can leave the range once an offset or a leap second applies
+    in_range = f"(substr({x}, 1, 4) NOT IN ('0000', '0001', '9999') OR epoch_us({value}) BETWEEN {FIRST_US} AND {LAST_US})"
+    return f"CASE WHEN regexp_full_match({x}, {PATTERN}) AND {in_range} THEN {value} END"
 
 
 def timestamp_explain(x: str) -> str:
     return (
         rf"CASE WHEN regexp_full_match({x}, '.{{19}}\.[0-9]{{7,}}.*') "
         "THEN 'more than 6 fractional digits (would truncate)' "
+        f"WHEN regexp_full_match({x}, {PATTERN}) AND substr({x}, 1, 4) IN ('0000', '0001', '9999') "
+        f"AND TRY_CAST(substr({x}, 1, 10) AS DATE) IS NOT NULL "
+        "THEN 'outside the years 0001 to 9999 in UTC' "
         f"WHEN regexp_full_match({x}, {PATTERN}) THEN 'no such calendar date' "
         "ELSE 'not an RFC 3339 timestamp' END"
     )

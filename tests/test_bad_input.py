@@ -1,0 +1,202 @@
+"""Bad input, one class per test: nothing silent, nothing lost, nothing outside the output folder,
+no traceback. Each names what it checks; where a value is involved, its raw text is kept."""
+
+from __future__ import annotations
+
+import json
+from datetime import UTC
+from decimal import Decimal
+from pathlib import Path
+
+import pytest
+
+from tests.conftest import ConvertFn, cli, last_run
+
+NOTES = """
+table: t.notes
+files: ["n*"]
+key: [id]
+change:
+  action: {column: op, codes: {I: insert, D: delete}}
+  position: {column: pos, kind: integer}
+fields:
+  id: integer
+  a: TYPE
+"""
+
+
+def _one_value(
+    convert: ConvertFn, type_: str, raw: str
+) -> tuple[list[dict[str, object]], list[dict[str, object]]]:
+    done = convert(NOTES.replace("TYPE", type_), {"n.csv": f'op,pos,id,a\nI,1,1,"{raw}"\n'})
+    assert done.ledger()["balanced"]
+    return done.events("t.notes"), done.quarantine("t.notes")
+
+
+@pytest.mark.parametrize("raw", ["1e-36", "1e-1000", "1.55e-1", "-0.0001e1"])
+def test_decimal_digits_beyond_the_scale_in_exponent_notation_are_quarantined(
+    convert: ConvertFn, raw: str
+) -> None:
+    # Python's decimal as the reference: the value needs more than 2 fractional digits
+    assert Decimal(raw) != Decimal(raw).quantize(Decimal("0.01"))
+    events, (q,) = _one_value(convert, '"decimal(5,2)"', raw)
+    assert events == [] and q["a"] == raw
+    assert q["_cdcnorm"]["reasons"][0]["reason"] == "non-zero digits beyond 2 fractional places (would round)"
+
+
+@pytest.mark.parametrize(("raw", "value"), [("1250e-3", "1.25"), ("12345e-2", "123.45"), ("0e-1000", "0.00")])
+def test_decimal_exponent_notation_that_is_exact_is_kept(convert: ConvertFn, raw: str, value: str) -> None:
+    assert str(Decimal(raw).quantize(Decimal("0.01"))) == value  # Python's decimal
+    (e,), _ = _one_value(convert, '"decimal(5,2)"', raw)
+    assert e["values"]["a"] == value  # type: ignore[index]
+
+
+@pytest.mark.parametrize("raw", ["1e-400", "4e-320"])
+def test_float_underflow_is_quarantined(convert: ConvertFn, raw: str) -> None:
+    # IEEE 754 binary64: 1e-400 rounds to 0.0, 4e-320 is subnormal (fewer significant bits)
+    assert float(raw) < 2.2250738585072014e-308
+    events, (q,) = _one_value(convert, "float", raw)
+    assert events == [] and q["a"] == raw
+    assert q["_cdcnorm"]["reasons"][0]["reason"] == "underflows: below the smallest normal double"
+
+
+@pytest.mark.parametrize(
+    "raw", ["9999-12-31T23:00:00-02:00", "9999-12-31T23:59:60Z", "0001-01-01T00:30:00+01:00"]
+)
+def test_timestamps_outside_years_0001_to_9999_in_utc_are_quarantined(convert: ConvertFn, raw: str) -> None:
+    from datetime import datetime, timedelta
+
+    # Python's datetime as the reference: the UTC instant is outside years 1..9999 (a leap
+    # second is the first instant of the next minute)
+    leap = raw.endswith(":60Z")
+    instant = datetime.fromisoformat(raw.replace(":60Z", ":59+00:00") if leap else raw)
+    with pytest.raises(OverflowError):
+        instant.astimezone(UTC) + (timedelta(seconds=1) if leap else timedelta(0))
+    events, (q,) = _one_value(convert, "timestamp", raw)
+    assert events == [] and q["a"] == raw
+    assert q["_cdcnorm"]["reasons"][0]["reason"] == "outside the years 0001 to 9999 in UTC"
+
+
+def test_bytes_message_names_the_characters_and_postgresql_hex_is_accepted(convert: ConvertFn) -> None:
+    data = "op,pos,id,a\nI,1,1,zz\nI,2,2,\\x0a0B\nI,3,3,0a0\n"
+    done = convert(NOTES.replace("TYPE", "bytes"), {"n.csv": data})
+    (e,) = done.events("t.notes")
+    assert e["values"]["a"] == "Cgs="  # RFC 4648 base64 of 0x0a0b; PostgreSQL's \\x form of bytea
+    reasons = {q["id"]: q["_cdcnorm"]["reasons"][0]["reason"] for q in done.quarantine("t.notes")}
+    assert reasons == {
+        "1": 'not hex: the characters "zz" are not hex digits',
+        "3": "an odd number of hex digits",
+    }
+
+
+def test_text_positions_sort_in_byte_order_of_the_text(convert: ConvertFn) -> None:
+    mapping = NOTES.replace("TYPE", "text").replace("kind: integer", "kind: text")
+    rows = "".join(f"I,{p},{i},x\n" for i, p in enumerate(["a-", "a", "b", "a\u00e9", "ab"], 1))
+    done = convert(mapping, {"n.csv": "op,pos,id,a\n" + rows})
+    ids = [e["key"]["id"] for e in done.events("t.notes")]
+    # code point order of the texts (Python's str order): a, a-, ab, aé, b
+    assert ids == [2, 1, 5, 4, 3]
+    positions = [e["position"] for e in done.events("t.notes")]
+    assert positions == sorted(positions) and positions[0] == "61.0"
+
+
+def test_a_table_name_that_would_escape_the_output_folder_is_refused(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    for name in ["../../escaped", "/tmp/x", "CON", ".hidden"]:
+        (m := tmp_path / "m").mkdir(exist_ok=True)
+        (m / "t.yaml").write_text(NOTES.replace("TYPE", "text").replace("t.notes", json.dumps(name)))
+        (tmp_path / "n.csv").write_text("op,pos,id,a\nI,1,1,x\n")
+        assert (
+            cli("convert", "--mappings", str(m), str(tmp_path / "n.csv"), "--out", str(tmp_path / "o")) == 3
+        )
+        err = capsys.readouterr().err
+        assert "t.yaml" in err and "cannot name the output's folders" in err and "Traceback" not in err
+    assert not (tmp_path / "o" / "events").exists() and not (tmp_path.parent / "escaped").exists()
+
+
+@pytest.mark.parametrize(
+    ("yaml_snippet", "message"),
+    [
+        ("codes: {010: insert}", "action code 8 was read as a int"),
+        ("position: {column: pos, kind: integer, width: 8}", "width applies to hex positions only"),
+        ("a: {type: integer, max_length: 3}", "max_length applies to text fields only"),
+    ],
+)
+def test_mapping_options_that_do_not_apply_are_refused(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], yaml_snippet: str, message: str
+) -> None:
+    text = NOTES.replace("TYPE", "text")
+    if yaml_snippet.startswith("codes"):
+        text = text.replace("codes: {I: insert, D: delete}", yaml_snippet)
+    elif yaml_snippet.startswith("position"):
+        text = text.replace("position: {column: pos, kind: integer}", yaml_snippet)
+    else:
+        text = text.replace("a: text", yaml_snippet)
+    (m := tmp_path / "m").mkdir()
+    (m / "t.yaml").write_text(text)
+    (tmp_path / "n.csv").write_text("op,pos,id,a\nI,1,1,x\n")
+    assert cli("check", "--mappings", str(m), str(tmp_path / "n.csv")) == 3
+    err = capsys.readouterr().err
+    assert message in err and "t.yaml" in err and "Traceback" not in err
+
+
+def _notes(tmp_path: Path) -> tuple[Path, Path]:
+    (m := tmp_path / "m").mkdir(exist_ok=True)
+    (m / "t.yaml").write_text(NOTES.replace("TYPE", "integer"))
+    (d := tmp_path / "n.csv").write_text("op,pos,id,a\nI,1,1,x\nI,2,2,3\n")
+    return m, d
+
+
+@pytest.mark.parametrize(
+    ("args", "message"),
+    [
+        (["--memory-limit", "banana"], "'banana' is not a memory size"),
+        (["--threads", "-3"], "'-3' is not a whole number of at least 1"),
+        (["--limit", "-1"], "'-1' is not a whole number of 0 or more"),
+        (["--max-rejects", "-1"], "'-1' is not a whole number of 0 or more"),
+        (["--wait", "soon"], "'soon' is not a number of seconds"),
+        (["--table", "t.note", "--show-plan"], 'did you mean "t.notes"'),
+        (["--table", "t.notes"], "--table goes with --show-plan or --stop-after"),
+    ],
+)
+def test_options_are_checked_before_anything_runs(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], args: list[str], message: str
+) -> None:
+    m, d = _notes(tmp_path)
+    assert cli("convert", "--mappings", str(m), str(d), "--out", str(tmp_path / "o"), *args) == 2
+    err = capsys.readouterr().err
+    assert message in err and "Traceback" not in err
+    assert not (tmp_path / "o" / "runs").exists()
+
+
+def test_max_rejects_zero_allows_none_and_json_keeps_the_ledger(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    m, d = _notes(tmp_path)
+    out = tmp_path / "o"
+    assert (
+        cli("convert", "--mappings", str(m), str(d), "--out", str(out), "--max-rejects", "0", "--json") == 5
+    )
+    report = json.loads(capsys.readouterr().out)
+    assert report["exit_code"] == 5 and report["ledger"]["total"]["quarantined"] == 1
+    assert report["run"] == last_run(out)["run"]  # the run was committed all the same
+    assert (
+        cli("convert", "--mappings", str(m), str(d), "--out", str(tmp_path / "o2"), "--quiet") == 0
+    )  # no limit
+
+
+def test_an_output_folder_that_is_a_file_is_refused_before_reading(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    m, d = _notes(tmp_path)
+    (tmp_path / "o").write_text("not a folder")
+    assert cli("convert", "--mappings", str(m), str(d), "--out", str(tmp_path / "o")) == 4
+    err = capsys.readouterr().err
+    assert "the output folder is a file" in err and str(tmp_path / "o") in err
+
+
+def test_a_header_only_file_without_a_final_newline_has_no_rows(convert: ConvertFn) -> None:
+    done = convert(NOTES.replace("TYPE", "text"), {"n1.csv": "op,pos,id,a", "n2.csv": "op,pos,id,a\r\n"})
+    files = done.ledger()["tables"]["t.notes"]["files"]
+    assert files["n1.csv"]["read"] == 0 and files["n2.csv"]["read"] == 0

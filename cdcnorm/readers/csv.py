@@ -47,6 +47,8 @@ ENGINE_ENCODINGS = {"utf-8": "utf-8", "iso8859-1": "latin-1"}
 #: An unquoted field can never hold a bare line break, so this null token never matches:
 #: it stands for "no null tokens" where the engine insists on at least one.
 NEVER = "\n"
+#: Block size of the independent record count: small, so its numpy buffers stay small too.
+COUNT_BLOCK = 4 << 20
 
 
 def _delimiter(path: Path, mapping: Mapping) -> str:
@@ -118,7 +120,7 @@ def count_records(path: Path, quote: str, header: bool) -> tuple[int, bool]:
     pos = 0
     last_byte = 10
     count = 0
-    for chunk in streams.blocks(path):
+    for chunk in streams.blocks(path, COUNT_BLOCK):
         buf = np.frombuffer(chunk, dtype=np.uint8)
         nl = np.flatnonzero(buf == 10)
         isq = (buf == q).view(np.uint8)

@@ -37,34 +37,24 @@ def _memory(text: str) -> str:
     return text.strip()
 
 
-def _positive(text: str) -> int:
-    try:
-        n = int(text)
-    except ValueError:
-        n = 0
-    if n < 1:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number of at least 1")
-    return n
+def _number(kind: type[int] | type[float], least: float, what: str) -> Any:
+    """An argparse type: a number of ``kind`` of at least ``least``, refused at parse time."""
+
+    def parse(text: str) -> int | float:
+        try:
+            n = kind(text)
+        except ValueError:
+            n = None
+        if n is None or not n >= least:
+            raise argparse.ArgumentTypeError(f"{text!r} is not {what}")
+        return n
+
+    return parse
 
 
-def _count(text: str) -> int:
-    try:
-        n = int(text)
-    except ValueError:
-        n = -1
-    if n < 0:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number of 0 or more")
-    return n
-
-
-def _seconds(text: str) -> float:
-    try:
-        n = float(text)
-    except ValueError:
-        n = -1.0
-    if not n >= 0:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a number of seconds (0 or more)")
-    return n
+_positive = _number(int, 1, "a whole number of at least 1")
+_count = _number(int, 0, "a whole number of 0 or more")
+_seconds = _number(float, 0, "a number of seconds (0 or more)")
 
 
 def _conversion_args(p: argparse.ArgumentParser) -> None:

@@ -31,7 +31,7 @@ from hypothesis import strategies as st
 from cdcnorm.mapping import load_mappings
 from cdcnorm.pipeline import Options, run
 from tests.conftest import ROOT, cli, last_run
-from tests.test_oracle_sqlite import MAPPING, SCHEMA, workload
+from tests.test_oracle_sqlite import MAPPING, SCHEMA, final_table, workload
 from tests.test_properties import MAPPING as MOORINGS
 from tests.test_properties import SETTINGS, _csv, _log, ops
 
@@ -120,17 +120,7 @@ def test_daily_runs_add_up_to_one_run_and_replay_to_sqlite(tmp_path: Path, seed:
 
     table = "harbour.berths"
     assert _changes(daily, table) == _changes(once, table)
-    final = {
-        r[0]: {
-            "berth_id": r[0],
-            "harbour": r[1],
-            "fee": None if r[2] is None else str(Decimal(r[2])),
-            "length_m": r[3],
-            "note": r[4],
-        }
-        for r in db.execute("SELECT * FROM berths")
-    }
-    assert _replay(daily, table, "berth_id") == final  # sqlite3 as the oracle
+    assert _replay(daily, table, "berth_id") == final_table(db)  # sqlite3 as the oracle
     runs = _totals(daily)
     (whole,) = _totals(once)
     assert len(runs) == 7

@@ -112,6 +112,20 @@ def dump_parts(db: sqlite3.Connection, folder: Path, rng: random.Random) -> list
     return paths
 
 
+def final_table(db: sqlite3.Connection) -> dict[int, dict[str, object]]:
+    """SQLite's table as envelope values (decimals as their exact text: Python's decimal)."""
+    return {
+        r[0]: {
+            "berth_id": r[0],
+            "harbour": r[1],
+            "fee": None if r[2] is None else str(Decimal(r[2])),
+            "length_m": r[3],
+            "note": r[4],
+        }
+        for r in db.execute("SELECT * FROM berths")
+    }
+
+
 def expected_events(db: sqlite3.Connection) -> list[tuple[str, int, int]]:
     out: list[tuple[str, int, int]] = []
     by_pos: dict[int, dict[str, tuple[object, ...]]] = {}
@@ -158,17 +172,7 @@ def test_convert_reproduces_the_sqlite_change_log(tmp_path: Path, seed: int) -> 
             state[e["key"]["berth_id"]] = e["values"]
         else:
             state.pop(e["key"]["berth_id"])
-    final = {
-        r[0]: {
-            "berth_id": r[0],
-            "harbour": r[1],
-            "fee": None if r[2] is None else str(Decimal(r[2])),
-            "length_m": r[3],
-            "note": r[4],
-        }
-        for r in db.execute("SELECT * FROM berths")
-    }
-    assert state == final
+    assert state == final_table(db)
 
     led = done.ledger()
     n_changes = db.execute("SELECT count(*) FROM changes").fetchone()[0]

@@ -123,7 +123,16 @@ class Result:
         if stage == "read":
             return self._read_rows(run, limit)
         step = [s for s in run.plan.steps if s.stage == stage][-1]
-        sql = f"SELECT * FROM {ident(step.relation)}" + (f" LIMIT {limit}" if limit else "")
+        columns = [str(r[0]) for r in self.engine.rows(f"DESCRIBE SELECT * FROM {ident(step.relation)}")]
+        names = _shown_names(run.plan)
+        picked = [f"s.{ident(c)} AS {ident(names.get(c, c))}" for c in columns if c != "__file"]
+        join = ""
+        if "__file" in columns:  # the file's name, not its number
+            picked.insert(0, "f.name AS file")
+            join = " LEFT JOIN __files f ON f.id = s.__file"
+        sql = f"SELECT {', '.join(picked)} FROM {ident(step.relation)} s{join}" + (
+            f" LIMIT {limit}" if limit else ""
+        )
         return self.engine.arrow(sql)
 
     def _read_rows(self, run: TableRun, limit: int | None) -> pa.Table:
@@ -154,6 +163,32 @@ class Result:
 
         run = self.tables[table]
         return sorted_envelopes(run.plan, self.engine, "__files", render=render)
+
+
+def _shown_names(plan: Plan) -> dict[str, str]:
+    """What --stop-after calls the plan's columns: raw columns by their names in the dump, typed
+    values by their field names (``prior.<field>``, ``after.<field>`` in pairs)."""
+    names = {internal: f"raw:{raw}" for raw, internal in plan.internal.items()}
+    names.update(
+        {
+            "__row": "record",
+            "__enc": "not valid text (base64)",
+            "__act": "action",
+            "__pos": "position key",
+            "__seq": "sequence key",
+            "__cat": "committed_at",
+            "__rank": "image rank",
+            "__ok": "ok",
+            "__fate": "fate",
+            "__role": "role",
+            "__carried": "carried in",
+        }
+    )
+    for i, name in enumerate(plan.fields):
+        names[f"v{i}"] = name
+        names[f"p{i}"] = f"prior.{name}"
+        names[f"a{i}"] = f"after.{name}"
+    return names
 
 
 def _drift_hint(d: Drift, columns: list[str]) -> str:

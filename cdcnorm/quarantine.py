@@ -45,7 +45,12 @@ def rejected_rows(plan: Plan) -> str:
         "ELSE 'other content' END",
         "CASE WHEN __earlier_run IS NULL THEN 'conflict' ELSE 'conflict with run ' || __earlier_run END",
     )
-    lonely = _reason(lit("an after-image at the same position"), position_text(plan), unpaired)
+    lonely = _reason(
+        lit("an after-image at the same position"),
+        position_text(plan),
+        f"CASE WHEN __partner_rejected THEN 'before-image whose after-image at this position was quarantined' "
+        f"ELSE {unpaired} END",
+    )
     parts = [
         f"SELECT __file, __row, reasons, CAST(NULL AS VARCHAR) AS text FROM {plan.rel('rejects')}",
         f"SELECT __file, __row, {conflict} AS reasons, CAST(NULL AS VARCHAR) AS text "

@@ -200,3 +200,45 @@ def test_a_header_only_file_without_a_final_newline_has_no_rows(convert: Convert
     done = convert(NOTES.replace("TYPE", "text"), {"n1.csv": "op,pos,id,a", "n2.csv": "op,pos,id,a\r\n"})
     files = done.ledger()["tables"]["t.notes"]["files"]
     assert files["n1.csv"]["read"] == 0 and files["n2.csv"]["read"] == 0
+
+
+def test_a_before_image_whose_after_image_was_quarantined_says_so(convert: ConvertFn) -> None:
+    mapping = NOTES.replace("TYPE", "integer").replace(
+        "{I: insert, D: delete}", "{I: insert, B: before, A: after}"
+    )
+    done = convert(mapping, {"n.csv": "op,pos,id,a\nB,1,1,5\nA,1,1,x\nB,2,2,7\n"})
+    reasons = {q["op"]: q["_cdcnorm"]["reasons"][0]["reason"] for q in done.quarantine("t.notes")}
+    assert reasons == {
+        "A": "not an integer",
+        "B": "before-image whose after-image at this position was quarantined",
+    }
+    total = done.ledger()["total"]
+    assert total["quarantined"] == 2 and total["pending"] == 1 and done.ledger()["balanced"]  # row 3 waits
+
+
+@pytest.mark.parametrize("stage", ["source", "order", "dedupe", "pair", "envelope"])
+def test_stop_after_shows_field_and_file_names(capsys: pytest.CaptureFixture[str], stage: str) -> None:
+    import re
+
+    from tests.conftest import ROOT
+
+    dumps, mappings = ROOT / "examples" / "dumps", ROOT / "mappings"
+    assert (
+        cli(
+            "convert",
+            "--mappings",
+            str(mappings),
+            str(dumps),
+            "--stop-after",
+            stage,
+            "--table",
+            "ferry.bookings",
+            "--json",
+        )
+        == 0
+    )
+    rows = json.loads(capsys.readouterr().out)["rows"]
+    assert rows and all(not re.fullmatch(r"[cvpa][0-9]+|__file", k) for k in rows[0])
+    assert {r["file"] for r in rows} <= {"bookings-archive.csv", "bookings-live.csv"}
+    if stage == "order":
+        assert "booking_id" in rows[0] and "position key" in rows[0]

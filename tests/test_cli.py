@@ -136,8 +136,8 @@ def test_max_rejects_exits_5_but_writes_everything(
         "convert", "--mappings", str(MAPPINGS), str(DUMPS), "--out", str(tmp_path), "--max-rejects", "5"
     )
     assert code == 5
-    assert "11 rows were quarantined" in capsys.readouterr().err
-    assert last_run(tmp_path)["ledger"]["total"]["quarantined"] == 11
+    assert "12 rows were quarantined" in capsys.readouterr().err
+    assert last_run(tmp_path)["ledger"]["total"]["quarantined"] == 12
     assert len(list((tmp_path / "quarantine").iterdir())) == 3
 
 

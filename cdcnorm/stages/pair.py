@@ -7,7 +7,8 @@ keys, the update changed the key. An after with no before is an upsert,
 counted as unpaired. A before with no after is **pending**: it waits, in the
 landing area, for its after-image to arrive in a later run
 (``<table>__carried`` brings the waiting ones back), unless the run settles
-it (``Plan.settle``): then it is quarantined. An after-image an earlier run
+it (``Plan.settle``) or quarantined an after-image at its position and
+sequence (a bad value, a conflict): then it is quarantined, with the reason. An after-image an earlier run
 already emitted unpaired (``__unpaired`` in ``<table>__earlier``) stands in
 for the after of a late before-image (a *ghost*: nothing is emitted for it
 again). In after-only mode a before row is quarantined.
@@ -74,8 +75,17 @@ def pair_images(plan: Plan) -> Plan:
         settled = f"k.__pos < {plan.settle}"
     else:
         settled = "FALSE"
+    # an after-image this run rejected at the same position and sequence (a bad value, a conflict)
+    # will not come again: its before-image waits no more, and says why
+    rejected_after = (
+        f"EXISTS (SELECT 1 FROM {plan.rel('typed')} t WHERE t.__act = 'after' AND t.__pos = k.__pos "
+        f"AND t.__seq = k.__seq AND (NOT t.__ok OR EXISTS (SELECT 1 FROM {plan.rel('fates')} f "
+        "WHERE f.__fate = 'conflict' AND f.__file = t.__file AND f.__row = t.__row)))"
+    )
+    partner = f"({str(paired_mode).upper()} AND {rejected_after})"
     waiting = (
-        f"SELECT k.*, (NOT {str(paired_mode).upper()} OR {settled}) AS __settled FROM {kept} k "
+        f"SELECT k.*, (NOT {str(paired_mode).upper()} OR {settled} OR {partner}) AS __settled, "
+        f"{partner} AS __partner_rejected FROM {kept} k "
         f"WHERE k.__act = 'before' AND NOT EXISTS (SELECT 1 FROM {p} q WHERE q.bf = k.__file AND q.br = k.__row)"
     )
     plan = plan.add("pair", "waiting", waiting, materialize=True)

@@ -45,6 +45,11 @@ def rejected_rows(plan: Plan) -> str:
         "ELSE 'other content' END",
         "CASE WHEN __earlier_run IS NULL THEN 'conflict' ELSE 'conflict with run ' || __earlier_run END",
     )
+    ambiguous = _reason(
+        lit("one change of a key per position and sequence, or a before-image and its after-image"),
+        "CAST(__versions AS VARCHAR) || ' kinds of change of this key'",
+        lit("ambiguous order: changes of one key at one position and sequence cannot be ordered"),
+    )
     lonely = _reason(
         lit("an after-image at the same position"),
         position_text(plan),
@@ -55,6 +60,8 @@ def rejected_rows(plan: Plan) -> str:
         f"SELECT __file, __row, reasons, CAST(NULL AS VARCHAR) AS text FROM {plan.rel('rejects')}",
         f"SELECT __file, __row, {conflict} AS reasons, CAST(NULL AS VARCHAR) AS text "
         f"FROM {plan.rel('fates')} WHERE __fate = 'conflict'",
+        f"SELECT __file, __row, {ambiguous} AS reasons, CAST(NULL AS VARCHAR) AS text "
+        f"FROM {plan.rel('fates')} WHERE __fate = 'ambiguous'",
         f"SELECT __file, __row, {lonely} AS reasons, CAST(NULL AS VARCHAR) AS text "
         f"FROM {plan.rel('waiting')} WHERE __settled",
     ]

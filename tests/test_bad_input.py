@@ -242,3 +242,28 @@ def test_stop_after_shows_field_and_file_names(capsys: pytest.CaptureFixture[str
     assert {r["file"] for r in rows} <= {"bookings-archive.csv", "bookings-live.csv"}
     if stage == "order":
         assert "booking_id" in rows[0] and "position key" in rows[0]
+
+
+def test_changes_of_one_key_at_one_position_that_cannot_be_ordered_are_quarantined(
+    convert: ConvertFn,
+) -> None:
+    # an insert and a delete of key 1 at position 5, no sequence: which came last is not known; a
+    # before and after pair at one position is an update, and key 3's changes have positions
+    mapping = NOTES.replace("TYPE", "integer").replace(
+        "{I: insert, D: delete}", "{I: insert, D: delete, B: before, A: after}"
+    )
+    data = "op,pos,id,a\nI,5,1,1\nD,5,1,1\nB,6,2,1\nA,6,2,2\nI,7,3,1\nD,8,3,1\n"
+    done = convert(mapping, {"n.csv": data})
+    events = [(e["action"], e["key"]["id"], e["position"]) for e in done.events("t.notes")]
+    assert events == [
+        ("upsert", 2, "00000000000000000006.2"),
+        ("upsert", 3, "00000000000000000007.0"),
+        ("delete", 3, "00000000000000000008.0"),
+    ]
+    quarantined = {
+        (q["op"], q["id"]): q["_cdcnorm"]["reasons"][0]["reason"] for q in done.quarantine("t.notes")
+    }
+    assert set(quarantined) == {("I", "1"), ("D", "1")}
+    assert all(r.startswith("ambiguous order") for r in quarantined.values())
+    total = done.ledger()["total"]
+    assert total["quarantined"] == 2 and total["merged"] == 1 and done.ledger()["balanced"]

@@ -10,6 +10,10 @@ count too: a row repeating one of them with the same content is a duplicate of
 that run; with other content it is a conflict, quarantined with the earlier
 run named.
 
+Two different changes of one key at one position and sequence (an insert
+and a delete, say) cannot be ordered, except a before-image and its
+after-image: all of them are quarantined as ``ambiguous order``, never guessed.
+
 Only identities seen more than once need a closer look, so the stage first
 finds those with a hash aggregate and compares the (few) rows of those
 identities exactly, value by value; every other row is kept as it is.
@@ -55,16 +59,32 @@ def dedupe_rows(plan: Plan) -> Plan:
         "GROUP BY o.__file, o.__row, o.__act",
         materialize=True,
     )
-    # every row whose fate is not 'keep': a repeat inside this run, or of an earlier run
+    # Two different changes of one key at one position and sequence cannot be ordered (an insert
+    # and a delete: which came last?), except a before-image and its after-image: never guessed.
+    group = ", ".join(["__pos", "__seq", *keys])
+    g_on = " AND ".join(f"o.{c} = g.{c}" for c in ["__pos", "__seq", *keys])
+    plan = plan.add(
+        "dedupe",
+        "ambiguous",
+        f"SELECT o.__file, o.__row, o.__act, g.__acts FROM {ordered} o JOIN ("
+        f"SELECT {group}, count(DISTINCT __act) AS __acts FROM {ordered} GROUP BY {group} "
+        "HAVING count(DISTINCT __act) > 1 AND NOT (count(DISTINCT __act) = 2 "
+        f"AND bool_and(__act IN ('before', 'after')))) g ON {g_on}",
+        materialize=True,
+    )
+    # every row whose fate is not 'keep': an ambiguous order, a repeat of an earlier run, a repeat
+    # inside this run (in that order of precedence: one fate per row)
     plan = plan.add(
         "dedupe",
         "fates",
-        "SELECT coalesce(s.__file, f.__file) AS __file, coalesce(s.__row, f.__row) AS __row, "
-        "coalesce(s.__act, f.__act) AS __act, "
-        "CASE WHEN s.__same THEN 'duplicate' WHEN NOT s.__same THEN 'conflict' ELSE f.__fate END AS __fate, "
-        "coalesce(f.__versions, 1) AS __versions, s.__earlier_run AS __earlier_run "
-        f"FROM {plan.rel('seen')} s FULL JOIN (SELECT * FROM {plan.rel('repeat_fates')} WHERE __fate <> 'keep') f "
-        "ON s.__file = f.__file AND s.__row = f.__row",
+        "SELECT __file, __row, __act, __fate, __versions, __earlier_run FROM ("
+        "SELECT *, row_number() OVER (PARTITION BY __file, __row ORDER BY __rank) AS __n FROM ("
+        f"SELECT __file, __row, __act, 'ambiguous' AS __fate, __acts AS __versions, "
+        f"CAST(NULL AS VARCHAR) AS __earlier_run, 0 AS __rank FROM {plan.rel('ambiguous')} UNION ALL "
+        "SELECT __file, __row, __act, CASE WHEN __same THEN 'duplicate' ELSE 'conflict' END, 1, __earlier_run, 1 "
+        f"FROM {plan.rel('seen')} UNION ALL "
+        "SELECT __file, __row, __act, __fate, __versions, CAST(NULL AS VARCHAR), 2 "
+        f"FROM {plan.rel('repeat_fates')} WHERE __fate <> 'keep')) WHERE __n = 1",
         materialize=True,
     )
     sql = (

@@ -80,7 +80,7 @@ def pair_images(plan: Plan) -> Plan:
     rejected_after = (
         f"EXISTS (SELECT 1 FROM {plan.rel('typed')} t WHERE t.__act = 'after' AND t.__pos = k.__pos "
         f"AND t.__seq = k.__seq AND (NOT t.__ok OR EXISTS (SELECT 1 FROM {plan.rel('fates')} f "
-        "WHERE f.__fate = 'conflict' AND f.__file = t.__file AND f.__row = t.__row)))"
+        "WHERE f.__fate IN ('conflict', 'ambiguous') AND f.__file = t.__file AND f.__row = t.__row)))"
     )
     partner = f"({str(paired_mode).upper()} AND {rejected_after})"
     waiting = (

@@ -331,20 +331,16 @@ def cmd_runs(args: argparse.Namespace) -> int:
 
 
 def cmd_settle(args: argparse.Namespace) -> int:
-    from cdcnorm.pipeline import Options, run
+    from cdcnorm.pipeline import Options, position_key_of, run
 
     mappings = load_mappings(Path(args.mappings))
     if args.before is not None:
         from cdcnorm import positions
         from cdcnorm.engines.duckdb import DuckDBEngine
-        from cdcnorm.sql import lit
 
         engine = DuckDBEngine()
         specs = [m.mapping.change.position for m in mappings]
-        if not any(
-            engine.rows(f"SELECT {positions.position_key(p, lit(args.before))}")[0][0] is not None
-            for p in specs
-        ):
+        if not any(position_key_of(engine, p, args.before) is not None for p in specs):
             raise UsageError(
                 f"--before {args.before!r} is not a log position of any mapping",
                 expected=" or ".join(sorted({positions.expected(p) for p in specs})),

@@ -137,22 +137,14 @@ class Result:
 
     def _read_rows(self, run: TableRun, limit: int | None) -> pa.Table:
         """The raw rows as read, under their raw column names, with file names."""
-        names = {r.name: r for r in run.plan.relations}
-        cols = [(c, run.plan.internal[c]) for c in run.raw.columns]
-        parts = []
-        for rel in names.values():
-            picked = ", ".join(
-                ident(i) if i in rel.columns else f"CAST(NULL AS VARCHAR) AS {ident(i)}" for _, i in cols
-            )
-            parts.append(
-                f"SELECT __file, __row, __enc{', ' + picked if picked else ''} FROM {ident(rel.name)}"
-            )
-        if not parts:
+        if not run.plan.relations:
             return pa.table({})
+        cols = [(c, run.plan.internal[c]) for c in run.raw.columns]
+        union = run.plan.raw_union([i for _, i in cols])
         shown = ", ".join(f"{ident(i)} AS {ident(c)}" for c, i in cols)
         sql = (
             f"SELECT f.name AS file, u.__row AS record{', ' + shown if shown else ''}, u.__enc AS not_utf8 "
-            f"FROM ({' UNION ALL '.join(parts)}) u JOIN __files f ON f.id = u.__file ORDER BY f.name, u.__row"
+            f"FROM ({union}) u JOIN __files f ON f.id = u.__file ORDER BY f.name, u.__row"
             + (f" LIMIT {limit}" if limit else "")
         )
         return self.engine.arrow(sql)
@@ -335,16 +327,24 @@ def run(
         streams.remove(scratch)
 
 
+def position_key_of(engine: DuckDBEngine, spec: Any, text: str) -> str | None:
+    """SQL of the key of ``text`` as a position of kind ``spec``, or None when it is not one."""
+    from cdcnorm import positions
+    from cdcnorm.sql import lit
+
+    key = positions.position_key(spec, lit(text))
+    return key if engine.rows(f"SELECT {key}")[0][0] is not None else None
+
+
 def _settle_key(engine: DuckDBEngine, mapping: LoadedMapping, settle: str | None) -> str | None:
     """The settle option as SQL for the plan: None, "all", or the position's key (checked)."""
     if settle is None or settle == "all":
         return settle
     from cdcnorm import positions
-    from cdcnorm.sql import lit
 
     spec = mapping.mapping.change.position
-    key = positions.position_key(spec, lit(settle))
-    if engine.rows(f"SELECT {key}")[0][0] is None:
+    key = position_key_of(engine, spec, settle)
+    if key is None:
         raise UsageError(
             f"--before {settle!r} is not a position of {mapping.table}",
             expected=positions.expected(spec),

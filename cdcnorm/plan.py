@@ -83,6 +83,26 @@ class Plan:
         """The quoted internal name of a raw column (what the plan's SQL says for it)."""
         return ident(self.internal[column])
 
+    def raw_union(self, columns: list[str], wanted: str | None = None) -> str:
+        """SQL: ``__file``, ``__row``, ``__enc`` and the given internal columns of every raw
+        relation (NULL where a relation lacks one); with ``wanted`` (a relation with ``__file``
+        and ``__row``), only its rows are looked up."""
+        semi = f" SEMI JOIN {wanted} q ON x.__file = q.__file AND x.__row = q.__row" if wanted else ""
+        parts = []
+        for rel in self.relations:
+            picked = "".join(
+                f", x.{ident(c)}" if c in rel.columns else f", CAST(NULL AS VARCHAR) AS {ident(c)}"
+                for c in columns
+            )
+            parts.append(f"SELECT x.__file, x.__row, x.__enc{picked} FROM {ident(rel.name)} x{semi}")
+        if not parts:
+            nulls = "".join(f", CAST(NULL AS VARCHAR) AS {ident(c)}" for c in columns)
+            parts.append(
+                "SELECT CAST(NULL AS INTEGER) AS __file, CAST(NULL AS BIGINT) AS __row, "
+                f"CAST(NULL AS VARCHAR) AS __enc{nulls} WHERE FALSE"
+            )
+        return " UNION ALL ".join(parts)
+
     @property
     def fields(self) -> list[str]:
         return list(self.mapping.mapping.fields)

@@ -101,11 +101,6 @@ def text(kind: str, k: str, *, width: int = 32) -> str:
     return f"hex({k})"
 
 
-def normalise(spec: PositionSpec, x: str) -> str:
-    """SQL: the normalised position text of raw text ``x``, NULL when malformed."""
-    return text(spec.kind, position_key(spec, x), width=spec.width)
-
-
 def position_key(spec: PositionSpec, x: str) -> str:
     return key(spec.kind, x, width=spec.width, zone=spec.zone)
 

@@ -82,22 +82,7 @@ def raw_rows(plan: Plan, wanted: str) -> str:
         plan.internal[c] for s in plan.sources for c in s.columns
     }
     internal = sorted(used, key=lambda c: int(c[1:]))
-    unions = []
-    for rel in plan.relations:
-        picked = "".join(
-            f", x.{ident(c)}" if c in rel.columns else f", CAST(NULL AS VARCHAR) AS {ident(c)}"
-            for c in internal
-        )
-        unions.append(
-            f"SELECT x.__file, x.__row, x.__enc{picked} FROM {ident(rel.name)} x "
-            f"SEMI JOIN {wanted} q ON x.__file = q.__file AND x.__row = q.__row"
-        )
-    if not unions:
-        nulls = "".join(f", CAST(NULL AS VARCHAR) AS {ident(c)}" for c in internal)
-        unions.append(
-            "SELECT CAST(NULL AS INTEGER) AS __file, CAST(NULL AS BIGINT) AS __row, "
-            f"CAST(NULL AS VARCHAR) AS __enc{nulls} WHERE FALSE"
-        )
+    union = plan.raw_union(internal, wanted)
     by_columns: dict[tuple[str, ...], list[int]] = {}
     for src in plan.sources:
         by_columns.setdefault(src.columns, []).append(src.file_id)
@@ -109,7 +94,7 @@ def raw_rows(plan: Plan, wanted: str) -> str:
             else "'{}'"
         )
         parts.append(
-            f"SELECT s.__file, s.__row, s.__enc, CAST({raw} AS VARCHAR) AS raw FROM ({' UNION ALL '.join(unions)}) s "
+            f"SELECT s.__file, s.__row, s.__enc, CAST({raw} AS VARCHAR) AS raw FROM ({union}) s "
             f"WHERE s.__file IN ({', '.join(str(i) for i in ids)})"
         )
     parts.append(

@@ -106,7 +106,6 @@ class DuckDBEngine:
         # "lines": one text column written as is, one value per line (the values hold no line break:
         # they are JSON texts, whose control characters are escaped), no header, no quoting.
         options = {
-            "json": "FORMAT JSON",
             "parquet": "FORMAT PARQUET",
             "lines": "FORMAT CSV, HEADER false, QUOTE '', ESCAPE '', DELIMITER '\x01'",
         }[fmt]
@@ -125,10 +124,6 @@ class DuckDBEngine:
     # Readers decide what to read (files, columns, options, which records are malformed); these
     # methods are how DuckDB reads it. Every loaded relation has __file, __row, __enc and the
     # reader's internal column names, all text.
-
-    def count_file(self, path: Path) -> int:
-        """Rows of a Parquet file (from its footer)."""
-        return int(self.rows(f"SELECT count(*) FROM read_parquet({lit(str(path))})")[0][0])
 
     def count(self, relation: str, where: str = "TRUE") -> int:
         return int(self.rows(f"SELECT count(*) FROM {ident(relation)} WHERE {where}")[0][0])

@@ -65,12 +65,16 @@ class Landing:
         done = self.committed()
         return sorted(p for p in folder.glob("*.parquet") if p.stem in done) if folder.is_dir() else []
 
-    def waiting(self, table: str) -> bool:
-        """Whether before-images of the table wait (its latest pending file has rows)."""
+    def waiting_count(self, table: str) -> int:
+        """How many before-images of the table wait (rows of its latest pending file, from the
+        Parquet footer)."""
         import pyarrow.parquet as pq
 
         path = self.pending_file(table)
-        return path is not None and pq.ParquetFile(path).metadata.num_rows > 0
+        return 0 if path is None else int(pq.ParquetFile(path).metadata.num_rows)
+
+    def waiting(self, table: str) -> bool:
+        return self.waiting_count(table) > 0
 
     def pending_file(self, table: str) -> Path | None:
         """The pending images as the latest committed run that touched the table left them."""

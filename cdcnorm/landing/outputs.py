@@ -143,9 +143,8 @@ def commit_run(
     waiting_by_table = {t: o["pending"] for t, o in outputs.items()}
     folder = area.root / "index" / "pending"
     for table_dir in sorted(folder.iterdir()) if folder.is_dir() else []:
-        latest = area.pending_file(table_dir.name)
-        if table_dir.name not in waiting_by_table and latest is not None:
-            waiting_by_table[table_dir.name] = engine.count_file(latest)
+        if table_dir.name not in waiting_by_table and area.pending_file(table_dir.name) is not None:
+            waiting_by_table[table_dir.name] = area.waiting_count(table_dir.name)
     result.waiting = sum(waiting_by_table.values())
     record = {
         "run": run,

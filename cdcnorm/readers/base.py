@@ -64,9 +64,6 @@ class RawTable:
             self.columns.append(raw)
         return self._internal[raw]
 
-    def has(self, raw: str) -> bool:
-        return raw in self._internal
-
     def relation(self, kind: str) -> str:
         return f"{self.slug}__{kind}{len(self.relations)}"
 

@@ -146,7 +146,9 @@ def build_parser() -> argparse.ArgumentParser:
     demo.add_argument("--root", default=".", help="project folder holding examples/ and mappings/")
 
     from cdcnorm.lineage import cli as lineage_cli
+    from cdcnorm.state import cli as state_cli
 
+    state_cli.add_commands(sub)
     lineage_cli.add_commands(sub)
     return parser
 
@@ -434,6 +436,11 @@ def main(argv: Sequence[str] | None = None) -> int:
             return cmd_runs(args)
         if args.command == "settle":
             return cmd_settle(args)
+        from cdcnorm.state import cli as state_cli
+
+        code = state_cli.run_command(args, out, err)
+        if code is not None:
+            return code
         from cdcnorm.lineage import cli as lineage_cli
 
         return lineage_cli.run_command(args, out)

@@ -20,6 +20,7 @@ EXIT_LEDGER = 6
 EXIT_LINEAGE = 7
 EXIT_BREAKS = 8
 EXIT_BUSY = 9
+EXIT_TARGET = 10
 
 
 def closest(name: str, candidates: Iterable[str]) -> str | None:
@@ -145,3 +146,9 @@ class GraphvizMissing(CdcnormError):
     """The Graphviz `dot` program is needed for SVG/PNG but is not installed."""
 
     exit_code = EXIT_USAGE
+
+
+class TargetError(CdcnormError):
+    """The target database cannot be reached or refuses a statement (never shows a password)."""
+
+    exit_code = EXIT_TARGET

@@ -107,6 +107,8 @@ class DuckDBEngine:
         # they are JSON texts, whose control characters are escaped), no header, no quoting.
         options = {
             "parquet": "FORMAT PARQUET",
+            # RFC 4180 with a header; NULL is an empty field, an empty text is quoted ("")
+            "csv": "FORMAT CSV, HEADER true",
             "lines": "FORMAT CSV, HEADER false, QUOTE '', ESCAPE '', DELIMITER '\x01'",
         }[fmt]
         try:

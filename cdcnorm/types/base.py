@@ -44,3 +44,12 @@ class FieldType:
     def render(self, v: str) -> str:
         """SQL: the JSON form of typed value ``v`` (a string, number, boolean or JSON value)."""
         return v
+
+    @property
+    def form_type(self) -> str:
+        """The engine type a JSON reader is told to read the rendered form as (events read back)."""
+        return self.sql_type
+
+    def unrender(self, v: str) -> str:
+        """SQL: the typed value of ``v``, the rendered form read as ``form_type``: ``render``'s inverse."""
+        return v

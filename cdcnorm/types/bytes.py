@@ -40,3 +40,8 @@ class BytesType(FieldType):
 
     def render(self, v: str) -> str:
         return f"to_base64({v})"
+
+    form_type = "VARCHAR"
+
+    def unrender(self, v: str) -> str:
+        return f"from_base64({v})"

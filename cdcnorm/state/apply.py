@@ -1,0 +1,192 @@
+"""Apply a table's events to a target database: idempotent, order-proof, set-based.
+
+1. Event files the target's applied log already holds (by SHA-256) are skipped.
+2. The engine keeps the latest change of every key among the other files (older
+   ones are counted as ``compacted``): a guarded change makes the older ones moot.
+3. Those changes stream out of the engine in batches of keys; each batch is
+   staged in the target and written by the guarded statements (targets/base.py)
+   in one transaction. A killed apply leaves whole batches applied; a rerun
+   applies the rest (what is there already counts as already applied).
+4. The files are recorded in the applied log.
+
+``dry_run`` does all of it in one transaction that is rolled back, so the counts
+are those of a real apply and nothing changes.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from collections.abc import Callable
+from contextlib import AbstractContextManager, nullcontext
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+
+import duckdb
+import sqlalchemy as sa
+
+from cdcnorm.engines.duckdb import DuckDBEngine
+from cdcnorm.errors import CdcnormError, InputError
+from cdcnorm.mapping.load import LoadedMapping
+from cdcnorm.sql import ident
+from cdcnorm.state.events import EventFile, event_files, load_events
+from cdcnorm.state.snapshot import latest
+from cdcnorm.targets.base import (
+    POSITION,
+    Counts,
+    Session,
+    Tables,
+    TableSpec,
+    Target,
+    build_tables,
+    classify,
+    guarded_writes,
+)
+
+#: Keys per batch: one staged table, one transaction.
+BATCH_ROWS = 50_000
+
+
+@dataclass
+class TableApply:
+    table: str
+    target_table: str
+    counts: Counts = field(default_factory=Counts)
+    events: int = 0
+    files: int = 0
+
+
+def sha256(path: Path) -> str:
+    h = hashlib.sha256()
+    with path.open("rb") as f:
+        for block in iter(lambda: f.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def _ensure(session: Session, target: Target, tables: Tables) -> None:
+    if tables.data.schema and target.has_schemas:
+        session.run(sa.schema.CreateSchema(tables.data.schema, if_not_exists=True))
+    for t in (tables.data, tables.tombstones, tables.applied):
+        session.run(sa.schema.CreateTable(t, if_not_exists=True))
+
+
+def apply_table(
+    engine: DuckDBEngine,
+    mapping: LoadedMapping,
+    landing: Path,
+    target: Target,
+    *,
+    schema: str | None = None,
+    dry_run: bool = False,
+    batch_rows: int = BATCH_ROWS,
+    progress: Callable[[str], None] = lambda _: None,
+) -> TableApply:
+    m = mapping.mapping
+    spec = target.spec(m.table, schema, tuple(m.fields), tuple(m.key), mapping.field_types)
+    tables = build_tables(spec, target.column_type, target.position_type(), applied_schema=None)
+    report = TableApply(m.table, spec.shown)
+    files = event_files(landing, m.table)
+    digests = {f.path: sha256(f.path) for f in files}
+    with target.connect(spec) as begin:
+        if dry_run:  # one transaction, rolled back: every batch sees the ones before it
+            with begin(rollback=True) as session:
+                _apply(
+                    engine,
+                    mapping,
+                    target,
+                    spec,
+                    tables,
+                    files,
+                    digests,
+                    report,
+                    lambda: nullcontext(session),
+                    batch_rows,
+                    progress,
+                )
+        else:
+            _apply(engine, mapping, target, spec, tables, files, digests, report, begin, batch_rows, progress)
+    return report
+
+
+def _apply(
+    engine: DuckDBEngine,
+    mapping: LoadedMapping,
+    target: Target,
+    spec: TableSpec,
+    tables: Tables,
+    files: list[EventFile],
+    digests: dict[Path, str],
+    report: TableApply,
+    transaction: Callable[[], AbstractContextManager[Session]],
+    batch_rows: int,
+    progress: Callable[[str], None],
+) -> None:
+    spec_table = mapping.table
+    with transaction() as s:
+        _ensure(s, target, tables)
+        a = tables.applied
+        done = {
+            str(sha): int(n)
+            for sha, n in s.run(sa.select(a.c.sha256, a.c.events).where(a.c.table_name == spec_table))
+        }
+    new = [f for f in files if digests[f.path] not in done]
+    for f in files:
+        if digests[f.path] in done:
+            report.counts.files_skipped += 1
+            report.counts.already_applied += done[digests[f.path]]
+            report.events += done[digests[f.path]]
+    report.files = len(files)
+    if not new:
+        return
+    events = load_events(engine, mapping, new, f"{mapping.mapping.slug}__apply_events")
+    try:
+        per_file = dict(engine.rows(f"SELECT __source, count(*) FROM {ident(events.relation)} GROUP BY ALL"))
+        last = latest(engine, events)
+    except CdcnormError:
+        raise
+    except duckdb.Error as e:  # the engine could not read an events file
+        raise InputError(
+            f"an events file of {spec_table} cannot be read: {str(e).splitlines()[0]}",
+            expected="event files as cdcnorm convert writes them",
+        ) from None
+    total = sum(int(n) for n in per_file.values())
+    keys = engine.count(last)
+    report.events += total
+    report.counts.compacted += total - keys
+    ftypes = list(mapping.field_types.values())
+    forms = [f"{target.batch_form(t, f'v{i}')} AS v{i}" for i, t in enumerate(ftypes)]
+    sql = f"SELECT {', '.join(forms)}, __position, __action FROM {ident(last)}"
+    reader = engine.con.sql(sql).to_arrow_reader(batch_rows)
+    assert reader is not None
+    writes = guarded_writes(tables, spec, target.insert)
+    done_rows = 0
+    for batch in reader:
+        if not batch.num_rows:
+            continue
+        with transaction() as s:
+            s.run(sa.schema.CreateTable(tables.batch, if_not_exists=True))
+            s.run(sa.delete(tables.batch))
+            s.stage(tables, batch)
+            for kind, n in s.run(classify(tables, tuple(mapping.mapping.key))):
+                report.counts.add(str(kind), int(n))
+            for statement in writes:
+                s.run(statement)
+        done_rows += batch.num_rows
+        progress(f"{spec_table}: {done_rows:,} of {keys:,} keys")
+    now = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+    with transaction() as s:
+        for f in new:
+            s.run(
+                sa.insert(tables.applied).values(
+                    table_name=spec_table,
+                    sha256=digests[f.path],
+                    file=f.path.name,
+                    events=int(per_file.get(f.path.name, 0)),
+                    applied_at=now,
+                )
+            )
+    engine.drop(last)
+
+
+__all__ = ["BATCH_ROWS", "POSITION", "TableApply", "apply_table"]

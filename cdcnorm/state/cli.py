@@ -1,0 +1,230 @@
+"""The state commands: ``snapshot`` (events to state files) and ``apply`` (events to a database)."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import tempfile
+from pathlib import Path
+from typing import Any
+
+from rich.console import Console
+from rich.table import Table
+
+from cdcnorm.errors import EXIT_OK, CdcnormError, TargetError, UsageError, did_you_mean
+from cdcnorm.mapping import load_mappings
+from cdcnorm.mapping.load import LoadedMapping
+
+#: Where ``apply`` finds its target when --target is not given (keeps a password off the command line).
+TARGET_ENV = "CDCNORM_TARGET"
+
+
+def add_commands(sub: Any) -> None:
+    snap = sub.add_parser(
+        "snapshot", help="compact a landing area's events to the state of every table (latest or as of)"
+    )
+    snap.add_argument("landing", help="the landing area (convert's --out), or a folder of event files")
+    snap.add_argument("--out", required=True, help="folder for the state files, one per table")
+    when = snap.add_mutually_exclusive_group()
+    when.add_argument(
+        "--as-of", metavar="POSITION", help="the state at this position (raw or normalised form)"
+    )
+    when.add_argument("--as-of-time", metavar="TIME", help="the state of the changes committed by this time")
+    snap.add_argument("--format", dest="fmt", choices=["parquet", "csv", "jsonl"], default="parquet")
+    snap.add_argument("--table", help="only this table")
+    snap.add_argument("--mappings", default="mappings", help="folder of mapping files (default: mappings/)")
+    snap.add_argument("--memory-limit", help="the engine's memory limit, e.g. 2GB")
+    snap.add_argument("--json", action="store_true")
+
+    app = sub.add_parser("apply", help="load a landing area's events into database tables, idempotently")
+    app.add_argument("landing", help="the landing area (convert's --out), or a folder of event files")
+    app.add_argument(
+        "--target",
+        help=f"database URL: sqlite:///file.db, duckdb:///file.duckdb, postgresql://user@host/db "
+        f"(default: the {TARGET_ENV} environment variable)",
+    )
+    app.add_argument("--schema", help="the schema of every table (instead of the table name's prefix)")
+    app.add_argument("--dry-run", action="store_true", help="report what would change, change nothing")
+    app.add_argument("--table", help="only this table")
+    app.add_argument("--mappings", default="mappings", help="folder of mapping files (default: mappings/)")
+    app.add_argument("--batch-rows", type=int, default=50_000, help="keys per batch (default 50000)")
+    app.add_argument("--wait", type=float, default=30.0, help="seconds to wait for another apply")
+    app.add_argument("--memory-limit", help="the engine's memory limit, e.g. 2GB")
+    app.add_argument("--json", action="store_true")
+
+
+def _chosen(mappings: list[LoadedMapping], table: str | None, landing: Path) -> list[LoadedMapping]:
+
+    if table is not None:
+        names = [m.table for m in mappings]
+        if table not in names:
+            raise UsageError(f"--table {table!r} has no mapping{did_you_mean(table, names)}", found=table)
+        return [m for m in mappings if m.table == table]
+    return mappings
+
+
+def _unmapped(mappings: list[LoadedMapping], landing: Path) -> list[str]:
+    """Tables with events in the landing area but no mapping (reported, never dropped silently)."""
+    from cdcnorm.state.events import tables_present
+
+    names = {m.table for m in mappings}
+    return [t for t in tables_present(landing) if t not in names]
+
+
+def _engine(args: argparse.Namespace, scratch: Path) -> Any:
+    from cdcnorm.engines.duckdb import DuckDBEngine
+
+    return DuckDBEngine(memory_limit=args.memory_limit, temp_directory=str(scratch / "spill"))
+
+
+def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
+    from cdcnorm.names import path_part
+    from cdcnorm.state import snapshot
+    from cdcnorm.state.events import event_files, load_events
+
+    landing = Path(args.landing)
+    mappings = load_mappings(Path(args.mappings))
+    chosen = _chosen(mappings, args.table, landing)
+    folder = Path(args.out)
+    rows: list[dict[str, Any]] = []
+    with tempfile.TemporaryDirectory(prefix="cdcnorm-") as scratch:
+        engine = _engine(args, Path(scratch))
+        for m in chosen:
+            files = event_files(landing, m.table)
+            events = load_events(engine, m, files)
+            as_of = snapshot.AsOf()
+            if args.as_of is not None:
+                as_of = snapshot.as_of_position(engine, m, args.as_of)
+            elif args.as_of_time is not None:
+                as_of = snapshot.as_of_time(engine, m, args.as_of_time)
+            state = snapshot.compact(engine, events, as_of)
+            path = folder / (path_part(m.table) + snapshot.FORMATS[args.fmt])
+            n = snapshot.write_snapshot(engine, events, state, path, args.fmt)
+            rows.append(
+                {
+                    "table": m.table,
+                    "rows": n,
+                    "event_files": len(files),
+                    "as_of": as_of.label,
+                    "file": str(path),
+                }
+            )
+            engine.drop(state)
+    missing = _unmapped(mappings, landing) if args.table is None else []
+    if args.json:
+        out.print_json(json.dumps({"tables": rows, "unmapped": missing}))
+        return EXIT_OK
+    t = Table(title=f"state of {landing} ({rows[0]['as_of'] if rows else 'latest'})")
+    for col in ("table", "rows", "event files", "file"):
+        t.add_column(col, justify="right" if col in ("rows", "event files") else "left")
+    for r in rows:
+        t.add_row(r["table"], str(r["rows"]), str(r["event_files"]), r["file"])
+    out.print(t)
+    for name in missing:
+        err.print(f"warning: {landing}: events of {name} have no mapping in {args.mappings}; not compacted")
+    return EXIT_OK
+
+
+def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
+    from cdcnorm.state.apply import apply_table
+    from cdcnorm.targets import target_for
+    from cdcnorm.targets.base import scrub
+
+    url = args.target or os.environ.get(TARGET_ENV)
+    if not url:
+        raise UsageError(
+            "apply needs a target database",
+            expected=f"--target URL or the {TARGET_ENV} environment variable",
+            hint="e.g. --target sqlite:///warehouse.db",
+        )
+    if args.batch_rows < 1:
+        raise UsageError("--batch-rows must be at least 1", found=str(args.batch_rows))
+    target = target_for(url, args.wait)
+    landing = Path(args.landing)
+    mappings = load_mappings(Path(args.mappings))
+    chosen = _chosen(mappings, args.table, landing)
+    reports = []
+    with tempfile.TemporaryDirectory(prefix="cdcnorm-") as scratch:
+        engine = _engine(args, Path(scratch))
+        for m in chosen:
+            try:
+                reports.append(
+                    apply_table(
+                        engine,
+                        m,
+                        landing,
+                        target,
+                        schema=args.schema,
+                        dry_run=args.dry_run,
+                        batch_rows=args.batch_rows,
+                    )
+                )
+            except CdcnormError:
+                raise
+            except Exception as e:  # the database's own errors, in its words, without a password
+                import sqlalchemy as sa
+
+                if not isinstance(e, sa.exc.SQLAlchemyError | OSError) and type(e).__module__.split(".")[
+                    0
+                ] not in (
+                    "psycopg",
+                    "sqlite3",
+                    "duckdb",
+                ):
+                    raise
+                first = str(getattr(e, "orig", None) or e).strip().splitlines()[0]
+                raise TargetError(
+                    f"{target.shown}: {scrub(first, url)}",
+                    field=m.table,
+                    hint="check the URL, that the server runs and that the user may create tables",
+                ) from None
+    missing = _unmapped(mappings, landing) if args.table is None else []
+    data = {
+        "target": target.shown,
+        "dry_run": args.dry_run,
+        "tables": [
+            {
+                "table": r.table,
+                "target_table": r.target_table,
+                "events": r.events,
+                "files": r.files,
+                **r.counts.as_dict(),
+            }
+            for r in reports
+        ],
+        "unmapped": missing,
+    }
+    if args.json:
+        out.print_json(json.dumps(data))
+        return EXIT_OK
+    title = f"{'dry run: would apply' if args.dry_run else 'applied'} {landing} to {target.shown}"
+    t = Table(title=title)
+    cols = [
+        "table",
+        "events",
+        "inserted",
+        "updated",
+        "deleted",
+        "deleted_absent",
+        "stale",
+        "already_applied",
+        "compacted",
+        "files_skipped",
+    ]
+    for col in cols:
+        t.add_column(col.replace("_", " "), justify="left" if col == "table" else "right")
+    for row in data["tables"]:
+        t.add_row(row["target_table"], *(str(row[c]) for c in cols[1:]))
+    out.print(t)
+    for name in missing:
+        err.print(f"warning: {landing}: events of {name} have no mapping in {args.mappings}; not applied")
+    return EXIT_OK
+
+
+def run_command(args: argparse.Namespace, out: Console, err: Console) -> int | None:
+    if args.command == "snapshot":
+        return cmd_snapshot(args, out, err)
+    if args.command == "apply":
+        return cmd_apply(args, out, err)
+    return None

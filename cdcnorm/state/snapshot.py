@@ -1,0 +1,174 @@
+"""Compact a table's events to its state: the latest change of every key, deleted keys absent.
+
+The change order is the byte order of ``position`` (see positions.py), never
+the order of files or runs: a later run may hold an older change. The state
+as of a position keeps the events at or below it (every sequence at that log
+position); as of a time, the events committed at or before it. Compaction is
+one grouping in the engine (a window per key), so it runs within the engine's
+memory limit whatever the number of events, and the rows are written sorted
+by key: the same events give the same bytes.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import sqlglot
+
+from cdcnorm import positions
+from cdcnorm.engines.duckdb import DuckDBEngine
+from cdcnorm.errors import InputError, UsageError
+from cdcnorm.mapping.load import LoadedMapping
+from cdcnorm.sql import PLAN_DIALECT, ident, lit
+from cdcnorm.state.events import Events
+
+#: Characters of a timestamp position's normalised text (``2026-03-01T08:00:00.000000Z``).
+TIMESTAMP_WIDTH = 27
+
+
+@dataclass(frozen=True)
+class AsOf:
+    """Which events count: all, those at or below a position, or those committed by a time."""
+
+    condition: str = "TRUE"  # SQL over the events relation
+    label: str = "latest"
+
+
+def position_part(mapping: LoadedMapping, position: str = "__position") -> str:
+    """SQL: the log-position part of a ``position`` text (without sequence and rank)."""
+    if mapping.mapping.change.position.kind == "timestamp":
+        return f"left({position}, {TIMESTAMP_WIDTH})"
+    return f"split_part({position}, '.', 1)"  # no other kind's normalised text holds a dot
+
+
+def as_of_position(engine: DuckDBEngine, mapping: LoadedMapping, text: str) -> AsOf:
+    """``--as-of``: a position in the mapping's raw form (``16/B374D848``), or a normalised
+    ``position`` of an event (all of it, with sequence and rank, or its log-position part)."""
+    spec = mapping.mapping.change.position
+    key = positions.position_key(spec, lit(text))
+    normal = engine.rows(f"SELECT {positions.position_text(spec, key)}")[0][0]
+    if normal is not None:
+        return AsOf(f"{position_part(mapping)} <= {lit(str(normal))}", f"position {text}")
+    head = engine.rows(f"SELECT {position_part(mapping, lit(text))}")[0][0]
+    if head and text != head:  # a full normalised position: its own log position must parse
+        check = positions.position_key(spec, lit(str(head)))
+        if spec.kind == "text" or engine.rows(f"SELECT {check}")[0][0] is not None:
+            return AsOf(f"__position <= {lit(text)}", f"position {text}")
+    raise UsageError(
+        f"--as-of {text!r} is not a position of {mapping.table}",
+        field="position",
+        expected=positions.expected(spec) + ", or an event's normalised position",
+        found=text,
+    )
+
+
+def as_of_time(engine: DuckDBEngine, mapping: LoadedMapping, text: str) -> AsOf:
+    """``--as-of-time``: an RFC 3339 timestamp; events committed at or before it."""
+    if mapping.mapping.change.committed_at is None:
+        raise UsageError(
+            f"--as-of-time needs commit times, and the mapping of {mapping.table} has no change.committed_at",
+            file=str(mapping.path),
+            hint="use --as-of POSITION, or map the commit time column",
+        )
+    from cdcnorm.types.timestamp import timestamp_cast
+
+    cast = timestamp_cast(lit(text), "+00:00")
+    if engine.rows(f"SELECT {cast}")[0][0] is None:
+        raise UsageError(
+            f"--as-of-time {text!r} is not a timestamp",
+            expected="an RFC 3339 timestamp, e.g. 2026-03-01T12:00:00Z",
+            found=text,
+        )
+    return AsOf(f"__cat <= {cast}", f"time {text}")
+
+
+def latest(engine: DuckDBEngine, events: Events, as_of: AsOf = AsOf(), relation: str | None = None) -> str:
+    """Materialise the latest event of every key (fields v0..vn, ``__position``, ``__action``,
+    ``__source``); two different events of one key at its latest position stop the run."""
+    relation = relation or f"{events.mapping.mapping.slug}__latest"
+    keys = ", ".join(events.column(k) for k in events.key)
+    n = len(events.fields)
+    values = ", ".join(f"v{i}" for i in range(n))
+    # The row's whole content, to tell a repeated event from a conflicting one at one position.
+    members = ", ".join(f"'v{i}': v{i}" for i in range(n))
+    content = f"{{'a': __action, {members}}}"
+    latest = (
+        f"SELECT *, row_number() OVER w AS __n, lead(__position) OVER w AS __next_pos, "
+        f"lead({content}) OVER w AS __next_content, {content} AS __content "
+        f"FROM {ident(events.relation)} WHERE {as_of.condition} "
+        f"WINDOW w AS (PARTITION BY {keys} ORDER BY __position DESC, __action, __source)"
+    )
+    engine.materialize(
+        relation,
+        sqlglot.parse_one(
+            f"SELECT {values}, __position, __action, __source, "
+            "(__next_pos = __position AND __next_content IS DISTINCT FROM __content) AS __conflict "
+            f"FROM ({latest}) WHERE __n = 1",
+            read=PLAN_DIALECT,
+        ),
+    )
+    conflict = engine.rows(f"SELECT __position, __source FROM {ident(relation)} WHERE __conflict LIMIT 1")
+    if conflict:
+        pos, source = conflict[0]
+        raise InputError(
+            f"two different events of one key of {events.mapping.table} at one position",
+            file=str(source),
+            field="position",
+            expected="one change per key and position (as convert writes them)",
+            found=f"position {pos}",
+            hint="the folder mixes events of different landing areas; snapshot each on its own",
+        )
+    return relation
+
+
+def compact(engine: DuckDBEngine, events: Events, as_of: AsOf = AsOf(), relation: str | None = None) -> str:
+    """Materialise the state: one row per live key (fields v0..vn and ``__position``)."""
+    relation = relation or f"{events.mapping.mapping.slug}__state"
+    last = latest(engine, events, as_of)
+    values = ", ".join(f"v{i}" for i in range(len(events.fields)))
+    keys = ", ".join(events.column(k) for k in events.key)
+    engine.materialize(
+        relation,
+        sqlglot.parse_one(
+            f"SELECT {values}, __position FROM {ident(last)} WHERE __action = 'upsert' ORDER BY {keys}",
+            read=PLAN_DIALECT,
+        ),
+    )
+    engine.drop(last)
+    return relation
+
+
+def state_projection(
+    events: Events, relation: str, *, render: bool, as_line: bool = False, as_text: bool = False
+) -> str:
+    """SQL: the state rows under their field names, sorted by key (JSON forms with ``render``,
+    as text with ``as_text``)."""
+    ftypes = events.mapping.field_types
+    keys = ", ".join(events.column(k) for k in events.key)
+    cols = []
+    for i, (name, ftype) in enumerate(ftypes.items()):
+        v = ftype.render(f"v{i}") if render else f"v{i}"
+        cols.append((name, f"CAST({v} AS VARCHAR)" if as_text else v))
+    cols.append(("position", "__position"))
+    if as_line:
+        select = "to_json({" + ", ".join(f"{lit(n)}: {e}" for n, e in cols) + "}) AS line"
+    else:
+        select = ", ".join(f"{e} AS {ident(n)}" for n, e in cols)
+    return f"SELECT {select} FROM {ident(relation)} ORDER BY {keys}"
+
+
+def write_snapshot(engine: DuckDBEngine, events: Events, relation: str, path: Path, fmt: str) -> int:
+    """Write the state to ``path``: Parquet (native types), CSV (RFC 4180, the JSON forms as text,
+    a header) or JSON Lines; rows written."""
+    if fmt == "parquet":
+        sql = state_projection(events, relation, render=False)
+        return engine.copy(sqlglot.parse_one(sql, read=PLAN_DIALECT), path, "parquet")
+    if fmt == "jsonl":
+        sql = state_projection(events, relation, render=True, as_line=True)
+        return engine.copy(sqlglot.parse_one(sql, read=PLAN_DIALECT), path, "lines")
+    sql = state_projection(events, relation, render=True, as_text=True)
+    return engine.copy(sqlglot.parse_one(sql, read=PLAN_DIALECT), path, "csv")
+
+
+FORMATS = {"parquet": ".parquet", "csv": ".csv", "jsonl": ".jsonl"}

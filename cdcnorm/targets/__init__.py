@@ -1,0 +1,35 @@
+"""Target databases for ``apply``, one file each, looked up by the URL's scheme."""
+
+from __future__ import annotations
+
+import sqlalchemy as sa
+
+from cdcnorm.errors import UsageError, did_you_mean
+from cdcnorm.targets.base import Target
+from cdcnorm.targets.duckdb import DuckDBTarget
+from cdcnorm.targets.postgresql import PostgreSQLTarget
+from cdcnorm.targets.sqlite import SQLiteTarget
+
+TARGETS: dict[str, type[Target]] = {t.scheme: t for t in (SQLiteTarget, DuckDBTarget, PostgreSQLTarget)}
+
+
+def target_for(url: str, wait: float) -> Target:
+    try:
+        parsed = sa.engine.make_url(url)
+    except sa.exc.ArgumentError:
+        raise UsageError(
+            "--target is not a database URL",
+            expected="e.g. sqlite:///warehouse.db, duckdb:///warehouse.duckdb, postgresql://user@host/db",
+            found=url.split("@")[-1] if "@" in url else url,
+        ) from None
+    scheme = parsed.get_backend_name()
+    if scheme not in TARGETS:
+        raise UsageError(
+            f"no target for databases of kind {scheme!r}{did_you_mean(scheme, TARGETS)}",
+            expected=", ".join(TARGETS),
+            found=scheme,
+        )
+    return TARGETS[scheme](url, wait)
+
+
+__all__ = ["TARGETS", "Target", "target_for"]

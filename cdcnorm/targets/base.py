@@ -1,0 +1,328 @@
+"""What every target database shares: its tables, the guarded statements, one batch's apply.
+
+A mapping's table becomes three tables in the target (all names quoted, never
+spliced into SQL text):
+
+- the table itself: the mapping's fields, the key as primary key, and
+  ``cdcnorm_position``, the position of the change that last wrote the row;
+- ``<table>__deleted``: a tombstone (key, position) per deleted key, so an older
+  upsert that arrives later cannot bring the row back;
+- ``cdcnorm_applied``: the event files applied so far (table, file, SHA-256).
+
+One batch (a set of keys, at most one change each: the latest of the events
+being applied) is staged in a temporary table, classified, then written with
+one guarded upsert and one guarded delete (and their tombstone upkeep) in one
+transaction. A change is applied only when its position is greater than both
+the row's and the tombstone's; equal means already applied, lower means stale.
+Positions are compared as bytes (their text's byte order is the change order).
+
+The statements are SQLAlchemy Core; a target file gives the dialect's
+``insert`` (for ON CONFLICT), column types, how the engine renders a batch
+for it, and how a batch is staged.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Callable, Iterator
+from contextlib import AbstractContextManager
+from dataclasses import dataclass
+from typing import Any, ClassVar, Protocol
+
+import pyarrow as pa
+import sqlalchemy as sa
+
+from cdcnorm.errors import UsageError
+from cdcnorm.types.base import FieldType
+
+POSITION = "cdcnorm_position"
+ACTION = "cdcnorm_action"
+TOMBSTONES = "__deleted"
+APPLIED = "cdcnorm_applied"
+BATCH = "cdcnorm_batch"
+
+#: What a batch's changes do, counted per table.
+COUNTS = ("inserted", "updated", "deleted", "deleted_absent", "stale", "already_applied")
+
+
+@dataclass(frozen=True)
+class TableSpec:
+    """A mapping's table as the target holds it."""
+
+    table: str  # the mapping's table name, e.g. ferry.bookings
+    schema: str | None
+    name: str
+    fields: tuple[str, ...]
+    key: tuple[str, ...]
+    types: dict[str, FieldType]
+
+    @property
+    def shown(self) -> str:
+        return f"{self.schema}.{self.name}" if self.schema else self.name
+
+
+def split_name(
+    table: str, schema: str | None, *, has_schemas: bool, max_bytes: int | None
+) -> tuple[str | None, str]:
+    """(schema, name) of a mapping's table in a target: a dotted prefix is the schema where the
+    database has schemas (``--schema`` overrides it); refused when ambiguous or too long."""
+    if has_schemas and "." in table:
+        prefix, name = table.split(".", 1)
+    else:
+        prefix, name = None, table
+    if schema is not None:
+        if not has_schemas:
+            raise UsageError("--schema: this database has no schemas", found=schema)
+        prefix = schema
+    for part, what in ((prefix, "schema"), (name, "table")):
+        if part is None:
+            continue
+        if not part or "\x00" in part or (has_schemas and what == "table" and "." in part):
+            raise UsageError(
+                f"table {table!r} cannot name a {what} in the target",
+                field="table",
+                expected="at most one dot, between a schema and a table name, and no NUL",
+                found=table,
+            )
+        longest = part + (TOMBSTONES if what == "table" else "")
+        if max_bytes is not None and len(longest.encode("utf-8")) > max_bytes:
+            raise UsageError(
+                f"{what} name {part!r} is too long for the target, which would cut it",
+                field="table",
+                expected=f"at most {max_bytes - (len(TOMBSTONES) if what == 'table' else 0)} bytes",
+                found=f"{len(part.encode('utf-8'))} bytes",
+            )
+    return prefix, name
+
+
+@dataclass
+class Tables:
+    data: sa.Table
+    tombstones: sa.Table
+    applied: sa.Table
+    batch: sa.Table
+
+
+def q(name: str) -> sa.sql.elements.quoted_name:
+    """A name that is always quoted (any character is harmless)."""
+    return sa.sql.elements.quoted_name(name, quote=True)
+
+
+def build_tables(
+    spec: TableSpec,
+    column_type: Callable[[FieldType], sa.types.TypeEngine[Any]],
+    position_type: sa.types.TypeEngine[Any],
+    *,
+    applied_schema: str | None,
+) -> Tables:
+    md = sa.MetaData()
+    schema = q(spec.schema) if spec.schema else None
+    if POSITION in spec.fields or ACTION in spec.fields:
+        raise UsageError(
+            f"a field of {spec.table} is named like a column cdcnorm adds",
+            field=POSITION if POSITION in spec.fields else ACTION,
+            hint="rename the field in the mapping",
+        )
+    cols = [
+        sa.Column(
+            q(f),
+            column_type(spec.types[f]),
+            primary_key=f in spec.key,
+            nullable=f not in spec.key,
+            autoincrement=False,
+        )
+        for f in spec.fields
+    ]
+    data = sa.Table(
+        q(spec.name), md, *cols, sa.Column(q(POSITION), position_type, nullable=False), schema=schema
+    )
+    tomb = sa.Table(
+        q(spec.name + TOMBSTONES),
+        md,
+        *[
+            sa.Column(q(k), column_type(spec.types[k]), primary_key=True, autoincrement=False)
+            for k in spec.key
+        ],
+        sa.Column(q(POSITION), position_type, nullable=False),
+        schema=schema,
+    )
+    applied = sa.Table(
+        q(APPLIED),
+        md,
+        sa.Column("table_name", sa.Text, primary_key=True),
+        sa.Column("sha256", sa.Text, primary_key=True),
+        sa.Column("file", sa.Text, nullable=False),
+        sa.Column("events", sa.BigInteger, nullable=False),
+        sa.Column("applied_at", sa.Text, nullable=False),
+        schema=q(applied_schema) if applied_schema else None,
+    )
+    batch = sa.Table(
+        q(BATCH),
+        md,
+        *[sa.Column(q(f), column_type(spec.types[f])) for f in spec.fields],
+        sa.Column(q(POSITION), position_type),
+        sa.Column(q(ACTION), sa.Text),
+        prefixes=["TEMPORARY"],
+    )
+    return Tables(data, tomb, applied, batch)
+
+
+def _on_key(a: sa.Table, b: sa.Table, key: tuple[str, ...]) -> sa.ColumnElement[bool]:
+    return sa.and_(*[a.c[k] == b.c[k] for k in key])
+
+
+def classify(t: Tables, key: tuple[str, ...]) -> sa.Select[Any]:
+    """What each staged change would do, counted: (kind, n) rows."""
+    b, d, r = t.batch, t.tombstones, t.data
+    row_pos = sa.func.coalesce(r.c[POSITION], "")
+    tomb_pos = sa.func.coalesce(d.c[POSITION], "")
+    guard = sa.case((row_pos >= tomb_pos, row_pos), else_=tomb_pos)
+    kind = sa.case(
+        (b.c[POSITION] == guard, "already_applied"),
+        (b.c[POSITION] < guard, "stale"),
+        (sa.and_(b.c[ACTION] == "delete", r.c[key[0]].is_(None)), "deleted_absent"),
+        (b.c[ACTION] == "delete", "deleted"),
+        (r.c[key[0]].is_(None), "inserted"),
+        else_="updated",
+    ).label("kind")
+    joined = b.outerjoin(r, _on_key(b, r, key)).outerjoin(d, _on_key(b, d, key))
+    each = sa.select(kind).select_from(joined).subquery("each_change")
+    return sa.select(each.c.kind, sa.func.count()).group_by(each.c.kind)
+
+
+def guarded_writes(t: Tables, spec: TableSpec, insert: Callable[[sa.Table], Any]) -> list[sa.Executable]:
+    """The guarded statements of one batch, in order: upsert, drop superseded tombstones, delete,
+    write tombstones."""
+    b, d, r = t.batch, t.tombstones, t.data
+    key = spec.key
+    cols = [*spec.fields, POSITION]
+    newer_than_tomb = sa.or_(d.c[POSITION].is_(None), b.c[POSITION] > d.c[POSITION])
+    picked = (
+        sa.select(*[b.c[c] for c in cols])
+        .select_from(b.outerjoin(d, _on_key(b, d, key)))
+        .where(b.c[ACTION] == "upsert", newer_than_tomb)
+    )
+    up = insert(r).from_select([r.c[c] for c in cols], picked)
+    up = up.on_conflict_do_update(
+        index_elements=[r.c[k] for k in key],
+        set_={r.c[c]: up.excluded[c] for c in cols if c not in key},
+        where=r.c[POSITION] < up.excluded[POSITION],
+    )
+    drop_tombs = sa.delete(d).where(
+        sa.exists(
+            sa.select(sa.literal(1))
+            .select_from(b)
+            .where(_on_key(b, d, key), b.c[ACTION] == "upsert", b.c[POSITION] > d.c[POSITION])
+        )
+    )
+    delete = sa.delete(r).where(
+        sa.exists(
+            sa.select(sa.literal(1))
+            .select_from(b)
+            .where(_on_key(b, r, key), b.c[ACTION] == "delete", b.c[POSITION] > r.c[POSITION])
+        )
+    )
+    gone = sa.select(*[b.c[c] for c in [*key, POSITION]]).where(
+        b.c[ACTION] == "delete",
+        ~sa.exists(sa.select(sa.literal(1)).select_from(r).where(_on_key(b, r, key))),
+    )
+    tombs = insert(d).from_select([d.c[c] for c in [*key, POSITION]], gone)
+    tombs = tombs.on_conflict_do_update(
+        index_elements=[d.c[k] for k in key],
+        set_={d.c[POSITION]: tombs.excluded[POSITION]},
+        where=d.c[POSITION] < tombs.excluded[POSITION],
+    )
+    return [up, drop_tombs, delete, tombs]
+
+
+@dataclass
+class Counts:
+    inserted: int = 0
+    updated: int = 0
+    deleted: int = 0
+    deleted_absent: int = 0
+    stale: int = 0
+    already_applied: int = 0
+    compacted: int = 0  # older changes of a key that a later change in the same apply replaced
+    files_skipped: int = 0  # event files an earlier apply recorded
+
+    def add(self, kind: str, n: int) -> None:
+        setattr(self, kind, getattr(self, kind) + int(n))
+
+    def as_dict(self) -> dict[str, int]:
+        return dict(self.__dict__)
+
+
+class Session(Protocol):
+    """One transaction on a target."""
+
+    def run(self, statement: sa.Executable) -> list[tuple[Any, ...]]: ...
+
+    def stage(self, tables: Tables, batch: pa.RecordBatch) -> None: ...
+
+
+class Begin(Protocol):
+    """Starts a transaction (rolled back at its end with ``rollback``)."""
+
+    def __call__(self, rollback: bool = False) -> AbstractContextManager[Session]: ...
+
+
+class Target:
+    """A target database. Subclasses (one file each in targets/) give the dialect's parts."""
+
+    scheme: ClassVar[str]
+    has_schemas: ClassVar[bool] = True
+    max_name_bytes: ClassVar[int | None] = None
+
+    def __init__(self, url: str, wait: float) -> None:
+        self.url = url
+        self.wait = wait
+
+    def column_type(self, ftype: FieldType) -> sa.types.TypeEngine[Any]:
+        raise NotImplementedError
+
+    def position_type(self) -> sa.types.TypeEngine[Any]:
+        """Positions compare as bytes: a binary collation where the database has others."""
+        return sa.Text()
+
+    def batch_form(self, ftype: FieldType, v: str) -> str:
+        """Engine SQL: how a typed value ``v`` is handed to this target in a batch."""
+        raise NotImplementedError
+
+    def insert(self, table: sa.Table) -> Any:
+        """The dialect's INSERT with ON CONFLICT."""
+        raise NotImplementedError
+
+    def connect(self, spec: TableSpec) -> AbstractContextManager[Begin]:
+        """A connection held for one table's apply (and the table's lock); it gives transactions."""
+        raise NotImplementedError
+
+    def spec(
+        self,
+        table: str,
+        schema: str | None,
+        fields: tuple[str, ...],
+        key: tuple[str, ...],
+        types: dict[str, FieldType],
+    ) -> TableSpec:
+        prefix, name = split_name(table, schema, has_schemas=self.has_schemas, max_bytes=self.max_name_bytes)
+        return TableSpec(table, prefix, name, fields, key, types)
+
+    @property
+    def shown(self) -> str:
+        """The target for messages: never with a password."""
+        return sa.engine.make_url(self.url).render_as_string(hide_password=True)
+
+
+def batches(reader: pa.RecordBatchReader) -> Iterator[pa.RecordBatch]:
+    for batch in reader:
+        if batch.num_rows:
+            yield batch
+
+
+def scrub(message: str, url: str) -> str:
+    """``message`` without the URL's password, wherever it appears."""
+    password = sa.engine.make_url(url).password
+    if password:
+        message = message.replace(str(password), "***")
+    return re.sub(r"(://[^:/@\s]*:)[^@\s]*@", r"\1***@", message)

@@ -3,8 +3,9 @@
 from __future__ import annotations
 
 import json
+import os
 import textwrap
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -102,3 +103,38 @@ def convert(tmp_path: Path) -> ConvertFn:
 
 def cli(*args: str) -> int:
     return main(list(args))
+
+
+#: A PostgreSQL server for the tests (``.ci/run`` starts a throw-away one and sets this), e.g.
+#: postgresql://loader@127.0.0.1:55432/postgres. Without it the PostgreSQL tests are skipped,
+#: unless CDCNORM_REQUIRE_PG is set (as in CI): then they fail.
+PG_ENV = "CDCNORM_TEST_PG"
+
+
+def _pg_base() -> str:
+    base = os.environ.get(PG_ENV)
+    if not base:
+        if os.environ.get("CDCNORM_REQUIRE_PG"):
+            pytest.fail(f"{PG_ENV} is not set, and CDCNORM_REQUIRE_PG says a PostgreSQL server is required")
+        pytest.skip(f"no PostgreSQL server: set {PG_ENV} (see .ci/run)")
+    return base
+
+
+@pytest.fixture
+def pg_url() -> Iterator[str]:
+    """A fresh, empty database on the test server, dropped afterwards."""
+    import uuid
+
+    import psycopg
+    import sqlalchemy as sa
+
+    base = _pg_base()
+    name = f"cdcnorm_{uuid.uuid4().hex[:12]}"
+    url = sa.engine.make_url(base)
+    with psycopg.connect(url.set(drivername="postgresql").render_as_string(False), autocommit=True) as c:
+        c.execute(f'CREATE DATABASE "{name}"')
+    try:
+        yield url.set(database=name).render_as_string(hide_password=False)
+    finally:
+        with psycopg.connect(url.set(drivername="postgresql").render_as_string(False), autocommit=True) as c:
+            c.execute(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)')

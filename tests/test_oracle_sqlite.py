@@ -62,7 +62,8 @@ HARBOURS = ["Harbour Town", "Puffin Rock", "Little Skerry", 'Gull "Point", East'
 
 
 def workload(db: sqlite3.Connection, rng: random.Random, steps: int) -> None:
-    next_id = 1
+    # a workload may continue an earlier one: new keys start above every key so far
+    next_id = db.execute("SELECT coalesce(max(berth_id), 0) + 1 FROM changes").fetchone()[0]
     for _ in range(steps):
         live = [r[0] for r in db.execute("SELECT berth_id FROM berths")]
         roll = rng.random()

@@ -84,7 +84,7 @@ def apply_table(
 ) -> TableApply:
     m = mapping.mapping
     spec = target.spec(m.table, schema, tuple(m.fields), tuple(m.key), mapping.field_types)
-    tables = build_tables(spec, target.column_type, target.position_type(), applied_schema=None)
+    tables = build_tables(spec, target.column_type, target.position_type())
     report = TableApply(m.table, spec.shown)
     files = event_files(landing, m.table)
     digests = {f.path: sha256(f.path) for f in files}
@@ -128,7 +128,7 @@ def _apply(
         a = tables.applied
         done = {
             str(sha): int(n)
-            for sha, n in s.run(sa.select(a.c.sha256, a.c.events).where(a.c.table_name == spec_table))
+            for sha, n in s.run(sa.select(a.c.sha256, a.c.events).where(a.c.table_name == spec.name))
         }
     new = [f for f in files if digests[f.path] not in done]
     for f in files:
@@ -178,13 +178,15 @@ def _apply(
     with transaction() as s:
         for f in new:
             s.run(
-                sa.insert(tables.applied).values(
-                    table_name=spec_table,
+                target.insert(tables.applied)
+                .values(
+                    table_name=spec.name,
                     sha256=digests[f.path],
                     file=f.path.name,
                     events=int(per_file.get(f.path.name, 0)),
                     applied_at=now,
                 )
+                .on_conflict_do_nothing()  # another apply of the same file got there first
             )
     engine.drop(last)
 

@@ -7,7 +7,8 @@ spliced into SQL text):
   ``cdcnorm_position``, the position of the change that last wrote the row;
 - ``<table>__deleted``: a tombstone (key, position) per deleted key, so an older
   upsert that arrives later cannot bring the row back;
-- ``cdcnorm_applied``: the event files applied so far (table, file, SHA-256).
+- ``cdcnorm_applied`` (in the same schema): the event files applied so far to each table
+  (table, file, SHA-256, events).
 
 One batch (a set of keys, at most one change each: the latest of the events
 being applied) is staged in a temporary table, classified, then written with
@@ -112,8 +113,6 @@ def build_tables(
     spec: TableSpec,
     column_type: Callable[[FieldType], sa.types.TypeEngine[Any]],
     position_type: sa.types.TypeEngine[Any],
-    *,
-    applied_schema: str | None,
 ) -> Tables:
     md = sa.MetaData()
     schema = q(spec.schema) if spec.schema else None
@@ -154,7 +153,7 @@ def build_tables(
         sa.Column("file", sa.Text, nullable=False),
         sa.Column("events", sa.BigInteger, nullable=False),
         sa.Column("applied_at", sa.Text, nullable=False),
-        schema=q(applied_schema) if applied_schema else None,
+        schema=schema,  # beside the tables it speaks of: a schema's log names its own tables
     )
     batch = sa.Table(
         q(BATCH),

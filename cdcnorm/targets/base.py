@@ -158,7 +158,11 @@ def build_tables(
     batch = sa.Table(
         q(BATCH),
         md,
-        *[sa.Column(q(f), column_type(spec.types[f])) for f in spec.fields],
+        # one change per key: the key is the batch's primary key, so every lookup by key is indexed
+        *[
+            sa.Column(q(f), column_type(spec.types[f]), primary_key=f in spec.key, autoincrement=False)
+            for f in spec.fields
+        ],
         sa.Column(q(POSITION), position_type),
         sa.Column(q(ACTION), sa.Text),
         prefixes=["TEMPORARY"],
@@ -207,19 +211,27 @@ def guarded_writes(t: Tables, spec: TableSpec, insert: Callable[[sa.Table], Any]
         set_={r.c[c]: up.excluded[c] for c in cols if c not in key},
         where=r.c[POSITION] < up.excluded[POSITION],
     )
+
+    def batch_keys(action: str) -> sa.Select[Any]:
+        return sa.select(*[b.c[k] for k in key]).where(b.c[ACTION] == action)
+
+    # The IN over the batch's keys lets every database drive the delete from the (small) batch
+    # through the table's primary key, instead of probing the batch for every row of the table.
     drop_tombs = sa.delete(d).where(
+        sa.tuple_(*[d.c[k] for k in key]).in_(batch_keys("upsert")),
         sa.exists(
             sa.select(sa.literal(1))
             .select_from(b)
             .where(_on_key(b, d, key), b.c[ACTION] == "upsert", b.c[POSITION] > d.c[POSITION])
-        )
+        ),
     )
     delete = sa.delete(r).where(
+        sa.tuple_(*[r.c[k] for k in key]).in_(batch_keys("delete")),
         sa.exists(
             sa.select(sa.literal(1))
             .select_from(b)
             .where(_on_key(b, r, key), b.c[ACTION] == "delete", b.c[POSITION] > r.c[POSITION])
-        )
+        ),
     )
     gone = sa.select(*[b.c[c] for c in [*key, POSITION]]).where(
         b.c[ACTION] == "delete",

@@ -570,3 +570,64 @@ def test_snapshot_equals_apply_read_back_for_random_runs(
         snap = base / "state" / "t.moorings.parquet"
         got = read_parquet_state(snap, "id", MOORINGS_STATE)
         assert read_target(url, "t.moorings", None, "id", MOORINGS_STATE) == got
+
+
+def test_as_of_time_and_normalised_positions_on_the_demo(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """--as-of-time keeps the changes committed by then (times compared with Python's datetime);
+    an event's normalised position gives the same state as the raw one; a bad one is exit 2."""
+    from datetime import datetime
+
+    mdir = ROOT / "mappings"
+    landing = tmp_path / "landing"
+    assert (
+        cli("convert", str(ROOT / "examples" / "dumps"), "--mappings", str(mdir), "--out", str(landing)) == 0
+    )
+    events = [e for e in _events(landing) if e["table"] == "ferry.bookings"]
+    cut = datetime.fromisoformat("2026-03-01T08:05:10+00:00")
+    kept = [e for e in events if datetime.fromisoformat(e["committed_at"].replace("Z", "+00:00")) <= cut]
+    expected = _fold(kept, lambda e: e["position"].encode(), True, "booking_id")
+    _snapshot(
+        landing,
+        mdir,
+        tmp_path / "t",
+        "--table",
+        "ferry.bookings",
+        "--as-of-time",
+        "2026-03-01T08:05:10Z",
+        "--format",
+        "jsonl",
+    )
+    rows = [json.loads(x) for x in (tmp_path / "t" / "ferry.bookings.jsonl").read_text().splitlines()]
+    assert {r["booking_id"]: {k: v for k, v in r.items() if k != "position"} for r in rows} == expected
+    assert sorted(expected) == [1001, 1002, 1003, 1007]  # 1007 was committed at 08:02
+
+    raw, normal = tmp_path / "raw", tmp_path / "normal"
+    _snapshot(landing, mdir, raw, "--table", "ferry.bookings", "--as-of", "16/B374D848")
+    _snapshot(
+        landing,
+        mdir,
+        normal,
+        "--table",
+        "ferry.bookings",
+        "--as-of",
+        "00000016/B374D848.00000000000000000000.2",
+    )
+    assert (raw / "ferry.bookings.parquet").read_bytes() == (normal / "ferry.bookings.parquet").read_bytes()
+    capsys.readouterr()
+    assert (
+        cli(
+            "snapshot",
+            str(landing),
+            "--mappings",
+            str(mdir),
+            "--out",
+            str(tmp_path / "x"),
+            "--as-of",
+            "16/XYZ",
+        )
+        == 2
+    )
+    err = capsys.readouterr().err
+    assert "16/XYZ" in err and "two hex numbers" in err and "Traceback" not in err

@@ -143,7 +143,10 @@ def build_parser() -> argparse.ArgumentParser:
         "demo", help="convert the example dumps with the example mappings and print the ledger"
     )
     demo.add_argument("--out", default="build/demo", help="output folder (default: build/demo)")
-    demo.add_argument("--root", default=".", help="project folder holding examples/ and mappings/")
+    demo.add_argument(
+        "--root",
+        help="folder holding examples/dumps/ and mappings/ (default: the demo data shipped with cdcnorm)",
+    )
 
     from cdcnorm.lineage import cli as lineage_cli
     from cdcnorm.state import cli as state_cli
@@ -392,7 +395,8 @@ def _report_check(result: Result, args: argparse.Namespace) -> int:
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
-    root = Path(args.root)
+    # the demo's mappings and dumps ship inside the package, so `cdcnorm demo` works anywhere
+    root = Path(args.root) if args.root else Path(__file__).resolve().parent / "demo"
     ns = argparse.Namespace(
         mappings=str(root / "mappings"),
         inputs=[str(root / "examples" / "dumps")],

@@ -219,3 +219,16 @@ def test_empty_inputs_and_unknown_format(tmp_path: Path, capsys: pytest.CaptureF
     m.write_text((MAPPINGS / "bookings.yaml").read_text().replace('["bookings-*.csv"]', '["bookings-*"]'))
     assert cli("convert", "--mappings", str(m), str(d), "--out", str(tmp_path / "o2")) == 4
     assert "cannot tell this file's format" in capsys.readouterr().err
+
+
+def test_demo_runs_from_any_folder(tmp_path: Path) -> None:
+    """The demo's mappings and dumps ship with the package: `cdcnorm demo` needs no project folder."""
+    import subprocess
+    import sys
+
+    proc = subprocess.run(
+        [sys.executable, "-m", "cdcnorm", "demo"], cwd=tmp_path, capture_output=True, text=True
+    )
+    assert proc.returncode == 0, proc.stderr
+    assert "ledger balanced: 37 rows read" in proc.stdout
+    assert last_run(tmp_path / "build" / "demo")["ledger"]["balanced"]

@@ -137,6 +137,9 @@ def count_fates(
     for file_id, n in rows(f"SELECT __file, count(*) FROM {plan.rel('carried')} GROUP BY ALL"):
         fc(file_id).pending_in += int(n)
         kept[(file_id, "before")] = kept.get((file_id, "before"), 0) + int(n)
+    for file_id, act, n in rows(f"SELECT __file, __act, count(*) FROM {plan.rel('unpairable')} GROUP BY ALL"):
+        kept[(file_id, act)] -= int(n)  # an ambiguous pairing: quarantined
+        fc(file_id).quarantined += int(n)
     merged: dict[int, int] = {}
     rekeyed: dict[int, int] = {}
     for file_id, same_key, n in rows(f"SELECT bf, same_key, count(*) FROM {plan.rel('pairs')} GROUP BY ALL"):

@@ -50,6 +50,12 @@ def rejected_rows(plan: Plan) -> str:
         "CAST(__versions AS VARCHAR) || ' kinds of change of this key'",
         lit("ambiguous order: changes of one key at one position and sequence cannot be ordered"),
     )
+    unpairable = _reason(
+        lit("one before-image and one after-image per key changed at one position and sequence"),
+        "CAST(__befores AS VARCHAR) || ' before-images and ' || CAST(__afters AS VARCHAR) || "
+        "' after-images whose keys differ'",
+        lit("ambiguous pairing: which before-image belongs to which after-image cannot be told"),
+    )
     lonely = _reason(
         lit("an after-image at the same position"),
         position_text(plan),
@@ -64,6 +70,8 @@ def rejected_rows(plan: Plan) -> str:
         f"FROM {plan.rel('fates')} WHERE __fate = 'ambiguous'",
         f"SELECT __file, __row, {lonely} AS reasons, CAST(NULL AS VARCHAR) AS text "
         f"FROM {plan.rel('waiting')} WHERE __settled",
+        f"SELECT __file, __row, {unpairable} AS reasons, CAST(NULL AS VARCHAR) AS text "
+        f"FROM {plan.rel('unpairable')}",
     ]
     if plan.malformed:
         parts.append(

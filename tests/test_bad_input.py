@@ -267,3 +267,109 @@ def test_changes_of_one_key_at_one_position_that_cannot_be_ordered_are_quarantin
     assert all(r.startswith("ambiguous order") for r in quarantined.values())
     total = done.ledger()["total"]
     assert total["quarantined"] == 2 and total["merged"] == 1 and done.ledger()["balanced"]
+
+
+def _csv_rows(header: list[str], rows: list[list[str]]) -> str:
+    import csv
+    import io
+
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")  # RFC 4180 quoting
+    w.writerow(header)
+    w.writerows(rows)
+    return buf.getvalue()
+
+
+@pytest.mark.parametrize(
+    ("raw", "reason"),
+    [
+        ("NaN", "bare words"),
+        ("[1, Infinity]", "bare words"),
+        ("[1,]", "a comma before ] or }"),
+        ('{"a": 1,}', "a comma before ] or }"),
+        ('{"a": 1, "a": 2}', "repeats a member name"),
+        ('{"x": [{"b": 1, "b": 2}]}', "repeats a member name"),
+    ],
+)
+def test_json_that_is_not_rfc_8259_or_repeats_a_name_is_quarantined(
+    convert: ConvertFn, raw: str, reason: str
+) -> None:
+    # RFC 8259 section 6: NaN and Infinity are not permitted; section 4/5: no trailing commas;
+    # RFC 7493 section 2.3: member names MUST NOT repeat. (Python's json module accepts NaN, so it
+    # is not the reference here.)
+    done = convert(
+        NOTES.replace("TYPE", "json"), {"n.csv": _csv_rows(["op", "pos", "id", "a"], [["I", "1", "1", raw]])}
+    )
+    assert done.ledger()["balanced"] and done.events("t.notes") == []
+    (q,) = done.quarantine("t.notes")
+    assert q["a"] == raw and reason in q["_cdcnorm"]["reasons"][0]["reason"]
+
+
+def test_json_values_keep_their_numbers_as_written(convert: ConvertFn, tmp_path: Path) -> None:
+    """1.50, -0, 1e2 and a 34-digit fraction stay as written in JSON Lines and Parquet events
+    (the engine's own rendering would give 1.5, 0, 100.0 and 0.1)."""
+    raw = '{ "n" : [1.50, -0, 1e2, 0.1000000000000000055511151231257827], "s": "a, ] NaN" }'
+    done = convert(
+        NOTES.replace("TYPE", "json"),
+        {"n.csv": _csv_rows(["op", "pos", "id", "a"], [["I", "1", "1", raw], ["I", "2", "2", ""]])},
+    )
+    written = (done.out / "events" / "t.notes").glob("*.jsonl")
+    line = next(iter(written)).read_text(encoding="utf-8").splitlines()[0]
+    assert '"a":{"n":[1.50,-0,1e2,0.1000000000000000055511151231257827],"s":"a, ] NaN"}' in line
+    # Python's json with decimal.Decimal for numbers: the digits survive the round trip
+    value = json.loads(line, parse_float=Decimal)["values"]["a"]
+    assert value["n"] == [Decimal("1.50"), 0, Decimal("1e2"), Decimal("0.1000000000000000055511151231257827")]
+    assert done.events("t.notes")[1]["values"]["a"] is None  # NULL stays null
+
+
+@pytest.mark.parametrize(
+    "line", ['{"op":"I","pos":"2","id":18,}', "NaN", '{"op":"I","pos":"3","id":1,"id":2}']
+)
+def test_json_lines_records_that_are_not_rfc_8259_objects_are_quarantined(
+    convert: ConvertFn, line: str
+) -> None:
+    mapping = NOTES.replace("TYPE", "text").replace('files: ["n*"]', 'files: ["n*"]')
+    done = convert(mapping, {"n.jsonl": '{"op":"I","pos":"1","id":1,"a":"ok"}\n' + line + "\n"})
+    assert done.ledger()["balanced"] and len(done.events("t.notes")) == 1
+    (q,) = done.quarantine("t.notes")
+    assert q["_cdcnorm"]["text"] == line  # the record's raw text, exactly
+    assert q["_cdcnorm"]["row"] == 2
+
+
+def test_nested_parquet_values_arrive_as_rfc_8259_json(convert: ConvertFn, tmp_path: Path) -> None:
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    path = tmp_path / "n.parquet"
+    table = pa.table(
+        {
+            "op": ["I"],
+            "pos": ["1"],
+            "id": ["1"],
+            "a": pa.array([{"deck": 2, "cabins": ["A1", "B2"], "note": 'say "hi"'}]),
+        }
+    )
+    pq.write_table(table, path)
+    done = convert(NOTES.replace("TYPE", "json"), {"n.parquet": path.read_bytes()})
+    (e,) = done.events("t.notes")
+    # Python's json as the reader: the struct is a JSON object, its list a JSON array
+    assert e["values"]["a"] == {"deck": 2, "cabins": ["A1", "B2"], "note": 'say "hi"'}
+
+
+def test_an_ambiguous_pairing_is_quarantined_and_a_lone_pair_is_a_key_change(convert: ConvertFn) -> None:
+    """Position 5: befores of keys 1 and 2, afters of keys 11 and 12 (two key changes, which is
+    which cannot be told): all four quarantined. Position 6: befores 3 and 4, afters 3 and 14: key 3
+    was updated in place, and 4 -> 14 is the one key change left (common practice: a before and an
+    after of different keys at one position are one update that changed the key)."""
+    mapping = NOTES.replace("TYPE", "integer").replace("{I: insert, D: delete}", "{B: before, A: after}")
+    data = "op,pos,id,a\nB,5,1,0\nB,5,2,0\nA,5,11,0\nA,5,12,0\nB,6,3,0\nB,6,4,0\nA,6,3,1\nA,6,14,1\n"
+    done = convert(mapping, {"n.csv": data})
+    assert done.ledger()["balanced"]
+    events = [(e["action"], e["key"]["id"]) for e in done.events("t.notes")]
+    assert sorted(events) == [("delete", 4), ("upsert", 3), ("upsert", 14)]
+    reasons = {(q["op"], q["id"]): q["_cdcnorm"]["reasons"][0] for q in done.quarantine("t.notes")}
+    assert set(reasons) == {("B", "1"), ("B", "2"), ("A", "11"), ("A", "12")}
+    assert all(r["reason"].startswith("ambiguous pairing") for r in reasons.values())
+    assert reasons[("B", "1")]["found"] == "2 before-images and 2 after-images whose keys differ"
+    total = done.ledger()["total"]
+    assert total["quarantined"] == 4 and total["pending"] == 0 and total["merged"] == 1

@@ -273,17 +273,24 @@ class DuckDBEngine:
             "WHERE NOT regexp_full_match(coalesce(try(decode(raw)), 'x'), '\\s*')"
         )
         text = ident(lines + "_text")
+        from cdcnorm.types.json import rfc8259
+
+        strict = rfc8259("line")
+        # a repeated name at the top level would make its column ambiguous (nested values are
+        # kept as written; a json field checks its own)
+        repeated = "(json_valid(line) AND len(json_keys(line)) <> len(list_distinct(json_keys(line))))"
         self.con.execute(
             f"INSERT INTO {ident(malformed)} SELECT {file_id}, __row, "
             "CASE WHEN line IS NULL THEN to_base64(raw) ELSE line END, "
             "CASE WHEN line IS NULL THEN 'not UTF-8 (text shown base64)' "
-            "WHEN NOT json_valid(line) THEN 'not valid JSON (RFC 8259)' "
-            f"ELSE 'not a JSON object' END FROM {text} "
-            "WHERE line IS NULL OR NOT json_valid(line) OR json_type(line) <> 'OBJECT'"
+            f"WHEN NOT {strict} THEN 'not valid JSON (RFC 8259)' "
+            "WHEN json_type(line) <> 'OBJECT' THEN 'not a JSON object' "
+            f"ELSE 'the object repeats a member name (RFC 7493 section 2.3): which value is meant is unclear' END FROM {text} "
+            f"WHERE line IS NULL OR NOT {strict} OR json_type(line) <> 'OBJECT' OR {repeated}"
         )
         self.con.execute(
             f"CREATE OR REPLACE TEMP TABLE {ident(ok)} AS SELECT __row, CAST(line AS JSON) AS j FROM {text} "
-            "WHERE line IS NOT NULL AND json_valid(line) AND json_type(line) = 'OBJECT'"
+            f"WHERE line IS NOT NULL AND {strict} AND json_type(line) = 'OBJECT' AND NOT {repeated}"
         )
         self.drop(lines + "_text")
         structure = self.rows(f"SELECT json_group_structure(j) FROM {ident(ok)}")[0][0]

@@ -2,8 +2,10 @@
 
 Paired mode: a before row and an after row at one position (and sequence)
 form one update. Within a position, a before pairs with the after of the same
-key; when a position holds exactly one before and one after with different
-keys, the update changed the key. An after with no before is an upsert,
+key; when a position holds exactly one before and one after that share their
+key with no image of the other kind, the update changed the key; several such
+befores and afters cannot be paired but by guess: they are quarantined
+(``unpairable``) as an ambiguous pairing. An after with no before is an upsert,
 counted as unpaired. A before with no after is **pending**: it waits, in the
 landing area, for its after-image to arrive in a later run
 (``<table>__carried`` brings the waiting ones back), unless the run settles
@@ -27,14 +29,41 @@ def pair_images(plan: Plan) -> Plan:
     deduped = plan.rel("deduped")
     plan = plan.add(
         "pair",
-        "kept",
+        "candidates",
         f"SELECT __file, __row, __act, __pos, __seq, __cat, __rank, {values}, FALSE AS __carried "
         f"FROM {deduped} WHERE __fate = 'keep' UNION ALL "
         f"SELECT __file, __row, 'before', __pos, __seq, __cat, 1, {values}, TRUE FROM {plan.rel('carried')}",
         materialize=True,
     )
-    kept = plan.rel("kept")
+    candidates = plan.rel("candidates")
     same_key = " AND ".join(f"a.v{i} = b.v{i}" for i in keys)
+    # Images of one position and sequence that no image of the other kind shares a key with
+    # ("lone") pair as a key change only one to one; several lone befores and afters there cannot
+    # be told apart: all of them are quarantined as an ambiguous pairing, never paired by guess.
+    other = "CASE a.__act WHEN 'before' THEN 'after' ELSE 'before' END"
+    lone = (
+        f"SELECT a.__file, a.__row, a.__act, a.__pos, a.__seq FROM {candidates} a "
+        f"WHERE a.__act IN ('before', 'after') AND NOT EXISTS (SELECT 1 FROM {candidates} b "
+        f"WHERE b.__act = {other} AND b.__pos = a.__pos AND b.__seq = a.__seq AND {same_key})"
+    )
+    unpairable = (
+        "SELECT __file, __row, __act, __befores, __afters FROM (SELECT *, "
+        "count(*) FILTER (WHERE __act = 'before') OVER w AS __befores, "
+        "count(*) FILTER (WHERE __act = 'after') OVER w AS __afters "
+        f"FROM ({lone}) WINDOW w AS (PARTITION BY __pos, __seq)) "
+        "WHERE __befores >= 1 AND __afters >= 1 AND NOT (__befores = 1 AND __afters = 1)"
+    )
+    if not paired_mode:
+        unpairable += " AND FALSE"
+    plan = plan.add("pair", "unpairable", unpairable, materialize=True)
+    plan = plan.add(
+        "pair",
+        "kept",
+        f"SELECT * FROM {candidates} c WHERE NOT EXISTS (SELECT 1 FROM {plan.rel('unpairable')} u "
+        "WHERE u.__file = c.__file AND u.__row = c.__row)",
+        materialize=True,
+    )
+    kept = plan.rel("kept")
     carried = ", ".join(
         [
             "a.__pos AS a_pos, a.__seq AS a_seq, a.__cat AS a_cat",
@@ -54,12 +83,21 @@ def pair_images(plan: Plan) -> Plan:
             f"WHERE e.__unpaired AND EXISTS (SELECT 1 FROM {kept} b WHERE b.__act = 'before' "
             "AND b.__pos = e.__pos AND b.__seq = e.__seq)"
         )
+        # __n: the images of the position and sequence that share no key with one of the other kind
+        lone_after = (
+            f"NOT EXISTS (SELECT 1 FROM {kept} b WHERE b.__act = 'before' AND b.__pos = a.__pos "
+            f"AND b.__seq = a.__seq AND {same_key})"
+        )
+        lone_before = f"NOT EXISTS (SELECT 1 FROM ({afters}) a WHERE a.__pos = b.__pos AND a.__seq = b.__seq AND {same_key})"
         pairs = (
             f"SELECT a.__file AS af, a.__row AS ar, a.__ghost AS ghost, b.__file AS bf, b.__row AS br, "
             f"({same_key}) AS same_key, {carried} FROM "
-            f"(SELECT *, count(*) OVER (PARTITION BY __pos, __seq) AS __n FROM ({afters})) a JOIN "
-            f"(SELECT *, count(*) OVER (PARTITION BY __pos, __seq) AS __n FROM {kept} WHERE __act = 'before') b "
-            f"ON a.__pos = b.__pos AND a.__seq = b.__seq AND (({same_key}) OR (a.__n = 1 AND b.__n = 1))"
+            f"(SELECT *, count(*) FILTER (WHERE __lone) OVER (PARTITION BY __pos, __seq) AS __n FROM "
+            f"(SELECT a.*, {lone_after} AS __lone FROM ({afters}) a)) a JOIN "
+            f"(SELECT *, count(*) FILTER (WHERE __lone) OVER (PARTITION BY __pos, __seq) AS __n FROM "
+            f"(SELECT b.*, {lone_before} AS __lone FROM {kept} b WHERE b.__act = 'before')) b "
+            f"ON a.__pos = b.__pos AND a.__seq = b.__seq AND (({same_key}) "
+            "OR (a.__lone AND b.__lone AND a.__n = 1 AND b.__n = 1))"
         )
     else:
         pairs = (

@@ -22,6 +22,7 @@ from cdcnorm.errors import InputError, UsageError
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.sql import PLAN_DIALECT, ident, lit
 from cdcnorm.state.events import Events
+from cdcnorm.types.json import RawJson
 
 #: Characters of a timestamp position's normalised text (``2026-03-01T08:00:00.000000Z``).
 TIMESTAMP_WIDTH = 27
@@ -146,13 +147,17 @@ def state_projection(
     as text with ``as_text``)."""
     ftypes = events.mapping.field_types
     keys = ", ".join(events.column(k) for k in events.key)
+    raw = RawJson() if as_line else None
     cols = []
     for i, (name, ftype) in enumerate(ftypes.items()):
         v = ftype.render(f"v{i}") if render else f"v{i}"
+        if raw is not None and ftype.name == "json":  # spliced in as written (see types/json.py)
+            v = raw.placeholder(f"v{i}")
         cols.append((name, f"CAST({v} AS VARCHAR)" if as_text else v))
     cols.append(("position", "__position"))
-    if as_line:
-        select = "to_json({" + ", ".join(f"{lit(n)}: {e}" for n, e in cols) + "}) AS line"
+    if raw is not None:
+        line = "CAST(to_json({" + ", ".join(f"{lit(n)}: {e}" for n, e in cols) + "}) AS VARCHAR)"
+        select = f"{raw.splice(line)} AS line"
     else:
         select = ", ".join(f"{e} AS {ident(n)}" for n, e in cols)
     return f"SELECT {select} FROM {ident(relation)} ORDER BY {keys}"

@@ -1,16 +1,99 @@
+"""JSON values: only RFC 8259 text is valid, and a value is kept as written.
+
+The engine's JSON parser is lenient: it takes ``NaN``, ``Infinity`` and
+trailing commas (``[1,]``), and re-renders numbers (``1e2`` as ``100.0``,
+``0.1000000000000000055511151231257827`` as ``0.1``, ``1.50`` as ``1.5``).
+So validity is the parser's check plus two lexical ones on the text outside
+strings (no trailing comma; no letters other than ``true``, ``false``,
+``null`` and a number's exponent), and a value is minified by dropping only
+the whitespace between tokens, never re-rendered: its numbers keep their
+digits. Member names must be unique in every object (RFC 7493 section 2.3
+says MUST NOT repeat; RFC 8259 section 4 says SHOULD, as the names then
+mean different things to different readers): a value with a repeated name
+is quarantined.
+"""
+
 from __future__ import annotations
+
+import secrets
 
 from cdcnorm.types.base import FieldType
 
+#: A JSON string token (RFC 8259 section 7), for the engine's regular expressions.
+STRING = r'"(?:[^"\\]|\\.)*"'
+_NUMBER = r"-?[0-9]+(\.[0-9]+)?([eE][+-]?[0-9]+)?"
+
+
+def _outside_strings(x: str) -> str:
+    return f"regexp_replace({x}, '{STRING}', '\"\"', 'g')"
+
+
+def trailing_comma(x: str) -> str:
+    return f"regexp_matches({_outside_strings(x)}, ',\\s*[\\]}}]')"
+
+
+def bare_words(x: str) -> str:
+    """SQL: the text has a word JSON does not know outside its strings (NaN, Infinity, ...)."""
+    rest = f"regexp_replace(regexp_replace({_outside_strings(x)}, 'true|false|null', '', 'g'), '{_NUMBER}', '0', 'g')"
+    return f"regexp_matches({rest}, '[A-Za-z]')"
+
+
+def rfc8259(x: str) -> str:
+    """SQL: ``x`` is a JSON text by RFC 8259 (the engine's check made strict)."""
+    return f"(json_valid({x}) AND NOT {trailing_comma(x)} AND NOT {bare_words(x)})"
+
+
+def repeated_name(x: str) -> str:
+    """SQL: some object in the (valid) JSON text ``x`` repeats a member name."""
+    return (
+        "(SELECT count(*) <> count(DISTINCT (parent, key)) FROM json_tree("
+        f"CASE WHEN json_valid({x}) THEN {x} ELSE 'null' END) "
+        "WHERE key IS NOT NULL AND NOT ends_with(fullkey, ']'))"
+    )
+
+
+def minify(x: str) -> str:
+    """SQL: the JSON text without the whitespace between its tokens; tokens kept as written."""
+    return f"array_to_string(regexp_extract_all({x}, '{STRING}|[^\\s\"]+'), '')"
+
 
 class JsonType(FieldType):
-    """A JSON text (RFC 8259), parsed and embedded in the envelope as JSON, minified."""
+    """A JSON text (RFC 8259), embedded in the envelope as JSON: minified, its tokens as written."""
 
     name = "json"
     sql_type = "JSON"
 
     def cast(self, x: str) -> str:
-        return f"CASE WHEN json_valid({x}) THEN json({x}) END"
+        return f"CASE WHEN {rfc8259(x)} AND NOT {repeated_name(x)} THEN CAST({minify(x)} AS JSON) END"
 
     def explain(self, x: str) -> str:
-        return "'not valid JSON (RFC 8259)'"
+        return (
+            f"CASE WHEN NOT json_valid({x}) THEN 'not valid JSON (RFC 8259)' "
+            f"WHEN {bare_words(x)} THEN 'not valid JSON (RFC 8259): NaN, Infinity and other bare words are not JSON values' "
+            f"WHEN {trailing_comma(x)} THEN 'not valid JSON (RFC 8259): a comma before ] or }}' "
+            "ELSE 'an object repeats a member name (RFC 7493 section 2.3; its meaning would depend on the reader)' END"
+        )
+
+
+class RawJson:
+    """Splices JSON values into JSON lines as written: the engine's ``to_json`` would re-render
+    their numbers. A value is first written as a placeholder string unique to this writing (a
+    random 128-bit token), then the placeholder's quoted form is replaced by the value's text."""
+
+    def __init__(self) -> None:
+        self.token = secrets.token_hex(16)
+        self.columns: list[str] = []
+
+    def placeholder(self, column: str) -> str:
+        """SQL for the envelope: the placeholder of a JSON value (NULL stays NULL)."""
+        self.columns.append(column)
+        return f"CASE WHEN {column} IS NULL THEN NULL ELSE '{self._mark(column)}' END"
+
+    def _mark(self, column: str) -> str:
+        return f"cdcnorm-json-{self.token}-{column}"
+
+    def splice(self, line: str) -> str:
+        """SQL: the JSON line with every placeholder replaced by its value's text."""
+        for column in self.columns:
+            line = f"replace({line}, '\"{self._mark(column)}\"', coalesce(CAST({column} AS VARCHAR), 'null'))"
+        return line

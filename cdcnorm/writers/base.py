@@ -22,15 +22,19 @@ from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.plan import Plan
 from cdcnorm.sql import PLAN_DIALECT, ident, lit
 from cdcnorm.stages.order import position_text
+from cdcnorm.types.json import RawJson
 from cdcnorm.types.timestamp import timestamp_render
 
 
-def envelope_columns(plan: Plan, *, render: bool) -> list[tuple[str, str]]:
+def envelope_columns(plan: Plan, *, render: bool, raw: RawJson | None = None) -> list[tuple[str, str]]:
+    """The envelope's columns; with ``raw``, JSON values are placeholders for ``raw.splice``."""
     types = plan.mapping.field_types
     names = plan.fields
 
     def value(i: int, prefix: str) -> str:
         col = f"{prefix}{i}"
+        if raw is not None and types[names[i]].name == "json":
+            return raw.placeholder(col)
         return types[names[i]].render(col) if render else col
 
     def struct(indices: list[int], prefix: str) -> str:
@@ -76,9 +80,11 @@ def project(
     ``sort_keys`` adds the sort keys as columns instead of sorting; ``relation`` reads events
     already in output order (see ``sorted_events``) and keeps their order.
     """
-    cols = envelope_columns(plan, render=render)
-    if as_line:
-        select = ["to_json({" + ", ".join(f"{lit(n)}: {e}" for n, e in cols) + "}) AS line"]
+    raw = RawJson() if as_line else None
+    cols = envelope_columns(plan, render=render, raw=raw)
+    if raw is not None:
+        line = "CAST(to_json({" + ", ".join(f"{lit(n)}: {e}" for n, e in cols) + "}) AS VARCHAR)"
+        select = [f"{raw.splice(line)} AS line"]
     else:
         select = [f"{e} AS {ident(n)}" for n, e in cols]
     if relation is not None:

@@ -95,7 +95,9 @@ def raw_rows(plan: Plan, wanted: str) -> str:
     for src in plan.sources:
         by_columns.setdefault(src.columns, []).append(src.file_id)
     parts = []
-    for columns, ids in by_columns.items():
+    for all_columns, ids in by_columns.items():
+        # the _cdcnorm member of a quarantine line fed back is not a raw column of the row
+        columns = tuple(c for c in all_columns if not c.startswith(META_KEY))
         raw = (
             "to_json({" + ", ".join(f"{lit(c)}: s.{plan.raw(c)}" for c in columns) + "})"
             if columns

@@ -373,3 +373,64 @@ def test_an_ambiguous_pairing_is_quarantined_and_a_lone_pair_is_a_key_change(con
     assert reasons[("B", "1")]["found"] == "2 before-images and 2 after-images whose keys differ"
     total = done.ledger()["total"]
     assert total["quarantined"] == 4 and total["pending"] == 0 and total["merged"] == 1
+
+
+def test_a_quarantine_line_with_bytes_that_are_not_utf8_fed_back_unedited_is_quarantined_again(
+    tmp_path: Path,
+) -> None:
+    import base64
+
+    mapping = NOTES.replace("TYPE", "text").replace('files: ["n*"]', 'files: ["n*"]')
+    (tmp_path / "m").mkdir()
+    (tmp_path / "m" / "t.yaml").write_text(mapping)
+    (tmp_path / "in").mkdir()
+    (tmp_path / "in" / "n.csv").write_bytes(b"op,pos,id,a\nI,1,1,ok\nI,2,2,caf\xe9\n")
+    landing = tmp_path / "landing"
+    assert (
+        cli(
+            "convert",
+            str(tmp_path / "in"),
+            "--mappings",
+            str(tmp_path / "m"),
+            "--out",
+            str(landing),
+            "--quiet",
+        )
+        == 0
+    )
+    (first,) = [p for p in (landing / "quarantine" / "t.notes").glob("*.jsonl")]
+    # fed back unedited: the cell is still null, its bytes still under _cdcnorm.raw_base64
+    assert (
+        cli("convert", str(first), "--mappings", str(tmp_path / "m"), "--out", str(landing), "--quiet") == 0
+    )
+    again = [
+        json.loads(x)
+        for p in sorted((landing / "quarantine" / "t.notes").glob("*.jsonl"))[1:]
+        for x in p.read_text().splitlines()
+    ]
+    (q,) = again
+    assert base64.b64decode(q["_cdcnorm"]["raw_base64"]["a"]) == b"caf\xe9"  # RFC 4648 section 4
+    assert q["a"] is None and sorted(q) == ["_cdcnorm", "a", "id", "op", "pos"]
+    assert last_run(landing)["ledger"]["total"]["quarantined"] == 1
+    # fixed: the value set, the row loads
+    fixed = first.read_text().replace('"a":null', '"a":"café"')
+    (tmp_path / "fix").mkdir()
+    (tmp_path / "fix" / "t.notes.jsonl").write_text(fixed, encoding="utf-8")
+    assert (
+        cli(
+            "convert",
+            str(tmp_path / "fix"),
+            "--mappings",
+            str(tmp_path / "m"),
+            "--out",
+            str(landing),
+            "--quiet",
+        )
+        == 0
+    )
+    events = [
+        json.loads(x)
+        for p in (landing / "events" / "t.notes").glob("*.jsonl")
+        for x in p.read_text().splitlines()
+    ]
+    assert {e["values"]["a"] for e in events} == {"ok", "café"}

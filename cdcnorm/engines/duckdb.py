@@ -307,7 +307,16 @@ class DuckDBEngine:
             if nulls:
                 v = f"CASE WHEN {v} IN ({', '.join(lit(t) for t in nulls)}) THEN NULL ELSE {v} END"
             parts.append(f", {v} AS {ident(col)}")
+        # A quarantine line fed back keeps the bytes of cells that were not UTF-8 under
+        # _cdcnorm.raw_base64, the cell itself null: while it is still null (not fixed), the cell
+        # is again not UTF-8, with the same bytes, so the row is quarantined again, not loaded as NULL.
+        rb = "json_extract(j, '$._cdcnorm.raw_base64')"
+        enc = (
+            f"CASE WHEN json_type({rb}) = 'OBJECT' THEN (SELECT CASE WHEN count(*) > 0 THEN "
+            f"CAST(to_json(map(list(k), list(json_extract_string({rb}, k)))) AS VARCHAR) END "
+            f"FROM unnest(json_keys({rb})) t(k) WHERE coalesce(json_type(json_extract(j, k)), 'NULL') = 'NULL') END"
+        )
         self.con.execute(
             f"CREATE TEMP TABLE {ident(table)} AS SELECT CAST({file_id} AS INTEGER) AS __file, __row, "
-            f"CAST(NULL AS VARCHAR) AS __enc{''.join(parts)} FROM {ident(ok)}"
+            f"{enc} AS __enc{''.join(parts)} FROM {ident(ok)}"
         )

@@ -205,3 +205,109 @@ def test_replaying_the_events_gives_the_final_state(
     assert replayed == {k: str(Decimal(v).quantize(Decimal("0.01"))) for k, v in state.items()}
     assert ledger["total"]["quarantined"] == 0 and ledger["balanced"]
     assert ledger["total"]["read"] - ledger["total"]["duplicate"] == len(log)
+
+
+MIXED = """
+table: t.fares
+files: ["f-*.csv"]
+key: [id]
+change:
+  action: {column: op, codes: {I: insert, D: delete}}
+  position: {column: pos, kind: integer}
+fields:
+  id: integer
+  fee: decimal(6,2)
+  day: date
+"""
+
+# (raw text, valid?) by construction; Python's decimal and datetime confirm each in the test
+good_fee = st.decimals(min_value=-9999, max_value=9999, places=2, allow_nan=False).map(
+    lambda d: (str(d), True)
+)
+bad_fee = st.sampled_from(
+    [("1.005", False), ("abc", False), ("1e400", False), ("12345.6", False), ("1,5", False)]
+)
+good_day = st.dates(min_value=__import__("datetime").date(1, 1, 1)).map(lambda d: (d.isoformat(), True))
+bad_day = st.sampled_from(
+    [("2024-02-30", False), ("2023-13-01", False), ("01/02/2024", False), ("2024-2-3", False)]
+)
+mixed_row = st.tuples(
+    st.sampled_from(["I", "D"]), st.integers(1, 6), st.one_of(good_fee, bad_fee), st.one_of(good_day, bad_day)
+)
+
+
+@SETTINGS
+@given(st.lists(mixed_row, min_size=1, max_size=30), st.randoms(use_true_random=False), st.integers(1, 3))
+def test_good_and_bad_rows_in_random_files_are_never_lost_or_changed(
+    rows: list[tuple[str, int, tuple[str, bool], tuple[str, bool]]], rnd: random.Random, n_files: int
+) -> None:
+    from datetime import date
+    from decimal import InvalidOperation
+
+    def fee_ok(raw: str) -> bool:  # Python's decimal: a number with at most 2 places, below 10**4
+        try:
+            d = Decimal(raw)
+        except InvalidOperation:
+            return False
+        return abs(d) < 10**4 and d == d.quantize(Decimal("0.01")) and "," not in raw
+
+    def day_ok(raw: str) -> bool:  # Python's datetime: an ISO 8601 calendar date YYYY-MM-DD
+        try:
+            return len(raw) == 10 and date.fromisoformat(raw) is not None
+        except ValueError:
+            return False
+
+    for _, _, (fee, f_valid), (day, d_valid) in rows:
+        assert fee_ok(fee) == f_valid and day_ok(day) == d_valid
+    numbered = [(i + 1, r) for i, r in enumerate(rows)]  # position = row number: one change each
+    rnd.shuffle(numbered)
+    files: dict[str, list[tuple[int, Any]]] = {}
+    for item in numbered:
+        files.setdefault(f"f-{rnd.randrange(n_files)}.csv", []).append(item)
+    with tempfile.TemporaryDirectory() as d:
+        base = Path(d)
+        (base / "m").mkdir()
+        (base / "m" / "t.yaml").write_text(MIXED)
+        written = {}
+        for name, items in files.items():
+            buf = io.StringIO()
+            w = csv.writer(buf, lineterminator="\n")
+            w.writerow(["op", "pos", "id", "fee", "day"])
+            for pos, (op, key, (fee, _), (day, _)) in items:
+                w.writerow([op, pos, key, fee, day])
+            (base / name).write_text(buf.getvalue(), encoding="utf-8")
+            written[name] = items
+        result = run(load_mappings(base / "m"), [base / n for n in files], Options(out=base / "out"))
+        assert result.ledger.balanced
+        events = {
+            (e["origin"]["file"], e["origin"]["row"]): e
+            for p in (base / "out" / "events" / "t.fares").glob("*.jsonl")
+            for e in map(json.loads, p.read_text(encoding="utf-8").splitlines())
+        }
+        quarantined = {
+            (q["_cdcnorm"]["file"], q["_cdcnorm"]["row"]): q
+            for p in (base / "out" / "quarantine" / "t.fares").glob("*.jsonl")
+            for q in map(json.loads, p.read_text(encoding="utf-8").splitlines())
+        }
+        assert not set(events) & set(quarantined)  # one fate per row
+        seen = 0
+        for name, items in written.items():
+            for row, (pos, (op, key, (fee, f_valid), (day, d_valid))) in enumerate(items, start=1):
+                seen += 1
+                if f_valid and d_valid:
+                    e = events[(name, row)]  # never lost
+                    assert e["key"] == {"id": key} and e["action"] == ("upsert" if op == "I" else "delete")
+                    if op == "I":  # never changed: the exact value, by Python's decimal and datetime
+                        assert Decimal(e["values"]["fee"]) == Decimal(fee)
+                        assert e["values"]["fee"] == str(Decimal(fee).quantize(Decimal("0.01")))
+                        assert date.fromisoformat(e["values"]["day"]) == date.fromisoformat(day)
+                else:
+                    q = quarantined[(name, row)]  # kept with its raw text, exactly
+                    assert (q["op"], q["pos"], q["id"], q["fee"], q["day"]) == (
+                        op,
+                        str(pos),
+                        str(key),
+                        fee,
+                        day,
+                    )
+        assert seen == len(rows) == len(events) + len(quarantined)

@@ -344,6 +344,9 @@ def cmd_settle(args: argparse.Namespace) -> int:
         from cdcnorm.engines.duckdb import DuckDBEngine
 
         engine = DuckDBEngine()
+        from cdcnorm import zones
+
+        zones.register(engine, mappings)
         specs = [m.mapping.change.position for m in mappings]
         if not any(position_key_of(engine, p, args.before) is not None for p in specs):
             raise UsageError(

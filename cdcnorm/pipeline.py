@@ -21,7 +21,7 @@ import pyarrow as pa
 import sqlglot
 
 from cdcnorm import ledger as ledger_mod
-from cdcnorm import quarantine
+from cdcnorm import quarantine, zones
 from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.errors import DriftError, LedgerError, RejectLimitError, UsageError, closest
 from cdcnorm.inputs import display_names, expand_inputs, route
@@ -368,6 +368,7 @@ def _run(
     engine = DuckDBEngine(
         memory_limit=options.memory_limit, threads=options.threads, temp_directory=str(scratch / "spill")
     )
+    zones.register(engine, mappings)
     read = read_all(mappings, routed, engine, options, progress, scratch)
     by_name = {m.table: m for m in mappings}
     if area is not None and options.settle is not None:
@@ -470,6 +471,7 @@ def show_plans(
     scratch = Path(tempfile.mkdtemp(prefix="cdcnorm-", dir=options.scratch))
     try:
         engine = DuckDBEngine(temp_directory=str(scratch / "spill"))
+        zones.register(engine, mappings)
         read = read_all(mappings, routed, engine, options, _no_progress, scratch)
         by_name = {m.table: m for m in mappings}
         return [compile_table(by_name[t], raw).show() for t, raw in read.items() if not table or t == table]

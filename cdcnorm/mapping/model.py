@@ -19,9 +19,18 @@ _ZONE = re.compile(r"^(Z|UTC|[+-](0\d|1\d|2[0-3]):?[0-5]\d)$")
 
 
 def check_zone(value: str) -> str:
-    if not _ZONE.match(value):
-        raise ValueError(f'zone must be a fixed UTC offset such as "+00:00", "-05:30" or "Z", not "{value}"')
-    return value
+    """A fixed UTC offset, or an IANA zone name known to zoneinfo (with the tzdata package)."""
+    if _ZONE.match(value):
+        return value
+    from cdcnorm import zones
+    from cdcnorm.errors import did_you_mean
+
+    if value in zones.names():
+        return value
+    raise ValueError(
+        f'zone must be a fixed UTC offset such as "+00:00", "-05:30" or "Z", or an IANA zone name such as '
+        f'"Europe/Oslo", not "{value}"{did_you_mean(value, zones.names())}'
+    )
 
 
 class Strict(BaseModel):

@@ -102,7 +102,7 @@ def type_rows(plan: Plan) -> Plan:
                 ch.committed_at.column,
                 "an RFC 3339 timestamp",
                 f"s.{col}",
-                timestamp_explain(f"s.{col}"),
+                timestamp_explain(f"s.{col}", ch.committed_at.zone),
             ),
         )
     else:

@@ -72,10 +72,13 @@ def _unmapped(mappings: list[LoadedMapping], landing: Path) -> list[str]:
     return [t for t in tables_present(landing) if t not in names]
 
 
-def _engine(args: argparse.Namespace, scratch: Path) -> Any:
+def _engine(args: argparse.Namespace, scratch: Path, mappings: list[LoadedMapping]) -> Any:
+    from cdcnorm import zones
     from cdcnorm.engines.duckdb import DuckDBEngine
 
-    return DuckDBEngine(memory_limit=args.memory_limit, temp_directory=str(scratch / "spill"))
+    engine = DuckDBEngine(memory_limit=args.memory_limit, temp_directory=str(scratch / "spill"))
+    zones.register(engine, mappings)  # an --as-of in a zone's local time needs its table
+    return engine
 
 
 def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
@@ -89,7 +92,7 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
     folder = Path(args.out)
     rows: list[dict[str, Any]] = []
     with tempfile.TemporaryDirectory(prefix="cdcnorm-") as scratch:
-        engine = _engine(args, Path(scratch))
+        engine = _engine(args, Path(scratch), chosen)
         for m in chosen:
             files = event_files(landing, m.table)
             events = load_events(engine, m, files)
@@ -146,7 +149,7 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
     chosen = _chosen(mappings, args.table, landing)
     reports = []
     with tempfile.TemporaryDirectory(prefix="cdcnorm-") as scratch:
-        engine = _engine(args, Path(scratch))
+        engine = _engine(args, Path(scratch), chosen)
         for m in chosen:
             try:
                 reports.append(

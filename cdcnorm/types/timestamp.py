@@ -1,5 +1,6 @@
 from __future__ import annotations
 
+from cdcnorm import zones
 from cdcnorm.sql import lit
 from cdcnorm.types.base import FieldType
 
@@ -31,8 +32,15 @@ def timestamp_cast(x: str, zone: str) -> str:
     unleaped = f"CASE WHEN {leap} THEN substr({upper}, 1, 17) || '59' || substr({upper}, 20) ELSE {upper} END"
     tail = f"substr({upper}, 20)"
     has_offset = f"(contains({tail}, 'Z') OR contains({tail}, '+') OR contains({tail}, '-'))"
-    zoned = f"CASE WHEN {has_offset} THEN {unleaped} ELSE {unleaped} || {lit(zone)} END"
-    cast = f"TRY_CAST({zoned} AS TIMESTAMPTZ)"
+    if zones.is_fixed(zone):
+        zoned = f"CASE WHEN {has_offset} THEN {unleaped} ELSE {unleaped} || {lit(zone)} END"
+        cast = f"TRY_CAST({zoned} AS TIMESTAMPTZ)"
+    else:  # a named zone: a local time joins the zone's periods (zones.py)
+        local = f"TRY_CAST(replace({unleaped}, 'T', ' ') AS TIMESTAMP)"
+        cast = (
+            f"CASE WHEN {has_offset} THEN TRY_CAST({unleaped} AS TIMESTAMPTZ) "
+            f"ELSE {zones.local_to_utc(local, zone)} END"
+        )
     adjusted = f"CASE WHEN {leap} THEN {cast} + INTERVAL 1 SECOND ELSE {cast} END"
     # Most values need none of that: no leap second, no lower-case t or z, and an offset (or the
     # engine's own zone, UTC, is the mapping's): the engine's cast takes them as they are.
@@ -48,9 +56,22 @@ def timestamp_cast(x: str, zone: str) -> str:
     return f"CASE WHEN regexp_full_match({x}, {PATTERN}) AND {in_range} THEN {value} END"
 
 
-def timestamp_explain(x: str) -> str:
+def timestamp_explain(x: str, zone: str = "+00:00") -> str:
+    named = ""
+    if not zones.is_fixed(zone):
+        upper = f"upper({x})"
+        has_offset = f"(contains(substr({upper}, 20), 'Z') OR contains(substr({upper}, 20), '+') OR contains(substr({upper}, 20), '-'))"
+        local = f"TRY_CAST(replace(CASE WHEN substr({x}, 18, 2) = '60' THEN substr({upper}, 1, 17) || '59' || substr({upper}, 20) ELSE {upper} END, 'T', ' ') AS TIMESTAMP)"
+        n = zones.matches(local, zone)
+        where = f"regexp_full_match({x}, {PATTERN}) AND NOT {has_offset} AND {local} IS NOT NULL"
+        named = (
+            f"WHEN {where} AND {n} = 0 AND year({local}) BETWEEN {zones.FIRST_YEAR} AND {zones.LAST_YEAR} "
+            f"THEN {lit(f'no such local time in {zone}: the clocks jumped over it (a DST gap)')} "
+            f"WHEN {where} AND {n} = 0 THEN {lit(f'outside the years {zones.FIRST_YEAR} to {zones.LAST_YEAR} that the zone table of {zone} covers')} "
+            f"WHEN {where} AND {n} > 1 THEN {lit(f'this local time happened twice in {zone} (the clocks went back, a DST overlap): add its offset')} "
+        )
     return (
-        rf"CASE WHEN regexp_full_match({x}, '.{{19}}\.[0-9]{{7,}}.*') "
+        f"CASE {named}WHEN regexp_full_match({x}, '.{{19}}\\.[0-9]{{7,}}.*') "
         "THEN 'more than 6 fractional digits (would truncate)' "
         f"WHEN regexp_full_match({x}, {PATTERN}) AND substr({x}, 1, 4) IN ('0000', '0001', '9999') "
         f"AND TRY_CAST(substr({x}, 1, 10) AS DATE) IS NOT NULL "
@@ -76,7 +97,7 @@ class TimestampType(FieldType):
         return timestamp_cast(x, self.spec.zone or "+00:00")
 
     def explain(self, x: str) -> str:
-        return timestamp_explain(x)
+        return timestamp_explain(x, self.spec.zone or "+00:00")
 
     def render(self, v: str) -> str:
         return timestamp_render(v)

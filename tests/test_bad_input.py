@@ -434,3 +434,22 @@ def test_a_quarantine_line_with_bytes_that_are_not_utf8_fed_back_unedited_is_qua
         for x in p.read_text().splitlines()
     ]
     assert {e["values"]["a"] for e in events} == {"ok", "café"}
+
+
+def test_json_lines_numbers_are_read_as_written(convert: ConvertFn) -> None:
+    """A JSON number reaches its field as its token: 0.1000000000000000055511151231257827 into a
+    decimal(38,34) exactly (Python's decimal as the reference; through a double it would be 0.1),
+    and 1e2, which is no integer token, is quarantined showing 1e2, not 100.0."""
+    mapping = NOTES.replace("TYPE", '"decimal(38,34)"').replace(
+        "  id: integer", "  id: integer\n  n: integer"
+    )
+    lines = (
+        '{"op":"I","pos":1,"id":1,"a":0.1000000000000000055511151231257827,"n":7}\n'
+        '{"op":"I","pos":2,"id":2,"a":-0,"n":1e2}\n'
+    )
+    done = convert(mapping, {"n.jsonl": lines})
+    assert done.ledger()["balanced"]
+    (e,) = done.events("t.notes")
+    assert Decimal(e["values"]["a"]) == Decimal("0.1000000000000000055511151231257827")
+    (q,) = done.quarantine("t.notes")
+    assert q["n"] == "1e2" and q["a"] == "-0" and q["_cdcnorm"]["reasons"][0]["found"] == "1e2"

@@ -9,6 +9,7 @@ from __future__ import annotations
 import contextlib
 import json
 import os
+import secrets
 from pathlib import Path
 from typing import Any
 
@@ -57,6 +58,9 @@ class DuckDBEngine:
             self.con.execute("SET TimeZone = 'UTC'")
         # keep Arrow tables alive while DuckDB scans them
         self._registered: dict[str, pa.Table] = {}
+        # marks JSON Lines numbers read as written (types/json.py: tag_numbers); random, so that
+        # no text of a dump can look like it
+        self.number_tag = f"~n{secrets.token_hex(8)}~"
 
     def render(self, expression: exp.Expr | str) -> str:
         if isinstance(expression, str):
@@ -288,8 +292,11 @@ class DuckDBEngine:
             f"ELSE 'the object repeats a member name (RFC 7493 section 2.3): which value is meant is unclear' END FROM {text} "
             f"WHERE line IS NULL OR NOT {strict} OR json_type(line) <> 'OBJECT' OR {repeated}"
         )
+        from cdcnorm.types.json import tag_numbers
+
         self.con.execute(
-            f"CREATE OR REPLACE TEMP TABLE {ident(ok)} AS SELECT __row, CAST(line AS JSON) AS j FROM {text} "
+            f"CREATE OR REPLACE TEMP TABLE {ident(ok)} AS SELECT __row, "
+            f"CAST({tag_numbers('line', self.number_tag)} AS JSON) AS j FROM {text} "
             f"WHERE line IS NOT NULL AND {strict} AND json_type(line) = 'OBJECT' AND NOT {repeated}"
         )
         self.drop(lines + "_text")
@@ -302,8 +309,10 @@ class DuckDBEngine:
         """JSON objects -> one text column per (JSON path, internal name); a string equal to a
         null token is NULL; objects and arrays stay JSON text."""
         parts = []
+        from cdcnorm.types.json import untag
+
         for path, col in paths:
-            v = f"json_extract_string(j, {lit(path)})"
+            v = untag(f"json_extract_string(j, {lit(path)})", self.number_tag)
             if nulls:
                 v = f"CASE WHEN {v} IN ({', '.join(lit(t) for t in nulls)}) THEN NULL ELSE {v} END"
             parts.append(f", {v} AS {ident(col)}")

@@ -97,3 +97,31 @@ class RawJson:
         for column in self.columns:
             line = f"replace({line}, '\"{self._mark(column)}\"', coalesce(CAST({column} AS VARCHAR), 'null'))"
         return line
+
+
+#: A JSON number token: RFC 8259 section 6 (the text is already known to be valid JSON).
+_NUMBER_TOKEN = "-?[0-9][0-9.eE+-]*"
+
+
+def tag_numbers(line: str, tag: str) -> str:
+    """SQL: the JSON text with every number token outside strings made a string ``"<tag><token>"``,
+    so the engine's parser hands the token back as written (it would re-render ``1e2`` as
+    ``100.0``, ``-0`` as ``0`` and a long fraction through a double). Only texts with a number that
+    could be re-rendered (a fraction, an exponent, ``-0``, 19 digits or more) are rewritten."""
+    tokens = f"regexp_extract_all({line}, '{STRING}|{_NUMBER_TOKEN}|[^\"0-9-]+|-')"
+    tagged = (
+        f"array_to_string(list_transform({tokens}, lambda t: CASE WHEN regexp_full_match(t, '{_NUMBER_TOKEN}') "
+        f"THEN '\"{tag}' || t || '\"' ELSE t END), '')"
+    )
+    risky = f"regexp_matches({_outside_strings(line)}, '[0-9][.eE]|-0|[0-9]{{19,}}')"
+    return f"CASE WHEN {risky} THEN {tagged} ELSE {line} END"
+
+
+def untag(value: str, tag: str) -> str:
+    """SQL: a value extracted from a tagged text, its numbers as written again: a number itself,
+    or an object or array (JSON text) holding tagged numbers."""
+    return (
+        f"CASE WHEN starts_with({value}, '{tag}') THEN substr({value}, {len(tag) + 1}) "
+        f"WHEN contains({value}, '{tag}') THEN regexp_replace({value}, '\"{tag}([^\"]*)\"', '\\1', 'g') "
+        f"ELSE {value} END"
+    )

@@ -311,3 +311,44 @@ def test_good_and_bad_rows_in_random_files_are_never_lost_or_changed(
                         day,
                     )
         assert seen == len(rows) == len(events) + len(quarantined)
+
+
+TEXTUAL = """
+table: t.logbook
+files: ["l-*.csv"]
+key: [id]
+change:
+  action: {column: op, codes: {I: insert}}
+  position: {column: pos, kind: text}
+  sequence: {column: seq, kind: text}
+fields:
+  id: integer
+"""
+
+position_text = st.text(alphabet=st.sampled_from(list("a-./0Z~ é€😀")), min_size=1, max_size=5)
+
+
+@SETTINGS
+@given(st.lists(st.tuples(position_text, position_text), min_size=1, max_size=25, unique=True))
+def test_text_positions_sort_in_the_byte_order_of_their_texts(pairs: list[tuple[str, str]]) -> None:
+    """Whatever the texts, plain byte order of ``position`` is the order of (position, sequence) by
+    their UTF-8 bytes (Python's bytes order), the sequence breaking ties: 'a' before 'a-'."""
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(["op", "pos", "seq", "id"])
+    for i, (pos, seq) in enumerate(pairs, start=1):
+        w.writerow(["I", pos, seq, i])
+    with tempfile.TemporaryDirectory() as d:
+        base = Path(d)
+        (base / "m").mkdir()
+        (base / "m" / "t.yaml").write_text(TEXTUAL)
+        (base / "l-1.csv").write_text(buf.getvalue(), encoding="utf-8")
+        run(load_mappings(base / "m"), [base / "l-1.csv"], Options(out=base / "out"))
+        (path,) = (base / "out" / "events" / "t.logbook").glob("*.jsonl")
+        events = [json.loads(x) for x in path.read_text(encoding="utf-8").splitlines()]
+    by_bytes = sorted(events, key=lambda e: e["position"].encode())
+    expected = sorted(
+        range(1, len(pairs) + 1), key=lambda i: (pairs[i - 1][0].encode(), pairs[i - 1][1].encode())
+    )
+    assert [e["key"]["id"] for e in by_bytes] == expected
+    assert [e["key"]["id"] for e in events] == expected  # the file is written in that order too

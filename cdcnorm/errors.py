@@ -21,6 +21,7 @@ EXIT_LINEAGE = 7
 EXIT_BREAKS = 8
 EXIT_BUSY = 9
 EXIT_TARGET = 10
+EXIT_INCOMPLETE = 11
 
 
 def closest(name: str, candidates: Iterable[str]) -> str | None:

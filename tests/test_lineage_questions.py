@@ -123,7 +123,8 @@ def test_lineage_commands_end_to_end(tmp_path: Path, capsys: pytest.CaptureFixtu
     args = ["--models", str(MODELS), "--mappings", str(MAPPINGS)]
     assert cli("trace", *args, "daily_revenue.total_fare", "--json") == 0
     one = json.loads(capsys.readouterr().out)
-    assert set(one) == {"column", "value", "influence", "raw", "paths", "unresolved"}
+    assert set(one) == {"column", "value", "influence", "raw", "paths", "unresolved", "complete"}
+    assert one["complete"] is True
     assert one["value"] == ["ferry.bookings.fare", "ferry.bookings.seats"]
     assert "ferry.bookings.refunded" in one["influence"] and "ferry.bookings.is_refunded" in one["raw"]
     assert cli("trace", *args, "daily_revenue", "--json") == 0
@@ -144,7 +145,10 @@ def test_lineage_commands_end_to_end(tmp_path: Path, capsys: pytest.CaptureFixtu
         "broken_mappings",
         "value_changes",
         "row_changes",
+        "unresolved",
+        "complete",
     }
+    assert r["complete"] is True and r["unresolved"] == []
     assert cli("impact", *args, "ferry.bookings.sailing_ref", "--drop") == 8  # a CI gate: something breaks
     capsys.readouterr()
     assert (
@@ -180,3 +184,35 @@ def test_renaming_a_source_column_breaks_only_its_mapping(demo: tuple) -> None: 
     (broken,) = r["broken_mappings"]
     assert broken["fix"] == "set fields.sailing_ref.from: sailing"
     assert r["broken_models"] == []  # the canonical field keeps its name once the mapping follows the rename
+
+
+def test_a_cycle_is_reported_and_everything_outside_it_still_resolves(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """Two models that read each other: one diagnostic per model naming the cycle and its files;
+    a mart outside the cycle still traces to its source (complete, exit 0); an impact whose
+    dependents pass through the cycle says it may be incomplete (exit 11), never a clean 0."""
+    models = tmp_path / "models"
+    models.mkdir()
+    (models / "stg_fares.sql").write_text("SELECT booking_id, fare FROM ferry.bookings\n")
+    (models / "fare_marts.sql").write_text("SELECT booking_id, fare * 2 AS double_fare FROM stg_fares\n")
+    (models / "loop_x.sql").write_text(
+        "SELECT y.booking_id, b.seats\nFROM loop_y AS y\nJOIN ferry.bookings AS b ON b.booking_id = y.booking_id\n"
+    )
+    (models / "loop_y.sql").write_text("SELECT booking_id, seats FROM loop_x\n")
+    args = ["--models", str(models), "--mappings", str(MAPPINGS), "--json"]
+    assert cli("trace", *args, "fare_marts.double_fare") == 0
+    answer = json.loads(capsys.readouterr().out)
+    assert answer["value"] == ["ferry.bookings.fare"] and answer["complete"] is True
+    assert cli("impact", *args, "ferry.bookings.fare") == 0
+    assert json.loads(capsys.readouterr().out)["complete"] is True
+    assert cli("impact", *args, "ferry.bookings.seats") == 11
+    r = json.loads(capsys.readouterr().out)
+    assert "loop_x.seats" in r["value_dependents"] and r["complete"] is False
+    cycles = [d for d in r["unresolved"] if d["reason"] == "cycle"]
+    # networkx finds the cycle from either model: both spellings name the same loop
+    ref = cycles[0]["reference"]
+    assert "loop_x -> loop_y -> loop_x" in ref or "loop_y -> loop_x -> loop_y" in ref
+    assert "loop_x.sql" in cycles[0]["reference"] and "loop_y.sql" in cycles[0]["reference"]
+    assert cli("trace", *args[:4], "loop_x.seats") == 11  # the text answer, too
+    assert "incomplete" in capsys.readouterr().out

@@ -10,7 +10,7 @@ from typing import TYPE_CHECKING, Any
 from rich.console import Console
 from rich.tree import Tree
 
-from cdcnorm.errors import EXIT_BREAKS, EXIT_OK, UsageError
+from cdcnorm.errors import EXIT_BREAKS, EXIT_INCOMPLETE, EXIT_OK, UsageError
 
 if TYPE_CHECKING:
     from cdcnorm.lineage.graph import Project
@@ -82,8 +82,7 @@ def _trace_tree(answer: dict[str, Any]) -> Tree:
                 )
     if answer["raw"]:
         tree.add("dump columns: " + ", ".join(answer["raw"]))
-    for d in answer["unresolved"]:
-        tree.add(f"[red]unresolved[/red] {d['file']}:{d['line']}: {d['reason']}: {d['reference']}")
+    _print_unresolved(tree, answer)
     return tree
 
 
@@ -100,7 +99,8 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
         else:
             for a in answers:
                 out.print(_trace_tree(a))
-        return EXIT_OK
+        # a CI gate must not pass on a partial graph: an answer with unresolved references says so
+        return EXIT_OK if all(a["complete"] for a in answers) else EXIT_INCOMPLETE
     if args.command == "impact":
         edit = None
         if args.drop:
@@ -114,7 +114,9 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
             print(json.dumps(result, indent=2))
         else:
             _print_impact(result, out)
-        return EXIT_BREAKS if breaks(result) else EXIT_OK
+        if breaks(result):
+            return EXIT_BREAKS
+        return EXIT_OK if result["complete"] else EXIT_INCOMPLETE
     if args.command == "lineage":
         g = project.graph
         title = "column lineage"
@@ -167,4 +169,15 @@ def _print_impact(r: dict[str, Any], out: Console) -> None:
         b = tree.add(f"row changes: {len(r['row_changes'])}")
         for v in r["row_changes"]:
             b.add(f"{v['column']}: the column is a {'/'.join(v['clauses']) or 'row'} key upstream")
+    _print_unresolved(tree, r)
     out.print(tree)
+
+
+def _print_unresolved(tree: Tree, answer: dict[str, Any]) -> None:
+    if answer["complete"]:
+        tree.add("complete: every reference on the way was resolved")
+        return
+    b = tree.add(f"[yellow]incomplete[/yellow]: {len(answer['unresolved'])} unresolved references on the way")
+    for d in answer["unresolved"]:
+        where = f"{d['file']}:{d['line']}" if d["line"] else d["file"]
+        b.add(f"{where}: {d['model']}: {d['reason']}: {d['reference']}", style="yellow")

@@ -12,6 +12,7 @@ REASONS = (
     "star over unknown sources",
     "parse error",
     "unsupported",
+    "cycle",
 )
 
 

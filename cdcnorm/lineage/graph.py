@@ -318,21 +318,30 @@ def build_project(
                 for other, oparts in parts_of.items():
                     if other != name and (oparts == parts or oparts[-len(parts) :] == parts):
                         deps.add_edge(other, name)
-    try:
-        order = list(nx.lexicographical_topological_sort(deps))
-    except nx.NetworkXUnfeasible:
-        cycle = nx.find_cycle(deps)
-        first = by_model[cycle[0][0]][0]
-        diagnostics.append(
-            Diagnostic(
-                first.file,
-                first.line,
-                first.name,
-                "unsupported",
-                "models read each other in a cycle: " + " -> ".join(a for a, _ in cycle),
+    # Upstream first. Models that read each other (a cycle) cannot be ordered: each cycle is one
+    # diagnostic naming its models and files, its models are resolved in name order (their
+    # references into the cycle stay unresolved), and every model outside it resolves as usual.
+    scc = nx.condensation(deps)
+    members = {c: sorted(scc.nodes[c]["members"]) for c in scc.nodes}
+    order = []
+    for c in nx.lexicographical_topological_sort(scc, key=lambda c: members[c][0]):
+        group = members[c]
+        order.extend(group)
+        if len(group) > 1:
+            loop = nx.find_cycle(deps.subgraph(group))
+            files = sorted({st.file for m in group for st in by_model[m]})
+            diagnostics.extend(
+                Diagnostic(
+                    by_model[m][0].file,
+                    by_model[m][0].line,
+                    m,
+                    "cycle",
+                    "models read each other: "
+                    + " -> ".join([a for a, _ in loop] + [loop[0][0]])
+                    + f" (files: {', '.join(files)})",
+                )
+                for m in group
             )
-        )
-        order = sorted(by_model)
     models: dict[str, ModelInfo] = {}
     for name in order:
         sts = by_model[name]

@@ -100,6 +100,12 @@ def _path(project: Project, a: Node, b: Node, value_only: bool) -> list[dict[str
     return steps
 
 
+def unresolved_on(project: Project, nodes: set[Node]) -> list[dict[str, Any]]:
+    """The diagnostics of every model among ``nodes``: references the answer could not follow."""
+    models = {n[1] for n in nodes if n[0] == "model"}
+    return [d.as_dict() for d in project.diagnostics if d.model in models]
+
+
 def trace(project: Project, column: str) -> dict[str, Any]:
     node = find_column(project, column)
     value, influence = _upstream(project, node)
@@ -115,8 +121,7 @@ def trace(project: Project, column: str) -> dict[str, Any]:
         {"source": node_name(s), "lineage": "influence", "steps": _path(project, s, node, False)}
         for s in isrc
     ]
-    model = node[1] if node[0] == "model" else None
-    unresolved = [d.as_dict() for d in project.diagnostics if model is not None and d.model == model]
+    unresolved = unresolved_on(project, {node} | value | influence)
     return {
         "column": node_name(node),
         "value": [node_name(n) for n in vsrc],
@@ -124,6 +129,7 @@ def trace(project: Project, column: str) -> dict[str, Any]:
         "raw": [node_name(n) for n in raw],
         "paths": paths,
         "unresolved": unresolved,
+        "complete": not unresolved,
     }
 
 
@@ -207,6 +213,9 @@ def impact(
         "value_changes": [],
         "row_changes": [],
     }
+    # the models the answer passes through: what they could not resolve may hide dependents
+    result["unresolved"] = unresolved_on(project, {node} | value | influence)
+    result["complete"] = not result["unresolved"]
     if edit is None:
         return result
     g = project.graph

@@ -216,3 +216,33 @@ def test_a_cycle_is_reported_and_everything_outside_it_still_resolves(
     assert "loop_x.sql" in cycles[0]["reference"] and "loop_y.sql" in cycles[0]["reference"]
     assert cli("trace", *args[:4], "loop_x.seats") == 11  # the text answer, too
     assert "incomplete" in capsys.readouterr().out
+
+
+def test_names_in_other_case_or_the_default_schema_find_the_model_and_updates_and_duplicates_are_reported(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """FROM STG_FARES (DuckDB folds unquoted names to lower case), main.stg_fares and
+    memory.main.stg_fares (the default schema and catalog) all read the model stg_fares; an UPDATE
+    is an unsupported statement charged to the table it changes; a second file defining a model
+    is a diagnostic, not merged."""
+    models = tmp_path / "models"
+    (models / "extra").mkdir(parents=True)
+    (models / "stg_fares.sql").write_text("SELECT booking_id, fare FROM ferry.bookings\n")
+    (models / "a_upper.sql").write_text("SELECT booking_id, fare * 2 AS d FROM STG_FARES\n")
+    (models / "b_main.sql").write_text("SELECT booking_id, fare FROM main.stg_fares\n")
+    (models / "c_db.sql").write_text("SELECT f.fare FROM memory.main.stg_fares AS f\n")
+    (models / "z_fix.sql").write_text("-- a fix-up\nUPDATE stg_fares SET fare = 0 WHERE booking_id = 1;\n")
+    (models / "extra" / "a_upper.sql").write_text("SELECT 1 AS d\n")
+    args = ["--models", str(models), "--mappings", str(MAPPINGS), "--json"]
+    for column in ("a_upper.d", "b_main.fare", "c_db.fare"):
+        assert cli("trace", *args, column) == 11  # complete but for the UPDATE upstream
+        answer = json.loads(capsys.readouterr().out)
+        assert answer["value"] == ["ferry.bookings.fare"], column
+        (d,) = [u for u in answer["unresolved"] if u["reason"] != "duplicate model"]  # a_upper has one
+        assert (d["file"], d["line"], d["model"], d["reason"]) == ("z_fix.sql", 2, "stg_fares", "unsupported")
+        assert d["reference"].startswith("UPDATE of stg_fares is not traced")
+    assert cli("lineage", *args[:4], "--out", str(tmp_path / "g.dot"), "--json") == 0
+    diagnostics = json.loads(capsys.readouterr().out)["diagnostics"]
+    dup = [d for d in diagnostics if d["reason"] == "duplicate model"]
+    assert [(d["file"], d["model"]) for d in dup] == [("extra/a_upper.sql", "a_upper")]
+    assert "a_upper.sql:1" in dup[0]["reference"]

@@ -13,6 +13,7 @@ REASONS = (
     "parse error",
     "unsupported",
     "cycle",
+    "duplicate model",
 )
 
 

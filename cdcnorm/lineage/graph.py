@@ -166,13 +166,33 @@ def mapping_catalog(
     return cat
 
 
-def _referenced_tables(stmt: ModelStatement) -> list[tuple[str, ...]]:
+#: The schema a name without one lands in (DuckDB's and PostgreSQL's default, SQLite's database).
+DEFAULT_SCHEMAS = ("main", "public")
+
+
+def _drop_default_prefixes(statement: exp.Expr, known: set[tuple[str, ...]]) -> None:
+    """``main.stg_trips`` and ``db.main.stg_trips`` name the model ``stg_trips``: a reference in
+    the default schema that names no known table as written is taken without its prefixes."""
+    for t in statement.find_all(exp.Table):
+        parts = table_parts(t)
+        if len(parts) < 2 or parts in known or parts[-2] not in DEFAULT_SCHEMAS:
+            continue
+        if (parts[-1],) in known:
+            t.set("db", None)
+            t.set("catalog", None)
+
+
+def _referenced_tables(stmt: ModelStatement, dialect: str) -> list[tuple[str, ...]]:
+    """The tables a statement reads, their names folded as the dialect folds them (``STG_FARES``
+    is ``stg_fares`` in DuckDB), so that the build order follows every reference."""
+    from sqlglot.optimizer.normalize_identifiers import normalize_identifiers
+
     ctes = {c.alias_or_name for c in stmt.statement.find_all(exp.CTE)}
     out = []
     for t in stmt.statement.find_all(exp.Table):
         if not t.name or (len(t.parts) == 1 and t.name in ctes):
             continue
-        out.append(table_parts(t))
+        out.append(table_parts(normalize_identifiers(t.copy(), dialect=dialect)))
     return out
 
 
@@ -310,11 +330,15 @@ def build_project(
     for st in loaded.statements:
         by_model[st.name].append(st)
     parts_of = {name: sts[0].target for name, sts in by_model.items()}
+    known_tables = set(parts_of.values()) | set(catalog.tables)
+    for sts in by_model.values():
+        for st in sts:
+            _drop_default_prefixes(st.statement, known_tables)
     deps = nx.DiGraph()
     deps.add_nodes_from(by_model)
     for name, sts in by_model.items():
         for st in sts:
-            for parts in _referenced_tables(st):
+            for parts in _referenced_tables(st, dialect):
                 for other, oparts in parts_of.items():
                     if other != name and (oparts == parts or oparts[-len(parts) :] == parts):
                         deps.add_edge(other, name)

@@ -117,6 +117,14 @@ def load_model_file(path: Path, dialect: str, root: Path | None = None) -> Loade
             continue
         ms = _classify(stmt, path.stem, shown, line, dialect)
         if ms is None:
+            why = unsupported(stmt)
+            if why:
+                # an UPDATE or DELETE is charged to the table it changes, so its answers show it
+                changed = stmt.this if isinstance(stmt, (exp.Update, exp.Delete)) else None
+                model = (
+                    ".".join(_normalise(changed, dialect)) if isinstance(changed, exp.Table) else path.stem
+                )
+                out.diagnostics.append(Diagnostic(shown, line, model, "unsupported", why))
             continue
         out.statements.append(ms)
     return out
@@ -143,14 +151,41 @@ def _classify(stmt: exp.Expr, stem: str, file: str, line: int, dialect: str) -> 
     return None
 
 
+def unsupported(stmt: exp.Expr) -> str | None:
+    """Why a statement that changes data is not traced (None for one that is, or that changes
+    nothing lineage follows: a CREATE TABLE of columns only, INSERT ... VALUES)."""
+    if isinstance(stmt, (exp.Update, exp.Delete)):
+        kind = "UPDATE" if isinstance(stmt, exp.Update) else "DELETE"
+        target = stmt.this.sql() if isinstance(stmt.this, exp.Expr) else "?"
+        return f"{kind} of {target} is not traced: the lineage of {target} misses what it changes"
+    if isinstance(stmt, (exp.Create, exp.Insert, exp.Merge, exp.Query)):
+        return None
+    return f"a {stmt.key.upper()} statement is not traced"
+
+
 def load_models(folder: Path, dialect: str) -> LoadedModels:
     """Every ``*.sql`` file under ``folder`` (recursively), in path order."""
     out = LoadedModels()
     paths = [folder] if folder.is_file() else sorted(folder.rglob("*.sql"))
     root = folder if folder.is_dir() else folder.parent
+    defined: dict[str, ModelStatement] = {}
     for p in paths:
         one = load_model_file(p, dialect, root)
-        out.statements.extend(one.statements)
+        for st in one.statements:
+            first = defined.setdefault(st.name, st) if st.kind in ("create", "select") else st
+            if first is not st and first.file != st.file:
+                # two files define one model: the first (in path order) is the model, never a merge
+                out.diagnostics.append(
+                    Diagnostic(
+                        st.file,
+                        st.line,
+                        st.name,
+                        "duplicate model",
+                        f"{st.name} is defined in {first.file}:{first.line} and again here; this one is left out",
+                    )
+                )
+                continue
+            out.statements.append(st)
         out.diagnostics.extend(one.diagnostics)
         out.files.extend(one.files)
     return out

@@ -27,7 +27,7 @@ from collections.abc import Iterable
 from dataclasses import dataclass, field
 
 from sqlglot import exp
-from sqlglot.errors import OptimizeError
+from sqlglot.errors import OptimizeError, SchemaError
 from sqlglot.optimizer.qualify import qualify
 from sqlglot.optimizer.scope import Scope, build_scope
 from sqlglot.schema import MappingSchema
@@ -120,7 +120,10 @@ def _with_column(schema: MappingSchema, query: exp.Expr, column: str, dialect: s
         except Exception:  # a CTE or unknown table: nothing to extend
             continue
         if cols and column not in cols:
-            copy.add_table(t, {**{c: "TEXT" for c in cols}, column: "TEXT"}, dialect=dialect)
+            try:
+                copy.add_table(t, {**{c: "TEXT" for c in cols}, column: "TEXT"}, dialect=dialect)
+            except SchemaError:  # a name shorter than the schema's nesting: left as it is
+                continue
     return copy
 
 

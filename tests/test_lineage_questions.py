@@ -246,3 +246,89 @@ def test_names_in_other_case_or_the_default_schema_find_the_model_and_updates_an
     dup = [d for d in diagnostics if d["reason"] == "duplicate model"]
     assert [(d["file"], d["model"]) for d in dup] == [("extra/a_upper.sql", "a_upper")]
     assert "a_upper.sql:1" in dup[0]["reference"]
+
+
+CATALOG_MODEL = """SELECT b.booking_id, b.fare * r.rate AS fare_eur, c.is_holiday
+FROM ferry.bookings AS b
+JOIN ref.rates AS r ON r.currency = 'GBP'
+JOIN ref.calendar AS c ON c.day = CAST(b.booked_at AS DATE)
+"""
+
+
+@pytest.mark.parametrize("kind", ["sql", "yaml", "json", "sqlite", "duckdb", "postgresql"])
+def test_catalogs_give_the_tables_no_mapping_declares(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], kind: str, request: pytest.FixtureRequest
+) -> None:
+    import sqlite3
+
+    import duckdb
+
+    models = tmp_path / "models"
+    models.mkdir()
+    (models / "fares_eur.sql").write_text(CATALOG_MODEL)
+    ddl = [
+        "CREATE TABLE ref.rates (currency VARCHAR, rate DECIMAL(10,4))",
+        "CREATE TABLE ref.calendar (day DATE, is_holiday BOOLEAN)",
+    ]
+    schema = {
+        "tables": {
+            "ref.rates": {"currency": "text", "rate": "decimal(10,4)"},
+            "ref.calendar": {"day": "date", "is_holiday": "boolean"},
+        }
+    }
+    if kind == "sql":
+        spec = tmp_path / "catalog.sql"
+        spec.write_text(";\n".join(ddl) + ";\n")
+    elif kind == "yaml":
+        import yaml
+
+        spec = tmp_path / "catalog.yaml"
+        spec.write_text(yaml.safe_dump(schema))
+    elif kind == "json":
+        spec = tmp_path / "catalog.json"
+        spec.write_text(json.dumps(schema))
+    elif kind == "sqlite":  # no schemas in SQLite: an attached database's name is the prefix
+        spec = tmp_path / "ref.db"
+        con = sqlite3.connect(spec)
+        con.execute('CREATE TABLE "ref.rates" (currency TEXT, rate NUMERIC)')
+        con.execute('CREATE TABLE "ref.calendar" (day DATE, is_holiday BOOLEAN)')
+        con.close()
+    elif kind == "duckdb":
+        spec = tmp_path / "warehouse.duckdb"
+        dcon = duckdb.connect(str(spec))
+        dcon.execute("CREATE SCHEMA ref")
+        for statement in ddl:
+            dcon.execute(statement)
+        dcon.close()
+    else:
+        import psycopg
+
+        url = request.getfixturevalue("pg_url")
+        with psycopg.connect(url) as pcon:
+            pcon.execute("CREATE SCHEMA ref")
+            for statement in ddl:
+                pcon.execute(statement)
+        spec = url  # type: ignore[assignment]
+    args = ["--models", str(models), "--mappings", str(MAPPINGS), "--json"]
+    assert cli("trace", *args, "fares_eur.fare_eur") == 11  # without the catalog: incomplete
+    missing = json.loads(capsys.readouterr().out)
+    assert {d["reason"] for d in missing["unresolved"]} >= {"unknown table"}
+    assert cli("trace", *args, "--catalog", str(spec), "fares_eur.fare_eur") == 0
+    answer = json.loads(capsys.readouterr().out)
+    assert answer["value"] == ["ferry.bookings.fare", "ref.rates.rate"] and answer["complete"]
+    assert set(answer["influence"]) >= {"ref.rates.currency", "ref.calendar.day"}
+
+
+def test_a_bad_catalog_file_is_a_usage_error_naming_it(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    bad = tmp_path / "catalog.yaml"
+    bad.write_text("tables:\n  ref.rates: [currency, rate]\n")
+    models = tmp_path / "models"
+    models.mkdir()
+    (models / "m.sql").write_text("SELECT 1 AS x\n")
+    assert (
+        cli("trace", "--models", str(models), "--mappings", str(MAPPINGS), "--catalog", str(bad), "m.x") == 2
+    )
+    err = capsys.readouterr().err
+    assert "catalog.yaml" in err and "tables.ref.rates" in err and "Traceback" not in err

@@ -25,6 +25,14 @@ def _common(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--dialect", default="duckdb", help="SQL dialect of the models, by sqlglot's names (default: duckdb)"
     )
+    p.add_argument(
+        "--catalog",
+        action="append",
+        default=[],
+        metavar="SOURCE",
+        help="schemas of tables no mapping declares (repeatable): a .sql file of CREATE TABLE statements, "
+        "a .yaml/.json schema file, a SQLite or DuckDB file, or a database URL",
+    )
     p.add_argument("--json", action="store_true", help="print the answer as JSON")
 
 
@@ -65,7 +73,10 @@ def load_project(args: argparse.Namespace) -> tuple[Project, list[Any], Any]:
     if not models_dir.exists():
         raise UsageError(f"models folder {models_dir} does not exist", hint="pass --models")
     loaded = load_models(models_dir, args.dialect)
-    return build_project(None, mappings, args.dialect, loaded=loaded), mappings, loaded
+    from cdcnorm.lineage.catalogs import load_catalogs
+
+    tables = load_catalogs(args.catalog, args.dialect) or None
+    return build_project(None, mappings, args.dialect, loaded=loaded, tables=tables), mappings, loaded
 
 
 def _trace_tree(answer: dict[str, Any]) -> Tree:

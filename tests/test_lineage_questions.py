@@ -147,8 +147,10 @@ def test_lineage_commands_end_to_end(tmp_path: Path, capsys: pytest.CaptureFixtu
         "row_changes",
         "unresolved",
         "complete",
+        "binding",
     }
     assert r["complete"] is True and r["unresolved"] == []
+    assert r["binding"] == {"checked": True, "broken": [], "unavailable": []}  # float: every model still runs
     assert cli("impact", *args, "ferry.bookings.sailing_ref", "--drop") == 8  # a CI gate: something breaks
     capsys.readouterr()
     assert (
@@ -332,3 +334,32 @@ def test_a_bad_catalog_file_is_a_usage_error_naming_it(
     )
     err = capsys.readouterr().err
     assert "catalog.yaml" in err and "tables.ref.rates" in err and "Traceback" not in err
+
+
+def test_the_binding_check_finds_what_only_the_engine_sees(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """DuckDB as the oracle: dropping a column named in SELECT * EXCLUDE (...) breaks that model
+    and the two built on it; retyping a text column to integer breaks a model that compares it
+    with a text literal, when it runs. The graph alone sees neither."""
+    models = tmp_path / "models"
+    models.mkdir()
+    (models / "bookings_lean.sql").write_text("SELECT * EXCLUDE (seats) FROM ferry.bookings\n")
+    (models / "lean_fares.sql").write_text("SELECT booking_id, fare FROM bookings_lean\n")
+    (models / "lean_totals.sql").write_text("SELECT sum(fare) AS total FROM lean_fares\n")
+    (models / "named.sql").write_text(
+        "SELECT booking_id FROM ferry.bookings WHERE passenger = 'Ines Marrow'\n"
+    )
+    args = ["--models", str(models), "--mappings", str(MAPPINGS), "--json"]
+    assert cli("impact", *args, "ferry.bookings.seats", "--drop") == 8
+    r = json.loads(capsys.readouterr().out)
+    assert r["value_dependents"] == [] and r["broken_models"] == []  # the graph sees no reader
+    broken = {b["model"]: b["reason"] for b in r["binding"]["broken"]}
+    assert set(broken) == {"bookings_lean", "lean_fares", "lean_totals"}
+    assert 'Column "seats" in EXCLUDE list not found' in broken["bookings_lean"]
+    assert broken["lean_totals"] == "it reads lean_fares, which the engine refuses"
+    assert cli("impact", *args, "ferry.bookings.passenger", "--retype", "integer") == 8
+    r = json.loads(capsys.readouterr().out)
+    assert [b["model"] for b in r["binding"]["broken"]] == ["named"]
+    assert "Ines Marrow" in r["binding"]["broken"][0]["reason"]
+    assert cli("impact", *args, "ferry.bookings.fare", "--retype", "decimal(14,2)") == 0  # nothing refuses

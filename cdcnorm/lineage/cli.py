@@ -174,6 +174,13 @@ def _print_impact(r: dict[str, Any], out: Console) -> None:
             b.add(f"[red]mapping[/red] {m['mapping']}: field {m['field']}: {m['reason']} (fix: {m['fix']})")
         for d in r["broken_models"]:
             b.add(f"[red]model[/red] {d['model']} {d['file']}:{d['line']}: {d['reason']}: {d['reference']}")
+        binding = r.get("binding") or {}
+        if binding.get("checked"):
+            b = tree.add(f"refused by the engine (binding check): {len(binding['broken'])}")
+            for m in binding["broken"]:
+                b.add(f"[red]model[/red] {m['model']}: {m['reason']}")
+            for u in binding["unavailable"]:
+                b.add(f"[yellow]not checked[/yellow] {u['model']}: {u['reason']}")
         b = tree.add(f"value changes: {len(r['value_changes'])}")
         for v in r["value_changes"]:
             b.add(f"{v['column']}: {v['how']}; {v['change']}")

@@ -259,6 +259,25 @@ def impact(
         for d in simulated.diagnostics:
             if (d.model, d.reason, d.reference) not in before:
                 result["broken_models"].append(d.as_dict())
+    # the engine's own answer: bind and run every model before and after the edit
+    binding_targets = (
+        fields if node[0] in ("raw", "source") and (edit.kind == "drop" or node[0] == "source") else []
+    )
+    if binding_targets and loaded is not None:
+        from cdcnorm.lineage.binding import check_edit
+
+        checks = [check_edit(project, loaded, t[1], t[2], edit.kind, edit.value) for t in binding_targets]
+        result["binding"] = {
+            "checked": True,
+            "broken": [b for c in checks for b in c["broken"]],
+            "unavailable": [u for c in checks for u in c["unavailable"]],
+        }
+    else:
+        result["binding"] = {
+            "checked": False,
+            "broken": [],
+            "unavailable": [{"model": "*", "reason": "the edit is not of a source table's column"}],
+        }
     if edit.kind == "retype" and edit.value:
         old = g.nodes[node].get("type") or "TEXT"
         change = _type_change(old, edit.value, project.dialect)
@@ -291,4 +310,5 @@ def impact(
 
 
 def breaks(result: dict[str, Any]) -> bool:
-    return bool(result["broken_models"] or result["broken_mappings"])
+    binding = result.get("binding") or {}
+    return bool(result["broken_models"] or result["broken_mappings"] or binding.get("broken"))

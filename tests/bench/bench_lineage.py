@@ -128,6 +128,15 @@ def main() -> None:
                 impact(project, f"{node[1]}.{node[2]}", None, mappings=[], loaded=loaded)
                 best = min(best, time.perf_counter() - t)
             times.append(best)
+        # the binding check of one edit (drop, then retype), the engine building and running all
+        # 200 models before and after the edit
+        from cdcnorm.lineage.questions import Edit
+
+        binding = []
+        for node, edit in ((targets[0], Edit("drop")), (targets[1], Edit("retype", "integer"))):
+            t = time.perf_counter()
+            answer = impact(project, f"{node[1]}.{node[2]}", edit, mappings=[], loaded=loaded)
+            binding.append((time.perf_counter() - t, len(answer["binding"]["broken"])))
         chain = nx.DiGraph()
         for u, v in g.edges():
             if u[0] == "model" and v[0] == "model" and u[1] != v[1]:
@@ -143,6 +152,8 @@ def main() -> None:
             "build_s": round(build, 2),
             "impact_ms_median": round(statistics.median(times) * 1000, 2),
             "impact_ms_max": round(max(times) * 1000, 2),
+            "binding_check_s": [round(t, 2) for t, _ in binding],
+            "binding_broken_models": [n for _, n in binding],
         }
         print(json.dumps(report, indent=2))
 

@@ -164,9 +164,9 @@ def test_lineage_commands_end_to_end(tmp_path: Path, capsys: pytest.CaptureFixtu
             *args,
             "--out",
             str(out),
-            "--around",
+            "--focus",
             "daily_revenue.total_fare",
-            "--depth",
+            "--hops",
             "1",
             "--json",
         )
@@ -363,3 +363,65 @@ def test_the_binding_check_finds_what_only_the_engine_sees(
     assert [b["model"] for b in r["binding"]["broken"]] == ["named"]
     assert "Ines Marrow" in r["binding"]["broken"][0]["reason"]
     assert cli("impact", *args, "ferry.bookings.fare", "--retype", "decimal(14,2)") == 0  # nothing refuses
+
+
+def test_focus_follows_edge_direction_and_highlights_the_column(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """--direction up reaches the dump column four hops up and pulls in no sibling mart;
+    --direction down from a field reaches the marts; the focus is drawn highlighted; --level table
+    draws one node per table."""
+    import networkx as nx
+
+    args = ["--models", str(MODELS), "--mappings", str(MAPPINGS)]
+    out = tmp_path / "up.json"
+    assert (
+        cli(
+            "lineage",
+            *args,
+            "--out",
+            str(out),
+            "--focus",
+            "daily_revenue.total_fare",
+            "--hops",
+            "4",
+            "--direction",
+            "up",
+        )
+        == 0
+    )
+    ids = {n["id"] for n in json.loads(out.read_text())["nodes"]}
+    # dump column -> field -> staging model -> mart: the dump column is three edges up
+    assert {"raw:ferry.bookings.fare", "source:ferry.bookings.fare", "model:stg_bookings.fare"} <= ids
+    assert not any(
+        i.startswith(("model:tier_revenue.", "model:route_rankings.", "model:people.")) for i in ids
+    )
+    assert "model:daily_revenue.route" not in ids  # a sibling column of the same model is not upstream
+    down = tmp_path / "down.json"
+    assert (
+        cli(
+            "lineage",
+            *args,
+            "--out",
+            str(down),
+            "--focus",
+            "ferry.bookings.fare",
+            "--hops",
+            "3",
+            "--direction",
+            "down",
+        )
+        == 0
+    )
+    names = {n["name"] for n in json.loads(down.read_text())["nodes"]}
+    assert "daily_revenue.total_fare" in names and "ferry.bookings.seats" not in names
+    dot = tmp_path / "f.dot"
+    assert cli("lineage", *args, "--out", str(dot), "--focus", "daily_revenue.total_fare") == 0
+    text = dot.read_text()
+    assert text.count('fillcolor="#ffd54f"') == 1 and '"model daily_revenue.total_fare"' in text
+    table = tmp_path / "t.graphml"
+    assert cli("lineage", *args, "--out", str(table), "--level", "table") == 0
+    g = nx.read_graphml(table)
+    assert {d["table"] for _, d in g.nodes(data=True)} >= {"ferry.bookings", "stg_bookings", "daily_revenue"}
+    assert all(d["column"] == "*" for _, d in g.nodes(data=True))
+    capsys.readouterr()

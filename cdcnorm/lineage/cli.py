@@ -58,8 +58,19 @@ def add_commands(sub: Any) -> None:
     g.add_argument(
         "--out", default="lineage.svg", help="output file; its suffix picks the format (default lineage.svg)"
     )
-    g.add_argument("--around", metavar="COLUMN", help="draw only the neighbourhood of this column")
-    g.add_argument("--depth", type=int, default=2, help="hops around --around (default 2)")
+    g.add_argument(
+        "--focus", metavar="COLUMN", help="draw only this column's neighbourhood, the column highlighted"
+    )
+    g.add_argument("--hops", type=int, default=2, help="edges from --focus to follow (default 2)")
+    g.add_argument(
+        "--direction",
+        choices=["up", "down", "both"],
+        default="both",
+        help="follow --focus upstream, downstream or both (default both); never sideways",
+    )
+    g.add_argument(
+        "--level", choices=["column", "table"], default="column", help="one node per column, or per table"
+    )
 
 
 def load_project(args: argparse.Namespace) -> tuple[Project, list[Any], Any]:
@@ -98,7 +109,7 @@ def _trace_tree(answer: dict[str, Any]) -> Tree:
 
 
 def run_command(args: argparse.Namespace, out: Console) -> int:
-    from cdcnorm.lineage.export import around, export
+    from cdcnorm.lineage.export import export, neighbourhood, table_level
     from cdcnorm.lineage.questions import Edit, breaks, find_column, impact, trace_target
 
     project, mappings, loaded = load_project(args)
@@ -131,11 +142,18 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
     if args.command == "lineage":
         g = project.graph
         title = "column lineage"
-        if args.around:
-            node = find_column(project, args.around)
-            g = around(g, node, args.depth)
-            title = f"around {args.around} (depth {args.depth})"
-        path = export(g, Path(args.out), title=title)
+        focus = None
+        if args.hops < 0:
+            raise UsageError("--hops must be 0 or more", found=str(args.hops))
+        if args.focus:
+            focus = find_column(project, args.focus)
+            g = neighbourhood(g, focus, args.hops, args.direction)
+            title = f"{args.focus}: {args.hops} hops {args.direction if args.direction != 'both' else 'up and down'}"
+        if args.level == "table":
+            g = table_level(g)
+            focus = (focus[0], focus[1], "*") if focus else None
+            title = title.replace("column lineage", "table lineage")
+        path = export(g, Path(args.out), title=title, focus=focus)
         summary = {
             "out": str(path),
             "nodes": g.number_of_nodes(),

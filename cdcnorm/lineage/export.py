@@ -24,10 +24,44 @@ FORMATS = ("dot", "svg", "png", "graphml", "json")
 COLOURS = {"raw": "#f2efe6", "source": "#dcebf7", "model": "#e4f2df"}
 
 
-def around(g: nx.MultiDiGraph, node: Node, depth: int) -> nx.MultiDiGraph:
-    """The neighbourhood of a column: every column within ``depth`` hops, up or down."""
-    near = nx.ego_graph(g.to_undirected(as_view=True), node, radius=depth)
-    return g.subgraph(near.nodes).copy()
+DIRECTIONS = ("up", "down", "both")
+
+
+def neighbourhood(g: nx.MultiDiGraph, node: Node, hops: int, direction: str = "both") -> nx.MultiDiGraph:
+    """The columns within ``hops`` edges of ``node`` following the edges' direction: upstream
+    (what it is computed from), downstream (what is computed from it) or both, never sideways (a
+    sibling that only shares a source is not a neighbour)."""
+    near = {node}
+    if direction in ("up", "both"):
+        near |= set(nx.single_source_shortest_path_length(g.reverse(copy=False), node, cutoff=hops))
+    if direction in ("down", "both"):
+        near |= set(nx.single_source_shortest_path_length(g, node, cutoff=hops))
+    return g.subgraph(near).copy()
+
+
+def table_level(g: nx.MultiDiGraph) -> nx.MultiDiGraph:
+    """One node per table (dump columns, mapping table, model); an edge per table pair and kind,
+    carrying how many column edges it stands for."""
+    h = nx.MultiDiGraph()
+    for n in g.nodes:
+        h.add_node((n[0], n[1], "*"), kind=n[0], table=n[1], column="*")
+    counts: dict[tuple[Node, Node, str], int] = {}
+    for u, v, k in g.edges(keys=True):
+        a, b = (u[0], u[1], "*"), (v[0], v[1], "*")
+        if a != b:
+            counts[(a, b, k)] = counts.get((a, b, k), 0) + 1
+    for (a, b, k), n in sorted(counts.items()):
+        h.add_edge(
+            a,
+            b,
+            key=k,
+            kind=k,
+            sub=f"{n} columns" if k == "value" else "",
+            clauses=f"{n} columns" if k != "value" else "",
+            file="",
+            line=0,
+        )
+    return h
 
 
 def _dot_id(n: Node) -> str:
@@ -35,7 +69,10 @@ def _dot_id(n: Node) -> str:
     return f"{n[0]} {n[1]}.{n[2]}"
 
 
-def to_dot(g: nx.MultiDiGraph, title: str = "column lineage") -> graphviz.Digraph:
+FOCUS = "#ffd54f"
+
+
+def to_dot(g: nx.MultiDiGraph, title: str = "column lineage", focus: Node | None = None) -> graphviz.Digraph:
     dot = graphviz.Digraph(
         "lineage", graph_attr={"rankdir": "LR", "label": title, "fontname": "Helvetica", "fontsize": "12"}
     )
@@ -53,7 +90,10 @@ def to_dot(g: nx.MultiDiGraph, title: str = "column lineage") -> graphviz.Digrap
         with dot.subgraph(name=f"cluster_{i}") as c:
             c.attr(label=label, style="rounded", color="#999999", fontname="Helvetica", fontsize="11")
             for n in nodes:
-                c.node(_dot_id(n), n[2], fillcolor=COLOURS[kind])
+                if n == focus:  # the column asked about stands out
+                    c.node(_dot_id(n), n[2], fillcolor=FOCUS, penwidth="2.5", fontname="Helvetica-Bold")
+                else:
+                    c.node(_dot_id(n), n[2] if n[2] != "*" else table, fillcolor=COLOURS[kind])
     for u, v, k, d in sorted(g.edges(keys=True, data=True)):
         if k == "value":
             dot.edge(_dot_id(u), _dot_id(v), label="" if d["sub"] == "copy" else d["sub"])
@@ -79,7 +119,13 @@ def _plain(g: nx.MultiDiGraph) -> nx.MultiDiGraph:
     return h
 
 
-def export(g: nx.MultiDiGraph, out: Path, fmt: str | None = None, title: str = "column lineage") -> Path:
+def export(
+    g: nx.MultiDiGraph,
+    out: Path,
+    fmt: str | None = None,
+    title: str = "column lineage",
+    focus: Node | None = None,
+) -> Path:
     fmt = fmt or out.suffix.lstrip(".").lower()
     if fmt not in FORMATS:
         raise UsageError(f"unknown diagram format {fmt!r}; formats are {', '.join(FORMATS)}", file=str(out))
@@ -87,7 +133,7 @@ def export(g: nx.MultiDiGraph, out: Path, fmt: str | None = None, title: str = "
     tmp = out.with_name(f"{out.name}.tmp-{os.getpid()}")
     try:
         if fmt == "dot":
-            tmp.write_text(to_dot(g, title).source, encoding="utf-8")
+            tmp.write_text(to_dot(g, title, focus).source, encoding="utf-8")
         elif fmt in ("svg", "png"):
             if shutil.which("dot") is None:
                 raise GraphvizMissing(
@@ -95,7 +141,7 @@ def export(g: nx.MultiDiGraph, out: Path, fmt: str | None = None, title: str = "
                     hint="install it (Debian/Ubuntu: apt-get install graphviz; macOS: brew install graphviz), "
                     "or export .dot, .graphml or .json, which need nothing",
                 )
-            tmp.write_bytes(to_dot(g, title).pipe(format=fmt))
+            tmp.write_bytes(to_dot(g, title, focus).pipe(format=fmt))
         elif fmt == "graphml":
             nx.write_graphml(_plain(g), tmp)
         else:

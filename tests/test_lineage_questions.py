@@ -123,7 +123,16 @@ def test_lineage_commands_end_to_end(tmp_path: Path, capsys: pytest.CaptureFixtu
     args = ["--models", str(MODELS), "--mappings", str(MAPPINGS)]
     assert cli("trace", *args, "daily_revenue.total_fare", "--json") == 0
     one = json.loads(capsys.readouterr().out)
-    assert set(one) == {"column", "value", "influence", "raw", "paths", "unresolved", "complete"}
+    assert set(one) == {
+        "column",
+        "value",
+        "influence",
+        "influence_kinds",
+        "raw",
+        "paths",
+        "unresolved",
+        "complete",
+    }
     assert one["complete"] is True
     assert one["value"] == ["ferry.bookings.fare", "ferry.bookings.seats"]
     assert "ferry.bookings.refunded" in one["influence"] and "ferry.bookings.is_refunded" in one["raw"]
@@ -425,3 +434,23 @@ def test_focus_follows_edge_direction_and_highlights_the_column(
     assert {d["table"] for _, d in g.nodes(data=True)} >= {"ferry.bookings", "stg_bookings", "daily_revenue"}
     assert all(d["column"] == "*" for _, d in g.nodes(data=True))
     capsys.readouterr()
+
+
+def test_influence_is_grouped_by_kind_and_can_be_limited(capsys: pytest.CaptureFixture[str]) -> None:
+    """Each influence source carries its kinds (join, filter, grouping, ...); --influence filter
+    shows and follows filters alone; an unknown kind suggests the closest."""
+    args = ["--models", str(MODELS), "--mappings", str(MAPPINGS), "--json"]
+    assert cli("trace", *args, "daily_revenue.total_fare") == 0
+    every = json.loads(capsys.readouterr().out)
+    assert every["influence_kinds"] == {
+        "ferry.bookings.booked_at": ["grouping"],
+        "ferry.bookings.refunded": ["filter"],
+        "ferry.bookings.sailing_ref": ["join"],
+        "ferry.sailings.route": ["grouping"],
+        "ferry.sailings.sailing_id": ["join"],
+    }
+    assert cli("trace", *args, "daily_revenue.total_fare", "--influence", "filter") == 0
+    only = json.loads(capsys.readouterr().out)
+    assert only["influence"] == ["ferry.bookings.refunded"] and only["value"] == every["value"]
+    assert cli("trace", *args[:4], "daily_revenue.total_fare", "--influence", "fliter") == 7
+    assert 'did you mean "filter"' in capsys.readouterr().err

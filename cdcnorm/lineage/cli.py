@@ -42,6 +42,12 @@ def add_commands(sub: Any) -> None:
     )
     _common(t)
     t.add_argument("target", help="<model>.<column>, or a model name for all its columns")
+    t.add_argument(
+        "--influence",
+        metavar="KINDS",
+        help="show and follow only these influence kinds, comma-separated: "
+        "join, filter, grouping, ordering, window, existence, unnest (default: all)",
+    )
 
     i = sub.add_parser("impact", help="what depends on a column, and what a schema edit would break (exit 8)")
     _common(i)
@@ -92,16 +98,28 @@ def load_project(args: argparse.Namespace) -> tuple[Project, list[Any], Any]:
 
 def _trace_tree(answer: dict[str, Any]) -> Tree:
     tree = Tree(f"[bold]{answer['column']}[/bold]")
-    for lineage in ("value", "influence"):
-        branch = tree.add(f"{lineage} lineage: {len(answer[lineage])} source columns")
-        for p in answer["paths"]:
-            if p["lineage"] != lineage:
-                continue
-            leaf = branch.add(p["source"])
-            for step in p["steps"]:
-                leaf = leaf.add(
-                    f"{step['edge']} ({step['how']}) -> {step['to']}  [dim]{step['file']}:{step['line']}[/dim]"
-                )
+
+    def add_path(branch: Tree, p: dict[str, Any]) -> None:
+        leaf = branch.add(p["source"])
+        for step in p["steps"]:
+            leaf = leaf.add(
+                f"{step['edge']} ({step['how']}) -> {step['to']}  [dim]{step['file']}:{step['line']}[/dim]"
+            )
+
+    branch = tree.add(f"value lineage: {len(answer['value'])} source columns")
+    for p in answer["paths"]:
+        if p["lineage"] == "value":
+            add_path(branch, p)
+    branch = tree.add(f"influence lineage: {len(answer['influence'])} source columns")
+    # grouped by kind: join keys that only connect tables apart from the filters that decide rows
+    from cdcnorm.lineage.questions import KIND_NAMES
+
+    for kind in KIND_NAMES:
+        group = [p for p in answer["paths"] if p["lineage"] == "influence" and kind in p.get("kinds", [])]
+        if group:
+            sub = branch.add(f"{kind}: {len(group)}")
+            for p in group:
+                add_path(sub, p)
     if answer["raw"]:
         tree.add("dump columns: " + ", ".join(answer["raw"]))
     _print_unresolved(tree, answer)
@@ -114,6 +132,10 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
 
     project, mappings, loaded = load_project(args)
     if args.command == "trace":
+        if args.influence:
+            from cdcnorm.lineage.questions import with_influence
+
+            project = with_influence(project, [k.strip() for k in args.influence.split(",") if k.strip()])
         answers = trace_target(project, args.target)
         if args.json:
             payload: Any = answers if args.target in project.models else answers[0]
@@ -164,8 +186,9 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
         if args.json:
             print(json.dumps(summary, indent=2))
         else:
+            unit = "tables" if args.level == "table" else "columns"
             out.print(
-                f"wrote {path}: {summary['nodes']} columns, {summary['edges']} edges, {summary['models']} models"
+                f"wrote {path}: {summary['nodes']} {unit}, {summary['edges']} edges, {summary['models']} models"
             )
             for d in project.diagnostics:
                 out.print(f"unresolved {d.render()}", markup=False)

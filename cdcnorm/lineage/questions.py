@@ -8,7 +8,9 @@ influence edge. Dependents downstream are split the same way.
 
 from __future__ import annotations
 
+import dataclasses
 import itertools
+from collections.abc import Iterable
 from dataclasses import dataclass
 from typing import Any
 
@@ -106,6 +108,50 @@ def unresolved_on(project: Project, nodes: set[Node]) -> list[dict[str, Any]]:
     return [d.as_dict() for d in project.diagnostics if d.model in models]
 
 
+#: Influence kinds people read, from the resolver's clauses.
+KINDS = {
+    "join": "join",
+    "where": "filter",
+    "having": "filter",
+    "qualify": "filter",
+    "filter": "filter",
+    "group": "grouping",
+    "distinct": "grouping",
+    "intersect": "grouping",
+    "except": "grouping",
+    "order": "ordering",
+    "limit": "ordering",
+    "window": "window",
+    "exists": "existence",
+    "unnest": "unnest",
+}
+KIND_NAMES = tuple(dict.fromkeys(KINDS.values()))
+
+
+def kinds_of(clauses: str) -> list[str]:
+    return sorted({KINDS.get(c, c) for c in clauses.split(",") if c})
+
+
+def with_influence(project: Project, kinds: Iterable[str]) -> Project:
+    """The project with only the influence edges of ``kinds`` (``--influence``): answers then
+    show and follow those kinds alone."""
+    wanted = set(kinds)
+    unknown = wanted - set(KIND_NAMES)
+    if unknown:
+        bad = sorted(unknown)[0]
+        raise LineageError(
+            f"unknown influence kind {bad!r}{did_you_mean(bad, KIND_NAMES)}; kinds are {', '.join(KIND_NAMES)}"
+        )
+    h = project.graph.copy()
+    drop = [
+        (u, v, k)
+        for u, v, k, d in h.edges(keys=True, data=True)
+        if k == "influence" and not set(kinds_of(d.get("clauses", ""))) & wanted
+    ]
+    h.remove_edges_from(drop)
+    return dataclasses.replace(project, graph=h, views=None)
+
+
 def trace(project: Project, column: str) -> dict[str, Any]:
     node = find_column(project, column)
     value, influence = _upstream(project, node)
@@ -117,15 +163,16 @@ def trace(project: Project, column: str) -> dict[str, Any]:
     paths = [
         {"source": node_name(s), "lineage": "value", "steps": _path(project, s, node, True)} for s in vsrc
     ]
-    paths += [
-        {"source": node_name(s), "lineage": "influence", "steps": _path(project, s, node, False)}
-        for s in isrc
-    ]
+    for s in isrc:
+        steps = _path(project, s, node, False)
+        kinds = sorted({k for st in steps if st["edge"] == "influence" for k in kinds_of(st["how"])})
+        paths.append({"source": node_name(s), "lineage": "influence", "kinds": kinds, "steps": steps})
     unresolved = unresolved_on(project, {node} | value | influence)
     return {
         "column": node_name(node),
         "value": [node_name(n) for n in vsrc],
         "influence": [node_name(n) for n in isrc],
+        "influence_kinds": {p["source"]: p["kinds"] for p in paths if p["lineage"] == "influence"},
         "raw": [node_name(n) for n in raw],
         "paths": paths,
         "unresolved": unresolved,

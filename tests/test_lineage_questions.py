@@ -190,7 +190,11 @@ def test_lineage_commands_end_to_end(tmp_path: Path, capsys: pytest.CaptureFixtu
 def test_renaming_a_source_column_breaks_only_its_mapping(demo: tuple) -> None:  # type: ignore[type-arg]
     project, mappings, loaded = demo
     r = impact(
-        project, "ferry.bookings.sailing_ref", Edit("rename", "sailing"), mappings=mappings, loaded=loaded
+        project,
+        "dump:ferry.bookings.sailing_ref",
+        Edit("rename", "sailing"),
+        mappings=mappings,
+        loaded=loaded,
     )
     (broken,) = r["broken_mappings"]
     assert broken["fix"] == "set fields.sailing_ref.from: sailing"
@@ -454,3 +458,18 @@ def test_influence_is_grouped_by_kind_and_can_be_limited(capsys: pytest.CaptureF
     assert only["influence"] == ["ferry.bookings.refunded"] and only["value"] == every["value"]
     assert cli("trace", *args[:4], "daily_revenue.total_fare", "--influence", "fliter") == 7
     assert 'did you mean "filter"' in capsys.readouterr().err
+
+
+def test_rename_tells_the_dump_column_from_the_canonical_field(capsys: pytest.CaptureFixture[str]) -> None:
+    """Renaming the dump column needs a mapping fix and breaks no model; renaming the canonical
+    field breaks the models that read it (the graph's simulation and the engine agree)."""
+    args = ["--models", str(MODELS), "--mappings", str(MAPPINGS), "--json"]
+    assert cli("impact", *args, "ferry.bookings.pax_name", "--rename", "name_of_passenger") == 8
+    dump = json.loads(capsys.readouterr().out)
+    assert [m["fix"] for m in dump["broken_mappings"]] == ["set fields.passenger.from: name_of_passenger"]
+    assert dump["broken_models"] == [] and dump["binding"]["broken"] == []
+    assert cli("impact", *args, "ferry.bookings.fare", "--rename", "price") == 8
+    field = json.loads(capsys.readouterr().out)
+    assert field["broken_mappings"] == []
+    assert [m["model"] for m in field["broken_models"]] == ["stg_bookings"]
+    assert {m["model"] for m in field["binding"]["broken"]} >= {"stg_bookings", "daily_revenue"}

@@ -34,14 +34,21 @@ def _closure(g: nx.DiGraph, starts: set[Node], up: bool) -> set[Node]:
 
 
 def find_column(project: Project, text: str) -> Node:
-    """A column written <table>.<column>: a mapping field, a model column, or a raw dump column."""
+    """A column written <table>.<column>: a mapping field, a model column, or a raw dump column
+    (in that order); ``dump:``, ``field:`` or ``model:`` in front picks one kind."""
+    # a prefix picks the kind where a dump column and a field share a name: dump:, field:, model:
+    prefixes = {"dump": "raw", "field": "source", "model": "model"}
+    head, _, rest = text.partition(":")
+    kinds: tuple[str, ...] = ("source", "model", "raw")
+    if rest and head in prefixes:
+        kinds, text = (prefixes[head],), rest
     if "." not in text:
         raise LineageError(f"write a column as <table>.<column>, not {text!r}")
     table, column = text.rsplit(".", 1)
     g = project.graph
     # as written first, then as the dialect folds unquoted names
     folded_table = ".".join(normalise_column(p, project.dialect) for p in table.split("."))
-    for kind in ("source", "model", "raw"):
+    for kind in kinds:
         for t, col in ((table, column), (folded_table, normalise_column(column, project.dialect))):
             node: Node = (kind, t, col)
             if node in g:
@@ -273,7 +280,9 @@ def impact(
         raws, fields = [r for r in g.predecessors(node) if r[0] == "raw"], [node]
     else:
         raws, fields = [], []
-    if edit.kind in ("drop", "rename"):
+    # a dump column dropped or renamed needs a mapping fix; a canonical field renamed does not
+    # (its readers break instead, below)
+    if edit.kind == "drop" or (edit.kind == "rename" and node[0] == "raw"):
         for r in raws:
             for f in g.successors(r):
                 if f[0] == "source":
@@ -295,7 +304,11 @@ def impact(
     # A source column renamed at the source keeps its canonical field (the mapping's `from`
     # follows it), so only the mapping breaks; dropped, the field loses its data and every
     # reference to it breaks. A model column's drop or rename breaks its readers.
-    simulate = (node[0] == "model" and edit.kind in ("drop", "rename")) or (fields and edit.kind == "drop")
+    simulate = (
+        (node[0] == "model" and edit.kind in ("drop", "rename"))
+        or (fields and edit.kind == "drop")
+        or (node[0] == "source" and edit.kind == "rename")  # the canonical field itself renamed
+    )
     if simulate:
         targets = [node] if node[0] == "model" else fields
         edits: dict[Node, Any] = {t: (edit.kind, edit.value) for t in targets}

@@ -473,3 +473,28 @@ def test_rename_tells_the_dump_column_from_the_canonical_field(capsys: pytest.Ca
     assert field["broken_mappings"] == []
     assert [m["model"] for m in field["broken_models"]] == ["stg_bookings"]
     assert {m["model"] for m in field["binding"]["broken"]} >= {"stg_bookings", "daily_revenue"}
+
+
+def test_a_project_file_holds_the_settings_and_options_override_it(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """cdcnorm.toml (or [tool.cdcnorm] in pyproject.toml) gives models, mappings, catalog and
+    dialect; no mappings at all is fine for lineage; a misspelt setting is suggested."""
+    (tmp_path / "sql").mkdir()
+    (tmp_path / "sql" / "fares_eur.sql").write_text(
+        "SELECT r.currency, r.rate * 2 AS doubled FROM ref.rates AS r\n"
+    )
+    (tmp_path / "empty").mkdir()
+    (tmp_path / "catalog.yaml").write_text('tables:\n  ref.rates: {currency: text, rate: "decimal(10,4)"}\n')
+    (tmp_path / "cdcnorm.toml").write_text(
+        'models = "sql"\nmappings = "empty"\ncatalog = ["catalog.yaml"]\ndialect = "duckdb"\n'
+    )
+    monkeypatch.chdir(tmp_path)
+    assert cli("trace", "fares_eur.doubled", "--json") == 0
+    assert json.loads(capsys.readouterr().out)["value"] == ["ref.rates.rate"]
+    assert cli("trace", "fares_eur.doubled", "--models", str(tmp_path / "nowhere")) == 2  # the option wins
+    capsys.readouterr()
+    (tmp_path / "cdcnorm.toml").unlink()
+    (tmp_path / "pyproject.toml").write_text('[tool.cdcnorm]\nmodel = "sql"\n')
+    assert cli("trace", "fares_eur.doubled") == 2
+    assert 'did you mean "models"' in capsys.readouterr().err

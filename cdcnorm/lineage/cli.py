@@ -10,7 +10,7 @@ from typing import TYPE_CHECKING, Any
 from rich.console import Console
 from rich.tree import Tree
 
-from cdcnorm.errors import EXIT_BREAKS, EXIT_INCOMPLETE, EXIT_OK, UsageError
+from cdcnorm.errors import EXIT_BREAKS, EXIT_INCOMPLETE, EXIT_OK, UsageError, did_you_mean
 
 if TYPE_CHECKING:
     from cdcnorm.lineage.graph import Project
@@ -20,11 +20,11 @@ if TYPE_CHECKING:
 
 
 def _common(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--models", default="models", help="folder of SQL model files (default: models/)")
-    p.add_argument("--mappings", default="mappings", help="folder of mapping files (default: mappings/)")
-    p.add_argument(
-        "--dialect", default="duckdb", help="SQL dialect of the models, by sqlglot's names (default: duckdb)"
-    )
+    # defaults come from the project file (cdcnorm.toml, or [tool.cdcnorm] in pyproject.toml), then
+    # from these: see project_settings
+    p.add_argument("--models", help="folder of SQL model files (default: models/)")
+    p.add_argument("--mappings", help="folder of mapping files (default: mappings/)")
+    p.add_argument("--dialect", help="SQL dialect of the models, by sqlglot's names (default: duckdb)")
     p.add_argument(
         "--catalog",
         action="append",
@@ -79,13 +79,64 @@ def add_commands(sub: Any) -> None:
     )
 
 
+SETTINGS = {"models": "models", "mappings": "mappings", "dialect": "duckdb", "catalog": []}
+
+
+def project_settings(folder: Path) -> tuple[dict[str, Any], Path | None]:
+    """The lineage settings of the project file in ``folder``: ``cdcnorm.toml``, or the
+    ``[tool.cdcnorm]`` table of ``pyproject.toml``; paths in it are relative to its folder."""
+    import tomllib
+
+    for name, table in (("cdcnorm.toml", None), ("pyproject.toml", ("tool", "cdcnorm"))):
+        path = folder / name
+        if not path.is_file():
+            continue
+        try:
+            data: Any = tomllib.loads(path.read_text(encoding="utf-8"))
+        except tomllib.TOMLDecodeError as e:
+            raise UsageError(f"{path}: not TOML: {e}") from None
+        for key in table or ():
+            data = data.get(key, {}) if isinstance(data, dict) else {}
+        if not data:
+            continue
+        unknown = sorted(set(data) - set(SETTINGS))
+        if unknown:
+            raise UsageError(
+                f"{path}: unknown setting {unknown[0]!r}{did_you_mean(unknown[0], SETTINGS)}",
+                expected=", ".join(SETTINGS),
+                found=unknown[0],
+            )
+        out = dict(data)
+        for key in ("models", "mappings"):
+            if key in out:
+                out[key] = str(folder / out[key])
+        catalogs = out.get("catalog", [])
+        catalogs = [catalogs] if isinstance(catalogs, str) else list(catalogs)
+        out["catalog"] = [c if "://" in c else str(folder / c) for c in catalogs]
+        return out, path
+    return {}, None
+
+
+def _settle_settings(args: argparse.Namespace) -> None:
+    """Command-line options over the project file over the built-in defaults."""
+    found, _ = project_settings(Path.cwd())
+    for key, default in SETTINGS.items():
+        if key == "catalog":
+            args.catalog = list(found.get("catalog", [])) + list(args.catalog or [])
+        elif getattr(args, key, None) is None:
+            setattr(args, key, found.get(key, default))
+
+
 def load_project(args: argparse.Namespace) -> tuple[Project, list[Any], Any]:
     from cdcnorm.lineage.graph import build_project
     from cdcnorm.lineage.models import load_models
     from cdcnorm.mapping import load_mappings
 
+    _settle_settings(args)
     mappings_dir = Path(args.mappings)
-    mappings = load_mappings(mappings_dir) if mappings_dir.exists() else []
+    # lineage needs no mappings: a missing or empty folder is none
+    has_mappings = mappings_dir.is_dir() and any(mappings_dir.glob("*.y*ml"))
+    mappings = load_mappings(mappings_dir) if has_mappings else []
     models_dir = Path(args.models)
     if not models_dir.exists():
         raise UsageError(f"models folder {models_dir} does not exist", hint="pass --models")

@@ -343,6 +343,11 @@ class StatementResolver:
         if group is not None:
             for g in group.expressions:
                 self.expr(g, scope, d, "copy", "group")
+            if group.args.get("all"):  # GROUP BY ALL: every projection without an aggregate
+                for proj in e.expressions:
+                    target = proj.this if isinstance(proj, exp.Alias) else proj
+                    if not target.find(exp.AggFunc) and not target.find(exp.Window):
+                        self.expr(target, scope, d, "copy", "group")
             for k in ("rollup", "cube", "grouping_sets"):
                 for g in group.args.get(k) or []:
                     self.expr(g, scope, d, "copy", "group")
@@ -350,9 +355,22 @@ class StatementResolver:
             node = e.args.get(clause)
             if node is not None:
                 self.expr(node.this, scope, d, "copy", clause)
-        if e.args.get("distinct") is not None:
+        distinct = e.args.get("distinct")
+        if distinct is not None and distinct.args.get("on") is not None:
+            # DISTINCT ON (k): k decides the groups, the ORDER BY which row of each is kept
+            self.expr(distinct.args["on"], scope, d, "copy", "distinct")
+            order = e.args.get("order")
+            for o in order.expressions if order is not None else []:
+                self.expr(o, scope, d, "copy", "order")
+        elif distinct is not None:
             for proj in e.expressions:
                 self.expr(proj, scope, d, "copy", "distinct")
+        # a set-returning function in the select list (UNNEST) repeats every row per element
+        for proj in e.expressions:
+            for srf in proj.find_all(exp.Explode, exp.Unnest):
+                for arg in [srf.this, *srf.expressions] if isinstance(srf, exp.Unnest) else [srf.this]:
+                    if isinstance(arg, exp.Expr):
+                        self.expr(arg, scope, d, "copy", "unnest")
         if e.args.get("limit") is not None or e.args.get("offset") is not None:
             order = e.args.get("order")
             if order is not None:
@@ -364,6 +382,21 @@ class StatementResolver:
                 if id(canonical) not in self._busy:
                     d.merge(self.rows(canonical))
         return d
+
+    @staticmethod
+    def _named_windows(node: exp.Window, scope: Scope) -> list[exp.Window]:
+        """The definitions a window names (``OVER w`` with ``WINDOW w AS (...)``), and theirs."""
+        defs = {
+            w.this.name: w
+            for w in (scope.expression.args.get("windows") or [])
+            if isinstance(w, exp.Window) and isinstance(w.this, exp.Identifier)
+        }
+        out: list[exp.Window] = []
+        name = node.args.get("alias")
+        while isinstance(name, exp.Identifier) and name.name in defs and defs[name.name] not in out:
+            out.append(defs[name.name])
+            name = defs[name.name].args.get("alias")
+        return out
 
     def _join_columns(self, scope: Scope, join: exp.Join, names: list[str], natural: bool, d: Deps) -> None:
         """USING and NATURAL joins: the shared columns of both sides decide the rows."""
@@ -409,12 +442,13 @@ class StatementResolver:
             return
         if isinstance(node, exp.Window):
             self.expr(node.this, scope, d, ctx, infl)
-            for p in node.args.get("partition_by") or []:
-                self.expr(p, scope, d, ctx, infl or "window")
-            order = node.args.get("order")
-            if order is not None:
-                for o in order.expressions:
-                    self.expr(o, scope, d, ctx, infl or "window")
+            for w in [node, *self._named_windows(node, scope)]:
+                for p in w.args.get("partition_by") or []:
+                    self.expr(p, scope, d, ctx, infl or "window")
+                order = w.args.get("order")
+                if order is not None:
+                    for o in order.expressions:
+                        self.expr(o, scope, d, ctx, infl or "window")
             return
         if isinstance(node, exp.Filter):
             self.expr(node.this, scope, d, ctx, infl)

@@ -1,4 +1,5 @@
-"""Export the graph: DOT (always), SVG and PNG (Graphviz's dot program), GraphML and JSON node-link.
+"""Export the graph: DOT (always), SVG and PNG (Graphviz's dot program), GraphML, JSON node-link,
+and the HTML explorer (lineage/explorer.py).
 
 Columns are grouped by table in the drawing (one cluster per table: dump
 columns, mapping tables and models apart); value edges are solid, influence
@@ -20,7 +21,7 @@ from cdcnorm.errors import GraphvizMissing, UsageError
 from cdcnorm.lineage.graph import node_id, node_name
 from cdcnorm.lineage.resolve import Node
 
-FORMATS = ("dot", "svg", "png", "graphml", "json")
+FORMATS = ("dot", "svg", "png", "graphml", "json", "html")
 COLOURS = {"raw": "#f2efe6", "source": "#dcebf7", "model": "#e4f2df"}
 
 
@@ -142,6 +143,10 @@ def export(
                     "or export .dot, .graphml or .json, which need nothing",
                 )
             tmp.write_bytes(to_dot(g, title, focus).pipe(format=fmt))
+        elif fmt == "html":  # the explorer: one self-contained page
+            from cdcnorm.lineage.explorer import explorer_html
+
+            tmp.write_text(explorer_html(g, title, focus), encoding="utf-8")
         elif fmt == "graphml":
             nx.write_graphml(_plain(g), tmp)
         else:

@@ -536,7 +536,7 @@ class StatementResolver:
             info = self.catalog.find(parts)
             if info is None:
                 self._diag(
-                    line,
+                    _line(src) or line,  # the table's own line, where it is named
                     "unknown table",
                     ".".join(parts),
                     difflib.get_close_matches(

@@ -36,6 +36,7 @@ bench: setup
 	$(BIN)/python tests/bench/bench_feed.py --nights 30 --rows 200000
 	$(BIN)/python tests/bench/bench_state.py --runs 5 --rows-per-run 1500000
 	$(BIN)/python tests/bench/bench_lineage.py
+	$(BIN)/python tests/bench/bench_lineage.py --size 2000
 
 clean:
 	rm -rf build $(VENV) *.egg-info

@@ -88,21 +88,44 @@ class Catalog:
 
     def __init__(self) -> None:
         self.tables: dict[tuple[str, ...], TableInfo] = {}
+        self._by_name: dict[str, list[TableInfo]] = {}
 
     def add(self, info: TableInfo) -> None:
+        old = self.tables.get(info.parts)
         self.tables[info.parts] = info
+        same = [t for t in self._by_name.get(info.parts[-1], []) if t is not old]
+        self._by_name[info.parts[-1]] = [*same, info]
 
     def find(self, parts: tuple[str, ...]) -> TableInfo | None:
         if parts in self.tables:
             return self.tables[parts]
-        matches = [t for p, t in self.tables.items() if p[-len(parts) :] == parts or parts[-len(p) :] == p]
+        # a suffix match either way ends in the same table name: look among those only
+        same_name = self._by_name.get(parts[-1], []) if parts else []
+        matches = [
+            t for t in same_name if t.parts[-len(parts) :] == parts or parts[-len(t.parts) :] == t.parts
+        ]
         return matches[0] if len(matches) == 1 else None
 
-    def schema(self, dialect: str) -> MappingSchema:
-        depth = max((len(p) for p in self.tables), default=1)
+    def schema(self, dialect: str, query: exp.Expr | None = None) -> MappingSchema:
+        """The catalog as a sqlglot schema; with ``query``, only the tables it names (building the
+        whole catalog for every statement would make a project's build quadratic)."""
+        tables = self.tables
+        if query is not None:
+            tables = {}
+            from sqlglot.optimizer.normalize_identifiers import normalize_identifiers
+
+            for t in query.find_all(exp.Table):
+                if not t.name:
+                    continue
+                info = self.find(table_parts(t)) or self.find(
+                    table_parts(normalize_identifiers(t.copy(), dialect=dialect))
+                )
+                if info is not None:
+                    tables[info.parts] = info
+        depth = max((len(p) for p in tables), default=1)
         pad = ("memory", "main")
         nested: dict[str, object] = {}
-        for parts, info in self.tables.items():
+        for parts, info in tables.items():
             full = (*pad[len(pad) - (depth - len(parts)) :], *parts) if len(parts) < depth else parts
             cur = nested
             for p in full[:-1]:
@@ -158,7 +181,7 @@ class StatementResolver:
     # --- entry points ---------------------------------------------------------------------
 
     def resolve(self, query: exp.Expr, schema: MappingSchema | None = None) -> list[tuple[str, Deps]] | None:
-        schema = schema or self.catalog.schema(self.dialect)
+        schema = schema or self.catalog.schema(self.dialect, query)
         qualified = None
         for _ in range(20):
             try:

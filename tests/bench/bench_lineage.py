@@ -28,7 +28,8 @@ SOURCES = 30
 COLS = 12
 
 
-def generate(folder: Path, seed: int = 11) -> dict[str, dict[str, str]]:
+def generate(folder: Path, seed: int = 11, size: int = 200) -> dict[str, dict[str, str]]:
+    """A project of ``size`` models: 30 staging, intermediate layers, 30 marts."""
     rng = random.Random(seed)
     schema = {
         f"src.t{i:02d}": {
@@ -61,10 +62,10 @@ def generate(folder: Path, seed: int = 11) -> dict[str, dict[str, str]]:
         )
     layer = [f"stg_{i:02d}" for i in range(SOURCES)]
     depth = 1
-    while n < 170:  # intermediate layers: CTEs, joins, aggregates, windows
+    while n < size - 30:  # intermediate layers: CTEs, joins, aggregates, windows
         depth += 1
         nxt = []
-        for _ in range(min(35, 170 - n)):
+        for _ in range(min(35, size - 30 - n)):
             a, b = rng.sample(layer if len(layer) > 1 else layer * 2, 2)
             name = f"int_{n:03d}"
             ca, cb = models[a], models[b]
@@ -89,7 +90,7 @@ def generate(folder: Path, seed: int = 11) -> dict[str, dict[str, str]]:
             write(name, sql, cols)
             nxt.append(name)
         layer = nxt if depth < 6 else layer + nxt
-    while n < 200:  # marts: unions and scalar subqueries
+    while n < size:  # marts: unions and scalar subqueries
         a, b = rng.sample(layer, 2)
         name = f"mart_{n:03d}"
         shared = [c for c in models[a] if c in models[b] and c != "id"][:6] or [models[a][1]]
@@ -106,9 +107,14 @@ def generate(folder: Path, seed: int = 11) -> dict[str, dict[str, str]]:
 
 
 def main() -> None:
+    import argparse
+
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--size", type=int, default=200, help="models in the generated project")
+    args = ap.parse_args()
     with tempfile.TemporaryDirectory() as d:
         folder = Path(d)
-        schema = generate(folder)
+        schema = generate(folder, size=args.size)
         t0 = time.perf_counter()
         loaded = load_models(folder, "duckdb")
         project = build_project(None, [], "duckdb", loaded=loaded, tables=schema)

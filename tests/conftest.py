@@ -13,16 +13,14 @@ from typing import Any
 import pytest
 
 from cdcnorm.cli import main
-from cdcnorm.mapping import load_mappings
-from cdcnorm.pipeline import Options, Result, run
 
 ROOT = Path(__file__).resolve().parent.parent
 
 
 @dataclass
 class Converted:
-    result: Result
     out: Path
+    code: int = 0  # the CLI's exit code
 
     def events(self, table: str) -> list[dict[str, Any]]:
         """Every run's events of the table, run by run."""
@@ -80,11 +78,13 @@ ConvertFn = Callable[..., Converted]
 
 
 @pytest.fixture
-def convert(tmp_path: Path) -> ConvertFn:
-    """convert(mapping_yaml, {file name: content}, **options) -> Converted."""
+def convert(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> ConvertFn:
+    """convert(mapping_yaml, {file name: content}, *extra CLI options) -> Converted: the files are
+    converted through the command line (``cdcnorm convert``), as a user runs it; the run must exit 0
+    and print no traceback."""
     counter = {"n": 0}
 
-    def _convert(mapping: str | dict[str, str], files: dict[str, str | bytes], **opts: Any) -> Converted:
+    def _convert(mapping: str | dict[str, str], files: dict[str, str | bytes], *extra: str) -> Converted:
         counter["n"] += 1
         base = tmp_path / f"run{counter['n']}"
         mdir = base / "mappings"
@@ -94,9 +94,13 @@ def convert(tmp_path: Path) -> ConvertFn:
             (mdir / name).write_text(textwrap.dedent(text))
         paths = write_files(base / "dumps", files)
         out = base / "out"
-        options = Options(out=out, **opts)
-        result = run(load_mappings(mdir), paths, options)
-        return Converted(result, out)
+        code = main(
+            ["convert", *map(str, paths), "--mappings", str(mdir), "--out", str(out), "--quiet", *extra]
+        )
+        printed = capsys.readouterr()
+        assert "Traceback" not in printed.err
+        assert code == 0, printed.err
+        return Converted(out, code)
 
     return _convert
 

@@ -160,7 +160,8 @@ def test_convert_reproduces_the_sqlite_change_log(tmp_path: Path, seed: int) -> 
     (tmp_path / "m" / "berths.yaml").write_text(MAPPING)
     out = tmp_path / "out"
     result = run(load_mappings(tmp_path / "m"), paths, Options(out=out))
-    done = Converted(result, out)
+    assert result.ledger.balanced
+    done = Converted(out)
     events = done.events("harbour.berths")
     got = [(e["action"], e["key"]["berth_id"], int(e["position"].split(".")[0])) for e in events]
     want = expected_events(db)

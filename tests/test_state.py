@@ -70,22 +70,26 @@ def _snapshot(landing: Path, mdir: Path, out: Path, *extra: str) -> None:
     assert cli("snapshot", str(landing), "--mappings", str(mdir), "--out", str(out), *extra) == 0
 
 
+def _apply_cmd(landing: Path, mdir: Path, url: str, *extra: str) -> list[str]:
+    """``cdcnorm apply`` as a fresh process's command line."""
+    return [
+        sys.executable,
+        "-m",
+        "cdcnorm",
+        "apply",
+        str(landing),
+        "--mappings",
+        str(mdir),
+        "--target",
+        url,
+        *extra,
+    ]
+
+
 def _apply(landing: Path, mdir: Path, url: str, *extra: str) -> dict[str, Any]:
     """Apply through the CLI; the per-table counts of its --json report."""
     proc = subprocess.run(
-        [
-            sys.executable,
-            "-m",
-            "cdcnorm",
-            "apply",
-            str(landing),
-            "--mappings",
-            str(mdir),
-            "--target",
-            url,
-            "--json",
-            *extra,
-        ],
+        _apply_cmd(landing, mdir, url, "--json", *extra),
         capture_output=True,
         text=True,
         cwd=ROOT,
@@ -279,19 +283,7 @@ def test_a_killed_apply_leaves_whole_batches_and_a_rerun_completes_it(tmp_path: 
     final = {k: normalise(v, SQLITE_TYPES) for k, v in final_table(db).items()}
     target = tmp_path / "w.db"
     url = f"sqlite:///{target}"
-    cmd = [
-        sys.executable,
-        "-m",
-        "cdcnorm",
-        "apply",
-        str(landing),
-        "--mappings",
-        str(mdir),
-        "--target",
-        url,
-        "--batch-rows",
-        "5",
-    ]
+    cmd = _apply_cmd(landing, mdir, url, "--batch-rows", "5")
     proc = subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     seen = 0
     deadline = time.monotonic() + 60
@@ -324,19 +316,7 @@ def test_a_killed_apply_leaves_whole_batches_and_a_rerun_completes_it(tmp_path: 
 def test_two_applies_at_once_end_consistent(berths: Any, tmp_path: Path) -> None:
     mdir, landing, marks, _ = berths
     url = f"sqlite:///{tmp_path / 'w.db'}"
-    cmd = [
-        sys.executable,
-        "-m",
-        "cdcnorm",
-        "apply",
-        str(landing),
-        "--mappings",
-        str(mdir),
-        "--target",
-        url,
-        "--batch-rows",
-        "7",
-    ]
+    cmd = _apply_cmd(landing, mdir, url, "--batch-rows", "7")
     procs = [
         subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE) for _ in range(2)
     ]

@@ -26,7 +26,7 @@ from __future__ import annotations
 
 import re
 from collections.abc import Callable, Iterator
-from contextlib import AbstractContextManager
+from contextlib import AbstractContextManager, contextmanager
 from dataclasses import dataclass
 from typing import Any, ClassVar, Protocol
 
@@ -262,6 +262,30 @@ class Counts:
 
     def as_dict(self) -> dict[str, int]:
         return dict(self.__dict__)
+
+
+class AlchemySession:
+    """A transaction on a SQLAlchemy connection; a target's subclass gives its ``stage``."""
+
+    def __init__(self, conn: sa.Connection) -> None:
+        self.conn = conn
+
+    def run(self, statement: sa.Executable) -> list[tuple[Any, ...]]:
+        result = self.conn.execute(statement)
+        return [tuple(r) for r in result] if result.returns_rows else []
+
+
+def alchemy_begin(conn: sa.Connection, session: Callable[[sa.Connection], Session]) -> Begin:
+    """Transactions on ``conn``, each a ``session``; rolled back at the end with ``rollback``."""
+
+    @contextmanager
+    def begin(rollback: bool = False) -> Iterator[Session]:
+        with conn.begin() as tx:
+            yield session(conn)
+            if rollback:
+                tx.rollback()
+
+    return begin
 
 
 class Session(Protocol):

@@ -22,20 +22,13 @@ import pyarrow.csv as pacsv
 import sqlalchemy as sa
 from sqlalchemy.dialects import postgresql
 
-from cdcnorm.targets.base import Begin, Tables, TableSpec, Target
+from cdcnorm.targets.base import AlchemySession, Begin, Tables, TableSpec, Target, alchemy_begin
 from cdcnorm.types.base import FieldType
 
 SCHEME = "postgresql"
 
 
-class _Session:
-    def __init__(self, conn: sa.Connection) -> None:
-        self.conn = conn
-
-    def run(self, statement: sa.Executable) -> list[tuple[Any, ...]]:
-        result = self.conn.execute(statement)
-        return [tuple(r) for r in result] if result.returns_rows else []
-
+class _Session(AlchemySession):
     def stage(self, tables: Tables, batch: pa.RecordBatch) -> None:
         prep = self.conn.dialect.identifier_preparer
         cols = ", ".join(prep.quote(c.name) for c in tables.batch.columns)
@@ -94,15 +87,8 @@ class PostgreSQLTarget(Target):
                 conn.execute(sa.text("SELECT pg_advisory_lock(:k)"), {"k": lock})
                 conn.commit()
 
-                @contextmanager
-                def transaction(rollback: bool = False) -> Iterator[_Session]:
-                    with conn.begin() as tx:
-                        yield _Session(conn)
-                        if rollback:
-                            tx.rollback()
-
                 try:
-                    yield transaction
+                    yield alchemy_begin(conn, _Session)
                 finally:
                     conn.execute(sa.text("SELECT pg_advisory_unlock(:k)"), {"k": lock})
                     conn.commit()

@@ -20,20 +20,13 @@ import pyarrow as pa
 import sqlalchemy as sa
 from sqlalchemy.dialects import sqlite
 
-from cdcnorm.targets.base import Begin, Tables, TableSpec, Target
+from cdcnorm.targets.base import AlchemySession, Begin, Tables, TableSpec, Target, alchemy_begin
 from cdcnorm.types.base import FieldType
 
 SCHEME = "sqlite"
 
 
-class _Session:
-    def __init__(self, conn: sa.Connection) -> None:
-        self.conn = conn
-
-    def run(self, statement: sa.Executable) -> list[tuple[Any, ...]]:
-        result = self.conn.execute(statement)
-        return [tuple(r) for r in result] if result.returns_rows else []
-
+class _Session(AlchemySession):
     def stage(self, tables: Tables, batch: pa.RecordBatch) -> None:
         sql = str(tables.batch.insert().compile(dialect=self.conn.dialect))
         columns = [c.to_pylist() for c in batch.columns]
@@ -84,14 +77,6 @@ class SQLiteTarget(Target):
 
         try:
             with engine.connect() as conn:
-
-                @contextmanager
-                def transaction(rollback: bool = False) -> Iterator[_Session]:
-                    with conn.begin() as tx:
-                        yield _Session(conn)
-                        if rollback:
-                            tx.rollback()
-
-                yield transaction
+                yield alchemy_begin(conn, _Session)
         finally:
             engine.dispose()

@@ -11,7 +11,6 @@ next run succeeds.
 
 from __future__ import annotations
 
-import csv
 import json
 import os
 import random
@@ -74,31 +73,11 @@ def _totals(landing: Path) -> list[dict[str, int]]:
 def _deliveries(db: sqlite3.Connection, folder: Path, rng: random.Random, days: int) -> list[Path]:
     """The change log cut at random points into daily deliveries: each also repeats the tail of
     the day before (overlap), a few rows arrive a day late, and each file is shuffled."""
+    from tests.state_oracle import deliveries
+
     cols = [d[1] for d in db.execute("PRAGMA table_info(changes)")]
-    rows = db.execute("SELECT * FROM changes ORDER BY rowid").fetchall()
-    cuts = sorted(rng.sample(range(1, len(rows)), days - 1))
-    bounds = list(zip([0, *cuts], [*cuts, len(rows)], strict=True))
-    parts: list[list[tuple[Any, ...]]] = []
-    for i, (a, b) in enumerate(bounds):
-        overlap = rng.randint(0, 8) if i else 0
-        parts.append(list(rows[max(0, a - overlap) : b]))
-    for i in range(days - 1):  # late rows: held back to the next delivery
-        late = [r for r in parts[i] if rng.random() < 0.05]
-        parts[i] = [r for r in parts[i] if r not in late]
-        parts[i + 1] += late
-    paths = []
-    for i, part in enumerate(parts):
-        rng.shuffle(part)
-        day = folder / f"2026-03-{i + 1:02d}"
-        day.mkdir(parents=True)
-        path = day / f"berths-{i + 1:02d}.csv"
-        with open(path, "w", newline="", encoding="utf-8") as f:
-            w = csv.writer(f)  # RFC 4180 quoting; NULL written as an empty unquoted field
-            w.writerow(cols)
-            for r in part:
-                w.writerow(["" if v is None else v for v in r])
-        paths.append(path)
-    return paths
+    rows = [["" if v is None else v for v in r] for r in db.execute("SELECT * FROM changes ORDER BY rowid")]
+    return deliveries(cols, rows, folder, "berths", rng, days)
 
 
 @pytest.mark.parametrize("seed", [4, 5, 6])

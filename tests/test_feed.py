@@ -380,3 +380,16 @@ def test_two_runs_at_once(tmp_path: Path, deliveries: tuple[Path, list[Path]]) -
         assert "Traceback" not in refused.stderr
     assert first.wait() == 0
     assert len(list((landing / "runs").iterdir())) == 3
+
+
+def test_runs_starting_at_once_on_a_new_landing_area_do_not_trip_over_each_other(tmp_path: Path) -> None:
+    """The writability check of --out leaves nothing another run could remove under it (each
+    writer's probe has its own name): 8 threads x 50 checks of one new folder, no error."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    from cdcnorm.landing.area import _check_folder
+
+    root = tmp_path / "new-landing"
+    with ThreadPoolExecutor(8) as pool:
+        list(pool.map(lambda _: [_check_folder(root) for _ in range(50)], range(8)))
+    assert root.is_dir() and list(root.iterdir()) == []

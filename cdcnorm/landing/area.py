@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import os
+import secrets
 import shutil
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -89,7 +91,8 @@ def _check_folder(root: Path) -> None:
         raise InputError("the output folder is a file", file=str(root), hint="name a folder for --out")
     try:
         root.mkdir(parents=True, exist_ok=True)
-        probe = root / f"{META}-write-probe"
+        # a name of this process's own: two runs starting at once must not remove each other's
+        probe = root / f"{META}-write-probe-{os.getpid()}-{secrets.token_hex(4)}"
         probe.write_bytes(b"")
         probe.unlink()
     except OSError as e:

@@ -23,6 +23,7 @@ from sqlglot import exp
 
 from cdcnorm.lineage.models import LoadedModels, ModelStatement
 from cdcnorm.lineage.resolve import TableInfo
+from cdcnorm.sql import ident
 
 #: Candidate texts for the synthetic row: the first that the column's type accepts is its value.
 CANDIDATES = ("1", "2026-03-01", "2026-03-01 08:00:00+00", "08:00:00", "00000000-0000-4000-8000-000000000001")
@@ -33,10 +34,6 @@ def _sample(con: duckdb.DuckDBPyConnection, sql_type: str) -> str:
         if con.execute(f"SELECT TRY_CAST('{text}' AS {sql_type}) IS NOT NULL").fetchall()[0][0]:
             return f"CAST('{text}' AS {sql_type})"
     return "NULL"
-
-
-def _q(name: str) -> str:
-    return '"' + name.replace('"', '""') + '"'
 
 
 @dataclass
@@ -58,9 +55,9 @@ def _build(
             if info.kind != "source" or not info.columns:
                 continue
             if len(info.parts) > 1:
-                con.execute(f"CREATE SCHEMA IF NOT EXISTS {_q(info.parts[-2])}")
-            name = ".".join(_q(p) for p in info.parts[-2:])
-            cols = ", ".join(f"{_q(c)} {info.types.get(c) or 'VARCHAR'}" for c in info.columns)
+                con.execute(f"CREATE SCHEMA IF NOT EXISTS {ident(info.parts[-2])}")
+            name = ".".join(ident(p) for p in info.parts[-2:])
+            cols = ", ".join(f"{ident(c)} {info.types.get(c) or 'VARCHAR'}" for c in info.columns)
             con.execute(f"CREATE TABLE {name} ({cols})")
             values = ", ".join(_sample(con, info.types.get(c) or "VARCHAR") for c in info.columns)
             con.execute(f"INSERT INTO {name} VALUES ({values})")
@@ -76,19 +73,16 @@ def _build(
             st = sts[0]
             assert st.query is not None
             try:
-                query = (
-                    st.query.sql(dialect="duckdb")
-                    if dialect == "duckdb"
-                    else sqlglot.transpile(st.query.sql(dialect=dialect), read=dialect, write="duckdb")[0]
-                )
+                # parsed in the models' dialect, written in DuckDB's: sqlglot's transpiler
+                query = st.query.sql(dialect="duckdb", unsupported_level=sqlglot.ErrorLevel.RAISE)
             except sqlglot.errors.SqlglotError as e:
                 unavailable[model] = f"cannot transpile from {dialect}: {str(e).splitlines()[0]}"
                 continue
             parts = st.target
             if len(parts) > 1:
-                con.execute(f"CREATE SCHEMA IF NOT EXISTS {_q(parts[-2])}")
-            view = ".".join(_q(p) for p in parts[-2:])
-            cols = f" ({', '.join(_q(c) for c in st.columns)})" if st.columns else ""
+                con.execute(f"CREATE SCHEMA IF NOT EXISTS {ident(parts[-2])}")
+            view = ".".join(ident(p) for p in parts[-2:])
+            cols = f" ({', '.join(ident(c) for c in st.columns)})" if st.columns else ""
             try:
                 con.execute(f"CREATE VIEW {view}{cols} AS {query}")
                 con.execute(f"SELECT * FROM {view}").fetchall()  # run it over the synthetic rows
@@ -146,7 +140,7 @@ def check_edit(
     """Models that bind and run before the edit and not after it, with the engine's reason."""
     tables = [t for t in project.catalog.tables.values() if t.kind == "source"]
     if kind == "retype" and value:
-        value = sqlglot.exp.DataType.build(value, dialect=project.dialect).sql(dialect="duckdb")
+        value = exp.DataType.build(value, dialect=project.dialect).sql(dialect="duckdb")
     before = _build(tables, loaded.statements, project.order, project.dialect)
     after = _build(
         edited_tables(tables, table, column, kind, value), loaded.statements, project.order, project.dialect
@@ -164,4 +158,4 @@ def check_edit(
     }
 
 
-__all__ = ["check_edit", "exp"]
+__all__ = ["check_edit"]

@@ -19,8 +19,6 @@ import networkx as nx
 from cdcnorm.lineage.graph import node_id, node_name
 from cdcnorm.lineage.resolve import Node
 
-KIND_NAMES = ("join", "filter", "grouping", "ordering", "window", "existence", "unnest")
-
 
 def _depths(g: nx.MultiDiGraph) -> dict[tuple[str, str], int]:
     """Each table's column in the layout: dump columns 0, mapping tables 1, a model one more than
@@ -44,7 +42,7 @@ def _depths(g: nx.MultiDiGraph) -> dict[tuple[str, str], int]:
 
 
 def explorer_data(g: nx.MultiDiGraph, title: str, focus: Node | None = None) -> dict[str, Any]:
-    from cdcnorm.lineage.questions import kinds_of
+    from cdcnorm.lineage.questions import KIND_NAMES, kinds_of
 
     depth = _depths(g)
     defined: dict[Node, str] = {}

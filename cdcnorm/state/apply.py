@@ -15,9 +15,8 @@ are those of a real apply and nothing changes.
 
 from __future__ import annotations
 
-import hashlib
 from collections.abc import Callable
-from contextlib import AbstractContextManager, nullcontext
+from contextlib import AbstractContextManager, ExitStack, nullcontext
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
@@ -26,7 +25,8 @@ import duckdb
 import sqlalchemy as sa
 
 from cdcnorm.engines.duckdb import DuckDBEngine
-from cdcnorm.errors import CdcnormError, InputError
+from cdcnorm.errors import InputError
+from cdcnorm.inputs import checksum
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.sql import ident
 from cdcnorm.state.events import EventFile, event_files, load_events
@@ -56,14 +56,6 @@ class TableApply:
     files: int = 0
 
 
-def sha256(path: Path) -> str:
-    h = hashlib.sha256()
-    with path.open("rb") as f:
-        for block in iter(lambda: f.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
-
-
 def _ensure(session: Session, target: Target, tables: Tables) -> None:
     if tables.data.schema and target.has_schemas:
         session.run(sa.schema.CreateSchema(tables.data.schema, if_not_exists=True))
@@ -87,25 +79,15 @@ def apply_table(
     tables = build_tables(spec, target.column_type, target.position_type())
     report = TableApply(m.table, spec.shown)
     files = event_files(landing, m.table)
-    digests = {f.path: sha256(f.path) for f in files}
-    with target.connect(spec) as begin:
+    digests = {f.path: checksum(f.path) for f in files}
+    with target.connect(spec) as begin, ExitStack() as stack:
+        transaction: Callable[[], AbstractContextManager[Session]] = begin
         if dry_run:  # one transaction, rolled back: every batch sees the ones before it
-            with begin(rollback=True) as session:
-                _apply(
-                    engine,
-                    mapping,
-                    target,
-                    spec,
-                    tables,
-                    files,
-                    digests,
-                    report,
-                    lambda: nullcontext(session),
-                    batch_rows,
-                    progress,
-                )
-        else:
-            _apply(engine, mapping, target, spec, tables, files, digests, report, begin, batch_rows, progress)
+            session = stack.enter_context(begin(rollback=True))
+            transaction = lambda: nullcontext(session)  # noqa: E731
+        _apply(
+            engine, mapping, target, spec, tables, files, digests, report, transaction, batch_rows, progress
+        )
     return report
 
 
@@ -122,7 +104,6 @@ def _apply(
     batch_rows: int,
     progress: Callable[[str], None],
 ) -> None:
-    spec_table = mapping.table
     with transaction() as s:
         _ensure(s, target, tables)
         a = tables.applied
@@ -143,11 +124,9 @@ def _apply(
     try:
         per_file = dict(engine.rows(f"SELECT __source, count(*) FROM {ident(events.relation)} GROUP BY ALL"))
         last = latest(engine, events)
-    except CdcnormError:
-        raise
     except duckdb.Error as e:  # the engine could not read an events file
         raise InputError(
-            f"an events file of {spec_table} cannot be read: {str(e).splitlines()[0]}",
+            f"an events file of {mapping.table} cannot be read: {str(e).splitlines()[0]}",
             expected="event files as cdcnorm convert writes them",
         ) from None
     total = sum(int(n) for n in per_file.values())
@@ -173,7 +152,7 @@ def _apply(
             for statement in writes:
                 s.run(statement)
         done_rows += batch.num_rows
-        progress(f"{spec_table}: {done_rows:,} of {keys:,} keys")
+        progress(f"{mapping.table}: {done_rows:,} of {keys:,} keys")
     now = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
     with transaction() as s:
         for f in new:

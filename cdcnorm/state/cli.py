@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import sqlite3
 import tempfile
 from pathlib import Path
 from typing import Any
@@ -12,7 +13,7 @@ from typing import Any
 from rich.console import Console
 from rich.table import Table
 
-from cdcnorm.errors import EXIT_OK, CdcnormError, TargetError, UsageError, did_you_mean
+from cdcnorm.errors import EXIT_OK, TargetError, UsageError, did_you_mean
 from cdcnorm.mapping import load_mappings
 from cdcnorm.mapping.load import LoadedMapping
 
@@ -54,8 +55,8 @@ def add_commands(sub: Any) -> None:
     app.add_argument("--json", action="store_true")
 
 
-def _chosen(mappings: list[LoadedMapping], table: str | None, landing: Path) -> list[LoadedMapping]:
-
+def _chosen(mappings: list[LoadedMapping], table: str | None) -> list[LoadedMapping]:
+    """The mappings a command works on: all, or ``--table``'s (a misspelt name is suggested)."""
     if table is not None:
         names = [m.table for m in mappings]
         if table not in names:
@@ -88,7 +89,7 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
 
     landing = Path(args.landing)
     mappings = load_mappings(Path(args.mappings))
-    chosen = _chosen(mappings, args.table, landing)
+    chosen = _chosen(mappings, args.table)
     folder = Path(args.out)
     rows: list[dict[str, Any]] = []
     with tempfile.TemporaryDirectory(prefix="cdcnorm-") as scratch:
@@ -146,7 +147,15 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
     target = target_for(url, args.wait)
     landing = Path(args.landing)
     mappings = load_mappings(Path(args.mappings))
-    chosen = _chosen(mappings, args.table, landing)
+    chosen = _chosen(mappings, args.table)
+
+    import duckdb
+    import psycopg
+    import sqlalchemy as sa
+
+    # what a target database raises: its driver's errors (some reach us unwrapped, as COPY's) and
+    # SQLAlchemy's wrappers of them
+    database_errors = (sa.exc.SQLAlchemyError, duckdb.Error, psycopg.Error, sqlite3.Error, OSError)
     reports = []
     with tempfile.TemporaryDirectory(prefix="cdcnorm-") as scratch:
         engine = _engine(args, Path(scratch), chosen)
@@ -163,19 +172,7 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
                         batch_rows=args.batch_rows,
                     )
                 )
-            except CdcnormError:
-                raise
-            except Exception as e:  # the database's own errors, in its words, without a password
-                import sqlalchemy as sa
-
-                if not isinstance(e, sa.exc.SQLAlchemyError | OSError) and type(e).__module__.split(".")[
-                    0
-                ] not in (
-                    "psycopg",
-                    "sqlite3",
-                    "duckdb",
-                ):
-                    raise
+            except database_errors as e:  # the database's own errors, in its words, without a password
                 first = str(getattr(e, "orig", None) or e).strip().splitlines()[0]
                 raise TargetError(
                     f"{target.shown}: {scrub(first, url)}",

@@ -156,8 +156,7 @@ def state_projection(
         cols.append((name, f"CAST({v} AS VARCHAR)" if as_text else v))
     cols.append(("position", "__position"))
     if raw is not None:
-        line = "CAST(to_json({" + ", ".join(f"{lit(n)}: {e}" for n, e in cols) + "}) AS VARCHAR)"
-        select = f"{raw.splice(line)} AS line"
+        select = f"{raw.line(cols)} AS line"
     else:
         select = ", ".join(f"{e} AS {ident(n)}" for n, e in cols)
     return f"SELECT {select} FROM {ident(relation)} ORDER BY {keys}"

@@ -42,9 +42,6 @@ TOMBSTONES = "__deleted"
 APPLIED = "cdcnorm_applied"
 BATCH = "cdcnorm_batch"
 
-#: What a batch's changes do, counted per table.
-COUNTS = ("inserted", "updated", "deleted", "deleted_absent", "stale", "already_applied")
-
 
 @dataclass(frozen=True)
 class TableSpec:
@@ -347,12 +344,6 @@ class Target:
     def shown(self) -> str:
         """The target for messages: never with a password."""
         return sa.engine.make_url(self.url).render_as_string(hide_password=True)
-
-
-def batches(reader: pa.RecordBatchReader) -> Iterator[pa.RecordBatch]:
-    for batch in reader:
-        if batch.num_rows:
-            yield batch
 
 
 def scrub(message: str, url: str) -> str:

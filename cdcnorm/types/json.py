@@ -92,6 +92,14 @@ class RawJson:
     def _mark(self, column: str) -> str:
         return f"cdcnorm-json-{self.token}-{column}"
 
+    def line(self, members: list[tuple[str, str]]) -> str:
+        """SQL: one JSON object text of (name, SQL) members, its JSON values spliced in as written."""
+        from cdcnorm.sql import lit
+
+        return self.splice(
+            "CAST(to_json({" + ", ".join(f"{lit(n)}: {e}" for n, e in members) + "}) AS VARCHAR)"
+        )
+
     def splice(self, line: str) -> str:
         """SQL: the JSON line with every placeholder replaced by its value's text."""
         for column in self.columns:

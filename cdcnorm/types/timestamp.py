@@ -23,31 +23,47 @@ def normalise_zone(zone: str) -> str:
     return "+00:00" if zone in ("Z", "UTC") else zone
 
 
+def _leap(x: str) -> str:
+    return f"substr({x}, 18, 2) = '60'"
+
+
+def _unleaped(x: str) -> str:
+    """SQL: the text upper-cased, a leap second :60 written :59 (added back after the cast)."""
+    upper = f"upper({x})"
+    return f"CASE WHEN {_leap(x)} THEN substr({upper}, 1, 17) || '59' || substr({upper}, 20) ELSE {upper} END"
+
+
+def _has_offset(x: str) -> str:
+    tail = f"substr(upper({x}), 20)"
+    return f"(contains({tail}, 'Z') OR contains({tail}, '+') OR contains({tail}, '-'))"
+
+
+def _local(x: str) -> str:
+    """SQL: the text as a local TIMESTAMP (no zone), for a named zone's periods."""
+    return f"TRY_CAST(replace({_unleaped(x)}, 'T', ' ') AS TIMESTAMP)"
+
+
 def timestamp_cast(x: str, zone: str) -> str:
     """SQL: raw text -> TIMESTAMPTZ in UTC, NULL when invalid."""
     # the pattern has been matched, so plain string tests suffice below
     zone = normalise_zone(zone)
-    upper = f"upper({x})"
-    leap = f"substr({x}, 18, 2) = '60'"
-    unleaped = f"CASE WHEN {leap} THEN substr({upper}, 1, 17) || '59' || substr({upper}, 20) ELSE {upper} END"
-    tail = f"substr({upper}, 20)"
-    has_offset = f"(contains({tail}, 'Z') OR contains({tail}, '+') OR contains({tail}, '-'))"
+    leap = _leap(x)
+    unleaped = _unleaped(x)
+    has_offset = _has_offset(x)
     if zones.is_fixed(zone):
         zoned = f"CASE WHEN {has_offset} THEN {unleaped} ELSE {unleaped} || {lit(zone)} END"
         cast = f"TRY_CAST({zoned} AS TIMESTAMPTZ)"
     else:  # a named zone: a local time joins the zone's periods (zones.py)
-        local = f"TRY_CAST(replace({unleaped}, 'T', ' ') AS TIMESTAMP)"
         cast = (
             f"CASE WHEN {has_offset} THEN TRY_CAST({unleaped} AS TIMESTAMPTZ) "
-            f"ELSE {zones.local_to_utc(local, zone)} END"
+            f"ELSE {zones.local_to_utc(_local(x), zone)} END"
         )
     adjusted = f"CASE WHEN {leap} THEN {cast} + INTERVAL 1 SECOND ELSE {cast} END"
     # Most values need none of that: no leap second, no lower-case t or z, and an offset (or the
     # engine's own zone, UTC, is the mapping's): the engine's cast takes them as they are.
     plain = f"NOT {leap} AND NOT contains({x}, 't') AND NOT contains({x}, 'z')"
     if zone != "+00:00":
-        raw_tail = f"substr({x}, 20)"
-        plain += f" AND (contains({raw_tail}, 'Z') OR contains({raw_tail}, '+') OR contains({raw_tail}, '-'))"
+        plain += f" AND {has_offset}"
     value = f"CASE WHEN {plain} THEN TRY_CAST({x} AS TIMESTAMPTZ) ELSE {adjusted} END"
     # RFC 3339 has years 0000-9999; in UTC a time must stay within 0001-01-01 and 9999-12-31
     # (9999-12-31T23:00:00-02:00 is in year 10000: it would sort before year 0001 as text)
@@ -59,9 +75,8 @@ def timestamp_cast(x: str, zone: str) -> str:
 def timestamp_explain(x: str, zone: str = "+00:00") -> str:
     named = ""
     if not zones.is_fixed(zone):
-        upper = f"upper({x})"
-        has_offset = f"(contains(substr({upper}, 20), 'Z') OR contains(substr({upper}, 20), '+') OR contains(substr({upper}, 20), '-'))"
-        local = f"TRY_CAST(replace(CASE WHEN substr({x}, 18, 2) = '60' THEN substr({upper}, 1, 17) || '59' || substr({upper}, 20) ELSE {upper} END, 'T', ' ') AS TIMESTAMP)"
+        local = _local(x)
+        has_offset = _has_offset(x)
         n = zones.matches(local, zone)
         where = f"regexp_full_match({x}, {PATTERN}) AND NOT {has_offset} AND {local} IS NOT NULL"
         named = (

@@ -27,7 +27,7 @@ from cdcnorm.types.timestamp import timestamp_render
 
 
 def envelope_columns(plan: Plan, *, render: bool, raw: RawJson | None = None) -> list[tuple[str, str]]:
-    """The envelope's columns; with ``raw``, JSON values are placeholders for ``raw.splice``."""
+    """The envelope's columns; with ``raw``, JSON values are placeholders for ``raw.line``."""
     types = plan.mapping.field_types
     names = plan.fields
 
@@ -82,11 +82,7 @@ def project(
     """
     raw = RawJson() if as_line else None
     cols = envelope_columns(plan, render=render, raw=raw)
-    if raw is not None:
-        line = "CAST(to_json({" + ", ".join(f"{lit(n)}: {e}" for n, e in cols) + "}) AS VARCHAR)"
-        select = [f"{raw.splice(line)} AS line"]
-    else:
-        select = [f"{e} AS {ident(n)}" for n, e in cols]
+    select = [f"{raw.line(cols)} AS line"] if raw is not None else [f"{e} AS {ident(n)}" for n, e in cols]
     if relation is not None:
         select = [x.replace("f.name", "__fname") for x in select]
         return f"SELECT {', '.join(select)} FROM {relation}"

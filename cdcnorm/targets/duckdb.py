@@ -95,13 +95,13 @@ class DuckDBTarget(Target):
                 con = duckdb.connect(path)
                 break
             except duckdb.IOException as e:
-                if "lock" not in str(e).lower() or time.monotonic() > deadline:
-                    if "lock" in str(e).lower():
-                        raise LandingBusyError(
-                            f"another process holds the DuckDB file {path}",
-                            hint="wait for the other apply, or raise --wait",
-                        ) from None
+                if "lock" not in str(e).lower():
                     raise
+                if time.monotonic() > deadline:
+                    raise LandingBusyError(
+                        f"another process holds the DuckDB file {path}",
+                        hint="wait for the other apply, or raise --wait",
+                    ) from None
                 time.sleep(0.2)
         try:
             con.execute("SET TimeZone = 'UTC'")

@@ -28,7 +28,7 @@ def test_unresolvable_references_are_reported_not_guessed(tmp_path: Path) -> Non
         tmp_path,
         {
             "amb.sql": "SELECT id FROM shop.orders o JOIN shop.customers c ON c.id = o.customer_id",
-            "unknown.sql": "SELECT x.a FROM warehouse.stock x",
+            "unknown.sql": "SELECT x.amount FROM shop.ordrs x",  # a typo of a declared table
             "missing.sql": "SELECT o.amout FROM shop.orders o",
             "star.sql": "SELECT * FROM nowhere",
             "broken.sql": "SELECT FROM WHERE (",
@@ -39,7 +39,7 @@ def test_unresolvable_references_are_reported_not_guessed(tmp_path: Path) -> Non
     )
     got = {(d.model, d.reason): d for d in project.diagnostics}
     assert got[("amb", "ambiguous")].candidates == ("o.id", "c.id")
-    assert ("unknown", "unknown table") in got
+    assert got[("unknown", "unknown table")].candidates == ("shop.orders",)
     missing = got[("missing", "not in schema")]
     assert (
         missing.reference == "shop.orders.amout" and missing.candidates[0] == "amount" and missing.line == 1
@@ -49,6 +49,47 @@ def test_unresolvable_references_are_reported_not_guessed(tmp_path: Path) -> Non
     assert got[("typo", "parse error")].reference.startswith("not a SQL statement")
     assert trace(project, "fine.id")["value"] == ["shop.orders.id"]  # the rest of the project still builds
     assert trace(project, "amb.id")["unresolved"][0]["reason"] == "ambiguous"
+
+
+def test_columns_of_tables_without_a_schema_are_inferred_only_when_one_source_can_own_them(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    models = {
+        # fx.rates and cal.days are declared nowhere: their columns come from how the models use them
+        "local.sql": "SELECT o.id, o.amount * rate AS local_amount FROM shop.orders o "
+        "JOIN fx.rates r ON r.currency = o.status",
+        "by_day.sql": "WITH d AS (SELECT day, is_holiday FROM cal.days) "
+        "SELECT o.id, d.is_holiday FROM shop.orders o JOIN d ON d.day = CAST(o.placed_at AS DATE)",
+        "two.sql": "SELECT weight FROM fx.rates JOIN cal.days ON cal.days.day = fx.rates.day",
+        "star.sql": "SELECT * FROM ref.zones",
+    }
+    project = project_from(tmp_path, models, SCHEMA)
+    got = {(d.model, d.reason, d.reference) for d in project.diagnostics}
+    assert ("local", "inferred", "fx.rates.rate") in got and ("local", "inferred", "fx.rates.currency") in got
+    assert ("by_day", "inferred", "cal.days.is_holiday") in got
+    # two sources without a schema could own `weight`: never guessed
+    amb = [d for d in project.diagnostics if d.model == "two" and d.reason == "ambiguous"]
+    assert amb and amb[0].candidates == ("fx.rates.weight", "cal.days.weight")
+    assert ("source", "fx.rates", "weight") not in project.graph
+    answer = trace(project, "local.local_amount")
+    assert answer["value"] == ["fx.rates.rate", "shop.orders.amount"]
+    assert answer["influence"] == ["fx.rates.currency", "shop.orders.status"]
+    assert answer["inferred"] == ["fx.rates.currency", "fx.rates.rate"]
+    assert answer["complete"]  # inferred columns are an assumption the answer names, not a gap
+    assert trace(project, "by_day.is_holiday")["value"] == ["cal.days.is_holiday"]
+    assert not trace(project, "two.weight")["complete"]
+    # the diagrams draw the tables without a schema as placeholders, also one with no known column
+    dot = export(project.graph, tmp_path / "g.dot").read_text()
+    assert "fx.rates (no schema: columns inferred from the models)" in dot
+    assert "ref.zones (no schema: columns inferred from the models)" in dot and "(no columns known)" in dot
+    assert "dashed" in dot
+    folder = tmp_path / "models"
+    (tmp_path / "shop.json").write_text(json.dumps({"tables": SCHEMA}))
+    code = cli(
+        "trace", "local.local_amount", "--models", str(folder), "--catalog", str(tmp_path / "shop.json")
+    )
+    out = capsys.readouterr().out
+    assert code == 0 and "fx.rates.rate (inferred: no schema declares it)" in out
 
 
 @pytest.fixture(scope="module")
@@ -132,6 +173,7 @@ def test_lineage_commands_end_to_end(tmp_path: Path, capsys: pytest.CaptureFixtu
         "paths",
         "unresolved",
         "complete",
+        "inferred",
     }
     assert one["complete"] is True
     assert one["value"] == ["ferry.bookings.fare", "ferry.bookings.seats"]
@@ -157,6 +199,7 @@ def test_lineage_commands_end_to_end(tmp_path: Path, capsys: pytest.CaptureFixtu
         "unresolved",
         "complete",
         "binding",
+        "inferred",
     }
     assert r["complete"] is True and r["unresolved"] == []
     assert r["binding"] == {"checked": True, "broken": [], "unavailable": []}  # float: every model still runs
@@ -325,12 +368,15 @@ def test_catalogs_give_the_tables_no_mapping_declares(
                 pcon.execute(statement)
         spec = url  # type: ignore[assignment]
     args = ["--models", str(models), "--mappings", str(MAPPINGS), "--json"]
-    assert cli("trace", *args, "fares_eur.fare_eur") == 11  # without the catalog: incomplete
-    missing = json.loads(capsys.readouterr().out)
-    assert {d["reason"] for d in missing["unresolved"]} >= {"unknown table"}
+    # without the catalog, the columns each model names with its table are inferred, and marked so
+    assert cli("trace", *args, "fares_eur.fare_eur") == 0
+    guessed = json.loads(capsys.readouterr().out)
+    assert guessed["value"] == ["ferry.bookings.fare", "ref.rates.rate"]
+    assert guessed["inferred"] == ["ref.calendar.day", "ref.rates.currency", "ref.rates.rate"]
     assert cli("trace", *args, "--catalog", str(spec), "fares_eur.fare_eur") == 0
     answer = json.loads(capsys.readouterr().out)
     assert answer["value"] == ["ferry.bookings.fare", "ref.rates.rate"] and answer["complete"]
+    assert answer["inferred"] == []
     assert set(answer["influence"]) >= {"ref.rates.currency", "ref.calendar.day"}
 
 

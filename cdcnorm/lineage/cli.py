@@ -151,7 +151,10 @@ def _trace_tree(answer: dict[str, Any]) -> Tree:
     tree = Tree(f"[bold]{answer['column']}[/bold]")
 
     def add_path(branch: Tree, p: dict[str, Any]) -> None:
-        leaf = branch.add(p["source"])
+        inferred = (
+            " [dim](inferred: no schema declares it)[/dim]" if p["source"] in answer["inferred"] else ""
+        )
+        leaf = branch.add(p["source"] + inferred)
         for step in p["steps"]:
             leaf = leaf.add(
                 f"{step['edge']} ({step['how']}) -> {step['to']}  [dim]{step['file']}:{step['line']}[/dim]"
@@ -242,7 +245,7 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
                 f"wrote {path}: {summary['nodes']} {unit}, {summary['edges']} edges, {summary['models']} models"
             )
             for d in project.diagnostics:
-                out.print(f"unresolved {d.render()}", markup=False)
+                out.print(f"{'unresolved' if d.unresolved else 'note'} {d.render()}", markup=False)
         return EXIT_OK
     raise UsageError(f"unknown command {args.command}")
 
@@ -284,6 +287,10 @@ def _print_impact(r: dict[str, Any], out: Console) -> None:
 
 
 def _print_unresolved(tree: Tree, answer: dict[str, Any]) -> None:
+    if answer.get("inferred"):
+        tree.add(
+            f"inferred: {', '.join(answer['inferred'])} (no schema declares these tables; give one with --catalog)"
+        )
     if answer["complete"]:
         tree.add("complete: every reference on the way was resolved")
         return

@@ -14,7 +14,10 @@ REASONS = (
     "unsupported",
     "cycle",
     "duplicate model",
+    "inferred",
 )
+#: Reasons that are notes, not gaps: the answer is complete, with an assumption it names.
+NOTES = ("inferred",)
 
 
 @dataclass(frozen=True)
@@ -25,6 +28,10 @@ class Diagnostic:
     reason: str
     reference: str
     candidates: tuple[str, ...] = field(default_factory=tuple)
+
+    @property
+    def unresolved(self) -> bool:
+        return self.reason not in NOTES
 
     def render(self) -> str:
         where = f"{self.file}:{self.line}" if self.line else self.file

@@ -62,6 +62,8 @@ def explorer_data(g: nx.MultiDiGraph, title: str, focus: Node | None = None) -> 
                 "kind": kind,
                 "name": table,
                 "depth": depth[(kind, table)],
+                # a table no schema declares: drawn as a placeholder, its columns inferred from use
+                "placeholder": any(g.nodes[n].get("origin") in ("inferred", "unknown") for n in cols),
                 "columns": [
                     {"id": node_id(n), "name": node_name(n), "column": n[2], "where": defined.get(n, "")}
                     for n in cols
@@ -101,6 +103,7 @@ PAGE = r"""<!DOCTYPE html>
   #search { width: 320px; padding: 4px 6px; }
   #status { color: #555; }
   label.kind { margin-right: 8px; white-space: nowrap; }
+  .table.placeholder { border-style: dashed; background: #fff; }
   #board { position: relative; display: flex; gap: 90px; padding: 16px 24px; align-items: flex-start; }
   .layer { display: flex; flex-direction: column; gap: 12px; min-width: 190px; z-index: 1; }
   .table { background: #fff; border: 1px solid #aaa; border-radius: 6px; }
@@ -151,7 +154,8 @@ for (const t of DATA.tables) {
   const head = document.createElement("div"); head.className = "head";
   head.innerHTML = `<span class="name"></span> <span class="count">(${t.columns.length})</span>`;
   head.querySelector(".name").textContent = t.name + (t.kind === "raw" ? " (dump)" : "");
-  head.title = t.kind === "model" ? "model" : t.kind === "source" ? "mapping table" : "dump columns";
+  head.title = t.placeholder ? "no schema: columns inferred from the models" : t.kind === "model" ? "model" : t.kind === "source" ? "source table" : "dump columns";
+  if (t.placeholder) { card.classList.add("placeholder"); head.querySelector(".name").textContent += " (no schema)"; }
   const ul = document.createElement("ul"); ul.className = "cols"; ul.hidden = true;
   for (const c of t.columns) {
     const li = document.createElement("li"); li.className = "col"; li.dataset.id = c.id;

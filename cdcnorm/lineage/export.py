@@ -44,8 +44,10 @@ def table_level(g: nx.MultiDiGraph) -> nx.MultiDiGraph:
     """One node per table (dump columns, mapping table, model); an edge per table pair and kind,
     carrying how many column edges it stands for."""
     h = nx.MultiDiGraph()
-    for n in g.nodes:
-        h.add_node((n[0], n[1], "*"), kind=n[0], table=n[1], column="*")
+    for n, d in g.nodes(data=True):
+        t = (n[0], n[1], "*")
+        origin = d.get("origin") or (h.nodes[t].get("origin") if t in h else None)
+        h.add_node(t, kind=n[0], table=n[1], column="*", origin=origin)
     counts: dict[tuple[Node, Node, str], int] = {}
     for u, v, k in g.edges(keys=True):
         a, b = (u[0], u[1], "*"), (v[0], v[1], "*")
@@ -83,16 +85,30 @@ def to_dot(g: nx.MultiDiGraph, title: str = "column lineage", focus: Node | None
     for n in sorted(g.nodes):
         tables.setdefault((n[0], n[1]), []).append(n)
     for i, ((kind, table), nodes) in enumerate(sorted(tables.items())):
+        origins = {g.nodes[n].get("origin") for n in nodes}
+        # a table no schema declares is a placeholder: dashed, its columns taken from the models' use
+        placeholder = kind == "source" and bool(origins & {"inferred", "unknown"})
         label = {
             "raw": f"dump columns of {table}",
-            "source": f"{table} (mapping)",
+            "source": f"{table} ({'catalog' if origins == {'catalog'} else 'mapping'})",
             "model": f"{table} (model)",
         }[kind]
+        if placeholder:
+            label = f"{table} (no schema: columns inferred from the models)"
         with dot.subgraph(name=f"cluster_{i}") as c:
-            c.attr(label=label, style="rounded", color="#999999", fontname="Helvetica", fontsize="11")
+            c.attr(
+                label=label,
+                style="rounded,dashed" if placeholder else "rounded",
+                color="#999999",
+                fontname="Helvetica",
+                fontsize="11",
+            )
             for n in nodes:
                 if n == focus:  # the column asked about stands out
                     c.node(_dot_id(n), n[2], fillcolor=FOCUS, penwidth="2.5", fontname="Helvetica-Bold")
+                elif placeholder:
+                    text = "(no columns known)" if n[2] == "*" else n[2]
+                    c.node(_dot_id(n), text, fillcolor="#ffffff", style="rounded,dashed,filled")
                 else:
                     c.node(_dot_id(n), n[2] if n[2] != "*" else table, fillcolor=COLOURS[kind])
     for u, v, k, d in sorted(g.edges(keys=True, data=True)):

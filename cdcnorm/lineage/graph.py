@@ -143,7 +143,7 @@ def mapping_catalog(
             if what == "drop":
                 continue
             kept[normalise_column(new, dialect) if what == "rename" else col] = new if what == "retype" else t
-        cat.add(TableInfo("source", name, _normalise_name(name, dialect), list(kept), kept))
+        cat.add(TableInfo("source", name, _normalise_name(name, dialect), list(kept), kept, "catalog"))
     for lm in mappings:
         parts = _normalise_name(lm.table, dialect)
         cols: list[str] = []
@@ -162,7 +162,7 @@ def mapping_catalog(
                     typ = edit[1]
             cols.append(col)
             types[col] = typ
-        cat.add(TableInfo("source", lm.table, parts, cols, types))
+        cat.add(TableInfo("source", lm.table, parts, cols, types, "mapping"))
     return cat
 
 
@@ -299,6 +299,7 @@ def build_project(
                 table=info.name,
                 column=col,
                 type=info.types.get(col),
+                origin=info.origin,
             )
     diagnostics = list(loaded.diagnostics)
     # mapping layer: raw dump column -> canonical field
@@ -315,7 +316,9 @@ def build_project(
                 node = ("source", lm.table, normalise_column(edit[1], dialect))
             ftype = lm.field_types[f]
             sub = "copy" if ftype.name == "text" and not getattr(ftype, "max_length", None) else "transform"
-            g.add_node(node, kind="source", table=lm.table, column=col, type=source_type(lm, f))
+            g.add_node(
+                node, kind="source", table=lm.table, column=col, type=source_type(lm, f), origin="mapping"
+            )
             g.add_edge(
                 raw,
                 node,
@@ -367,6 +370,8 @@ def build_project(
                 for m in group
             )
     models: dict[str, ModelInfo] = {}
+    catalog.pending = set(parts_of.values())
+    unknown_tables: set[str] = set()
     for name in order:
         sts = by_model[name]
         merged: dict[str, Deps] = {}
@@ -380,6 +385,11 @@ def build_project(
                 assert st.query is not None
                 outs = resolver.resolve(st.query)
             diagnostics.extend(resolver.diagnostics)
+            unknown_tables |= resolver.unknown_tables
+            for guess in resolver.inferred:
+                g.add_node(
+                    guess, kind="source", table=guess[1], column=guess[2], origin="inferred", inferred=True
+                )
             if outs is None:
                 continue
             names = [n for n, _ in outs]
@@ -414,7 +424,8 @@ def build_project(
                 visible.remove(col)
                 if what == "rename" and new:
                     visible.append(new)
-        catalog.add(TableInfo("model", name, parts_of[name], visible))
+        catalog.add(TableInfo("model", name, parts_of[name], visible, origin="model"))
+        catalog.pending.discard(parts_of[name])
         file_of = sts[0].file
         for col in columns:
             target: Node = ("model", name, col)
@@ -430,6 +441,11 @@ def build_project(
                 g.add_edge(
                     src, target, key=kind, kind=kind, sub=sub, clauses=clauses, file=file_of, line=line
                 )
+    # a table without a schema from which no column could be inferred is still drawn, as a placeholder
+    drawn = {n[1] for n in g.nodes if n[0] == "source"}
+    for t in sorted(unknown_tables - drawn):
+        g.add_node(("source", t, "*"), kind="source", table=t, column="*", origin="unknown", placeholder=True)
+    catalog.pending = set()
     return Project(
         g, catalog, models, {m.table: m for m in mappings}, diagnostics, dialect, order, tables, views_of(g)
     )

@@ -112,7 +112,13 @@ def _path(project: Project, a: Node, b: Node, value_only: bool) -> list[dict[str
 def unresolved_on(project: Project, nodes: set[Node]) -> list[dict[str, Any]]:
     """The diagnostics of every model among ``nodes``: references the answer could not follow."""
     models = {n[1] for n in nodes if n[0] == "model"}
-    return [d.as_dict() for d in project.diagnostics if d.model in models]
+    return [d.as_dict() for d in project.diagnostics if d.model in models and d.unresolved]
+
+
+def inferred_on(project: Project, nodes: set[Node]) -> list[str]:
+    """Columns among ``nodes`` of tables no schema declares, taken from how the models use them."""
+    g = project.graph
+    return sorted(node_name(n) for n in nodes if g.nodes[n].get("inferred"))
 
 
 #: Influence kinds people read, from the resolver's clauses.
@@ -176,6 +182,7 @@ def trace(project: Project, column: str) -> dict[str, Any]:
         paths.append({"source": node_name(s), "lineage": "influence", "kinds": kinds, "steps": steps})
     unresolved = unresolved_on(project, {node} | value | influence)
     return {
+        "inferred": inferred_on(project, {node} | value | influence),
         "column": node_name(node),
         "value": [node_name(n) for n in vsrc],
         "influence": [node_name(n) for n in isrc],
@@ -270,6 +277,7 @@ def impact(
     # the models the answer passes through: what they could not resolve may hide dependents
     result["unresolved"] = unresolved_on(project, {node} | value | influence)
     result["complete"] = not result["unresolved"]
+    result["inferred"] = inferred_on(project, {node} | value | influence)
     if edit is None:
         return result
     g = project.graph

@@ -81,6 +81,7 @@ class TableInfo:
     parts: tuple[str, ...]
     columns: list[str]
     types: dict[str, str] = field(default_factory=dict)
+    origin: str = ""  # mapping | catalog | model
 
 
 class Catalog:
@@ -89,6 +90,8 @@ class Catalog:
     def __init__(self) -> None:
         self.tables: dict[tuple[str, ...], TableInfo] = {}
         self._by_name: dict[str, list[TableInfo]] = {}
+        #: models not resolved yet (inside a cycle): never taken for tables without a schema
+        self.pending: set[tuple[str, ...]] = set()
 
     def add(self, info: TableInfo) -> None:
         old = self.tables.get(info.parts)
@@ -177,6 +180,10 @@ class StatementResolver:
         self._partial: dict[int, list[tuple[str, Deps]]] = {}
         self._scope_of: dict[int, Scope] = {}
         self._reported: set[tuple[str, str]] = set()
+        #: tables read that no mapping, catalog or model declares, and the columns inferred in them
+        self.unknown_tables: set[str] = set()
+        self.inferred: set[Node] = set()
+        self.row_deps = Deps()  # what decides the statement's rows (after resolve)
 
     # --- entry points ---------------------------------------------------------------------
 
@@ -215,7 +222,16 @@ class StatementResolver:
             return None
         for s in root.traverse():
             self._scope_of[id(s.expression)] = s
-        return self.outputs(root)
+            for source in s.sources.values():
+                if (
+                    isinstance(source, exp.Table)
+                    and source.name
+                    and self.catalog.find(table_parts(source)) is None
+                ):
+                    self.unknown_tables.add(".".join(table_parts(source)))
+        outs = self.outputs(root)
+        self.row_deps = self.rows(root)
+        return outs
 
     # --- scopes -----------------------------------------------------------------------------
 
@@ -528,8 +544,25 @@ class StatementResolver:
                 self.expr(alias, scope, d, "copy", None)
                 return d
             holders = [a for a in scope.selected_sources if name in self._source_columns(scope, a)]
+            # a table without a schema anywhere may own it: inferred only when it is the one such
+            # source in scope and no declared source has the column
+            unknown = [
+                (a, src)
+                for a, (_node, src) in scope.selected_sources.items()
+                if isinstance(src, exp.Table) and self.catalog.find(table_parts(src)) is None
+            ]
             if len(holders) > 1:
                 self._diag(line, "ambiguous", name, [f"{a}.{name}" for a in holders])
+            elif not holders and len(unknown) == 1:
+                return self._infer(unknown[0][1], name, line)
+            elif not holders and len(unknown) > 1:
+                owners = [".".join(table_parts(t)) for _, t in unknown]
+                self._diag(
+                    line,
+                    "ambiguous",
+                    f"{name} (no schema says which of {', '.join(owners)} has it)",
+                    [f"{t}.{name}" for t in owners],
+                )
             else:
                 known = sorted({c for a in scope.selected_sources for c in self._source_columns(scope, a)})
                 self._diag(line, "not in schema", name, difflib.get_close_matches(name, known, n=3))
@@ -557,16 +590,8 @@ class StatementResolver:
         if isinstance(src, exp.Table):
             parts = table_parts(src)
             info = self.catalog.find(parts)
-            if info is None:
-                self._diag(
-                    _line(src) or line,  # the table's own line, where it is named
-                    "unknown table",
-                    ".".join(parts),
-                    difflib.get_close_matches(
-                        ".".join(parts), [t.name for t in self.catalog.tables.values()], n=3
-                    ),
-                )
-                return Deps()
+            if info is None:  # named with its table: the column is the table's, though no schema says so
+                return self._infer(src, name, line)
             if name not in info.columns:
                 self._diag(
                     line,
@@ -579,6 +604,26 @@ class StatementResolver:
             d.add_value((info.kind, info.name, name), "copy", line)
             return d
         return Deps()
+
+    def _infer(self, table: exp.Table, name: str, line: int | None) -> Deps:
+        """A column of a table no schema declares, taken as that table's (marked ``inferred``). A
+        table name close to a declared one is more likely a typo: that stays unresolved."""
+        parts = table_parts(table)
+        tname = ".".join(parts)
+        if any(p == parts or p[-len(parts) :] == parts for p in self.catalog.pending):
+            self._diag(line, "unknown table", f"{tname}.{name} (a model inside a cycle)")
+            return Deps()
+        close = difflib.get_close_matches(
+            tname, [t.name for t in self.catalog.tables.values()], n=3, cutoff=0.8
+        )
+        if close:
+            self._diag(_line(table) or line, "unknown table", tname, close)
+        node: Node = ("source", tname, name)
+        self.inferred.add(node)
+        self._diag(line, "inferred", f"{tname}.{name}")
+        d = Deps()
+        d.add_value(node, "copy", line)
+        return d
 
     def _projection_alias(self, scope: Scope, name: str) -> exp.Expr | None:
         sel = scope.expression

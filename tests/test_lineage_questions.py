@@ -34,6 +34,7 @@ def test_unresolvable_references_are_reported_not_guessed(tmp_path: Path) -> Non
             "broken.sql": "SELECT FROM WHERE (",
             "typo.sql": "SELEC broken",
             "fine.sql": "SELECT id FROM shop.orders",
+            "ins.sql": "INSERT INTO shop.refunds (order_id, amont) SELECT id, amount FROM shop.orders",
         },
         SCHEMA,
     )
@@ -47,6 +48,9 @@ def test_unresolvable_references_are_reported_not_guessed(tmp_path: Path) -> Non
     assert ("star", "unknown table") in got or ("star", "star over unknown sources") in got
     assert got[("broken", "parse error")].file == "broken.sql"
     assert got[("typo", "parse error")].reference.startswith("not a SQL statement")
+    # an INSERT into a declared table naming a column it lacks
+    ins = got[("shop.refunds", "not in schema")]
+    assert ins.reference == "shop.refunds.amont" and ins.candidates == ("amount",) and ins.file == "ins.sql"
     assert trace(project, "fine.id")["value"] == ["shop.orders.id"]  # the rest of the project still builds
     assert trace(project, "amb.id")["unresolved"][0]["reason"] == "ambiguous"
 

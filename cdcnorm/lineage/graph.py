@@ -11,6 +11,7 @@ each model's output columns join the schema used to qualify the next.
 
 from __future__ import annotations
 
+import difflib
 from collections import defaultdict
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -238,9 +239,11 @@ def _merge_query(
             vals = then.expression.expressions if isinstance(then.expression, exp.Tuple) else []
             for c, v in zip(cols, vals, strict=False):
                 assignments.append((c.name, v, cond, matched))
+        elif isinstance(then, exp.Var) and then.name.upper() == "DELETE":
+            assignments.append(("", exp.null(), cond, matched))  # no value: it decides rows only
     if not assignments:
         return []
-    names = _dedupe_names(list(dict.fromkeys(a[0] for a in assignments)))
+    names = _dedupe_names(list(dict.fromkeys(a[0] for a in assignments if a[0])))
     parts = (
         _normalise_name(target.sql(dialect=dialect).split(" AS ")[0], dialect)
         if isinstance(target, exp.Table)
@@ -249,11 +252,14 @@ def _merge_query(
     if catalog.find(tuple(parts)) is None:
         catalog.add(TableInfo("model", stmt.name, tuple(parts), names))
     out: dict[str, Deps] = {}
+    # what decides which rows the MERGE adds (WHEN NOT MATCHED ... INSERT) or removes (... DELETE):
+    # a column no clause sets gains only these
+    rows, deletes = Deps(), Deps()
     for name, value, cond, matched in assignments:
         where = f" WHERE {cond.sql(dialect=dialect)}" if cond is not None else ""
         join = "JOIN" if matched else "RIGHT JOIN"
         sql = (
-            f"SELECT {value.sql(dialect=dialect)} AS {exp.to_identifier(name).sql(dialect=dialect)} "
+            f"SELECT {value.sql(dialect=dialect)} AS {exp.to_identifier(name or 'x').sql(dialect=dialect)} "
             f"FROM {target.sql(dialect=dialect)} {join} {using.sql(dialect=dialect) if using else ''} "
             f"ON {on.sql(dialect=dialect) if on else 'TRUE'}{where}"
         )
@@ -265,8 +271,16 @@ def _merge_query(
         res = resolver.resolve(query)
         if not res:
             continue
+        if not matched or not name:
+            rows.merge(resolver.row_deps)
+        if not name:
+            deletes.merge(resolver.row_deps)
+            continue
         d = out.setdefault(name, Deps())
         d.merge(res[0][1])
+    for d in out.values():  # a row removed is removed with every column
+        d.merge(deletes)
+    resolver.row_deps = rows
     return [(n, out.get(n, Deps())) for n in names]
 
 
@@ -377,6 +391,19 @@ def build_project(
         merged: dict[str, Deps] = {}
         columns: list[str] = []
         lines: dict[str, int] = {}
+        # INSERT or MERGE into a table a mapping or catalog declares: the model is that table, with
+        # its full column list, and its rows so far are the declared table's
+        declared = catalog.find(parts_of[name])
+        if (
+            declared is not None
+            and declared.kind == "source"
+            and by_model[name][0].kind in ("insert", "merge")
+        ):
+            for c in declared.columns:
+                merged[c] = Deps()
+                merged[c].add_value(("source", declared.name, c), "copy", None)
+                columns.append(c)
+                lines[c] = sts[0].line
         for st in sts:
             resolver = StatementResolver(catalog, dialect, st.file, name, st.line)
             if st.kind == "merge":
@@ -405,16 +432,37 @@ def build_project(
                         )
                     )
                 names = list(st.columns[: len(outs)]) + names[len(st.columns) :]
-            elif st.kind == "insert" and name in models:
-                known = models[name].columns
-                names = known[: len(outs)] + names[len(known) :]
+            elif st.kind == "insert" and columns:  # no column list: by position, as the table has them
+                names = columns[: len(outs)] + names[len(columns) :]
             names = _dedupe_names(names) if st.kind != "insert" else names
+            into_declared = declared is not None and declared.kind == "source" and st.kind != "create"
+            if into_declared and declared is not None:
+                extra = [n for n in names if n not in declared.columns]
+                if extra:
+                    diagnostics.append(
+                        Diagnostic(
+                            st.file,
+                            st.line,
+                            name,
+                            "not in schema",
+                            f"{name}.{extra[0]}",
+                            tuple(difflib.get_close_matches(extra[0], columns, n=3)),
+                        )
+                    )
+            earlier = list(columns)
             for n, (_, d) in zip(names, outs, strict=False):
+                if into_declared and n not in columns:
+                    continue  # not a column of the declared table: reported above
                 if n not in merged:
                     merged[n] = Deps()
                     columns.append(n)
                     lines[n] = st.line
                 merged[n].merge(d)
+            if st.kind in ("insert", "merge"):
+                # a column the statement does not set still gains rows: only what decides them
+                for c in earlier:
+                    if c not in names:
+                        merged[c].merge(resolver.row_deps)
         models[name] = ModelInfo(name, sorted({s.file for s in sts}), columns, lines)
         visible = list(columns)
         for (kind, table, col), (what, new) in (edits or {}).items():

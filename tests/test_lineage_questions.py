@@ -130,6 +130,28 @@ def test_impact_of_a_retype_to_float(demo: tuple) -> None:  # type: ignore[type-
     assert "exact decimal becomes a float" in changes["daily_revenue.total_fare"]["change"]
 
 
+def test_a_retype_reports_each_dependents_type_from_sqlglots_annotation(tmp_path: Path) -> None:
+    folder = tmp_path / "models"
+    folder.mkdir()
+    (folder / "sizes.sql").write_text(
+        "SELECT CASE WHEN amount > 100 THEN 'big' ELSE 'small' END AS size, amount * 2 AS doubled,\n"
+        "  CAST(amount AS BIGINT) AS whole FROM shop.orders\n"
+    )
+    loaded = load_models(folder, "duckdb")
+    project = build_project(None, [], "duckdb", loaded=loaded, tables=SCHEMA)
+    r = impact(project, "shop.orders.amount", Edit("retype", "DOUBLE"), mappings=[], loaded=loaded)
+    got = {v["column"]: (v["type_before"], v["type_after"]) for v in r["value_changes"]}
+    # sqlglot's type annotation (the reference library): a CASE of string literals stays text, a
+    # product follows its operand, a cast keeps its target type
+    assert got == {
+        "sizes.size": ("TEXT", "TEXT"),
+        "sizes.doubled": ("DECIMAL(12, 2)", "DOUBLE"),
+        "sizes.whole": ("BIGINT", "BIGINT"),
+    }
+    size = next(v for v in r["value_changes"] if v["column"] == "sizes.size")
+    assert size["change"].startswith("its type stays TEXT")
+
+
 def test_impact_of_dropping_a_join_key(demo: tuple) -> None:  # type: ignore[type-arg]
     project, mappings, loaded = demo
     r = impact(project, "ferry.bookings.sailing_ref", Edit("drop"), mappings=mappings, loaded=loaded)

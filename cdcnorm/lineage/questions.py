@@ -349,17 +349,29 @@ def impact(
     if edit.kind == "retype" and edit.value:
         old = g.nodes[node].get("type") or "TEXT"
         change = _type_change(old, edit.value, project.dialect)
-        if change:
+        if change and loaded is not None:
+            # each dependent's type before and after, from sqlglot's type annotation
+            from cdcnorm.lineage.annotate import type_models
+
+            typed_before = type_models(project, loaded)
+            typed_after = type_models(project, loaded, {f: ("retype", edit.value) for f in fields})
             for n in vdep:
                 path = _path(project, node, n, True)
                 copies = all(step["how"] == "copy" for step in path)
+                a, b = typed_before.get(n, "UNKNOWN"), typed_after.get(n, "UNKNOWN")
+                if a != b:
+                    what = f"its type changes ({a} -> {b}); the source: {change}"
+                else:
+                    what = f"its type stays {a}; it is computed from a column whose {change.removeprefix('the ')}"
                 result["value_changes"].append(
                     {
                         "column": node_name(n),
                         "how": "copied: the output's type changes with it"
-                        if copies
+                        if copies and a != b
                         else "computed from it: results may change",
-                        "change": change,
+                        "type_before": a,
+                        "type_after": b,
+                        "change": what,
                     }
                 )
     # the edited column decides rows through these influence edges (join, filter, group keys ...)

@@ -1,0 +1,74 @@
+"""The SQL type of every model column, from sqlglot's type annotation (never from names).
+
+Models are typed upstream first: the source tables carry the mappings' and catalogs' types (with a
+simulated retype applied), each model's output types join the schema that types the next. A CASE of
+string literals stays text whatever its conditions read; ``x * 2`` follows ``x``.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from sqlglot import exp
+from sqlglot.errors import OptimizeError, SchemaError
+from sqlglot.optimizer.annotate_types import annotate_types
+from sqlglot.optimizer.qualify import qualify
+
+from cdcnorm.lineage.graph import Project, mapping_catalog
+from cdcnorm.lineage.models import LoadedModels
+from cdcnorm.lineage.resolve import Node, TableInfo
+
+UNKNOWN = "UNKNOWN"
+
+
+def _root_types(query: exp.Expr, catalog: Any, dialect: str) -> list[str] | None:
+    schema = catalog.schema(dialect, query)
+    try:
+        qualified = qualify(query.copy(), schema=schema, dialect=dialect, validate_qualify_columns=False)
+        typed = annotate_types(qualified, schema=schema, dialect=dialect)
+    except (OptimizeError, SchemaError, ValueError, KeyError):  # what the resolver reported already
+        return None
+    if not isinstance(typed, exp.Query):
+        return None
+    out = []
+    for proj in typed.selects:
+        t = proj.type
+        out.append(
+            t.sql(dialect=dialect) if isinstance(t, exp.DataType) and not t.is_type("unknown") else UNKNOWN
+        )
+    return out
+
+
+def type_models(
+    project: Project, loaded: LoadedModels, edits: dict[Node, Any] | None = None
+) -> dict[Node, str]:
+    """Each model column's type (``UNKNOWN`` where sqlglot cannot tell), with ``edits`` applied
+    to the source tables first (a retype changes what every reader computes)."""
+    dialect = project.dialect
+    catalog = mapping_catalog(list(project.sources.values()), dialect, edits, project.tables)
+    by_model: dict[str, list[Any]] = {}
+    for st in loaded.statements:
+        by_model.setdefault(st.name, []).append(st)
+    types: dict[Node, str] = {}
+    for name in project.order:
+        info = project.models.get(name)
+        if info is None:
+            continue
+        found: dict[str, str] = {}
+        for st in by_model.get(name, []):
+            if st.query is None:
+                continue  # a MERGE: types are the target's
+            got = _root_types(st.query, catalog, dialect)
+            if got is None:
+                continue
+            names = st.columns if st.columns is not None else None
+            for i, t in enumerate(got):
+                col = names[i] if names is not None and i < len(names) else None
+                col = col or (info.columns[i] if i < len(info.columns) else None)
+                if col is not None and col not in found:
+                    found[col] = t
+        for col in info.columns:
+            types[("model", name, col)] = found.get(col, UNKNOWN)
+        parts = by_model[name][0].target if by_model.get(name) else (name,)
+        catalog.add(TableInfo("model", name, parts, list(info.columns), found, "model"))
+    return types

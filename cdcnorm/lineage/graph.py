@@ -94,6 +94,10 @@ class Project:
     order: list[str]
     tables: dict[str, dict[str, str]] | None = None
     views: Views | None = None
+    #: each model's statements, the tables each reads, and which models read which (for re-resolving)
+    statements: dict[str, list[ModelStatement]] = field(default_factory=dict)
+    reads: dict[str, set[tuple[str, ...]]] = field(default_factory=dict)
+    readers: nx.DiGraph = field(default_factory=nx.DiGraph)
 
     def view(self) -> Views:
         if self.views is None:
@@ -284,6 +288,105 @@ def _merge_query(
     return [(n, out.get(n, Deps())) for n in names]
 
 
+@dataclass
+class Resolved:
+    """One model resolved: its columns in order, each column's dependencies, what it reported."""
+
+    columns: list[str]
+    lines: dict[str, int]
+    merged: dict[str, Deps]
+    diagnostics: list[Diagnostic]
+    unknown_tables: set[str]
+    inferred: set[Node]
+
+
+def resolve_model(name: str, sts: list[ModelStatement], catalog: Catalog, dialect: str) -> Resolved:
+    """Resolve every statement of one model against ``catalog`` (the tables it may read)."""
+    merged: dict[str, Deps] = {}
+    diagnostics: list[Diagnostic] = []
+    unknown_tables: set[str] = set()
+    inferred: set[Node] = set()
+    columns: list[str] = []
+    lines: dict[str, int] = {}
+    # INSERT or MERGE into a table a mapping or catalog declares: the model is that table, with
+    # its full column list, and its rows so far are the declared table's
+    declared = catalog.find(sts[0].target)
+    if declared is not None and declared.kind == "source" and sts[0].kind in ("insert", "merge"):
+        for c in declared.columns:
+            merged[c] = Deps()
+            merged[c].add_value(("source", declared.name, c), "copy", None)
+            columns.append(c)
+            lines[c] = sts[0].line
+    for st in sts:
+        resolver = StatementResolver(catalog, dialect, st.file, name, st.line)
+        if st.kind == "merge":
+            outs = _merge_query(resolver, st, catalog, dialect)
+        else:
+            assert st.query is not None
+            outs = resolver.resolve(st.query)
+        diagnostics.extend(resolver.diagnostics)
+        unknown_tables |= resolver.unknown_tables
+        inferred |= resolver.inferred
+        if outs is None:
+            continue
+        names = [n for n, _ in outs]
+        if st.columns is not None:
+            if len(st.columns) != len(outs):
+                diagnostics.append(
+                    Diagnostic(
+                        st.file,
+                        st.line,
+                        name,
+                        "unsupported",
+                        f"column list names {len(st.columns)} columns, the query has {len(outs)}",
+                    )
+                )
+            names = list(st.columns[: len(outs)]) + names[len(st.columns) :]
+        elif st.kind == "insert" and columns:  # no column list: by position, as the table has them
+            names = columns[: len(outs)] + names[len(columns) :]
+        names = _dedupe_names(names) if st.kind != "insert" else names
+        into_declared = declared is not None and declared.kind == "source" and st.kind != "create"
+        if into_declared and declared is not None:
+            extra = [n for n in names if n not in declared.columns]
+            if extra:
+                diagnostics.append(
+                    Diagnostic(
+                        st.file,
+                        st.line,
+                        name,
+                        "not in schema",
+                        f"{name}.{extra[0]}",
+                        tuple(difflib.get_close_matches(extra[0], columns, n=3)),
+                    )
+                )
+        earlier = list(columns)
+        for n, (_, d) in zip(names, outs, strict=False):
+            if into_declared and n not in columns:
+                continue  # not a column of the declared table: reported above
+            if n not in merged:
+                merged[n] = Deps()
+                columns.append(n)
+                lines[n] = st.line
+            merged[n].merge(d)
+        if st.kind in ("insert", "merge"):
+            # a column the statement does not set still gains rows: only what decides them
+            for c in earlier:
+                if c not in names:
+                    merged[c].merge(resolver.row_deps)
+    return Resolved(columns, lines, merged, diagnostics, unknown_tables, inferred)
+
+
+def _visible(name: str, columns: list[str], edits: dict[Node, Any] | None) -> list[str]:
+    """The columns readers of the model see, with a simulated edit of one of them applied."""
+    visible = list(columns)
+    for (kind, table, col), (what, new) in (edits or {}).items():
+        if kind == "model" and table == name and col in visible:
+            visible.remove(col)
+            if what == "rename" and new:
+                visible.append(new)
+    return visible
+
+
 def build_project(
     models_dir: Path | None,
     mappings: list[LoadedMapping],
@@ -353,9 +456,11 @@ def build_project(
             _drop_default_prefixes(st.statement, known_tables)
     deps = nx.DiGraph()
     deps.add_nodes_from(by_model)
+    reads: dict[str, set[tuple[str, ...]]] = {}
     for name, sts in by_model.items():
         for st in sts:
             for parts in _referenced_tables(st, dialect):
+                reads.setdefault(name, set()).add(parts)
                 for other, oparts in parts_of.items():
                     if other != name and (oparts == parts or oparts[-len(parts) :] == parts):
                         deps.add_edge(other, name)
@@ -388,90 +493,16 @@ def build_project(
     unknown_tables: set[str] = set()
     for name in order:
         sts = by_model[name]
-        merged: dict[str, Deps] = {}
-        columns: list[str] = []
-        lines: dict[str, int] = {}
-        # INSERT or MERGE into a table a mapping or catalog declares: the model is that table, with
-        # its full column list, and its rows so far are the declared table's
-        declared = catalog.find(parts_of[name])
-        if (
-            declared is not None
-            and declared.kind == "source"
-            and by_model[name][0].kind in ("insert", "merge")
-        ):
-            for c in declared.columns:
-                merged[c] = Deps()
-                merged[c].add_value(("source", declared.name, c), "copy", None)
-                columns.append(c)
-                lines[c] = sts[0].line
-        for st in sts:
-            resolver = StatementResolver(catalog, dialect, st.file, name, st.line)
-            if st.kind == "merge":
-                outs = _merge_query(resolver, st, catalog, dialect)
-            else:
-                assert st.query is not None
-                outs = resolver.resolve(st.query)
-            diagnostics.extend(resolver.diagnostics)
-            unknown_tables |= resolver.unknown_tables
-            for guess in resolver.inferred:
-                g.add_node(
-                    guess, kind="source", table=guess[1], column=guess[2], origin="inferred", inferred=True
-                )
-            if outs is None:
-                continue
-            names = [n for n, _ in outs]
-            if st.columns is not None:
-                if len(st.columns) != len(outs):
-                    diagnostics.append(
-                        Diagnostic(
-                            st.file,
-                            st.line,
-                            name,
-                            "unsupported",
-                            f"column list names {len(st.columns)} columns, the query has {len(outs)}",
-                        )
-                    )
-                names = list(st.columns[: len(outs)]) + names[len(st.columns) :]
-            elif st.kind == "insert" and columns:  # no column list: by position, as the table has them
-                names = columns[: len(outs)] + names[len(columns) :]
-            names = _dedupe_names(names) if st.kind != "insert" else names
-            into_declared = declared is not None and declared.kind == "source" and st.kind != "create"
-            if into_declared and declared is not None:
-                extra = [n for n in names if n not in declared.columns]
-                if extra:
-                    diagnostics.append(
-                        Diagnostic(
-                            st.file,
-                            st.line,
-                            name,
-                            "not in schema",
-                            f"{name}.{extra[0]}",
-                            tuple(difflib.get_close_matches(extra[0], columns, n=3)),
-                        )
-                    )
-            earlier = list(columns)
-            for n, (_, d) in zip(names, outs, strict=False):
-                if into_declared and n not in columns:
-                    continue  # not a column of the declared table: reported above
-                if n not in merged:
-                    merged[n] = Deps()
-                    columns.append(n)
-                    lines[n] = st.line
-                merged[n].merge(d)
-            if st.kind in ("insert", "merge"):
-                # a column the statement does not set still gains rows: only what decides them
-                for c in earlier:
-                    if c not in names:
-                        merged[c].merge(resolver.row_deps)
+        one = resolve_model(name, sts, catalog, dialect)
+        diagnostics.extend(one.diagnostics)
+        unknown_tables |= one.unknown_tables
+        for guess in one.inferred:
+            g.add_node(
+                guess, kind="source", table=guess[1], column=guess[2], origin="inferred", inferred=True
+            )
+        columns, lines, merged = one.columns, one.lines, one.merged
         models[name] = ModelInfo(name, sorted({s.file for s in sts}), columns, lines)
-        visible = list(columns)
-        for (kind, table, col), (what, new) in (edits or {}).items():
-            if (
-                kind == "model" and table == name and col in visible
-            ):  # a simulated edit of this model's output
-                visible.remove(col)
-                if what == "rename" and new:
-                    visible.append(new)
+        visible = _visible(name, columns, edits)
         catalog.add(TableInfo("model", name, parts_of[name], visible, origin="model"))
         catalog.pending.discard(parts_of[name])
         file_of = sts[0].file
@@ -495,5 +526,60 @@ def build_project(
         g.add_node(("source", t, "*"), kind="source", table=t, column="*", origin="unknown", placeholder=True)
     catalog.pending = set()
     return Project(
-        g, catalog, models, {m.table: m for m in mappings}, diagnostics, dialect, order, tables, views_of(g)
+        g,
+        catalog,
+        models,
+        {m.table: m for m in mappings},
+        diagnostics,
+        dialect,
+        order,
+        tables,
+        views_of(g),
+        dict(by_model),
+        reads,
+        deps,
     )
+
+
+def _reads_table(reads: set[tuple[str, ...]], parts: tuple[str, ...]) -> bool:
+    return any(r == parts or parts[-len(r) :] == r or r[-len(parts) :] == parts for r in reads)
+
+
+def simulate(project: Project, edits: dict[Node, Any]) -> list[Diagnostic]:
+    """What the models would report after a schema edit, re-resolving only the models it reaches.
+
+    A model is re-resolved when it reads an edited table; its readers only when the columns it
+    shows them change (a column dropped from a ``SELECT *``), and so on downstream. Every other
+    model reports what it reported before. Equal to a full rebuild's diagnostics (tested)."""
+    dialect = project.dialect
+    catalog = mapping_catalog(list(project.sources.values()), dialect, edits, project.tables)
+    edited_sources = [catalog.find(_normalise_name(t, dialect)) for k, t, _ in edits if k == "source"]
+    source_parts = {info.parts for info in edited_sources if info is not None}
+    todo = {
+        name
+        for name, reads in project.reads.items()
+        if any(_reads_table(reads, parts) for parts in source_parts)
+    }
+    for kind, table, _ in edits:
+        if kind == "model" and table in project.readers:
+            todo |= set(project.readers.successors(table))
+    for info in project.catalog.tables.values():
+        if info.kind == "model" and info.name not in todo:
+            cols = (
+                _visible(info.name, project.models[info.name].columns, edits)
+                if info.name in project.models
+                else info.columns
+            )
+            catalog.add(TableInfo("model", info.name, info.parts, cols, origin="model"))
+    out: list[Diagnostic] = []
+    for name in project.order:
+        if name not in todo:
+            continue
+        sts = project.statements[name]
+        one = resolve_model(name, sts, catalog, dialect)
+        out.extend(one.diagnostics)
+        visible = _visible(name, one.columns, edits)
+        if visible != _visible(name, project.models[name].columns, edits):
+            todo |= set(project.readers.successors(name))
+        catalog.add(TableInfo("model", name, sts[0].target, visible, origin="model"))
+    return out

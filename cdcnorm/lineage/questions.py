@@ -18,7 +18,7 @@ import networkx as nx
 from sqlglot import exp
 
 from cdcnorm.errors import LineageError, did_you_mean
-from cdcnorm.lineage.graph import Project, build_project, node_name, normalise_column
+from cdcnorm.lineage.graph import Project, node_name, normalise_column, simulate
 from cdcnorm.lineage.models import LoadedModels
 from cdcnorm.lineage.resolve import Node
 from cdcnorm.mapping.load import LoadedMapping
@@ -312,19 +312,17 @@ def impact(
     # A source column renamed at the source keeps its canonical field (the mapping's `from`
     # follows it), so only the mapping breaks; dropped, the field loses its data and every
     # reference to it breaks. A model column's drop or rename breaks its readers.
-    simulate = (
+    resimulate = (
         (node[0] == "model" and edit.kind in ("drop", "rename"))
         or (fields and edit.kind == "drop")
         or (node[0] == "source" and edit.kind == "rename")  # the canonical field itself renamed
     )
-    if simulate:
+    if resimulate:
         targets = [node] if node[0] == "model" else fields
         edits: dict[Node, Any] = {t: (edit.kind, edit.value) for t in targets}
         before = {(d.model, d.reason, d.reference) for d in project.diagnostics}
-        simulated = build_project(
-            None, mappings, project.dialect, loaded=loaded, edits=edits, tables=project.tables
-        )
-        for d in simulated.diagnostics:
+        # only the models the edit reaches are resolved again
+        for d in simulate(project, edits):
             if (d.model, d.reason, d.reference) not in before:
                 result["broken_models"].append(d.as_dict())
     # the engine's own answer: bind and run every model before and after the edit
@@ -375,16 +373,19 @@ def impact(
                     }
                 )
     # the edited column decides rows through these influence edges (join, filter, group keys ...)
+    # (each clause's edge ends, then one search downstream per clause: linear, however many dependents)
     reach = nx.descendants(g, node) | {node}
-    keyed = [
-        (v, d["clauses"])
-        for u in reach
-        for _, v, k, d in g.out_edges(u, keys=True, data=True)
-        if k == "influence"
-    ]
+    ends: dict[str, set[Node]] = {}
+    for u in reach:
+        for _, v, k, d in g.out_edges(u, keys=True, data=True):
+            if k == "influence":
+                for c in d["clauses"].split(","):
+                    if c:
+                        ends.setdefault(c, set()).add(v)
+    every = project.view().every
+    reached = {c: _closure(every, vs, up=False) for c, vs in ends.items()}
     for n in idep:
-        upstream = nx.ancestors(g, n) | {n}
-        clauses = sorted({c for v, cs in keyed if v in upstream for c in cs.split(",") if c})
+        clauses = sorted(c for c, r in reached.items() if n in r)
         result["row_changes"].append({"column": node_name(n), "clauses": clauses})
     return result
 

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from typing import Any
 
+import networkx as nx
 from sqlglot import exp
 from sqlglot.errors import OptimizeError, SchemaError
 from sqlglot.optimizer.annotate_types import annotate_types
@@ -40,10 +41,20 @@ def _root_types(query: exp.Expr, catalog: Any, dialect: str) -> list[str] | None
 
 
 def type_models(
-    project: Project, loaded: LoadedModels, edits: dict[Node, Any] | None = None
+    project: Project,
+    loaded: LoadedModels,
+    edits: dict[Node, Any] | None = None,
+    only: set[str] | None = None,
 ) -> dict[Node, str]:
     """Each model column's type (``UNKNOWN`` where sqlglot cannot tell), with ``edits`` applied
-    to the source tables first (a retype changes what every reader computes)."""
+    to the source tables first (a retype changes what every reader computes). ``only`` types
+    those models and the models they read, upstream first, and no other."""
+    if only is not None:
+        wanted = set(only)
+        for name in only:
+            if name in project.readers:
+                wanted |= nx.ancestors(project.readers, name)
+        only = wanted
     dialect = project.dialect
     catalog = mapping_catalog(list(project.sources.values()), dialect, edits, project.tables)
     by_model: dict[str, list[Any]] = {}
@@ -52,7 +63,7 @@ def type_models(
     types: dict[Node, str] = {}
     for name in project.order:
         info = project.models.get(name)
-        if info is None:
+        if info is None or (only is not None and name not in only):
             continue
         found: dict[str, str] = {}
         for st in by_model.get(name, []):

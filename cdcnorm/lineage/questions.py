@@ -351,8 +351,10 @@ def impact(
             # each dependent's type before and after, from sqlglot's type annotation
             from cdcnorm.lineage.annotate import type_models
 
-            typed_before = type_models(project, loaded)
-            typed_after = type_models(project, loaded, {f: ("retype", edit.value) for f in fields})
+            affected = {n[1] for n in vdep}
+            typed_before = type_models(project, loaded, only=affected)
+            retyped = {f: ("retype", edit.value) for f in fields}
+            typed_after = type_models(project, loaded, retyped, only=affected)
             for n in vdep:
                 path = _path(project, node, n, True)
                 copies = all(step["how"] == "copy" for step in path)

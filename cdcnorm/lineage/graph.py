@@ -21,8 +21,16 @@ import networkx as nx
 from sqlglot import exp
 
 from cdcnorm.lineage.diagnostics import Diagnostic
-from cdcnorm.lineage.models import LoadedModels, ModelStatement, load_models
-from cdcnorm.lineage.resolve import Catalog, Deps, Node, StatementResolver, TableInfo, table_parts
+from cdcnorm.lineage.models import LoadedModels, ModelStatement, load_models, paused_gc
+from cdcnorm.lineage.resolve import (
+    Catalog,
+    Deps,
+    Node,
+    StatementResolver,
+    TableInfo,
+    folded_parts,
+    table_parts,
+)
 from cdcnorm.mapping.load import LoadedMapping
 
 SQL_TYPES = {
@@ -190,14 +198,12 @@ def _drop_default_prefixes(statement: exp.Expr, known: set[tuple[str, ...]]) -> 
 def _referenced_tables(stmt: ModelStatement, dialect: str) -> list[tuple[str, ...]]:
     """The tables a statement reads, their names folded as the dialect folds them (``STG_FARES``
     is ``stg_fares`` in DuckDB), so that the build order follows every reference."""
-    from sqlglot.optimizer.normalize_identifiers import normalize_identifiers
-
     ctes = {c.alias_or_name for c in stmt.statement.find_all(exp.CTE)}
     out = []
     for t in stmt.statement.find_all(exp.Table):
         if not t.name or (len(t.parts) == 1 and t.name in ctes):
             continue
-        out.append(table_parts(normalize_identifiers(t.copy(), dialect=dialect)))
+        out.append(folded_parts(t, dialect))
     return out
 
 
@@ -400,6 +406,18 @@ def build_project(
 
     ``tables`` adds source tables known by schema only (name -> column -> SQL type).
     """
+    with paused_gc():
+        return _build_project(models_dir, mappings, dialect, loaded, edits, tables)
+
+
+def _build_project(
+    models_dir: Path | None,
+    mappings: list[LoadedMapping],
+    dialect: str,
+    loaded: LoadedModels | None,
+    edits: dict[Node, Any] | None,
+    tables: dict[str, dict[str, str]] | None,
+) -> Project:
     if loaded is None:
         loaded = (
             load_models(models_dir, dialect)
@@ -457,11 +475,14 @@ def build_project(
     deps = nx.DiGraph()
     deps.add_nodes_from(by_model)
     reads: dict[str, set[tuple[str, ...]]] = {}
+    by_last: dict[str, list[tuple[str, tuple[str, ...]]]] = {}  # models by the last part of their name
+    for other, oparts in parts_of.items():
+        by_last.setdefault(oparts[-1], []).append((other, oparts))
     for name, sts in by_model.items():
         for st in sts:
             for parts in _referenced_tables(st, dialect):
                 reads.setdefault(name, set()).add(parts)
-                for other, oparts in parts_of.items():
+                for other, oparts in by_last.get(parts[-1], []):
                     if other != name and (oparts == parts or oparts[-len(parts) :] == parts):
                         deps.add_edge(other, name)
     # Upstream first. Models that read each other (a cycle) cannot be ordered: each cycle is one

@@ -8,8 +8,12 @@ that does not parse is reported, and the rest of the project still builds.
 
 from __future__ import annotations
 
+import contextlib
+import gc
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import sqlglot
 from sqlglot import exp
@@ -50,9 +54,8 @@ def _normalise(name: exp.Expr, dialect: str) -> tuple[str, ...]:
     return (norm.name,)
 
 
-def _statement_lines(sql: str, dialect: str) -> list[int]:
+def _statement_lines(tokens: list[Any]) -> list[int]:
     """The line where each statement starts (statements split at top-level semicolons)."""
-    tokens = sqlglot.Dialect.get_or_raise(dialect).tokenize(sql)
     lines = []
     start = True
     for tok in tokens:
@@ -95,8 +98,10 @@ def load_model_file(path: Path, dialect: str, root: Path | None = None) -> Loade
         )
         return out
     try:
-        statements = sqlglot.parse(sql, read=dialect)
-        lines = _statement_lines(sql, dialect)
+        d = sqlglot.Dialect.get_or_raise(dialect)
+        tokens = d.tokenize(sql)  # once: for the parser and for each statement's first line
+        statements = d.parser().parse(tokens, sql)
+        lines = _statement_lines(tokens)
     except (ParseError, TokenError) as e:
         errs = getattr(e, "errors", None) or [{}]
         line = errs[0].get("line") if isinstance(errs[0], dict) else None
@@ -163,8 +168,26 @@ def unsupported(stmt: exp.Expr) -> str | None:
     return f"a {stmt.key.upper()} statement is not traced"
 
 
+@contextlib.contextmanager
+def paused_gc() -> Iterator[None]:
+    """The build makes millions of objects that all live on (parsed models, the graph): the cyclic
+    collector's passes over them would find nothing to free, so it waits until the build is done."""
+    was = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was:
+            gc.enable()
+
+
 def load_models(folder: Path, dialect: str) -> LoadedModels:
     """Every ``*.sql`` file under ``folder`` (recursively), in path order."""
+    with paused_gc():
+        return _load_models(folder, dialect)
+
+
+def _load_models(folder: Path, dialect: str) -> LoadedModels:
     out = LoadedModels()
     paths = [folder] if folder.is_file() else sorted(folder.rglob("*.sql"))
     root = folder if folder.is_dir() else folder.parent

@@ -27,6 +27,7 @@ from collections.abc import Iterable
 from dataclasses import dataclass, field
 
 from sqlglot import exp
+from sqlglot.dialects.dialect import Dialect
 from sqlglot.errors import OptimizeError, SchemaError
 from sqlglot.optimizer.qualify import qualify
 from sqlglot.optimizer.scope import Scope, build_scope
@@ -115,14 +116,10 @@ class Catalog:
         tables = self.tables
         if query is not None:
             tables = {}
-            from sqlglot.optimizer.normalize_identifiers import normalize_identifiers
-
             for t in query.find_all(exp.Table):
                 if not t.name:
                     continue
-                info = self.find(table_parts(t)) or self.find(
-                    table_parts(normalize_identifiers(t.copy(), dialect=dialect))
-                )
+                info = self.find(table_parts(t)) or self.find(folded_parts(t, dialect))
                 if info is not None:
                     tables[info.parts] = info
         depth = max((len(p) for p in tables), default=1)
@@ -166,6 +163,16 @@ def table_parts(table: exp.Table) -> tuple[str, ...]:
     return tuple(p.name for p in table.parts)
 
 
+def folded_parts(table: exp.Table, dialect: str) -> tuple[str, ...]:
+    """The table's name parts as the dialect folds them (unquoted ``STG_FARES`` is ``stg_fares``
+    in DuckDB), without copying the table."""
+    d = Dialect.get_or_raise(dialect)
+    return tuple(
+        d.normalize_identifier(exp.Identifier(this=p.name, quoted=bool(p.args.get("quoted")))).name
+        for p in table.parts
+    )
+
+
 class StatementResolver:
     def __init__(self, catalog: Catalog, dialect: str, file: str, model: str, default_line: int) -> None:
         self.catalog = catalog
@@ -197,7 +204,7 @@ class StatementResolver:
                     schema=schema,
                     dialect=self.dialect,
                     validate_qualify_columns=False,
-                    identify=False,
+                    quote_identifiers=False,
                 )
                 break
             except OptimizeError as e:

@@ -596,3 +596,54 @@ def test_a_project_file_holds_the_settings_and_options_override_it(
     (tmp_path / "pyproject.toml").write_text('[tool.cdcnorm]\nmodel = "sql"\n')
     assert cli("trace", "fares_eur.doubled") == 2
     assert 'did you mean "models"' in capsys.readouterr().err
+
+
+TRIPLEGS = """
+table: Fleet.TripLegs
+files: ["legs-*.csv"]
+key: [LegId]
+change:
+  action:   {column: op, codes: {D: delete, I: insert, U: after}}
+  position: {column: lsn, kind: integer}
+fields:
+  LegId: integer
+  PickupAt: {type: timestamp, zone: "+00:00"}
+  FareAmount: decimal(10,2)
+"""
+
+
+def test_mixed_case_names_from_a_mapping_are_kept_exactly(tmp_path: Path) -> None:
+    """DuckDB (case-insensitive, keeps names as declared) and PostgreSQL (case-sensitive) as the
+    oracles of what a reference matches and what a view's columns are called."""
+    import duckdb
+
+    (tmp_path / "mappings").mkdir()
+    (tmp_path / "mappings" / "legs.yaml").write_text(TRIPLEGS)
+    mappings = load_mappings(tmp_path / "mappings")
+    sql = 'SELECT legid, pickupat, "FAREAMOUNT" * 2 AS DoubledFare FROM fleet.triplegs'
+    (tmp_path / "models").mkdir()
+    (tmp_path / "models" / "legs_x2.sql").write_text(sql)
+    loaded = load_models(tmp_path / "models", "duckdb")
+    project = build_project(None, mappings, "duckdb", loaded=loaded)
+    assert project.diagnostics == []
+    assert project.models["legs_x2"].columns == ["LegId", "PickupAt", "DoubledFare"]
+    assert trace(project, "legs_x2.DoubledFare")["value"] == ["Fleet.TripLegs.FareAmount"]
+    assert trace(project, "legs_x2.PickupAt")["raw"] == ["Fleet.TripLegs.PickupAt"]
+    assert trace(project, "fleet.triplegs.pickupat")["column"] == "Fleet.TripLegs.PickupAt"
+    # DuckDB names the view's columns the same way
+    con = duckdb.connect()
+    con.execute('CREATE SCHEMA "Fleet"')
+    con.execute(
+        'CREATE TABLE "Fleet"."TripLegs" ("LegId" BIGINT, "PickupAt" TIMESTAMPTZ, "FareAmount" DECIMAL(10,2))'
+    )
+    con.execute(f"CREATE VIEW legs_x2 AS {sql}")
+    assert [r[0] for r in con.execute("DESCRIBE legs_x2").fetchall()] == project.models["legs_x2"].columns
+    # PostgreSQL matches a quoted name exactly and folds an unquoted one to lower case
+    (tmp_path / "models" / "legs_x2.sql").write_text(
+        'SELECT "PickupAt", pickupat AS folded FROM "Fleet"."TripLegs";\n'
+    )
+    pg = build_project(None, mappings, "postgres", loaded=load_models(tmp_path / "models", "postgres"))
+    assert pg.models["legs_x2"].columns == ["PickupAt", "folded"]
+    assert trace(pg, "legs_x2.PickupAt")["value"] == ["Fleet.TripLegs.PickupAt"]
+    miss = [d for d in pg.diagnostics if d.reason == "not in schema"]
+    assert [(d.reference, d.candidates) for d in miss] == [("pickupat", ("PickupAt",))]

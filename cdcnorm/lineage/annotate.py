@@ -17,7 +17,7 @@ from sqlglot.optimizer.qualify import qualify
 
 from cdcnorm.lineage.graph import Project, mapping_catalog
 from cdcnorm.lineage.models import LoadedModels
-from cdcnorm.lineage.resolve import Node, TableInfo
+from cdcnorm.lineage.resolve import Node, declared_table
 
 UNKNOWN = "UNKNOWN"
 
@@ -81,5 +81,5 @@ def type_models(
         for col in info.columns:
             types[("model", name, col)] = found.get(col, UNKNOWN)
         parts = by_model[name][0].target if by_model.get(name) else (name,)
-        catalog.add(TableInfo("model", name, parts, list(info.columns), found, "model"))
+        catalog.add(declared_table("model", name, parts, list(info.columns), dialect, found, "model"))
     return types

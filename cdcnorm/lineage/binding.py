@@ -57,7 +57,7 @@ def _build(
             if len(info.parts) > 1:
                 con.execute(f"CREATE SCHEMA IF NOT EXISTS {ident(info.parts[-2])}")
             name = ".".join(ident(p) for p in info.parts[-2:])
-            cols = ", ".join(f"{ident(c)} {info.types.get(c) or 'VARCHAR'}" for c in info.columns)
+            cols = ", ".join(f"{ident(info.shown(c))} {info.types.get(c) or 'VARCHAR'}" for c in info.columns)
             con.execute(f"CREATE TABLE {name} ({cols})")
             values = ", ".join(_sample(con, info.types.get(c) or "VARCHAR") for c in info.columns)
             con.execute(f"INSERT INTO {name} VALUES ({values})")
@@ -122,13 +122,14 @@ def edited_tables(
             out.append(info)
             continue
         cols, types = [], {}
-        for c in info.columns:
+        for f in info.columns:
+            c = info.shown(f)
             if c == column and kind == "drop":
                 continue
             new = value if (c == column and kind == "rename" and value) else c
             cols.append(new)
             types[new] = (
-                value if (c == column and kind == "retype" and value) else info.types.get(c, "VARCHAR")
+                value if (c == column and kind == "retype" and value) else info.types.get(f, "VARCHAR")
             )
         out.append(TableInfo(info.kind, info.name, info.parts, cols, types))
     return out

@@ -30,6 +30,7 @@ from sqlglot import exp
 from sqlglot.errors import ParseError, TokenError
 
 from cdcnorm.errors import UsageError
+from cdcnorm.lineage.resolve import written
 
 Tables = dict[str, dict[str, str]]
 
@@ -79,12 +80,15 @@ def _create_tables(path: Path, dialect: str) -> Tables:
         if not isinstance(stmt, exp.Create) or not isinstance(stmt.this, exp.Schema):
             continue  # only CREATE TABLE t (columns) declares a schema
         table = stmt.this.this
-        name = ".".join(p.name for p in table.parts)
+        # names as the database would store them: unquoted ones folded where the dialect folds
+        name = ".".join(written(p, dialect) for p in table.parts)
         cols = {}
         for col in stmt.this.expressions:
             if isinstance(col, exp.ColumnDef):
                 kind = col.args.get("kind")
-                cols[col.name] = kind.sql(dialect=dialect) if isinstance(kind, exp.Expr) else "TEXT"
+                cols[written(col.this, dialect)] = (
+                    kind.sql(dialect=dialect) if isinstance(kind, exp.Expr) else "TEXT"
+                )
         out[name] = cols
     if not out:
         raise UsageError(

@@ -27,9 +27,11 @@ from cdcnorm.lineage.resolve import (
     Deps,
     Node,
     StatementResolver,
-    TableInfo,
+    declared_table,
+    fold,
     folded_parts,
     table_parts,
+    written,
 )
 from cdcnorm.mapping.load import LoadedMapping
 
@@ -148,35 +150,47 @@ def mapping_catalog(
     """Source tables from the mappings (and plain ``tables``: name -> column -> SQL type);
     ``edits`` simulate a schema edit (see questions.impact)."""
     cat = Catalog()
+    # names are kept exactly as declared (``Fleet.TripLegs``, ``PickupAt``); the catalog matches
+    # references to them as the dialect does
     for name, declared in (tables or {}).items():
         kept: dict[str, str] = {}
         for c, t in declared.items():
-            col = normalise_column(c, dialect)
-            what, new = (edits or {}).get(("source", name, col), ("", ""))
+            what, new = (edits or {}).get(("source", name, c), ("", ""))
             if what == "drop":
                 continue
-            kept[normalise_column(new, dialect) if what == "rename" else col] = new if what == "retype" else t
-        cat.add(TableInfo("source", name, _normalise_name(name, dialect), list(kept), kept, "catalog"))
+            kept[new if what == "rename" else c] = new if what == "retype" else t
+        cat.add(
+            declared_table(
+                "source", name, declared_parts(name, dialect), list(kept), dialect, kept, "catalog"
+            )
+        )
     for lm in mappings:
-        parts = _normalise_name(lm.table, dialect)
         cols: list[str] = []
         types: dict[str, str] = {}
         for f in lm.mapping.fields:
-            col = normalise_column(f, dialect)
-            node: Node = ("source", lm.table, col)
-            edit = (edits or {}).get(node)
+            col = f
+            edit = (edits or {}).get(("source", lm.table, f))
             typ = source_type(lm, f)
             if edit is not None:
                 if edit[0] == "drop":
                     continue
                 if edit[0] == "rename":
-                    col = normalise_column(edit[1], dialect)
+                    col = edit[1]
                 if edit[0] == "retype":
                     typ = edit[1]
             cols.append(col)
             types[col] = typ
-        cat.add(TableInfo("source", lm.table, parts, cols, types, "mapping"))
+        cat.add(
+            declared_table(
+                "source", lm.table, declared_parts(lm.table, dialect), cols, dialect, types, "mapping"
+            )
+        )
     return cat
+
+
+def declared_parts(name: str, dialect: str) -> tuple[str, ...]:
+    """A declared table name (``Fleet.TripLegs``), split at its dots, as references match it."""
+    return tuple(fold(p, dialect) for p in name.split("."))
 
 
 #: The schema a name without one lands in (DuckDB's and PostgreSQL's default, SQLite's database).
@@ -226,6 +240,10 @@ def _dedupe_names(names: list[str]) -> list[str]:
     return out
 
 
+def _written_column(col: exp.Expr, dialect: str) -> str:
+    return written(col.this if isinstance(col, exp.Column) else col, dialect)
+
+
 def _merge_query(
     resolver: StatementResolver, stmt: ModelStatement, catalog: Catalog, dialect: str
 ) -> list[tuple[str, Deps]] | None:
@@ -243,12 +261,12 @@ def _merge_query(
         matched = bool(when.args.get("matched"))
         if isinstance(then, exp.Update):
             for eq in then.expressions:
-                assignments.append((eq.this.name, eq.expression, cond, matched))
+                assignments.append((_written_column(eq.this, dialect), eq.expression, cond, matched))
         elif isinstance(then, exp.Insert):
             cols = then.this.expressions if isinstance(then.this, exp.Tuple) else []
             vals = then.expression.expressions if isinstance(then.expression, exp.Tuple) else []
             for c, v in zip(cols, vals, strict=False):
-                assignments.append((c.name, v, cond, matched))
+                assignments.append((_written_column(c, dialect), v, cond, matched))
         elif isinstance(then, exp.Var) and then.name.upper() == "DELETE":
             assignments.append(("", exp.null(), cond, matched))  # no value: it decides rows only
     if not assignments:
@@ -260,7 +278,7 @@ def _merge_query(
         else stmt.target
     )
     if catalog.find(tuple(parts)) is None:
-        catalog.add(TableInfo("model", stmt.name, tuple(parts), names))
+        catalog.add(declared_table("model", stmt.name, tuple(parts), names, dialect, origin="model"))
     out: dict[str, Deps] = {}
     # what decides which rows the MERGE adds (WHEN NOT MATCHED ... INSERT) or removes (... DELETE):
     # a column no clause sets gains only these
@@ -318,7 +336,7 @@ def resolve_model(name: str, sts: list[ModelStatement], catalog: Catalog, dialec
     # its full column list, and its rows so far are the declared table's
     declared = catalog.find(sts[0].target)
     if declared is not None and declared.kind == "source" and sts[0].kind in ("insert", "merge"):
-        for c in declared.columns:
+        for c in (declared.shown(f) for f in declared.columns):
             merged[c] = Deps()
             merged[c].add_value(("source", declared.name, c), "copy", None)
             columns.append(c)
@@ -352,8 +370,11 @@ def resolve_model(name: str, sts: list[ModelStatement], catalog: Catalog, dialec
             names = columns[: len(outs)] + names[len(columns) :]
         names = _dedupe_names(names) if st.kind != "insert" else names
         into_declared = declared is not None and declared.kind == "source" and st.kind != "create"
+        if columns:  # a name the table has, in another case, is that column (as the dialect folds)
+            same = {fold(c, dialect): c for c in columns}
+            names = [same.get(fold(n, dialect), n) for n in names]
         if into_declared and declared is not None:
-            extra = [n for n in names if n not in declared.columns]
+            extra = [n for n in names if fold(n, dialect) not in declared.columns]
             if extra:
                 diagnostics.append(
                     Diagnostic(
@@ -429,10 +450,10 @@ def _build_project(
     for info in catalog.tables.values():
         for col in info.columns:
             g.add_node(
-                ("source", info.name, col),
+                ("source", info.name, info.shown(col)),
                 kind="source",
                 table=info.name,
-                column=col,
+                column=info.shown(col),
                 type=info.types.get(col),
                 origin=info.origin,
             )
@@ -440,15 +461,13 @@ def _build_project(
     # mapping layer: raw dump column -> canonical field
     for lm in mappings:
         for f in lm.mapping.fields:
-            col = normalise_column(f, dialect)
+            col = f
             node: Node = ("source", lm.table, col)
             edit = (edits or {}).get(node)
             raw: Node = ("raw", lm.table, lm.mapping.raw_column(f))
             g.add_node(raw, kind="raw", table=lm.table, column=raw[2])
             if edit is not None and edit[0] in ("drop", "rename"):
                 continue
-            if edit is not None and edit[0] == "rename":
-                node = ("source", lm.table, normalise_column(edit[1], dialect))
             ftype = lm.field_types[f]
             sub = "copy" if ftype.name == "text" and not getattr(ftype, "max_length", None) else "transform"
             g.add_node(
@@ -524,7 +543,7 @@ def _build_project(
         columns, lines, merged = one.columns, one.lines, one.merged
         models[name] = ModelInfo(name, sorted({s.file for s in sts}), columns, lines)
         visible = _visible(name, columns, edits)
-        catalog.add(TableInfo("model", name, parts_of[name], visible, origin="model"))
+        catalog.add(declared_table("model", name, parts_of[name], visible, dialect, origin="model"))
         catalog.pending.discard(parts_of[name])
         file_of = sts[0].file
         for col in columns:
@@ -574,7 +593,7 @@ def simulate(project: Project, edits: dict[Node, Any]) -> list[Diagnostic]:
     model reports what it reported before. Equal to a full rebuild's diagnostics (tested)."""
     dialect = project.dialect
     catalog = mapping_catalog(list(project.sources.values()), dialect, edits, project.tables)
-    edited_sources = [catalog.find(_normalise_name(t, dialect)) for k, t, _ in edits if k == "source"]
+    edited_sources = [catalog.find(declared_parts(t, dialect)) for k, t, _ in edits if k == "source"]
     source_parts = {info.parts for info in edited_sources if info is not None}
     todo = {
         name
@@ -589,9 +608,9 @@ def simulate(project: Project, edits: dict[Node, Any]) -> list[Diagnostic]:
             cols = (
                 _visible(info.name, project.models[info.name].columns, edits)
                 if info.name in project.models
-                else info.columns
+                else [info.shown(c) for c in info.columns]
             )
-            catalog.add(TableInfo("model", info.name, info.parts, cols, origin="model"))
+            catalog.add(declared_table("model", info.name, info.parts, cols, dialect, origin="model"))
     out: list[Diagnostic] = []
     for name in project.order:
         if name not in todo:
@@ -602,5 +621,5 @@ def simulate(project: Project, edits: dict[Node, Any]) -> list[Diagnostic]:
         visible = _visible(name, one.columns, edits)
         if visible != _visible(name, project.models[name].columns, edits):
             todo |= set(project.readers.successors(name))
-        catalog.add(TableInfo("model", name, sts[0].target, visible, origin="model"))
+        catalog.add(declared_table("model", name, sts[0].target, visible, dialect, origin="model"))
     return out

@@ -67,23 +67,22 @@ def _statement_lines(tokens: list[Any]) -> list[int]:
     return lines
 
 
-def _column_names(schema: exp.Expr | None) -> list[str] | None:
+def _column_names(schema: exp.Expr | None, dialect: str) -> list[str] | None:
+    """A column list's names as the engine names the columns (see resolve.written)."""
+    from cdcnorm.lineage.resolve import written
+
     if isinstance(schema, exp.Schema) and schema.expressions:
         names = []
         for col in schema.expressions:
             ident = col.this if isinstance(col, exp.ColumnDef) else col
-            names.append(ident.name)
+            names.append(written(ident, dialect))
         return names
     return None
 
 
 def _target_and_columns(target: exp.Expr, dialect: str) -> tuple[tuple[str, ...], list[str] | None]:
-    from sqlglot.optimizer.normalize_identifiers import normalize_identifiers
-
     if isinstance(target, exp.Schema):
-        table = target.this
-        cols = normalize_identifiers(target.copy(), dialect=dialect)
-        return _normalise(table, dialect), _column_names(cols)
+        return _normalise(target.this, dialect), _column_names(target, dialect)
     return _normalise(target, dialect), None
 
 

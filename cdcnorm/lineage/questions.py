@@ -53,6 +53,11 @@ def find_column(project: Project, text: str) -> Node:
             node: Node = (kind, t, col)
             if node in g:
                 return node
+    # a name in another case, where only one column matches it so (``fleet.triplegs.pickupat``)
+    same: list[Node] = [n for n in g.nodes if n[0] in kinds and node_name(n).lower() == text.lower()]
+    if len({n[0] for n in same}) == len(same) and same:
+        best: Node = sorted(same, key=lambda n: kinds.index(n[0]))[0]
+        return best
     names = sorted({node_name(n) for n in g.nodes})
     raise LineageError(f"no column {text} in the mappings or models{did_you_mean(text, names)}")
 

@@ -27,7 +27,7 @@ from collections.abc import Iterable
 from dataclasses import dataclass, field
 
 from sqlglot import exp
-from sqlglot.dialects.dialect import Dialect
+from sqlglot.dialects.dialect import Dialect, NormalizationStrategy
 from sqlglot.errors import OptimizeError, SchemaError
 from sqlglot.optimizer.qualify import qualify
 from sqlglot.optimizer.scope import Scope, build_scope
@@ -83,6 +83,51 @@ class TableInfo:
     columns: list[str]
     types: dict[str, str] = field(default_factory=dict)
     origin: str = ""  # mapping | catalog | model
+    #: each column's name as declared (``PickupAt``), where ``columns`` holds it as the dialect
+    #: matches it (``pickupat`` in DuckDB, which ignores case; ``PickupAt`` in PostgreSQL)
+    display: dict[str, str] = field(default_factory=dict)
+
+    def shown(self, column: str) -> str:
+        return self.display.get(column, column)
+
+
+def fold(name: str, dialect: str) -> str:
+    """A declared name as the dialect matches references to it: taken as quoted, so kept exactly
+    where case matters (PostgreSQL) and in lower case where it does not (DuckDB)."""
+    d = Dialect.get_or_raise(dialect)
+    return str(d.normalize_identifier(exp.Identifier(this=name, quoted=True)).name)
+
+
+def written(ident: exp.Expr, dialect: str) -> str:
+    """The name an engine gives a column a query names: as written where the dialect ignores case
+    (DuckDB keeps ``AS TotalFare``), folded where it folds unquoted names (PostgreSQL)."""
+    d = Dialect.get_or_raise(dialect)
+    if d.NORMALIZATION_STRATEGY is NormalizationStrategy.CASE_INSENSITIVE:
+        return str(ident.name)
+    quoted = bool(ident.args.get("quoted")) if isinstance(ident, exp.Identifier) else False
+    return str(d.normalize_identifier(exp.Identifier(this=ident.name, quoted=quoted)).name)
+
+
+def declared_table(
+    kind: str,
+    name: str,
+    parts: tuple[str, ...],
+    shown: list[str],
+    dialect: str,
+    types: dict[str, str] | None = None,
+    origin: str = "",
+) -> TableInfo:
+    """A table whose columns are given as declared or shown (``shown``; ``types`` keyed the same)."""
+    cols = [fold(c, dialect) for c in shown]
+    return TableInfo(
+        kind,
+        name,
+        parts,
+        cols,
+        {f: (types or {}).get(c, "") for f, c in zip(cols, shown, strict=True) if (types or {}).get(c)},
+        origin,
+        {f: c for f, c in zip(cols, shown, strict=True) if f != c},
+    )
 
 
 class Catalog:
@@ -238,7 +283,30 @@ class StatementResolver:
                     self.unknown_tables.add(".".join(table_parts(source)))
         outs = self.outputs(root)
         self.row_deps = self.rows(root)
-        return outs
+        return self._shown(query, outs)
+
+    def _shown(self, query: exp.Expr, outs: list[tuple[str, Deps]]) -> list[tuple[str, Deps]]:
+        """The statement's output names as the engine shows them: an alias as written (per the
+        dialect), a column passed through under its declared name (``PickupAt``)."""
+        d = Dialect.get_or_raise(self.dialect)
+        aliases: dict[str, str] = {}
+        for proj in query.selects if isinstance(query, exp.Query) else []:
+            ident = proj.args.get("alias") if isinstance(proj, exp.Alias) else None
+            if isinstance(ident, exp.Identifier):
+                key = d.normalize_identifier(exp.Identifier(this=ident.name, quoted=ident.quoted)).name
+                aliases.setdefault(key, written(ident, self.dialect))
+        out = []
+        for name, deps in outs:
+            shown = aliases.get(name)
+            if shown is None:
+                copies = {
+                    n[2]
+                    for n, sub in deps.value.items()
+                    if sub == "copy" and fold(n[2], self.dialect) == name
+                }
+                shown = copies.pop() if len(copies) == 1 else name
+            out.append((shown, deps))
+        return out
 
     # --- scopes -----------------------------------------------------------------------------
 
@@ -571,8 +639,14 @@ class StatementResolver:
                     [f"{t}.{name}" for t in owners],
                 )
             else:
-                known = sorted({c for a in scope.selected_sources for c in self._source_columns(scope, a)})
-                self._diag(line, "not in schema", name, difflib.get_close_matches(name, known, n=3))
+                shown: dict[str, str] = {}
+                for a in scope.selected_sources:
+                    src = scope.sources.get(a)
+                    info = self.catalog.find(table_parts(src)) if isinstance(src, exp.Table) else None
+                    for c in self._source_columns(scope, a):
+                        shown.setdefault(c, info.shown(c) if info else c)
+                close = difflib.get_close_matches(name, sorted(shown), n=3)
+                self._diag(line, "not in schema", name, [shown[c] for c in close])
             return Deps()
         src = self._find_source(table, scope)
         if src is None:
@@ -604,11 +678,11 @@ class StatementResolver:
                     line,
                     "not in schema",
                     f"{info.name}.{name}",
-                    difflib.get_close_matches(name, info.columns, n=3),
+                    [info.shown(c) for c in difflib.get_close_matches(name, info.columns, n=3)],
                 )
                 return Deps()
             d = Deps()
-            d.add_value((info.kind, info.name, name), "copy", line)
+            d.add_value((info.kind, info.name, info.shown(name)), "copy", line)
             return d
         return Deps()
 

@@ -692,7 +692,10 @@ class StatementResolver:
         parts = table_parts(table)
         tname = ".".join(parts)
         if any(p == parts or p[-len(parts) :] == parts for p in self.catalog.pending):
-            self._diag(line, "unknown table", f"{tname}.{name} (a model inside a cycle)")
+            # where the table is named, once: a model of the cycle, not resolved when this one is
+            self._diag(
+                _line(table) or line, "unknown table", f"{tname} (a model in the cycle, not resolved yet)"
+            )
             return Deps()
         close = difflib.get_close_matches(
             tname, [t.name for t in self.catalog.tables.values()], n=3, cutoff=0.8

@@ -121,3 +121,22 @@ def test_the_explorer_of_200_models_opens_quickly(browser: Any, tmp_path: Path) 
     assert len(_classes(page, "focus")) == 1
     page.close()
     print(f"explorer of {len(project.models)} models opened in {opened:.2f} s")  # figure for the README
+
+
+def test_tables_without_a_schema_are_placeholder_cards(browser: Any, tmp_path: Path) -> None:
+    models = tmp_path / "models"
+    models.mkdir()
+    (models / "fares_eur.sql").write_text(
+        "SELECT b.booking_id, b.fare * r.rate AS fare_eur\n"
+        "FROM ferry.bookings AS b JOIN ref.rates AS r ON r.currency = 'GBP'\n"
+    )
+    out = tmp_path / "p.html"
+    assert cli("lineage", "--models", str(models), "--mappings", str(MAPPINGS), "--out", str(out)) == 0
+    page = browser.new_page()
+    page.goto(out.as_uri())
+    page.wait_for_selector("body[data-ready='1']")
+    cards = page.eval_on_selector_all(
+        ".table.placeholder", "els => els.map(e => [e.dataset.table, getComputedStyle(e).borderStyle])"
+    )
+    assert cards == [["source:ref.rates", "dashed"]]  # drawn apart: its columns are inferred
+    page.close()

@@ -82,6 +82,11 @@ def test_columns_of_tables_without_a_schema_are_inferred_only_when_one_source_ca
     assert answer["complete"]  # inferred columns are an assumption the answer names, not a gap
     assert trace(project, "by_day.is_holiday")["value"] == ["cal.days.is_holiday"]
     assert not trace(project, "two.weight")["complete"]
+    # an edit of an inferred column is checked against the columns the models were seen to read
+    dropped = impact(project, "fx.rates.rate", Edit("drop"), mappings=[], loaded=None)
+    assert [(d["model"], d["reason"], d["reference"]) for d in dropped["broken_models"]] == [
+        ("local", "not in schema", "rate")
+    ]
     # the diagrams draw the tables without a schema as placeholders, also one with no known column
     dot = export(project.graph, tmp_path / "g.dot").read_text()
     assert "fx.rates (no schema: columns inferred from the models)" in dot

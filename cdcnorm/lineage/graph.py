@@ -593,6 +593,23 @@ def simulate(project: Project, edits: dict[Node, Any]) -> list[Diagnostic]:
     model reports what it reported before. Equal to a full rebuild's diagnostics (tested)."""
     dialect = project.dialect
     catalog = mapping_catalog(list(project.sources.values()), dialect, edits, project.tables)
+    g = project.graph
+    for (kind, table, col), (what, new) in edits.items():
+        if kind != "source" or catalog.find(declared_parts(table, dialect)) is not None:
+            continue
+        # a table no schema declares: its schema is the columns the models were seen to read, and
+        # the edit applies to those (a reader of a dropped column then breaks, as it would)
+        seen = sorted(
+            n[2] for n in g.nodes if n[0] == "source" and n[1] == table and g.nodes[n].get("inferred")
+        )
+        if col not in seen:
+            continue
+        cols = [c for c in seen if c != col] + ([new] if what == "rename" and new else [])
+        if what == "retype":
+            cols = seen
+        catalog.add(
+            declared_table("source", table, declared_parts(table, dialect), cols, dialect, origin="inferred")
+        )
     edited_sources = [catalog.find(declared_parts(t, dialect)) for k, t, _ in edits if k == "source"]
     source_parts = {info.parts for info in edited_sources if info is not None}
     todo = {

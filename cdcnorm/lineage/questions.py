@@ -328,7 +328,7 @@ def impact(
         before = {(d.model, d.reason, d.reference) for d in project.diagnostics}
         # only the models the edit reaches are resolved again
         for d in simulate(project, edits):
-            if (d.model, d.reason, d.reference) not in before:
+            if d.unresolved and (d.model, d.reason, d.reference) not in before:
                 result["broken_models"].append(d.as_dict())
     # the engine's own answer: bind and run every model before and after the edit
     binding_targets = (
@@ -341,7 +341,15 @@ def impact(
         result["binding"] = {
             "checked": True,
             "broken": [b for c in checks for b in c["broken"]],
-            "unavailable": [u for c in checks for u in c["unavailable"]],
+            "unavailable": [u for c in checks for u in c["unavailable"]]
+            + [
+                {
+                    "model": "*",
+                    "reason": f"{t[1]} has no schema (its columns are inferred): the engine cannot build it",
+                }
+                for t in binding_targets
+                if g.nodes[t].get("inferred")
+            ],
         }
     else:
         result["binding"] = {
@@ -350,7 +358,7 @@ def impact(
             "unavailable": [{"model": "*", "reason": "the edit is not of a source table's column"}],
         }
     if edit.kind == "retype" and edit.value:
-        old = g.nodes[node].get("type") or "TEXT"
+        old = g.nodes[node].get("type") or ("UNKNOWN" if g.nodes[node].get("inferred") else "TEXT")
         change = _type_change(old, edit.value, project.dialect)
         if change and loaded is not None:
             # each dependent's type before and after, from sqlglot's type annotation

@@ -652,3 +652,10 @@ def test_mixed_case_names_from_a_mapping_are_kept_exactly(tmp_path: Path) -> Non
     assert trace(pg, "legs_x2.PickupAt")["value"] == ["Fleet.TripLegs.PickupAt"]
     miss = [d for d in pg.diagnostics if d.reason == "not in schema"]
     assert [(d.reference, d.candidates) for d in miss] == [("pickupat", ("PickupAt",))]
+
+
+def test_lower_case_fields_match_unquoted_references_where_names_fold_to_upper_case(tmp_path: Path) -> None:
+    # Snowflake folds unquoted names to upper case (sqlglot's dialect settings)
+    project = project_from(tmp_path, {"m.sql": "SELECT Amount, ID FROM shop.orders"}, SCHEMA, "snowflake")
+    assert project.diagnostics == []
+    assert trace(project, "m.amount")["value"] == ["shop.orders.amount"]

@@ -93,9 +93,12 @@ class TableInfo:
 
 def fold(name: str, dialect: str) -> str:
     """A declared name as the dialect matches references to it: taken as quoted, so kept exactly
-    where case matters (PostgreSQL) and in lower case where it does not (DuckDB)."""
+    where case matters (PostgreSQL) and in lower case where it does not (DuckDB). Where unquoted
+    names fold to upper case (Snowflake), an all-lower-case name is taken as written unquoted, as
+    tables there are usually made (common practice), so ``fare`` matches ``FARE`` and ``Fare``."""
     d = Dialect.get_or_raise(dialect)
-    return str(d.normalize_identifier(exp.Identifier(this=name, quoted=True)).name)
+    quoted = not (d.NORMALIZATION_STRATEGY is NormalizationStrategy.UPPERCASE and name == name.lower())
+    return str(d.normalize_identifier(exp.Identifier(this=name, quoted=quoted)).name)
 
 
 def written(ident: exp.Expr, dialect: str) -> str:

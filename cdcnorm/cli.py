@@ -465,6 +465,19 @@ def main(argv: Sequence[str] | None = None) -> int:
         if isinstance(e, duckdb.InterruptException):  # Ctrl-C while the engine was working
             err.print("interrupted: nothing was committed and no output was left half-written", markup=False)
             return 130
+        if isinstance(e, duckdb.OutOfMemoryException):
+            # some steps cannot spill below a minimum: say so in our words, never a traceback
+            from cdcnorm.errors import EngineMemoryError
+
+            first = str(e).splitlines()[0].removeprefix("Out of Memory Error: ")
+            oom = EngineMemoryError(
+                f"the engine ran out of memory within the limit ({first}); nothing was committed",
+                hint="raise --memory-limit, or lower --threads (each thread needs its own working memory)",
+            )
+            if "--json" in (argv if argv is not None else sys.argv):
+                print(json.dumps(oom.as_dict()), file=sys.stdout)
+            err.print("error: " + oom.render(), markup=False)
+            return oom.exit_code
         raise
 
 

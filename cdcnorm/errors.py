@@ -22,6 +22,7 @@ EXIT_BREAKS = 8
 EXIT_BUSY = 9
 EXIT_TARGET = 10
 EXIT_INCOMPLETE = 11
+EXIT_MEMORY = 12
 
 
 def closest(name: str, candidates: Iterable[str]) -> str | None:
@@ -147,6 +148,12 @@ class GraphvizMissing(CdcnormError):
     """The Graphviz `dot` program is needed for SVG/PNG but is not installed."""
 
     exit_code = EXIT_USAGE
+
+
+class EngineMemoryError(CdcnormError):
+    """The engine cannot do a step within the memory limit, even spilling to disk."""
+
+    exit_code = EXIT_MEMORY
 
 
 class TargetError(CdcnormError):

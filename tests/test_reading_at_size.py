@@ -324,6 +324,27 @@ def test_a_dump_larger_than_the_memory_limit_converts(tmp_path: Path) -> None:
     assert last_run(outs[0])["ledger"] == last_run(outs[1])["ledger"]
 
 
+def test_a_limit_too_small_for_the_engine_is_a_clear_error_and_commits_nothing(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    import sys
+
+    sys.path.insert(0, str(Path(__file__).resolve().parent / "bench"))
+    import dumpgen
+
+    mdir = dumpgen.write_mapping(tmp_path / "m").parent
+    (tmp_path / "d").mkdir()
+    dumpgen.generate(50_000, tmp_path / "d")
+    out = tmp_path / "out"
+    args = ["convert", "--mappings", str(mdir), str(tmp_path / "d"), "--out", str(out)]
+    assert cli(*args, "--memory-limit", "8MB") == 12
+    err = capsys.readouterr().err
+    assert "ran out of memory within the limit" in err and "--memory-limit" in err
+    assert "Traceback" not in err and "bug in cdcnorm" not in err
+    assert not (out / "runs").exists() or not list((out / "runs").iterdir())  # nothing committed
+    assert not (out / "events").exists()
+
+
 def test_control_characters_and_line_separators_stay_one_json_line(convert: ConvertFn) -> None:
     # RFC 8259 section 7: control characters are escaped inside strings; U+2028 may stand as is
     text = "a\x01b\x1fc\u2028d\re"

@@ -17,12 +17,30 @@ import duckdb
 import pyarrow as pa
 from sqlglot import exp
 
-from cdcnorm.errors import CdcnormError
+from cdcnorm.errors import CdcnormError, EngineMemoryError
 from cdcnorm.sql import ident, lit
 
 #: Share of the machine's physical memory the engine may use when no limit is given; beyond its
 #: limit the engine spills to the run's temporary folder.
 DEFAULT_MEMORY_SHARE = 0.5
+
+
+#: Of a run's memory limit, the share kept back from the engine (at most RESERVE_CAP): what the
+#: engine's buffer manager does not count (the readers' blocks, Arrow batches on their way to a
+#: file, allocator slack) lives there, so the whole process stays near the limit.
+RESERVE_SHARE = 0.25
+RESERVE_CAP = 256 << 20
+#: Below this the engine keeps the whole limit: it needs some working memory for any step.
+ENGINE_FLOOR = 64 << 20
+
+_UNITS = {"bytes": 1, "KiB": 1 << 10, "MiB": 1 << 20, "GiB": 1 << 30, "TiB": 1 << 40}
+
+
+def _setting_bytes(con: duckdb.DuckDBPyConnection) -> int:
+    """The engine's memory limit in bytes, read back as DuckDB shows it (``953.6 MiB``)."""
+    (text,) = con.execute("SELECT current_setting('memory_limit')").fetchone() or ("0 bytes",)
+    number, _, unit = str(text).partition(" ")
+    return int(float(number) * _UNITS.get(unit, 1))
 
 
 def default_memory_limit() -> str:
@@ -53,6 +71,11 @@ class DuckDBEngine:
         if temp_directory:
             config["temp_directory"] = temp_directory
         self.con = duckdb.connect(":memory:", config=config)
+        # the limit is the run's: the engine gets it less a reserve for what it does not count
+        budget = _setting_bytes(self.con)
+        self.memory_budget = budget
+        engine = max(budget - min(int(budget * RESERVE_SHARE), RESERVE_CAP), min(budget, ENGINE_FLOOR))
+        self.con.execute(f"SET memory_limit = '{max(engine, 1 << 20) >> 10}KiB'")
         with contextlib.suppress(duckdb.Error):
             # Without the ICU extension DuckDB already treats TIMESTAMPTZ as UTC.
             self.con.execute("SET TimeZone = 'UTC'")
@@ -90,6 +113,13 @@ class DuckDBEngine:
     def _run(self, name: str, sql: str) -> None:
         try:
             self.con.execute(sql)
+        except duckdb.OutOfMemoryException as e:
+            first = str(e).splitlines()[0].removeprefix("Out of Memory Error: ")
+            raise EngineMemoryError(
+                f"the engine ran out of memory within the limit in plan step {name} ({first}); "
+                "nothing was committed",
+                hint="raise --memory-limit, or lower --threads (each thread needs its own working memory)",
+            ) from None
         except duckdb.Error as e:
             first = str(e).splitlines()[0]
             raise CdcnormError(

@@ -659,3 +659,39 @@ def test_lower_case_fields_match_unquoted_references_where_names_fold_to_upper_c
     project = project_from(tmp_path, {"m.sql": "SELECT Amount, ID FROM shop.orders"}, SCHEMA, "snowflake")
     assert project.diagnostics == []
     assert trace(project, "m.amount")["value"] == ["shop.orders.amount"]
+
+
+def test_mixed_case_names_from_a_postgresql_catalog_match_as_postgresql_matches(
+    tmp_path: Path, pg_url: str
+) -> None:
+    """PostgreSQL as the oracle: a catalog read from the server keeps "Fleet"."TripLegs"."PickupAt"
+    exactly, a model in the PostgreSQL dialect resolves against it, and the columns the server
+    gives the model's view are the columns lineage gives the model."""
+    import psycopg
+
+    from cdcnorm.lineage.catalogs import load_catalogs
+
+    with psycopg.connect(pg_url, autocommit=True) as con:
+        con.execute('CREATE SCHEMA "Fleet"')
+        con.execute(
+            'CREATE TABLE "Fleet"."TripLegs" ("LegId" BIGINT, "PickupAt" TIMESTAMPTZ, fare NUMERIC(10,2))'
+        )
+        sql = 'SELECT "LegId", "PickupAt" AS "Pickup", FARE * 2 AS DoubleFare FROM "Fleet"."TripLegs"'
+        con.execute(f"CREATE VIEW legs_x2 AS {sql}")
+        cur = con.execute(
+            "SELECT column_name FROM information_schema.columns WHERE table_name = 'legs_x2' ORDER BY ordinal_position"
+        )
+        server_columns = [r[0] for r in cur.fetchall()]
+    (tmp_path / "models").mkdir()
+    (tmp_path / "models" / "legs_x2.sql").write_text(sql + "\n")
+    tables = load_catalogs([pg_url], "postgres")  # the server's own view is in it too
+    assert set(tables["Fleet.TripLegs"]) == {"LegId", "PickupAt", "fare"} and "legs_x2" in tables
+    project = build_project(
+        None, [], "postgres", loaded=load_models(tmp_path / "models", "postgres"), tables=tables
+    )
+    assert project.diagnostics == []
+    assert project.models["legs_x2"].columns == server_columns == ["LegId", "Pickup", "doublefare"]
+    assert trace(project, "legs_x2.Pickup")["value"] == ["Fleet.TripLegs.PickupAt"]
+    assert trace(project, "legs_x2.doublefare")["value"] == ["Fleet.TripLegs.fare"]
+    # the model defines legs_x2: the catalog's copy of the view is no second, source table
+    assert not [n for n in project.graph.nodes if n[0] == "source" and n[1] == "legs_x2"]

@@ -369,7 +369,7 @@ def resolve_model(name: str, sts: list[ModelStatement], catalog: Catalog, dialec
         elif st.kind == "insert" and columns:  # no column list: by position, as the table has them
             names = columns[: len(outs)] + names[len(columns) :]
         names = _dedupe_names(names) if st.kind != "insert" else names
-        into_declared = declared is not None and declared.kind == "source" and st.kind != "create"
+        into_declared = declared is not None and declared.kind == "source" and st.kind in ("insert", "merge")
         if columns:  # a name the table has, in another case, is that column (as the dialect folds)
             same = {fold(c, dialect): c for c in columns}
             names = [same.get(fold(n, dialect), n) for n in names]
@@ -445,6 +445,14 @@ def _build_project(
             if models_dir is not None and models_dir.exists()
             else LoadedModels()
         )
+    if tables:
+        # a catalog read from the warehouse holds the models' own views: a model defines its table
+        made = [st.target for st in loaded.statements if st.kind in ("create", "select")]
+        tables = {
+            name: cols
+            for name, cols in tables.items()
+            if not any(_same_table(declared_parts(name, dialect), m) for m in made)
+        }
     catalog = mapping_catalog(mappings, dialect, edits, tables)
     g = nx.MultiDiGraph()
     for info in catalog.tables.values():
@@ -587,6 +595,12 @@ def _build_project(
         reads,
         deps,
     )
+
+
+def _same_table(a: tuple[str, ...], b: tuple[str, ...]) -> bool:
+    """One name with or without its schema (and database) prefix names the other's table."""
+    n = min(len(a), len(b))
+    return a[-n:] == b[-n:]
 
 
 def _reads_table(reads: set[tuple[str, ...]], parts: tuple[str, ...]) -> bool:

@@ -447,11 +447,15 @@ def _build_project(
         )
     if tables:
         # a catalog read from the warehouse holds the models' own views: a model defines its table
-        made = [st.target for st in loaded.statements if st.kind in ("create", "select")]
+        made: dict[str, list[tuple[str, ...]]] = {}  # by the last part of the name
+        for st in loaded.statements:
+            if st.kind in ("create", "select"):
+                made.setdefault(st.target[-1], []).append(st.target)
+        named = {name: declared_parts(name, dialect) for name in tables}
         tables = {
             name: cols
             for name, cols in tables.items()
-            if not any(_same_table(declared_parts(name, dialect), m) for m in made)
+            if not any(_same_table(named[name], m) for m in made.get(named[name][-1], []))
         }
     catalog = mapping_catalog(mappings, dialect, edits, tables)
     g = nx.MultiDiGraph()

@@ -23,6 +23,7 @@ resolved through, so they never appear as nodes.
 from __future__ import annotations
 
 import difflib
+import functools
 from collections.abc import Iterable
 from dataclasses import dataclass, field
 
@@ -91,12 +92,18 @@ class TableInfo:
         return self.display.get(column, column)
 
 
+@functools.cache
+def _dialect(name: str) -> Dialect:
+    return Dialect.get_or_raise(name)
+
+
+@functools.cache
 def fold(name: str, dialect: str) -> str:
     """A declared name as the dialect matches references to it: taken as quoted, so kept exactly
     where case matters (PostgreSQL) and in lower case where it does not (DuckDB). Where unquoted
     names fold to upper case (Snowflake), an all-lower-case name is taken as written unquoted, as
     tables there are usually made (common practice), so ``fare`` matches ``FARE`` and ``Fare``."""
-    d = Dialect.get_or_raise(dialect)
+    d = _dialect(dialect)
     quoted = not (d.NORMALIZATION_STRATEGY is NormalizationStrategy.UPPERCASE and name == name.lower())
     return str(d.normalize_identifier(exp.Identifier(this=name, quoted=quoted)).name)
 
@@ -104,7 +111,7 @@ def fold(name: str, dialect: str) -> str:
 def written(ident: exp.Expr, dialect: str) -> str:
     """The name an engine gives a column a query names: as written where the dialect ignores case
     (DuckDB keeps ``AS TotalFare``), folded where it folds unquoted names (PostgreSQL)."""
-    d = Dialect.get_or_raise(dialect)
+    d = _dialect(dialect)
     if d.NORMALIZATION_STRATEGY is NormalizationStrategy.CASE_INSENSITIVE:
         return str(ident.name)
     quoted = bool(ident.args.get("quoted")) if isinstance(ident, exp.Identifier) else False
@@ -214,7 +221,7 @@ def table_parts(table: exp.Table) -> tuple[str, ...]:
 def folded_parts(table: exp.Table, dialect: str) -> tuple[str, ...]:
     """The table's name parts as the dialect folds them (unquoted ``STG_FARES`` is ``stg_fares``
     in DuckDB), without copying the table."""
-    d = Dialect.get_or_raise(dialect)
+    d = _dialect(dialect)
     return tuple(
         d.normalize_identifier(exp.Identifier(this=p.name, quoted=bool(p.args.get("quoted")))).name
         for p in table.parts
@@ -291,7 +298,7 @@ class StatementResolver:
     def _shown(self, query: exp.Expr, outs: list[tuple[str, Deps]]) -> list[tuple[str, Deps]]:
         """The statement's output names as the engine shows them: an alias as written (per the
         dialect), a column passed through under its declared name (``PickupAt``)."""
-        d = Dialect.get_or_raise(self.dialect)
+        d = _dialect(self.dialect)
         aliases: dict[str, str] = {}
         for proj in query.selects if isinstance(query, exp.Query) else []:
             ident = proj.args.get("alias") if isinstance(proj, exp.Alias) else None

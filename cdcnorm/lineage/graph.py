@@ -30,6 +30,7 @@ from cdcnorm.lineage.resolve import (
     declared_table,
     fold,
     folded_parts,
+    same_table,
     table_parts,
     written,
 )
@@ -455,7 +456,7 @@ def _build_project(
         tables = {
             name: cols
             for name, cols in tables.items()
-            if not any(_same_table(named[name], m) for m in made.get(named[name][-1], []))
+            if not any(same_table(named[name], m) for m in made.get(named[name][-1], []))
         }
     catalog = mapping_catalog(mappings, dialect, edits, tables)
     g = nx.MultiDiGraph()
@@ -601,14 +602,8 @@ def _build_project(
     )
 
 
-def _same_table(a: tuple[str, ...], b: tuple[str, ...]) -> bool:
-    """One name with or without its schema (and database) prefix names the other's table."""
-    n = min(len(a), len(b))
-    return a[-n:] == b[-n:]
-
-
 def _reads_table(reads: set[tuple[str, ...]], parts: tuple[str, ...]) -> bool:
-    return any(r == parts or parts[-len(r) :] == r or r[-len(parts) :] == parts for r in reads)
+    return any(same_table(r, parts) for r in reads)
 
 
 def simulate(project: Project, edits: dict[Node, Any]) -> list[Diagnostic]:

@@ -108,14 +108,24 @@ def fold(name: str, dialect: str) -> str:
     return str(d.normalize_identifier(exp.Identifier(this=name, quoted=quoted)).name)
 
 
+def same_table(a: tuple[str, ...], b: tuple[str, ...]) -> bool:
+    """One name with or without its schema (and database) prefix names the other's table."""
+    n = min(len(a), len(b))
+    return a[-n:] == b[-n:]
+
+
+def folded_name(ident: exp.Expr, dialect: str) -> str:
+    """A name as the dialect folds it: unquoted ``STG_FARES`` is ``stg_fares`` in DuckDB."""
+    quoted = bool(ident.args.get("quoted")) if isinstance(ident, exp.Identifier) else False
+    return str(_dialect(dialect).normalize_identifier(exp.Identifier(this=ident.name, quoted=quoted)).name)
+
+
 def written(ident: exp.Expr, dialect: str) -> str:
     """The name an engine gives a column a query names: as written where the dialect ignores case
     (DuckDB keeps ``AS TotalFare``), folded where it folds unquoted names (PostgreSQL)."""
-    d = _dialect(dialect)
-    if d.NORMALIZATION_STRATEGY is NormalizationStrategy.CASE_INSENSITIVE:
+    if _dialect(dialect).NORMALIZATION_STRATEGY is NormalizationStrategy.CASE_INSENSITIVE:
         return str(ident.name)
-    quoted = bool(ident.args.get("quoted")) if isinstance(ident, exp.Identifier) else False
-    return str(d.normalize_identifier(exp.Identifier(this=ident.name, quoted=quoted)).name)
+    return folded_name(ident, dialect)
 
 
 def declared_table(
@@ -160,9 +170,7 @@ class Catalog:
             return self.tables[parts]
         # a suffix match either way ends in the same table name: look among those only
         same_name = self._by_name.get(parts[-1], []) if parts else []
-        matches = [
-            t for t in same_name if t.parts[-len(parts) :] == parts or parts[-len(t.parts) :] == t.parts
-        ]
+        matches = [t for t in same_name if same_table(t.parts, parts)]
         return matches[0] if len(matches) == 1 else None
 
     def schema(self, dialect: str, query: exp.Expr | None = None) -> MappingSchema:
@@ -221,11 +229,7 @@ def table_parts(table: exp.Table) -> tuple[str, ...]:
 def folded_parts(table: exp.Table, dialect: str) -> tuple[str, ...]:
     """The table's name parts as the dialect folds them (unquoted ``STG_FARES`` is ``stg_fares``
     in DuckDB), without copying the table."""
-    d = _dialect(dialect)
-    return tuple(
-        d.normalize_identifier(exp.Identifier(this=p.name, quoted=bool(p.args.get("quoted")))).name
-        for p in table.parts
-    )
+    return tuple(folded_name(p, dialect) for p in table.parts)
 
 
 class StatementResolver:
@@ -298,13 +302,11 @@ class StatementResolver:
     def _shown(self, query: exp.Expr, outs: list[tuple[str, Deps]]) -> list[tuple[str, Deps]]:
         """The statement's output names as the engine shows them: an alias as written (per the
         dialect), a column passed through under its declared name (``PickupAt``)."""
-        d = _dialect(self.dialect)
         aliases: dict[str, str] = {}
         for proj in query.selects if isinstance(query, exp.Query) else []:
             ident = proj.args.get("alias") if isinstance(proj, exp.Alias) else None
             if isinstance(ident, exp.Identifier):
-                key = d.normalize_identifier(exp.Identifier(this=ident.name, quoted=ident.quoted)).name
-                aliases.setdefault(key, written(ident, self.dialect))
+                aliases.setdefault(folded_name(ident, self.dialect), written(ident, self.dialect))
         out = []
         for name, deps in outs:
             shown = aliases.get(name)

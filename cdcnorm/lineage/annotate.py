@@ -16,7 +16,6 @@ from sqlglot.optimizer.annotate_types import annotate_types
 from sqlglot.optimizer.qualify import qualify
 
 from cdcnorm.lineage.graph import Project, mapping_catalog
-from cdcnorm.lineage.models import LoadedModels
 from cdcnorm.lineage.resolve import Node, declared_table
 
 UNKNOWN = "UNKNOWN"
@@ -42,7 +41,6 @@ def _root_types(query: exp.Expr, catalog: Any, dialect: str) -> list[str] | None
 
 def type_models(
     project: Project,
-    loaded: LoadedModels,
     edits: dict[Node, Any] | None = None,
     only: set[str] | None = None,
 ) -> dict[Node, str]:
@@ -57,16 +55,13 @@ def type_models(
         only = wanted
     dialect = project.dialect
     catalog = mapping_catalog(list(project.sources.values()), dialect, edits, project.tables)
-    by_model: dict[str, list[Any]] = {}
-    for st in loaded.statements:
-        by_model.setdefault(st.name, []).append(st)
     types: dict[Node, str] = {}
     for name in project.order:
         info = project.models.get(name)
         if info is None or (only is not None and name not in only):
             continue
         found: dict[str, str] = {}
-        for st in by_model.get(name, []):
+        for st in project.statements.get(name, []):
             if st.query is None:
                 continue  # a MERGE: types are the target's
             got = _root_types(st.query, catalog, dialect)
@@ -80,6 +75,7 @@ def type_models(
                     found[col] = t
         for col in info.columns:
             types[("model", name, col)] = found.get(col, UNKNOWN)
-        parts = by_model[name][0].target if by_model.get(name) else (name,)
+        sts = project.statements.get(name)
+        parts = sts[0].target if sts else (name,)
         catalog.add(declared_table("model", name, parts, list(info.columns), dialect, found, "model"))
     return types

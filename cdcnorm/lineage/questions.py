@@ -360,14 +360,14 @@ def impact(
     if edit.kind == "retype" and edit.value:
         old = g.nodes[node].get("type") or ("UNKNOWN" if g.nodes[node].get("inferred") else "TEXT")
         change = _type_change(old, edit.value, project.dialect)
-        if change and loaded is not None:
+        if change:
             # each dependent's type before and after, from sqlglot's type annotation
             from cdcnorm.lineage.annotate import type_models
 
             affected = {n[1] for n in vdep}
-            typed_before = type_models(project, loaded, only=affected)
+            typed_before = type_models(project, only=affected)
             retyped = {f: ("retype", edit.value) for f in fields}
-            typed_after = type_models(project, loaded, retyped, only=affected)
+            typed_after = type_models(project, retyped, only=affected)
             for n in vdep:
                 path = _path(project, node, n, True)
                 copies = all(step["how"] == "copy" for step in path)

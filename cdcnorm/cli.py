@@ -452,10 +452,7 @@ def main(argv: Sequence[str] | None = None) -> int:
 
         return lineage_cli.run_command(args, out)
     except CdcnormError as e:
-        if "--json" in (argv if argv is not None else sys.argv):
-            print(json.dumps(e.as_dict()), file=sys.stdout)
-        err.print("error: " + e.render(), markup=False)
-        return e.exit_code
+        return _report(e, argv)
     except KeyboardInterrupt:
         err.print("interrupted: nothing was committed and no output was left half-written", markup=False)
         return 130
@@ -467,18 +464,17 @@ def main(argv: Sequence[str] | None = None) -> int:
             return 130
         if isinstance(e, duckdb.OutOfMemoryException):
             # some steps cannot spill below a minimum: say so in our words, never a traceback
-            from cdcnorm.errors import EngineMemoryError
+            from cdcnorm.engines.duckdb import out_of_memory
 
-            first = str(e).splitlines()[0].removeprefix("Out of Memory Error: ")
-            oom = EngineMemoryError(
-                f"the engine ran out of memory within the limit ({first}); nothing was committed",
-                hint="raise --memory-limit, or lower --threads (each thread needs its own working memory)",
-            )
-            if "--json" in (argv if argv is not None else sys.argv):
-                print(json.dumps(oom.as_dict()), file=sys.stdout)
-            err.print("error: " + oom.render(), markup=False)
-            return oom.exit_code
+            return _report(out_of_memory(e), argv)
         raise
+
+
+def _report(e: CdcnormError, argv: Sequence[str] | None) -> int:
+    if "--json" in (argv if argv is not None else sys.argv):
+        print(json.dumps(e.as_dict()), file=sys.stdout)
+    err.print("error: " + e.render(), markup=False)
+    return e.exit_code
 
 
 def entry() -> None:

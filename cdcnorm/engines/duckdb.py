@@ -43,6 +43,16 @@ def _setting_bytes(con: duckdb.DuckDBPyConnection) -> int:
     return int(float(number) * _UNITS.get(unit, 1))
 
 
+def out_of_memory(e: duckdb.OutOfMemoryException, where: str = "") -> EngineMemoryError:
+    """The engine's out-of-memory error in our words (a step that cannot spill below a minimum)."""
+    first = str(e).splitlines()[0].removeprefix("Out of Memory Error: ")
+    return EngineMemoryError(
+        f"the engine ran out of memory within the limit{' in ' + where if where else ''} ({first}); "
+        "nothing was committed",
+        hint="raise --memory-limit, or lower --threads (each thread needs its own working memory)",
+    )
+
+
 def default_memory_limit() -> str:
     try:
         total = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
@@ -114,12 +124,7 @@ class DuckDBEngine:
         try:
             self.con.execute(sql)
         except duckdb.OutOfMemoryException as e:
-            first = str(e).splitlines()[0].removeprefix("Out of Memory Error: ")
-            raise EngineMemoryError(
-                f"the engine ran out of memory within the limit in plan step {name} ({first}); "
-                "nothing was committed",
-                hint="raise --memory-limit, or lower --threads (each thread needs its own working memory)",
-            ) from None
+            raise out_of_memory(e, f"plan step {name}") from None
         except duckdb.Error as e:
             first = str(e).splitlines()[0]
             raise CdcnormError(

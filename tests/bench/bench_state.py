@@ -65,6 +65,12 @@ def cdcnorm(*args: str) -> list[str]:
     return [sys.executable, "-m", "cdcnorm", *args]
 
 
+def convert_into(landing: Path, mappings: Path, files: list[Path]) -> None:
+    """One run of the dump ``files`` into ``landing``, as Parquet events."""
+    args = ["convert", "--quiet", "--format", "parquet", "--mappings", str(mappings), "--out", str(landing)]
+    subprocess.run(cdcnorm(*args, *map(str, files)), check=True)
+
+
 def events_of(landing: Path) -> int:
     import duckdb
 
@@ -97,20 +103,7 @@ def main() -> None:
                 first_change=int(args.rows_per_run / 1.5) * night,
                 part=night,
             )
-            subprocess.run(
-                cdcnorm(
-                    "convert",
-                    "--quiet",
-                    "--format",
-                    "parquet",
-                    "--mappings",
-                    str(mappings),
-                    "--out",
-                    str(landing),
-                    *map(str, files),
-                ),
-                check=True,
-            )
+            convert_into(landing, mappings, files)
             shutil.rmtree(folder)
     n_events = events_of(landing)
     report: dict[str, object] = {"events": n_events}
@@ -164,20 +157,7 @@ def main() -> None:
         folder = work / "apply-dump"
         folder.mkdir(exist_ok=True)
         files = dumpgen._chunk(args.apply_rows, folder, 300, first_change=0, part=0)
-        subprocess.run(
-            cdcnorm(
-                "convert",
-                "--quiet",
-                "--format",
-                "parquet",
-                "--mappings",
-                str(mappings),
-                "--out",
-                str(one),
-                *map(str, files),
-            ),
-            check=True,
-        )
+        convert_into(one, mappings, files)
         shutil.rmtree(folder)
     report["apply_events"] = events_of(one)
     event_files = [str(p) for p in sorted(one.glob("events/*/*.parquet"))]

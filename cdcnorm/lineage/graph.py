@@ -129,13 +129,6 @@ def source_type(lm: LoadedMapping, field_name: str) -> str:
     return SQL_TYPES[ftype.name]
 
 
-def _normalise_name(name: str, dialect: str) -> tuple[str, ...]:
-    from sqlglot.optimizer.normalize_identifiers import normalize_identifiers
-
-    table = exp.to_table(name, dialect=dialect)
-    return table_parts(normalize_identifiers(table, dialect=dialect))
-
-
 def normalise_column(name: str, dialect: str) -> str:
     from sqlglot.optimizer.normalize_identifiers import normalize_identifiers
 
@@ -273,11 +266,7 @@ def _merge_query(
     if not assignments:
         return []
     names = _dedupe_names(list(dict.fromkeys(a[0] for a in assignments if a[0])))
-    parts = (
-        _normalise_name(target.sql(dialect=dialect).split(" AS ")[0], dialect)
-        if isinstance(target, exp.Table)
-        else stmt.target
-    )
+    parts = folded_parts(target, dialect) if isinstance(target, exp.Table) else stmt.target
     if catalog.find(tuple(parts)) is None:
         catalog.add(declared_table("model", stmt.name, tuple(parts), names, dialect, origin="model"))
     out: dict[str, Deps] = {}

@@ -66,7 +66,7 @@ class Plan:
             "__pos": positions.key_type(change.position.kind, change.position.width),
             "__seq": positions.key_type(seq.kind, positions.sequence_width(seq, change.position))
             if seq
-            else "UBIGINT",
+            else positions.key_type("integer"),
             "__cat": "TIMESTAMPTZ",
         }
         for i, ftype in enumerate(self.mapping.field_types.values()):

@@ -2,12 +2,18 @@
 
 Comparing raw position text is wrong: ``16/B374D85`` is a lower position than
 ``16/B374D848`` but sorts higher as text. Each kind is parsed once into a
-fixed-width *key* whose order is the log order: an unsigned integer (integer,
-hex up to 32 digits, hex-pair), a timestamp, or (text, hex wider than 32
-digits) a text whose byte order is the order. The plan groups, joins and sorts
-on keys; only the writers turn a key into its normalised text (one case, one
-width; a text kind as the hex of its UTF-8 bytes), so plain byte-wise
-comparison of ``position`` is the change order too.
+fixed-width *key* whose order is the log order: an exact number (integer:
+``DECIMAL(20, 0)``), a 128-bit key (hex up to 32 digits, hex-pair), a
+timestamp, or (text, hex wider than 32 digits) a text whose byte order is the
+order. The plan groups, joins and sorts on keys; only the writers turn a key
+into its normalised text (one case, one width; a text kind as the hex of its
+UTF-8 bytes), so plain byte-wise comparison of ``position`` is the change order
+too.
+
+The SQL here is engine-neutral but for one plan function, ``plan_hex_key(digits)``
+(at most 32 hex digits -> a 128-bit key whose order is the number's, and whose
+``hex`` gives the digits back): each engine adapter defines it (``engines/``),
+as an unsigned 128-bit integer on DuckDB and as 16 bytes on Spark.
 """
 
 from __future__ import annotations
@@ -16,6 +22,11 @@ from cdcnorm.mapping.model import PositionSpec, SequenceSpec
 from cdcnorm.types.timestamp import timestamp_cast
 
 INTEGER_WIDTH = 20  # 2**64 - 1 has 20 digits
+INTEGER_MAX = str((1 << 64) - 1)
+#: The plan function each engine adapter defines: hex digits -> a 128-bit key.
+HEX_KEY = "plan_hex_key"
+#: The sequence key of a table without a sequence: one constant, of the integer key's type.
+NO_SEQUENCE = f"CAST(0 AS DECIMAL({INTEGER_WIDTH}, 0))"
 HEX = "'(0[xX])?[0-9A-Fa-f]+'"
 NUMERIC_HEX_DIGITS = 32  # a hex key of up to 32 digits fits UHUGEINT
 
@@ -25,43 +36,49 @@ def _strip0x(x: str) -> str:
 
 
 def integer_key(x: str) -> str:
-    return f"CASE WHEN regexp_full_match({x}, '[0-9]{{1,{INTEGER_WIDTH}}}') THEN TRY_CAST({x} AS UBIGINT) END"
+    # 20 digits compare as text as they do as numbers: the bound needs no wider type
+    return (
+        f"CASE WHEN regexp_full_match({x}, '[0-9]{{1,{INTEGER_WIDTH}}}') AND (length({x}) < {INTEGER_WIDTH} "
+        f"OR {x} <= '{INTEGER_MAX}') THEN CAST({x} AS DECIMAL({INTEGER_WIDTH}, 0)) END"
+    )
 
 
 def integer_text(k: str) -> str:
     return f"lpad(CAST({k} AS VARCHAR), {INTEGER_WIDTH}, '0')"
 
 
+def _fixed_hex(k: str, width: int) -> str:
+    """SQL: the last ``width`` of the 32 hex digits of a 128-bit key (upper case)."""
+    return f"right(lpad(hex({k}), {NUMERIC_HEX_DIGITS}, '0'), {width})"
+
+
 def hex_key(x: str, width: int) -> str:
-    """Up to 32 digits: UHUGEINT (the regex keeps out what the cast would also take, such as ``_``);
-    wider: the upper-case digits without leading zeros, left-padded to ``width``."""
+    """Up to 32 digits: the 128-bit key (the regex keeps out what a cast might also take, such
+    as ``_``); wider: the upper-case digits without leading zeros, left-padded to ``width``."""
     digits = _strip0x(x)
-    if width <= NUMERIC_HEX_DIGITS:
-        cast = f"TRY_CAST('0x' || {digits} AS UHUGEINT)"
-        bound = f" AND {cast} < CAST('{1 << (4 * width)}' AS UHUGEINT)" if width < NUMERIC_HEX_DIGITS else ""
-        return f"CASE WHEN regexp_full_match({x}, {HEX}){bound} THEN {cast} END"
     trimmed = f"ltrim(upper({digits}), '0')"
-    return (
-        f"CASE WHEN regexp_full_match({x}, {HEX}) AND length({trimmed}) <= {width} "
-        f"THEN lpad({trimmed}, {width}, '0') END"
-    )
+    valid = f"regexp_full_match({x}, {HEX}) AND length({trimmed}) <= {width}"
+    if width <= NUMERIC_HEX_DIGITS:
+        return f"CASE WHEN {valid} THEN {HEX_KEY}({digits}) END"
+    return f"CASE WHEN {valid} THEN lpad({trimmed}, {width}, '0') END"
 
 
 def hex_text(k: str, width: int) -> str:
     if width <= NUMERIC_HEX_DIGITS:
-        return f"lpad(hex({k}), {width}, '0')"
+        return _fixed_hex(k, width)
     return k
 
 
 def hex_pair_key(x: str) -> str:
-    # Two hex numbers of up to 8 digits around a slash: (hi << 32) | lo.
-    hi = f"TRY_CAST('0x' || split_part({x}, '/', 1) AS UBIGINT)"
-    lo = f"TRY_CAST('0x' || split_part({x}, '/', 2) AS UBIGINT)"
-    return f"CASE WHEN regexp_full_match({x}, '[0-9A-Fa-f]{{1,8}}/[0-9A-Fa-f]{{1,8}}') THEN ({hi} << 32) | {lo} END"
+    # Two hex numbers of up to 8 digits around a slash: 16 digits, the high part first.
+    hi = f"lpad(split_part({x}, '/', 1), 8, '0')"
+    lo = f"lpad(split_part({x}, '/', 2), 8, '0')"
+    return f"CASE WHEN regexp_full_match({x}, '[0-9A-Fa-f]{{1,8}}/[0-9A-Fa-f]{{1,8}}') THEN {HEX_KEY}({hi} || {lo}) END"
 
 
 def hex_pair_text(k: str) -> str:
-    return f"lpad(hex({k} >> 32), 8, '0') || '/' || lpad(hex({k} & 4294967295), 8, '0')"
+    digits = _fixed_hex(k, 16)
+    return f"left({digits}, 8) || '/' || right({digits}, 8)"
 
 
 def timestamp_text(k: str) -> str:
@@ -125,11 +142,13 @@ def sequence_text(spec: SequenceSpec, position: PositionSpec, k: str) -> str:
 
 
 def key_type(kind: str, width: int = 32) -> str:
-    """The engine type of a key of this kind."""
-    if kind in ("integer", "hex-pair"):
-        return "UBIGINT"
+    """DuckDB's type of a key of this kind (what the landing area's files are read back as)."""
+    if kind == "integer":
+        return f"DECIMAL({INTEGER_WIDTH}, 0)"
+    if kind == "hex-pair" or (kind == "hex" and width <= NUMERIC_HEX_DIGITS):
+        return "UHUGEINT"
     if kind == "hex":
-        return "UHUGEINT" if width <= NUMERIC_HEX_DIGITS else "VARCHAR"
+        return "VARCHAR"
     if kind == "timestamp":
         return "TIMESTAMPTZ"
     return "VARCHAR"

@@ -18,6 +18,7 @@ import pyarrow as pa
 from sqlglot import exp
 
 from cdcnorm.errors import CdcnormError, EngineMemoryError
+from cdcnorm.positions import HEX_KEY
 from cdcnorm.sql import ident, lit
 
 #: Share of the machine's physical memory the engine may use when no limit is given; beyond its
@@ -34,6 +35,13 @@ RESERVE_CAP = 256 << 20
 ENGINE_FLOOR = 64 << 20
 
 _UNITS = {"bytes": 1, "KiB": 1 << 10, "MiB": 1 << 20, "GiB": 1 << 30, "TiB": 1 << 40}
+
+
+#: The plan's own functions (see positions.py), as DuckDB macros: the engine inlines them.
+PLAN_FUNCTIONS: dict[str, tuple[tuple[str, ...], str]] = {
+    # at most 32 hex digits -> UHUGEINT, whose order is the number's and whose hex() gives them back
+    HEX_KEY: (("digits",), "TRY_CAST('0x' || digits AS UHUGEINT)"),
+}
 
 
 def _setting_bytes(con: duckdb.DuckDBPyConnection) -> int:
@@ -86,6 +94,8 @@ class DuckDBEngine:
         self.memory_budget = budget
         engine = max(budget - min(int(budget * RESERVE_SHARE), RESERVE_CAP), min(budget, ENGINE_FLOOR))
         self.con.execute(f"SET memory_limit = '{max(engine, 1 << 20) >> 10}KiB'")
+        for name, (params, body) in PLAN_FUNCTIONS.items():
+            self.con.execute(f"CREATE OR REPLACE TEMP MACRO {name}({', '.join(params)}) AS {body}")
         with contextlib.suppress(duckdb.Error):
             # Without the ICU extension DuckDB already treats TIMESTAMPTZ as UTC.
             self.con.execute("SET TimeZone = 'UTC'")

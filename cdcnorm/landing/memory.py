@@ -46,13 +46,13 @@ def _restore(plan: Plan, col: str, name: str) -> str:
     pos, seq = _kinds(plan)
     kind = pos if name == "__pos" else seq
     if kind is None:
-        return f"CAST({col} AS UBIGINT)"
+        return f"CAST({col} AS {positions.key_type('integer')})"
     if kind[0] == "text":
         return col
     return positions.key(kind[0], col, width=kind[1])
 
 
-def _empty(columns: dict[str, str]) -> str:
+def empty_relation(columns: dict[str, str]) -> str:
     return (
         "SELECT " + ", ".join(f"CAST(NULL AS {t}) AS {ident(c)}" for c, t in columns.items()) + " WHERE FALSE"
     )
@@ -80,7 +80,7 @@ def load_carried(engine: DuckDBEngine, plan: Plan, path: Path | None, first_id: 
     get ids from ``first_id`` on, returned as (id, name) for the files relation."""
     rel = plan.rel("carried")
     if path is None:
-        engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {_empty(carried_columns(plan))}")
+        engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {empty_relation(carried_columns(plan))}")
         return []
     src = f"read_parquet({lit(str(path))})"
     names = [str(r[0]) for r in engine.rows(f"SELECT DISTINCT __name FROM {src} ORDER BY 1")]
@@ -98,7 +98,7 @@ def load_carried(engine: DuckDBEngine, plan: Plan, path: Path | None, first_id: 
         "p.__raw",
     ]
     if values is None:
-        engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {_empty(types)}")
+        engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {empty_relation(types)}")
     else:
         engine.execute(
             f"CREATE OR REPLACE TEMP TABLE {rel} AS SELECT {', '.join(cols)} FROM {src} p JOIN {values} ON p.__name = f.name"
@@ -111,13 +111,13 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
     run's rows can meet (between the lowest and highest position of the run's good rows)."""
     rel = plan.rel("earlier")
     if not files:
-        engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {_empty(earlier_columns(plan))}")
+        engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {empty_relation(earlier_columns(plan))}")
         return
     lo, hi = engine.rows(
         f"SELECT {_store(plan, 'min(__pos)', '__pos')}, {_store(plan, 'max(__pos)', '__pos')} FROM {plan.rel('typed')} WHERE __ok"
     )[0]
     if lo is None:
-        engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {_empty(earlier_columns(plan))}")
+        engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {empty_relation(earlier_columns(plan))}")
         return
     types = earlier_columns(plan)
     cols = [
@@ -125,7 +125,7 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
         f"{_restore(plan, '__seq', '__seq')} AS __seq",
         "__act",
         *(f"CAST(v{i} AS {types[f'v{i}']}) AS v{i}" for i in plan.key_index),
-        "CAST('0x' || __hash AS UHUGEINT) AS __hash",
+        f"{positions.HEX_KEY}(__hash) AS __hash",
         "__run",
         "__unpaired",
     ]

@@ -91,7 +91,7 @@ def type_rows(plan: Plan) -> Plan:
             ),
         )
     else:
-        c.typed.append(("__seq", "CAST(0 AS UBIGINT)"))  # no sequence: one constant
+        c.typed.append(("__seq", positions.NO_SEQUENCE))  # no sequence: one constant
     if ch.committed_at:
         col = plan.raw(ch.committed_at.column)
         c.typed.append(("__cat", timestamp_cast(col, ch.committed_at.zone)))

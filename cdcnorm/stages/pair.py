@@ -76,24 +76,28 @@ def pair_images(plan: Plan) -> Plan:
         f"e.v{i}" if i in keys else f"CAST(NULL AS {t}) AS v{i}" for i, t in _value_types(plan)
     )
     if paired_mode:
-        afters = (
+        # the after-images, and the ghosts of those emitted earlier: a step of its own, read twice
+        plan = plan.add(
+            "pair",
+            "afters",
             f"SELECT __file, __row, __pos, __seq, __cat, {values}, FALSE AS __ghost FROM {kept} WHERE __act = 'after' "
             f"UNION ALL SELECT CAST(NULL AS INTEGER), CAST(NULL AS BIGINT), e.__pos, e.__seq, "
             f"CAST(NULL AS TIMESTAMPTZ), {ghost_values}, TRUE FROM {plan.rel('earlier')} e "
             f"WHERE e.__unpaired AND EXISTS (SELECT 1 FROM {kept} b WHERE b.__act = 'before' "
-            "AND b.__pos = e.__pos AND b.__seq = e.__seq)"
+            "AND b.__pos = e.__pos AND b.__seq = e.__seq)",
         )
+        afters = plan.rel("afters")
         # __n: the images of the position and sequence that share no key with one of the other kind
         lone_after = (
             f"NOT EXISTS (SELECT 1 FROM {kept} b WHERE b.__act = 'before' AND b.__pos = a.__pos "
             f"AND b.__seq = a.__seq AND {same_key})"
         )
-        lone_before = f"NOT EXISTS (SELECT 1 FROM ({afters}) a WHERE a.__pos = b.__pos AND a.__seq = b.__seq AND {same_key})"
+        lone_before = f"NOT EXISTS (SELECT 1 FROM {afters} a WHERE a.__pos = b.__pos AND a.__seq = b.__seq AND {same_key})"
         pairs = (
             f"SELECT a.__file AS af, a.__row AS ar, a.__ghost AS ghost, b.__file AS bf, b.__row AS br, "
             f"({same_key}) AS same_key, {carried} FROM "
             f"(SELECT *, count(*) FILTER (WHERE __lone) OVER (PARTITION BY __pos, __seq) AS __n FROM "
-            f"(SELECT a.*, {lone_after} AS __lone FROM ({afters}) a)) a JOIN "
+            f"(SELECT a.*, {lone_after} AS __lone FROM {afters} a)) a JOIN "
             f"(SELECT *, count(*) FILTER (WHERE __lone) OVER (PARTITION BY __pos, __seq) AS __n FROM "
             f"(SELECT b.*, {lone_before} AS __lone FROM {kept} b WHERE b.__act = 'before')) b "
             f"ON a.__pos = b.__pos AND a.__seq = b.__seq AND (({same_key}) "

@@ -11,6 +11,11 @@ $(BIN)/cdcnorm: pyproject.toml
 	$(BIN)/pip install --quiet -e '.[dev]'
 	touch $@
 
+# The tests also run the plans on Spark (tests/test_engine_spark.py): pyspark, the optional extra.
+$(VENV)/.spark: $(BIN)/cdcnorm
+	$(BIN)/pip install --quiet -e '.[dev,spark]'
+	touch $@
+
 # Graphviz's dot program draws the lineage diagrams (SVG/PNG); DOT, GraphML and JSON need nothing.
 system:
 	@command -v dot >/dev/null 2>&1 || { \
@@ -23,7 +28,7 @@ setup: $(BIN)/cdcnorm system
 demo: setup
 	$(BIN)/cdcnorm demo
 
-lint: setup
+lint: setup $(VENV)/.spark
 	$(BIN)/ruff check cdcnorm tests
 	$(BIN)/ruff format --check cdcnorm tests
 	$(BIN)/mypy cdcnorm

@@ -111,7 +111,15 @@ def build_parser() -> argparse.ArgumentParser:
         default=None,
         help="exit 5 when more rows than this are quarantined (0: none allowed; default: no limit)",
     )
-    conv.add_argument("--show-plan", action="store_true", help="print each table's plan as SQL and stop")
+    conv.add_argument(
+        "--show-plan",
+        nargs="?",
+        const="duckdb",
+        choices=["duckdb", "spark"],
+        metavar="ENGINE",
+        help="print each table's plan as SQL and stop; as Spark SQL with --show-plan spark "
+        "(default: duckdb, the engine convert runs)",
+    )
     conv.add_argument("--stop-after", choices=STAGE_NAMES, help="run up to this stage and show its output")
     conv.add_argument("--limit", type=_count, default=20, help="rows shown by --stop-after (default 20)")
     conv.add_argument("--table", help="with --show-plan/--stop-after: only this table")
@@ -249,7 +257,7 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
     if getattr(args, "show_plan", False):
         from cdcnorm.pipeline import show_plans
 
-        for text in show_plans(mappings, args.inputs, options, args.table):
+        for text in show_plans(mappings, args.inputs, options, args.table, args.show_plan):
             out.print(text, markup=False)
         return EXIT_OK
     bar, update = _progress(args.quiet or args.json)

@@ -464,9 +464,17 @@ def _account(trun: TableRun, engine: DuckDBEngine) -> ledger_mod.TableLedger:
 
 
 def show_plans(
-    mappings: Sequence[LoadedMapping], inputs: Iterable[str | Path], options: Options, table: str | None
+    mappings: Sequence[LoadedMapping],
+    inputs: Iterable[str | Path],
+    options: Options,
+    table: str | None,
+    engine_name: str = "duckdb",
 ) -> list[str]:
-    """Each table's plan as SQL (the files are read, so the plan names their relations)."""
+    """Each table's plan as SQL as the engine ``engine_name`` runs it (the files are read, so the
+    plan names their relations)."""
+    from cdcnorm.engines import renderer
+
+    render = renderer(engine_name)
     routed = route(expand_inputs(inputs, recursive=options.recursive), mappings)
     scratch = Path(tempfile.mkdtemp(prefix="cdcnorm-", dir=options.scratch))
     try:
@@ -474,7 +482,8 @@ def show_plans(
         zones.register(engine, mappings)
         read = read_all(mappings, routed, engine, options, _no_progress, scratch)
         by_name = {m.table: m for m in mappings}
-        return [compile_table(by_name[t], raw).show() for t, raw in read.items() if not table or t == table]
+        plans = [compile_table(by_name[t], raw) for t, raw in read.items() if not table or t == table]
+        return [plan.show(render) for plan in plans]
     finally:
         streams.remove(scratch)
 

@@ -7,6 +7,7 @@ rest are views the engine's optimiser inlines).
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 
 import sqlglot
@@ -132,12 +133,17 @@ class Plan:
         last = max(i for i, s in enumerate(self.steps) if s.stage == stage)
         return replace(self, steps=self.steps[: last + 1])
 
-    def show(self, dialect: str = PLAN_DIALECT) -> str:
+    def show(self, render: Callable[[exp.Expr], str] | None = None) -> str:
+        """The plan as SQL statements; ``render`` writes a step for an engine (default: the plan's
+        own dialect)."""
         out = [f"-- plan for {self.mapping.table}"]
         for s in self.steps:
-            kind = "TABLE" if s.materialize else "VIEW"
-            out.append(f"-- stage {s.stage}: {s.name}")
-            out.append(
-                f"CREATE TEMP {kind} {ident(s.relation)} AS\n{s.expression.sql(dialect=dialect, pretty=True)};"
+            create = exp.Create(
+                this=exp.Table(this=exp.to_identifier(s.relation, quoted=True)),
+                kind="TABLE" if s.materialize else "VIEW",
+                expression=s.expression,
+                properties=exp.Properties(expressions=[exp.TemporaryProperty()]),
             )
+            out.append(f"-- stage {s.stage}: {s.name}")
+            out.append((render(create) if render else create.sql(dialect=PLAN_DIALECT, pretty=True)) + ";")
         return "\n".join(out)

@@ -152,6 +152,22 @@ def test_show_plan_prints_parseable_sql(capsys: pytest.CaptureFixture[str]) -> N
     assert "-- stage dedupe" in text and "-- stage envelope" in text
 
 
+def test_show_plan_spark_prints_spark_sql_and_refuses_json_by_name(
+    capsys: pytest.CaptureFixture[str],
+) -> None:
+    args = ("convert", "--mappings", str(MAPPINGS), str(DUMPS), "--show-plan", "spark", "--table")
+    assert cli(*args, "ferry.bookings") == 0
+    text = capsys.readouterr().out
+    statements = [s for s in sqlglot.parse(text, read="spark") if s is not None]
+    assert len(statements) >= 8
+    assert "CREATE TEMPORARY VIEW `ferry_bookings__typed`" in text  # Spark's quoting
+    assert "REGEXP_FULL_MATCH" not in text and " RLIKE '^(?:" in text
+    assert "UNHEX(LPAD(" in "".join(text.split())  # the hex position key, as 16 bytes
+    assert cli(*args, "ferry.sailings") == 1  # a json field: refused, not mistranslated
+    err = capsys.readouterr().err
+    assert "cannot run json_valid" in err and "DuckDB engine" in err
+
+
 @pytest.mark.parametrize("stage", ["read", "type", "order", "dedupe", "pair", "envelope"])
 def test_stop_after_each_stage(stage: str, capsys: pytest.CaptureFixture[str]) -> None:
     assert (

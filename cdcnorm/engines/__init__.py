@@ -2,8 +2,26 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
+from sqlglot import exp
+
 from cdcnorm.engines.duckdb import DuckDBEngine
+from cdcnorm.engines.spark import SparkEngine
+from cdcnorm.errors import UsageError, did_you_mean
 
-ENGINES = {"duckdb": DuckDBEngine}
+ENGINES: dict[str, type[DuckDBEngine] | type[SparkEngine]] = {"duckdb": DuckDBEngine, "spark": SparkEngine}
 
-__all__ = ["ENGINES", "DuckDBEngine"]
+
+def renderer(name: str) -> Callable[[exp.Expr], str]:
+    """How the engine ``name`` writes a plan step as SQL (no session needed)."""
+    if name == "duckdb":
+        return lambda e: e.sql(dialect="duckdb", pretty=True)
+    if name == "spark":
+        from cdcnorm.engines.spark import render
+
+        return lambda e: render(e, pretty=True)
+    raise UsageError(f"unknown engine {name!r}{did_you_mean(name, ENGINES)}", expected=" or ".join(ENGINES))
+
+
+__all__ = ["ENGINES", "DuckDBEngine", "SparkEngine", "renderer"]

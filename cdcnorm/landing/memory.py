@@ -152,7 +152,8 @@ def write_emitted(engine: DuckDBEngine, plan: Plan, path: Path, run: str) -> Non
         f"SELECT {_store(plan, 'k.__pos', '__pos')} AS __pos, {_store(plan, 'k.__seq', '__seq')} AS __seq, k.__act{keys}, "
         f"lpad(hex({plan.content('k.')}), 32, '0') AS __hash, {lit(run)} AS __run, {unpaired} AS __unpaired "
         f"FROM {kept} k WHERE NOT EXISTS (SELECT 1 FROM {waiting} w WHERE NOT w.__settled "
-        "AND w.__file = k.__file AND w.__row = k.__row) ORDER BY 1, 2"
+        # sorted on the keys: their order is the stored texts' order, and cheaper to sort
+        "AND w.__file = k.__file AND w.__row = k.__row) ORDER BY k.__pos, k.__seq"
     )
     path.parent.mkdir(parents=True, exist_ok=True)
     engine.execute(f"COPY ({sql}) TO {lit(str(path))} (FORMAT PARQUET)")

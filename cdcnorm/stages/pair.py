@@ -40,9 +40,18 @@ def pair_images(plan: Plan) -> Plan:
     # Images of one position and sequence that no image of the other kind shares a key with
     # ("lone") pair as a key change only one to one; several lone befores and afters there cannot
     # be told apart: all of them are quarantined as an ambiguous pairing, never paired by guess.
+    # Lone images are only looked for where an unpairable set can be: at a position and sequence
+    # with images of both kinds and more than two of them (one of each always pairs), which an
+    # aggregate finds without comparing keys.
     other = "CASE a.__act WHEN 'before' THEN 'after' ELSE 'before' END"
+    busy = (
+        f"SELECT __pos, __seq FROM {candidates} WHERE __act IN ('before', 'after') GROUP BY __pos, __seq "
+        "HAVING count(*) FILTER (WHERE __act = 'before') >= 1 AND count(*) FILTER (WHERE __act = 'after') >= 1 "
+        "AND count(*) > 2"
+    )
     lone = (
         f"SELECT a.__file, a.__row, a.__act, a.__pos, a.__seq FROM {candidates} a "
+        f"SEMI JOIN ({busy}) g ON a.__pos = g.__pos AND a.__seq = g.__seq "
         f"WHERE a.__act IN ('before', 'after') AND NOT EXISTS (SELECT 1 FROM {candidates} b "
         f"WHERE b.__act = {other} AND b.__pos = a.__pos AND b.__seq = a.__seq AND {same_key})"
     )

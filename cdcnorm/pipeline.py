@@ -427,6 +427,8 @@ def _run(
                 memory.load_earlier(engine, plan, area.emitted_files(table) if area else [])
             if step.materialize:
                 engine.materialize(step.relation, step.expression)
+                for name in step.frees:
+                    engine.drop(plan.step(name).relation)
             else:
                 engine.view(step.relation, step.expression)
             last = f"; {step.name}{_rate(rows, began)}" if step.materialize else last

@@ -41,6 +41,9 @@ class Step:
     relation: str
     expression: exp.Expr
     materialize: bool
+    #: earlier materialised steps this one is the last reader of: dropped once it has run, so a
+    #: whole copy of the rows does not stay in the engine's memory (or its spill files) to the end
+    frees: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -117,9 +120,12 @@ class Plan:
         """The quoted engine relation name of a step."""
         return ident(f"{self.mapping.mapping.slug}__{name}")
 
-    def add(self, stage: str, name: str, sql: str, *, materialize: bool = False) -> Plan:
+    def add(
+        self, stage: str, name: str, sql: str, *, materialize: bool = False, frees: tuple[str, ...] = ()
+    ) -> Plan:
         expression = sqlglot.parse_one(sql, read=PLAN_DIALECT)
-        step = Step(stage, name, f"{self.mapping.mapping.slug}__{name}", expression, materialize)
+        relation = f"{self.mapping.mapping.slug}__{name}"
+        step = Step(stage, name, relation, expression, materialize, frees)
         return replace(self, steps=(*self.steps, step))
 
     def step(self, name: str) -> Step:
@@ -146,4 +152,6 @@ class Plan:
             )
             out.append(f"-- stage {s.stage}: {s.name}")
             out.append((render(create) if render else create.sql(dialect=PLAN_DIALECT, pretty=True)) + ";")
+            for name in s.frees:
+                out.append(f"-- {name} is read no more: dropped")
         return "\n".join(out)

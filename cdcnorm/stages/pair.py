@@ -71,6 +71,7 @@ def pair_images(plan: Plan) -> Plan:
         f"SELECT * FROM {candidates} c WHERE NOT EXISTS (SELECT 1 FROM {plan.rel('unpairable')} u "
         "WHERE u.__file = c.__file AND u.__row = c.__row)",
         materialize=True,
+        frees=("candidates",),
     )
     kept = plan.rel("kept")
     carried = ", ".join(

@@ -15,6 +15,7 @@ from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
 from cdcnorm import __version__
+from cdcnorm.engines import ENGINES
 from cdcnorm.errors import EXIT_OK, CdcnormError, UsageError
 from cdcnorm.mapping import load_mappings
 from cdcnorm.pipeline import STAGE_NAMES, Options, Result, describe_sources, run
@@ -115,7 +116,7 @@ def build_parser() -> argparse.ArgumentParser:
         "--show-plan",
         nargs="?",
         const="duckdb",
-        choices=["duckdb", "spark"],
+        choices=list(ENGINES),
         metavar="ENGINE",
         help="print each table's plan as SQL and stop; as Spark SQL with --show-plan spark "
         "(default: duckdb, the engine convert runs)",

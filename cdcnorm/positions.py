@@ -23,10 +23,12 @@ from cdcnorm.types.timestamp import timestamp_cast
 
 INTEGER_WIDTH = 20  # 2**64 - 1 has 20 digits
 INTEGER_MAX = str((1 << 64) - 1)
+#: An integer key: exact, and every unsigned 64-bit value fits.
+INTEGER_KEY_TYPE = f"DECIMAL({INTEGER_WIDTH}, 0)"
 #: The plan function each engine adapter defines: hex digits -> a 128-bit key.
 HEX_KEY = "plan_hex_key"
 #: The sequence key of a table without a sequence: one constant, of the integer key's type.
-NO_SEQUENCE = f"CAST(0 AS DECIMAL({INTEGER_WIDTH}, 0))"
+NO_SEQUENCE = f"CAST(0 AS {INTEGER_KEY_TYPE})"
 HEX = "'(0[xX])?[0-9A-Fa-f]+'"
 NUMERIC_HEX_DIGITS = 32  # a hex key of up to 32 digits fits UHUGEINT
 
@@ -39,7 +41,7 @@ def integer_key(x: str) -> str:
     # 20 digits compare as text as they do as numbers: the bound needs no wider type
     return (
         f"CASE WHEN regexp_full_match({x}, '[0-9]{{1,{INTEGER_WIDTH}}}') AND (length({x}) < {INTEGER_WIDTH} "
-        f"OR {x} <= '{INTEGER_MAX}') THEN CAST({x} AS DECIMAL({INTEGER_WIDTH}, 0)) END"
+        f"OR {x} <= '{INTEGER_MAX}') THEN CAST({x} AS {INTEGER_KEY_TYPE}) END"
     )
 
 
@@ -144,7 +146,7 @@ def sequence_text(spec: SequenceSpec, position: PositionSpec, k: str) -> str:
 def key_type(kind: str, width: int = 32) -> str:
     """DuckDB's type of a key of this kind (what the landing area's files are read back as)."""
     if kind == "integer":
-        return f"DECIMAL({INTEGER_WIDTH}, 0)"
+        return INTEGER_KEY_TYPE
     if kind == "hex-pair" or (kind == "hex" and width <= NUMERIC_HEX_DIGITS):
         return "UHUGEINT"
     if kind == "hex":

@@ -14,14 +14,12 @@ ENGINES: dict[str, type[DuckDBEngine] | type[SparkEngine]] = {"duckdb": DuckDBEn
 
 
 def renderer(name: str) -> Callable[[exp.Expr], str]:
-    """How the engine ``name`` writes a plan step as SQL (no session needed)."""
-    if name == "duckdb":
-        return lambda e: e.sql(dialect="duckdb", pretty=True)
-    if name == "spark":
-        from cdcnorm.engines.spark import render
-
-        return lambda e: render(e, pretty=True)
-    raise UsageError(f"unknown engine {name!r}{did_you_mean(name, ENGINES)}", expected=" or ".join(ENGINES))
+    """How the engine ``name`` writes a plan step as SQL for people (no session needed)."""
+    if name not in ENGINES:
+        raise UsageError(
+            f"unknown engine {name!r}{did_you_mean(name, ENGINES)}", expected=" or ".join(ENGINES)
+        )
+    return ENGINES[name].pretty
 
 
 __all__ = ["ENGINES", "DuckDBEngine", "SparkEngine", "renderer"]

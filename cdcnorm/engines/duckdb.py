@@ -105,6 +105,11 @@ class DuckDBEngine:
         # no text of a dump can look like it
         self.number_tag = f"~n{secrets.token_hex(8)}~"
 
+    @staticmethod
+    def pretty(expression: exp.Expr) -> str:
+        """A plan step as DuckDB SQL for people (``--show-plan``)."""
+        return expression.sql(dialect="duckdb", pretty=True)
+
     def render(self, expression: exp.Expr | str) -> str:
         if isinstance(expression, str):
             return expression

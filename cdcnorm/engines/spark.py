@@ -31,13 +31,15 @@ from sqlglot import exp
 
 from cdcnorm.errors import CdcnormError
 from cdcnorm.positions import HEX_KEY, NUMERIC_HEX_DIGITS
-from cdcnorm.sql import PLAN_DIALECT, ident
+from cdcnorm.sql import PLAN_DIALECT
 
 if TYPE_CHECKING:
     from pyspark.sql import DataFrame, SparkSession
 
-#: DuckDB functions whose meaning Spark has no function for (the json field type's checks).
-REFUSED = {"JSON_TREE", "JSON_VALID", "JSON_TYPE", "JSON_EXTRACT", "JSON_EXTRACT_STRING", "LIST_SORT"}
+#: DuckDB's JSON functions, which Spark has nothing that means the same for (the json field
+#: type's checks): by name where sqlglot does not know them, by class where it does.
+REFUSED = {"JSON_TREE", "JSON_VALID"}
+REFUSED_NODES = (exp.JSONType, exp.JSONExtract, exp.JSONExtractScalar)
 
 
 class UnsupportedByEngine(CdcnormError):
@@ -98,8 +100,9 @@ def _rewrite(node: exp.Expr) -> exp.Expr:
         return exp.Unhex(this=exp.MD5(this=args[0]))
     if name == "EPOCH_US":
         return exp.Anonymous(this="unix_micros", expressions=args)
-    if name in REFUSED or (isinstance(node, exp.DataType) and node.is_type(exp.DataType.Type.JSON)):
-        what = name.lower() if name else "the JSON type"
+    json_type = isinstance(node, exp.DataType) and node.is_type(exp.DataType.Type.JSON)
+    if name in REFUSED or json_type or isinstance(node, REFUSED_NODES):
+        what = name.lower() if name else "the JSON type" if json_type else node.sql(dialect=PLAN_DIALECT)
         raise UnsupportedByEngine(
             f"the Spark engine cannot run {what}: DuckDB's JSON functions have no Spark counterpart that "
             "means the same",
@@ -150,7 +153,11 @@ class SparkEngine:
 
     def __init__(self, spark: SparkSession | None = None, *, threads: int | None = None) -> None:
         self.spark = spark or session(threads)
-        self._frames: dict[str, DataFrame] = {}
+
+    @staticmethod
+    def pretty(expression: exp.Expr) -> str:
+        """A plan step as Spark SQL for people (``--show-plan spark``)."""
+        return render(expression, pretty=True)
 
     def render(self, expression: exp.Expr | str) -> str:
         """Plan SQL (an expression, or text in the plan dialect) as Spark SQL."""
@@ -159,7 +166,6 @@ class SparkEngine:
     def register(self, name: str, table: pa.Table) -> None:
         """An Arrow table as a relation (the raw rows, the landing area's memory)."""
         frame = self.spark.createDataFrame(table) if table.num_rows else self._empty(table.schema)
-        self._frames[name] = frame
         frame.createOrReplaceTempView(ident_spark(name))
 
     def _empty(self, schema: pa.Schema) -> DataFrame:
@@ -172,7 +178,6 @@ class SparkEngine:
 
     def materialize(self, name: str, expression: exp.Expr) -> None:
         frame = self._sql(name, expression).localCheckpoint()
-        self._frames[name] = frame
         frame.createOrReplaceTempView(ident_spark(name))
 
     def _sql(self, name: str, expression: exp.Expr) -> DataFrame:
@@ -195,9 +200,6 @@ class SparkEngine:
         """A query's rows as tuples (what the ledger's counts read)."""
         return [tuple(r) for r in self.spark.sql(self.render(expression)).collect()]
 
-    def schema(self, name: str) -> list[tuple[str, Any]]:
-        return [(f.name, f.dataType) for f in self._frames[name].schema.fields]
-
 
 def _parsed(expression: exp.Expr | str) -> exp.Expr:
     return sqlglot.parse_one(expression, read=PLAN_DIALECT) if isinstance(expression, str) else expression
@@ -208,4 +210,4 @@ def ident_spark(name: str) -> str:
     return exp.to_identifier(name, quoted=True).sql("spark") if not name.isidentifier() else name
 
 
-__all__ = ["REFUSED", "SparkEngine", "UnsupportedByEngine", "ident", "render", "session"]
+__all__ = ["REFUSED", "REFUSED_NODES", "SparkEngine", "UnsupportedByEngine", "render", "session"]

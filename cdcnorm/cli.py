@@ -71,6 +71,18 @@ def _conversion_args(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument("--threads", type=_positive, help="engine threads (default: all cores)")
     p.add_argument(
+        "--scratch",
+        type=Path,
+        help="folder for the run's temporary files: the engine's spill files, decompressed copies "
+        "(default: the system's temporary folder)",
+    )
+    p.add_argument(
+        "--spill-limit",
+        type=_memory,
+        help="most disk the engine's spill files may take, e.g. 20GB (default: 90%% of the space free "
+        "in the scratch folder when the run starts)",
+    )
+    p.add_argument(
         "--recursive", action="store_true", help="read the dump files in sub-folders of folders too"
     )
     p.add_argument("--json", action="store_true", help="print the result as JSON on stdout")
@@ -254,6 +266,8 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
         recursive=args.recursive,
         wait=getattr(args, "wait", 30.0),
         replace=getattr(args, "replace", False),
+        scratch=args.scratch,
+        spill_limit=args.spill_limit,
     )
     if getattr(args, "show_plan", False):
         from cdcnorm.pipeline import show_plans
@@ -416,6 +430,8 @@ def cmd_demo(args: argparse.Namespace) -> int:
         fmt="jsonl",
         max_rejects=None,
         memory_limit=None,
+        scratch=None,
+        spill_limit=None,
         threads=None,
         input_format=None,
         recursive=False,
@@ -471,11 +487,14 @@ def main(argv: Sequence[str] | None = None) -> int:
         if isinstance(e, duckdb.InterruptException):  # Ctrl-C while the engine was working
             err.print("interrupted: nothing was committed and no output was left half-written", markup=False)
             return 130
+        from cdcnorm.engines.duckdb import disk_full, out_of_memory
+
         if isinstance(e, duckdb.OutOfMemoryException):
             # some steps cannot spill below a minimum: say so in our words, never a traceback
-            from cdcnorm.engines.duckdb import out_of_memory
-
             return _report(out_of_memory(e), argv)
+        full = disk_full(e) if isinstance(e, (duckdb.Error, OSError)) else None
+        if full is not None:
+            return _report(full, argv)
         raise
 
 

@@ -23,6 +23,7 @@ EXIT_BUSY = 9
 EXIT_TARGET = 10
 EXIT_INCOMPLETE = 11
 EXIT_MEMORY = 12
+EXIT_DISK = 13
 
 
 def closest(name: str, candidates: Iterable[str]) -> str | None:
@@ -154,6 +155,12 @@ class EngineMemoryError(CdcnormError):
     """The engine cannot do a step within the memory limit, even spilling to disk."""
 
     exit_code = EXIT_MEMORY
+
+
+class DiskSpaceError(CdcnormError):
+    """The disk is full, or the engine's spill files reached --spill-limit (nothing is committed)."""
+
+    exit_code = EXIT_DISK
 
 
 class TargetError(CdcnormError):

@@ -10,7 +10,6 @@ plan; the writers (writers/), the quarantine and the ledger read its results.
 from __future__ import annotations
 
 import json
-import tempfile
 import time
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
@@ -22,12 +21,13 @@ import sqlglot
 
 from cdcnorm import ledger as ledger_mod
 from cdcnorm import quarantine, zones
-from cdcnorm.engines.duckdb import DuckDBEngine
+from cdcnorm.engines.duckdb import DuckDBEngine, engine_errors
 from cdcnorm.errors import DriftError, LedgerError, RejectLimitError, UsageError, closest
 from cdcnorm.inputs import display_names, expand_inputs, route
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.plan import Plan, RawRelation, Source
-from cdcnorm.readers import RawFile, RawTable, reader_for, streams
+from cdcnorm.readers import RawFile, RawTable, reader_for
+from cdcnorm.scratch import scratch_folder
 from cdcnorm.sql import PLAN_DIALECT, ident
 from cdcnorm.stages.dedupe import dedupe_rows
 from cdcnorm.stages.envelope import build_envelopes
@@ -71,7 +71,8 @@ class Options:
     input_format: str | None = None
     write: bool = True
     recursive: bool = False
-    scratch: Path | None = None  # where readers may put temporary files (default: the system's)
+    scratch: Path | None = None  # where the run's temporary folder goes (default: the system's)
+    spill_limit: str | None = None  # most temporary disk the engine may use (default: its own)
     wait: float = 30.0  # seconds to wait for another run's lock on the landing area
     replace: bool = False  # empty the landing area first
     settle: str | None = None  # "all", or a raw position: pending images below it go to quarantine
@@ -295,8 +296,7 @@ def run(
     if not files and options.settle is None:
         raise UsageError("no input files given")
     routed = route(files, mappings)
-    scratch = Path(tempfile.mkdtemp(prefix="cdcnorm-", dir=options.scratch))
-    try:
+    with scratch_folder(options.scratch) as scratch, engine_errors(scratch):
         if not (options.write and options.out is not None and stop_after is None):
             return _run(mappings, routed, options, scratch, stop_after, progress, strict_drift, None)
         from cdcnorm.landing import open_landing
@@ -323,8 +323,6 @@ def run(
                 details={"run": result.run, "ledger": result.ledger.as_dict()},
             )
         return result
-    finally:
-        streams.remove(scratch)
 
 
 def position_key_of(engine: DuckDBEngine, spec: Any, text: str) -> str | None:
@@ -366,7 +364,10 @@ def _run(
     from cdcnorm.landing import memory
 
     engine = DuckDBEngine(
-        memory_limit=options.memory_limit, threads=options.threads, temp_directory=str(scratch / "spill")
+        memory_limit=options.memory_limit,
+        threads=options.threads,
+        temp_directory=str(scratch / "spill"),
+        spill_limit=options.spill_limit,
     )
     zones.register(engine, mappings)
     read = read_all(mappings, routed, engine, options, progress, scratch)
@@ -478,16 +479,13 @@ def show_plans(
 
     render = renderer(engine_name)
     routed = route(expand_inputs(inputs, recursive=options.recursive), mappings)
-    scratch = Path(tempfile.mkdtemp(prefix="cdcnorm-", dir=options.scratch))
-    try:
+    with scratch_folder(options.scratch) as scratch, engine_errors(scratch):
         engine = DuckDBEngine(temp_directory=str(scratch / "spill"))
         zones.register(engine, mappings)
         read = read_all(mappings, routed, engine, options, _no_progress, scratch)
         by_name = {m.table: m for m in mappings}
         plans = [compile_table(by_name[t], raw) for t, raw in read.items() if not table or t == table]
         return [plan.show(render) for plan in plans]
-    finally:
-        streams.remove(scratch)
 
 
 def free_raw(trun: TableRun, engine: DuckDBEngine) -> None:

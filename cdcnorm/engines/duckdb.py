@@ -7,9 +7,11 @@ registers Arrow tables as relations, materialises steps and writes files.
 from __future__ import annotations
 
 import contextlib
+import errno
 import json
 import os
 import secrets
+from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
@@ -17,7 +19,7 @@ import duckdb
 import pyarrow as pa
 from sqlglot import exp
 
-from cdcnorm.errors import CdcnormError, EngineMemoryError
+from cdcnorm.errors import CdcnormError, DiskSpaceError, EngineMemoryError
 from cdcnorm.positions import HEX_KEY
 from cdcnorm.sql import ident, lit
 
@@ -51,14 +53,56 @@ def _setting_bytes(con: duckdb.DuckDBPyConnection) -> int:
     return int(float(number) * _UNITS.get(unit, 1))
 
 
-def out_of_memory(e: duckdb.OutOfMemoryException, where: str = "") -> EngineMemoryError:
-    """The engine's out-of-memory error in our words (a step that cannot spill below a minimum)."""
-    first = str(e).splitlines()[0].removeprefix("Out of Memory Error: ")
+def out_of_memory(
+    e: duckdb.OutOfMemoryException, where: str = "", temp: str | None = None
+) -> EngineMemoryError | DiskSpaceError:
+    """The engine's out-of-memory error in our words: a step that cannot spill below a minimum, or
+    spill files that reached the temporary-space limit (which is a full disk, not a small memory)."""
+    first = str(e).splitlines()[0].removeprefix("Out of Memory Error: ").rstrip(".")
+    step = f" in {where}" if where else ""
+    if "max_temp_directory_size" in str(e):
+        return DiskSpaceError(
+            f"the engine's spill files reached the temporary-space limit{step} ({first}); nothing was committed",
+            file=temp,
+            expected="room for the spill files (about five times the input's size on large inputs)",
+            hint="free disk space there, give --scratch a folder on a larger disk, or raise --spill-limit "
+            "(default: 90% of the space free when the run starts)",
+        )
     return EngineMemoryError(
-        f"the engine ran out of memory within the limit{' in ' + where if where else ''} ({first}); "
-        "nothing was committed",
+        f"the engine ran out of memory within the limit{step} ({first}); nothing was committed",
         hint="raise --memory-limit, or lower --threads (each thread needs its own working memory)",
     )
+
+
+def disk_full(e: BaseException, where: str | None = None) -> DiskSpaceError | None:
+    """A full disk in our words (the engine's I/O error or the system's), or None for another error."""
+    text = str(e)
+    if not (
+        getattr(e, "errno", None) == errno.ENOSPC
+        or os.strerror(errno.ENOSPC) in text
+        or f'"errno":"{errno.ENOSPC}"' in text
+    ):
+        return None
+    return DiskSpaceError(
+        "the disk is full" + (f" while writing {where}" if where else "") + "; nothing was committed",
+        file=getattr(e, "filename", None) or where,
+        hint="free disk space (the landing area and the scratch folder), or give --scratch a folder on another disk",
+    )
+
+
+@contextlib.contextmanager
+def engine_errors(scratch: Path) -> Iterator[None]:
+    """Out of memory, out of spill space or a full disk anywhere in a run, in our words; the
+    spill files are in ``scratch``."""
+    try:
+        yield
+    except duckdb.OutOfMemoryException as e:
+        raise out_of_memory(e, temp=str(scratch)) from None
+    except (duckdb.Error, OSError) as e:
+        full = disk_full(e)
+        if full is not None:
+            raise full from None
+        raise
 
 
 def default_memory_limit() -> str:
@@ -79,6 +123,7 @@ class DuckDBEngine:
         memory_limit: str | None = None,
         threads: int | None = None,
         temp_directory: str | None = None,
+        spill_limit: str | None = None,
     ) -> None:
         config: dict[str, Any] = {
             "preserve_insertion_order": True,
@@ -88,6 +133,9 @@ class DuckDBEngine:
             config["threads"] = threads
         if temp_directory:
             config["temp_directory"] = temp_directory
+        if spill_limit:
+            config["max_temp_directory_size"] = spill_limit
+        self.temp_directory = temp_directory
         self.con = duckdb.connect(":memory:", config=config)
         # the limit is the run's: the engine gets it less a reserve for what it does not count
         budget = _setting_bytes(self.con)
@@ -139,8 +187,11 @@ class DuckDBEngine:
         try:
             self.con.execute(sql)
         except duckdb.OutOfMemoryException as e:
-            raise out_of_memory(e, f"plan step {name}") from None
+            raise out_of_memory(e, f"plan step {name}", self.temp_directory) from None
         except duckdb.Error as e:
+            full = disk_full(e, f"plan step {name} (spill files in {self.temp_directory})")
+            if full is not None:
+                raise full from None
             first = str(e).splitlines()[0]
             raise CdcnormError(
                 f"the engine could not run plan step {name}: {first}",
@@ -171,6 +222,13 @@ class DuckDBEngine:
             ).fetchone()
             os.replace(tmp, path)
             return int(written[0]) if written else 0
+        except duckdb.OutOfMemoryException as e:
+            raise out_of_memory(e, f"writing {path.name}", self.temp_directory) from None
+        except (duckdb.Error, OSError) as e:
+            full = disk_full(e, str(path))
+            if full is not None:
+                raise full from None
+            raise
         finally:
             if tmp.exists():
                 tmp.unlink()

@@ -6,7 +6,6 @@ import argparse
 import json
 import os
 import sqlite3
-import tempfile
 from pathlib import Path
 from typing import Any
 
@@ -16,6 +15,7 @@ from rich.table import Table
 from cdcnorm.errors import EXIT_OK, TargetError, UsageError, did_you_mean
 from cdcnorm.mapping import load_mappings
 from cdcnorm.mapping.load import LoadedMapping
+from cdcnorm.scratch import scratch_folder
 
 #: Where ``apply`` finds its target when --target is not given (keeps a password off the command line).
 TARGET_ENV = "CDCNORM_TARGET"
@@ -92,8 +92,8 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
     chosen = _chosen(mappings, args.table)
     folder = Path(args.out)
     rows: list[dict[str, Any]] = []
-    with tempfile.TemporaryDirectory(prefix="cdcnorm-") as scratch:
-        engine = _engine(args, Path(scratch), chosen)
+    with scratch_folder() as scratch:
+        engine = _engine(args, scratch, chosen)
         for m in chosen:
             files = event_files(landing, m.table)
             events = load_events(engine, m, files)
@@ -157,8 +157,8 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
     # SQLAlchemy's wrappers of them
     database_errors = (sa.exc.SQLAlchemyError, duckdb.Error, psycopg.Error, sqlite3.Error, OSError)
     reports = []
-    with tempfile.TemporaryDirectory(prefix="cdcnorm-") as scratch:
-        engine = _engine(args, Path(scratch), chosen)
+    with scratch_folder() as scratch:
+        engine = _engine(args, scratch, chosen)
         for m in chosen:
             try:
                 reports.append(

@@ -1,0 +1,119 @@
+"""The run's temporary space: its own folder, swept when its run is gone, and a full disk or a
+spill limit reported as such (never as a memory problem, never as a bug)."""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import duckdb
+import pytest
+
+from cdcnorm.engines.duckdb import disk_full
+from cdcnorm.errors import EXIT_DISK
+from cdcnorm.scratch import OWNER, PREFIX, scratch_folder, sweep
+from tests.conftest import cli
+
+
+def _bench_dump(tmp_path: Path, rows: int) -> tuple[Path, Path]:
+    sys.path.insert(0, str(Path(__file__).resolve().parent / "bench"))
+    import dumpgen
+
+    mdir = dumpgen.write_mapping(tmp_path / "m").parent
+    (tmp_path / "d").mkdir()
+    dumpgen.generate(rows, tmp_path / "d")
+    return mdir, tmp_path / "d"
+
+
+def test_a_run_uses_its_own_scratch_folder_and_removes_it(tmp_path: Path) -> None:
+    base = tmp_path / "scratch"
+    base.mkdir()
+    with scratch_folder(base) as folder:
+        assert folder.parent == base and folder.name.startswith(PREFIX)
+        assert (folder / OWNER).exists()
+        assert sweep(base) == []  # its owner is alive: never swept
+        assert folder.exists()
+    assert not folder.exists()
+
+
+def test_a_killed_runs_folder_is_swept_by_the_next_run(tmp_path: Path) -> None:
+    base = tmp_path / "scratch"
+    base.mkdir()
+    # a real process takes a scratch folder and is killed inside it: it cannot clean up
+    code = (
+        "import os, sys, signal\n"
+        "from pathlib import Path\n"
+        "from cdcnorm.scratch import scratch_folder\n"
+        "with scratch_folder(Path(sys.argv[1])) as f:\n"
+        "    (f / 'spill.tmp').write_bytes(b'x' * 1000)\n"
+        "    print(f, flush=True)\n"
+        "    os.kill(os.getpid(), signal.SIGKILL)\n"
+    )
+    done = subprocess.run([sys.executable, "-c", code, str(base)], capture_output=True, text=True)
+    assert done.returncode == -9
+    left = Path(done.stdout.strip())
+    assert left.exists() and (left / "spill.tmp").exists()
+    foreign = base / f"{PREFIX}not-ours"  # no owner file: another user's or an older version's
+    foreign.mkdir()
+    with scratch_folder(base) as mine:
+        assert not left.exists()
+        assert foreign.exists() and mine.exists()
+
+
+def test_scratch_must_be_a_folder(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    mdir, dumps = _bench_dump(tmp_path, 100)
+    code = cli(
+        "convert",
+        "--mappings",
+        str(mdir),
+        str(dumps),
+        "--out",
+        str(tmp_path / "o"),
+        "--scratch",
+        str(tmp_path / "nowhere"),
+    )
+    assert code == 2
+    err = capsys.readouterr().err
+    assert "nowhere does not exist" in err and "Traceback" not in err
+
+
+def test_spill_files_over_the_spill_limit_are_a_disk_error_and_commit_nothing(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """A real spill: the engine's limit is far below the input and the spill space is capped."""
+    mdir, dumps = _bench_dump(tmp_path, 50_000)
+    out = tmp_path / "out"
+    scratch = tmp_path / "scratch"
+    scratch.mkdir()
+    args = ["convert", "--mappings", str(mdir), str(dumps), "--out", str(out), "--format", "parquet"]
+    tight = ["--memory-limit", "40MB", "--threads", "1", "--scratch", str(scratch)]
+    assert cli(*args, *tight, "--spill-limit", "1MB") == EXIT_DISK == 13
+    err = capsys.readouterr().err
+    assert "spill files reached the temporary-space limit" in err and "--spill-limit" in err
+    assert str(scratch) in err  # where the spill files were
+    assert "out of memory" not in err and "Traceback" not in err and "bug in cdcnorm" not in err
+    assert not (out / "events").exists()
+    assert list(scratch.iterdir()) == []  # the run's scratch folder is gone
+    # the same run with room to spill converts
+    assert cli(*args, *tight, "--quiet") == 0
+
+
+def test_a_full_disk_is_named_as_such() -> None:
+    # Linux's /dev/full answers every write with ENOSPC (errno 28, "No space left on device")
+    if not Path("/dev/full").exists():
+        pytest.skip("no /dev/full on this system")
+    con = duckdb.connect()
+    with pytest.raises(duckdb.IOException) as engine_error:
+        con.execute("COPY (SELECT range AS i FROM range(100000)) TO '/dev/full' (FORMAT CSV)")
+    found = disk_full(engine_error.value, "events/t/000001.parquet")
+    assert found is not None and found.exit_code == EXIT_DISK
+    assert "the disk is full while writing events/t/000001.parquet" in found.render()
+    with pytest.raises(OSError) as system_error, open("/dev/full", "wb") as f:
+        f.write(b"x" * 100_000)
+        f.flush()
+        os.fsync(f.fileno())
+    assert disk_full(system_error.value) is not None
+    assert disk_full(duckdb.IOException("IO Error: Cannot open file: permission denied")) is None
+    assert disk_full(OSError(13, "Permission denied")) is None

@@ -47,6 +47,9 @@ STAGES: list[tuple[str, Callable[[Plan], Plan]]] = [
     ("envelope", build_envelopes),
 ]
 STAGE_NAMES = ["read", *(name for name, _ in STAGES)]
+#: The materialised steps the writers and the events read after a run (the ``events`` view is
+#: over ``kept`` and ``pairs``); the others are dropped once the run is accounted for.
+RESULT_STEPS = ("kept", "pairs", "waiting")
 
 Progress = Callable[[str, int, int], None]
 
@@ -119,7 +122,8 @@ class Result:
         return self.ledger.total.quarantined
 
     def stage_output(self, table: str, stage: str, limit: int | None = None) -> pa.Table:
-        """The rows of the last step of ``stage`` for ``table`` (after a run)."""
+        """The rows of the last step of ``stage`` for ``table``, after a run stopped at or after
+        that stage (``stop_after``): a whole run keeps only the steps in RESULT_STEPS."""
         run = self.tables[table]
         if stage == "read":
             return self._read_rows(run, limit)
@@ -437,6 +441,10 @@ def _run(
             continue
         progress(f"{table}: account", 0, 1)
         result.ledger.tables[table] = _account(trun, engine)
+        for step in plan.steps:  # counted: what the writers do not read goes now
+            if step.materialize and step.name not in RESULT_STEPS:
+                engine.drop(step.relation)
+        engine.drop(f"{plan.mapping.mapping.slug}__earlier")
     progress("account", total, total)
     if stop_after is not None:
         return result

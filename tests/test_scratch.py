@@ -117,3 +117,31 @@ def test_a_full_disk_is_named_as_such() -> None:
     assert disk_full(system_error.value) is not None
     assert disk_full(duckdb.IOException("IO Error: Cannot open file: permission denied")) is None
     assert disk_full(OSError(13, "Permission denied")) is None
+
+
+def test_snapshot_spills_under_scratch_and_leaves_it_empty(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    demo = Path(__file__).resolve().parent.parent / "cdcnorm" / "demo"
+    landing = tmp_path / "landing"
+    mappings = str(demo / "mappings")
+    assert (
+        cli(
+            "convert",
+            "--quiet",
+            "--mappings",
+            mappings,
+            str(demo / "examples" / "dumps"),
+            "--out",
+            str(landing),
+        )
+        == 0
+    )
+    scratch = tmp_path / "scratch"
+    scratch.mkdir()
+    snap = ["snapshot", str(landing), "--mappings", mappings, "--out", str(tmp_path / "state")]
+    assert cli(*snap, "--scratch", str(scratch)) == 0
+    assert list(scratch.iterdir()) == [] and list((tmp_path / "state").iterdir())
+    capsys.readouterr()
+    assert cli(*snap, "--scratch", str(tmp_path / "nowhere")) == 2
+    assert "nowhere does not exist" in capsys.readouterr().err

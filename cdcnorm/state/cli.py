@@ -36,6 +36,11 @@ def add_commands(sub: Any) -> None:
     snap.add_argument("--table", help="only this table")
     snap.add_argument("--mappings", default="mappings", help="folder of mapping files (default: mappings/)")
     snap.add_argument("--memory-limit", help="the engine's memory limit, e.g. 2GB")
+    snap.add_argument(
+        "--scratch",
+        type=Path,
+        help="folder for the engine's spill files (default: the system's temporary folder)",
+    )
     snap.add_argument("--json", action="store_true")
 
     app = sub.add_parser("apply", help="load a landing area's events into database tables, idempotently")
@@ -52,6 +57,11 @@ def add_commands(sub: Any) -> None:
     app.add_argument("--batch-rows", type=int, default=50_000, help="keys per batch (default 50000)")
     app.add_argument("--wait", type=float, default=30.0, help="seconds to wait for another apply")
     app.add_argument("--memory-limit", help="the engine's memory limit, e.g. 2GB")
+    app.add_argument(
+        "--scratch",
+        type=Path,
+        help="folder for the engine's spill files (default: the system's temporary folder)",
+    )
     app.add_argument("--json", action="store_true")
 
 
@@ -92,7 +102,9 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
     chosen = _chosen(mappings, args.table)
     folder = Path(args.out)
     rows: list[dict[str, Any]] = []
-    with scratch_folder() as scratch:
+    from cdcnorm.engines.duckdb import engine_errors
+
+    with scratch_folder(args.scratch) as scratch, engine_errors(scratch):
         engine = _engine(args, scratch, chosen)
         for m in chosen:
             files = event_files(landing, m.table)
@@ -157,7 +169,9 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
     # SQLAlchemy's wrappers of them
     database_errors = (sa.exc.SQLAlchemyError, duckdb.Error, psycopg.Error, sqlite3.Error, OSError)
     reports = []
-    with scratch_folder() as scratch:
+    from cdcnorm.engines.duckdb import engine_errors
+
+    with scratch_folder(args.scratch) as scratch, engine_errors(scratch):
         engine = _engine(args, scratch, chosen)
         for m in chosen:
             try:

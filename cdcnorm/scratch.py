@@ -56,7 +56,7 @@ def scratch_folder(parent: Path | None = None) -> Iterator[Path]:
     base = Path(parent) if parent is not None else Path(tempfile.gettempdir())
     if not base.is_dir():
         raise UsageError(
-            f"the scratch folder {base} does not exist",
+            f"the scratch folder {base} " + ("is not a folder" if base.exists() else "does not exist"),
             expected="an existing folder for temporary files",
             found=str(base),
         )

@@ -145,3 +145,6 @@ def test_snapshot_spills_under_scratch_and_leaves_it_empty(
     capsys.readouterr()
     assert cli(*snap, "--scratch", str(tmp_path / "nowhere")) == 2
     assert "nowhere does not exist" in capsys.readouterr().err
+    (tmp_path / "a-file").write_text("x")
+    assert cli(*snap, "--scratch", str(tmp_path / "a-file")) == 2
+    assert "a-file is not a folder" in capsys.readouterr().err

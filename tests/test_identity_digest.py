@@ -1,0 +1,50 @@
+"""The identity index's content digests are stored in landing areas and compared by every later
+run: they must not change between versions (of cdcnorm or of its engine) without a new index
+version. These digests were recorded from this version's output; if this test fails after an
+upgrade, stored landing areas would see their own repeats as conflicting versions."""
+
+from __future__ import annotations
+
+import pyarrow.parquet as pq
+
+from tests.conftest import ConvertFn, run_files
+
+MAPPING = """
+table: t.digest
+files: ["d*"]
+key: [id]
+change:
+  action: {column: op, codes: {I: insert}}
+  position: {column: pos, kind: hex, width: 20}
+  committed_at: {column: at}
+fields:
+  id: integer
+  name: text
+  fee: decimal(12,2)
+  weight: float
+  seen: timestamp
+  ok: boolean
+"""
+
+DUMP = (
+    "op,pos,at,id,name,fee,weight,seen,ok\n"
+    'I,0A,2026-03-01T10:00:00Z,1,Åsa "quoted",12.50,0.1,2026-03-01T09:59:59.123456Z,true\n'
+    "I,0B,2026-03-01T10:00:01+02:00,2,,-0.01,1e300,2026-02-28 23:00:00,false\n"
+    "I,0C,2026-03-01T10:00:02Z,3,a\\nb,,-0.0,,\n"
+)
+
+#: (position text, digest) per emitted row, recorded from this version's landing area.
+RECORDED = [
+    ("0000000000000000000A", "15A7AC8E2EE77CE0516D964293947E38"),
+    ("0000000000000000000B", "3586D88A8192D668D54B98BDB686F342"),
+    ("0000000000000000000C", "11872DDAD5AAF7A99EE1421891C03CA4"),
+]
+
+
+def test_stored_digests_do_not_change(convert: ConvertFn) -> None:
+    done = convert(MAPPING, {"d.csv": DUMP})
+    assert done.ledger()["total"]["emitted"] == 3 and done.quarantine("t.digest") == []
+    (index,) = run_files(done.out, "index/emitted", "t.digest")
+    rows = pq.read_table(index, columns=["__pos", "__hash"]).to_pylist()
+    got = [(r["__pos"], r["__hash"]) for r in rows]
+    assert got == RECORDED

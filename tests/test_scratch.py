@@ -3,6 +3,8 @@ spill limit reported as such (never as a memory problem, never as a bug)."""
 
 from __future__ import annotations
 
+import errno
+import json
 import os
 import subprocess
 import sys
@@ -148,3 +150,40 @@ def test_snapshot_spills_under_scratch_and_leaves_it_empty(
     (tmp_path / "a-file").write_text("x")
     assert cli(*snap, "--scratch", str(tmp_path / "a-file")) == 2
     assert "a-file is not a folder" in capsys.readouterr().err
+
+
+def test_a_full_disk_while_publishing_says_the_run_is_committed_and_the_next_run_finishes_it(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """The disk fills after the journal is written, while the run's files move into place (the
+    fault is injected into the first move; the rest is the real landing area)."""
+    demo = Path(__file__).resolve().parent.parent / "cdcnorm" / "demo"
+    landing = tmp_path / "landing"
+    args = [
+        "convert",
+        "--mappings",
+        str(demo / "mappings"),
+        str(demo / "examples" / "dumps"),
+        "--out",
+        str(landing),
+    ]
+    real_replace = os.replace
+    failed: list[str] = []
+
+    def replace(src: str | Path, dst: str | Path) -> None:
+        if "staging-" in str(src) and "staging-" not in str(dst) and not failed:
+            failed.append(str(src))
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+        real_replace(src, dst)
+
+    monkeypatch.setattr(os, "replace", replace)
+    assert cli(*args) == EXIT_DISK
+    err = capsys.readouterr().err
+    assert "is committed, but moving its files into place stopped" in err and "Traceback" not in err
+    assert "nothing was committed" not in err
+    assert failed and not list((landing / "runs").glob("*.json"))  # the run record moves last
+    monkeypatch.setattr(os, "replace", real_replace)
+    assert cli(*args, "--quiet") == 0  # opening the area finishes the move; the dumps are now known
+    (record,) = sorted((landing / "runs").glob("*.json"))
+    assert json.loads(record.read_text())["ledger"]["total"]["read"] == 37
+    assert list((landing / "events").rglob("*.jsonl"))

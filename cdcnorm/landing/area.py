@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import errno
 import os
 import secrets
 import shutil
@@ -11,7 +12,7 @@ from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 
-from cdcnorm.errors import InputError
+from cdcnorm.errors import CdcnormError, DiskSpaceError, InputError
 from cdcnorm.landing import journal, lock, runs
 from cdcnorm.names import path_part
 
@@ -57,7 +58,19 @@ class Landing:
         files = sorted(p.relative_to(staging).as_posix() for p in staging.rglob("*") if p.is_file())
         moves = [(f, f) for f in files if f != record] + [(record, record)]
         journal.write(self.meta, staging, moves)
-        journal.replay(self.root, self.meta)
+        try:
+            journal.replay(self.root, self.meta)
+        except OSError as e:  # committed: the journal is written, only the moves are left
+            message = (
+                f"run {run} is committed, but moving its files into place stopped ({e.strerror}); "
+                "the next convert into this landing area finishes the move"
+            )
+            kind = DiskSpaceError if e.errno == errno.ENOSPC else CdcnormError
+            raise kind(
+                message,
+                file=str(self.root),
+                hint="free disk space, then run convert again (with the same or new dumps)",
+            ) from None
 
     def committed(self) -> set[str]:
         return runs.committed(self.root)

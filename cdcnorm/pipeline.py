@@ -444,7 +444,7 @@ def _run(
         for step in plan.steps:  # counted: what the writers do not read goes now
             if step.materialize and step.name not in RESULT_STEPS:
                 engine.drop(step.relation)
-        engine.drop(f"{plan.mapping.mapping.slug}__earlier")
+        engine.drop(plan.relation("earlier"))
     progress("account", total, total)
     if stop_after is not None:
         return result

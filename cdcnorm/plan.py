@@ -116,16 +116,19 @@ class Plan:
         names = self.fields
         return [names.index(k) for k in self.mapping.mapping.key]
 
+    def relation(self, name: str) -> str:
+        """The engine relation name of a step (or of a relation the landing area loads)."""
+        return f"{self.mapping.mapping.slug}__{name}"
+
     def rel(self, name: str) -> str:
         """The quoted engine relation name of a step."""
-        return ident(f"{self.mapping.mapping.slug}__{name}")
+        return ident(self.relation(name))
 
     def add(
         self, stage: str, name: str, sql: str, *, materialize: bool = False, frees: tuple[str, ...] = ()
     ) -> Plan:
         expression = sqlglot.parse_one(sql, read=PLAN_DIALECT)
-        relation = f"{self.mapping.mapping.slug}__{name}"
-        step = Step(stage, name, relation, expression, materialize, frees)
+        step = Step(stage, name, self.relation(name), expression, materialize, frees)
         return replace(self, steps=(*self.steps, step))
 
     def step(self, name: str) -> Step:

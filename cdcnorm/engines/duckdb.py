@@ -91,15 +91,15 @@ def disk_full(e: BaseException, where: str | None = None) -> DiskSpaceError | No
 
 
 @contextlib.contextmanager
-def engine_errors(scratch: Path) -> Iterator[None]:
-    """Out of memory, out of spill space or a full disk anywhere in a run, in our words; the
-    spill files are in ``scratch``."""
+def engine_errors(temp: Path | str | None, where: str = "", writing: str | None = None) -> Iterator[None]:
+    """Out of memory, out of spill space or a full disk, in our words: ``temp`` is where the spill
+    files are, ``where`` the step that ran out of memory, ``writing`` what was being written."""
     try:
         yield
     except duckdb.OutOfMemoryException as e:
-        raise out_of_memory(e, temp=str(scratch)) from None
+        raise out_of_memory(e, where, None if temp is None else str(temp)) from None
     except (duckdb.Error, OSError) as e:
-        full = disk_full(e)
+        full = disk_full(e, writing)
         if full is not None:
             raise full from None
         raise
@@ -184,14 +184,11 @@ class DuckDBEngine:
         self._run(name, f"CREATE OR REPLACE TEMP VIEW {ident(name)} AS {self.render(expression)}")
 
     def _run(self, name: str, sql: str) -> None:
+        step = f"plan step {name}"
         try:
-            self.con.execute(sql)
-        except duckdb.OutOfMemoryException as e:
-            raise out_of_memory(e, f"plan step {name}", self.temp_directory) from None
+            with engine_errors(self.temp_directory, step, f"{step} (spill files in {self.temp_directory})"):
+                self.con.execute(sql)
         except duckdb.Error as e:
-            full = disk_full(e, f"plan step {name} (spill files in {self.temp_directory})")
-            if full is not None:
-                raise full from None
             first = str(e).splitlines()[0]
             raise CdcnormError(
                 f"the engine could not run plan step {name}: {first}",
@@ -217,18 +214,12 @@ class DuckDBEngine:
             "lines": "FORMAT CSV, HEADER false, QUOTE '', ESCAPE '', DELIMITER '\x01'",
         }[fmt]
         try:
-            written = self.con.execute(
-                f"COPY ({self.render(expression)}) TO {lit(str(tmp))} ({options})"
-            ).fetchone()
-            os.replace(tmp, path)
+            with engine_errors(self.temp_directory, f"writing {path.name}", str(path)):
+                written = self.con.execute(
+                    f"COPY ({self.render(expression)}) TO {lit(str(tmp))} ({options})"
+                ).fetchone()
+                os.replace(tmp, path)
             return int(written[0]) if written else 0
-        except duckdb.OutOfMemoryException as e:
-            raise out_of_memory(e, f"writing {path.name}", self.temp_directory) from None
-        except (duckdb.Error, OSError) as e:
-            full = disk_full(e, str(path))
-            if full is not None:
-                raise full from None
-            raise
         finally:
             if tmp.exists():
                 tmp.unlink()

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import shutil
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -66,7 +65,3 @@ def engine_readable(path: Path, scratch: Path) -> Path:
         for block in blocks(path):
             out.write(block)
     return target
-
-
-def remove(folder: Path) -> None:
-    shutil.rmtree(folder, ignore_errors=True)

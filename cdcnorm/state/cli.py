@@ -93,6 +93,7 @@ def _engine(args: argparse.Namespace, scratch: Path, mappings: list[LoadedMappin
 
 
 def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
+    from cdcnorm.engines.duckdb import engine_errors
     from cdcnorm.names import path_part
     from cdcnorm.state import snapshot
     from cdcnorm.state.events import event_files, load_events
@@ -102,8 +103,6 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
     chosen = _chosen(mappings, args.table)
     folder = Path(args.out)
     rows: list[dict[str, Any]] = []
-    from cdcnorm.engines.duckdb import engine_errors
-
     with scratch_folder(args.scratch) as scratch, engine_errors(scratch):
         engine = _engine(args, scratch, chosen)
         for m in chosen:
@@ -165,12 +164,12 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
     import psycopg
     import sqlalchemy as sa
 
+    from cdcnorm.engines.duckdb import engine_errors
+
     # what a target database raises: its driver's errors (some reach us unwrapped, as COPY's) and
     # SQLAlchemy's wrappers of them
     database_errors = (sa.exc.SQLAlchemyError, duckdb.Error, psycopg.Error, sqlite3.Error, OSError)
     reports = []
-    from cdcnorm.engines.duckdb import engine_errors
-
     with scratch_folder(args.scratch) as scratch, engine_errors(scratch):
         engine = _engine(args, scratch, chosen)
         for m in chosen:

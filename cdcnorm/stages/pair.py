@@ -33,7 +33,6 @@ def pair_images(plan: Plan) -> Plan:
         f"SELECT __file, __row, __act, __pos, __seq, __cat, __rank, {values}, FALSE AS __carried "
         f"FROM {deduped} WHERE __fate = 'keep' UNION ALL "
         f"SELECT __file, __row, 'before', __pos, __seq, __cat, 1, {values}, TRUE FROM {plan.rel('carried')}",
-        materialize=True,
     )
     candidates = plan.rel("candidates")
     same_key = " AND ".join(f"a.v{i} = b.v{i}" for i in keys)
@@ -71,7 +70,6 @@ def pair_images(plan: Plan) -> Plan:
         f"SELECT * FROM {candidates} c WHERE NOT EXISTS (SELECT 1 FROM {plan.rel('unpairable')} u "
         "WHERE u.__file = c.__file AND u.__row = c.__row)",
         materialize=True,
-        frees=("candidates",),
     )
     kept = plan.rel("kept")
     carried = ", ".join(
@@ -97,21 +95,24 @@ def pair_images(plan: Plan) -> Plan:
             "AND b.__pos = e.__pos AND b.__seq = e.__seq)",
         )
         afters = plan.rel("afters")
-        # __n: the images of the position and sequence that share no key with one of the other kind
-        lone_after = (
-            f"NOT EXISTS (SELECT 1 FROM {kept} b WHERE b.__act = 'before' AND b.__pos = a.__pos "
-            f"AND b.__seq = a.__seq AND {same_key})"
+        befores = f"(SELECT * FROM {kept} WHERE __act = 'before')"
+        # Same-key pairs are one equi-join. The images of a position and sequence that share no key
+        # with one of the other kind ("lone": an anti-join finds them, and they are few) pair as a
+        # key change only where that position and sequence has exactly one lone before and one
+        # lone after; the two kinds of pair never overlap (a lone image has no same-key partner).
+        lone = (
+            "SELECT *, count(*) OVER (PARTITION BY __pos, __seq) AS __n FROM {side} x WHERE NOT EXISTS "
+            "(SELECT 1 FROM {other} y WHERE y.__pos = x.__pos AND y.__seq = x.__seq AND {same})"
         )
-        lone_before = f"NOT EXISTS (SELECT 1 FROM {afters} a WHERE a.__pos = b.__pos AND a.__seq = b.__seq AND {same_key})"
+        same_xy = " AND ".join(f"x.v{i} = y.v{i}" for i in keys)
+        lone_a = lone.format(side=afters, other=befores, same=same_xy)
+        lone_b = lone.format(side=befores, other=afters, same=same_xy)
+        pick = "a.__file AS af, a.__row AS ar, a.__ghost AS ghost, b.__file AS bf, b.__row AS br"
         pairs = (
-            f"SELECT a.__file AS af, a.__row AS ar, a.__ghost AS ghost, b.__file AS bf, b.__row AS br, "
-            f"({same_key}) AS same_key, {carried} FROM "
-            f"(SELECT *, count(*) FILTER (WHERE __lone) OVER (PARTITION BY __pos, __seq) AS __n FROM "
-            f"(SELECT a.*, {lone_after} AS __lone FROM {afters} a)) a JOIN "
-            f"(SELECT *, count(*) FILTER (WHERE __lone) OVER (PARTITION BY __pos, __seq) AS __n FROM "
-            f"(SELECT b.*, {lone_before} AS __lone FROM {kept} b WHERE b.__act = 'before')) b "
-            f"ON a.__pos = b.__pos AND a.__seq = b.__seq AND (({same_key}) "
-            "OR (a.__lone AND b.__lone AND a.__n = 1 AND b.__n = 1))"
+            f"SELECT {pick}, TRUE AS same_key, {carried} FROM {afters} a JOIN {befores} b "
+            f"ON a.__pos = b.__pos AND a.__seq = b.__seq AND {same_key} UNION ALL "
+            f"SELECT {pick}, FALSE, {carried} FROM ({lone_a}) a JOIN ({lone_b}) b "
+            "ON a.__pos = b.__pos AND a.__seq = b.__seq WHERE a.__n = 1 AND b.__n = 1"
         )
     else:
         pairs = (

@@ -1,19 +1,25 @@
 """What runs remember: identities emitted earlier, and before-images still waiting.
 
 Both are Parquet files in the landing area, read and written by the engine,
-never loaded into Python. Positions and sequences are stored as their
-normalised text (fixed width, so text order is key order; Parquet has no
-128-bit integers) and parsed back into keys on reading. Identity files are
-sorted by position, so reading only the positions a run can meet skips most
-of a long history.
+never loaded into Python. Identity files are sorted by position, so reading
+only the positions a run can meet skips most of a long history.
 
-- ``index/emitted/<table>/<run>.parquet``: ``__pos``, ``__seq``, ``__act``,
-  the key fields, ``__hash`` (128-bit digest of the content, hex), ``__run``,
-  ``__unpaired`` (an after-image emitted without its before-image).
+- ``index/emitted/<table>/<run>.parquet``: the identities a run emitted or
+  merged. Format 2 (``__digest_hi`` marks it): ``__pos`` and ``__seq``, the
+  key fields, ``__act``, ``__digest_hi`` and ``__digest_lo`` (the 128-bit
+  digest of the content as two unsigned 64-bit halves), ``__run``,
+  ``__unpaired`` (an after-image emitted without its before-image). A 128-bit
+  position or sequence key (hex, hex-pair) is stored as two unsigned 64-bit
+  halves too, ``__pos_hi``/``__pos_lo`` (Parquet has no 128-bit integers; the
+  halves sort as the key does); another key is stored as its normalised text.
+  Format 1 (written before, still read): every key as normalised text and the
+  digest as 32 hex digits in ``__hash``. Both hold the same digest, so an area
+  written by either continues the same way.
 - ``index/pending/<table>/<run>.parquet``: every before-image waiting after
   that run (carried ones included): origin ``__name`` and ``__row``, the typed
-  row, ``__run`` (the run that read it) and ``__raw`` (its raw columns as a JSON
-  object, for the quarantine if it is ever settled).
+  row (positions and sequences as normalised text, fixed width, so text order
+  is key order), ``__run`` (the run that read it) and ``__raw`` (its raw
+  columns as a JSON object, for the quarantine if it is ever settled).
 """
 
 from __future__ import annotations
@@ -50,6 +56,26 @@ def _restore(plan: Plan, col: str, name: str) -> str:
     if kind[0] == "text":
         return col
     return positions.key(kind[0], col, width=kind[1])
+
+
+#: What a format 2 identity file has that a format 1 file has not.
+FORMAT_2_MARK = "__digest_hi"
+_LOW64 = f"CAST({(1 << 64) - 1} AS UHUGEINT)"
+
+
+def _wide(plan: Plan, which: str) -> bool:
+    """Whether the position (``__pos``) or sequence (``__seq``) key is a 128-bit integer."""
+    return plan.types()[which] == "UHUGEINT"
+
+
+def halves(col: str, name: str) -> list[str]:
+    """SQL: a 128-bit key as its two unsigned 64-bit halves, named ``<name>_hi`` and ``<name>_lo``."""
+    return [f"CAST({col} >> 64 AS UBIGINT) AS {name}_hi", f"CAST({col} & {_LOW64} AS UBIGINT) AS {name}_lo"]
+
+
+def joined(name: str) -> str:
+    """SQL: the 128-bit key stored as ``<name>_hi`` and ``<name>_lo``."""
+    return f"((CAST({name}_hi AS UHUGEINT) << 64) | {name}_lo)"
 
 
 def empty_relation(columns: dict[str, str]) -> str:
@@ -108,37 +134,63 @@ def load_carried(engine: DuckDBEngine, plan: Plan, path: Path | None, first_id: 
 
 def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
     """Create ``<table>__earlier``: the identities earlier runs emitted, at the positions this
-    run's rows can meet (between the lowest and highest position of the run's good rows)."""
+    run's rows can meet (between the lowest and highest position of the run's good rows), from
+    identity files of either format."""
     rel = plan.rel("earlier")
+    empty = f"CREATE OR REPLACE TEMP TABLE {rel} AS {empty_relation(earlier_columns(plan))}"
     if not files:
-        engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {empty_relation(earlier_columns(plan))}")
+        engine.execute(empty)
         return
-    lo, hi = engine.rows(
-        f"SELECT {_store(plan, 'min(__pos)', '__pos')}, {_store(plan, 'max(__pos)', '__pos')} FROM {plan.rel('typed')} WHERE __ok"
-    )[0]
+    lo, hi = engine.rows(f"SELECT min(__pos), max(__pos) FROM {plan.rel('typed')} WHERE __ok")[0]
     if lo is None:
-        engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {empty_relation(earlier_columns(plan))}")
+        engine.execute(empty)
         return
+    lo_key, hi_key = (f"CAST({lit(str(x))} AS {plan.types()['__pos']})" for x in (lo, hi))
+    names = [lit(str(f)) for f in files]
+    second = {
+        str(f)
+        for (f,) in engine.rows(
+            f"SELECT DISTINCT file_name FROM parquet_schema([{', '.join(names)}]) WHERE name = {lit(FORMAT_2_MARK)}"
+        )
+    }
+    parts = []
+    for fmt, group in (
+        (1, [f for f in files if str(f) not in second]),
+        (2, [f for f in files if str(f) in second]),
+    ):
+        if group:
+            parts.append(_earlier_rows(plan, fmt, group, lo_key, hi_key))
+    engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {' UNION ALL '.join(parts)}")
+
+
+def _earlier_rows(plan: Plan, fmt: int, files: list[Path], lo: str, hi: str) -> str:
+    """SQL: the identities of identity files of one format, keys restored, between ``lo`` and ``hi``."""
     types = earlier_columns(plan)
+    src = f"read_parquet([{', '.join(lit(str(f)) for f in files)}])"
+    keys = {}
+    for c in ("__pos", "__seq"):
+        keys[c] = joined(c) if fmt == 2 and _wide(plan, c) else _restore(plan, c, c)
+    digest = joined("__digest") if fmt == 2 else f"{positions.HEX_KEY}(__hash)"
     cols = [
-        f"{_restore(plan, '__pos', '__pos')} AS __pos",
-        f"{_restore(plan, '__seq', '__seq')} AS __seq",
+        f"{keys['__pos']} AS __pos",
+        f"{keys['__seq']} AS __seq",
         "__act",
         *(f"CAST(v{i} AS {types[f'v{i}']}) AS v{i}" for i in plan.key_index),
-        f"{positions.HEX_KEY}(__hash) AS __hash",
+        f"{digest} AS __hash",
         "__run",
         "__unpaired",
     ]
-    src = f"read_parquet([{', '.join(lit(str(f)) for f in files)}])"
-    engine.execute(
-        f"CREATE OR REPLACE TEMP TABLE {rel} AS SELECT {', '.join(cols)} FROM {src} "
-        f"WHERE __pos BETWEEN {lit(str(lo))} AND {lit(str(hi))}"
-    )
+    if fmt == 2 and _wide(plan, "__pos"):
+        # the high halves alone let the reader skip row groups by their statistics
+        near = f"__pos_hi BETWEEN CAST({lo} >> 64 AS UBIGINT) AND CAST({hi} >> 64 AS UBIGINT) AND "
+    else:
+        near = f"__pos BETWEEN {_store(plan, lo, '__pos')} AND {_store(plan, hi, '__pos')} AND "
+    return f"SELECT * FROM (SELECT {', '.join(cols)} FROM {src} WHERE {near}TRUE) WHERE __pos BETWEEN {lo} AND {hi}"
 
 
 def write_emitted(engine: DuckDBEngine, plan: Plan, path: Path, run: str) -> None:
-    """The identities this run settled for good: every kept row (carried ones included) except the
-    before-images left waiting; an after-image emitted without its before-image is marked."""
+    """The identities this run settled for good (format 2): every kept row (carried ones included)
+    except the before-images left waiting; an after-image emitted without its before-image is marked."""
     paired = plan.mapping.mapping.change.updates == "paired"
     kept, waiting, pairs = plan.rel("kept"), plan.rel("waiting"), plan.rel("pairs")
     keys = "".join(f", k.v{i}" for i in plan.key_index)
@@ -148,12 +200,17 @@ def write_emitted(engine: DuckDBEngine, plan: Plan, path: Path, run: str) -> Non
         if paired
         else "FALSE"
     )
+    stored = [
+        x
+        for c in ("__pos", "__seq")
+        for x in (halves(f"k.{c}", c) if _wide(plan, c) else [f"{_store(plan, f'k.{c}', c)} AS {c}"])
+    ]
     sql = (
-        f"SELECT {_store(plan, 'k.__pos', '__pos')} AS __pos, {_store(plan, 'k.__seq', '__seq')} AS __seq, k.__act{keys}, "
-        f"lpad(hex({plan.content('k.')}), 32, '0') AS __hash, {lit(run)} AS __run, {unpaired} AS __unpaired "
-        f"FROM {kept} k WHERE NOT EXISTS (SELECT 1 FROM {waiting} w WHERE NOT w.__settled "
-        # sorted on the keys: their order is the stored texts' order, and cheaper to sort
-        "AND w.__file = k.__file AND w.__row = k.__row) ORDER BY k.__pos, k.__seq"
+        f"SELECT {', '.join(stored)}, k.__act{keys}, {', '.join(halves('k.__digest', '__digest'))}, "
+        f"{lit(run)} AS __run, {unpaired} AS __unpaired "
+        f"FROM (SELECT *, {plan.content()} AS __digest FROM {kept}) k WHERE NOT EXISTS (SELECT 1 FROM {waiting} w "
+        # sorted on the keys: their order is the stored columns' order, and cheaper to sort
+        "WHERE NOT w.__settled AND w.__file = k.__file AND w.__row = k.__row) ORDER BY k.__pos, k.__seq"
     )
     path.parent.mkdir(parents=True, exist_ok=True)
     engine.execute(f"COPY ({sql}) TO {lit(str(path))} (FORMAT PARQUET)")

@@ -14,9 +14,10 @@ Two different changes of one key at one position and sequence (an insert
 and a delete, say) cannot be ordered, except a before-image and its
 after-image: all of them are quarantined as ``ambiguous order``, never guessed.
 
-Only identities seen more than once need a closer look, so the stage first
-finds those with a hash aggregate and compares the (few) rows of those
-identities exactly, value by value; every other row is kept as it is.
+Only keys seen more than once at a position and sequence need a closer look,
+so the stage first finds those groups with one hash aggregate and compares the
+(few) rows of those groups exactly, value by value; every other row is kept as
+it is.
 """
 
 from __future__ import annotations
@@ -29,21 +30,37 @@ def dedupe_rows(plan: Plan) -> Plan:
     identity = ", ".join(["__pos", "__seq", "__act", *keys])
     content = "{" + ", ".join(["'c': __cat", *(f"'v{i}': v{i}" for i in range(len(plan.fields)))]) + "}"
     ordered = plan.rel("ordered")
+    # One aggregate finds the few groups of a key at a position and sequence that need a closer
+    # look: a repeated identity (more rows than kinds of change: one kind, or a before and an
+    # after) or an ambiguous order (kinds that are not just a before and an after; found with min
+    # and max, which cost less than counting distinct kinds of every group). Their rows, few, are
+    # compared exactly below; every other row is kept as it is.
+    group = ", ".join(["__pos", "__seq", *keys])
+    mixed = "min(__act) <> max(__act) AND NOT bool_and(__act IN ('before', 'after'))"
+    on = " AND ".join(f"o.{c} = g.{c}" for c in ["__pos", "__seq", *keys])
     plan = plan.add(
         "dedupe",
-        "repeats",
-        f"SELECT {identity}, count(*) AS __versions FROM {ordered} GROUP BY {identity} HAVING count(*) > 1",
+        "crowded",
+        f"SELECT o.*, g.__ambiguous FROM {ordered} o JOIN (SELECT {group}, ({mixed}) AS __ambiguous "
+        f"FROM {ordered} GROUP BY {group} HAVING count(*) > CASE WHEN min(__act) = max(__act) THEN 1 ELSE 2 END "
+        f"OR ({mixed})) g ON {on}",
         materialize=True,
     )
-    on = " AND ".join(f"o.{c} = r.{c}" for c in ["__pos", "__seq", "__act", *keys])
-    window = f"PARTITION BY {identity}"
+    crowded = plan.rel("crowded")
+    # per repeated identity: its versions, and whether their contents differ (an aggregate; the
+    # same comparison as window functions costs several times more)
+    versions = (
+        f"SELECT {identity}, count(*) AS __versions, min({content}) IS DISTINCT FROM max({content}) AS __conflict "
+        f"FROM {crowded} GROUP BY {identity} HAVING count(*) > 1"
+    )
+    c_id = ", ".join(f"c.{col}" for col in ["__pos", "__seq", "__act", *keys])
+    v_on = " AND ".join(f"c.{col} = v.{col}" for col in ["__pos", "__seq", "__act", *keys])
     plan = plan.add(
         "dedupe",
         "repeat_fates",
-        f"SELECT __file, __row, __act, __versions, CASE WHEN min({content}) OVER ({window}) IS DISTINCT FROM "
-        f"max({content}) OVER ({window}) THEN 'conflict' "
-        f"WHEN row_number() OVER ({window} ORDER BY __file, __row) > 1 THEN 'duplicate' ELSE 'keep' END AS __fate "
-        f"FROM (SELECT o.*, r.__versions FROM {ordered} o JOIN {plan.rel('repeats')} r ON {on})",
+        "SELECT c.__file, c.__row, c.__act, v.__versions, CASE WHEN v.__conflict THEN 'conflict' "
+        f"WHEN row_number() OVER (PARTITION BY {c_id} ORDER BY c.__file, c.__row) > 1 THEN 'duplicate' ELSE 'keep' END "
+        f"AS __fate FROM {crowded} c JOIN ({versions}) v ON {v_on}",
         materialize=True,
     )
     earlier_cols = ", ".join(["__pos", "__seq", "__act", *keys])
@@ -61,22 +78,14 @@ def dedupe_rows(plan: Plan) -> Plan:
     )
     # Two different changes of one key at one position and sequence cannot be ordered (an insert
     # and a delete: which came last?), except a before-image and its after-image: never guessed.
-    # Found with min and max (more than one kind: they differ; two kinds that are all before and
-    # after images: the exception), which cost less than counting distinct kinds of every group;
-    # the kinds are counted for the (few) groups found.
-    group = ", ".join(["__pos", "__seq", *keys])
-    g_on = " AND ".join(f"o.{c} = g.{c}" for c in ["__pos", "__seq", *keys])
-    h_on = " AND ".join(f"x.{c} = h.{c}" for c in ["__pos", "__seq", *keys])
-    found = (
-        f"SELECT {group} FROM {ordered} GROUP BY {group} "
-        "HAVING min(__act) <> max(__act) AND NOT bool_and(__act IN ('before', 'after'))"
-    )
+    # The kinds are counted for the (few) groups found above.
+    g_on = " AND ".join(f"c.{col} = g.{col}" for col in ["__pos", "__seq", *keys])
     plan = plan.add(
         "dedupe",
         "ambiguous",
-        f"SELECT o.__file, o.__row, o.__act, g.__acts FROM {ordered} o JOIN ("
-        f"SELECT {group}, count(DISTINCT __act) AS __acts FROM {ordered} x SEMI JOIN ({found}) h ON {h_on} "
-        f"GROUP BY {group}) g ON {g_on}",
+        f"SELECT c.__file, c.__row, c.__act, g.__acts FROM {crowded} c JOIN ("
+        f"SELECT {group}, count(DISTINCT __act) AS __acts FROM {crowded} WHERE __ambiguous GROUP BY {group}) g "
+        f"ON {g_on}",
         materialize=True,
     )
     # every row whose fate is not 'keep': an ambiguous order, a repeat of an earlier run, a repeat

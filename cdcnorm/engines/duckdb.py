@@ -211,6 +211,8 @@ class DuckDBEngine:
             "parquet": "FORMAT PARQUET",
             # RFC 4180 with a header; NULL is an empty field, an empty text is quoted ("")
             "csv": "FORMAT CSV, HEADER true",
+            # one JSON object per line (RFC 8259), the columns as its members in order
+            "json": "FORMAT JSON",
             "lines": "FORMAT CSV, HEADER false, QUOTE '', ESCAPE '', DELIMITER '\x01'",
         }[fmt]
         try:

@@ -100,8 +100,11 @@ def write_events(
     """Write the events (one RFC 8259 JSON text per line for json, native types for parquet); rows
     written. ``relation`` holds them already sorted (see ``sorted_events``)."""
     json_lines = fmt == "json"
-    sql = project(plan, files_relation, render=json_lines, as_line=json_lines, relation=relation)
-    return engine.copy(sqlglot.parse_one(sql, read=PLAN_DIALECT), path, "lines" if json_lines else fmt)
+    # JSON values are spliced into each line's text as written (see RawJson); without them the
+    # engine's JSON writer serialises the rendered envelope itself, the same bytes as to_json, faster
+    spliced = json_lines and any(t.name == "json" for t in plan.mapping.field_types.values())
+    sql = project(plan, files_relation, render=json_lines, as_line=spliced, relation=relation)
+    return engine.copy(sqlglot.parse_one(sql, read=PLAN_DIALECT), path, "lines" if spliced else fmt)
 
 
 def sorted_events(plan: Plan, files_relation: str) -> str:

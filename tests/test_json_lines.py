@@ -1,0 +1,115 @@
+"""JSON Lines events: the engine's JSON writer and the line-splicing path give the same bytes.
+
+A table without JSON-typed fields is written by the engine's JSON writer; one with them
+has each line built as text (to splice JSON values in as written). Both must give the
+same bytes for the same envelopes, and every line must be one RFC 8259 JSON text whose
+values are the typed values (Python's ``json``, ``decimal`` and ``datetime`` as oracles).
+"""
+
+from __future__ import annotations
+
+import json
+from datetime import UTC, datetime
+from decimal import Decimal
+from pathlib import Path
+
+import sqlglot
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from cdcnorm.engines.duckdb import DuckDBEngine
+from cdcnorm.mapping import load_mappings
+from cdcnorm.pipeline import Options, run
+from cdcnorm.sql import PLAN_DIALECT
+from cdcnorm.types.timestamp import timestamp_render
+from cdcnorm.writers.base import project, sorted_events, write_events
+
+MAPPING = """\
+table: t.lines
+files: ["d*"]
+key: [id]
+change:
+  action: {column: op, codes: {I: insert, D: delete}}
+  position: {column: pos, kind: integer}
+  committed_at: {column: at}
+fields:
+  id: integer
+  name: text
+  fee: decimal(12,2)
+  weight: float
+  seen: timestamp
+"""
+
+# text with control characters, quotes, a backslash, U+2028, non-ASCII and an emoji
+NASTY = 'a\x01b\x1f "q" \\ /\u2028é😀'
+DUMP = (
+    "op,pos,at,id,name,fee,weight,seen\n"
+    f'I,1,2026-03-01T10:00:00Z,1,"{NASTY.replace(chr(34), chr(34) * 2)}",12.30,0.1,2026-03-01T09:59:59.120000Z\n'
+    'I,2,2026-03-01T10:00:01+02:00,2,"tab\tnl\ncr\r",-0.01,1e300,0001-01-01T00:00:00Z\n'
+    "I,3,2026-03-01T10:00:02Z,3,,,,\n"
+    "D,4,2026-03-01T10:00:03Z,2,,,,\n"
+)
+
+
+def test_both_json_lines_paths_give_the_same_bytes(tmp_path: Path) -> None:
+    (tmp_path / "m").mkdir()
+    (tmp_path / "m" / "t.yaml").write_text(MAPPING)
+    dump = tmp_path / "d1.csv"
+    dump.write_bytes(DUMP.encode())
+    result = run(load_mappings(tmp_path / "m"), [dump], Options(write=False))
+    plan = next(iter(result.tables.values())).plan
+    engine = result.engine
+    ordered = f"({sorted_events(plan, '__files')}) AS ordered_events"
+    written = tmp_path / "engine.jsonl"
+    assert write_events(plan, engine, "__files", written, ordered, fmt="json") == 4
+    # the text-line path that a table with a JSON field takes (with none to splice in here)
+    spliced = tmp_path / "spliced.jsonl"
+    sql = project(plan, "__files", render=True, as_line=True, relation=ordered)
+    assert engine.copy(sqlglot.parse_one(sql, read=PLAN_DIALECT), spliced, "lines") == 4
+    assert written.read_bytes() == spliced.read_bytes()
+
+    # one JSON text per LF-ended line (U+2028 stays raw inside strings, as RFC 8259 allows)
+    texts = written.read_bytes().split(b"\n")
+    assert texts[-1] == b""
+    lines = [json.loads(x, parse_float=Decimal) for x in texts[:-1]]
+    first = lines[0]["values"]
+    assert first["name"] == NASTY and first["fee"] == "12.30" and first["weight"] == Decimal("0.1")
+    # RFC 3339 in UTC with Z (Python's datetime as the oracle)
+    assert datetime.fromisoformat(first["seen"]) == datetime(2026, 3, 1, 9, 59, 59, 120000, tzinfo=UTC)
+    assert (
+        lines[1]["values"]["name"] == "tab\tnl\ncr\r" and lines[1]["values"]["seen"] == "0001-01-01T00:00:00Z"
+    )
+    assert lines[1]["committed_at"] == "2026-03-01T08:00:01Z"
+    assert lines[2]["values"]["name"] is None and lines[3]["action"] == "delete"
+
+
+def _rfc3339(d: datetime) -> str:
+    """RFC 3339 section 5.6 in UTC with Z; a fraction only when there is one, without trailing zeros."""
+    fraction = f".{d.microsecond:06d}".rstrip("0") if d.microsecond else ""
+    return f"{d.year:04d}-{d.month:02d}-{d.day:02d}T{d.hour:02d}:{d.minute:02d}:{d.second:02d}{fraction}Z"
+
+
+@settings(max_examples=300, deadline=None)
+@given(
+    st.lists(
+        st.datetimes(min_value=datetime(1, 1, 1), max_value=datetime(9999, 12, 31, 23, 59, 59, 999999)),
+        min_size=1,
+        max_size=20,
+    )
+)
+def test_timestamp_render_is_rfc3339_utc(values: list[datetime]) -> None:
+    # Python's datetime as the oracle (RFC 3339 section 5.6); the engine in UTC, as a run sets it
+    engine = DuckDBEngine()
+    rows = ", ".join(f"(CAST('{d.isoformat()}+00:00' AS TIMESTAMPTZ))" for d in values)
+    got = [r[0] for r in engine.rows(f"SELECT {timestamp_render('v')} FROM (VALUES {rows}) t(v)")]
+    assert got == [_rfc3339(d) for d in values]
+
+
+def test_timestamp_render_before_year_1() -> None:
+    # RFC 3339 allows year 0000; the engine's own text would say "0001 (BC)"
+    engine = DuckDBEngine()
+    got = engine.rows(
+        f"SELECT {timestamp_render('v')} FROM (VALUES (TIMESTAMPTZ '0000-06-01 12:00:00.5+00'), "
+        "(TIMESTAMPTZ '0001-01-01 00:30:00+01')) t(v)"
+    )
+    assert [r[0] for r in got] == ["0000-06-01T12:00:00.5Z", "0000-12-31T23:30:00Z"]

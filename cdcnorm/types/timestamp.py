@@ -97,11 +97,17 @@ def timestamp_explain(x: str, zone: str = "+00:00") -> str:
 
 
 def timestamp_render(v: str) -> str:
-    """SQL: RFC 3339 in UTC with Z, a fraction only when there is one, without trailing zeros."""
-    return (
+    """SQL: RFC 3339 in UTC with Z, a fraction only when there is one, without trailing zeros.
+
+    From year 1 on, the engine's own text of the UTC time is that form but for the ``T`` and the
+    ``Z`` (and costs less than formatting the parts); year 0 it writes as ``0001 (BC)``, so the
+    few times before year 1 are formatted part by part."""
+    parts = (
         f"strftime({v}, '%Y-%m-%dT%H:%M:%S') || CASE WHEN epoch_us({v}) % 1000000 = 0 THEN '' "
         f"ELSE rtrim(strftime({v}, '.%f'), '0') END || 'Z'"
     )
+    text = f"replace(CAST(CAST({v} AS TIMESTAMP) AS VARCHAR), ' ', 'T') || 'Z'"
+    return f"CASE WHEN {v} >= TIMESTAMPTZ '0001-01-01 00:00:00+00' THEN {text} ELSE {parts} END"
 
 
 class TimestampType(FieldType):

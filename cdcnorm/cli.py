@@ -32,7 +32,8 @@ class _Parser(argparse.ArgumentParser):
 _SIZE = re.compile(r"^\s*[0-9]+(\.[0-9]+)?\s*(B|KB|MB|GB|TB|KiB|MiB|GiB|TiB)\s*$", re.IGNORECASE)
 
 
-def _memory(text: str) -> str:
+def memory_size(text: str) -> str:
+    """An argparse type: a size such as 500MB or 1.5GiB (memory or disk), refused at parse time."""
     if not _SIZE.match(text):
         raise argparse.ArgumentTypeError(f"{text!r} is not a memory size; write e.g. 500MB, 2GB or 1.5GiB")
     return text.strip()
@@ -53,7 +54,7 @@ def _number(kind: type[int] | type[float], least: float, what: str) -> Any:
     return parse
 
 
-_positive = _number(int, 1, "a whole number of at least 1")
+positive = _number(int, 1, "a whole number of at least 1")
 _count = _number(int, 0, "a whole number of 0 or more")
 _seconds = _number(float, 0, "a number of seconds (0 or more)")
 
@@ -66,10 +67,10 @@ def _conversion_args(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--memory-limit",
-        type=_memory,
+        type=memory_size,
         help="engine memory limit, e.g. 2GB (default: half the machine's memory); the engine spills to disk beyond it",
     )
-    p.add_argument("--threads", type=_positive, help="engine threads (default: all cores)")
+    p.add_argument("--threads", type=positive, help="engine threads (default: all cores)")
     p.add_argument(
         "--scratch",
         type=Path,
@@ -78,7 +79,7 @@ def _conversion_args(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--spill-limit",
-        type=_memory,
+        type=memory_size,
         help="most disk the engine's spill files may take, e.g. 20GB (default: 90%% of the space free "
         "in the scratch folder when the run starts)",
     )

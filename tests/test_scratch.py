@@ -187,3 +187,32 @@ def test_a_full_disk_while_publishing_says_the_run_is_committed_and_the_next_run
     (record,) = sorted((landing / "runs").glob("*.json"))
     assert json.loads(record.read_text())["ledger"]["total"]["read"] == 37
     assert list((landing / "events").rglob("*.jsonl"))
+
+
+def test_snapshot_and_apply_take_the_same_engine_options(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """A real spill in snapshot over --spill-limit is exit 13; a size that is not one is refused
+    when the arguments are read (exit 2), not by the engine with a traceback."""
+    mdir, dumps = _bench_dump(tmp_path, 200_000)
+    landing = tmp_path / "landing"
+    args = ["convert", "--quiet", "--mappings", str(mdir), str(dumps), "--out", str(landing)]
+    assert cli(*args, "--format", "parquet") == 0
+    scratch = tmp_path / "scratch"
+    scratch.mkdir()
+    snap = ["snapshot", str(landing), "--mappings", str(mdir), "--out", str(tmp_path / "state")]
+    tight = ["--memory-limit", "40MB", "--threads", "1", "--scratch", str(scratch)]
+    capsys.readouterr()
+    assert cli(*snap, *tight, "--spill-limit", "1MB") == EXIT_DISK
+    err = capsys.readouterr().err
+    assert "spill files reached the temporary-space limit" in err and str(scratch) in err
+    assert "Traceback" not in err and list(scratch.iterdir()) == []
+    assert not (tmp_path / "state").exists() or not list((tmp_path / "state").iterdir())
+    assert cli(*snap, *tight) == 0  # with room to spill
+    for command in (snap, ["apply", str(landing), "--mappings", str(mdir), "--target", "sqlite:///x.db"]):
+        for option in ("--memory-limit", "--spill-limit"):
+            assert cli(*command, option, "banana") == 2
+            err = capsys.readouterr().err
+            assert "'banana' is not a memory size" in err and "Traceback" not in err
+        assert cli(*command, "--threads", "0") == 2
+        assert "is not a whole number of at least 1" in capsys.readouterr().err

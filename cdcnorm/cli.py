@@ -56,7 +56,7 @@ def _number(kind: type[int] | type[float], least: float, what: str) -> Any:
 
 positive = _number(int, 1, "a whole number of at least 1")
 _count = _number(int, 0, "a whole number of 0 or more")
-_seconds = _number(float, 0, "a number of seconds (0 or more)")
+seconds = _number(float, 0, "a number of seconds (0 or more)")
 
 
 def _conversion_args(p: argparse.ArgumentParser) -> None:
@@ -112,7 +112,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     conv.add_argument(
         "--wait",
-        type=_seconds,
+        type=seconds,
         default=30.0,
         help="seconds to wait while another run writes to the area (default 30)",
     )
@@ -155,7 +155,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     which.add_argument("--all", action="store_true", help="settle every pending image")
     settle.add_argument("--format", dest="fmt", choices=["jsonl", "parquet"], default="jsonl")
-    settle.add_argument("--wait", type=_seconds, default=30.0)
+    settle.add_argument("--wait", type=seconds, default=30.0)
     settle.add_argument("--json", action="store_true")
     settle.add_argument("--quiet", action="store_true")
 

@@ -216,3 +216,7 @@ def test_snapshot_and_apply_take_the_same_engine_options(
             assert "'banana' is not a memory size" in err and "Traceback" not in err
         assert cli(*command, "--threads", "0") == 2
         assert "is not a whole number of at least 1" in capsys.readouterr().err
+    apply = ["apply", str(landing), "--mappings", str(mdir), "--target", "sqlite:///x.db"]
+    for wait in ("-1", "nan"):
+        assert cli(*apply, "--wait", wait) == 2
+        assert "is not a number of seconds (0 or more)" in capsys.readouterr().err

@@ -22,7 +22,7 @@ TARGET_ENV = "CDCNORM_TARGET"
 
 
 def add_commands(sub: Any) -> None:
-    from cdcnorm.cli import memory_size, positive  # the parsers every command shares
+    from cdcnorm.cli import memory_size, positive, seconds  # the parsers every command shares
 
     snap = sub.add_parser(
         "snapshot", help="compact a landing area's events to the state of every table (latest or as of)"
@@ -64,7 +64,7 @@ def add_commands(sub: Any) -> None:
     app.add_argument("--table", help="only this table")
     app.add_argument("--mappings", default="mappings", help="folder of mapping files (default: mappings/)")
     app.add_argument("--batch-rows", type=int, default=50_000, help="keys per batch (default 50000)")
-    app.add_argument("--wait", type=float, default=30.0, help="seconds to wait for another apply")
+    app.add_argument("--wait", type=seconds, default=30.0, help="seconds to wait for another apply")
     app.add_argument("--memory-limit", type=memory_size, help="the engine's memory limit, e.g. 2GB")
     app.add_argument("--threads", type=positive, help="engine threads (default: all cores)")
     app.add_argument(

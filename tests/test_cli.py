@@ -141,6 +141,21 @@ def test_max_rejects_exits_5_but_writes_everything(
     assert len(list((tmp_path / "quarantine").iterdir())) == 3
 
 
+def test_an_output_folder_inside_a_landing_area_is_refused(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    area = tmp_path / "area"
+    args = ["convert", "--quiet", "--mappings", str(MAPPINGS), str(DUMPS)]
+    assert cli(*args, "--out", str(area)) == 0
+    before = sorted(p.relative_to(area) for p in area.rglob("*"))
+    for inside in (area / "events", area / "events" / "new", area / "runs"):
+        assert cli(*args, "--out", str(inside)) == 2
+        err = capsys.readouterr().err
+        assert f"inside the landing area {area}" in err and "Traceback" not in err
+    assert sorted(p.relative_to(area) for p in area.rglob("*")) == before  # nothing written there
+    assert cli(*args, "--out", str(area)) == 0  # the area itself takes the next run
+
+
 def test_show_plan_prints_parseable_sql(capsys: pytest.CaptureFixture[str]) -> None:
     assert (
         cli("convert", "--mappings", str(MAPPINGS), str(DUMPS), "--show-plan", "--table", "ferry.bookings")

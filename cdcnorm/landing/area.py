@@ -12,7 +12,7 @@ from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 
-from cdcnorm.errors import CdcnormError, DiskSpaceError, InputError
+from cdcnorm.errors import CdcnormError, DiskSpaceError, InputError, UsageError
 from cdcnorm.landing import journal, lock, runs
 from cdcnorm.names import path_part
 
@@ -102,6 +102,14 @@ class Landing:
 def _check_folder(root: Path) -> None:
     if root.exists() and not root.is_dir():
         raise InputError("the output folder is a file", file=str(root), hint="name a folder for --out")
+    for parent in root.absolute().parents:
+        if (parent / META).is_dir():  # a landing area's own folder: its runs would land among its files
+            raise UsageError(
+                f"the output folder is inside the landing area {parent}",
+                file=str(root),
+                expected="a folder of its own for a landing area",
+                hint=f"give --out a folder outside {parent}, or {parent} itself to add a run to it",
+            )
     try:
         root.mkdir(parents=True, exist_ok=True)
         # a name of this process's own: two runs starting at once must not remove each other's

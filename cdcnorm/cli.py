@@ -32,7 +32,7 @@ class _Parser(argparse.ArgumentParser):
 _SIZE = re.compile(r"^\s*[0-9]+(\.[0-9]+)?\s*(B|KB|MB|GB|TB|KiB|MiB|GiB|TiB)\s*$", re.IGNORECASE)
 
 
-def memory_size(text: str) -> str:
+def _memory_size(text: str) -> str:
     """An argparse type: a size such as 500MB or 1.5GiB (memory or disk), refused at parse time."""
     if not _SIZE.match(text):
         raise argparse.ArgumentTypeError(f"{text!r} is not a memory size; write e.g. 500MB, 2GB or 1.5GiB")
@@ -54,9 +54,30 @@ def _number(kind: type[int] | type[float], least: float, what: str) -> Any:
     return parse
 
 
-positive = _number(int, 1, "a whole number of at least 1")
+_positive = _number(int, 1, "a whole number of at least 1")
 _count = _number(int, 0, "a whole number of 0 or more")
 seconds = _number(float, 0, "a number of seconds (0 or more)")
+
+
+def engine_args(p: argparse.ArgumentParser, scratch_holds: str = "the engine's spill files") -> None:
+    """The engine's options, the same for every command that runs it."""
+    p.add_argument(
+        "--memory-limit",
+        type=_memory_size,
+        help="engine memory limit, e.g. 2GB (default: half the machine's memory); the engine spills to disk beyond it",
+    )
+    p.add_argument("--threads", type=_positive, help="engine threads (default: all cores)")
+    p.add_argument(
+        "--scratch",
+        type=Path,
+        help=f"folder for temporary files: {scratch_holds} (default: the system's temporary folder)",
+    )
+    p.add_argument(
+        "--spill-limit",
+        type=_memory_size,
+        help="most disk the engine's spill files may take, e.g. 20GB (default: 90%% of the space free "
+        "in the scratch folder when the command starts)",
+    )
 
 
 def _conversion_args(p: argparse.ArgumentParser) -> None:
@@ -65,24 +86,7 @@ def _conversion_args(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--input-format", choices=["csv", "jsonl", "parquet"], help="read every input as this format"
     )
-    p.add_argument(
-        "--memory-limit",
-        type=memory_size,
-        help="engine memory limit, e.g. 2GB (default: half the machine's memory); the engine spills to disk beyond it",
-    )
-    p.add_argument("--threads", type=positive, help="engine threads (default: all cores)")
-    p.add_argument(
-        "--scratch",
-        type=Path,
-        help="folder for the run's temporary files: the engine's spill files, decompressed copies "
-        "(default: the system's temporary folder)",
-    )
-    p.add_argument(
-        "--spill-limit",
-        type=memory_size,
-        help="most disk the engine's spill files may take, e.g. 20GB (default: 90%% of the space free "
-        "in the scratch folder when the run starts)",
-    )
+    engine_args(p, "the engine's spill files, decompressed copies")
     p.add_argument(
         "--recursive", action="store_true", help="read the dump files in sub-folders of folders too"
     )

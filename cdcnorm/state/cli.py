@@ -22,7 +22,7 @@ TARGET_ENV = "CDCNORM_TARGET"
 
 
 def add_commands(sub: Any) -> None:
-    from cdcnorm.cli import memory_size, positive, seconds  # the parsers every command shares
+    from cdcnorm.cli import engine_args, seconds  # the options and parsers every command shares
 
     snap = sub.add_parser(
         "snapshot", help="compact a landing area's events to the state of every table (latest or as of)"
@@ -37,19 +37,7 @@ def add_commands(sub: Any) -> None:
     snap.add_argument("--format", dest="fmt", choices=["parquet", "csv", "jsonl"], default="parquet")
     snap.add_argument("--table", help="only this table")
     snap.add_argument("--mappings", default="mappings", help="folder of mapping files (default: mappings/)")
-    snap.add_argument("--memory-limit", type=memory_size, help="the engine's memory limit, e.g. 2GB")
-    snap.add_argument("--threads", type=positive, help="engine threads (default: all cores)")
-    snap.add_argument(
-        "--scratch",
-        type=Path,
-        help="folder for the engine's spill files (default: the system's temporary folder)",
-    )
-    snap.add_argument(
-        "--spill-limit",
-        type=memory_size,
-        help="most disk the engine's spill files may take, e.g. 20GB (default: 90%% of the space free "
-        "in the scratch folder when the command starts)",
-    )
+    engine_args(snap)
     snap.add_argument("--json", action="store_true")
 
     app = sub.add_parser("apply", help="load a landing area's events into database tables, idempotently")
@@ -65,19 +53,7 @@ def add_commands(sub: Any) -> None:
     app.add_argument("--mappings", default="mappings", help="folder of mapping files (default: mappings/)")
     app.add_argument("--batch-rows", type=int, default=50_000, help="keys per batch (default 50000)")
     app.add_argument("--wait", type=seconds, default=30.0, help="seconds to wait for another apply")
-    app.add_argument("--memory-limit", type=memory_size, help="the engine's memory limit, e.g. 2GB")
-    app.add_argument("--threads", type=positive, help="engine threads (default: all cores)")
-    app.add_argument(
-        "--scratch",
-        type=Path,
-        help="folder for the engine's spill files (default: the system's temporary folder)",
-    )
-    app.add_argument(
-        "--spill-limit",
-        type=memory_size,
-        help="most disk the engine's spill files may take, e.g. 20GB (default: 90%% of the space free "
-        "in the scratch folder when the command starts)",
-    )
+    engine_args(app)
     app.add_argument("--json", action="store_true")
 
 

@@ -87,6 +87,7 @@ def dedupe_rows(plan: Plan) -> Plan:
         f"SELECT {group}, count(DISTINCT __act) AS __acts FROM {crowded} WHERE __ambiguous GROUP BY {group}) g "
         f"ON {g_on}",
         materialize=True,
+        frees=("crowded",),  # the crowded groups' rows are read no more
     )
     # every row whose fate is not 'keep': an ambiguous order, a repeat of an earlier run, a repeat
     # inside this run (in that order of precedence: one fate per row)

@@ -56,12 +56,14 @@ def _fixed_hex(k: str, width: int) -> str:
 
 def hex_key(x: str, width: int) -> str:
     """Up to 32 digits: the 128-bit key (the regex keeps out what a cast might also take, such
-    as ``_``); wider: the upper-case digits without leading zeros, left-padded to ``width``."""
+    as ``_``); wider: the upper-case digits without leading zeros, left-padded to ``width``.
+    Leading zeros never count towards the width: ``0*`` takes them before the digits are counted."""
     digits = _strip0x(x)
+    if width <= NUMERIC_HEX_DIGITS:
+        # one pattern checks the digits and the width (no trimming and measuring of every value)
+        return f"CASE WHEN regexp_full_match({x}, '(0[xX])?0*[0-9A-Fa-f]{{1,{width}}}') THEN {HEX_KEY}({digits}) END"
     trimmed = f"ltrim(upper({digits}), '0')"
     valid = f"regexp_full_match({x}, {HEX}) AND length({trimmed}) <= {width}"
-    if width <= NUMERIC_HEX_DIGITS:
-        return f"CASE WHEN {valid} THEN {HEX_KEY}({digits}) END"
     return f"CASE WHEN {valid} THEN lpad({trimmed}, {width}, '0') END"
 
 

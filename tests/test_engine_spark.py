@@ -137,6 +137,31 @@ def test_the_benchmark_dump_gives_the_same_events_on_spark(spark: Any, tmp_path:
     assert events > 10_000 and quarantined > 0
 
 
+def test_zero_padded_hex_positions_give_the_same_events_on_spark(spark: Any, tmp_path: Path) -> None:
+    """Leading zeros do not count towards a hex width: a 44-digit text with 14 significant digits
+    is a valid 20-digit position on both engines (Spark's lpad would cut the text, not pad it)."""
+    (tmp_path / "mappings").mkdir()
+    (tmp_path / "mappings" / "t.yaml").write_text(
+        "table: t.hex\nfiles: ['h*.csv']\nkey: [id]\nchange:\n"
+        "  action: {column: op, codes: {I: insert}}\n"
+        "  position: {column: pos, kind: hex, width: 20}\n"
+        "  sequence: {column: seq, kind: hex}\nfields:\n  id: integer\n",
+        encoding="utf-8",
+    )
+    dumps = tmp_path / "dumps"
+    dumps.mkdir()
+    rows = [
+        ("0x" + "0" * 30 + "2A000001F80006", "1"),
+        ("2A000001F80005", "0" * 40 + "2"),
+        ("0X" + "0" * 3 + "F" * 20, "3"),
+        ("0x" + "0" * 2 + "F" * 21, "4"),  # 21 significant digits: too wide
+        ("0x" + "0" * 50, "5"),
+    ]
+    body = "".join(f"I,{pos},{seq},{i}\n" for i, (pos, seq) in enumerate(rows))
+    (dumps / "h.csv").write_text("op,pos,seq,id\n" + body, encoding="utf-8")
+    assert _same_on_both(spark, tmp_path / "mappings", dumps, tmp_path / "scratch") == {"t.hex": (4, 1)}
+
+
 def test_a_json_field_is_refused_by_name_on_spark(spark: Any, tmp_path: Path) -> None:
     from cdcnorm.engines.spark import SparkEngine, UnsupportedByEngine
 

@@ -50,9 +50,12 @@ def test_hex_byte_string_positions_any_case(convert: ConvertFn) -> None:
     # A 10-byte log sequence number orders as unsigned big-endian bytes (common practice):
     # compare fixed-width hex of one case, not raw text of mixed case or width.
     raw = ["0x0000002A000001F80003", "0000002a000001f80004", "2A000001F80005", "0x0000002B00000000000A"]
-    order, bad = _positions(convert, "hex", [*raw, "0xZZ", "0x" + "F" * 21], ", width: 20")
-    assert order == raw
-    assert set(bad) == {"0xZZ", "0x" + "F" * 21}
+    # leading zeros do not count towards the width; significant digits do
+    padded = "0x" + "0" * 40 + "2C00000000000001"
+    too_wide = ["0x" + "F" * 21, "000" + "1" * 21, "0x"]
+    order, bad = _positions(convert, "hex", [*raw, padded, "0xZZ", *too_wide], ", width: 20")
+    assert order == [*raw, padded]
+    assert set(bad) == {"0xZZ", *too_wide}
 
 
 def test_integer_positions_are_numeric_not_text(convert: ConvertFn) -> None:

@@ -86,7 +86,9 @@ def _rewrite(node: exp.Expr) -> exp.Expr:
     name = _name(node)
     args = node.expressions if isinstance(node, exp.Anonymous) else []
     if name == HEX_KEY.upper():
-        digits = exp.func("lpad", args[0], exp.Literal.number(NUMERIC_HEX_DIGITS), exp.Literal.string("0"))
+        # lpad cuts a longer text: leading zeros beyond 32 digits go first (the plan allows them)
+        trimmed = exp.func("ltrim", args[0], exp.Literal.string("0"))
+        digits = exp.func("lpad", trimmed, exp.Literal.number(NUMERIC_HEX_DIGITS), exp.Literal.string("0"))
         return exp.Unhex(this=digits)
     if isinstance(node, exp.TimeToStr) and isinstance(node.args.get("format"), exp.Literal):
         pattern = exp.Literal.string(_datetime_pattern(node.args["format"].this))

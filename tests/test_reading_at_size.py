@@ -324,6 +324,37 @@ def test_a_dump_larger_than_the_memory_limit_converts(tmp_path: Path) -> None:
     assert last_run(outs[0])["ledger"] == last_run(outs[1])["ledger"]
 
 
+def test_the_fast_reader_reads_a_file_larger_than_the_engine_memory(tmp_path: Path) -> None:
+    """A CSV file larger than the engine's whole memory is read by the engine's reader, in
+    buffers its memory holds: not handed to the record-by-record path (slower, and outside the
+    engine's limit) because the reader's default buffer would not fit."""
+    from cdcnorm.engines.duckdb import DuckDBEngine
+    from cdcnorm.inputs import expand_inputs, route
+    from cdcnorm.mapping import load_mappings
+    from cdcnorm.pipeline import Options, read_all
+
+    write_files(
+        tmp_path / "m",
+        {
+            "t.yaml": "table: t.wide\nfiles: ['w*.csv']\nkey: [id]\nchange:\n"
+            "  action: {column: op, codes: {I: insert}}\n  position: {column: pos, kind: integer}\n"
+            "fields:\n  id: integer\n  note: text\n"
+        },
+    )
+    rows = 500_000
+    pad = "x" * 90
+    with (tmp_path / "w.csv").open("w", encoding="utf-8") as f:
+        f.write("op,pos,id,note\n")
+        f.writelines(f'I,{i},{i},"{pad}, {i}"\n' for i in range(rows))
+    assert (tmp_path / "w.csv").stat().st_size > 50 << 20
+    mappings = load_mappings(tmp_path / "m")
+    engine = DuckDBEngine(memory_limit="40MB", threads=1, temp_directory=str(tmp_path / "spill"))
+    routed = route(expand_inputs([tmp_path / "w.csv"]), mappings)
+    read = read_all(mappings, routed, engine, Options(), lambda *a: None, tmp_path / "scratch")
+    (f,) = read["t.wide"].files
+    assert f.notes == [] and f.rows_read == rows and f.malformed == 0
+
+
 def test_a_limit_too_small_for_the_engine_is_a_clear_error_and_commits_nothing(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:

@@ -35,6 +35,8 @@ RESERVE_SHARE = 0.25
 RESERVE_CAP = 256 << 20
 #: Below this the engine keeps the whole limit: it needs some working memory for any step.
 ENGINE_FLOOR = 64 << 20
+#: The smallest read buffer of the engine's CSV reader (its longest line, too: see scan_csv).
+CSV_MIN_BUFFER = 4 << 20
 
 _UNITS = {"bytes": 1, "KiB": 1 << 10, "MiB": 1 << 20, "GiB": 1 << 30, "TiB": 1 << 40}
 
@@ -253,13 +255,18 @@ class DuckDBEngine:
         rowid, last rowid); None when the reader cannot read the files at all."""
         rejects = f"{table}_rejects"
         cols = "{" + ", ".join(f"{lit(c)}: 'VARCHAR'" for c in columns) + "}"
+        # The reader's buffers come out of the engine's memory (its own default is 16 longest
+        # lines, 512 MiB here, more than a whole limit): one buffer of the longest line, and at
+        # most an eighth of the engine's memory. A longer record is a reject, which the careful
+        # path reads with the full limit (``max_line``).
+        line = min(max_line, max(CSV_MIN_BUFFER, _setting_bytes(self.con) // 8))
         scan = (
             f"read_csv([{', '.join(lit(p) for p in paths)}], columns = {cols}, header = {str(header).lower()}, "
             f"delim = {lit(delimiter)}, quote = {lit(quote)}, escape = {lit(quote)}, auto_detect = false, "
             f"allow_quoted_nulls = false, nullstr = [{', '.join(lit(t) for t in nulls)}], "
             f"encoding = {lit(encoding)}, strict_mode = true, ignore_errors = true, store_rejects = true, "
             f"rejects_table = {lit(rejects)}, rejects_scan = {lit(rejects + '_scan')}, "
-            f"max_line_size = {max_line}, filename = '__fname', parallel = true)"
+            f"max_line_size = {line}, buffer_size = {line}, filename = '__fname', parallel = true)"
         )
         try:
             self.con.execute(f"CREATE TEMP TABLE {ident(table)} AS SELECT * FROM {scan}")
@@ -270,6 +277,10 @@ class DuckDBEngine:
                     "ON e.scan_id = s.scan_id AND e.file_id = s.file_id"
                 )
             }
+        except duckdb.OutOfMemoryException as e:
+            self.drop(table)
+            # not a defect of the files: the careful path would only take longer
+            raise out_of_memory(e, f"reading {len(paths)} CSV files", self.temp_directory) from None
         except duckdb.Error:
             self.drop(table)
             return None

@@ -261,6 +261,18 @@ def test_over_long_record_is_quarantined_and_reading_resumes(
     assert "longer than 1 MiB" in q["_cdcnorm"]["reasons"][0]["reason"]
 
 
+def test_a_long_good_record_in_a_file_read_record_by_record(convert: ConvertFn) -> None:
+    """The careful path's parser reads blocks that hold its longest record, whatever its size up
+    to the limit: a 6 MiB field (with a comma and a line break) in a file with a broken quote."""
+    big = "w" * (3 << 20) + ",\n" + "v" * (3 << 20)
+    done = convert(PLAIN, {"n.csv": f'op,pos,id,a\nI,1,1,x\nI,2,2,"{big}"\nI,3,3,"b\nI,4,4,y\n'})
+    events = done.events("t.notes")
+    assert [e["key"]["id"] for e in events] == [1, 2, 4]
+    assert events[1]["values"]["a"] == big
+    (q,) = done.quarantine("t.notes")
+    assert q["_cdcnorm"]["row"] == 3 and q["_cdcnorm"]["text"] == 'I,3,3,"b'
+
+
 def test_sub_folders_need_recursive(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     (mdir := tmp_path / "m").mkdir()
     (mdir / "t.yaml").write_text(PLAIN)

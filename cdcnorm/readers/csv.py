@@ -49,6 +49,8 @@ ENGINE_ENCODINGS = {"utf-8": "utf-8", "iso8859-1": "latin-1"}
 NEVER = "\n"
 #: Block size of the independent record count: small, so its numpy buffers stay small too.
 COUNT_BLOCK = 4 << 20
+#: The smallest block the careful path's parser reads at a time.
+CAREFUL_BLOCK = 4 << 20
 
 
 def _delimiter(path: Path, mapping: Mapping) -> str:
@@ -356,6 +358,7 @@ def _careful(
 
     number = 0
     good = 0
+    longest = 0  # bytes of the longest good record written (the parser's block must hold one)
     with open(cleaned, "wb") as out:
         records = _records(_lines(f, opts.encoding), delimiter, opts.quote, len(internal))
         if opts.header:
@@ -364,7 +367,9 @@ def _careful(
             number += 1
             if reason is None:
                 good += 1
-                out.write(f"{number}{delimiter}{text}\n".encode("utf-8", "surrogateescape"))
+                line = f"{number}{delimiter}{text}\n".encode("utf-8", "surrogateescape")
+                longest = max(longest, len(line))
+                out.write(line)
             else:
                 bad_rows.append(number)
                 bad_text.append(text)
@@ -376,7 +381,7 @@ def _careful(
     f.malformed = number - good
     f.notes.append("read record by record (the fast reader rejected it)")
     if good:
-        _load_cleaned(f, cleaned, internal, delimiter, mapping, engine, raw)
+        _load_cleaned(f, cleaned, internal, delimiter, mapping, engine, raw, longest)
     cleaned.unlink()
 
 
@@ -388,13 +393,17 @@ def _load_cleaned(
     mapping: Mapping,
     engine: DuckDBEngine,
     raw: RawTable,
+    longest: int,
 ) -> None:
-    """Parse the numbered good records (cells as bytes), then decode them in the engine."""
+    """Parse the numbered good records (cells as bytes), then decode them in the engine. A block
+    holds two of the ``longest`` records and is at least CAREFUL_BLOCK: the parser's blocks (a few
+    at a time, parsed in parallel) are outside the engine's memory, so they stay as small as the
+    records allow, not sized for the longest record possible."""
     tokens = list(mapping.nulls)
     names = ["__row", *internal]
     reader = pacsv.open_csv(
         str(cleaned),
-        read_options=pacsv.ReadOptions(column_names=names, block_size=MAX_RECORD_BYTES * 2),
+        read_options=pacsv.ReadOptions(column_names=names, block_size=max(CAREFUL_BLOCK, 2 * longest)),
         parse_options=pacsv.ParseOptions(
             delimiter=delimiter, quote_char=mapping.csv.quote, double_quote=True, newlines_in_values=True
         ),

@@ -5,6 +5,8 @@ from __future__ import annotations
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from tests.conftest import ConvertFn
 
@@ -202,3 +204,36 @@ def test_jsonl_dotted_path_under_a_key_that_is_not_always_an_object(convert: Con
     data = '{"op": "I", "pos": 1, "id": 1, "a": {"b": "x"}}\n{"op": "I", "pos": 2, "id": 2, "a": "plain"}\n'
     done = convert(mapping, {"x.jsonl": data})
     assert [e["values"]["v"] for e in done.events("j.t")] == ["x", None]
+
+
+_json_scalars = st.none() | st.booleans() | st.integers(-(10**6), 10**6) | st.text(max_size=3)
+_json_values = st.recursive(
+    _json_scalars,
+    lambda inner: st.lists(inner, max_size=3) | st.dictionaries(st.sampled_from("abc"), inner, max_size=3),
+    max_leaves=8,
+)
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.dictionaries(st.sampled_from("xyz"), _json_values, max_size=3), min_size=1, max_size=12))
+def test_json_lines_structure_is_the_merge_of_every_object(objects: list[dict[str, object]]) -> None:
+    """The columns of a JSON Lines file come from the merged structure of one object per distinct
+    structure (bounded memory); DuckDB's own json_group_structure over every object is the oracle:
+    nested keys, empty objects, nulls, arrays and mixed kinds must merge the same."""
+    import json
+
+    from cdcnorm.engines.duckdb import DuckDBEngine
+    from cdcnorm.readers.jsonl import LINES
+
+    engine = DuckDBEngine()
+    lines = [json.dumps(o).encode() for o in objects]
+    batch = pa.RecordBatch.from_arrays(
+        [pa.array(lines, pa.large_binary()), pa.array(range(1, len(lines) + 1), pa.int64())], schema=LINES
+    )
+    engine.load_batches("lines", pa.RecordBatchReader.from_batches(LINES, iter([batch])))
+    engine.create_malformed("bad")
+    merged = engine.split_json_lines("lines", "ok", "bad", 0)
+    (every,) = engine.rows("SELECT json_group_structure(j) FROM ok")[0]
+    assert (None if merged is None else json.loads(merged)) == (
+        None if every is None else json.loads(str(every))
+    )

@@ -383,33 +383,40 @@ class DuckDBEngine:
         not RFC 8259 JSON, not an object; blank lines are not records) and the JSON objects in
         ``ok`` (``__row``, ``j``). Returns the merged structure of the objects (JSON text)."""
         src = ident(lines)
-        self.con.execute(
-            f"CREATE OR REPLACE TEMP TABLE {ident(lines + '_text')} AS SELECT __row, "
-            f"rtrim(try(decode(raw)), chr(13)) AS line, raw FROM {src} "
+        from cdcnorm.types.json import outside_strings, rfc8259, risky_numbers, tag_numbers
+
+        # Every check once per line, into the lines' table (the malformed and the good lines are
+        # then two filters of it): the text outside strings is computed once for both lexical
+        # checks and for the numbers that need tagging; the kind and the repeated names only of valid JSON (the engine's JSON functions
+        # reject anything else).
+        decoded = (
+            f"SELECT __row, rtrim(try(decode(raw)), chr(13)) AS line, raw FROM {src} "
             "WHERE NOT regexp_full_match(coalesce(try(decode(raw)), 'x'), '\\s*')"
         )
-        text = ident(lines + "_text")
-        from cdcnorm.types.json import rfc8259
-
-        strict = rfc8259("line")
+        strict = f"SELECT __row, line, raw, coalesce({rfc8259('line', 'outside')}, FALSE) AS valid, {risky_numbers('line', 'outside')} AS risky FROM (SELECT *, {outside_strings('line')} AS outside FROM ({decoded}))"
+        kind = f"SELECT *, CASE WHEN valid THEN json_type(line) END AS kind FROM ({strict})"
         # a repeated name at the top level would make its column ambiguous (nested values are
         # kept as written; a json field checks its own)
-        repeated = "(json_valid(line) AND len(json_keys(line)) <> len(list_distinct(json_keys(line))))"
+        repeated = (
+            "CASE WHEN kind = 'OBJECT' THEN len(json_keys(line)) <> len(list_distinct(json_keys(line))) END"
+        )
+        self.con.execute(
+            f"CREATE OR REPLACE TEMP TABLE {ident(lines + '_text')} AS SELECT *, coalesce({repeated}, FALSE) AS repeated FROM ({kind})"
+        )
+        text = ident(lines + "_text")
         self.con.execute(
             f"INSERT INTO {ident(malformed)} SELECT {file_id}, __row, "
             "CASE WHEN line IS NULL THEN to_base64(raw) ELSE line END, "
             "CASE WHEN line IS NULL THEN 'not UTF-8 (text shown base64)' "
-            f"WHEN NOT {strict} THEN 'not valid JSON (RFC 8259)' "
-            "WHEN json_type(line) <> 'OBJECT' THEN 'not a JSON object' "
+            "WHEN NOT valid THEN 'not valid JSON (RFC 8259)' "
+            "WHEN kind <> 'OBJECT' THEN 'not a JSON object' "
             f"ELSE 'the object repeats a member name (RFC 7493 section 2.3): which value is meant is unclear' END FROM {text} "
-            f"WHERE line IS NULL OR NOT {strict} OR json_type(line) <> 'OBJECT' OR {repeated}"
+            "WHERE line IS NULL OR NOT valid OR kind <> 'OBJECT' OR repeated"
         )
-        from cdcnorm.types.json import tag_numbers
-
         self.con.execute(
             f"CREATE OR REPLACE TEMP TABLE {ident(ok)} AS SELECT __row, "
-            f"CAST({tag_numbers('line', self.number_tag)} AS JSON) AS j FROM {text} "
-            f"WHERE line IS NOT NULL AND {strict} AND json_type(line) = 'OBJECT' AND NOT {repeated}"
+            f"CAST({tag_numbers('line', self.number_tag, 'risky')} AS JSON) AS j FROM {text} "
+            "WHERE valid AND kind = 'OBJECT' AND NOT repeated"
         )
         self.drop(lines + "_text")
         # The merged structure of one object per distinct structure: the same as of every object
@@ -427,24 +434,30 @@ class DuckDBEngine:
     ) -> None:
         """JSON objects -> one text column per (JSON path, internal name); a string equal to a
         null token is NULL; objects and arrays stay JSON text."""
-        parts = []
         from cdcnorm.types.json import untag
 
-        for path, col in paths:
-            v = untag(f"json_extract_string(j, {lit(path)})", self.number_tag)
+        # every path in one extraction (the object is parsed once, not once per column)
+        listed = "[" + ", ".join(lit(path) for path, _ in paths) + "]"
+        parts = []
+        for i, (_, col) in enumerate(paths, start=1):
+            v = untag(f"o.__cells[{i}]", self.number_tag)
             if nulls:
                 v = f"CASE WHEN {v} IN ({', '.join(lit(t) for t in nulls)}) THEN NULL ELSE {v} END"
             parts.append(f", {v} AS {ident(col)}")
         # A quarantine line fed back keeps the bytes of cells that were not UTF-8 under
         # _cdcnorm.raw_base64, the cell itself null: while it is still null (not fixed), the cell
         # is again not UTF-8, with the same bytes, so the row is quarantined again, not loaded as NULL.
+        # Only those (few) objects are looked at: the subquery would otherwise run for every row.
         rb = "json_extract(j, '$._cdcnorm.raw_base64')"
         enc = (
-            f"CASE WHEN json_type({rb}) = 'OBJECT' THEN (SELECT CASE WHEN count(*) > 0 THEN "
+            f"SELECT __row, (SELECT CASE WHEN count(*) > 0 THEN "
             f"CAST(to_json(map(list(k), list(json_extract_string({rb}, k)))) AS VARCHAR) END "
-            f"FROM unnest(json_keys({rb})) t(k) WHERE coalesce(json_type(json_extract(j, k)), 'NULL') = 'NULL') END"
+            f"FROM unnest(json_keys({rb})) t(k) WHERE coalesce(json_type(json_extract(j, k)), 'NULL') = 'NULL') AS __enc "
+            f"FROM {ident(ok)} WHERE json_type({rb}) = 'OBJECT'"
         )
+        cells = f"json_extract_string(j, {listed})" if paths else "CAST([] AS VARCHAR[])"
         self.con.execute(
-            f"CREATE TEMP TABLE {ident(table)} AS SELECT CAST({file_id} AS INTEGER) AS __file, __row, "
-            f"{enc} AS __enc{''.join(parts)} FROM {ident(ok)}"
+            f"CREATE TEMP TABLE {ident(table)} AS SELECT CAST({file_id} AS INTEGER) AS __file, o.__row, "
+            f"e.__enc{''.join(parts)} FROM (SELECT __row, {cells} AS __cells FROM {ident(ok)}) o "
+            f"LEFT JOIN ({enc}) e ON e.__row = o.__row"
         )

@@ -24,23 +24,25 @@ STRING = r'"(?:[^"\\]|\\.)*"'
 _NUMBER = r"-?[0-9]+(\.[0-9]+)?([eE][+-]?[0-9]+)?"
 
 
-def _outside_strings(x: str) -> str:
+def outside_strings(x: str) -> str:
+    """SQL: the text with every string token emptied (what the lexical checks below read)."""
     return f"regexp_replace({x}, '{STRING}', '\"\"', 'g')"
 
 
-def trailing_comma(x: str) -> str:
-    return f"regexp_matches({_outside_strings(x)}, ',\\s*[\\]}}]')"
+def trailing_comma(x: str, outside: str | None = None) -> str:
+    """``outside``: SQL of ``outside_strings(x)`` already computed (the text is then not read)."""
+    return f"regexp_matches({outside or outside_strings(x)}, ',\\s*[\\]}}]')"
 
 
-def bare_words(x: str) -> str:
+def bare_words(x: str, outside: str | None = None) -> str:
     """SQL: the text has a word JSON does not know outside its strings (NaN, Infinity, ...)."""
-    rest = f"regexp_replace(regexp_replace({_outside_strings(x)}, 'true|false|null', '', 'g'), '{_NUMBER}', '0', 'g')"
+    rest = f"regexp_replace(regexp_replace({outside or outside_strings(x)}, 'true|false|null', '', 'g'), '{_NUMBER}', '0', 'g')"
     return f"regexp_matches({rest}, '[A-Za-z]')"
 
 
-def rfc8259(x: str) -> str:
-    """SQL: ``x`` is a JSON text by RFC 8259 (the engine's check made strict)."""
-    return f"(json_valid({x}) AND NOT {trailing_comma(x)} AND NOT {bare_words(x)})"
+def rfc8259(x: str, outside: str | None = None) -> str:
+    """SQL: ``x`` is a JSON text by RFC 8259 (the engine's check made strict); ``outside`` as above."""
+    return f"(json_valid({x}) AND NOT {trailing_comma(x, outside)} AND NOT {bare_words(x, outside)})"
 
 
 def repeated_name(x: str) -> str:
@@ -111,18 +113,23 @@ class RawJson:
 _NUMBER_TOKEN = "-?[0-9][0-9.eE+-]*"
 
 
-def tag_numbers(line: str, tag: str) -> str:
+def risky_numbers(line: str, outside: str | None = None) -> str:
+    """SQL: the text has a number the engine could re-render (see ``tag_numbers``)."""
+    return f"regexp_matches({outside or outside_strings(line)}, '[0-9][.eE]|-0|[0-9]{{19,}}')"
+
+
+def tag_numbers(line: str, tag: str, risky: str | None = None) -> str:
     """SQL: the JSON text with every number token outside strings made a string ``"<tag><token>"``,
     so the engine's parser hands the token back as written (it would re-render ``1e2`` as
     ``100.0``, ``-0`` as ``0`` and a long fraction through a double). Only texts with a number that
-    could be re-rendered (a fraction, an exponent, ``-0``, 19 digits or more) are rewritten."""
+    could be re-rendered (a fraction, an exponent, ``-0``, 19 digits or more) are rewritten;
+    ``risky``: SQL of ``risky_numbers(line)`` already computed."""
     tokens = f"regexp_extract_all({line}, '{STRING}|{_NUMBER_TOKEN}|[^\"0-9-]+|-')"
     tagged = (
         f"array_to_string(list_transform({tokens}, lambda t: CASE WHEN regexp_full_match(t, '{_NUMBER_TOKEN}') "
         f"THEN '\"{tag}' || t || '\"' ELSE t END), '')"
     )
-    risky = f"regexp_matches({_outside_strings(line)}, '[0-9][.eE]|-0|[0-9]{{19,}}')"
-    return f"CASE WHEN {risky} THEN {tagged} ELSE {line} END"
+    return f"CASE WHEN {risky or risky_numbers(line)} THEN {tagged} ELSE {line} END"
 
 
 def untag(value: str, tag: str) -> str:

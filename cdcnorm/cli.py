@@ -66,7 +66,11 @@ def engine_args(p: argparse.ArgumentParser, scratch_holds: str = "the engine's s
         type=_memory_size,
         help="engine memory limit, e.g. 2GB (default: half the machine's memory); the engine spills to disk beyond it",
     )
-    p.add_argument("--threads", type=_positive, help="engine threads (default: all cores)")
+    p.add_argument(
+        "--threads",
+        type=_positive,
+        help="engine threads (default: all cores, fewer under a small --memory-limit)",
+    )
     p.add_argument(
         "--scratch",
         type=Path,

@@ -220,3 +220,20 @@ def test_snapshot_and_apply_take_the_same_engine_options(
     for wait in ("-1", "nan"):
         assert cli(*apply, "--wait", wait) == 2
         assert "is not a number of seconds (0 or more)" in capsys.readouterr().err
+
+
+def test_a_small_limit_runs_fewer_threads_unless_told() -> None:
+    """Without --threads, the engine runs as many threads as its memory feeds (THREAD_MEMORY
+    each, at least one); --threads is taken as given."""
+    import os
+
+    from cdcnorm.engines.duckdb import THREAD_MEMORY, DuckDBEngine
+
+    def threads(engine: DuckDBEngine) -> int:
+        return int(engine.rows("SELECT current_setting('threads')")[0][0])
+
+    cores = os.cpu_count() or 1
+    assert threads(DuckDBEngine(memory_limit="300MB")) == 1  # 214.5 MiB for the engine
+    assert threads(DuckDBEngine(memory_limit="300MB", threads=2)) == 2
+    big = DuckDBEngine(memory_limit="16GB")
+    assert threads(big) == min(cores, max(1, (int(16e9) - (256 << 20)) // THREAD_MEMORY))

@@ -145,12 +145,13 @@ class DuckDBEngine:
         self.con = duckdb.connect(":memory:", config=config)
         # the limit is the run's: the engine gets it less a reserve for what it does not count
         budget = _setting_bytes(self.con)
-        self.memory_budget = budget
         engine = max(budget - min(int(budget * RESERVE_SHARE), RESERVE_CAP), min(budget, ENGINE_FLOOR))
-        self.con.execute(f"SET memory_limit = '{max(engine, 1 << 20) >> 10}KiB'")
+        #: what the engine's own buffers may hold (the readers and threads are sized from it)
+        self.engine_memory = max(engine, 1 << 20)
+        self.con.execute(f"SET memory_limit = '{self.engine_memory >> 10}KiB'")
         if not threads:  # as many threads as the engine's memory feeds (each sort needs its own)
             cores = int(self.rows("SELECT current_setting('threads')")[0][0])
-            fed = max(1, engine // THREAD_MEMORY)
+            fed = max(1, self.engine_memory // THREAD_MEMORY)
             if fed < cores:
                 self.con.execute(f"SET threads = {fed}")
         for name, (params, body) in PLAN_FUNCTIONS.items():
@@ -268,7 +269,7 @@ class DuckDBEngine:
         # lines, 512 MiB here, more than a whole limit): one buffer of the longest line, and at
         # most an eighth of the engine's memory. A longer record is a reject, which the careful
         # path reads with the full limit (``max_line``).
-        line = min(max_line, max(CSV_MIN_BUFFER, _setting_bytes(self.con) // 8))
+        line = min(max_line, max(CSV_MIN_BUFFER, self.engine_memory // 8))
         scan = (
             f"read_csv([{', '.join(lit(p) for p in paths)}], columns = {cols}, header = {str(header).lower()}, "
             f"delim = {lit(delimiter)}, quote = {lit(quote)}, escape = {lit(quote)}, auto_detect = false, "
@@ -396,13 +397,15 @@ class DuckDBEngine:
 
         # Every check once per line, into the lines' table (the malformed and the good lines are
         # then two filters of it): the text outside strings is computed once for both lexical
-        # checks and for the numbers that need tagging; the kind and the repeated names only of valid JSON (the engine's JSON functions
-        # reject anything else).
+        # checks and for the numbers that need tagging; the kind and the repeated names only of
+        # valid JSON (the engine's JSON functions reject anything else).
         decoded = (
             f"SELECT __row, rtrim(try(decode(raw)), chr(13)) AS line, raw FROM {src} "
             "WHERE NOT regexp_full_match(coalesce(try(decode(raw)), 'x'), '\\s*')"
         )
-        strict = f"SELECT __row, line, raw, coalesce({rfc8259('line', 'outside')}, FALSE) AS valid, {risky_numbers('line', 'outside')} AS risky FROM (SELECT *, {outside_strings('line')} AS outside FROM ({decoded}))"
+        outside = f"SELECT *, {outside_strings('line')} AS outside FROM ({decoded})"
+        valid = f"coalesce({rfc8259('line', 'outside')}, FALSE)"
+        strict = f"SELECT __row, line, raw, {valid} AS valid, {risky_numbers('line', 'outside')} AS risky FROM ({outside})"
         kind = f"SELECT *, CASE WHEN valid THEN json_type(line) END AS kind FROM ({strict})"
         # a repeated name at the top level would make its column ambiguous (nested values are
         # kept as written; a json field checks its own)
@@ -410,7 +413,8 @@ class DuckDBEngine:
             "CASE WHEN kind = 'OBJECT' THEN len(json_keys(line)) <> len(list_distinct(json_keys(line))) END"
         )
         self.con.execute(
-            f"CREATE OR REPLACE TEMP TABLE {ident(lines + '_text')} AS SELECT *, coalesce({repeated}, FALSE) AS repeated FROM ({kind})"
+            f"CREATE OR REPLACE TEMP TABLE {ident(lines + '_text')} AS "
+            f"SELECT *, coalesce({repeated}, FALSE) AS repeated FROM ({kind})"
         )
         text = ident(lines + "_text")
         self.con.execute(

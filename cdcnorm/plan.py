@@ -78,10 +78,40 @@ class Plan:
         return out
 
     def content(self, prefix: str = "") -> str:
-        """SQL: a 128-bit digest of a row's content (commit time and every value), to tell a
-        repeat of an identity that an earlier run emitted from a conflicting version."""
-        parts = [f"'c': {prefix}__cat", *(f"'v{i}': {prefix}v{i}" for i in range(len(self.fields)))]
-        return f"md5_number(CAST({{{', '.join(parts)}}} AS VARCHAR))"
+        """SQL: the 128-bit digest of a row's content (commit time and every value), to tell a
+        repeat of an identity that an earlier run emitted from a conflicting version.
+
+        It is the MD5 (RFC 1321) of the row's canonical text (its 16 bytes as one number, first
+        byte most significant), defined here rather than by any
+        engine's text of a row, so it stays the same across engine versions and engines: for
+        the commit time and then each field in the mapping's order, ``-`` for NULL, else
+        ``<n>:<text>`` with ``<text>`` the value's canonical text (``FieldType.canonical``: its
+        JSON form; a timestamp's microseconds since the epoch) and ``<n>`` its length in
+        characters, so no two rows share a text. Index format 3 stores it."""
+        from cdcnorm.positions import HEX_KEY
+        from cdcnorm.types.timestamp import timestamp_canonical
+
+        values = [(f"{prefix}__cat", timestamp_canonical(f"{prefix}__cat"))]
+        for i, ftype in enumerate(self.mapping.field_types.values()):
+            values.append((f"{prefix}v{i}", ftype.canonical(f"{prefix}v{i}")))
+        parts = [
+            f"CASE WHEN {v} IS NULL THEN '-' ELSE CAST(length({t}) AS VARCHAR) || ':' || {t} END"
+            for v, t in values
+        ]
+        # the 32 hex digits read as one number: the digest's bytes in order (most significant first)
+        return f"{HEX_KEY}(md5({' || '.join(parts)}))"
+
+    def legacy_contents(self, prefix: str = "") -> list[str]:
+        """SQL: the digests index formats 1 and 2 stored: the MD5 of the engine's text of the row as
+        a struct. That text changed with the engine's versions (DuckDB 1.2 writes every value bare;
+        later versions quote some texts), so both the running engine's text and the bare one are
+        given: a repeat matching either has the same content."""
+        names = ["c", *(f"v{i}" for i in range(len(self.fields)))]
+        cols = [f"{prefix}__cat", *(f"{prefix}v{i}" for i in range(len(self.fields)))]
+        pairs = list(zip(names, cols, strict=True))
+        struct = "{" + ", ".join(f"'{n}': {c}" for n, c in pairs) + "}"
+        bare = " || ', ' || ".join(f"'''{n}'': ' || coalesce(CAST({c} AS VARCHAR), 'NULL')" for n, c in pairs)
+        return [f"md5_number(CAST({struct} AS VARCHAR))", f"md5_number('{{' || {bare} || '}}')"]
 
     def raw(self, column: str) -> str:
         """The quoted internal name of a raw column (what the plan's SQL says for it)."""

@@ -1,14 +1,71 @@
-"""The identity index's content digests are stored in landing areas and compared by every later
-run: they must not change between versions (of cdcnorm or of its engine) without a new index
-version. These digests were recorded from the output of index format 1 (which stored them as hex) and
-are the same in format 2; if this test fails after an
-upgrade, stored landing areas would see their own repeats as conflicting versions."""
+"""The identity index's content digest (``Plan.content``) is stored in landing areas and compared by
+every later run, so it is defined by the project, not by an engine's text of a row: the MD5 (RFC
+1321, here Python's ``hashlib``) of the row's canonical text, for the commit time and each field in
+order ``-`` for NULL or ``<n>:<text>``, the text being the value's JSON form (a timestamp: its
+microseconds since the epoch) and ``n`` its length in characters.
+
+These tests compute that text from Python's own values (``decimal``, ``datetime``, ``base64`` per
+RFC 4648, ``uuid`` per RFC 9562, ``repr`` of a float) and compare its MD5 with the digests a run
+stores. If one fails after an upgrade, stored landing areas would see their own repeats as
+conflicting versions."""
 
 from __future__ import annotations
 
+import base64
+import hashlib
+import uuid
+from datetime import UTC, date, datetime, time, timedelta
+from decimal import Decimal
+from pathlib import Path
+from typing import Any
+
 import pyarrow.parquet as pq
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from tests.conftest import ConvertFn, run_files
+
+EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
+
+
+def canonical(value: Any) -> str:
+    """A value's canonical text, from Python's values (not the engine's)."""
+    if value is None:
+        return "-"
+    if isinstance(value, bool):
+        text = "true" if value else "false"
+    elif isinstance(value, datetime):  # microseconds since 1970-01-01T00:00:00Z
+        text = str((value - EPOCH) // timedelta(microseconds=1))
+    elif isinstance(value, Decimal):  # exactly its scale's digits, never an exponent
+        text = format(value, "f")
+    elif isinstance(value, float):  # the shortest text that reads back as the same double
+        text = repr(value)
+    elif isinstance(value, date):
+        text = value.isoformat()
+    elif isinstance(value, time):  # HH:MM:SS and a fraction without trailing zeros
+        text = value.isoformat()
+        text = text.rstrip("0").rstrip(".") if "." in text else text
+    elif isinstance(value, bytes):
+        text = base64.b64encode(value).decode()
+    elif isinstance(value, uuid.UUID):
+        text = str(value)
+    else:
+        text = str(value)
+    return f"{len(text)}:{text}"
+
+
+def digest(values: list[Any]) -> str:
+    """The content digest as 32 hex digits: MD5 (RFC 1321) of the canonical texts joined."""
+    return hashlib.md5("".join(canonical(v) for v in values).encode()).hexdigest().upper()
+
+
+def _stored(out: Path, table: str, key: str = "__pos") -> dict[Any, str]:
+    """{position or key: digest as 32 hex digits} of the run's identity file (index format 3)."""
+    (index,) = run_files(out, "index/emitted", table)
+    rows = pq.read_table(index).to_pylist()
+    return {r[key]: f"{r['__content_hi'] << 64 | r['__content_lo']:032X}" for r in rows}
+
 
 MAPPING = """
 table: t.digest
@@ -16,7 +73,7 @@ files: ["d*"]
 key: [id]
 change:
   action: {column: op, codes: {I: insert}}
-  position: {column: pos, kind: hex, width: 20}
+  position: {column: pos, kind: integer}
   committed_at: {column: at}
 fields:
   id: integer
@@ -29,30 +86,47 @@ fields:
 
 DUMP = (
     "op,pos,at,id,name,fee,weight,seen,ok\n"
-    'I,0A,2026-03-01T10:00:00Z,1,Åsa "quoted",12.50,0.1,2026-03-01T09:59:59.123456Z,true\n'
-    "I,0B,2026-03-01T10:00:01+02:00,2,,-0.01,1e300,2026-02-28 23:00:00,false\n"
-    "I,0C,2026-03-01T10:00:02Z,3,a\\nb,,-0.0,,\n"
+    'I,1,2026-03-01T10:00:00Z,1,Åsa "quoted",12.50,0.1,2026-03-01T09:59:59.123456Z,true\n'
+    "I,2,2026-03-01T10:00:01+02:00,2,,-0.01,1e300,2026-02-28 23:00:00,false\n"
+    "I,3,2026-03-01T10:00:02Z,3,a\\nb,,-0.0,,\n"
 )
 
-#: (position text, digest) per emitted row, recorded from this version's landing area.
-RECORDED = [
-    ("0000000000000000000A", "15A7AC8E2EE77CE0516D964293947E38"),
-    ("0000000000000000000B", "3586D88A8192D668D54B98BDB686F342"),
-    ("0000000000000000000C", "11872DDAD5AAF7A99EE1421891C03CA4"),
-]
+#: (commit time, id, name, fee, weight, seen, ok) of each row, as Python values
+VALUES = {
+    1: [
+        datetime(2026, 3, 1, 10, tzinfo=UTC),
+        1,
+        'Åsa "quoted"',
+        Decimal("12.50"),
+        0.1,
+        datetime(2026, 3, 1, 9, 59, 59, 123456, tzinfo=UTC),
+        True,
+    ],
+    2: [
+        datetime(2026, 3, 1, 8, 0, 1, tzinfo=UTC),
+        2,
+        None,
+        Decimal("-0.01"),
+        1e300,
+        datetime(2026, 2, 28, 23, tzinfo=UTC),
+        False,
+    ],
+    3: [datetime(2026, 3, 1, 10, 0, 2, tzinfo=UTC), 3, "a\\nb", None, -0.0, None, None],
+}
 
 
-def test_stored_digests_do_not_change(convert: ConvertFn) -> None:
+def test_the_canonical_text_reads_as_documented() -> None:
+    assert "".join(canonical(v) for v in VALUES[1]) == (
+        '16:17723592000000001:112:Åsa "quoted"5:12.503:0.116:17723591991234564:true'
+    )
+    assert "".join(canonical(v) for v in VALUES[3]) == "16:17723592020000001:34:a\\nb-4:-0.0--"
+
+
+def test_stored_digests_are_the_md5_of_the_canonical_text(convert: ConvertFn) -> None:
     done = convert(MAPPING, {"d.csv": DUMP})
     assert done.ledger()["total"]["emitted"] == 3 and done.quarantine("t.digest") == []
-    (index,) = run_files(done.out, "index/emitted", "t.digest")
-    rows = pq.read_table(index).to_pylist()
-    # format 2 keeps 128-bit numbers as two unsigned 64-bit halves
-    got = [
-        (f"{r['__pos_hi'] << 64 | r['__pos_lo']:020X}", f"{r['__digest_hi'] << 64 | r['__digest_lo']:032X}")
-        for r in rows
-    ]
-    assert got == RECORDED
+    stored = _stored(done.out, "t.digest")
+    assert stored == {f"{p:020d}": digest(v) for p, v in VALUES.items()}
 
 
 OTHER_TYPES = """
@@ -77,18 +151,97 @@ OTHER_DUMP = (
     "I,2,2,0001-01-01,23:59:59-04:00,,,\n"
 )
 
-#: (position text, digest) per emitted row, recorded from this version's landing area (the digest is
-#: computed as in index format 1; format 2 only stores it differently).
-OTHER_RECORDED = [
-    ("00000000000000000001", "5553FA597F29260090378B2705844564"),
-    ("00000000000000000002", "C699D4CA96FE70DA4EC507C74F409396"),
-]
 
-
-def test_stored_digests_of_the_other_types_do_not_change(convert: ConvertFn) -> None:
+def test_stored_digests_of_the_other_types(convert: ConvertFn) -> None:
     done = convert(OTHER_TYPES, {"e.csv": OTHER_DUMP})
     assert done.ledger()["total"]["emitted"] == 2 and done.quarantine("t.digest2") == []
-    (index,) = run_files(done.out, "index/emitted", "t.digest2")
-    rows = pq.read_table(index).to_pylist()
-    got = [(r["__pos"], f"{r['__digest_hi'] << 64 | r['__digest_lo']:032X}") for r in rows]
-    assert got == OTHER_RECORDED
+    # without a committed_at column, the commit time is NULL
+    expected = {
+        1: [
+            None,
+            1,
+            date(2026, 3, 1),
+            time(10, 0, 0, 500000),
+            uuid.UUID("0190f4b2-7c1d-7a3e-9f00-1234567890ab"),
+            bytes.fromhex("00ff10"),
+            '{"a":[1.50,1e2,null],"b":"x"}',  # the JSON form: minified, every token as written
+        ],
+        2: [None, 2, date(1, 1, 1), time(3, 59, 59), None, None, None],  # the time in UTC
+    }
+    assert _stored(done.out, "t.digest2") == {f"{p:020d}": digest(v) for p, v in expected.items()}
+
+
+PROPERTY_MAPPING = """
+table: t.prop
+files: ["p*"]
+key: [id]
+change:
+  action: {column: op, codes: {I: insert}}
+  position: {column: pos, kind: integer}
+  committed_at: {column: at}
+fields:
+  id: integer
+  name: text
+  fee: decimal(12,2)
+  weight: float
+  seen: timestamp
+  ok: boolean
+  day: date
+  blob: bytes
+"""
+
+_timestamps = st.datetimes(
+    min_value=datetime(1, 1, 1), max_value=datetime(9999, 12, 31), timezones=st.just(UTC)
+).map(lambda d: d.astimezone(UTC))
+_row = st.tuples(
+    _timestamps,
+    st.none() | st.text(st.characters(blacklist_characters="\x00\r"), max_size=12),
+    st.none() | st.decimals(min_value=-(10**10) + 1, max_value=10**10 - 1, places=2, allow_nan=False),
+    st.none() | st.floats(allow_nan=False, allow_infinity=False, allow_subnormal=False),
+    st.none() | _timestamps,
+    st.none() | st.booleans(),
+    st.none() | st.dates(),
+    st.none() | st.binary(max_size=8),
+)
+
+
+def _cell(value: Any) -> str:
+    """A CSV field (RFC 4180): NULL unquoted and empty, every value quoted (an empty text too)."""
+    if value is None:
+        return ""
+    if isinstance(value, datetime):
+        text = value.isoformat().replace("+00:00", "Z")
+    elif isinstance(value, bool):
+        text = str(value).lower()
+    elif isinstance(value, bytes):
+        text = value.hex()
+    elif isinstance(value, float):
+        text = repr(value)
+    else:
+        text = str(value)
+    return '"' + text.replace('"', '""') + '"'
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(rows=st.lists(_row, min_size=1, max_size=6))
+def test_digests_of_generated_rows_follow_the_definition(
+    convert: ConvertFn, rows: list[tuple[Any, ...]]
+) -> None:
+    lines = ["op,pos,at,id,name,fee,weight,seen,ok,day,blob"]
+    expected = {}
+    for i, (at, *fields) in enumerate(rows, start=1):
+        lines.append(",".join(["I", str(i), _cell(at), str(i), *map(_cell, fields)]))
+        expected[i] = digest([at, i, *fields])
+    done = convert(PROPERTY_MAPPING, {"p.csv": "\n".join(lines) + "\n"})
+    assert done.quarantine("t.prop") == []
+    assert _stored(done.out, "t.prop", key="v0") == expected
+
+
+@pytest.mark.parametrize("name", ["Åsa", "a:b", "-", "3:x"])
+def test_texts_that_look_like_the_framing_do_not_collide(convert: ConvertFn, name: str) -> None:
+    """``-`` (NULL) and a text ``-``, or ``1:a`` + NULL and ``3:1:a``: the lengths keep them apart."""
+    dump = f"op,pos,at,id,name,fee,weight,seen,ok\nI,1,,1,{name},,,,\nI,2,,2,,,,,\n"
+    done = convert(MAPPING, {"d.csv": dump})
+    stored = _stored(done.out, "t.digest")
+    assert len(set(stored.values())) == 2
+    assert stored[f"{1:020d}"] == digest([None, 1, name, None, None, None, None])

@@ -3,17 +3,23 @@
 ``tests/fixtures/index-format-1.parquet`` is the identity file that index format 1
 (positions, sequences and digests as hex text) wrote for run 1 below. An area whose
 run 1 left that file must give run 2 the same fates, events and quarantine as an area
-whose run 1 wrote format 2 (128-bit keys and the digest as two 64-bit halves).
+whose run 1 wrote format 3 (128-bit keys and the project's content digest as two 64-bit
+halves). So must an area whose run 1 wrote format 2: format 3's layout with the older
+digest (the MD5 of the engine's text of the row), whether that text was the running
+engine's or the bare one DuckDB 1.2 wrote.
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
 from pathlib import Path
 from typing import Any
 
+import duckdb
 import pyarrow as pa
 import pyarrow.parquet as pq
+import pytest
 
 from tests.conftest import cli, last_run, run_files
 
@@ -83,20 +89,90 @@ def _columns(path: Path) -> set[str]:
     return set(pq.read_schema(path).names)
 
 
-def test_an_area_of_index_format_1_continues_as_one_of_format_2(tmp_path: Path) -> None:
+#: The text DuckDB 1.2 gave a row cast to a struct's text, every value bare (measured with duckdb
+#: 1.2.2; from 1.3 on, texts with a space, such as the commit time, are quoted): index format 2
+#: written under DuckDB 1.2 holds the MD5 of these, as a little-endian 128-bit number, by position.
+BARE_TEXT = {
+    0x0A: "{'c': 2026-03-01 10:00:00+00, 'v0': 1, 'v1': a, 'v2': 1.50, 'v3': 0.1}",
+    0x0B: "{'c': 2026-03-01 10:00:01+00, 'v0': 2, 'v1': b, 'v2': 2.00, 'v3': NULL}",
+    0x0C: "{'c': 2026-03-01 10:00:02+00, 'v0': 3, 'v1': c, 'v2': 3.25, 'v3': 1e+300}",
+    0x0E: "{'c': 2026-03-01 10:00:04+00, 'v0': 5, 'v1': NULL, 'v2': NULL, 'v3': NULL}",
+    0xFFFFFFFFFFFFFFFFFFF0: "{'c': 2026-03-01 10:00:05+00, 'v0': 7, 'v1': wide, 'v2': NULL, 'v3': NULL}",
+}
+
+
+def _format_1(written: Path, run_id: str) -> pa.Table:
+    """The format 1 file an earlier version wrote for run 1 (the fixture), under this area's run id."""
+    table = pq.read_table(FIXTURE)
+    assert {"__pos", "__seq", "__hash"} <= set(table.column_names) and "__digest_hi" not in table.column_names
+    assert table.num_rows == pq.read_metadata(written).num_rows == 5
+    return table.set_column(table.column_names.index("__run"), "__run", pa.array([run_id] * table.num_rows))
+
+
+def _format_2(written: Path, digests: list[int]) -> pa.Table:
+    """Run 1's format 3 file as format 2 would hold it: the digest columns renamed, older digests."""
+    table = pq.read_table(written)
+    halves = {
+        "__digest_hi": pa.array([d >> 64 for d in digests], pa.uint64()),
+        "__digest_lo": pa.array([d & ((1 << 64) - 1) for d in digests], pa.uint64()),
+    }
+    for new, old in (("__content_hi", "__digest_hi"), ("__content_lo", "__digest_lo")):
+        table = table.set_column(table.column_names.index(new), old, halves[old])
+    return table
+
+
+def _positions(table: pa.Table) -> list[int]:
+    return [
+        hi << 64 | lo
+        for hi, lo in zip(table["__pos_hi"].to_pylist(), table["__pos_lo"].to_pylist(), strict=True)
+    ]
+
+
+def _bare_digests(written: Path) -> list[int]:
+    """MD5 (RFC 1321, Python's hashlib) of DuckDB 1.2's text of each row, little-endian."""
+    return [
+        int.from_bytes(hashlib.md5(BARE_TEXT[p].encode()).digest(), "little")
+        for p in _positions(pq.read_table(written))
+    ]
+
+
+#: Run 1's rows in the identity file (commit time, id, name, fee, weight), by position.
+ROWS = {
+    0x0A: ("2026-03-01 10:00:00+00", 1, "a", "1.50", 0.1),
+    0x0B: ("2026-03-01 10:00:01+00", 2, "b", "2.00", None),
+    0x0C: ("2026-03-01 10:00:02+00", 3, "c", "3.25", 1e300),
+    0x0E: ("2026-03-01 10:00:04+00", 5, None, None, None),
+    0xFFFFFFFFFFFFFFFFFFF0: ("2026-03-01 10:00:05+00", 7, "wide", None, None),
+}
+
+
+def _engine_digests(written: Path) -> list[int]:
+    """The running engine's own text of each row as a struct, as format 2 was written with it."""
+    con = duckdb.connect()
+    con.execute("SET TimeZone = 'UTC'")
+    sql = (
+        "SELECT md5_number(CAST({'c': CAST(? AS TIMESTAMPTZ), 'v0': CAST(? AS BIGINT), 'v1': CAST(? AS VARCHAR), "
+        "'v2': CAST(? AS DECIMAL(12,2)), 'v3': CAST(? AS DOUBLE)} AS VARCHAR))"
+    )
+    return [int(con.execute(sql, list(ROWS[p])).fetchone()[0]) for p in _positions(pq.read_table(written))]  # type: ignore[index]
+
+
+@pytest.mark.parametrize("older", ["format 1", "format 2", "format 2 of DuckDB 1.2"])
+def test_an_area_of_an_older_index_format_continues_as_one_of_format_3(tmp_path: Path, older: str) -> None:
     new, old = tmp_path / "new", tmp_path / "old"
     for base in (new, old):
         _convert(base, RUN1, "d1.csv")
     (written,) = run_files(new / "out", "index/emitted", "t.idx")
-    assert {"__pos_hi", "__pos_lo", "__digest_hi", "__digest_lo"} <= _columns(written)
-    assert "__hash" not in _columns(written)
-    # the old area's run 1 left the format 1 file (under this area's run id)
+    assert {"__pos_hi", "__pos_lo", "__content_hi", "__content_lo"} <= _columns(written)
+    assert not {"__hash", "__digest_hi"} & _columns(written)
+    # the old area's run 1 left the older file (under this area's run id)
     (replaced,) = run_files(old / "out", "index/emitted", "t.idx")
-    table = pq.read_table(FIXTURE)
-    assert {"__pos", "__seq", "__hash"} <= set(table.column_names) and "__digest_hi" not in table.column_names
-    assert table.num_rows == pq.read_metadata(written).num_rows == 5
-    run_id = replaced.stem
-    table = table.set_column(table.column_names.index("__run"), "__run", pa.array([run_id] * table.num_rows))
+    if older == "format 1":
+        table = _format_1(written, replaced.stem)
+    else:
+        table = _format_2(
+            replaced, _engine_digests(replaced) if older == "format 2" else _bare_digests(replaced)
+        )
     pq.write_table(table, replaced)
 
     for base in (new, old):

@@ -82,9 +82,15 @@ def _datetime_pattern(fmt: str) -> str:
     return "".join(out)
 
 
+def _inner(node: exp.Expr) -> exp.Expr:
+    """The operand of a rewritten node, rewritten itself: the transform does not visit what a
+    rewrite returns (a hex key of an md5 of a timestamp's epoch_us, say)."""
+    return node.transform(_rewrite)
+
+
 def _rewrite(node: exp.Expr) -> exp.Expr:
     name = _name(node)
-    args = node.expressions if isinstance(node, exp.Anonymous) else []
+    args = [_inner(a) for a in node.expressions] if isinstance(node, exp.Anonymous) else []
     if name == HEX_KEY.upper():
         # lpad cuts a longer text: leading zeros beyond 32 digits go first (the plan allows them)
         trimmed = exp.func("ltrim", args[0], exp.Literal.string("0"))
@@ -92,12 +98,12 @@ def _rewrite(node: exp.Expr) -> exp.Expr:
         return exp.Unhex(this=digits)
     if isinstance(node, exp.TimeToStr) and isinstance(node.args.get("format"), exp.Literal):
         pattern = exp.Literal.string(_datetime_pattern(node.args["format"].this))
-        return exp.Anonymous(this="date_format", expressions=[node.this, pattern])
+        return exp.Anonymous(this="date_format", expressions=[_inner(node.this), pattern])
     if isinstance(node, exp.IsInf):  # Spark has no isinf: both infinities compare equal as abs
         infinity = exp.cast(exp.Literal.string("Infinity"), exp.DataType.build("DOUBLE"))
-        return exp.EQ(this=exp.Abs(this=node.this), expression=infinity)
+        return exp.EQ(this=exp.Abs(this=_inner(node.this)), expression=infinity)
     if isinstance(node, exp.RegexpFullMatch):
-        return exp.RegexpLike(this=node.this, expression=_anchored(node.expression))
+        return exp.RegexpLike(this=_inner(node.this), expression=_anchored(_inner(node.expression)))
     if name == "MD5_NUMBER":
         return exp.Unhex(this=exp.MD5(this=args[0]))
     if name == "EPOCH_US":

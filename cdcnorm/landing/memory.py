@@ -5,16 +5,19 @@ never loaded into Python. Identity files are sorted by position, so reading
 only the positions a run can meet skips most of a long history.
 
 - ``index/emitted/<table>/<run>.parquet``: the identities a run emitted or
-  merged. Format 2 (``__digest_hi`` marks it): ``__pos`` and ``__seq``, the
-  key fields, ``__act``, ``__digest_hi`` and ``__digest_lo`` (the 128-bit
-  digest of the content as two unsigned 64-bit halves), ``__run``,
+  merged. Format 3 (``__content_hi`` marks it): ``__pos`` and ``__seq``, the
+  key fields, ``__act``, ``__content_hi`` and ``__content_lo`` (the 128-bit
+  content digest, ``Plan.content``, as two unsigned 64-bit halves), ``__run``,
   ``__unpaired`` (an after-image emitted without its before-image). A 128-bit
   position or sequence key (hex, hex-pair) is stored as two unsigned 64-bit
   halves too, ``__pos_hi``/``__pos_lo`` (Parquet has no 128-bit integers; the
   halves sort as the key does); another key is stored as its normalised text.
-  Format 1 (written before, still read): every key as normalised text and the
-  digest as 32 hex digits in ``__hash``. Both hold the same digest, so an area
-  written by either continues the same way.
+  Formats 1 and 2 (written before, still read) hold the older digest, the MD5
+  of the engine's text of the row (``Plan.legacy_contents``): format 2 has the
+  layout of format 3 with ``__digest_hi``/``__digest_lo``; format 1 holds every
+  key as normalised text and the digest as 32 hex digits in ``__hash``. A
+  repeat of an identity from those files is compared with the older digest, so
+  an area written by any format continues the same way.
 - ``index/pending/<table>/<run>.parquet``: every before-image waiting after
   that run (carried ones included): origin ``__name`` and ``__row``, the typed
   row (positions and sequences as normalised text, fixed width, so text order
@@ -60,6 +63,8 @@ def _restore(plan: Plan, col: str, name: str) -> str:
 
 #: What a format 2 identity file has that a format 1 file has not.
 FORMAT_2_MARK = "__digest_hi"
+#: What a format 3 identity file has that the others have not.
+FORMAT_3_MARK = "__content_hi"
 _LOW64 = f"CAST({(1 << 64) - 1} AS UHUGEINT)"
 
 
@@ -97,7 +102,7 @@ def earlier_columns(plan: Plan) -> dict[str, str]:
     types = plan.types()
     cols = {"__pos": types["__pos"], "__seq": types["__seq"], "__act": "VARCHAR"}
     cols.update({f"v{i}": types[f"v{i}"] for i in plan.key_index})
-    cols.update({"__hash": "UHUGEINT", "__run": "VARCHAR", "__unpaired": "BOOLEAN"})
+    cols.update({"__hash": "UHUGEINT", "__legacy": "BOOLEAN", "__run": "VARCHAR", "__unpaired": "BOOLEAN"})
     return cols
 
 
@@ -147,20 +152,26 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
         return
     lo_key, hi_key = (f"CAST({lit(str(x))} AS {plan.types()['__pos']})" for x in (lo, hi))
     names = [lit(str(f)) for f in files]
-    second = {
-        str(f)
-        for (f,) in engine.rows(
-            f"SELECT DISTINCT file_name FROM parquet_schema([{', '.join(names)}]) WHERE name = {lit(FORMAT_2_MARK)}"
+    marks = {
+        (str(f), str(m))
+        for f, m in engine.rows(
+            f"SELECT DISTINCT file_name, name FROM parquet_schema([{', '.join(names)}]) "
+            f"WHERE name IN ({lit(FORMAT_2_MARK)}, {lit(FORMAT_3_MARK)})"
         )
     }
     parts = []
-    for fmt, group in (
-        (1, [f for f in files if str(f) not in second]),
-        (2, [f for f in files if str(f) in second]),
-    ):
+    for fmt in (1, 2, 3):
+        group = [f for f in files if _format(marks, str(f)) == fmt]
         if group:
             parts.append(_earlier_rows(plan, fmt, group, lo_key, hi_key))
     engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {' UNION ALL '.join(parts)}")
+
+
+def _format(marks: set[tuple[str, str]], file: str) -> int:
+    """The index format of an identity file, from the marks its columns carry."""
+    if (file, FORMAT_3_MARK) in marks:
+        return 3
+    return 2 if (file, FORMAT_2_MARK) in marks else 1
 
 
 def _earlier_rows(plan: Plan, fmt: int, files: list[Path], lo: str, hi: str) -> str:
@@ -169,18 +180,19 @@ def _earlier_rows(plan: Plan, fmt: int, files: list[Path], lo: str, hi: str) -> 
     src = f"read_parquet([{', '.join(lit(str(f)) for f in files)}])"
     keys = {}
     for c in ("__pos", "__seq"):
-        keys[c] = joined(c) if fmt == 2 and _wide(plan, c) else _restore(plan, c, c)
-    digest = joined("__digest") if fmt == 2 else f"{positions.HEX_KEY}(__hash)"
+        keys[c] = joined(c) if fmt >= 2 and _wide(plan, c) else _restore(plan, c, c)
+    digest = {1: f"{positions.HEX_KEY}(__hash)", 2: joined("__digest"), 3: joined("__content")}[fmt]
     cols = [
         f"{keys['__pos']} AS __pos",
         f"{keys['__seq']} AS __seq",
         "__act",
         *(f"CAST(v{i} AS {types[f'v{i}']}) AS v{i}" for i in plan.key_index),
         f"{digest} AS __hash",
+        f"{'false' if fmt == 3 else 'true'} AS __legacy",
         "__run",
         "__unpaired",
     ]
-    if fmt == 2 and _wide(plan, "__pos"):
+    if fmt >= 2 and _wide(plan, "__pos"):
         # the high halves alone let the reader skip row groups by their statistics
         near = f"__pos_hi BETWEEN CAST({lo} >> 64 AS UBIGINT) AND CAST({hi} >> 64 AS UBIGINT) AND "
     else:
@@ -189,7 +201,7 @@ def _earlier_rows(plan: Plan, fmt: int, files: list[Path], lo: str, hi: str) -> 
 
 
 def write_emitted(engine: DuckDBEngine, plan: Plan, path: Path, run: str) -> None:
-    """The identities this run settled for good (format 2): every kept row (carried ones included)
+    """The identities this run settled for good (format 3): every kept row (carried ones included)
     except the before-images left waiting; an after-image emitted without its before-image is marked."""
     paired = plan.mapping.mapping.change.updates == "paired"
     kept, waiting, pairs = plan.rel("kept"), plan.rel("waiting"), plan.rel("pairs")
@@ -206,9 +218,9 @@ def write_emitted(engine: DuckDBEngine, plan: Plan, path: Path, run: str) -> Non
         for x in (halves(f"k.{c}", c) if _wide(plan, c) else [f"{_store(plan, f'k.{c}', c)} AS {c}"])
     ]
     sql = (
-        f"SELECT {', '.join(stored)}, k.__act{keys}, {', '.join(halves('k.__digest', '__digest'))}, "
+        f"SELECT {', '.join(stored)}, k.__act{keys}, {', '.join(halves('k.__content', '__content'))}, "
         f"{lit(run)} AS __run, {unpaired} AS __unpaired "
-        f"FROM (SELECT *, {plan.content()} AS __digest FROM {kept}) k WHERE NOT EXISTS (SELECT 1 FROM {waiting} w "
+        f"FROM (SELECT *, {plan.content()} AS __content FROM {kept}) k WHERE NOT EXISTS (SELECT 1 FROM {waiting} w "
         # sorted on the keys: their order is the stored columns' order, and cheaper to sort
         "WHERE NOT w.__settled AND w.__file = k.__file AND w.__row = k.__row) ORDER BY k.__pos, k.__seq"
     )

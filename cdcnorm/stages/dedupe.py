@@ -66,13 +66,16 @@ def dedupe_rows(plan: Plan) -> Plan:
     earlier_cols = ", ".join(["__pos", "__seq", "__act", *keys])
     carried_cols = ", ".join(["__pos", "__seq", "'before' AS __act", *keys])  # carried rows are before-images
     seen_on = " AND ".join(f"o.{c} = e.{c}" for c in ["__pos", "__seq", "__act", *keys])
+    # identities from index formats 1 and 2 hold the older digest (see Plan.legacy_contents)
+    legacy = ", ".join(plan.legacy_contents("o."))
+    same = f"CASE WHEN e.__legacy THEN e.__hash IN ({legacy}) ELSE e.__hash = {plan.content('o.')} END"
     plan = plan.add(
         "dedupe",
         "seen",
-        f"SELECT o.__file, o.__row, o.__act, bool_and(e.__hash = {plan.content('o.')}) AS __same, "
+        f"SELECT o.__file, o.__row, o.__act, bool_and({same}) AS __same, "
         f"min(e.__run) AS __earlier_run FROM {ordered} o JOIN ("
-        f"SELECT {earlier_cols}, __hash, __run FROM {plan.rel('earlier')} UNION ALL "
-        f"SELECT {carried_cols}, {plan.content()} AS __hash, __run FROM {plan.rel('carried')}) e ON {seen_on} "
+        f"SELECT {earlier_cols}, __hash, __legacy, __run FROM {plan.rel('earlier')} UNION ALL "
+        f"SELECT {carried_cols}, {plan.content()} AS __hash, false, __run FROM {plan.rel('carried')}) e ON {seen_on} "
         "GROUP BY o.__file, o.__row, o.__act",
         materialize=True,
     )

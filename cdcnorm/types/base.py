@@ -45,6 +45,11 @@ class FieldType:
         """SQL: the JSON form of typed value ``v`` (a string, number, boolean or JSON value)."""
         return v
 
+    def canonical(self, v: str) -> str:
+        """SQL: the text of non-NULL typed value ``v`` in the content digest (``Plan.content``): its
+        JSON form as text. Landing areas store the digest: a change here needs a new index format."""
+        return f"CAST({self.render(v)} AS VARCHAR)"
+
     @property
     def form_type(self) -> str:
         """The engine type a JSON reader is told to read the rendered form as (events read back)."""

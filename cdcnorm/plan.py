@@ -82,22 +82,23 @@ class Plan:
         repeat of an identity that an earlier run emitted from a conflicting version.
 
         It is the MD5 (RFC 1321) of the row's canonical text (its 16 bytes as one number, first
-        byte most significant), defined here rather than by any
-        engine's text of a row, so it stays the same across engine versions and engines: for
-        the commit time and then each field in the mapping's order, ``-`` for NULL, else
-        ``<n>:<text>`` with ``<text>`` the value's canonical text (``FieldType.canonical``: its
-        JSON form; a timestamp's microseconds since the epoch) and ``<n>`` its length in
-        characters, so no two rows share a text. Index format 3 stores it."""
+        byte most significant), defined here rather than by any engine's text of a row, so it stays
+        the same across engine versions: the commit time and then each field in the mapping's order,
+        each value's canonical text (``FieldType.canonical``: its JSON form; a timestamp's
+        microseconds since the epoch) written as ``<n>:<text>`` (``n`` its length in characters)
+        for text and json, whose text may hold anything, or as ``<text>;`` for any other type,
+        whose text never holds a ``;``; NULL is a lone ``;``. No two rows share a canonical text.
+        Index format 3 stores it."""
         from cdcnorm.positions import HEX_KEY
         from cdcnorm.types.timestamp import timestamp_canonical
 
-        values = [(f"{prefix}__cat", timestamp_canonical(f"{prefix}__cat"))]
+        parts = [f"coalesce({timestamp_canonical(f'{prefix}__cat')} || ';', ';')"]
         for i, ftype in enumerate(self.mapping.field_types.values()):
-            values.append((f"{prefix}v{i}", ftype.canonical(f"{prefix}v{i}")))
-        parts = [
-            f"CASE WHEN {v} IS NULL THEN '-' ELSE CAST(length({t}) AS VARCHAR) || ':' || {t} END"
-            for v, t in values
-        ]
+            text = ftype.canonical(f"{prefix}v{i}")
+            if ftype.free_text:
+                parts.append(f"coalesce(CAST(length({text}) AS VARCHAR) || ':' || {text}, ';')")
+            else:
+                parts.append(f"coalesce({text} || ';', ';')")
         # the 32 hex digits read as one number: the digest's bytes in order (most significant first)
         return f"{HEX_KEY}(md5({' || '.join(parts)}))"
 

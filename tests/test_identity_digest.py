@@ -1,8 +1,8 @@
 """The identity index's content digest (``Plan.content``) is stored in landing areas and compared by
 every later run, so it is defined by the project, not by an engine's text of a row: the MD5 (RFC
-1321, here Python's ``hashlib``) of the row's canonical text, for the commit time and each field in
-order ``-`` for NULL or ``<n>:<text>``, the text being the value's JSON form (a timestamp: its
-microseconds since the epoch) and ``n`` its length in characters.
+1321, here Python's ``hashlib``) of the row's canonical text: for the commit time and each field in
+order, the value's JSON form (a timestamp: its microseconds since the epoch) as ``<n>:<text>`` for
+text and json (``n`` its length in characters), ``<text>;`` for any other type, and ``;`` for NULL.
 
 These tests compute that text from Python's own values (``decimal``, ``datetime``, ``base64`` per
 RFC 4648, ``uuid`` per RFC 9562, ``repr`` of a float) and compare its MD5 with the digests a run
@@ -30,9 +30,12 @@ EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 
 
 def canonical(value: Any) -> str:
-    """A value's canonical text, from Python's values (not the engine's)."""
+    """A value's canonical text, from Python's values (not the engine's): ``<n>:<text>`` for a text
+    (text and json fields), ``<text>;`` for any other value, ``;`` for NULL."""
     if value is None:
-        return "-"
+        return ";"
+    if isinstance(value, str):
+        return f"{len(value)}:{value}"
     if isinstance(value, bool):
         text = "true" if value else "false"
     elif isinstance(value, datetime):  # microseconds since 1970-01-01T00:00:00Z
@@ -52,7 +55,8 @@ def canonical(value: Any) -> str:
         text = str(value)
     else:
         text = str(value)
-    return f"{len(text)}:{text}"
+    assert ";" not in text
+    return f"{text};"
 
 
 def digest(values: list[Any]) -> str:
@@ -116,10 +120,9 @@ VALUES = {
 
 
 def test_the_canonical_text_reads_as_documented() -> None:
-    assert "".join(canonical(v) for v in VALUES[1]) == (
-        '16:17723592000000001:112:Åsa "quoted"5:12.503:0.116:17723591991234564:true'
-    )
-    assert "".join(canonical(v) for v in VALUES[3]) == "16:17723592020000001:34:a\\nb-4:-0.0--"
+    row1 = "".join(canonical(v) for v in VALUES[1])
+    assert row1 == '1772359200000000;1;12:Åsa "quoted"12.50;0.1;1772359199123456;true;'
+    assert "".join(canonical(v) for v in VALUES[3]) == "1772359202000000;3;4:a\\nb;-0.0;;;"
 
 
 def test_stored_digests_are_the_md5_of_the_canonical_text(convert: ConvertFn) -> None:
@@ -237,10 +240,10 @@ def test_digests_of_generated_rows_follow_the_definition(
     assert _stored(done.out, "t.prop", key="v0") == expected
 
 
-@pytest.mark.parametrize("name", ["Åsa", "a:b", "-", "3:x"])
+@pytest.mark.parametrize("name", ["Åsa", "a:b", ";", "3:x;", ""])
 def test_texts_that_look_like_the_framing_do_not_collide(convert: ConvertFn, name: str) -> None:
-    """``-`` (NULL) and a text ``-``, or ``1:a`` + NULL and ``3:1:a``: the lengths keep them apart."""
-    dump = f"op,pos,at,id,name,fee,weight,seen,ok\nI,1,,1,{name},,,,\nI,2,,2,,,,,\n"
+    """A text ``;`` or an empty text (quoted) and NULL (row 2): the lengths keep them apart."""
+    dump = f'op,pos,at,id,name,fee,weight,seen,ok\nI,1,,1,"{name}",,,,\nI,2,,1,,,,,\n'
     done = convert(MAPPING, {"d.csv": dump})
     stored = _stored(done.out, "t.digest")
     assert len(set(stored.values())) == 2

@@ -18,6 +18,9 @@ class FieldType:
     name: ClassVar[str]
     #: DuckDB type of the typed value (the native Parquet/Arrow type follows it).
     sql_type: str = "VARCHAR"
+    #: Whether the canonical text may hold any character (text, json): the content digest then
+    #: frames it by its length; any other type's never holds a ``;``.
+    free_text: ClassVar[bool] = False
 
     def __init__(self, spec: FieldSpec, params: list[int]) -> None:
         self.spec = spec

@@ -63,6 +63,7 @@ class JsonType(FieldType):
     """A JSON text (RFC 8259), embedded in the envelope as JSON: minified, its tokens as written."""
 
     name = "json"
+    free_text = True
     sql_type = "JSON"
 
     def cast(self, x: str) -> str:

@@ -7,6 +7,7 @@ class TextType(FieldType):
     """Text as read; ``max_length`` (or ``text(n)``) rejects longer values instead of cutting them."""
 
     name = "text"
+    free_text = True
 
     @classmethod
     def parse_params(cls, params: list[int]) -> list[int]:

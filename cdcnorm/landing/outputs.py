@@ -21,7 +21,6 @@ from cdcnorm.quarantine import quarantine_lines, raw_rows
 from cdcnorm.sql import PLAN_DIALECT
 from cdcnorm.writers import WRITERS
 from cdcnorm.writers.base import sorted_events
-from cdcnorm.writers.lines import write_lines
 
 if TYPE_CHECKING:
     from cdcnorm.pipeline import Options, Progress, Result
@@ -102,8 +101,20 @@ def commit_run(
         plan = trun.plan
         part = path_part(table)
         progress(f"{table}: quarantine and index", 0, 1)
+        counts = result.ledger.tables[table].total
+        out: dict[str, Any] = {"events": None, "quarantine": None}
+        # written while the raw rows are there (they go before the events are sorted), and always:
+        # the count of lines checks the ledger's count of quarantined rows below
+        rel = f"quarantine/{part}/{run}.jsonl"
         lines_sql = quarantine_lines(plan, rejected_relation(trun))
-        lines = engine.arrow(sqlglot.parse_one(lines_sql, read=PLAN_DIALECT))["line"]
+        lines = engine.copy(sqlglot.parse_one(lines_sql, read=PLAN_DIALECT), staging / rel, "lines")
+        if lines:
+            out["quarantine"] = rel
+        else:  # no file, and no folder made for it
+            (staging / rel).unlink()
+            for folder in ((staging / rel).parent, (staging / rel).parent.parent):
+                if not any(folder.iterdir()):
+                    folder.rmdir()
         memory.write_emitted(engine, plan, staging / "index" / "emitted" / part / f"{run}.parquet", run)
         waiting = memory.write_pending(
             engine,
@@ -114,8 +125,7 @@ def commit_run(
         )
         result.pending += waiting
         free_raw(trun, engine)  # the raw rows are needed no more: free them before the events are sorted
-        counts = result.ledger.tables[table].total
-        out: dict[str, Any] = {"events": None, "quarantine": None, "pending": waiting}
+        out["pending"] = waiting
         written = 0
         if counts.emitted:
             progress(f"{table}: sort and write events", 0, 1)
@@ -125,16 +135,12 @@ def commit_run(
             written = writer.write(plan, engine, "__files", staging / rel, ordered)
             out["events"] = rel
         # The ledger is counted from aggregates; the files are written from the rows themselves.
-        if written != counts.emitted or len(lines) != counts.quarantined:
+        if written != counts.emitted or lines != counts.quarantined:
             raise LedgerError(
-                f"{table}: wrote {written} events and {len(lines)} quarantine lines, but the ledger counts "
+                f"{table}: wrote {written} events and {lines} quarantine lines, but the ledger counts "
                 f"{counts.emitted} emitted and {counts.quarantined} quarantined rows",
                 hint="this is a bug in cdcnorm; please report it with the inputs",
             )
-        if len(lines):
-            rel = f"quarantine/{part}/{run}.jsonl"
-            write_lines(lines, staging / rel)
-            out["quarantine"] = rel
         outputs[table] = out
         if out["events"]:
             result.outputs[table] = area.root / out["events"]

@@ -35,6 +35,25 @@ RESERVE_SHARE = 0.25
 RESERVE_CAP = 256 << 20
 #: Below this the engine keeps the whole limit: it needs some working memory for any step.
 ENGINE_FLOOR = 64 << 20
+#: The oldest DuckDB the plans run on: 2.0 is the first to read a hex text of more than 64 bits
+#: into a 128-bit integer (the hex positions' and sequences' keys); 1.x gives NULL for it, so
+#: every such position would be refused as not valid.
+OLDEST_DUCKDB = (2, 0)
+
+
+def check_version(version: str = duckdb.__version__) -> None:
+    """Refuse a DuckDB older than OLDEST_DUCKDB, by name, before any plan runs on it."""
+    numbers = tuple(int(x) for x in version.split(".")[:2] if x.isdigit())
+    if numbers < OLDEST_DUCKDB:
+        oldest = ".".join(map(str, OLDEST_DUCKDB))
+        raise CdcnormError(
+            f"cdcnorm needs DuckDB {oldest} or later; this Python has DuckDB {version}",
+            expected=f"duckdb {oldest} or later",
+            found=version,
+            hint=f"pip install 'duckdb>={oldest}'",
+        )
+
+
 #: The engine memory each thread needs when --threads is not given: fewer threads are used under
 #: a smaller limit. Measured on the benchmark dump (10 fields): the events' sort failed with two
 #: threads at 107 and 143 MiB of engine memory each, and ran at 179 MiB each (5M rows).
@@ -131,6 +150,7 @@ class DuckDBEngine:
         temp_directory: str | None = None,
         spill_limit: str | None = None,
     ) -> None:
+        check_version()
         config: dict[str, Any] = {
             "preserve_insertion_order": True,
             "memory_limit": memory_limit or default_memory_limit(),

@@ -102,17 +102,14 @@ class Plan:
         # the 32 hex digits read as one number: the digest's bytes in order (most significant first)
         return f"{HEX_KEY}(md5({' || '.join(parts)}))"
 
-    def legacy_contents(self, prefix: str = "") -> list[str]:
-        """SQL: the digests index formats 1 and 2 stored: the MD5 of the engine's text of the row as
-        a struct. That text changed with the engine's versions (DuckDB 1.2 writes every value bare;
-        later versions quote some texts), so both the running engine's text and the bare one are
-        given: a repeat matching either has the same content."""
+    def legacy_content(self, prefix: str = "") -> str:
+        """SQL: the digest index formats 1 and 2 stored: the MD5 of the running engine's text of the
+        row as a struct. That text is the one DuckDB 2.0 wrote them with; 1.x wrote a backslash or
+        bytes value differently (the plans need DuckDB 2.0 in any case)."""
         names = ["c", *(f"v{i}" for i in range(len(self.fields)))]
         cols = [f"{prefix}__cat", *(f"{prefix}v{i}" for i in range(len(self.fields)))]
-        pairs = list(zip(names, cols, strict=True))
-        struct = "{" + ", ".join(f"'{n}': {c}" for n, c in pairs) + "}"
-        bare = " || ', ' || ".join(f"'''{n}'': ' || coalesce(CAST({c} AS VARCHAR), 'NULL')" for n, c in pairs)
-        return [f"md5_number(CAST({struct} AS VARCHAR))", f"md5_number('{{' || {bare} || '}}')"]
+        struct = "{" + ", ".join(f"'{n}': {c}" for n, c in zip(names, cols, strict=True)) + "}"
+        return f"md5_number(CAST({struct} AS VARCHAR))"
 
     def raw(self, column: str) -> str:
         """The quoted internal name of a raw column (what the plan's SQL says for it)."""

@@ -5,13 +5,11 @@
 run 1 left that file must give run 2 the same fates, events and quarantine as an area
 whose run 1 wrote format 3 (128-bit keys and the project's content digest as two 64-bit
 halves). So must an area whose run 1 wrote format 2: format 3's layout with the older
-digest (the MD5 of the engine's text of the row), whether that text was the running
-engine's or the bare one DuckDB 1.2 wrote.
+digest (the MD5 of the engine's text of the row as a struct).
 """
 
 from __future__ import annotations
 
-import hashlib
 import json
 from pathlib import Path
 from typing import Any
@@ -89,18 +87,6 @@ def _columns(path: Path) -> set[str]:
     return set(pq.read_schema(path).names)
 
 
-#: The text DuckDB 1.2 gave a row cast to a struct's text, every value bare (measured with duckdb
-#: 1.2.2; from 1.3 on, texts with a space, such as the commit time, are quoted): index format 2
-#: written under DuckDB 1.2 holds the MD5 of these, as a little-endian 128-bit number, by position.
-BARE_TEXT = {
-    0x0A: "{'c': 2026-03-01 10:00:00+00, 'v0': 1, 'v1': a, 'v2': 1.50, 'v3': 0.1}",
-    0x0B: "{'c': 2026-03-01 10:00:01+00, 'v0': 2, 'v1': b, 'v2': 2.00, 'v3': NULL}",
-    0x0C: "{'c': 2026-03-01 10:00:02+00, 'v0': 3, 'v1': c, 'v2': 3.25, 'v3': 1e+300}",
-    0x0E: "{'c': 2026-03-01 10:00:04+00, 'v0': 5, 'v1': NULL, 'v2': NULL, 'v3': NULL}",
-    0xFFFFFFFFFFFFFFFFFFF0: "{'c': 2026-03-01 10:00:05+00, 'v0': 7, 'v1': wide, 'v2': NULL, 'v3': NULL}",
-}
-
-
 def _format_1(written: Path, run_id: str) -> pa.Table:
     """The format 1 file an earlier version wrote for run 1 (the fixture), under this area's run id."""
     table = pq.read_table(FIXTURE)
@@ -128,14 +114,6 @@ def _positions(table: pa.Table) -> list[int]:
     ]
 
 
-def _bare_digests(written: Path) -> list[int]:
-    """MD5 (RFC 1321, Python's hashlib) of DuckDB 1.2's text of each row, little-endian."""
-    return [
-        int.from_bytes(hashlib.md5(BARE_TEXT[p].encode()).digest(), "little")
-        for p in _positions(pq.read_table(written))
-    ]
-
-
 #: Run 1's rows in the identity file (commit time, id, name, fee, weight), by position.
 ROWS = {
     0x0A: ("2026-03-01 10:00:00+00", 1, "a", "1.50", 0.1),
@@ -157,7 +135,7 @@ def _engine_digests(written: Path) -> list[int]:
     return [int(con.execute(sql, list(ROWS[p])).fetchone()[0]) for p in _positions(pq.read_table(written))]  # type: ignore[index]
 
 
-@pytest.mark.parametrize("older", ["format 1", "format 2", "format 2 of DuckDB 1.2"])
+@pytest.mark.parametrize("older", ["format 1", "format 2"])
 def test_an_area_of_an_older_index_format_continues_as_one_of_format_3(tmp_path: Path, older: str) -> None:
     new, old = tmp_path / "new", tmp_path / "old"
     for base in (new, old):
@@ -170,9 +148,7 @@ def test_an_area_of_an_older_index_format_continues_as_one_of_format_3(tmp_path:
     if older == "format 1":
         table = _format_1(written, replaced.stem)
     else:
-        table = _format_2(
-            replaced, _engine_digests(replaced) if older == "format 2" else _bare_digests(replaced)
-        )
+        table = _format_2(replaced, _engine_digests(replaced))
     pq.write_table(table, replaced)
 
     for base in (new, old):

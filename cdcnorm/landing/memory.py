@@ -13,7 +13,7 @@ only the positions a run can meet skips most of a long history.
   halves too, ``__pos_hi``/``__pos_lo`` (Parquet has no 128-bit integers; the
   halves sort as the key does); another key is stored as its normalised text.
   Formats 1 and 2 (written before, still read) hold the older digest, the MD5
-  of the engine's text of the row (``Plan.legacy_contents``): format 2 has the
+  of the engine's text of the row (``Plan.legacy_content``): format 2 has the
   layout of format 3 with ``__digest_hi``/``__digest_lo``; format 1 holds every
   key as normalised text and the digest as 32 hex digits in ``__hash``. A
   repeat of an identity from those files is compared with the older digest, so

@@ -66,9 +66,8 @@ def dedupe_rows(plan: Plan) -> Plan:
     earlier_cols = ", ".join(["__pos", "__seq", "__act", *keys])
     carried_cols = ", ".join(["__pos", "__seq", "'before' AS __act", *keys])  # carried rows are before-images
     seen_on = " AND ".join(f"o.{c} = e.{c}" for c in ["__pos", "__seq", "__act", *keys])
-    # identities from index formats 1 and 2 hold the older digest (see Plan.legacy_contents)
-    legacy = ", ".join(plan.legacy_contents("o."))
-    same = f"CASE WHEN e.__legacy THEN e.__hash IN ({legacy}) ELSE e.__hash = {plan.content('o.')} END"
+    # identities from index formats 1 and 2 hold the older digest (see Plan.legacy_content)
+    same = f"e.__hash = CASE WHEN e.__legacy THEN {plan.legacy_content('o.')} ELSE {plan.content('o.')} END"
     plan = plan.add(
         "dedupe",
         "seen",

@@ -54,25 +54,22 @@ def test_every_plan_step_transpiles(tmp_path: Path, dialect: str) -> None:
 
 
 def test_the_engine_reads_hex_keys_wider_than_64_bits() -> None:
-    """What the oldest DuckDB the plans need (OLDEST_DUCKDB) is for: DuckDB 1.5.6 gave NULL for
+    """What DuckDB 2.0 is needed for (OLDEST_DUCKDB): DuckDB 1.3.2, 1.4.1 and 1.5.6 gave NULL for
     these (measured), and every hex position would have been refused."""
     engine = DuckDBEngine()
     (row,) = engine.rows(f"SELECT {HEX_KEY}(repeat('f', 32)), {HEX_KEY}('1' || repeat('0', 16))")
     assert row == (2**128 - 1, 1 << 64)  # Python's own integers
 
 
-@pytest.mark.parametrize("version", ["1.2.2", "1.5.6", "1.10.0"])
+@pytest.mark.parametrize("version", ["1.2.2", "1.5.6", "1.10.0", "2.0.0"])
 def test_an_older_duckdb_is_refused_by_name(version: str) -> None:
     with pytest.raises(CdcnormError) as caught:
         check_version(version)
     message = str(caught.value)
-    assert (
-        "needs DuckDB 2.0 or later" in message
-        and version in message
-        and "pip install 'duckdb>=2.0'" in message
-    )
+    assert "needs DuckDB 2.0.1 or later" in message and version in message
+    assert "pip install 'duckdb>=2.0.1'" in message
 
 
-@pytest.mark.parametrize("version", ["2.0.0", "2.0.1", "2.1.0.dev12", "10.0.0"])
-def test_duckdb_2_or_later_is_taken(version: str) -> None:
+@pytest.mark.parametrize("version", ["2.0.1", "2.0.2", "2.1.0.dev12", "10.0.0"])
+def test_duckdb_2_0_1_or_later_is_taken(version: str) -> None:
     check_version(version)

@@ -73,3 +73,18 @@ def test_an_older_duckdb_is_refused_by_name(version: str) -> None:
 @pytest.mark.parametrize("version", ["2.0.1", "2.0.2", "2.1.0.dev12", "10.0.0"])
 def test_duckdb_2_0_1_or_later_is_taken(version: str) -> None:
     check_version(version)
+
+
+@pytest.mark.parametrize("version", ["29.0.1", "30.0.0", "30.24.0"])
+def test_an_older_sqlglot_is_refused_by_name(version: str) -> None:
+    """sqlglot 30.24 still wrote DuckDB lambdas as ``x -> ...`` (measured), which DuckDB 2 refuses."""
+    with pytest.raises(CdcnormError) as caught:
+        check_version("2.0.1", version)
+    assert "needs sqlglot 30.25.0 or later" in str(caught.value) and version in str(caught.value)
+
+
+def test_the_plans_lambdas_are_written_as_duckdb_2_takes_them() -> None:
+    """What sqlglot 30.25 is needed for: the plan dialect's arrow lambda, in DuckDB's SQL."""
+    expression = sqlglot.parse_one("SELECT list_filter([1, NULL, 2], x -> x IS NOT NULL)", read="duckdb")
+    assert "->" not in expression.sql("duckdb")
+    assert DuckDBEngine().rows(expression) == [([1, 2],)]

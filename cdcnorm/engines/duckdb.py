@@ -12,6 +12,7 @@ import json
 import os
 import secrets
 from collections.abc import Iterator
+from importlib import metadata
 from pathlib import Path
 from typing import Any
 
@@ -43,17 +44,32 @@ ENGINE_FLOOR = 64 << 20
 OLDEST_DUCKDB = (2, 0, 1)
 
 
-def check_version(version: str = duckdb.__version__) -> None:
-    """Refuse a DuckDB older than OLDEST_DUCKDB, by name, before any plan runs on it."""
-    numbers = tuple(int(x) for x in version.split(".")[:3] if x.isdigit())
-    if numbers < OLDEST_DUCKDB:
-        oldest = ".".join(map(str, OLDEST_DUCKDB))
-        raise CdcnormError(
-            f"cdcnorm needs DuckDB {oldest} or later; this Python has DuckDB {version}",
-            expected=f"duckdb {oldest} or later",
-            found=version,
-            hint=f"pip install 'duckdb>={oldest}'",
-        )
+#: The oldest sqlglot whose DuckDB SQL DuckDB 2 takes: before 30.25 it writes lambdas with the
+#: arrow DuckDB 2 refuses (``x -> ...``), and every plan step with one failed.
+OLDEST_SQLGLOT = (30, 25, 0)
+
+
+def _numbers(version: str) -> tuple[int, ...]:
+    return tuple(int(x) for x in version.split(".")[:3] if x.isdigit())
+
+
+def check_version(version: str = duckdb.__version__, sqlglot_version: str | None = None) -> None:
+    """Refuse a DuckDB older than OLDEST_DUCKDB (or a sqlglot older than OLDEST_SQLGLOT), by
+    name, before any plan runs on it."""
+    if sqlglot_version is None:
+        sqlglot_version = metadata.version("sqlglot")
+    for package, found, oldest in (
+        ("DuckDB", version, OLDEST_DUCKDB),
+        ("sqlglot", sqlglot_version, OLDEST_SQLGLOT),
+    ):
+        if _numbers(found) < oldest:
+            needed = ".".join(map(str, oldest))
+            raise CdcnormError(
+                f"cdcnorm needs {package} {needed} or later; this Python has {package} {found}",
+                expected=f"{package.lower()} {needed} or later",
+                found=found,
+                hint=f"pip install '{package.lower()}>={needed}'",
+            )
 
 
 #: The engine memory each thread needs when --threads is not given: fewer threads are used under

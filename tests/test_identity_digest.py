@@ -174,24 +174,10 @@ def test_stored_digests_of_the_other_types(convert: ConvertFn) -> None:
     assert _stored(done.out, "t.digest2") == {f"{p:020d}": digest(v) for p, v in expected.items()}
 
 
-PROPERTY_MAPPING = """
-table: t.prop
-files: ["p*"]
-key: [id]
-change:
-  action: {column: op, codes: {I: insert}}
-  position: {column: pos, kind: integer}
-  committed_at: {column: at}
-fields:
-  id: integer
-  name: text
-  fee: decimal(12,2)
-  weight: float
-  seen: timestamp
-  ok: boolean
-  day: date
-  blob: bytes
-"""
+#: the same table as MAPPING, with a date and a bytes field too
+PROPERTY_MAPPING = (
+    MAPPING.replace("t.digest", "t.prop").replace('["d*"]', '["p*"]') + "  day: date\n  blob: bytes\n"
+)
 
 _timestamps = st.datetimes(
     min_value=datetime(1, 1, 1), max_value=datetime(9999, 12, 31), timezones=st.just(UTC)

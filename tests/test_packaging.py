@@ -1,0 +1,49 @@
+"""The dependency ranges pyproject.toml declares are the ones the suite is run on: every lower bound
+is pinned in .ci/oldest.txt, which .ci/run installs to run the suite a second time. (Requirements
+are read with ``packaging``, the reference implementation of PEP 508 and PEP 440.)"""
+
+from __future__ import annotations
+
+import tomllib
+
+from packaging.requirements import Requirement
+from packaging.utils import canonicalize_name
+
+from tests.conftest import ROOT
+
+
+def _lower_bounds() -> dict[str, str]:
+    """{package: its lower bound} of every runtime dependency; each must have exactly one, ``>=``."""
+    project = tomllib.loads((ROOT / "pyproject.toml").read_text(encoding="utf-8"))["project"]
+    bounds = {}
+    for text in project["dependencies"]:
+        req = Requirement(text)
+        (spec,) = req.specifier
+        assert spec.operator == ">=", f"{text}: a lower bound only, so that the oldest can be tested"
+        bounds[canonicalize_name(req.name)] = spec.version
+        for extra in req.extras:  # psycopg[binary] brings psycopg-binary of the same version
+            bounds[canonicalize_name(f"{req.name}-{extra}")] = spec.version
+    return bounds
+
+
+def _pins() -> dict[str, str]:
+    pins = {}
+    for line in (ROOT / ".ci" / "oldest.txt").read_text(encoding="utf-8").splitlines():
+        if line.strip() and not line.startswith("#"):
+            req = Requirement(line)
+            (spec,) = req.specifier
+            assert spec.operator == "==", line
+            pins[canonicalize_name(req.name)] = spec.version
+    return pins
+
+
+def test_every_lower_bound_is_the_version_the_oldest_run_pins() -> None:
+    assert _pins() == _lower_bounds()
+
+
+def test_the_engine_refuses_what_pyproject_would_not_install() -> None:
+    from cdcnorm.engines.duckdb import OLDEST_DUCKDB, OLDEST_SQLGLOT
+
+    bounds = _lower_bounds()
+    assert bounds["duckdb"] == ".".join(map(str, OLDEST_DUCKDB))
+    assert bounds["sqlglot"] == ".".join(map(str, OLDEST_SQLGLOT))

@@ -10,10 +10,11 @@ into its normalised text (one case, one width; a text kind as the hex of its
 UTF-8 bytes), so plain byte-wise comparison of ``position`` is the change order
 too.
 
-The SQL here is engine-neutral but for one plan function, ``plan_hex_key(digits)``
-(at most 32 hex digits -> a 128-bit key whose order is the number's, and whose
-``hex`` gives the digits back): each engine adapter defines it (``engines/``),
-as an unsigned 128-bit integer on DuckDB and as 16 bytes on Spark.
+The SQL here is engine-neutral but for two plan functions each engine adapter
+defines (``engines/``): ``plan_hex_key(digits)`` (at most 32 hex digits -> a
+128-bit key whose order is the number's: an unsigned 128-bit integer on DuckDB,
+16 bytes on Spark) and ``plan_hex_digits(key, width)`` (the last ``width`` of the
+key's 32 upper-case hex digits, leading zeros kept).
 """
 
 from __future__ import annotations
@@ -27,6 +28,8 @@ INTEGER_MAX = str((1 << 64) - 1)
 INTEGER_KEY_TYPE = f"DECIMAL({INTEGER_WIDTH}, 0)"
 #: The plan function each engine adapter defines: hex digits -> a 128-bit key.
 HEX_KEY = "plan_hex_key"
+#: ... and its inverse: a 128-bit key -> its last ``width`` hex digits (upper case, zero-padded).
+HEX_DIGITS = "plan_hex_digits"
 #: The sequence key of a table without a sequence: one constant, of the integer key's type.
 NO_SEQUENCE = f"CAST(0 AS {INTEGER_KEY_TYPE})"
 HEX = "'(0[xX])?[0-9A-Fa-f]+'"
@@ -51,7 +54,7 @@ def integer_text(k: str) -> str:
 
 def _fixed_hex(k: str, width: int) -> str:
     """SQL: the last ``width`` of the 32 hex digits of a 128-bit key (upper case)."""
-    return f"right(lpad(hex({k}), {NUMERIC_HEX_DIGITS}, '0'), {width})"
+    return f"{HEX_DIGITS}({k}, {width})"
 
 
 def hex_key(x: str, width: int) -> str:

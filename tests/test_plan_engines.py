@@ -17,7 +17,7 @@ from cdcnorm.engines.duckdb import DuckDBEngine, check_version
 from cdcnorm.errors import CdcnormError
 from cdcnorm.mapping import load_mappings
 from cdcnorm.pipeline import Options, compile_table, expand_inputs, read_all, route
-from cdcnorm.positions import HEX_KEY
+from cdcnorm.positions import HEX_DIGITS, HEX_KEY
 from tests.conftest import ROOT
 
 
@@ -49,6 +49,7 @@ def test_every_plan_step_transpiles(tmp_path: Path, dialect: str) -> None:
                 for name in ("REGEXP_FULL_MATCH", "MD5_NUMBER", "EPOCH_US", "UBIGINT", "UHUGEINT", "UINT128"):
                     assert name not in text.upper(), (table, step.name, name)
                 assert HEX_KEY.upper() not in text.upper(), (table, step.name)
+                assert HEX_DIGITS.upper() not in text.upper(), (table, step.name)
             steps += 1
     assert steps >= 40
 
@@ -59,6 +60,26 @@ def test_the_engine_reads_hex_keys_wider_than_64_bits() -> None:
     engine = DuckDBEngine()
     (row,) = engine.rows(f"SELECT {HEX_KEY}(repeat('f', 32)), {HEX_KEY}('1' || repeat('0', 16))")
     assert row == (2**128 - 1, 1 << 64)  # Python's own integers
+
+
+@pytest.mark.parametrize("width", [1, 8, 16, 20, 31, 32])
+def test_a_hex_key_gives_back_its_last_digits_with_leading_zeros(width: int) -> None:
+    """``plan_hex_digits`` against Python's own formatting (``format(k, "032X")``): the engine's
+    shortcut below 32 digits must keep every leading zero and drop nothing."""
+    engine = DuckDBEngine()
+    keys = [
+        0,
+        1,
+        15,
+        16,
+        (1 << (4 * width)) - 1,
+        1 << (4 * width - 1),
+        2**128 - 1,
+        0x0123456789ABCDEF0FEDCBA987654321,
+    ]
+    listed = ", ".join(f"(CAST('{k}' AS UHUGEINT))" for k in keys)
+    got = engine.rows(f"SELECT {HEX_DIGITS}(k, {width}) FROM (VALUES {listed}) v(k)")
+    assert [g for (g,) in got] == [format(k, "032X")[-width:] for k in keys]
 
 
 @pytest.mark.parametrize("version", ["1.2.2", "1.5.6", "1.10.0", "2.0.0"])

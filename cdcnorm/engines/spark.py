@@ -4,8 +4,9 @@ A plan is written once (sqlglot expressions in the plan dialect, see ``sql.py``)
 sqlglot's transpiler turns most of it into Spark SQL. What it cannot know is
 here, as rewrites of the expression tree before rendering:
 
-- the plan's own functions (``positions.HEX_KEY``): a 128-bit key is 16 bytes
-  on Spark (``unhex`` of the 32 digits; binary order is the number's order);
+- the plan's own functions (``positions.HEX_KEY``, ``positions.HEX_DIGITS``): a
+  128-bit key is 16 bytes on Spark (``unhex`` of the 32 digits; binary order is
+  the number's order), and its digits are the last ones of its ``hex``;
 - DuckDB's functions without a Spark spelling in sqlglot: ``regexp_full_match``
   (an anchored ``RLIKE``), ``md5_number`` (the 16 bytes of ``md5``),
   ``epoch_us`` (``unix_micros``), ``isinf``, and ``strftime`` (``date_format``, its text
@@ -30,7 +31,7 @@ import sqlglot
 from sqlglot import exp
 
 from cdcnorm.errors import CdcnormError
-from cdcnorm.positions import HEX_KEY, NUMERIC_HEX_DIGITS
+from cdcnorm.positions import HEX_DIGITS, HEX_KEY, NUMERIC_HEX_DIGITS
 from cdcnorm.sql import PLAN_DIALECT
 
 if TYPE_CHECKING:
@@ -96,6 +97,8 @@ def _rewrite(node: exp.Expr) -> exp.Expr:
         trimmed = exp.func("ltrim", args[0], exp.Literal.string("0"))
         digits = exp.func("lpad", trimmed, exp.Literal.number(NUMERIC_HEX_DIGITS), exp.Literal.string("0"))
         return exp.Unhex(this=digits)
+    if name == HEX_DIGITS.upper():  # the hex of 16 bytes has every one of its 32 digits
+        return exp.func("right", exp.Hex(this=args[0]), args[1])
     if isinstance(node, exp.TimeToStr) and isinstance(node.args.get("format"), exp.Literal):
         pattern = exp.Literal.string(_datetime_pattern(node.args["format"].this))
         return exp.Anonymous(this="date_format", expressions=[_inner(node.this), pattern])

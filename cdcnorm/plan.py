@@ -16,6 +16,10 @@ from sqlglot import exp
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.sql import PLAN_DIALECT, ident
 
+#: The identity index format this version writes (``Plan.content`` is its digest; the landing
+#: area's files are described in ``landing/memory.py``).
+INDEX_FORMAT = 4
+
 
 @dataclass(frozen=True)
 class Source:
@@ -77,7 +81,7 @@ class Plan:
             out[f"v{i}"] = ftype.sql_type
         return out
 
-    def content(self, prefix: str = "") -> str:
+    def content(self, prefix: str = "", *, format_3: bool = False) -> str:
         """SQL: the 128-bit digest of a row's content (commit time and every value), to tell a
         repeat of an identity that an earlier run emitted from a conflicting version.
 
@@ -85,22 +89,35 @@ class Plan:
         byte most significant), defined here rather than by any engine's text of a row, so it stays
         the same across engine versions: the commit time and then each field in the mapping's order,
         each value's canonical text (``FieldType.canonical``: its JSON form; a timestamp's
-        microseconds since the epoch) written as ``<n>:<text>`` (``n`` its length in characters)
-        for text and json, whose text may hold anything, or as ``<text>;`` for any other type,
-        whose text never holds a ``;``; NULL is a lone ``;``. No two rows share a canonical text.
-        Index format 3 stores it."""
+        microseconds since the epoch; an empty bytes value ``=``, which no base64 text is) written
+        as ``<n>:<text>`` (``n`` its length in characters) for text and json, whose text may hold
+        anything, or as ``<text>;`` for any other type, whose text is never empty and never holds a
+        ``;``; NULL is a lone ``;``. No two rows share a canonical text. Index format 4 stores it.
+
+        ``format_3``: the digest index format 3 stored, which wrote an empty bytes value as
+        nothing, the same text as NULL (a repeat of its identities is compared with it)."""
         from cdcnorm.positions import HEX_KEY
         from cdcnorm.types.timestamp import timestamp_canonical
 
         parts = [f"coalesce({timestamp_canonical(f'{prefix}__cat')} || ';', ';')"]
         for i, ftype in enumerate(self.mapping.field_types.values()):
-            text = ftype.canonical(f"{prefix}v{i}")
+            v = f"{prefix}v{i}"
+            text = (
+                f"CAST({ftype.render(v)} AS VARCHAR)"
+                if format_3 and ftype.name == "bytes"
+                else ftype.canonical(v)
+            )
             if ftype.free_text:
                 parts.append(f"coalesce(CAST(length({text}) AS VARCHAR) || ':' || {text}, ';')")
             else:
                 parts.append(f"coalesce({text} || ';', ';')")
         # the 32 hex digits read as one number: the digest's bytes in order (most significant first)
         return f"{HEX_KEY}(md5({' || '.join(parts)}))"
+
+    def content_changed_since_format_3(self) -> bool:
+        """Whether ``content`` differs from the digest of index format 3 for some row of this table
+        (only a bytes field's empty value is written differently)."""
+        return any(t.name == "bytes" for t in self.mapping.field_types.values())
 
     def legacy_content(self, prefix: str = "") -> str:
         """SQL: the digest index formats 1 and 2 stored: the MD5 of the running engine's text of the

@@ -1,8 +1,9 @@
 """The identity index's content digest (``Plan.content``) is stored in landing areas and compared by
 every later run, so it is defined by the project, not by an engine's text of a row: the MD5 (RFC
 1321, here Python's ``hashlib``) of the row's canonical text: for the commit time and each field in
-order, the value's JSON form (a timestamp: its microseconds since the epoch) as ``<n>:<text>`` for
-text and json (``n`` its length in characters), ``<text>;`` for any other type, and ``;`` for NULL.
+order, the value's JSON form (a timestamp: its microseconds since the epoch; an empty bytes value
+``=``) as ``<n>:<text>`` for text and json (``n`` its length in characters), ``<text>;`` for any
+other type, and ``;`` for NULL.
 
 These tests compute that text from Python's own values (``decimal``, ``datetime``, ``base64`` per
 RFC 4648, ``uuid`` per RFC 9562, ``repr`` of a float) and compare its MD5 with the digests a run
@@ -19,19 +20,21 @@ from decimal import Decimal
 from pathlib import Path
 from typing import Any
 
+import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from tests.conftest import ConvertFn, run_files
+from tests.conftest import ConvertFn, cli, last_run, run_files
 
 EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 
 
-def canonical(value: Any) -> str:
+def canonical(value: Any, *, format_3: bool = False) -> str:
     """A value's canonical text, from Python's values (not the engine's): ``<n>:<text>`` for a text
-    (text and json fields), ``<text>;`` for any other value, ``;`` for NULL."""
+    (text and json fields), ``<text>;`` for any other value, ``;`` for NULL. ``format_3``: as index
+    format 3 wrote it (an empty bytes value as nothing, the same as NULL)."""
     if value is None:
         return ";"
     if isinstance(value, str):
@@ -49,24 +52,25 @@ def canonical(value: Any) -> str:
     elif isinstance(value, time):  # HH:MM:SS and a fraction without trailing zeros
         text = value.isoformat()
         text = text.rstrip("0").rstrip(".") if "." in text else text
-    elif isinstance(value, bytes):
-        text = base64.b64encode(value).decode()
+    elif isinstance(value, bytes):  # RFC 4648 section 4; '=' alone is no base64 text
+        text = base64.b64encode(value).decode() or ("" if format_3 else "=")
     elif isinstance(value, uuid.UUID):
         text = str(value)
     else:
         text = str(value)
-    assert ";" not in text
+    assert ";" not in text and (text or format_3)
     return f"{text};"
 
 
-def digest(values: list[Any]) -> str:
+def digest(values: list[Any], *, format_3: bool = False) -> str:
     """The content digest as 32 hex digits: MD5 (RFC 1321) of the canonical texts joined."""
-    return hashlib.md5("".join(canonical(v) for v in values).encode()).hexdigest().upper()
+    text = "".join(canonical(v, format_3=format_3) for v in values)
+    return hashlib.md5(text.encode()).hexdigest().upper()
 
 
 def _stored(out: Path, table: str, key: str = "__pos") -> dict[Any, str]:
-    """{position or key: digest as 32 hex digits} of the run's identity file (index format 3)."""
-    (index,) = run_files(out, "index/emitted", table)
+    """{position or key: digest as 32 hex digits} of the first run's identity file."""
+    index = run_files(out, "index/emitted", table)[0]
     rows = pq.read_table(index).to_pylist()
     return {r[key]: f"{r['__content_hi'] << 64 | r['__content_lo']:032X}" for r in rows}
 
@@ -234,3 +238,84 @@ def test_texts_that_look_like_the_framing_do_not_collide(convert: ConvertFn, nam
     stored = _stored(done.out, "t.digest")
     assert len(set(stored.values())) == 2
     assert stored[f"{1:020d}"] == digest([None, 1, name, None, None, None, None])
+
+
+BLOB_MAPPING = """\
+table: t.blob
+files: ["b*"]
+key: [id]
+change:
+  action: {column: op, codes: {I: insert}}
+  position: {column: pos, kind: integer}
+fields:
+  id: integer
+  blob: bytes
+"""
+
+
+def _run(base: Path, name: str, dump: str) -> dict[str, Any]:
+    """Convert one delivery into the landing area ``base / "out"``; the run's ledger total."""
+    (base / "m").mkdir(parents=True, exist_ok=True)
+    (base / "m" / "t.yaml").write_text(BLOB_MAPPING)
+    (base / name).write_text(dump)
+    assert (
+        cli("convert", str(base / name), "--mappings", str(base / "m"), "--out", str(base / "out"), "--quiet")
+        == 0
+    )
+    total: dict[str, Any] = last_run(base / "out")["ledger"]["total"]
+    return total
+
+
+#: an empty bytes value (quoted empty hex) at position 1, NULL (unquoted empty) at position 2
+BLOBS = 'op,pos,id,blob\nI,1,1,""\nI,2,2,\n'
+#: the same rows in other bytes (a file already read is skipped whole)
+BLOBS_AGAIN = BLOBS.replace("\n", "\r\n")
+
+
+def test_an_empty_bytes_value_and_null_are_different_content(tmp_path: Path) -> None:
+    """The same identity delivered again with NULL where it had an empty bytes value (and the other
+    way round) is a conflicting version, not a duplicate; the same values again are duplicates."""
+    assert _run(tmp_path, "b1.csv", BLOBS)["emitted"] == 2
+    again = _run(tmp_path, "b2.csv", BLOBS_AGAIN)
+    assert (again["duplicate"], again["quarantined"]) == (2, 0)
+    swapped = _run(tmp_path, "b3.csv", 'op,pos,id,blob\nI,1,1,\nI,2,2,""\n')
+    assert (swapped["duplicate"], swapped["quarantined"]) == (0, 2)
+    stored = _stored(tmp_path / "out", "t.blob")
+    assert stored[f"{1:020d}"] == digest([None, 1, b""]) != digest([None, 1, None])
+
+
+def test_an_area_of_index_format_3_keeps_its_empty_bytes_values_apart(tmp_path: Path) -> None:
+    """Format 3 stored an empty bytes value's digest as NULL's: an area whose run 1 wrote format 3
+    sees the same delivery again as duplicates (compared with format 3's digest), not conflicts."""
+    assert _run(tmp_path, "b1.csv", BLOBS)["emitted"] == 2
+    (written,) = run_files(tmp_path / "out", "index/emitted", "t.blob")
+    table = pq.read_table(written)
+    assert table.schema.metadata == {b"cdcnorm_index_format": b"4"}
+    old = [
+        int(digest([None, i, b"" if i == 1 else None], format_3=True), 16) for i in table["v0"].to_pylist()
+    ]
+    assert digest([None, 1, b""], format_3=True) == digest([None, 1, None], format_3=True)  # as format 3 did
+    for name, values in (
+        ("__content_hi", [d >> 64 for d in old]),
+        ("__content_lo", [d & (2**64 - 1) for d in old]),
+    ):
+        table = table.set_column(table.column_names.index(name), name, pa.array(values, pa.uint64()))
+    pq.write_table(table.replace_schema_metadata(None), written)  # format 3 files state no format
+    again = _run(tmp_path, "b2.csv", BLOBS_AGAIN)
+    assert (again["duplicate"], again["quarantined"]) == (2, 0)
+
+
+def test_an_identity_file_of_a_later_format_is_refused_by_name(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    _run(tmp_path, "b1.csv", BLOBS)
+    (written,) = run_files(tmp_path / "out", "index/emitted", "t.blob")
+    table = pq.read_table(written)
+    pq.write_table(table.replace_schema_metadata({"cdcnorm_index_format": "5"}), written)
+    (tmp_path / "b2.csv").write_text(BLOBS_AGAIN)
+    code = cli(
+        "convert", str(tmp_path / "b2.csv"), "--mappings", str(tmp_path / "m"), "--out", str(tmp_path / "out")
+    )
+    err = capsys.readouterr().err
+    assert code == 4 and "Traceback" not in err  # EXIT_INPUT
+    assert f"{written}: identity file of index format 5, which this version of cdcnorm does not read" in err

@@ -5,18 +5,22 @@ never loaded into Python. Identity files are sorted by position, so reading
 only the positions a run can meet skips most of a long history.
 
 - ``index/emitted/<table>/<run>.parquet``: the identities a run emitted or
-  merged. Format 3 (``__content_hi`` marks it): ``__pos`` and ``__seq``, the
-  key fields, ``__act``, ``__content_hi`` and ``__content_lo`` (the 128-bit
-  content digest, ``Plan.content``, as two unsigned 64-bit halves), ``__run``,
-  ``__unpaired`` (an after-image emitted without its before-image). A 128-bit
-  position or sequence key (hex, hex-pair) is stored as two unsigned 64-bit
-  halves too, ``__pos_hi``/``__pos_lo`` (Parquet has no 128-bit integers; the
-  halves sort as the key does); another key is stored as its normalised text.
-  Formats 1 and 2 (written before, still read) hold the older digest, the MD5
-  of the engine's text of the row (``Plan.legacy_content``): format 2 has the
-  layout of format 3 with ``__digest_hi``/``__digest_lo``; format 1 holds every
-  key as normalised text and the digest as 32 hex digits in ``__hash``. A
-  repeat of an identity from those files is compared with the older digest, so
+  merged. Format 4 (the file's key-value metadata ``cdcnorm_index_format``
+  says ``4``): ``__pos`` and ``__seq``, the key fields, ``__act``,
+  ``__content_hi`` and ``__content_lo`` (the 128-bit content digest,
+  ``Plan.content``, as two unsigned 64-bit halves), ``__run``, ``__unpaired``
+  (an after-image emitted without its before-image). A 128-bit position or
+  sequence key (hex, hex-pair) is stored as two unsigned 64-bit halves too,
+  ``__pos_hi``/``__pos_lo`` (Parquet has no 128-bit integers; the halves sort
+  as the key does); another key is stored as its normalised text.
+  Older formats, written before and still read, state no format: format 3
+  (``__content_hi`` marks it) has format 4's layout and digest, except that an
+  empty bytes value was digested as NULL (``Plan.content(format_3=True)``);
+  formats 1 and 2 hold the older digest, the MD5 of the engine's text of the
+  row (``Plan.legacy_content``): format 2 has the layout of format 3 with
+  ``__digest_hi``/``__digest_lo``; format 1 holds every key as normalised text
+  and the digest as 32 hex digits in ``__hash``. A repeat of an identity from a
+  file of an older format is compared with the digest that format stored, so
   an area written by any format continues the same way.
 - ``index/pending/<table>/<run>.parquet``: every before-image waiting after
   that run (carried ones included): origin ``__name`` and ``__row``, the typed
@@ -31,7 +35,8 @@ from pathlib import Path
 
 from cdcnorm import positions
 from cdcnorm.engines.duckdb import DuckDBEngine
-from cdcnorm.plan import Plan
+from cdcnorm.errors import InputError
+from cdcnorm.plan import INDEX_FORMAT, Plan
 from cdcnorm.sql import ident, lit
 
 
@@ -63,8 +68,11 @@ def _restore(plan: Plan, col: str, name: str) -> str:
 
 #: What a format 2 identity file has that a format 1 file has not.
 FORMAT_2_MARK = "__digest_hi"
-#: What a format 3 identity file has that the others have not.
+#: What a format 3 identity file has that formats 1 and 2 have not (format 4 has it too).
 FORMAT_3_MARK = "__content_hi"
+#: The key of the identity files' key-value metadata that says their format (``INDEX_FORMAT``,
+#: format 4 on; older files have none).
+FORMAT_KEY = "cdcnorm_index_format"
 _LOW64 = f"CAST({(1 << 64) - 1} AS UHUGEINT)"
 
 
@@ -102,7 +110,7 @@ def earlier_columns(plan: Plan) -> dict[str, str]:
     types = plan.types()
     cols = {"__pos": types["__pos"], "__seq": types["__seq"], "__act": "VARCHAR"}
     cols.update({f"v{i}": types[f"v{i}"] for i in plan.key_index})
-    cols.update({"__hash": "UHUGEINT", "__legacy": "BOOLEAN", "__run": "VARCHAR", "__unpaired": "BOOLEAN"})
+    cols.update({"__hash": "UHUGEINT", "__format": "INTEGER", "__run": "VARCHAR", "__unpaired": "BOOLEAN"})
     return cols
 
 
@@ -159,16 +167,34 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
             f"WHERE name IN ({lit(FORMAT_2_MARK)}, {lit(FORMAT_3_MARK)})"
         )
     }
+    stated = {
+        str(f): str(v)
+        for f, v in engine.rows(
+            f"SELECT file_name, decode(value) FROM parquet_kv_metadata([{', '.join(names)}]) "
+            f"WHERE decode(key) = {lit(FORMAT_KEY)}"
+        )
+    }
+    for f, v in stated.items():
+        if v != str(INDEX_FORMAT):
+            raise InputError(
+                f"{f}: identity file of index format {v}, which this version of cdcnorm does not read",
+                file=f,
+                expected=f"index format {INDEX_FORMAT} or older",
+                found=f"index format {v}",
+                hint="continue this landing area with the version of cdcnorm that wrote it, or a later one",
+            )
     parts = []
-    for fmt in (1, 2, 3):
-        group = [f for f in files if _format(marks, str(f)) == fmt]
+    for fmt in (1, 2, 3, 4):
+        group = [f for f in files if _format(marks, stated, str(f)) == fmt]
         if group:
             parts.append(_earlier_rows(plan, fmt, group, lo_key, hi_key))
     engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {' UNION ALL '.join(parts)}")
 
 
-def _format(marks: set[tuple[str, str]], file: str) -> int:
-    """The index format of an identity file, from the marks its columns carry."""
+def _format(marks: set[tuple[str, str]], stated: dict[str, str], file: str) -> int:
+    """The index format of an identity file: what its metadata says, or the marks its columns carry."""
+    if file in stated:
+        return int(stated[file])
     if (file, FORMAT_3_MARK) in marks:
         return 3
     return 2 if (file, FORMAT_2_MARK) in marks else 1
@@ -181,14 +207,14 @@ def _earlier_rows(plan: Plan, fmt: int, files: list[Path], lo: str, hi: str) -> 
     keys = {}
     for c in ("__pos", "__seq"):
         keys[c] = joined(c) if fmt >= 2 and _wide(plan, c) else _restore(plan, c, c)
-    digest = {1: f"{positions.HEX_KEY}(__hash)", 2: joined("__digest"), 3: joined("__content")}[fmt]
+    digest = {1: f"{positions.HEX_KEY}(__hash)", 2: joined("__digest")}.get(fmt, joined("__content"))
     cols = [
         f"{keys['__pos']} AS __pos",
         f"{keys['__seq']} AS __seq",
         "__act",
         *(f"CAST(v{i} AS {types[f'v{i}']}) AS v{i}" for i in plan.key_index),
         f"{digest} AS __hash",
-        f"{'false' if fmt == 3 else 'true'} AS __legacy",
+        f"{fmt} AS __format",
         "__run",
         "__unpaired",
     ]
@@ -201,7 +227,7 @@ def _earlier_rows(plan: Plan, fmt: int, files: list[Path], lo: str, hi: str) -> 
 
 
 def write_emitted(engine: DuckDBEngine, plan: Plan, path: Path, run: str) -> None:
-    """The identities this run settled for good (format 3): every kept row (carried ones included)
+    """The identities this run settled for good (format 4): every kept row (carried ones included)
     except the before-images left waiting; an after-image emitted without its before-image is marked."""
     paired = plan.mapping.mapping.change.updates == "paired"
     kept, waiting, pairs = plan.rel("kept"), plan.rel("waiting"), plan.rel("pairs")
@@ -225,7 +251,8 @@ def write_emitted(engine: DuckDBEngine, plan: Plan, path: Path, run: str) -> Non
         "WHERE NOT w.__settled AND w.__file = k.__file AND w.__row = k.__row) ORDER BY k.__pos, k.__seq"
     )
     path.parent.mkdir(parents=True, exist_ok=True)
-    engine.execute(f"COPY ({sql}) TO {lit(str(path))} (FORMAT PARQUET)")
+    metadata = f"{{{FORMAT_KEY}: {lit(str(INDEX_FORMAT))}}}"
+    engine.execute(f"COPY ({sql}) TO {lit(str(path))} (FORMAT PARQUET, KV_METADATA {metadata})")
 
 
 def write_pending(engine: DuckDBEngine, plan: Plan, path: Path, run: str, raw_rows: str) -> int:

@@ -22,7 +22,7 @@ it is.
 
 from __future__ import annotations
 
-from cdcnorm.plan import Plan
+from cdcnorm.plan import INDEX_FORMAT, Plan
 
 
 def dedupe_rows(plan: Plan) -> Plan:
@@ -66,15 +66,25 @@ def dedupe_rows(plan: Plan) -> Plan:
     earlier_cols = ", ".join(["__pos", "__seq", "__act", *keys])
     carried_cols = ", ".join(["__pos", "__seq", "'before' AS __act", *keys])  # carried rows are before-images
     seen_on = " AND ".join(f"o.{c} = e.{c}" for c in ["__pos", "__seq", "__act", *keys])
-    # identities from index formats 1 and 2 hold the older digest (see Plan.legacy_content)
-    same = f"e.__hash = CASE WHEN e.__legacy THEN {plan.legacy_content('o.')} ELSE {plan.content('o.')} END"
+    # identities from an older index format hold the digest it stored: formats 1 and 2 the engine's
+    # text of the row (Plan.legacy_content), format 3 an empty bytes value as NULL's text
+    format_3 = (
+        f"WHEN e.__format = 3 THEN {plan.content('o.', format_3=True)} "
+        if plan.content_changed_since_format_3()
+        else ""
+    )
+    same = (
+        f"e.__hash = CASE WHEN e.__format <= 2 THEN {plan.legacy_content('o.')} {format_3}"
+        f"ELSE {plan.content('o.')} END"
+    )
     plan = plan.add(
         "dedupe",
         "seen",
         f"SELECT o.__file, o.__row, o.__act, bool_and({same}) AS __same, "
         f"min(e.__run) AS __earlier_run FROM {ordered} o JOIN ("
-        f"SELECT {earlier_cols}, __hash, __legacy, __run FROM {plan.rel('earlier')} UNION ALL "
-        f"SELECT {carried_cols}, {plan.content()} AS __hash, false, __run FROM {plan.rel('carried')}) e ON {seen_on} "
+        f"SELECT {earlier_cols}, __hash, __format, __run FROM {plan.rel('earlier')} UNION ALL "
+        f"SELECT {carried_cols}, {plan.content()} AS __hash, {INDEX_FORMAT}, __run FROM {plan.rel('carried')}) e "
+        f"ON {seen_on} "
         "GROUP BY o.__file, o.__row, o.__act",
         materialize=True,
     )

@@ -99,7 +99,10 @@ class Plan:
         from cdcnorm.positions import HEX_KEY
         from cdcnorm.types.timestamp import timestamp_canonical
 
-        parts = [f"coalesce({timestamp_canonical(f'{prefix}__cat')} || ';', ';')"]
+        # one concat_ws of every part, which skips a NULL part: a value's text and its ';' (NULL: the
+        # ';' alone), or a text's length, ':' (NULL: ';') and the text; a chain of || would copy the
+        # growing text at each step (0.1 s more per 1M rows)
+        parts = [timestamp_canonical(f"{prefix}__cat"), "';'"]
         for i, ftype in enumerate(self.mapping.field_types.values()):
             v = f"{prefix}v{i}"
             text = (
@@ -108,11 +111,16 @@ class Plan:
                 else ftype.canonical(v)
             )
             if ftype.free_text:
-                parts.append(f"coalesce(CAST(length({text}) AS VARCHAR) || ':' || {text}, ';')")
+                parts += [
+                    f"CAST(length({text}) AS VARCHAR)",
+                    f"CASE WHEN {text} IS NULL THEN ';' ELSE ':' END",
+                    text,
+                ]
             else:
-                parts.append(f"coalesce({text} || ';', ';')")
+                parts += [text, "';'"]
+        text = f"concat_ws('', {', '.join(parts)})"
         # the 32 hex digits read as one number: the digest's bytes in order (most significant first)
-        return f"{HEX_KEY}(md5({' || '.join(parts)}))"
+        return f"{HEX_KEY}(md5({text}))"
 
     def content_changed_since_format_3(self) -> bool:
         """Whether ``content`` differs from the digest of index format 3 for some row of this table

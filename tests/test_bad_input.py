@@ -9,7 +9,11 @@ from decimal import Decimal
 from pathlib import Path
 
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
+from cdcnorm.engines.duckdb import DuckDBEngine
+from cdcnorm.sql import lit
 from tests.conftest import ConvertFn, cli, last_run
 
 NOTES = """
@@ -334,6 +338,83 @@ def test_json_lines_records_that_are_not_rfc_8259_objects_are_quarantined(
     (q,) = done.quarantine("t.notes")
     assert q["_cdcnorm"]["text"] == line  # the record's raw text, exactly
     assert q["_cdcnorm"]["row"] == 2
+
+
+#: JSON Lines records whose strings hold what the lexical checks look for outside strings, next to
+#: escaped quotes and backslashes; and the same constructs outside strings. (valid?, line)
+ESCAPED = [
+    (True, r'{"op":"I","pos":"1","id":1,"a":"x\",}NaN"}'),
+    (True, r'{"op":"I","pos":"1","id":1,"a":"ends in a backslash \\"}'),
+    (True, r'{"op":"I","pos":"1","id":1,"a":"\\\" 1e5, Infinity ]"}'),
+    (True, r'{"op":"I","pos":"1","id":1,"a":"\u0022,}\\\\"}'),
+    (False, r'{"op":"I","pos":"1","id":1,"a":"\\",}'),
+    (False, r'{"op":"I","pos":"1","id":1,"a":"x\"","b":NaN}'),
+    (False, r'{"op":"I","pos":"1","id":1,"a":"\\\"",}'),
+]
+
+
+def _no_constant(name: str) -> object:
+    """Python's json accepts NaN and Infinity; RFC 8259 section 6 does not."""
+    raise ValueError(name)
+
+
+@pytest.mark.parametrize(("valid", "line"), ESCAPED)
+def test_json_lines_checks_read_outside_strings_whatever_they_escape(
+    convert: ConvertFn, valid: bool, line: str
+) -> None:
+    """Python's json module (RFC 8259, NaN aside) says which of these are JSON texts; the reader must
+    agree, and keep a valid one's string exactly."""
+    try:
+        expected = json.loads(line, parse_constant=_no_constant)
+    except ValueError:
+        expected = None
+    assert (expected is not None) == valid
+    mapping = NOTES.replace("TYPE", "text")
+    done = convert(mapping, {"n.jsonl": '{"op":"I","pos":"0","id":0,"a":"ok"}\n' + line + "\n"})
+    assert done.ledger()["balanced"]
+    if valid:
+        assert [e["values"]["a"] for e in done.events("t.notes")] == ["ok", expected["a"]]
+    else:
+        (q,) = done.quarantine("t.notes")
+        assert q["_cdcnorm"]["text"] == line
+
+
+def test_json_lines_blank_lines_are_not_records(convert: ConvertFn) -> None:
+    """A line of only tabs, spaces, form feeds and CRs is no record (and not counted); a vertical tab
+    or a no-break space is no JSON whitespace (RFC 8259 section 2), so that line is a malformed record."""
+    good = '{"op":"I","pos":"P","id":P,"a":"ok"}'
+    lines = [good.replace("P", "1"), "", " \t\f ", "\r", good.replace("P", "2"), "\v", "\u00a0"]
+    done = convert(NOTES.replace("TYPE", "text"), {"n.jsonl": "\n".join(lines) + "\n"})
+    ledger = done.ledger()
+    assert ledger["balanced"] and ledger["total"]["read"] == 4 and len(done.events("t.notes")) == 2
+    assert sorted(q["_cdcnorm"]["row"] for q in done.quarantine("t.notes")) == [6, 7]
+
+
+_json_strings = st.text(st.sampled_from('"\\,]}: aeN1u'), max_size=8)
+_json_values = st.recursive(
+    st.none()
+    | st.booleans()
+    | st.integers()
+    | st.floats(allow_nan=False, allow_infinity=False)
+    | _json_strings,
+    lambda inner: st.lists(inner, max_size=3) | st.dictionaries(_json_strings, inner, max_size=3),
+    max_leaves=8,
+)
+
+
+@settings(max_examples=200, deadline=None)
+@given(value=_json_values)
+def test_the_quick_outside_text_equals_the_regular_expression_on_json(value: object) -> None:
+    """On a JSON text (Python's json module writes it, RFC 8259), the reader's text outside strings
+    without a regular expression equals the regular expression's."""
+    from cdcnorm.types.json import outside_strings, outside_strings_of_valid
+
+    engine = DuckDBEngine()
+    text = json.dumps(value)
+    quick, regex, valid = engine.rows(
+        f"SELECT {outside_strings_of_valid('t')}, {outside_strings('t')}, json_valid(t) FROM (SELECT {lit(text)} AS t)"
+    )[0]
+    assert valid and quick == regex
 
 
 def test_nested_parquet_values_arrive_as_rfc_8259_json(convert: ConvertFn, tmp_path: Path) -> None:

@@ -439,7 +439,7 @@ class DuckDBEngine:
         not RFC 8259 JSON, not an object; blank lines are not records) and the JSON objects in
         ``ok`` (``__row``, ``j``). Returns the merged structure of the objects (JSON text)."""
         src = ident(lines)
-        from cdcnorm.types.json import outside_strings, rfc8259, risky_numbers, tag_numbers
+        from cdcnorm.types.json import outside_strings_of_valid, rfc8259, risky_numbers, tag_numbers
 
         # Every check once per line, into the lines' table (the malformed and the good lines are
         # then two filters of it): the text outside strings is computed once for both lexical
@@ -449,18 +449,17 @@ class DuckDBEngine:
             f"SELECT __row, rtrim(try(decode(raw)), chr(13)) AS line, raw FROM {src} "
             "WHERE NOT regexp_full_match(coalesce(try(decode(raw)), 'x'), '\\s*')"
         )
-        outside = f"SELECT *, {outside_strings('line')} AS outside FROM ({decoded})"
+        # read only where json_valid holds (rfc8259 and the risky numbers of the valid lines)
+        outside = f"SELECT *, {outside_strings_of_valid('line')} AS outside FROM ({decoded})"
         valid = f"coalesce({rfc8259('line', 'outside')}, FALSE)"
         strict = f"SELECT __row, line, raw, {valid} AS valid, {risky_numbers('line', 'outside')} AS risky FROM ({outside})"
         kind = f"SELECT *, CASE WHEN valid THEN json_type(line) END AS kind FROM ({strict})"
         # a repeated name at the top level would make its column ambiguous (nested values are
-        # kept as written; a json field checks its own)
-        repeated = (
-            "CASE WHEN kind = 'OBJECT' THEN len(json_keys(line)) <> len(list_distinct(json_keys(line))) END"
-        )
+        # kept as written; a json field checks its own); the names are parsed once
+        names = f"SELECT *, CASE WHEN kind = 'OBJECT' THEN json_keys(line) END AS names FROM ({kind})"
         self.con.execute(
-            f"CREATE OR REPLACE TEMP TABLE {ident(lines + '_text')} AS "
-            f"SELECT *, coalesce({repeated}, FALSE) AS repeated FROM ({kind})"
+            f"CREATE OR REPLACE TEMP TABLE {ident(lines + '_text')} AS SELECT * EXCLUDE (names), "
+            f"coalesce(len(names) <> len(list_distinct(names)), FALSE) AS repeated FROM ({names})"
         )
         text = ident(lines + "_text")
         self.con.execute(

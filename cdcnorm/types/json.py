@@ -29,6 +29,16 @@ def outside_strings(x: str) -> str:
     return f"regexp_replace({x}, '{STRING}', '\"\"', 'g')"
 
 
+def outside_strings_of_valid(x: str) -> str:
+    """SQL: ``outside_strings(x)`` for a text the engine's ``json_valid`` takes, at less than half
+    its cost (no regular expression): escaped backslashes and quotes, which a valid text has only
+    inside strings, are removed, and the text is cut at its quotes: every other piece is outside.
+    For any other text the result differs, and nothing may read it (``rfc8259`` requires both)."""
+    unescaped = f"replace(replace({x}, '\\\\', ''), '\\\"', '')"
+    pieces = f"string_split({unescaped}, '\"')"
+    return f"array_to_string(list_filter({pieces}, lambda piece, i: i % 2 = 1), '\"\"')"
+
+
 def trailing_comma(x: str, outside: str | None = None) -> str:
     """``outside``: SQL of ``outside_strings(x)`` already computed (the text is then not read)."""
     return f"regexp_matches({outside or outside_strings(x)}, ',\\s*[\\]}}]')"

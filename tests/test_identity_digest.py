@@ -240,17 +240,11 @@ def test_texts_that_look_like_the_framing_do_not_collide(convert: ConvertFn, nam
     assert stored[f"{1:020d}"] == digest([None, 1, name, None, None, None, None])
 
 
-BLOB_MAPPING = """\
-table: t.blob
-files: ["b*"]
-key: [id]
-change:
-  action: {column: op, codes: {I: insert}}
-  position: {column: pos, kind: integer}
-fields:
-  id: integer
-  blob: bytes
-"""
+#: OTHER_TYPES' table with its key and bytes field only
+BLOB_MAPPING = (
+    OTHER_TYPES.split("fields:")[0].replace("t.digest2", "t.blob").replace('["e*"]', '["b*"]')
+    + "fields:\n  id: integer\n  blob: bytes\n"
+)
 
 
 def _run(base: Path, name: str, dump: str) -> dict[str, Any]:

@@ -312,4 +312,7 @@ def test_an_identity_file_of_a_later_format_is_refused_by_name(
     )
     err = capsys.readouterr().err
     assert code == 4 and "Traceback" not in err  # EXIT_INPUT
-    assert f"{written}: identity file of index format 5, which this version of cdcnorm does not read" in err
+    flat = " ".join(err.split())  # the terminal's line breaks aside
+    said = f"{written}: identity file of index format 5, which this version of cdcnorm does not read"
+    assert f"{said} expected: index format 4 or older found: index format 5" in flat
+    assert flat.count(str(written)) == 1  # named once

@@ -177,7 +177,7 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
     for f, v in stated.items():
         if v != str(INDEX_FORMAT):
             raise InputError(
-                f"{f}: identity file of index format {v}, which this version of cdcnorm does not read",
+                f"identity file of index format {v}, which this version of cdcnorm does not read",
                 file=f,
                 expected=f"index format {INDEX_FORMAT} or older",
                 found=f"index format {v}",

@@ -510,7 +510,7 @@ def main(argv: Sequence[str] | None = None) -> int:
 def _report(e: CdcnormError, argv: Sequence[str] | None) -> int:
     if "--json" in (argv if argv is not None else sys.argv):
         print(json.dumps(e.as_dict()), file=sys.stdout)
-    err.print("error: " + e.render(), markup=False)
+    err.print("error: " + e.render(), markup=False, soft_wrap=True)  # never broken inside a message
     return e.exit_code
 
 

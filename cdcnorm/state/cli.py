@@ -134,7 +134,11 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
         t.add_row(r["table"], str(r["rows"]), str(r["event_files"]), r["file"])
     out.print(t)
     for name in missing:
-        err.print(f"warning: {landing}: events of {name} have no mapping in {args.mappings}; not compacted")
+        err.print(
+            f"warning: {landing}: events of {name} have no mapping in {args.mappings}; not compacted",
+            markup=False,
+            soft_wrap=True,
+        )
     return EXIT_OK
 
 
@@ -228,7 +232,11 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
         t.add_row(row["target_table"], *(str(row[c]) for c in cols[1:]))
     out.print(t)
     for name in missing:
-        err.print(f"warning: {landing}: events of {name} have no mapping in {args.mappings}; not applied")
+        err.print(
+            f"warning: {landing}: events of {name} have no mapping in {args.mappings}; not applied",
+            markup=False,
+            soft_wrap=True,
+        )
     return EXIT_OK
 
 

@@ -122,11 +122,6 @@ class Plan:
         # the 32 hex digits read as one number: the digest's bytes in order (most significant first)
         return f"{HEX_KEY}(md5({text}))"
 
-    def content_changed_since_format_3(self) -> bool:
-        """Whether ``content`` differs from the digest of index format 3 for some row of this table
-        (only a bytes field's empty value is written differently)."""
-        return any(t.name == "bytes" for t in self.mapping.field_types.values())
-
     def legacy_content(self, prefix: str = "") -> str:
         """SQL: the digest index formats 1 and 2 stored: the MD5 of the running engine's text of the
         row as a struct. That text is the one DuckDB 2.0 wrote them with; 1.x wrote a backslash or

@@ -67,12 +67,10 @@ def dedupe_rows(plan: Plan) -> Plan:
     carried_cols = ", ".join(["__pos", "__seq", "'before' AS __act", *keys])  # carried rows are before-images
     seen_on = " AND ".join(f"o.{c} = e.{c}" for c in ["__pos", "__seq", "__act", *keys])
     # identities from an older index format hold the digest it stored: formats 1 and 2 the engine's
-    # text of the row (Plan.legacy_content), format 3 an empty bytes value as NULL's text
-    format_3 = (
-        f"WHEN e.__format = 3 THEN {plan.content('o.', format_3=True)} "
-        if plan.content_changed_since_format_3()
-        else ""
-    )
+    # text of the row (Plan.legacy_content), format 3 an empty bytes value as NULL's text (the same
+    # digest as the current one for a table without a bytes field)
+    digest_3 = plan.content("o.", format_3=True)
+    format_3 = f"WHEN e.__format = 3 THEN {digest_3} " if digest_3 != plan.content("o.") else ""
     same = (
         f"e.__hash = CASE WHEN e.__format <= 2 THEN {plan.legacy_content('o.')} {format_3}"
         f"ELSE {plan.content('o.')} END"

@@ -250,7 +250,7 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
     wanted = m.mapped_columns()
     roles = {v: k for k, v in m.change_columns().items()}
     for src in raw.files:
-        if src.empty:
+        if not src.columns_known:
             continue
         for col in wanted:
             if col not in src.columns:

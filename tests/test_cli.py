@@ -113,6 +113,29 @@ def test_drift_names_field_and_column(tmp_path: Path, capsys: pytest.CaptureFixt
     assert "drift" in capsys.readouterr().out
 
 
+@pytest.mark.parametrize("fmt", ["csv", "parquet"])
+def test_a_file_with_no_rows_still_states_its_columns(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], fmt: str
+) -> None:
+    # a night with no changes exports a header (CSV) or a schema (Parquet) and no rows: a renamed
+    # column there is drift as much as in a file with rows, a night before the rows show it
+    dumps = tmp_path / "d"
+    dumps.mkdir()
+    mapping = tmp_path / "bookings.yaml"
+    mapping.write_text(
+        (MAPPINGS / "bookings.yaml").read_text().replace('["bookings-*.csv"]', '["bookings-*"]')
+    )
+    header = (DUMPS / "bookings-live.csv").read_text().splitlines()[0].replace("pax_name", "passenger_name")
+    if fmt == "csv":
+        (dumps / "bookings-quiet.csv").write_text(header + "\n")
+    else:
+        schema = pa.schema([(c, pa.string()) for c in header.split(",")])
+        pq.write_table(schema.empty_table(), dumps / "bookings-quiet.parquet")
+    assert cli("convert", "--mappings", str(mapping), str(dumps), "--out", str(tmp_path / "o")) == 4
+    assert "field passenger reads raw column 'pax_name'" in capsys.readouterr().err
+    assert not (tmp_path / "o" / "runs").exists()
+
+
 def test_file_matching_no_mapping(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     p = tmp_path / "booking-extra.csv"
     p.write_text("op\n")

@@ -119,6 +119,17 @@ def test_empty_and_header_only_files(convert: ConvertFn) -> None:
     assert led["n1.csv"]["read"] == 0 and led["n2.csv"]["read"] == 0 and led["n3.csv"]["emitted"] == 1
 
 
+def test_jsonl_file_of_malformed_lines_only_is_quarantined_not_drift(convert: ConvertFn) -> None:
+    # JSON Lines states its columns only through lines that parse: with none, there is no schema
+    # to hold against the mapping, and every line is quarantined with its text (RFC 8259)
+    done = convert(MAPPING, {"n.jsonl": '{"op": "I", "pos": 1, broken\n{"op": \n'})
+    led = done.ledger()
+    assert led["balanced"] and led["tables"]["t.notes"]["files"]["n.jsonl"]["read"] == 2
+    quarantined = done.quarantine("t.notes")
+    assert [q["_cdcnorm"]["text"] for q in quarantined] == ['{"op": "I", "pos": 1, broken', '{"op": ']
+    assert done.events("t.notes") == []
+
+
 def test_jsonl_nested_flat_and_malformed_lines(convert: ConvertFn) -> None:
     mapping = """
     table: t.nested

@@ -40,6 +40,9 @@ class RawFile:
     rows: int = 0  # records split into columns
     malformed: int = 0  # records that could not be
     empty: bool = False
+    # False when the file states no columns to hold against the mapping: a file of no bytes, or
+    # JSON Lines with no line that parses (its columns come from its objects)
+    columns_known: bool = True
     notes: list[str] = field(default_factory=list)
 
     @property

@@ -98,6 +98,7 @@ def read_files(
         f.columns = columns
         if not columns or not more:
             f.empty = True
+            f.columns_known = bool(columns)
             f.notes.append("the file is empty" if not columns else "the file has a header and no rows")
             for c in columns:
                 raw.internal(c)

@@ -100,6 +100,7 @@ def _read(f: RawFile, mapping: Mapping, engine: DuckDBEngine, raw: RawTable) -> 
     engine.drop(lines)
     f.malformed = engine.count(malformed, f"__file = {f.file_id}")
     f.rows = engine.count(ok)
+    f.columns_known = f.rows > 0
     if f.rows == 0 and f.malformed == 0:
         f.empty = True
         f.notes.append("the file is empty")

@@ -18,7 +18,7 @@ from cdcnorm import __version__
 from cdcnorm.engines import ENGINES
 from cdcnorm.errors import EXIT_OK, CdcnormError, UsageError
 from cdcnorm.mapping import load_mappings
-from cdcnorm.pipeline import STAGE_NAMES, Options, Result, describe_sources, run
+from cdcnorm.pipeline import STAGE_NAMES, Options, Result, describe_sources, file_notes, run
 
 err = Console(stderr=True, highlight=False, width=None if sys.stderr.isatty() else 200)
 out = Console(highlight=False, soft_wrap=True, width=None if sys.stdout.isatty() else 200)
@@ -314,6 +314,7 @@ def _report_run(result: Result, args: argparse.Namespace, landing: Path) -> None
                     "pending": result.pending,
                     "waiting": result.waiting,
                     "skipped": result.skipped,
+                    "notes": file_notes(result),
                 }
             )
         )
@@ -326,6 +327,7 @@ def _report_run(result: Result, args: argparse.Namespace, landing: Path) -> None
         out.print(f"nothing new to convert: no run was added to {landing}")
         return
     out.print(_ledger_table(result))
+    _print_notes(result)
     total = result.ledger.total
     out.print(
         f"ledger balanced: {total.read} rows read, {total.pending_in} carried in, every row accounted for"
@@ -339,6 +341,11 @@ def _report_run(result: Result, args: argparse.Namespace, landing: Path) -> None
             else ""
         )
     )
+
+
+def _print_notes(result: Result) -> None:
+    for n in file_notes(result):
+        out.print(f"note: {n['file']} ({n['table']}): {n['note']}", markup=False, soft_wrap=True)
 
 
 def cmd_runs(args: argparse.Namespace) -> int:
@@ -424,6 +431,7 @@ def _report_check(result: Result, args: argparse.Namespace) -> int:
         for name, tl in sorted(result.ledger.tables.items()):
             for reason, n in sorted(tl.reasons.items()):
                 out.print(f"{name}: {n} x {reason}")
+        _print_notes(result)
         for d in drift:
             out.print(f"[red]drift[/red] {d}")
     return 4 if drift else EXIT_OK

@@ -508,6 +508,16 @@ def free_raw(trun: TableRun, engine: DuckDBEngine) -> None:
             engine.drop(rel.name)
 
 
+def file_notes(result: Result) -> list[dict[str, str]]:
+    """What the readers noted about the files (an empty file, a file read record by record)."""
+    return [
+        {"table": table, "file": src.name, "note": note}
+        for table, trun in result.tables.items()
+        for src in trun.raw.files
+        for note in src.notes
+    ]
+
+
 def describe_sources(result: Result) -> list[dict[str, Any]]:
     rows = []
     for table, trun in result.tables.items():

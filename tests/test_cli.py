@@ -136,6 +136,23 @@ def test_a_file_with_no_rows_still_states_its_columns(
     assert not (tmp_path / "o" / "runs").exists()
 
 
+def test_an_empty_file_is_noted_not_passed_over(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    dumps = tmp_path / "d"
+    dumps.mkdir()
+    shutil.copy(DUMPS / "bookings-live.csv", dumps)
+    (dumps / "bookings-cut.csv").write_bytes(b"")  # a transfer that wrote nothing
+    assert cli("convert", "--mappings", str(MAPPINGS), str(dumps), "--out", str(tmp_path / "o")) == 0
+    printed = capsys.readouterr().out
+    assert "note: bookings-cut.csv (ferry.bookings): the file is empty" in printed
+    assert (
+        cli("convert", "--mappings", str(MAPPINGS), str(dumps), "--out", str(tmp_path / "o2"), "--json") == 0
+    )
+    notes = json.loads(capsys.readouterr().out)["notes"]
+    assert notes == [{"table": "ferry.bookings", "file": "bookings-cut.csv", "note": "the file is empty"}]
+    assert cli("check", "--mappings", str(MAPPINGS), str(dumps)) == 0
+    assert "note: bookings-cut.csv (ferry.bookings): the file is empty" in capsys.readouterr().out
+
+
 def test_file_matching_no_mapping(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     p = tmp_path / "booking-extra.csv"
     p.write_text("op\n")

@@ -340,6 +340,86 @@ def test_json_lines_records_that_are_not_rfc_8259_objects_are_quarantined(
     assert q["_cdcnorm"]["row"] == 2
 
 
+NESTED = """
+table: t.nested
+files: ["n*"]
+key: [id]
+change:
+  action: {column: op, codes: {I: insert}}
+  position: {column: pos, kind: integer}
+fields:
+  id: {from: after.id, type: integer}
+  city: {from: after.place.city, type: text}
+  extra: {from: extra, type: json}
+"""
+
+
+def _repeats_on_the_way(line: str, ways: list[tuple[str, ...]]) -> bool:
+    """Python's json as the reference: does the top object, or an object the mapping's paths pass
+    through, repeat a member name? (``object_pairs_hook`` sees every pair, repeats included)"""
+
+    def pairs_tree(pairs: list[tuple[str, object]]) -> object:
+        return ("obj", pairs)
+
+    tree = json.loads(line, object_pairs_hook=pairs_tree)
+    for way in ways:
+        node: object = tree
+        for step in (None, *way):
+            if not (isinstance(node, tuple) and node[0] == "obj"):
+                break
+            members = node[1]
+            names = [k for k, _ in members]
+            if step is None and len(names) != len(set(names)):
+                return True
+            if step is not None:
+                found = [v for k, v in members if k == step]
+                node = found[0] if found else None
+                if isinstance(node, tuple) and node[0] == "obj":
+                    inner = [k for k, _ in node[1]]
+                    if len(inner) != len(set(inner)):
+                        return True
+    return False
+
+
+@pytest.mark.parametrize(
+    "line",
+    [
+        '{"op":"I","pos":1,"after":{"id":1,"id":2,"place":{"city":"Quay"}}}',
+        '{"op":"I","pos":1,"after":{"id":1,"place":{"city":"Quay","city":"Dune"}}}',
+        '{"op":"I","pos":1,"after":{"id":1,"place":{"city":"Quay"}},"after":{"id":1}}',
+        '{"op":"I","pos":1,"after":{"id":1,"place":{"city":"Quay","zip":"1","zip":"2"}}}',
+        '{"op":"I","pos":1,"after":{"id":1,"place":{"city":"Quay"}},"other":{"n":1,"n":2}}',
+        '{"op":"I","pos":1,"after":{"id":1,"place":{"city":"Quay"}},"extra":{"n":1,"n":2}}',
+    ],
+)
+def test_json_lines_a_name_repeated_on_the_way_to_a_mapped_column_is_quarantined(
+    convert: ConvertFn, line: str
+) -> None:
+    # RFC 7493 section 2.3: member names MUST NOT repeat. A repeat in an object a mapped column
+    # is read through (after, after.place) makes the column's value ambiguous, as at the top:
+    # the record is quarantined whole. A repeat elsewhere ("other") is kept as written; one in a
+    # json field ("extra") is that field's own quarantine reason.
+    ways = [("after", "id"), ("after", "place", "city")]
+    extra = '"extra"' in line
+    if not extra:
+        line = line[:-1] + ',"extra":null}'  # every mapped column present (an absent one is drift)
+    done = convert(NESTED, {"n.jsonl": line + "\n"})
+    assert done.ledger()["balanced"]
+    quarantined = done.quarantine("t.nested")
+    whole = [q for q in quarantined if q["_cdcnorm"]["reasons"][0]["field"] is None]
+    assert bool(whole) == _repeats_on_the_way(line, ways)
+    if whole:
+        assert (
+            whole[0]["_cdcnorm"]["text"] == line
+            and "repeats a member name" in whole[0]["_cdcnorm"]["reasons"][0]["reason"]
+        )
+    elif extra:
+        (q,) = quarantined
+        assert q["_cdcnorm"]["reasons"][0]["field"] == "extra"
+    else:
+        assert [e["values"]["city"] for e in done.events("t.nested")] == ["Quay"]
+
+
 #: JSON Lines records whose strings hold what the lexical checks look for outside strings, next to
 #: escaped quotes and backslashes; and the same constructs outside strings. (valid?, line)
 ESCAPED = [

@@ -11,7 +11,7 @@ import errno
 import json
 import os
 import secrets
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 from importlib import metadata
 from pathlib import Path
 from typing import Any
@@ -434,12 +434,22 @@ class DuckDBEngine:
             f"FROM read_parquet({lit(str(path))}, file_row_number = true)"
         )
 
-    def split_json_lines(self, lines: str, ok: str, malformed: str, file_id: int) -> str | None:
+    def split_json_lines(
+        self, lines: str, ok: str, malformed: str, file_id: int, nested: Sequence[tuple[str, ...]] = ()
+    ) -> str | None:
         """Lines (``__row``, ``raw`` bytes) -> malformed lines appended to ``malformed`` (not UTF-8,
-        not RFC 8259 JSON, not an object; blank lines are not records) and the JSON objects in
-        ``ok`` (``__row``, ``j``). Returns the merged structure of the objects (JSON text)."""
+        not RFC 8259 JSON, not an object, an object that repeats a member name at the top or in
+        one of the ``nested`` objects (key paths) a mapped column is read from; blank lines are not
+        records) and the JSON objects in ``ok`` (``__row``, ``j``). Returns the merged structure
+        of the objects (JSON text)."""
         src = ident(lines)
-        from cdcnorm.types.json import outside_strings_of_valid, rfc8259, risky_numbers, tag_numbers
+        from cdcnorm.types.json import (
+            json_path,
+            outside_strings_of_valid,
+            rfc8259,
+            risky_numbers,
+            tag_numbers,
+        )
 
         # Every check once per line, into the lines' table (the malformed and the good lines are
         # then two filters of it): the text outside strings is computed once for both lexical
@@ -454,12 +464,22 @@ class DuckDBEngine:
         valid = f"coalesce({rfc8259('line', 'outside')}, FALSE)"
         strict = f"SELECT __row, line, raw, {valid} AS valid, {risky_numbers('line', 'outside')} AS risky FROM ({outside})"
         kind = f"SELECT *, CASE WHEN valid THEN json_type(line) END AS kind FROM ({strict})"
-        # a repeated name at the top level would make its column ambiguous (nested values are
-        # kept as written; a json field checks its own); the names are parsed once
-        names = f"SELECT *, CASE WHEN kind = 'OBJECT' THEN json_keys(line) END AS names FROM ({kind})"
+        # A repeated name makes a column ambiguous: at the top level, and in every object on the
+        # way to a mapped nested column (``row`` for ``row.id``); other nested values are kept as
+        # written (a json field checks its own). ``repeated``: NULL, '' (the top) or the object's
+        # dotted path. The names are parsed once per level.
+        twice = "len({0}) <> len(list_distinct({0}))"
+        repeated = f"CASE WHEN {twice.format('names')} THEN ''"
+        inner = ""
+        if nested:
+            paths = "[" + ", ".join(lit(json_path(p)) for p in nested) + "]"
+            inner = f", CASE WHEN kind = 'OBJECT' THEN json_keys(line, {paths}) END AS inner_names"
+            for i, p in enumerate(nested, start=1):
+                repeated += f" WHEN {twice.format(f'inner_names[{i}]')} THEN {lit('.'.join(p))}"
+        names = f"SELECT *, CASE WHEN kind = 'OBJECT' THEN json_keys(line) END AS names{inner} FROM ({kind})"
         self.con.execute(
-            f"CREATE OR REPLACE TEMP TABLE {ident(lines + '_text')} AS SELECT * EXCLUDE (names), "
-            f"coalesce(len(names) <> len(list_distinct(names)), FALSE) AS repeated FROM ({names})"
+            f"CREATE OR REPLACE TEMP TABLE {ident(lines + '_text')} AS SELECT * EXCLUDE (names{', inner_names' if nested else ''}), "
+            f"{repeated} END AS repeated FROM ({names})"
         )
         text = ident(lines + "_text")
         self.con.execute(
@@ -468,13 +488,14 @@ class DuckDBEngine:
             "CASE WHEN line IS NULL THEN 'not UTF-8 (text shown base64)' "
             "WHEN NOT valid THEN 'not valid JSON (RFC 8259)' "
             "WHEN kind <> 'OBJECT' THEN 'not a JSON object' "
-            f"ELSE 'the object repeats a member name (RFC 7493 section 2.3): which value is meant is unclear' END FROM {text} "
-            "WHERE line IS NULL OR NOT valid OR kind <> 'OBJECT' OR repeated"
+            "WHEN repeated = '' THEN 'the object repeats a member name (RFC 7493 section 2.3): which value is meant is unclear' "
+            "ELSE 'the object ' || repeated || ' repeats a member name (RFC 7493 section 2.3): which value is meant is unclear' "
+            f"END FROM {text} WHERE line IS NULL OR NOT valid OR kind <> 'OBJECT' OR repeated IS NOT NULL"
         )
         self.con.execute(
             f"CREATE OR REPLACE TEMP TABLE {ident(ok)} AS SELECT __row, "
             f"CAST({tag_numbers('line', self.number_tag, 'risky')} AS JSON) AS j FROM {text} "
-            "WHERE valid AND kind = 'OBJECT' AND NOT repeated"
+            "WHERE valid AND kind = 'OBJECT' AND repeated IS NULL"
         )
         self.drop(lines + "_text")
         # The merged structure of one object per distinct structure: the same as of every object

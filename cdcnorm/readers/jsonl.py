@@ -24,6 +24,7 @@ from cdcnorm.errors import InputError
 from cdcnorm.mapping.model import Mapping
 from cdcnorm.readers import streams
 from cdcnorm.readers.base import MAX_RECORD_BYTES, RawFile, RawTable
+from cdcnorm.types.json import json_path
 
 FORMAT = "jsonl"
 SUFFIXES = (".jsonl", ".ndjson")
@@ -38,10 +39,6 @@ def _paths(structure: Any, leaves: set[str], prefix: tuple[str, ...] = ()) -> li
             out.extend(_paths(v, leaves, (*prefix, k)))
         return out
     return [prefix] if prefix else []
-
-
-def _json_path(parts: tuple[str, ...]) -> str:
-    return "$" + "".join("." + json.dumps(p) for p in parts)
 
 
 def _batches(f: RawFile) -> Iterator[pa.RecordBatch]:
@@ -96,7 +93,11 @@ def _read(f: RawFile, mapping: Mapping, engine: DuckDBEngine, raw: RawTable) -> 
         engine.drop(lines)
         raise failure[0]
     malformed = raw.ensure_malformed(engine)
-    structure_text = engine.split_json_lines(lines, ok, malformed, f.file_id)
+    # the objects on the way to a mapped nested column: a name repeated in one is ambiguous too
+    nested = sorted(
+        {tuple(c.split("."))[:n] for c in mapping.mapped_columns() for n in range(1, c.count(".") + 1)}
+    )
+    structure_text = engine.split_json_lines(lines, ok, malformed, f.file_id, nested)
     engine.drop(lines)
     f.malformed = engine.count(malformed, f"__file = {f.file_id}")
     f.rows = engine.count(ok)
@@ -124,7 +125,7 @@ def _read(f: RawFile, mapping: Mapping, engine: DuckDBEngine, raw: RawTable) -> 
     tokens = [t for t in mapping.nulls if t != ""]
     rel = raw.relation("jsonl")
     engine.json_columns(
-        rel, ok, f.file_id, [(_json_path(p), c) for p, c in zip(paths, internal, strict=True)], tokens
+        rel, ok, f.file_id, [(json_path(p), c) for p, c in zip(paths, internal, strict=True)], tokens
     )
     engine.drop(ok)
     raw.add_relation(rel, internal)

@@ -15,6 +15,7 @@ is quarantined.
 
 from __future__ import annotations
 
+import json
 import secrets
 
 from cdcnorm.types.base import FieldType
@@ -22,6 +23,11 @@ from cdcnorm.types.base import FieldType
 #: A JSON string token (RFC 8259 section 7), for the engine's regular expressions.
 STRING = r'"(?:[^"\\]|\\.)*"'
 _NUMBER = r"-?[0-9]+(\.[0-9]+)?([eE][+-]?[0-9]+)?"
+
+
+def json_path(keys: tuple[str, ...]) -> str:
+    """The JSONPath of a member reached by these keys from the top (each key quoted)."""
+    return "$" + "".join("." + json.dumps(k) for k in keys)
 
 
 def outside_strings(x: str) -> str:

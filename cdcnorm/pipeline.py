@@ -257,8 +257,12 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
                 fields = [f for f in m.fields if m.raw_column(f) == col] or [roles.get(col, col)]
                 spare = [c for c in src.columns if c not in wanted]  # a renamed column is not mapped yet
                 drift.append(Drift(src.name, m.table, fields[0], col, closest(col, spare)))
+        # the structs a mapped member is read through (a Parquet column "after" for "after.id")
+        read_through = {w[:i] for w in wanted for i, ch in enumerate(w) if ch == "."}
         unmapped[src.name] = [
-            c for c in src.columns if c not in wanted and not c.startswith(quarantine.META_KEY)
+            c
+            for c in src.columns
+            if c not in wanted and c not in read_through and not c.startswith(quarantine.META_KEY)
         ]
     return drift, unmapped
 

@@ -164,6 +164,14 @@ def default_memory_limit() -> str:
     return f"{int(total * DEFAULT_MEMORY_SHARE) >> 20}MB"
 
 
+def parquet_member(keys: tuple[str, ...]) -> str:
+    """SQL of a Parquet column (one key) or of a member of its structs (more keys)."""
+    out = ident(keys[0])
+    for k in keys[1:]:
+        out = f"struct_extract({out}, {lit(k)})"
+    return out
+
+
 class DuckDBEngine:
     name = "duckdb"
     dialect = "duckdb"
@@ -407,16 +415,40 @@ class DuckDBEngine:
         finally:
             self.con.unregister("__appended_rows")
 
-    def scan_parquet(self, path: Path) -> list[tuple[str, str]]:
-        """The columns of a Parquet file and their engine types."""
+    def scan_parquet(
+        self, path: Path, nested: Sequence[tuple[str, ...]] = ()
+    ) -> list[tuple[tuple[str, ...], str]]:
+        """The columns of a Parquet file and their engine types, as (keys, type): a top-level
+        column's keys are its name; then each ``nested`` key path that reaches a member of a struct
+        column (``("after", "id")``), in order; a path that reaches none is left out."""
         src = f"read_parquet({lit(str(path))})"
-        return [(str(r[0]), str(r[1])) for r in self.rows(f"DESCRIBE SELECT * FROM {src}")]
+        found: list[tuple[tuple[str, ...], str]] = [
+            ((str(r[0]),), str(r[1])) for r in self.rows(f"DESCRIBE SELECT * FROM {src}")
+        ]
+        structs = {keys[0] for keys, typ in found if typ.startswith("STRUCT")}
+        top = {keys[0] for keys, _ in found}
+        for keys in nested:
+            # a top-level column named with the dots is that column
+            if len(keys) < 2 or keys[0] not in structs or ".".join(keys) in top:
+                continue
+            try:
+                ((_, typ, *_),) = self.rows(f"DESCRIBE SELECT {parquet_member(keys)} FROM {src}")
+            except duckdb.BinderException:
+                continue  # no such member, or a member of something that is not a struct
+            found.append((keys, str(typ)))
+        return found
 
     def load_parquet_as_text(
-        self, table: str, path: Path, file_id: int, columns: list[tuple[str, str, str]], nulls: list[str]
+        self,
+        table: str,
+        path: Path,
+        file_id: int,
+        columns: list[tuple[tuple[str, ...], str, str]],
+        nulls: list[str],
     ) -> None:
         """Load a Parquet file with every value as text: BLOB as hex, structs, lists and maps as JSON
-        text; a text equal to a null token is NULL. ``columns`` are (name, type, internal name)."""
+        text; a text equal to a null token is NULL. ``columns`` are (keys, type, internal name),
+        keys as ``scan_parquet`` gives them."""
 
         def as_text(col: str, typ: str) -> str:
             if typ == "BLOB":
@@ -427,7 +459,7 @@ class DuckDBEngine:
                 return f"CASE WHEN {col} IN ({', '.join(lit(t) for t in nulls)}) THEN NULL ELSE {col} END"
             return f"CAST({col} AS VARCHAR)"
 
-        parts = "".join(f", {as_text(ident(c), t)} AS {ident(i)}" for c, t, i in columns)
+        parts = "".join(f", {as_text(parquet_member(k), t)} AS {ident(i)}" for k, t, i in columns)
         self.con.execute(
             f"CREATE TEMP TABLE {ident(table)} AS SELECT CAST({file_id} AS INTEGER) AS __file, "
             f"CAST(file_row_number + 1 AS BIGINT) AS __row, CAST(NULL AS VARCHAR) AS __enc{parts} "

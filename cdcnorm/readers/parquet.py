@@ -1,5 +1,7 @@
 """Parquet dumps, read by the engine: typed columns as their text, BLOB as hex, nested values
-(structs, lists, maps) as RFC 8259 JSON text. A string equal to a null token other than "" is NULL."""
+(structs, lists, maps) as RFC 8259 JSON text. A mapped dotted column (``after.id``) that is not a
+top-level column reads the member of a struct column, as a nested key of JSON Lines does. A string
+equal to a null token other than "" is NULL."""
 
 from __future__ import annotations
 
@@ -24,8 +26,9 @@ def read_files(
         f.format = FORMAT
         rel = raw.relation("parquet")
         try:
-            cols = [(c, t) for c, t in engine.scan_parquet(f.path)]
-            f.columns = [c for c, _ in cols]
+            nested = [tuple(c.split(".")) for c in mapping.mapped_columns() if "." in c]
+            cols = engine.scan_parquet(f.path, nested)
+            f.columns = [".".join(k) for k, _ in cols]
             internal = [raw.internal(c) for c in f.columns]
             engine.load_parquet_as_text(
                 rel, f.path, f.file_id, [(c, t, i) for (c, t), i in zip(cols, internal, strict=True)], tokens

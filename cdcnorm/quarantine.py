@@ -42,8 +42,10 @@ def rejected_rows(plan: Plan) -> str:
         "CASE WHEN __earlier_run IS NULL THEN 'one version per (position, action, key)' "
         "ELSE 'the version run ' || __earlier_run || ' emitted' END",
         "CASE WHEN __earlier_run IS NULL THEN CAST(__versions AS VARCHAR) || ' versions' "
-        "ELSE 'other content' END",
-        "CASE WHEN __earlier_run IS NULL THEN 'conflict' ELSE 'conflict with run ' || __earlier_run END",
+        "WHEN __other_fields THEN 'content under other fields' ELSE 'other content' END",
+        "CASE WHEN __earlier_run IS NULL THEN 'conflict' WHEN __other_fields THEN 'conflict with run ' || "
+        "__earlier_run || ', whose fields differ from the mapping''s now: its content cannot be compared' "
+        "ELSE 'conflict with run ' || __earlier_run END",
     )
     ambiguous = _reason(
         lit("one change of a key per position and sequence, or a before-image and its after-image"),

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import base64
 import hashlib
+import json
 import uuid
 from datetime import UTC, date, datetime, time, timedelta
 from decimal import Decimal
@@ -284,7 +285,9 @@ def test_an_area_of_index_format_3_keeps_its_empty_bytes_values_apart(tmp_path: 
     assert _run(tmp_path, "b1.csv", BLOBS)["emitted"] == 2
     (written,) = run_files(tmp_path / "out", "index/emitted", "t.blob")
     table = pq.read_table(written)
-    assert table.schema.metadata == {b"cdcnorm_index_format": b"4"}
+    assert table.schema.metadata is not None
+    assert table.schema.metadata[b"cdcnorm_index_format"] == b"4"
+    assert json.loads(table.schema.metadata[b"cdcnorm_fields"]) == [["id", "BIGINT"], ["blob", "BLOB"]]
     old = [
         int(digest([None, i, b"" if i == 1 else None], format_3=True), 16) for i in table["v0"].to_pylist()
     ]

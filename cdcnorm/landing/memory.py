@@ -27,10 +27,16 @@ only the positions a run can meet skips most of a long history.
   row (positions and sequences as normalised text, fixed width, so text order
   is key order), ``__run`` (the run that read it) and ``__raw`` (its raw
   columns as a JSON object, for the quarantine if it is ever settled).
+
+Both state the mapping's fields they were written under in their key-value
+metadata (``cdcnorm_fields``) and are read by field name: a mapping edited
+between runs never puts one field's value into another (files written before
+they stated it are read by position).
 """
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 
 from cdcnorm import positions
@@ -74,6 +80,70 @@ FORMAT_3_MARK = "__content_hi"
 #: format 4 on; older files have none).
 FORMAT_KEY = "cdcnorm_index_format"
 _LOW64 = f"CAST({(1 << 64) - 1} AS UHUGEINT)"
+#: The key of the key-value metadata of identity and pending files that lists the mapping's fields
+#: the file was written under, as JSON ``[[name, engine type], ...]`` in the order of its ``v0..vn``.
+FIELDS_KEY = "cdcnorm_fields"
+
+
+def layout(plan: Plan) -> list[list[str]]:
+    """The table's fields as (name, engine type), in the order of ``v0..vn``."""
+    types = plan.types()
+    return [[name, types[f"v{i}"]] for i, name in enumerate(plan.fields)]
+
+
+def _metadata(plan: Plan, *extra: tuple[str, str]) -> str:
+    """SQL: the KV_METADATA of a memory file: its fields, and ``extra`` (key, value) pairs."""
+    pairs = [(FIELDS_KEY, json.dumps(layout(plan))), *extra]
+    return "{" + ", ".join(f"{k}: {lit(v)}" for k, v in pairs) + "}"
+
+
+def _stored_layouts(engine: DuckDBEngine, files: list[str]) -> dict[str, list[list[str]]]:
+    """The fields each of these memory files states it was written under (files written before
+    they stated any are left out)."""
+    return {
+        str(f): json.loads(str(v))
+        for f, v in engine.rows(
+            f"SELECT file_name, decode(value) FROM parquet_kv_metadata([{', '.join(lit(f) for f in files)}]) "
+            f"WHERE decode(key) = {lit(FIELDS_KEY)}"
+        )
+    }
+
+
+def _columns_by_name(
+    plan: Plan, file: str, stored: list[list[str]] | None, wanted: list[int], what: str, hint: str
+) -> dict[int, str]:
+    """For each wanted field index, the column of the file that holds it: found by the field's
+    name in the file's stated fields (``v<j>`` of the j-th), so that fields added, removed or
+    reordered in the mapping since the file was written never put one field's value in another.
+    A wanted field the file lacks, or holds with another type, stops the run: its values cannot
+    be had. A file that states no fields (written before they were stated) is read by position."""
+    now = layout(plan)
+    if stored is None:
+        return {i: f"v{i}" for i in wanted}
+    where = {name: (j, typ) for j, (name, typ) in enumerate(stored)}
+    lacking = [now[i][0] for i in wanted if now[i][0] not in where]
+    retyped = [
+        f"{now[i][0]} ({where[now[i][0]][1]} then, {now[i][1]} now)"
+        for i in wanted
+        if now[i][0] in where and where[now[i][0]][1] != now[i][1]
+    ]
+    if lacking or retyped:
+        found = "; ".join(
+            part
+            for part in (
+                f"fields it lacks: {', '.join(lacking)}" if lacking else "",
+                f"fields typed otherwise: {', '.join(retyped)}" if retyped else "",
+            )
+            if part
+        )
+        raise InputError(
+            f"{what} were stored under other fields of {plan.mapping.mapping.table} than the mapping's now",
+            file=file,
+            expected="the fields " + ", ".join(name for name, _ in stored),
+            found=found,
+            hint=hint,
+        )
+    return {i: f"v{where[now[i][0]][0]}" for i in wanted}
 
 
 def _wide(plan: Plan, which: str) -> bool:
@@ -111,6 +181,7 @@ def earlier_columns(plan: Plan) -> dict[str, str]:
     cols = {"__pos": types["__pos"], "__seq": types["__seq"], "__act": "VARCHAR"}
     cols.update({f"v{i}": types[f"v{i}"] for i in plan.key_index})
     cols.update({"__hash": "UHUGEINT", "__format": "INTEGER", "__run": "VARCHAR", "__unpaired": "BOOLEAN"})
+    cols["__other_fields"] = "BOOLEAN"  # the file's fields differ from the mapping's: content not comparable
     return cols
 
 
@@ -126,13 +197,22 @@ def load_carried(engine: DuckDBEngine, plan: Plan, path: Path | None, first_id: 
     ids = [(first_id + i, n) for i, n in enumerate(names)]
     values = "(VALUES " + ", ".join(f"({i}, {lit(n)})" for i, n in ids) + ") f(id, name)" if ids else None
     types = carried_columns(plan)
+    held = _columns_by_name(
+        plan,
+        str(path),
+        _stored_layouts(engine, [str(path)]).get(str(path)) if ids else None,
+        list(range(len(plan.fields))),
+        "before-images waiting for their after-images",
+        "settle them first with the mapping they were read under (cdcnorm settle LANDING --all "
+        "--mappings OLD), or keep the field's name and type",
+    )
     cols = [
         "CAST(f.id AS INTEGER) AS __file",
         "CAST(p.__row AS BIGINT) AS __row",
         f"{_restore(plan, 'p.__pos', '__pos')} AS __pos",
         f"{_restore(plan, 'p.__seq', '__seq')} AS __seq",
         "CAST(p.__cat AS TIMESTAMPTZ) AS __cat",
-        *(f"CAST(p.v{i} AS {types[f'v{i}']}) AS v{i}" for i in range(len(plan.fields))),
+        *(f"CAST(p.{held[i]} AS {types[f'v{i}']}) AS v{i}" for i in range(len(plan.fields))),
         "p.__run",
         "p.__raw",
     ]
@@ -183,11 +263,24 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
                 found=f"index format {v}",
                 hint="continue this landing area with the version of cdcnorm that wrote it, or a later one",
             )
+    layouts = _stored_layouts(engine, [str(f) for f in files])
+    groups: dict[tuple[int, str], list[Path]] = {}
+    for path in files:
+        key = (_format(marks, stated, str(path)), json.dumps(layouts.get(str(path))))
+        groups.setdefault(key, []).append(path)
     parts = []
-    for fmt in (1, 2, 3, 4):
-        group = [f for f in files if _format(marks, stated, str(f)) == fmt]
-        if group:
-            parts.append(_earlier_rows(plan, fmt, group, lo_key, hi_key))
+    for (fmt, stated_fields), group in sorted(groups.items()):
+        other = stated_fields != "null" and json.loads(stated_fields) != layout(plan)
+        held = _columns_by_name(
+            plan,
+            str(group[0]),
+            layouts.get(str(group[0])),
+            list(plan.key_index),
+            "identities emitted by earlier runs",
+            "a key field is compared with the one stored: keep its name and type, or start a new "
+            "landing area (another --out, or --replace)",
+        )
+        parts.append(_earlier_rows(plan, fmt, group, lo_key, hi_key, held, other))
     engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {' UNION ALL '.join(parts)}")
 
 
@@ -200,8 +293,12 @@ def _format(marks: set[tuple[str, str]], stated: dict[str, str], file: str) -> i
     return 2 if (file, FORMAT_2_MARK) in marks else 1
 
 
-def _earlier_rows(plan: Plan, fmt: int, files: list[Path], lo: str, hi: str) -> str:
-    """SQL: the identities of identity files of one format, keys restored, between ``lo`` and ``hi``."""
+def _earlier_rows(
+    plan: Plan, fmt: int, files: list[Path], lo: str, hi: str, held: dict[int, str], other: bool
+) -> str:
+    """SQL: the identities of identity files of one format and one layout, keys restored (the
+    key field ``i`` from the column ``held[i]``), between ``lo`` and ``hi``; ``other``: the files
+    were written under fields other than the mapping's now, so their digests digest other text."""
     types = earlier_columns(plan)
     src = f"read_parquet([{', '.join(lit(str(f)) for f in files)}])"
     keys = {}
@@ -212,11 +309,12 @@ def _earlier_rows(plan: Plan, fmt: int, files: list[Path], lo: str, hi: str) -> 
         f"{keys['__pos']} AS __pos",
         f"{keys['__seq']} AS __seq",
         "__act",
-        *(f"CAST(v{i} AS {types[f'v{i}']}) AS v{i}" for i in plan.key_index),
+        *(f"CAST({held[i]} AS {types[f'v{i}']}) AS v{i}" for i in plan.key_index),
         f"{digest} AS __hash",
         f"{fmt} AS __format",
         "__run",
         "__unpaired",
+        f"{'TRUE' if other else 'FALSE'} AS __other_fields",
     ]
     if fmt >= 2 and _wide(plan, "__pos"):
         # the high halves alone let the reader skip row groups by their statistics
@@ -251,7 +349,7 @@ def write_emitted(engine: DuckDBEngine, plan: Plan, path: Path, run: str) -> Non
         "WHERE NOT w.__settled AND w.__file = k.__file AND w.__row = k.__row) ORDER BY k.__pos, k.__seq"
     )
     path.parent.mkdir(parents=True, exist_ok=True)
-    metadata = f"{{{FORMAT_KEY}: {lit(str(INDEX_FORMAT))}}}"
+    metadata = _metadata(plan, (FORMAT_KEY, str(INDEX_FORMAT)))
     engine.execute(f"COPY ({sql}) TO {lit(str(path))} (FORMAT PARQUET, KV_METADATA {metadata})")
 
 
@@ -268,5 +366,5 @@ def write_pending(engine: DuckDBEngine, plan: Plan, path: Path, run: str, raw_ro
         "WHERE NOT w.__settled ORDER BY __pos, __seq"
     )
     path.parent.mkdir(parents=True, exist_ok=True)
-    engine.execute(f"COPY ({sql}) TO {lit(str(path))} (FORMAT PARQUET)")
+    engine.execute(f"COPY ({sql}) TO {lit(str(path))} (FORMAT PARQUET, KV_METADATA {_metadata(plan)})")
     return int(engine.rows(f"SELECT count(*) FROM {plan.rel('waiting')} WHERE NOT __settled")[0][0])

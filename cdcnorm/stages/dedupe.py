@@ -79,9 +79,11 @@ def dedupe_rows(plan: Plan) -> Plan:
         "dedupe",
         "seen",
         f"SELECT o.__file, o.__row, o.__act, bool_and({same}) AS __same, "
+        "bool_or(e.__other_fields) AS __other_fields, "
         f"min(e.__run) AS __earlier_run FROM {ordered} o JOIN ("
-        f"SELECT {earlier_cols}, __hash, __format, __run FROM {plan.rel('earlier')} UNION ALL "
-        f"SELECT {carried_cols}, {plan.content()} AS __hash, {INDEX_FORMAT}, __run FROM {plan.rel('carried')}) e "
+        f"SELECT {earlier_cols}, __hash, __format, __run, __other_fields FROM {plan.rel('earlier')} UNION ALL "
+        f"SELECT {carried_cols}, {plan.content()} AS __hash, {INDEX_FORMAT}, __run, FALSE "
+        f"FROM {plan.rel('carried')}) e "
         f"ON {seen_on} "
         "GROUP BY o.__file, o.__row, o.__act",
         materialize=True,
@@ -104,13 +106,14 @@ def dedupe_rows(plan: Plan) -> Plan:
     plan = plan.add(
         "dedupe",
         "fates",
-        "SELECT __file, __row, __act, __fate, __versions, __earlier_run FROM ("
+        "SELECT __file, __row, __act, __fate, __versions, __earlier_run, __other_fields FROM ("
         "SELECT *, row_number() OVER (PARTITION BY __file, __row ORDER BY __rank) AS __n FROM ("
         f"SELECT __file, __row, __act, 'ambiguous' AS __fate, __acts AS __versions, "
-        f"CAST(NULL AS VARCHAR) AS __earlier_run, 0 AS __rank FROM {plan.rel('ambiguous')} UNION ALL "
-        "SELECT __file, __row, __act, CASE WHEN __same THEN 'duplicate' ELSE 'conflict' END, 1, __earlier_run, 1 "
-        f"FROM {plan.rel('seen')} UNION ALL "
-        "SELECT __file, __row, __act, __fate, __versions, CAST(NULL AS VARCHAR), 2 "
+        f"CAST(NULL AS VARCHAR) AS __earlier_run, FALSE AS __other_fields, 0 AS __rank "
+        f"FROM {plan.rel('ambiguous')} UNION ALL "
+        "SELECT __file, __row, __act, CASE WHEN __same THEN 'duplicate' ELSE 'conflict' END, 1, __earlier_run, "
+        f"__other_fields, 1 FROM {plan.rel('seen')} UNION ALL "
+        "SELECT __file, __row, __act, __fate, __versions, CAST(NULL AS VARCHAR), FALSE, 2 "
         f"FROM {plan.rel('repeat_fates')} WHERE __fate <> 'keep')) WHERE __n = 1",
         materialize=True,
     )

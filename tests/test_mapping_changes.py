@@ -1,0 +1,109 @@
+"""A mapping edited between runs of one landing area.
+
+What runs remember (identities emitted, before-images waiting) is stored with the fields it was
+written under, by name: a field reordered, added, removed or retyped in the mapping never puts
+one field's value into another. What cannot be had is said: waiting images lacking a field stop
+the run (exit 4) until they are settled, and a repeat of a row emitted under other fields is a
+conflict that says its content could not be compared.
+"""
+
+from __future__ import annotations
+
+import json
+import shutil
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+from tests.conftest import ROOT, cli
+
+DUMPS = ROOT / "examples" / "dumps"
+NEXT_DAY = ROOT / "examples" / "next-day"
+PASSENGER = "  passenger: {from: pax_name, type: text, max_length: 60}\n"
+PHONE = "  pax_phone: text\n"
+
+
+def _mappings(folder: Path, edit: tuple[str, str] | None = None) -> Path:
+    shutil.copytree(ROOT / "mappings", folder)
+    if edit:
+        p = folder / "bookings.yaml"
+        text = p.read_text()
+        assert edit[0] in text
+        p.write_text(text.replace(edit[0], edit[1]))
+    return folder
+
+
+def _convert(inputs: Path, mappings: Path, out: Path) -> int:
+    return cli("convert", str(inputs), "--mappings", str(mappings), "--out", str(out), "--quiet")
+
+
+def _lines(folder: Path) -> list[dict[str, Any]]:
+    return [json.loads(x) for p in sorted(folder.glob("*.jsonl")) for x in p.read_text().splitlines()]
+
+
+def _update_of_1007(out: Path) -> dict[str, Any]:
+    (event,) = [
+        e
+        for e in _lines(out / "events" / "ferry.bookings")
+        if e["key"] == {"booking_id": 1007} and e["prior"] is not None
+    ]
+    return event
+
+
+def test_reordered_fields_keep_each_waiting_value_in_its_field(tmp_path: Path) -> None:
+    # The demo leaves booking 1007's before-image waiting; the next day brings its after-image.
+    # The reference is the same two runs with the mapping unedited.
+    same = _mappings(tmp_path / "same")
+    assert _convert(DUMPS, same, tmp_path / "a") == 0 and _convert(NEXT_DAY, same, tmp_path / "a") == 0
+    expected = _update_of_1007(tmp_path / "a")
+    assert expected["changed"] == ["fare", "seats"]
+
+    assert _convert(DUMPS, same, tmp_path / "b") == 0
+    swapped = _mappings(tmp_path / "swapped", (PASSENGER + PHONE, PHONE + PASSENGER))
+    assert _convert(NEXT_DAY, swapped, tmp_path / "b") == 0
+    event = _update_of_1007(tmp_path / "b")
+    names = list(expected["prior"])
+    assert list(event["prior"]) == [*names[:3], "pax_phone", "passenger", *names[5:]]  # the new order
+    assert event["prior"] == expected["prior"] and event["values"] == expected["values"]  # by name
+    assert event["changed"] == ["fare", "seats"]  # before: pax_phone and passenger swapped, "changed"
+
+    # booking 1001's snapshot row, repeated the next day, is a duplicate of run 1 with the mapping
+    # unedited; under reordered fields its content cannot be compared: a conflict that says so
+    (q,) = _lines(tmp_path / "b" / "quarantine" / "ferry.bookings")[-1:]
+    assert q["booking_id"] == "1001" and q["op"] == "R"
+    reason = q["_cdcnorm"]["reasons"][0]
+    assert reason["found"] == "content under other fields"
+    assert "whose fields differ from the mapping's now" in reason["reason"]
+
+
+def test_waiting_images_lacking_an_added_field_stop_the_run_until_settled(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    old = _mappings(tmp_path / "old")
+    added = _mappings(tmp_path / "new", ("  seats: integer\n", "  seats: integer\n  export_batch: text\n"))
+    out = tmp_path / "o"
+    assert _convert(DUMPS, old, out) == 0
+    capsys.readouterr()
+    assert _convert(NEXT_DAY, added, out) == 4
+    err = capsys.readouterr().err
+    assert "before-images waiting for their after-images were stored under other fields" in err
+    assert "fields it lacks: export_batch" in err and "cdcnorm settle" in err
+    assert len(list((out / "runs").glob("*.json"))) == 1  # nothing committed
+    assert cli("settle", str(out), "--all", "--mappings", str(old), "--quiet") == 0
+    assert _convert(NEXT_DAY, added, out) == 0
+    events = _lines(out / "events" / "ferry.bookings")
+    assert events[-1]["values"]["export_batch"] == "live-19"
+
+
+def test_a_retyped_key_field_stops_the_run(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    old = _mappings(tmp_path / "old")
+    retyped = _mappings(tmp_path / "new", ("  booking_id: integer\n", "  booking_id: text\n"))
+    out = tmp_path / "o"
+    assert _convert(DUMPS, old, out) == 0
+    assert cli("settle", str(out), "--all", "--mappings", str(old), "--quiet") == 0
+    capsys.readouterr()
+    assert _convert(NEXT_DAY, retyped, out) == 4
+    err = capsys.readouterr().err
+    assert "identities emitted by earlier runs were stored under other fields" in err
+    assert "booking_id (BIGINT then, VARCHAR now)" in err

@@ -107,3 +107,19 @@ def test_a_retyped_key_field_stops_the_run(tmp_path: Path, capsys: pytest.Captur
     err = capsys.readouterr().err
     assert "identities emitted by earlier runs were stored under other fields" in err
     assert "booking_id (BIGINT then, VARCHAR now)" in err
+
+
+def test_a_key_grown_by_a_field_stops_the_run(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # the identities stored hold only the key fields of their day: a key field added since cannot
+    # be compared (before, the engine's binder error); a key that shrank still can
+    old = _mappings(tmp_path / "old")
+    grown = _mappings(tmp_path / "new", ("key: [booking_id]\n", "key: [booking_id, sailing_ref]\n"))
+    out = tmp_path / "o"
+    assert _convert(DUMPS, old, out) == 0
+    assert cli("settle", str(out), "--all", "--mappings", str(old), "--quiet") == 0
+    capsys.readouterr()
+    assert _convert(NEXT_DAY, grown, out) == 4
+    err = capsys.readouterr().err
+    assert "hold another key of ferry.bookings than the mapping's now" in err
+    assert "identities keyed by (booking_id): no sailing_ref" in err
+    assert _convert(NEXT_DAY, old, out) == 0  # the area is intact

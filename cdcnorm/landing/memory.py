@@ -240,13 +240,12 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
         return
     lo_key, hi_key = (f"CAST({lit(str(x))} AS {plan.types()['__pos']})" for x in (lo, hi))
     names = [lit(str(f)) for f in files]
-    marks = {
+    # every file's column names: the format marks, and the key fields it holds (v<j>)
+    held_names = {
         (str(f), str(m))
-        for f, m in engine.rows(
-            f"SELECT DISTINCT file_name, name FROM parquet_schema([{', '.join(names)}]) "
-            f"WHERE name IN ({lit(FORMAT_2_MARK)}, {lit(FORMAT_3_MARK)})"
-        )
+        for f, m in engine.rows(f"SELECT DISTINCT file_name, name FROM parquet_schema([{', '.join(names)}])")
     }
+    marks = {(f, m) for f, m in held_names if m in (FORMAT_2_MARK, FORMAT_3_MARK)}
     stated = {
         str(f): str(v)
         for f, v in engine.rows(
@@ -264,22 +263,32 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
                 hint="continue this landing area with the version of cdcnorm that wrote it, or a later one",
             )
     layouts = _stored_layouts(engine, [str(f) for f in files])
-    groups: dict[tuple[int, str], list[Path]] = {}
+    groups: dict[tuple[int, str, tuple[str, ...]], list[Path]] = {}
     for path in files:
-        key = (_format(marks, stated, str(path)), json.dumps(layouts.get(str(path))))
+        values = tuple(
+            sorted(m for f, m in held_names if f == str(path) and m[:1] == "v" and m[1:].isdigit())
+        )
+        key = (_format(marks, stated, str(path)), json.dumps(layouts.get(str(path))), values)
         groups.setdefault(key, []).append(path)
     parts = []
-    for (fmt, stated_fields), group in sorted(groups.items()):
+    hint = "a key field is compared with the one stored: keep the key, its names and types, or start a new landing area (another --out, or --replace)"
+    for (fmt, stated_fields, values), group in sorted(groups.items()):
         other = stated_fields != "null" and json.loads(stated_fields) != layout(plan)
+        stored = layouts.get(str(group[0]))
         held = _columns_by_name(
-            plan,
-            str(group[0]),
-            layouts.get(str(group[0])),
-            list(plan.key_index),
-            "identities emitted by earlier runs",
-            "a key field is compared with the one stored: keep its name and type, or start a new "
-            "landing area (another --out, or --replace)",
+            plan, str(group[0]), stored, list(plan.key_index), "identities emitted by earlier runs", hint
         )
+        lacking = [plan.fields[i] for i in plan.key_index if held[i] not in values]
+        if lacking:
+            then = [stored[int(v[1:])][0] for v in values] if stored else values
+            raise InputError(
+                f"identities emitted by earlier runs hold another key of {plan.mapping.mapping.table} "
+                "than the mapping's now",
+                file=str(group[0]),
+                expected=f"the key ({', '.join(plan.fields[i] for i in plan.key_index)})",
+                found=f"identities keyed by ({', '.join(then)}): no {', '.join(lacking)}",
+                hint=hint,
+            )
         parts.append(_earlier_rows(plan, fmt, group, lo_key, hi_key, held, other))
     engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {' UNION ALL '.join(parts)}")
 

@@ -123,3 +123,31 @@ def test_a_key_grown_by_a_field_stops_the_run(tmp_path: Path, capsys: pytest.Cap
     assert "hold another key of ferry.bookings than the mapping's now" in err
     assert "identities keyed by (booking_id): no sailing_ref" in err
     assert _convert(NEXT_DAY, old, out) == 0  # the area is intact
+
+
+@pytest.mark.parametrize(
+    ("edit", "part"),
+    [
+        (("kind: hex-pair", "kind: text"), "position"),
+        (("{column: seq, kind: integer}", "{column: seq, kind: text}"), "sequence"),
+    ],
+)
+@pytest.mark.parametrize("settled", [True, False])
+def test_another_kind_of_position_or_sequence_stops_the_run(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], edit: tuple[str, str], part: str, settled: bool
+) -> None:
+    # stored keys are the position's and sequence's keys of their kind: under another kind the
+    # identities would be other positions and booking 1001's repeated snapshot row, a duplicate,
+    # would be emitted again without a word (the sequence) or the engine's binder error (the position)
+    old = _mappings(tmp_path / "old")
+    edited = _mappings(tmp_path / "new", edit)
+    out = tmp_path / "o"
+    assert _convert(DUMPS, old, out) == 0
+    if settled:
+        assert cli("settle", str(out), "--all", "--mappings", str(old), "--quiet") == 0
+    capsys.readouterr()
+    assert _convert(NEXT_DAY, edited, out) == 4
+    err = capsys.readouterr().err
+    what = "identities emitted by earlier runs" if settled else "before-images waiting"
+    assert f"{what}" in err and f"were stored under another {part} of ferry.bookings" in err
+    assert _convert(NEXT_DAY, old, out) == 0

@@ -38,6 +38,7 @@ from __future__ import annotations
 
 import json
 from pathlib import Path
+from typing import Any
 
 from cdcnorm import positions
 from cdcnorm.engines.duckdb import DuckDBEngine
@@ -91,22 +92,60 @@ def layout(plan: Plan) -> list[list[str]]:
     return [[name, types[f"v{i}"]] for i, name in enumerate(plan.fields)]
 
 
+#: The key of the key-value metadata of identity and pending files that states the kinds (and
+#: widths) of the position and sequence their keys were stored as, as JSON.
+ORDER_KEY = "cdcnorm_order"
+
+
+def order_spec(plan: Plan) -> dict[str, list[Any] | None]:
+    """The position's and sequence's kind and width, as stored keys depend on them."""
+    pos, seq = _kinds(plan)
+    return {"position": list(pos), "sequence": list(seq) if seq else None}
+
+
 def _metadata(plan: Plan, *extra: tuple[str, str]) -> str:
-    """SQL: the KV_METADATA of a memory file: its fields, and ``extra`` (key, value) pairs."""
-    pairs = [(FIELDS_KEY, json.dumps(layout(plan))), *extra]
+    """SQL: the KV_METADATA of a memory file: its fields and order, and ``extra`` (key, value) pairs."""
+    pairs = [(FIELDS_KEY, json.dumps(layout(plan))), (ORDER_KEY, json.dumps(order_spec(plan))), *extra]
     return "{" + ", ".join(f"{k}: {lit(v)}" for k, v in pairs) + "}"
 
 
-def _stored_layouts(engine: DuckDBEngine, files: list[str]) -> dict[str, list[list[str]]]:
-    """The fields each of these memory files states it was written under (files written before
-    they stated any are left out)."""
+def _stated(engine: DuckDBEngine, files: list[str], key: str) -> dict[str, Any]:
+    """What each of these memory files states under ``key`` of its metadata, parsed (files written
+    before they stated it are left out)."""
     return {
         str(f): json.loads(str(v))
         for f, v in engine.rows(
             f"SELECT file_name, decode(value) FROM parquet_kv_metadata([{', '.join(lit(f) for f in files)}]) "
-            f"WHERE decode(key) = {lit(FIELDS_KEY)}"
+            f"WHERE decode(key) = {lit(key)}"
         )
     }
+
+
+def _stored_layouts(engine: DuckDBEngine, files: list[str]) -> dict[str, list[list[str]]]:
+    """The fields each of these memory files states it was written under."""
+    return _stated(engine, files, FIELDS_KEY)
+
+
+def _check_order(engine: DuckDBEngine, plan: Plan, files: list[str], what: str) -> None:
+    """Stop when a file's keys were stored under another kind or width of position or sequence:
+    they would be read as other positions (or not at all), and repeats would be emitted again."""
+    now = order_spec(plan)
+    for file, then in sorted(_stated(engine, files, ORDER_KEY).items()):
+        for part in ("position", "sequence"):
+            if then.get(part) != now[part]:
+
+                def say(spec: list[Any] | None) -> str:
+                    return "none" if spec is None else f"kind {spec[0]}, width {spec[1]}"
+
+                raise InputError(
+                    f"{what} were stored under another {part} of {plan.mapping.mapping.table} than "
+                    "the mapping's now: their positions cannot be compared with this run's",
+                    file=file,
+                    expected=f"the {part} {say(now[part])}",
+                    found=f"the {part} {say(then.get(part))}",
+                    hint="keep change.position and change.sequence as they were for this landing area, "
+                    "or start another (another --out, or --replace)",
+                )
 
 
 def _columns_by_name(
@@ -197,12 +236,15 @@ def load_carried(engine: DuckDBEngine, plan: Plan, path: Path | None, first_id: 
     ids = [(first_id + i, n) for i, n in enumerate(names)]
     values = "(VALUES " + ", ".join(f"({i}, {lit(n)})" for i, n in ids) + ") f(id, name)" if ids else None
     types = carried_columns(plan)
+    what = "before-images waiting for their after-images"
+    if ids:
+        _check_order(engine, plan, [str(path)], what)
     held = _columns_by_name(
         plan,
         str(path),
         _stored_layouts(engine, [str(path)]).get(str(path)) if ids else None,
         list(range(len(plan.fields))),
-        "before-images waiting for their after-images",
+        what,
         "settle them first with the mapping they were read under (cdcnorm settle LANDING --all "
         "--mappings OLD), or keep the field's name and type",
     )
@@ -262,6 +304,7 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
                 found=f"index format {v}",
                 hint="continue this landing area with the version of cdcnorm that wrote it, or a later one",
             )
+    _check_order(engine, plan, [str(f) for f in files], "identities emitted by earlier runs")
     layouts = _stored_layouts(engine, [str(f) for f in files])
     groups: dict[tuple[int, str, tuple[str, ...]], list[Path]] = {}
     for path in files:

@@ -151,3 +151,30 @@ def test_another_kind_of_position_or_sequence_stops_the_run(
     what = "identities emitted by earlier runs" if settled else "before-images waiting"
     assert f"{what}" in err and f"were stored under another {part} of ferry.bookings" in err
     assert _convert(NEXT_DAY, old, out) == 0
+
+
+def test_apply_after_a_field_was_added_names_the_column_and_the_remedy(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # SQLite (the real database) says which column its table lacks; once it is added as the hint
+    # says, the same apply loads the new field
+    import sqlite3
+
+    old = _mappings(tmp_path / "old")
+    added = _mappings(tmp_path / "new", ("  seats: integer\n", "  seats: integer\n  export_batch: text\n"))
+    out, db = tmp_path / "o", tmp_path / "w.db"
+    target = f"sqlite:///{db}"
+    assert _convert(DUMPS, old, out) == 0
+    assert cli("apply", str(out), "--mappings", str(old), "--target", target, "--json") == 0
+    assert cli("settle", str(out), "--all", "--mappings", str(old), "--quiet") == 0
+    assert _convert(NEXT_DAY, added, out) == 0
+    capsys.readouterr()
+    assert cli("apply", str(out), "--mappings", str(added), "--target", target, "--json") == 10
+    err = capsys.readouterr().err
+    assert "has no column named export_batch" in err and "ADD COLUMN" in err
+    with sqlite3.connect(db) as con:
+        con.execute('ALTER TABLE "ferry.bookings" ADD COLUMN export_batch TEXT')
+    assert cli("apply", str(out), "--mappings", str(added), "--target", target, "--json") == 0
+    with sqlite3.connect(db) as con:
+        rows = dict(con.execute('SELECT booking_id, export_batch FROM "ferry.bookings"').fetchall())
+    assert rows[1008] == "live-19" and rows[1001] is None  # 1001 was loaded before the field was mapped

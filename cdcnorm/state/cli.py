@@ -191,7 +191,9 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
                 raise TargetError(
                     f"{target.shown}: {scrub(first, url)}",
                     field=m.table,
-                    hint="check the URL, that the server runs and that the user may create tables",
+                    hint="check the URL, that the server runs, that the user may create tables, and that "
+                    "tables made by an earlier apply have the mapping's fields (a field added to a mapping "
+                    "needs its column: ALTER TABLE ... ADD COLUMN)",
                 ) from None
     missing = _unmapped(mappings, landing) if args.table is None else []
     data = {

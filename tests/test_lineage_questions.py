@@ -135,26 +135,56 @@ def test_impact_of_a_retype_to_float(demo: tuple) -> None:  # type: ignore[type-
     assert "exact decimal becomes a float" in changes["daily_revenue.total_fare"]["change"]
 
 
-def test_a_retype_reports_each_dependents_type_from_sqlglots_annotation(tmp_path: Path) -> None:
+SIZES = (
+    "SELECT CASE WHEN amount > 100 THEN 'big' ELSE 'small' END AS size, amount * 2 AS doubled,\n"
+    "  CAST(amount AS BIGINT) AS whole, sum(amount) OVER () AS total FROM shop.orders\n"
+)
+
+
+def test_a_retype_reports_each_dependents_type_as_the_engine_gives_it(tmp_path: Path) -> None:
+    import duckdb
+
     folder = tmp_path / "models"
     folder.mkdir()
-    (folder / "sizes.sql").write_text(
-        "SELECT CASE WHEN amount > 100 THEN 'big' ELSE 'small' END AS size, amount * 2 AS doubled,\n"
-        "  CAST(amount AS BIGINT) AS whole FROM shop.orders\n"
+    (folder / "sizes.sql").write_text(SIZES)
+    loaded = load_models(folder, "duckdb")
+    project = build_project(None, [], "duckdb", loaded=loaded, tables=SCHEMA)
+    r = impact(project, "shop.orders.amount", Edit("retype", "DOUBLE"), mappings=[], loaded=loaded)
+    got = {v["column"]: (v["type_before"], v["type_after"], v["types_from"]) for v in r["value_changes"]}
+
+    # the reference: DuckDB itself (a real database), describing the model over the table as
+    # declared and as retyped
+    def described(amount_type: str) -> dict[str, str]:
+        con = duckdb.connect()
+        con.execute(f"CREATE SCHEMA shop; CREATE TABLE shop.orders (amount {amount_type})")
+        return {str(r[0]): str(r[1]) for r in con.execute(f"DESCRIBE {SIZES}").fetchall()}
+
+    before, after = described(SCHEMA["shop.orders"]["amount"]), described("DOUBLE")
+    assert got == {
+        f"sizes.{c}": (before[c], after[c], "engine") for c in ("size", "doubled", "whole", "total")
+    }
+    assert before["doubled"] != "DECIMAL(12,2)" and before["total"] == "DECIMAL(38,2)"  # not the input's type
+    size = next(v for v in r["value_changes"] if v["column"] == "sizes.size")
+    assert size["change"].startswith("its type stays VARCHAR")
+
+
+def test_a_retype_types_what_the_engine_does_not_build_by_sqlglot_and_declared_columns(
+    tmp_path: Path,
+) -> None:
+    # an INSERT into a table the models create with typed columns is not built by the binding
+    # check: the declared type holds (the engine casts what is inserted), the rest is sqlglot's
+    folder = tmp_path / "models"
+    folder.mkdir()
+    (folder / "totals.sql").write_text(
+        "CREATE TABLE totals (n BIGINT, total DECIMAL(14,2), twice DECIMAL(12,2));\n"
+        "INSERT INTO totals (n, total, twice) SELECT count(*), sum(amount), max(amount) * 2 FROM shop.orders;\n"
     )
     loaded = load_models(folder, "duckdb")
     project = build_project(None, [], "duckdb", loaded=loaded, tables=SCHEMA)
     r = impact(project, "shop.orders.amount", Edit("retype", "DOUBLE"), mappings=[], loaded=loaded)
-    got = {v["column"]: (v["type_before"], v["type_after"]) for v in r["value_changes"]}
-    # sqlglot's type annotation (the reference library): a CASE of string literals stays text, a
-    # product follows its operand, a cast keeps its target type
-    assert got == {
-        "sizes.size": ("TEXT", "TEXT"),
-        "sizes.doubled": ("DECIMAL(12, 2)", "DOUBLE"),
-        "sizes.whole": ("BIGINT", "BIGINT"),
-    }
-    size = next(v for v in r["value_changes"] if v["column"] == "sizes.size")
-    assert size["change"].startswith("its type stays TEXT")
+    got = {v["column"]: (v["type_before"], v["type_after"], v["types_from"]) for v in r["value_changes"]}
+    assert got["totals.total"] == ("DECIMAL(14, 2)", "DECIMAL(14, 2)", "sqlglot")
+    assert got["totals.twice"] == ("DECIMAL(12, 2)", "DECIMAL(12, 2)", "sqlglot")
 
 
 def test_an_edit_re_resolves_only_what_it_reaches_and_equals_a_full_rebuild(tmp_path: Path) -> None:

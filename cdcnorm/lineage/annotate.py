@@ -2,7 +2,9 @@
 
 Models are typed upstream first: the source tables carry the mappings' and catalogs' types (with a
 simulated retype applied), each model's output types join the schema that types the next. A CASE of
-string literals stays text whatever its conditions read; ``x * 2`` follows ``x``.
+string literals stays text whatever its conditions read; ``x * 2`` follows ``x``. A table a model
+file creates with typed columns (``CREATE TABLE t (a DECIMAL(14,2))``) and fills by INSERT keeps
+the declared types: the engine casts what is inserted.
 """
 
 from __future__ import annotations
@@ -73,9 +75,13 @@ def type_models(
                 col = col or (info.columns[i] if i < len(info.columns) else None)
                 if col is not None and col not in found:
                     found[col] = t
+        # rows inserted into a table created with typed columns take the declared types
+        sts = project.statements.get(name) or []
+        for st in sts:
+            if st.kind == "insert":
+                found.update(project.declared.get(st.target, {}))
         for col in info.columns:
             types[("model", name, col)] = found.get(col, UNKNOWN)
-        sts = project.statements.get(name)
         parts = sts[0].target if sts else (name,)
         catalog.add(declared_table("model", name, parts, list(info.columns), dialect, found, "model"))
     return types

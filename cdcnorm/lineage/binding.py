@@ -41,6 +41,8 @@ class Outcome:
     ok: dict[str, bool]
     reasons: dict[str, str]
     unavailable: dict[str, str]
+    #: the engine's type of each column of each model it built (model -> column -> type)
+    types: dict[str, dict[str, str]]
 
 
 def _build(
@@ -50,6 +52,7 @@ def _build(
     ok: dict[str, bool] = {}
     reasons: dict[str, str] = {}
     unavailable: dict[str, str] = {}
+    types: dict[str, dict[str, str]] = {}
     try:
         for info in tables:
             if info.kind != "source" or not info.columns:
@@ -87,6 +90,7 @@ def _build(
                 con.execute(f"CREATE VIEW {view}{cols} AS {query}")
                 con.execute(f"SELECT * FROM {view}").fetchall()  # run it over the synthetic rows
                 ok[model] = True
+                types[model] = {str(r[0]): str(r[1]) for r in con.execute(f"DESCRIBE {view}").fetchall()}
             except duckdb.Error as e:
                 ok[model] = False
                 refused = [
@@ -97,7 +101,7 @@ def _build(
                 )
     finally:
         con.close()
-    return Outcome(ok, reasons, unavailable)
+    return Outcome(ok, reasons, unavailable, types)
 
 
 def _in_our_words(message: str) -> str:
@@ -156,6 +160,8 @@ def check_edit(
         "broken": broken,
         "unavailable": [{"model": m, "reason": r} for m, r in sorted(before.unavailable.items())],
         "failing_before": sorted(m for m, good in before.ok.items() if not good),
+        # the engine's own types of the models it built, before and after the edit
+        "types": (before.types, after.types),
     }
 
 

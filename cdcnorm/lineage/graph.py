@@ -109,6 +109,8 @@ class Project:
     statements: dict[str, list[ModelStatement]] = field(default_factory=dict)
     reads: dict[str, set[tuple[str, ...]]] = field(default_factory=dict)
     readers: nx.DiGraph = field(default_factory=nx.DiGraph)
+    #: typed columns of tables the model files create without a query (``LoadedModels.declared``)
+    declared: dict[tuple[str, ...], dict[str, str]] = field(default_factory=dict)
 
     def view(self) -> Views:
         if self.views is None:
@@ -588,6 +590,7 @@ def _build_project(
         dict(by_model),
         reads,
         deps,
+        loaded.declared,
     )
 
 

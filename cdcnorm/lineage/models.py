@@ -43,6 +43,24 @@ class LoadedModels:
     statements: list[ModelStatement] = field(default_factory=list)
     diagnostics: list[Diagnostic] = field(default_factory=list)
     files: list[str] = field(default_factory=list)
+    #: tables a model file creates with typed columns and no query (CREATE TABLE t (a INT, ...)),
+    #: by normalised name: column -> SQL type. Rows inserted later take these types.
+    declared: dict[tuple[str, ...], dict[str, str]] = field(default_factory=dict)
+
+
+def _declared_columns(stmt: exp.Create, dialect: str) -> dict[str, str]:
+    """The typed columns of ``CREATE TABLE t (a INT, ...)``: normalised name -> SQL type."""
+    from sqlglot.optimizer.normalize_identifiers import normalize_identifiers
+
+    out: dict[str, str] = {}
+    schema = stmt.this
+    if isinstance(schema, exp.Schema):
+        for col in schema.expressions:
+            kind = col.args.get("kind") if isinstance(col, exp.ColumnDef) else None
+            if isinstance(kind, exp.DataType):
+                name = normalize_identifiers(col.this.copy(), dialect=dialect)
+                out[name.name] = kind.sql(dialect=dialect)
+    return out
 
 
 def _normalise(name: exp.Expr, dialect: str) -> tuple[str, ...]:
@@ -120,6 +138,10 @@ def load_model_file(path: Path, dialect: str, root: Path | None = None) -> Loade
             )
             continue
         ms = _classify(stmt, path.stem, shown, line, dialect)
+        if ms is None and isinstance(stmt, exp.Create) and isinstance(stmt.this, exp.Schema):
+            typed = _declared_columns(stmt, dialect)
+            if typed and isinstance(stmt.this.this, exp.Table):
+                out.declared[_normalise(stmt.this.this, dialect)] = typed
         if ms is None:
             why = unsupported(stmt)
             if why:
@@ -210,4 +232,6 @@ def _load_models(folder: Path, dialect: str) -> LoadedModels:
             out.statements.append(st)
         out.diagnostics.extend(one.diagnostics)
         out.files.extend(one.files)
+        for name, typed in one.declared.items():
+            out.declared.setdefault(name, typed)
     return out

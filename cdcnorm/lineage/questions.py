@@ -334,10 +334,14 @@ def impact(
     binding_targets = (
         fields if node[0] in ("raw", "source") and (edit.kind == "drop" or node[0] == "source") else []
     )
+    engine_types: tuple[dict[str, dict[str, str]], dict[str, dict[str, str]]] | None = None
     if binding_targets and loaded is not None:
         from cdcnorm.lineage.binding import check_edit
 
         checks = [check_edit(project, loaded, t[1], t[2], edit.kind, edit.value) for t in binding_targets]
+        engine_types = checks[0].pop("types") if len(checks) == 1 else None
+        for c in checks:
+            c.pop("types", None)
         result["binding"] = {
             "checked": True,
             "broken": [b for c in checks for b in c["broken"]],
@@ -372,10 +376,19 @@ def impact(
                 path = _path(project, node, n, True)
                 copies = all(step["how"] == "copy" for step in path)
                 a, b = typed_before.get(n, "UNKNOWN"), typed_after.get(n, "UNKNOWN")
+                typed_by = "sqlglot"
+                # the engine's types where it built the model before and after (its own answer)
+                was, now = (
+                    (engine_types[0].get(n[1], {}).get(n[2]), engine_types[1].get(n[1], {}).get(n[2]))
+                    if engine_types
+                    else (None, None)
+                )
+                if was is not None and now is not None:
+                    a, b, typed_by = was, now, "engine"
                 if a != b:
                     what = f"its type changes ({a} -> {b}); the source: {change}"
                 else:
-                    what = f"its type stays {a}; it is computed from a column whose {change.removeprefix('the ')}"
+                    what = f"its type stays {a}; a column it is computed from changes: {change}"
                 result["value_changes"].append(
                     {
                         "column": node_name(n),
@@ -384,6 +397,7 @@ def impact(
                         else "computed from it: results may change",
                         "type_before": a,
                         "type_after": b,
+                        "types_from": typed_by,
                         "change": what,
                     }
                 )

@@ -161,7 +161,7 @@ def test_a_retype_reports_each_dependents_type_as_the_engine_gives_it(tmp_path: 
 
     before, after = described(SCHEMA["shop.orders"]["amount"]), described("DOUBLE")
     assert got == {
-        f"sizes.{c}": (before[c], after[c], "engine") for c in ("size", "doubled", "whole", "total")
+        f"sizes.{c}": (before[c], after[c], "duckdb") for c in ("size", "doubled", "whole", "total")
     }
     assert before["doubled"] != "DECIMAL(12,2)" and before["total"] == "DECIMAL(38,2)"  # not the input's type
     size = next(v for v in r["value_changes"] if v["column"] == "sizes.size")

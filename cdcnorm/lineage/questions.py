@@ -384,7 +384,7 @@ def impact(
                     else (None, None)
                 )
                 if was is not None and now is not None:
-                    a, b, typed_by = was, now, "engine"
+                    a, b, typed_by = was, now, "duckdb"
                 if a != b:
                     what = f"its type changes ({a} -> {b}); the source: {change}"
                 else:

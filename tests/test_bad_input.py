@@ -340,18 +340,11 @@ def test_json_lines_records_that_are_not_rfc_8259_objects_are_quarantined(
     assert q["_cdcnorm"]["row"] == 2
 
 
-NESTED = """
-table: t.nested
-files: ["n*"]
-key: [id]
-change:
-  action: {column: op, codes: {I: insert}}
-  position: {column: pos, kind: integer}
-fields:
-  id: {from: after.id, type: integer}
-  city: {from: after.place.city, type: text}
-  extra: {from: extra, type: json}
-"""
+#: Values read from nested objects (JSON Lines) or struct members (Parquet) by dotted names.
+NESTED_FIELDS = "  id: {from: after.id, type: integer}\n  city: {from: after.place.city, type: text}\n"
+NESTED = NOTES.replace("t.notes", "t.nested").replace(
+    "  id: integer\n  a: TYPE\n", NESTED_FIELDS + "  extra: {from: extra, type: json}\n"
+)
 
 
 def _repeats_on_the_way(line: str, ways: list[tuple[str, ...]]) -> bool:

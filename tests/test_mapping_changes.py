@@ -42,6 +42,22 @@ def _lines(folder: Path) -> list[dict[str, Any]]:
     return [json.loads(x) for p in sorted(folder.glob("*.jsonl")) for x in p.read_text().splitlines()]
 
 
+def _next_day_refused(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], edit: tuple[str, str], settled: bool = True
+) -> tuple[Path, Path, str]:
+    """The demo converted under the shipped mappings (its waiting images settled), then the next
+    day under the edited ones, which must stop with exit 4: (old mappings, area, the error)."""
+    old = _mappings(tmp_path / "old")
+    edited = _mappings(tmp_path / "new", edit)
+    out = tmp_path / "o"
+    assert _convert(DUMPS, old, out) == 0
+    if settled:
+        assert cli("settle", str(out), "--all", "--mappings", str(old), "--quiet") == 0
+    capsys.readouterr()
+    assert _convert(NEXT_DAY, edited, out) == 4
+    return old, out, capsys.readouterr().err
+
+
 def _update_of_1007(out: Path) -> dict[str, Any]:
     (event,) = [
         e
@@ -97,14 +113,7 @@ def test_waiting_images_lacking_an_added_field_stop_the_run_until_settled(
 
 
 def test_a_retyped_key_field_stops_the_run(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    old = _mappings(tmp_path / "old")
-    retyped = _mappings(tmp_path / "new", ("  booking_id: integer\n", "  booking_id: text\n"))
-    out = tmp_path / "o"
-    assert _convert(DUMPS, old, out) == 0
-    assert cli("settle", str(out), "--all", "--mappings", str(old), "--quiet") == 0
-    capsys.readouterr()
-    assert _convert(NEXT_DAY, retyped, out) == 4
-    err = capsys.readouterr().err
+    _, _, err = _next_day_refused(tmp_path, capsys, ("  booking_id: integer\n", "  booking_id: text\n"))
     assert "identities emitted by earlier runs were stored under other fields" in err
     assert "booking_id (BIGINT then, VARCHAR now)" in err
 
@@ -112,14 +121,8 @@ def test_a_retyped_key_field_stops_the_run(tmp_path: Path, capsys: pytest.Captur
 def test_a_key_grown_by_a_field_stops_the_run(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     # the identities stored hold only the key fields of their day: a key field added since cannot
     # be compared (before, the engine's binder error); a key that shrank still can
-    old = _mappings(tmp_path / "old")
-    grown = _mappings(tmp_path / "new", ("key: [booking_id]\n", "key: [booking_id, sailing_ref]\n"))
-    out = tmp_path / "o"
-    assert _convert(DUMPS, old, out) == 0
-    assert cli("settle", str(out), "--all", "--mappings", str(old), "--quiet") == 0
-    capsys.readouterr()
-    assert _convert(NEXT_DAY, grown, out) == 4
-    err = capsys.readouterr().err
+    edit = ("key: [booking_id]\n", "key: [booking_id, sailing_ref]\n")
+    old, out, err = _next_day_refused(tmp_path, capsys, edit)
     assert "hold another key of ferry.bookings than the mapping's now" in err
     assert "identities keyed by (booking_id): no sailing_ref" in err
     assert _convert(NEXT_DAY, old, out) == 0  # the area is intact
@@ -139,17 +142,9 @@ def test_another_kind_of_position_or_sequence_stops_the_run(
     # stored keys are the position's and sequence's keys of their kind: under another kind the
     # identities would be other positions and booking 1001's repeated snapshot row, a duplicate,
     # would be emitted again without a word (the sequence) or the engine's binder error (the position)
-    old = _mappings(tmp_path / "old")
-    edited = _mappings(tmp_path / "new", edit)
-    out = tmp_path / "o"
-    assert _convert(DUMPS, old, out) == 0
-    if settled:
-        assert cli("settle", str(out), "--all", "--mappings", str(old), "--quiet") == 0
-    capsys.readouterr()
-    assert _convert(NEXT_DAY, edited, out) == 4
-    err = capsys.readouterr().err
+    old, out, err = _next_day_refused(tmp_path, capsys, edit, settled)
     what = "identities emitted by earlier runs" if settled else "before-images waiting"
-    assert f"{what}" in err and f"were stored under another {part} of ferry.bookings" in err
+    assert what in err and f"were stored under another {part} of ferry.bookings" in err
     assert _convert(NEXT_DAY, old, out) == 0
 
 

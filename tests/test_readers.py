@@ -9,6 +9,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from tests.conftest import ConvertFn
+from tests.test_bad_input import NESTED, NESTED_FIELDS
 
 MAPPING = """
 table: t.notes
@@ -131,18 +132,12 @@ def test_jsonl_file_of_malformed_lines_only_is_quarantined_not_drift(convert: Co
 
 
 def test_jsonl_nested_flat_and_malformed_lines(convert: ConvertFn) -> None:
-    mapping = """
-    table: t.nested
-    files: ["n*.jsonl"]
-    key: [id]
-    change:
-      action: {column: op, codes: {I: insert}}
-      position: {column: pos, kind: integer}
-    fields:
-      id: {from: after.id, type: integer}
-      price: {from: after.price, type: "decimal(12,2)"}
-      tags: {from: after.tags, type: json}
-    """
+    mapping = NESTED.replace(
+        NESTED_FIELDS + "  extra: {from: extra, type: json}\n",
+        '  id: {from: after.id, type: integer}\n  price: {from: after.price, type: "decimal(12,2)"}\n'
+        "  tags: {from: after.tags, type: json}\n",
+    )
+    assert mapping != NESTED
     data = (
         '{"op": "I", "pos": 1, "after": {"id": 1, "price": 12.34, "tags": ["a"]}}\n'
         "\n"
@@ -183,24 +178,12 @@ def test_parquet_struct_members_read_as_json_lines_nested_keys(convert: ConvertF
     # Change dumps written as Parquet often nest the row image in a struct column ("after"). A
     # dotted mapped column reads the struct's member, as the same nested key of JSON Lines does:
     # the same rows as Parquet (pyarrow) and as JSON Lines (Python's json) give the same events.
-    mapping = """
-    table: t.nested
-    files: ["n*"]
-    key: [id]
-    change:
-      action: {column: op, codes: {I: insert, D: delete}}
-      position: {column: pos, kind: integer}
-    fields:
-      id: {from: after.id, type: integer}
-      city: {from: after.place.city, type: text}
-      zone: {from: after.place.zone, type: integer}
-      tags: {from: after.tags, type: json}
-    """
+    mapping = NESTED
     rows = [
-        {"op": "I", "pos": 1, "after": {"id": 1, "place": {"city": "Quay", "zone": 3}, "tags": [1, 2]}},
-        {"op": "I", "pos": 2, "after": {"id": 2, "place": None, "tags": []}},
-        {"op": "I", "pos": 3, "after": {"id": 3, "place": {"city": None, "zone": None}, "tags": None}},
-        {"op": "D", "pos": 4, "after": None},
+        {"op": "I", "pos": 1, "after": {"id": 1, "place": {"city": "Quay", "zone": 3}}, "extra": [1, 2]},
+        {"op": "I", "pos": 2, "after": {"id": 2, "place": None}, "extra": []},
+        {"op": "I", "pos": 3, "after": {"id": 3, "place": {"city": None, "zone": None}}, "extra": None},
+        {"op": "D", "pos": 4, "after": None, "extra": None},
     ]
     import io
     import json

@@ -149,6 +149,7 @@ def test_an_empty_file_is_noted_not_passed_over(tmp_path: Path, capsys: pytest.C
     )
     notes = json.loads(capsys.readouterr().out)["notes"]
     assert notes == [{"table": "ferry.bookings", "file": "bookings-cut.csv", "note": "the file is empty"}]
+    assert last_run(tmp_path / "o2")["notes"] == notes  # the run's record keeps them
     assert cli("check", "--mappings", str(MAPPINGS), str(dumps)) == 0
     assert "note: bookings-cut.csv (ferry.bookings): the file is empty" in capsys.readouterr().out
 

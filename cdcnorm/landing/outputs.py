@@ -152,6 +152,8 @@ def commit_run(
         if table_dir.name not in waiting_by_table and area.pending_file(table_dir.name) is not None:
             waiting_by_table[table_dir.name] = area.waiting_count(table_dir.name)
     result.waiting = sum(waiting_by_table.values())
+    from cdcnorm.pipeline import file_notes  # the pipeline calls this module
+
     record = {
         "run": run,
         "started": started,
@@ -165,6 +167,7 @@ def commit_run(
         },
         "inputs": inputs,
         "skipped": result.skipped,
+        "notes": file_notes(result),
         "ledger": result.ledger.as_dict(),
         "pending": result.pending,
         "waiting": result.waiting,

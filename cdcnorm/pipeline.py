@@ -267,7 +267,12 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
     return drift, unmapped
 
 
-def compile_table(mapping: LoadedMapping, raw: RawTable, settle: str | None = None) -> Plan:
+def compile_table(
+    mapping: LoadedMapping,
+    raw: RawTable,
+    settle: str | None = None,
+    earlier_orders: tuple[tuple[int, ...], ...] = (),
+) -> Plan:
     """Build the table's plan: every stage adds its steps, in order."""
     for c in mapping.mapping.mapped_columns():
         raw.internal(c)  # a mapped column no file has still has a name (its values are NULL)
@@ -278,6 +283,7 @@ def compile_table(mapping: LoadedMapping, raw: RawTable, settle: str | None = No
         internal={c: raw.internal(c) for c in raw.columns},
         malformed=raw.malformed_relation if any(f.malformed for f in raw.files) else None,
         settle=settle,
+        earlier_orders=earlier_orders,
     )
     for _, stage in STAGES:
         plan = stage(plan)
@@ -391,7 +397,11 @@ def _run(
     for table, raw in read.items():
         drift, unmapped = find_drift(by_name[table], raw)
         drifts.extend(drift)
-        plan = compile_table(by_name[table], raw, _settle_key(engine, by_name[table], options.settle))
+        settle_key = _settle_key(engine, by_name[table], options.settle)
+        plan = compile_table(by_name[table], raw, settle_key)
+        orders = memory.field_orders(engine, plan, area.emitted_files(table) if area else [])
+        if orders:  # identities written before the mapping's fields were reordered
+            plan = compile_table(by_name[table], raw, settle_key, orders)
         file_names.extend((f.file_id, f.name) for f in raw.files)
         carried = memory.load_carried(engine, plan, area.pending_file(table) if area else None, next_id)
         next_id += len(carried)

@@ -61,6 +61,10 @@ class Plan:
     #: pending before-images carried in that this run sends to quarantine: None (they keep
     #: waiting), "all", or SQL of a position key below which they do
     settle: str | None = None
+    #: the orders of the fields (indices of ``fields``) that earlier runs' identity files were
+    #: written in, where they differ from the mapping's now (fields reordered): their digests are
+    #: compared with ``content(order=...)``
+    earlier_orders: tuple[tuple[int, ...], ...] = ()
     steps: tuple[Step, ...] = field(default_factory=tuple)
 
     def types(self) -> dict[str, str]:
@@ -81,7 +85,9 @@ class Plan:
             out[f"v{i}"] = ftype.sql_type
         return out
 
-    def content(self, prefix: str = "", *, format_3: bool = False) -> str:
+    def content(
+        self, prefix: str = "", *, format_3: bool = False, order: tuple[int, ...] | None = None
+    ) -> str:
         """SQL: the 128-bit digest of a row's content (commit time and every value), to tell a
         repeat of an identity that an earlier run emitted from a conflicting version.
 
@@ -95,7 +101,9 @@ class Plan:
         ``;``; NULL is a lone ``;``. No two rows share a canonical text. Index format 4 stores it.
 
         ``format_3``: the digest index format 3 stored, which wrote an empty bytes value as
-        nothing, the same text as NULL (a repeat of its identities is compared with it)."""
+        nothing, the same text as NULL (a repeat of its identities is compared with it).
+        ``order``: the fields in this order (indices of ``fields``), as a mapping whose fields were
+        since reordered wrote them."""
         from cdcnorm.positions import HEX_KEY
         from cdcnorm.types.timestamp import timestamp_canonical
 
@@ -103,7 +111,9 @@ class Plan:
         # ';' alone), or a text's length, ':' (NULL: ';') and the text; a chain of || would copy the
         # growing text at each step (0.1 s more per 1M rows)
         parts = [timestamp_canonical(f"{prefix}__cat"), "';'"]
-        for i, ftype in enumerate(self.mapping.field_types.values()):
+        ftypes = list(self.mapping.field_types.values())
+        for i in order if order is not None else range(len(ftypes)):
+            ftype = ftypes[i]
             v = f"{prefix}v{i}"
             text = (
                 f"CAST({ftype.render(v)} AS VARCHAR)"

@@ -3,8 +3,9 @@
 What runs remember (identities emitted, before-images waiting) is stored with the fields it was
 written under, by name: a field reordered, added, removed or retyped in the mapping never puts
 one field's value into another. What cannot be had is said: waiting images lacking a field stop
-the run (exit 4) until they are settled, and a repeat of a row emitted under other fields is a
-conflict that says its content could not be compared.
+the run (exit 4) until they are settled; a repeat of a row emitted before the fields were
+reordered is compared in their old order, and one emitted under other fields is a conflict that
+says its content could not be compared.
 """
 
 from __future__ import annotations
@@ -16,7 +17,7 @@ from typing import Any
 
 import pytest
 
-from tests.conftest import ROOT, cli
+from tests.conftest import ROOT, cli, last_run
 
 DUMPS = ROOT / "examples" / "dumps"
 NEXT_DAY = ROOT / "examples" / "next-day"
@@ -84,10 +85,21 @@ def test_reordered_fields_keep_each_waiting_value_in_its_field(tmp_path: Path) -
     assert event["prior"] == expected["prior"] and event["values"] == expected["values"]  # by name
     assert event["changed"] == ["fare", "seats"]  # before: pax_phone and passenger swapped, "changed"
 
-    # booking 1001's snapshot row, repeated the next day, is a duplicate of run 1 with the mapping
-    # unedited; under reordered fields its content cannot be compared: a conflict that says so
-    (q,) = _lines(tmp_path / "b" / "quarantine" / "ferry.bookings")[-1:]
-    assert q["booking_id"] == "1001" and q["op"] == "R"
+    # booking 1001's snapshot row, repeated the next day, is a duplicate of run 1 as with the
+    # mapping unedited: its digest is compared in the field order run 1 wrote (cdcnorm_fields)
+    ledgers = [last_run(tmp_path / x)["ledger"]["tables"]["ferry.bookings"] for x in ("a", "b")]
+    assert ledgers[0] == ledgers[1] and ledgers[1]["total"]["duplicate"] == 1
+
+
+def test_a_repeat_of_a_row_emitted_under_other_fields_says_it_cannot_be_compared(tmp_path: Path) -> None:
+    # a field removed since run 1: booking 1001's repeated snapshot row cannot be compared with
+    # the content run 1 stored (it digested the removed field too): a conflict that says so
+    old = _mappings(tmp_path / "old")
+    fewer = _mappings(tmp_path / "new", (PHONE, ""))
+    out = tmp_path / "o"
+    assert _convert(DUMPS, old, out) == 0 and _convert(NEXT_DAY, fewer, out) == 0
+    (q,) = [x for x in _lines(out / "quarantine" / "ferry.bookings") if x["op"] == "R"]
+    assert q["booking_id"] == "1001"
     reason = q["_cdcnorm"]["reasons"][0]
     assert reason["found"] == "content under other fields"
     assert "whose fields differ from the mapping's now" in reason["reason"]

@@ -148,6 +148,29 @@ def _check_order(engine: DuckDBEngine, plan: Plan, files: list[str], what: str) 
                 )
 
 
+def _reordered(stored: list[list[str]], now: list[list[str]]) -> tuple[int, ...] | None:
+    """The order (indices of ``now``) of the stored fields when they are the mapping's fields,
+    names and types, in another order; else None."""
+    names = [name for name, _ in now]
+    if (
+        stored == now
+        or len(set(names)) != len(names)
+        or sorted(map(tuple, stored)) != sorted(map(tuple, now))
+    ):
+        return None
+    return tuple(names.index(name) for name, _ in stored)
+
+
+def field_orders(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> tuple[tuple[int, ...], ...]:
+    """The field orders (``Plan.earlier_orders``) of these identity files written before the
+    mapping's fields were reordered: their content digests run over the fields in that order."""
+    if not files:
+        return ()
+    now = layout(plan)
+    found = {_reordered(stored, now) for stored in _stored_layouts(engine, [str(f) for f in files]).values()}
+    return tuple(sorted(o for o in found if o is not None))
+
+
 def _columns_by_name(
     plan: Plan, file: str, stored: list[list[str]] | None, wanted: list[int], what: str, hint: str
 ) -> dict[int, str]:
@@ -221,6 +244,7 @@ def earlier_columns(plan: Plan) -> dict[str, str]:
     cols.update({f"v{i}": types[f"v{i}"] for i in plan.key_index})
     cols.update({"__hash": "UHUGEINT", "__format": "INTEGER", "__run": "VARCHAR", "__unpaired": "BOOLEAN"})
     cols["__other_fields"] = "BOOLEAN"  # the file's fields differ from the mapping's: content not comparable
+    cols["__order"] = "INTEGER"  # 0, or k: the file's fields are in plan.earlier_orders[k - 1]
     return cols
 
 
@@ -315,9 +339,11 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
         groups.setdefault(key, []).append(path)
     parts = []
     hint = "a key field is compared with the one stored: keep the key, its names and types, or start a new landing area (another --out, or --replace)"
-    for (fmt, stated_fields, values), group in sorted(groups.items()):
-        other = stated_fields != "null" and json.loads(stated_fields) != layout(plan)
+    for (fmt, _, values), group in sorted(groups.items()):
         stored = layouts.get(str(group[0]))
+        order = _reordered(stored, layout(plan)) if stored is not None else None
+        k = plan.earlier_orders.index(order) + 1 if order in plan.earlier_orders else 0
+        other = stored is not None and stored != layout(plan) and k == 0
         held = _columns_by_name(
             plan, str(group[0]), stored, list(plan.key_index), "identities emitted by earlier runs", hint
         )
@@ -332,7 +358,7 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
                 found=f"identities keyed by ({', '.join(then)}): no {', '.join(lacking)}",
                 hint=hint,
             )
-        parts.append(_earlier_rows(plan, fmt, group, lo_key, hi_key, held, other))
+        parts.append(_earlier_rows(plan, fmt, group, lo_key, hi_key, held, other, k))
     engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {' UNION ALL '.join(parts)}")
 
 
@@ -346,11 +372,12 @@ def _format(marks: set[tuple[str, str]], stated: dict[str, str], file: str) -> i
 
 
 def _earlier_rows(
-    plan: Plan, fmt: int, files: list[Path], lo: str, hi: str, held: dict[int, str], other: bool
+    plan: Plan, fmt: int, files: list[Path], lo: str, hi: str, held: dict[int, str], other: bool, order: int
 ) -> str:
     """SQL: the identities of identity files of one format and one layout, keys restored (the
     key field ``i`` from the column ``held[i]``), between ``lo`` and ``hi``; ``other``: the files
-    were written under fields other than the mapping's now, so their digests digest other text."""
+    were written under fields other than the mapping's now, so their digests digest other text;
+    ``order``: k when they were written with the fields in ``plan.earlier_orders[k - 1]``, else 0."""
     types = earlier_columns(plan)
     src = f"read_parquet([{', '.join(lit(str(f)) for f in files)}])"
     keys = {}
@@ -367,6 +394,7 @@ def _earlier_rows(
         "__run",
         "__unpaired",
         f"{'TRUE' if other else 'FALSE'} AS __other_fields",
+        f"{order} AS __order",
     ]
     if fmt >= 2 and _wide(plan, "__pos"):
         # the high halves alone let the reader skip row groups by their statistics

@@ -71,8 +71,13 @@ def dedupe_rows(plan: Plan) -> Plan:
     # digest as the current one for a table without a bytes field)
     digest_3 = plan.content("o.", format_3=True)
     format_3 = f"WHEN e.__format = 3 THEN {digest_3} " if digest_3 != plan.content("o.") else ""
+    # identities written before the mapping's fields were reordered: their digest's field order
+    reordered = "".join(
+        f"WHEN e.__order = {k} THEN {plan.content('o.', order=order)} "
+        for k, order in enumerate(plan.earlier_orders, start=1)
+    )
     same = (
-        f"e.__hash = CASE WHEN e.__format <= 2 THEN {plan.legacy_content('o.')} {format_3}"
+        f"e.__hash = CASE WHEN e.__format <= 2 THEN {plan.legacy_content('o.')} {format_3}{reordered}"
         f"ELSE {plan.content('o.')} END"
     )
     plan = plan.add(
@@ -81,8 +86,8 @@ def dedupe_rows(plan: Plan) -> Plan:
         f"SELECT o.__file, o.__row, o.__act, bool_and({same}) AS __same, "
         "bool_or(e.__other_fields) AS __other_fields, "
         f"min(e.__run) AS __earlier_run FROM {ordered} o JOIN ("
-        f"SELECT {earlier_cols}, __hash, __format, __run, __other_fields FROM {plan.rel('earlier')} UNION ALL "
-        f"SELECT {carried_cols}, {plan.content()} AS __hash, {INDEX_FORMAT}, __run, FALSE "
+        f"SELECT {earlier_cols}, __hash, __format, __run, __other_fields, __order FROM {plan.rel('earlier')} "
+        f"UNION ALL SELECT {carried_cols}, {plan.content()} AS __hash, {INDEX_FORMAT}, __run, FALSE, 0 "
         f"FROM {plan.rel('carried')}) e "
         f"ON {seen_on} "
         "GROUP BY o.__file, o.__row, o.__act",

@@ -255,7 +255,8 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
         for col in wanted:
             if col not in src.columns:
                 fields = [f for f in m.fields if m.raw_column(f) == col] or [roles.get(col, col)]
-                spare = [c for c in src.columns if c not in wanted]  # a renamed column is not mapped yet
+                # a renamed column is not mapped yet; a struct's members are candidates too
+                spare = [c for c in src.columns if c not in wanted] + src.members
                 drift.append(Drift(src.name, m.table, fields[0], col, closest(col, spare)))
         # the structs a mapped member is read through (a Parquet column "after" for "after.id")
         read_through = {w[:i] for w in wanted for i, ch in enumerate(w) if ch == "."}

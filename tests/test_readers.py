@@ -2,13 +2,15 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from tests.conftest import ConvertFn
+from tests.conftest import ConvertFn, cli
 from tests.test_bad_input import NESTED, NESTED_FIELDS
 
 MAPPING = """
@@ -274,3 +276,23 @@ def test_json_lines_structure_is_the_merge_of_every_object(objects: list[dict[st
     assert (None if merged is None else json.loads(merged)) == (
         None if every is None else json.loads(str(every))
     )
+
+
+def test_a_struct_member_the_file_lacks_is_drift_with_its_members_suggested(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    (tmp_path / "m").mkdir()
+    (tmp_path / "m" / "t.yaml").write_text(NESTED.replace("after.place.city", "after.place.town"))
+    rows = [{"op": "I", "pos": 1, "after": {"id": 1, "place": {"city": "Quay"}}, "extra": None}]
+    pq.write_table(pa.Table.from_pylist(rows), tmp_path / "n.parquet")
+    code = cli(
+        "convert",
+        str(tmp_path / "n.parquet"),
+        "--mappings",
+        str(tmp_path / "m"),
+        "--out",
+        str(tmp_path / "o"),
+    )
+    err = capsys.readouterr().err
+    assert code == 4 and "reads raw column 'after.place.town'" in err
+    assert 'did you mean "after.place.city"?' in err  # a member of the struct, not the struct

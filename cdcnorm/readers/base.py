@@ -43,6 +43,9 @@ class RawFile:
     # False when the file states no columns to hold against the mapping: a file of no bytes, or
     # JSON Lines with no line that parses (its columns come from its objects)
     columns_known: bool = True
+    # dotted names of nested leaf members a mapped column could read (Parquet struct members): the
+    # candidates a drift message suggests for a dotted name the file lacks
+    members: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
 
     @property

@@ -8,6 +8,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import duckdb
+from sqlglot import exp
 
 from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.errors import InputError
@@ -16,6 +17,21 @@ from cdcnorm.readers.base import RawFile, RawTable
 
 FORMAT = "parquet"
 SUFFIXES = (".parquet", ".pq")
+
+
+def _members(prefix: str, struct_type: str) -> list[str]:
+    """Dotted names of the leaf members of a struct type, nested structs followed (sqlglot parses
+    the type): the values a mapped dotted name most likely means."""
+    out = []
+    typ = exp.DataType.build(struct_type, dialect="duckdb")
+    for member in typ.expressions:
+        name = f"{prefix}.{member.name}"
+        kind = member.args.get("kind")
+        if isinstance(kind, exp.DataType) and kind.is_type(exp.DataType.Type.STRUCT):
+            out.extend(_members(name, kind.sql(dialect="duckdb")))
+        else:
+            out.append(name)
+    return out
 
 
 def read_files(
@@ -29,6 +45,7 @@ def read_files(
             nested = [tuple(c.split(".")) for c in mapping.mapped_columns() if "." in c]
             cols = engine.scan_parquet(f.path, nested)
             f.columns = [".".join(k) for k, _ in cols]
+            f.members = [m for k, t in cols if t.startswith("STRUCT") for m in _members(k[0], t)]
             internal = [raw.internal(c) for c in f.columns]
             engine.load_parquet_as_text(
                 rel, f.path, f.file_id, [(c, t, i) for (c, t), i in zip(cols, internal, strict=True)], tokens

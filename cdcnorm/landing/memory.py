@@ -109,40 +109,43 @@ def _metadata(plan: Plan, *extra: tuple[str, str]) -> str:
     return "{" + ", ".join(f"{k}: {lit(v)}" for k, v in pairs) + "}"
 
 
-def _stated(engine: DuckDBEngine, files: list[str], key: str) -> dict[str, Any]:
-    """What each of these memory files states under ``key`` of its metadata, parsed (files written
-    before they stated it are left out)."""
-    return {
-        str(f): json.loads(str(v))
-        for f, v in engine.rows(
-            f"SELECT file_name, decode(value) FROM parquet_kv_metadata([{', '.join(lit(f) for f in files)}]) "
-            f"WHERE decode(key) = {lit(key)}"
-        )
-    }
+def _stated(engine: DuckDBEngine, files: list[str]) -> dict[str, dict[str, str]]:
+    """What each of these memory files states in its key-value metadata, read once: file -> key ->
+    value (a file written before it stated anything has no entry)."""
+    out: dict[str, dict[str, str]] = {}
+    for f, k, v in engine.rows(
+        f"SELECT file_name, decode(key), decode(value) FROM parquet_kv_metadata([{', '.join(lit(f) for f in files)}])"
+    ):
+        out.setdefault(str(f), {})[str(k)] = str(v)
+    return out
 
 
-def _stored_layouts(engine: DuckDBEngine, files: list[str]) -> dict[str, list[list[str]]]:
-    """The fields each of these memory files states it was written under."""
-    return _stated(engine, files, FIELDS_KEY)
+def _fields_of(stated: dict[str, str] | None) -> list[list[str]] | None:
+    """The fields a memory file states it was written under (None: it states none)."""
+    text = (stated or {}).get(FIELDS_KEY)
+    return None if text is None else list(json.loads(text))
 
 
-def _check_order(engine: DuckDBEngine, plan: Plan, files: list[str], what: str) -> None:
+def _say(spec: list[Any] | None) -> str:
+    return "none" if spec is None else f"kind {spec[0]}, width {spec[1]}"
+
+
+def _check_order(plan: Plan, stated: dict[str, dict[str, str]], what: str) -> None:
     """Stop when a file's keys were stored under another kind or width of position or sequence:
     they would be read as other positions (or not at all), and repeats would be emitted again."""
     now = order_spec(plan)
-    for file, then in sorted(_stated(engine, files, ORDER_KEY).items()):
+    for file, keys in sorted(stated.items()):
+        if ORDER_KEY not in keys:
+            continue
+        then = json.loads(keys[ORDER_KEY])
         for part in ("position", "sequence"):
             if then.get(part) != now[part]:
-
-                def say(spec: list[Any] | None) -> str:
-                    return "none" if spec is None else f"kind {spec[0]}, width {spec[1]}"
-
                 raise InputError(
                     f"{what} were stored under another {part} of {plan.mapping.mapping.table} than "
                     "the mapping's now: their positions cannot be compared with this run's",
                     file=file,
-                    expected=f"the {part} {say(now[part])}",
-                    found=f"the {part} {say(then.get(part))}",
+                    expected=f"the {part} {_say(now[part])}",
+                    found=f"the {part} {_say(then.get(part))}",
                     hint="keep change.position and change.sequence as they were for this landing area, "
                     "or start another (another --out, or --replace)",
                 )
@@ -167,7 +170,8 @@ def field_orders(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> tuple[t
     if not files:
         return ()
     now = layout(plan)
-    found = {_reordered(stored, now) for stored in _stored_layouts(engine, [str(f) for f in files]).values()}
+    stated = _stated(engine, [str(f) for f in files]).values()
+    found = {_reordered(fields, now) for keys in stated if (fields := _fields_of(keys)) is not None}
     return tuple(sorted(o for o in found if o is not None))
 
 
@@ -261,12 +265,12 @@ def load_carried(engine: DuckDBEngine, plan: Plan, path: Path | None, first_id: 
     values = "(VALUES " + ", ".join(f"({i}, {lit(n)})" for i, n in ids) + ") f(id, name)" if ids else None
     types = carried_columns(plan)
     what = "before-images waiting for their after-images"
-    if ids:
-        _check_order(engine, plan, [str(path)], what)
+    stated = _stated(engine, [str(path)]) if ids else {}
+    _check_order(plan, stated, what)
     held = _columns_by_name(
         plan,
         str(path),
-        _stored_layouts(engine, [str(path)]).get(str(path)) if ids else None,
+        _fields_of(stated.get(str(path))),
         list(range(len(plan.fields))),
         what,
         "settle them first with the mapping they were read under (cdcnorm settle LANDING --all "
@@ -307,18 +311,12 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
     lo_key, hi_key = (f"CAST({lit(str(x))} AS {plan.types()['__pos']})" for x in (lo, hi))
     names = [lit(str(f)) for f in files]
     # every file's column names: the format marks, and the key fields it holds (v<j>)
-    held_names = {
-        (str(f), str(m))
-        for f, m in engine.rows(f"SELECT DISTINCT file_name, name FROM parquet_schema([{', '.join(names)}])")
-    }
-    marks = {(f, m) for f, m in held_names if m in (FORMAT_2_MARK, FORMAT_3_MARK)}
-    stated = {
-        str(f): str(v)
-        for f, v in engine.rows(
-            f"SELECT file_name, decode(value) FROM parquet_kv_metadata([{', '.join(names)}]) "
-            f"WHERE decode(key) = {lit(FORMAT_KEY)}"
-        )
-    }
+    held_names: dict[str, set[str]] = {}
+    for f, m in engine.rows(f"SELECT DISTINCT file_name, name FROM parquet_schema([{', '.join(names)}])"):
+        held_names.setdefault(str(f), set()).add(str(m))
+    marks = {(f, m) for f, ms in held_names.items() for m in ms if m in (FORMAT_2_MARK, FORMAT_3_MARK)}
+    metadata = _stated(engine, [str(f) for f in files])
+    stated = {f: keys[FORMAT_KEY] for f, keys in metadata.items() if FORMAT_KEY in keys}
     for f, v in stated.items():
         if v != str(INDEX_FORMAT):
             raise InputError(
@@ -328,13 +326,11 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
                 found=f"index format {v}",
                 hint="continue this landing area with the version of cdcnorm that wrote it, or a later one",
             )
-    _check_order(engine, plan, [str(f) for f in files], "identities emitted by earlier runs")
-    layouts = _stored_layouts(engine, [str(f) for f in files])
+    _check_order(plan, metadata, "identities emitted by earlier runs")
+    layouts = {f: fields for f, keys in metadata.items() if (fields := _fields_of(keys)) is not None}
     groups: dict[tuple[int, str, tuple[str, ...]], list[Path]] = {}
     for path in files:
-        values = tuple(
-            sorted(m for f, m in held_names if f == str(path) and m[:1] == "v" and m[1:].isdigit())
-        )
+        values = tuple(sorted(m for m in held_names.get(str(path), ()) if m[:1] == "v" and m[1:].isdigit()))
         key = (_format(marks, stated, str(path)), json.dumps(layouts.get(str(path))), values)
         groups.setdefault(key, []).append(path)
     parts = []

@@ -249,6 +249,8 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
     unmapped = {}
     wanted = m.mapped_columns()
     roles = {v: k for k, v in m.change_columns().items()}
+    # the structs a mapped member is read through (a Parquet column "after" for "after.id")
+    read_through = {".".join(keys) for keys in m.read_through()}
     for src in raw.files:
         if not src.columns_known:
             continue
@@ -258,8 +260,6 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
                 # a renamed column is not mapped yet; a struct's members are candidates too
                 spare = [c for c in src.columns if c not in wanted] + src.members
                 drift.append(Drift(src.name, m.table, fields[0], col, closest(col, spare)))
-        # the structs a mapped member is read through (a Parquet column "after" for "after.id")
-        read_through = {w[:i] for w in wanted for i, ch in enumerate(w) if ch == "."}
         unmapped[src.name] = [
             c
             for c in src.columns

@@ -258,6 +258,13 @@ class Mapping(Strict):
             seen.setdefault(self.raw_column(name))
         return list(seen)
 
+    def read_through(self) -> list[tuple[str, ...]]:
+        """The nested objects (JSON Lines) or structs (Parquet) a mapped dotted column is read
+        through, as key paths: ``("after",)`` and ``("after", "place")`` for ``after.place.city``."""
+        return sorted(
+            {tuple(c.split("."))[:n] for c in self.mapped_columns() for n in range(1, c.count(".") + 1)}
+        )
+
     @property
     def slug(self) -> str:
         """A name safe for files and SQL identifiers."""

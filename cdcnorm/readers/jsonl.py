@@ -94,10 +94,7 @@ def _read(f: RawFile, mapping: Mapping, engine: DuckDBEngine, raw: RawTable) -> 
         raise failure[0]
     malformed = raw.ensure_malformed(engine)
     # the objects on the way to a mapped nested column: a name repeated in one is ambiguous too
-    nested = sorted(
-        {tuple(c.split("."))[:n] for c in mapping.mapped_columns() for n in range(1, c.count(".") + 1)}
-    )
-    structure_text = engine.split_json_lines(lines, ok, malformed, f.file_id, nested)
+    structure_text = engine.split_json_lines(lines, ok, malformed, f.file_id, mapping.read_through())
     engine.drop(lines)
     f.malformed = engine.count(malformed, f"__file = {f.file_id}")
     f.rows = engine.count(ok)

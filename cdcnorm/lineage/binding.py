@@ -36,13 +36,16 @@ def _sample(con: duckdb.DuckDBPyConnection, sql_type: str) -> str:
     return "NULL"
 
 
+#: The engine's type of each column of each model it built: model -> column -> type.
+EngineTypes = dict[str, dict[str, str]]
+
+
 @dataclass
 class Outcome:
     ok: dict[str, bool]
     reasons: dict[str, str]
     unavailable: dict[str, str]
-    #: the engine's type of each column of each model it built (model -> column -> type)
-    types: dict[str, dict[str, str]]
+    types: EngineTypes  # of each model it built
 
 
 def _build(
@@ -52,7 +55,7 @@ def _build(
     ok: dict[str, bool] = {}
     reasons: dict[str, str] = {}
     unavailable: dict[str, str] = {}
-    types: dict[str, dict[str, str]] = {}
+    types: EngineTypes = {}
     try:
         for info in tables:
             if info.kind != "source" or not info.columns:
@@ -141,8 +144,9 @@ def edited_tables(
 
 def check_edit(
     project: Any, loaded: LoadedModels, table: str, column: str, kind: str, value: str | None
-) -> dict[str, Any]:
-    """Models that bind and run before the edit and not after it, with the engine's reason."""
+) -> tuple[dict[str, Any], tuple[EngineTypes, EngineTypes]]:
+    """Models that bind and run before the edit and not after it, with the engine's reason; and
+    the engine's types of the models it built, before and after the edit."""
     tables = [t for t in project.catalog.tables.values() if t.kind == "source"]
     if kind == "retype" and value:
         value = exp.DataType.build(value, dialect=project.dialect).sql(dialect="duckdb")
@@ -155,14 +159,13 @@ def check_edit(
         for m, good in before.ok.items()
         if good and not after.ok.get(m, True)
     ]
-    return {
+    answer = {
         "checked": True,
         "broken": broken,
         "unavailable": [{"model": m, "reason": r} for m, r in sorted(before.unavailable.items())],
         "failing_before": sorted(m for m, good in before.ok.items() if not good),
-        # the engine's own types of the models it built, before and after the edit
-        "types": (before.types, after.types),
     }
+    return answer, (before.types, after.types)
 
 
 __all__ = ["check_edit"]

@@ -334,14 +334,13 @@ def impact(
     binding_targets = (
         fields if node[0] in ("raw", "source") and (edit.kind == "drop" or node[0] == "source") else []
     )
-    engine_types: tuple[dict[str, dict[str, str]], dict[str, dict[str, str]]] | None = None
+    engine_types = None  # the binding check's types (before, after) of the models it built
     if binding_targets and loaded is not None:
         from cdcnorm.lineage.binding import check_edit
 
-        checks = [check_edit(project, loaded, t[1], t[2], edit.kind, edit.value) for t in binding_targets]
-        engine_types = checks[0].pop("types") if len(checks) == 1 else None
-        for c in checks:
-            c.pop("types", None)
+        answers = [check_edit(project, loaded, t[1], t[2], edit.kind, edit.value) for t in binding_targets]
+        checks = [c for c, _ in answers]
+        engine_types = answers[0][1] if len(answers) == 1 else None
         result["binding"] = {
             "checked": True,
             "broken": [b for c in checks for b in c["broken"]],

@@ -185,3 +185,129 @@ def test_apply_after_a_field_was_added_names_the_column_and_the_remedy(
     with sqlite3.connect(db) as con:
         rows = dict(con.execute('SELECT booking_id, export_batch FROM "ferry.bookings"').fetchall())
     assert rows[1008] == "live-19" and rows[1001] is None  # 1001 was loaded before the field was mapped
+
+
+# Reading events back (snapshot, apply) after the mapping was edited: each run's record states the
+# fields its events were written under, and the events are read by them.
+
+ADD_BATCH = ("  seats: integer\n", "  seats: integer\n  export_batch: text\n")
+
+
+def _two_days(tmp_path: Path, edit: tuple[str, str], fmt: str = "jsonl") -> tuple[Path, Path]:
+    """The demo under the shipped mappings (waiting images settled), the next day under the edited
+    ones, both written as ``fmt``: (the edited mappings, the area)."""
+    old = _mappings(tmp_path / "old")
+    edited = _mappings(tmp_path / "new", edit)
+    out = tmp_path / "o"
+    assert (
+        cli("convert", str(DUMPS), "--mappings", str(old), "--out", str(out), "--format", fmt, "--quiet") == 0
+    )
+    assert cli("settle", str(out), "--all", "--mappings", str(old), "--quiet") == 0
+    assert (
+        cli(
+            "convert", str(NEXT_DAY), "--mappings", str(edited), "--out", str(out), "--format", fmt, "--quiet"
+        )
+        == 0
+    )
+    return edited, out
+
+
+def _state(
+    tmp_path: Path, mappings: Path, out: Path, capsys: pytest.CaptureFixture[str]
+) -> tuple[dict[int, dict[str, Any]], list[str], str]:
+    """Booking rows of the latest state by key, the snapshot's notes (--json) and its stderr."""
+    capsys.readouterr()
+    folder = tmp_path / "state"
+    args = ("snapshot", str(out), "--mappings", str(mappings), "--out", str(folder), "--format", "jsonl")
+    assert cli(*args, "--table", "ferry.bookings", "--json") == 0
+    (row,) = json.loads(capsys.readouterr().out)["tables"]
+    assert cli(*args, "--table", "ferry.bookings") == 0
+    err = capsys.readouterr().err
+    rows = [json.loads(x) for x in (folder / "ferry.bookings.jsonl").read_text().splitlines()]
+    return {r["booking_id"]: r for r in rows}, row["notes"], err
+
+
+@pytest.mark.parametrize("fmt", ["jsonl", "parquet"])
+def test_state_of_events_written_before_a_field_was_added_says_it_is_null_there(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], fmt: str
+) -> None:
+    import csv
+
+    added, out = _two_days(tmp_path, ADD_BATCH, fmt)
+    state, notes, err = _state(tmp_path, added, out, capsys)
+    # the reference: the next day's dump itself, read with Python's csv module (RFC 4180)
+    with (NEXT_DAY / "bookings-2026-03-02.csv").open(newline="") as f:
+        dumped = {int(r["booking_id"]): r["export_batch"] for r in csv.DictReader(f)}
+    assert state[1008]["export_batch"] == dumped[1008]
+    assert state[1001]["export_batch"] is None  # its last change came in run 1, before the field
+    (note,) = notes
+    first = sorted((out / "runs").glob("*.json"))[0].stem
+    assert note == (
+        f"the events of run {first} were written before field export_batch joined the mapping: "
+        "it is NULL in them"
+    )
+    assert f"note: ferry.bookings: {note}" in err
+
+
+def test_state_leaves_out_a_field_removed_from_the_mapping_and_says_so(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    fewer, out = _two_days(tmp_path, (PHONE, ""))
+    state, notes, _ = _state(tmp_path, fewer, out, capsys)
+    assert all("pax_phone" not in r for r in state.values()) and state[1001]["passenger"] == "Ines Marrow"
+    assert notes == [
+        f"the events of run {sorted((out / 'runs').glob('*.json'))[0].stem} hold field pax_phone, "
+        "which the mapping no longer has: left out"
+    ]
+
+
+@pytest.mark.parametrize("fmt", ["jsonl", "parquet"])
+@pytest.mark.parametrize("new_type", ["decimal(14,3)", "text"])
+def test_a_retyped_field_reads_earlier_events_through_its_new_type_exactly(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], fmt: str, new_type: str
+) -> None:
+    from decimal import Decimal
+
+    retyped, out = _two_days(tmp_path, ("fare: decimal(12,2)", f"fare: {new_type}"), fmt)
+    state, notes, _ = _state(tmp_path, retyped, out, capsys)
+    # the reference: Python's decimal, the dumped 47.50 at the new scale (or its text as dumped)
+    want = str(Decimal("47.50").quantize(Decimal("0.001"))) if new_type != "text" else "47.50"
+    assert state[1001]["fare"] == want
+    assert notes[0].endswith(
+        f"hold fare as decimal(12,2): read as {new_type}, each value through that type's cast"
+    )
+
+
+@pytest.mark.parametrize("command", ["snapshot", "apply"])
+def test_a_retyped_field_whose_earlier_values_do_not_fit_stops_naming_the_event(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], command: str
+) -> None:
+    # before: the engine's JSON transform error, reported as a bug in cdcnorm (exit 1)
+    retyped, out = _two_days(tmp_path, ("  pax_phone: text\n", "  pax_phone: integer\n"))
+    capsys.readouterr()
+    where = (
+        ["--out", str(tmp_path / "state")]
+        if command == "snapshot"
+        else ["--target", f"sqlite:///{tmp_path / 'w.db'}"]
+    )
+    assert cli(command, str(out), "--mappings", str(retyped), *where) == 4
+    err = capsys.readouterr().err
+    first = sorted((out / "events" / "ferry.bookings").glob("*.jsonl"))[0]
+    assert err.startswith(f"error: {first}: an event written before field pax_phone was retyped")
+    assert "field: pax_phone" in err and "expected: integer, as the mapping states it now" in err
+    assert "(not an integer), in the event at position 0000" in err and "wrote it as text" in err
+    assert "bug" not in err and "Traceback" not in err
+
+
+def test_events_of_runs_whose_record_states_no_fields_are_read_as_the_mapping_states(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # records written before runs stated their fields: nothing to go by, so no note (as before)
+    added, out = _two_days(tmp_path, ADD_BATCH)
+    for path in (out / "runs").glob("*.json"):
+        record = json.loads(path.read_text())
+        for table in record["tables"].values():
+            table.pop("fields")
+        path.write_text(json.dumps(record))
+    state, notes, _ = _state(tmp_path, added, out, capsys)
+    assert notes == [] and state[1001]["export_batch"] is None and state[1008]["export_batch"] == "live-19"

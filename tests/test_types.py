@@ -10,6 +10,8 @@ from decimal import ROUND_HALF_UP, Decimal, InvalidOperation
 
 import pytest
 
+from cdcnorm.mapping.model import FieldSpec
+from cdcnorm.types import resolve
 from tests.conftest import ConvertFn
 from tests.typing_helper import type_values
 
@@ -181,3 +183,22 @@ def test_float_date_time_text_json(convert: ConvertFn) -> None:
     # RFC 8259: parsed and embedded, numbers keep their digits
     assert j[0][0] == json.loads('{"a": [1, 2.50, null]}') and j[1][0] is None
     assert j[2][0] == 12345678901234567890
+
+
+@pytest.mark.parametrize(
+    ("spec", "value_type"),
+    [
+        *[({"type": t}, t) for t in ("integer", "decimal(12,2)", "float", "boolean", "date", "time")],
+        *[({"type": t}, t) for t in ("timestamp", "text", "text(40)", "bytes", "uuid", "json")],
+        ({"type": "text", "max_length": 60}, "text(60)"),
+        ({"type": "bytes", "encoding": "base64"}, "bytes"),  # how raw text is read: not the values'
+        ({"type": "timestamp", "zone": "+02:00"}, "timestamp"),
+        ({"type": "Decimal( 14, 3 )"}, "decimal(14,3)"),
+    ],
+)
+def test_a_value_type_reads_back_as_itself(spec: dict[str, object], value_type: str) -> None:
+    # run records state each field's value type; events written under it are read back by it
+    ftype = resolve(FieldSpec.model_validate(spec))
+    assert ftype.value_type() == value_type
+    again = resolve(FieldSpec(type=value_type))
+    assert again.value_type() == value_type and again.sql_type == ftype.sql_type

@@ -103,6 +103,8 @@ def commit_run(
         progress(f"{table}: quarantine and index", 0, 1)
         counts = result.ledger.tables[table].total
         out: dict[str, Any] = {"events": None, "quarantine": None}
+        # the fields the events are written under, for reading them back after a mapping edit
+        out["fields"] = [[n, t.value_type()] for n, t in plan.mapping.field_types.items()]
         # written while the raw rows are there (they go before the events are sorted), and always:
         # the count of lines checks the ledger's count of quarantined rows below
         rel = f"quarantine/{part}/{run}.jsonl"

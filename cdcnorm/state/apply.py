@@ -54,6 +54,8 @@ class TableApply:
     counts: Counts = field(default_factory=Counts)
     events: int = 0
     files: int = 0
+    #: how events written under other fields were read (``Events.notes``)
+    notes: tuple[str, ...] = ()
 
 
 def _ensure(session: Session, target: Target, tables: Tables) -> None:
@@ -121,6 +123,7 @@ def _apply(
     if not new:
         return
     events = load_events(engine, mapping, new, f"{mapping.mapping.slug}__apply_events")
+    report.notes = events.notes
     try:
         per_file = dict(engine.rows(f"SELECT __source, count(*) FROM {ident(events.relation)} GROUP BY ALL"))
         last = latest(engine, events)

@@ -6,6 +6,7 @@ import argparse
 import json
 import os
 import sqlite3
+from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
@@ -89,6 +90,13 @@ def _engine(args: argparse.Namespace, scratch: Path, mappings: list[LoadedMappin
     return engine
 
 
+def _print_notes(err: Console, notes: list[tuple[str, Sequence[str]]]) -> None:
+    """How events written under other fields were read, a line each (``Events.notes``)."""
+    for table, lines in notes:
+        for line in lines:
+            err.print(f"note: {table}: {line}", markup=False, soft_wrap=True)
+
+
 def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
     from cdcnorm.engines.duckdb import engine_errors
     from cdcnorm.names import path_part
@@ -120,6 +128,7 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
                     "event_files": len(files),
                     "as_of": as_of.label,
                     "file": str(path),
+                    "notes": list(events.notes),
                 }
             )
             engine.drop(state)
@@ -133,6 +142,7 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
     for r in rows:
         t.add_row(r["table"], str(r["rows"]), str(r["event_files"]), r["file"])
     out.print(t)
+    _print_notes(err, [(r["table"], r["notes"]) for r in rows])
     for name in missing:
         err.print(
             f"warning: {landing}: events of {name} have no mapping in {args.mappings}; not compacted",
@@ -206,6 +216,7 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
                 "events": r.events,
                 "files": r.files,
                 **r.counts.as_dict(),
+                "notes": list(r.notes),
             }
             for r in reports
         ],
@@ -233,6 +244,7 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
     for row in data["tables"]:
         t.add_row(row["target_table"], *(str(row[c]) for c in cols[1:]))
     out.print(t)
+    _print_notes(err, [(r.table, r.notes) for r in reports])
     for name in missing:
         err.print(
             f"warning: {landing}: events of {name} have no mapping in {args.mappings}; not applied",

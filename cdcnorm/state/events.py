@@ -11,6 +11,15 @@ byte-sortable text), ``__action`` (upsert or delete), ``__cat`` (committed_at),
 ``__source`` (the file's name) and the mapping's fields as ``v0..vn``, in the
 mapping's types: key fields from the envelope's ``key``, the others from its
 ``values`` (NULL for a delete). Rows never pass through Python.
+
+A run's record states the fields its events were written under (name and value
+type). Events written before the mapping was edited are read by those fields
+and said so (``Events.notes``): a field added since is NULL in them, a field
+removed is left out, and a retyped field's values pass the new type's guarded
+cast from their JSON form; one that does not (``47.50`` for an integer) stops
+the reading, naming the file, the event's position and the field. Events
+without a record (a bare events folder, runs of earlier versions) are read as
+the mapping states.
 """
 
 from __future__ import annotations
@@ -24,8 +33,13 @@ from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.errors import InputError
 from cdcnorm.landing import runs
 from cdcnorm.mapping.load import LoadedMapping
+from cdcnorm.mapping.model import FieldSpec
 from cdcnorm.names import path_part
 from cdcnorm.sql import PLAN_DIALECT, ident, lit
+from cdcnorm.types import FieldType, resolve
+
+#: The fields a run's events were written under: (name, value type) in the mapping's order.
+Written = tuple[tuple[str, str], ...]
 
 SUFFIXES = {".jsonl": "jsonl", ".parquet": "parquet"}
 
@@ -35,6 +49,8 @@ class EventFile:
     path: Path
     run: str  # the run that wrote it (the file's stem)
     fmt: str
+    #: the fields its run's record states; None: read as the mapping states (no record says)
+    written: Written | None = None
 
 
 @dataclass(frozen=True)
@@ -44,6 +60,8 @@ class Events:
     mapping: LoadedMapping
     relation: str
     files: tuple[EventFile, ...]
+    #: how events written under other fields were read (a field added, removed or retyped since)
+    notes: tuple[str, ...] = ()
 
     @property
     def fields(self) -> list[str]:
@@ -74,6 +92,7 @@ def event_files(landing: Path, table: str) -> list[EventFile]:
     if not folder.is_dir():
         return []
     committed = runs.committed(landing) if (landing / runs.RUNS).is_dir() else None
+    written = _written(landing, table) if committed else {}
     out = []
     for path in sorted(folder.iterdir()):
         fmt = SUFFIXES.get(path.suffix)
@@ -81,7 +100,17 @@ def event_files(landing: Path, table: str) -> list[EventFile]:
             continue
         if committed is not None and path.stem not in committed:
             continue  # a run not (yet) committed
-        out.append(EventFile(path, path.stem, fmt))
+        out.append(EventFile(path, path.stem, fmt, written.get(path.stem)))
+    return out
+
+
+def _written(landing: Path, table: str) -> dict[str, Written]:
+    """run -> the fields its record says the table's events were written under."""
+    out: dict[str, Written] = {}
+    for rec in runs.records(landing):
+        fields = rec.get("tables", {}).get(table, {}).get("fields")
+        if fields:
+            out[rec["run"]] = tuple((str(n), str(t)) for n, t in fields)
     return out
 
 
@@ -90,28 +119,40 @@ def tables_present(landing: Path) -> list[str]:
     return sorted(p.name for p in root.iterdir() if p.is_dir() and not p.name.startswith("."))
 
 
-def _json_columns(mapping: LoadedMapping) -> str:
-    """read_json's column types for the envelope: the rendered forms of the fields."""
-    ftypes = mapping.field_types
-    key = ", ".join(f"{ident(k)} {ftypes[k].form_type}" for k in mapping.mapping.key)
-    values = ", ".join(f"{ident(n)} {t.form_type}" for n, t in ftypes.items())
-    cols = {
-        "action": "VARCHAR",
-        "key": f"STRUCT({key})",
-        "position": "VARCHAR",
-        "committed_at": "TIMESTAMPTZ",
-        "values": f"STRUCT({values})",
-    }
+def _json_columns(mapping: LoadedMapping, types: dict[str, FieldType]) -> str:
+    """read_json's column types for the envelope: the rendered forms of the fields written."""
+    key = ", ".join(f"{ident(k)} {types[k].form_type}" for k in mapping.mapping.key if k in types)
+    values = ", ".join(f"{ident(n)} {t.form_type}" for n, t in types.items())
+    cols = {"action": "VARCHAR", "position": "VARCHAR", "committed_at": "TIMESTAMPTZ"}
+    if key:
+        cols["key"] = f"STRUCT({key})"
+    if values:
+        cols["values"] = f"STRUCT({values})"
     return "{" + ", ".join(f"{lit(n)}: {lit(t)}" for n, t in cols.items()) + "}"
 
 
-def _select(mapping: LoadedMapping, source: str, *, rendered: bool) -> str:
-    keys = set(mapping.mapping.key)
+def _as_text(old: FieldType, typed: str) -> str:
+    """SQL: a value's JSON form as text, which a retyped field's new type casts."""
+    return f"CAST({old.render(typed)} AS VARCHAR)"
+
+
+def _typed(mapping: LoadedMapping, name: str, old: FieldType, rendered: bool) -> str:
+    """SQL: the value of field ``name`` as it was written (the type ``old``)."""
+    part = "key" if name in mapping.mapping.key else '"values"'
+    v = f"struct_extract({part}, {lit(name)})"
+    return old.unrender(v) if rendered else v
+
+
+def _select(mapping: LoadedMapping, source: str, types: dict[str, FieldType], *, rendered: bool) -> str:
     cols = []
     for i, (name, ftype) in enumerate(mapping.field_types.items()):
-        part = "key" if name in keys else '"values"'
-        v = f"struct_extract({part}, {lit(name)})"
-        typed = ftype.unrender(v) if rendered else v
+        old = types.get(name)
+        if old is None:  # added to the mapping after these events were written
+            cols.append(f"CAST(NULL AS {ftype.sql_type}) AS v{i}")
+            continue
+        typed = _typed(mapping, name, old, rendered)
+        if old.value_type() != ftype.value_type():
+            typed = ftype.cast(_as_text(old, typed))
         cols.append(f"CAST({typed} AS {ftype.sql_type}) AS v{i}")
     return (
         "SELECT position AS __position, action AS __action, "
@@ -120,23 +161,104 @@ def _select(mapping: LoadedMapping, source: str, *, rendered: bool) -> str:
     )
 
 
+def _types(mapping: LoadedMapping, written: Written | None) -> dict[str, FieldType]:
+    """The types of the fields as written (as the mapping states them when no record says)."""
+    if written is None:
+        return dict(mapping.field_types)
+    return {n: resolve(FieldSpec(type=t)) for n, t in written}
+
+
+def _source(mapping: LoadedMapping, files: list[EventFile], types: dict[str, FieldType]) -> str:
+    paths = ", ".join(lit(str(f.path)) for f in files)
+    if files[0].fmt == "parquet":
+        return f"read_parquet([{paths}], filename = true, union_by_name = true)"
+    return (
+        f"read_json([{paths}], format = 'newline_delimited', filename = true, "
+        f"columns = {_json_columns(mapping, types)})"
+    )
+
+
+def _runs(files: list[EventFile]) -> str:
+    first = f"run {files[0].run}"
+    return first if len(files) == 1 else f"{first} and {len(files) - 1} later"
+
+
+def _notes(mapping: LoadedMapping, files: list[EventFile], types: dict[str, FieldType]) -> list[str]:
+    """What reading events written under ``types`` with the mapping as it is now means."""
+    now = mapping.field_types
+    which = f"the events of {_runs(files)}"
+    notes = []
+    added = [n for n in now if n not in types]
+    removed = [n for n in types if n not in now]
+    if added:
+        they = "they are" if len(added) > 1 else "it is"
+        notes.append(f"{which} were written before {_names(added)} joined the mapping: {they} NULL in them")
+    if removed:
+        notes.append(f"{which} hold {_names(removed)}, which the mapping no longer has: left out")
+    for n, old in types.items():
+        if n in now and old.value_type() != now[n].value_type():
+            notes.append(
+                f"{which} hold {n} as {old.value_type()}: read as {now[n].value_type()}, "
+                "each value through that type's cast"
+            )
+    return notes
+
+
+def _names(names: list[str]) -> str:
+    return ("fields " if len(names) > 1 else "field ") + ", ".join(names)
+
+
+def _check_retyped(
+    engine: DuckDBEngine,
+    mapping: LoadedMapping,
+    files: list[EventFile],
+    source: str,
+    types: dict[str, FieldType],
+) -> None:
+    """Stop at the first value of a retyped field that its new type refuses, naming where it is."""
+    now = mapping.field_types
+    rendered = files[0].fmt == "jsonl"
+    for name, old in types.items():
+        if name not in now or old.value_type() == now[name].value_type():
+            continue
+        text = _as_text(old, _typed(mapping, name, old, rendered))
+        sql = (
+            f"SELECT parse_filename(filename), position, t, {now[name].explain('t')} "
+            f"FROM (SELECT filename, position, {text} AS t FROM {source}) "
+            f"WHERE t IS NOT NULL AND ({now[name].cast('t')}) IS NULL LIMIT 1"
+        )
+        bad = engine.rows(sqlglot.parse_one(sql, read=PLAN_DIALECT))
+        if bad:
+            file, position, value, why = bad[0]
+            run = next(f.run for f in files if f.path.name == file)
+            raise InputError(
+                f"an event written before field {name} was retyped does not read as its type now",
+                file=str(next(f.path for f in files if f.path.name == file)),
+                field=name,
+                expected=f"{now[name].describe()}, as the mapping states it now",
+                found=f"{value!r} ({why}), in the event at position {position}: run {run} wrote it "
+                f"as {old.value_type()}",
+                hint=f"keep {name} as {old.value_type()} in the mapping, or convert the table's dumps "
+                "again into a new landing area under the mapping as it is now",
+            )
+
+
 def load_events(
     engine: DuckDBEngine, mapping: LoadedMapping, files: list[EventFile], relation: str | None = None
 ) -> Events:
     """A view over the files' events, typed (the engine scans the files when it is queried)."""
     relation = relation or f"{mapping.mapping.slug}__events"
-    parts = []
-    jsonl = [lit(str(f.path)) for f in files if f.fmt == "jsonl"]
-    parquet = [lit(str(f.path)) for f in files if f.fmt == "parquet"]
-    if jsonl:
-        src = (
-            f"read_json([{', '.join(jsonl)}], format = 'newline_delimited', filename = true, "
-            f"columns = {_json_columns(mapping)})"
-        )
-        parts.append(_select(mapping, src, rendered=True))
-    if parquet:
-        src = f"read_parquet([{', '.join(parquet)}], filename = true, union_by_name = true)"
-        parts.append(_select(mapping, src, rendered=False))
+    groups: dict[tuple[str, Written | None], list[EventFile]] = {}
+    for f in files:
+        groups.setdefault((f.fmt, f.written), []).append(f)
+    parts, notes = [], []
+    for (fmt, written), group in groups.items():
+        types = _types(mapping, written)
+        source = _source(mapping, group, types)
+        if written is not None:
+            notes += _notes(mapping, group, types)
+            _check_retyped(engine, mapping, group, source, types)
+        parts.append(_select(mapping, source, types, rendered=fmt == "jsonl"))
     if not parts:  # no events yet: an empty relation of the right shape
         cols = ", ".join(
             f"CAST(NULL AS {t.sql_type}) AS v{i}" for i, t in enumerate(mapping.field_types.values())
@@ -147,4 +269,4 @@ def load_events(
         )
     sql = " UNION ALL ".join(parts)
     engine.view(relation, sqlglot.parse_one(sql, read=PLAN_DIALECT))
-    return Events(mapping, relation, tuple(files))
+    return Events(mapping, relation, tuple(files), tuple(notes))

@@ -36,6 +36,12 @@ class FieldType:
     def describe(self) -> str:
         return self.name
 
+    def value_type(self) -> str:
+        """The spelling of the values' type alone, which ``types.resolve`` reads back: what a
+        run record states of each field, to read events written under another mapping. Options
+        that only say how raw text is read (a zone, an encoding) are not part of it."""
+        return self.describe()
+
     def cast(self, x: str) -> str:
         """SQL: the typed value of raw text ``x``, NULL when invalid."""
         raise NotImplementedError

@@ -21,6 +21,9 @@ class BytesType(FieldType):
     def describe(self) -> str:
         return f"bytes ({self.encoding})"
 
+    def value_type(self) -> str:
+        return "bytes"
+
     def cast(self, x: str) -> str:
         if self.encoding == "hex":
             # PostgreSQL's text form of bytea (what its COPY writes) starts with \x: accepted

@@ -607,3 +607,49 @@ def test_json_lines_numbers_are_read_as_written(convert: ConvertFn) -> None:
     assert Decimal(e["values"]["a"]) == Decimal("0.1000000000000000055511151231257827")
     (q,) = done.quarantine("t.notes")
     assert q["n"] == "1e2" and q["a"] == "-0" and q["_cdcnorm"]["reasons"][0]["found"] == "1e2"
+
+
+@pytest.mark.parametrize(
+    ("fmt", "command", "damaged"),
+    [
+        ("jsonl", "snapshot", "events"),
+        ("parquet", "snapshot", "events"),
+        ("parquet", "apply", "events"),
+        ("jsonl", "convert", "index/emitted"),
+    ],
+)
+def test_a_damaged_file_of_a_landing_area_is_named_not_called_a_bug(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], fmt: str, command: str, damaged: str
+) -> None:
+    # a partial copy or a bad disk leaves a file cut short: before, the engine's error came out as
+    # "this is a bug in cdcnorm" (exit 1); now it is the file's fault, named, exit 4
+    from tests.conftest import ROOT
+
+    out, mappings = tmp_path / "o", str(ROOT / "mappings")
+    assert (
+        cli(
+            "convert",
+            str(ROOT / "examples" / "dumps"),
+            "--mappings",
+            mappings,
+            "--out",
+            str(out),
+            "--format",
+            fmt,
+            "--quiet",
+        )
+        == 0
+    )
+    (path,) = (out / damaged / "ferry.bookings").glob("*.*")
+    path.write_bytes(path.read_bytes()[:300])
+    capsys.readouterr()
+    where = {
+        "snapshot": ["--out", str(tmp_path / "state")],
+        "apply": ["--target", f"sqlite:///{tmp_path / 'w.db'}"],
+        "convert": ["--out", str(out), "--quiet"],
+    }[command]
+    first = [str(ROOT / "examples" / "next-day")] if command == "convert" else [str(out)]
+    assert cli(command, *first, "--mappings", mappings, *where) == 4
+    err = capsys.readouterr().err
+    assert err.startswith(f"error: {path}") and ": the file cannot be read: " in err
+    assert "damaged or cut short" in err and "bug" not in err

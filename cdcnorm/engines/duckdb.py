@@ -10,6 +10,7 @@ import contextlib
 import errno
 import json
 import os
+import re
 import secrets
 from collections.abc import Iterator, Sequence
 from importlib import metadata
@@ -20,7 +21,7 @@ import duckdb
 import pyarrow as pa
 from sqlglot import exp
 
-from cdcnorm.errors import CdcnormError, DiskSpaceError, EngineMemoryError
+from cdcnorm.errors import CdcnormError, DiskSpaceError, EngineMemoryError, InputError
 from cdcnorm.positions import HEX_DIGITS, HEX_KEY
 from cdcnorm.sql import ident, lit
 
@@ -141,6 +142,32 @@ def disk_full(e: BaseException, where: str | None = None) -> DiskSpaceError | No
     )
 
 
+#: how the engine names the file it could not read: ``in file "x.jsonl"``, ``end of file 'x.parquet'``
+_FILE_NAMED = re.compile(r"""file ['"]([^'"]+)['"]""")
+_LINE_NAMED = re.compile(r"\bin line (\d+)")
+
+
+def damaged_file(e: BaseException) -> InputError | None:
+    """The engine's refusal of a file's bytes (malformed JSON, a Parquet file without its footer,
+    a page that does not decode) in our words, naming the file; None for another error."""
+    if not isinstance(e, duckdb.InvalidInputException | duckdb.IOException):
+        return None
+    first = str(e).splitlines()[0]
+    named = _FILE_NAMED.search(first)
+    if named is None or not Path(named.group(1)).is_file():
+        return None
+    line = _LINE_NAMED.search(first)
+    return InputError(
+        f"the file cannot be read: {first}",
+        file=named.group(1),
+        line=int(line.group(1)) if line else None,
+        expected="a file whole and as it was written",
+        found="bytes the engine cannot read (the file is damaged or cut short, or not what its name says)",
+        hint="restore the file from a copy (a landing area's files can be written again by converting "
+        "its dumps into a new landing area)",
+    )
+
+
 @contextlib.contextmanager
 def engine_errors(temp: Path | str | None, where: str = "", writing: str | None = None) -> Iterator[None]:
     """Out of memory, out of spill space or a full disk, in our words: ``temp`` is where the spill
@@ -150,9 +177,9 @@ def engine_errors(temp: Path | str | None, where: str = "", writing: str | None 
     except duckdb.OutOfMemoryException as e:
         raise out_of_memory(e, where, None if temp is None else str(temp)) from None
     except (duckdb.Error, OSError) as e:
-        full = disk_full(e, writing)
-        if full is not None:
-            raise full from None
+        known = disk_full(e, writing) or damaged_file(e)
+        if known is not None:
+            raise known from None
         raise
 
 

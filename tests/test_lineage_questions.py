@@ -386,7 +386,8 @@ def test_names_in_other_case_or_the_default_schema_find_the_model_and_updates_an
         (d,) = [u for u in answer["unresolved"] if u["reason"] != "duplicate model"]  # a_upper has one
         assert (d["file"], d["line"], d["model"], d["reason"]) == ("z_fix.sql", 2, "stg_fares", "unsupported")
         assert d["reference"].startswith("UPDATE of stg_fares is not traced")
-    assert cli("lineage", *args[:4], "--out", str(tmp_path / "g.dot"), "--json") == 0
+    # the graph lacks what the UPDATE changes: the export says so in its exit code too
+    assert cli("lineage", *args[:4], "--out", str(tmp_path / "g.dot"), "--json") == 11
     diagnostics = json.loads(capsys.readouterr().out)["diagnostics"]
     dup = [d for d in diagnostics if d["reason"] == "duplicate model"]
     assert [(d["file"], d["model"]) for d in dup] == [("extra/a_upper.sql", "a_upper")]
@@ -725,3 +726,43 @@ def test_mixed_case_names_from_a_postgresql_catalog_match_as_postgresql_matches(
     assert trace(project, "legs_x2.doublefare")["value"] == ["Fleet.TripLegs.fare"]
     # the model defines legs_x2: the catalog's copy of the view is no second, source table
     assert not [n for n in project.graph.nodes if n[0] == "source" and n[1] == "legs_x2"]
+
+
+def test_a_model_whose_query_cannot_be_resolved_makes_every_answer_it_may_be_part_of_incomplete(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # ferry.passengers has no passenger_ref: the USING join cannot be resolved, so nothing of the
+    # model is known. Before, `trace seat_report` printed nothing and exited 0 (a CI gate passed),
+    # `trace seat_report.top` said there is no such column, and `impact` of a column the model
+    # reads called its answer complete.
+    models = tmp_path / "models"
+    models.mkdir()
+    (models / "seat_report.sql").write_text(
+        "CREATE VIEW seat_report AS\n"
+        "SELECT sailing_ref, passenger,\n"
+        "  (SELECT max(fare) FROM ferry.bookings x WHERE x.sailing_ref = b.sailing_ref) AS top\n"
+        "FROM ferry.bookings b JOIN ferry.passengers p USING (passenger_ref)\n"
+        "GROUP BY ALL;\n"
+    )
+    (models / "names.sql").write_text("CREATE VIEW names AS SELECT passenger FROM ferry.bookings;\n")
+    args = ("--models", str(models), "--mappings", str(ROOT / "mappings"))
+    capsys.readouterr()
+    for target in ("seat_report", "seat_report.top"):
+        assert cli("trace", *args, target, "--json") == 11
+        answer = json.loads(capsys.readouterr().out)
+        answer = answer[0] if isinstance(answer, list) else answer
+        assert answer["complete"] is False and answer["value"] == []
+        (d,) = answer["unresolved"]
+        assert (d["file"], d["model"], d["reason"]) == ("seat_report.sql", "seat_report", "unsupported")
+        assert d["reference"] == (
+            "JOIN ... USING (passenger_ref): a table on one side of the join has no column passenger_ref"
+        )
+    # a column of a table the model reads: its dependents may include the model's
+    assert cli("impact", *args, "ferry.bookings.passenger", "--json") == 11
+    result = json.loads(capsys.readouterr().out)
+    assert result["value_dependents"] == ["names.passenger"]
+    assert [u["model"] for u in result["unresolved"]] == ["seat_report"]
+    # a table the model does not read: the answer stays complete
+    assert cli("impact", *args, "ferry.sailings.sailing_id", "--json") == 0
+    assert json.loads(capsys.readouterr().out)["complete"] is True
+    assert cli("lineage", *args, "--out", str(tmp_path / "g.dot")) == 11

@@ -246,7 +246,8 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
             )
             for d in project.diagnostics:
                 out.print(f"{'unresolved' if d.unresolved else 'note'} {d.render()}", markup=False)
-        return EXIT_OK
+        # the graph drawn may lack what an unresolved reference would have added: said in the exit code
+        return EXIT_INCOMPLETE if any(d.unresolved for d in project.diagnostics) else EXIT_OK
     raise UsageError(f"unknown command {args.command}")
 
 

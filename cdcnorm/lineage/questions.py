@@ -18,9 +18,9 @@ import networkx as nx
 from sqlglot import exp
 
 from cdcnorm.errors import LineageError, did_you_mean
-from cdcnorm.lineage.graph import Project, node_name, normalise_column, simulate
+from cdcnorm.lineage.graph import Project, declared_parts, node_name, normalise_column, simulate
 from cdcnorm.lineage.models import LoadedModels
-from cdcnorm.lineage.resolve import Node
+from cdcnorm.lineage.resolve import Node, same_table
 from cdcnorm.mapping.load import LoadedMapping
 
 
@@ -120,6 +120,48 @@ def unresolved_on(project: Project, nodes: set[Node]) -> list[dict[str, Any]]:
     return [d.as_dict() for d in project.diagnostics if d.model in models and d.unresolved]
 
 
+def unresolved_models(project: Project) -> dict[str, list[dict[str, Any]]]:
+    """Models whose query could not be resolved at all (no column of theirs is known): what they
+    read and show is missing from the graph, so an answer they may be part of cannot be complete."""
+    out: dict[str, list[dict[str, Any]]] = {}
+    for d in project.diagnostics:
+        info = project.models.get(d.model)
+        if d.unresolved and info is not None and not info.columns:
+            out.setdefault(d.model, []).append(d.as_dict())
+    return out
+
+
+def _unresolved_readers(project: Project, nodes: set[Node]) -> list[dict[str, Any]]:
+    """The diagnostics of unresolved models that read a table among ``nodes``: dependents the
+    graph cannot show."""
+    opaque = unresolved_models(project)
+    if not opaque:
+        return []
+    tables = {declared_parts(n[1], project.dialect) for n in nodes if n[0] in ("source", "raw", "model")}
+    return [
+        d
+        for name, diags in sorted(opaque.items())
+        if any(same_table(r, t) for r in project.reads.get(name, set()) for t in tables)
+        for d in diags
+    ]
+
+
+def _unresolved_answer(project: Project, model: str, column: str) -> dict[str, Any]:
+    """``trace`` of a model whose query could not be resolved, or of a column of it: nothing is
+    known, and the answer says why (never an empty answer that looks complete)."""
+    return {
+        "inferred": [],
+        "column": column,
+        "value": [],
+        "influence": [],
+        "influence_kinds": {},
+        "raw": [],
+        "paths": [],
+        "unresolved": unresolved_models(project)[model],
+        "complete": False,
+    }
+
+
 def inferred_on(project: Project, nodes: set[Node]) -> list[str]:
     """Columns among ``nodes`` of tables no schema declares, taken from how the models use them."""
     g = project.graph
@@ -201,8 +243,14 @@ def trace(project: Project, column: str) -> dict[str, Any]:
 
 def trace_target(project: Project, target: str) -> list[dict[str, Any]]:
     """``trace model`` answers for each of its columns; ``trace table.column`` for one."""
+    opaque = unresolved_models(project)
+    if target in opaque:
+        return [_unresolved_answer(project, target, target)]
     if target in project.models:
         return [trace(project, node_name(n)) for n in model_columns(project, target)]
+    model = target.rpartition(".")[0].removeprefix("model:")
+    if model in opaque:
+        return [_unresolved_answer(project, model, target)]
     return [trace(project, target)]
 
 
@@ -280,7 +328,9 @@ def impact(
         "row_changes": [],
     }
     # the models the answer passes through: what they could not resolve may hide dependents
-    result["unresolved"] = unresolved_on(project, {node} | value | influence)
+    # and the models whose query could not be resolved that read a table on the way
+    on_the_way = {node} | value | influence
+    result["unresolved"] = unresolved_on(project, on_the_way) + _unresolved_readers(project, on_the_way)
     result["complete"] = not result["unresolved"]
     result["inferred"] = inferred_on(project, {node} | value | influence)
     if edit is None:

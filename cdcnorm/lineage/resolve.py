@@ -108,6 +108,14 @@ def fold(name: str, dialect: str) -> str:
     return str(d.normalize_identifier(exp.Identifier(this=name, quoted=quoted)).name)
 
 
+def _qualify_words(message: str) -> str:
+    """sqlglot's qualification error in words that say what is wrong in the model."""
+    head, _, name = message.partition("Cannot automatically join: ")
+    if not head and name:
+        return f"JOIN ... USING ({name}): a table on one side of the join has no column {name}"
+    return message
+
+
 def same_table(a: tuple[str, ...], b: tuple[str, ...]) -> bool:
     """One name with or without its schema (and database) prefix names the other's table."""
     n = min(len(a), len(b))
@@ -274,7 +282,7 @@ class StatementResolver:
                     else None
                 )
                 if not missing:
-                    self._diag(_line(query), "unsupported", message)
+                    self._diag(_line(query), "unsupported", _qualify_words(message))
                     return None
                 # A qualified reference to a column its table lacks: let qualification go on with a
                 # stand-in column; the resolver reports the reference as "not in schema".

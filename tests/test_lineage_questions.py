@@ -766,3 +766,85 @@ def test_a_model_whose_query_cannot_be_resolved_makes_every_answer_it_may_be_par
     assert cli("impact", *args, "ferry.sailings.sailing_id", "--json") == 0
     assert json.loads(capsys.readouterr().out)["complete"] is True
     assert cli("lineage", *args, "--out", str(tmp_path / "g.dot")) == 11
+
+
+PIVOTS = {
+    "by_name": "SELECT * FROM (SELECT sailing_ref, passenger, fare FROM ferry.bookings)\n"
+    "PIVOT (sum(fare) FOR passenger IN ('Ann', 'Bo'))",
+    "two_sums": "SELECT * FROM (SELECT sailing_ref, passenger, fare, seats FROM ferry.bookings) b\n"
+    "PIVOT (sum(fare) AS t, max(seats) AS m FOR passenger IN ('Ann', 'Bo')) p",
+    "refunds": "SELECT * FROM (SELECT sailing_ref, refunded, fare FROM ferry.bookings)\n"
+    "PIVOT (sum(fare) FOR refunded IN (true AS yes, false AS no))",
+    "amounts": "SELECT booking_id, what, amount FROM ferry.bookings\nUNPIVOT (amount FOR what IN (fare, seats))",
+}
+
+
+def test_pivot_and_unpivot_columns_are_traced_under_the_engines_names(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: every PIVOT column was an "unknown table: _1.ann" and the answers incomplete; an
+    # UNPIVOT's value column was "not in schema"
+    import duckdb
+
+    models = tmp_path / "models"
+    models.mkdir()
+    for name, sql in PIVOTS.items():
+        (models / f"{name}.sql").write_text(f"CREATE VIEW {name} AS\n{sql};\n")
+    args = ("--models", str(models), "--mappings", str(ROOT / "mappings"))
+    # the oracle for the names: DuckDB itself, the views over a table of the mapping's fields
+    con = duckdb.connect()
+    con.execute(
+        "CREATE SCHEMA ferry; CREATE TABLE ferry.bookings (booking_id BIGINT, sailing_ref BIGINT, "
+        "passenger_ref BIGINT, passenger TEXT, pax_phone TEXT, fare DECIMAL(12,2), "
+        "booked_at TIMESTAMPTZ, seats BIGINT, refunded BOOLEAN)"
+    )
+    capsys.readouterr()
+    answers = {}
+    for name, sql in PIVOTS.items():
+        con.execute(f"CREATE VIEW {name} AS {sql}")
+        assert cli("trace", *args, name, "--json") == 0
+        got = {a["column"]: a for a in json.loads(capsys.readouterr().out)}
+        assert list(got) == [f"{name}.{r[0]}" for r in con.execute(f"DESCRIBE {name}").fetchall()]
+        answers |= got
+    b = "ferry.bookings."
+
+    def sets(column: str) -> tuple[list[str], dict[str, list[str]]]:
+        return answers[column]["value"], answers[column]["influence_kinds"]
+
+    # by hand: a PIVOT groups by the columns passing through; each made column aggregates its
+    # value's rows, which the FOR column picks (a filter)
+    assert sets("by_name.sailing_ref") == ([b + "sailing_ref"], {b + "sailing_ref": ["grouping"]})
+    assert sets("by_name.Ann") == (
+        [b + "fare"],
+        {b + "passenger": ["filter"], b + "sailing_ref": ["grouping"]},
+    )
+    assert sets("two_sums.Bo_m") == (
+        [b + "seats"],
+        {b + "passenger": ["filter"], b + "sailing_ref": ["grouping"]},
+    )
+    assert sets("two_sums.Ann_t")[0] == [b + "fare"]
+    assert sets("refunds.no")[0] == [b + "fare"] and b + "refunded" in sets("refunds.no")[1]
+    # an UNPIVOT: the value column takes each listed column's values, the name column none; rows
+    # whose value is NULL are left out (DuckDB's default), so the listed columns decide rows
+    assert sets("amounts.amount") == (
+        [b + "fare", b + "seats"],
+        {b + "fare": ["filter"], b + "seats": ["filter"]},
+    )
+    assert sets("amounts.what")[0] == [] and sets("amounts.booking_id")[0] == [b + "booking_id"]
+
+
+def test_a_pivot_whose_columns_get_no_name_is_incomplete_and_says_how_to_name_them(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # sqlglot derives no name for PIVOT ... IN (TRUE, FALSE) (DuckDB names them true, false)
+    models = tmp_path / "models"
+    models.mkdir()
+    (models / "flags.sql").write_text(
+        "CREATE VIEW flags AS SELECT * FROM ferry.bookings PIVOT (sum(fare) FOR refunded IN (true, false));\n"
+    )
+    capsys.readouterr()
+    assert (
+        cli("trace", "--models", str(models), "--mappings", str(ROOT / "mappings"), "flags", "--json") == 11
+    )
+    (answer,) = json.loads(capsys.readouterr().out)
+    assert "IN (TRUE AS yes, FALSE AS no)" in answer["unresolved"][0]["reference"]

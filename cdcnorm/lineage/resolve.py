@@ -290,6 +290,17 @@ class StatementResolver:
         if qualified is None:
             self._diag(_line(query), "unsupported", "too many unknown columns")
             return None
+        unnamed = (
+            [p for p in qualified.selects if not p.alias_or_name] if isinstance(qualified, exp.Query) else []
+        )
+        if unnamed:  # e.g. PIVOT ... IN (TRUE, FALSE): sqlglot derives no name for its columns
+            self._diag(
+                _line(query),
+                "unsupported",
+                "a column of the query gets no name here (a PIVOT over values that are not text or "
+                "numbers?): give its values aliases, IN (TRUE AS yes, FALSE AS no)",
+            )
+            return None
         root = build_scope(qualified)
         if root is None:
             self._diag(_line(query), "unsupported", "no query to resolve")
@@ -315,6 +326,9 @@ class StatementResolver:
             ident = proj.args.get("alias") if isinstance(proj, exp.Alias) else None
             if isinstance(ident, exp.Identifier):
                 aliases.setdefault(folded_name(ident, self.dialect), written(ident, self.dialect))
+        for pivot in query.find_all(exp.Pivot):
+            for made in self._pivot_names(pivot):
+                aliases.setdefault(fold(made, self.dialect), made)
         out = []
         for name, deps in outs:
             shown = aliases.get(name)
@@ -327,6 +341,23 @@ class StatementResolver:
                 shown = copies.pop() if len(copies) == 1 else name
             out.append((shown, deps))
         return out
+
+    def _pivot_names(self, p: exp.Pivot) -> list[str]:
+        """The names the engine gives a PIVOT's columns, where they follow from the query: the value
+        (its alias, a string's text) or, for an aggregate with an alias, ``<value>_<alias>``."""
+        if p.args.get("unpivot"):
+            return []
+        aggs = list(p.expressions)
+        values = [
+            v.alias or (v.this.name if isinstance(v.this, exp.Literal) and v.this.is_string else "")
+            if isinstance(v, exp.PivotAlias)
+            else (v.name if isinstance(v, exp.Literal) and v.is_string else v.sql(self.dialect))
+            for f in p.fields
+            for v in f.expressions
+        ]
+        if len(aggs) == 1 and not aggs[0].alias:
+            return [v for v in values if v]
+        return [f"{v}_{a.alias}" for v in values if v for a in aggs if a.alias]
 
     # --- scopes -----------------------------------------------------------------------------
 
@@ -510,6 +541,7 @@ class StatementResolver:
             if order is not None:
                 for o in order.expressions:
                     self.expr(o, scope, d, "copy", "limit")
+        self._pivot_rows(scope, d)
         for _alias, (_node, source) in scope.selected_sources.items():
             if isinstance(source, Scope):
                 canonical = self._canonical(source)
@@ -628,10 +660,74 @@ class StatementResolver:
         rows = self.rows(scope)
         d.merge(rows)
 
+    @staticmethod
+    def _pivots(scope: Scope) -> dict[str, exp.Pivot]:
+        """The PIVOT and UNPIVOT clauses of the scope's FROM and JOINs, by the alias their rows take."""
+        sel = scope.expression
+        if not isinstance(sel, exp.Select):
+            return {}
+        out: dict[str, exp.Pivot] = {}
+        for holder in [sel.args.get("from_"), *(sel.args.get("joins") or [])]:
+            if holder is None:
+                continue
+            for p in holder.this.args.get("pivots") or []:
+                out[p.alias or holder.this.alias_or_name] = p
+        return out
+
+    @staticmethod
+    def _pivot_outputs(p: exp.Pivot) -> list[str]:
+        """The columns a PIVOT makes (one per value and aggregate), or an UNPIVOT's value and name
+        columns; the source's other columns pass through."""
+        if p.args.get("unpivot"):
+            return [e.name for e in p.expressions] + [f.this.name for f in p.fields]
+        return [c.name for c in p.args.get("columns") or []]
+
+    def _pivot_column(self, p: exp.Pivot, name: str, scope: Scope, line: int | None) -> Deps:
+        source = p.parent.alias_or_name if p.parent is not None else ""
+        if name not in self._pivot_outputs(p):  # a column passing through (a PIVOT's group key)
+            return self._column_of(source, name, scope, line)
+        d = Deps()
+        if p.args.get("unpivot"):
+            values = [e.name for e in p.expressions]
+            if name in values:  # the unpivoted columns' values (the i-th of each tuple)
+                i = values.index(name)
+                for f in p.fields:
+                    for item in f.expressions:
+                        x = item.expressions[i] if isinstance(item, exp.Tuple) else item
+                        self.expr(x, scope, d, "copy", None)
+            return d  # the name column holds the names of columns, not their values
+        aggs = list(p.expressions)
+        if len(aggs) > 1:  # several aggregates: the column is named <value>_<aggregate's alias>
+            aggs = [a for a in aggs if name.endswith("_" + a.alias)] or aggs
+        for a in aggs:
+            self.expr(a, scope, d, "copy", None)
+        for f in p.fields:  # the FOR column decides which rows each aggregate counts
+            self.expr(f.this, scope, d, "copy", "filter")
+        return d
+
+    def _pivot_rows(self, scope: Scope, d: Deps) -> None:
+        """A PIVOT groups by the columns passing through; an UNPIVOT leaves out NULL values
+        unless told to keep them."""
+        for p in self._pivots(scope).values():
+            source = p.parent.alias_or_name if p.parent is not None else ""
+            if p.args.get("unpivot"):
+                if not p.args.get("include_nulls"):
+                    for f in p.fields:
+                        for item in f.expressions:
+                            self.expr(item, scope, d, "copy", "filter")
+                continue
+            used = {c.name for x in [*p.expressions, *p.fields] for c in x.find_all(exp.Column)}
+            for c in self._source_columns(scope, source):
+                if c not in used:
+                    d.merge(self._column_of(source, c, scope, _line(p)), as_influence="group")
+
     def column(self, col: exp.Column, scope: Scope) -> Deps:
         table = col.table
         name = col.name
         line = _line(col)
+        pivot = self._pivots(scope).get(table) if table else None
+        if pivot is not None:
+            return self._pivot_column(pivot, name, scope, line)
         if not table:
             alias = self._projection_alias(scope, name)
             if alias is not None:  # ORDER BY / GROUP BY naming an output column by its alias
@@ -668,6 +764,10 @@ class StatementResolver:
                 close = difflib.get_close_matches(name, sorted(shown), n=3)
                 self._diag(line, "not in schema", name, [shown[c] for c in close])
             return Deps()
+        return self._column_of(table, name, scope, line)
+
+    def _column_of(self, table: str, name: str, scope: Scope, line: int | None) -> Deps:
+        """Column ``name`` of the source ``table`` names in scope."""
         src = self._find_source(table, scope)
         if src is None:
             self._diag(

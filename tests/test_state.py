@@ -611,3 +611,9 @@ def test_as_of_time_and_normalised_positions_on_the_demo(
     )
     err = capsys.readouterr().err
     assert "16/XYZ" in err and "two hex numbers" in err and "Traceback" not in err
+    # a normalised position not padded as events hold it: compared as text it would select by byte
+    # order ("16/..." sorts after every "00000016/..."), so before, the latest state came out
+    for unpadded in ("16/B374D848.00000000000000000000.2", "00000016/B374D848.0.2"):
+        args = ("snapshot", str(landing), "--mappings", str(mdir), "--out", str(tmp_path / "x"))
+        assert cli(*args, "--table", "ferry.bookings", "--as-of", unpadded) == 2
+        assert "(did you mean 00000016/B374D848.00000000000000000000.2?)" in capsys.readouterr().err

@@ -11,6 +11,7 @@ by key: the same events give the same bytes.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -51,17 +52,54 @@ def as_of_position(engine: DuckDBEngine, mapping: LoadedMapping, text: str) -> A
     normal = engine.rows(f"SELECT {positions.position_text(spec, key)}")[0][0]
     if normal is not None:
         return AsOf(f"{position_part(mapping)} <= {lit(str(normal))}", f"position {text}")
-    head = engine.rows(f"SELECT {position_part(mapping, lit(text))}")[0][0]
-    if head and text != head:  # a full normalised position: its own log position must parse
-        check = positions.position_key(spec, lit(str(head)))
-        if spec.kind == "text" or engine.rows(f"SELECT {check}")[0][0] is not None:
-            return AsOf(f"__position <= {lit(text)}", f"position {text}")
+    normalised = _normalised(engine, mapping, text)
+    if normalised == text:  # a full normalised position, exactly as events hold it
+        return AsOf(f"__position <= {lit(text)}", f"position {text}")
+    # compared as text, anything else would select by byte order, not log order
     raise UsageError(
         f"--as-of {text!r} is not a position of {mapping.table}",
         field="position",
-        expected=positions.expected(spec) + ", or an event's normalised position",
+        expected=positions.expected(spec)
+        + ", or an event's normalised position"
+        + (f" (did you mean {normalised}?)" if normalised else ""),
         found=text,
     )
+
+
+def _normalised(engine: DuckDBEngine, mapping: LoadedMapping, text: str) -> str | None:
+    """``text`` read as an event's ``position`` (log position, sequence, rank) and written again
+    in its normalised form; None when its parts do not read as such."""
+    change = mapping.mapping.change
+    head = str(engine.rows(f"SELECT {position_part(mapping, lit(text))}")[0][0] or "")
+    parts = text[len(head) :].split(".")[1:]
+    if not head or len(parts) != (2 if change.sequence else 1) or parts[-1] not in ("0", "1", "2"):
+        return None
+
+    def again(kind: str, part: str, key: str, normal: str) -> str | None:
+        if kind == "text":  # a text's normalised form is its UTF-8 bytes in hex
+            return part if re.fullmatch(r"(?:[0-9A-F]{2})+", part) else None
+        value = engine.rows(f"SELECT {normal.replace('__key__', key)}")[0][0]
+        return None if value is None else str(value)
+
+    spec = change.position
+    out = [
+        again(
+            spec.kind, head, positions.position_key(spec, lit(head)), positions.position_text(spec, "__key__")
+        )
+    ]
+    if change.sequence:
+        seq = change.sequence
+        out.append(
+            again(
+                seq.kind,
+                parts[0],
+                positions.sequence_key(seq, spec, lit(parts[0])),
+                positions.sequence_text(seq, spec, "__key__"),
+            )
+        )
+    if any(o is None for o in out):
+        return None
+    return ".".join([*(str(o) for o in out), parts[-1]])
 
 
 def as_of_time(engine: DuckDBEngine, mapping: LoadedMapping, text: str) -> AsOf:

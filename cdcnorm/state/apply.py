@@ -25,7 +25,7 @@ import duckdb
 import sqlalchemy as sa
 
 from cdcnorm.engines.duckdb import DuckDBEngine
-from cdcnorm.errors import InputError
+from cdcnorm.errors import InputError, TargetError
 from cdcnorm.inputs import checksum
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.sql import ident
@@ -63,6 +63,35 @@ def _ensure(session: Session, target: Target, tables: Tables) -> None:
         session.run(sa.schema.CreateSchema(tables.data.schema, if_not_exists=True))
     for t in (tables.data, tables.tombstones, tables.applied):
         session.run(sa.schema.CreateTable(t, if_not_exists=True))
+
+
+def _check_columns(session: Session, target: Target, spec: TableSpec, tables: Tables) -> None:
+    """A table made beforehand must hold the mapping's values exactly (``targets/columns.py``):
+    a column it lacks, or one whose type would change values without an error, stops the apply
+    before anything is written."""
+    declared = {str(n): str(t) for n, t in session.run(target.declared_columns(tables.data))}
+    shown = f'"{spec.shown}"'
+    for field_name in spec.fields:
+        ftype = spec.types[field_name]
+        want = target.type_text(ftype)
+        if field_name not in declared:
+            raise TargetError(
+                f"{target.shown}: table {shown} has no column {field_name}",
+                field=field_name,
+                expected=f"a column for each field of the mapping ({want} for {ftype.describe()})",
+                hint="a field added to a mapping needs its column in a table made before: ALTER TABLE "
+                f'{shown} ADD COLUMN "{field_name}" {want}',
+            )
+        why = target.why_not_exact(declared[field_name], ftype)
+        if why is not None:
+            raise TargetError(
+                f"{target.shown}: column {field_name} of {shown} would not hold {ftype.describe()} values "
+                f"exactly: {why}",
+                field=field_name,
+                expected=f"{want} (the type apply gives it), or one that holds every value exactly",
+                found=declared[field_name],
+                hint=f"change the column's type to {want}, or drop the table and let apply create it",
+            )
 
 
 def apply_table(
@@ -108,6 +137,7 @@ def _apply(
 ) -> None:
     with transaction() as s:
         _ensure(s, target, tables)
+        _check_columns(s, target, spec, tables)
         a = tables.applied
         done = {
             str(sha): int(n)

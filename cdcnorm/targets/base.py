@@ -325,6 +325,24 @@ class Target:
         """The dialect's INSERT with ON CONFLICT."""
         raise NotImplementedError
 
+    #: the SQLAlchemy dialect statements are compiled for, and the sqlglot dialect of type names
+    sa_dialect: ClassVar[sa.engine.Dialect]
+    type_dialect: ClassVar[str] = "postgres"
+
+    def declared_columns(self, table: sa.Table) -> sa.Executable:
+        """A query of (column name, declared type) rows of ``table`` as the target holds it."""
+        raise NotImplementedError
+
+    def why_not_exact(self, declared: str, ftype: FieldType) -> str | None:
+        """Why a column declared so would change values of ``ftype`` without an error (``columns``)."""
+        from cdcnorm.targets.columns import why_not_exact
+
+        return why_not_exact(declared, ftype, self.type_dialect)
+
+    def type_text(self, ftype: FieldType) -> str:
+        """The type apply gives a column of ``ftype``, as the target's DDL writes it."""
+        return str(self.column_type(ftype).compile(dialect=self.sa_dialect))
+
     def connect(self, spec: TableSpec) -> AbstractContextManager[Begin]:
         """A connection held for one table's apply (and the table's lock); it gives transactions."""
         raise NotImplementedError

@@ -51,6 +51,14 @@ class _Session:
 
 class DuckDBTarget(Target):
     scheme = SCHEME
+    sa_dialect = _DIALECT
+    type_dialect = "duckdb"
+
+    def declared_columns(self, table: sa.Table) -> sa.Executable:
+        return sa.text(
+            "SELECT column_name, data_type FROM information_schema.columns "
+            "WHERE table_schema = :s AND table_name = :t ORDER BY ordinal_position"
+        ).bindparams(s=table.schema or "main", t=table.name)
 
     def column_type(self, ftype: FieldType) -> sa.types.TypeEngine[Any]:
         if ftype.name == "decimal":

@@ -45,6 +45,14 @@ class _Session(AlchemySession):
 class PostgreSQLTarget(Target):
     scheme = SCHEME
     max_name_bytes = 63  # longer identifiers are cut by the server
+    sa_dialect = postgresql.dialect()  # type: ignore[no-untyped-call]
+
+    def declared_columns(self, table: sa.Table) -> sa.Executable:
+        name = self.sa_dialect.identifier_preparer.format_table(table)
+        return sa.text(
+            "SELECT attname, format_type(atttypid, atttypmod) FROM pg_attribute "
+            "WHERE attrelid = to_regclass(:t) AND attnum > 0 AND NOT attisdropped ORDER BY attnum"
+        ).bindparams(t=name)
 
     def column_type(self, ftype: FieldType) -> sa.types.TypeEngine[Any]:
         if ftype.name == "decimal":

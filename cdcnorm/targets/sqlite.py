@@ -36,6 +36,15 @@ class _Session(AlchemySession):
 class SQLiteTarget(Target):
     scheme = SCHEME
     has_schemas = False
+    sa_dialect = sqlite.dialect()
+
+    def declared_columns(self, table: sa.Table) -> sa.Executable:
+        return sa.text("SELECT name, type FROM pragma_table_info(:t)").bindparams(t=table.name)
+
+    def why_not_exact(self, declared: str, ftype: FieldType) -> str | None:
+        from cdcnorm.targets.columns import why_not_exact_sqlite
+
+        return why_not_exact_sqlite(declared, ftype)
 
     def column_type(self, ftype: FieldType) -> sa.types.TypeEngine[Any]:
         types: dict[str, sa.types.TypeEngine[Any]] = {

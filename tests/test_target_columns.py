@@ -166,3 +166,42 @@ def test_postgresql_timestamp_without_time_zone_is_refused(
     err = capsys.readouterr().err
     assert "column booked_at of " in err and "found: timestamp without time zone" in err
     assert "password" not in err.lower()
+
+
+def test_postgresql_position_column_that_compares_by_a_locale_is_refused(
+    demo: Path, pg_url: str, capsys: pytest.CaptureFixture[str]
+) -> None:
+    import psycopg
+
+    with psycopg.connect(pg_url, autocommit=True) as c:
+        # the oracle: a locale's collation orders text otherwise than its bytes where "C" does not
+        # (PostgreSQL's ucs_basic and "C" compare code points; "und-x-icu" follows Unicode's rules)
+        icu = c.execute("SELECT count(*) FROM pg_collation WHERE collname = 'und-x-icu'").fetchone()
+        if icu == (1,):
+            assert c.execute(
+                """SELECT 'a' < 'B' COLLATE "und-x-icu", 'a' < 'B' COLLATE "C" """
+            ).fetchone() == (
+                True,
+                False,
+            )
+        collation = '"und-x-icu"' if icu == (1,) else '"en_US"'
+        exists = c.execute(
+            "SELECT count(*) FROM pg_collation WHERE collname = %s", (collation.strip('"'),)
+        ).fetchone()
+        if exists != (1,):
+            pytest.skip("the server has no locale collation to test with")
+        c.execute("CREATE SCHEMA ferry")
+        types = BOOKINGS | {
+            "fare": "numeric(12,2)",
+            "booked_at": "timestamptz",
+            "cdcnorm_position": f"text COLLATE {collation} NOT NULL",
+        }
+        c.execute(_ddl("ferry.bookings", types))
+    capsys.readouterr()
+    assert _apply(demo, pg_url, "--table", "ferry.bookings") == 10
+    err = capsys.readouterr().err
+    assert "column cdcnorm_position of " in err and "not as bytes" in err
+    assert 'ALTER COLUMN cdcnorm_position TYPE text COLLATE "C"' in err
+    with psycopg.connect(pg_url, autocommit=True) as c:
+        c.execute('ALTER TABLE ferry.bookings ALTER COLUMN cdcnorm_position TYPE text COLLATE "C"')
+    assert _apply(demo, pg_url, "--table", "ferry.bookings") == 0

@@ -43,6 +43,9 @@ from cdcnorm.targets.base import (
     guarded_writes,
 )
 
+#: Collations that compare text as bytes (PostgreSQL's; "C.UTF-8" and the like start with "C.").
+BYTE_COLLATIONS = ("C", "POSIX", "ucs_basic")
+
 #: Keys per batch: one staged table, one transaction.
 BATCH_ROWS = 50_000
 
@@ -91,6 +94,20 @@ def _check_columns(session: Session, target: Target, spec: TableSpec, tables: Ta
                 expected=f"{want} (the type apply gives it), or one that holds every value exactly",
                 found=declared[field_name],
                 hint=f"change the column's type to {want}, or drop the table and let apply create it",
+            )
+    for table in (tables.data, tables.tombstones):
+        query = target.position_collation(table)
+        rows = session.run(query) if query is not None else []
+        collation = str(rows[0][0]) if rows and rows[0][0] is not None else None
+        if collation is not None and collation not in BYTE_COLLATIONS and not collation.startswith("C."):
+            name = f"{table.schema}.{table.name}" if table.schema else table.name
+            raise TargetError(
+                f'{target.shown}: column {POSITION} of "{name}" compares by the collation "{collation}": '
+                "positions would be ordered by the locale's rules, not as bytes",
+                field=POSITION,
+                expected='a collation that compares bytes ("C")',
+                found=collation,
+                hint=f'ALTER TABLE "{name}" ALTER COLUMN {POSITION} TYPE text COLLATE "C"',
             )
 
 

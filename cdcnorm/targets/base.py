@@ -333,6 +333,11 @@ class Target:
         """A query of (column name, declared type) rows of ``table`` as the target holds it."""
         raise NotImplementedError
 
+    def position_collation(self, table: sa.Table) -> sa.Executable | None:
+        """A query of the collation ``table``'s position column compares by, where the database
+        has collations (one row); None where text always compares as bytes."""
+        return None
+
     def why_not_exact(self, declared: str, ftype: FieldType) -> str | None:
         """Why a column declared so would change values of ``ftype`` without an error (``columns``)."""
         from cdcnorm.targets.columns import why_not_exact

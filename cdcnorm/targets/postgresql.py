@@ -22,7 +22,15 @@ import pyarrow.csv as pacsv
 import sqlalchemy as sa
 from sqlalchemy.dialects import postgresql
 
-from cdcnorm.targets.base import AlchemySession, Begin, Tables, TableSpec, Target, alchemy_begin
+from cdcnorm.targets.base import (
+    POSITION,
+    AlchemySession,
+    Begin,
+    Tables,
+    TableSpec,
+    Target,
+    alchemy_begin,
+)
 from cdcnorm.types.base import FieldType
 
 SCHEME = "postgresql"
@@ -53,6 +61,15 @@ class PostgreSQLTarget(Target):
             "SELECT attname, format_type(atttypid, atttypmod) FROM pg_attribute "
             "WHERE attrelid = to_regclass(:t) AND attnum > 0 AND NOT attisdropped ORDER BY attnum"
         ).bindparams(t=name)
+
+    def position_collation(self, table: sa.Table) -> sa.Executable | None:
+        # the column's own collation, or the database's when it has the default one
+        return sa.text(
+            "SELECT COALESCE(NULLIF(c.collname, 'default'), "
+            "(SELECT datcollate FROM pg_database WHERE datname = current_database())) "
+            "FROM pg_attribute a LEFT JOIN pg_collation c ON c.oid = a.attcollation "
+            "WHERE a.attrelid = to_regclass(:t) AND a.attname = :c"
+        ).bindparams(t=self.sa_dialect.identifier_preparer.format_table(table), c=POSITION)
 
     def column_type(self, ftype: FieldType) -> sa.types.TypeEngine[Any]:
         if ftype.name == "decimal":

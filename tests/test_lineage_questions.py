@@ -848,3 +848,21 @@ def test_a_pivot_whose_columns_get_no_name_is_incomplete_and_says_how_to_name_th
     )
     (answer,) = json.loads(capsys.readouterr().out)
     assert "IN (TRUE AS yes, FALSE AS no)" in answer["unresolved"][0]["reference"]
+
+
+def test_the_binding_check_says_a_model_reads_a_refused_one_only_when_it_does(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: a refused model named "d" was blamed for every later refusal, since the letter d
+    # appears in the engine's message ("...not found in FROM clause!")
+    models = tmp_path / "models"
+    models.mkdir()
+    (models / "d.sql").write_text("CREATE VIEW d AS SELECT passenger FROM ferry.bookings;\n")
+    (models / "e.sql").write_text("CREATE VIEW e AS SELECT upper(passenger) AS p FROM ferry.bookings;\n")
+    (models / "f.sql").write_text("CREATE VIEW f AS SELECT passenger FROM d;\n")
+    args = ("--models", str(models), "--mappings", str(ROOT / "mappings"))
+    capsys.readouterr()
+    assert cli("impact", *args, "ferry.bookings.passenger", "--drop", "--json") == 8
+    broken = {b["model"]: b["reason"] for b in json.loads(capsys.readouterr().out)["binding"]["broken"]}
+    assert broken["e"].startswith("the engine cannot bind it: ") and "passenger" in broken["e"]
+    assert broken["f"] == "it reads d, which the engine refuses"

@@ -100,8 +100,10 @@ def raw_rows(plan: Plan, wanted: str) -> str:
     for all_columns, ids in by_columns.items():
         # the _cdcnorm member of a quarantine line fed back is not a raw column of the row
         columns = tuple(c for c in all_columns if not c.startswith(META_KEY))
+        # json_object, not a struct: a struct's member names are case-insensitive, and a header may
+        # hold both "name" and "Name"
         raw = (
-            "to_json({" + ", ".join(f"{lit(c)}: s.{plan.raw(c)}" for c in columns) + "})"
+            "json_object(" + ", ".join(f"{lit(c)}, s.{plan.raw(c)}" for c in columns) + ")"
             if columns
             else "'{}'"
         )

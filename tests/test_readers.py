@@ -296,3 +296,71 @@ def test_a_struct_member_the_file_lacks_is_drift_with_its_members_suggested(
     err = capsys.readouterr().err
     assert code == 4 and "reads raw column 'after.place.town'" in err
     assert 'did you mean "after.place.city"?' in err  # a member of the struct, not the struct
+
+
+@pytest.mark.parametrize("fmt", ["csv", "jsonl", "parquet"])
+@pytest.mark.parametrize("mapped", ["a", "A"])
+def test_columns_whose_names_differ_only_in_case_are_two_columns(
+    convert: ConvertFn, fmt: str, mapped: str
+) -> None:
+    # before: a CSV header "a,A" ended in a traceback (the raw row's struct took them as one name),
+    # and DuckDB read a Parquet file's "A" as "A_1", so a mapping of A found no such column; the
+    # reference is the file itself (Python's csv and json modules, pyarrow for Parquet)
+    import io
+    import json
+
+    rows = [{"op": "I", "pos": 1, "id": 1, "a": "lower", "A": "upper", "b": "x"}]
+    rows.append({"op": "I", "pos": 2, "id": "bad", "a": "l2", "A": "u2", "b": "y"})
+    if fmt == "csv":
+        data: str | bytes = "op,pos,id,a,A,b\n" + "".join(",".join(map(str, r.values())) + "\n" for r in rows)
+    elif fmt == "jsonl":
+        data = "".join(json.dumps(r) + "\n" for r in rows)
+    else:
+        buf = io.BytesIO()
+        pq.write_table(pa.Table.from_pylist([{**r, "id": str(r["id"])} for r in rows]), buf)
+        data = buf.getvalue()
+    mapping = MAPPING.replace("  a: text\n", f"  a: {{from: {mapped}, type: text}}\n")
+    done = convert(mapping, {f"n.{fmt}": data})
+    (e,) = done.events("t.notes")
+    assert e["values"]["a"] == rows[0][mapped]
+    (q,) = done.quarantine("t.notes")  # the raw row keeps both names as the file has them
+    assert (q["a"], q["A"]) == ("l2", "u2")
+
+
+def test_a_parquet_schema_that_repeats_a_name_is_refused(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # as a CSV header that repeats a name: which column the mapping means cannot be known
+    (tmp_path / "m").mkdir()
+    (tmp_path / "m" / "t.yaml").write_text(MAPPING)
+    t = pa.Table.from_arrays(
+        [pa.array(x) for x in (["I"], [1], [1], ["x"], ["y"])], names=["op", "pos", "id", "a", "a"]
+    )
+    pq.write_table(t, tmp_path / "n.parquet")
+    capsys.readouterr()
+    args = ("--mappings", str(tmp_path / "m"), "--out", str(tmp_path / "o"))
+    assert cli("convert", str(tmp_path / "n.parquet"), *args) == 4
+    assert "the file's schema repeats column names ['a']" in capsys.readouterr().err
+
+
+def test_mapping_fields_that_differ_only_in_case_are_refused(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: a traceback when the envelope's struct was built
+    (tmp_path / "m").mkdir()
+    (tmp_path / "m" / "t.yaml").write_text(MAPPING + "  A: text\n")
+    (tmp_path / "n.csv").write_text("op,pos,id,a,A,b\nI,1,1,x,y,z\n")
+    capsys.readouterr()
+    assert (
+        cli(
+            "convert",
+            str(tmp_path / "n.csv"),
+            "--mappings",
+            str(tmp_path / "m"),
+            "--out",
+            str(tmp_path / "o"),
+        )
+        == 3
+    )
+    err = capsys.readouterr().err
+    assert "t.yaml:12: fields a and A differ only in case" in err and "Traceback" not in err

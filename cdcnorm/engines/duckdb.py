@@ -443,26 +443,33 @@ class DuckDBEngine:
             self.con.unregister("__appended_rows")
 
     def scan_parquet(
-        self, path: Path, nested: Sequence[tuple[str, ...]] = ()
-    ) -> list[tuple[tuple[str, ...], str]]:
-        """The columns of a Parquet file and their engine types, as (keys, type): a top-level
-        column's keys are its name; then each ``nested`` key path that reaches a member of a struct
-        column (``("after", "id")``), in order; a path that reaches none is left out."""
+        self, path: Path, nested: Sequence[tuple[str, ...]] = (), own: Sequence[str] | None = None
+    ) -> list[tuple[tuple[str, ...], str, tuple[str, ...]]]:
+        """The columns of a Parquet file and their engine types, as (keys, type, engine keys): a
+        top-level column's keys are its name; then each ``nested`` key path that reaches a member
+        of a struct column (``("after", "id")``), in order; a path that reaches none is left out.
+
+        ``own`` are the file's own top-level names, read from its schema: the engine's names differ
+        where two differ only in case (``name``, ``Name``), which it reads as ``name``, ``Name_1``
+        and binds without regard to case. Keys are the file's names, engine keys address them."""
         src = f"read_parquet({lit(str(path))})"
-        found: list[tuple[tuple[str, ...], str]] = [
-            ((str(r[0]),), str(r[1])) for r in self.rows(f"DESCRIBE SELECT * FROM {src}")
+        described = [(str(r[0]), str(r[1])) for r in self.rows(f"DESCRIBE SELECT * FROM {src}")]
+        shown = list(own) if own is not None and len(own) == len(described) else [n for n, _ in described]
+        engine_name = {s: e for s, (e, _) in zip(shown, described, strict=True)}
+        found: list[tuple[tuple[str, ...], str, tuple[str, ...]]] = [
+            ((s,), typ, (e,)) for s, (e, typ) in zip(shown, described, strict=True)
         ]
-        structs = {keys[0] for keys, typ in found if typ.startswith("STRUCT")}
-        top = {keys[0] for keys, _ in found}
+        structs = {s for s, (_, typ) in zip(shown, described, strict=True) if typ.startswith("STRUCT")}
         for keys in nested:
             # a top-level column named with the dots is that column
-            if len(keys) < 2 or keys[0] not in structs or ".".join(keys) in top:
+            if len(keys) < 2 or keys[0] not in structs or ".".join(keys) in engine_name:
                 continue
+            at = (engine_name[keys[0]], *keys[1:])
             try:
-                ((_, typ, *_),) = self.rows(f"DESCRIBE SELECT {parquet_member(keys)} FROM {src}")
+                ((_, typ, *_),) = self.rows(f"DESCRIBE SELECT {parquet_member(at)} FROM {src}")
             except duckdb.BinderException:
                 continue  # no such member, or a member of something that is not a struct
-            found.append((keys, str(typ)))
+            found.append((keys, str(typ), at))
         return found
 
     def load_parquet_as_text(
@@ -474,8 +481,8 @@ class DuckDBEngine:
         nulls: list[str],
     ) -> None:
         """Load a Parquet file with every value as text: BLOB as hex, structs, lists and maps as JSON
-        text; a text equal to a null token is NULL. ``columns`` are (keys, type, internal name),
-        keys as ``scan_parquet`` gives them."""
+        text; a text equal to a null token is NULL. ``columns`` are (engine keys, type, internal
+        name), engine keys as ``scan_parquet`` gives them."""
 
         def as_text(col: str, typ: str) -> str:
             if typ == "BLOB":

@@ -147,6 +147,20 @@ def load_mapping(path: Path) -> LoadedMapping:
             found=None if err["type"] in ("missing",) else repr(found)[:200],
             hint=hint,
         ) from None
+    seen: dict[str, str] = {}
+    for name in mapping.fields:
+        other = seen.setdefault(name.lower(), name)
+        if other != name:
+            raise MappingError(
+                f"fields {other} and {name} differ only in case",
+                file=text_name,
+                line=lines.get(("fields", name)),
+                field=f"fields.{name}",
+                expected="field names that differ in more than case: the envelope's Parquet structs, "
+                "DuckDB and SQLite take such names as one",
+                found=name,
+                hint=f"rename one of them, keeping its raw column with from: (e.g. {name}_2: {{from: {name}}})",
+            )
     field_types: dict[str, FieldType] = {}
     for name, spec in mapping.fields.items():
         try:

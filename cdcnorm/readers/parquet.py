@@ -34,6 +34,18 @@ def _members(prefix: str, struct_type: str) -> list[str]:
     return out
 
 
+def _own_names(path: Path) -> list[str] | None:
+    """The file's top-level column names as its schema states them (the engine renames a name that
+    differs from another only in case); None when pyarrow cannot read the schema."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    try:
+        return list(pq.read_schema(path).names)
+    except (pa.ArrowException, OSError):
+        return None
+
+
 def read_files(
     files: list[RawFile], mapping: Mapping, engine: DuckDBEngine, raw: RawTable, scratch: Path
 ) -> None:
@@ -43,12 +55,25 @@ def read_files(
         rel = raw.relation("parquet")
         try:
             nested = [tuple(c.split(".")) for c in mapping.mapped_columns() if "." in c]
-            cols = engine.scan_parquet(f.path, nested)
-            f.columns = [".".join(k) for k, _ in cols]
-            f.members = [m for k, t in cols if t.startswith("STRUCT") for m in _members(k[0], t)]
+            own = _own_names(f.path)
+            repeated = sorted({n for n in own or [] if (own or []).count(n) > 1})
+            if repeated:  # as a CSV header that repeats a name: which one a mapping means is unknown
+                raise InputError(
+                    f"the file's schema repeats column names {repeated}",
+                    file=str(f.path),
+                    expected="each column name once",
+                    found=", ".join(own or []),
+                )
+            cols = engine.scan_parquet(f.path, nested, own)
+            f.columns = [".".join(k) for k, _, _ in cols]
+            f.members = [m for k, t, _ in cols if t.startswith("STRUCT") for m in _members(k[0], t)]
             internal = [raw.internal(c) for c in f.columns]
             engine.load_parquet_as_text(
-                rel, f.path, f.file_id, [(c, t, i) for (c, t), i in zip(cols, internal, strict=True)], tokens
+                rel,
+                f.path,
+                f.file_id,
+                [(e, t, i) for (_, t, e), i in zip(cols, internal, strict=True)],
+                tokens,
             )
         except duckdb.Error as e:
             raise InputError(

@@ -81,3 +81,19 @@ def test_mapping_schema_command(capsys: pytest.CaptureFixture[str]) -> None:
     schema = json.loads(capsys.readouterr().out)
     assert schema["title"] == "Mapping" and "change" in schema["properties"]
     assert set(schema["required"]) >= {"table", "files", "key", "change", "fields"}
+
+
+def test_two_mappings_of_one_table_or_of_tables_that_differ_only_in_case_are_refused(tmp_path: Path) -> None:
+    # the same table twice was refused; ferry.Bookings beside ferry.bookings ended in the engine's
+    # error called a bug (its relations took the two names as one)
+    text = (ROOT / "mappings" / "bookings.yaml").read_text()
+    for other, says in (
+        ("ferry.bookings", "table ferry.bookings is declared twice"),
+        ("ferry.Bookings", "differ only in case"),
+    ):
+        folder = tmp_path / other
+        folder.mkdir()
+        (folder / "a.yaml").write_text(text)
+        (folder / "b.yaml").write_text(text.replace("table: ferry.bookings", f"table: {other}"))
+        with pytest.raises(MappingError, match=says):
+            load_mappings(folder)

@@ -203,11 +203,21 @@ def load_mappings(folder: Path) -> list[LoadedMapping]:
     if not paths:
         raise MappingError("no mapping files (*.yaml) in this folder", file=str(folder))
     loaded = [load_mapping(p) for p in paths]
-    seen: dict[str, Path] = {}
+    seen: dict[str, LoadedMapping] = {}
     for lm in loaded:
-        if lm.table in seen:
+        other = seen.get(lm.table.lower())
+        if other is not None and other.table == lm.table:
             raise MappingError(
-                f"table {lm.table} is declared twice (also in {seen[lm.table]})", file=str(lm.path), line=1
+                f"table {lm.table} is declared twice (also in {other.path})", file=str(lm.path), line=1
             )
-        seen[lm.table] = lm.path
+        if other is not None:
+            raise MappingError(
+                f"tables {other.table} ({other.path}) and {lm.table} differ only in case",
+                file=str(lm.path),
+                line=1,
+                expected="table names that differ in more than case: the landing area's folders (on "
+                "file systems that ignore case), DuckDB and SQLite take such names as one",
+                found=lm.table,
+            )
+        seen[lm.table.lower()] = lm
     return sorted(loaded, key=lambda m: m.table)

@@ -364,3 +364,27 @@ def test_mapping_fields_that_differ_only_in_case_are_refused(
     )
     err = capsys.readouterr().err
     assert "t.yaml:12: fields a and A differ only in case" in err and "Traceback" not in err
+
+
+def test_a_mapped_struct_member_beside_one_differing_only_in_case_is_refused(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: "after.Name" read the member "name" without a word (the engine binds members without
+    # regard to case); a member without such a twin (after.id) is still read
+    st = pa.StructArray.from_arrays(
+        [pa.array([1]), pa.array(["low"]), pa.array(["UP"])], names=["id", "name", "Name"]
+    )
+    pq.write_table(pa.table({"op": ["I"], "pos": [1], "after": st}), tmp_path / "n.parquet")
+    (tmp_path / "m").mkdir()
+    mapping = MAPPING.replace("  id: integer\n", "  id: {from: after.id, type: integer}\n")
+    mapping = mapping.replace("  a: text\n  b: text\n", "  a: {from: after.Name, type: text}\n")
+    (tmp_path / "m" / "t.yaml").write_text(mapping)
+    args = ("--mappings", str(tmp_path / "m"), "--out", str(tmp_path / "o"))
+    capsys.readouterr()
+    assert cli("convert", str(tmp_path / "n.parquet"), *args) == 4
+    err = capsys.readouterr().err
+    assert (
+        "struct after has members that differ only in case: Name, name" in err and "field: after.Name" in err
+    )
+    (tmp_path / "m" / "t.yaml").write_text(mapping.replace("after.Name", "after.id"))
+    assert cli("convert", str(tmp_path / "n.parquet"), *args) == 0

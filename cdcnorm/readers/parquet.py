@@ -8,6 +8,8 @@ from __future__ import annotations
 from pathlib import Path
 
 import duckdb
+import pyarrow as pa
+import pyarrow.parquet as pq
 from sqlglot import exp
 
 from cdcnorm.engines.duckdb import DuckDBEngine
@@ -34,16 +36,41 @@ def _members(prefix: str, struct_type: str) -> list[str]:
     return out
 
 
-def _own_names(path: Path) -> list[str] | None:
-    """The file's top-level column names as its schema states them (the engine renames a name that
-    differs from another only in case); None when pyarrow cannot read the schema."""
-    import pyarrow as pa
-    import pyarrow.parquet as pq
-
+def _own_schema(path: Path) -> pa.Schema | None:
+    """The file's schema as it states it (the engine renames a name that differs from another only
+    in case); None when pyarrow cannot read it."""
     try:
-        return list(pq.read_schema(path).names)
+        return pq.read_schema(path)
     except (pa.ArrowException, OSError):
         return None
+
+
+def _check_members(schema: pa.Schema, nested: list[tuple[str, ...]], path: Path) -> None:
+    """A mapped member of a struct beside another that differs from it only in case cannot be read:
+    the engine binds members without regard to case and could read the other one."""
+    for keys in nested:
+        if keys[0] not in schema.names:
+            continue
+        typ: pa.DataType = schema.field(keys[0]).type
+        for depth in range(1, len(keys)):
+            if not pa.types.is_struct(typ):
+                break
+            names = [typ.field(i).name for i in range(typ.num_fields)]
+            clash = sorted(n for n in names if n.lower() == keys[depth].lower())
+            if len(clash) > 1:
+                raise InputError(
+                    f"struct {'.'.join(keys[:depth])} has members that differ only in case: {', '.join(clash)}",
+                    file=str(path),
+                    field=".".join(keys),
+                    expected="member names that differ in more than case on the way to a mapped member",
+                    found=", ".join(names),
+                    hint="the engine reads struct members without regard to case; write the file with "
+                    "other names, or flatten the struct",
+                )
+            i = typ.get_field_index(keys[depth])
+            if i < 0:
+                break
+            typ = typ.field(i).type
 
 
 def read_files(
@@ -55,7 +82,10 @@ def read_files(
         rel = raw.relation("parquet")
         try:
             nested = [tuple(c.split(".")) for c in mapping.mapped_columns() if "." in c]
-            own = _own_names(f.path)
+            schema = _own_schema(f.path)
+            own = list(schema.names) if schema is not None else None
+            if schema is not None:
+                _check_members(schema, nested, f.path)
             repeated = sorted({n for n in own or [] if (own or []).count(n) > 1})
             if repeated:  # as a CSV header that repeats a name: which one a mapping means is unknown
                 raise InputError(

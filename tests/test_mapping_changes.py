@@ -313,3 +313,25 @@ def test_events_of_runs_whose_record_states_no_fields_are_read_as_the_mapping_st
         path.write_text(json.dumps(record))
     state, notes, _ = _state(tmp_path, added, out, capsys)
     assert notes == [] and state[1001]["export_batch"] is None and state[1008]["export_batch"] == "live-19"
+
+
+def test_events_written_under_another_key_are_refused_not_compacted_by_nulls(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # a key field renamed in the mapping: run 1's events lack it; compacted, every key would be NULL
+    old = _mappings(tmp_path / "old")
+    renamed = _mappings(
+        tmp_path / "new",
+        ("key: [booking_id]\n", "key: [booking_no]\n"),
+    )
+    text = (renamed / "bookings.yaml").read_text()
+    (renamed / "bookings.yaml").write_text(
+        text.replace("  booking_id: integer\n", "  booking_no: {from: booking_id, type: integer}\n")
+    )
+    out = tmp_path / "o"
+    assert _convert(DUMPS, old, out) == 0
+    capsys.readouterr()
+    args = ("--mappings", str(renamed), "--out", str(tmp_path / "s"), "--table", "ferry.bookings")
+    assert cli("snapshot", str(out), *args) == 4
+    err = capsys.readouterr().err
+    assert "were written under another key of ferry.bookings: they lack booking_no" in err

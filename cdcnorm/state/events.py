@@ -256,6 +256,18 @@ def load_events(
         types = _types(mapping, written)
         source = _source(mapping, group, types)
         if written is not None:
+            lacking = [k for k in mapping.mapping.key if k not in types]
+            if lacking:  # their keys cannot be had: a key field added or renamed since
+                raise InputError(
+                    f"the events of {_runs(group)} were written under another key of {mapping.table}: "
+                    f"they lack {', '.join(lacking)}",
+                    file=str(group[0].path),
+                    field=lacking[0],
+                    expected=f"events keyed by ({', '.join(mapping.mapping.key)})",
+                    found=f"fields {', '.join(types)}",
+                    hint="compact them under the mapping they were written with, or convert the table's "
+                    "dumps again into a new landing area under the mapping as it is now",
+                )
             notes += _notes(mapping, group, types)
             _check_retyped(engine, mapping, group, source, types)
         parts.append(_select(mapping, source, types, rendered=fmt == "jsonl"))

@@ -486,6 +486,24 @@ def _account(trun: TableRun, engine: DuckDBEngine) -> ledger_mod.TableLedger:
     for f in trun.raw.files:
         tl.files[f.name] = ledger_mod.FileCounts(read=f.rows_read, quarantined=f.malformed)
     ledger_mod.count_fates(plan, engine.rows, tl, ids)
+    if plan.fewer_orders:  # repeats compared on the fields an earlier run wrote: said per file
+        added = [
+            f
+            for i, f in enumerate(plan.fields)
+            if any(i not in plan.earlier_orders[k - 1] for k in plan.fewer_orders)
+        ]
+        by_id = {f.file_id: f for f in trun.raw.files}
+        for file_id, n in engine.rows(
+            f"SELECT __file, count(*) FROM {plan.rel('seen')} WHERE __same AND __fewer GROUP BY ALL ORDER BY 1"
+        ):
+            if file_id in by_id:
+                rows = "1 row repeats a row" if n == 1 else f"{n} rows repeat rows"
+                names = ", ".join(added)
+                by_id[file_id].notes.append(
+                    f"{rows} emitted before {names} joined the mapping: compared on the fields emitted "
+                    f"then, {'it is a duplicate' if n == 1 else 'they are duplicates'}, and {names} of "
+                    f"{'that change is' if n == 1 else 'those changes are'} in no event"
+                )
     for reason, n in engine.rows(ledger_mod.reason_counts(ident(rejected))):
         tl.reasons[str(reason)] = int(n)
     return tl

@@ -62,9 +62,15 @@ class Plan:
     #: waiting), "all", or SQL of a position key below which they do
     settle: str | None = None
     #: the orders of the fields (indices of ``fields``) that earlier runs' identity files were
-    #: written in, where they differ from the mapping's now (fields reordered): their digests are
-    #: compared with ``content(order=...)``
+    #: written in, where they differ from the mapping's now (fields reordered, or fewer: fields
+    #: added since): their digests are compared with ``content(order=...)``
     earlier_orders: tuple[tuple[int, ...], ...] = ()
+
+    @property
+    def fewer_orders(self) -> list[int]:
+        """The k (1-based) of the ``earlier_orders`` that lack fields the mapping has now."""
+        return [k for k, o in enumerate(self.earlier_orders, start=1) if len(o) < len(self.fields)]
+
     steps: tuple[Step, ...] = field(default_factory=tuple)
 
     def types(self) -> dict[str, str]:

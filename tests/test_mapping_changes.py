@@ -335,3 +335,43 @@ def test_events_written_under_another_key_are_refused_not_compacted_by_nulls(
     assert cli("snapshot", str(out), *args) == 4
     err = capsys.readouterr().err
     assert "were written under another key of ferry.bookings: they lack booking_no" in err
+
+
+def test_a_repeat_of_a_row_emitted_before_a_field_was_added_is_compared_on_the_fields_then(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # the next day repeats booking 1001's snapshot row: with the mapping unedited a duplicate; with
+    # a field added since, compared on the fields run 1 digested, still a duplicate, said in a note
+    # (before: a conflict "whose fields differ", quarantined every night the archive overlaps)
+    old = _mappings(tmp_path / "old")
+    added = _mappings(tmp_path / "new", ADD_BATCH)
+    ledgers = []
+    for mappings, out in ((old, tmp_path / "a"), (added, tmp_path / "b")):
+        assert _convert(DUMPS, old, out) == 0
+        assert cli("settle", str(out), "--all", "--mappings", str(old), "--quiet") == 0
+        capsys.readouterr()
+        assert cli("convert", str(NEXT_DAY), "--mappings", str(mappings), "--out", str(out)) == 0
+        ledgers.append(last_run(out)["ledger"]["tables"]["ferry.bookings"]["total"])
+    assert ledgers[0] == ledgers[1] and ledgers[1]["duplicate"] == 1 and ledgers[1]["quarantined"] == 0
+    (note,) = last_run(tmp_path / "b")["notes"]
+    assert note["note"] == (
+        "1 row repeats a row emitted before export_batch joined the mapping: compared on the fields "
+        "emitted then, it is a duplicate, and export_batch of that change is in no event"
+    )
+    assert f"note: bookings-2026-03-02.csv (ferry.bookings): {note['note']}" in capsys.readouterr().out
+
+    # a repeat whose content differs in a field run 1 wrote is still a conflict with run 1
+    day = tmp_path / "day"
+    day.mkdir()
+    text = (NEXT_DAY / "bookings-2026-03-02.csv").read_text()
+    assert ',"+44 7700 900101",42.5,' in text
+    (day / "bookings-2026-03-02.csv").write_text(
+        text.replace(',"+44 7700 900101",42.5,', ',"+44 7700 900101",43.5,')
+    )
+    out = tmp_path / "c"
+    assert _convert(DUMPS, old, out) == 0
+    assert cli("settle", str(out), "--all", "--mappings", str(old), "--quiet") == 0
+    assert _convert(day, added, out) == 0
+    (q,) = [x for x in _lines(out / "quarantine" / "ferry.bookings") if x["op"] == "R"]
+    assert q["_cdcnorm"]["reasons"][0]["reason"].startswith("conflict with run ")
+    assert q["_cdcnorm"]["reasons"][0]["found"] == "other content"

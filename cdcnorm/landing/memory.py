@@ -152,13 +152,16 @@ def _check_order(plan: Plan, stated: dict[str, dict[str, str]], what: str) -> No
 
 
 def _reordered(stored: list[list[str]], now: list[list[str]]) -> tuple[int, ...] | None:
-    """The order (indices of ``now``) of the stored fields when they are the mapping's fields,
-    names and types, in another order; else None."""
+    """The order (indices of ``now``) of the stored fields when each is a field of the mapping's
+    now, by name and type: the mapping's fields in another order, or fewer of them (fields added
+    since), whose digest runs over those fields alone; else None (the same fields, or some that
+    are gone or retyped)."""
     names = [name for name, _ in now]
     if (
         stored == now
         or len(set(names)) != len(names)
-        or sorted(map(tuple, stored)) != sorted(map(tuple, now))
+        or len({name for name, _ in stored}) != len(stored)
+        or any(list(f) not in now for f in stored)
     ):
         return None
     return tuple(names.index(name) for name, _ in stored)
@@ -166,7 +169,8 @@ def _reordered(stored: list[list[str]], now: list[list[str]]) -> tuple[int, ...]
 
 def field_orders(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> tuple[tuple[int, ...], ...]:
     """The field orders (``Plan.earlier_orders``) of these identity files written before the
-    mapping's fields were reordered: their content digests run over the fields in that order."""
+    mapping's fields were reordered or added to: their content digests run over those fields, in
+    that order."""
     if not files:
         return ()
     now = layout(plan)

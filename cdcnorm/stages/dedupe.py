@@ -85,6 +85,8 @@ def dedupe_rows(plan: Plan) -> Plan:
         "seen",
         f"SELECT o.__file, o.__row, o.__act, bool_and({same}) AS __same, "
         "bool_or(e.__other_fields) AS __other_fields, "
+        # compared with identities written before fields were added: on the fields they digested
+        f"bool_or(e.__order IN ({', '.join(map(str, [-1, *plan.fewer_orders]))})) AS __fewer, "
         f"min(e.__run) AS __earlier_run FROM {ordered} o JOIN ("
         f"SELECT {earlier_cols}, __hash, __format, __run, __other_fields, __order FROM {plan.rel('earlier')} "
         f"UNION ALL SELECT {carried_cols}, {plan.content()} AS __hash, {INDEX_FORMAT}, __run, FALSE, 0 "

@@ -375,3 +375,18 @@ def test_a_repeat_of_a_row_emitted_before_a_field_was_added_is_compared_on_the_f
     (q,) = [x for x in _lines(out / "quarantine" / "ferry.bookings") if x["op"] == "R"]
     assert q["_cdcnorm"]["reasons"][0]["reason"].startswith("conflict with run ")
     assert q["_cdcnorm"]["reasons"][0]["found"] == "other content"
+
+
+def test_parquet_events_without_run_records_are_read_by_their_own_schema(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # a bare events folder (copied without runs/): Parquet files state their fields in their schema
+    added, out = _two_days(tmp_path, ADD_BATCH, "parquet")
+    bare = tmp_path / "bare"
+    shutil.copytree(out / "events", bare / "events")
+    state, notes, _ = _state(tmp_path, added, bare, capsys)
+    assert state[1001]["export_batch"] is None and state[1008]["export_batch"] == "live-19"
+    first = sorted((out / "runs").glob("*.json"))[0].stem
+    assert notes == [
+        f"the events of run {first} were written before field export_batch joined the mapping: it is NULL in them"
+    ]

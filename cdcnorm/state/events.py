@@ -27,7 +27,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 from pathlib import Path
 
+import duckdb
 import sqlglot
+from sqlglot import exp
 
 from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.errors import InputError
@@ -243,6 +245,51 @@ def _check_retyped(
             )
 
 
+#: the value type of a field from the engine's type of its Parquet column, where no record says
+_STORED = {
+    "BIGINT": "integer",
+    "DOUBLE": "float",
+    "BOOLEAN": "boolean",
+    "DATE": "date",
+    "TIME": "time",
+    "TIMESTAMPTZ": "timestamp",
+    "BLOB": "bytes",
+    "UUID": "uuid",
+    "JSON": "json",
+    "VARCHAR": "text",
+}
+
+
+def _parquet_written(engine: DuckDBEngine, mapping: LoadedMapping, path: Path) -> Written | None:
+    """The fields a Parquet events file was written under, from its ``values`` column's type
+    (for files no run record speaks of); None when it cannot be read so."""
+    try:
+        ((_, typ, *_),) = engine.rows(f'DESCRIBE SELECT "values" FROM read_parquet({lit(str(path))})')
+        struct = exp.DataType.build(str(typ), dialect="duckdb")
+    except (duckdb.Error, sqlglot.errors.SqlglotError, ValueError):
+        return None
+    out = []
+    now = mapping.field_types
+    for member in struct.expressions:
+        kind = member.args.get("kind")
+        if not isinstance(kind, exp.DataType):
+            return None
+        stored = kind.sql(dialect="duckdb")
+        ftype = now.get(member.name)
+        if ftype is not None and (
+            kind == exp.DataType.build(ftype.sql_type, dialect="duckdb")
+            or (stored == "VARCHAR" and ftype.sql_type in ("VARCHAR", "JSON", "UUID"))
+        ):
+            out.append((member.name, ftype.value_type()))  # stored as the mapping stores it now
+        elif kind.is_type(exp.DataType.Type.DECIMAL):
+            out.append((member.name, stored.lower().replace(" ", "")))
+        elif stored in _STORED:
+            out.append((member.name, _STORED[stored]))
+        else:
+            return None
+    return tuple(out)
+
+
 def load_events(
     engine: DuckDBEngine, mapping: LoadedMapping, files: list[EventFile], relation: str | None = None
 ) -> Events:
@@ -250,7 +297,10 @@ def load_events(
     relation = relation or f"{mapping.mapping.slug}__events"
     groups: dict[tuple[str, Written | None], list[EventFile]] = {}
     for f in files:
-        groups.setdefault((f.fmt, f.written), []).append(f)
+        written = f.written
+        if written is None and f.fmt == "parquet":  # no record says: the file's own schema does
+            written = _parquet_written(engine, mapping, f.path)
+        groups.setdefault((f.fmt, written), []).append(f)
     parts, notes = [], []
     for (fmt, written), group in groups.items():
         types = _types(mapping, written)

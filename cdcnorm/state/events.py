@@ -17,9 +17,10 @@ type). Events written before the mapping was edited are read by those fields
 and said so (``Events.notes``): a field added since is NULL in them, a field
 removed is left out, and a retyped field's values pass the new type's guarded
 cast from their JSON form; one that does not (``47.50`` for an integer) stops
-the reading, naming the file, the event's position and the field. Events
-without a record (a bare events folder, runs of earlier versions) are read as
-the mapping states.
+the reading, naming the file, the event's position and the field. Parquet
+events without a record (a bare events folder, runs of earlier versions) are
+read by the fields their schema states; JSON Lines events without one, as the
+mapping states.
 """
 
 from __future__ import annotations

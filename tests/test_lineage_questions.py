@@ -728,6 +728,15 @@ def test_mixed_case_names_from_a_postgresql_catalog_match_as_postgresql_matches(
     assert not [n for n in project.graph.nodes if n[0] == "source" and n[1] == "legs_x2"]
 
 
+def _models(tmp_path: Path, files: dict[str, str]) -> tuple[str, ...]:
+    """A models folder of these files, and the CLI options that read it with the demo mappings."""
+    models = tmp_path / "models"
+    models.mkdir()
+    for name, sql in files.items():
+        (models / name).write_text(sql)
+    return ("--models", str(models), "--mappings", str(ROOT / "mappings"))
+
+
 def test_a_model_whose_query_cannot_be_resolved_makes_every_answer_it_may_be_part_of_incomplete(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
@@ -735,17 +744,15 @@ def test_a_model_whose_query_cannot_be_resolved_makes_every_answer_it_may_be_par
     # model is known. Before, `trace seat_report` printed nothing and exited 0 (a CI gate passed),
     # `trace seat_report.top` said there is no such column, and `impact` of a column the model
     # reads called its answer complete.
-    models = tmp_path / "models"
-    models.mkdir()
-    (models / "seat_report.sql").write_text(
+    seat_report = (
         "CREATE VIEW seat_report AS\n"
         "SELECT sailing_ref, passenger,\n"
         "  (SELECT max(fare) FROM ferry.bookings x WHERE x.sailing_ref = b.sailing_ref) AS top\n"
         "FROM ferry.bookings b JOIN ferry.passengers p USING (passenger_ref)\n"
         "GROUP BY ALL;\n"
     )
-    (models / "names.sql").write_text("CREATE VIEW names AS SELECT passenger FROM ferry.bookings;\n")
-    args = ("--models", str(models), "--mappings", str(ROOT / "mappings"))
+    names = "CREATE VIEW names AS SELECT passenger FROM ferry.bookings;\n"
+    args = _models(tmp_path, {"seat_report.sql": seat_report, "names.sql": names})
     capsys.readouterr()
     for target in ("seat_report", "seat_report.top"):
         assert cli("trace", *args, target, "--json") == 11
@@ -786,11 +793,9 @@ def test_pivot_and_unpivot_columns_are_traced_under_the_engines_names(
     # UNPIVOT's value column was "not in schema"
     import duckdb
 
-    models = tmp_path / "models"
-    models.mkdir()
-    for name, sql in PIVOTS.items():
-        (models / f"{name}.sql").write_text(f"CREATE VIEW {name} AS\n{sql};\n")
-    args = ("--models", str(models), "--mappings", str(ROOT / "mappings"))
+    args = _models(
+        tmp_path, {f"{name}.sql": f"CREATE VIEW {name} AS\n{sql};\n" for name, sql in PIVOTS.items()}
+    )
     # the oracle for the names: DuckDB itself, the views over a table of the mapping's fields
     con = duckdb.connect()
     con.execute(
@@ -837,15 +842,12 @@ def test_a_pivot_whose_columns_get_no_name_is_incomplete_and_says_how_to_name_th
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
     # sqlglot derives no name for PIVOT ... IN (TRUE, FALSE) (DuckDB names them true, false)
-    models = tmp_path / "models"
-    models.mkdir()
-    (models / "flags.sql").write_text(
+    flags = (
         "CREATE VIEW flags AS SELECT * FROM ferry.bookings PIVOT (sum(fare) FOR refunded IN (true, false));\n"
     )
+    args = _models(tmp_path, {"flags.sql": flags})
     capsys.readouterr()
-    assert (
-        cli("trace", "--models", str(models), "--mappings", str(ROOT / "mappings"), "flags", "--json") == 11
-    )
+    assert cli("trace", *args, "flags", "--json") == 11
     (answer,) = json.loads(capsys.readouterr().out)
     assert "IN (TRUE AS yes, FALSE AS no)" in answer["unresolved"][0]["reference"]
 
@@ -855,12 +857,14 @@ def test_the_binding_check_says_a_model_reads_a_refused_one_only_when_it_does(
 ) -> None:
     # before: a refused model named "d" was blamed for every later refusal, since the letter d
     # appears in the engine's message ("...not found in FROM clause!")
-    models = tmp_path / "models"
-    models.mkdir()
-    (models / "d.sql").write_text("CREATE VIEW d AS SELECT passenger FROM ferry.bookings;\n")
-    (models / "e.sql").write_text("CREATE VIEW e AS SELECT upper(passenger) AS p FROM ferry.bookings;\n")
-    (models / "f.sql").write_text("CREATE VIEW f AS SELECT passenger FROM d;\n")
-    args = ("--models", str(models), "--mappings", str(ROOT / "mappings"))
+    args = _models(
+        tmp_path,
+        {
+            "d.sql": "CREATE VIEW d AS SELECT passenger FROM ferry.bookings;\n",
+            "e.sql": "CREATE VIEW e AS SELECT upper(passenger) AS p FROM ferry.bookings;\n",
+            "f.sql": "CREATE VIEW f AS SELECT passenger FROM d;\n",
+        },
+    )
     capsys.readouterr()
     assert cli("impact", *args, "ferry.bookings.passenger", "--drop", "--json") == 8
     broken = {b["model"]: b["reason"] for b in json.loads(capsys.readouterr().out)["binding"]["broken"]}

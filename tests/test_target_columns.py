@@ -205,3 +205,24 @@ def test_postgresql_position_column_that_compares_by_a_locale_is_refused(
     with psycopg.connect(pg_url, autocommit=True) as c:
         c.execute('ALTER TABLE ferry.bookings ALTER COLUMN cdcnorm_position TYPE text COLLATE "C"')
     assert _apply(demo, pg_url, "--table", "ferry.bookings") == 0
+
+
+def test_sqlite_numeric_affinity_is_refused_only_for_text_that_can_look_like_a_number(
+    demo: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # the oracle: SQLite keeps an RFC 3339 text in a DATETIME (NUMERIC affinity) column as text, and
+    # turns the text 007 into the integer 7 (https://www.sqlite.org/datatype3.html, section 3.4)
+    with sqlite3.connect(":memory:") as con:
+        con.execute("CREATE TABLE t (at DATETIME, s NUMERIC)")
+        con.execute("INSERT INTO t VALUES ('2026-02-20T10:15:00.000000Z', '007')")
+        assert con.execute("SELECT typeof(at), typeof(s), s FROM t").fetchone() == ("text", "integer", 7)
+    db = tmp_path / "w.db"
+    with sqlite3.connect(db) as con:
+        con.execute(_ddl('"ferry.bookings"', BOOKINGS | {"booked_at": "DATETIME"}))
+    assert _apply(demo, f"sqlite:///{db}", "--table", "ferry.bookings") == 0
+    with sqlite3.connect(db) as con:
+        con.execute('DROP TABLE "ferry.bookings"')
+        con.execute(_ddl('"ferry.bookings"', BOOKINGS | {"pax_phone": "NUMERIC"}))
+    capsys.readouterr()
+    assert _apply(demo, f"sqlite:///{db}", "--table", "ferry.bookings") == 10
+    assert "column pax_phone of " in capsys.readouterr().err

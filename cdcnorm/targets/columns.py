@@ -15,7 +15,8 @@ SQLite has no column types, only affinities (https://www.sqlite.org/datatype3.ht
 text it is handed in a column of INTEGER, REAL or NUMERIC affinity is turned into a number when it
 looks like one (``47.50`` becomes 47.5, ``007`` becomes 7), and a float in a column of TEXT
 affinity into text of 15 significant digits. cdcnorm hands SQLite every type but integer, float,
-boolean and bytes as text.
+boolean and bytes as text; of those, decimals, text and JSON can look like numbers (a date, a time,
+an RFC 3339 timestamp or a UUID never does, so a ``DATETIME`` column keeps them as they are).
 
 A type that cannot take a value at all (text in an integer column, a number too large) is left to
 the database, which refuses the statement in its own words. A column the table lacks is named,
@@ -103,7 +104,8 @@ def why_not_exact_sqlite(declared: str, ftype: FieldType) -> str | None:
         return "TEXT affinity turns floats into text of 15 significant digits"
     if name == "integer" and affinity == "REAL":
         return "REAL affinity turns integers into floats (rounded beyond 2**53)"
-    if name not in ("integer", "float", "boolean", "bytes") and affinity in ("INTEGER", "REAL", "NUMERIC"):
+    # dates, times, timestamps and UUIDs are handed over as text that never reads as a number
+    if name in ("decimal", "text", "json") and affinity in ("INTEGER", "REAL", "NUMERIC"):
         return (
             f"{affinity} affinity turns text that looks like a number into one (47.50 becomes 47.5, "
             "007 becomes 7)"

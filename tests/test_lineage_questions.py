@@ -870,3 +870,33 @@ def test_the_binding_check_says_a_model_reads_a_refused_one_only_when_it_does(
     broken = {b["model"]: b["reason"] for b in json.loads(capsys.readouterr().out)["binding"]["broken"]}
     assert broken["e"].startswith("the engine cannot bind it: ") and "passenger" in broken["e"]
     assert broken["f"] == "it reads d, which the engine refuses"
+
+
+def test_an_insert_into_a_table_the_models_create_fills_its_columns_in_its_order(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: CREATE TABLE fare_board (ref, total) then INSERT INTO fare_board SELECT sailing_ref,
+    # sum(fare) made a model of columns sailing_ref and _col_1; trace fare_board.total found none
+    import duckdb
+
+    sql = (
+        "CREATE TABLE fare_board (ref BIGINT, total DECIMAL(14,2), seats_sum BIGINT);\n"
+        "INSERT INTO fare_board SELECT sailing_ref, sum(fare), sum(seats) FROM ferry.bookings GROUP BY 1;\n"
+        "INSERT INTO fare_board (seats_sum, ref) SELECT sum(seats), sailing_ref FROM ferry.bookings GROUP BY 2;\n"
+    )
+    args = _models(tmp_path, {"fare_board.sql": sql})
+    # the oracle for the columns: DuckDB, the same statements over a table of the mapping's fields
+    con = duckdb.connect()
+    con.execute(
+        "CREATE SCHEMA ferry; CREATE TABLE ferry.bookings (sailing_ref BIGINT, fare DECIMAL(12,2), seats BIGINT)"
+    )
+    con.execute(sql)
+    capsys.readouterr()
+    assert cli("trace", *args, "fare_board", "--json") == 0
+    answers = {a["column"]: a for a in json.loads(capsys.readouterr().out)}
+    assert list(answers) == [f"fare_board.{r[0]}" for r in con.execute("DESCRIBE fare_board").fetchall()]
+    b = "ferry.bookings."
+    # by hand: total from fare (the first INSERT); seats_sum from seats (both, by position and by name)
+    assert answers["fare_board.total"]["value"] == [b + "fare"]
+    assert answers["fare_board.seats_sum"]["value"] == [b + "seats"]
+    assert answers["fare_board.ref"]["value"] == [b + "sailing_ref"]

@@ -316,8 +316,16 @@ class Resolved:
     inferred: set[Node]
 
 
-def resolve_model(name: str, sts: list[ModelStatement], catalog: Catalog, dialect: str) -> Resolved:
-    """Resolve every statement of one model against ``catalog`` (the tables it may read)."""
+def resolve_model(
+    name: str,
+    sts: list[ModelStatement],
+    catalog: Catalog,
+    dialect: str,
+    created: dict[tuple[str, ...], dict[str, str]] | None = None,
+) -> Resolved:
+    """Resolve every statement of one model against ``catalog`` (the tables it may read);
+    ``created``: the columns of tables the model files create without a query
+    (``LoadedModels.declared``), which an INSERT into one of them fills."""
     merged: dict[str, Deps] = {}
     diagnostics: list[Diagnostic] = []
     unknown_tables: set[str] = set()
@@ -331,6 +339,14 @@ def resolve_model(name: str, sts: list[ModelStatement], catalog: Catalog, dialec
         for c in (declared.shown(f) for f in declared.columns):
             merged[c] = Deps()
             merged[c].add_value(("source", declared.name, c), "copy", None)
+            columns.append(c)
+            lines[c] = sts[0].line
+    # CREATE TABLE t (a, b) then INSERT INTO t: the model has t's columns, in t's order, and an
+    # INSERT without a column list fills them by position (not under the query's own names)
+    made = (created or {}).get(sts[0].target) if sts[0].kind in ("insert", "merge") else None
+    if made and not columns:
+        for c in made:
+            merged[c] = Deps()
             columns.append(c)
             lines[c] = sts[0].line
     for st in sts:
@@ -361,12 +377,17 @@ def resolve_model(name: str, sts: list[ModelStatement], catalog: Catalog, dialec
         elif st.kind == "insert" and columns:  # no column list: by position, as the table has them
             names = columns[: len(outs)] + names[len(columns) :]
         names = _dedupe_names(names) if st.kind != "insert" else names
-        into_declared = declared is not None and declared.kind == "source" and st.kind in ("insert", "merge")
+        into_declared = st.kind in ("insert", "merge") and (
+            (declared is not None and declared.kind == "source") or bool(made)
+        )
+        known = (
+            list(declared.columns) if declared is not None and declared.kind == "source" else list(made or [])
+        )
         if columns:  # a name the table has, in another case, is that column (as the dialect folds)
             same = {fold(c, dialect): c for c in columns}
             names = [same.get(fold(n, dialect), n) for n in names]
-        if into_declared and declared is not None:
-            extra = [n for n in names if fold(n, dialect) not in declared.columns]
+        if into_declared:
+            extra = [n for n in names if fold(n, dialect) not in known]
             if extra:
                 diagnostics.append(
                     Diagnostic(
@@ -537,7 +558,7 @@ def _build_project(
     unknown_tables: set[str] = set()
     for name in order:
         sts = by_model[name]
-        one = resolve_model(name, sts, catalog, dialect)
+        one = resolve_model(name, sts, catalog, dialect, loaded.declared)
         diagnostics.extend(one.diagnostics)
         unknown_tables |= one.unknown_tables
         for guess in one.inferred:
@@ -646,7 +667,7 @@ def simulate(project: Project, edits: dict[Node, Any]) -> list[Diagnostic]:
         if name not in todo:
             continue
         sts = project.statements[name]
-        one = resolve_model(name, sts, catalog, dialect)
+        one = resolve_model(name, sts, catalog, dialect, project.declared)
         out.extend(one.diagnostics)
         visible = _visible(name, one.columns, edits)
         if visible != _visible(name, project.models[name].columns, edits):

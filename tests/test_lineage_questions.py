@@ -728,6 +728,19 @@ def test_mixed_case_names_from_a_postgresql_catalog_match_as_postgresql_matches(
     assert not [n for n in project.graph.nodes if n[0] == "source" and n[1] == "legs_x2"]
 
 
+SEAT_REPORT = """CREATE VIEW seat_report AS
+SELECT sailing_ref, passenger,
+  (SELECT max(fare) FROM ferry.bookings x WHERE x.sailing_ref = b.sailing_ref) AS top
+FROM ferry.bookings b JOIN ferry.passengers p USING (passenger_ref)
+GROUP BY ALL;
+"""
+
+FARE_BOARD = """CREATE TABLE fare_board (ref BIGINT, total DECIMAL(14,2), seats_sum BIGINT);
+INSERT INTO fare_board SELECT sailing_ref, sum(fare), sum(seats) FROM ferry.bookings GROUP BY 1;
+INSERT INTO fare_board (seats_sum, ref) SELECT sum(seats), sailing_ref FROM ferry.bookings GROUP BY 2;
+"""
+
+
 def _models(tmp_path: Path, files: dict[str, str]) -> tuple[str, ...]:
     """A models folder of these files, and the CLI options that read it with the demo mappings."""
     models = tmp_path / "models"
@@ -744,15 +757,8 @@ def test_a_model_whose_query_cannot_be_resolved_makes_every_answer_it_may_be_par
     # model is known. Before, `trace seat_report` printed nothing and exited 0 (a CI gate passed),
     # `trace seat_report.top` said there is no such column, and `impact` of a column the model
     # reads called its answer complete.
-    seat_report = (
-        "CREATE VIEW seat_report AS\n"
-        "SELECT sailing_ref, passenger,\n"
-        "  (SELECT max(fare) FROM ferry.bookings x WHERE x.sailing_ref = b.sailing_ref) AS top\n"
-        "FROM ferry.bookings b JOIN ferry.passengers p USING (passenger_ref)\n"
-        "GROUP BY ALL;\n"
-    )
     names = "CREATE VIEW names AS SELECT passenger FROM ferry.bookings;\n"
-    args = _models(tmp_path, {"seat_report.sql": seat_report, "names.sql": names})
+    args = _models(tmp_path, {"seat_report.sql": SEAT_REPORT, "names.sql": names})
     capsys.readouterr()
     for target in ("seat_report", "seat_report.top"):
         assert cli("trace", *args, target, "--json") == 11
@@ -879,11 +885,7 @@ def test_an_insert_into_a_table_the_models_create_fills_its_columns_in_its_order
     # sum(fare) made a model of columns sailing_ref and _col_1; trace fare_board.total found none
     import duckdb
 
-    sql = (
-        "CREATE TABLE fare_board (ref BIGINT, total DECIMAL(14,2), seats_sum BIGINT);\n"
-        "INSERT INTO fare_board SELECT sailing_ref, sum(fare), sum(seats) FROM ferry.bookings GROUP BY 1;\n"
-        "INSERT INTO fare_board (seats_sum, ref) SELECT sum(seats), sailing_ref FROM ferry.bookings GROUP BY 2;\n"
-    )
+    sql = FARE_BOARD
     args = _models(tmp_path, {"fare_board.sql": sql})
     # the oracle for the columns: DuckDB, the same statements over a table of the mapping's fields
     con = duckdb.connect()

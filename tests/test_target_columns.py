@@ -42,20 +42,33 @@ def _apply(demo: Path, target: str, *more: str) -> int:
     return cli("apply", str(demo), "--mappings", str(ROOT / "mappings"), "--target", target, *more)
 
 
+def _sqlite_stores(columns: str, values: str, select: str) -> tuple[object, ...] | None:
+    """What SQLite itself keeps of ``values`` in a table of ``columns`` (the oracle for affinity)."""
+    with sqlite3.connect(":memory:") as con:
+        con.execute(f"CREATE TABLE t ({columns})")
+        con.execute(f"INSERT INTO t VALUES ({values})")
+        row: tuple[object, ...] | None = con.execute(f"SELECT {select} FROM t").fetchone()
+    return row
+
+
+def _sqlite_bookings(db: Path, types: dict[str, str]) -> str:
+    """A SQLite file whose ferry.bookings table (made anew) has these columns: its target URL."""
+    with sqlite3.connect(db) as con:
+        con.execute('DROP TABLE IF EXISTS "ferry.bookings"')
+        con.execute(_ddl('"ferry.bookings"', types))
+    return f"sqlite:///{db}"
+
+
 def test_sqlite_affinity_that_would_turn_a_decimal_into_a_float_is_refused(
     demo: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
     # the oracle: SQLite itself turns the text 47.50 into the float 47.5 in a REAL column
     # (https://www.sqlite.org/datatype3.html, section 3.1 and 3.4)
-    with sqlite3.connect(":memory:") as con:
-        con.execute("CREATE TABLE t (fare REAL)")
-        con.execute("INSERT INTO t VALUES ('47.50')")
-        assert con.execute("SELECT typeof(fare), fare FROM t").fetchone() == ("real", 47.5)
+    assert _sqlite_stores("fare REAL", "'47.50'", "typeof(fare), fare") == ("real", 47.5)
     db = tmp_path / "w.db"
-    with sqlite3.connect(db) as con:
-        con.execute(_ddl('"ferry.bookings"', BOOKINGS | {"fare": "REAL"}))
+    target = _sqlite_bookings(db, BOOKINGS | {"fare": "REAL"})
     capsys.readouterr()
-    assert _apply(demo, f"sqlite:///{db}", "--table", "ferry.bookings") == 10
+    assert _apply(demo, target, "--table", "ferry.bookings") == 10
     err = capsys.readouterr().err
     assert 'column fare of "ferry.bookings" would not hold decimal(12,2) values exactly' in err
     assert "REAL affinity turns text that looks like a number into one" in err
@@ -212,17 +225,16 @@ def test_sqlite_numeric_affinity_is_refused_only_for_text_that_can_look_like_a_n
 ) -> None:
     # the oracle: SQLite keeps an RFC 3339 text in a DATETIME (NUMERIC affinity) column as text, and
     # turns the text 007 into the integer 7 (https://www.sqlite.org/datatype3.html, section 3.4)
-    with sqlite3.connect(":memory:") as con:
-        con.execute("CREATE TABLE t (at DATETIME, s NUMERIC)")
-        con.execute("INSERT INTO t VALUES ('2026-02-20T10:15:00.000000Z', '007')")
-        assert con.execute("SELECT typeof(at), typeof(s), s FROM t").fetchone() == ("text", "integer", 7)
+    stored = _sqlite_stores(
+        "at DATETIME, s NUMERIC", "'2026-02-20T10:15:00.000000Z', '007'", "typeof(at), typeof(s), s"
+    )
+    assert stored == ("text", "integer", 7)
     db = tmp_path / "w.db"
-    with sqlite3.connect(db) as con:
-        con.execute(_ddl('"ferry.bookings"', BOOKINGS | {"booked_at": "DATETIME"}))
-    assert _apply(demo, f"sqlite:///{db}", "--table", "ferry.bookings") == 0
-    with sqlite3.connect(db) as con:
-        con.execute('DROP TABLE "ferry.bookings"')
-        con.execute(_ddl('"ferry.bookings"', BOOKINGS | {"pax_phone": "NUMERIC"}))
+    assert (
+        _apply(demo, _sqlite_bookings(db, BOOKINGS | {"booked_at": "DATETIME"}), "--table", "ferry.bookings")
+        == 0
+    )
+    target = _sqlite_bookings(db, BOOKINGS | {"pax_phone": "NUMERIC"})
     capsys.readouterr()
-    assert _apply(demo, f"sqlite:///{db}", "--table", "ferry.bookings") == 10
+    assert _apply(demo, target, "--table", "ferry.bookings") == 10
     assert "column pax_phone of " in capsys.readouterr().err

@@ -146,7 +146,7 @@ def _unresolved_readers(project: Project, nodes: set[Node]) -> list[dict[str, An
     ]
 
 
-def _unresolved_answer(project: Project, model: str, column: str) -> dict[str, Any]:
+def _unresolved_answer(column: str, diagnostics: list[dict[str, Any]]) -> dict[str, Any]:
     """``trace`` of a model whose query could not be resolved, or of a column of it: nothing is
     known, and the answer says why (never an empty answer that looks complete)."""
     return {
@@ -157,7 +157,7 @@ def _unresolved_answer(project: Project, model: str, column: str) -> dict[str, A
         "influence_kinds": {},
         "raw": [],
         "paths": [],
-        "unresolved": unresolved_models(project)[model],
+        "unresolved": diagnostics,
         "complete": False,
     }
 
@@ -245,12 +245,12 @@ def trace_target(project: Project, target: str) -> list[dict[str, Any]]:
     """``trace model`` answers for each of its columns; ``trace table.column`` for one."""
     opaque = unresolved_models(project)
     if target in opaque:
-        return [_unresolved_answer(project, target, target)]
+        return [_unresolved_answer(target, opaque[target])]
     if target in project.models:
         return [trace(project, node_name(n)) for n in model_columns(project, target)]
     model = target.rpartition(".")[0].removeprefix("model:")
     if model in opaque:
-        return [_unresolved_answer(project, model, target)]
+        return [_unresolved_answer(target, opaque[model])]
     return [trace(project, target)]
 
 

@@ -5,6 +5,7 @@ equal to a null token other than "" is NULL."""
 
 from __future__ import annotations
 
+from collections import Counter
 from pathlib import Path
 
 import duckdb
@@ -86,7 +87,7 @@ def read_files(
             own = list(schema.names) if schema is not None else None
             if schema is not None:
                 _check_members(schema, nested, f.path)
-            repeated = sorted({n for n in own or [] if (own or []).count(n) > 1})
+            repeated = sorted(n for n, k in Counter(own or []).items() if k > 1)
             if repeated:  # as a CSV header that repeats a name: which one a mapping means is unknown
                 raise InputError(
                     f"the file's schema repeats column names {repeated}",

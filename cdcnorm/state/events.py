@@ -146,15 +146,22 @@ def _typed(mapping: LoadedMapping, name: str, old: FieldType, rendered: bool) ->
     return old.unrender(v) if rendered else v
 
 
+def _retyped(mapping: LoadedMapping, types: dict[str, FieldType]) -> dict[str, FieldType]:
+    """The fields written under another value type than the mapping's now: name -> type then."""
+    now = mapping.field_types
+    return {n: old for n, old in types.items() if n in now and old.value_type() != now[n].value_type()}
+
+
 def _select(mapping: LoadedMapping, source: str, types: dict[str, FieldType], *, rendered: bool) -> str:
     cols = []
+    retyped = _retyped(mapping, types)
     for i, (name, ftype) in enumerate(mapping.field_types.items()):
         old = types.get(name)
         if old is None:  # added to the mapping after these events were written
             cols.append(f"CAST(NULL AS {ftype.sql_type}) AS v{i}")
             continue
         typed = _typed(mapping, name, old, rendered)
-        if old.value_type() != ftype.value_type():
+        if name in retyped:
             typed = ftype.cast(_as_text(old, typed))
         cols.append(f"CAST({typed} AS {ftype.sql_type}) AS v{i}")
     return (
@@ -166,9 +173,13 @@ def _select(mapping: LoadedMapping, source: str, types: dict[str, FieldType], *,
 
 def _types(mapping: LoadedMapping, written: Written | None) -> dict[str, FieldType]:
     """The types of the fields as written (as the mapping states them when no record says)."""
+    now = mapping.field_types
     if written is None:
-        return dict(mapping.field_types)
-    return {n: resolve(FieldSpec(type=t)) for n, t in written}
+        return dict(now)
+    # a field written as the mapping types it now is read by the mapping's own type
+    return {
+        n: now[n] if n in now and now[n].value_type() == t else resolve(FieldSpec(type=t)) for n, t in written
+    }
 
 
 def _source(mapping: LoadedMapping, files: list[EventFile], types: dict[str, FieldType]) -> str:
@@ -198,12 +209,11 @@ def _notes(mapping: LoadedMapping, files: list[EventFile], types: dict[str, Fiel
         notes.append(f"{which} were written before {_names(added)} joined the mapping: {they} NULL in them")
     if removed:
         notes.append(f"{which} hold {_names(removed)}, which the mapping no longer has: left out")
-    for n, old in types.items():
-        if n in now and old.value_type() != now[n].value_type():
-            notes.append(
-                f"{which} hold {n} as {old.value_type()}: read as {now[n].value_type()}, "
-                "each value through that type's cast"
-            )
+    for n, old in _retyped(mapping, types).items():
+        notes.append(
+            f"{which} hold {n} as {old.value_type()}: read as {now[n].value_type()}, "
+            "each value through that type's cast"
+        )
     return notes
 
 
@@ -221,9 +231,8 @@ def _check_retyped(
     """Stop at the first value of a retyped field that its new type refuses, naming where it is."""
     now = mapping.field_types
     rendered = files[0].fmt == "jsonl"
-    for name, old in types.items():
-        if name not in now or old.value_type() == now[name].value_type():
-            continue
+    by_name = {f.path.name: f for f in files}
+    for name, old in _retyped(mapping, types).items():
         text = _as_text(old, _typed(mapping, name, old, rendered))
         sql = (
             f"SELECT parse_filename(filename), position, t, {now[name].explain('t')} "
@@ -233,10 +242,10 @@ def _check_retyped(
         bad = engine.rows(sqlglot.parse_one(sql, read=PLAN_DIALECT))
         if bad:
             file, position, value, why = bad[0]
-            run = next(f.run for f in files if f.path.name == file)
+            run = by_name[file].run
             raise InputError(
                 f"an event written before field {name} was retyped does not read as its type now",
-                file=str(next(f.path for f in files if f.path.name == file)),
+                file=str(by_name[file].path),
                 field=name,
                 expected=f"{now[name].describe()}, as the mapping states it now",
                 found=f"{value!r} ({why}), in the event at position {position}: run {run} wrote it "

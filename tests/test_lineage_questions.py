@@ -7,6 +7,7 @@ import shutil
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
+import duckdb
 import networkx as nx
 import pytest
 
@@ -781,6 +782,18 @@ def test_a_model_whose_query_cannot_be_resolved_makes_every_answer_it_may_be_par
     assert cli("lineage", *args, "--out", str(tmp_path / "g.dot")) == 11
 
 
+def _bookings_in_duckdb() -> duckdb.DuckDBPyConnection:
+    """The oracle for the names a query's columns get: DuckDB itself, over an empty table of the
+    demo mapping's fields."""
+    con = duckdb.connect()
+    con.execute(
+        "CREATE SCHEMA ferry; CREATE TABLE ferry.bookings (booking_id BIGINT, sailing_ref BIGINT, "
+        "passenger_ref BIGINT, passenger TEXT, pax_phone TEXT, fare DECIMAL(12,2), "
+        "booked_at TIMESTAMPTZ, seats BIGINT, refunded BOOLEAN)"
+    )
+    return con
+
+
 PIVOTS = {
     "by_name": "SELECT * FROM (SELECT sailing_ref, passenger, fare FROM ferry.bookings)\n"
     "PIVOT (sum(fare) FOR passenger IN ('Ann', 'Bo'))",
@@ -797,18 +810,10 @@ def test_pivot_and_unpivot_columns_are_traced_under_the_engines_names(
 ) -> None:
     # before: every PIVOT column was an "unknown table: _1.ann" and the answers incomplete; an
     # UNPIVOT's value column was "not in schema"
-    import duckdb
-
     args = _models(
         tmp_path, {f"{name}.sql": f"CREATE VIEW {name} AS\n{sql};\n" for name, sql in PIVOTS.items()}
     )
-    # the oracle for the names: DuckDB itself, the views over a table of the mapping's fields
-    con = duckdb.connect()
-    con.execute(
-        "CREATE SCHEMA ferry; CREATE TABLE ferry.bookings (booking_id BIGINT, sailing_ref BIGINT, "
-        "passenger_ref BIGINT, passenger TEXT, pax_phone TEXT, fare DECIMAL(12,2), "
-        "booked_at TIMESTAMPTZ, seats BIGINT, refunded BOOLEAN)"
-    )
+    con = _bookings_in_duckdb()
     capsys.readouterr()
     answers = {}
     for name, sql in PIVOTS.items():
@@ -842,6 +847,64 @@ def test_pivot_and_unpivot_columns_are_traced_under_the_engines_names(
         {b + "fare": ["filter"], b + "seats": ["filter"]},
     )
     assert sets("amounts.what")[0] == [] and sets("amounts.booking_id")[0] == [b + "booking_id"]
+
+
+SELECTORS = {
+    "pax": "SELECT booking_id, COLUMNS('^pa') FROM ferry.bookings",
+    "lows": "SELECT min(COLUMNS(['seats', 'fare'])), sailing_ref FROM ferry.bookings b GROUP BY sailing_ref",
+    "rest": "SELECT COLUMNS(* EXCLUDE (pax_phone, refunded)) FROM ferry.bookings",
+}
+
+
+def test_duckdb_columns_selectors_are_traced_as_the_columns_they_pick(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: COLUMNS('^pa') was one column "_col_0" with no lineage, and the answer was called
+    # complete (exit 0): a gate asking what reads pax_phone heard "nothing"
+    args = _models(tmp_path, {f"{n}.sql": f"CREATE VIEW {n} AS\n{sql};\n" for n, sql in SELECTORS.items()})
+    con = _bookings_in_duckdb()
+    capsys.readouterr()
+    answers = {}
+    for name, sql in SELECTORS.items():
+        con.execute(f"CREATE VIEW {name} AS {sql}")
+        assert cli("trace", *args, name, "--json") == 0
+        got = {a["column"]: a for a in json.loads(capsys.readouterr().out)}
+        # DuckDB's DESCRIBE: which columns the selector picks, in its order, under its names
+        assert list(got) == [f"{name}.{r[0]}" for r in con.execute(f"DESCRIBE {name}").fetchall()]
+        answers |= got
+    b = "ferry.bookings."
+    # by hand: each picked column copies its source column; an aggregate over one aggregates it
+    assert answers["pax.pax_phone"]["value"] == [b + "pax_phone"]
+    assert answers["pax.passenger"]["value"] == [b + "passenger"]
+    assert answers["lows.fare"]["value"] == [b + "fare"]
+    assert answers["lows.fare"]["influence_kinds"] == {b + "sailing_ref": ["grouping"]}
+    assert "rest.pax_phone" not in answers and answers["rest.fare"]["value"] == [b + "fare"]
+    # impact of pax_phone now finds the column that copies it
+    assert cli("impact", *args, b + "pax_phone", "--json") == 0
+    assert "pax.pax_phone" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize(
+    ("sql", "reason"),
+    [
+        ("SELECT COLUMNS('fare') AS x FROM ferry.bookings", "an alias of COLUMNS"),
+        ("SELECT coalesce(*COLUMNS(['fare', 'seats'])) AS c FROM ferry.bookings", "*COLUMNS"),
+        ("SELECT booking_id FROM ferry.bookings WHERE COLUMNS('^pa') IS NOT NULL", "outside a select list"),
+        (
+            "SELECT COLUMNS('id') FROM ferry.bookings JOIN ferry.bookings b2 USING (booking_id)",
+            "share a column name",
+        ),
+        ("SELECT COLUMNS('^x') FROM raw_feed", "not known"),
+    ],
+)
+def test_columns_selectors_that_cannot_be_written_out_make_the_answer_incomplete(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], sql: str, reason: str
+) -> None:
+    args = _models(tmp_path, {"sel.sql": f"CREATE VIEW sel AS\n{sql};\n"})
+    capsys.readouterr()
+    assert cli("trace", *args, "sel", "--json") == 11
+    (answer,) = json.loads(capsys.readouterr().out)[-1:]
+    assert reason in json.dumps(answer["unresolved"])
 
 
 def test_a_pivot_whose_columns_get_no_name_is_incomplete_and_says_how_to_name_them(

@@ -35,6 +35,7 @@ from sqlglot.optimizer.scope import Scope, build_scope
 from sqlglot.schema import MappingSchema
 
 from cdcnorm.lineage.diagnostics import Diagnostic
+from cdcnorm.lineage.selectors import Refused, expand_columns
 
 Node = tuple[str, str, str]  # (kind: source | model | raw, table, column)
 RANK = {"copy": 0, "transform": 1, "aggregate": 2}
@@ -263,6 +264,12 @@ class StatementResolver:
 
     def resolve(self, query: exp.Expr, schema: MappingSchema | None = None) -> list[tuple[str, Deps]] | None:
         schema = schema or self.catalog.schema(self.dialect, query)
+        if query.find(exp.Columns):
+            try:
+                query = expand_columns(query, schema, self.dialect)
+            except Refused as e:
+                self._diag(_line(query), "unsupported", str(e))
+                return None
         qualified = None
         for _ in range(20):
             try:

@@ -364,6 +364,48 @@ def test_a_cycle_is_reported_and_everything_outside_it_still_resolves(
     assert "incomplete" in capsys.readouterr().out
 
 
+SHAPE_CHANGES = {
+    # statement after the model's CREATE -> the start of the reason its answers give
+    "ALTER TABLE seat_counts RENAME COLUMN seats TO seat_total": "ALTER of seat_counts",
+    "ALTER TABLE seat_counts ADD COLUMN spare INTEGER": "ALTER of seat_counts",
+    "ALTER TABLE seat_counts RENAME TO seat_board": "ALTER of seat_counts",
+    "DROP TABLE seat_counts": "DROP of seat_counts",
+    "TRUNCATE seat_counts": "TRUNCATE of seat_counts",
+}
+
+
+@pytest.mark.parametrize("change", list(SHAPE_CHANGES))
+def test_a_statement_that_changes_a_models_shape_makes_its_answers_incomplete(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], change: str
+) -> None:
+    # before: an ALTER, DROP or TRUNCATE was charged to the file's name, so trace seat_counts.seats
+    # was "complete" (exit 0) while, after the file ran, no such column (or table) existed
+    create = (
+        "CREATE TABLE seat_counts AS SELECT sailing_ref, sum(seats) AS seats FROM ferry.bookings GROUP BY 1"
+    )
+    args = _models(tmp_path, {"fixups.sql": f"{create};\n{change};\n"})
+    capsys.readouterr()
+    assert cli("trace", *args, "seat_counts.seats", "--json") == 11
+    (reason,) = [u["reference"] for u in json.loads(capsys.readouterr().out)["unresolved"]]
+    assert reason.startswith(SHAPE_CHANGES[change])
+    assert cli("impact", *args, "ferry.bookings.seats", "--json") == 11
+    capsys.readouterr()
+    # DuckDB as the oracle that the statement does change what the model's lineage describes: its
+    # columns, its rows, or whether it exists under that name
+    con = _bookings_in_duckdb()
+    con.execute("INSERT INTO ferry.bookings (booking_id, sailing_ref, seats) VALUES (1, 501, 2)")
+    con.execute(create)
+
+    def shape() -> tuple[object, ...] | None:
+        names = "SELECT column_name FROM duckdb_columns() WHERE table_name = 'seat_counts'"
+        columns = [r[0] for r in con.execute(names).fetchall()]
+        return (columns, con.execute("SELECT count(*) FROM seat_counts").fetchone()) if columns else None
+
+    before = shape()
+    con.execute(change)
+    assert shape() != before
+
+
 def test_names_in_other_case_or_the_default_schema_find_the_model_and_updates_and_duplicates_are_reported(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:

@@ -145,12 +145,11 @@ def load_model_file(path: Path, dialect: str, root: Path | None = None) -> Loade
         if ms is None:
             why = unsupported(stmt)
             if why:
-                # an UPDATE or DELETE is charged to the table it changes, so its answers show it
-                changed = stmt.this if isinstance(stmt, (exp.Update, exp.Delete)) else None
-                model = (
-                    ".".join(_normalise(changed, dialect)) if isinstance(changed, exp.Table) else path.stem
-                )
-                out.diagnostics.append(Diagnostic(shown, line, model, "unsupported", why))
+                # an UPDATE, DELETE, ALTER, DROP or TRUNCATE is charged to each table it changes,
+                # so the answers that pass through that table show it
+                models = [".".join(_normalise(t, dialect)) for t in changed_tables(stmt)] or [path.stem]
+                for model in models:
+                    out.diagnostics.append(Diagnostic(shown, line, model, "unsupported", why))
             continue
         out.statements.append(ms)
     return out
@@ -177,15 +176,38 @@ def _classify(stmt: exp.Expr, stem: str, file: str, line: int, dialect: str) -> 
     return None
 
 
+def changed_tables(stmt: exp.Expr) -> list[exp.Table]:
+    """The tables an UPDATE, DELETE, ALTER, DROP or TRUNCATE changes (none for another statement)."""
+    if isinstance(stmt, (exp.Update, exp.Delete, exp.Alter)):
+        found = [stmt.this]
+    elif isinstance(stmt, exp.Drop):
+        found = list(stmt.args.get("tables") or [stmt.this])
+    elif isinstance(stmt, exp.TruncateTable):
+        found = list(stmt.expressions)
+    else:
+        found = []
+    return [t for t in found if isinstance(t, exp.Table)]
+
+
 def unsupported(stmt: exp.Expr) -> str | None:
-    """Why a statement that changes data is not traced (None for one that is, or that changes
-    nothing lineage follows: a CREATE TABLE of columns only, INSERT ... VALUES)."""
-    if isinstance(stmt, (exp.Update, exp.Delete)):
-        kind = "UPDATE" if isinstance(stmt, exp.Update) else "DELETE"
-        target = stmt.this.sql() if isinstance(stmt.this, exp.Expr) else "?"
-        return f"{kind} of {target} is not traced: the lineage of {target} misses what it changes"
-    if isinstance(stmt, (exp.Create, exp.Insert, exp.Merge, exp.Query)):
+    """Why a statement that changes data or a table's shape is not traced (None for one that is,
+    or that changes nothing lineage follows: a CREATE TABLE of columns only, INSERT ... VALUES,
+    a COMMENT)."""
+    if isinstance(stmt, (exp.Create, exp.Insert, exp.Merge, exp.Query, exp.Comment)):
         return None
+    targets = ", ".join(t.sql() for t in changed_tables(stmt)) or "?"
+    if isinstance(stmt, (exp.Update, exp.Delete, exp.TruncateTable)):
+        kind = {exp.Update: "UPDATE", exp.Delete: "DELETE"}.get(type(stmt), "TRUNCATE")
+        return f"{kind} of {targets} is not traced: the lineage of {targets} misses what it changes"
+    if isinstance(stmt, exp.Alter):
+        # before: charged to the file, so trace of the table's columns said "complete" although
+        # a column was renamed, added or dropped, or the table renamed
+        return (
+            f"ALTER of {targets} is not traced: its columns or its name after the ALTER may differ "
+            "from the lineage shown; write the model's final shape in its CREATE"
+        )
+    if isinstance(stmt, exp.Drop):
+        return f"DROP of {targets} is not traced: the lineage shows {targets} as though it still existed"
     return f"a {stmt.key.upper()} statement is not traced"
 
 

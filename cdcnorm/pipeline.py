@@ -268,6 +268,21 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
     return drift, unmapped
 
 
+def note_unread(mapping: LoadedMapping, raw: RawTable, unmapped: dict[str, list[str]]) -> None:
+    """A note on each file with raw columns no field reads and ``unused`` does not list: their
+    values are in no event (a column the source added since the mapping was written, say)."""
+    for src in raw.files:
+        unread = [c for c in unmapped.get(src.name, []) if not mapping.mapping.left_out(c)]
+        if unread:
+            names = ", ".join(unread)
+            one = len(unread) == 1
+            src.notes.append(
+                f"raw column{'' if one else 's'} {names} read by no field of {mapping.table}: "
+                f"{'its' if one else 'their'} values are in no event (map {'it' if one else 'them'} "
+                f"under fields, or list {'it' if one else 'them'} under unused)"
+            )
+
+
 def compile_table(
     mapping: LoadedMapping,
     raw: RawTable,
@@ -398,6 +413,7 @@ def _run(
     for table, raw in read.items():
         drift, unmapped = find_drift(by_name[table], raw)
         drifts.extend(drift)
+        note_unread(by_name[table], raw, unmapped)
         settle_key = _settle_key(engine, by_name[table], options.settle)
         plan = compile_table(by_name[table], raw, settle_key)
         orders = memory.field_orders(engine, plan, area.emitted_files(table) if area else [])

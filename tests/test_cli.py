@@ -89,6 +89,35 @@ def test_output_is_byte_identical_whatever_the_input_order(tmp_path: Path) -> No
     assert last_run(tmp_path / "a")["ledger"] == last_run(tmp_path / "b")["ledger"]
 
 
+def test_convert_notes_raw_columns_no_field_reads_unless_unused_lists_them(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: a column the source added since the mapping was written (gate_code here) was left
+    # out of every event without a word; only check showed it
+    dumps = tmp_path / "dumps"
+    dumps.mkdir()
+    live = (DUMPS / "bookings-live.csv").read_text().splitlines()
+    lines = [live[0] + ",gate_code", *(line + ",G7" for line in live[1:])]
+    (dumps / "bookings-live.csv").write_text("\n".join(lines) + "\n")
+    out = tmp_path / "area"
+    assert cli("convert", "--mappings", str(MAPPINGS), str(dumps), "--out", str(out)) == 0
+    printed = capsys.readouterr().out
+    # the demo mapping lists export_batch under unused: only the new column is noted
+    assert "raw column gate_code read by no field of ferry.bookings: its values are in no event" in printed
+    assert "export_batch" not in printed
+    (note,) = last_run(out)["notes"]
+    assert (note["file"], note["table"]) == ("bookings-live.csv", "ferry.bookings")
+    assert note["note"].startswith("raw column gate_code read by no field")
+    # listed under unused, it is left out on purpose: no note
+    mappings = tmp_path / "mappings"
+    shutil.copytree(MAPPINGS, mappings)
+    p = mappings / "bookings.yaml"
+    p.write_text(p.read_text().replace("unused: [export_batch]", "unused: [export_batch, gate_code]"))
+    assert cli("convert", "--mappings", str(mappings), str(dumps), "--out", str(tmp_path / "b")) == 0
+    assert "note:" not in capsys.readouterr().out
+    assert last_run(tmp_path / "b")["notes"] == []
+
+
 def test_check_reports_unmapped_columns_and_rejects(capsys: pytest.CaptureFixture[str]) -> None:
     assert cli("check", "--mappings", str(MAPPINGS), str(DUMPS), "--json") == 0
     report = json.loads(capsys.readouterr().out)

@@ -66,6 +66,16 @@ def test_key_must_name_a_field(tmp_path: Path) -> None:
     assert "booking" in err.message
 
 
+def test_unused_may_not_list_a_column_the_mapping_reads(tmp_path: Path) -> None:
+    err = _load(tmp_path, GOOD + "unused: [export_batch, fare]\n")
+    assert "unused lists raw column 'fare', which field fare reads" in err.message
+    err = _load(tmp_path, GOOD + "unused: [log_pos]\n")
+    assert "which change.position reads" in err.message
+    # a nested object's name covers its members: it may not hold a column a field reads
+    nested = GOOD.replace("fare: decimal(12,2)", 'fare: {type: "decimal(12,2)", from: after.fare}')
+    assert "'after.fare'" in _load(tmp_path, nested + "unused: [after]\n").message
+
+
 def test_yaml_syntax_error_has_a_line(tmp_path: Path) -> None:
     err = _load(tmp_path, GOOD.replace("fields:\n", "fields:\n  - [\n"))
     assert err.line is not None and "YAML" in err.message

@@ -31,7 +31,10 @@ def _mappings(folder: Path, edit: tuple[str, str] | None = None) -> Path:
         p = folder / "bookings.yaml"
         text = p.read_text()
         assert edit[0] in text
-        p.write_text(text.replace(edit[0], edit[1]))
+        text = text.replace(edit[0], edit[1])
+        if "export_batch:" in edit[1]:  # a column mapped now is no longer left out on purpose
+            text = text.replace("unused: [export_batch]\n", "")
+        p.write_text(text)
     return folder
 
 

@@ -206,6 +206,11 @@ class Mapping(Strict):
     change: ChangeSpec
     fields: dict[str, Annotated[FieldSpec, Field()]]
     csv: CsvOptions = Field(default_factory=CsvOptions, description="CSV dialect of this table's CSV dumps.")
+    unused: list[str] = Field(
+        default_factory=list,
+        description="Raw columns no field reads, on purpose (a nested object's name covers its "
+        "members): convert notes any other raw column no field reads, since its values are in no event.",
+    )
 
     @field_validator("fields", mode="before")
     @classmethod
@@ -234,6 +239,23 @@ class Mapping(Strict):
                 f"key names {missing} but fields has no such field; fields are {list(self.fields)}"
             )
         return self
+
+    @model_validator(mode="after")
+    def _unused_columns_are_not_read(self) -> Mapping:
+        readers = {col: f"change.{role}" for role, col in self.change_columns().items()}
+        readers |= {self.raw_column(f): f"field {f}" for f in self.fields}
+        for name in self.unused:
+            read = [col for col in readers if col == name or col.startswith(name + ".")]
+            if read:
+                raise ValueError(
+                    f"unused lists raw column {name!r}, which {readers[read[0]]} reads "
+                    f"({read[0]!r}); take it out of unused"
+                )
+        return self
+
+    def left_out(self, column: str) -> bool:
+        """Whether ``unused`` lists this raw column (or a nested object it is a member of)."""
+        return any(column == u or column.startswith(u + ".") for u in self.unused)
 
     def raw_column(self, field: str) -> str:
         spec = self.fields[field]

@@ -521,9 +521,12 @@ class DuckDBEngine:
         # then two filters of it): the text outside strings is computed once for both lexical
         # checks and for the numbers that need tagging; the kind and the repeated names only of
         # valid JSON (the engine's JSON functions reject anything else).
+        # the bytes are kept only where they are not UTF-8 (the malformed line shows them base64):
+        # not a second copy of every line
         decoded = (
-            f"SELECT __row, rtrim(try(decode(raw)), chr(13)) AS line, raw FROM {src} "
-            "WHERE NOT regexp_full_match(coalesce(try(decode(raw)), 'x'), '\\s*')"
+            f"SELECT __row, line, CASE WHEN line IS NULL THEN raw END AS raw FROM (SELECT __row, "
+            f"rtrim(try(decode(raw)), chr(13)) AS line, raw FROM {src}) "
+            "WHERE NOT regexp_full_match(coalesce(line, 'x'), '\\s*')"
         )
         # read only where json_valid holds (rfc8259 and the risky numbers of the valid lines)
         outside = f"SELECT *, {outside_strings_of_valid('line')} AS outside FROM ({decoded})"

@@ -926,6 +926,43 @@ def test_duckdb_columns_selectors_are_traced_as_the_columns_they_pick(
     assert "pax.pax_phone" in capsys.readouterr().out
 
 
+RENAMED = {
+    "renamed": "SELECT t.ref, t.trip, passenger_ref FROM ferry.bookings AS t(ref, trip)",
+    "joined": "SELECT b.ref, p.full_name FROM ferry.bookings AS b(ref, s, pax) "
+    "JOIN ferry.passengers AS p ON p.passenger_id = b.pax",
+}
+
+
+def test_a_tables_alias_column_list_renames_its_first_columns(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: FROM ferry.bookings AS t(ref, trip) made every t.ref "not in schema" (incomplete)
+    args = _models(tmp_path, {f"{n}.sql": f"CREATE VIEW {n} AS\n{sql};\n" for n, sql in RENAMED.items()})
+    con = _bookings_in_duckdb()
+    con.execute("CREATE TABLE ferry.passengers (passenger_id BIGINT, full_name TEXT)")
+    capsys.readouterr()
+    answers = {}
+    for name, sql in RENAMED.items():
+        con.execute(f"CREATE VIEW {name} AS {sql}")
+        assert cli("trace", *args, name, "--json") == 0
+        got = {a["column"]: a for a in json.loads(capsys.readouterr().out)}
+        assert list(got) == [f"{name}.{r[0]}" for r in con.execute(f"DESCRIBE {name}").fetchall()]
+        answers |= got
+    b = "ferry.bookings."
+    # DuckDB renames the table's first columns in its order: ref is booking_id, trip sailing_ref
+    con.execute("INSERT INTO ferry.bookings (booking_id, sailing_ref, passenger_ref) VALUES (7, 501, 9)")
+    con.execute("INSERT INTO ferry.passengers VALUES (9, 'Ines Marrow')")
+    assert con.execute("SELECT * FROM renamed").fetchall() == [(7, 501, 9)]
+    assert answers["renamed.ref"]["value"] == [b + "booking_id"]
+    assert answers["renamed.trip"]["value"] == [b + "sailing_ref"]
+    assert answers["renamed.passenger_ref"]["value"] == [b + "passenger_ref"]
+    assert con.execute("SELECT * FROM joined").fetchall() == [(7, "Ines Marrow")]
+    assert answers["joined.full_name"]["influence_kinds"] == {
+        b + "passenger_ref": ["join"],
+        "ferry.passengers.passenger_id": ["join"],
+    }
+
+
 @pytest.mark.parametrize(
     ("sql", "reason"),
     [

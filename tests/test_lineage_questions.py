@@ -635,6 +635,12 @@ def test_influence_is_grouped_by_kind_and_can_be_limited(capsys: pytest.CaptureF
     assert only["influence"] == ["ferry.bookings.refunded"] and only["value"] == every["value"]
     assert cli("trace", *args[:4], "daily_revenue.total_fare", "--influence", "fliter") == 7
     assert 'did you mean "filter"' in capsys.readouterr().err
+    # none: value lineage alone; an empty list is refused (before: it meant every kind)
+    assert cli("trace", *args, "daily_revenue.total_fare", "--influence", "none") == 0
+    bare = json.loads(capsys.readouterr().out)
+    assert bare["influence"] == [] and bare["value"] == every["value"]
+    assert cli("trace", *args, "daily_revenue.total_fare", "--influence", "") == 2
+    assert "--influence none" in capsys.readouterr().err
 
 
 def test_rename_tells_the_dump_column_from_the_canonical_field(capsys: pytest.CaptureFixture[str]) -> None:

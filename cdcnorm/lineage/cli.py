@@ -46,7 +46,8 @@ def add_commands(sub: Any) -> None:
         "--influence",
         metavar="KINDS",
         help="show and follow only these influence kinds, comma-separated: "
-        "join, filter, grouping, ordering, window, existence, unnest (default: all)",
+        "join, filter, grouping, ordering, window, existence, unnest; none for value lineage alone "
+        "(default: all)",
     )
 
     i = sub.add_parser("impact", help="what depends on a column, and what a schema edit would break (exit 8)")
@@ -186,10 +187,17 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
 
     project, mappings, loaded = load_project(args)
     if args.command == "trace":
-        if args.influence:
+        if args.influence is not None:
             from cdcnorm.lineage.questions import with_influence
 
-            project = with_influence(project, [k.strip() for k in args.influence.split(",") if k.strip()])
+            # before: an empty list (--influence '') was taken as "all kinds", the default
+            kinds = [k.strip() for k in args.influence.split(",") if k.strip()]
+            if not kinds:
+                raise UsageError(
+                    "--influence names no kind",
+                    hint="write --influence none for value lineage alone, or name kinds: join,filter",
+                )
+            project = with_influence(project, [] if kinds == ["none"] else kinds)
         answers = trace_target(project, args.target)
         if args.json:
             payload: Any = answers if args.target in project.models else answers[0]

@@ -47,6 +47,8 @@ STAGES: list[tuple[str, Callable[[Plan], Plan]]] = [
     ("envelope", build_envelopes),
 ]
 STAGE_NAMES = ["read", *(name for name, _ in STAGES)]
+#: the step whose rows --stop-after shows for a stage (else the stage's last step)
+STAGE_OUTPUT = {"type": "typed"}
 #: The materialised steps the writers and the events read after a run (the ``events`` view is
 #: over ``kept`` and ``pairs``); the others are dropped once the run is accounted for.
 RESULT_STEPS = ("kept", "pairs", "waiting")
@@ -127,7 +129,9 @@ class Result:
         run = self.tables[table]
         if stage == "read":
             return self._read_rows(run, limit)
-        step = [s for s in run.plan.steps if s.stage == stage][-1]
+        steps = [s for s in run.plan.steps if s.stage == stage]
+        # the stage's own output: the typed rows (with ok), not the rejects listed beside them
+        step = next((s for s in steps if s.name == STAGE_OUTPUT.get(stage)), steps[-1])
         columns = [str(r[0]) for r in self.engine.rows(f"DESCRIBE SELECT * FROM {ident(step.relation)}")]
         names = _shown_names(run.plan)
         picked = [f"s.{ident(c)} AS {ident(names.get(c, c))}" for c in columns if c != "__file"]
@@ -135,7 +139,13 @@ class Result:
         if "__file" in columns:  # the file's name, not its number
             picked.insert(0, "f.name AS file")
             join = " LEFT JOIN __files f ON f.id = s.__file"
-        sql = f"SELECT {', '.join(picked)} FROM {ident(step.relation)} s{join}" + (
+        # a stable order, so --limit shows the same rows every time: change order for the stages
+        # that order rows, else by file and record
+        keys = ["__pos", "__seq", "__rank"] if stage in ("order", "dedupe", "pair") else []
+        keys = [f"s.{k}" for k in keys if k in columns]
+        keys += (["f.name"] if join else []) + [f"s.{k}" for k in ("__row",) if k in columns]
+        order = f" ORDER BY {', '.join(keys)}" if keys else ""
+        sql = f"SELECT {', '.join(picked)} FROM {ident(step.relation)} s{join}{order}" + (
             f" LIMIT {limit}" if limit else ""
         )
         return self.engine.arrow(sql)

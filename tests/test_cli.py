@@ -271,6 +271,13 @@ def test_stop_after_each_stage(stage: str, capsys: pytest.CaptureFixture[str]) -
     )
     report = json.loads(capsys.readouterr().out)
     assert report["stage"] == stage and report["rows"]
+    rows = report["rows"]
+    if stage == "type":  # the typed rows, good and bad (before: the rejects alone)
+        assert {r["ok"] for r in rows} == {True, False}
+        assert [r["record"] for r in rows] == sorted(r["record"] for r in rows)
+    if stage == "order":  # in change order, the same rows whatever --limit cuts
+        keys = [int(r["position key"]) for r in rows]
+        assert keys == sorted(keys)
 
 
 def test_a_fixed_quarantine_file_feeds_back_as_its_own_run(tmp_path: Path) -> None:

@@ -60,10 +60,15 @@ def add_commands(sub: Any) -> None:
         "--retype", metavar="TYPE", help="simulate changing the column's type, e.g. float, decimal(10,2)"
     )
 
-    g = sub.add_parser("lineage", help="export the lineage graph: .dot .svg .png .graphml .json")
+    g = sub.add_parser(
+        "lineage", help="export the lineage graph: .dot .svg .png .graphml .json .html (the explorer)"
+    )
     _common(g)
     g.add_argument(
-        "--out", default="lineage.svg", help="output file; its suffix picks the format (default lineage.svg)"
+        "--out",
+        default="lineage.svg",
+        help="output file; its suffix picks the format: .dot .svg .png .graphml .json .html "
+        "(default lineage.svg)",
     )
     g.add_argument(
         "--focus", metavar="COLUMN", help="draw only this column's neighbourhood, the column highlighted"

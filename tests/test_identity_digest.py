@@ -189,7 +189,7 @@ _timestamps = st.datetimes(
 ).map(lambda d: d.astimezone(UTC))
 _row = st.tuples(
     _timestamps,
-    st.none() | st.text(st.characters(blacklist_characters="\x00\r"), max_size=12),
+    st.none() | st.text(st.characters(codec="utf-8", exclude_characters="\x00\r"), max_size=12),
     st.none() | st.decimals(min_value=-(10**10) + 1, max_value=10**10 - 1, places=2, allow_nan=False),
     st.none() | st.floats(allow_nan=False, allow_infinity=False, allow_subnormal=False),
     st.none() | _timestamps,

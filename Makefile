@@ -8,12 +8,14 @@ BIN := $(VENV)/bin
 $(BIN)/cdcnorm: pyproject.toml
 	$(PY) -m venv $(VENV)
 	$(BIN)/pip install --quiet --upgrade pip
-	$(BIN)/pip install --quiet -e '.[dev]'
+	$(BIN)/pip install --quiet -e '.[dev,fast]' || { \
+	  echo "sqlglot's compiled modules (the fast extra) cannot be installed here: installing without them"; \
+	  $(BIN)/pip install --quiet -e '.[dev]'; }
 	touch $@
 
 # The tests also run the plans on Spark (tests/test_engine_spark.py): pyspark, the optional extra.
 $(VENV)/.spark: $(BIN)/cdcnorm
-	$(BIN)/pip install --quiet -e '.[dev,spark]'
+	$(BIN)/pip install --quiet -e '.[dev,fast,spark]' || $(BIN)/pip install --quiet -e '.[dev,spark]'
 	touch $@
 
 # Graphviz's dot program draws the lineage diagrams (SVG/PNG); DOT, GraphML and JSON need nothing.

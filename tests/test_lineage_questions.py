@@ -364,6 +364,23 @@ def test_a_cycle_is_reported_and_everything_outside_it_still_resolves(
     assert "incomplete" in capsys.readouterr().out
 
 
+def test_a_model_named_in_another_case_or_in_quotes_is_found_and_an_unknown_one_suggested(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: trace MixedCase (or "MixedCase") said "write a column as <table>.<column>" although
+    # trace MixedCase.Fare found the column: DuckDB folds the view's name, as the column lookup did
+    args = _models(
+        tmp_path, {"m.sql": 'CREATE VIEW "MixedCase" AS SELECT fare AS "Fare" FROM ferry.bookings;\n'}
+    )
+    capsys.readouterr()
+    for written in ("MixedCase", '"MixedCase"', "MIXEDCASE", "mixedcase"):
+        assert cli("trace", *args, written, "--json") == 0, written
+        (answer,) = json.loads(capsys.readouterr().out)
+        assert answer["value"] == ["ferry.bookings.fare"]
+    assert cli("trace", *args, "MixedCas") == 7
+    assert "no model 'MixedCas' (did you mean \"mixedcase\"?)" in capsys.readouterr().err
+
+
 SHAPE_CHANGES = {
     # statement after the model's CREATE -> the start of the reason its answers give
     "ALTER TABLE seat_counts RENAME COLUMN seats TO seat_total": "ALTER of seat_counts",

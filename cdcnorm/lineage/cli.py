@@ -188,7 +188,7 @@ def _trace_tree(answer: dict[str, Any]) -> Tree:
 
 def run_command(args: argparse.Namespace, out: Console) -> int:
     from cdcnorm.lineage.export import export, neighbourhood, table_level
-    from cdcnorm.lineage.questions import Edit, breaks, find_column, impact, trace_target
+    from cdcnorm.lineage.questions import Edit, breaks, find_column, find_model, impact, trace_target
 
     project, mappings, loaded = load_project(args)
     if args.command == "trace":
@@ -205,7 +205,8 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
             project = with_influence(project, [] if kinds == ["none"] else kinds)
         answers = trace_target(project, args.target)
         if args.json:
-            payload: Any = answers if args.target in project.models else answers[0]
+            # a model's answers are a list (one per column), a column's one answer
+            payload: Any = answers if find_model(project, args.target) is not None else answers[0]
             print(json.dumps(payload, indent=2))
         else:
             for a in answers:

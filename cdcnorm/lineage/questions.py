@@ -241,13 +241,37 @@ def trace(project: Project, column: str) -> dict[str, Any]:
     }
 
 
+def find_model(project: Project, text: str) -> str | None:
+    """The model a name written by a user means: as written, as the dialect folds it (each part;
+    a part in double quotes as written inside them), or the one model equal to it but for case."""
+    names = set(project.models) | set(unresolved_models(project))
+    if text in names:
+        return text
+    parts = [p[1:-1] if len(p) > 1 and p[0] == p[-1] == '"' else p for p in text.split(".")]
+    for candidate in (".".join(parts), ".".join(normalise_column(p, project.dialect) for p in parts)):
+        if candidate in names:
+            return candidate
+    same = [n for n in names if n.lower() == ".".join(parts).lower()]
+    return same[0] if len(same) == 1 else None
+
+
 def trace_target(project: Project, target: str) -> list[dict[str, Any]]:
     """``trace model`` answers for each of its columns; ``trace table.column`` for one."""
     opaque = unresolved_models(project)
+    named = find_model(project, target)
+    if named is not None:
+        target = named
     if target in opaque:
         return [_unresolved_answer(target, opaque[target])]
     if target in project.models:
         return [trace(project, node_name(n)) for n in model_columns(project, target)]
+    if "." not in target.removeprefix("model:").removeprefix("field:").removeprefix("dump:"):
+        # before: "write a column as <table>.<column>" for a model name in another case
+        models = sorted(project.models)
+        raise LineageError(
+            f"no model {target!r}{did_you_mean(target, models)}; write a model's name, or a column as "
+            "<table>.<column>"
+        )
     model = target.rpartition(".")[0].removeprefix("model:")
     if model in opaque:
         return [_unresolved_answer(target, opaque[model])]

@@ -17,6 +17,7 @@ from rich.table import Table
 from cdcnorm import __version__
 from cdcnorm.engines import ENGINES
 from cdcnorm.errors import EXIT_OK, CdcnormError, UsageError
+from cdcnorm.inputs import hidden_inputs
 from cdcnorm.mapping import load_mappings
 from cdcnorm.pipeline import STAGE_NAMES, Options, Result, describe_sources, file_notes, run
 
@@ -296,13 +297,25 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
     if stop:
         _show_stage(result, stop, args.limit, args.table, args.json)
         return EXIT_OK
+    hidden = [str(h) for h in hidden_inputs(args.inputs, recursive=args.recursive)]
     if check:
-        return _report_check(result, args)
-    _report_run(result, args, Path(args.out))
+        return _report_check(result, args, hidden)
+    _report_run(result, args, Path(args.out), hidden)
     return EXIT_OK
 
 
-def _report_run(result: Result, args: argparse.Namespace, landing: Path) -> None:
+def _print_hidden(hidden: list[str]) -> None:
+    if hidden:
+        shown = ", ".join(hidden[:5]) + (f" and {len(hidden) - 5} more" if len(hidden) > 5 else "")
+        out.print(
+            f"note: left out {len(hidden)} hidden file{'s' if len(hidden) > 1 else ''} (a name starting "
+            f"with a dot: a copy in progress, by common practice): {shown}; name a file to read it",
+            markup=False,
+            soft_wrap=True,
+        )
+
+
+def _report_run(result: Result, args: argparse.Namespace, landing: Path, hidden: list[str]) -> None:
     skipped = [f"{s['name']} (run {s['converted_by']})" for s in result.skipped]
     if args.json:
         out.print_json(
@@ -314,6 +327,7 @@ def _report_run(result: Result, args: argparse.Namespace, landing: Path) -> None
                     "pending": result.pending,
                     "waiting": result.waiting,
                     "skipped": result.skipped,
+                    "hidden": hidden,
                     "notes": file_notes(result),
                 }
             )
@@ -323,6 +337,7 @@ def _report_run(result: Result, args: argparse.Namespace, landing: Path) -> None
         return
     if skipped:
         out.print("skipped, converted before: " + ", ".join(skipped))
+    _print_hidden(hidden)
     if result.run is None:
         out.print(f"nothing new to convert: no run was added to {landing}")
         return
@@ -398,17 +413,18 @@ def cmd_settle(args: argparse.Namespace) -> int:
     )
     result = run(mappings, [], options)
     args.out = args.landing
-    _report_run(result, args, Path(args.landing))
+    _report_run(result, args, Path(args.landing), [])
     return EXIT_OK
 
 
-def _report_check(result: Result, args: argparse.Namespace) -> int:
+def _report_check(result: Result, args: argparse.Namespace, hidden: list[str]) -> int:
     sources = describe_sources(result)
     drift = [d.message() for d in result.drift]
     report = {
         "files": sources,
         "drift": drift,
         "tables": result.ledger.as_dict()["tables"],
+        "hidden": hidden,
     }
     if args.json:
         out.print_json(json.dumps(report))
@@ -432,6 +448,7 @@ def _report_check(result: Result, args: argparse.Namespace) -> int:
             for reason, n in sorted(tl.reasons.items()):
                 out.print(f"{name}: {n} x {reason}")
         _print_notes(result)
+        _print_hidden(hidden)
         for d in drift:
             out.print(f"[red]drift[/red] {d}")
     return 4 if drift else EXIT_OK

@@ -90,6 +90,26 @@ def expand_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> l
     return unique
 
 
+def hidden_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> list[Path]:
+    """The hidden files (a name starting with a dot, or inside a hidden folder) that the given
+    folders hold and ``expand_inputs`` leaves out: partial copies by common practice (a copy in
+    progress under a dotted temporary name), said to the user rather than read or dropped silently."""
+    out: list[Path] = []
+    for raw in inputs:
+        p = Path(raw)
+        if not p.is_dir():
+            continue
+        found = p.rglob("*") if recursive else p.iterdir()
+        out.extend(
+            sorted(
+                c
+                for c in found
+                if c.is_file() and any(part.startswith(".") for part in c.relative_to(p).parts)
+            )
+        )
+    return out
+
+
 def display_names(files: list[Path]) -> dict[Path, str]:
     names = [f.name for f in files]
     return {f: (f.name if names.count(f.name) == 1 else f.as_posix()) for f in files}

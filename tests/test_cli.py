@@ -118,6 +118,25 @@ def test_convert_notes_raw_columns_no_field_reads_unless_unused_lists_them(
     assert last_run(tmp_path / "b")["notes"] == []
 
 
+def test_hidden_files_in_a_folder_are_left_out_and_named(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: a file such as .passengers.csv.part (a copy in progress) was left out without a word
+    dumps = tmp_path / "dumps"
+    (dumps / ".partial").mkdir(parents=True)
+    shutil.copy(DUMPS / "passengers.csv", dumps / "passengers.csv")
+    shutil.copy(DUMPS / "passengers.csv", dumps / ".passengers-2.csv")
+    shutil.copy(DUMPS / "passengers.csv", dumps / ".partial" / "passengers-3.csv")
+    out = tmp_path / "area"
+    assert cli("convert", "--mappings", str(MAPPINGS), str(dumps), "--out", str(out)) == 0
+    printed = capsys.readouterr().out
+    assert "note: left out 1 hidden file" in printed and ".passengers-2.csv" in printed
+    assert [i["name"] for i in last_run(out)["inputs"]] == ["passengers.csv"]
+    assert cli("check", "--mappings", str(MAPPINGS), str(dumps), "--recursive", "--json") == 0
+    hidden = json.loads(capsys.readouterr().out)["hidden"]
+    assert [Path(h).name for h in hidden] == ["passengers-3.csv", ".passengers-2.csv"]  # by path
+
+
 def test_check_reports_unmapped_columns_and_rejects(capsys: pytest.CaptureFixture[str]) -> None:
     assert cli("check", "--mappings", str(MAPPINGS), str(DUMPS), "--json") == 0
     report = json.loads(capsys.readouterr().out)

@@ -17,7 +17,6 @@ from rich.table import Table
 from cdcnorm import __version__
 from cdcnorm.engines import ENGINES
 from cdcnorm.errors import EXIT_OK, CdcnormError, UsageError
-from cdcnorm.inputs import hidden_inputs
 from cdcnorm.mapping import load_mappings
 from cdcnorm.pipeline import STAGE_NAMES, Options, Result, describe_sources, file_notes, run
 
@@ -297,10 +296,9 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
     if stop:
         _show_stage(result, stop, args.limit, args.table, args.json)
         return EXIT_OK
-    hidden = [str(h) for h in hidden_inputs(args.inputs, recursive=args.recursive)]
     if check:
-        return _report_check(result, args, hidden)
-    _report_run(result, args, Path(args.out), hidden)
+        return _report_check(result, args, result.hidden)
+    _report_run(result, args, Path(args.out), result.hidden)
     return EXIT_OK
 
 

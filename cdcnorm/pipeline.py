@@ -23,7 +23,7 @@ from cdcnorm import ledger as ledger_mod
 from cdcnorm import quarantine, zones
 from cdcnorm.engines.duckdb import DuckDBEngine, engine_errors
 from cdcnorm.errors import DriftError, LedgerError, RejectLimitError, UsageError, closest
-from cdcnorm.inputs import display_names, expand_inputs, route
+from cdcnorm.inputs import display_names, expand_inputs, hidden_inputs, route
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.plan import Plan, RawRelation, Source
 from cdcnorm.readers import RawFile, RawTable, reader_for
@@ -116,6 +116,7 @@ class Result:
     run: str | None = None  # the landing area's run id, once committed
     inputs: list[dict[str, Any]] = field(default_factory=list)
     skipped: list[dict[str, Any]] = field(default_factory=list)
+    hidden: list[str] = field(default_factory=list)  # hidden files the input folders hold, not read
     pending: int = 0  # before-images this run's tables leave waiting
     waiting: int = 0  # before-images waiting in the whole landing area after this run
 
@@ -332,13 +333,17 @@ def run(
         raise UsageError(f"unknown stage {stop_after!r}; stages are {', '.join(STAGE_NAMES)}")
     if options.fmt not in WRITERS:
         raise UsageError(f"unknown output format {options.fmt!r}; formats are {', '.join(WRITERS)}")
+    inputs = list(inputs)
     files = expand_inputs(inputs, recursive=options.recursive)
     if not files and options.settle is None:
         raise UsageError("no input files given")
     routed = route(files, mappings)
+    hidden = [str(h) for h in hidden_inputs(inputs, recursive=options.recursive)]
     with scratch_folder(options.scratch) as scratch, engine_errors(scratch):
         if not (options.write and options.out is not None and stop_after is None):
-            return _run(mappings, routed, options, scratch, stop_after, progress, strict_drift, None)
+            result = _run(mappings, routed, options, scratch, stop_after, progress, strict_drift, None)
+            result.hidden = hidden
+            return result
         from cdcnorm.landing import open_landing
         from cdcnorm.landing.outputs import commit_run, new_inputs
 
@@ -349,9 +354,10 @@ def run(
             has_pending = options.settle is not None and any(area.waiting(m.table) for m in mappings)
             if not any(routed.values()) and not has_pending:
                 engine = DuckDBEngine(temp_directory=str(scratch / "spill"))
-                return Result(engine, {}, ledger_mod.Ledger(), [], skipped=skipped)
+                return Result(engine, {}, ledger_mod.Ledger(), [], skipped=skipped, hidden=hidden)
             result = _run(mappings, routed, options, scratch, None, progress, strict_drift, area)
             result.skipped = skipped
+            result.hidden = hidden
             commit_run(result, area, options, inputs_info, later, progress)
         if options.max_rejects is not None and result.quarantined > options.max_rejects:
             raise RejectLimitError(

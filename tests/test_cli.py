@@ -132,6 +132,7 @@ def test_hidden_files_in_a_folder_are_left_out_and_named(
     printed = capsys.readouterr().out
     assert "note: left out 1 hidden file" in printed and ".passengers-2.csv" in printed
     assert [i["name"] for i in last_run(out)["inputs"]] == ["passengers.csv"]
+    assert [Path(h).name for h in last_run(out)["hidden"]] == [".passengers-2.csv"]  # in the run record too
     assert cli("check", "--mappings", str(MAPPINGS), str(dumps), "--recursive", "--json") == 0
     hidden = json.loads(capsys.readouterr().out)["hidden"]
     assert [Path(h).name for h in hidden] == ["passengers-3.csv", ".passengers-2.csv"]  # by path

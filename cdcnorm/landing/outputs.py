@@ -169,6 +169,7 @@ def commit_run(
         },
         "inputs": inputs,
         "skipped": result.skipped,
+        "hidden": result.hidden,
         "notes": file_notes(result),
         "ledger": result.ledger.as_dict(),
         "pending": result.pending,

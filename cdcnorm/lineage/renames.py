@@ -20,8 +20,7 @@ from sqlglot.schema import MappingSchema
 def expand_renames(query: exp.Expr, schema: MappingSchema, dialect: str) -> exp.Expr:
     """A copy of ``query`` in which every table with an alias column list is a derived table
     that renames the columns; the query itself where none has one."""
-    tables = [t for t in query.find_all(exp.Table) if _listed(t)]
-    if not tables:
+    if not any(_listed(t) for t in query.find_all(exp.Table)):
         return query
     query = query.copy()
     # a CTE of that name shadows the table (left to qualification, which knows CTEs)

@@ -24,6 +24,8 @@ from sqlglot.errors import OptimizeError, SchemaError
 from sqlglot.optimizer.qualify import qualify
 from sqlglot.schema import MappingSchema
 
+from cdcnorm.sql import ident
+
 #: aliases that mark where the probe's star stands among the SELECT's items
 _FROM, _TO = "__cdcnorm_columns_from", "__cdcnorm_columns_to"
 
@@ -149,9 +151,7 @@ def _picked(columns: list[exp.Expr], node: exp.Columns, item: exp.Expr) -> tuple
         failure = ""
         for sql_type in ("INTEGER", "VARCHAR"):
             table = f"t_{sql_type.lower()}"
-            cols = ", ".join(
-                f"{exp.to_identifier(n, quoted=True).sql(dialect='duckdb')} {sql_type}" for n in names
-            )
+            cols = ", ".join(f"{ident(n)} {sql_type}" for n in names)
             con.execute(f"CREATE TABLE {table} ({cols})")
             try:
                 picked = _names(con, f"SELECT {node.sql(dialect='duckdb')} FROM {table}")

@@ -6,6 +6,7 @@ import json
 import shutil
 import xml.etree.ElementTree as ET
 from pathlib import Path
+from typing import Any
 
 import duckdb
 import networkx as nx
@@ -859,6 +860,27 @@ def _bookings_in_duckdb() -> duckdb.DuckDBPyConnection:
     return con
 
 
+def _traced_views(
+    tmp_path: Path,
+    capsys: pytest.CaptureFixture[str],
+    views: dict[str, str],
+    con: duckdb.DuckDBPyConnection,
+) -> tuple[dict[str, Any], list[str]]:
+    """Each view as a model file, traced through the CLI: every column's answer, by column, and
+    the CLI's arguments for the models. The views are also made in ``con``, and the columns
+    traced must be DuckDB's, in its order, under its names (DESCRIBE)."""
+    args = _models(tmp_path, {f"{n}.sql": f"CREATE VIEW {n} AS\n{sql};\n" for n, sql in views.items()})
+    capsys.readouterr()
+    answers: dict[str, Any] = {}
+    for name, sql in views.items():
+        con.execute(f"CREATE VIEW {name} AS {sql}")
+        assert cli("trace", *args, name, "--json") == 0
+        got = {a["column"]: a for a in json.loads(capsys.readouterr().out)}
+        assert list(got) == [f"{name}.{r[0]}" for r in con.execute(f"DESCRIBE {name}").fetchall()]
+        answers |= got
+    return answers, args
+
+
 PIVOTS = {
     "by_name": "SELECT * FROM (SELECT sailing_ref, passenger, fare FROM ferry.bookings)\n"
     "PIVOT (sum(fare) FOR passenger IN ('Ann', 'Bo'))",
@@ -875,18 +897,7 @@ def test_pivot_and_unpivot_columns_are_traced_under_the_engines_names(
 ) -> None:
     # before: every PIVOT column was an "unknown table: _1.ann" and the answers incomplete; an
     # UNPIVOT's value column was "not in schema"
-    args = _models(
-        tmp_path, {f"{name}.sql": f"CREATE VIEW {name} AS\n{sql};\n" for name, sql in PIVOTS.items()}
-    )
-    con = _bookings_in_duckdb()
-    capsys.readouterr()
-    answers = {}
-    for name, sql in PIVOTS.items():
-        con.execute(f"CREATE VIEW {name} AS {sql}")
-        assert cli("trace", *args, name, "--json") == 0
-        got = {a["column"]: a for a in json.loads(capsys.readouterr().out)}
-        assert list(got) == [f"{name}.{r[0]}" for r in con.execute(f"DESCRIBE {name}").fetchall()]
-        answers |= got
+    answers, _ = _traced_views(tmp_path, capsys, PIVOTS, _bookings_in_duckdb())
     b = "ferry.bookings."
 
     def sets(column: str) -> tuple[list[str], dict[str, list[str]]]:
@@ -926,17 +937,8 @@ def test_duckdb_columns_selectors_are_traced_as_the_columns_they_pick(
 ) -> None:
     # before: COLUMNS('^pa') was one column "_col_0" with no lineage, and the answer was called
     # complete (exit 0): a gate asking what reads pax_phone heard "nothing"
-    args = _models(tmp_path, {f"{n}.sql": f"CREATE VIEW {n} AS\n{sql};\n" for n, sql in SELECTORS.items()})
-    con = _bookings_in_duckdb()
-    capsys.readouterr()
-    answers = {}
-    for name, sql in SELECTORS.items():
-        con.execute(f"CREATE VIEW {name} AS {sql}")
-        assert cli("trace", *args, name, "--json") == 0
-        got = {a["column"]: a for a in json.loads(capsys.readouterr().out)}
-        # DuckDB's DESCRIBE: which columns the selector picks, in its order, under its names
-        assert list(got) == [f"{name}.{r[0]}" for r in con.execute(f"DESCRIBE {name}").fetchall()]
-        answers |= got
+    # DuckDB's DESCRIBE: which columns the selector picks, in its order, under its names
+    answers, args = _traced_views(tmp_path, capsys, SELECTORS, _bookings_in_duckdb())
     b = "ferry.bookings."
     # by hand: each picked column copies its source column; an aggregate over one aggregates it
     assert answers["pax.pax_phone"]["value"] == [b + "pax_phone"]
@@ -960,17 +962,9 @@ def test_a_tables_alias_column_list_renames_its_first_columns(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
     # before: FROM ferry.bookings AS t(ref, trip) made every t.ref "not in schema" (incomplete)
-    args = _models(tmp_path, {f"{n}.sql": f"CREATE VIEW {n} AS\n{sql};\n" for n, sql in RENAMED.items()})
     con = _bookings_in_duckdb()
     con.execute("CREATE TABLE ferry.passengers (passenger_id BIGINT, full_name TEXT)")
-    capsys.readouterr()
-    answers = {}
-    for name, sql in RENAMED.items():
-        con.execute(f"CREATE VIEW {name} AS {sql}")
-        assert cli("trace", *args, name, "--json") == 0
-        got = {a["column"]: a for a in json.loads(capsys.readouterr().out)}
-        assert list(got) == [f"{name}.{r[0]}" for r in con.execute(f"DESCRIBE {name}").fetchall()]
-        answers |= got
+    answers, _ = _traced_views(tmp_path, capsys, RENAMED, con)
     b = "ferry.bookings."
     # DuckDB renames the table's first columns in its order: ref is booking_id, trip sailing_ref
     con.execute("INSERT INTO ferry.bookings (booking_id, sailing_ref, passenger_ref) VALUES (7, 501, 9)")

@@ -271,11 +271,13 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
                 # a renamed column is not mapped yet; a struct's members are candidates too
                 spare = [c for c in src.columns if c not in wanted] + src.members
                 drift.append(Drift(src.name, m.table, fields[0], col, closest(col, spare)))
+        # a struct read through (Parquet ``after`` for ``after.id``): its members no field reads
+        read_from = {keys[0] for keys in m.read_through()}
         unmapped[src.name] = [
             c
             for c in src.columns
             if c not in wanted and c not in read_through and not c.startswith(quarantine.META_KEY)
-        ]
+        ] + [c for c in src.members if c not in wanted and c.split(".")[0] in read_from]
     return drift, unmapped
 
 

@@ -6,6 +6,7 @@ import argparse
 import json
 import re
 import sys
+import time
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
@@ -186,9 +187,15 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+#: seconds between two progress lines when standard error is not a terminal (a scheduled job's log)
+LOG_EVERY = 10.0
+
+
 def _progress(quiet: bool) -> tuple[Progress | None, Any]:
-    if quiet or not err.is_terminal:
+    if quiet:
         return None, lambda label, done, total: None
+    if not err.is_terminal:
+        return None, _progress_lines()
     bar = Progress(
         TextColumn("{task.description}"),
         BarColumn(),
@@ -203,6 +210,22 @@ def _progress(quiet: bool) -> tuple[Progress | None, Any]:
         bar.update(task, description=label, completed=done, total=max(total, 1))
 
     return bar, update
+
+
+def _progress_lines() -> Any:
+    """Progress for a log (standard error not a terminal): a plain line at a step that starts
+    LOG_EVERY seconds or more after the last line, so a short run prints none and a long one
+    (a nightly job) shows where it is and its rates (before: nothing until the end)."""
+    started = time.monotonic()
+    last = [started]
+
+    def update(label: str, done: int, total: int) -> None:
+        now = time.monotonic()
+        if now - last[0] >= LOG_EVERY:
+            last[0] = now
+            err.print(f"cdcnorm: {now - started:.0f} s: {label}", markup=False, soft_wrap=True)
+
+    return update
 
 
 def _ledger_table(result: Result) -> Table:

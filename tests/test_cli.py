@@ -360,3 +360,23 @@ def test_demo_runs_from_any_folder(tmp_path: Path) -> None:
     assert proc.returncode == 0, proc.stderr
     assert "ledger balanced: 37 rows read" in proc.stdout
     assert last_run(tmp_path / "build" / "demo")["ledger"]["balanced"]
+
+
+def test_a_log_gets_plain_progress_lines_on_a_long_run_and_none_on_a_short_one(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from cdcnorm import cli as cli_mod
+
+    args = ["convert", str(DUMPS), "--mappings", str(MAPPINGS)]
+    # a short run (under LOG_EVERY seconds) to a log prints no progress line
+    assert cli(*args, "--out", str(tmp_path / "a")) == 0
+    assert "cdcnorm: " not in capsys.readouterr().err
+    # a run as long as a nightly job's, seen through a line at every step: where it is and its rates
+    monkeypatch.setattr(cli_mod, "LOG_EVERY", 0.0)
+    assert cli(*args, "--out", str(tmp_path / "b")) == 0
+    lines = [ln for ln in capsys.readouterr().err.splitlines() if ln.startswith("cdcnorm: ")]
+    assert any(ln.endswith("read 37 rows") or "read 37 rows," in ln for ln in lines), lines
+    assert any(": type (typed), " in ln for ln in lines) and any(ln.endswith(": account") for ln in lines)
+    # --quiet prints none however long the run
+    assert cli(*args, "--out", str(tmp_path / "c"), "--quiet") == 0
+    assert "cdcnorm: " not in capsys.readouterr().err

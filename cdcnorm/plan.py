@@ -114,8 +114,9 @@ class Plan:
         from cdcnorm.types.timestamp import timestamp_canonical
 
         # one concat_ws of every part, which skips a NULL part: a value's text and its ';' (NULL: the
-        # ';' alone), or a text's length, ':' (NULL: ';') and the text; a chain of || would copy the
-        # growing text at each step (0.1 s more per 1M rows)
+        # ';' alone), or a text's ``<n>:<text>`` (NULL: ';'); a chain of || over every part would copy
+        # the growing text at each step (0.1 s more per 1M rows), and a text's three parts as three
+        # parts of concat_ws (its NULL test a CASE) cost 0.17 s more per 1M rows than one coalesce
         parts = [timestamp_canonical(f"{prefix}__cat"), "';'"]
         ftypes = list(self.mapping.field_types.values())
         for i in order if order is not None else range(len(ftypes)):
@@ -126,12 +127,8 @@ class Plan:
                 if format_3 and ftype.name == "bytes"
                 else ftype.canonical(v)
             )
-            if ftype.free_text:
-                parts += [
-                    f"CAST(length({text}) AS VARCHAR)",
-                    f"CASE WHEN {text} IS NULL THEN ';' ELSE ':' END",
-                    text,
-                ]
+            if ftype.free_text:  # one short chain: NULL anywhere in it makes it NULL, hence ';'
+                parts.append(f"coalesce(CAST(length({text}) AS VARCHAR) || ':' || {text}, ';')")
             else:
                 parts += [text, "';'"]
         text = f"concat_ws('', {', '.join(parts)})"

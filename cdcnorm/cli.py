@@ -311,6 +311,7 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
     stop = getattr(args, "stop_after", None)
     if bar:
         bar.start()
+    began = time.monotonic()
     try:
         result = run(mappings, args.inputs, options, stop_after=stop, progress=update, strict_drift=not check)
     finally:
@@ -321,7 +322,7 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
         return EXIT_OK
     if check:
         return _report_check(result, args, result.hidden)
-    _report_run(result, args, Path(args.out), result.hidden)
+    _report_run(result, args, Path(args.out), result.hidden, time.monotonic() - began)
     return EXIT_OK
 
 
@@ -336,7 +337,9 @@ def _print_hidden(hidden: list[str]) -> None:
         )
 
 
-def _report_run(result: Result, args: argparse.Namespace, landing: Path, hidden: list[str]) -> None:
+def _report_run(
+    result: Result, args: argparse.Namespace, landing: Path, hidden: list[str], seconds: float | None = None
+) -> None:
     skipped = [f"{s['name']} (run {s['converted_by']})" for s in result.skipped]
     if args.json:
         out.print_json(
@@ -365,8 +368,10 @@ def _report_run(result: Result, args: argparse.Namespace, landing: Path, hidden:
     out.print(_ledger_table(result))
     _print_notes(result)
     total = result.ledger.total
+    # how long the run took and its rate: what a nightly job's window is sized by
+    took = f" ({_took(total.read, seconds)})" if seconds is not None else ""
     out.print(
-        f"ledger balanced: {total.read} rows read, {total.pending_in} carried in, every row accounted for"
+        f"ledger balanced: {total.read} rows read, {total.pending_in} carried in, every row accounted for{took}"
     )
     out.print(
         f"run {result.run} committed to {landing}: events in {landing / 'events'}"
@@ -377,6 +382,12 @@ def _report_run(result: Result, args: argparse.Namespace, landing: Path, hidden:
             else ""
         )
     )
+
+
+def _took(rows: int, seconds: float) -> str:
+    """``1.2 s, 31 rows/s``: a run's wall time and the rows it read per second."""
+    rate = f", {rows / seconds:,.0f} rows/s" if rows and seconds > 0 else ""
+    return f"{seconds:,.1f} s{rate}"
 
 
 def _print_notes(result: Result) -> None:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 import shutil
 from pathlib import Path
 
@@ -21,6 +22,8 @@ def test_demo_runs_and_balances(tmp_path: Path, capsys: pytest.CaptureFixture[st
     assert cli("demo", "--root", str(ROOT), "--out", str(tmp_path)) == 0
     text = capsys.readouterr().out
     assert "ledger balanced: 37 rows read" in text
+    # how long it took and the rate, what a nightly job's window is sized by
+    assert re.search(r"every row accounted for \([0-9.,]+ s, [0-9,]+ rows/s\)\n", text), text
     record = last_run(tmp_path)
     ledger = record["ledger"]
     assert ledger["balanced"] and ledger["total"]["read"] == 37

@@ -56,26 +56,31 @@ def expand_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> l
     """Files as given; a folder stands for the dump files directly inside it (and, with
     ``recursive``, in its sub-folders). A folder's sub-folders are never skipped silently:
     without ``recursive`` they are an error that says so. Hidden files and folders are left out."""
+    return gather_inputs(inputs, recursive=recursive)[0]
+
+
+def gather_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> tuple[list[Path], list[Path]]:
+    """``expand_inputs``'s files, and the hidden files (a name starting with a dot, or inside a
+    hidden folder) the given folders hold and it leaves out: partial copies by common practice (a
+    copy in progress under a dotted temporary name), said to the user rather than read or dropped
+    silently. One walk of each folder gives both."""
     out: list[Path] = []
+    hidden: list[Path] = []
     for raw in inputs:
         p = Path(raw)
         if p.is_dir():
-            if recursive:
-                found = sorted(
-                    c
-                    for c in p.rglob("*")
-                    if c.is_file() and not any(part.startswith(".") for part in c.relative_to(p).parts)
-                )
-                out.extend(found)
-                continue
-            subs = sorted(c.name for c in p.iterdir() if c.is_dir() and not c.name.startswith("."))
-            if subs:
-                raise InputError(
-                    f"this folder has sub-folders ({', '.join(subs[:5])}{', ...' if len(subs) > 5 else ''})",
-                    file=str(p),
-                    hint="add --recursive to read their files too, or name the files to read",
-                )
-            out.extend(sorted(c for c in p.iterdir() if c.is_file() and not c.name.startswith(".")))
+            if not recursive:
+                subs = sorted(c.name for c in p.iterdir() if c.is_dir() and not c.name.startswith("."))
+                if subs:
+                    raise InputError(
+                        f"this folder has sub-folders ({', '.join(subs[:5])}{', ...' if len(subs) > 5 else ''})",
+                        file=str(p),
+                        hint="add --recursive to read their files too, or name the files to read",
+                    )
+            found = sorted(c for c in (p.rglob("*") if recursive else p.iterdir()) if c.is_file())
+            for c in found:
+                dotted = any(part.startswith(".") for part in c.relative_to(p).parts)
+                (hidden if dotted else out).append(c)
         elif p.exists():
             out.append(p)
         else:
@@ -87,27 +92,7 @@ def expand_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> l
         if r not in seen:
             seen.add(r)
             unique.append(p)
-    return unique
-
-
-def hidden_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> list[Path]:
-    """The hidden files (a name starting with a dot, or inside a hidden folder) that the given
-    folders hold and ``expand_inputs`` leaves out: partial copies by common practice (a copy in
-    progress under a dotted temporary name), said to the user rather than read or dropped silently."""
-    out: list[Path] = []
-    for raw in inputs:
-        p = Path(raw)
-        if not p.is_dir():
-            continue
-        found = p.rglob("*") if recursive else p.iterdir()
-        out.extend(
-            sorted(
-                c
-                for c in found
-                if c.is_file() and any(part.startswith(".") for part in c.relative_to(p).parts)
-            )
-        )
-    return out
+    return unique, hidden
 
 
 def display_names(files: list[Path]) -> dict[Path, str]:

@@ -23,7 +23,7 @@ from cdcnorm import ledger as ledger_mod
 from cdcnorm import quarantine, zones
 from cdcnorm.engines.duckdb import DuckDBEngine, engine_errors
 from cdcnorm.errors import DriftError, LedgerError, RejectLimitError, UsageError, closest
-from cdcnorm.inputs import display_names, expand_inputs, hidden_inputs, route
+from cdcnorm.inputs import display_names, expand_inputs, gather_inputs, route
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.plan import Plan, RawRelation, Source
 from cdcnorm.readers import RawFile, RawTable, reader_for
@@ -335,12 +335,11 @@ def run(
         raise UsageError(f"unknown stage {stop_after!r}; stages are {', '.join(STAGE_NAMES)}")
     if options.fmt not in WRITERS:
         raise UsageError(f"unknown output format {options.fmt!r}; formats are {', '.join(WRITERS)}")
-    inputs = list(inputs)
-    files = expand_inputs(inputs, recursive=options.recursive)
+    files, hidden_files = gather_inputs(inputs, recursive=options.recursive)
     if not files and options.settle is None:
         raise UsageError("no input files given")
     routed = route(files, mappings)
-    hidden = [str(h) for h in hidden_inputs(inputs, recursive=options.recursive)]
+    hidden = [str(h) for h in hidden_files]
     with scratch_folder(options.scratch) as scratch, engine_errors(scratch):
         if not (options.write and options.out is not None and stop_after is None):
             result = _run(mappings, routed, options, scratch, stop_after, progress, strict_drift, None)

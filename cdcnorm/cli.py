@@ -216,13 +216,13 @@ def _progress_lines() -> Any:
     """Progress for a log (standard error not a terminal): a plain line at a step that starts
     LOG_EVERY seconds or more after the last line, so a short run prints none and a long one
     (a nightly job) shows where it is and its rates (before: nothing until the end)."""
-    started = time.monotonic()
-    last = [started]
+    started = last = time.monotonic()
 
     def update(label: str, done: int, total: int) -> None:
+        nonlocal last
         now = time.monotonic()
-        if now - last[0] >= LOG_EVERY:
-            last[0] = now
+        if now - last >= LOG_EVERY:
+            last = now
             err.print(f"cdcnorm: {now - started:.0f} s: {label}", markup=False, soft_wrap=True)
 
     return update

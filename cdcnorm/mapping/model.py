@@ -196,6 +196,11 @@ class CsvOptions(Strict):
             raise ValueError(f'unknown text encoding "{v}"; write e.g. utf-8, latin-1 or cp1252') from None
 
 
+def _covers(name: str, column: str) -> bool:
+    """Whether raw column name ``name`` is ``column`` or a nested object ``column`` is a member of."""
+    return column == name or column.startswith(name + ".")
+
+
 class Mapping(Strict):
     """One table: which dumps it reads, how changes are coded, and its typed fields."""
 
@@ -245,7 +250,7 @@ class Mapping(Strict):
         readers = {col: f"change.{role}" for role, col in self.change_columns().items()}
         readers |= {self.raw_column(f): f"field {f}" for f in self.fields}
         for name in self.unused:
-            read = [col for col in readers if col == name or col.startswith(name + ".")]
+            read = [col for col in readers if _covers(name, col)]
             if read:
                 raise ValueError(
                     f"unused lists raw column {name!r}, which {readers[read[0]]} reads "
@@ -255,7 +260,7 @@ class Mapping(Strict):
 
     def left_out(self, column: str) -> bool:
         """Whether ``unused`` lists this raw column (or a nested object it is a member of)."""
-        return any(column == u or column.startswith(u + ".") for u in self.unused)
+        return any(_covers(u, column) for u in self.unused)
 
     def raw_column(self, field: str) -> str:
         spec = self.fields[field]

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import fnmatch
 import hashlib
+from collections import Counter
 from collections.abc import Iterable, Sequence
 from pathlib import Path
 
@@ -96,8 +97,9 @@ def gather_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> t
 
 
 def display_names(files: list[Path]) -> dict[Path, str]:
-    names = [f.name for f in files]
-    return {f: (f.name if names.count(f.name) == 1 else f.as_posix()) for f in files}
+    """A file's name, or its path where two files share the name (counted once: thousands of files)."""
+    counts = Counter(f.name for f in files)
+    return {f: (f.name if counts[f.name] == 1 else f.as_posix()) for f in files}
 
 
 def checksum(path: Path) -> str:

@@ -38,6 +38,11 @@ def blocks(path: Path, size: int = BLOCK) -> Iterator[bytes]:
     """The file's bytes, decompressed, in blocks; a corrupt archive is an InputError naming it."""
     codec = compression(path)
     try:
+        if codec is None:  # the plain file: a tenth of the cost of a stream per call, for many small files
+            with open(path, "rb") as plain:
+                while block := plain.read(size):
+                    yield block
+            return
         with pa.input_stream(str(path), compression=codec) as stream:
             while True:
                 block = stream.read(size)

@@ -8,6 +8,7 @@ import gzip
 import io
 import json
 from pathlib import Path
+from typing import Any
 
 import pyarrow as pa
 import pyarrow.parquet as pq
@@ -224,6 +225,99 @@ def test_many_small_files_keep_their_record_numbers(convert: ConvertFn) -> None:
     assert all(e["origin"]["file"] == f"n{(e['key']['id'] - 1) // 2:04d}.csv" for e in events)
     ledger = done.ledger()
     assert ledger["balanced"] and ledger["total"]["read"] == 801 and ledger["total"]["quarantined"] == 1
+
+
+def _small_files(*, bad: bool) -> dict[str, str | bytes]:
+    """Small files of every shape a feed drops: LF and CRLF line ends, a BOM, quoted commas and
+    line breaks, blank lines, no final line end, a header alone, a compressed one; with ``bad``, a
+    record with a field too many, an unterminated quote, a CR-only file, bytes that are not UTF-8."""
+    files: dict[str, str | bytes] = {}
+    for i in range(20):
+        body = f'I,{3 * i + 1},{3 * i + 1},"x, ""{i}"""\nI,{3 * i + 2},{3 * i + 2},"two\nlines"\n\nI,{3 * i + 3},{3 * i + 3},\n'
+        files[f"n{i:03d}.csv"] = "op,pos,id,a\n" + body
+    for i in range(20, 38):  # CRLF, one without its last line end, one with a BOM
+        text = f'op,pos,id,a\r\nI,{3 * i + 1},{3 * i + 1},crlf\r\nI,{3 * i + 2},{3 * i + 2},"in\r\nside"\r\n'
+        files[f"n{i:03d}.csv"] = text.removesuffix("\r\n") if i == 21 else text
+    files["n022.csv"] = b"\xef\xbb\xbf" + str(files["n022.csv"]).encode()
+    files["n040.csv"] = "op,pos,id,a\n"
+    files["n041.csv.gz"] = gzip.compress(b"op,pos,id,a\nI,200,200,gz\n")
+    if bad:
+        files["n042.csv"] = "op,pos,id,a\nI,210,210,ok\nI,211,211,one,too many\nI,212,212,ok\n"
+        files["n043.csv"] = 'op,pos,id,a\nI,220,220,ok\nI,221,221,"open\nI,222,222,after\n'
+        files["n044.csv"] = "op,pos,id,a\rI,230,230,cr\rI,231,231,only\r"
+        files["n045.csv"] = b"op,pos,id,a\nI,240,240,caf\xe9\nI,241,241,fine\n"
+    return files
+
+
+@pytest.mark.parametrize("bad", [False, True])
+def test_small_files_read_together_as_read_one_by_one(
+    convert: ConvertFn, monkeypatch: pytest.MonkeyPatch, bad: bool
+) -> None:
+    # the same events, quarantine (record numbers, raw text) and ledger whether the small files
+    # are joined into one scan or each read by itself
+    from cdcnorm.readers import csv as csv_reader
+
+    joined_files: list[int] = []
+    join = csv_reader._joined
+
+    def counting(group: list[Any], *args: Any) -> list[Any]:
+        left = join(group, *args)
+        joined_files.append(len(group) - len(left))
+        return left
+
+    monkeypatch.setattr(csv_reader, "_joined", counting)
+    files = _small_files(bad=bad)
+    joined = convert(PLAIN, files)
+    # good files: every one but the header alone is read joined (LF, CRLF); a bad record sends its
+    # joined scan (the LF one) back to reading file by file
+    assert joined_files == [18 if bad else 39]
+    monkeypatch.setattr(csv_reader, "JOIN_MIN", 10**9)
+    alone = convert(PLAIN, files)
+    assert joined.events("t.notes") == alone.events("t.notes")
+    assert joined.quarantine("t.notes") == alone.quarantine("t.notes")
+    assert joined.ledger() == alone.ledger()
+    ledger = joined.ledger()
+    assert ledger["balanced"]
+    per_file = ledger["tables"]["t.notes"]["files"]
+    assert per_file["n001.csv"]["read"] == 3 and per_file["n040.csv"]["read"] == 0
+    assert ledger["total"]["read"] == (107 if bad else 97)
+    assert ledger["total"]["quarantined"] == (3 if bad else 0)
+    rows = {(e["origin"]["file"], e["origin"]["row"]) for e in joined.events("t.notes")}
+    assert ("n000.csv", 3) in rows and ("n021.csv", 2) in rows and ("n041.csv.gz", 1) in rows
+    if bad:
+        assert ("n043.csv", 3) in rows  # reading resumed after the unterminated quote
+
+
+def test_a_record_with_a_field_too_many_among_small_files(
+    convert: ConvertFn, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # one bad record sends its whole joined scan back to reading file by file: nothing is lost
+    files: dict[str, str | bytes] = {
+        f"n{i:03d}.csv": f"op,pos,id,a\nI,{i + 1},{i + 1},x\n" for i in range(30)
+    }
+    files["n007.csv"] = "op,pos,id,a\nI,8,8,x,extra\n"
+    done = convert(PLAIN, files)
+    assert done.ledger()["balanced"] and done.ledger()["total"]["read"] == 30
+    (bad,) = done.quarantine("t.notes")
+    assert bad["_cdcnorm"]["file"] == "n007.csv" and bad["_cdcnorm"]["row"] == 1
+    assert bad["_cdcnorm"]["text"] == "I,8,8,x,extra"
+    assert [e["origin"]["file"] for e in done.events("t.notes")] == [
+        f"n{i:03d}.csv" for i in range(30) if i != 7
+    ]
+
+
+def test_small_files_without_a_header_read_together(convert: ConvertFn) -> None:
+    mapping = PLAIN.replace("fields:", "csv: {header: false, columns: [op, pos, id, a]}\nfields:")
+    files: dict[str, str | bytes] = {
+        f"n{i:03d}.csv": f"I,{2 * i + 1},{2 * i + 1},x\nI,{2 * i + 2},{2 * i + 2},y\n" for i in range(20)
+    }
+    files["n005.csv"] = b"\xef\xbb\xbf" + str(files["n005.csv"]).encode()  # a BOM before the first record
+    done = convert(mapping, files)
+    events = done.events("t.notes")
+    assert [(e["origin"]["file"], e["origin"]["row"]) for e in events] == [
+        (f"n{i:03d}.csv", r) for i in range(20) for r in (1, 2)
+    ]
+    assert events[10]["values"] == {"id": 11, "a": "x"} and done.ledger()["total"]["read"] == 40
 
 
 @pytest.mark.parametrize(

@@ -401,6 +401,20 @@ class DuckDBEngine:
             f"{', '.join(f'r.{ident(c)}' for c in columns)} FROM {ident(table)} r JOIN {values} ON r.__fname = f.path"
         )
 
+    def number_joined_rows(
+        self, view: str, table: str, firsts: list[tuple[int, int]], columns: list[str]
+    ) -> None:
+        """A view of a table scanned from several files joined into one, with file ids and record
+        numbers, given each file's id and first rowid (in rowid order): a row belongs to the file
+        with the greatest first rowid at or below its own."""
+        values = "(VALUES " + ", ".join(f"({i}, {lo})" for i, lo in firsts) + ") f(id, base)"
+        self.con.execute(
+            f"CREATE TEMP VIEW {ident(view)} AS SELECT CAST(f.id AS INTEGER) AS __file, "
+            f"CAST(r.rowid - f.base + 1 AS BIGINT) AS __row, CAST(NULL AS VARCHAR) AS __enc, "
+            f"{', '.join(f'r.{ident(c)}' for c in columns)} FROM {ident(table)} r ASOF JOIN {values} "
+            "ON r.rowid >= f.base"
+        )
+
     def load_batches(self, table: str, batches: pa.RecordBatchReader, select: str = "*") -> None:
         """Stream record batches into a new table (the engine pulls them; nothing is held whole)."""
         self.con.register("__incoming_batches", batches)

@@ -271,16 +271,24 @@ def test_json_lines_structure_is_the_merge_of_every_object(objects: list[dict[st
 
     engine = DuckDBEngine()
     lines = [json.dumps(o).encode() for o in objects]
+    files = [i % 2 for i in range(len(lines))]  # two files read in one scan: merged each by itself
     batch = pa.RecordBatch.from_arrays(
-        [pa.array(lines, pa.large_binary()), pa.array(range(1, len(lines) + 1), pa.int64())], schema=LINES
+        [
+            pa.array(lines, pa.large_binary()),
+            pa.array(range(1, len(lines) + 1), pa.int64()),
+            pa.array(files, pa.int32()),
+        ],
+        schema=LINES,
     )
     engine.load_batches("lines", pa.RecordBatchReader.from_batches(LINES, iter([batch])))
     engine.create_malformed("bad")
-    merged = engine.split_json_lines("lines", "ok", "bad", 0)
-    (every,) = engine.rows("SELECT json_group_structure(j) FROM ok")[0]
-    assert (None if merged is None else json.loads(merged)) == (
-        None if every is None else json.loads(str(every))
-    )
+    merged = engine.split_json_lines("lines", "ok", "bad")
+    every = dict(engine.rows("SELECT __file, json_group_structure(j) FROM ok GROUP BY __file"))
+    for file_id in (0, 1):
+        mine, oracle = merged.get(file_id), every.get(file_id)
+        assert (None if mine is None else json.loads(mine)) == (
+            None if oracle is None else json.loads(str(oracle))
+        )
 
 
 def test_a_struct_member_the_file_lacks_is_drift_with_its_members_suggested(

@@ -306,6 +306,105 @@ def test_a_record_with_a_field_too_many_among_small_files(
     ]
 
 
+def _small_json_files() -> dict[str, str | bytes]:
+    """Small JSON Lines files that differ: columns one file has and another lacks (mapped and not),
+    a nested object, a malformed line, bytes that are not UTF-8, blank lines, an empty file, a
+    compressed one, a repeated member name."""
+    files: dict[str, str | bytes] = {}
+    for i in range(20):
+        rows = [
+            {"op": "I", "pos": 2 * i + 1, "id": 2 * i + 1, "a": f"x{i}"},
+            {"op": "I", "pos": 2 * i + 2, "id": 2 * i + 2},
+        ]
+        if i % 3 == 0:
+            rows[0]["extra"] = {"deep": [1, 2]}  # a column read by no field, in some files only
+        if i % 4 == 0:
+            rows[1]["a"] = None
+        files[f"n{i:03d}.jsonl"] = "".join(json.dumps(r) + "\n" for r in rows) + ("\n" if i % 5 == 0 else "")
+    files["n020.jsonl"] = '{"op": "I", "pos": 100, "id": 100, "a": "ok"}\nnot json\n[1, 2]\n'
+    files["n021.jsonl"] = (
+        b'{"op": "I", "pos": 101, "id": 101, "a": "caf\xe9"}\n{"op": "I", "pos": 102, "id": 102, "a": "b"}\n'
+    )
+    files["n022.jsonl"] = ""
+    files["n023.jsonl.gz"] = gzip.compress(b'{"op": "I", "pos": 103, "id": 103, "a": "gz"}\n')
+    files["n024.jsonl"] = '{"op": "I", "pos": 104, "id": 104, "a": "one", "a": "two"}\n'
+    files["n025.jsonl"] = '{"op": "I", "pos": 105, "id": 105, "a": 1.50}\n'  # a number kept as written
+    return files
+
+
+def test_small_json_lines_files_read_together_as_read_one_by_one(
+    convert: ConvertFn, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from cdcnorm.readers import jsonl
+
+    scans: list[int] = []
+    read = jsonl._read
+
+    def counting(files: list[Any], *args: Any) -> None:
+        scans.append(len(files))
+        read(files, *args)
+
+    monkeypatch.setattr(jsonl, "_read", counting)
+    files = _small_json_files()
+    together = convert(PLAIN, files)
+    assert scans == [26]  # one scan for every file
+    monkeypatch.setattr(jsonl, "JOIN_MIN", 10**9)
+    alone = convert(PLAIN, files)
+    assert scans[1:] == [1] * 26
+    assert together.events("t.notes") == alone.events("t.notes")
+    assert together.quarantine("t.notes") == alone.quarantine("t.notes")
+    assert together.ledger() == alone.ledger()
+    record, record_alone = last_run(together.out), last_run(alone.out)
+    assert record["notes"] == record_alone["notes"]  # the unread column noted for its files only
+    assert any("extra" in n["note"] and n["file"] == "n000.jsonl" for n in record["notes"])
+    assert not any("extra" in n["note"] and n["file"] == "n001.jsonl" for n in record["notes"])
+    ledger = together.ledger()
+    assert ledger["balanced"] and ledger["total"]["quarantined"] == 4
+    by_id = {e["key"]["id"]: e for e in together.events("t.notes")}
+    assert by_id[105]["values"]["a"] == "1.50" and by_id[2]["values"]["a"] is None
+    assert by_id[103]["origin"] == {"file": "n023.jsonl.gz", "row": 1}
+
+
+def test_many_parquet_files_of_two_schemas_read_as_the_same_rows_in_csv(convert: ConvertFn) -> None:
+    # files of one schema are read in one scan; the reader's own columns (the file name) never
+    # take a name a file has: "file_row_number", "filename" and "__fname" are ordinary columns
+    parquet: dict[str, str | bytes] = {}
+    csv: dict[str, str | bytes] = {}
+    for i in range(24):
+        rows = [("I", str(2 * i + 1), str(2 * i + 1), f"p{i}"), ("I", str(2 * i + 2), str(2 * i + 2), None)]
+        extra = ["file_row_number", "filename"] if i % 2 else ["__fname"]
+        table = pa.table(
+            {
+                "op": [r[0] for r in rows],
+                "pos": [r[1] for r in rows],
+                "id": [r[2] for r in rows],
+                "a": [r[3] for r in rows],
+                **{name: ["odd", "odd"] for name in extra},
+            }
+        )
+        buf = io.BytesIO()
+        pq.write_table(table, buf)
+        parquet[f"n{i:03d}.parquet"] = buf.getvalue()
+        csv[f"n{i:03d}.csv"] = "op,pos,id,a\n" + "".join(",".join(r[:3]) + f",{r[3] or ''}\n" for r in rows)
+    buf = io.BytesIO()
+    pq.write_table(pa.table({c: pa.array([], pa.string()) for c in ("op", "pos", "id", "a")}), buf)
+    parquet["n900.parquet"] = buf.getvalue()
+    mapping = PLAIN.replace('files: ["n*"]', 'files: ["n*"]\nnulls: [""]')
+    got = convert(mapping, parquet)
+    want = convert(mapping, csv)
+    strip = [
+        (e["key"], e["values"], e["origin"]["file"].split(".")[0], e["origin"]["row"])
+        for e in want.events("t.notes")
+    ]
+    assert [
+        (e["key"], e["values"], e["origin"]["file"].split(".")[0], e["origin"]["row"])
+        for e in got.events("t.notes")
+    ] == strip
+    ledger = got.ledger()
+    assert ledger["balanced"] and ledger["total"]["read"] == 48
+    assert ledger["tables"]["t.notes"]["files"]["n900.parquet"]["read"] == 0
+
+
 def test_small_files_without_a_header_read_together(convert: ConvertFn) -> None:
     mapping = PLAIN.replace("fields:", "csv: {header: false, columns: [op, pos, id, a]}\nfields:")
     files: dict[str, str | bytes] = {

@@ -12,7 +12,7 @@ import json
 import os
 import re
 import secrets
-from collections.abc import Iterator, Sequence
+from collections.abc import Collection, Iterator, Sequence
 from importlib import metadata
 from pathlib import Path
 from typing import Any
@@ -489,14 +489,16 @@ class DuckDBEngine:
     def load_parquet_as_text(
         self,
         table: str,
-        path: Path,
-        file_id: int,
+        paths: list[str],
         columns: list[tuple[tuple[str, ...], str, str]],
         nulls: list[str],
-    ) -> None:
-        """Load a Parquet file with every value as text: BLOB as hex, structs, lists and maps as JSON
-        text; a text equal to a null token is NULL. ``columns`` are (engine keys, type, internal
-        name), engine keys as ``scan_parquet`` gives them."""
+        taken: Collection[str] = (),
+    ) -> dict[str, tuple[int, int, int]]:
+        """Load Parquet files of one schema, in one scan, with every value as text: BLOB as hex,
+        structs, lists and maps as JSON text; a text equal to a null token is NULL. ``columns``
+        are (engine keys, type, internal name), engine keys as ``scan_parquet`` gives them;
+        ``taken`` the files' own column names. The table has ``__fname``, the internal columns
+        and the rows in file order; returns, per path, (rows, first rowid, last rowid)."""
 
         def as_text(col: str, typ: str) -> str:
             if typ == "BLOB":
@@ -507,21 +509,30 @@ class DuckDBEngine:
                 return f"CASE WHEN {col} IN ({', '.join(lit(t) for t in nulls)}) THEN NULL ELSE {col} END"
             return f"CAST({col} AS VARCHAR)"
 
+        # the reader adds the file's name as a column: under a name no file has
+        fname = "__fname"
+        while fname in taken:
+            fname += "_"
         parts = "".join(f", {as_text(parquet_member(k), t)} AS {ident(i)}" for k, t, i in columns)
         self.con.execute(
-            f"CREATE TEMP TABLE {ident(table)} AS SELECT CAST({file_id} AS INTEGER) AS __file, "
-            f"CAST(file_row_number + 1 AS BIGINT) AS __row, CAST(NULL AS VARCHAR) AS __enc{parts} "
-            f"FROM read_parquet({lit(str(path))}, file_row_number = true)"
+            f"CREATE TEMP TABLE {ident(table)} AS SELECT {ident(fname)} AS __fname{parts} "
+            f"FROM read_parquet([{', '.join(lit(p) for p in paths)}], filename = {lit(fname)})"
         )
+        return {
+            str(p): (int(n), int(lo), int(hi))
+            for p, n, lo, hi in self.rows(
+                f"SELECT __fname, count(*), min(rowid), max(rowid) FROM {ident(table)} GROUP BY __fname"
+            )
+        }
 
     def split_json_lines(
-        self, lines: str, ok: str, malformed: str, file_id: int, nested: Sequence[tuple[str, ...]] = ()
-    ) -> str | None:
-        """Lines (``__row``, ``raw`` bytes) -> malformed lines appended to ``malformed`` (not UTF-8,
-        not RFC 8259 JSON, not an object, an object that repeats a member name at the top or in
-        one of the ``nested`` objects (key paths) a mapped column is read from; blank lines are not
-        records) and the JSON objects in ``ok`` (``__row``, ``j``). Returns the merged structure
-        of the objects (JSON text)."""
+        self, lines: str, ok: str, malformed: str, nested: Sequence[tuple[str, ...]] = ()
+    ) -> dict[int, str]:
+        """Lines (``__file``, ``__row``, ``raw`` bytes) -> malformed lines appended to ``malformed``
+        (not UTF-8, not RFC 8259 JSON, not an object, an object that repeats a member name at the
+        top or in one of the ``nested`` objects (key paths) a mapped column is read from; blank
+        lines are not records) and the JSON objects in ``ok`` (``__file``, ``__row``, ``j``).
+        Returns the merged structure of each file's objects (JSON text) by file id."""
         src = ident(lines)
         from cdcnorm.types.json import (
             json_path,
@@ -538,14 +549,14 @@ class DuckDBEngine:
         # the bytes are kept only where they are not UTF-8 (the malformed line shows them base64):
         # not a second copy of every line
         decoded = (
-            f"SELECT __row, line, CASE WHEN line IS NULL THEN raw END AS raw FROM (SELECT __row, "
+            f"SELECT __file, __row, line, CASE WHEN line IS NULL THEN raw END AS raw FROM (SELECT __file, __row, "
             f"rtrim(try(decode(raw)), chr(13)) AS line, raw FROM {src}) "
             "WHERE NOT regexp_full_match(coalesce(line, 'x'), '\\s*')"
         )
         # read only where json_valid holds (rfc8259 and the risky numbers of the valid lines)
         outside = f"SELECT *, {outside_strings_of_valid('line')} AS outside FROM ({decoded})"
         valid = f"coalesce({rfc8259('line', 'outside')}, FALSE)"
-        strict = f"SELECT __row, line, raw, {valid} AS valid, {risky_numbers('line', 'outside')} AS risky FROM ({outside})"
+        strict = f"SELECT __file, __row, line, raw, {valid} AS valid, {risky_numbers('line', 'outside')} AS risky FROM ({outside})"
         kind = f"SELECT *, CASE WHEN valid THEN json_type(line) END AS kind FROM ({strict})"
         # A repeated name makes a column ambiguous: at the top level, and in every object on the
         # way to a mapped nested column (``row`` for ``row.id``); other nested values are kept as
@@ -566,7 +577,7 @@ class DuckDBEngine:
         )
         text = ident(lines + "_text")
         self.con.execute(
-            f"INSERT INTO {ident(malformed)} SELECT {file_id}, __row, "
+            f"INSERT INTO {ident(malformed)} SELECT __file, __row, "
             "CASE WHEN line IS NULL THEN to_base64(raw) ELSE line END, "
             "CASE WHEN line IS NULL THEN 'not UTF-8 (text shown base64)' "
             "WHEN NOT valid THEN 'not valid JSON (RFC 8259)' "
@@ -576,7 +587,7 @@ class DuckDBEngine:
             f"END FROM {text} WHERE line IS NULL OR NOT valid OR kind <> 'OBJECT' OR repeated IS NOT NULL"
         )
         self.con.execute(
-            f"CREATE OR REPLACE TEMP TABLE {ident(ok)} AS SELECT __row, "
+            f"CREATE OR REPLACE TEMP TABLE {ident(ok)} AS SELECT __file, __row, "
             f"CAST({tag_numbers('line', self.number_tag, 'risky')} AS JSON) AS j FROM {text} "
             "WHERE valid AND kind = 'OBJECT' AND repeated IS NULL"
         )
@@ -585,26 +596,32 @@ class DuckDBEngine:
         # (an object adds only its structure to the merge), but json_group_structure keeps every
         # object it merges in memory the engine cannot spill (about 1.3 KiB per object here: 3 GB
         # at 2.5M lines), while a row's own structure is computed and grouped within the limit.
-        structure = self.rows(
-            f"SELECT json_group_structure(one) FROM (SELECT any_value(j) AS one FROM {ident(ok)} "
-            "GROUP BY json_structure(j))"
-        )[0][0]
-        return None if structure is None else str(structure)
+        return {
+            int(file_id): str(structure)
+            for file_id, structure in self.rows(
+                f"SELECT __file, json_group_structure(one) FROM (SELECT __file, any_value(j) AS one "
+                f"FROM {ident(ok)} GROUP BY __file, json_structure(j)) GROUP BY __file"
+            )
+            if structure is not None
+        }
 
     def json_columns(
-        self, table: str, ok: str, file_id: int, paths: list[tuple[str, str]], nulls: list[str]
+        self, table: str, ok: str, paths: list[tuple[str, str, list[int] | None]], nulls: list[str]
     ) -> None:
-        """JSON objects -> one text column per (JSON path, internal name); a string equal to a
-        null token is NULL; objects and arrays stay JSON text."""
+        """JSON objects -> one text column per (JSON path, internal name, the ids of the files
+        that have the column, or None for every file: another file's rows have no value in it);
+        a string equal to a null token is NULL; objects and arrays stay JSON text."""
         from cdcnorm.types.json import untag
 
         # every path in one extraction (the object is parsed once, not once per column)
-        listed = "[" + ", ".join(lit(path) for path, _ in paths) + "]"
+        listed = "[" + ", ".join(lit(path) for path, _, _ in paths) + "]"
         parts = []
-        for i, (_, col) in enumerate(paths, start=1):
+        for i, (_, col, having) in enumerate(paths, start=1):
             v = untag(f"o.__cells[{i}]", self.number_tag)
             if nulls:
                 v = f"CASE WHEN {v} IN ({', '.join(lit(t) for t in nulls)}) THEN NULL ELSE {v} END"
+            if having is not None:
+                v = f"CASE WHEN o.__file IN ({', '.join(map(str, having))}) THEN {v} END"
             parts.append(f", {v} AS {ident(col)}")
         # A quarantine line fed back keeps the bytes of cells that were not UTF-8 under
         # _cdcnorm.raw_base64, the cell itself null: while it is still null (not fixed), the cell
@@ -612,14 +629,14 @@ class DuckDBEngine:
         # Only those (few) objects are looked at: the subquery would otherwise run for every row.
         rb = "json_extract(j, '$._cdcnorm.raw_base64')"
         enc = (
-            f"SELECT __row, (SELECT CASE WHEN count(*) > 0 THEN "
+            f"SELECT __file, __row, (SELECT CASE WHEN count(*) > 0 THEN "
             f"CAST(to_json(map(list(k), list(json_extract_string({rb}, k)))) AS VARCHAR) END "
             f"FROM unnest(json_keys({rb})) t(k) WHERE coalesce(json_type(json_extract(j, k)), 'NULL') = 'NULL') AS __enc "
             f"FROM {ident(ok)} WHERE json_type({rb}) = 'OBJECT'"
         )
         cells = f"json_extract_string(j, {listed})" if paths else "CAST([] AS VARCHAR[])"
         self.con.execute(
-            f"CREATE TEMP TABLE {ident(table)} AS SELECT CAST({file_id} AS INTEGER) AS __file, o.__row, "
-            f"e.__enc{''.join(parts)} FROM (SELECT __row, {cells} AS __cells FROM {ident(ok)}) o "
-            f"LEFT JOIN ({enc}) e ON e.__row = o.__row"
+            f"CREATE TEMP TABLE {ident(table)} AS SELECT CAST(o.__file AS INTEGER) AS __file, o.__row, "
+            f"e.__enc{''.join(parts)} FROM (SELECT __file, __row, {cells} AS __cells FROM {ident(ok)}) o "
+            f"LEFT JOIN ({enc}) e ON e.__file = o.__file AND e.__row = o.__row"
         )

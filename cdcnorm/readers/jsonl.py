@@ -24,11 +24,16 @@ from cdcnorm.errors import InputError
 from cdcnorm.mapping.model import Mapping
 from cdcnorm.readers import streams
 from cdcnorm.readers.base import MAX_RECORD_BYTES, RawFile, RawTable
+from cdcnorm.sql import ident
 from cdcnorm.types.json import json_path
 
 FORMAT = "jsonl"
 SUFFIXES = (".jsonl", ".ndjson")
-LINES = pa.schema([("raw", pa.large_binary()), ("__row", pa.int64())])
+LINES = pa.schema([("raw", pa.large_binary()), ("__row", pa.int64()), ("__file", pa.int32())])
+#: Files of at most this size are read together, as one scan, when a table has at least JOIN_MIN
+#: of them (each scan costs tens of milliseconds of statements, whatever its size).
+SMALL_FILE = 1 << 20
+JOIN_MIN = 16
 
 
 def _paths(structure: Any, leaves: set[str], prefix: tuple[str, ...] = ()) -> list[tuple[str, ...]]:
@@ -45,6 +50,12 @@ def _batches(f: RawFile) -> Iterator[pa.RecordBatch]:
     """The file's lines with their numbers, a block at a time (split by Arrow, not a Python loop)."""
     carry = b""
     number = 0
+
+    def batch(lines: pa.Array, first: int) -> pa.RecordBatch:
+        rows = pa.array(np.arange(first, first + len(lines), dtype=np.int64))
+        ids = pa.array(np.full(len(lines), f.file_id, dtype=np.int32))
+        return pa.RecordBatch.from_arrays([lines, rows, ids], schema=LINES)
+
     for block in streams.blocks(f.path):
         data = carry + block
         cut = data.rfind(b"\n")
@@ -58,21 +69,25 @@ def _batches(f: RawFile) -> Iterator[pa.RecordBatch]:
             continue
         carry = data[cut + 1 :]
         lines = pc.list_flatten(pc.split_pattern(pa.array([data[:cut]], pa.large_binary()), b"\n"))
-        rows = pa.array(np.arange(number + 1, number + 1 + len(lines), dtype=np.int64))
+        yield batch(lines, number + 1)
         number += len(lines)
-        yield pa.RecordBatch.from_arrays([lines, rows], schema=LINES)
     if carry:
-        yield pa.RecordBatch.from_arrays(
-            [pa.array([carry], pa.large_binary()), pa.array([number + 1], pa.int64())], schema=LINES
-        )
+        yield batch(pa.array([carry], pa.large_binary()), number + 1)
 
 
 def read_files(
     files: list[RawFile], mapping: Mapping, engine: DuckDBEngine, raw: RawTable, scratch: Path
 ) -> None:
+    """Each large file by itself; small files (when there are many) together, as one scan."""
+    small = [f for f in files if f.path.stat().st_size <= SMALL_FILE]
+    if len(small) < JOIN_MIN:
+        small = []
     for f in files:
         f.format = FORMAT
-        _read(f, mapping, engine, raw)
+        if f not in small:
+            _read([f], mapping, engine, raw)
+    if small:
+        _read(small, mapping, engine, raw)
 
 
 def _guarded(batches: Iterator[pa.RecordBatch], failure: list[InputError]) -> Iterator[pa.RecordBatch]:
@@ -84,26 +99,13 @@ def _guarded(batches: Iterator[pa.RecordBatch], failure: list[InputError]) -> It
         failure.append(e)
 
 
-def _read(f: RawFile, mapping: Mapping, engine: DuckDBEngine, raw: RawTable) -> None:
-    lines = f"{raw.slug}__jsonl_lines"
-    ok = f"{raw.slug}__jsonl_ok"
-    failure: list[InputError] = []
-    engine.load_batches(lines, pa.RecordBatchReader.from_batches(LINES, _guarded(_batches(f), failure)))
-    if failure:
-        engine.drop(lines)
-        raise failure[0]
-    malformed = raw.ensure_malformed(engine)
-    # the objects on the way to a mapped nested column: a name repeated in one is ambiguous too
-    structure_text = engine.split_json_lines(lines, ok, malformed, f.file_id, mapping.read_through())
-    engine.drop(lines)
-    f.malformed = engine.count(malformed, f"__file = {f.file_id}")
-    f.rows = engine.count(ok)
-    f.columns_known = f.rows > 0
-    if f.rows == 0 and f.malformed == 0:
-        f.empty = True
-        f.notes.append("the file is empty")
-        engine.drop(ok)
-        return
+def _lines_of(files: list[RawFile]) -> Iterator[pa.RecordBatch]:
+    for f in files:
+        yield from _batches(f)
+
+
+def _columns(f: RawFile, structure_text: str | None, mapping: Mapping) -> list[tuple[str, ...]]:
+    """The file's columns as key paths, from the merged structure of its objects."""
     structure = json.loads(structure_text) if structure_text else {}
     paths = _paths(structure, set(mapping.mapped_columns()))
     columns = [".".join(p) for p in paths]
@@ -117,12 +119,52 @@ def _read(f: RawFile, mapping: Mapping, engine: DuckDBEngine, raw: RawTable) -> 
     dupes = sorted({c for c in columns if columns.count(c) > 1})
     if dupes:
         raise InputError(f"nested keys flatten to the same column names {dupes}", file=str(f.path))
-    f.columns = columns
-    internal = [raw.internal(c) for c in columns]
+    return paths
+
+
+def _read(files: list[RawFile], mapping: Mapping, engine: DuckDBEngine, raw: RawTable) -> None:
+    """Read files in one scan: their lines, the checks of every line, and the columns of each file
+    (a file's rows have no value in a column only another file of the scan has)."""
+    lines = f"{raw.slug}__jsonl_lines"
+    ok = f"{raw.slug}__jsonl_ok"
+    failure: list[InputError] = []
+    engine.load_batches(lines, pa.RecordBatchReader.from_batches(LINES, _guarded(_lines_of(files), failure)))
+    if failure:
+        engine.drop(lines)
+        raise failure[0]
+    malformed = raw.ensure_malformed(engine)
+    # the objects on the way to a mapped nested column: a name repeated in one is ambiguous too
+    structures = engine.split_json_lines(lines, ok, malformed, mapping.read_through())
+    engine.drop(lines)
+    ids = ", ".join(str(f.file_id) for f in files)
+    bad = dict(
+        engine.rows(f"SELECT __file, count(*) FROM {ident(malformed)} WHERE __file IN ({ids}) GROUP BY ALL")
+    )
+    good = dict(engine.rows(f"SELECT __file, count(*) FROM {ident(ok)} GROUP BY ALL"))
+    read: dict[str, tuple[str, list[int]]] = {}  # column -> (JSON path, the files that have it)
+    for f in files:
+        f.malformed = int(bad.get(f.file_id, 0))
+        f.rows = int(good.get(f.file_id, 0))
+        f.columns_known = f.rows > 0
+        if f.rows == 0 and f.malformed == 0:
+            f.empty = True
+            f.notes.append("the file is empty")
+            continue
+        paths = _columns(f, structures.get(f.file_id), mapping)
+        f.columns = [".".join(p) for p in paths]
+        for p, c in zip(paths, f.columns, strict=True):
+            read.setdefault(raw.internal(c), (json_path(p), []))[1].append(f.file_id)
+    if not any(f.rows for f in files):
+        engine.drop(ok)
+        return
     tokens = [t for t in mapping.nulls if t != ""]
     rel = raw.relation("jsonl")
+    every = len([f for f in files if f.rows])
     engine.json_columns(
-        rel, ok, f.file_id, [(json_path(p), c) for p, c in zip(paths, internal, strict=True)], tokens
+        rel,
+        ok,
+        [(path, col, None if len(having) == every else having) for col, (path, having) in read.items()],
+        tokens,
     )
     engine.drop(ok)
-    raw.add_relation(rel, internal)
+    raw.add_relation(rel, list(read))

@@ -77,41 +77,87 @@ def _check_members(schema: pa.Schema, nested: list[tuple[str, ...]], path: Path)
 def read_files(
     files: list[RawFile], mapping: Mapping, engine: DuckDBEngine, raw: RawTable, scratch: Path
 ) -> None:
-    tokens = [t for t in mapping.nulls if t != ""]
+    """Files of one schema are read in one scan (thousands of small files cost one, not one each)."""
+    nested = [tuple(c.split(".")) for c in mapping.mapped_columns() if "." in c]
+    described: dict[str, list[tuple[tuple[str, ...], str, tuple[str, ...]]]] = {}
+    groups: dict[tuple[tuple[tuple[str, ...], str, tuple[str, ...]], ...], list[RawFile]] = {}
     for f in files:
         f.format = FORMAT
-        rel = raw.relation("parquet")
-        try:
-            nested = [tuple(c.split(".")) for c in mapping.mapped_columns() if "." in c]
-            schema = _own_schema(f.path)
-            own = list(schema.names) if schema is not None else None
-            if schema is not None:
-                _check_members(schema, nested, f.path)
-            repeated = sorted(n for n, k in Counter(own or []).items() if k > 1)
-            if repeated:  # as a CSV header that repeats a name: which one a mapping means is unknown
-                raise InputError(
-                    f"the file's schema repeats column names {repeated}",
-                    file=str(f.path),
-                    expected="each column name once",
-                    found=", ".join(own or []),
-                )
-            cols = engine.scan_parquet(f.path, nested, own)
-            f.columns = [".".join(k) for k, _, _ in cols]
-            f.members = [m for k, t, _ in cols if t.startswith("STRUCT") for m in _members(k[0], t)]
-            internal = [raw.internal(c) for c in f.columns]
-            engine.load_parquet_as_text(
-                rel,
-                f.path,
-                f.file_id,
-                [(e, t, i) for (_, t, e), i in zip(cols, internal, strict=True)],
-                tokens,
-            )
-        except duckdb.Error as e:
+        schema = _own_schema(f.path)
+        own = list(schema.names) if schema is not None else None
+        if schema is not None:
+            _check_members(schema, nested, f.path)
+        repeated = sorted(n for n, k in Counter(own or []).items() if k > 1)
+        if repeated:  # as a CSV header that repeats a name: which one a mapping means is unknown
             raise InputError(
-                f"cannot read this Parquet file: {str(e).splitlines()[0]}", file=str(f.path)
-            ) from None
-        f.rows = engine.count(rel)
+                f"the file's schema repeats column names {repeated}",
+                file=str(f.path),
+                expected="each column name once",
+                found=", ".join(own or []),
+            )
+        # the engine describes each schema once: files that state the same one read the same
+        seen = (
+            None
+            if schema is None
+            else schema.to_string(show_field_metadata=False, show_schema_metadata=False)
+        )
+        try:
+            cols = described[seen] if seen in described else engine.scan_parquet(f.path, nested, own)
+        except duckdb.Error as e:
+            raise _unreadable(f, e) from None
+        if seen is not None:
+            described[seen] = cols
+        f.columns = [".".join(k) for k, _, _ in cols]
+        f.members = [m for k, t, _ in cols if t.startswith("STRUCT") for m in _members(k[0], t)]
+        groups.setdefault(tuple(cols), []).append(f)
+    tokens = [t for t in mapping.nulls if t != ""]
+    for shape, group in groups.items():
+        internal = [raw.internal(".".join(k)) for k, _, _ in shape]
+        _load(group, list(shape), internal, tokens, engine, raw)
+
+
+def _unreadable(f: RawFile, e: duckdb.Error) -> InputError:
+    return InputError(f"cannot read this Parquet file: {str(e).splitlines()[0]}", file=str(f.path))
+
+
+def _load(
+    group: list[RawFile],
+    cols: list[tuple[tuple[str, ...], str, tuple[str, ...]]],
+    internal: list[str],
+    tokens: list[str],
+    engine: DuckDBEngine,
+    raw: RawTable,
+) -> None:
+    staged = raw.relation("parquet")
+    paths = {str(f.path): f for f in group}
+    try:
+        spans = engine.load_parquet_as_text(
+            staged,
+            list(paths),
+            [(e, t, i) for (_, t, e), i in zip(cols, internal, strict=True)],
+            tokens,
+            {k[0] for k, _, _ in cols},
+        )
+    except duckdb.Error as e:
+        engine.drop(staged)
+        if len(group) == 1:
+            raise _unreadable(group[0], e) from None
+        for f in group:  # find the file the engine cannot read
+            _load([f], cols, internal, tokens, engine, raw)
+        return
+    good = []
+    for p, f in paths.items():
+        f.rows, lo, hi = spans.get(p, (0, 0, -1))
+        if f.rows and hi - lo + 1 != f.rows:
+            raise InputError("the engine did not keep this file's rows in order", file=p)
         f.empty = f.rows == 0
         if f.empty:
             f.notes.append("the file has no rows")
-        raw.add_relation(rel, internal)
+        else:
+            good.append((p, f.file_id, lo))
+    if good:
+        view = f"{staged}_rows"
+        engine.number_rows(view, staged, good, internal)
+        raw.add_relation(view, internal)
+    else:
+        engine.drop(staged)

@@ -12,7 +12,8 @@ operating system's accounting) are reported, best of ``--repeat`` runs:
   and its cross-check on);
 - convert-jsonl: ``cdcnorm convert --format jsonl``;
 - at ``--limited`` sizes: ``convert --format parquet --memory-limit 1GB``, once;
-- ``--small-files N``: N files of two rows each, converted in one run.
+- ``--small-files N``: N files of two rows each, converted in one run, as CSV, JSON Lines and
+  Parquet files.
 
     python tests/bench/bench_convert.py --rows 1000000 5000000 --limited 20000000 --small-files 3000
 """
@@ -142,28 +143,55 @@ def bench_limited(rows: int, limit: str, keep: Path | None) -> dict[str, object]
     return entry
 
 
-def bench_small_files(count: int) -> dict[str, object]:
-    work = Path(tempfile.mkdtemp(prefix="cdcnorm-bench-small-"))
-    dumpgen.write_mapping(work / "mappings")
-    dumps = work / "dumps"
-    dumps.mkdir()
-    header = '"__$operation","__$start_lsn","__$seqval","__$commit_time","delivery_id","recipient","locker","fee","parcels","weight_kg","dropped_at","state","express","note"\n'
-    for i in range(count):
-        rows = "".join(
-            f"2,0x{2 * i + j:020X},0x{j:020X},2026-01-01T00:00:00Z,{2 * i + j},Åsa,L-1,1.00,1,1.5,"
-            f'2026-01-01T00:00:00Z,booked,true,"a, b"\n'
-            for j in range(2)
+#: The column names of the small files, as dumpgen's mapping reads them.
+SMALL_NAMES = ["__$operation", "__$start_lsn", "__$seqval", "__$commit_time", "delivery_id", "recipient"]
+SMALL_NAMES += ["locker", "fee", "parcels", "weight_kg", "dropped_at", "state", "express", "note"]
+
+
+def _small_row(i: int, j: int) -> list[str]:
+    """Row ``j`` of small file ``i``: an insert with its own position and key."""
+    head = ["2", f"0x{2 * i + j:020X}", f"0x{j:020X}", "2026-01-01T00:00:00Z", str(2 * i + j), "Åsa", "L-1"]
+    return [*head, "1.00", "1", "1.5", "2026-01-01T00:00:00Z", "booked", "true", "a, b"]
+
+
+def bench_small_files(count: int) -> list[dict[str, object]]:
+    """``count`` files of two rows each, converted in one run: the same rows as CSV, as JSON Lines
+    and as Parquet files."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    names = SMALL_NAMES
+    results = []
+    for fmt in ("csv", "jsonl", "parquet"):
+        work = Path(tempfile.mkdtemp(prefix="cdcnorm-bench-small-"))
+        dumpgen.write_mapping(work / "mappings")
+        mapping = work / "mappings" / "deliveries.yaml"
+        mapping.write_text(mapping.read_text().replace("deliveries-*.csv*", f"deliveries-*.{fmt}"))
+        dumps = work / "dumps"
+        dumps.mkdir()
+        for i in range(count):
+            rows = [_small_row(i, j) for j in range(2)]
+            path = dumps / f"deliveries-{i:05d}.{fmt}"
+            if fmt == "csv":
+                lines = [",".join(f'"{n}"' for n in names)] + [",".join(f'"{v}"' for v in r) for r in rows]
+                path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+            elif fmt == "jsonl":
+                path.write_text("".join(json.dumps(dict(zip(names, r, strict=True))) + "\n" for r in rows))
+            else:
+                pq.write_table(pa.table({n: [r[k] for r in rows] for k, n in enumerate(names)}), path)
+        wall, mib = run_isolated(convert_command(work, [dumps], "out", "--format", "parquet"))
+        ledger: dict[str, Any] = ledger_of(work / "out")
+        shutil.rmtree(work)
+        results.append(
+            {
+                "files": count,
+                "format": fmt,
+                "rows": ledger["total"]["read"],
+                "convert_s": round(wall, 2),
+                "peak_mib": round(mib),
+            }
         )
-        (dumps / f"deliveries-{i:05d}.csv").write_text(header + rows, encoding="utf-8")
-    wall, mib = run_isolated(convert_command(work, [dumps], "out", "--format", "parquet"))
-    ledger: dict[str, Any] = ledger_of(work / "out")
-    shutil.rmtree(work)
-    return {
-        "files": count,
-        "rows": ledger["total"]["read"],
-        "convert_s": round(wall, 2),
-        "peak_mib": round(mib),
-    }
+    return results
 
 
 def main() -> None:
@@ -181,7 +209,8 @@ def main() -> None:
     for rows in args.limited:
         print(json.dumps(bench_limited(rows, args.limit, args.keep)), flush=True)
     if args.small_files:
-        print(json.dumps(bench_small_files(args.small_files)), flush=True)
+        for result in bench_small_files(args.small_files):
+            print(json.dumps(result), flush=True)
 
 
 if __name__ == "__main__":

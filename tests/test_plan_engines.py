@@ -54,6 +54,26 @@ def test_every_plan_step_transpiles(tmp_path: Path, dialect: str) -> None:
     assert steps >= 40
 
 
+def test_the_engine_writes_each_step_without_changing_the_plan(tmp_path: Path) -> None:
+    # DuckDBEngine.render writes a step without copying it: the text must be sqlglot's own for a
+    # copy (the reference), and the step must be left equal to what it was
+    mappings = load_mappings(ROOT / "mappings")
+    routed = route(expand_inputs([ROOT / "examples" / "dumps"]), mappings)
+    engine = DuckDBEngine()
+    read = read_all(mappings, routed, engine, Options(), lambda *a: None, tmp_path)
+    by_name = {m.table: m for m in mappings}
+    steps = 0
+    for table, raw in read.items():
+        for step in compile_table(by_name[table], raw).steps:
+            before = step.expression.copy()
+            reference = before.sql(dialect="duckdb")
+            assert engine.render(step.expression) == reference, (table, step.name)
+            assert step.expression == before, (table, step.name)
+            assert engine.render(step.expression) == reference, (table, step.name)
+            steps += 1
+    assert steps >= 40
+
+
 def test_the_engine_reads_hex_keys_wider_than_64_bits() -> None:
     """What DuckDB 2.0 is needed for (OLDEST_DUCKDB): DuckDB 1.3.2, 1.4.1 and 1.5.6 gave NULL for
     these (measured), and every hex position would have been refused."""

@@ -27,6 +27,7 @@ import io
 from collections import deque
 from collections.abc import Iterable, Iterator
 from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -55,6 +56,18 @@ CAREFUL_BLOCK = 1 << 20
 #: Files of at most this size are read together when a table has at least JOIN_MIN of them.
 SMALL_FILE = 1 << 20
 JOIN_MIN = 16
+
+
+@dataclass(frozen=True)
+class _Reading:
+    """What reading one group of a table's files (one header) needs."""
+
+    internal: list[str]
+    delimiter: str
+    mapping: Mapping
+    engine: DuckDBEngine
+    raw: RawTable
+    scratch: Path
 
 
 def _delimiter(path: Path, mapping: Mapping) -> str:
@@ -112,9 +125,9 @@ def read_files(
         groups.setdefault((delimiter, tuple(columns)), []).append(f)
     for (delimiter, names), group in groups.items():
         internal = [raw.internal(c) for c in names]
-        careful = _fast(group, internal, delimiter, mapping, engine, raw, scratch)
-        for f in careful:
-            _careful(f, internal, delimiter, mapping, engine, raw, scratch)
+        reading = _Reading(internal, delimiter, mapping, engine, raw, scratch)
+        for f in _fast(group, reading):
+            _careful(f, reading)
 
 
 def count_records(path: Path, quote: str, header: bool) -> tuple[int, bool]:
@@ -165,30 +178,22 @@ def count_blocks(chunks: Iterable[bytes], quote: str, header: bool) -> tuple[int
     return count - (1 if header and count else 0), parity == 0
 
 
-def _fast(
-    group: list[RawFile],
-    internal: list[str],
-    delimiter: str,
-    mapping: Mapping,
-    engine: DuckDBEngine,
-    raw: RawTable,
-    scratch: Path,
-) -> list[RawFile]:
+def _fast(group: list[RawFile], r: _Reading) -> list[RawFile]:
     """Scan the group with the engine's reader; return the files that need the careful path."""
-    opts = mapping.csv
+    opts = r.mapping.csv
     if opts.encoding.lower() not in ENGINE_ENCODINGS:
         return group
     if len(group) >= JOIN_MIN:
-        group = _joined(group, internal, delimiter, mapping, engine, raw, scratch)
+        group = _joined(group, r)
         if not group:
             return []
-    paths = {str(streams.engine_readable(f.path, scratch / "decompressed")): f for f in group}
+    paths = {str(streams.engine_readable(f.path, r.scratch / "decompressed")): f for f in group}
     # The engine's reader does not report every broken record when it scans many files at once, so
     # every file's records are also counted independently, by a thread, while the engine scans.
     with ThreadPoolExecutor(max_workers=1) as pool:
         counted = {p: pool.submit(count_records, Path(p), opts.quote, opts.header) for p in paths}
-        staged = raw.relation("csv")
-        scanned = _scan(engine, staged, list(paths), internal, delimiter, mapping)
+        staged = r.raw.relation("csv")
+        scanned = _scan(r, staged, list(paths))
         counts = {p: c.result() for p, c in counted.items()}
     if scanned is None:
         if len(group) == 1:
@@ -196,7 +201,7 @@ def _fast(
         # a file the strict reader cannot read at all: find it, and read the others fast
         careful: list[RawFile] = []
         for f in group:
-            careful.extend(_fast([f], internal, delimiter, mapping, engine, raw, scratch))
+            careful.extend(_fast([f], r))
         return careful
     rejected, spans = scanned
     good = []
@@ -212,8 +217,8 @@ def _fast(
         good.append((p, f.file_id, lo))
     if good:
         view = f"{staged}_rows"
-        engine.number_rows(view, staged, good, internal)
-        raw.add_relation(view, internal)
+        r.engine.number_rows(view, staged, good, r.internal)
+        r.raw.add_relation(view, r.internal)
     return [f for p, f in paths.items() if p in rejected]
 
 
@@ -241,22 +246,14 @@ def _body(f: RawFile, header: bool, quote: str) -> tuple[bytes, bytes, int] | No
     return body, end, records
 
 
-def _joined(
-    group: list[RawFile],
-    internal: list[str],
-    delimiter: str,
-    mapping: Mapping,
-    engine: DuckDBEngine,
-    raw: RawTable,
-    scratch: Path,
-) -> list[RawFile]:
+def _joined(group: list[RawFile], r: _Reading) -> list[RawFile]:
     """Read many small files as one: their records, headers left out, are copied one file after
     another into a scratch file per line end (the engine's reader costs about half a millisecond a
     file, so 3,000 files cost it more than a million rows). A file's records are the rows between
     its first and the next file's first (counted by quote parity). A joined file the engine cannot
     read, that has any reject, or whose rows do not add up is not trusted: its files are returned,
     with the larger ones and those whose quotes do not balance, to be read one by one."""
-    opts = mapping.csv
+    opts = r.mapping.csv
     alone: list[RawFile] = []
     by_end: dict[bytes, list[tuple[RawFile, bytes, int]]] = {}
     for f in group:
@@ -265,31 +262,21 @@ def _joined(
             alone.append(f)
         else:
             by_end.setdefault(small[1], []).append((f, small[0], small[2]))
-    scratch.mkdir(parents=True, exist_ok=True)
+    r.scratch.mkdir(parents=True, exist_ok=True)
     for n, members in enumerate(by_end[end] for end in sorted(by_end)):
         if len(members) < JOIN_MIN:
             alone.extend(f for f, _, _ in members)
             continue
-        joined = scratch / f"joined-{n}.csv"
+        joined = r.scratch / f"joined-{n}.csv"
         with open(joined, "wb") as out:
             for _, body, _ in members:
                 out.write(body)
-        staged = raw.relation("joined")
-        scanned = engine.scan_csv(
-            staged,
-            [str(joined)],
-            internal,
-            header=False,
-            delimiter=delimiter,
-            quote=opts.quote,
-            nulls=list(mapping.nulls) or [NEVER],
-            encoding=ENGINE_ENCODINGS[opts.encoding.lower()],
-            max_line=MAX_RECORD_BYTES,
-        )
+        staged = r.raw.relation("joined")
+        scanned = _scan(r, staged, [str(joined)], header=False)
         total = sum(records for _, _, records in members)
         n_rows, lo, hi = scanned[1].get(str(joined), (0, 0, -1)) if scanned else (0, 0, -1)
         if scanned is None or scanned[0] or n_rows != total or (n_rows and hi - lo + 1 != n_rows):
-            engine.drop(staged)
+            r.engine.drop(staged)
             alone.extend(f for f, _, _ in members)
             joined.unlink()
             continue
@@ -300,24 +287,25 @@ def _joined(
                 firsts.append((f.file_id, lo))
                 lo += records
         view = f"{staged}_rows"
-        engine.number_joined_rows(view, staged, firsts, internal)
-        raw.add_relation(view, internal)
+        r.engine.number_joined_rows(view, staged, firsts, r.internal)
+        r.raw.add_relation(view, r.internal)
         joined.unlink()
     return alone
 
 
 def _scan(
-    engine: DuckDBEngine, staged: str, paths: list[str], internal: list[str], delimiter: str, mapping: Mapping
+    r: _Reading, staged: str, paths: list[str], header: bool | None = None
 ) -> tuple[set[str], dict[str, tuple[int, int, int]]] | None:
-    opts = mapping.csv
-    return engine.scan_csv(
+    """The engine's strict scan of ``paths`` into ``staged`` (``header``: the mapping's by default)."""
+    opts = r.mapping.csv
+    return r.engine.scan_csv(
         staged,
         paths,
-        internal,
-        header=opts.header,
-        delimiter=delimiter,
+        r.internal,
+        header=opts.header if header is None else header,
+        delimiter=r.delimiter,
         quote=opts.quote,
-        nulls=list(mapping.nulls) or [NEVER],
+        nulls=list(r.mapping.nulls) or [NEVER],
         encoding=ENGINE_ENCODINGS[opts.encoding.lower()],
         max_line=MAX_RECORD_BYTES,
     )
@@ -423,23 +411,15 @@ def _records(
             pending.extendleft(reversed(rest))  # resume at the line after the record's first line
 
 
-def _careful(
-    f: RawFile,
-    internal: list[str],
-    delimiter: str,
-    mapping: Mapping,
-    engine: DuckDBEngine,
-    raw: RawTable,
-    scratch: Path,
-) -> None:
-    opts = mapping.csv
+def _careful(f: RawFile, r: _Reading) -> None:
+    opts = r.mapping.csv
     stdcsv.field_size_limit(MAX_RECORD_BYTES)
-    scratch.mkdir(parents=True, exist_ok=True)
-    cleaned = scratch / f"careful-{f.file_id}.csv"
+    r.scratch.mkdir(parents=True, exist_ok=True)
+    cleaned = r.scratch / f"careful-{f.file_id}.csv"
     bad_rows: list[int] = []
     bad_text: list[str] = []
     bad_reason: list[str] = []
-    malformed = raw.ensure_malformed(engine)
+    malformed = r.raw.ensure_malformed(r.engine)
 
     def flush_bad() -> None:
         if not bad_rows:
@@ -454,7 +434,7 @@ def _careful(
                 "reason": pa.array(bad_reason, pa.string()),
             }
         )
-        engine.append(malformed, batch)
+        r.engine.append(malformed, batch)
         bad_rows.clear()
         bad_text.clear()
         bad_reason.clear()
@@ -463,14 +443,14 @@ def _careful(
     good = 0
     longest = 0  # bytes of the longest good record written (the parser's block must hold one)
     with open(cleaned, "wb") as out:
-        records = _records(_lines(f, opts.encoding), delimiter, opts.quote, len(internal))
+        records = _records(_lines(f, opts.encoding), r.delimiter, opts.quote, len(r.internal))
         if opts.header:
             next(records, None)
         for text, reason in records:
             number += 1
             if reason is None:
                 good += 1
-                line = f"{number}{delimiter}{text}\n".encode("utf-8", "surrogateescape")
+                line = f"{number}{r.delimiter}{text}\n".encode("utf-8", "surrogateescape")
                 longest = max(longest, len(line))
                 out.write(line)
             else:
@@ -484,7 +464,7 @@ def _careful(
     f.malformed = number - good
     f.notes.append("read record by record (the fast reader rejected it)")
     if good:
-        _load_cleaned(f, cleaned, internal, delimiter, mapping, engine, raw, longest)
+        _load_cleaned(f, cleaned, r.internal, r.delimiter, r.mapping, r.engine, r.raw, longest)
     cleaned.unlink()
 
 

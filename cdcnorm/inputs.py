@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import fnmatch
 import hashlib
+import os
 from collections import Counter
 from collections.abc import Iterable, Sequence
 from pathlib import Path
@@ -53,6 +54,23 @@ def route(files: Iterable[Path], mappings: Sequence[LoadedMapping]) -> dict[str,
     return by_table
 
 
+def text_path(path: Path, what: str) -> Path:
+    """``path``, refused when its name is not text: a name of bytes that are not UTF-8 (which the
+    system hands over as lone surrogates) cannot be given to the engine, whose SQL is text."""
+    try:
+        str(path).encode("utf-8")
+    except UnicodeEncodeError:
+        shown = os.fsencode(path).decode("utf-8", "backslashreplace")
+        raise InputError(
+            f"the {what}'s name is not UTF-8 text",
+            file=shown,
+            expected="a path of UTF-8 text",
+            found=shown,
+            hint="rename it (the bytes that are not UTF-8 are shown as \\x escapes)",
+        ) from None
+    return path
+
+
 def expand_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> list[Path]:
     """Files as given; a folder stands for the dump files directly inside it (and, with
     ``recursive``, in its sub-folders). A folder's sub-folders are never skipped silently:
@@ -89,6 +107,7 @@ def gather_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> t
     seen: set[Path] = set()
     unique = []
     for p in out:
+        text_path(p, "dump file")
         r = p.resolve()
         if r not in seen:
             seen.add(r)

@@ -23,7 +23,7 @@ from cdcnorm import ledger as ledger_mod
 from cdcnorm import quarantine, zones
 from cdcnorm.engines.duckdb import DuckDBEngine, engine_errors
 from cdcnorm.errors import DriftError, LedgerError, RejectLimitError, UsageError, closest
-from cdcnorm.inputs import display_names, expand_inputs, gather_inputs, route
+from cdcnorm.inputs import display_names, expand_inputs, gather_inputs, route, text_path
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.plan import Plan, RawRelation, Source
 from cdcnorm.readers import RawFile, RawTable, reader_for
@@ -335,6 +335,9 @@ def run(
         raise UsageError(f"unknown stage {stop_after!r}; stages are {', '.join(STAGE_NAMES)}")
     if options.fmt not in WRITERS:
         raise UsageError(f"unknown output format {options.fmt!r}; formats are {', '.join(WRITERS)}")
+    for folder, what in ((options.out, "landing area"), (options.scratch, "scratch folder")):
+        if folder is not None:
+            text_path(folder, what)
     files, hidden_files = gather_inputs(inputs, recursive=options.recursive)
     if not files and options.settle is None:
         raise UsageError("no input files given")

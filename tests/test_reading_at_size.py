@@ -588,3 +588,26 @@ def test_control_characters_and_line_separators_stay_one_json_line(convert: Conv
     lines = run_files(done.out, "events", "t.notes")[0].read_text(encoding="utf-8").split("\n")
     assert len(lines) == 2 and lines[1] == ""
     assert json.loads(lines[0])["values"]["a"] == text
+
+
+def test_a_path_that_is_not_utf8_text_is_refused_by_name(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # a name of bytes that are not UTF-8 cannot reach the engine's SQL: a clear error, no traceback
+    import os
+
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN)
+    (dumps := tmp_path / "d").mkdir()
+    bad = os.fsdecode(os.fsencode(dumps) + b"/n-\xff.csv")
+    Path(bad).write_text(CSV)
+    code = cli("convert", "--mappings", str(mdir), str(dumps), "--out", str(tmp_path / "out"))
+    err = capsys.readouterr().err
+    assert code == 4 and "Traceback" not in err
+    assert "n-\\xff.csv: the dump file's name is not UTF-8 text" in err
+    (good := tmp_path / "g").mkdir()
+    (good / "n.csv").write_text(CSV)
+    out = os.fsdecode(os.fsencode(tmp_path) + b"/out-\xfe")
+    code = cli("convert", "--mappings", str(mdir), str(good), "--out", out)
+    err = capsys.readouterr().err
+    assert code == 4 and "out-\\xfe: the landing area's name is not UTF-8 text" in err

@@ -82,9 +82,10 @@ def read_files(
     small = [f for f in files if f.path.stat().st_size <= SMALL_FILE]
     if len(small) < JOIN_MIN:
         small = []
+    together = {f.file_id for f in small}  # by id: a list test compares every field, per file
     for f in files:
         f.format = FORMAT
-        if f not in small:
+        if f.file_id not in together:
             _read([f], mapping, engine, raw)
     if small:
         _read(small, mapping, engine, raw)

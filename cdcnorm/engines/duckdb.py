@@ -399,11 +399,7 @@ class DuckDBEngine:
         values = (
             "(VALUES " + ", ".join(f"({lit(p)}, {i}, {lo})" for p, i, lo in files) + ") f(path, id, base)"
         )
-        self.con.execute(
-            f"CREATE TEMP VIEW {ident(view)} AS SELECT CAST(f.id AS INTEGER) AS __file, "
-            f"CAST(r.rowid - f.base + 1 AS BIGINT) AS __row, CAST(NULL AS VARCHAR) AS __enc, "
-            f"{', '.join(f'r.{ident(c)}' for c in columns)} FROM {ident(table)} r JOIN {values} ON r.__fname = f.path"
-        )
+        self._numbered(view, table, columns, f"JOIN {values} ON r.__fname = f.path")
 
     def number_joined_rows(
         self, view: str, table: str, firsts: list[tuple[int, int]], columns: list[str]
@@ -412,11 +408,15 @@ class DuckDBEngine:
         numbers, given each file's id and first rowid (in rowid order): a row belongs to the file
         with the greatest first rowid at or below its own."""
         values = "(VALUES " + ", ".join(f"({i}, {lo})" for i, lo in firsts) + ") f(id, base)"
+        self._numbered(view, table, columns, f"ASOF JOIN {values} ON r.rowid >= f.base")
+
+    def _numbered(self, view: str, table: str, columns: list[str], join: str) -> None:
+        """The raw relation's view over a scanned table ``r``, whose ``join`` gives each row its
+        file's ``f.id`` and first rowid ``f.base``."""
         self.con.execute(
             f"CREATE TEMP VIEW {ident(view)} AS SELECT CAST(f.id AS INTEGER) AS __file, "
             f"CAST(r.rowid - f.base + 1 AS BIGINT) AS __row, CAST(NULL AS VARCHAR) AS __enc, "
-            f"{', '.join(f'r.{ident(c)}' for c in columns)} FROM {ident(table)} r ASOF JOIN {values} "
-            "ON r.rowid >= f.base"
+            f"{', '.join(f'r.{ident(c)}' for c in columns)} FROM {ident(table)} r {join}"
         )
 
     def load_batches(self, table: str, batches: pa.RecordBatchReader, select: str = "*") -> None:

@@ -17,7 +17,6 @@ from pathlib import Path
 from typing import Any
 
 import pyarrow as pa
-import sqlglot
 
 from cdcnorm import ledger as ledger_mod
 from cdcnorm import quarantine, zones
@@ -28,7 +27,7 @@ from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.plan import Plan, RawRelation, Source
 from cdcnorm.readers import RawFile, RawTable, reader_for
 from cdcnorm.scratch import scratch_folder
-from cdcnorm.sql import PLAN_DIALECT, ident, lit
+from cdcnorm.sql import ident, lit
 from cdcnorm.stages.dedupe import dedupe_rows
 from cdcnorm.stages.envelope import build_envelopes
 from cdcnorm.stages.order import order_rows
@@ -484,11 +483,11 @@ def _run(
             if step.name == "seen":  # what earlier runs emitted, at the positions this run has
                 memory.load_earlier(engine, plan, area.emitted_files(table) if area else [])
             if step.materialize:
-                engine.materialize(step.relation, step.expression)
+                engine.materialize(step.relation, step.sql)
                 for name in step.frees:
                     engine.drop(plan.step(name).relation)
             else:
-                engine.view(step.relation, step.expression)
+                engine.view(step.relation, step.sql)
             last = f"; {step.name}{_rate(rows, began)}" if step.materialize else last
         if stop_after is not None:
             continue
@@ -516,7 +515,7 @@ def rejected_relation(trun: TableRun) -> str:
 def _account(trun: TableRun, engine: DuckDBEngine) -> ledger_mod.TableLedger:
     plan = trun.plan
     rejected = rejected_relation(trun)
-    engine.materialize(rejected, sqlglot.parse_one(quarantine.rejected_rows(plan), read=PLAN_DIALECT))
+    engine.materialize(rejected, quarantine.rejected_rows(plan))
     tl = ledger_mod.TableLedger(trun.mapping.table)
     ids = {s.file_id: s.name for s in plan.sources} | trun.carried
     for f in trun.raw.files:

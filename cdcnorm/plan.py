@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
+from functools import cached_property
 
 import sqlglot
 from sqlglot import exp
@@ -43,11 +44,21 @@ class Step:
     stage: str
     name: str
     relation: str
-    expression: exp.Expr
+    #: the step's SQL in the plan's dialect (``PLAN_DIALECT``), as the stage wrote it
+    sql: str
     materialize: bool
     #: earlier materialised steps this one is the last reader of: dropped once it has run, so a
     #: whole copy of the rows does not stay in the engine's memory (or its spill files) to the end
     frees: tuple[str, ...] = ()
+
+    @cached_property
+    def expression(self) -> exp.Expr:
+        """The step as a sqlglot expression, parsed when first asked for: an engine of another
+        dialect transpiles it, ``--show-plan`` prints it. The engine of the plan's own dialect
+        runs ``sql`` as written; parsing every step of every table cost a quarter of a
+        50-table run and 30% of a 300-field table's (``tests/test_plan_engines.py`` checks
+        that the text and sqlglot's writing of the expression give the same rows)."""
+        return sqlglot.parse_one(self.sql, read=PLAN_DIALECT)
 
 
 @dataclass(frozen=True)
@@ -188,8 +199,7 @@ class Plan:
     def add(
         self, stage: str, name: str, sql: str, *, materialize: bool = False, frees: tuple[str, ...] = ()
     ) -> Plan:
-        expression = sqlglot.parse_one(sql, read=PLAN_DIALECT)
-        step = Step(stage, name, self.relation(name), expression, materialize, frees)
+        step = Step(stage, name, self.relation(name), sql, materialize, frees)
         return replace(self, steps=(*self.steps, step))
 
     def step(self, name: str) -> Step:

@@ -252,10 +252,11 @@ class DuckDBEngine:
         return expression.sql(dialect="duckdb", pretty=True)
 
     def render(self, expression: exp.Expr | str) -> str:
-        """A plan step as this engine's SQL. The plan is written in this engine's dialect, so the
-        generator changes nothing in it: it writes the step without copying it first (the copy
-        took 37% of a 300-column table's run). ``tests/test_plan_engines.py`` checks that every
-        step of the example plans is left as it was and written as a copy would be."""
+        """A plan step as this engine's SQL. The plan is written in this engine's dialect: its
+        text (``Step.sql``) runs as written, and the generator changes nothing in an expression,
+        so it writes one without copying it first (the copy took 37% of a 300-column table's
+        run). ``tests/test_plan_engines.py`` checks that every step of the example plans is left
+        as it was, written as a copy would be, and gives the rows its text gives."""
         if isinstance(expression, str):
             return expression
         return expression.sql(dialect=self.dialect, copy=False)
@@ -274,10 +275,10 @@ class DuckDBEngine:
     def execute(self, expression: exp.Expr | str) -> None:
         self.con.execute(self.render(expression))
 
-    def materialize(self, name: str, expression: exp.Expr) -> None:
+    def materialize(self, name: str, expression: exp.Expr | str) -> None:
         self._run(name, f"CREATE OR REPLACE TEMP TABLE {ident(name)} AS {self.render(expression)}")
 
-    def view(self, name: str, expression: exp.Expr) -> None:
+    def view(self, name: str, expression: exp.Expr | str) -> None:
         self._run(name, f"CREATE OR REPLACE TEMP VIEW {ident(name)} AS {self.render(expression)}")
 
     def _run(self, name: str, sql: str) -> None:
@@ -298,7 +299,7 @@ class DuckDBEngine:
     def rows(self, expression: exp.Expr | str) -> list[tuple[Any, ...]]:
         return self.con.execute(self.render(expression)).fetchall()
 
-    def copy(self, expression: exp.Expr, path: Path, fmt: str) -> int:
+    def copy(self, expression: exp.Expr | str, path: Path, fmt: str) -> int:
         """Write a query's rows to ``path`` atomically (temporary name, then rename); rows written."""
         path.parent.mkdir(parents=True, exist_ok=True)
         tmp = path.with_name(f"{path.name}.tmp-{os.getpid()}")

@@ -184,14 +184,14 @@ class SparkEngine:
 
         return self.spark.createDataFrame([], from_arrow_schema(schema))
 
-    def view(self, name: str, expression: exp.Expr) -> None:
+    def view(self, name: str, expression: exp.Expr | str) -> None:
         self.materialize(name, expression)
 
-    def materialize(self, name: str, expression: exp.Expr) -> None:
+    def materialize(self, name: str, expression: exp.Expr | str) -> None:
         frame = self._sql(name, expression).localCheckpoint()
         frame.createOrReplaceTempView(ident_spark(name))
 
-    def _sql(self, name: str, expression: exp.Expr) -> DataFrame:
+    def _sql(self, name: str, expression: exp.Expr | str) -> DataFrame:
         text = self.render(expression)
         try:
             return self.spark.sql(text)

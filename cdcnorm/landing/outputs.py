@@ -9,8 +9,6 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-import sqlglot
-
 from cdcnorm import __version__
 from cdcnorm.errors import LedgerError
 from cdcnorm.inputs import checksum
@@ -18,7 +16,6 @@ from cdcnorm.landing import memory, runs
 from cdcnorm.landing.area import Landing
 from cdcnorm.names import path_part
 from cdcnorm.quarantine import quarantine_lines, raw_rows
-from cdcnorm.sql import PLAN_DIALECT
 from cdcnorm.writers import WRITERS
 from cdcnorm.writers.base import sorted_events
 
@@ -109,7 +106,7 @@ def commit_run(
         # the count of lines checks the ledger's count of quarantined rows below
         rel = f"quarantine/{part}/{run}.jsonl"
         lines_sql = quarantine_lines(plan, rejected_relation(trun))
-        lines = engine.copy(sqlglot.parse_one(lines_sql, read=PLAN_DIALECT), staging / rel, "lines")
+        lines = engine.copy(lines_sql, staging / rel, "lines")
         if lines:
             out["quarantine"] = rel
         else:  # no file, and no folder made for it

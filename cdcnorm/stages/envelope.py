@@ -26,7 +26,7 @@ def build_envelopes(plan: Plan) -> Plan:
     changed = (
         "list_filter(["
         + ", ".join(f"CASE WHEN p.a{i} IS DISTINCT FROM p.p{i} THEN {lit(names[i])} END" for i in range(n))
-        + "], x -> x IS NOT NULL)"
+        + "], lambda x: x IS NOT NULL)"
     )
     has_image = " OR ".join(f"e.v{i} IS NOT NULL" for i in nonkey)
     vals = ", ".join(f"e.v{i}" for i in range(n))

@@ -135,7 +135,7 @@ def type_rows(plan: Plan) -> Plan:
         materialize=True,
     )
     rejects = (
-        f"SELECT t.__file, t.__row, list_filter([{', '.join(c.reasons)}], x -> x IS NOT NULL) AS reasons "
+        f"SELECT t.__file, t.__row, list_filter([{', '.join(c.reasons)}], lambda x: x IS NOT NULL) AS reasons "
         f"FROM {plan.rel('typed')} t JOIN {src} s ON s.__file = t.__file AND s.__row = t.__row WHERE NOT t.__ok"
     )
     return plan.add("type", "rejects", rejects)

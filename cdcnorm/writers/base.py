@@ -104,7 +104,7 @@ def write_events(
     # engine's JSON writer serialises the rendered envelope itself, the same bytes as to_json, faster
     spliced = json_lines and any(t.name == "json" for t in plan.mapping.field_types.values())
     sql = project(plan, files_relation, render=json_lines, as_line=spliced, relation=relation)
-    return engine.copy(sqlglot.parse_one(sql, read=PLAN_DIALECT), path, "lines" if spliced else fmt)
+    return engine.copy(sql, path, "lines" if spliced else fmt)
 
 
 def sorted_events(plan: Plan, files_relation: str) -> str:

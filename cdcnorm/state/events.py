@@ -38,7 +38,7 @@ from cdcnorm.landing import runs
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.mapping.model import FieldSpec
 from cdcnorm.names import path_part
-from cdcnorm.sql import PLAN_DIALECT, ident, lit
+from cdcnorm.sql import ident, lit
 from cdcnorm.types import FieldType, resolve
 
 #: The fields a run's events were written under: (name, value type) in the mapping's order.
@@ -239,7 +239,7 @@ def _check_retyped(
             f"FROM (SELECT filename, position, {text} AS t FROM {source}) "
             f"WHERE t IS NOT NULL AND ({now[name].cast('t')}) IS NULL LIMIT 1"
         )
-        bad = engine.rows(sqlglot.parse_one(sql, read=PLAN_DIALECT))
+        bad = engine.rows(sql)
         if bad:
             file, position, value, why = bad[0]
             run = by_name[file].run
@@ -340,5 +340,5 @@ def load_events(
             f"CAST(NULL AS TIMESTAMPTZ) AS __cat, CAST(NULL AS VARCHAR) AS __source, {cols} WHERE false"
         )
     sql = " UNION ALL ".join(parts)
-    engine.view(relation, sqlglot.parse_one(sql, read=PLAN_DIALECT))
+    engine.view(relation, sql)
     return Events(mapping, relation, tuple(files), tuple(notes))

@@ -15,13 +15,11 @@ import re
 from dataclasses import dataclass
 from pathlib import Path
 
-import sqlglot
-
 from cdcnorm import positions
 from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.errors import InputError, UsageError
 from cdcnorm.mapping.load import LoadedMapping
-from cdcnorm.sql import PLAN_DIALECT, ident, lit
+from cdcnorm.sql import ident, lit
 from cdcnorm.state.events import Events
 from cdcnorm.types.json import RawJson
 
@@ -140,12 +138,9 @@ def latest(engine: DuckDBEngine, events: Events, as_of: AsOf = AsOf(), relation:
     )
     engine.materialize(
         relation,
-        sqlglot.parse_one(
-            f"SELECT {values}, __position, __action, __source, "
-            "(__next_pos = __position AND __next_content IS DISTINCT FROM __content) AS __conflict "
-            f"FROM ({latest}) WHERE __n = 1",
-            read=PLAN_DIALECT,
-        ),
+        f"SELECT {values}, __position, __action, __source, "
+        "(__next_pos = __position AND __next_content IS DISTINCT FROM __content) AS __conflict "
+        f"FROM ({latest}) WHERE __n = 1",
     )
     conflict = engine.rows(f"SELECT __position, __source FROM {ident(relation)} WHERE __conflict LIMIT 1")
     if conflict:
@@ -169,10 +164,7 @@ def compact(engine: DuckDBEngine, events: Events, as_of: AsOf = AsOf(), relation
     keys = ", ".join(events.column(k) for k in events.key)
     engine.materialize(
         relation,
-        sqlglot.parse_one(
-            f"SELECT {values}, __position FROM {ident(last)} WHERE __action = 'upsert' ORDER BY {keys}",
-            read=PLAN_DIALECT,
-        ),
+        f"SELECT {values}, __position FROM {ident(last)} WHERE __action = 'upsert' ORDER BY {keys}",
     )
     engine.drop(last)
     return relation
@@ -205,12 +197,12 @@ def write_snapshot(engine: DuckDBEngine, events: Events, relation: str, path: Pa
     a header) or JSON Lines; rows written."""
     if fmt == "parquet":
         sql = state_projection(events, relation, render=False)
-        return engine.copy(sqlglot.parse_one(sql, read=PLAN_DIALECT), path, "parquet")
+        return engine.copy(sql, path, "parquet")
     if fmt == "jsonl":
         sql = state_projection(events, relation, render=True, as_line=True)
-        return engine.copy(sqlglot.parse_one(sql, read=PLAN_DIALECT), path, "lines")
+        return engine.copy(sql, path, "lines")
     sql = state_projection(events, relation, render=True, as_text=True)
-    return engine.copy(sqlglot.parse_one(sql, read=PLAN_DIALECT), path, "csv")
+    return engine.copy(sql, path, "csv")
 
 
 FORMATS = {"parquet": ".parquet", "csv": ".csv", "jsonl": ".jsonl"}

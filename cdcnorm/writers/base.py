@@ -16,11 +16,10 @@ from pathlib import Path
 
 import pyarrow as pa
 import pyarrow.compute as pc
-import sqlglot
 
 from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.plan import Plan
-from cdcnorm.sql import PLAN_DIALECT, ident, lit
+from cdcnorm.sql import ident, lit
 from cdcnorm.stages.order import position_text
 from cdcnorm.types.json import RawJson
 from cdcnorm.types.timestamp import timestamp_render
@@ -123,7 +122,7 @@ def sorted_envelopes(
     """The envelopes in output order, as an Arrow table (the library API): the engine
     computes them with their sort keys, Arrow sorts by the keys and gathers the rows."""
     sql = project(plan, files_relation, render=render, as_line=as_line, sort_keys=True)
-    table = engine.arrow(sqlglot.parse_one(sql, read=PLAN_DIALECT))
+    table = engine.arrow(sql)
     keys = [n for n, _ in sort_columns(plan)]
     sortable = pa.table({k: _sortable(table[k]) for k in keys})
     order = pc.sort_indices(sortable, sort_keys=[(k, "ascending") for k in keys])

@@ -464,41 +464,34 @@ def _careful(f: RawFile, r: _Reading) -> None:
     f.malformed = number - good
     f.notes.append("read record by record (the fast reader rejected it)")
     if good:
-        _load_cleaned(f, cleaned, r.internal, r.delimiter, r.mapping, r.engine, r.raw, longest)
+        _load_cleaned(f, cleaned, r, longest)
     cleaned.unlink()
 
 
-def _load_cleaned(
-    f: RawFile,
-    cleaned: Path,
-    internal: list[str],
-    delimiter: str,
-    mapping: Mapping,
-    engine: DuckDBEngine,
-    raw: RawTable,
-    longest: int,
-) -> None:
+def _load_cleaned(f: RawFile, cleaned: Path, r: _Reading, longest: int) -> None:
     """Parse the numbered good records (cells as bytes), then decode them in the engine. A block
     holds two of the ``longest`` records and is at least CAREFUL_BLOCK: the parser's blocks (a few
     at a time, parsed in parallel) are outside the engine's memory, so they stay as small as the
     records allow, not sized for the longest record possible."""
-    tokens = list(mapping.nulls)
-    names = ["__row", *internal]
+    tokens = list(r.mapping.nulls)
+    names = ["__row", *r.internal]
     reader = pacsv.open_csv(
         str(cleaned),
         read_options=pacsv.ReadOptions(column_names=names, block_size=max(CAREFUL_BLOCK, 2 * longest)),
         parse_options=pacsv.ParseOptions(
-            delimiter=delimiter, quote_char=mapping.csv.quote, double_quote=True, newlines_in_values=True
+            delimiter=r.delimiter, quote_char=r.mapping.csv.quote, double_quote=True, newlines_in_values=True
         ),
         convert_options=pacsv.ConvertOptions(
-            column_types={"__row": pa.int64(), **{c: pa.binary() for c in internal}},
+            column_types={"__row": pa.int64(), **{c: pa.binary() for c in r.internal}},
             null_values=tokens,
             strings_can_be_null=bool(tokens),
             quoted_strings_can_be_null=False,
         ),
     )
-    staged = raw.relation("careful")
-    engine.load_batches(staged + "_bin", reader)
-    engine.decode_text(staged, staged + "_bin", f.file_id, [(c, raw.columns[int(c[1:])]) for c in internal])
-    engine.drop(staged + "_bin")
-    raw.add_relation(staged, internal)
+    staged = r.raw.relation("careful")
+    r.engine.load_batches(staged + "_bin", reader)
+    r.engine.decode_text(
+        staged, staged + "_bin", f.file_id, [(c, r.raw.columns[int(c[1:])]) for c in r.internal]
+    )
+    r.engine.drop(staged + "_bin")
+    r.raw.add_relation(staged, r.internal)

@@ -7,15 +7,18 @@ registers Arrow tables as relations, materialises steps and writes files.
 from __future__ import annotations
 
 import contextlib
+import copy as copy_mod
 import errno
 import json
 import os
 import re
 import secrets
-from collections.abc import Collection, Iterator, Sequence
+import threading
+from collections.abc import Callable, Collection, Iterator, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from importlib import metadata
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
 import duckdb
 import pyarrow as pa
@@ -24,6 +27,8 @@ from sqlglot import exp
 from cdcnorm.errors import CdcnormError, DiskSpaceError, EngineMemoryError, InputError
 from cdcnorm.positions import HEX_DIGITS, HEX_KEY
 from cdcnorm.sql import ident, lit
+
+T = TypeVar("T")
 
 #: Share of the machine's physical memory the engine may use when no limit is given; beyond its
 #: limit the engine spills to the run's temporary folder.
@@ -236,7 +241,7 @@ class DuckDBEngine:
             if fed < cores:
                 self.con.execute(f"SET threads = {fed}")
         for name, (params, body) in PLAN_FUNCTIONS.items():
-            self.con.execute(f"CREATE OR REPLACE TEMP MACRO {name}({', '.join(params)}) AS {body}")
+            self.con.execute(f"CREATE OR REPLACE MACRO {name}({', '.join(params)}) AS {body}")
         with contextlib.suppress(duckdb.Error):
             # Without the ICU extension DuckDB already treats TIMESTAMPTZ as UTC.
             self.con.execute("SET TimeZone = 'UTC'")
@@ -261,6 +266,72 @@ class DuckDBEngine:
             return expression
         return expression.sql(dialect=self.dialect, copy=False)
 
+    def threads(self) -> int:
+        return int(self.rows("SELECT current_setting('threads')")[0][0])
+
+    def spread(self, items: Sequence[T], work: Callable[[DuckDBEngine, T], None], width: int = 2) -> None:
+        """``work(engine, item)`` for every item, on up to ``width`` connections to this engine's
+        database at once (this engine and siblings), each taking the next item when it is done.
+
+        For work whose time is the engine's fixed cost per statement (binding and planning a
+        step of a small table), which runs on one thread: two connections keep two cores busy.
+        The plan's relations and functions are in the database's catalog, which every connection
+        sees; items must not share relation names. The first error stops the others from taking
+        new items and is raised once they are done. One connection when the engine has one thread.
+        """
+        width = min(width, self.threads(), len(items))
+        if width < 2:
+            for item in items:
+                work(self, item)
+            return
+        pending = iter(items)
+        lock = threading.Lock()
+        failed: list[BaseException] = []
+        done = object()
+
+        def take() -> Any:
+            with lock:
+                return done if failed else next(pending, done)
+
+        def drain(engine: DuckDBEngine) -> None:
+            try:
+                while (item := take()) is not done:
+                    work(engine, item)
+            except BaseException as e:
+                with lock:
+                    failed.append(e)
+                raise
+
+        siblings = [self.sibling() for _ in range(width - 1)]
+        try:
+            with ThreadPoolExecutor(max_workers=len(siblings)) as pool:
+                others = [pool.submit(drain, sib) for sib in siblings]
+                try:
+                    drain(self)
+                except BaseException:
+                    if not isinstance(failed[-1], Exception):  # an interrupt: stop the others now
+                        for sib in siblings:
+                            sib.con.interrupt()
+                    raise
+                for f in others:
+                    f.result()
+        finally:
+            for sib in siblings:
+                sib.con.close()
+
+    def sibling(self) -> DuckDBEngine:
+        """This engine on another connection to the same database: the same catalog and settings;
+        the registered Arrow tables and the session's time zone, which are per connection, are
+        given again."""
+        other = copy_mod.copy(self)
+        other.con = self.con.cursor()
+        with contextlib.suppress(duckdb.Error):
+            other.con.execute("SET TimeZone = 'UTC'")
+        other._registered = dict(self._registered)
+        for name, table in other._registered.items():
+            other.con.register(name, table)
+        return other
+
     def register(self, name: str, table: pa.Table) -> None:
         self._registered[name] = table
         self.con.register(name, table)
@@ -276,10 +347,10 @@ class DuckDBEngine:
         self.con.execute(self.render(expression))
 
     def materialize(self, name: str, expression: exp.Expr | str) -> None:
-        self._run(name, f"CREATE OR REPLACE TEMP TABLE {ident(name)} AS {self.render(expression)}")
+        self._run(name, f"CREATE OR REPLACE TABLE {ident(name)} AS {self.render(expression)}")
 
     def view(self, name: str, expression: exp.Expr | str) -> None:
-        self._run(name, f"CREATE OR REPLACE TEMP VIEW {ident(name)} AS {self.render(expression)}")
+        self._run(name, f"CREATE OR REPLACE VIEW {ident(name)} AS {self.render(expression)}")
 
     def _run(self, name: str, sql: str) -> None:
         step = f"plan step {name}"
@@ -365,7 +436,7 @@ class DuckDBEngine:
             f"max_line_size = {line}, buffer_size = {line}, filename = '__fname', parallel = true)"
         )
         try:
-            self.con.execute(f"CREATE TEMP TABLE {ident(table)} AS SELECT * FROM {scan}")
+            self.con.execute(f"CREATE TABLE {ident(table)} AS SELECT * FROM {scan}")
             rejected = {
                 str(p)
                 for (p,) in self.rows(
@@ -415,7 +486,7 @@ class DuckDBEngine:
         """The raw relation's view over a scanned table ``r``, whose ``join`` gives each row its
         file's ``f.id`` and first rowid ``f.base``."""
         self.con.execute(
-            f"CREATE TEMP VIEW {ident(view)} AS SELECT CAST(f.id AS INTEGER) AS __file, "
+            f"CREATE VIEW {ident(view)} AS SELECT CAST(f.id AS INTEGER) AS __file, "
             f"CAST(r.rowid - f.base + 1 AS BIGINT) AS __row, CAST(NULL AS VARCHAR) AS __enc, "
             f"{', '.join(f'r.{ident(c)}' for c in columns)} FROM {ident(table)} r {join}"
         )
@@ -424,7 +495,7 @@ class DuckDBEngine:
         """Stream record batches into a new table (the engine pulls them; nothing is held whole)."""
         self.con.register("__incoming_batches", batches)
         try:
-            self.con.execute(f"CREATE TEMP TABLE {ident(table)} AS SELECT {select} FROM __incoming_batches")
+            self.con.execute(f"CREATE TABLE {ident(table)} AS SELECT {select} FROM __incoming_batches")
         finally:
             self.con.unregister("__incoming_batches")
 
@@ -444,13 +515,13 @@ class DuckDBEngine:
         listed = f"concat_ws(',', {', '.join(bad)})"
         enc = f"CASE WHEN {listed} <> '' THEN '{{' || {listed} || '}}' END"
         self.con.execute(
-            f"CREATE TEMP TABLE {ident(table)} AS SELECT CAST({file_id} AS INTEGER) AS __file, __row, "
+            f"CREATE TABLE {ident(table)} AS SELECT CAST({file_id} AS INTEGER) AS __file, __row, "
             f"{enc} AS __enc, {', '.join(cells)} FROM {ident(source)}"
         )
 
     def create_malformed(self, table: str) -> None:
         self.con.execute(
-            f"CREATE TEMP TABLE IF NOT EXISTS {ident(table)} "
+            f"CREATE TABLE IF NOT EXISTS {ident(table)} "
             "(__file INTEGER, __row BIGINT, text VARCHAR, reason VARCHAR)"
         )
 
@@ -520,7 +591,7 @@ class DuckDBEngine:
             fname += "_"
         parts = "".join(f", {as_text(parquet_member(k), t)} AS {ident(i)}" for k, t, i in columns)
         self.con.execute(
-            f"CREATE TEMP TABLE {ident(table)} AS SELECT {ident(fname)} AS __fname{parts} "
+            f"CREATE TABLE {ident(table)} AS SELECT {ident(fname)} AS __fname{parts} "
             f"FROM read_parquet([{', '.join(lit(p) for p in paths)}], filename = {lit(fname)})"
         )
         return {
@@ -577,7 +648,7 @@ class DuckDBEngine:
                 repeated += f" WHEN {twice.format(f'inner_names[{i}]')} THEN {lit('.'.join(p))}"
         names = f"SELECT *, CASE WHEN kind = 'OBJECT' THEN json_keys(line) END AS names{inner} FROM ({kind})"
         self.con.execute(
-            f"CREATE OR REPLACE TEMP TABLE {ident(lines + '_text')} AS SELECT * EXCLUDE (names{', inner_names' if nested else ''}), "
+            f"CREATE OR REPLACE TABLE {ident(lines + '_text')} AS SELECT * EXCLUDE (names{', inner_names' if nested else ''}), "
             f"{repeated} END AS repeated FROM ({names})"
         )
         text = ident(lines + "_text")
@@ -592,7 +663,7 @@ class DuckDBEngine:
             f"END FROM {text} WHERE line IS NULL OR NOT valid OR kind <> 'OBJECT' OR repeated IS NOT NULL"
         )
         self.con.execute(
-            f"CREATE OR REPLACE TEMP TABLE {ident(ok)} AS SELECT __file, __row, "
+            f"CREATE OR REPLACE TABLE {ident(ok)} AS SELECT __file, __row, "
             f"CAST({tag_numbers('line', self.number_tag, 'risky')} AS JSON) AS j FROM {text} "
             "WHERE valid AND kind = 'OBJECT' AND repeated IS NULL"
         )
@@ -641,7 +712,7 @@ class DuckDBEngine:
         )
         cells = f"json_extract_string(j, {listed})" if paths else "CAST([] AS VARCHAR[])"
         self.con.execute(
-            f"CREATE TEMP TABLE {ident(table)} AS SELECT CAST(o.__file AS INTEGER) AS __file, o.__row, "
+            f"CREATE TABLE {ident(table)} AS SELECT CAST(o.__file AS INTEGER) AS __file, o.__row, "
             f"e.__enc{''.join(parts)} FROM (SELECT __file, __row, {cells} AS __cells FROM {ident(ok)}) o "
             f"LEFT JOIN ({enc}) e ON e.__file = o.__file AND e.__row = o.__row"
         )

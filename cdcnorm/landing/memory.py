@@ -261,7 +261,7 @@ def load_carried(engine: DuckDBEngine, plan: Plan, path: Path | None, first_id: 
     get ids from ``first_id`` on, returned as (id, name) for the files relation."""
     rel = plan.rel("carried")
     if path is None:
-        engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {empty_relation(carried_columns(plan))}")
+        engine.execute(f"CREATE OR REPLACE TABLE {rel} AS {empty_relation(carried_columns(plan))}")
         return []
     src = f"read_parquet({lit(str(path))})"
     names = [str(r[0]) for r in engine.rows(f"SELECT DISTINCT __name FROM {src} ORDER BY 1")]
@@ -291,10 +291,10 @@ def load_carried(engine: DuckDBEngine, plan: Plan, path: Path | None, first_id: 
         "p.__raw",
     ]
     if values is None:
-        engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {empty_relation(types)}")
+        engine.execute(f"CREATE OR REPLACE TABLE {rel} AS {empty_relation(types)}")
     else:
         engine.execute(
-            f"CREATE OR REPLACE TEMP TABLE {rel} AS SELECT {', '.join(cols)} FROM {src} p JOIN {values} ON p.__name = f.name"
+            f"CREATE OR REPLACE TABLE {rel} AS SELECT {', '.join(cols)} FROM {src} p JOIN {values} ON p.__name = f.name"
         )
     return ids
 
@@ -304,7 +304,7 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
     run's rows can meet (between the lowest and highest position of the run's good rows), from
     identity files of either format."""
     rel = plan.rel("earlier")
-    empty = f"CREATE OR REPLACE TEMP TABLE {rel} AS {empty_relation(earlier_columns(plan))}"
+    empty = f"CREATE OR REPLACE TABLE {rel} AS {empty_relation(earlier_columns(plan))}"
     if not files:
         engine.execute(empty)
         return
@@ -359,7 +359,7 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
                 hint=hint,
             )
         parts.append(_earlier_rows(plan, fmt, group, lo_key, hi_key, held, other, k))
-    engine.execute(f"CREATE OR REPLACE TEMP TABLE {rel} AS {' UNION ALL '.join(parts)}")
+    engine.execute(f"CREATE OR REPLACE TABLE {rel} AS {' UNION ALL '.join(parts)}")
 
 
 def _format(marks: set[tuple[str, str]], stated: dict[str, str], file: str) -> int:

@@ -10,6 +10,7 @@ plan; the writers (writers/), the quarantine and the ledger read its results.
 from __future__ import annotations
 
 import json
+import threading
 import time
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
@@ -54,9 +55,24 @@ RESULT_STEPS = ("kept", "pairs", "waiting")
 
 Progress = Callable[[str, int, int], None]
 
+#: Tables of at most this many rows read run two at a time, on two connections: about two of the
+#: engine's row groups (122,880 rows), which its scans read on one thread each.
+SHARED_ROWS = 250_000
+
 
 def _no_progress(label: str, done: int, total: int) -> None:
     return None
+
+
+def one_at_a_time(progress: Progress) -> Progress:
+    """``progress`` for callers on several threads (tables converted side by side)."""
+    lock = threading.Lock()
+
+    def tell(label: str, done: int, total: int) -> None:
+        with lock:
+            progress(label, done, total)
+
+    return tell
 
 
 def _rate(rows: int, since: float) -> str:
@@ -459,7 +475,7 @@ def _run(
     # (pyarrow checks for it), a fifth of a second of every run
     listed = ", ".join(f"({i}, {lit(n)})" for i, n in file_names)
     engine.execute(
-        "CREATE OR REPLACE TEMP TABLE __files AS SELECT CAST(id AS INTEGER) AS id, CAST(name AS VARCHAR) AS name "
+        "CREATE OR REPLACE TABLE __files AS SELECT CAST(id AS INTEGER) AS id, CAST(name AS VARCHAR) AS name "
         + (
             f"FROM (VALUES {listed}) v(id, name)"
             if listed
@@ -471,32 +487,23 @@ def _run(
         return result
     drifted = {d.table for d in drifts}
     total = len(runs)
-    for table, trun in runs.items():
-        if table in drifted:
-            continue
-        plan = trun.plan if stop_after is None else trun.plan.until(stop_after)
-        rows = trun.raw.rows_read
-        last = ""
-        for j, step in enumerate(plan.steps):
-            progress(f"{table}: {step.stage} ({step.name}), {rows:,} rows{last}", j, len(plan.steps))
-            began = time.perf_counter()
-            if step.name == "seen":  # what earlier runs emitted, at the positions this run has
-                memory.load_earlier(engine, plan, area.emitted_files(table) if area else [])
-            if step.materialize:
-                engine.materialize(step.relation, step.sql)
-                for name in step.frees:
-                    engine.drop(plan.step(name).relation)
-            else:
-                engine.view(step.relation, step.sql)
-            last = f"; {step.name}{_rate(rows, began)}" if step.materialize else last
-        if stop_after is not None:
-            continue
-        progress(f"{table}: account", 0, 1)
-        result.ledger.tables[table] = _account(trun, engine)
-        for step in plan.steps:  # counted: what the writers do not read goes now
-            if step.materialize and step.name not in RESULT_STEPS:
-                engine.drop(step.relation)
-        engine.drop(plan.relation("earlier"))
+    todo = [t for t in runs if t not in drifted]
+    counted: dict[str, ledger_mod.TableLedger] = {}
+    tell = one_at_a_time(progress)
+
+    def convert(e: DuckDBEngine, table: str) -> None:
+        ledger = _run_table(e, runs[table], stop_after, area, tell)
+        if ledger is not None:
+            counted[table] = ledger
+
+    # A large table's steps use every thread; small tables' steps are mostly the engine's fixed
+    # cost per statement, on one thread: two of them at once, on two connections.
+    for table in [t for t in todo if runs[t].raw.rows_read > SHARED_ROWS]:
+        convert(engine, table)
+    engine.spread([t for t in todo if runs[t].raw.rows_read <= SHARED_ROWS], convert)
+    for table in todo:  # the ledger lists the tables in the order they were read
+        if table in counted:
+            result.ledger.tables[table] = counted[table]
     progress("account", total, total)
     if stop_after is not None:
         return result
@@ -506,6 +513,39 @@ def _run(
             hint="this is a bug in cdcnorm; please report it with the inputs",
         )
     return result
+
+
+def _run_table(
+    engine: DuckDBEngine, trun: TableRun, stop_after: str | None, area: Any, progress: Progress
+) -> ledger_mod.TableLedger | None:
+    """Run one table's plan (up to ``stop_after``); the table's ledger, or None when stopped."""
+    from cdcnorm.landing import memory
+
+    table = trun.mapping.table
+    plan = trun.plan if stop_after is None else trun.plan.until(stop_after)
+    rows = trun.raw.rows_read
+    last = ""
+    for j, step in enumerate(plan.steps):
+        progress(f"{table}: {step.stage} ({step.name}), {rows:,} rows{last}", j, len(plan.steps))
+        began = time.perf_counter()
+        if step.name == "seen":  # what earlier runs emitted, at the positions this run has
+            memory.load_earlier(engine, plan, area.emitted_files(table) if area else [])
+        if step.materialize:
+            engine.materialize(step.relation, step.sql)
+            for name in step.frees:
+                engine.drop(plan.step(name).relation)
+        else:
+            engine.view(step.relation, step.sql)
+        last = f"; {step.name}{_rate(rows, began)}" if step.materialize else last
+    if stop_after is not None:
+        return None
+    progress(f"{table}: account", 0, 1)
+    counted = _account(trun, engine)
+    for step in plan.steps:  # counted: what the writers do not read goes now
+        if step.materialize and step.name not in RESULT_STEPS:
+            engine.drop(step.relation)
+    engine.drop(plan.relation("earlier"))
+    return counted
 
 
 def rejected_relation(trun: TableRun) -> str:

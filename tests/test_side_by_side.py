@@ -1,33 +1,102 @@
-"""Work spread over two connections to the engine's database (``DuckDBEngine.spread``)."""
+"""Small tables run two at a time, on two connections to the engine's database
+(``DuckDBEngine.spread``): the landing area must hold the same bytes as when every table runs
+alone, one after another on one connection."""
 
 from __future__ import annotations
 
+import json
+import re
 import threading
+import time
+from pathlib import Path
 
+import duckdb
 import pytest
 
+from cdcnorm import pipeline
 from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.errors import CdcnormError, InputError
+from tests.conftest import ROOT, cli, landing_outputs
+
+DUMPS = ROOT / "examples" / "dumps"
+#: two runs, so that the second meets the first's identities and its waiting before-image
+RUNS = [
+    [DUMPS / "bookings-archive.csv", DUMPS / "passengers.csv"],
+    [DUMPS / "bookings-live.csv", DUMPS / "sailings.jsonl", ROOT / "examples" / "next-day"],
+]
+
+
+def _area(
+    tmp_path: Path, name: str, threads: str, capsys: pytest.CaptureFixture[str]
+) -> tuple[Path, list[object]]:
+    area = tmp_path / name
+    ledgers: list[object] = []
+    for paths in RUNS:
+        code = cli(
+            "convert", *map(str, paths), "--mappings", str(ROOT / "mappings"), "--out", str(area),
+            "--threads", threads, "--json",
+        )  # fmt: skip
+        assert code == 0
+        ledger = re.sub(r"\d{6}-\d{8}T\d{6}Z", "RUN", capsys.readouterr().out)
+        ledgers.append(json.loads(ledger)["ledger"])
+    return area, ledgers
+
+
+def _outputs(area: Path) -> dict[str, bytes]:
+    """Events and quarantine lines, with run ids (which name the hour of each run) as ``RUN``."""
+    return {k: re.sub(rb"\d{6}-\d{8}T\d{6}Z", b"RUN", v) for k, v in landing_outputs(area).items()}
+
+
+def _identities(area: Path) -> dict[str, list[tuple[object, ...]]]:
+    """Every identity and waiting image the area keeps, per file kind and table, without the run
+    ids (which name the hour of each run)."""
+    out: dict[str, list[tuple[object, ...]]] = {}
+    for f in sorted((area / "index").glob("*/*/*.parquet")):
+        key = f"{f.parent.parent.name}/{f.parent.name}"
+        rows = duckdb.sql(f"SELECT * EXCLUDE (__run) FROM read_parquet('{f}')").fetchall()
+        out.setdefault(key, []).extend(rows)
+    return out
+
+
+@pytest.mark.parametrize("shared", [pipeline.SHARED_ROWS, 0])
+def test_tables_side_by_side_write_what_one_connection_writes(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch, shared: int
+) -> None:
+    """With two threads the example's tables (three, of a few rows each) run side by side; with
+    ``shared`` 0 every table counts as large and runs alone; with one thread nothing runs side by
+    side. Events, quarantine lines, identities and ledgers must be the same in each."""
+    monkeypatch.setattr(pipeline, "SHARED_ROWS", shared)
+    alone, alone_ledgers = _area(tmp_path, "alone", "1", capsys)
+    together, together_ledgers = _area(tmp_path, "together", "2", capsys)
+    outputs = _outputs(alone)
+    assert {"events/ferry.bookings.jsonl", "quarantine/ferry.bookings.jsonl"} <= set(outputs)
+    assert b"conflict with run RUN" in outputs["quarantine/ferry.bookings.jsonl"]
+    assert _outputs(together) == outputs
+    assert _identities(together) == _identities(alone)
+    assert together_ledgers == alone_ledgers
 
 
 def test_spread_takes_no_new_item_after_an_error_and_raises_it() -> None:
-    """The first error stops both connections from taking new items; it is raised as it was."""
+    """The first error stops both connections from taking new items; it is raised as it was. The
+    connection holding item 1 finishes it (after the error) and takes nothing more."""
     engine = DuckDBEngine(threads=2)
     done: list[int] = []
-    lock = threading.Lock()
+    raised, second = threading.Event(), threading.Event()
 
     def work(e: DuckDBEngine, item: int) -> None:
         e.rows("SELECT count(*) FROM range(1000)")
-        if item == 3:
-            raise InputError("item 3 is bad", file="three.csv")
-        with lock:
-            done.append(item)
+        if item == 0:
+            assert second.wait(10)  # both connections hold an item
+            raised.set()
+            raise InputError("item 0 is bad", file="zero.csv")
+        second.set()
+        assert raised.wait(10)
+        time.sleep(0.2)  # the error is recorded by now
+        done.append(item)
 
-    with pytest.raises(CdcnormError, match="item 3 is bad"):
+    with pytest.raises(CdcnormError, match="item 0 is bad"):
         engine.spread(list(range(20)), work)
-    # the other connection may finish the item it holds when the error comes, and no more
-    assert len(done) <= 4, done
-    assert 3 not in done
+    assert done == [1]
 
 
 def test_spread_gives_each_connection_the_catalog_and_the_session() -> None:

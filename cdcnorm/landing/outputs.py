@@ -20,6 +20,7 @@ from cdcnorm.writers import WRITERS
 from cdcnorm.writers.base import sorted_events
 
 if TYPE_CHECKING:
+    from cdcnorm.engines.duckdb import DuckDBEngine
     from cdcnorm.pipeline import Options, Progress, Result
 
 
@@ -77,6 +78,62 @@ def _now() -> str:
     return datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
+def _stage_table(
+    engine: DuckDBEngine,
+    result: Result,
+    table: str,
+    staging: Path,
+    run: str,
+    writer: Any,
+    progress: Progress,
+) -> dict[str, Any]:
+    """Stage one table's files (quarantine, identities, waiting images, events); what was staged."""
+    from cdcnorm.pipeline import free_raw, rejected_relation
+
+    trun = result.tables[table]
+    plan = trun.plan
+    part = path_part(table)
+    progress(f"{table}: quarantine and index", 0, 1)
+    counts = result.ledger.tables[table].total
+    out: dict[str, Any] = {"events": None, "quarantine": None}
+    # the fields the events are written under, for reading them back after a mapping edit
+    out["fields"] = [[n, t.value_type()] for n, t in plan.mapping.field_types.items()]
+    # written while the raw rows are there (they go before the events are sorted), and always:
+    # the count of lines checks the ledger's count of quarantined rows below
+    rel = f"quarantine/{part}/{run}.jsonl"
+    lines_sql = quarantine_lines(plan, rejected_relation(trun))
+    lines = engine.copy(lines_sql, staging / rel, "lines")
+    if lines:
+        out["quarantine"] = rel
+    else:  # no file (its folder goes once every table is staged)
+        (staging / rel).unlink()
+    memory.write_emitted(engine, plan, staging / "index" / "emitted" / part / f"{run}.parquet", run)
+    out["pending"] = memory.write_pending(
+        engine,
+        plan,
+        staging / "index" / "pending" / part / f"{run}.parquet",
+        run,
+        raw_rows(plan, plan.rel("waiting")),
+    )
+    free_raw(trun, engine)  # the raw rows are needed no more: free them before the events are sorted
+    written = 0
+    if counts.emitted:
+        progress(f"{table}: sort and write events", 0, 1)
+        rel = f"events/{part}/{run}{writer.SUFFIX}"
+        # one streaming pass: the engine sorts the flat events, then builds and writes the envelopes
+        ordered = f"({sorted_events(plan, '__files')}) AS ordered_events"
+        written = writer.write(plan, engine, "__files", staging / rel, ordered)
+        out["events"] = rel
+    # The ledger is counted from aggregates; the files are written from the rows themselves.
+    if written != counts.emitted or lines != counts.quarantined:
+        raise LedgerError(
+            f"{table}: wrote {written} events and {lines} quarantine lines, but the ledger counts "
+            f"{counts.emitted} emitted and {counts.quarantined} quarantined rows",
+            hint="this is a bug in cdcnorm; please report it with the inputs",
+        )
+    return out
+
+
 def commit_run(
     result: Result,
     area: Landing,
@@ -86,7 +143,7 @@ def commit_run(
     progress: Progress,
 ) -> None:
     """Stage every file of the run, then commit it (the run record last)."""
-    from cdcnorm.pipeline import free_raw, rejected_relation
+    from cdcnorm.pipeline import SHARED_ROWS, one_at_a_time
 
     started = _now()
     run = area.next_run()
@@ -94,55 +151,26 @@ def commit_run(
     writer = WRITERS[options.fmt]
     engine = result.engine
     outputs: dict[str, dict[str, Any]] = {}
-    for table, trun in result.tables.items():
-        plan = trun.plan
-        part = path_part(table)
-        progress(f"{table}: quarantine and index", 0, 1)
-        counts = result.ledger.tables[table].total
-        out: dict[str, Any] = {"events": None, "quarantine": None}
-        # the fields the events are written under, for reading them back after a mapping edit
-        out["fields"] = [[n, t.value_type()] for n, t in plan.mapping.field_types.items()]
-        # written while the raw rows are there (they go before the events are sorted), and always:
-        # the count of lines checks the ledger's count of quarantined rows below
-        rel = f"quarantine/{part}/{run}.jsonl"
-        lines_sql = quarantine_lines(plan, rejected_relation(trun))
-        lines = engine.copy(lines_sql, staging / rel, "lines")
-        if lines:
-            out["quarantine"] = rel
-        else:  # no file, and no folder made for it
-            (staging / rel).unlink()
-            for folder in ((staging / rel).parent, (staging / rel).parent.parent):
-                if not any(folder.iterdir()):
-                    folder.rmdir()
-        memory.write_emitted(engine, plan, staging / "index" / "emitted" / part / f"{run}.parquet", run)
-        waiting = memory.write_pending(
-            engine,
-            plan,
-            staging / "index" / "pending" / part / f"{run}.parquet",
-            run,
-            raw_rows(plan, plan.rel("waiting")),
-        )
-        result.pending += waiting
-        free_raw(trun, engine)  # the raw rows are needed no more: free them before the events are sorted
-        out["pending"] = waiting
-        written = 0
-        if counts.emitted:
-            progress(f"{table}: sort and write events", 0, 1)
-            rel = f"events/{part}/{run}{writer.SUFFIX}"
-            # one streaming pass: the engine sorts the flat events, then builds and writes the envelopes
-            ordered = f"({sorted_events(plan, '__files')}) AS ordered_events"
-            written = writer.write(plan, engine, "__files", staging / rel, ordered)
-            out["events"] = rel
-        # The ledger is counted from aggregates; the files are written from the rows themselves.
-        if written != counts.emitted or lines != counts.quarantined:
-            raise LedgerError(
-                f"{table}: wrote {written} events and {lines} quarantine lines, but the ledger counts "
-                f"{counts.emitted} emitted and {counts.quarantined} quarantined rows",
-                hint="this is a bug in cdcnorm; please report it with the inputs",
-            )
-        outputs[table] = out
+
+    tell = one_at_a_time(progress)
+
+    def stage(e: DuckDBEngine, table: str) -> None:
+        outputs[table] = _stage_table(e, result, table, staging, run, writer, tell)
+
+    # as the plans ran: large tables one at a time, small ones two at a time (pipeline.SHARED_ROWS)
+    tables = list(result.tables)
+    for table in [t for t in tables if result.tables[t].raw.rows_read > SHARED_ROWS]:
+        stage(engine, table)
+    engine.spread([t for t in tables if result.tables[t].raw.rows_read <= SHARED_ROWS], stage)
+    outputs = {t: outputs[t] for t in tables}
+    for table, out in outputs.items():
+        result.pending += out["pending"]
         if out["events"]:
             result.outputs[table] = area.root / out["events"]
+    # no quarantine folder for a table that quarantined nothing, nor one for a run without any
+    for folder in [staging / "quarantine" / path_part(t) for t in tables] + [staging / "quarantine"]:
+        if folder.is_dir() and not any(folder.iterdir()):
+            folder.rmdir()
     later.resolve(inputs)
     # images waiting in the whole area after this run: this run's tables, and the others' last word
     waiting_by_table = {t: o["pending"] for t, o in outputs.items()}

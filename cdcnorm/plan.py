@@ -10,12 +10,13 @@ from __future__ import annotations
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from functools import cached_property
-
-import sqlglot
-from sqlglot import exp
+from typing import TYPE_CHECKING
 
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.sql import PLAN_DIALECT, ident
+
+if TYPE_CHECKING:
+    from sqlglot import exp
 
 #: The identity index format this version writes (``Plan.content`` is its digest; the landing
 #: area's files are described in ``landing/memory.py``).
@@ -58,6 +59,8 @@ class Step:
         runs ``sql`` as written; parsing every step of every table cost a quarter of a
         50-table run and 30% of a 300-field table's (``tests/test_plan_engines.py`` checks
         that the text and sqlglot's writing of the expression give the same rows)."""
+        import sqlglot  # only another engine and --show-plan parse a step (a fifth of a second to import)
+
         return sqlglot.parse_one(self.sql, read=PLAN_DIALECT)
 
 
@@ -216,6 +219,8 @@ class Plan:
     def show(self, render: Callable[[exp.Expr], str] | None = None) -> str:
         """The plan as SQL statements; ``render`` writes a step for an engine (default: the plan's
         own dialect)."""
+        from sqlglot import exp
+
         out = [f"-- plan for {self.mapping.table}"]
         for s in self.steps:
             create = exp.Create(

@@ -18,15 +18,17 @@ from collections.abc import Callable, Collection, Iterator, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from importlib import metadata
 from pathlib import Path
-from typing import Any, TypeVar
+from typing import TYPE_CHECKING, Any, TypeVar
 
 import duckdb
 import pyarrow as pa
-from sqlglot import exp
 
 from cdcnorm.errors import CdcnormError, DiskSpaceError, EngineMemoryError, InputError
 from cdcnorm.positions import HEX_DIGITS, HEX_KEY
 from cdcnorm.sql import ident, lit
+
+if TYPE_CHECKING:
+    from sqlglot import exp
 
 T = TypeVar("T")
 
@@ -716,3 +718,7 @@ class DuckDBEngine:
             f"e.__enc{''.join(parts)} FROM (SELECT __file, __row, {cells} AS __cells FROM {ident(ok)}) o "
             f"LEFT JOIN ({enc}) e ON e.__file = o.__file AND e.__row = o.__row"
         )
+
+
+#: what engines/__init__.py looks up by the name "duckdb"
+ENGINE = DuckDBEngine

@@ -222,3 +222,7 @@ def ident_spark(name: str) -> str:
 
 
 __all__ = ["REFUSED", "REFUSED_NODES", "SparkEngine", "UnsupportedByEngine", "render", "session"]
+
+
+#: what engines/__init__.py looks up by the name "spark"
+ENGINE = SparkEngine

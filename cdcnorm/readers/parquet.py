@@ -11,7 +11,6 @@ from pathlib import Path
 import duckdb
 import pyarrow as pa
 import pyarrow.parquet as pq
-from sqlglot import exp
 
 from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.errors import InputError
@@ -25,6 +24,8 @@ SUFFIXES = (".parquet", ".pq")
 def _members(prefix: str, struct_type: str) -> list[str]:
     """Dotted names of the leaf members of a struct type, nested structs followed (sqlglot parses
     the type): the values a mapped dotted name most likely means."""
+    from sqlglot import exp  # only for a mapping that names a member no struct has
+
     out = []
     typ = exp.DataType.build(struct_type, dialect="duckdb")
     for member in typ.expressions:

@@ -6,6 +6,8 @@ from __future__ import annotations
 
 import json
 import re
+import subprocess
+import sys
 import threading
 import time
 from pathlib import Path
@@ -121,3 +123,28 @@ def test_spread_gives_each_connection_the_catalog_and_the_session() -> None:
     engine.spread(list(range(6)), work)
     # RFC 3339 instant 10:00+02:00 is 08:00 UTC (the engine's session time zone is UTC)
     assert set(seen.values()) == {(42, 255, 1, "2026-03-01 08:00:00+00")}
+
+
+SIGINT_SCRIPT = """
+import os, signal, threading, time
+from cdcnorm.engines.duckdb import DuckDBEngine
+engine = DuckDBEngine(threads=2)
+long = "SELECT count(*) FROM range(20000000000) t(i) WHERE i % 7 = 3"  # minutes, if not stopped
+threading.Timer(1.0, lambda: os.kill(os.getpid(), signal.SIGINT)).start()
+began = time.monotonic()
+try:
+    engine.spread([1, 2, 3, 4], lambda e, item: e.rows(long))
+except BaseException as e:
+    print(type(e).__name__, round(time.monotonic() - began))
+"""
+
+
+def test_ctrl_c_stops_both_connections_and_is_an_interrupt() -> None:
+    """Ctrl-C while two connections each run a query: both stop at once and the caller gets
+    KeyboardInterrupt (which the CLI reports as exit 130), not the client's RuntimeError("Query
+    interrupted") that DuckDB raises on the main thread while another thread runs a query."""
+    out = subprocess.run(
+        [sys.executable, "-c", SIGINT_SCRIPT], capture_output=True, text=True, timeout=120, check=True
+    ).stdout.split()
+    assert out[0] == "KeyboardInterrupt", out
+    assert int(out[1]) < 10, out  # seconds: stopped, not run to the end

@@ -190,6 +190,15 @@ def engine_errors(temp: Path | str | None, where: str = "", writing: str | None 
         raise
 
 
+def interrupted(e: BaseException) -> bool:
+    """Whether ``e`` is Ctrl-C. While another connection runs a query on another thread, DuckDB's
+    Python client raises an interrupted query on the main thread as a plain ``RuntimeError``
+    ("Query interrupted"), not as ``InterruptException`` (measured with DuckDB 2.0.1)."""
+    return isinstance(e, KeyboardInterrupt | duckdb.InterruptException) or (
+        type(e) is RuntimeError and str(e) == "Query interrupted"
+    )
+
+
 def default_memory_limit() -> str:
     try:
         total = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
@@ -279,7 +288,8 @@ class DuckDBEngine:
         step of a small table), which runs on one thread: two connections keep two cores busy.
         The plan's relations and functions are in the database's catalog, which every connection
         sees; items must not share relation names. The first error stops the others from taking
-        new items and is raised once they are done. One connection when the engine has one thread.
+        new items and is raised once they are done; Ctrl-C stops every connection at once and is
+        raised as ``KeyboardInterrupt``. One connection when the engine has one thread.
         """
         width = min(width, self.threads(), len(items))
         if width < 2:
@@ -310,13 +320,16 @@ class DuckDBEngine:
                 others = [pool.submit(drain, sib) for sib in siblings]
                 try:
                     drain(self)
-                except BaseException:
-                    if not isinstance(failed[-1], Exception):  # an interrupt: stop the others now
-                        for sib in siblings:
-                            sib.con.interrupt()
-                    raise
-                for f in others:
-                    f.result()
+                    for f in others:
+                        f.result()
+                except BaseException as e:
+                    if not interrupted(e):
+                        raise
+                    with lock:  # Ctrl-C: no new item, and the others stop now, not after theirs
+                        failed.append(e)
+                    for sib in siblings:
+                        sib.con.interrupt()
+                    raise KeyboardInterrupt from None
         finally:
             for sib in siblings:
                 sib.con.close()

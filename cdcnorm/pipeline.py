@@ -496,11 +496,7 @@ def _run(
         if ledger is not None:
             counted[table] = ledger
 
-    # A large table's steps use every thread; small tables' steps are mostly the engine's fixed
-    # cost per statement, on one thread: two of them at once, on two connections.
-    for table in [t for t in todo if runs[t].raw.rows_read > SHARED_ROWS]:
-        convert(engine, table)
-    engine.spread([t for t in todo if runs[t].raw.rows_read <= SHARED_ROWS], convert)
+    each_table(engine, runs, todo, convert)
     for table in todo:  # the ledger lists the tables in the order they were read
         if table in counted:
             result.ledger.tables[table] = counted[table]
@@ -513,6 +509,21 @@ def _run(
             hint="this is a bug in cdcnorm; please report it with the inputs",
         )
     return result
+
+
+def each_table(
+    engine: DuckDBEngine,
+    runs: dict[str, TableRun],
+    tables: Sequence[str],
+    work: Callable[[DuckDBEngine, str], None],
+) -> None:
+    """``work(engine, table)`` for each of ``tables``. A large table's steps use every thread: one at
+    a time. A small table's are mostly the engine's fixed cost per statement, on one thread: two
+    at a time, each on its own connection (``DuckDBEngine.spread``)."""
+    for table in tables:
+        if runs[table].raw.rows_read > SHARED_ROWS:
+            work(engine, table)
+    engine.spread([t for t in tables if runs[t].raw.rows_read <= SHARED_ROWS], work)
 
 
 def _run_table(

@@ -143,7 +143,7 @@ def commit_run(
     progress: Progress,
 ) -> None:
     """Stage every file of the run, then commit it (the run record last)."""
-    from cdcnorm.pipeline import SHARED_ROWS, one_at_a_time
+    from cdcnorm.pipeline import each_table, one_at_a_time
 
     started = _now()
     run = area.next_run()
@@ -157,11 +157,8 @@ def commit_run(
     def stage(e: DuckDBEngine, table: str) -> None:
         outputs[table] = _stage_table(e, result, table, staging, run, writer, tell)
 
-    # as the plans ran: large tables one at a time, small ones two at a time (pipeline.SHARED_ROWS)
     tables = list(result.tables)
-    for table in [t for t in tables if result.tables[t].raw.rows_read > SHARED_ROWS]:
-        stage(engine, table)
-    engine.spread([t for t in tables if result.tables[t].raw.rows_read <= SHARED_ROWS], stage)
+    each_table(engine, result.tables, tables, stage)  # as the plans ran: small tables side by side
     outputs = {t: outputs[t] for t in tables}
     for table, out in outputs.items():
         result.pending += out["pending"]

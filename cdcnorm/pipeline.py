@@ -604,9 +604,10 @@ def show_plans(
 ) -> list[str]:
     """Each table's plan as SQL as the engine ``engine_name`` runs it (the files are read, so the
     plan names their relations)."""
-    from cdcnorm.engines import renderer
+    from cdcnorm.engines import engine_class, renderer
 
     render = renderer(engine_name)
+    temporary = bool(engine_class(engine_name).TEMPORARY)
     routed = route(expand_inputs(inputs, recursive=options.recursive), mappings)
     with scratch_folder(options.scratch) as scratch, engine_errors(scratch):
         engine = DuckDBEngine(temp_directory=str(scratch / "spill"))
@@ -614,7 +615,7 @@ def show_plans(
         read = read_all(mappings, routed, engine, options, _no_progress, scratch)
         by_name = {m.table: m for m in mappings}
         plans = [compile_table(by_name[t], raw) for t, raw in read.items() if not table or t == table]
-        return [plan.show(render) for plan in plans]
+        return [plan.show(render, temporary=temporary) for plan in plans]
 
 
 def free_raw(trun: TableRun, engine: DuckDBEngine) -> None:

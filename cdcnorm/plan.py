@@ -216,9 +216,11 @@ class Plan:
         last = max(i for i, s in enumerate(self.steps) if s.stage == stage)
         return replace(self, steps=self.steps[: last + 1])
 
-    def show(self, render: Callable[[exp.Expr], str] | None = None) -> str:
+    def show(self, render: Callable[[exp.Expr], str] | None = None, *, temporary: bool = False) -> str:
         """The plan as SQL statements; ``render`` writes a step for an engine (default: the plan's
-        own dialect)."""
+        own dialect). ``temporary``: the engine makes the steps temporary relations of a session
+        (Spark's temporary views); else tables and views of the run's own database, replaced when
+        they exist (DuckDB: an in-memory database every connection of the run sees)."""
         from sqlglot import exp
 
         out = [f"-- plan for {self.mapping.table}"]
@@ -227,7 +229,8 @@ class Plan:
                 this=exp.Table(this=exp.to_identifier(s.relation, quoted=True)),
                 kind="TABLE" if s.materialize else "VIEW",
                 expression=s.expression,
-                properties=exp.Properties(expressions=[exp.TemporaryProperty()]),
+                replace=not temporary,
+                properties=exp.Properties(expressions=[exp.TemporaryProperty()]) if temporary else None,
             )
             out.append(f"-- stage {s.stage}: {s.name}")
             out.append((render(create) if render else create.sql(dialect=PLAN_DIALECT, pretty=True)) + ";")

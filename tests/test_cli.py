@@ -258,6 +258,9 @@ def test_show_plan_prints_parseable_sql(capsys: pytest.CaptureFixture[str]) -> N
     statements = [s for s in sqlglot.parse(text, read="duckdb") if s is not None]
     assert len(statements) >= 8
     assert "-- stage dedupe" in text and "-- stage envelope" in text
+    # what the engine runs: tables of the run's own database, which both of its connections see
+    assert 'CREATE OR REPLACE TABLE "ferry_bookings__typed" AS' in text
+    assert "TEMPORARY" not in text
 
 
 def test_show_plan_spark_prints_spark_sql_and_refuses_json_by_name(

@@ -218,6 +218,9 @@ def parquet_member(keys: tuple[str, ...]) -> str:
 class DuckDBEngine:
     name = "duckdb"
     dialect = "duckdb"
+    #: plan steps are tables and views of the run's own in-memory database (which every connection
+    #: of the run sees: ``spread``), replaced when they exist; not a session's temporary relations
+    TEMPORARY = False
 
     def __init__(
         self,

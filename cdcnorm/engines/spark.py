@@ -161,6 +161,8 @@ class SparkEngine:
 
     name = "spark"
     dialect = "spark"
+    #: plan steps are the session's temporary views (``--show-plan spark`` says so)
+    TEMPORARY = True
 
     def __init__(self, spark: SparkSession | None = None, *, threads: int | None = None) -> None:
         self.spark = spark or session(threads)

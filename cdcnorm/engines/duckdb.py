@@ -199,6 +199,13 @@ def interrupted(e: BaseException) -> bool:
     )
 
 
+def _in_utc(con: duckdb.DuckDBPyConnection) -> None:
+    """The session's time zone (per connection) as UTC. Without the ICU extension DuckDB already
+    treats TIMESTAMPTZ as UTC."""
+    with contextlib.suppress(duckdb.Error):
+        con.execute("SET TimeZone = 'UTC'")
+
+
 def default_memory_limit() -> str:
     try:
         total = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
@@ -250,15 +257,13 @@ class DuckDBEngine:
         self.engine_memory = max(engine, 1 << 20)
         self.con.execute(f"SET memory_limit = '{self.engine_memory >> 10}KiB'")
         if not threads:  # as many threads as the engine's memory feeds (each sort needs its own)
-            cores = int(self.rows("SELECT current_setting('threads')")[0][0])
+            cores = self.threads()
             fed = max(1, self.engine_memory // THREAD_MEMORY)
             if fed < cores:
                 self.con.execute(f"SET threads = {fed}")
         for name, (params, body) in PLAN_FUNCTIONS.items():
             self.con.execute(f"CREATE OR REPLACE MACRO {name}({', '.join(params)}) AS {body}")
-        with contextlib.suppress(duckdb.Error):
-            # Without the ICU extension DuckDB already treats TIMESTAMPTZ as UTC.
-            self.con.execute("SET TimeZone = 'UTC'")
+        _in_utc(self.con)
         # keep Arrow tables alive while DuckDB scans them
         self._registered: dict[str, pa.Table] = {}
         # marks JSON Lines numbers read as written (types/json.py: tag_numbers); random, so that
@@ -343,8 +348,7 @@ class DuckDBEngine:
         given again."""
         other = copy_mod.copy(self)
         other.con = self.con.cursor()
-        with contextlib.suppress(duckdb.Error):
-            other.con.execute("SET TimeZone = 'UTC'")
+        _in_utc(other.con)
         other._registered = dict(self._registered)
         for name, table in other._registered.items():
             other.con.register(name, table)

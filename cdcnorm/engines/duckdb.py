@@ -15,7 +15,7 @@ import re
 import secrets
 import threading
 from collections.abc import Callable, Collection, Iterator, Sequence
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import ThreadPoolExecutor, wait
 from importlib import metadata
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, TypeVar
@@ -296,8 +296,13 @@ class DuckDBEngine:
         step of a small table), which runs on one thread: two connections keep two cores busy.
         The plan's relations and functions are in the database's catalog, which every connection
         sees; items must not share relation names. The first error stops the others from taking
-        new items and is raised once they are done; Ctrl-C stops every connection at once and is
-        raised as ``KeyboardInterrupt``. One connection when the engine has one thread.
+        new items and is raised once they are done. One connection when the engine has one
+        thread.
+
+        The connections work on threads of their own while the main thread only waits: Python
+        sees Ctrl-C on the main thread, and a query the main thread ran itself would notice it
+        only between the engine's tasks, which can be a long wait. Ctrl-C interrupts every
+        connection at once and is raised as ``KeyboardInterrupt``.
         """
         width = min(width, self.threads(), len(items))
         if width < 2:
@@ -320,27 +325,26 @@ class DuckDBEngine:
             except BaseException as e:
                 with lock:
                     failed.append(e)
-                raise
 
-        siblings = [self.sibling() for _ in range(width - 1)]
+        engines = [self, *(self.sibling() for _ in range(width - 1))]
         try:
-            with ThreadPoolExecutor(max_workers=len(siblings)) as pool:
-                others = [pool.submit(drain, sib) for sib in siblings]
+            with ThreadPoolExecutor(max_workers=width) as pool:
+                running = [pool.submit(drain, engine) for engine in engines]
                 try:
-                    drain(self)
-                    for f in others:
-                        f.result()
-                except BaseException as e:
-                    if not interrupted(e):
-                        raise
-                    with lock:  # Ctrl-C: no new item, and the others stop now, not after theirs
-                        failed.append(e)
-                    for sib in siblings:
-                        sib.con.interrupt()
+                    wait(running)
+                except BaseException:
+                    with lock:  # Ctrl-C: no new item, and every connection stops now
+                        failed.append(KeyboardInterrupt())
+                    for engine in engines:
+                        engine.con.interrupt()
                     raise KeyboardInterrupt from None
         finally:
-            for sib in siblings:
-                sib.con.close()
+            for engine in engines[1:]:
+                engine.con.close()
+        if failed:
+            if interrupted(failed[0]):
+                raise KeyboardInterrupt from None
+            raise failed[0]
 
     def sibling(self) -> DuckDBEngine:
         """This engine on another connection to the same database: the same catalog and settings;

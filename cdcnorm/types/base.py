@@ -46,6 +46,11 @@ class FieldType:
         """SQL: the typed value of raw text ``x``, NULL when invalid."""
         raise NotImplementedError
 
+    @property
+    def accepts_any(self) -> bool:
+        """Whether every text is a valid value (``cast`` is ``x`` itself): no check is planned."""
+        return False
+
     def explain(self, x: str) -> str:
         """SQL: why raw text ``x`` is not a valid value (only evaluated when it is not)."""
         return "'not a valid " + self.describe() + "'"

@@ -27,5 +27,9 @@ class TextType(FieldType):
             return f"CASE WHEN length({x}) <= {self.max_length} THEN {x} END"
         return x
 
+    @property
+    def accepts_any(self) -> bool:
+        return not self.max_length
+
     def explain(self, x: str) -> str:
         return f"'longer than {self.max_length} characters'"

@@ -53,8 +53,8 @@ def _batches(f: RawFile) -> Iterator[pa.RecordBatch]:
     number = 0
 
     def batch(lines: pa.Array, first: int) -> pa.RecordBatch:
-        rows = pa.array(np.arange(first, first + len(lines), dtype=np.int64))
-        ids = pa.array(np.full(len(lines), f.file_id, dtype=np.int32))
+        rows = _numbers(np.arange(first, first + len(lines), dtype=np.int64), pa.int64())
+        ids = _numbers(np.full(len(lines), f.file_id, dtype=np.int32), pa.int32())
         return pa.RecordBatch.from_arrays([lines, rows, ids], schema=LINES)
 
     for block in streams.blocks(f.path):
@@ -69,11 +69,24 @@ def _batches(f: RawFile) -> Iterator[pa.RecordBatch]:
                 )
             continue
         carry = data[cut + 1 :]
-        lines = pc.list_flatten(pc.split_pattern(pa.array([data[:cut]], pa.large_binary()), b"\n"))
+        lines = pc.list_flatten(pc.split_pattern(_one_value(memoryview(data)[:cut]), b"\n"))
         yield batch(lines, number + 1)
         number += len(lines)
     if carry:
-        yield batch(pa.array([carry], pa.large_binary()), number + 1)
+        yield batch(_one_value(carry), number + 1)
+
+
+def _numbers(values: np.ndarray[Any, Any], typ: pa.DataType) -> pa.Array:
+    """An Arrow array over ``values`` (of ``typ``'s width), not copied. Arrays here are built from
+    their buffers: ``pa.array`` makes pyarrow import pandas (a fifth of a second) to check what
+    it was given, a list or a NumPy array alike."""
+    return pa.Array.from_buffers(typ, len(values), [None, pa.py_buffer(values)])
+
+
+def _one_value(data: bytes | memoryview) -> pa.Array:
+    """One large-binary value over ``data``'s bytes, not copied (see ``_numbers``)."""
+    offsets = np.array([0, len(data)], dtype=np.int64)
+    return pa.Array.from_buffers(pa.large_binary(), 1, [None, pa.py_buffer(offsets), pa.py_buffer(data)])
 
 
 def read_files(

@@ -550,10 +550,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     except Exception as e:
         import duckdb
 
-        if isinstance(e, duckdb.InterruptException):  # Ctrl-C while the engine was working
+        from cdcnorm.engines.duckdb import disk_full, interrupted, out_of_memory
+
+        if interrupted(e):  # Ctrl-C while the engine was working, in any of the client's forms
             err.print("interrupted: nothing was committed and no output was left half-written", markup=False)
             return 130
-        from cdcnorm.engines.duckdb import disk_full, out_of_memory
 
         if isinstance(e, duckdb.OutOfMemoryException):
             # some steps cannot spill below a minimum: say so in our words, never a traceback

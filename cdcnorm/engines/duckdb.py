@@ -191,9 +191,10 @@ def engine_errors(temp: Path | str | None, where: str = "", writing: str | None 
 
 
 def interrupted(e: BaseException) -> bool:
-    """Whether ``e`` is Ctrl-C. While another connection runs a query on another thread, DuckDB's
-    Python client raises an interrupted query on the main thread as a plain ``RuntimeError``
-    ("Query interrupted"), not as ``InterruptException`` (measured with DuckDB 2.0.1)."""
+    """Whether ``e`` is Ctrl-C. DuckDB's Python client raises a query interrupted on the main thread
+    as a plain ``RuntimeError`` ("Query interrupted"), not as ``InterruptException``, whenever
+    another thread is running too (a reader's thread, a second connection; measured with DuckDB
+    2.0.1)."""
     return isinstance(e, KeyboardInterrupt | duckdb.InterruptException) or (
         type(e) is RuntimeError and str(e) == "Query interrupted"
     )

@@ -6,6 +6,8 @@ import errno
 import os
 import secrets
 import shutil
+import signal
+import threading
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -32,6 +34,7 @@ class Landing:
         """Finish a publish the journal names; remove unfinished runs' staging folders and any
         temporary file an interrupted write left."""
         journal.replay(self.root, self.meta)
+        (self.meta / (journal.NAME + ".tmp")).unlink(missing_ok=True)  # a journal never written
         for staging in self.meta.glob("staging-*"):
             shutil.rmtree(staging, ignore_errors=True)
         for folder in DATA:
@@ -52,11 +55,25 @@ class Landing:
         folder.mkdir(parents=True)
         return folder
 
+    def discard(self, staging: Path) -> None:
+        """Remove a run's staging folder unless a written journal commits it (its moves are then
+        finished by the next opening of the area)."""
+        if not (self.meta / journal.NAME).exists():
+            shutil.rmtree(staging, ignore_errors=True)
+
     def publish(self, staging: Path, run: str) -> None:
-        """Commit a run: the journal names every move (the run record last), then they are made."""
+        """Commit a run: the journal names every move (the run record last), then they are made.
+
+        Ctrl-C is held back until they are: once the journal is written the run is committed,
+        and an interrupt there would be reported as "nothing was committed" while the next
+        opening of the area finishes the publish. The command then ends as a committed run does."""
         record = f"{runs.RUNS}/{run}.json"
         files = sorted(p.relative_to(staging).as_posix() for p in staging.rglob("*") if p.is_file())
         moves = [(f, f) for f in files if f != record] + [(record, record)]
+        with _ctrl_c_held():
+            self._publish(staging, run, moves)
+
+    def _publish(self, staging: Path, run: str, moves: list[tuple[str, str]]) -> None:
         journal.write(self.meta, staging, moves)
         try:
             journal.replay(self.root, self.meta)
@@ -97,6 +114,19 @@ class Landing:
         done = self.committed()
         found = sorted(p for p in folder.glob("*.parquet") if p.stem in done) if folder.is_dir() else []
         return found[-1] if found else None
+
+
+@contextmanager
+def _ctrl_c_held() -> Iterator[None]:
+    """SIGINT ignored inside (only the main thread may set a handler; elsewhere nothing changes)."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
 
 
 def _check_folder(root: Path) -> None:

@@ -28,11 +28,15 @@ def _fsync_dir(folder: Path) -> None:
 def write(meta: Path, staging: Path, moves: list[tuple[str, str]]) -> None:
     """Record the moves (paths relative to the area) that publish ``staging``."""
     tmp = meta / (NAME + ".tmp")
-    with open(tmp, "w", encoding="utf-8") as f:
-        json.dump({"staging": staging.name, "moves": moves}, f)
-        f.flush()
-        os.fsync(f.fileno())
-    os.replace(tmp, meta / NAME)
+    try:
+        with open(tmp, "w", encoding="utf-8") as f:
+            json.dump({"staging": staging.name, "moves": moves}, f)
+            f.flush()
+            os.fsync(f.fileno())
+        os.replace(tmp, meta / NAME)
+    except BaseException:  # not committed: no half-written journal is left behind
+        tmp.unlink(missing_ok=True)
+        raise
     _fsync_dir(meta)
 
 

@@ -142,12 +142,31 @@ def commit_run(
     later: Checksums,
     progress: Progress,
 ) -> None:
-    """Stage every file of the run, then commit it (the run record last)."""
-    from cdcnorm.pipeline import each_table, one_at_a_time
-
+    """Stage every file of the run, then commit it (the run record last). A run stopped before its
+    commit (an error, Ctrl-C) removes what it staged."""
     started = _now()
     run = area.next_run()
     staging = area.staging(run)
+    try:
+        _stage_and_publish(result, area, options, inputs, later, progress, started, run, staging)
+    except BaseException:
+        area.discard(staging)
+        raise
+
+
+def _stage_and_publish(
+    result: Result,
+    area: Landing,
+    options: Options,
+    inputs: list[dict[str, Any]],
+    later: Checksums,
+    progress: Progress,
+    started: str,
+    run: str,
+    staging: Path,
+) -> None:
+    from cdcnorm.pipeline import each_table, one_at_a_time
+
     writer = WRITERS[options.fmt]
     engine = result.engine
     outputs: dict[str, dict[str, Any]] = {}

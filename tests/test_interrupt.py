@@ -1,0 +1,104 @@
+"""Ctrl-C through the command line: a conversion interrupted while the engine works exits 130 and
+commits nothing; one interrupted while its run is committed finishes the commit."""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+from tests.conftest import cli
+
+ROOT = Path(__file__).resolve().parent.parent
+DEMO = ROOT / "cdcnorm" / "demo"
+
+
+def _dump(tmp_path: Path, rows: int) -> tuple[Path, Path]:
+    sys.path.insert(0, str(ROOT / "tests" / "bench"))
+    import dumpgen
+
+    mdir = dumpgen.write_mapping(tmp_path / "m").parent
+    (tmp_path / "d").mkdir()
+    dumpgen.generate(rows, tmp_path / "d")
+    return mdir, tmp_path / "d"
+
+
+def _convert(mdir: Path, dumps: Path, landing: Path) -> list[str]:
+    return [
+        sys.executable,
+        "-m",
+        "cdcnorm",
+        "convert",
+        "--mappings",
+        str(mdir),
+        str(dumps),
+        "--out",
+        str(landing),
+    ]
+
+
+def test_ctrl_c_while_the_engine_works_on_a_large_table_exits_130_and_commits_nothing(tmp_path: Path) -> None:
+    """A table too large to share the engine runs its steps on the main thread, where DuckDB's
+    client raises an interrupted query as a plain RuntimeError whenever another thread runs too:
+    before, that ended in a traceback and exit 1. Interrupted at a quarter and a half of a run's
+    time (the quicker of two runs), while the engine reads, types, pairs and writes the rows; the
+    commit comes at the very end."""
+    mdir, dumps = _dump(tmp_path, 400_000)
+    times = []
+    for i in range(2):
+        started = time.monotonic()
+        subprocess.run(_convert(mdir, dumps, tmp_path / f"timing{i}"), check=True, capture_output=True)
+        times.append(time.monotonic() - started)
+    took = min(times)
+    for share in (1 / 4, 1 / 2):
+        landing = tmp_path / f"landing-{share:.2f}"
+        proc = subprocess.Popen(
+            _convert(mdir, dumps, landing), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True
+        )
+        time.sleep(took * share)
+        proc.send_signal(signal.SIGINT)
+        _, err = proc.communicate(timeout=120)
+        assert proc.returncode == 130, err
+        assert "interrupted: nothing was committed" in err and "Traceback" not in err, err
+        assert not list(landing.glob("runs/*.json")) and not list(landing.glob("events/**/*.*"))
+        assert [p.name for p in (landing / ".cdcnorm").iterdir()] == [
+            "lock"
+        ]  # no staging, journal or temporary file
+
+
+def test_ctrl_c_while_a_run_is_committed_finishes_the_commit(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """Once the journal is written the run is committed: an interrupt arriving while its files move
+    into place must neither stop the moves nor be reported as "nothing was committed". The
+    interrupt is a real SIGINT to this process, sent as the first file moves."""
+    landing = tmp_path / "landing"
+    real_replace = os.replace
+    sent: list[str] = []
+
+    def replace(src: str | Path, dst: str | Path) -> None:
+        if "staging-" in str(src) and "staging-" not in str(dst) and not sent:
+            sent.append(str(src))
+            os.kill(os.getpid(), signal.SIGINT)
+        real_replace(src, dst)
+
+    monkeypatch.setattr(os, "replace", replace)
+    code = cli(
+        "convert",
+        "--mappings",
+        str(DEMO / "mappings"),
+        str(DEMO / "examples" / "dumps"),
+        "--out",
+        str(landing),
+    )
+    err = capsys.readouterr().err
+    assert sent and code == 0 and "interrupted" not in err, err
+    assert len(list(landing.glob("runs/*.json"))) == 1
+    assert not (landing / ".cdcnorm" / "journal.json").exists()
+    assert len(list(landing.glob("events/*/*.jsonl"))) == 3
+    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler  # Python's own again

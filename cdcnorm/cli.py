@@ -516,9 +516,36 @@ def cmd_demo(args: argparse.Namespace) -> int:
     return code
 
 
+#: What Ctrl-C leaves, by command: what it wrote is whole or not there (files are written under a
+#: temporary name and renamed, a landing area's run is committed by its journal, a target's batch
+#: in one transaction).
+INTERRUPTED = {
+    "convert": "nothing was committed and no output was left half-written",
+    "demo": "nothing was committed and no output was left half-written",
+    "settle": "nothing was committed and no output was left half-written",
+    "snapshot": (
+        "no state file was left half-written: each table's file is written whole before it replaces the "
+        "old one, so the tables done before the interrupt have their new state and the others their old one"
+    ),
+    "apply": (
+        "each batch is applied in a transaction of its own: the batches done before the interrupt stay "
+        "applied, the one under way was rolled back; apply again to apply the rest"
+    ),
+    "apply --dry-run": "a dry run changes nothing: its one transaction was rolled back",
+}
+
+
+def _interrupted(command: str | None) -> int:
+    said = INTERRUPTED.get(command or "")
+    err.print("interrupted" + (f": {said}" if said else ""), markup=False, soft_wrap=True)
+    return 130
+
+
 def main(argv: Sequence[str] | None = None) -> int:
+    command: str | None = None
     try:
         args = build_parser().parse_args(argv)
+        command = f"{args.command} --dry-run" if getattr(args, "dry_run", False) else args.command
         if args.command == "convert":
             return cmd_convert(args)
         if args.command == "check":
@@ -545,16 +572,14 @@ def main(argv: Sequence[str] | None = None) -> int:
     except CdcnormError as e:
         return _report(e, argv)
     except KeyboardInterrupt:
-        err.print("interrupted: nothing was committed and no output was left half-written", markup=False)
-        return 130
+        return _interrupted(command)
     except Exception as e:
         import duckdb
 
         from cdcnorm.engines.duckdb import disk_full, interrupted, out_of_memory
 
         if interrupted(e):  # Ctrl-C while the engine was working, in any of the client's forms
-            err.print("interrupted: nothing was committed and no output was left half-written", markup=False)
-            return 130
+            return _interrupted(command)
 
         if isinstance(e, duckdb.OutOfMemoryException):
             # some steps cannot spill below a minimum: say so in our words, never a traceback

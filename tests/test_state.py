@@ -265,7 +265,9 @@ def test_apply_dry_run_reports_the_same_counts_and_changes_nothing(berths: Any, 
     assert dry == real
 
 
-def test_a_killed_apply_leaves_whole_batches_and_a_rerun_completes_it(tmp_path: Path) -> None:
+@pytest.mark.parametrize("how", [signal.SIGKILL, signal.SIGINT], ids=["killed", "ctrl-c"])
+def test_a_stopped_apply_leaves_whole_batches_and_a_rerun_completes_it(tmp_path: Path, how: int) -> None:
+    """Killed, or interrupted with Ctrl-C (exit 130, and the message says what stays applied)."""
     from tests.test_oracle_sqlite import MAPPING, SCHEMA, final_table, workload
 
     rng = random.Random(3)
@@ -284,7 +286,7 @@ def test_a_killed_apply_leaves_whole_batches_and_a_rerun_completes_it(tmp_path: 
     target = tmp_path / "w.db"
     url = f"sqlite:///{target}"
     cmd = _apply_cmd(landing, mdir, url, "--batch-rows", "5")
-    proc = subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    proc = subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
     seen = 0
     deadline = time.monotonic() + 60
     while time.monotonic() < deadline and proc.poll() is None:
@@ -297,9 +299,12 @@ def test_a_killed_apply_leaves_whole_batches_and_a_rerun_completes_it(tmp_path: 
         if seen >= 20:
             break
         time.sleep(0.01)
-    proc.send_signal(signal.SIGKILL)
-    proc.wait()
-    assert 20 <= seen < len(final), "the apply must be killed part-way"
+    proc.send_signal(how)
+    _, err = proc.communicate(timeout=60)
+    assert 20 <= seen < len(final), "the apply must be stopped part-way"
+    if how == signal.SIGINT:
+        assert proc.returncode == 130 and "Traceback" not in err, err
+        assert "interrupted: each batch is applied in a transaction of its own" in err, err
     # consistent: every row is whole, the values of the very event its position names
     by_position = {(e["key"]["berth_id"], e["position"]): e["values"] for e in _events(landing)}
     con = sqlite3.connect(target)

@@ -17,7 +17,7 @@ from rich.table import Table
 
 from cdcnorm import __version__
 from cdcnorm.engines import ENGINES
-from cdcnorm.errors import EXIT_OK, CdcnormError, UsageError
+from cdcnorm.errors import EXIT_OK, CdcnormError, InterruptedRun, UsageError
 from cdcnorm.mapping import load_mappings
 from cdcnorm.pipeline import STAGE_NAMES, Options, Result, describe_sources, file_notes, run
 
@@ -535,10 +535,9 @@ INTERRUPTED = {
 }
 
 
-def _interrupted(command: str | None) -> int:
+def _interrupted(command: str | None, argv: Sequence[str] | None) -> int:
     said = INTERRUPTED.get(command or "")
-    err.print("interrupted" + (f": {said}" if said else ""), markup=False, soft_wrap=True)
-    return 130
+    return _report(InterruptedRun("interrupted" + (f": {said}" if said else "")), argv)
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -572,14 +571,14 @@ def main(argv: Sequence[str] | None = None) -> int:
     except CdcnormError as e:
         return _report(e, argv)
     except KeyboardInterrupt:
-        return _interrupted(command)
+        return _interrupted(command, argv)
     except Exception as e:
         import duckdb
 
         from cdcnorm.engines.duckdb import disk_full, interrupted, out_of_memory
 
         if interrupted(e):  # Ctrl-C while the engine was working, in any of the client's forms
-            return _interrupted(command)
+            return _interrupted(command, argv)
 
         if isinstance(e, duckdb.OutOfMemoryException):
             # some steps cannot spill below a minimum: say so in our words, never a traceback

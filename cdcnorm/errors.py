@@ -24,6 +24,8 @@ EXIT_TARGET = 10
 EXIT_INCOMPLETE = 11
 EXIT_MEMORY = 12
 EXIT_DISK = 13
+#: 128 + SIGINT: what a shell reports for a process Ctrl-C stopped (common practice)
+EXIT_INTERRUPTED = 130
 
 
 def closest(name: str, candidates: Iterable[str]) -> str | None:
@@ -161,6 +163,12 @@ class DiskSpaceError(CdcnormError):
     """The disk is full, or the engine's spill files reached --spill-limit (nothing is committed)."""
 
     exit_code = EXIT_DISK
+
+
+class InterruptedRun(CdcnormError):
+    """Ctrl-C: the message says what the command leaves (``cli.INTERRUPTED``)."""
+
+    exit_code = EXIT_INTERRUPTED
 
 
 class TargetError(CdcnormError):

@@ -3,6 +3,7 @@ commits nothing; one interrupted while its run is committed finishes the commit.
 
 from __future__ import annotations
 
+import json
 import os
 import signal
 import subprocess
@@ -55,16 +56,19 @@ def test_ctrl_c_while_the_engine_works_on_a_large_table_exits_130_and_commits_no
         subprocess.run(_convert(mdir, dumps, tmp_path / f"timing{i}"), check=True, capture_output=True)
         times.append(time.monotonic() - started)
     took = min(times)
-    for share in (0.35, 0.6):
+    for share, extra in ((0.35, []), (0.6, ["--json"])):
         landing = tmp_path / f"landing-{share:.2f}"
         proc = subprocess.Popen(
-            _convert(mdir, dumps, landing), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True
+            _convert(mdir, dumps, landing) + extra, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True
         )
         time.sleep(took * share)
         proc.send_signal(signal.SIGINT)
-        _, err = proc.communicate(timeout=120)
+        out, err = proc.communicate(timeout=120)
         assert proc.returncode == 130, err
-        assert "interrupted: nothing was committed" in err and "Traceback" not in err, err
+        assert "error: interrupted: nothing was committed" in err and "Traceback" not in err, err
+        if extra:  # the JSON of an error, as every error prints it under --json (RFC 8259)
+            said = json.loads(out)
+            assert said["error"] == "InterruptedRun" and said["exit_code"] == 130, out
         assert not list(landing.glob("runs/*.json")) and not list(landing.glob("events/**/*.*"))
         assert [p.name for p in (landing / ".cdcnorm").iterdir()] == [
             "lock"

@@ -50,16 +50,19 @@ class Landing:
         number = 1 + max((int(r.split("-")[0]) for r in done), default=0)
         return f"{number:06d}-{datetime.now(UTC):%Y%m%dT%H%M%SZ}"
 
-    def staging(self, run: str) -> Path:
+    @contextmanager
+    def staged(self, run: str) -> Iterator[Path]:
+        """The run's staging folder. If the block stops before a written journal commits the run
+        (an error, Ctrl-C), the folder is removed; once committed, the next opening of the area
+        finishes the moves."""
         folder = self.meta / f"staging-{run}"
         folder.mkdir(parents=True)
-        return folder
-
-    def discard(self, staging: Path) -> None:
-        """Remove a run's staging folder unless a written journal commits it (its moves are then
-        finished by the next opening of the area)."""
-        if not (self.meta / journal.NAME).exists():
-            shutil.rmtree(staging, ignore_errors=True)
+        try:
+            yield folder
+        except BaseException:
+            if not (self.meta / journal.NAME).exists():
+                shutil.rmtree(folder, ignore_errors=True)
+            raise
 
     def publish(self, staging: Path, run: str) -> None:
         """Commit a run: the journal names every move (the run record last), then they are made.

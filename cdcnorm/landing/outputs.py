@@ -144,82 +144,64 @@ def commit_run(
 ) -> None:
     """Stage every file of the run, then commit it (the run record last). A run stopped before its
     commit (an error, Ctrl-C) removes what it staged."""
-    started = _now()
-    run = area.next_run()
-    staging = area.staging(run)
-    try:
-        _stage_and_publish(result, area, options, inputs, later, progress, started, run, staging)
-    except BaseException:
-        area.discard(staging)
-        raise
-
-
-def _stage_and_publish(
-    result: Result,
-    area: Landing,
-    options: Options,
-    inputs: list[dict[str, Any]],
-    later: Checksums,
-    progress: Progress,
-    started: str,
-    run: str,
-    staging: Path,
-) -> None:
     from cdcnorm.pipeline import each_table, one_at_a_time
 
-    writer = WRITERS[options.fmt]
-    engine = result.engine
-    outputs: dict[str, dict[str, Any]] = {}
+    started = _now()
+    run = area.next_run()
+    with area.staged(run) as staging:
+        writer = WRITERS[options.fmt]
+        engine = result.engine
+        outputs: dict[str, dict[str, Any]] = {}
 
-    tell = one_at_a_time(progress)
+        tell = one_at_a_time(progress)
 
-    def stage(e: DuckDBEngine, table: str) -> None:
-        outputs[table] = _stage_table(e, result, table, staging, run, writer, tell)
+        def stage(e: DuckDBEngine, table: str) -> None:
+            outputs[table] = _stage_table(e, result, table, staging, run, writer, tell)
 
-    tables = list(result.tables)
-    each_table(engine, result.tables, tables, stage)  # as the plans ran: small tables side by side
-    outputs = {t: outputs[t] for t in tables}
-    for table, out in outputs.items():
-        result.pending += out["pending"]
-        if out["events"]:
-            result.outputs[table] = area.root / out["events"]
-    # no quarantine folder for a table that quarantined nothing, nor one for a run without any
-    for folder in [staging / "quarantine" / path_part(t) for t in tables] + [staging / "quarantine"]:
-        if folder.is_dir() and not any(folder.iterdir()):
-            folder.rmdir()
-    later.resolve(inputs)
-    # images waiting in the whole area after this run: this run's tables, and the others' last word
-    waiting_by_table = {t: o["pending"] for t, o in outputs.items()}
-    folder = area.root / "index" / "pending"
-    for table_dir in sorted(folder.iterdir()) if folder.is_dir() else []:
-        if table_dir.name not in waiting_by_table and area.pending_file(table_dir.name) is not None:
-            waiting_by_table[table_dir.name] = area.waiting_count(table_dir.name)
-    result.waiting = sum(waiting_by_table.values())
-    from cdcnorm.pipeline import file_notes  # the pipeline calls this module
+        tables = list(result.tables)
+        each_table(engine, result.tables, tables, stage)  # as the plans ran: small tables side by side
+        outputs = {t: outputs[t] for t in tables}
+        for table, out in outputs.items():
+            result.pending += out["pending"]
+            if out["events"]:
+                result.outputs[table] = area.root / out["events"]
+        # no quarantine folder for a table that quarantined nothing, nor one for a run without any
+        for folder in [staging / "quarantine" / path_part(t) for t in tables] + [staging / "quarantine"]:
+            if folder.is_dir() and not any(folder.iterdir()):
+                folder.rmdir()
+        later.resolve(inputs)
+        # images waiting in the whole area after this run: this run's tables, and the others' last word
+        waiting_by_table = {t: o["pending"] for t, o in outputs.items()}
+        folder = area.root / "index" / "pending"
+        for table_dir in sorted(folder.iterdir()) if folder.is_dir() else []:
+            if table_dir.name not in waiting_by_table and area.pending_file(table_dir.name) is not None:
+                waiting_by_table[table_dir.name] = area.waiting_count(table_dir.name)
+        result.waiting = sum(waiting_by_table.values())
+        from cdcnorm.pipeline import file_notes  # the pipeline calls this module
 
-    record = {
-        "run": run,
-        "started": started,
-        "finished": _now(),
-        "cdcnorm": __version__,
-        "options": {
-            "format": options.fmt,
-            "settle": options.settle,
-            "replace": options.replace,
-            "memory_limit": options.memory_limit,
-        },
-        "inputs": inputs,
-        "skipped": result.skipped,
-        "hidden": result.hidden,
-        "notes": file_notes(result),
-        "ledger": result.ledger.as_dict(),
-        "pending": result.pending,
-        "waiting": result.waiting,
-        "waiting_by_table": waiting_by_table,
-        "tables": outputs,
-    }
-    folder = staging / runs.RUNS
-    folder.mkdir(parents=True, exist_ok=True)
-    (folder / f"{run}.json").write_text(json.dumps(record, indent=2) + "\n", encoding="utf-8")
-    area.publish(staging, run)
-    result.run = run
+        record = {
+            "run": run,
+            "started": started,
+            "finished": _now(),
+            "cdcnorm": __version__,
+            "options": {
+                "format": options.fmt,
+                "settle": options.settle,
+                "replace": options.replace,
+                "memory_limit": options.memory_limit,
+            },
+            "inputs": inputs,
+            "skipped": result.skipped,
+            "hidden": result.hidden,
+            "notes": file_notes(result),
+            "ledger": result.ledger.as_dict(),
+            "pending": result.pending,
+            "waiting": result.waiting,
+            "waiting_by_table": waiting_by_table,
+            "tables": outputs,
+        }
+        folder = staging / runs.RUNS
+        folder.mkdir(parents=True, exist_ok=True)
+        (folder / f"{run}.json").write_text(json.dumps(record, indent=2) + "\n", encoding="utf-8")
+        area.publish(staging, run)
+        result.run = run

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import os
+import signal
 import textwrap
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
@@ -15,6 +16,12 @@ import pytest
 from cdcnorm.cli import main
 
 ROOT = Path(__file__).resolve().parent.parent
+
+# A test run started in the background by a non-interactive shell (a CI job) inherits SIGINT
+# ignored, and so does every process it starts: Python then installs no KeyboardInterrupt handler,
+# and the Ctrl-C tests would wait for the end or test nothing. The tests run as from a terminal.
+if signal.getsignal(signal.SIGINT) is signal.SIG_IGN:
+    signal.signal(signal.SIGINT, signal.default_int_handler)
 
 
 @dataclass

@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import os
 import signal
+import sys
 import textwrap
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
@@ -22,6 +23,18 @@ ROOT = Path(__file__).resolve().parent.parent
 # and the Ctrl-C tests would wait for the end or test nothing. The tests run as from a terminal.
 if signal.getsignal(signal.SIGINT) is signal.SIG_IGN:
     signal.signal(signal.SIGINT, signal.default_int_handler)
+
+
+def bench_dump(tmp_path: Path, rows: int) -> tuple[Path, Path]:
+    """The benchmark's realistic dump of ``rows`` rows (``tests/bench/dumpgen.py``): its mappings
+    folder and its dumps folder, under ``tmp_path``."""
+    sys.path.insert(0, str(ROOT / "tests" / "bench"))
+    import dumpgen
+
+    mdir = dumpgen.write_mapping(tmp_path / "m").parent
+    (tmp_path / "d").mkdir()
+    dumpgen.generate(rows, tmp_path / "d")
+    return mdir, tmp_path / "d"
 
 
 @dataclass

@@ -13,20 +13,10 @@ from pathlib import Path
 
 import pytest
 
-from tests.conftest import cli
+from tests.conftest import bench_dump, cli
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMO = ROOT / "cdcnorm" / "demo"
-
-
-def _dump(tmp_path: Path, rows: int) -> tuple[Path, Path]:
-    sys.path.insert(0, str(ROOT / "tests" / "bench"))
-    import dumpgen
-
-    mdir = dumpgen.write_mapping(tmp_path / "m").parent
-    (tmp_path / "d").mkdir()
-    dumpgen.generate(rows, tmp_path / "d")
-    return mdir, tmp_path / "d"
 
 
 def _convert(mdir: Path, dumps: Path, landing: Path) -> list[str]:
@@ -49,7 +39,7 @@ def test_ctrl_c_while_the_engine_works_on_a_large_table_exits_130_and_commits_no
     before, that ended in a traceback and exit 1. Interrupted at 35% and 60% of a run's
     time (the quicker of two runs), while the engine reads, types, pairs and writes the rows; the
     commit comes at the very end."""
-    mdir, dumps = _dump(tmp_path, 400_000)
+    mdir, dumps = bench_dump(tmp_path, 400_000)
     times = []
     for i in range(2):
         started = time.monotonic()

@@ -16,17 +16,7 @@ import pytest
 from cdcnorm.engines.duckdb import disk_full
 from cdcnorm.errors import EXIT_DISK
 from cdcnorm.scratch import OWNER, PREFIX, scratch_folder, sweep
-from tests.conftest import cli
-
-
-def _bench_dump(tmp_path: Path, rows: int) -> tuple[Path, Path]:
-    sys.path.insert(0, str(Path(__file__).resolve().parent / "bench"))
-    import dumpgen
-
-    mdir = dumpgen.write_mapping(tmp_path / "m").parent
-    (tmp_path / "d").mkdir()
-    dumpgen.generate(rows, tmp_path / "d")
-    return mdir, tmp_path / "d"
+from tests.conftest import bench_dump, cli
 
 
 def test_a_run_uses_its_own_scratch_folder_and_removes_it(tmp_path: Path) -> None:
@@ -65,7 +55,7 @@ def test_a_killed_runs_folder_is_swept_by_the_next_run(tmp_path: Path) -> None:
 
 
 def test_scratch_must_be_a_folder(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    mdir, dumps = _bench_dump(tmp_path, 100)
+    mdir, dumps = bench_dump(tmp_path, 100)
     code = cli(
         "convert",
         "--mappings",
@@ -85,7 +75,7 @@ def test_spill_files_over_the_spill_limit_are_a_disk_error_and_commit_nothing(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
     """A real spill: the engine's limit is far below the input and the spill space is capped."""
-    mdir, dumps = _bench_dump(tmp_path, 50_000)
+    mdir, dumps = bench_dump(tmp_path, 50_000)
     out = tmp_path / "out"
     scratch = tmp_path / "scratch"
     scratch.mkdir()
@@ -194,7 +184,7 @@ def test_snapshot_and_apply_take_the_same_engine_options(
 ) -> None:
     """A real spill in snapshot over --spill-limit is exit 13; a size that is not one is refused
     when the arguments are read (exit 2), not by the engine with a traceback."""
-    mdir, dumps = _bench_dump(tmp_path, 200_000)
+    mdir, dumps = bench_dump(tmp_path, 200_000)
     landing = tmp_path / "landing"
     args = ["convert", "--quiet", "--mappings", str(mdir), str(dumps), "--out", str(landing)]
     assert cli(*args, "--format", "parquet") == 0

@@ -74,23 +74,20 @@ class Landing:
         files = sorted(p.relative_to(staging).as_posix() for p in staging.rglob("*") if p.is_file())
         moves = [(f, f) for f in files if f != record] + [(record, record)]
         with _ctrl_c_held():
-            self._publish(staging, run, moves)
-
-    def _publish(self, staging: Path, run: str, moves: list[tuple[str, str]]) -> None:
-        journal.write(self.meta, staging, moves)
-        try:
-            journal.replay(self.root, self.meta)
-        except OSError as e:  # committed: the journal is written, only the moves are left
-            message = (
-                f"run {run} is committed, but moving its files into place stopped ({e.strerror}); "
-                "the next convert into this landing area finishes the move"
-            )
-            kind = DiskSpaceError if e.errno == errno.ENOSPC else CdcnormError
-            raise kind(
-                message,
-                file=str(self.root),
-                hint="free disk space, then run convert again (with the same or new dumps)",
-            ) from None
+            journal.write(self.meta, staging, moves)
+            try:
+                journal.replay(self.root, self.meta)
+            except OSError as e:  # committed: the journal is written, only the moves are left
+                message = (
+                    f"run {run} is committed, but moving its files into place stopped ({e.strerror}); "
+                    "the next convert into this landing area finishes the move"
+                )
+                kind = DiskSpaceError if e.errno == errno.ENOSPC else CdcnormError
+                raise kind(
+                    message,
+                    file=str(self.root),
+                    hint="free disk space, then run convert again (with the same or new dumps)",
+                ) from None
 
     def committed(self) -> set[str]:
         return runs.committed(self.root)

@@ -622,8 +622,7 @@ def free_raw(trun: TableRun, engine: DuckDBEngine) -> None:
     """Drop the table's raw relations (and the tables under them)."""
     for rel in trun.plan.relations:
         if rel.name.endswith("_rows"):  # a view over the engine reader's table
-            engine.con.execute(f"DROP VIEW IF EXISTS {ident(rel.name)}")
-            engine.drop(rel.name.removesuffix("_rows"))
+            engine.drop_numbered(rel.name)
         else:
             engine.drop(rel.name)
 

@@ -18,6 +18,10 @@ from cdcnorm.sql import PLAN_DIALECT, ident
 if TYPE_CHECKING:
     from sqlglot import exp
 
+#: ``lookup(relation, wanted)``: an engine's SQL of the rows of a raw relation that relation
+#: ``wanted`` names, or None (``DuckDBEngine.lookup``)
+Lookup = Callable[[str, str], str | None]
+
 #: The identity index format this version writes (``Plan.content`` is its digest; the landing
 #: area's files are described in ``landing/memory.py``).
 INDEX_FORMAT = 4
@@ -162,10 +166,11 @@ class Plan:
         """The quoted internal name of a raw column (what the plan's SQL says for it)."""
         return ident(self.internal[column])
 
-    def raw_union(self, columns: list[str], wanted: str | None = None) -> str:
+    def raw_union(self, columns: list[str], wanted: str | None = None, lookup: Lookup | None = None) -> str:
         """SQL: ``__file``, ``__row``, ``__enc`` and the given internal columns of every raw
         relation (NULL where a relation lacks one); with ``wanted`` (a relation with ``__file``
-        and ``__row``), only its rows are looked up."""
+        and ``__row``), only its rows are looked up: by ``lookup(relation, wanted)``, the engine's
+        relation of them, where it gives one, else by a semi-join."""
         semi = f" SEMI JOIN {wanted} q ON x.__file = q.__file AND x.__row = q.__row" if wanted else ""
         parts = []
         for rel in self.relations:
@@ -173,7 +178,9 @@ class Plan:
                 f", x.{ident(c)}" if c in rel.columns else f", CAST(NULL AS VARCHAR) AS {ident(c)}"
                 for c in columns
             )
-            parts.append(f"SELECT x.__file, x.__row, x.__enc{picked} FROM {ident(rel.name)} x{semi}")
+            found = lookup(rel.name, wanted) if lookup and wanted else None
+            source = f"{found} x" if found else f"{ident(rel.name)} x{semi}"
+            parts.append(f"SELECT x.__file, x.__row, x.__enc{picked} FROM {source}")
         if not parts:
             nulls = "".join(f", CAST(NULL AS VARCHAR) AS {ident(c)}" for c in columns)
             parts.append(

@@ -11,7 +11,7 @@ quarantine file is itself a JSON Lines dump: ``cdcnorm convert`` reads it back
 
 from __future__ import annotations
 
-from cdcnorm.plan import Plan
+from cdcnorm.plan import Lookup, Plan
 from cdcnorm.sql import ident, lit
 from cdcnorm.stages.order import position_text
 
@@ -83,16 +83,17 @@ def rejected_rows(plan: Plan) -> str:
     return " UNION ALL ".join(parts)
 
 
-def raw_rows(plan: Plan, wanted: str) -> str:
+def raw_rows(plan: Plan, wanted: str, lookup: Lookup | None = None) -> str:
     """SQL: (__file, __row, __enc, raw) for the rows of relation ``wanted`` (which has __file and
     __row): ``raw`` is the JSON object of the row's raw columns under its own file's names, as read.
-    Only the wanted rows are looked up; a before-image carried in from an earlier run brings the
+    Only the wanted rows are looked up (by ``lookup``, where the engine gives one: ``Plan.raw_union``);
+    a before-image carried in from an earlier run brings the
     raw object it was read with."""
     used = {c for r in plan.relations for c in r.columns} | {
         plan.internal[c] for s in plan.sources for c in s.columns
     }
     internal = sorted(used, key=lambda c: int(c[1:]))
-    union = plan.raw_union(internal, wanted)
+    union = plan.raw_union(internal, wanted, lookup)
     by_columns: dict[tuple[str, ...], list[int]] = {}
     for src in plan.sources:
         by_columns.setdefault(src.columns, []).append(src.file_id)
@@ -118,7 +119,9 @@ def raw_rows(plan: Plan, wanted: str) -> str:
     return " UNION ALL ".join(parts)
 
 
-def quarantine_lines(plan: Plan, rejected_relation: str, files_relation: str = "__files") -> str:
+def quarantine_lines(
+    plan: Plan, rejected_relation: str, files_relation: str = "__files", lookup: Lookup | None = None
+) -> str:
     """SQL: one JSON line per rejected row, sorted by file name and row: the ``_cdcnorm`` object,
     then the row's raw columns as read."""
     rejected = ident(rejected_relation)
@@ -133,6 +136,6 @@ def quarantine_lines(plan: Plan, rejected_relation: str, files_relation: str = "
     return (
         f"SELECT line FROM (SELECT f.name AS __name, r.__row, {line} AS line FROM {rejected} r "
         f"JOIN {files_relation} f ON f.id = r.__file "
-        f"LEFT JOIN ({raw_rows(plan, rejected)}) s ON s.__file = r.__file AND s.__row = r.__row) "
+        f"LEFT JOIN ({raw_rows(plan, rejected, lookup)}) s ON s.__file = r.__file AND s.__row = r.__row) "
         "ORDER BY __name, __row"
     )

@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
+from typing import Any
 
 import pyarrow as pa
 import pyarrow.parquet as pq
@@ -401,3 +403,95 @@ def test_a_mapped_struct_member_beside_one_differing_only_in_case_is_refused(
     )
     (tmp_path / "m" / "t.yaml").write_text(mapping.replace("after.Name", "after.id"))
     assert cli("convert", str(tmp_path / "n.parquet"), *args) == 0
+
+
+def _read_engine(tmp_path: Path) -> tuple[Any, Any]:
+    """The engine and raw table of one table read from 20 small CSV files (read joined as one),
+    a larger one and a Parquet file: every kind of numbered view."""
+    from cdcnorm.engines.duckdb import DuckDBEngine
+    from cdcnorm.inputs import expand_inputs, route
+    from cdcnorm.mapping.load import load_mappings
+    from cdcnorm.pipeline import Options, read_all
+
+    (tmp_path / "m").mkdir()
+    (tmp_path / "m" / "t.yaml").write_text(
+        'table: t\nfiles: ["t-*"]\nkey: [id]\nchange:\n  action: {column: op, codes: {I: insert}}\n'
+        "  position: {column: pos, kind: integer}\nfields:\n  id: integer\n  name: text\n"
+    )
+    dumps = tmp_path / "d"
+    dumps.mkdir()
+    for i in range(20):
+        (dumps / f"t-{i:02}.csv").write_text(f'op,pos,id,name\nI,{i},{i},"small\n{i}"\nI,{i},{i + 100},x\n')
+    # over the size of a small file (1 MiB): read alone
+    (dumps / "t-big.csv").write_text(
+        "op,pos,id,name\n" + "".join(f"I,{i},{i},{'n' * 400}{i}\n" for i in range(3000))
+    )
+    pq.write_table(
+        pa.table(
+            {
+                "op": ["I"] * 50,
+                "pos": [str(i) for i in range(50)],
+                "id": ["1"] * 50,
+                "name": [f"p{i}" for i in range(50)],
+            }
+        ),
+        dumps / "t-p.parquet",
+    )
+    mappings = load_mappings(tmp_path / "m")
+    engine = DuckDBEngine()
+    read = read_all(
+        mappings, route(expand_inputs([dumps]), mappings), engine, Options(), lambda *a: None, tmp_path / "s"
+    )
+    return engine, read["t"]
+
+
+@pytest.fixture(scope="module")
+def read_views(tmp_path_factory: pytest.TempPathFactory) -> tuple[Any, Any]:
+    return _read_engine(tmp_path_factory.mktemp("lookup"))
+
+
+@settings(max_examples=40, deadline=None)
+@given(picks=st.lists(st.tuples(st.integers(0, 22), st.integers(-1, 3002)), max_size=40))
+def test_looking_rows_up_by_rowid_gives_what_a_join_on_file_and_row_gives(
+    read_views: tuple[Any, Any], picks: list[tuple[int, int]]
+) -> None:
+    """``DuckDBEngine.lookup`` (the writers' way to the raw rows of a few quarantined or pending
+    rows) against the join on ``__file`` and ``__row`` it replaces: the same rows, each once,
+    whatever the wanted relation holds (repeats, rows no file has, files of another view)."""
+    engine, raw = read_views
+    from cdcnorm.plan import Plan, RawRelation, Source
+
+    kinds = {re.sub(r"[0-9]+_rows$", "", rel.split("__")[-1]) for rel, _ in raw.relations}
+    assert kinds == {"joined", "csv", "parquet"}, raw.relations  # every kind of numbered view is here
+    values = ", ".join(f"({f}, {r})" for f, r in picks) or "(0, 0)"
+    where = "" if picks else " WHERE FALSE"
+    engine.execute(
+        f"CREATE OR REPLACE TABLE wanted AS SELECT CAST(f AS INTEGER) AS __file, CAST(r AS BIGINT) AS __row "
+        f"FROM (VALUES {values}) v(f, r){where}"
+    )
+    plan = Plan(
+        mapping=None,  # type: ignore[arg-type]  # raw_union reads only the relations
+        sources=tuple(Source(f.file_id, f.name, tuple(f.columns)) for f in raw.files),
+        relations=tuple(RawRelation(n, tuple(c)) for n, c in raw.relations),
+    )
+    cols = [raw.internal(c) for c in ("op", "pos", "id", "name")]
+    joined = engine.rows(f"SELECT * FROM ({plan.raw_union(cols, 'wanted')}) ORDER BY ALL")
+    looked = engine.rows(f"SELECT * FROM ({plan.raw_union(cols, 'wanted', engine.lookup)}) ORDER BY ALL")
+    assert looked == joined
+    if len(picks) <= 10:  # at most a quarter of the smallest view's 40 rows: looked up by rowid
+        assert all(engine.lookup(rel, "wanted") is not None for rel, _ in raw.relations)
+
+
+def test_lookup_leaves_a_large_share_of_the_rows_to_the_join(tmp_path: Path) -> None:
+    engine, raw = _read_engine(tmp_path)
+    big = next(rel for rel, _ in raw.relations if "__csv" in rel)
+    file_id = next(f.file_id for f in raw.files if f.name.endswith("t-big.csv"))
+    engine.execute(
+        f"CREATE TABLE few AS SELECT {file_id} AS __file, CAST(range AS BIGINT) AS __row FROM range(1, 751)"
+    )
+    engine.execute(
+        f"CREATE TABLE many AS SELECT {file_id} AS __file, CAST(range AS BIGINT) AS __row FROM range(1, 752)"
+    )
+    assert engine.lookup(big, "few") is not None  # at most a quarter of its 3,000 rows: by rowid
+    assert engine.lookup(big, "many") is None
+    assert engine.lookup("no_such_view", "few") is None

@@ -267,6 +267,10 @@ class DuckDBEngine:
         _in_utc(self.con)
         # keep Arrow tables alive while DuckDB scans them
         self._registered: dict[str, pa.Table] = {}
+        #: every numbered view (``number_rows``, ``number_joined_rows``): the scanned table under
+        #: it, its columns, and each of its files' (id, first rowid, rows), for ``lookup``; one
+        #: dict that sibling connections share
+        self._numbered_views: dict[str, tuple[str, tuple[str, ...], tuple[tuple[int, int, int], ...]]] = {}
         # marks JSON Lines numbers read as written (types/json.py: tag_numbers); random, so that
         # no text of a dump can look like it
         self.number_tag = f"~n{secrets.token_hex(8)}~"
@@ -491,31 +495,64 @@ class DuckDBEngine:
         return rejected, spans
 
     def number_rows(
-        self, view: str, table: str, files: list[tuple[str, int, int]], columns: list[str]
+        self, view: str, table: str, files: list[tuple[str, int, int, int]], columns: list[str]
     ) -> None:
         """A view of a scanned table's rows with file ids and record numbers (rowid - first + 1)
-        for the files given as (path, id, first rowid); other files' rows are left out."""
+        for the files given as (path, id, first rowid, rows); other files' rows are left out."""
         values = (
-            "(VALUES " + ", ".join(f"({lit(p)}, {i}, {lo})" for p, i, lo in files) + ") f(path, id, base)"
+            "(VALUES " + ", ".join(f"({lit(p)}, {i}, {lo})" for p, i, lo, _ in files) + ") f(path, id, base)"
         )
-        self._numbered(view, table, columns, f"JOIN {values} ON r.__fname = f.path")
+        spans = tuple((i, lo, n) for _, i, lo, n in files)
+        self._numbered(view, table, columns, f"JOIN {values} ON r.__fname = f.path", spans)
 
     def number_joined_rows(
-        self, view: str, table: str, firsts: list[tuple[int, int]], columns: list[str]
+        self, view: str, table: str, firsts: list[tuple[int, int, int]], columns: list[str]
     ) -> None:
         """A view of a table scanned from several files joined into one, with file ids and record
-        numbers, given each file's id and first rowid (in rowid order): a row belongs to the file
-        with the greatest first rowid at or below its own."""
-        values = "(VALUES " + ", ".join(f"({i}, {lo})" for i, lo in firsts) + ") f(id, base)"
-        self._numbered(view, table, columns, f"ASOF JOIN {values} ON r.rowid >= f.base")
+        numbers, given each file's (id, first rowid, rows), in rowid order: a row belongs to the
+        file with the greatest first rowid at or below its own."""
+        values = "(VALUES " + ", ".join(f"({i}, {lo})" for i, lo, _ in firsts) + ") f(id, base)"
+        self._numbered(view, table, columns, f"ASOF JOIN {values} ON r.rowid >= f.base", tuple(firsts))
 
-    def _numbered(self, view: str, table: str, columns: list[str], join: str) -> None:
+    def _numbered(
+        self, view: str, table: str, columns: list[str], join: str, spans: tuple[tuple[int, int, int], ...]
+    ) -> None:
         """The raw relation's view over a scanned table ``r``, whose ``join`` gives each row its
         file's ``f.id`` and first rowid ``f.base``."""
         self.con.execute(
             f"CREATE VIEW {ident(view)} AS SELECT CAST(f.id AS INTEGER) AS __file, "
             f"CAST(r.rowid - f.base + 1 AS BIGINT) AS __row, CAST(NULL AS VARCHAR) AS __enc, "
             f"{', '.join(f'r.{ident(c)}' for c in columns)} FROM {ident(table)} r {join}"
+        )
+        self._numbered_views[view] = (table, tuple(columns), spans)
+
+    def drop_numbered(self, view: str) -> None:
+        """Drop a numbered view and the scanned table under it."""
+        numbered = self._numbered_views.pop(view, None)
+        self.con.execute(f"DROP VIEW IF EXISTS {ident(view)}")
+        self.drop(numbered[0] if numbered else view.removesuffix("_rows"))
+
+    def lookup(self, view: str, wanted: str) -> str | None:
+        """SQL of a relation of the rows of numbered view ``view`` that relation ``wanted`` names
+        by ``__file`` and ``__row`` (each once), with the view's columns, fetched by rowid; None
+        when ``view`` is not a numbered view, or when ``wanted`` names more than a quarter of its
+        rows. A join on the view's ``__file`` and ``__row`` reads every column of every row first:
+        for 16 rows of a 1M-row, 14-column dump it took 0.1 s against 0.005 s by rowid. For half
+        the rows both took 0.3 s; for all of them the join took 0.52 s, the rowid fetch 0.66 s."""
+        if view not in self._numbered_views:
+            return None
+        table, columns, spans = self._numbered_views[view]
+        if 4 * int(self.rows(f"SELECT count(*) FROM {wanted}")[0][0]) > sum(n for _, _, n in spans):
+            return None
+        values = "(VALUES " + ", ".join(f"({i}, {lo}, {n})" for i, lo, n in spans) + ") f(id, base, n)"
+        keys = (
+            f"SELECT DISTINCT q.__file, q.__row, f.base + q.__row - 1 AS __rid FROM {wanted} q "
+            f"JOIN {values} ON f.id = q.__file AND q.__row BETWEEN 1 AND f.n"
+        )
+        picked = "".join(f", r.{ident(c)}" for c in columns)
+        return (
+            f"(SELECT CAST(k.__file AS INTEGER) AS __file, CAST(k.__row AS BIGINT) AS __row, "
+            f"CAST(NULL AS VARCHAR) AS __enc{picked} FROM {ident(table)} r JOIN ({keys}) k ON r.rowid = k.__rid)"
         )
 
     def load_batches(self, table: str, batches: pa.RecordBatchReader, select: str = "*") -> None:

@@ -101,7 +101,7 @@ def _stage_table(
     # written while the raw rows are there (they go before the events are sorted), and always:
     # the count of lines checks the ledger's count of quarantined rows below
     rel = f"quarantine/{part}/{run}.jsonl"
-    lines_sql = quarantine_lines(plan, rejected_relation(trun))
+    lines_sql = quarantine_lines(plan, rejected_relation(trun), lookup=engine.lookup)
     lines = engine.copy(lines_sql, staging / rel, "lines")
     if lines:
         out["quarantine"] = rel
@@ -113,7 +113,7 @@ def _stage_table(
         plan,
         staging / "index" / "pending" / part / f"{run}.parquet",
         run,
-        raw_rows(plan, plan.rel("waiting")),
+        raw_rows(plan, plan.rel("waiting"), engine.lookup),
     )
     free_raw(trun, engine)  # the raw rows are needed no more: free them before the events are sorted
     written = 0

@@ -214,7 +214,7 @@ def _fast(group: list[RawFile], r: _Reading) -> list[RawFile]:
         if n and hi - lo + 1 != n:  # the engine's insertion order did not keep the file together
             raise InputError("the engine did not keep this file's records in order", file=str(f.path))
         f.rows = n
-        good.append((p, f.file_id, lo))
+        good.append((p, f.file_id, lo, n))
     if good:
         view = f"{staged}_rows"
         r.engine.number_rows(view, staged, good, r.internal)
@@ -284,7 +284,7 @@ def _joined(group: list[RawFile], r: _Reading) -> list[RawFile]:
         for f, _, records in members:
             f.rows = records
             if records:
-                firsts.append((f.file_id, lo))
+                firsts.append((f.file_id, lo, records))
                 lo += records
         view = f"{staged}_rows"
         r.engine.number_joined_rows(view, staged, firsts, r.internal)

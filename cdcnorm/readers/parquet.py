@@ -155,7 +155,7 @@ def _load(
         if f.empty:
             f.notes.append("the file has no rows")
         else:
-            good.append((p, f.file_id, lo))
+            good.append((p, f.file_id, lo, f.rows))
     if good:
         view = f"{staged}_rows"
         engine.number_rows(view, staged, good, internal)

@@ -1,3 +1,3 @@
-from cdcnorm.cli import entry
+from cdcnorm.entry import main
 
-entry()
+raise SystemExit(main())

@@ -536,7 +536,8 @@ INTERRUPTED = {
 
 
 def _interrupted(command: str | None, argv: Sequence[str] | None) -> int:
-    said = INTERRUPTED.get(command or "")
+    # no command yet: interrupted while the arguments were read
+    said = INTERRUPTED.get(command) if command else "nothing was read or written"
     return _report(InterruptedRun("interrupted" + (f": {said}" if said else "")), argv)
 
 
@@ -594,11 +595,3 @@ def _report(e: CdcnormError, argv: Sequence[str] | None) -> int:
         print(json.dumps(e.as_dict()), file=sys.stdout)
     err.print("error: " + e.render(), markup=False, soft_wrap=True)  # never broken inside a message
     return e.exit_code
-
-
-def entry() -> None:
-    raise SystemExit(main())
-
-
-if __name__ == "__main__":
-    entry()

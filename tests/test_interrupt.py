@@ -97,3 +97,91 @@ def test_ctrl_c_while_a_run_is_committed_finishes_the_commit(
     assert not (landing / ".cdcnorm" / "journal.json").exists()
     assert len(list(landing.glob("events/*/*.jsonl"))) == 3
     assert signal.getsignal(signal.SIGINT) is handler  # as it was before the commit
+
+
+_STOP_WHILE_IMPORTING = """
+import sys
+
+class Interrupt:  # Ctrl-C as Python imports the mapping models, half-way through the CLI's imports
+    def find_spec(self, name, path=None, target=None):
+        if name == "cdcnorm.mapping.model":
+            raise KeyboardInterrupt
+        return None
+
+sys.meta_path.insert(0, Interrupt())
+sys.argv[0] = "cdcnorm"
+from cdcnorm.entry import main
+raise SystemExit(main(sys.argv[1:]))
+"""
+
+
+@pytest.mark.parametrize("extra", [[], ["--json"]])
+def test_ctrl_c_while_the_command_starts_exits_130_without_a_traceback(
+    tmp_path: Path, extra: list[str]
+) -> None:
+    """The first half second of a command is Python loading the CLI: Ctrl-C there printed Python's
+    traceback. The interrupt is raised where the import of the mapping models would start."""
+    args = [
+        "convert",
+        "--mappings",
+        str(DEMO / "mappings"),
+        str(DEMO / "examples"),
+        "--out",
+        str(tmp_path / "l"),
+    ]
+    done = subprocess.run(
+        [sys.executable, "-c", _STOP_WHILE_IMPORTING, *args, *extra],
+        capture_output=True,
+        text=True,
+        timeout=60,
+    )
+    assert done.returncode == 130, done.stderr
+    assert done.stderr == "error: interrupted while starting: nothing was read or written\n"
+    assert not (tmp_path / "l").exists()
+    if extra:  # the JSON of an error, as every error prints it under --json (RFC 8259)
+        assert json.loads(done.stdout)["error"] == "InterruptedRun"
+    else:
+        assert done.stdout == ""
+
+
+def test_the_command_and_python_m_start_through_the_guarded_entry_point() -> None:
+    import tomllib
+
+    scripts = tomllib.loads((ROOT / "pyproject.toml").read_text())["project"]["scripts"]
+    assert scripts == {"cdcnorm": "cdcnorm.entry:main"}
+    assert (ROOT / "cdcnorm" / "__main__.py").read_text().startswith("from cdcnorm.entry import main\n")
+
+
+def test_ctrl_c_while_json_lines_are_read_is_an_interrupt_not_the_engines_error(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """The JSON Lines reader's batches are made by Python code that the engine's scan calls: Ctrl-C
+    there reached the user as DuckDB's "Invalid Input Error" with a Python traceback inside."""
+    from cdcnorm import cli as cli_mod
+    from cdcnorm.readers import jsonl
+
+    def interrupted(*args: object) -> object:
+        raise KeyboardInterrupt
+        yield  # a generator, as the reader's is
+
+    monkeypatch.setattr(jsonl, "_batches", interrupted)
+    dumps = DEMO / "examples" / "dumps"
+    code = cli_mod.main(
+        ["convert", "--mappings", str(DEMO / "mappings"), str(dumps), "--out", str(tmp_path / "l")]
+    )
+    err = capsys.readouterr().err
+    assert code == 130, err
+    assert "error: interrupted: nothing was committed" in err and "Invalid Input" not in err
+
+
+def test_ctrl_c_while_the_arguments_are_read_says_nothing_was_done(
+    monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
+) -> None:
+    from cdcnorm import cli as cli_mod
+
+    def interrupted() -> object:
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(cli_mod, "build_parser", interrupted)
+    assert cli_mod.main(["demo"]) == 130
+    assert "error: interrupted: nothing was read or written" in capsys.readouterr().err

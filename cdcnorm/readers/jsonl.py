@@ -105,12 +105,15 @@ def read_files(
         _read(small, mapping, engine, raw)
 
 
-def _guarded(batches: Iterator[pa.RecordBatch], failure: list[InputError]) -> Iterator[pa.RecordBatch]:
-    """Stop cleanly on a reading error, keeping it to raise after the engine's scan: an error
-    raised inside the scan would reach the user in the engine's wording."""
+def _guarded(
+    batches: Iterator[pa.RecordBatch], failure: list[InputError | KeyboardInterrupt]
+) -> Iterator[pa.RecordBatch]:
+    """Stop cleanly on a reading error or Ctrl-C, keeping it to raise after the engine's scan: raised
+    inside the scan, it would reach the user in the engine's wording (Ctrl-C as an "Invalid Input
+    Error" with a Python traceback in its text)."""
     try:
         yield from batches
-    except InputError as e:
+    except (InputError, KeyboardInterrupt) as e:
         failure.append(e)
 
 
@@ -142,7 +145,7 @@ def _read(files: list[RawFile], mapping: Mapping, engine: DuckDBEngine, raw: Raw
     (a file's rows have no value in a column only another file of the scan has)."""
     lines = f"{raw.slug}__jsonl_lines"
     ok = f"{raw.slug}__jsonl_ok"
-    failure: list[InputError] = []
+    failure: list[InputError | KeyboardInterrupt] = []
     engine.load_batches(lines, pa.RecordBatchReader.from_batches(LINES, _guarded(_lines_of(files), failure)))
     if failure:
         engine.drop(lines)

@@ -386,3 +386,48 @@ def test_a_log_gets_plain_progress_lines_on_a_long_run_and_none_on_a_short_one(
     # --quiet prints none however long the run
     assert cli(*args, "--out", str(tmp_path / "c"), "--quiet") == 0
     assert "cdcnorm: " not in capsys.readouterr().err
+
+
+def test_the_ledger_of_a_table_of_many_files_shows_the_files_to_look_at_and_sums_the_others(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """One row a file made 3,000 two-row files' ledger a 3,000-line screen that took longer to lay
+    out than the run took. Beyond 20 files, the rows shown still add up to the table's total."""
+    (tmp_path / "m").mkdir()
+    (tmp_path / "m" / "t.yaml").write_text(
+        'table: t\nfiles: ["t-*"]\nkey: [id]\nchange:\n  action: {column: op, codes: {I: insert}}\n'
+        "  position: {column: pos, kind: integer}\nfields:\n  id: integer\n  name: text\n"
+    )
+    dumps = tmp_path / "d"
+    dumps.mkdir()
+    for i in range(25):
+        op = "X" if i in (3, 17) else "I"  # an unknown action code: quarantined
+        (dumps / f"t-{i:02}.csv").write_text(
+            f"op,pos,id,name\nI,{2 * i},{2 * i},a\n{op},{2 * i + 1},{2 * i + 1},b\n"
+        )
+    common = ["--mappings", str(tmp_path / "m"), str(dumps)]
+    monkeypatch.setenv("COLUMNS", "250")  # the table's rows unwrapped
+
+    def shown(printed: str) -> list[list[str]]:
+        return [
+            [c.strip() for c in line.split("│")[2:-1]]
+            for line in printed.splitlines()
+            if line.startswith("│ t ")
+        ]
+
+    assert cli("convert", *common, "--out", str(tmp_path / "l")) == 0
+    printed = capsys.readouterr().out
+    rows = shown(printed)
+    assert [r[0] for r in rows] == ["t-03.csv", "t-17.csv", "23 other files"]
+    # read, carried in, emitted, merged, duplicate, quarantined: the others' sums (23 files of 2 rows)
+    assert rows[2][1:7] == ["46", "0", "46", "0", "0", "0"]
+    assert "every file's counts: --json, or cdcnorm runs" in printed
+    assert cli("check", *common) == 0
+    rows = shown(capsys.readouterr().out)
+    assert rows == [
+        ["t-03.csv", "2", "1", "1", "-"],
+        ["t-17.csv", "2", "1", "1", "-"],
+        ["23 other files", "46", "46", "0", "-"],
+    ]
+    assert cli("convert", *common, "--out", str(tmp_path / "l2"), "--json") == 0
+    assert len(json.loads(capsys.readouterr().out)["ledger"]["tables"]["t"]["files"]) == 25

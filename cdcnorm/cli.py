@@ -420,8 +420,18 @@ def _took(rows: int, seconds: float) -> str:
 
 
 def _print_notes(result: Result) -> None:
+    """One line per note and the files it is about: 3,000 files with the same note are one line
+    naming two of them (``--json`` lists each file's notes)."""
+    files: dict[tuple[str, str], list[str]] = {}
     for n in file_notes(result):
-        out.print(f"note: {n['file']} ({n['table']}): {n['note']}", markup=False, soft_wrap=True)
+        files.setdefault((n["table"], n["note"]), []).append(n["file"])
+    for (table, note), names in files.items():
+        named = (
+            ", ".join(names)
+            if len(names) <= 3
+            else f"{names[0]}, {names[1]} and {len(names) - 2:,} other files"
+        )
+        out.print(f"note: {named} ({table}): {note}", markup=False, soft_wrap=True)
 
 
 def cmd_runs(args: argparse.Namespace) -> int:

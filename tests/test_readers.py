@@ -95,6 +95,33 @@ def test_broken_quotes_and_line_ends_resume_at_the_next_line(
     assert ledger["balanced"] and ledger["total"]["read"] == len(good) + len(bad)
 
 
+def test_files_read_record_by_record_together_read_as_each_alone(convert: ConvertFn) -> None:
+    """The files the strict reader rejects share one relation: each still gets its own record
+    numbers, malformed records, undecodable bytes and notes, as when it is converted alone."""
+    files: dict[str, str | bytes] = {
+        "na.csv": 'op,pos,id,a,b\nI,1,1,x,ok\nI,2,2,x,"b\nI,3,3,x,a\n',  # an unterminated quote
+        "nb.csv": 'op,pos,id,a,b\rI,4,4,x,y\rI,5,5,"two\r\nlines",y\r',  # CR-only line ends
+        "nc.csv": b"op,pos,id,a,b\nI,6,6,caf\xe9,y\nI,7,7,x,y,z\nI,8,8,x,y\n",  # bad bytes, a field too many
+        "nd.csv": "op,pos,id,a,b\nI,9,9,x,y\n",  # read by the engine's reader
+    }
+    together = convert(MAPPING, files)
+    alone = [convert(MAPPING, {name: data}) for name, data in files.items()]
+    assert together.events("t.notes") == sorted(
+        (e for done in alone for e in done.events("t.notes")), key=lambda e: e["position"]
+    )
+    assert sorted(
+        together.quarantine("t.notes"), key=lambda q: (q["_cdcnorm"]["file"], q["_cdcnorm"]["row"])
+    ) == [q for done in alone for q in done.quarantine("t.notes")]
+    assert len(together.quarantine("t.notes")) == 3
+    ledger = together.ledger()
+    assert ledger["tables"]["t.notes"]["files"] == {
+        name: done.ledger()["tables"]["t.notes"]["files"][name]
+        for name, done in zip(files, alone, strict=True)
+    }
+    notes = {n["file"]: n["note"] for n in last_run(together.out)["notes"]}
+    assert sorted(notes) == ["na.csv", "nb.csv", "nc.csv"]
+
+
 def test_wrong_field_count_keeps_record_numbers(convert: ConvertFn) -> None:
     data = 'op,pos,id,a,b\nI,1,1,x,y\nI,2,2,x\nI,3,3,"multi\nline",y\nI,4,4,x,y,z\nI,5,5,x,y\n'
     done = convert(MAPPING, {"n.csv": data})

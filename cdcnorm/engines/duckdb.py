@@ -563,8 +563,8 @@ class DuckDBEngine:
         finally:
             self.con.unregister("__incoming_batches")
 
-    def decode_text(self, table: str, source: str, file_id: int, columns: list[tuple[str, str]]) -> None:
-        """``source`` (``__row`` and binary cells) -> ``table`` with text cells; a cell that is not
+    def decode_text(self, table: str, source: str, columns: list[tuple[str, str]]) -> None:
+        """``source`` (``__file``, ``__row`` and binary cells) -> ``table`` with text cells; a cell that is not
         UTF-8 becomes NULL and is listed in ``__enc`` as a JSON object {raw name: base64}.
         ``columns`` are (internal name, raw name)."""
         cells = []
@@ -579,7 +579,7 @@ class DuckDBEngine:
         listed = f"concat_ws(',', {', '.join(bad)})"
         enc = f"CASE WHEN {listed} <> '' THEN '{{' || {listed} || '}}' END"
         self.con.execute(
-            f"CREATE TABLE {ident(table)} AS SELECT CAST({file_id} AS INTEGER) AS __file, __row, "
+            f"CREATE TABLE {ident(table)} AS SELECT CAST(__file AS INTEGER) AS __file, __row, "
             f"{enc} AS __enc, {', '.join(cells)} FROM {ident(source)}"
         )
 

@@ -126,8 +126,9 @@ def read_files(
     for (delimiter, names), group in groups.items():
         internal = [raw.internal(c) for c in names]
         reading = _Reading(internal, delimiter, mapping, engine, raw, scratch)
-        for f in _fast(group, reading):
-            _careful(f, reading)
+        careful = _fast(group, reading)
+        if careful:
+            _careful(careful, reading)
 
 
 def count_records(path: Path, quote: str, header: bool) -> tuple[int, bool]:
@@ -411,11 +412,17 @@ def _records(
             pending.extendleft(reversed(rest))  # resume at the line after the record's first line
 
 
-def _careful(f: RawFile, r: _Reading) -> None:
+def _careful(files: list[RawFile], r: _Reading) -> None:
+    """Read files record by record, all into one relation: their good records numbered into one
+    scratch file (file id, record number, the record's text) that is parsed and decoded once, their
+    malformed records into the table's malformed relation. One relation for all of them, not one a
+    file: 1,500 small files with CR-only line ends took 25 s, most of it a few statements per file
+    and a plan whose union read 1,500 relations."""
     opts = r.mapping.csv
     stdcsv.field_size_limit(MAX_RECORD_BYTES)
     r.scratch.mkdir(parents=True, exist_ok=True)
-    cleaned = r.scratch / f"careful-{f.file_id}.csv"
+    cleaned = r.scratch / f"careful-{files[0].file_id}.csv"
+    bad_files: list[int] = []
     bad_rows: list[int] = []
     bad_text: list[str] = []
     bad_reason: list[str] = []
@@ -426,7 +433,7 @@ def _careful(f: RawFile, r: _Reading) -> None:
             return
         batch = pa.table(
             {
-                "__file": pa.array([f.file_id] * len(bad_rows), pa.int32()),
+                "__file": pa.array(bad_files, pa.int32()),
                 "__row": pa.array(bad_rows, pa.int64()),
                 "text": pa.array(
                     [t.encode("utf-8", "surrogateescape").decode("utf-8", "replace") for t in bad_text]
@@ -435,46 +442,51 @@ def _careful(f: RawFile, r: _Reading) -> None:
             }
         )
         r.engine.append(malformed, batch)
-        bad_rows.clear()
-        bad_text.clear()
-        bad_reason.clear()
+        for kept in (bad_files, bad_rows, bad_text, bad_reason):
+            kept.clear()
 
-    number = 0
-    good = 0
+    any_good = False
     longest = 0  # bytes of the longest good record written (the parser's block must hold one)
     with open(cleaned, "wb") as out:
-        records = _records(_lines(f, opts.encoding), r.delimiter, opts.quote, len(r.internal))
-        if opts.header:
-            next(records, None)
-        for text, reason in records:
-            number += 1
-            if reason is None:
-                good += 1
-                line = f"{number}{r.delimiter}{text}\n".encode("utf-8", "surrogateescape")
-                longest = max(longest, len(line))
-                out.write(line)
-            else:
-                bad_rows.append(number)
-                bad_text.append(text)
-                bad_reason.append(reason)
-                if len(bad_rows) >= 10_000:
-                    flush_bad()
+        for f in files:
+            number = 0
+            good = 0
+            records = _records(_lines(f, opts.encoding), r.delimiter, opts.quote, len(r.internal))
+            if opts.header:
+                next(records, None)
+            for text, reason in records:
+                number += 1
+                if reason is None:
+                    good += 1
+                    line = f"{f.file_id}{r.delimiter}{number}{r.delimiter}{text}\n".encode(
+                        "utf-8", "surrogateescape"
+                    )
+                    longest = max(longest, len(line))
+                    out.write(line)
+                else:
+                    bad_files.append(f.file_id)
+                    bad_rows.append(number)
+                    bad_text.append(text)
+                    bad_reason.append(reason)
+                    if len(bad_rows) >= 10_000:
+                        flush_bad()
+            f.rows = good
+            f.malformed = number - good
+            f.notes.append("read record by record (the fast reader rejected it)")
+            any_good = any_good or good > 0
     flush_bad()
-    f.rows = good
-    f.malformed = number - good
-    f.notes.append("read record by record (the fast reader rejected it)")
-    if good:
-        _load_cleaned(f, cleaned, r, longest)
+    if any_good:
+        _load_cleaned(cleaned, r, longest)
     cleaned.unlink()
 
 
-def _load_cleaned(f: RawFile, cleaned: Path, r: _Reading, longest: int) -> None:
+def _load_cleaned(cleaned: Path, r: _Reading, longest: int) -> None:
     """Parse the numbered good records (cells as bytes), then decode them in the engine. A block
     holds two of the ``longest`` records and is at least CAREFUL_BLOCK: the parser's blocks (a few
     at a time, parsed in parallel) are outside the engine's memory, so they stay as small as the
     records allow, not sized for the longest record possible."""
     tokens = list(r.mapping.nulls)
-    names = ["__row", *r.internal]
+    names = ["__file", "__row", *r.internal]
     reader = pacsv.open_csv(
         str(cleaned),
         read_options=pacsv.ReadOptions(column_names=names, block_size=max(CAREFUL_BLOCK, 2 * longest)),
@@ -482,7 +494,7 @@ def _load_cleaned(f: RawFile, cleaned: Path, r: _Reading, longest: int) -> None:
             delimiter=r.delimiter, quote_char=r.mapping.csv.quote, double_quote=True, newlines_in_values=True
         ),
         convert_options=pacsv.ConvertOptions(
-            column_types={"__row": pa.int64(), **{c: pa.binary() for c in r.internal}},
+            column_types={"__file": pa.int32(), "__row": pa.int64(), **{c: pa.binary() for c in r.internal}},
             null_values=tokens,
             strings_can_be_null=bool(tokens),
             quoted_strings_can_be_null=False,
@@ -490,8 +502,6 @@ def _load_cleaned(f: RawFile, cleaned: Path, r: _Reading, longest: int) -> None:
     )
     staged = r.raw.relation("careful")
     r.engine.load_batches(staged + "_bin", reader)
-    r.engine.decode_text(
-        staged, staged + "_bin", f.file_id, [(c, r.raw.columns[int(c[1:])]) for c in r.internal]
-    )
+    r.engine.decode_text(staged, staged + "_bin", [(c, r.raw.columns[int(c[1:])]) for c in r.internal])
     r.engine.drop(staged + "_bin")
     r.raw.add_relation(staged, r.internal)

@@ -125,6 +125,17 @@ def convert(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> ConvertFn:
     return _convert
 
 
+def insert_only_mapping(folder: Path) -> Path:
+    """A mappings folder with table ``t`` over files ``t-*``: inserts at integer positions, fields
+    ``id`` and ``name`` (raw columns op, pos, id, name)."""
+    folder.mkdir(parents=True)
+    (folder / "t.yaml").write_text(
+        'table: t\nfiles: ["t-*"]\nkey: [id]\nchange:\n  action: {column: op, codes: {I: insert}}\n'
+        "  position: {column: pos, kind: integer}\nfields:\n  id: integer\n  name: text\n"
+    )
+    return folder
+
+
 def cli(*args: str) -> int:
     return main(list(args))
 

@@ -12,7 +12,7 @@ import pyarrow.parquet as pq
 import pytest
 import sqlglot
 
-from tests.conftest import ROOT, cli, last_run, run_files
+from tests.conftest import ROOT, cli, insert_only_mapping, last_run, run_files
 
 DUMPS = ROOT / "examples" / "dumps"
 MAPPINGS = ROOT / "mappings"
@@ -393,11 +393,7 @@ def test_the_ledger_of_a_table_of_many_files_shows_the_files_to_look_at_and_sums
 ) -> None:
     """One row a file made 3,000 two-row files' ledger a 3,000-line screen that took longer to lay
     out than the run took. Beyond 20 files, the rows shown still add up to the table's total."""
-    (tmp_path / "m").mkdir()
-    (tmp_path / "m" / "t.yaml").write_text(
-        'table: t\nfiles: ["t-*"]\nkey: [id]\nchange:\n  action: {column: op, codes: {I: insert}}\n'
-        "  position: {column: pos, kind: integer}\nfields:\n  id: integer\n  name: text\n"
-    )
+    insert_only_mapping(tmp_path / "m")
     dumps = tmp_path / "d"
     dumps.mkdir()
     for i in range(25):

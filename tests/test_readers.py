@@ -12,7 +12,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from tests.conftest import ConvertFn, cli, last_run
+from tests.conftest import ConvertFn, cli, insert_only_mapping, last_run
 from tests.test_bad_input import NESTED, NESTED_FIELDS
 
 MAPPING = """
@@ -440,11 +440,7 @@ def _read_engine(tmp_path: Path) -> tuple[Any, Any]:
     from cdcnorm.mapping.load import load_mappings
     from cdcnorm.pipeline import Options, read_all
 
-    (tmp_path / "m").mkdir()
-    (tmp_path / "m" / "t.yaml").write_text(
-        'table: t\nfiles: ["t-*"]\nkey: [id]\nchange:\n  action: {column: op, codes: {I: insert}}\n'
-        "  position: {column: pos, kind: integer}\nfields:\n  id: integer\n  name: text\n"
-    )
+    insert_only_mapping(tmp_path / "m")
     dumps = tmp_path / "d"
     dumps.mkdir()
     for i in range(20):

@@ -14,6 +14,7 @@ from typing import Any
 from rich.console import Console
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
+from rich.text import Text
 
 from cdcnorm import __version__
 from cdcnorm import ledger as ledger_mod
@@ -22,8 +23,10 @@ from cdcnorm.errors import EXIT_OK, CdcnormError, InterruptedRun, UsageError
 from cdcnorm.mapping import load_mappings
 from cdcnorm.pipeline import STAGE_NAMES, Options, Result, describe_sources, file_notes, run
 
-err = Console(stderr=True, highlight=False, width=None if sys.stderr.isatty() else 200)
-out = Console(highlight=False, soft_wrap=True, width=None if sys.stdout.isatty() else 200)
+# No markup: what the consoles print holds names from users' files (a file "t[x].csv" was shown as
+# "t.csv", a column "a[/]b" ended in rich's MarkupError); styled parts are Text with a style.
+err = Console(stderr=True, highlight=False, markup=False, width=None if sys.stderr.isatty() else 200)
+out = Console(highlight=False, markup=False, soft_wrap=True, width=None if sys.stdout.isatty() else 200)
 
 
 class _Parser(argparse.ArgumentParser):
@@ -198,7 +201,7 @@ def _progress(quiet: bool) -> tuple[Progress | None, Any]:
     if not err.is_terminal:
         return None, _progress_lines()
     bar = Progress(
-        TextColumn("{task.description}"),
+        TextColumn("{task.description}", markup=False),
         BarColumn(),
         TextColumn("{task.completed}/{task.total}"),
         TimeElapsedColumn(),
@@ -550,7 +553,7 @@ def _report_check(result: Result, args: argparse.Namespace, hidden: list[str]) -
         _print_notes(result)
         _print_hidden(hidden)
         for d in drift:
-            out.print(f"[red]drift[/red] {d}")
+            out.print(Text.assemble(("drift", "red"), " ", d))
     return 4 if drift else EXIT_OK
 
 

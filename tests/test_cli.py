@@ -427,3 +427,26 @@ def test_the_ledger_of_a_table_of_many_files_shows_the_files_to_look_at_and_sums
     ]
     assert cli("convert", *common, "--out", str(tmp_path / "l2"), "--json") == 0
     assert len(json.loads(capsys.readouterr().out)["ledger"]["tables"]["t"]["files"]) == 25
+
+
+def test_names_with_brackets_are_printed_as_written(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """The console once read file and column names as rich's markup: ``t[x].csv`` was shown as
+    ``t.csv``, and a column ``nam[/]e`` ended in rich's MarkupError (a traceback)."""
+    mdir = insert_only_mapping(tmp_path / "m")
+    (mdir / "t.yaml").write_text(
+        (mdir / "t.yaml").read_text().replace("name: text", 'name: {type: text, from: "nam[/]e"}')
+    )
+    dumps = tmp_path / "d"
+    dumps.mkdir()
+    (dumps / "t-[x].csv").write_text("op,pos,id,nam[/]e\nI,1,1,a\n")
+    (dumps / "t-[bold]y.csv").write_text("op,pos,id,name\nI,2,2,b\n")  # drift: no nam[/]e
+    monkeypatch.setenv("COLUMNS", "250")
+    assert cli("check", "--mappings", str(mdir), str(dumps)) == 4
+    printed = capsys.readouterr().out
+    assert "│ t-[x].csv " in printed and "│ t-[bold]y.csv " in printed
+    assert "drift t-[bold]y.csv: field name of t reads raw column 'nam[/]e'" in printed
+    (dumps / "t-[bold]y.csv").unlink()
+    assert cli("convert", "--mappings", str(mdir), str(dumps), "--out", str(tmp_path / "l")) == 0
+    assert "│ t     │ t-[x].csv " in capsys.readouterr().out

@@ -1061,3 +1061,18 @@ def test_an_insert_into_a_table_the_models_create_fills_its_columns_in_its_order
     assert answers["fare_board.total"]["value"] == [b + "fare"]
     assert answers["fare_board.seats_sum"]["value"] == [b + "seats"]
     assert answers["fare_board.ref"]["value"] == [b + "sailing_ref"]
+
+
+def test_names_with_brackets_are_printed_as_written(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """The terminal's trees once read names as rich's markup: a column ``[bold]x`` lost its
+    ``[bold]``, and ``fare[/]x`` ended in rich's MarkupError (a traceback)."""
+    sql = 'CREATE VIEW odd AS SELECT fare AS "fare[/]x", seats AS "[bold]seats" FROM ferry.bookings;\n'
+    args = _models(tmp_path, {"odd.sql": sql})
+    capsys.readouterr()
+    assert cli("trace", *args, "odd") == 0
+    printed = capsys.readouterr().out
+    assert "odd.fare[/]x" in printed and "odd.[bold]seats" in printed
+    assert cli("impact", *args, "ferry.bookings.fare") == 0
+    assert "odd.fare[/]x" in capsys.readouterr().out

@@ -8,6 +8,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from rich.console import Console
+from rich.text import Text
 from rich.tree import Tree
 
 from cdcnorm.errors import EXIT_BREAKS, EXIT_INCOMPLETE, EXIT_OK, UsageError, did_you_mean
@@ -154,16 +155,17 @@ def load_project(args: argparse.Namespace) -> tuple[Project, list[Any], Any]:
 
 
 def _trace_tree(answer: dict[str, Any]) -> Tree:
-    tree = Tree(f"[bold]{answer['column']}[/bold]")
+    tree = Tree(Text(answer["column"], style="bold"))
 
     def add_path(branch: Tree, p: dict[str, Any]) -> None:
-        inferred = (
-            " [dim](inferred: no schema declares it)[/dim]" if p["source"] in answer["inferred"] else ""
-        )
-        leaf = branch.add(p["source"] + inferred)
+        inferred = " (inferred: no schema declares it)" if p["source"] in answer["inferred"] else ""
+        leaf = branch.add(Text.assemble(p["source"], (inferred, "dim")))
         for step in p["steps"]:
             leaf = leaf.add(
-                f"{step['edge']} ({step['how']}) -> {step['to']}  [dim]{step['file']}:{step['line']}[/dim]"
+                Text.assemble(
+                    f"{step['edge']} ({step['how']}) -> {step['to']}  ",
+                    (f"{step['file']}:{step['line']}", "dim"),
+                )
             )
 
     branch = tree.add(f"value lineage: {len(answer['value'])} source columns")
@@ -270,7 +272,7 @@ def _print_impact(r: dict[str, Any], out: Console) -> None:
     head = f"impact of {r['column']}" + (
         f" ({edit['kind']}{' ' + edit['value'] if edit['value'] else ''})" if edit else ""
     )
-    tree = Tree(f"[bold]{head}[/bold]")
+    tree = Tree(Text(head, style="bold"))
     for key, label in (
         ("value_dependents", "value dependents"),
         ("influence_dependents", "influence dependents"),
@@ -281,16 +283,26 @@ def _print_impact(r: dict[str, Any], out: Console) -> None:
     if edit:
         b = tree.add(f"breaks: {len(r['broken_models']) + len(r['broken_mappings'])}")
         for m in r["broken_mappings"]:
-            b.add(f"[red]mapping[/red] {m['mapping']}: field {m['field']}: {m['reason']} (fix: {m['fix']})")
+            b.add(
+                Text.assemble(
+                    ("mapping", "red"),
+                    f" {m['mapping']}: field {m['field']}: {m['reason']} (fix: {m['fix']})",
+                )
+            )
         for d in r["broken_models"]:
-            b.add(f"[red]model[/red] {d['model']} {d['file']}:{d['line']}: {d['reason']}: {d['reference']}")
+            b.add(
+                Text.assemble(
+                    ("model", "red"),
+                    f" {d['model']} {d['file']}:{d['line']}: {d['reason']}: {d['reference']}",
+                )
+            )
         binding = r.get("binding") or {}
         if binding.get("checked"):
             b = tree.add(f"refused by the engine (binding check): {len(binding['broken'])}")
             for m in binding["broken"]:
-                b.add(f"[red]model[/red] {m['model']}: {m['reason']}")
+                b.add(Text.assemble(("model", "red"), f" {m['model']}: {m['reason']}"))
             for u in binding["unavailable"]:
-                b.add(f"[yellow]not checked[/yellow] {u['model']}: {u['reason']}")
+                b.add(Text.assemble(("not checked", "yellow"), f" {u['model']}: {u['reason']}"))
         b = tree.add(f"value changes: {len(r['value_changes'])}")
         for v in r["value_changes"]:
             b.add(f"{v['column']}: {v['how']}; {v['change']}")
@@ -309,7 +321,11 @@ def _print_unresolved(tree: Tree, answer: dict[str, Any]) -> None:
     if answer["complete"]:
         tree.add("complete: every reference on the way was resolved")
         return
-    b = tree.add(f"[yellow]incomplete[/yellow]: {len(answer['unresolved'])} unresolved references on the way")
+    b = tree.add(
+        Text.assemble(
+            ("incomplete", "yellow"), f": {len(answer['unresolved'])} unresolved references on the way"
+        )
+    )
     for d in answer["unresolved"]:
         where = f"{d['file']}:{d['line']}" if d["line"] else d["file"]
         b.add(f"{where}: {d['model']}: {d['reason']}: {d['reference']}", style="yellow")

@@ -7,9 +7,9 @@ import json
 import re
 import sys
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
 from rich.console import Console
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
@@ -261,21 +261,30 @@ def _ledger_table(result: Result) -> Table:
 #: pending rows (as many) and one row of the others' counts: a row a file made 3,000 two-row files'
 #: ledger a 3,000-line screen that took 4.3 s to lay out, twice the run (6.8 s in all, now 2.5 s).
 LEDGER_FILES = 20
+T = TypeVar("T")
+
+
+def _folded(rows: list[T], notable: Callable[[T], object]) -> tuple[list[T], list[T], str]:
+    """A table's file rows as printed: all of them (nothing folded, label ""), or beyond
+    LEDGER_FILES the notable ones (as many), the others, and the label of the others' row."""
+    if len(rows) <= LEDGER_FILES:
+        return rows, [], ""
+    shown = [r for r in rows if notable(r)][:LEDGER_FILES]
+    rest = rows[:]
+    for r in shown:
+        rest.remove(r)
+    return shown, rest, f"{len(rest):,} {'other ' if shown else ''}files"
 
 
 def _ledger_rows(tl: ledger_mod.TableLedger) -> list[tuple[str, ledger_mod.FileCounts]]:
     """The (file, counts) rows of a table in the printed ledger; they add up to its total."""
-    files = sorted(tl.files.items())
-    if len(files) <= LEDGER_FILES:
-        return files
-    notable = [(n, c) for n, c in files if c.quarantined or c.pending][:LEDGER_FILES]
-    shown = {n for n, _ in notable}
-    rest = ledger_mod.FileCounts()
-    for n, c in files:
-        if n not in shown:
-            rest.add(c)
-    others = len(files) - len(notable)
-    return [*notable, (f"{others:,} {'other ' if notable else ''}files", rest)]
+    shown, rest, label = _folded(sorted(tl.files.items()), lambda f: f[1].quarantined or f[1].pending)
+    if not label:
+        return shown
+    summed = ledger_mod.FileCounts()
+    for _, c in rest:
+        summed.add(c)
+    return [*shown, (label, summed)]
 
 
 def _show_stage(result: Result, stage: str, limit: int, table: str | None, as_json: bool) -> None:
@@ -524,12 +533,11 @@ def _report_check(result: Result, args: argparse.Namespace, hidden: list[str]) -
         folded = False
         for table in dict.fromkeys(r[0] for r in rows):
             mine = [r for r in rows if r[0] == table]
-            if len(mine) > LEDGER_FILES:  # as the ledger does: the files to look at, and the others' sums
+            # as the ledger does: the files to look at, and the others' sums
+            shown, rest, label = _folded(mine, lambda r: r[3] is None or r[4] or r[5])
+            if label:
                 folded = True
-                notable = [r for r in mine if r[3] is None or r[4] or r[5]][:LEDGER_FILES]
-                rest = [r for r in mine if r not in notable]
-                label = f"{len(rest):,} {'other ' if notable else ''}files"
-                mine = [*notable, (table, label, *(sum(r[i] or 0 for r in rest) for i in (2, 3, 4)), [])]
+                mine = [*shown, (table, label, *(sum(r[i] or 0 for r in rest) for i in (2, 3, 4)), [])]
             for table_, name, n, passing, quarantined, unmapped in mine:
                 t.add_row(
                     table_,

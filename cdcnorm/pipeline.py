@@ -621,10 +621,7 @@ def show_plans(
 def free_raw(trun: TableRun, engine: DuckDBEngine) -> None:
     """Drop the table's raw relations (and the tables under them)."""
     for rel in trun.plan.relations:
-        if rel.name.endswith("_rows"):  # a view over the engine reader's table
-            engine.drop_numbered(rel.name)
-        else:
-            engine.drop(rel.name)
+        engine.drop_raw(rel.name)
 
 
 def file_notes(result: Result) -> list[dict[str, str]]:

@@ -526,11 +526,14 @@ class DuckDBEngine:
         )
         self._numbered_views[view] = (table, tuple(columns), spans)
 
-    def drop_numbered(self, view: str) -> None:
-        """Drop a numbered view and the scanned table under it."""
-        numbered = self._numbered_views.pop(view, None)
-        self.con.execute(f"DROP VIEW IF EXISTS {ident(view)}")
-        self.drop(numbered[0] if numbered else view.removesuffix("_rows"))
+    def drop_raw(self, relation: str) -> None:
+        """Drop a raw relation: a numbered view with the scanned table under it, or a table."""
+        numbered = self._numbered_views.pop(relation, None)
+        if numbered is None:
+            self.drop(relation)
+            return
+        self.con.execute(f"DROP VIEW IF EXISTS {ident(relation)}")
+        self.drop(numbered[0])
 
     def lookup(self, view: str, wanted: str) -> str | None:
         """SQL of a relation of the rows of numbered view ``view`` that relation ``wanted`` names

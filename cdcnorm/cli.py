@@ -611,6 +611,12 @@ INTERRUPTED = {
         "applied, the one under way was rolled back; apply again to apply the rest"
     ),
     "apply --dry-run": "a dry run changes nothing: its one transaction was rolled back",
+    # the commands that only read and print
+    **dict.fromkeys(("check", "runs", "mapping-schema", "trace", "impact"), "nothing was written"),
+    "lineage": (
+        "no diagram was left half-written: it is written under a temporary name, removed on the "
+        "interrupt, and only a whole file replaces the old one"
+    ),
 }
 
 

@@ -185,3 +185,43 @@ def test_ctrl_c_while_the_arguments_are_read_says_nothing_was_done(
     monkeypatch.setattr(cli_mod, "build_parser", interrupted)
     assert cli_mod.main(["demo"]) == 130
     assert "error: interrupted: nothing was read or written" in capsys.readouterr().err
+
+
+def test_every_command_says_what_ctrl_c_left() -> None:
+    """A command without its own words printed a bare "interrupted", which tells a user nothing
+    about the files it writes."""
+    import argparse
+
+    from cdcnorm import cli as cli_mod
+
+    parser = cli_mod.build_parser()
+    commands = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction)).choices
+    assert set(commands) <= set(cli_mod.INTERRUPTED), set(commands) - set(cli_mod.INTERRUPTED)
+
+
+def test_ctrl_c_while_a_diagram_is_written_leaves_no_file(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """The export is interrupted after it wrote part of the GraphML: neither the diagram nor its
+    temporary file is left, and an older diagram of the same name is left as it was."""
+    import networkx as nx
+
+    from cdcnorm import cli as cli_mod
+
+    out = tmp_path / "g.graphml"
+    out.write_text("the older diagram\n")
+
+    def interrupted(g: object, path: Path) -> None:
+        Path(path).write_text("<graphml half-written")
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(nx, "write_graphml", interrupted)
+    demo_models, demo_mappings = ROOT / "examples" / "models", ROOT / "mappings"
+    code = cli_mod.main(
+        ["lineage", "--models", str(demo_models), "--mappings", str(demo_mappings), "--out", str(out)]
+    )
+    err = capsys.readouterr().err
+    assert code == 130, err
+    assert "error: interrupted: no diagram was left half-written" in err
+    assert out.read_text() == "the older diagram\n"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["g.graphml"]

@@ -19,7 +19,7 @@ from rich.text import Text
 from cdcnorm import __version__
 from cdcnorm import ledger as ledger_mod
 from cdcnorm.engines import ENGINES
-from cdcnorm.errors import EXIT_OK, CdcnormError, InterruptedRun, UsageError
+from cdcnorm.errors import EXIT_OK, CdcnormError, InterruptedRun, UsageError, closest
 from cdcnorm.mapping import load_mappings
 from cdcnorm.pipeline import STAGE_NAMES, Options, Result, describe_sources, file_notes, run
 
@@ -29,9 +29,34 @@ err = Console(stderr=True, highlight=False, markup=False, width=None if sys.stde
 out = Console(highlight=False, markup=False, soft_wrap=True, width=None if sys.stdout.isatty() else 200)
 
 
+_CHOICE = re.compile(r"invalid choice: '?(.*?)'? \(choose from (.*)\)$")
+
+
 class _Parser(argparse.ArgumentParser):
     def error(self, message: str) -> None:  # type: ignore[override]
-        raise UsageError(f"{self.prog}: {message}", hint=f"see {self.prog} --help")
+        hint = f"see {self.prog} --help"
+        m = _CHOICE.search(message)
+        guess = closest(m.group(1), [c.strip("'") for c in m.group(2).split(", ")]) if m else None
+        if guess:
+            hint = f'did you mean "{guess}"? ' + hint
+        raise UsageError(f"{self.prog}: {message}", hint=hint)
+
+    def parse_args(self, args: Sequence[str] | None = None, namespace: Any = None) -> Any:  # type: ignore[override]
+        """As argparse's, and an unknown option names the closest one the command has."""
+        parsed, extras = self.parse_known_args(args, namespace)
+        if extras:
+            options = set(self._option_string_actions)
+            for action in self._actions:
+                if isinstance(action, argparse._SubParsersAction) and getattr(parsed, action.dest, None):
+                    options |= set(action.choices[getattr(parsed, action.dest)]._option_string_actions)
+            guesses = [closest(x.split("=", 1)[0], options) for x in extras if x.startswith("-")]
+            said = ", ".join(f'"{g}"' for g in dict.fromkeys(g for g in guesses if g))
+            prog = self.prog + (f" {parsed.command}" if getattr(parsed, "command", None) else "")
+            raise UsageError(
+                f"{self.prog}: unrecognized arguments: {' '.join(extras)}",
+                hint=(f"did you mean {said}? " if said else "") + f"see {prog} --help",
+            )
+        return parsed
 
 
 _SIZE = re.compile(r"^\s*[0-9]+(\.[0-9]+)?\s*(B|KB|MB|GB|TB|KiB|MiB|GiB|TiB)\s*$", re.IGNORECASE)

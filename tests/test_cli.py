@@ -450,3 +450,34 @@ def test_names_with_brackets_are_printed_as_written(
     (dumps / "t-[bold]y.csv").unlink()
     assert cli("convert", "--mappings", str(mdir), str(dumps), "--out", str(tmp_path / "l")) == 0
     assert "│ t     │ t-[x].csv " in capsys.readouterr().out
+
+
+@pytest.mark.parametrize(
+    ("args", "said", "hint"),
+    [
+        (["convrt"], "invalid choice: 'convrt'", 'did you mean "convert"? see cdcnorm --help'),
+        (["convert", "x", "--format", "parquett"], "invalid choice: 'parquett'", 'did you mean "parquet"?'),
+        (
+            ["convert", "x", "--mapings", "m"],
+            "unrecognized arguments: --mapings m",
+            'did you mean "--mappings"?',
+        ),
+        (
+            ["check", "x", "--memory-limt=1GB"],
+            "unrecognized arguments: --memory-limt=1GB",
+            '"--memory-limit"',
+        ),
+        (["trace", "--modls", "m", "t.c"], "unrecognized arguments: --modls", 'did you mean "--models"?'),
+        (["convert", "x", "--zzzzzz"], "unrecognized arguments: --zzzzzz", "see cdcnorm convert --help"),
+    ],
+)
+def test_a_misspelt_command_or_option_names_the_closest(
+    args: list[str], said: str, hint: str, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """Exit 2 before anything is read; the hint names the nearest command, choice or option of the
+    command given (argparse itself only says the word is unknown)."""
+    assert cli(*args) == 2
+    err = capsys.readouterr().err
+    assert said in err and hint in err, err
+    if args[-1] == "--zzzzzz":
+        assert "did you mean" not in err

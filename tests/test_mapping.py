@@ -49,6 +49,15 @@ def test_unknown_type_suggests_the_closest(tmp_path: Path) -> None:
     assert 'did you mean "decimal"' in err.message
 
 
+def test_a_misspelt_word_of_a_few_suggests_the_closest(tmp_path: Path) -> None:
+    """A position's kind is one of a few words: the error lists them and names the nearest."""
+    err = _load(tmp_path, GOOD.replace("kind: hex}", "kind: hexx}"))
+    assert err.line == 6 and err.field == "change.position.kind"
+    assert err.hint == 'did you mean "hex"?'
+    err = _load(tmp_path, GOOD.replace("kind: hex}", "kind: zzzz}"))
+    assert err.hint is None  # nothing near: the message's list of the valid words is all
+
+
 def test_bad_type_parameters(tmp_path: Path) -> None:
     assert "scale" in _load(tmp_path, GOOD.replace("decimal(12,2)", "decimal(2,5)")).message
     assert "precision" in _load(tmp_path, GOOD.replace("decimal(12,2)", "decimal(40,2)")).message

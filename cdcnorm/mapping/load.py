@@ -6,6 +6,7 @@ what was found, and suggest the closest valid key or type.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -14,7 +15,7 @@ import yaml
 from pydantic import BaseModel, ValidationError
 
 from cdcnorm import types
-from cdcnorm.errors import MappingError, did_you_mean
+from cdcnorm.errors import MappingError, closest, did_you_mean
 from cdcnorm.mapping.model import FieldSpec, Mapping
 from cdcnorm.types.base import FieldType
 
@@ -149,6 +150,10 @@ def load_mapping(path: Path) -> LoadedMapping:
         elif err["type"] == "missing":
             hint = f"add the key {loc[-1]!r}"
         found = err.get("input")
+        if err["type"] == "literal_error" and isinstance(found, str):
+            # one of a few words (a position's kind, an action): the nearest of them
+            guess = closest(found, re.findall(r"'([^']*)'", str(err.get("ctx", {}).get("expected", ""))))
+            hint = f'did you mean "{guess}"?' if guess else None
         raise MappingError(
             f"invalid key {key}: {err['msg']}",
             file=text_name,

@@ -22,6 +22,7 @@ from cdcnorm.engines import ENGINES
 from cdcnorm.errors import EXIT_OK, CdcnormError, InterruptedRun, UsageError, closest
 from cdcnorm.mapping import load_mappings
 from cdcnorm.pipeline import STAGE_NAMES, Options, Result, describe_sources, file_notes, run
+from cdcnorm.tables import print_table
 
 # No markup: what the consoles print holds names from users' files (a file "t[x].csv" was shown as
 # "t.csv", a column "a[/]b" ended in rich's MarkupError); styled parts are Text with a style.
@@ -49,8 +50,10 @@ class _Parser(argparse.ArgumentParser):
             for action in self._actions:
                 if isinstance(action, argparse._SubParsersAction) and getattr(parsed, action.dest, None):
                     options |= set(action.choices[getattr(parsed, action.dest)]._option_string_actions)
-            guesses = [closest(x.split("=", 1)[0], options) for x in extras if x.startswith("-")]
-            said = ", ".join(f'"{g}"' for g in dict.fromkeys(g for g in guesses if g))
+            # compared without their dashes, which every option shares ("--quiet" is not near "--out")
+            bare = {o.lstrip("-"): o for o in options}
+            guesses = [closest(x.split("=", 1)[0].lstrip("-"), bare) for x in extras if x.startswith("-")]
+            said = ", ".join(f'"{bare[g]}"' for g in dict.fromkeys(g for g in guesses if g))
             prog = self.prog + (f" {parsed.command}" if getattr(parsed, "command", None) else "")
             raise UsageError(
                 f"{self.prog}: unrecognized arguments: {' '.join(extras)}",
@@ -325,7 +328,7 @@ def _show_stage(result: Result, stage: str, limit: int, table: str | None, as_js
             t.add_column(col, overflow="fold")
         for row in data.to_pylist():
             t.add_row(*("NULL" if v is None else str(v) for v in row.values()))
-        out.print(t)
+        print_table(out, t)
 
 
 def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
@@ -424,7 +427,7 @@ def _report_run(
     if result.run is None:
         out.print(f"nothing new to convert: no run was added to {landing}")
         return
-    out.print(_ledger_table(result))
+    print_table(out, _ledger_table(result))
     if any(len(tl.files) > LEDGER_FILES for tl in result.ledger.tables.values()):
         out.print(
             f"a table of more than {LEDGER_FILES} files shows its files with quarantined or pending rows and "
@@ -493,7 +496,7 @@ def cmd_runs(args: argparse.Namespace) -> int:
     for rec in records:
         row = runs.summary(rec)
         t.add_row(*("" if row[c] is None else str(row[c]) for c in cols))
-    out.print(t)
+    print_table(out, t)
     return EXIT_OK
 
 
@@ -539,7 +542,7 @@ def _report_check(result: Result, args: argparse.Namespace, hidden: list[str]) -
     elif not args.quiet:
         t = Table(title="cdcnorm check")
         for col in ("table", "file", "rows", "would pass", "quarantine", "unmapped raw columns"):
-            t.add_column(col)
+            t.add_column(col, justify="right" if col in ("rows", "would pass", "quarantine") else "left")
         rows = []
         for s in sources:
             tl = result.ledger.tables.get(s["table"])
@@ -572,7 +575,7 @@ def _report_check(result: Result, args: argparse.Namespace, hidden: list[str]) -
                     "-" if quarantined is None else str(quarantined),
                     ", ".join(unmapped) or "-",
                 )
-        out.print(t)
+        print_table(out, t)
         if folded:
             out.print(
                 f"a table of more than {LEDGER_FILES} files shows its files with quarantined rows, unmapped "

@@ -17,6 +17,7 @@ from cdcnorm.errors import EXIT_OK, TargetError, UsageError, did_you_mean
 from cdcnorm.mapping import load_mappings
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.scratch import scratch_folder
+from cdcnorm.tables import print_table
 
 #: Where ``apply`` finds its target when --target is not given (keeps a password off the command line).
 TARGET_ENV = "CDCNORM_TARGET"
@@ -141,7 +142,7 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
         t.add_column(col, justify="right" if col in ("rows", "event files") else "left")
     for r in rows:
         t.add_row(r["table"], str(r["rows"]), str(r["event_files"]), r["file"])
-    out.print(t)
+    print_table(out, t)
     _print_notes(err, [(r["table"], r["notes"]) for r in rows])
     for name in missing:
         err.print(
@@ -243,7 +244,7 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
         t.add_column(col.replace("_", " "), justify="left" if col == "table" else "right")
     for row in data["tables"]:
         t.add_row(row["target_table"], *(str(row[c]) for c in cols[1:]))
-    out.print(t)
+    print_table(out, t)
     _print_notes(err, [(r.table, r.notes) for r in reports])
     for name in missing:
         err.print(

@@ -440,17 +440,27 @@ def _report_run(
     # how long the run took and its rate: what a nightly job's window is sized by
     took = f" ({_took(total.read, seconds)})" if seconds is not None else ""
     out.print(
-        f"ledger balanced: {total.read} rows read, {total.pending_in} carried in, every row accounted for{took}"
+        f"ledger balanced: {total.read:,} rows read, {total.pending_in:,} carried in, every row accounted for{took}"
+    )
+    waiting = (
+        "1 before-image waits for its after-image"
+        if result.waiting == 1
+        else f"{result.waiting:,} before-images wait for their after-images"
     )
     out.print(
         f"run {result.run} committed to {landing}: events in {landing / 'events'}"
-        + (f"; {total.quarantined} quarantined rows in {landing / 'quarantine'}" if total.quarantined else "")
         + (
-            f"; {result.waiting} before-images wait for their after-images (cdcnorm settle ends the wait)"
-            if result.waiting
+            f"; {_rows(total.quarantined, 'quarantined')} in {landing / 'quarantine'}"
+            if total.quarantined
             else ""
         )
+        + (f"; {waiting} (cdcnorm settle ends the wait)" if result.waiting else "")
     )
+
+
+def _rows(n: int, what: str) -> str:
+    """``1 quarantined row``, ``1,234 quarantined rows``."""
+    return f"{n:,} {what} row{'' if n == 1 else 's'}"
 
 
 def _took(rows: int, seconds: float) -> str:

@@ -24,6 +24,7 @@ def test_demo_runs_and_balances(tmp_path: Path, capsys: pytest.CaptureFixture[st
     assert "ledger balanced: 37 rows read" in text
     # how long it took and the rate, what a nightly job's window is sized by
     assert re.search(r"every row accounted for \([0-9.,]+ s, [0-9,]+ rows/s\)\n", text), text
+    assert "; 12 quarantined rows in " in text and "; 1 before-image waits for its after-image (" in text
     record = last_run(tmp_path)
     ledger = record["ledger"]
     assert ledger["balanced"] and ledger["total"]["read"] == 37

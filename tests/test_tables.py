@@ -75,11 +75,21 @@ def test_the_demos_ledger_on_a_100_column_terminal_names_every_file(
     monkeypatch.setattr(
         cli_mod,
         "out",
-        Console(file=buf, width=100, force_terminal=True, color_system=None, highlight=False, markup=False),
+        Console(
+            file=buf,
+            width=100,
+            force_terminal=True,
+            color_system=None,
+            highlight=False,
+            markup=False,
+            soft_wrap=True,
+        ),
     )
     assert cli("demo", "--out", str(tmp_path / "demo")) == 0
     text = buf.getvalue()
     assert "…" not in text
+    ledger = text[: text.index("ledger balanced")]  # the messages after it wrap in the terminal
+    assert max(len(line) for line in ledger.splitlines()) <= 100
     for name in (
         "ferry.bookings",
         "ferry.passengers",
@@ -88,3 +98,30 @@ def test_the_demos_ledger_on_a_100_column_terminal_names_every_file(
         "sailings.jsonl",
     ):
         assert name in text, text
+
+
+def test_a_trace_on_an_80_column_terminal_names_every_file_and_line(monkeypatch: pytest.MonkeyPatch) -> None:
+    """A lineage tree's deep lines were cut at the screen's edge (``marts/daily_reven``): they wrap."""
+    from cdcnorm import cli as cli_mod
+    from tests.conftest import ROOT
+
+    buf = io.StringIO()
+    monkeypatch.setattr(
+        cli_mod,
+        "out",
+        Console(
+            file=buf,
+            width=80,
+            force_terminal=True,
+            color_system=None,
+            highlight=False,
+            markup=False,
+            soft_wrap=True,
+        ),
+    )
+    models, mappings = str(ROOT / "examples" / "models"), str(ROOT / "mappings")
+    assert cli("trace", "--models", models, "--mappings", mappings, "route_rankings.share_of_day") == 0
+    text = buf.getvalue()
+    assert max(len(line) for line in text.splitlines()) <= 80
+    for where in ("marts/daily_revenue.sql:4", "marts/route_rankings.sql:8", "staging/stg_bookings.sql:8"):
+        assert where in text, text

@@ -212,7 +212,7 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
             print(json.dumps(payload, indent=2))
         else:
             for a in answers:
-                out.print(_trace_tree(a))
+                out.print(_trace_tree(a), soft_wrap=False)
         # a CI gate must not pass on a partial graph: an answer with unresolved references says so
         return EXIT_OK if all(a["complete"] for a in answers) else EXIT_INCOMPLETE
     if args.command == "impact":
@@ -310,7 +310,7 @@ def _print_impact(r: dict[str, Any], out: Console) -> None:
         for v in r["row_changes"]:
             b.add(f"{v['column']}: the column is a {'/'.join(v['clauses']) or 'row'} key upstream")
     _print_unresolved(tree, r)
-    out.print(tree)
+    out.print(tree, soft_wrap=False)
 
 
 def _print_unresolved(tree: Tree, answer: dict[str, Any]) -> None:

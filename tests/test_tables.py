@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import io
 from pathlib import Path
+from typing import Any
 
 import pytest
 from rich.console import Console
@@ -66,25 +67,22 @@ def test_a_table_that_fits_is_printed_as_rich_prints_it() -> None:
     assert _printed(80, True, small) == buf.getvalue()
 
 
-def test_the_demos_ledger_on_a_100_column_terminal_names_every_file(
-    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
-) -> None:
+def _terminal_out(monkeypatch: pytest.MonkeyPatch, width: int) -> io.StringIO:
+    """The command's output console as ``cli.out`` makes it (soft wraps, no markup), on a terminal of
+    ``width`` columns; what it prints lands in the returned buffer."""
     from cdcnorm import cli as cli_mod
 
     buf = io.StringIO()
-    monkeypatch.setattr(
-        cli_mod,
-        "out",
-        Console(
-            file=buf,
-            width=100,
-            force_terminal=True,
-            color_system=None,
-            highlight=False,
-            markup=False,
-            soft_wrap=True,
-        ),
-    )
+    settings: dict[str, Any] = {"highlight": False, "markup": False, "soft_wrap": True}
+    console = Console(file=buf, width=width, force_terminal=True, color_system=None, **settings)
+    monkeypatch.setattr(cli_mod, "out", console)
+    return buf
+
+
+def test_the_demos_ledger_on_a_100_column_terminal_names_every_file(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    buf = _terminal_out(monkeypatch, 100)
     assert cli("demo", "--out", str(tmp_path / "demo")) == 0
     text = buf.getvalue()
     assert "…" not in text
@@ -102,23 +100,9 @@ def test_the_demos_ledger_on_a_100_column_terminal_names_every_file(
 
 def test_a_trace_on_an_80_column_terminal_names_every_file_and_line(monkeypatch: pytest.MonkeyPatch) -> None:
     """A lineage tree's deep lines were cut at the screen's edge (``marts/daily_reven``): they wrap."""
-    from cdcnorm import cli as cli_mod
     from tests.conftest import ROOT
 
-    buf = io.StringIO()
-    monkeypatch.setattr(
-        cli_mod,
-        "out",
-        Console(
-            file=buf,
-            width=80,
-            force_terminal=True,
-            color_system=None,
-            highlight=False,
-            markup=False,
-            soft_wrap=True,
-        ),
-    )
+    buf = _terminal_out(monkeypatch, 80)
     models, mappings = str(ROOT / "examples" / "models"), str(ROOT / "mappings")
     assert cli("trace", "--models", models, "--mappings", mappings, "route_rankings.share_of_day") == 0
     text = buf.getvalue()

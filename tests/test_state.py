@@ -622,3 +622,113 @@ def test_as_of_time_and_normalised_positions_on_the_demo(
         args = ("snapshot", str(landing), "--mappings", str(mdir), "--out", str(tmp_path / "x"))
         assert cli(*args, "--table", "ferry.bookings", "--as-of", unpadded) == 2
         assert "(did you mean 00000016/B374D848.00000000000000000000.2?)" in capsys.readouterr().err
+
+
+SAMPLES = """
+table: lab.samples
+files: ["samples-*.csv"]
+key: [id]
+change:
+  action: {column: op, codes: {I: insert, U: after, D: delete}}
+  position: {column: pos, kind: integer}
+  updates: after-only
+fields:
+  id: integer
+  name: text
+  doc: json
+"""
+
+#: JSON texts and whether PostgreSQL's jsonb refuses them: the escape \\u0000 anywhere (a string or a
+#: member name), not an escaped backslash followed by "u0000" (RFC 8259, section 7: a backslash
+#: escapes the next character). The test asks the server itself.
+JSON_TEXTS = [
+    '{"a": "x\\u0000y"}',
+    '{"\\u0000": 1}',
+    '["\\\\\\u0000"]',
+    '{"a": "x\\\\u0000y"}',
+    '["\\\\\\\\u0000"]',
+    '{"a": "\\u0001 \\u00000"}',
+    '{"a": "u0000"}',
+]
+
+
+def test_the_postgresql_refusals_match_the_server(pg_url: str) -> None:
+    """Which values apply stops on before writing (``cannot_hold``) is what PostgreSQL itself refuses:
+    the server as the oracle, value by value."""
+    import psycopg
+    import sqlalchemy as sa
+
+    from cdcnorm.mapping.model import FieldSpec
+    from cdcnorm.targets.postgresql import PostgreSQLTarget
+    from cdcnorm.types import resolve
+
+    def parse_type(name: str) -> Any:
+        return resolve(FieldSpec(type=name))
+
+    target = PostgreSQLTarget(pg_url, 5)
+    url = sa.engine.make_url(pg_url).set(drivername="postgresql").render_as_string(False)
+    cases = [("text", t) for t in ("a\x00b", "\x00", "a\\u0000b", "plain")] + [
+        ("json", j) for j in JSON_TEXTS
+    ]
+    for kind, value in cases:
+        refusal = target.cannot_hold(parse_type(kind), "v")
+        assert refusal is not None
+        con = duckdb.connect()
+        ours = con.execute(
+            f"SELECT {refusal.condition} FROM (SELECT CAST(? AS {kind.upper()}) AS v)", [value]
+        )
+        flagged = bool(ours.fetchone()[0])  # type: ignore[index]
+        with psycopg.connect(url, autocommit=True) as c:
+            try:
+                c.execute(f"SELECT CAST(%s AS {'jsonb' if kind == 'json' else 'text'})", [value])
+                refused = False
+            except (psycopg.DataError, ValueError):  # psycopg refuses a NUL before sending it
+                refused = True
+        assert flagged == refused, (kind, value)
+    assert target.cannot_hold(parse_type("integer"), "v") is None
+
+
+def test_a_value_postgresql_cannot_store_stops_the_apply_before_any_row(
+    pg_url: str, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    mdir = _mappings(tmp_path, SAMPLES)
+    days = tmp_path / "in"
+    days.mkdir()
+    (days / "samples-1.csv").write_bytes(
+        b'op,pos,id,name,doc\nI,1,1,plain,"{""a"": 1}"\nI,2,2,"a\x00b","{}"\n'
+        b'I,3,3,c,"{""a"": ""x\\u0000y""}"\nI,4,4,d,"{""a"": ""x\\\\u0000y""}"\n'
+    )
+    landing = tmp_path / "landing"
+    assert cli("convert", str(days), "--mappings", str(mdir), "--out", str(landing)) == 0
+    capsys.readouterr()
+    assert cli("apply", str(landing), "--mappings", str(mdir), "--target", pg_url) == 10
+    err = capsys.readouterr().err
+    assert "Traceback" not in err
+    # the first field in the mapping's order with a refused value, its key, position and events file
+    assert "1 value of lab.samples.name holds the NUL character (U+0000)" in err
+    assert "key id=2 at position 00000000000000000002.0" in err
+    assert "no row of lab.samples was written" in err and "events/lab.samples/" in err
+    import sqlalchemy as sa
+
+    engine = sa.create_engine(sa.engine.make_url(pg_url).set(drivername="postgresql+psycopg"))
+    with engine.connect() as c:
+        assert c.execute(sa.text('SELECT count(*) FROM lab."samples"')).scalar() == 0
+    # the other databases store them as they are
+    lite = tmp_path / "w.db"
+    assert cli("apply", str(landing), "--mappings", str(mdir), "--target", f"sqlite:///{lite}") == 0
+    con = sqlite3.connect(lite)
+    assert con.execute('SELECT name FROM "lab.samples" WHERE id = 2').fetchone() == ("a\x00b",)
+    con.close()
+    # as the hint says: later changes of the keys that replace the values let the apply through
+    (days / "samples-2.csv").write_text('op,pos,id,name,doc\nU,5,2,ab,"{}"\nU,6,3,c,"{""a"": ""xy""}"\n')
+    assert cli("convert", str(days / "samples-2.csv"), "--mappings", str(mdir), "--out", str(landing)) == 0
+    assert cli("apply", str(landing), "--mappings", str(mdir), "--target", pg_url) == 0
+    with engine.connect() as c:
+        rows = c.execute(sa.text('SELECT id, name, doc::text FROM lab."samples" ORDER BY id')).all()
+    engine.dispose()
+    assert [tuple(r) for r in rows] == [
+        (1, "plain", '{"a": 1}'),
+        (2, "ab", "{}"),
+        (3, "c", '{"a": "xy"}'),
+        (4, "d", '{"a": "x\\\\u0000y"}'),
+    ]

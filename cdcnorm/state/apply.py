@@ -111,6 +111,49 @@ def _check_columns(session: Session, target: Target, spec: TableSpec, tables: Ta
             )
 
 
+def _check_values(
+    engine: DuckDBEngine, mapping: LoadedMapping, target: Target, last: str, files: list[EventFile]
+) -> None:
+    """Values the target cannot store (``Target.cannot_hold``) stop the apply before anything is
+    written, named by field, key, position and events file: the database's own refusal would come
+    in the middle of a batch, in its words."""
+    key = tuple(mapping.mapping.key)
+    names = list(mapping.field_types)
+    shown_key = ", ".join(f"CAST(v{names.index(k)} AS VARCHAR)" for k in key)
+    checks = []
+    for i, (name, ftype) in enumerate(mapping.field_types.items()):
+        refusal = target.cannot_hold(ftype, f"v{i}")
+        if refusal is not None:  # a delete writes only its key
+            rows = "TRUE" if name in key else "__action = 'upsert'"
+            checks.append((name, ftype, refusal, f"{rows} AND coalesce({refusal.condition}, FALSE)"))
+    if not checks:
+        return
+    parts = ", ".join(
+        f"count(*) FILTER (WHERE {c}), arg_min([__position, __source, {shown_key}], __position) FILTER (WHERE {c})"
+        for _, _, _, c in checks
+    )
+    found = engine.rows(f"SELECT {parts} FROM {ident(last)}")[0]
+    paths = {f.path.name: f.path for f in files}
+    for (name, ftype, refusal, _), n, first in zip(checks, found[0::2], found[1::2], strict=True):
+        if not n:
+            continue
+        position, source, *key_values = first
+        key_text = ", ".join(f"{k}={v}" for k, v in zip(key, key_values, strict=True))
+        more = f" (and {n - 1:,} more values)" if n > 1 else ""
+        raise TargetError(
+            f"{target.shown}: {n:,} value{'s' if n > 1 else ''} of {mapping.table}.{name} "
+            f"hold{'' if n > 1 else 's'} {refusal.what}, which the database cannot store; no row of "
+            f"{mapping.table} was written",
+            file=str(paths.get(source, source)),
+            field=name,
+            expected=f"values a {target.type_text(ftype)} column stores",
+            found=f"{refusal.what} in the value of key {key_text} at position {position}{more}",
+            hint="load the table into a database that stores it (SQLite, DuckDB), or correct the value at "
+            "its source: once a later change of the key replaces it, the apply goes through. Other "
+            "tables apply on their own with --table",
+        )
+
+
 def apply_table(
     engine: DuckDBEngine,
     mapping: LoadedMapping,
@@ -179,6 +222,7 @@ def _apply(
             f"an events file of {mapping.table} cannot be read: {str(e).splitlines()[0]}",
             expected="event files as cdcnorm convert writes them",
         ) from None
+    _check_values(engine, mapping, target, last, new)
     total = sum(int(n) for n in per_file.values())
     keys = engine.count(last)
     report.events += total

@@ -200,8 +200,7 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
             except database_errors as e:  # the database's own errors, in its words, without a password
                 first = str(getattr(e, "orig", None) or e).strip().splitlines()[0]
                 raise TargetError(
-                    f"{target.shown}: {scrub(first, url)}",
-                    field=m.table,
+                    f"{target.shown}: applying {m.table}: {scrub(first, url)}",
                     hint="check the URL, that the server runs, that the user may create tables, and that "
                     "tables made by an earlier apply have the mapping's fields (a field added to a mapping "
                     "needs its column: ALTER TABLE ... ADD COLUMN)",

@@ -293,6 +293,15 @@ class Session(Protocol):
     def stage(self, tables: Tables, batch: pa.RecordBatch) -> None: ...
 
 
+@dataclass(frozen=True)
+class Refusal:
+    """Values a target refuses: ``condition`` (engine SQL, true for such a value) and what they hold
+    that the target's column cannot (for messages)."""
+
+    condition: str
+    what: str
+
+
 class Begin(Protocol):
     """Starts a transaction (rolled back at its end with ``rollback``)."""
 
@@ -324,6 +333,12 @@ class Target:
     def insert(self, table: sa.Table) -> Any:
         """The dialect's INSERT with ON CONFLICT."""
         raise NotImplementedError
+
+    def cannot_hold(self, ftype: FieldType, v: str) -> Refusal | None:
+        """Values of ``ftype`` this database refuses to store in the column apply gives them (engine
+        SQL over the typed value ``v``); None where it stores every value. Apply looks for them
+        before it writes anything."""
+        return None
 
     #: the SQLAlchemy dialect statements are compiled for, and the sqlglot dialect of type names
     sa_dialect: ClassVar[sa.engine.Dialect]

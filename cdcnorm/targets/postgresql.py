@@ -26,6 +26,7 @@ from cdcnorm.targets.base import (
     POSITION,
     AlchemySession,
     Begin,
+    Refusal,
     Tables,
     TableSpec,
     Target,
@@ -98,6 +99,19 @@ class PostgreSQLTarget(Target):
 
     def insert(self, table: sa.Table) -> Any:
         return postgresql.insert(table)
+
+    def cannot_hold(self, ftype: FieldType, v: str) -> Refusal | None:
+        # PostgreSQL's documentation (Character Types): "The character with code zero (sometimes
+        # called NUL) cannot be stored"; jsonb refuses the escape \u0000 for the same reason (JSON
+        # Types). An escape is a backslash after an even number of backslashes.
+        if ftype.name == "text":
+            return Refusal(f"contains({v}, chr(0))", "the NUL character (U+0000)")
+        if ftype.name == "json":
+            return Refusal(
+                rf"regexp_matches(CAST({v} AS VARCHAR), '(^|[^\\])(\\\\)*\\u0000')",
+                "the escape \\u0000 (the NUL character)",
+            )
+        return None
 
     def connect(self, spec: TableSpec) -> AbstractContextManager[Begin]:
         return self._connect(spec)

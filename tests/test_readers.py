@@ -191,6 +191,39 @@ def test_jsonl_nested_flat_and_malformed_lines(convert: ConvertFn) -> None:
     assert done.ledger()["total"]["read"] == 5
 
 
+def test_a_byte_order_mark_before_the_first_json_line_is_not_part_of_it(convert: ConvertFn) -> None:
+    # RFC 8259, section 8.1: a parser may ignore a byte order mark rather than treat it as an error;
+    # as in a CSV file, it is not part of the first record. Anywhere else it is the line's content.
+    import gzip
+
+    bom = b"\xef\xbb\xbf"
+
+    def line(i: int) -> bytes:
+        return b'{"op": "I", "pos": %d, "id": %d, "a": "x", "b": "y"}' % (i, i)
+
+    files = {
+        "n-1.jsonl": bom + b"".join(line(i) + b"\n" for i in range(1, 4)),
+        "n-2.jsonl.gz": gzip.compress(bom + b"".join(line(i) + b"\n" for i in range(11, 14))),
+        "n-3.jsonl": line(21) + b"\n" + bom + line(22) + b"\n",
+        "n-4.jsonl": bom,  # a file of a BOM alone is empty
+    }
+    # the path of many small files read as one scan too
+    files.update({f"n-s{i:02}.jsonl": bom + line(100 + i) for i in range(20)})
+    done = convert(MAPPING, files)
+    ledger = done.ledger()
+    assert ledger["balanced"]
+    read = ledger["tables"]["t.notes"]["files"]
+    assert read["n-1.jsonl"]["read"] == read["n-2.jsonl.gz"]["read"] == 3
+    assert read["n-1.jsonl"]["quarantined"] == read["n-2.jsonl.gz"]["quarantined"] == 0
+    assert all(read[f"n-s{i:02}.jsonl"]["quarantined"] == 0 for i in range(20))
+    origins = {(e["origin"]["file"], e["origin"]["row"]) for e in done.events("t.notes")}
+    assert ("n-1.jsonl", 1) in origins and ("n-2.jsonl.gz", 1) in origins and ("n-s00.jsonl", 1) in origins
+    [q] = done.quarantine("t.notes")  # the mark at the start of a second line stays its content
+    assert (q["_cdcnorm"]["file"], q["_cdcnorm"]["row"]) == ("n-3.jsonl", 2)
+    assert q["_cdcnorm"]["text"] == "\ufeff" + line(22).decode()
+    assert read["n-4.jsonl"]["read"] == 0
+
+
 def test_parquet_dump(convert: ConvertFn, tmp_path: object) -> None:
     table = pa.table(
         {"op": ["I", "I"], "pos": [1, 2], "id": [1, 2], "a": ["x", None], "b": [b"\x00\x01", b""]}

@@ -28,6 +28,7 @@ from cdcnorm.types.json import json_path
 
 FORMAT = "jsonl"
 SUFFIXES = (".jsonl", ".ndjson")
+BOM = b"\xef\xbb\xbf"  # U+FEFF in UTF-8
 LINES = pa.schema([("raw", pa.large_binary()), ("__row", pa.int64()), ("__file", pa.int32())])
 #: Files of at most this size are read together, as one scan, when a table has at least JOIN_MIN
 #: of them (each scan costs tens of milliseconds of statements, whatever its size).
@@ -57,8 +58,14 @@ def _batches(f: RawFile) -> Iterator[pa.RecordBatch]:
         ids = _numbers(np.full(len(lines), f.file_id, dtype=np.int32), pa.int32())
         return pa.RecordBatch.from_arrays([lines, rows, ids], schema=LINES)
 
+    first = True
     for block in streams.blocks(f.path):
         data = carry + block
+        if first and not (len(data) < len(BOM) and BOM.startswith(data)):  # else: wait for more
+            # RFC 8259, section 8.1: a parser may ignore a byte order mark rather than treat it as
+            # an error; as in a CSV file, it is not part of the first record
+            data = data.removeprefix(BOM)
+            first = False
         cut = data.rfind(b"\n")
         if cut < 0:
             carry = data

@@ -57,6 +57,45 @@ def test_unresolvable_references_are_reported_not_guessed(tmp_path: Path) -> Non
     assert trace(project, "amb.id")["unresolved"][0]["reason"] == "ambiguous"
 
 
+def test_a_file_that_cannot_be_parsed_makes_answers_about_a_table_it_names_incomplete(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # a statement that could not be parsed defines no model: what it reads is unknown, so an impact
+    # that passes through a table it names may miss its dependents, and a trace through a table it
+    # may define may be wrong. Before, both said "complete" and exited 0.
+    models = {
+        "totals.sql": "SELECT id, amount * 2 AS doubled FROM shop.orders",
+        "half.sql": "CREATE VIEW half AS SELECT id, doubled / 2 AS amount_again FROM totals WHERE",
+        "reader.sql": "SELECT amount_again FROM half",
+        "other.sql": "SELECT region FROM shop.customers",
+        "words.sql": "SELECT 'unterminated FROM shop.orders",  # not even tokenized: it counts everywhere
+    }
+    project = project_from(tmp_path, models, SCHEMA)
+    reasons = {(d.file, d.reason) for d in project.diagnostics if d.unresolved}
+    assert reasons == {("half.sql", "parse error"), ("words.sql", "parse error")}
+    files = {d["file"] for d in impact(project, "shop.orders.amount", None, mappings=[])["unresolved"]}
+    assert {"half.sql", "words.sql"} <= files
+    # a file naming no table on the way counts only when its words cannot be told
+    other = impact(project, "shop.customers.region", None, mappings=[])
+    assert {d["file"] for d in other["unresolved"]} == {"words.sql"} and not other["complete"]
+    assert "half.sql" in {d["file"] for d in trace(project, "reader.amount_again")["unresolved"]}
+    # through the CLI: exit 11 (incomplete), the file and line of the parse error named
+    (tmp_path / "models" / "words.sql").unlink()
+    (tmp_path / "schema.yaml").write_text(json.dumps({"tables": SCHEMA}))
+    common = ("--models", str(tmp_path / "models"), "--mappings", str(tmp_path / "none"))
+    catalog = ("--catalog", str(tmp_path / "schema.yaml"))
+    capsys.readouterr()
+    assert cli("impact", "shop.orders.amount", *common, *catalog) == 11
+    out = capsys.readouterr().out
+    assert "incomplete: 1 unresolved reference on the way" in out and "half.sql:1: half: parse error" in out
+    assert cli("impact", "shop.customers.region", *common, *catalog) == 0
+    assert "complete: every reference on the way was resolved" in capsys.readouterr().out
+    # fixed, the answer is whole again
+    (tmp_path / "models" / "half.sql").write_text(models["half.sql"] + " id > 0")
+    assert cli("impact", "shop.orders.amount", *common, *catalog) == 0
+    assert "half.amount_again" in capsys.readouterr().out
+
+
 def test_columns_of_tables_without_a_schema_are_inferred_only_when_one_source_can_own_them(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:

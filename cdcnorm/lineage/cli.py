@@ -168,11 +168,11 @@ def _trace_tree(answer: dict[str, Any]) -> Tree:
                 )
             )
 
-    branch = tree.add(f"value lineage: {len(answer['value'])} source columns")
+    branch = tree.add(f"value lineage: {_count(len(answer['value']), 'source column')}")
     for p in answer["paths"]:
         if p["lineage"] == "value":
             add_path(branch, p)
-    branch = tree.add(f"influence lineage: {len(answer['influence'])} source columns")
+    branch = tree.add(f"influence lineage: {_count(len(answer['influence']), 'source column')}")
     # grouped by kind: join keys that only connect tables apart from the filters that decide rows
     from cdcnorm.lineage.questions import KIND_NAMES
 
@@ -313,6 +313,11 @@ def _print_impact(r: dict[str, Any], out: Console) -> None:
     out.print(tree, soft_wrap=False)
 
 
+def _count(n: int, what: str) -> str:
+    """``1 unresolved reference``, ``2 unresolved references``."""
+    return f"{n:,} {what}{'' if n == 1 else 's'}"
+
+
 def _print_unresolved(tree: Tree, answer: dict[str, Any]) -> None:
     if answer.get("inferred"):
         tree.add(
@@ -323,7 +328,8 @@ def _print_unresolved(tree: Tree, answer: dict[str, Any]) -> None:
         return
     b = tree.add(
         Text.assemble(
-            ("incomplete", "yellow"), f": {len(answer['unresolved'])} unresolved references on the way"
+            ("incomplete", "yellow"),
+            f": {_count(len(answer['unresolved']), 'unresolved reference')} on the way",
         )
     )
     for d in answer["unresolved"]:

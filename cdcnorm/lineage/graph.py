@@ -111,6 +111,8 @@ class Project:
     readers: nx.DiGraph = field(default_factory=nx.DiGraph)
     #: typed columns of tables the model files create without a query (``LoadedModels.declared``)
     declared: dict[tuple[str, ...], dict[str, str]] = field(default_factory=dict)
+    #: files with a statement that could not be parsed, and their words (``LoadedModels.unparsed``)
+    unparsed: dict[str, frozenset[str] | None] = field(default_factory=dict)
 
     def view(self) -> Views:
         if self.views is None:
@@ -612,6 +614,7 @@ def _build_project(
         reads,
         deps,
         loaded.declared,
+        loaded.unparsed,
     )
 
 

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import contextlib
 import gc
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -46,6 +46,10 @@ class LoadedModels:
     #: tables a model file creates with typed columns and no query (CREATE TABLE t (a INT, ...)),
     #: by normalised name: column -> SQL type. Rows inserted later take these types.
     declared: dict[tuple[str, ...], dict[str, str]] = field(default_factory=dict)
+    #: files with a statement that could not be parsed: the words of the file (its tokens'
+    #: text, casefolded), or None when even those cannot be told. Such a statement defines no
+    #: model, so what it reads is unknown: an answer about a table it names may miss it.
+    unparsed: dict[str, frozenset[str] | None] = field(default_factory=dict)
 
 
 def _declared_columns(stmt: exp.Create, dialect: str) -> dict[str, str]:
@@ -104,6 +108,12 @@ def _target_and_columns(target: exp.Expr, dialect: str) -> tuple[tuple[str, ...]
     return _normalise(target, dialect), None
 
 
+def _words(tokens: Sequence[Any] | None) -> frozenset[str] | None:
+    """The casefolded text of every token: the names a statement that could not be parsed may
+    read (a superset: keywords and literals too). None when the file could not be tokenized."""
+    return None if tokens is None else frozenset(t.text.casefold() for t in tokens)
+
+
 def load_model_file(path: Path, dialect: str, root: Path | None = None) -> LoadedModels:
     shown = path.relative_to(root).as_posix() if root and path.is_relative_to(root) else str(path)
     out = LoadedModels(files=[shown])
@@ -113,9 +123,11 @@ def load_model_file(path: Path, dialect: str, root: Path | None = None) -> Loade
         out.diagnostics.append(
             Diagnostic(shown, None, path.stem, "parse error", f"cannot read the file: {e}")
         )
+        out.unparsed[shown] = None
         return out
+    d = sqlglot.Dialect.get_or_raise(dialect)
+    tokens = None
     try:
-        d = sqlglot.Dialect.get_or_raise(dialect)
         tokens = d.tokenize(sql)  # once: for the parser and for each statement's first line
         statements = d.parser().parse(tokens, sql)
         lines = _statement_lines(tokens)
@@ -124,6 +136,7 @@ def load_model_file(path: Path, dialect: str, root: Path | None = None) -> Loade
         line = errs[0].get("line") if isinstance(errs[0], dict) else None
         message = str(e).splitlines()[0]
         out.diagnostics.append(Diagnostic(shown, line, path.stem, "parse error", message))
+        out.unparsed[shown] = _words(tokens)
         return out
     stmts = [s for s in statements if s is not None]
     for i, stmt in enumerate(stmts):
@@ -136,6 +149,7 @@ def load_model_file(path: Path, dialect: str, root: Path | None = None) -> Loade
             out.diagnostics.append(
                 Diagnostic(shown, line, path.stem, "parse error", f"not a SQL statement: {text[:80]}")
             )
+            out.unparsed[shown] = _words(tokens)
             continue
         ms = _classify(stmt, path.stem, shown, line, dialect)
         if ms is None and isinstance(stmt, exp.Create) and isinstance(stmt.this, exp.Schema):
@@ -254,6 +268,7 @@ def _load_models(folder: Path, dialect: str) -> LoadedModels:
             out.statements.append(st)
         out.diagnostics.extend(one.diagnostics)
         out.files.extend(one.files)
+        out.unparsed.update(one.unparsed)
         for name, typed in one.declared.items():
             out.declared.setdefault(name, typed)
     return out

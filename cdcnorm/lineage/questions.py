@@ -146,6 +146,21 @@ def _unresolved_readers(project: Project, nodes: set[Node]) -> list[dict[str, An
     ]
 
 
+def _unparsed_readers(project: Project, nodes: set[Node]) -> list[dict[str, Any]]:
+    """The parse errors of files that may read a table among ``nodes``: a statement that could not
+    be parsed defines no model, so its dependents are unknown. A file counts when one of its words
+    is the name (or the last part of the name) of such a table, or when its words cannot be told."""
+    if not project.unparsed:
+        return []
+    names: set[str] = set()
+    for n in nodes:
+        if n[0] in ("source", "raw", "model"):
+            names.add(n[1].casefold())
+            names.add(n[1].rsplit(".", 1)[-1].casefold())
+    hit = {f for f, words in project.unparsed.items() if words is None or not names.isdisjoint(words)}
+    return [d.as_dict() for d in project.diagnostics if d.reason == "parse error" and d.file in hit]
+
+
 def _unresolved_answer(column: str, diagnostics: list[dict[str, Any]]) -> dict[str, Any]:
     """``trace`` of a model whose query could not be resolved, or of a column of it: nothing is
     known, and the answer says why (never an empty answer that looks complete)."""
@@ -227,7 +242,9 @@ def trace(project: Project, column: str) -> dict[str, Any]:
         steps = _path(project, s, node, False)
         kinds = sorted({k for st in steps if st["edge"] == "influence" for k in kinds_of(st["how"])})
         paths.append({"source": node_name(s), "lineage": "influence", "kinds": kinds, "steps": steps})
-    unresolved = unresolved_on(project, {node} | value | influence)
+    on_the_way = {node} | value | influence
+    # a file that could not be parsed and names a table on the way may define it or write to it
+    unresolved = unresolved_on(project, on_the_way) + _unparsed_readers(project, on_the_way)
     return {
         "inferred": inferred_on(project, {node} | value | influence),
         "column": node_name(node),
@@ -354,7 +371,11 @@ def impact(
     # the models the answer passes through: what they could not resolve may hide dependents
     # and the models whose query could not be resolved that read a table on the way
     on_the_way = {node} | value | influence
-    result["unresolved"] = unresolved_on(project, on_the_way) + _unresolved_readers(project, on_the_way)
+    result["unresolved"] = (
+        unresolved_on(project, on_the_way)
+        + _unresolved_readers(project, on_the_way)
+        + _unparsed_readers(project, on_the_way)
+    )
     result["complete"] = not result["unresolved"]
     result["inferred"] = inferred_on(project, {node} | value | influence)
     if edit is None:

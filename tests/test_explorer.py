@@ -140,3 +140,41 @@ def test_tables_without_a_schema_are_placeholder_cards(browser: Any, tmp_path: P
     )
     assert cards == [["source:ref.rates", "dashed"]]  # drawn apart: its columns are inferred
     page.close()
+
+
+def test_an_incomplete_graph_says_so_in_every_format(
+    browser: Any, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # the command exits 11 and lists the unresolved references; the files it writes say so too, so a
+    # diagram opened later is not taken for the whole lineage. Before, they showed nothing.
+    models = tmp_path / "models"
+    shutil.copytree(MODELS, models)
+    (models / "marts" / "broken.sql").write_text(
+        "SELECT b.booking_id\nFROM stg_bookings b\nWHERE b.seats >\n"
+    )
+    args = ("lineage", "--models", str(models), "--mappings", str(MAPPINGS), "--out")
+    out = tmp_path / "p.html"
+    assert cli(*args, str(out)) == 11
+    page = browser.new_page()
+    page.goto(out.as_uri())
+    page.wait_for_selector("body[data-ready='1']")
+    assert page.is_visible("#gaps summary")
+    assert page.inner_text("#gaps summary").startswith("incomplete: 1 unresolved reference:")
+    page.click("#gaps summary")  # opens the list
+    listed = page.inner_text("#gaps ul")
+    assert "marts/broken.sql:3: broken: parse error" in listed and page.is_visible("#gaps ul")
+    assert "(incomplete: 1 unresolved reference)" in page.title()
+    page.close()
+    assert cli(*args, str(tmp_path / "p.json")) == 11
+    graph = json.loads((tmp_path / "p.json").read_text())["graph"]
+    assert [g.split(": ")[1:3] for g in graph["unresolved"]] == [["broken", "parse error"]]
+    assert cli(*args, str(tmp_path / "p.dot")) == 11
+    assert 'label="column lineage (incomplete: 1 unresolved reference)"' in (tmp_path / "p.dot").read_text()
+    # a complete graph's page shows no such list
+    clean = tmp_path / "clean.html"
+    assert cli("lineage", "--models", str(MODELS), "--mappings", str(MAPPINGS), "--out", str(clean)) == 0
+    page = browser.new_page()
+    page.goto(clean.as_uri())
+    page.wait_for_selector("body[data-ready='1']")
+    assert not page.is_visible("#gaps") and "incomplete" not in page.title()
+    page.close()

@@ -245,7 +245,8 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
             g = table_level(g)
             focus = (focus[0], focus[1], "*") if focus else None
             title = title.replace("column lineage", "table lineage")
-        path = export(g, Path(args.out), title=title, focus=focus)
+        gaps = [d.render() for d in project.diagnostics if d.unresolved]
+        path = export(g, Path(args.out), title=title, focus=focus, gaps=gaps)
         summary = {
             "out": str(path),
             "nodes": g.number_of_nodes(),

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import html
 import json
+from collections.abc import Sequence
 from typing import Any
 
 import networkx as nx
@@ -41,7 +42,9 @@ def _depths(g: nx.MultiDiGraph) -> dict[tuple[str, str], int]:
     return depth
 
 
-def explorer_data(g: nx.MultiDiGraph, title: str, focus: Node | None = None) -> dict[str, Any]:
+def explorer_data(
+    g: nx.MultiDiGraph, title: str, focus: Node | None = None, gaps: Sequence[str] = ()
+) -> dict[str, Any]:
     from cdcnorm.lineage.questions import KIND_NAMES, kinds_of
 
     depth = _depths(g)
@@ -55,6 +58,7 @@ def explorer_data(g: nx.MultiDiGraph, title: str, focus: Node | None = None) -> 
     return {
         "title": title,
         "focus": node_id(focus) if focus else None,
+        "unresolved": list(gaps),
         "kinds": list(KIND_NAMES),
         "tables": [
             {
@@ -85,8 +89,10 @@ def explorer_data(g: nx.MultiDiGraph, title: str, focus: Node | None = None) -> 
     }
 
 
-def explorer_html(g: nx.MultiDiGraph, title: str = "column lineage", focus: Node | None = None) -> str:
-    data = json.dumps(explorer_data(g, title, focus), separators=(",", ":")).replace("</", "<\\/")
+def explorer_html(
+    g: nx.MultiDiGraph, title: str = "column lineage", focus: Node | None = None, gaps: Sequence[str] = ()
+) -> str:
+    data = json.dumps(explorer_data(g, title, focus, gaps), separators=(",", ":")).replace("</", "<\\/")
     return PAGE.replace("__TITLE__", html.escape(title)).replace("__DATA__", data)
 
 
@@ -125,6 +131,9 @@ PAGE = r"""<!DOCTYPE html>
   svg#wires path.lit { stroke-width: 2.2; stroke: #1b5fbf; }
   svg#wires path.influence.lit { stroke: #c0504d; }
   .dim svg#wires path:not(.lit) { opacity: .15; }
+  #gaps { background: #fff4d6; border-bottom: 1px solid #e0c060; padding: 6px 12px; }
+  #gaps summary { cursor: pointer; font-weight: 600; }
+  #gaps ul { margin: 4px 0 0; padding-left: 20px; font-family: ui-monospace, monospace; font-size: 12px; }
 </style>
 </head>
 <body>
@@ -135,6 +144,7 @@ PAGE = r"""<!DOCTYPE html>
   <span id="kinds"></span>
   <span id="status">click a column to see what it comes from and what it feeds</span>
 </header>
+<details id="gaps" hidden><summary></summary><ul></ul></details>
 <div id="board"><svg id="wires"></svg></div>
 <script>
 "use strict";
@@ -143,6 +153,17 @@ const board = document.getElementById("board"), wires = document.getElementById(
 const byId = new Map(), tableOf = new Map(), heads = new Map(), lists = new Map();
 const enabled = new Set(DATA.kinds);
 let focus = null;
+
+// what the graph may miss: the unresolved references, listed under the title
+if (DATA.unresolved.length) {
+  const gaps = document.getElementById("gaps"), n = DATA.unresolved.length;
+  gaps.querySelector("summary").textContent =
+    `incomplete: ${n} unresolved reference${n === 1 ? "" : "s"}: the lineage through them may be missing`;
+  for (const text of DATA.unresolved) {
+    const li = document.createElement("li"); li.textContent = text; gaps.querySelector("ul").appendChild(li);
+  }
+  gaps.hidden = false;
+}
 
 // cards, one layer per depth
 const layers = new Map();

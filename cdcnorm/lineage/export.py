@@ -11,6 +11,7 @@ from __future__ import annotations
 import json
 import os
 import shutil
+from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
@@ -142,8 +143,14 @@ def export(
     fmt: str | None = None,
     title: str = "column lineage",
     focus: Node | None = None,
+    gaps: Sequence[str] = (),
 ) -> Path:
+    """Write ``g`` to ``out`` (the format from its suffix, or ``fmt``). ``gaps`` are the unresolved
+    references the graph may miss lineage through: every format says so (the drawn ones in their
+    title, the explorer in a list under it, GraphML and JSON in the graph's ``unresolved``)."""
     fmt = fmt or out.suffix.lstrip(".").lower()
+    if gaps:
+        title = f"{title} (incomplete: {len(gaps)} unresolved reference{'' if len(gaps) == 1 else 's'})"
     if fmt not in FORMATS:
         raise UsageError(f"unknown diagram format {fmt!r}; formats are {', '.join(FORMATS)}", file=str(out))
     out.parent.mkdir(parents=True, exist_ok=True)
@@ -162,11 +169,17 @@ def export(
         elif fmt == "html":  # the explorer: one self-contained page
             from cdcnorm.lineage.explorer import explorer_html
 
-            tmp.write_text(explorer_html(g, title, focus), encoding="utf-8")
+            tmp.write_text(explorer_html(g, title, focus, gaps), encoding="utf-8")
         elif fmt == "graphml":
-            nx.write_graphml(_plain(g), tmp)
+            plain = _plain(g)
+            if gaps:
+                plain.graph["unresolved"] = "\n".join(gaps)
+            nx.write_graphml(plain, tmp)
         else:
-            data: dict[str, Any] = nx.node_link_data(_plain(g), edges="links")
+            plain = _plain(g)
+            if gaps:
+                plain.graph["unresolved"] = list(gaps)
+            data: dict[str, Any] = nx.node_link_data(plain, edges="links")
             tmp.write_text(json.dumps(data, indent=1, sort_keys=True) + "\n", encoding="utf-8")
         os.replace(tmp, out)
     finally:

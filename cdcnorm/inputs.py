@@ -6,7 +6,7 @@ import fnmatch
 import hashlib
 import os
 from collections import Counter
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Iterator, Sequence
 from pathlib import Path
 
 from cdcnorm.errors import InputError, closest
@@ -78,6 +78,38 @@ def expand_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> l
     return gather_inputs(inputs, recursive=recursive)[0]
 
 
+def _files_in(folder: Path, folders: list[Path] | None = None) -> Iterator[Path]:
+    """The files directly in ``folder`` (its sub-folders go to ``folders``, when given). A link
+    to nothing stops the run: the file it stood for is missing."""
+    for c in folder.iterdir():
+        if c.is_file():
+            yield c
+        elif c.is_dir():
+            if folders is not None:
+                folders.append(c)
+        elif c.is_symlink() and not c.exists():
+            raise InputError(
+                f"a link to nothing: it points to {os.readlink(c)}, which does not exist",
+                file=str(c),
+                hint="restore what it points to, or remove the link",
+            )
+
+
+def _walk(root: Path) -> Iterator[Path]:
+    """The files under ``root``, in its sub-folders too, following links to folders (before,
+    a linked folder was left out without a word); a folder reached twice, as through a link back
+    up, is walked once."""
+    seen: set[Path] = set()
+    todo = [root]
+    while todo:
+        folder = todo.pop()
+        real = folder.resolve()
+        if real in seen:
+            continue
+        seen.add(real)
+        yield from _files_in(folder, todo)
+
+
 def gather_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> tuple[list[Path], list[Path]]:
     """``expand_inputs``'s files, and the hidden files (a name starting with a dot, or inside a
     hidden folder) the given folders hold and it leaves out: partial copies by common practice (a
@@ -96,7 +128,7 @@ def gather_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> t
                         file=str(p),
                         hint="add --recursive to read their files too, or name the files to read",
                     )
-            found = sorted(c for c in (p.rglob("*") if recursive else p.iterdir()) if c.is_file())
+            found = sorted(_walk(p) if recursive else _files_in(p))
             for c in found:
                 dotted = any(part.startswith(".") for part in c.relative_to(p).parts)
                 (hidden if dotted else out).append(c)

@@ -479,6 +479,30 @@ def test_sub_folders_need_recursive(tmp_path: Path, capsys: pytest.CaptureFixtur
     assert set(report["ledger"]["tables"]["t.notes"]["files"]) == {"n1.csv", "n2.csv"}
 
 
+def test_recursive_follows_linked_folders_and_stops_on_a_link_to_nothing(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before, --recursive left a linked folder's files out without a word
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN)
+    write_files(tmp_path / "d" / "day1", {"n1.csv": CSV})
+    write_files(tmp_path / "mounted", {"n2.csv": CSV.replace("I,", "I,1", 1)})
+    (tmp_path / "d" / "day2").symlink_to(tmp_path / "mounted", target_is_directory=True)
+    (tmp_path / "d" / "day1" / "up").symlink_to(tmp_path / "d", target_is_directory=True)  # a loop
+    (tmp_path / "d" / "again").symlink_to(tmp_path / "d" / "day1", target_is_directory=True)
+    base = ["convert", "--mappings", str(mdir), str(tmp_path / "d"), "--recursive", "--json"]
+    assert cli(*base, "--out", str(tmp_path / "o1")) == 0
+    report = json.loads(capsys.readouterr().out)
+    files = report["ledger"]["tables"]["t.notes"]["files"]
+    assert set(files) == {"n1.csv", "n2.csv"}  # the linked folder read; a folder reached twice read once
+    assert report["ledger"]["balanced"] and report["ledger"]["total"]["read"] == 2 * files["n1.csv"]["read"]
+    (tmp_path / "d" / "day1" / "n3.csv").symlink_to(tmp_path / "gone.csv")
+    assert cli(*base, "--out", str(tmp_path / "o2")) == 4
+    err = capsys.readouterr().err
+    assert "n3.csv: a link to nothing" in err and "gone.csv" in err and "Traceback" not in err
+    assert not (tmp_path / "o2" / "events").exists()
+
+
 def test_broken_last_field_through_the_cli(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     (mdir := tmp_path / "m").mkdir()
     (mdir / "t.yaml").write_text(PLAIN.replace("a: text", "name: text"))

@@ -306,10 +306,33 @@ def test_jsonl_dotted_path_under_a_key_that_is_not_always_an_object(convert: Con
     fields:
       id: integer
       v: {from: a.b, type: text}
+      w: {from: c.d.e, type: text}
     """
-    data = '{"op": "I", "pos": 1, "id": 1, "a": {"b": "x"}}\n{"op": "I", "pos": 2, "id": 2, "a": "plain"}\n'
+    rows = [
+        '"a": {"b": "x"}, "c": {"d": {"e": "y"}}',
+        '"a": null',  # null or absent on the way: the mapped members are absent (NULL)
+        '"c": {"d": null}',
+        '"a": "plain"',  # there, but not an object: nothing the mapping could read (before: NULL)
+        '"a": "{\\"b\\": \\"x\\"}"',  # JSON encoded twice
+        '"a": ["b"]',
+        '"a": {"b": 1}, "c": {"d": 2.5}',
+        '"c": true',
+    ]
+    data = "".join(f'{{"op": "I", "pos": {i}, "id": {i}, {r}}}\n' for i, r in enumerate(rows, start=1))
     done = convert(mapping, {"x.jsonl": data})
-    assert [e["values"]["v"] for e in done.events("j.t")] == ["x", None]
+    got = {e["key"]["id"]: (e["values"]["v"], e["values"]["w"]) for e in done.events("j.t")}
+    assert got == {1: ("x", "y"), 2: (None, None), 3: (None, None)}
+    reasons = {q["_cdcnorm"]["row"]: q["_cdcnorm"]["reasons"][0]["reason"] for q in done.quarantine("j.t")}
+    tail = ", not an object: the mapping reads members of it"
+    assert reasons == {
+        4: "the member a is a string" + tail,
+        5: "the member a is a string" + tail,
+        6: "the member a is an array" + tail,
+        7: "the member c.d is a number" + tail,
+        8: "the member c is true or false" + tail,
+    }
+    assert all(q["_cdcnorm"]["text"].startswith('{"op": "I"') for q in done.quarantine("j.t"))
+    assert done.ledger()["balanced"]
 
 
 _json_scalars = st.none() | st.booleans() | st.integers(-(10**6), 10**6) | st.text(max_size=3)

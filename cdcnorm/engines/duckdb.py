@@ -707,16 +707,32 @@ class DuckDBEngine:
         # dotted path. The names are parsed once per level.
         twice = "len({0}) <> len(list_distinct({0}))"
         repeated = f"CASE WHEN {twice.format('names')} THEN ''"
+        # A member on the way that is there but is not an object (a string, a number, an array:
+        # ``"after": "{...}"``, JSON encoded twice) holds nothing the mapping could read: the record
+        # is malformed, with the member named, not read as though the mapped members were absent.
+        # null or absent stays absent (NULL). ``astray``: NULL, or the first such member's reason.
+        astray = "CAST(NULL AS VARCHAR)"
         inner = ""
         if nested:
             paths = "[" + ", ".join(lit(json_path(p)) for p in nested) + "]"
-            inner = f", CASE WHEN kind = 'OBJECT' THEN json_keys(line, {paths}) END AS inner_names"
+            inner = (
+                f", CASE WHEN kind = 'OBJECT' THEN json_keys(line, {paths}) END AS inner_names"
+                f", CASE WHEN kind = 'OBJECT' THEN json_type(line, {paths}) END AS inner_kinds"
+            )
+            astray = "CASE"
             for i, p in enumerate(nested, start=1):
                 repeated += f" WHEN {twice.format(f'inner_names[{i}]')} THEN {lit('.'.join(p))}"
+                astray += (
+                    f" WHEN inner_kinds[{i}] NOT IN ('OBJECT', 'NULL') THEN 'the member ' || "
+                    f"{lit('.'.join(p))} || ' is ' || {_JSON_KIND_WORDS.format(f'inner_kinds[{i}]')} || "
+                    "', not an object: the mapping reads members of it'"
+                )
+            astray += " END"
         names = f"SELECT *, CASE WHEN kind = 'OBJECT' THEN json_keys(line) END AS names{inner} FROM ({kind})"
+        dropped = "names, inner_names, inner_kinds" if nested else "names"
         self.con.execute(
-            f"CREATE OR REPLACE TABLE {ident(lines + '_text')} AS SELECT * EXCLUDE (names{', inner_names' if nested else ''}), "
-            f"{repeated} END AS repeated FROM ({names})"
+            f"CREATE OR REPLACE TABLE {ident(lines + '_text')} AS SELECT * EXCLUDE ({dropped}), "
+            f"{repeated} END AS repeated, {astray} AS astray FROM ({names})"
         )
         text = ident(lines + "_text")
         self.con.execute(
@@ -726,13 +742,15 @@ class DuckDBEngine:
             "WHEN NOT valid THEN 'not valid JSON (RFC 8259)' "
             "WHEN kind <> 'OBJECT' THEN 'not a JSON object' "
             "WHEN repeated = '' THEN 'the object repeats a member name (RFC 7493 section 2.3): which value is meant is unclear' "
-            "ELSE 'the object ' || repeated || ' repeats a member name (RFC 7493 section 2.3): which value is meant is unclear' "
-            f"END FROM {text} WHERE line IS NULL OR NOT valid OR kind <> 'OBJECT' OR repeated IS NOT NULL"
+            "WHEN repeated IS NOT NULL THEN 'the object ' || repeated || ' repeats a member name (RFC 7493 section 2.3): which value is meant is unclear' "
+            "ELSE astray "
+            f"END FROM {text} WHERE line IS NULL OR NOT valid OR kind <> 'OBJECT' OR repeated IS NOT NULL "
+            "OR astray IS NOT NULL"
         )
         self.con.execute(
             f"CREATE OR REPLACE TABLE {ident(ok)} AS SELECT __file, __row, "
             f"CAST({tag_numbers('line', self.number_tag, 'risky')} AS JSON) AS j FROM {text} "
-            "WHERE valid AND kind = 'OBJECT' AND repeated IS NULL"
+            "WHERE valid AND kind = 'OBJECT' AND repeated IS NULL AND astray IS NULL"
         )
         self.drop(lines + "_text")
         # The merged structure of one object per distinct structure: the same as of every object
@@ -784,6 +802,12 @@ class DuckDBEngine:
             f"LEFT JOIN ({enc}) e ON e.__file = o.__file AND e.__row = o.__row"
         )
 
+
+#: A value's JSON kind (the engine's json_type) in words, for messages: ``{}`` is the kind.
+_JSON_KIND_WORDS = (
+    "CASE {0} WHEN 'VARCHAR' THEN 'a string' WHEN 'ARRAY' THEN 'an array' WHEN 'BOOLEAN' THEN "
+    "'true or false' ELSE 'a number' END"
+)
 
 #: what engines/__init__.py looks up by the name "duckdb"
 ENGINE = DuckDBEngine

@@ -5,7 +5,8 @@ numbered by line. Nested objects are flattened to dotted column names
 (``after.fare``); scalar values become their text (numbers keep their digits),
 arrays and objects under a leaf stay JSON text. A JSON null is NULL; a string
 equal to a null token other than "" is NULL too. A line that is not a JSON
-object is kept as malformed with its raw text; blank lines are not records.
+object, or whose member on the way to a mapped nested column is there but is not
+an object, is kept as malformed with its raw text; blank lines are not records.
 """
 
 from __future__ import annotations
@@ -135,7 +136,8 @@ def _columns(f: RawFile, structure_text: str | None, mapping: Mapping) -> list[t
     paths = _paths(structure, set(mapping.mapped_columns()))
     columns = [".".join(p) for p in paths]
     # A mapped dotted path under a key whose values are not always objects (so the merged
-    # structure does not list it) is still read; rows where it is absent give NULL.
+    # structure does not list it) is still read: rows where the key is null or absent give NULL
+    # (a row where it is another value was malformed: engine.split_json_lines).
     for wanted in mapping.mapped_columns():
         steps = tuple(wanted.split("."))
         if wanted not in columns and len(steps) > 1 and isinstance(structure, dict) and steps[0] in structure:

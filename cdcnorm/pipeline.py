@@ -296,13 +296,22 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
     return drift, unmapped
 
 
+def _shown(column: str) -> str:
+    """A raw column's name in a note: as it is, or in JSON quotes where it could not be told
+    apart in a list (empty, spaces at an end, a comma, a quote or a control character)."""
+    plain = (
+        column and column == column.strip() and not any(c in column for c in ",\"'") and column.isprintable()
+    )
+    return column if plain else json.dumps(column, ensure_ascii=False)
+
+
 def note_unread(mapping: LoadedMapping, raw: RawTable, unmapped: dict[str, list[str]]) -> None:
     """A note on each file with raw columns no field reads and ``unused`` does not list: their
     values are in no event (a column the source added since the mapping was written, say)."""
     for src in raw.files:
         unread = [c for c in unmapped.get(src.name, []) if not mapping.mapping.left_out(c)]
         if unread:
-            names = ", ".join(unread)
+            names = ", ".join(map(_shown, unread))
             one = len(unread) == 1
             src.notes.append(
                 f"raw column{'' if one else 's'} {names} read by no field of {mapping.table}: "

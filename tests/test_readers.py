@@ -274,6 +274,16 @@ def test_parquet_struct_members_read_as_json_lines_nested_keys(convert: ConvertF
     assert notes[0][0].startswith("raw column after.place.zone read by no field of t.nested")
 
 
+def test_unread_columns_whose_names_would_blur_in_a_list_are_quoted(convert: ConvertFn) -> None:
+    # an empty name (a header's trailing comma), spaces at an end, a comma or a quote: before, the
+    # note read "raw column  read by no field" or "raw columns x, y, z" for two names
+    done = convert(MAPPING, {"n.csv": 'op,pos,id,a,b,zone, pad ,"x, y","say ""hi""",\nI,1,1,p,q,,,,,\n'})
+    (note,) = [n["note"] for n in last_run(done.out)["notes"]]
+    assert note.startswith(
+        'raw columns zone, " pad ", "x, y", "say \\"hi\\"", "" read by no field of t.notes'
+    )
+
+
 def test_names_with_quotes_braces_and_commas(convert: ConvertFn) -> None:
     mapping = """
     table: odd.names

@@ -9,6 +9,7 @@ README ("Exit codes").
 from __future__ import annotations
 
 import difflib
+import json
 from collections.abc import Iterable
 
 EXIT_OK = 0
@@ -37,6 +38,18 @@ def closest(name: str, candidates: Iterable[str]) -> str | None:
         found = difflib.get_close_matches(name.lower(), list(lowered), n=1, cutoff=0.6)
         return lowered[found[0]] if found else None
     return found[0]
+
+
+def name_list(names: Iterable[str]) -> str:
+    """Names from a user's file, comma-separated for a message: each as it is, or in JSON quotes
+    where it could not be told apart in the list (empty, spaces at an end, a comma, a quote or
+    a control character)."""
+
+    def shown(name: str) -> str:
+        plain = name and name == name.strip() and not any(c in name for c in ",\"'") and name.isprintable()
+        return name if plain else json.dumps(name, ensure_ascii=False)
+
+    return ", ".join(map(shown, names))
 
 
 def did_you_mean(name: str, candidates: Iterable[str]) -> str:

@@ -22,7 +22,7 @@ import pyarrow as pa
 from cdcnorm import ledger as ledger_mod
 from cdcnorm import quarantine, zones
 from cdcnorm.engines.duckdb import DuckDBEngine, engine_errors
-from cdcnorm.errors import DriftError, LedgerError, RejectLimitError, UsageError, closest
+from cdcnorm.errors import DriftError, LedgerError, RejectLimitError, UsageError, closest, name_list
 from cdcnorm.inputs import display_names, expand_inputs, gather_inputs, route, text_path
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.plan import Plan, RawRelation, Source
@@ -296,22 +296,13 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
     return drift, unmapped
 
 
-def _shown(column: str) -> str:
-    """A raw column's name in a note: as it is, or in JSON quotes where it could not be told
-    apart in a list (empty, spaces at an end, a comma, a quote or a control character)."""
-    plain = (
-        column and column == column.strip() and not any(c in column for c in ",\"'") and column.isprintable()
-    )
-    return column if plain else json.dumps(column, ensure_ascii=False)
-
-
 def note_unread(mapping: LoadedMapping, raw: RawTable, unmapped: dict[str, list[str]]) -> None:
     """A note on each file with raw columns no field reads and ``unused`` does not list: their
     values are in no event (a column the source added since the mapping was written, say)."""
     for src in raw.files:
         unread = [c for c in unmapped.get(src.name, []) if not mapping.mapping.left_out(c)]
         if unread:
-            names = ", ".join(map(_shown, unread))
+            names = name_list(unread)
             one = len(unread) == 1
             src.notes.append(
                 f"raw column{'' if one else 's'} {names} read by no field of {mapping.table}: "
@@ -477,7 +468,7 @@ def _run(
             file=d.file,
             field=d.field,
             expected=f"a column named {d.column!r}",
-            found="columns " + ", ".join(columns),
+            found="columns " + name_list(columns),
             hint=_drift_hint(d, columns),
         )
     # made by the engine from literals: an Arrow array built from Python lists would import pandas

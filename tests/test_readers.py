@@ -274,7 +274,9 @@ def test_parquet_struct_members_read_as_json_lines_nested_keys(convert: ConvertF
     assert notes[0][0].startswith("raw column after.place.zone read by no field of t.nested")
 
 
-def test_unread_columns_whose_names_would_blur_in_a_list_are_quoted(convert: ConvertFn) -> None:
+def test_unread_columns_whose_names_would_blur_in_a_list_are_quoted(
+    convert: ConvertFn, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     # an empty name (a header's trailing comma), spaces at an end, a comma or a quote: before, the
     # note read "raw column  read by no field" or "raw columns x, y, z" for two names
     done = convert(MAPPING, {"n.csv": 'op,pos,id,a,b,zone, pad ,"x, y","say ""hi""",\nI,1,1,p,q,,,,,\n'})
@@ -282,6 +284,20 @@ def test_unread_columns_whose_names_would_blur_in_a_list_are_quoted(convert: Con
     assert note.startswith(
         'raw columns zone, " pad ", "x, y", "say \\"hi\\"", "" read by no field of t.notes'
     )
+    # and the columns a drift error lists: the header's "a " is not the mapping's a
+    (tmp_path / "m").mkdir()
+    (tmp_path / "m" / "t.yaml").write_text(MAPPING)
+    (tmp_path / "n.csv").write_text("op,pos,id,a ,b,\nI,1,1,p,q,\n")
+    args = [
+        "convert",
+        str(tmp_path / "n.csv"),
+        "--mappings",
+        str(tmp_path / "m"),
+        "--out",
+        str(tmp_path / "o"),
+    ]
+    assert cli(*args) == 4
+    assert 'found: columns op, pos, id, "a ", b, ""' in capsys.readouterr().err
 
 
 def test_names_with_quotes_braces_and_commas(convert: ConvertFn) -> None:

@@ -19,7 +19,7 @@ from rich.text import Text
 from cdcnorm import __version__
 from cdcnorm import ledger as ledger_mod
 from cdcnorm.engines import ENGINES
-from cdcnorm.errors import EXIT_OK, CdcnormError, InterruptedRun, UsageError, closest
+from cdcnorm.errors import EXIT_OK, CdcnormError, InterruptedRun, UsageError, closest, name_list
 from cdcnorm.mapping import load_mappings
 from cdcnorm.pipeline import STAGE_NAMES, Options, Result, describe_sources, file_notes, run
 from cdcnorm.tables import print_table
@@ -583,7 +583,7 @@ def _report_check(result: Result, args: argparse.Namespace, hidden: list[str]) -
                     str(n),
                     "-" if passing is None else str(passing),
                     "-" if quarantined is None else str(quarantined),
-                    ", ".join(unmapped) or "-",
+                    name_list(unmapped) or "-",
                 )
         print_table(out, t)
         if folded:

@@ -195,10 +195,14 @@ def build_parser() -> argparse.ArgumentParser:
         "--before", metavar="POSITION", help="settle images at log positions below this one (raw form)"
     )
     which.add_argument("--all", action="store_true", help="settle every pending image")
-    settle.add_argument("--format", dest="fmt", choices=["jsonl", "parquet"], default="jsonl")
-    settle.add_argument("--wait", type=seconds, default=30.0)
-    settle.add_argument("--json", action="store_true")
-    settle.add_argument("--quiet", action="store_true")
+    settle.add_argument(
+        "--wait",
+        type=seconds,
+        default=30.0,
+        help="seconds to wait while another run writes to the area (default 30)",
+    )
+    settle.add_argument("--json", action="store_true", help="print the result as JSON on stdout")
+    settle.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
     sub.add_parser("mapping-schema", help="print the JSON Schema of mapping files (for editors)")
 
@@ -529,9 +533,7 @@ def cmd_settle(args: argparse.Namespace) -> int:
                 expected=" or ".join(sorted({positions.expected(p) for p in specs})),
                 found=args.before,
             )
-    options = Options(
-        out=Path(args.landing), fmt=args.fmt, wait=args.wait, settle="all" if args.all else args.before
-    )
+    options = Options(out=Path(args.landing), wait=args.wait, settle="all" if args.all else args.before)
     result = run(mappings, [], options)
     args.out = args.landing
     _report_run(result, args, Path(args.landing), [])

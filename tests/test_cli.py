@@ -484,3 +484,22 @@ def test_a_misspelt_command_or_option_names_the_closest(
     assert said in err and hint in err, err
     if args[-1] in ("--zzzzzz", "--quiet"):
         assert "did you mean" not in err
+
+
+def test_every_option_of_every_command_says_what_it_does() -> None:
+    # before, settle's --wait, --json and --quiet, snapshot's --format and --json and apply's --json
+    # showed in --help with no word, and settle took a --format it never used (it writes no events)
+    import argparse
+
+    from cdcnorm.cli import build_parser
+
+    parser = build_parser()
+    (commands,) = [a for a in parser._actions if isinstance(a, argparse._SubParsersAction)]
+    silent = [
+        (name, a.option_strings or a.dest)
+        for name, sub in commands.choices.items()
+        for a in sub._actions
+        if not a.help and not isinstance(a, argparse._HelpAction)
+    ]
+    assert silent == []
+    assert "--format" not in commands.choices["settle"].format_help()

@@ -36,11 +36,17 @@ def add_commands(sub: Any) -> None:
         "--as-of", metavar="POSITION", help="the state at this position (raw or normalised form)"
     )
     when.add_argument("--as-of-time", metavar="TIME", help="the state of the changes committed by this time")
-    snap.add_argument("--format", dest="fmt", choices=["parquet", "csv", "jsonl"], default="parquet")
+    snap.add_argument(
+        "--format",
+        dest="fmt",
+        choices=["parquet", "csv", "jsonl"],
+        default="parquet",
+        help="file format of each table's state (default parquet)",
+    )
     snap.add_argument("--table", help="only this table")
     snap.add_argument("--mappings", default="mappings", help="folder of mapping files (default: mappings/)")
     engine_args(snap)
-    snap.add_argument("--json", action="store_true")
+    snap.add_argument("--json", action="store_true", help="print the result as JSON on stdout")
 
     app = sub.add_parser("apply", help="load a landing area's events into database tables, idempotently")
     app.add_argument("landing", help="the landing area (convert's --out), or a folder of event files")
@@ -56,7 +62,7 @@ def add_commands(sub: Any) -> None:
     app.add_argument("--batch-rows", type=int, default=50_000, help="keys per batch (default 50000)")
     app.add_argument("--wait", type=seconds, default=30.0, help="seconds to wait for another apply")
     engine_args(app)
-    app.add_argument("--json", action="store_true")
+    app.add_argument("--json", action="store_true", help="print the counts as JSON on stdout")
 
 
 def _chosen(mappings: list[LoadedMapping], table: str | None) -> list[LoadedMapping]:

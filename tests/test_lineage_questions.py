@@ -1115,3 +1115,28 @@ def test_names_with_brackets_are_printed_as_written(
     assert "odd.fare[/]x" in printed and "odd.[bold]seats" in printed
     assert cli("impact", *args, "ferry.bookings.fare") == 0
     assert "odd.fare[/]x" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize(
+    ("option", "value", "said"),
+    [
+        (
+            "--retype",
+            "decimel(10,1)",
+            "--retype 'decimel(10,1)' is not a SQL type of the duckdb dialect (did you mean \"decimal\"?)",
+        ),
+        ("--retype", "flaot", '(did you mean "float"?)'),
+        ("--retype", "", "--retype '' is not a SQL type"),
+        ("--rename", " ", "--rename needs the column's new name"),
+    ],
+)
+def test_an_edit_that_is_not_one_is_a_usage_error(
+    option: str, value: str, said: str, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: a misspelt type ended in the SQL parser's traceback, and an empty one (or an empty new
+    # name) was taken as no edit at all, answering a plain impact with exit 0
+    args = ("impact", "ferry.bookings.fare", "--models", str(MODELS), "--mappings", str(MAPPINGS))
+    assert cli(*args, option, value) == 2
+    err = capsys.readouterr().err
+    assert said in err and "Traceback" not in err
+    assert cli(*args, "--retype", "decimal(10,1)") == 0  # a real type still answers

@@ -219,10 +219,14 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
         edit = None
         if args.drop:
             edit = Edit("drop")
-        elif args.rename:
+        elif args.rename is not None:
+            if not args.rename.strip():
+                raise UsageError(
+                    "--rename needs the column's new name", expected="a name, e.g. --rename fare_gbp"
+                )
             edit = Edit("rename", args.rename)
-        elif args.retype:
-            edit = Edit("retype", args.retype)
+        elif args.retype is not None:
+            edit = Edit("retype", _sql_type(args.retype, args.dialect))
         result = impact(project, args.column, edit, mappings=mappings, loaded=loaded)
         if args.json:
             print(json.dumps(result, indent=2))
@@ -312,6 +316,24 @@ def _print_impact(r: dict[str, Any], out: Console) -> None:
             b.add(f"{v['column']}: the column is a {'/'.join(v['clauses']) or 'row'} key upstream")
     _print_unresolved(tree, r)
     out.print(tree, soft_wrap=False)
+
+
+def _sql_type(text: str, dialect: str) -> str:
+    """``--retype``'s type as given, once sqlglot reads it as a type of the dialect; a usage
+    error naming the closest type otherwise (before: a traceback from the parser)."""
+    from sqlglot import exp
+    from sqlglot.errors import ParseError
+
+    try:
+        exp.DataType.build(text, dialect=dialect)
+    except (ParseError, ValueError):
+        word = text.split("(")[0].strip().lower()
+        names = sorted({t.value.lower() for t in exp.DataType.Type} - {"unknown", "userdefined"})
+        raise UsageError(
+            f"--retype {text!r} is not a SQL type of the {dialect} dialect{did_you_mean(word, names)}",
+            expected="a type such as float, decimal(10,2), varchar(20), bigint, timestamptz",
+        ) from None
+    return text
 
 
 def _count(n: int, what: str) -> str:

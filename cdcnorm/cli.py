@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import re
 import sys
 import time
@@ -88,6 +89,23 @@ def _number(kind: type[int] | type[float], least: float, what: str) -> Any:
 
 
 _positive = _number(int, 1, "a whole number of at least 1")
+#: The most engine threads ``--threads`` takes (or the machine's core count, if more): the engine
+#: starts every one, and 100,000 on the demo ran for minutes before they were all up.
+MAX_THREADS = 1024
+
+
+def _threads(text: str) -> int:
+    """An argparse type: engine threads, from 1 to ``MAX_THREADS`` (or the core count)."""
+    n: int = _positive(text)
+    cores = os.cpu_count() or 1
+    most = max(MAX_THREADS, cores)
+    if n > most:
+        raise argparse.ArgumentTypeError(
+            f"{text!r} threads are too many: at most {most:,} (this machine has {cores} cores)"
+        )
+    return n
+
+
 _count = _number(int, 0, "a whole number of 0 or more")
 seconds = _number(float, 0, "a number of seconds (0 or more)")
 
@@ -101,7 +119,7 @@ def engine_args(p: argparse.ArgumentParser, scratch_holds: str = "the engine's s
     )
     p.add_argument(
         "--threads",
-        type=_positive,
+        type=_threads,
         help="engine threads (default: all cores, fewer under a small --memory-limit)",
     )
     p.add_argument(

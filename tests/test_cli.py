@@ -503,3 +503,51 @@ def test_every_option_of_every_command_says_what_it_does() -> None:
     ]
     assert silent == []
     assert "--format" not in commands.choices["settle"].format_help()
+
+
+@pytest.fixture(scope="module")
+def demo_landing(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    landing = tmp_path_factory.mktemp("landing") / "area"
+    assert cli("convert", str(DUMPS), "--mappings", str(MAPPINGS), "--out", str(landing), "--quiet") == 0
+    return landing
+
+
+@pytest.mark.parametrize(
+    ("args", "code", "said"),
+    [
+        # before: a traceback (FileExistsError) once the state was computed
+        (["snapshot", "{landing}", "--out", "{file}"], 4, "the output folder is a file"),
+        # before: sqlite:/// opened a database in memory, applied into it and exited 0
+        (["apply", "{landing}", "--target", "sqlite:///"], 2, "names a database in memory"),
+        (["apply", "{landing}", "--target", "duckdb:///:memory:"], 2, "names a database in memory"),
+        # before: a traceback (ValueError: Unknown dialect)
+        (
+            ["trace", "people.person_id", "--models", "{models}", "--dialect", "postgress"],
+            2,
+            "unknown SQL dialect 'postgress' (did you mean \"postgres\"?)",
+        ),
+        # before: 100,000 engine threads ran for minutes on the demo before they were all started
+        (["convert", "{dumps}", "--out", "{out}", "--threads", "100000"], 2, "threads are too many: at most"),
+    ],
+    ids=["snapshot-out-file", "sqlite-memory", "duckdb-memory", "dialect", "threads"],
+)
+def test_odd_arguments_get_a_message_not_a_traceback(
+    args: list[str],
+    code: int,
+    said: str,
+    demo_landing: Path,
+    tmp_path: Path,
+    capsys: pytest.CaptureFixture[str],
+) -> None:
+    (tmp_path / "a-file").write_text("x")
+    values = {
+        "landing": str(demo_landing),
+        "file": str(tmp_path / "a-file"),
+        "models": str(ROOT / "examples" / "models"),
+        "dumps": str(DUMPS),
+        "out": str(tmp_path / "out"),
+    }
+    capsys.readouterr()
+    assert cli(*(a.format(**values) for a in args), "--mappings", str(MAPPINGS)) == code
+    err = capsys.readouterr().err
+    assert said in err and "Traceback" not in err

@@ -134,12 +134,30 @@ def _settle_settings(args: argparse.Namespace) -> None:
             setattr(args, key, found.get(key, default))
 
 
+def _check_dialect(name: str) -> None:
+    """A dialect sqlglot knows, or a usage error naming the closest (before: a traceback)."""
+    import sqlglot
+    from sqlglot.dialects.dialect import Dialects
+
+    try:
+        sqlglot.Dialect.get_or_raise(name)
+    except ValueError:
+        names = sorted(d.value for d in Dialects if d.value)
+        raise UsageError(
+            f"unknown SQL dialect {name!r}{did_you_mean(name, names)}",
+            expected="one of sqlglot's dialects: " + ", ".join(names),
+            found=name,
+            hint="give it with --dialect, or as dialect in the project file",
+        ) from None
+
+
 def load_project(args: argparse.Namespace) -> tuple[Project, list[Any], Any]:
     from cdcnorm.lineage.graph import build_project
     from cdcnorm.lineage.models import load_models
     from cdcnorm.mapping import load_mappings
 
     _settle_settings(args)
+    _check_dialect(args.dialect)
     mappings_dir = Path(args.mappings)
     # lineage needs no mappings: a missing or empty folder is none
     has_mappings = mappings_dir.is_dir() and any(mappings_dir.glob("*.y*ml"))

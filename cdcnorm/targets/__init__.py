@@ -29,6 +29,14 @@ def target_for(url: str, wait: float) -> Target:
             expected=", ".join(TARGETS),
             found=scheme,
         )
+    if scheme in ("sqlite", "duckdb") and parsed.database in (None, "", ":memory:"):
+        # the driver would open a database in memory: everything applied, gone when apply ends
+        suffix = "db" if scheme == "sqlite" else "duckdb"
+        raise UsageError(
+            f"a {scheme} target needs a file: {url} names a database in memory, lost when apply ends",
+            expected=f"{scheme}:///path/to/warehouse.{suffix}",
+            found=url,
+        )
     return TARGETS[scheme](url, wait)
 
 

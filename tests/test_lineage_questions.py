@@ -1140,3 +1140,31 @@ def test_an_edit_that_is_not_one_is_a_usage_error(
     err = capsys.readouterr().err
     assert said in err and "Traceback" not in err
     assert cli(*args, "--retype", "decimal(10,1)") == 0  # a real type still answers
+
+
+@pytest.mark.parametrize(
+    ("name", "text", "said"),
+    [
+        (
+            "c.yaml",
+            "tables:\n  shop.orders: {id: BIGINT}\n  shop.orders: {id: TEXT}\n",
+            "c.yaml:3: the key tables.shop.orders is stated twice (lines 2 and 3)",
+        ),
+        (
+            "c.json",
+            '{"tables": {"shop.orders": {"id": "BIGINT", "id": "TEXT"}}}',
+            "c.json: the key 'id' is stated twice in one object",
+        ),
+    ],
+)
+def test_a_catalog_that_states_a_key_twice_is_refused(
+    name: str, text: str, said: str, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: the last one was kept without a word (RFC 7493 section 2.3 asks a JSON parser to refuse it)
+    (tmp_path / "models").mkdir()
+    (tmp_path / "models" / "m.sql").write_text("SELECT id FROM shop.orders")
+    (tmp_path / name).write_text(text)
+    args = ("--models", str(tmp_path / "models"), "--mappings", str(tmp_path / "none"))
+    assert cli("trace", "m.id", *args, "--catalog", str(tmp_path / name)) == 2
+    err = capsys.readouterr().err
+    assert said in err and "Traceback" not in err

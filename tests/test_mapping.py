@@ -85,6 +85,28 @@ def test_unused_may_not_list_a_column_the_mapping_reads(tmp_path: Path) -> None:
     assert "'after.fare'" in _load(tmp_path, nested + "unused: [after]\n").message
 
 
+@pytest.mark.parametrize(
+    ("text", "key", "lines"),
+    [
+        (GOOD + "  fare: integer\n", "fields.fare", (9, 10)),  # the loader kept the last: fare an integer
+        (GOOD.replace("key: [booking_id]\n", "key: [booking_id]\nkey: [fare]\n"), "key", (3, 4)),
+        (GOOD.replace('"2": insert}', '"2": insert, "2": delete}'), "change.action.codes.2", (5, 5)),
+    ],
+    ids=["field", "top", "flow"],
+)
+def test_a_key_stated_twice_is_refused_with_both_lines(
+    tmp_path: Path, text: str, key: str, lines: tuple[int, int]
+) -> None:
+    # YAML requires a mapping's keys to be unique (YAML 1.2, section 3.2.1.1, from memory); before,
+    # the loader kept the last value without a word
+    err = _load(tmp_path, text)
+    assert (
+        err.message
+        == f"the key {key} is stated twice (lines {lines[0]} and {lines[1]}): which one is meant is unclear"
+    )
+    assert err.line == lines[1] and err.field == key
+
+
 def test_yaml_syntax_error_has_a_line(tmp_path: Path) -> None:
     err = _load(tmp_path, GOOD.replace("fields:\n", "fields:\n  - [\n"))
     assert err.line is not None and "YAML" in err.message

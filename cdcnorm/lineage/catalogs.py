@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import json
 from pathlib import Path
+from typing import Any
 
 import sqlglot
 import yaml
@@ -98,9 +99,35 @@ def _create_tables(path: Path, dialect: str) -> Tables:
 
 
 def _schema_file(path: Path) -> Tables:
+    from cdcnorm.mapping.load import repeated_key
+
     text = path.read_text(encoding="utf-8")
+
+    def once(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
+        # a name stated twice in one object: json keeps the last without a word (RFC 7493,
+        # section 2.3, asks a parser to reject it)
+        names = [k for k, _ in pairs]
+        for k in names:
+            if names.count(k) > 1:
+                raise UsageError(
+                    f"{path}: the key {k!r} is stated twice in one object", hint="keep one of them"
+                )
+        return dict(pairs)
+
     try:
-        data = json.loads(text) if path.suffix.lower() == ".json" else yaml.safe_load(text)
+        if path.suffix.lower() == ".json":
+            data = json.loads(text, object_pairs_hook=once)
+        else:
+            node = yaml.compose(text, Loader=yaml.SafeLoader)
+            repeated = repeated_key(node) if node is not None else None
+            if repeated is not None:
+                key, first, second = repeated
+                raise UsageError(
+                    f"{path}:{second}: the key {'.'.join(map(str, key))} is stated twice "
+                    f"(lines {first} and {second})",
+                    hint="keep one of them",
+                )
+            data = yaml.safe_load(text)
         return CatalogFile.model_validate(data).tables
     except (json.JSONDecodeError, yaml.YAMLError) as e:
         raise UsageError(f"{path}: not readable: {str(e).splitlines()[0]}") from None

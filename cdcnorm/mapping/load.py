@@ -44,6 +44,30 @@ def _lines(node: yaml.Node, path: tuple[Any, ...], out: dict[tuple[Any, ...], in
             _lines(v, (*path, i), out)
 
 
+def repeated_key(node: yaml.Node, path: tuple[Any, ...] = ()) -> tuple[tuple[Any, ...], int, int] | None:
+    """The first key a YAML mapping in ``node`` states twice: (its path, the line of its first
+    and of its second statement). YAML requires a mapping's keys to be unique (YAML 1.2, section
+    3.2.1.1, from memory), but the loader keeps the last value without a word."""
+    if isinstance(node, yaml.MappingNode):
+        first: dict[Any, int] = {}
+        for k, v in node.value:
+            if not isinstance(k, yaml.ScalarNode) or k.tag == "tag:yaml.org,2002:merge":
+                continue
+            line = k.start_mark.line + 1
+            if k.value in first:
+                return (*path, k.value), first[k.value], line
+            first[k.value] = line
+            found = repeated_key(v, (*path, k.value))
+            if found:
+                return found
+    elif isinstance(node, yaml.SequenceNode):
+        for i, v in enumerate(node.value):
+            found = repeated_key(v, (*path, i))
+            if found:
+                return found
+    return None
+
+
 def _model_keys(model: type[BaseModel]) -> list[str]:
     return [f.alias or name for name, f in model.model_fields.items()]
 
@@ -125,6 +149,17 @@ def load_mapping(path: Path) -> LoadedMapping:
     lines: dict[tuple[Any, ...], int] = {}
     if node is not None:
         _lines(node, (), lines)
+        repeated = repeated_key(node)
+        if repeated is not None:
+            where, first, second = repeated
+            key = ".".join(map(str, where))
+            raise MappingError(
+                f"the key {key} is stated twice (lines {first} and {second}): which one is meant is unclear",
+                file=text_name,
+                line=second,
+                field=key,
+                hint="keep one of them",
+            )
     try:
         mapping = Mapping.model_validate(data)
     except ValidationError as e:

@@ -22,7 +22,15 @@ import pyarrow as pa
 from cdcnorm import ledger as ledger_mod
 from cdcnorm import quarantine, zones
 from cdcnorm.engines.duckdb import DuckDBEngine, engine_errors
-from cdcnorm.errors import DriftError, LedgerError, RejectLimitError, UsageError, closest, name_list
+from cdcnorm.errors import (
+    DriftError,
+    LedgerError,
+    RejectLimitError,
+    UsageError,
+    closest,
+    did_you_mean,
+    name_list,
+)
 from cdcnorm.inputs import display_names, expand_inputs, gather_inputs, route, text_path
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.plan import Plan, RawRelation, Source
@@ -142,7 +150,7 @@ class Result:
     def stage_output(self, table: str, stage: str, limit: int | None = None) -> pa.Table:
         """The rows of the last step of ``stage`` for ``table``, after a run stopped at or after
         that stage (``stop_after``): a whole run keeps only the steps in RESULT_STEPS."""
-        run = self.tables[table]
+        run = self.table(table)
         if stage == "read":
             return self._read_rows(run, limit)
         steps = [s for s in run.plan.steps if s.stage == stage]
@@ -184,8 +192,17 @@ class Result:
         """The table's envelopes in output order: native types, or their JSON forms."""
         from cdcnorm.writers.base import sorted_envelopes
 
-        run = self.tables[table]
-        return sorted_envelopes(run.plan, self.engine, "__files", render=render)
+        return sorted_envelopes(self.table(table).plan, self.engine, "__files", render=render)
+
+    def table(self, name: str) -> TableRun:
+        """A converted table by its name; a usage error naming the closest otherwise."""
+        if name not in self.tables:
+            raise UsageError(
+                f"no table {name!r} in this run{did_you_mean(name, self.tables)}",
+                expected="one of " + (", ".join(self.tables) or "(no table: nothing was converted)"),
+                found=name,
+            )
+        return self.tables[name]
 
 
 def _shown_names(plan: Plan) -> dict[str, str]:

@@ -551,3 +551,18 @@ def test_odd_arguments_get_a_message_not_a_traceback(
     assert cli(*(a.format(**values) for a in args), "--mappings", str(MAPPINGS)) == code
     err = capsys.readouterr().err
     assert said in err and "Traceback" not in err
+
+
+def test_the_library_names_the_closest_table_for_a_misspelt_one() -> None:
+    # before: a bare KeyError from the run's dictionary of tables
+    from cdcnorm.errors import UsageError
+    from cdcnorm.mapping import load_mappings
+    from cdcnorm.pipeline import Options, run
+
+    result = run(load_mappings(MAPPINGS), [str(DUMPS)], Options(out=None, write=False))
+    assert result.events("ferry.bookings").num_rows > 0
+    with pytest.raises(UsageError) as e:
+        result.events("ferry.bookingz")
+    assert e.value.message == "no table 'ferry.bookingz' in this run (did you mean \"ferry.bookings\"?)"
+    with pytest.raises(UsageError, match="did you mean"):
+        result.stage_output("ferry.passenger", "type")

@@ -107,6 +107,33 @@ def test_a_key_stated_twice_is_refused_with_both_lines(
     assert err.line == lines[1] and err.field == key
 
 
+@pytest.mark.parametrize(
+    ("csv", "said"),
+    [
+        ('{delimiter: ",", quote: ","}', "csv.delimiter and csv.quote are both ','"),
+        ('{delimiter: "\\n"}', "csv.delimiter cannot be a line end"),
+        ('{quote: "\\r"}', "csv.quote cannot be a line end"),
+        (
+            "{columns: [op, log_pos, booking_id, fare]}",
+            "csv.columns names the columns of files without a header row",
+        ),
+        ("{header: false, columns: [op, log_pos, fare, fare]}", "csv.columns repeats ['fare']"),
+    ],
+    ids=[
+        "delimiter-is-quote",
+        "delimiter-line-end",
+        "quote-line-end",
+        "columns-with-header",
+        "columns-repeat",
+    ],
+)
+def test_csv_options_that_cannot_read_a_file_are_refused(tmp_path: Path, csv: str, said: str) -> None:
+    # before: a delimiter equal to the quote converted without a word, a line end as the delimiter
+    # ended in drift errors, and columns beside a header were ignored
+    err = _load(tmp_path, GOOD + f"csv: {csv}\n")
+    assert said in err.message and err.line == 10
+
+
 def test_yaml_syntax_error_has_a_line(tmp_path: Path) -> None:
     err = _load(tmp_path, GOOD.replace("fields:\n", "fields:\n  - [\n"))
     assert err.line is not None and "YAML" in err.message

@@ -432,6 +432,54 @@ def test_csv_encoding(convert: ConvertFn, encoding: str, raw: bytes, text: str) 
     assert e["values"]["a"] == text
 
 
+@pytest.mark.parametrize(
+    ("encoding", "codec", "bom"),
+    [
+        ("utf-16-le", "utf-16-le", b""),
+        ("utf-16-le", "utf-16-le", b"\xff\xfe"),
+        ("utf-16-be", "utf-16-be", b""),
+        ("utf-16", "utf-16", b""),
+    ],
+    ids=["le", "le-with-bom", "be", "bom-detected"],
+)
+def test_utf16_dumps(convert: ConvertFn, encoding: str, codec: str, bom: bytes) -> None:
+    # some databases' export tools write UTF-16 (Python's codecs are the reference). A line end is
+    # two bytes there, and U+010A is the bytes 0A 01 in UTF-16LE: before, the header was cut at the
+    # first 0A byte, and a byte order mark stayed in the first column's name
+    text = 'op,pos,id,a,"Ċ col"\nI,1,1,"Åsa, ""Ċ""",x\nI,2,2,"two\nlines",y\n'
+    raw = bom + text.encode(codec)
+    assert raw.decode(encoding).removeprefix("\ufeff") == text
+    done = convert(
+        PLAIN.replace("  a: text", "  a: text\n  c: {from: Ċ col, type: text}")
+        + f"csv: {{encoding: {encoding}}}\n",
+        {"n.csv": raw},
+    )
+    assert [(e["values"]["a"], e["values"]["c"]) for e in done.events("t.notes")] == [
+        ('Åsa, "Ċ"', "x"),
+        ("two\nlines", "y"),
+    ]
+    assert done.ledger()["balanced"] and done.ledger()["total"]["read"] == 2
+
+
+def test_utf16_without_a_byte_order_mark_needs_its_byte_order(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: a traceback (UnicodeError: UTF-16 stream does not start with BOM)
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN + "csv: {encoding: utf-16}\n")
+    write_files(tmp_path / "d", {"n.csv": CSV.encode("utf-16-le")})
+    assert cli("convert", "--mappings", str(mdir), str(tmp_path / "d"), "--out", str(tmp_path / "o")) == 4
+    err = capsys.readouterr().err
+    assert "n.csv:1: the file's start is not utf-16 text" in err and "utf-16-le or utf-16-be" in err
+    assert "Traceback" not in err
+    # a header that is not text in the encoding is refused; bytes that are not, in a record, are
+    # that record's (quarantined with them)
+    (mdir / "t.yaml").write_text(PLAIN)
+    write_files(tmp_path / "e", {"n.csv": b"op,pos,id,\xe9\nI,1,1,x\n"})
+    assert cli("convert", "--mappings", str(mdir), str(tmp_path / "e"), "--out", str(tmp_path / "o")) == 4
+    assert "n.csv:1: the header row is not utf-8 text" in capsys.readouterr().err
+
+
 def test_unknown_encoding_is_a_mapping_error(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     (mdir := tmp_path / "m").mkdir()
     (mdir / "t.yaml").write_text(PLAIN + "csv: {encoding: klingon}\n")

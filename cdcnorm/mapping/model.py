@@ -185,6 +185,26 @@ class CsvOptions(Strict):
         description="Text encoding of the dumps (any Python codec name: utf-8, latin-1, cp1252, ...).",
     )
 
+    @model_validator(mode="after")
+    def _readable(self) -> CsvOptions:
+        # a delimiter equal to the quote, or a line end as either, leaves records that cannot be
+        # told apart (RFC 4180 section 2 separates fields by a comma and quotes them with DQUOTE)
+        for name, ch in (("delimiter", self.delimiter), ("quote", self.quote)):
+            if ch in "\r\n":
+                raise ValueError(f"csv.{name} cannot be a line end: records end at line ends")
+        if self.delimiter == self.quote:
+            raise ValueError(
+                f"csv.delimiter and csv.quote are both {self.delimiter!r}: fields could not be told apart"
+            )
+        if self.header and self.columns is not None:
+            raise ValueError(
+                "csv.columns names the columns of files without a header row: add header: false, or drop columns"
+            )
+        if self.columns is not None and len(set(self.columns)) != len(self.columns):
+            repeated = sorted({c for c in self.columns if self.columns.count(c) > 1})
+            raise ValueError(f"csv.columns repeats {repeated}: which column a field means is unclear")
+        return self
+
     @field_validator("encoding")
     @classmethod
     def _known_encoding(cls, v: str) -> str:

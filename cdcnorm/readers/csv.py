@@ -22,6 +22,7 @@ quoted empty field ("") stays an empty string. Two paths, one result:
 
 from __future__ import annotations
 
+import codecs
 import csv as stdcsv
 import io
 from collections import deque
@@ -78,26 +79,38 @@ def _delimiter(path: Path, mapping: Mapping) -> str:
 def _header(f: RawFile, delimiter: str, mapping: Mapping) -> tuple[list[str], bool]:
     """The column names, and whether any record follows the header."""
     opts = mapping.csv
-    head = streams.head(f.path).removeprefix(b"\xef\xbb\xbf")  # a BOM is not part of the first name
+    raw = streams.head(f.path)
     encoding = opts.encoding
+    # decoded before the line end is looked for: in UTF-16 or UTF-32 a line end is not one byte,
+    # and other characters hold the bytes of LF and CR (U+010A is 0A 01 in UTF-16LE). Bytes that do
+    # not decode become lone surrogates (only the header row must be valid text)
+    decoder = codecs.getincrementaldecoder(encoding)("surrogateescape")
+    try:
+        head = decoder.decode(raw, final=False).removeprefix("\ufeff")  # a BOM is not part of a name
+    except UnicodeError as e:  # utf-16 and utf-32 without a byte order mark, or bytes no handler takes
+        why = e.reason if isinstance(e, UnicodeDecodeError) else str(e)
+        raise InputError(
+            f"the file's start is not {encoding} text: {why}",
+            file=str(f.path),
+            line=1,
+            hint="set csv.encoding (utf-16-le or utf-16-be for UTF-16 without a byte order mark)",
+        ) from None
     if not opts.header:
         if not opts.columns:
             raise InputError("csv.header is false but csv.columns names no columns", file=str(f.path))
         return list(opts.columns), bool(head.strip())
     if not head.strip():
         return [], False
-    ends = [i for i in (head.find(b"\n"), head.find(b"\r")) if i >= 0]
+    ends = [i for i in (head.find("\n"), head.find("\r")) if i >= 0]
     nl = min(ends) if ends else -1  # the header's line ends at LF, CRLF or CR
-    first = head if nl < 0 else head[:nl]
-    try:
-        text = first.decode(encoding)
-    except UnicodeDecodeError:
+    text = head if nl < 0 else head[:nl]
+    if any("\udc80" <= ch <= "\udcff" for ch in text):
         raise InputError(
             f"the header row is not {encoding} text", file=str(f.path), line=1, hint="set csv.encoding"
-        ) from None
+        )
     columns = next(stdcsv.reader([text], delimiter=delimiter, quotechar=opts.quote), [])
     more = nl >= 0 and bool(head[nl + 1 :].strip())
-    if nl >= 0 and len(head) == (1 << 20) and not more:
+    if nl >= 0 and len(raw) == (1 << 20) and not more:
         more = True  # the header's line fills the first block: let the reader decide
     return columns, more
 

@@ -85,8 +85,11 @@ def _header(f: RawFile, delimiter: str, mapping: Mapping) -> tuple[list[str], bo
     # and other characters hold the bytes of LF and CR (U+010A is 0A 01 in UTF-16LE). Bytes that do
     # not decode become lone surrogates (only the header row must be valid text)
     decoder = codecs.getincrementaldecoder(encoding)("surrogateescape")
+    start = raw
+    if not codecs.lookup(encoding).name.startswith(("utf-16", "utf-32")):
+        start = raw.removeprefix(b"\xef\xbb\xbf")  # UTF-8's byte order mark, before any 8-bit text too
     try:
-        head = decoder.decode(raw, final=False).removeprefix("\ufeff")  # a BOM is not part of a name
+        head = decoder.decode(start, final=False).removeprefix("\ufeff")  # a BOM is not part of a name
     except UnicodeError as e:  # utf-16 and utf-32 without a byte order mark, or bytes no handler takes
         why = e.reason if isinstance(e, UnicodeDecodeError) else str(e)
         raise InputError(

@@ -80,8 +80,15 @@ def expand_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> l
 
 def _files_in(folder: Path, folders: list[Path] | None = None) -> Iterator[Path]:
     """The files directly in ``folder`` (its sub-folders go to ``folders``, when given). A link
-    to nothing stops the run: the file it stood for is missing."""
-    for c in folder.iterdir():
+    to nothing stops the run: the file it stood for is missing, as does a folder that cannot be
+    listed (its files would be left out)."""
+    try:
+        children = list(folder.iterdir())
+    except OSError as e:
+        raise InputError(
+            f"cannot list the folder: {e.strerror or e}", file=str(folder), hint="check its permissions"
+        ) from None
+    for c in children:
         if c.is_file():
             yield c
         elif c.is_dir():

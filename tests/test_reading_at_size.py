@@ -551,6 +551,37 @@ def test_recursive_follows_linked_folders_and_stops_on_a_link_to_nothing(
     assert not (tmp_path / "o2" / "events").exists()
 
 
+def test_a_folder_that_cannot_be_listed_stops_the_run(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # its files would otherwise be left out; the tests run as root, which may list any folder, so
+    # the refusal is the operating system's error, raised where the folder is listed
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN)
+    write_files(tmp_path / "d" / "day1", {"n1.csv": CSV})
+    write_files(tmp_path / "d" / "locked", {"n2.csv": CSV})
+    listing = Path.iterdir
+
+    def iterdir(self: Path) -> Any:
+        if self.name == "locked":
+            raise PermissionError(13, "Permission denied", str(self))
+        return listing(self)
+
+    monkeypatch.setattr(Path, "iterdir", iterdir)
+    args = [
+        "convert",
+        "--mappings",
+        str(mdir),
+        str(tmp_path / "d"),
+        "--recursive",
+        "--out",
+        str(tmp_path / "o"),
+    ]
+    assert cli(*args) == 4
+    err = capsys.readouterr().err
+    assert "locked: cannot list the folder: Permission denied" in err and "Traceback" not in err
+
+
 def test_broken_last_field_through_the_cli(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     (mdir := tmp_path / "m").mkdir()
     (mdir / "t.yaml").write_text(PLAIN.replace("a: text", "name: text"))

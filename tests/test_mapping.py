@@ -134,6 +134,32 @@ def test_csv_options_that_cannot_read_a_file_are_refused(tmp_path: Path, csv: st
     assert said in err.message and err.line == 10
 
 
+@pytest.mark.parametrize(
+    ("text", "said"),
+    [
+        # before: the engine's "Parser Error: syntax error at or near END" (exit 1)
+        (
+            GOOD.replace('codes: {"1": delete, "2": insert}', "codes: {}"),
+            "change.action.codes: Dictionary should have at least 1 item",
+        ),
+        # before: the engine's "Duplicate named argument" in the middle of writing (exit 1)
+        (
+            GOOD.replace("key: [booking_id]", "key: [booking_id, booking_id]"),
+            "key names ['booking_id'] twice",
+        ),
+        # before: converted, the envelope naming the field by its internal column ("v2")
+        (GOOD + "  '': {from: seats, type: integer}\n", "a field needs a name: fields has ''"),
+        (
+            GOOD.replace("key: [booking_id]", "key: [doc]") + "  doc: {from: body, type: json}\n",
+            "key field doc is json",
+        ),
+    ],
+    ids=["no-codes", "key-twice", "field-without-name", "json-key"],
+)
+def test_mappings_the_plan_cannot_run_are_refused_on_load(tmp_path: Path, text: str, said: str) -> None:
+    assert said in _load(tmp_path, text).message
+
+
 def test_yaml_syntax_error_has_a_line(tmp_path: Path) -> None:
     err = _load(tmp_path, GOOD.replace("fields:\n", "fields:\n  - [\n"))
     assert err.line is not None and "YAML" in err.message

@@ -42,7 +42,7 @@ class ActionSpec(Strict):
 
     column: str = Field(description="Raw column with the operation code.")
     codes: dict[str, Action] = Field(
-        description="Raw code -> one of delete, insert, before, after, snapshot."
+        description="Raw code -> one of delete, insert, before, after, snapshot.", min_length=1
     )
 
     @field_validator("codes", mode="before")
@@ -258,11 +258,24 @@ class Mapping(Strict):
 
     @model_validator(mode="after")
     def _keys_are_fields(self) -> Mapping:
+        blank = [f for f in self.fields if not f.strip()]
+        if blank:  # the envelope would name it by its internal column (v2, say)
+            raise ValueError(f"a field needs a name: fields has {blank[0]!r}")
         missing = [k for k in self.key if k not in self.fields]
         if missing:
             raise ValueError(
                 f"key names {missing} but fields has no such field; fields are {list(self.fields)}"
             )
+        twice = sorted({k for k in self.key if self.key.count(k) > 1})
+        if twice:
+            raise ValueError(f"key names {twice} twice; name each key field once")
+        for k in self.key:
+            if self.fields[k].type.strip().lower().startswith("json"):
+                # two spellings of one JSON value ({"a":1,"b":2} and {"b":2,"a":1}) would be two keys
+                raise ValueError(
+                    f"key field {k} is json, whose values compare as their text, not as JSON values: "
+                    "key by a field of another type (a member of it, mapped with a dotted from)"
+                )
         return self
 
     @model_validator(mode="after")

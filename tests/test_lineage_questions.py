@@ -37,10 +37,15 @@ def test_unresolvable_references_are_reported_not_guessed(tmp_path: Path) -> Non
             "typo.sql": "SELEC broken",
             "fine.sql": "SELECT id FROM shop.orders",
             "ins.sql": "INSERT INTO shop.refunds (order_id, amont) SELECT id, amount FROM shop.orders",
+            "unpiv.sql": "UNPIVOT shop.orders ON amount, status INTO NAME k VALUE v",
+            "piv.sql": "PIVOT shop.orders ON status USING sum(amount)",
         },
         SCHEMA,
     )
     got = {(d.model, d.reason): d for d in project.diagnostics}
+    # each named as what it is (before, an UNPIVOT was "a PIVOT statement")
+    assert got[("unpiv", "unsupported")].reference == "an UNPIVOT statement is not traced"
+    assert got[("piv", "unsupported")].reference == "a PIVOT statement is not traced"
     assert got[("amb", "ambiguous")].candidates == ("o.id", "c.id")
     assert got[("unknown", "unknown table")].candidates == ("shop.orders",)
     missing = got[("missing", "not in schema")]

@@ -222,7 +222,8 @@ def unsupported(stmt: exp.Expr) -> str | None:
         )
     if isinstance(stmt, exp.Drop):
         return f"DROP of {targets} is not traced: the lineage shows {targets} as though it still existed"
-    return f"a {stmt.key.upper()} statement is not traced"
+    kind = "UNPIVOT" if isinstance(stmt, exp.Pivot) and stmt.args.get("unpivot") else stmt.key.upper()
+    return f"{'an' if kind[0] in 'AEIOU' else 'a'} {kind} statement is not traced"
 
 
 @contextlib.contextmanager

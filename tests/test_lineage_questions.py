@@ -39,6 +39,7 @@ def test_unresolvable_references_are_reported_not_guessed(tmp_path: Path) -> Non
             "ins.sql": "INSERT INTO shop.refunds (order_id, amont) SELECT id, amount FROM shop.orders",
             "unpiv.sql": "UNPIVOT shop.orders ON amount, status INTO NAME k VALUE v",
             "piv.sql": "PIVOT shop.orders ON status USING sum(amount)",
+            "selfy.sql": "CREATE VIEW selfy AS SELECT amount FROM selfy",
         },
         SCHEMA,
     )
@@ -46,6 +47,8 @@ def test_unresolvable_references_are_reported_not_guessed(tmp_path: Path) -> Non
     # each named as what it is (before, an UNPIVOT was "a PIVOT statement")
     assert got[("unpiv", "unsupported")].reference == "an UNPIVOT statement is not traced"
     assert got[("piv", "unsupported")].reference == "a PIVOT statement is not traced"
+    # a view that reads itself (before: "a model in the cycle", with no cycle reported)
+    assert got[("selfy", "unknown table")].reference == "selfy (the model reads itself)"
     assert got[("amb", "ambiguous")].candidates == ("o.id", "c.id")
     assert got[("unknown", "unknown table")].candidates == ("shop.orders",)
     missing = got[("missing", "not in schema")]

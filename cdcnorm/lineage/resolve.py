@@ -821,10 +821,11 @@ class StatementResolver:
         parts = table_parts(table)
         tname = ".".join(parts)
         if any(p == parts or p[-len(parts) :] == parts for p in self.catalog.pending):
-            # where the table is named, once: a model of the cycle, not resolved when this one is
-            self._diag(
-                _line(table) or line, "unknown table", f"{tname} (a model in the cycle, not resolved yet)"
-            )
+            # where the table is named, once: a model of the cycle, not resolved when this one is;
+            # or this model itself (a view defined by reading itself)
+            itself = tname == self.model or self.model.endswith("." + tname)
+            why = "the model reads itself" if itself else "a model in the cycle, not resolved yet"
+            self._diag(_line(table) or line, "unknown table", f"{tname} ({why})")
             return Deps()
         close = difflib.get_close_matches(
             tname, [t.name for t in self.catalog.tables.values()], n=3, cutoff=0.8

@@ -129,17 +129,11 @@ def _ctrl_c_held() -> Iterator[None]:
         signal.signal(signal.SIGINT, previous)
 
 
-def _check_folder(root: Path) -> None:
+def writable_folder(root: Path) -> None:
+    """``root`` as a folder this process can write to, made if missing; an error naming it (exit 4)
+    when it is a file or cannot be made or written to, before any work is done."""
     if root.exists() and not root.is_dir():
         raise InputError("the output folder is a file", file=str(root), hint="name a folder for --out")
-    for parent in root.absolute().parents:
-        if (parent / META).is_dir():  # a landing area's own folder: its runs would land among its files
-            raise UsageError(
-                f"the output folder is inside the landing area {parent}",
-                file=str(root),
-                expected="a folder of its own for a landing area",
-                hint=f"give --out a folder outside {parent}, or {parent} itself to add a run to it",
-            )
     try:
         root.mkdir(parents=True, exist_ok=True)
         # a name of this process's own: two runs starting at once must not remove each other's
@@ -152,6 +146,18 @@ def _check_folder(root: Path) -> None:
             file=str(root),
             hint="choose a writable --out",
         ) from None
+
+
+def _check_folder(root: Path) -> None:
+    for parent in root.absolute().parents:
+        if (parent / META).is_dir():  # a landing area's own folder: its runs would land among its files
+            raise UsageError(
+                f"the output folder is inside the landing area {parent}",
+                file=str(root),
+                expected="a folder of its own for a landing area",
+                hint=f"give --out a folder outside {parent}, or {parent} itself to add a run to it",
+            )
+    writable_folder(root)
 
 
 @contextmanager

@@ -13,7 +13,8 @@ from typing import Any
 from rich.console import Console
 from rich.table import Table
 
-from cdcnorm.errors import EXIT_OK, InputError, TargetError, UsageError, did_you_mean
+from cdcnorm.errors import EXIT_OK, TargetError, UsageError, did_you_mean
+from cdcnorm.landing.area import writable_folder
 from cdcnorm.mapping import load_mappings
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.scratch import scratch_folder
@@ -104,21 +105,6 @@ def _print_notes(err: Console, notes: list[tuple[str, Sequence[str]]]) -> None:
             err.print(f"note: {table}: {line}", markup=False, soft_wrap=True)
 
 
-def _output_folder(folder: Path) -> None:
-    """``--out`` made a folder before any work, or a clear error (before: a file there, or a folder
-    that cannot be made, ended in a traceback once the state was computed)."""
-    if folder.exists() and not folder.is_dir():
-        raise InputError("the output folder is a file", file=str(folder), hint="name a folder for --out")
-    try:
-        folder.mkdir(parents=True, exist_ok=True)
-    except OSError as e:
-        raise InputError(
-            f"cannot make the output folder: {e.strerror or e}",
-            file=str(folder),
-            hint="choose a writable --out",
-        ) from None
-
-
 def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
     from cdcnorm.engines.duckdb import engine_errors
     from cdcnorm.names import path_part
@@ -129,7 +115,7 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
     mappings = load_mappings(Path(args.mappings))
     chosen = _chosen(mappings, args.table)
     folder = Path(args.out)
-    _output_folder(folder)
+    writable_folder(folder)  # before any work: a file there, or no right to write, is exit 4
     rows: list[dict[str, Any]] = []
     with scratch_folder(args.scratch) as scratch, engine_errors(scratch):
         engine = _engine(args, scratch, chosen)

@@ -29,6 +29,16 @@ fields:
 """
 
 
+def _convert_one(tmp_path: Path, mapping: str, csv_text: str) -> int:
+    """``cdcnorm convert`` of one CSV file with one mapping, through the CLI: its exit code."""
+    (tmp_path / "m").mkdir(exist_ok=True)
+    (tmp_path / "m" / "t.yaml").write_text(mapping)
+    (tmp_path / "n.csv").write_text(csv_text)
+    return cli(
+        "convert", str(tmp_path / "n.csv"), "--mappings", str(tmp_path / "m"), "--out", str(tmp_path / "o")
+    )
+
+
 def test_rfc4180_section_2_examples(convert: ConvertFn) -> None:
     # RFC 4180 section 2: quoted fields may hold CRLF, commas and doubled quotes; spaces are part of
     # a field; the last record's line break is optional.
@@ -285,18 +295,7 @@ def test_unread_columns_whose_names_would_blur_in_a_list_are_quoted(
         'raw columns zone, " pad ", "x, y", "say \\"hi\\"", "" read by no field of t.notes'
     )
     # and the columns a drift error lists: the header's "a " is not the mapping's a
-    (tmp_path / "m").mkdir()
-    (tmp_path / "m" / "t.yaml").write_text(MAPPING)
-    (tmp_path / "n.csv").write_text("op,pos,id,a ,b,\nI,1,1,p,q,\n")
-    args = [
-        "convert",
-        str(tmp_path / "n.csv"),
-        "--mappings",
-        str(tmp_path / "m"),
-        "--out",
-        str(tmp_path / "o"),
-    ]
-    assert cli(*args) == 4
+    assert _convert_one(tmp_path, MAPPING, "op,pos,id,a ,b,\nI,1,1,p,q,\n") == 4
     assert 'found: columns op, pos, id, "a ", b, ""' in capsys.readouterr().err
 
 
@@ -471,21 +470,8 @@ def test_mapping_fields_that_differ_only_in_case_are_refused(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
     # before: a traceback when the envelope's struct was built
-    (tmp_path / "m").mkdir()
-    (tmp_path / "m" / "t.yaml").write_text(MAPPING + "  A: text\n")
-    (tmp_path / "n.csv").write_text("op,pos,id,a,A,b\nI,1,1,x,y,z\n")
     capsys.readouterr()
-    assert (
-        cli(
-            "convert",
-            str(tmp_path / "n.csv"),
-            "--mappings",
-            str(tmp_path / "m"),
-            "--out",
-            str(tmp_path / "o"),
-        )
-        == 3
-    )
+    assert _convert_one(tmp_path, MAPPING + "  A: text\n", "op,pos,id,a,A,b\nI,1,1,x,y,z\n") == 3
     err = capsys.readouterr().err
     assert "t.yaml:12: fields a and A differ only in case" in err and "Traceback" not in err
 

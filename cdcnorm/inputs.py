@@ -79,9 +79,9 @@ def expand_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> l
 
 
 def _files_in(folder: Path, folders: list[Path] | None = None) -> Iterator[Path]:
-    """The files directly in ``folder`` (its sub-folders go to ``folders``, when given). A link
-    to nothing stops the run: the file it stood for is missing, as does a folder that cannot be
-    listed (its files would be left out)."""
+    """The files directly in ``folder``, and its links to nothing (its sub-folders go to
+    ``folders``, when given). A folder that cannot be listed stops the run: its files would be
+    left out."""
     try:
         children = list(folder.iterdir())
     except OSError as e:
@@ -95,11 +95,7 @@ def _files_in(folder: Path, folders: list[Path] | None = None) -> Iterator[Path]
             if folders is not None:
                 folders.append(c)
         elif c.is_symlink() and not c.exists():
-            raise InputError(
-                f"a link to nothing: it points to {os.readlink(c)}, which does not exist",
-                file=str(c),
-                hint="restore what it points to, or remove the link",
-            )
+            yield c
 
 
 def _walk(root: Path) -> Iterator[Path]:
@@ -138,6 +134,12 @@ def gather_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> t
             found = sorted(_walk(p) if recursive else _files_in(p))
             for c in found:
                 dotted = any(part.startswith(".") for part in c.relative_to(p).parts)
+                if not dotted and c.is_symlink() and not c.exists():  # the file it stood for is missing
+                    raise InputError(
+                        f"a link to nothing: it points to {os.readlink(c)}, which does not exist",
+                        file=str(c),
+                        hint="restore what it points to, or remove the link",
+                    )
                 (hidden if dotted else out).append(c)
         elif p.exists():
             out.append(p)

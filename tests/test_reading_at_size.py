@@ -538,9 +538,12 @@ def test_recursive_follows_linked_folders_and_stops_on_a_link_to_nothing(
     (tmp_path / "d" / "day2").symlink_to(tmp_path / "mounted", target_is_directory=True)
     (tmp_path / "d" / "day1" / "up").symlink_to(tmp_path / "d", target_is_directory=True)  # a loop
     (tmp_path / "d" / "again").symlink_to(tmp_path / "d" / "day1", target_is_directory=True)
+    # a hidden link to nothing (a copy in progress, by common practice) is never read: noted, not fatal
+    (tmp_path / "d" / "day1" / ".n9.csv.part").symlink_to(tmp_path / "not-yet.csv")
     base = ["convert", "--mappings", str(mdir), str(tmp_path / "d"), "--recursive", "--json"]
     assert cli(*base, "--out", str(tmp_path / "o1")) == 0
     report = json.loads(capsys.readouterr().out)
+    assert [Path(h).name for h in report["hidden"]] == [".n9.csv.part"]
     files = report["ledger"]["tables"]["t.notes"]["files"]
     assert set(files) == {"n1.csv", "n2.csv"}  # the linked folder read; a folder reached twice read once
     assert report["ledger"]["balanced"] and report["ledger"]["total"]["read"] == 2 * files["n1.csv"]["read"]

@@ -98,6 +98,14 @@ def _files_in(folder: Path, folders: list[Path] | None = None) -> Iterator[Path]
             yield c
 
 
+def _dangling(link: Path) -> InputError:
+    return InputError(
+        f"a link to nothing: it points to {os.readlink(link)}, which does not exist",
+        file=str(link),
+        hint="restore what it points to, or remove the link",
+    )
+
+
 def _walk(root: Path) -> Iterator[Path]:
     """The files under ``root``, in its sub-folders too, following links to folders (before,
     a linked folder was left out without a word); a folder reached twice, as through a link back
@@ -135,14 +143,12 @@ def gather_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> t
             for c in found:
                 dotted = any(part.startswith(".") for part in c.relative_to(p).parts)
                 if not dotted and c.is_symlink() and not c.exists():  # the file it stood for is missing
-                    raise InputError(
-                        f"a link to nothing: it points to {os.readlink(c)}, which does not exist",
-                        file=str(c),
-                        hint="restore what it points to, or remove the link",
-                    )
+                    raise _dangling(c)
                 (hidden if dotted else out).append(c)
         elif p.exists():
             out.append(p)
+        elif p.is_symlink():
+            raise _dangling(p)
         else:
             raise InputError("no such file", file=str(p))
     seen: set[Path] = set()

@@ -552,6 +552,19 @@ def test_recursive_follows_linked_folders_and_stops_on_a_link_to_nothing(
     err = capsys.readouterr().err
     assert "n3.csv: a link to nothing" in err and "gone.csv" in err and "Traceback" not in err
     assert not (tmp_path / "o2" / "events").exists()
+    # named as an input, the same (before: "no such file", though the name is there)
+    assert (
+        cli(
+            "convert",
+            "--mappings",
+            str(mdir),
+            str(tmp_path / "d" / "day1" / "n3.csv"),
+            "--out",
+            str(tmp_path / "o3"),
+        )
+        == 4
+    )
+    assert "n3.csv: a link to nothing: it points to" in capsys.readouterr().err
 
 
 def test_a_folder_that_cannot_be_listed_stops_the_run(

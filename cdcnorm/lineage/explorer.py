@@ -158,7 +158,7 @@ let focus = null;
 if (DATA.unresolved.length) {
   const gaps = document.getElementById("gaps"), n = DATA.unresolved.length;
   gaps.querySelector("summary").textContent =
-    `incomplete: ${n} unresolved reference${n === 1 ? "" : "s"}: the lineage through them may be missing`;
+    `incomplete: ${n} unresolved reference${n === 1 ? "" : "s"}: the lineage through ${n === 1 ? "it" : "them"} may be missing`;
   for (const text of DATA.unresolved) {
     const li = document.createElement("li"); li.textContent = text; gaps.querySelector("ul").appendChild(li);
   }

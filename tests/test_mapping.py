@@ -73,11 +73,14 @@ def test_unknown_action_and_position_kind(tmp_path: Path) -> None:
 def test_key_must_name_a_field(tmp_path: Path) -> None:
     err = _load(tmp_path, GOOD.replace("key: [booking_id]", "key: [booking]"))
     assert "booking" in err.message
+    # the key's own line and name (before: line 1, "(top level)")
+    assert err.line == 3 and err.field == "key" and err.message.startswith("invalid key key:")
 
 
 def test_unused_may_not_list_a_column_the_mapping_reads(tmp_path: Path) -> None:
     err = _load(tmp_path, GOOD + "unused: [export_batch, fare]\n")
     assert "unused lists raw column 'fare', which field fare reads" in err.message
+    assert err.line == 10 and err.field == "unused"
     err = _load(tmp_path, GOOD + "unused: [log_pos]\n")
     assert "which change.position reads" in err.message
     # a nested object's name covers its members: it may not hold a column a field reads
@@ -157,7 +160,10 @@ def test_csv_options_that_cannot_read_a_file_are_refused(tmp_path: Path, csv: st
     ids=["no-codes", "key-twice", "field-without-name", "json-key"],
 )
 def test_mappings_the_plan_cannot_run_are_refused_on_load(tmp_path: Path, text: str, said: str) -> None:
-    assert said in _load(tmp_path, text).message
+    err = _load(tmp_path, text)
+    assert said in err.message
+    # the line of the key at fault, not line 1
+    assert err.line == {"change.action.codes": 5, "key": 3, "fields.": 10}[err.field or ""]
 
 
 def test_yaml_syntax_error_has_a_line(tmp_path: Path) -> None:

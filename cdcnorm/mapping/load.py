@@ -16,7 +16,7 @@ from pydantic import BaseModel, ValidationError
 
 from cdcnorm import types
 from cdcnorm.errors import MappingError, closest, did_you_mean
-from cdcnorm.mapping.model import FieldSpec, Mapping
+from cdcnorm.mapping.model import FieldSpec, Located, Mapping
 from cdcnorm.types.base import FieldType
 
 
@@ -167,6 +167,9 @@ def load_mapping(path: Path) -> LoadedMapping:
         # a misspelt key is both an unknown key and a missing one: report the unknown key
         err = next((x for x in errors if x["type"] == "extra_forbidden"), errors[0])
         loc = _clean_loc(tuple(err["loc"]))
+        cause = err.get("ctx", {}).get("error")
+        if isinstance(cause, Located):  # a whole-mapping check about one key: that key and its line
+            loc = (*loc, *cause.loc)
         line = None
         for n in range(len(loc), -1, -1):
             if loc[:n] in lines:

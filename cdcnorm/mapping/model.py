@@ -37,6 +37,15 @@ class Strict(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True, populate_by_name=True)
 
 
+class Located(ValueError):
+    """A check of the whole mapping that is about one of its keys: ``loc`` is that key's path, so
+    the error names it and its line (a plain ValueError of the whole mapping points at line 1)."""
+
+    def __init__(self, message: str, *loc: str) -> None:
+        super().__init__(message)
+        self.loc = loc
+
+
 class ActionSpec(Strict):
     """Which raw column holds the operation code, and what each code means."""
 
@@ -260,21 +269,22 @@ class Mapping(Strict):
     def _keys_are_fields(self) -> Mapping:
         blank = [f for f in self.fields if not f.strip()]
         if blank:  # the envelope would name it by its internal column (v2, say)
-            raise ValueError(f"a field needs a name: fields has {blank[0]!r}")
+            raise Located(f"a field needs a name: fields has {blank[0]!r}", "fields", blank[0])
         missing = [k for k in self.key if k not in self.fields]
         if missing:
-            raise ValueError(
-                f"key names {missing} but fields has no such field; fields are {list(self.fields)}"
+            raise Located(
+                f"key names {missing} but fields has no such field; fields are {list(self.fields)}", "key"
             )
         twice = sorted({k for k in self.key if self.key.count(k) > 1})
         if twice:
-            raise ValueError(f"key names {twice} twice; name each key field once")
+            raise Located(f"key names {twice} twice; name each key field once", "key")
         for k in self.key:
             if self.fields[k].type.strip().lower().startswith("json"):
                 # two spellings of one JSON value ({"a":1,"b":2} and {"b":2,"a":1}) would be two keys
-                raise ValueError(
+                raise Located(
                     f"key field {k} is json, whose values compare as their text, not as JSON values: "
-                    "key by a field of another type (a member of it, mapped with a dotted from)"
+                    "key by a field of another type (a member of it, mapped with a dotted from)",
+                    "key",
                 )
         return self
 
@@ -285,9 +295,10 @@ class Mapping(Strict):
         for name in self.unused:
             read = [col for col in readers if _covers(name, col)]
             if read:
-                raise ValueError(
+                raise Located(
                     f"unused lists raw column {name!r}, which {readers[read[0]]} reads "
-                    f"({read[0]!r}); take it out of unused"
+                    f"({read[0]!r}); take it out of unused",
+                    "unused",
                 )
         return self
 

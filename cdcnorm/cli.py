@@ -20,7 +20,7 @@ from rich.text import Text
 from cdcnorm import __version__
 from cdcnorm import ledger as ledger_mod
 from cdcnorm.engines import ENGINES
-from cdcnorm.errors import EXIT_OK, CdcnormError, InterruptedRun, UsageError, closest, name_list
+from cdcnorm.errors import EXIT_OK, CdcnormError, InterruptedRun, UsageError, closest, counted, name_list
 from cdcnorm.mapping import load_mappings
 from cdcnorm.pipeline import STAGE_NAMES, Options, Result, describe_sources, file_notes, run
 from cdcnorm.tables import print_table
@@ -472,17 +472,12 @@ def _report_run(
     out.print(
         f"run {result.run} committed to {landing}: events in {landing / 'events'}"
         + (
-            f"; {_rows(total.quarantined, 'quarantined')} in {landing / 'quarantine'}"
+            f"; {counted(total.quarantined, 'quarantined row')} in {landing / 'quarantine'}"
             if total.quarantined
             else ""
         )
         + (f"; {waiting} (cdcnorm settle ends the wait)" if result.waiting else "")
     )
-
-
-def _rows(n: int, what: str) -> str:
-    """``1 quarantined row``, ``1,234 quarantined rows``."""
-    return f"{n:,} {what} row{'' if n == 1 else 's'}"
 
 
 def _took(rows: int, seconds: float) -> str:

@@ -40,6 +40,12 @@ def closest(name: str, candidates: Iterable[str]) -> str | None:
     return found[0]
 
 
+def counted(n: int, noun: str) -> str:
+    """``1 quarantined row``, ``1,234 quarantined rows``: a count for a message, the noun in the
+    singular for one."""
+    return f"{n:,} {noun}{'' if n == 1 else 's'}"
+
+
 def name_list(names: Iterable[str]) -> str:
     """Names from a user's file, comma-separated for a message: each as it is, or in JSON quotes
     where it could not be told apart in the list (empty, spaces at an end, a comma, a quote or

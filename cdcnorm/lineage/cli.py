@@ -11,7 +11,7 @@ from rich.console import Console
 from rich.text import Text
 from rich.tree import Tree
 
-from cdcnorm.errors import EXIT_BREAKS, EXIT_INCOMPLETE, EXIT_OK, UsageError, did_you_mean
+from cdcnorm.errors import EXIT_BREAKS, EXIT_INCOMPLETE, EXIT_OK, UsageError, counted, did_you_mean
 
 if TYPE_CHECKING:
     from cdcnorm.lineage.graph import Project
@@ -186,11 +186,11 @@ def _trace_tree(answer: dict[str, Any]) -> Tree:
                 )
             )
 
-    branch = tree.add(f"value lineage: {_count(len(answer['value']), 'source column')}")
+    branch = tree.add(f"value lineage: {counted(len(answer['value']), 'source column')}")
     for p in answer["paths"]:
         if p["lineage"] == "value":
             add_path(branch, p)
-    branch = tree.add(f"influence lineage: {_count(len(answer['influence']), 'source column')}")
+    branch = tree.add(f"influence lineage: {counted(len(answer['influence']), 'source column')}")
     # grouped by kind: join keys that only connect tables apart from the filters that decide rows
     from cdcnorm.lineage.questions import KIND_NAMES
 
@@ -354,11 +354,6 @@ def _sql_type(text: str, dialect: str) -> str:
     return text
 
 
-def _count(n: int, what: str) -> str:
-    """``1 unresolved reference``, ``2 unresolved references``."""
-    return f"{n:,} {what}{'' if n == 1 else 's'}"
-
-
 def _print_unresolved(tree: Tree, answer: dict[str, Any]) -> None:
     if answer.get("inferred"):
         tree.add(
@@ -370,7 +365,7 @@ def _print_unresolved(tree: Tree, answer: dict[str, Any]) -> None:
     b = tree.add(
         Text.assemble(
             ("incomplete", "yellow"),
-            f": {_count(len(answer['unresolved']), 'unresolved reference')} on the way",
+            f": {counted(len(answer['unresolved']), 'unresolved reference')} on the way",
         )
     )
     for d in answer["unresolved"]:

@@ -18,7 +18,7 @@ from typing import Any
 import graphviz
 import networkx as nx
 
-from cdcnorm.errors import GraphvizMissing, UsageError
+from cdcnorm.errors import GraphvizMissing, UsageError, counted
 from cdcnorm.lineage.graph import node_id, node_name
 from cdcnorm.lineage.resolve import Node
 
@@ -150,7 +150,7 @@ def export(
     title, the explorer in a list under it, GraphML and JSON in the graph's ``unresolved``)."""
     fmt = fmt or out.suffix.lstrip(".").lower()
     if gaps:
-        title = f"{title} (incomplete: {len(gaps)} unresolved reference{'' if len(gaps) == 1 else 's'})"
+        title = f"{title} (incomplete: {counted(len(gaps), 'unresolved reference')})"
     if fmt not in FORMATS:
         raise UsageError(f"unknown diagram format {fmt!r}; formats are {', '.join(FORMATS)}", file=str(out))
     out.parent.mkdir(parents=True, exist_ok=True)

@@ -25,7 +25,7 @@ import duckdb
 import sqlalchemy as sa
 
 from cdcnorm.engines.duckdb import DuckDBEngine
-from cdcnorm.errors import InputError, TargetError
+from cdcnorm.errors import InputError, TargetError, counted
 from cdcnorm.inputs import checksum
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.sql import ident
@@ -141,7 +141,7 @@ def _check_values(
         key_text = ", ".join(f"{k}={v}" for k, v in zip(key, key_values, strict=True))
         more = f" (and {n - 1:,} more values)" if n > 1 else ""
         raise TargetError(
-            f"{target.shown}: {n:,} value{'s' if n > 1 else ''} of {mapping.table}.{name} "
+            f"{target.shown}: {counted(n, 'value')} of {mapping.table}.{name} "
             f"hold{'' if n > 1 else 's'} {refusal.what}, which the database cannot store; no row of "
             f"{mapping.table} was written",
             file=str(paths.get(source, source)),

@@ -21,6 +21,7 @@ Each gives table name -> column -> SQL type.
 from __future__ import annotations
 
 import json
+from collections import Counter
 from pathlib import Path
 from typing import Any
 
@@ -99,26 +100,26 @@ def _create_tables(path: Path, dialect: str) -> Tables:
 
 
 def _schema_file(path: Path) -> Tables:
-    from cdcnorm.mapping.load import repeated_key
+    from cdcnorm.mapping.load import parse_yaml, repeated_key
 
     text = path.read_text(encoding="utf-8")
 
     def once(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
         # a name stated twice in one object: json keeps the last without a word (RFC 7493,
         # section 2.3, asks a parser to reject it)
-        names = [k for k, _ in pairs]
-        for k in names:
-            if names.count(k) > 1:
-                raise UsageError(
-                    f"{path}: the key {k!r} is stated twice in one object", hint="keep one of them"
-                )
-        return dict(pairs)
+        data = dict(pairs)
+        if len(data) < len(pairs):
+            twice = next(k for k, n in Counter(k for k, _ in pairs).items() if n > 1)
+            raise UsageError(
+                f"{path}: the key {twice!r} is stated twice in one object", hint="keep one of them"
+            )
+        return data
 
     try:
         if path.suffix.lower() == ".json":
             data = json.loads(text, object_pairs_hook=once)
         else:
-            node = yaml.compose(text, Loader=yaml.SafeLoader)
+            node, data = parse_yaml(text)
             repeated = repeated_key(node) if node is not None else None
             if repeated is not None:
                 key, first, second = repeated
@@ -127,7 +128,6 @@ def _schema_file(path: Path) -> Tables:
                     f"(lines {first} and {second})",
                     hint="keep one of them",
                 )
-            data = yaml.safe_load(text)
         return CatalogFile.model_validate(data).tables
     except (json.JSONDecodeError, yaml.YAMLError) as e:
         raise UsageError(f"{path}: not readable: {str(e).splitlines()[0]}") from None

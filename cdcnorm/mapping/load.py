@@ -118,6 +118,17 @@ def _clean_loc(loc: tuple[Any, ...]) -> tuple[Any, ...]:
 _LOADER: Any = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 
 
+def parse_yaml(text: str) -> tuple[yaml.Node | None, Any]:
+    """One parse of a YAML document: its nodes (for line numbers and repeated keys) and the data
+    built from them. yaml.YAMLError where it is not YAML."""
+    loader = _LOADER(text)
+    try:
+        node = loader.get_single_node()
+        return node, (loader.construct_document(node) if node is not None else None)
+    finally:
+        loader.dispose()
+
+
 def load_mapping(path: Path) -> LoadedMapping:
     text_name = str(path)
     try:
@@ -125,13 +136,7 @@ def load_mapping(path: Path) -> LoadedMapping:
     except (OSError, UnicodeDecodeError) as e:
         raise MappingError(f"cannot read mapping file: {e}", file=text_name) from None
     try:
-        # one parse gives the nodes (for line numbers) and the data built from them
-        loader = _LOADER(raw_text)
-        try:
-            node = loader.get_single_node()
-            data = loader.construct_document(node) if node is not None else None
-        finally:
-            loader.dispose()
+        node, data = parse_yaml(raw_text)
     except yaml.YAMLError as e:
         mark = getattr(e, "problem_mark", None)
         raise MappingError(

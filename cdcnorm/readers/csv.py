@@ -86,7 +86,7 @@ def _header(f: RawFile, delimiter: str, mapping: Mapping) -> tuple[list[str], bo
     # not decode become lone surrogates (only the header row must be valid text)
     decoder = codecs.getincrementaldecoder(encoding)("surrogateescape")
     start = raw
-    if not codecs.lookup(encoding).name.startswith(("utf-16", "utf-32")):
+    if not encoding.startswith(("utf-16", "utf-32")):  # the codec's own name (mapping/model.py)
         start = raw.removeprefix(b"\xef\xbb\xbf")  # UTF-8's byte order mark, before any 8-bit text too
     try:
         head = decoder.decode(start, final=False).removeprefix("\ufeff")  # a BOM is not part of a name

@@ -101,9 +101,10 @@ class PostgreSQLTarget(Target):
         return postgresql.insert(table)
 
     def cannot_hold(self, ftype: FieldType, v: str) -> Refusal | None:
-        # PostgreSQL's documentation (Character Types): "The character with code zero (sometimes
-        # called NUL) cannot be stored"; jsonb refuses the escape \u0000 for the same reason (JSON
-        # Types). An escape is a backslash after an even number of backslashes.
+        # PostgreSQL's documentation (Character Types, from memory): the character with code zero
+        # (NUL) cannot be stored; jsonb refuses the escape \u0000 for the same reason (JSON Types,
+        # from memory). tests/test_state.py checks both against the server. An escape is a
+        # backslash after an even number of backslashes.
         if ftype.name == "text":
             return Refusal(f"contains({v}, chr(0))", "the NUL character (U+0000)")
         if ftype.name == "json":

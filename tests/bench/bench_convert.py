@@ -11,6 +11,9 @@ operating system's accounting) are reported, best of ``--repeat`` runs:
 - convert: ``cdcnorm convert --format parquet`` (every guard, dedupe, pairing, ledger
   and its cross-check on);
 - convert-jsonl: ``cdcnorm convert --format jsonl``;
+- bound: ``bound.py``, the engine's own bound: one statement that reads the dump, types every value
+  behind the plan's guards, sorts and writes the envelopes (no dedupe, pairing, quarantine, ledger
+  or identity index), what the speed target is weighed against;
 - at ``--limited`` sizes: ``convert --format parquet --memory-limit 1GB``, once;
 - ``--small-files N``: N files of two rows each, converted in one run, as CSV, JSON Lines and
   Parquet files.
@@ -33,6 +36,8 @@ from typing import Any
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 import dumpgen
+
+BOUND = Path(__file__).resolve().parent / "bound.py"
 
 FLOOR = """
 import sys, pyarrow as pa, pyarrow.csv as c, pyarrow.parquet as pq
@@ -96,6 +101,8 @@ def bench_size(rows: int, repeat: int, keep: Path | None) -> dict[str, object]:
             "floor": [sys.executable, "-c", FLOOR, str(work / "floor.parquet"), *map(str, files)],
             "convert": convert_command(work, files, "out-parquet", "--format", "parquet"),
             "convert-jsonl": convert_command(work, files, "out-jsonl"),
+            "bound": [sys.executable, str(BOUND), str(work / "bound.parquet"), str(work / "mappings")]
+            + [str(f) for f in files],
         }
         for name, cmd in runs.items():
             wall, mib = run_isolated(cmd)
@@ -112,7 +119,7 @@ def bench_size(rows: int, repeat: int, keep: Path | None) -> dict[str, object]:
         "ledger_balanced": ledger["balanced"],
         "quarantined": ledger["total"]["quarantined"],
     }
-    for name in ("convert", "convert-jsonl"):
+    for name in ("convert", "convert-jsonl", "bound"):
         t, m = best[name]
         entry[f"{name}_s"] = round(t, 2)
         entry[f"{name}_peak_mib"] = round(m)

@@ -1,0 +1,81 @@
+"""The engine's own bound for a conversion: one statement that reads the CSV, types every value
+behind the plan's own guards, sorts by position and writes the envelopes to Parquet.
+
+It is not a conversion (no record numbers, no dedupe, pairing, quarantine, ledger or identity
+index: a bad row is only left out), and it is not a floor a conversion could reach. It measures what
+the engine needs for the work no conversion can skip, so the speed target can be weighed against
+it: if this one statement is already slower than the target, no arrangement of the plan meets it.
+
+    python tests/bench/bound.py OUT.parquet MAPPINGS_FOLDER DUMP.csv [DUMP.csv ...]
+
+The folder holds one mapping (``dumpgen.write_mapping``'s), and every dump has its header.
+"""
+
+from __future__ import annotations
+
+import csv
+import sys
+from pathlib import Path
+
+import duckdb
+
+from cdcnorm import positions
+from cdcnorm.engines.duckdb import PLAN_FUNCTIONS
+from cdcnorm.mapping.load import load_mappings
+from cdcnorm.pipeline import compile_table
+from cdcnorm.readers.base import RawFile, RawTable
+from cdcnorm.sql import ident, lit
+
+
+def statement(out: Path, mappings: Path, dumps: list[Path]) -> tuple[list[str], str]:
+    """The statements that define the plan's functions and source, and the one COPY."""
+    (mapping,) = load_mappings(mappings)
+    with open(dumps[0], encoding="utf-8", newline="") as f:
+        header = next(csv.reader(f))
+    raw = RawTable(mapping.mapping.slug)
+    internal = [raw.internal(c) for c in header]
+    raw.files = [RawFile(i, p, p.name, "csv", list(header), rows=1) for i, p in enumerate(dumps)]
+    source = f"{mapping.mapping.slug}__bound"
+    raw.add_relation(source, internal)
+    plan = compile_table(mapping, raw)
+    columns = ", ".join(f"{lit(c)}: 'VARCHAR'" for c in internal)
+    files = ", ".join(lit(str(p)) for p in dumps)
+    setup = [
+        *(
+            f"CREATE MACRO {name}({', '.join(args)}) AS {body}"
+            for name, (args, body) in PLAN_FUNCTIONS.items()
+        ),
+        "SET TimeZone = 'UTC'",
+        f"CREATE VIEW {ident(source)} AS SELECT 0 AS __file, 0 AS __row, CAST(NULL AS VARCHAR) AS __enc, * "
+        f"FROM read_csv([{files}], columns = {{{columns}}}, header = true, delim = ',', quote = '\"', "
+        "escape = '\"', auto_detect = false, allow_quoted_nulls = false, nullstr = [''], strict_mode = true)",
+        f"CREATE VIEW {plan.rel('source')} AS {plan.step('source').sql}",
+    ]
+    fields = list(mapping.mapping.fields)
+    key = list(mapping.mapping.key)
+    values = ", ".join(f"{lit(n)}: v{i}" for i, n in enumerate(fields))
+    keys = ", ".join(f"{lit(n)}: v{fields.index(n)}" for n in key)
+    change = mapping.mapping.change
+    position = positions.position_text(change.position, "__pos")
+    if change.sequence:
+        position += " || '.' || " + positions.sequence_text(change.sequence, change.position, "__seq")
+    copy = (
+        f'COPY (SELECT __act AS action, {{{keys}}} AS key, {position} AS position, __cat AS committed_at, {{{values}}} AS "values", '
+        "{'file': __file, 'row': __row} AS origin "
+        f"FROM (SELECT * FROM ({plan.step('typed').sql}) WHERE __ok ORDER BY __pos, __seq)) "
+        f"TO {lit(str(out))} (FORMAT PARQUET)"
+    )
+    return setup, copy
+
+
+def main() -> None:
+    out, mappings, *dumps = sys.argv[1:]
+    setup, copy = statement(Path(out), Path(mappings), [Path(d) for d in dumps])
+    con = duckdb.connect()
+    for sql in setup:
+        con.execute(sql)
+    con.execute(copy)
+
+
+if __name__ == "__main__":
+    main()

@@ -6,7 +6,9 @@ index: a bad row is only left out), and it is not a floor a conversion could rea
 the engine needs for the work no conversion can skip, so the speed target can be weighed against
 it: if this one statement is already slower than the target, no arrangement of the plan meets it.
 
-    python tests/bench/bound.py OUT.parquet MAPPINGS_FOLDER DUMP.csv [DUMP.csv ...]
+    python tests/bench/bound.py [--unsorted] OUT.parquet MAPPINGS_FOLDER DUMP.csv [DUMP.csv ...]
+
+``--unsorted`` leaves the sort out, to tell what putting the changes in order costs.
 
 The folder holds one mapping (``dumpgen.write_mapping``'s), and every dump has its header.
 """
@@ -27,7 +29,7 @@ from cdcnorm.readers.base import RawFile, RawTable
 from cdcnorm.sql import ident, lit
 
 
-def statement(out: Path, mappings: Path, dumps: list[Path]) -> tuple[list[str], str]:
+def statement(out: Path, mappings: Path, dumps: list[Path], *, sort: bool = True) -> tuple[list[str], str]:
     """The statements that define the plan's functions and source, and the one COPY."""
     (mapping,) = load_mappings(mappings)
     with open(dumps[0], encoding="utf-8", newline="") as f:
@@ -62,15 +64,17 @@ def statement(out: Path, mappings: Path, dumps: list[Path]) -> tuple[list[str], 
     copy = (
         f'COPY (SELECT __act AS action, {{{keys}}} AS key, {position} AS position, __cat AS committed_at, {{{values}}} AS "values", '
         "{'file': __file, 'row': __row} AS origin "
-        f"FROM (SELECT * FROM ({plan.step('typed').sql}) WHERE __ok ORDER BY __pos, __seq)) "
+        f"FROM (SELECT * FROM ({plan.step('typed').sql}) WHERE __ok{' ORDER BY __pos, __seq' if sort else ''})) "
         f"TO {lit(str(out))} (FORMAT PARQUET)"
     )
     return setup, copy
 
 
 def main() -> None:
-    out, mappings, *dumps = sys.argv[1:]
-    setup, copy = statement(Path(out), Path(mappings), [Path(d) for d in dumps])
+    args = sys.argv[1:]
+    sort = "--unsorted" not in args
+    out, mappings, *dumps = [a for a in args if a != "--unsorted"]
+    setup, copy = statement(Path(out), Path(mappings), [Path(d) for d in dumps], sort=sort)
     con = duckdb.connect()
     for sql in setup:
         con.execute(sql)

@@ -13,7 +13,8 @@ operating system's accounting) are reported, best of ``--repeat`` runs:
 - convert-jsonl: ``cdcnorm convert --format jsonl``;
 - bound: ``bound.py``, the engine's own bound: one statement that reads the dump, types every value
   behind the plan's guards, sorts and writes the envelopes (no dedupe, pairing, quarantine, ledger
-  or identity index), what the speed target is weighed against;
+  or identity index), what the speed target is weighed against; bound-jsonl: the same, written as
+  JSON Lines;
 - at ``--limited`` sizes: ``convert --format parquet --memory-limit 1GB``, once;
 - ``--small-files N``: N files of two rows each, converted in one run, as CSV, JSON Lines and
   Parquet files.
@@ -103,6 +104,14 @@ def bench_size(rows: int, repeat: int, keep: Path | None) -> dict[str, object]:
             "convert-jsonl": convert_command(work, files, "out-jsonl"),
             "bound": [sys.executable, str(BOUND), str(work / "bound.parquet"), str(work / "mappings")]
             + [str(f) for f in files],
+            "bound-jsonl": [
+                sys.executable,
+                str(BOUND),
+                "--jsonl",
+                str(work / "bound.jsonl"),
+                str(work / "mappings"),
+            ]
+            + [str(f) for f in files],
         }
         for name, cmd in runs.items():
             wall, mib = run_isolated(cmd)
@@ -119,7 +128,7 @@ def bench_size(rows: int, repeat: int, keep: Path | None) -> dict[str, object]:
         "ledger_balanced": ledger["balanced"],
         "quarantined": ledger["total"]["quarantined"],
     }
-    for name in ("convert", "convert-jsonl", "bound"):
+    for name in ("convert", "convert-jsonl", "bound", "bound-jsonl"):
         t, m = best[name]
         entry[f"{name}_s"] = round(t, 2)
         entry[f"{name}_peak_mib"] = round(m)

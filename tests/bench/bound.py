@@ -6,9 +6,10 @@ index: a bad row is only left out), and it is not a floor a conversion could rea
 the engine needs for the work no conversion can skip, so the speed target can be weighed against
 it: if this one statement is already slower than the target, no arrangement of the plan meets it.
 
-    python tests/bench/bound.py [--unsorted] OUT.parquet MAPPINGS_FOLDER DUMP.csv [DUMP.csv ...]
+    python tests/bench/bound.py [--unsorted] [--jsonl] OUT MAPPINGS_FOLDER DUMP.csv [DUMP.csv ...]
 
-``--unsorted`` leaves the sort out, to tell what putting the changes in order costs.
+``--unsorted`` leaves the sort out, to tell what putting the changes in order costs; ``--jsonl``
+writes JSON Lines with the engine's JSON writer (its own text of a timestamp, not RFC 3339).
 
 The folder holds one mapping (``dumpgen.write_mapping``'s), and every dump has its header.
 """
@@ -29,7 +30,9 @@ from cdcnorm.readers.base import RawFile, RawTable
 from cdcnorm.sql import ident, lit
 
 
-def statement(out: Path, mappings: Path, dumps: list[Path], *, sort: bool = True) -> tuple[list[str], str]:
+def statement(
+    out: Path, mappings: Path, dumps: list[Path], *, sort: bool = True, jsonl: bool = False
+) -> tuple[list[str], str]:
     """The statements that define the plan's functions and source, and the one COPY."""
     (mapping,) = load_mappings(mappings)
     with open(dumps[0], encoding="utf-8", newline="") as f:
@@ -65,16 +68,22 @@ def statement(out: Path, mappings: Path, dumps: list[Path], *, sort: bool = True
         f'COPY (SELECT __act AS action, {{{keys}}} AS key, {position} AS position, __cat AS committed_at, {{{values}}} AS "values", '
         "{'file': __file, 'row': __row} AS origin "
         f"FROM (SELECT * FROM ({plan.step('typed').sql}) WHERE __ok{' ORDER BY __pos, __seq' if sort else ''})) "
-        f"TO {lit(str(out))} (FORMAT PARQUET)"
+        f"TO {lit(str(out))} (FORMAT {'JSON' if jsonl else 'PARQUET'})"
     )
     return setup, copy
 
 
 def main() -> None:
     args = sys.argv[1:]
-    sort = "--unsorted" not in args
-    out, mappings, *dumps = [a for a in args if a != "--unsorted"]
-    setup, copy = statement(Path(out), Path(mappings), [Path(d) for d in dumps], sort=sort)
+    flags = {"--unsorted", "--jsonl"}
+    out, mappings, *dumps = [a for a in args if a not in flags]
+    setup, copy = statement(
+        Path(out),
+        Path(mappings),
+        [Path(d) for d in dumps],
+        sort="--unsorted" not in args,
+        jsonl="--jsonl" in args,
+    )
     con = duckdb.connect()
     for sql in setup:
         con.execute(sql)

@@ -435,6 +435,42 @@ class DuckDBEngine:
     def count(self, relation: str, where: str = "TRUE") -> int:
         return int(self.rows(f"SELECT count(*) FROM {ident(relation)} WHERE {where}")[0][0])
 
+    def csv_scan(
+        self,
+        paths: list[str],
+        columns: list[str],
+        *,
+        header: bool,
+        delimiter: str,
+        quote: str,
+        nulls: list[str],
+        encoding: str,
+        max_line: int,
+        rejects: str | None,
+    ) -> str:
+        """SQL: the engine's strict parallel reader over ``paths``, every column as text (with
+        ``__fname``); a record it cannot split goes to the tables ``rejects`` and ``rejects_scan``,
+        or, with ``rejects`` None, fails the statement."""
+        cols = "{" + ", ".join(f"{lit(c)}: 'VARCHAR'" for c in columns) + "}"
+        # The reader's buffers come out of the engine's memory (its own default is 16 longest
+        # lines, 512 MiB here, more than a whole limit): one buffer of the longest line, and at
+        # most an eighth of the engine's memory. A longer record is a reject, which the careful
+        # path reads with the full limit (``max_line``).
+        line = min(max_line, max(CSV_MIN_BUFFER, self.engine_memory // 8))
+        kept = (
+            f"ignore_errors = true, store_rejects = true, rejects_table = {lit(rejects)}, "
+            f"rejects_scan = {lit(rejects + '_scan')}, "
+            if rejects
+            else ""
+        )
+        return (
+            f"read_csv([{', '.join(lit(p) for p in paths)}], columns = {cols}, header = {str(header).lower()}, "
+            f"delim = {lit(delimiter)}, quote = {lit(quote)}, escape = {lit(quote)}, auto_detect = false, "
+            f"allow_quoted_nulls = false, nullstr = [{', '.join(lit(t) for t in nulls)}], "
+            f"encoding = {lit(encoding)}, strict_mode = true, {kept}"
+            f"max_line_size = {line}, buffer_size = {line}, filename = '__fname', parallel = true)"
+        )
+
     def scan_csv(
         self,
         table: str,
@@ -452,19 +488,16 @@ class DuckDBEngine:
         order, with ``__fname``). Returns the paths with any reject and, per path, (rows, first
         rowid, last rowid); None when the reader cannot read the files at all."""
         rejects = f"{table}_rejects"
-        cols = "{" + ", ".join(f"{lit(c)}: 'VARCHAR'" for c in columns) + "}"
-        # The reader's buffers come out of the engine's memory (its own default is 16 longest
-        # lines, 512 MiB here, more than a whole limit): one buffer of the longest line, and at
-        # most an eighth of the engine's memory. A longer record is a reject, which the careful
-        # path reads with the full limit (``max_line``).
-        line = min(max_line, max(CSV_MIN_BUFFER, self.engine_memory // 8))
-        scan = (
-            f"read_csv([{', '.join(lit(p) for p in paths)}], columns = {cols}, header = {str(header).lower()}, "
-            f"delim = {lit(delimiter)}, quote = {lit(quote)}, escape = {lit(quote)}, auto_detect = false, "
-            f"allow_quoted_nulls = false, nullstr = [{', '.join(lit(t) for t in nulls)}], "
-            f"encoding = {lit(encoding)}, strict_mode = true, ignore_errors = true, store_rejects = true, "
-            f"rejects_table = {lit(rejects)}, rejects_scan = {lit(rejects + '_scan')}, "
-            f"max_line_size = {line}, buffer_size = {line}, filename = '__fname', parallel = true)"
+        scan = self.csv_scan(
+            paths,
+            columns,
+            header=header,
+            delimiter=delimiter,
+            quote=quote,
+            nulls=nulls,
+            encoding=encoding,
+            max_line=max_line,
+            rejects=rejects,
         )
         try:
             self.con.execute(f"CREATE TABLE {ident(table)} AS SELECT * FROM {scan}")

@@ -97,21 +97,15 @@ def prepare(rows: int, base: Path | None) -> tuple[Path, list[Path], float]:
 def bench_size(rows: int, repeat: int, keep: Path | None) -> dict[str, object]:
     work, files, gen = prepare(rows, keep)
     best: dict[str, tuple[float, float]] = {}
+    bound = [sys.executable, str(BOUND)]
+    after = [str(work / "mappings"), *map(str, files)]  # the bound's mappings and dumps
     for _ in range(repeat):
         runs = {
             "floor": [sys.executable, "-c", FLOOR, str(work / "floor.parquet"), *map(str, files)],
             "convert": convert_command(work, files, "out-parquet", "--format", "parquet"),
             "convert-jsonl": convert_command(work, files, "out-jsonl"),
-            "bound": [sys.executable, str(BOUND), str(work / "bound.parquet"), str(work / "mappings")]
-            + [str(f) for f in files],
-            "bound-jsonl": [
-                sys.executable,
-                str(BOUND),
-                "--jsonl",
-                str(work / "bound.jsonl"),
-                str(work / "mappings"),
-            ]
-            + [str(f) for f in files],
+            "bound": [*bound, str(work / "bound.parquet"), *after],
+            "bound-jsonl": [*bound, "--jsonl", str(work / "bound.jsonl"), *after],
         }
         for name, cmd in runs.items():
             wall, mib = run_isolated(cmd)

@@ -20,20 +20,26 @@ import csv
 import sys
 from pathlib import Path
 
-import duckdb
-
 from cdcnorm import positions
-from cdcnorm.engines.duckdb import PLAN_FUNCTIONS
+from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.mapping.load import load_mappings
 from cdcnorm.pipeline import compile_table
-from cdcnorm.readers.base import RawFile, RawTable
+from cdcnorm.readers.base import MAX_RECORD_BYTES, RawFile, RawTable
+from cdcnorm.readers.csv import ENGINE_ENCODINGS, NEVER
 from cdcnorm.sql import ident, lit
 
 
 def statement(
-    out: Path, mappings: Path, dumps: list[Path], *, sort: bool = True, jsonl: bool = False
+    engine: DuckDBEngine,
+    out: Path,
+    mappings: Path,
+    dumps: list[Path],
+    *,
+    sort: bool = True,
+    jsonl: bool = False,
 ) -> tuple[list[str], str]:
-    """The statements that define the plan's functions and source, and the one COPY."""
+    """The statements that define the plan's source on ``engine`` (the conversion's engine, with its
+    plan functions and settings), and the one COPY."""
     (mapping,) = load_mappings(mappings)
     with open(dumps[0], encoding="utf-8", newline="") as f:
         header = next(csv.reader(f))
@@ -43,17 +49,22 @@ def statement(
     source = f"{mapping.mapping.slug}__bound"
     raw.add_relation(source, internal)
     plan = compile_table(mapping, raw)
-    columns = ", ".join(f"{lit(c)}: 'VARCHAR'" for c in internal)
-    files = ", ".join(lit(str(p)) for p in dumps)
+    opts = mapping.mapping.csv
+    # the conversion's own reader, without keeping rejects (a record it cannot split fails the bound)
+    scan = engine.csv_scan(
+        [str(p) for p in dumps],
+        internal,
+        header=True,
+        delimiter=opts.delimiter,
+        quote=opts.quote,
+        nulls=list(mapping.mapping.nulls) or [NEVER],
+        encoding=ENGINE_ENCODINGS[opts.encoding.lower()],
+        max_line=MAX_RECORD_BYTES,
+        rejects=None,
+    )
     setup = [
-        *(
-            f"CREATE MACRO {name}({', '.join(args)}) AS {body}"
-            for name, (args, body) in PLAN_FUNCTIONS.items()
-        ),
-        "SET TimeZone = 'UTC'",
         f"CREATE VIEW {ident(source)} AS SELECT 0 AS __file, 0 AS __row, CAST(NULL AS VARCHAR) AS __enc, * "
-        f"FROM read_csv([{files}], columns = {{{columns}}}, header = true, delim = ',', quote = '\"', "
-        "escape = '\"', auto_detect = false, allow_quoted_nulls = false, nullstr = [''], strict_mode = true)",
+        f"EXCLUDE (__fname) FROM {scan}",
         f"CREATE VIEW {plan.rel('source')} AS {plan.step('source').sql}",
     ]
     fields = list(mapping.mapping.fields)
@@ -77,17 +88,18 @@ def main() -> None:
     args = sys.argv[1:]
     flags = {"--unsorted", "--jsonl"}
     out, mappings, *dumps = [a for a in args if a not in flags]
+    engine = DuckDBEngine()
     setup, copy = statement(
+        engine,
         Path(out),
         Path(mappings),
         [Path(d) for d in dumps],
         sort="--unsorted" not in args,
         jsonl="--jsonl" in args,
     )
-    con = duckdb.connect()
     for sql in setup:
-        con.execute(sql)
-    con.execute(copy)
+        engine.con.execute(sql)
+    engine.con.execute(copy)
 
 
 if __name__ == "__main__":

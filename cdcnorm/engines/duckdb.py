@@ -16,6 +16,7 @@ import secrets
 import threading
 from collections.abc import Callable, Collection, Iterator, Sequence
 from concurrent.futures import ThreadPoolExecutor, wait
+from dataclasses import dataclass
 from importlib import metadata
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, TypeVar
@@ -86,6 +87,19 @@ def check_version(version: str = duckdb.__version__, sqlglot_version: str | None
 THREAD_MEMORY = 160 << 20
 #: The smallest read buffer of the engine's CSV reader (its longest line, too: see scan_csv).
 CSV_MIN_BUFFER = 4 << 20
+
+
+@dataclass(frozen=True)
+class CsvSyntax:
+    """How the CSV files of one read are written, as the engine's reader is told."""
+
+    header: bool
+    delimiter: str
+    quote: str
+    nulls: tuple[str, ...]  # texts read as NULL, unquoted (never empty: the reader needs one)
+    encoding: str  # the engine's name of the encoding
+    max_line: int  # the longest record, in bytes
+
 
 _UNITS = {"bytes": 1, "KiB": 1 << 10, "MiB": 1 << 20, "GiB": 1 << 30, "TiB": 1 << 40}
 
@@ -435,19 +449,7 @@ class DuckDBEngine:
     def count(self, relation: str, where: str = "TRUE") -> int:
         return int(self.rows(f"SELECT count(*) FROM {ident(relation)} WHERE {where}")[0][0])
 
-    def csv_scan(
-        self,
-        paths: list[str],
-        columns: list[str],
-        *,
-        header: bool,
-        delimiter: str,
-        quote: str,
-        nulls: list[str],
-        encoding: str,
-        max_line: int,
-        rejects: str | None,
-    ) -> str:
+    def csv_scan(self, paths: list[str], columns: list[str], syntax: CsvSyntax, rejects: str | None) -> str:
         """SQL: the engine's strict parallel reader over ``paths``, every column as text (with
         ``__fname``); a record it cannot split goes to the tables ``rejects`` and ``rejects_scan``,
         or, with ``rejects`` None, fails the statement."""
@@ -456,7 +458,7 @@ class DuckDBEngine:
         # lines, 512 MiB here, more than a whole limit): one buffer of the longest line, and at
         # most an eighth of the engine's memory. A longer record is a reject, which the careful
         # path reads with the full limit (``max_line``).
-        line = min(max_line, max(CSV_MIN_BUFFER, self.engine_memory // 8))
+        line = min(syntax.max_line, max(CSV_MIN_BUFFER, self.engine_memory // 8))
         kept = (
             f"ignore_errors = true, store_rejects = true, rejects_table = {lit(rejects)}, "
             f"rejects_scan = {lit(rejects + '_scan')}, "
@@ -464,41 +466,22 @@ class DuckDBEngine:
             else ""
         )
         return (
-            f"read_csv([{', '.join(lit(p) for p in paths)}], columns = {cols}, header = {str(header).lower()}, "
-            f"delim = {lit(delimiter)}, quote = {lit(quote)}, escape = {lit(quote)}, auto_detect = false, "
-            f"allow_quoted_nulls = false, nullstr = [{', '.join(lit(t) for t in nulls)}], "
-            f"encoding = {lit(encoding)}, strict_mode = true, {kept}"
+            f"read_csv([{', '.join(lit(p) for p in paths)}], columns = {cols}, "
+            f"header = {str(syntax.header).lower()}, delim = {lit(syntax.delimiter)}, "
+            f"quote = {lit(syntax.quote)}, escape = {lit(syntax.quote)}, auto_detect = false, "
+            f"allow_quoted_nulls = false, nullstr = [{', '.join(lit(t) for t in syntax.nulls)}], "
+            f"encoding = {lit(syntax.encoding)}, strict_mode = true, {kept}"
             f"max_line_size = {line}, buffer_size = {line}, filename = '__fname', parallel = true)"
         )
 
     def scan_csv(
-        self,
-        table: str,
-        paths: list[str],
-        columns: list[str],
-        *,
-        header: bool,
-        delimiter: str,
-        quote: str,
-        nulls: list[str],
-        encoding: str,
-        max_line: int,
+        self, table: str, paths: list[str], columns: list[str], syntax: CsvSyntax
     ) -> tuple[set[str], dict[str, tuple[int, int, int]]] | None:
         """Load CSV files with the engine's strict parallel reader into ``table`` (rows in file
         order, with ``__fname``). Returns the paths with any reject and, per path, (rows, first
         rowid, last rowid); None when the reader cannot read the files at all."""
         rejects = f"{table}_rejects"
-        scan = self.csv_scan(
-            paths,
-            columns,
-            header=header,
-            delimiter=delimiter,
-            quote=quote,
-            nulls=nulls,
-            encoding=encoding,
-            max_line=max_line,
-            rejects=rejects,
-        )
+        scan = self.csv_scan(paths, columns, syntax, rejects)
         try:
             self.con.execute(f"CREATE TABLE {ident(table)} AS SELECT * FROM {scan}")
             rejected = {

@@ -35,7 +35,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.csv as pacsv
 
-from cdcnorm.engines.duckdb import DuckDBEngine
+from cdcnorm.engines.duckdb import CsvSyntax, DuckDBEngine
 from cdcnorm.errors import InputError
 from cdcnorm.mapping.model import Mapping
 from cdcnorm.readers import streams
@@ -310,22 +310,24 @@ def _joined(group: list[RawFile], r: _Reading) -> list[RawFile]:
     return alone
 
 
+def csv_syntax(mapping: Mapping, delimiter: str, header: bool | None = None) -> CsvSyntax:
+    """What the engine's reader is told of a table's CSV files (``header``: the mapping's by default)."""
+    opts = mapping.csv
+    return CsvSyntax(
+        header=opts.header if header is None else header,
+        delimiter=delimiter,
+        quote=opts.quote,
+        nulls=tuple(mapping.nulls) or (NEVER,),
+        encoding=ENGINE_ENCODINGS[opts.encoding.lower()],
+        max_line=MAX_RECORD_BYTES,
+    )
+
+
 def _scan(
     r: _Reading, staged: str, paths: list[str], header: bool | None = None
 ) -> tuple[set[str], dict[str, tuple[int, int, int]]] | None:
     """The engine's strict scan of ``paths`` into ``staged`` (``header``: the mapping's by default)."""
-    opts = r.mapping.csv
-    return r.engine.scan_csv(
-        staged,
-        paths,
-        r.internal,
-        header=opts.header if header is None else header,
-        delimiter=r.delimiter,
-        quote=opts.quote,
-        nulls=list(r.mapping.nulls) or [NEVER],
-        encoding=ENGINE_ENCODINGS[opts.encoding.lower()],
-        max_line=MAX_RECORD_BYTES,
-    )
+    return r.engine.scan_csv(staged, paths, r.internal, csv_syntax(r.mapping, r.delimiter, header))
 
 
 class _Overlong(Exception):

@@ -24,8 +24,8 @@ from cdcnorm import positions
 from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.mapping.load import load_mappings
 from cdcnorm.pipeline import compile_table
-from cdcnorm.readers.base import MAX_RECORD_BYTES, RawFile, RawTable
-from cdcnorm.readers.csv import ENGINE_ENCODINGS, NEVER
+from cdcnorm.readers.base import RawFile, RawTable
+from cdcnorm.readers.csv import csv_syntax
 from cdcnorm.sql import ident, lit
 
 
@@ -49,19 +49,9 @@ def statement(
     source = f"{mapping.mapping.slug}__bound"
     raw.add_relation(source, internal)
     plan = compile_table(mapping, raw)
-    opts = mapping.mapping.csv
     # the conversion's own reader, without keeping rejects (a record it cannot split fails the bound)
-    scan = engine.csv_scan(
-        [str(p) for p in dumps],
-        internal,
-        header=True,
-        delimiter=opts.delimiter,
-        quote=opts.quote,
-        nulls=list(mapping.mapping.nulls) or [NEVER],
-        encoding=ENGINE_ENCODINGS[opts.encoding.lower()],
-        max_line=MAX_RECORD_BYTES,
-        rejects=None,
-    )
+    syntax = csv_syntax(mapping.mapping, mapping.mapping.csv.delimiter, header=True)
+    scan = engine.csv_scan([str(p) for p in dumps], internal, syntax, rejects=None)
     setup = [
         f"CREATE VIEW {ident(source)} AS SELECT 0 AS __file, 0 AS __row, CAST(NULL AS VARCHAR) AS __enc, * "
         f"EXCLUDE (__fname) FROM {scan}",

@@ -526,10 +526,16 @@ def demo_landing(tmp_path_factory: pytest.TempPathFactory) -> Path:
             2,
             "unknown SQL dialect 'postgress' (did you mean \"postgres\"?)",
         ),
+        # before: exit 0, the models read as sqlglot's generic SQL (its dialect named "")
+        (
+            ["impact", "people.person_id", "--models", "{models}", "--dialect", ""],
+            2,
+            "unknown SQL dialect ''",
+        ),
         # before: 100,000 engine threads ran for minutes on the demo before they were all started
         (["convert", "{dumps}", "--out", "{out}", "--threads", "100000"], 2, "threads are too many: at most"),
     ],
-    ids=["snapshot-out-file", "sqlite-memory", "duckdb-memory", "dialect", "threads"],
+    ids=["snapshot-out-file", "sqlite-memory", "duckdb-memory", "dialect", "empty-dialect", "threads"],
 )
 def test_odd_arguments_get_a_message_not_a_traceback(
     args: list[str],

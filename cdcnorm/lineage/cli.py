@@ -140,13 +140,17 @@ def _check_dialect(name: str) -> None:
     from sqlglot.dialects.dialect import Dialects
 
     try:
+        # sqlglot names its generic dialect "": an empty --dialect (an unset variable in a script)
+        # would read the models as generic SQL without a word
+        if not name.strip():
+            raise ValueError(name)
         sqlglot.Dialect.get_or_raise(name)
     except ValueError:
         names = sorted(d.value for d in Dialects if d.value)
         raise UsageError(
             f"unknown SQL dialect {name!r}{did_you_mean(name, names)}",
             expected="one of sqlglot's dialects: " + ", ".join(names),
-            found=name,
+            found=name if name.strip() else f"{name!r} (an empty name)",
             hint="give it with --dialect, or as dialect in the project file",
         ) from None
 

@@ -437,6 +437,7 @@ def _report_run(
                     "skipped": result.skipped,
                     "hidden": hidden,
                     "notes": file_notes(result),
+                    "memory_note": result.memory_note,
                 }
             )
         )
@@ -458,6 +459,8 @@ def _report_run(
             soft_wrap=True,
         )
     _print_notes(result)
+    if result.memory_note:
+        out.print(f"note: {result.memory_note}", markup=False, soft_wrap=True)
     total = result.ledger.total
     # how long the run took and its rate: what a nightly job's window is sized by
     took = f" ({_took(total.read, seconds)})" if seconds is not None else ""
@@ -561,6 +564,7 @@ def _report_check(result: Result, args: argparse.Namespace, hidden: list[str]) -
         "drift": drift,
         "tables": result.ledger.as_dict()["tables"],
         "hidden": hidden,
+        "memory_note": result.memory_note,
     }
     if args.json:
         out.print_json(json.dumps(report))
@@ -612,6 +616,8 @@ def _report_check(result: Result, args: argparse.Namespace, hidden: list[str]) -
             for reason, n in sorted(tl.reasons.items()):
                 out.print(f"{name}: {n} x {reason}")
         _print_notes(result)
+        if result.memory_note:
+            out.print(f"note: {result.memory_note}", markup=False, soft_wrap=True)
         _print_hidden(hidden)
         for d in drift:
             out.print(Text.assemble(("drift", "red"), " ", d))

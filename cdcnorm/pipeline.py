@@ -34,7 +34,7 @@ from cdcnorm.errors import (
 from cdcnorm.inputs import display_names, expand_inputs, gather_inputs, route, text_path
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.plan import Plan, RawRelation, Source
-from cdcnorm.readers import RawFile, RawTable, reader_for
+from cdcnorm.readers import RawFile, RawTable, reader_for, streams
 from cdcnorm.scratch import scratch_folder
 from cdcnorm.sql import ident, lit
 from cdcnorm.stages.dedupe import dedupe_rows
@@ -142,6 +142,11 @@ class Result:
     hidden: list[str] = field(default_factory=list)  # hidden files the input folders hold, not read
     pending: int = 0  # before-images this run's tables leave waiting
     waiting: int = 0  # before-images waiting in the whole landing area after this run
+
+    @property
+    def memory_note(self) -> str | None:
+        """What the run's memory limit could not promise for an input this large, or None."""
+        return self.engine.memory_note()
 
     @property
     def quarantined(self) -> int:
@@ -450,6 +455,7 @@ def _run(
         threads=options.threads,
         temp_directory=str(scratch / "spill"),
         spill_limit=options.spill_limit,
+        input_bytes=sum(streams.planned_size(p) for paths in routed.values() for p in paths),
     )
     zones.register(engine, mappings)
     read = read_all(mappings, routed, engine, options, progress, scratch)

@@ -700,6 +700,95 @@ def test_a_limit_too_small_for_the_engine_is_a_clear_error_and_commits_nothing(
     assert not (out / "events").exists()
 
 
+MiB = 1 << 20
+GiB = 1 << 30
+
+
+@pytest.mark.parametrize(
+    ("budget", "input_bytes", "engine", "short"),
+    [
+        # --memory-limit 1GB, as DuckDB reads it (10^9 bytes: 953.6 MiB)
+        (10**9, 0, 10**9 - 250 * 10**6, 0),  # a quarter (at most 256 MiB) kept back
+        (10**9, int(3.6 * GiB), 10**9 - 250 * 10**6 - int(3.6 * GiB * 36 / 1024), 0),  # the 20M-row dump
+        (10**9, int(9.3 * GiB), 10**9 - 250 * 10**6 - int(9.3 * GiB * 36 / 1024), 0),  # the 50M-row dump
+        (10**9, 100 * GiB, 10**9 // 3, 100 * GiB * 36 // 1024 + 250 * 10**6 - 10**9 + 10**9 // 3),
+        (8 * 10**6, 0, 8 * 10**6, 0),  # below the engine's floor: the whole limit
+        (400 * MiB, 0, 300 * MiB, 0),  # a quarter of a small limit
+    ],
+    ids=["1GB", "1GB-20M-rows", "1GB-50M-rows", "1GB-100GiB", "8MB", "400MiB"],
+)
+def test_the_engine_reserve_grows_with_the_input(
+    budget: int, input_bytes: int, engine: int, short: int
+) -> None:
+    from cdcnorm.engines.duckdb import engine_share
+
+    got, missing = engine_share(budget, input_bytes)
+    assert got == pytest.approx(engine, abs=2) and missing == pytest.approx(short, abs=2)
+
+
+def test_a_run_plans_its_memory_for_the_text_its_files_hold(tmp_path: Path) -> None:
+    from cdcnorm.readers import streams
+
+    text = b"op,pos,id\n" + b"I,1,1\n" * 1000
+    (tmp_path / "a.csv").write_bytes(text)
+    (tmp_path / "a.csv.gz").write_bytes(gzip.compress(text))
+    (tmp_path / "a.csv.bz2").write_bytes(bz2.compress(text))
+    pq.write_table(pa.table({"id": list(range(1000))}), tmp_path / "a.parquet")
+    assert streams.planned_size(tmp_path / "a.csv") == len(text)
+    for name in ("a.csv.gz", "a.csv.bz2", "a.parquet"):  # counted as five times their size
+        assert streams.planned_size(tmp_path / name) == 5 * (tmp_path / name).stat().st_size
+    assert streams.planned_size(tmp_path / "gone.csv") == 0
+
+
+def test_the_engine_is_given_its_share_and_a_large_input_gets_a_note() -> None:
+    from cdcnorm.engines.duckdb import DuckDBEngine, engine_share
+
+    small = DuckDBEngine(memory_limit="1GB", input_bytes=100 * MiB)
+    assert small.memory_note() is None
+    # the engine's own setting, read back (it rounds to KiB)
+    expected = engine_share(small.memory_budget, 100 * MiB)[0]
+    assert abs(small.engine_memory - expected) < 1024
+    large = DuckDBEngine(memory_limit="1GB", input_bytes=100 * GiB)
+    assert large.engine_memory == pytest.approx(large.memory_budget / 3, abs=1024)
+    note = large.memory_note()
+    assert note is not None and "100.0 GiB of input is large for a memory limit of 1GB" in note
+    advised = int(note.rsplit("--memory-limit ", 1)[1].split("MB")[0])
+    # the limit the note advises keeps the whole reserve for that input, and a tenth less does not
+    assert engine_share(advised * 10**6, 100 * GiB)[1] == 0
+    assert engine_share(advised * 10**5 * 9, 100 * GiB)[1] > 0
+
+
+def test_a_note_says_when_the_input_is_large_for_the_limit(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """The run still converts; its printed result and its JSON say what the limit could not keep."""
+    from cdcnorm.readers import streams
+
+    write_files(
+        tmp_path / "m",
+        {
+            "t.yaml": "table: t.small\nfiles: ['s*.csv']\nkey: [id]\nchange:\n"
+            "  action: {column: op, codes: {I: insert}}\n  position: {column: pos, kind: integer}\n"
+            "fields:\n  id: integer\n"
+        },
+    )
+    (tmp_path / "s.csv").write_text("op,pos,id\nI,1,1\n", encoding="utf-8")
+    # as if the file held 500 GiB of text: no test writes that much
+    monkeypatch.setattr(streams, "planned_size", lambda path: 500 * GiB)
+    args = ["convert", "--mappings", str(tmp_path / "m"), str(tmp_path / "s.csv"), "--memory-limit", "2GB"]
+    assert cli(*args, "--out", str(tmp_path / "a")) == 0
+    printed = capsys.readouterr().out
+    assert (
+        "note: about 500.0 GiB of input is large for a memory limit of 2GB: the engine kept a third"
+        in " ".join(printed.split())
+    )
+    assert cli(*args, "--out", str(tmp_path / "b"), "--json") == 0
+    assert "500.0 GiB" in json.loads(capsys.readouterr().out)["memory_note"]
+    monkeypatch.undo()
+    assert cli(*args, "--out", str(tmp_path / "c"), "--json") == 0
+    assert json.loads(capsys.readouterr().out)["memory_note"] is None
+
+
 def test_control_characters_and_line_separators_stay_one_json_line(convert: ConvertFn) -> None:
     # RFC 8259 section 7: control characters are escaped inside strings; U+2028 may stand as is
     text = "a\x01b\x1fc\u2028d\re"

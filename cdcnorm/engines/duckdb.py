@@ -43,6 +43,14 @@ DEFAULT_MEMORY_SHARE = 0.5
 #: file, allocator slack) lives there, so the whole process stays near the limit.
 RESERVE_SHARE = 0.25
 RESERVE_CAP = 256 << 20
+#: What the buffer manager does not count also grows with what the engine spills (about 9 MiB per
+#: spilled GB, measured by polling its own accounting during a 20M-row run), and a run spills about
+#: four times its input beyond the engine's memory: the reserve grows by this share of the run's
+#: input (36 MiB per GiB; the peak above the limit grew by 35 MiB per GiB of CSV from 20M to 50M rows).
+SPILL_RESERVE_SHARE = 36 / 1024
+#: The engine keeps at least this share of the limit however large the input: below it, each step
+#: would spill so much that the run would crawl (a run that needs more reserve gets a note).
+ENGINE_SHARE_FLOOR = 1 / 3
 #: Below this the engine keeps the whole limit: it needs some working memory for any step.
 ENGINE_FLOOR = 64 << 20
 #: The oldest DuckDB cdcnorm runs on. 2.0 is the first to read a hex text of more than 64 bits
@@ -221,6 +229,16 @@ def _in_utc(con: duckdb.DuckDBPyConnection) -> None:
         con.execute("SET TimeZone = 'UTC'")
 
 
+def engine_share(budget: int, input_bytes: int) -> tuple[int, int]:
+    """Of a run's memory limit (``budget`` bytes), what the engine's buffers get, and how many bytes
+    of the reserve an input of ``input_bytes`` needs that the engine could not give up (0: none)."""
+    fixed = min(int(budget * RESERVE_SHARE), RESERVE_CAP)
+    wanted = budget - fixed - int(input_bytes * SPILL_RESERVE_SHARE)
+    least = int(budget * ENGINE_SHARE_FLOOR)
+    engine = max(wanted, least, min(budget, ENGINE_FLOOR))
+    return engine, max(0, least - wanted)
+
+
 def default_memory_limit() -> str:
     try:
         total = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
@@ -251,12 +269,13 @@ class DuckDBEngine:
         threads: int | None = None,
         temp_directory: str | None = None,
         spill_limit: str | None = None,
+        input_bytes: int = 0,
     ) -> None:
+        """``input_bytes``: the run's input as text (estimated), for the memory it reserves."""
         check_version()
-        config: dict[str, Any] = {
-            "preserve_insertion_order": True,
-            "memory_limit": memory_limit or default_memory_limit(),
-        }
+        #: the run's memory limit as given (or the default's), for messages
+        self.memory_limit = memory_limit or default_memory_limit()
+        config: dict[str, Any] = {"preserve_insertion_order": True, "memory_limit": self.memory_limit}
         if threads:
             config["threads"] = threads
         if temp_directory:
@@ -267,7 +286,10 @@ class DuckDBEngine:
         self.con = duckdb.connect(":memory:", config=config)
         # the limit is the run's: the engine gets it less a reserve for what it does not count
         budget = _setting_bytes(self.con)
-        engine = max(budget - min(int(budget * RESERVE_SHARE), RESERVE_CAP), min(budget, ENGINE_FLOOR))
+        engine, self.memory_short = engine_share(budget, input_bytes)
+        #: the limit the run was given and the input it was planned for, in bytes
+        self.memory_budget = budget
+        self.input_bytes = input_bytes
         #: what the engine's own buffers may hold (the readers and threads are sized from it)
         self.engine_memory = max(engine, 1 << 20)
         self.con.execute(f"SET memory_limit = '{self.engine_memory >> 10}KiB'")
@@ -288,6 +310,21 @@ class DuckDBEngine:
         # marks JSON Lines numbers read as written (types/json.py: tag_numbers); random, so that
         # no text of a dump can look like it
         self.number_tag = f"~n{secrets.token_hex(8)}~"
+
+    def memory_note(self) -> str | None:
+        """When the input is too large for the limit to keep its whole reserve: by how much, and the
+        limit that would (None when it is not)."""
+        if not self.memory_short:
+            return None
+        mib = 1 << 20
+        # the limit whose engine share keeps the whole reserve: a third of it left after the reserve
+        needed = int((RESERVE_CAP + self.input_bytes * SPILL_RESERVE_SHARE) / (1 - ENGINE_SHARE_FLOOR))
+        return (
+            f"about {self.input_bytes / (1 << 30):,.1f} GiB of input is large for a memory limit of "
+            f"{self.memory_limit}: the engine kept a third of it, and what it spills takes "
+            f"memory it does not count, so the process may have gone up to {self.memory_short / mib:,.0f} MiB "
+            f"further above the limit than on a smaller input; --memory-limit {-(-needed // 10**6)}MB or more avoids it"
+        )
 
     @staticmethod
     def pretty(expression: exp.Expr) -> str:

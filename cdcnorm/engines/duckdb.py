@@ -43,14 +43,16 @@ DEFAULT_MEMORY_SHARE = 0.5
 #: file, allocator slack) lives there, so the whole process stays near the limit.
 RESERVE_SHARE = 0.25
 RESERVE_CAP = 256 << 20
-#: What the buffer manager does not count also grows with what the engine spills (about 9 MiB per
-#: spilled GB, measured by polling its own accounting during a 20M-row run), and a run spills about
-#: four times its input beyond the engine's memory: the reserve grows by this share of the run's
-#: input (36 MiB per GiB; the peak above the limit grew by 35 MiB per GiB of CSV from 20M to 50M rows).
-SPILL_RESERVE_SHARE = 36 / 1024
-#: The engine keeps at least this share of the limit however large the input: below it, each step
-#: would spill so much that the run would crawl (a run that needs more reserve gets a note).
-ENGINE_SHARE_FLOOR = 1 / 3
+#: What the buffer manager does not count also grows with what the engine spills: above a 1GB
+#: limit the peak grew by 35 MiB per GiB of CSV from 20M to 50M rows (170 -> 364 MiB), and polling the
+#: engine's own accounting showed about 9 MiB per spilled GB. Keeping that much more of the limit
+#: back starved the engine instead: at 50M rows, 389 MiB of engine memory ran out in a window step
+#: that 715 MiB (the fixed reserve) converts. So the growth is predicted, not reserved: a run whose
+#: input may take the process more than MEMORY_OVERHEAD above its limit is told so.
+UNCOUNTED_PER_SPILLED = 36 / 1024  # per byte of input beyond the engine's memory
+UNCOUNTED_BASE = 50 << 20
+#: How far above --memory-limit the process is meant to stay (the peak resident memory's target).
+MEMORY_OVERHEAD = 400 * 10**6
 #: Below this the engine keeps the whole limit: it needs some working memory for any step.
 ENGINE_FLOOR = 64 << 20
 #: The oldest DuckDB cdcnorm runs on. 2.0 is the first to read a hex text of more than 64 bits
@@ -229,14 +231,15 @@ def _in_utc(con: duckdb.DuckDBPyConnection) -> None:
         con.execute("SET TimeZone = 'UTC'")
 
 
-def engine_share(budget: int, input_bytes: int) -> tuple[int, int]:
-    """Of a run's memory limit (``budget`` bytes), what the engine's buffers get, and how many bytes
-    of the reserve an input of ``input_bytes`` needs that the engine could not give up (0: none)."""
-    fixed = min(int(budget * RESERVE_SHARE), RESERVE_CAP)
-    wanted = budget - fixed - int(input_bytes * SPILL_RESERVE_SHARE)
-    least = int(budget * ENGINE_SHARE_FLOOR)
-    engine = max(wanted, least, min(budget, ENGINE_FLOOR))
-    return engine, max(0, least - wanted)
+def engine_share(budget: int) -> int:
+    """Of a run's memory limit (``budget`` bytes), what the engine's buffers get."""
+    return max(budget - min(int(budget * RESERVE_SHARE), RESERVE_CAP), min(budget, ENGINE_FLOOR))
+
+
+def predicted_overhead(budget: int, input_bytes: int) -> int:
+    """Bytes the process is predicted to hold above a limit of ``budget`` for ``input_bytes`` of
+    input: what the engine does not count, growing with what it spills."""
+    return UNCOUNTED_BASE + int(UNCOUNTED_PER_SPILLED * max(0, input_bytes - engine_share(budget)))
 
 
 def default_memory_limit() -> str:
@@ -286,7 +289,7 @@ class DuckDBEngine:
         self.con = duckdb.connect(":memory:", config=config)
         # the limit is the run's: the engine gets it less a reserve for what it does not count
         budget = _setting_bytes(self.con)
-        engine, self.memory_short = engine_share(budget, input_bytes)
+        engine = engine_share(budget)
         #: the limit the run was given and the input it was planned for, in bytes
         self.memory_budget = budget
         self.input_bytes = input_bytes
@@ -312,18 +315,20 @@ class DuckDBEngine:
         self.number_tag = f"~n{secrets.token_hex(8)}~"
 
     def memory_note(self) -> str | None:
-        """When the input is too large for the limit to keep its whole reserve: by how much, and the
-        limit that would (None when it is not)."""
-        if not self.memory_short:
+        """When the input is so large that the process may go more than MEMORY_OVERHEAD above the
+        limit: by how much, and the limit that would keep it within (None when it is not)."""
+        over = predicted_overhead(self.memory_budget, self.input_bytes)
+        if over <= MEMORY_OVERHEAD:
             return None
-        mib = 1 << 20
-        # the limit whose engine share keeps the whole reserve: a third of it left after the reserve
-        needed = int((RESERVE_CAP + self.input_bytes * SPILL_RESERVE_SHARE) / (1 - ENGINE_SHARE_FLOOR))
+        # the smallest limit whose engine spills little enough (its share: the limit less 256 MiB)
+        room = int((MEMORY_OVERHEAD - UNCOUNTED_BASE) / UNCOUNTED_PER_SPILLED)
+        needed = max(self.input_bytes - room + RESERVE_CAP, self.memory_budget)
         return (
             f"about {self.input_bytes / (1 << 30):,.1f} GiB of input is large for a memory limit of "
-            f"{self.memory_limit}: the engine kept a third of it, and what it spills takes "
-            f"memory it does not count, so the process may have gone up to {self.memory_short / mib:,.0f} MiB "
-            f"further above the limit than on a smaller input; --memory-limit {-(-needed // 10**6)}MB or more avoids it"
+            f"{self.memory_limit}: what the engine spills takes memory it does not count (about 36 MiB per "
+            f"GiB spilled, as measured), so the process may peak about {over >> 20:,} MiB above the limit, "
+            f"more than the {MEMORY_OVERHEAD // 10**6} MB it is meant to; --memory-limit "
+            f"{-(-needed // 10**9)}GB or more keeps it within"
         )
 
     @staticmethod

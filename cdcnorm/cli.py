@@ -459,8 +459,6 @@ def _report_run(
             soft_wrap=True,
         )
     _print_notes(result)
-    if result.memory_note:
-        out.print(f"note: {result.memory_note}", markup=False, soft_wrap=True)
     total = result.ledger.total
     # how long the run took and its rate: what a nightly job's window is sized by
     took = f" ({_took(total.read, seconds)})" if seconds is not None else ""
@@ -491,7 +489,7 @@ def _took(rows: int, seconds: float) -> str:
 
 def _print_notes(result: Result) -> None:
     """One line per note and the files it is about: 3,000 files with the same note are one line
-    naming two of them (``--json`` lists each file's notes)."""
+    naming two of them (``--json`` lists each file's notes); then the run's memory note."""
     files: dict[tuple[str, str], list[str]] = {}
     for n in file_notes(result):
         files.setdefault((n["table"], n["note"]), []).append(n["file"])
@@ -502,6 +500,8 @@ def _print_notes(result: Result) -> None:
             else f"{names[0]}, {names[1]} and {len(names) - 2:,} other files"
         )
         out.print(f"note: {named} ({table}): {note}", markup=False, soft_wrap=True)
+    if result.memory_note:  # the run's own, about no one file
+        out.print(f"note: {result.memory_note}", markup=False, soft_wrap=True)
 
 
 def cmd_runs(args: argparse.Namespace) -> int:
@@ -616,8 +616,6 @@ def _report_check(result: Result, args: argparse.Namespace, hidden: list[str]) -
             for reason, n in sorted(tl.reasons.items()):
                 out.print(f"{name}: {n} x {reason}")
         _print_notes(result)
-        if result.memory_note:
-            out.print(f"note: {result.memory_note}", markup=False, soft_wrap=True)
         _print_hidden(hidden)
         for d in drift:
             out.print(Text.assemble(("drift", "red"), " ", d))

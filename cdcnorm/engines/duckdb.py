@@ -274,7 +274,7 @@ class DuckDBEngine:
         spill_limit: str | None = None,
         input_bytes: int = 0,
     ) -> None:
-        """``input_bytes``: the run's input as text (estimated), for the memory it reserves."""
+        """``input_bytes``: the run's input as text (estimated), for ``memory_note``."""
         check_version()
         #: the run's memory limit as given (or the default's), for messages
         self.memory_limit = memory_limit or default_memory_limit()
@@ -325,8 +325,8 @@ class DuckDBEngine:
         needed = max(self.input_bytes - room + RESERVE_CAP, self.memory_budget)
         return (
             f"about {self.input_bytes / (1 << 30):,.1f} GiB of input is large for a memory limit of "
-            f"{self.memory_limit}: what the engine spills takes memory it does not count (about 36 MiB per "
-            f"GiB spilled, as measured), so the process may peak about {over >> 20:,} MiB above the limit, "
+            f"{self.memory_limit}: what the engine spills takes memory it does not count (about "
+            f"{UNCOUNTED_PER_SPILLED * 1024:.0f} MiB per GiB of input beyond the engine's memory, as measured), so the process may peak about {over >> 20:,} MiB above the limit, "
             f"more than the {MEMORY_OVERHEAD // 10**6} MB it is meant to; --memory-limit "
             f"{-(-needed // 10**9)}GB or more keeps it within"
         )

@@ -266,6 +266,14 @@ def _progress(quiet: bool) -> tuple[Progress | None, Any]:
     return bar, update
 
 
+def _notice(quiet: bool) -> Any:
+    """Print a note about the whole run on standard error when the run starts (the memory note:
+    a long run should not wait until its end to say it may pass its limit); the summary repeats it."""
+    if quiet:
+        return lambda note: None
+    return lambda note: err.print(f"note: {note}", markup=False, soft_wrap=True)
+
+
 def _progress_lines() -> Any:
     """Progress for a log (standard error not a terminal): a plain line at a step that starts
     LOG_EVERY seconds or more after the last line, so a short run prints none and a long one
@@ -397,7 +405,15 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
         bar.start()
     began = time.monotonic()
     try:
-        result = run(mappings, args.inputs, options, stop_after=stop, progress=update, strict_drift=not check)
+        result = run(
+            mappings,
+            args.inputs,
+            options,
+            stop_after=stop,
+            progress=update,
+            strict_drift=not check,
+            notice=_notice(args.quiet or args.json),
+        )
     finally:
         if bar:
             bar.stop()

@@ -72,6 +72,15 @@ def _no_progress(label: str, done: int, total: int) -> None:
     return None
 
 
+#: Told a note about the whole run as soon as it is known (the memory note, before the wait it is
+#: about); the run's result carries it too.
+Notice = Callable[[str], None]
+
+
+def _no_notice(note: str) -> None:
+    return None
+
+
 def one_at_a_time(progress: Progress) -> Progress:
     """``progress`` for callers on several threads (tables converted side by side)."""
     lock = threading.Lock()
@@ -364,9 +373,10 @@ def run(
     stop_after: str | None = None,
     progress: Progress = _no_progress,
     strict_drift: bool = True,
+    notice: Notice = _no_notice,
 ) -> Result:
     """Read, plan, execute and (when ``options.write``) write every table as one run of the
-    landing area ``options.out``."""
+    landing area ``options.out``. ``notice`` hears the memory note when the run starts."""
     options = options or Options()
     if stop_after is not None and stop_after not in STAGE_NAMES:
         raise UsageError(f"unknown stage {stop_after!r}; stages are {', '.join(STAGE_NAMES)}")
@@ -382,7 +392,9 @@ def run(
     hidden = [str(h) for h in hidden_files]
     with scratch_folder(options.scratch) as scratch, engine_errors(scratch):
         if not (options.write and options.out is not None and stop_after is None):
-            result = _run(mappings, routed, options, scratch, stop_after, progress, strict_drift, None)
+            result = _run(
+                mappings, routed, options, scratch, stop_after, progress, strict_drift, None, notice
+            )
             result.hidden = hidden
             return result
         from cdcnorm.landing import open_landing
@@ -396,7 +408,7 @@ def run(
             if not any(routed.values()) and not has_pending:
                 engine = DuckDBEngine(temp_directory=str(scratch / "spill"))
                 return Result(engine, {}, ledger_mod.Ledger(), [], skipped=skipped, hidden=hidden)
-            result = _run(mappings, routed, options, scratch, None, progress, strict_drift, area)
+            result = _run(mappings, routed, options, scratch, None, progress, strict_drift, area, notice)
             result.skipped = skipped
             result.hidden = hidden
             commit_run(result, area, options, inputs_info, later, progress)
@@ -447,6 +459,7 @@ def _run(
     progress: Progress,
     strict_drift: bool,
     area: Any,
+    notice: Notice = _no_notice,
 ) -> Result:
     from cdcnorm.landing import memory
 
@@ -457,6 +470,8 @@ def _run(
         spill_limit=options.spill_limit,
         input_bytes=sum(streams.planned_size(p) for paths in routed.values() for p in paths),
     )
+    if (note := engine.memory_note()) is not None:
+        notice(note)
     zones.register(engine, mappings)
     read = read_all(mappings, routed, engine, options, progress, scratch)
     by_name = {m.table: m for m in mappings}

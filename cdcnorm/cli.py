@@ -22,7 +22,7 @@ from cdcnorm import ledger as ledger_mod
 from cdcnorm.engines import ENGINES
 from cdcnorm.errors import EXIT_OK, CdcnormError, InterruptedRun, UsageError, closest, counted, name_list
 from cdcnorm.mapping import load_mappings
-from cdcnorm.pipeline import STAGE_NAMES, Options, Result, describe_sources, file_notes, run
+from cdcnorm.pipeline import STAGE_NAMES, Notice, Options, Result, describe_sources, file_notes, run
 from cdcnorm.tables import print_table
 
 # No markup: what the consoles print holds names from users' files (a file "t[x].csv" was shown as
@@ -266,7 +266,7 @@ def _progress(quiet: bool) -> tuple[Progress | None, Any]:
     return bar, update
 
 
-def _notice(quiet: bool) -> Any:
+def _notice(quiet: bool) -> Notice:
     """Print a note about the whole run on standard error when the run starts (the memory note:
     a long run should not wait until its end to say it may pass its limit); the summary repeats it."""
     if quiet:

@@ -285,7 +285,8 @@ def _progress_lines() -> Any:
         now = time.monotonic()
         if now - last >= LOG_EVERY:
             last = now
-            err.print(f"cdcnorm: {now - started:.0f} s: {label}", markup=False, soft_wrap=True)
+            step = f" [{done + 1 if done < total else done}/{total}]" if total > 1 else ""
+            err.print(f"cdcnorm: {now - started:.0f} s: {label}{step}", markup=False, soft_wrap=True)
 
     return update
 

@@ -28,6 +28,7 @@ from cdcnorm.errors import (
     RejectLimitError,
     UsageError,
     closest,
+    counted,
     did_you_mean,
     name_list,
 )
@@ -92,10 +93,16 @@ def one_at_a_time(progress: Progress) -> Progress:
     return tell
 
 
+def _speed(rows: int, since: float) -> str:
+    """``N rows/s`` since ``since``, once there is something to measure (else empty)."""
+    spent = time.perf_counter() - since
+    return f"{rows / spent:,.0f} rows/s" if rows and spent > 0.05 else ""
+
+
 def _rate(rows: int, since: float) -> str:
     """``, N rows/s`` for a progress label, once there is something to measure."""
-    spent = time.perf_counter() - since
-    return f", {rows / spent:,.0f} rows/s" if rows and spent > 0.05 else ""
+    speed = _speed(rows, since)
+    return f", {speed}" if speed else ""
 
 
 @dataclass
@@ -291,7 +298,11 @@ def read_all(
             modules[module.FORMAT] = module
             by_format.setdefault(module.FORMAT, []).append(f)
         for fmt, files in by_format.items():
-            progress(f"read {table}: {len(files)} {fmt} files{_rate(rows, started)}", done, len(all_files))
+            progress(
+                f"read {table}: {counted(len(files), fmt + ' file')}{_rate(rows, started)}",
+                done,
+                len(all_files),
+            )
             modules[fmt].read_files(files, by_name[table].mapping, engine, raw, scratch / raw.slug)
             done += len(files)
             rows += sum(f.rows_read for f in files)
@@ -585,7 +596,8 @@ def _run_table(
                 engine.drop(plan.step(name).relation)
         else:
             engine.view(step.relation, step.sql)
-        last = f"; {step.name}{_rate(rows, began)}" if step.materialize else last
+        if step.materialize and (speed := _speed(rows, began)):
+            last = f"; {step.name} ran at {speed}"
     if stop_after is not None:
         return None
     progress(f"{table}: account", 0, 1)

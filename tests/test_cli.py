@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import itertools
 import json
 import re
 import shutil
@@ -12,6 +13,7 @@ import pyarrow.parquet as pq
 import pytest
 import sqlglot
 
+from cdcnorm import pipeline
 from tests.conftest import ROOT, cli, insert_only_mapping, last_run, run_files
 
 DUMPS = ROOT / "examples" / "dumps"
@@ -380,10 +382,19 @@ def test_a_log_gets_plain_progress_lines_on_a_long_run_and_none_on_a_short_one(
     assert "cdcnorm: " not in capsys.readouterr().err
     # a run as long as a nightly job's, seen through a line at every step: where it is and its rates
     monkeypatch.setattr(cli_mod, "LOG_EVERY", 0.0)
+    # every step as if it took a second, as a large table's do: the lines then carry their rates
+    clock = itertools.count()
+    monkeypatch.setattr(pipeline.time, "perf_counter", lambda: float(next(clock)))
     assert cli(*args, "--out", str(tmp_path / "b")) == 0
     lines = [ln for ln in capsys.readouterr().err.splitlines() if ln.startswith("cdcnorm: ")]
-    assert any(ln.endswith("read 37 rows") or "read 37 rows," in ln for ln in lines), lines
+    assert any(re.search(r": read 37 rows, [0-9,]+ rows/s \[4/4\]$", ln) for ln in lines), lines
+    assert any(
+        re.search(r": read ferry.passengers: 1 csv file(, [0-9,]+ rows/s)? \[3/4\]$", ln) for ln in lines
+    )
     assert any(": type (typed), " in ln for ln in lines) and any(ln.endswith(": account") for ln in lines)
+    # a plan step's line says which step of how many, and at what rate the step before it ran
+    assert any(re.search(r": type \(typed\), 19 rows \[2/[0-9]+\]$", ln) for ln in lines), lines
+    assert any(re.search(r", 19 rows; typed ran at [0-9,]+ rows/s \[3/[0-9]+\]$", ln) for ln in lines), lines
     # --quiet prints none however long the run
     assert cli(*args, "--out", str(tmp_path / "c"), "--quiet") == 0
     assert "cdcnorm: " not in capsys.readouterr().err

@@ -392,6 +392,9 @@ def test_a_log_gets_plain_progress_lines_on_a_long_run_and_none_on_a_short_one(
         re.search(r": read ferry.passengers: 1 csv file(, [0-9,]+ rows/s)? \[3/4\]$", ln) for ln in lines
     )
     assert any(": type (typed), " in ln for ln in lines) and any(ln.endswith(": account") for ln in lines)
+    # the writes say how much they write: the longest steps of a large table
+    assert any(ln.endswith("ferry.bookings: write 5 quarantined rows and the index") for ln in lines), lines
+    assert any(re.search(r"ferry.bookings: sort and write [0-9]+ events$", ln) for ln in lines), lines
     # a plan step's line says which step of how many, and at what rate the step before it ran
     assert any(re.search(r": type \(typed\), 19 rows \[2/[0-9]+\]$", ln) for ln in lines), lines
     assert any(re.search(r", 19 rows; typed ran at [0-9,]+ rows/s \[3/[0-9]+\]$", ln) for ln in lines), lines

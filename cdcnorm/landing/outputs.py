@@ -10,7 +10,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from cdcnorm import __version__
-from cdcnorm.errors import LedgerError
+from cdcnorm.errors import LedgerError, counted
 from cdcnorm.inputs import checksum
 from cdcnorm.landing import memory, runs
 from cdcnorm.landing.area import Landing
@@ -93,8 +93,8 @@ def _stage_table(
     trun = result.tables[table]
     plan = trun.plan
     part = path_part(table)
-    progress(f"{table}: quarantine and index", 0, 1)
     counts = result.ledger.tables[table].total
+    progress(f"{table}: write {counted(counts.quarantined, 'quarantined row')} and the index", 0, 1)
     out: dict[str, Any] = {"events": None, "quarantine": None}
     # the fields the events are written under, for reading them back after a mapping edit
     out["fields"] = [[n, t.value_type()] for n, t in plan.mapping.field_types.items()]
@@ -121,7 +121,7 @@ def _stage_table(
     free_raw(trun, engine)  # the raw rows are needed no more: free them before the events are sorted
     written = 0
     if counts.emitted:
-        progress(f"{table}: sort and write events", 0, 1)
+        progress(f"{table}: sort and write {counted(counts.emitted, 'event')}", 0, 1)
         rel = f"events/{part}/{run}{writer.SUFFIX}"
         # one streaming pass: the engine sorts the flat events, then builds and writes the envelopes
         ordered = f"({sorted_events(plan, '__files')}) AS ordered_events"

@@ -184,6 +184,25 @@ def test_impact_of_a_retype_to_float(demo: tuple) -> None:  # type: ignore[type-
     assert "exact decimal becomes a float" in changes["daily_revenue.total_fare"]["change"]
 
 
+def test_a_dependent_is_a_copy_only_when_every_route_to_it_copies(tmp_path: Path) -> None:
+    # `both.amount` copies `shop.orders.amount` in one branch of its UNION and doubles it (through
+    # `twice`) in the other: its values are computed from it, whichever route is the shorter
+    folder = tmp_path / "models"
+    folder.mkdir()
+    (folder / "twice.sql").write_text("SELECT amount * 2 AS amount FROM shop.orders\n")
+    (folder / "both.sql").write_text("SELECT amount FROM shop.orders UNION ALL SELECT amount FROM twice\n")
+    (folder / "plain.sql").write_text("SELECT amount FROM shop.orders\n")
+    loaded = load_models(folder, "duckdb")
+    project = build_project(None, [], "duckdb", loaded=loaded, tables=SCHEMA)
+    r = impact(project, "shop.orders.amount", Edit("retype", "DOUBLE"), mappings=[], loaded=loaded)
+    how = {v["column"]: v["how"].split(":")[0] for v in r["value_changes"]}
+    assert how == {
+        "twice.amount": "computed from it",
+        "both.amount": "computed from it",
+        "plain.amount": "copied",
+    }
+
+
 SIZES = (
     "SELECT CASE WHEN amount > 100 THEN 'big' ELSE 'small' END AS size, amount * 2 AS doubled,\n"
     "  CAST(amount AS BIGINT) AS whole, sum(amount) OVER () AS total FROM shop.orders\n"

@@ -114,6 +114,20 @@ def _path(project: Project, a: Node, b: Node, value_only: bool) -> list[dict[str
     return steps
 
 
+def _computed_from(project: Project, node: Node) -> set[Node]:
+    """The columns downstream of ``node`` that some value route reaches through a computation (a
+    transform or an aggregate): a column is a plain copy only when every route to it copies (a
+    UNION of a copy and a computed column computes)."""
+    value, g = project.view().value, project.graph
+    reach = nx.descendants(value, node) | {node}
+    seeds = {v for u in reach for v in value.successors(u) if g.get_edge_data(u, v)["value"]["sub"] != "copy"}
+    computed: set[Node] = set()
+    for seed in seeds:
+        if seed not in computed:  # reached from an earlier seed: so is everything after it
+            computed |= nx.descendants(value, seed) | {seed}
+    return computed
+
+
 def unresolved_on(project: Project, nodes: set[Node]) -> list[dict[str, Any]]:
     """The diagnostics of every model among ``nodes``: references the answer could not follow."""
     models = {n[1] for n in nodes if n[0] == "model"}
@@ -466,9 +480,9 @@ def impact(
             typed_before = type_models(project, only=affected)
             retyped = {f: ("retype", edit.value) for f in fields}
             typed_after = type_models(project, retyped, only=affected)
+            computed = _computed_from(project, node)
             for n in vdep:
-                path = _path(project, node, n, True)
-                copies = all(step["how"] == "copy" for step in path)
+                copies = n not in computed
                 a, b = typed_before.get(n, "UNKNOWN"), typed_after.get(n, "UNKNOWN")
                 typed_by = "sqlglot"
                 # the engine's types where it built the model before and after (its own answer)

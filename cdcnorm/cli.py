@@ -8,7 +8,8 @@ import os
 import re
 import sys
 import time
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
+from contextlib import contextmanager
 from pathlib import Path
 from typing import Any, TypeVar
 
@@ -266,6 +267,20 @@ def _progress(quiet: bool) -> tuple[Progress | None, Any]:
     return bar, update
 
 
+@contextmanager
+def showing_progress(quiet: bool) -> Iterator[Callable[[str, int, int], None]]:
+    """A command's ``progress(label, done, total)`` for the time of the block: a bar on a terminal,
+    a plain line now and then in a log, nothing when ``quiet``."""
+    bar, update = _progress(quiet)
+    if bar:
+        bar.start()
+    try:
+        yield update
+    finally:
+        if bar:
+            bar.stop()
+
+
 def _notice(quiet: bool) -> Notice:
     """Print a note about the whole run on standard error when the run starts (the memory note:
     a long run should not wait until its end to say it may pass its limit); the summary repeats it."""
@@ -285,8 +300,7 @@ def _progress_lines() -> Any:
         now = time.monotonic()
         if now - last >= LOG_EVERY:
             last = now
-            step = f" [{done + 1 if done < total else done}/{total}]" if total > 1 else ""
-            err.print(f"cdcnorm: {now - started:.0f} s: {label}{step}", markup=False, soft_wrap=True)
+            err.print(f"cdcnorm: {now - started:.0f} s: {label}", markup=False, soft_wrap=True)
 
     return update
 
@@ -400,12 +414,9 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
         for text in show_plans(mappings, args.inputs, options, args.table, args.show_plan):
             out.print(text, markup=False)
         return EXIT_OK
-    bar, update = _progress(args.quiet or args.json)
     stop = getattr(args, "stop_after", None)
-    if bar:
-        bar.start()
     began = time.monotonic()
-    try:
+    with showing_progress(args.quiet or args.json) as update:
         result = run(
             mappings,
             args.inputs,
@@ -415,9 +426,6 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
             strict_drift=not check,
             notice=_notice(args.quiet or args.json),
         )
-    finally:
-        if bar:
-            bar.stop()
     if stop:
         _show_stage(result, stop, args.limit, args.table, args.json)
         return EXIT_OK

@@ -586,7 +586,11 @@ def _run_table(
     rows = trun.raw.rows_read
     last = ""
     for j, step in enumerate(plan.steps):
-        progress(f"{table}: {step.stage} ({step.name}), {rows:,} rows{last}", j, len(plan.steps))
+        progress(
+            f"{table}: {step.stage} ({step.name}), step {j + 1} of {len(plan.steps)}, {rows:,} rows{last}",
+            j,
+            len(plan.steps),
+        )
         began = time.perf_counter()
         if step.name == "seen":  # what earlier runs emitted, at the positions this run has
             memory.load_earlier(engine, plan, area.emitted_files(table) if area else [])

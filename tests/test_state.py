@@ -14,6 +14,7 @@ from __future__ import annotations
 import json
 import os
 import random
+import re
 import shutil
 import signal
 import sqlite3
@@ -732,3 +733,38 @@ def test_a_value_postgresql_cannot_store_stops_the_apply_before_any_row(
         (3, "c", '{"a": "xy"}'),
         (4, "d", '{"a": "x\\\\u0000y"}'),
     ]
+
+
+def test_snapshot_and_apply_show_progress_in_a_log_and_print_nothing_quiet(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """A long apply (millions of keys into a remote database) says where it is, as convert does;
+    --quiet prints nothing but errors and warnings."""
+    from cdcnorm import cli as cli_mod
+
+    dumps, mdir, landing = ROOT / "examples" / "dumps", str(ROOT / "mappings"), tmp_path / "landing"
+    assert cli("convert", str(dumps), "--mappings", mdir, "--out", str(landing), "--quiet") == 0
+    capsys.readouterr()
+    monkeypatch.setattr(cli_mod, "LOG_EVERY", 0.0)  # a line at every step, as in a long run's log
+    assert cli("snapshot", str(landing), "--mappings", mdir, "--out", str(tmp_path / "s")) == 0
+    lines = [ln for ln in capsys.readouterr().err.splitlines() if ln.startswith("cdcnorm: ")]
+    assert any(ln.endswith("ferry.bookings: read 1 event file") for ln in lines), lines
+    assert any(ln.endswith("ferry.bookings: compact") for ln in lines), lines
+    assert any(ln.endswith("ferry.bookings: write ferry.bookings.parquet") for ln in lines), lines
+    url = f"sqlite:///{tmp_path / 'w.db'}"
+    assert cli("apply", str(landing), "--mappings", mdir, "--target", url, "--batch-rows", "2") == 0
+    lines = [ln for ln in capsys.readouterr().err.splitlines() if ln.startswith("cdcnorm: ")]
+    assert any(ln.endswith("ferry.bookings: read 1 new event file") for ln in lines), lines
+    # a batch of two keys at a time: the count grows by two
+    applied = [ln for ln in lines if "ferry.bookings: applied " in ln]
+    assert re.search(r": applied 2 of [0-9]+ keys", applied[0]), applied
+    assert len(applied) >= 2 and re.search(r": applied ([0-9]+) of \1 keys", applied[-1]), applied
+    # --quiet: no table, no progress, whatever the log
+    for args in (
+        ("snapshot", str(landing), "--mappings", mdir, "--out", str(tmp_path / "q")),
+        ("apply", str(landing), "--mappings", mdir, "--target", f"sqlite:///{tmp_path / 'q.db'}"),
+    ):
+        assert cli(*args, "--quiet") == 0
+        said = capsys.readouterr()
+        assert said.out == "" and "cdcnorm: " not in said.err, said
+    assert (tmp_path / "q" / "ferry.bookings.parquet").exists()

@@ -15,6 +15,7 @@ are those of a real apply and nothing changes.
 
 from __future__ import annotations
 
+import time
 from collections.abc import Callable
 from contextlib import AbstractContextManager, ExitStack, nullcontext
 from dataclasses import dataclass, field
@@ -163,8 +164,10 @@ def apply_table(
     schema: str | None = None,
     dry_run: bool = False,
     batch_rows: int = BATCH_ROWS,
-    progress: Callable[[str], None] = lambda _: None,
+    progress: Callable[[str, int, int], None] = lambda label, done, total: None,
 ) -> TableApply:
+    """Apply one table's new event files to ``target``; ``progress(label, keys done, keys)`` hears
+    each batch."""
     m = mapping.mapping
     spec = target.spec(m.table, schema, tuple(m.fields), tuple(m.key), mapping.field_types)
     tables = build_tables(spec, target.column_type, target.position_type())
@@ -193,7 +196,7 @@ def _apply(
     report: TableApply,
     transaction: Callable[[], AbstractContextManager[Session]],
     batch_rows: int,
-    progress: Callable[[str], None],
+    progress: Callable[[str, int, int], None],
 ) -> None:
     with transaction() as s:
         _ensure(s, target, tables)
@@ -212,6 +215,7 @@ def _apply(
     report.files = len(files)
     if not new:
         return
+    progress(f"{mapping.table}: read {counted(len(new), 'new event file')}", 0, 1)
     events = load_events(engine, mapping, new, f"{mapping.mapping.slug}__apply_events")
     report.notes = events.notes
     try:
@@ -234,6 +238,8 @@ def _apply(
     assert reader is not None
     writes = guarded_writes(tables, spec, target.insert)
     done_rows = 0
+    began = time.perf_counter()
+    progress(f"{mapping.table}: apply {counted(keys, 'key')}", 0, keys)
     for batch in reader:
         if not batch.num_rows:
             continue
@@ -246,7 +252,9 @@ def _apply(
             for statement in writes:
                 s.run(statement)
         done_rows += batch.num_rows
-        progress(f"{mapping.table}: {done_rows:,} of {keys:,} keys")
+        spent = time.perf_counter() - began
+        rate = f", {done_rows / spent:,.0f} keys/s" if spent > 0.05 else ""
+        progress(f"{mapping.table}: applied {done_rows:,} of {keys:,} keys{rate}", done_rows, keys)
     now = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
     with transaction() as s:
         for f in new:

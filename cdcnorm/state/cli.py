@@ -13,7 +13,7 @@ from typing import Any
 from rich.console import Console
 from rich.table import Table
 
-from cdcnorm.errors import EXIT_OK, TargetError, UsageError, did_you_mean
+from cdcnorm.errors import EXIT_OK, TargetError, UsageError, counted, did_you_mean
 from cdcnorm.landing.area import writable_folder
 from cdcnorm.mapping import load_mappings
 from cdcnorm.mapping.load import LoadedMapping
@@ -48,6 +48,7 @@ def add_commands(sub: Any) -> None:
     snap.add_argument("--mappings", default="mappings", help="folder of mapping files (default: mappings/)")
     engine_args(snap)
     snap.add_argument("--json", action="store_true", help="print the result as JSON on stdout")
+    snap.add_argument("--quiet", action="store_true", help="print nothing but errors and warnings")
 
     app = sub.add_parser("apply", help="load a landing area's events into database tables, idempotently")
     app.add_argument("landing", help="the landing area (convert's --out), or a folder of event files")
@@ -64,6 +65,7 @@ def add_commands(sub: Any) -> None:
     app.add_argument("--wait", type=seconds, default=30.0, help="seconds to wait for another apply")
     engine_args(app)
     app.add_argument("--json", action="store_true", help="print the counts as JSON on stdout")
+    app.add_argument("--quiet", action="store_true", help="print nothing but errors and warnings")
 
 
 def _chosen(mappings: list[LoadedMapping], table: str | None) -> list[LoadedMapping]:
@@ -105,7 +107,18 @@ def _print_notes(err: Console, notes: list[tuple[str, Sequence[str]]]) -> None:
             err.print(f"note: {table}: {line}", markup=False, soft_wrap=True)
 
 
+def _warn_unmapped(err: Console, landing: Path, mappings: str, missing: list[str], fate: str) -> None:
+    """A warning for each table with events but no mapping: what the command left alone."""
+    for name in missing:
+        err.print(
+            f"warning: {landing}: events of {name} have no mapping in {mappings}; {fate}",
+            markup=False,
+            soft_wrap=True,
+        )
+
+
 def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
+    from cdcnorm.cli import showing_progress
     from cdcnorm.engines.duckdb import engine_errors
     from cdcnorm.names import path_part
     from cdcnorm.state import snapshot
@@ -117,18 +130,25 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
     folder = Path(args.out)
     writable_folder(folder)  # before any work: a file there, or no right to write, is exit 4
     rows: list[dict[str, Any]] = []
-    with scratch_folder(args.scratch) as scratch, engine_errors(scratch):
+    with (
+        scratch_folder(args.scratch) as scratch,
+        engine_errors(scratch),
+        showing_progress(args.quiet or args.json) as progress,
+    ):
         engine = _engine(args, scratch, chosen)
-        for m in chosen:
+        for i, m in enumerate(chosen):
             files = event_files(landing, m.table)
+            progress(f"{m.table}: read {counted(len(files), 'event file')}", i, len(chosen))
             events = load_events(engine, m, files)
             as_of = snapshot.AsOf()
             if args.as_of is not None:
                 as_of = snapshot.as_of_position(engine, m, args.as_of)
             elif args.as_of_time is not None:
                 as_of = snapshot.as_of_time(engine, m, args.as_of_time)
+            progress(f"{m.table}: compact", i, len(chosen))
             state = snapshot.compact(engine, events, as_of)
             path = folder / (path_part(m.table) + snapshot.FORMATS[args.fmt])
+            progress(f"{m.table}: write {path.name}", i, len(chosen))
             n = snapshot.write_snapshot(engine, events, state, path, args.fmt)
             rows.append(
                 {
@@ -145,6 +165,9 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
     if args.json:
         out.print_json(json.dumps({"tables": rows, "unmapped": missing}))
         return EXIT_OK
+    if args.quiet:
+        _warn_unmapped(err, landing, args.mappings, missing, "not compacted")
+        return EXIT_OK
     t = Table(title=f"state of {landing} ({rows[0]['as_of'] if rows else 'latest'})")
     for col in ("table", "rows", "event files", "file"):
         t.add_column(col, justify="right" if col in ("rows", "event files") else "left")
@@ -152,16 +175,12 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
         t.add_row(r["table"], str(r["rows"]), str(r["event_files"]), r["file"])
     print_table(out, t)
     _print_notes(err, [(r["table"], r["notes"]) for r in rows])
-    for name in missing:
-        err.print(
-            f"warning: {landing}: events of {name} have no mapping in {args.mappings}; not compacted",
-            markup=False,
-            soft_wrap=True,
-        )
+    _warn_unmapped(err, landing, args.mappings, missing, "not compacted")
     return EXIT_OK
 
 
 def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
+    from cdcnorm.cli import showing_progress
     from cdcnorm.state.apply import apply_table
     from cdcnorm.targets import target_for
     from cdcnorm.targets.base import scrub
@@ -190,7 +209,11 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
     # SQLAlchemy's wrappers of them
     database_errors = (sa.exc.SQLAlchemyError, duckdb.Error, psycopg.Error, sqlite3.Error, OSError)
     reports = []
-    with scratch_folder(args.scratch) as scratch, engine_errors(scratch):
+    with (
+        scratch_folder(args.scratch) as scratch,
+        engine_errors(scratch),
+        showing_progress(args.quiet or args.json) as progress,
+    ):
         engine = _engine(args, scratch, chosen)
         for m in chosen:
             try:
@@ -203,6 +226,7 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
                         schema=args.schema,
                         dry_run=args.dry_run,
                         batch_rows=args.batch_rows,
+                        progress=progress,
                     )
                 )
             except database_errors as e:  # the database's own errors, in its words, without a password
@@ -233,6 +257,9 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
     if args.json:
         out.print_json(json.dumps(data))
         return EXIT_OK
+    if args.quiet:
+        _warn_unmapped(err, landing, args.mappings, missing, "not applied")
+        return EXIT_OK
     title = f"{'dry run: would apply' if args.dry_run else 'applied'} {landing} to {target.shown}"
     t = Table(title=title)
     cols = [
@@ -253,12 +280,7 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
         t.add_row(row["target_table"], *(str(row[c]) for c in cols[1:]))
     print_table(out, t)
     _print_notes(err, [(r.table, r.notes) for r in reports])
-    for name in missing:
-        err.print(
-            f"warning: {landing}: events of {name} have no mapping in {args.mappings}; not applied",
-            markup=False,
-            soft_wrap=True,
-        )
+    _warn_unmapped(err, landing, args.mappings, missing, "not applied")
     return EXIT_OK
 
 

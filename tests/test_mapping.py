@@ -148,7 +148,7 @@ def test_csv_options_that_cannot_read_a_file_are_refused(tmp_path: Path, csv: st
         # before: the engine's "Duplicate named argument" in the middle of writing (exit 1)
         (
             GOOD.replace("key: [booking_id]", "key: [booking_id, booking_id]"),
-            "key names ['booking_id'] twice",
+            "key names 'booking_id' twice",
         ),
         # before: converted, the envelope naming the field by its internal column ("v2")
         (GOOD + "  '': {from: seats, type: integer}\n", "a field needs a name: fields has ''"),
@@ -164,6 +164,14 @@ def test_mappings_the_plan_cannot_run_are_refused_on_load(tmp_path: Path, text: 
     assert said in err.message
     # the line of the key at fault, not line 1
     assert err.line == {"change.action.codes": 5, "key": 3, "fields.": 10}[err.field or ""]
+
+
+def test_a_key_that_is_not_a_field_is_named_with_the_closest_field(tmp_path: Path) -> None:
+    # before: pydantic's "Value error, key names ['bookin_id'] but ..." and, as what was found,
+    # the whole mapping cut at 200 characters
+    err = _load(tmp_path, GOOD.replace("key: [booking_id]", "key: [bookin_id]"))
+    assert err.message.startswith("invalid key key: key names 'bookin_id', which is not one of the fields (")
+    assert err.line == 3 and err.found == "'bookin_id'" and err.hint == 'did you mean "booking_id"?'
 
 
 def test_yaml_syntax_error_has_a_line(tmp_path: Path) -> None:

@@ -193,16 +193,23 @@ def load_mapping(path: Path) -> LoadedMapping:
         elif err["type"] == "missing":
             hint = f"add the key {loc[-1]!r}"
         found = err.get("input")
+        message = err["msg"]
+        if (
+            err["type"] == "value_error" and cause is not None
+        ):  # our own check's words, without "Value error, "
+            message = str(cause)
+        if isinstance(cause, Located):  # its own words and value, not the whole mapping's
+            message, found, hint = str(cause), cause.found, cause.hint
         if err["type"] == "literal_error" and isinstance(found, str):
             # one of a few words (a position's kind, an action): the nearest of them
             guess = closest(found, re.findall(r"'([^']*)'", str(err.get("ctx", {}).get("expected", ""))))
             hint = f'did you mean "{guess}"?' if guess else None
         raise MappingError(
-            f"invalid key {key}: {err['msg']}",
+            f"invalid key {key}: {message}",
             file=text_name,
             line=line,
             field=key,
-            found=None if err["type"] in ("missing",) else repr(found)[:200],
+            found=None if err["type"] in ("missing",) or found is None else repr(found)[:200],
             hint=hint,
         ) from None
     seen: dict[str, str] = {}

@@ -41,9 +41,11 @@ class Located(ValueError):
     """A check of the whole mapping that is about one of its keys: ``loc`` is that key's path, so
     the error names it and its line (a plain ValueError of the whole mapping points at line 1)."""
 
-    def __init__(self, message: str, *loc: str) -> None:
+    def __init__(self, message: str, *loc: str, found: str | None = None, hint: str | None = None) -> None:
         super().__init__(message)
         self.loc = loc
+        self.found = found  # the value at fault (else none is shown: never the whole mapping)
+        self.hint = hint
 
 
 class ActionSpec(Strict):
@@ -269,15 +271,23 @@ class Mapping(Strict):
     def _keys_are_fields(self) -> Mapping:
         blank = [f for f in self.fields if not f.strip()]
         if blank:  # the envelope would name it by its internal column (v2, say)
-            raise Located(f"a field needs a name: fields has {blank[0]!r}", "fields", blank[0])
+            raise Located(
+                f"a field needs a name: fields has {blank[0]!r}", "fields", blank[0], found=blank[0]
+            )
         missing = [k for k in self.key if k not in self.fields]
         if missing:
+            from cdcnorm.errors import closest, name_list
+
+            guess = closest(missing[0], self.fields)
             raise Located(
-                f"key names {missing} but fields has no such field; fields are {list(self.fields)}", "key"
+                f"key names {missing[0]!r}, which is not one of the fields ({name_list(self.fields)})",
+                "key",
+                found=missing[0],
+                hint=f'did you mean "{guess}"?' if guess else "name key fields under fields",
             )
         twice = sorted({k for k in self.key if self.key.count(k) > 1})
         if twice:
-            raise Located(f"key names {twice} twice; name each key field once", "key")
+            raise Located(f"key names {twice[0]!r} twice; name each key field once", "key", found=twice[0])
         for k in self.key:
             if self.fields[k].type.strip().lower().startswith("json"):
                 # two spellings of one JSON value ({"a":1,"b":2} and {"b":2,"a":1}) would be two keys
@@ -285,6 +295,7 @@ class Mapping(Strict):
                     f"key field {k} is json, whose values compare as their text, not as JSON values: "
                     "key by a field of another type (a member of it, mapped with a dotted from)",
                     "key",
+                    found=k,
                 )
         return self
 
@@ -299,6 +310,7 @@ class Mapping(Strict):
                     f"unused lists raw column {name!r}, which {readers[read[0]]} reads "
                     f"({read[0]!r}); take it out of unused",
                     "unused",
+                    found=name,
                 )
         return self
 

@@ -179,7 +179,12 @@ class Result:
         step = next((s for s in steps if s.name == STAGE_OUTPUT.get(stage)), steps[-1])
         columns = [str(r[0]) for r in self.engine.rows(f"DESCRIBE SELECT * FROM {ident(step.relation)}")]
         names = _shown_names(run.plan)
-        picked = [f"s.{ident(c)} AS {ident(names.get(c, c))}" for c in columns if c != "__file"]
+        shown = _shown_keys(run.plan)
+        picked = [
+            f"{shown.get(c, f's.{ident(c)}')} AS {ident(names.get(c, c))}"
+            for c in columns
+            if c != "__file" and not (c == "__seq" and c not in shown)
+        ]
         join = ""
         if "__file" in columns:  # the file's name, not its number
             picked.insert(0, "f.name AS file")
@@ -226,6 +231,19 @@ class Result:
         return self.tables[name]
 
 
+def _shown_keys(plan: Plan) -> dict[str, str]:
+    """SQL of the position and sequence keys as --stop-after shows them: their normalised text, as
+    the envelope's ``position`` writes them (a hex position as hex, not as the number of its key);
+    a mapping without a sequence has none to show."""
+    from cdcnorm import positions
+
+    change = plan.mapping.mapping.change
+    shown = {"__pos": positions.position_text(change.position, "s.__pos")}
+    if change.sequence:
+        shown["__seq"] = positions.sequence_text(change.sequence, change.position, "s.__seq")
+    return shown
+
+
 def _shown_names(plan: Plan) -> dict[str, str]:
     """What --stop-after calls the plan's columns: raw columns by their names in the dump, typed
     values by their field names (``prior.<field>``, ``after.<field>`` in pairs)."""
@@ -235,8 +253,8 @@ def _shown_names(plan: Plan) -> dict[str, str]:
             "__row": "record",
             "__enc": "not valid text (base64)",
             "__act": "action",
-            "__pos": "position key",
-            "__seq": "sequence key",
+            "__pos": "position",
+            "__seq": "sequence",
             "__cat": "committed_at",
             "__rank": "image rank",
             "__ok": "ok",

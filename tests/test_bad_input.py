@@ -245,7 +245,7 @@ def test_stop_after_shows_field_and_file_names(capsys: pytest.CaptureFixture[str
     assert rows and all(not re.fullmatch(r"[cvpa][0-9]+|__file", k) for k in rows[0])
     assert {r["file"] for r in rows} <= {"bookings-archive.csv", "bookings-live.csv"}
     if stage == "order":
-        assert "booking_id" in rows[0] and "position key" in rows[0]
+        assert "booking_id" in rows[0] and "position" in rows[0]
 
 
 def test_changes_of_one_key_at_one_position_that_cannot_be_ordered_are_quarantined(

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import csv
 import itertools
 import json
 import re
@@ -305,8 +306,23 @@ def test_stop_after_each_stage(stage: str, capsys: pytest.CaptureFixture[str]) -
         assert {r["ok"] for r in rows} == {True, False}
         assert [r["record"] for r in rows] == sorted(r["record"] for r in rows)
     if stage == "order":  # in change order, the same rows whatever --limit cuts
-        keys = [int(r["position key"]) for r in rows]
+        keys = [r["position"] for r in rows]  # fixed-width text: its order is the change order
         assert keys == sorted(keys)
+
+
+def test_stop_after_shows_positions_as_the_envelope_writes_them(capsys: pytest.CaptureFixture[str]) -> None:
+    # a hex log position as its normalised text (20 upper-case digits, no 0x), as in the envelope's
+    # position, not as the number of its 128-bit key (before: 180449927952 for 0x2A03A76310)
+    args = ["convert", "--mappings", str(MAPPINGS), str(DUMPS), "--stop-after", "order"]
+    assert cli(*args, "--table", "ferry.passengers", "--json") == 0
+    rows = json.loads(capsys.readouterr().out)["rows"]
+    # the reference: the dump's own text, read by Python's csv module (RFC 4180)
+    with (DUMPS / "passengers.csv").open(newline="", encoding="utf-8") as f:
+        lsn = {n: r["lsn"] for n, r in enumerate(csv.DictReader(f), start=1)}
+    assert rows and all(r["file"] == "passengers.csv" for r in rows)
+    for r in rows:
+        assert r["position"] == lsn[r["record"]].removeprefix("0x").upper().rjust(20, "0"), r
+        assert re.fullmatch(r"[0-9]{20}", r["sequence"]), r  # an integer sequence, zero-padded
 
 
 def test_a_fixed_quarantine_file_feeds_back_as_its_own_run(tmp_path: Path) -> None:

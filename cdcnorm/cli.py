@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import argparse
+import base64
+import datetime as dt
 import json
 import os
 import re
@@ -360,13 +362,26 @@ def _ledger_rows(tl: ledger_mod.TableLedger) -> list[tuple[str, ledger_mod.FileC
     return [*shown, (label, summed)]
 
 
+def _json_value(v: object) -> object:
+    """A stage row's value in --json as the envelope writes it: bytes as base64 (RFC 4648), times
+    as RFC 3339 (UTC as Z), the rest (decimals, UUIDs) as its text."""
+    if isinstance(v, bytes | bytearray | memoryview):
+        return base64.b64encode(bytes(v)).decode("ascii")
+    if isinstance(v, dt.datetime) and v.tzinfo is not None:
+        return v.astimezone(dt.UTC).isoformat().replace("+00:00", "Z")
+    if isinstance(v, dt.date | dt.time | dt.datetime):
+        return v.isoformat()
+    return str(v)
+
+
 def _show_stage(result: Result, stage: str, limit: int, table: str | None, as_json: bool) -> None:
     for name in result.tables:
         if table and name != table:
             continue
         data = result.stage_output(name, stage, limit)
         if as_json:
-            out.print_json(json.dumps({"table": name, "stage": stage, "rows": data.to_pylist()}, default=str))
+            rows = data.to_pylist()
+            out.print_json(json.dumps({"table": name, "stage": stage, "rows": rows}, default=_json_value))
             continue
         t = Table(title=f"{name}: after stage {stage} (first {limit} rows)")
         for col in data.column_names:

@@ -261,6 +261,14 @@ def _shown_names(plan: Plan) -> dict[str, str]:
             "__fate": "fate",
             "__role": "role",
             "__carried": "carried in",
+            "__versions": "versions",
+            "__earlier_run": "earlier run",
+            "__other_fields": "other fields differ",
+            "__same_key": "same key",
+            "__unpaired_after": "unpaired after-image",
+            "__action": "envelope action",
+            "__has_prior": "has prior",
+            "__changed": "changed",
         }
     )
     for i, name in enumerate(plan.fields):

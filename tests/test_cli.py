@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import base64
 import csv
+import datetime as dt
 import itertools
 import json
 import re
@@ -302,12 +304,33 @@ def test_stop_after_each_stage(stage: str, capsys: pytest.CaptureFixture[str]) -
     report = json.loads(capsys.readouterr().out)
     assert report["stage"] == stage and report["rows"]
     rows = report["rows"]
+    # every column by a name a user knows: no internal one (__versions, __has_prior, v3)
+    assert not [k for k in rows[0] if k.startswith("__") or re.fullmatch(r"[cvpa][0-9]+", k)], rows[0]
     if stage == "type":  # the typed rows, good and bad (before: the rejects alone)
         assert {r["ok"] for r in rows} == {True, False}
         assert [r["record"] for r in rows] == sorted(r["record"] for r in rows)
     if stage == "order":  # in change order, the same rows whatever --limit cuts
         keys = [r["position"] for r in rows]  # fixed-width text: its order is the change order
         assert keys == sorted(keys)
+
+
+def test_stop_after_json_writes_values_as_the_envelope_does(capsys: pytest.CaptureFixture[str]) -> None:
+    # before: Python's own text of each value (b'foobar', 2026-03-01 08:00:00+00:00)
+    args = ["convert", "--mappings", str(MAPPINGS), str(DUMPS), "--stop-after", "type", "--json"]
+    assert cli(*args, "--table", "ferry.passengers") == 0
+    rows = json.loads(capsys.readouterr().out)["rows"]
+    with (DUMPS / "passengers.csv").open(newline="", encoding="utf-8") as f:
+        token = {n: r["card_token"] for n, r in enumerate(csv.DictReader(f), start=1)}
+    # bytes as base64 (RFC 4648 section 4): the dump's own base64 text where it was canonical
+    for r in rows:
+        if r["card_token"] is not None:
+            assert base64.b64decode(r["card_token"]) == base64.b64decode(token[r["record"]]), r
+    assert cli(*args, "--table", "ferry.bookings") == 0
+    rows = json.loads(capsys.readouterr().out)["rows"]
+    # timestamps as RFC 3339 in UTC (section 5.6: a T, the offset Z), read back by datetime
+    stamps = [r["booked_at"] for r in rows if r["booked_at"]]
+    assert stamps and all(re.fullmatch(r"\d{4}-\d\d-\d\dT\d\d:\d\d:\d\d(\.\d+)?Z", t) for t in stamps), stamps
+    assert all(dt.datetime.fromisoformat(t).utcoffset() == dt.timedelta(0) for t in stamps)
 
 
 def test_stop_after_shows_positions_as_the_envelope_writes_them(capsys: pytest.CaptureFixture[str]) -> None:

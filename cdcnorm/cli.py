@@ -610,6 +610,7 @@ def _report_check(result: Result, args: argparse.Namespace, hidden: list[str]) -
         out.print_json(json.dumps(report))
     elif not args.quiet:
         t = Table(title="cdcnorm check")
+        # the raw columns no field reads that the mapping's unused does not list (as convert notes)
         for col in ("table", "file", "rows", "would pass", "quarantine", "unmapped raw columns"):
             t.add_column(col, justify="right" if col in ("rows", "would pass", "quarantine") else "left")
         rows = []
@@ -624,7 +625,7 @@ def _report_check(result: Result, args: argparse.Namespace, hidden: list[str]) -
                     s["rows"],
                     passing,
                     fc.quarantined if fc else None,
-                    s["unmapped_columns"],
+                    s["unread_columns"],
                 )
             )
         folded = False

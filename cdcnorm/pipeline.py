@@ -726,6 +726,10 @@ def describe_sources(result: Result) -> list[dict[str, Any]]:
                     "rows": src.rows_read,
                     "malformed": src.malformed,
                     "unmapped_columns": trun.unmapped.get(src.name, []),
+                    # of those, the ones unused does not list: what convert notes
+                    "unread_columns": [
+                        c for c in trun.unmapped.get(src.name, []) if not trun.mapping.mapping.left_out(c)
+                    ],
                     "notes": src.notes,
                 }
             )

@@ -152,8 +152,29 @@ def test_check_reports_unmapped_columns_and_rejects(capsys: pytest.CaptureFixtur
     report = json.loads(capsys.readouterr().out)
     by_file = {f["file"]: f for f in report["files"]}
     assert by_file["bookings-live.csv"]["unmapped_columns"] == ["export_batch"]
+    # the mapping lists it under unused: read by no field on purpose, so not one to look at
+    assert by_file["bookings-live.csv"]["unread_columns"] == []
     assert report["tables"]["ferry.bookings"]["reasons"]["conflict"] == 2
     assert report["drift"] == []
+    assert cli("check", "--mappings", str(MAPPINGS), str(DUMPS)) == 0
+    assert "export_batch" not in capsys.readouterr().out
+
+
+def test_check_folds_many_files_whose_only_spare_column_is_unused(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """30 files of a table whose dumps carry a column the mapping lists under unused: one row for
+    them all (before: each file a row, as if each had a column to look at)."""
+    dumps = tmp_path / "d"
+    dumps.mkdir()
+    header = (DUMPS / "bookings-live.csv").read_text(encoding="utf-8").splitlines()[0]
+    for i in range(30):
+        row = f"R,16/B374D8{i:02d},0,2026-03-01T07:59:00Z,{1000 + i},501,9001,Ines,,42.50,2026-02-20T10:15:00Z,2,false,b{i}"
+        (dumps / f"bookings-{i:02d}.csv").write_text(f"{header}\n{row}\n", encoding="utf-8")
+    assert cli("check", "--mappings", str(MAPPINGS), str(dumps)) == 0
+    printed = " ".join(capsys.readouterr().out.split())
+    assert "export_batch" not in printed and "bookings-07.csv" not in printed
+    assert "30 files" in printed and "a table of more than 20 files" in printed
 
 
 def test_drift_names_field_and_column(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:

@@ -194,9 +194,8 @@ def load_mapping(path: Path) -> LoadedMapping:
             hint = f"add the key {loc[-1]!r}"
         found = err.get("input")
         message = err["msg"]
-        if (
-            err["type"] == "value_error" and cause is not None
-        ):  # our own check's words, without "Value error, "
+        # our own checks' words, without pydantic's "Value error, " before them
+        if err["type"] == "value_error" and cause is not None:
             message = str(cause)
         if isinstance(cause, Located):  # its own words and value, not the whole mapping's
             message, found, hint = str(cause), cause.found, cause.hint

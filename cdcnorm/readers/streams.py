@@ -58,11 +58,13 @@ def blocks(path: Path, size: int = BLOCK) -> Iterator[bytes]:
 
 def planned_size(path: Path) -> int:
     """The bytes ``path`` holds as text, estimated from its size (0 when it cannot be read)."""
+    from cdcnorm.readers.parquet import SUFFIXES as COLUMNAR  # the names the Parquet reader takes
+
     try:
         size = path.stat().st_size
     except OSError:
         return 0
-    packed = compression(path) is not None or base_name(path).lower().endswith(".parquet")
+    packed = compression(path) is not None or base_name(path).lower().endswith(COLUMNAR)
     return size * COMPRESSED_SIZE_FACTOR if packed else size
 
 

@@ -364,11 +364,17 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
     return drift, unmapped
 
 
+def unread_columns(mapping: LoadedMapping, unmapped: dict[str, list[str]], file: str) -> list[str]:
+    """A file's raw columns no field reads that ``unused`` does not list (``unmapped``: from
+    ``find_drift``): their values are in no event, and no one said that was meant."""
+    return [c for c in unmapped.get(file, []) if not mapping.mapping.left_out(c)]
+
+
 def note_unread(mapping: LoadedMapping, raw: RawTable, unmapped: dict[str, list[str]]) -> None:
     """A note on each file with raw columns no field reads and ``unused`` does not list: their
     values are in no event (a column the source added since the mapping was written, say)."""
     for src in raw.files:
-        unread = [c for c in unmapped.get(src.name, []) if not mapping.mapping.left_out(c)]
+        unread = unread_columns(mapping, unmapped, src.name)
         if unread:
             names = name_list(unread)
             one = len(unread) == 1
@@ -727,9 +733,7 @@ def describe_sources(result: Result) -> list[dict[str, Any]]:
                     "malformed": src.malformed,
                     "unmapped_columns": trun.unmapped.get(src.name, []),
                     # of those, the ones unused does not list: what convert notes
-                    "unread_columns": [
-                        c for c in trun.unmapped.get(src.name, []) if not trun.mapping.mapping.left_out(c)
-                    ],
+                    "unread_columns": unread_columns(trun.mapping, trun.unmapped, src.name),
                     "notes": src.notes,
                 }
             )

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import difflib
 import json
+import time
 from collections.abc import Iterable
 
 EXIT_OK = 0
@@ -44,6 +45,13 @@ def counted(n: int, noun: str) -> str:
     """``1 quarantined row``, ``1,234 quarantined rows``: a count for a message, the noun in the
     singular for one."""
     return f"{n:,} {noun}{'' if n == 1 else 's'}"
+
+
+def per_second(n: int, since: float, noun: str = "row") -> str:
+    """``1,234 rows/s`` since ``since`` (a ``time.perf_counter()``), for a progress line; empty
+    until there is something to measure."""
+    spent = time.perf_counter() - since
+    return f"{n / spent:,.0f} {noun}s/s" if n and spent > 0.05 else ""
 
 
 def name_list(names: Iterable[str]) -> str:

@@ -31,6 +31,7 @@ from cdcnorm.errors import (
     counted,
     did_you_mean,
     name_list,
+    per_second,
 )
 from cdcnorm.inputs import display_names, expand_inputs, gather_inputs, route, text_path
 from cdcnorm.mapping.load import LoadedMapping
@@ -93,15 +94,9 @@ def one_at_a_time(progress: Progress) -> Progress:
     return tell
 
 
-def _speed(rows: int, since: float) -> str:
-    """``N rows/s`` since ``since``, once there is something to measure (else empty)."""
-    spent = time.perf_counter() - since
-    return f"{rows / spent:,.0f} rows/s" if rows and spent > 0.05 else ""
-
-
 def _rate(rows: int, since: float) -> str:
     """``, N rows/s`` for a progress label, once there is something to measure."""
-    speed = _speed(rows, since)
+    speed = per_second(rows, since)
     return f", {speed}" if speed else ""
 
 
@@ -632,7 +627,7 @@ def _run_table(
                 engine.drop(plan.step(name).relation)
         else:
             engine.view(step.relation, step.sql)
-        if step.materialize and (speed := _speed(rows, began)):
+        if step.materialize and (speed := per_second(rows, began)):
             last = f"; {step.name} ran at {speed}"
     if stop_after is not None:
         return None

@@ -26,7 +26,7 @@ import duckdb
 import sqlalchemy as sa
 
 from cdcnorm.engines.duckdb import DuckDBEngine
-from cdcnorm.errors import InputError, TargetError, counted
+from cdcnorm.errors import InputError, TargetError, counted, per_second
 from cdcnorm.inputs import checksum
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.sql import ident
@@ -252,9 +252,9 @@ def _apply(
             for statement in writes:
                 s.run(statement)
         done_rows += batch.num_rows
-        spent = time.perf_counter() - began
-        rate = f", {done_rows / spent:,.0f} keys/s" if spent > 0.05 else ""
-        progress(f"{mapping.table}: applied {done_rows:,} of {keys:,} keys{rate}", done_rows, keys)
+        rate = per_second(done_rows, began, "key")
+        label = f"{mapping.table}: applied {done_rows:,} of {keys:,} keys" + (f", {rate}" if rate else "")
+        progress(label, done_rows, keys)
     now = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
     with transaction() as s:
         for f in new:

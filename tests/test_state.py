@@ -768,3 +768,88 @@ def test_snapshot_and_apply_show_progress_in_a_log_and_print_nothing_quiet(
         said = capsys.readouterr()
         assert said.out == "" and "cdcnorm: " not in said.err, said
     assert (tmp_path / "q" / "ferry.bookings.parquet").exists()
+
+
+def _placement_case(tmp_path: Path, tables: dict[str, str], fields: str = "  v: text\n") -> tuple[Path, Path]:
+    """Mappings of ``tables`` (file stem -> table name), each with a converted row, in a landing area."""
+    mdir = tmp_path / "mappings"
+    mdir.mkdir()
+    (tmp_path / "in").mkdir()
+    for stem, table in tables.items():
+        (mdir / f"{stem}.yaml").write_text(
+            f"table: {table}\nfiles: [{stem}.csv]\nkey: [id]\n"
+            "change:\n  action: {column: op, codes: {I: insert, D: delete}}\n"
+            "  position: {column: pos, kind: integer}\n"
+            f"fields:\n  id: integer\n{fields}"
+        )
+        columns = ",".join(f.split(":")[0].strip() for f in fields.splitlines())
+        (tmp_path / "in" / f"{stem}.csv").write_text(
+            f"op,pos,id,{columns}\nI,1,1,{',' * columns.count(',')}a\n"
+        )
+    landing = tmp_path / "landing"
+    assert cli("convert", str(tmp_path / "in"), "--mappings", str(mdir), "--out", str(landing)) == 0
+    return mdir, landing
+
+
+@pytest.mark.parametrize(
+    ("tables", "fields", "extra", "says"),
+    [
+        # the second table's name is the first one's tombstone table (SQLite compares names
+        # ignoring case, even quoted: from memory, checked by the negative control below)
+        ({"x": "shop.X", "y": "shop.x__deleted"}, "  v: text\n", (), "tombstone table of shop.X"),
+        # --schema puts two tables of one name in one schema
+        ({"a": "north.t", "b": "south.t"}, "  v: text\n", ("--schema", "s"), "would both be s.t"),
+        ({"a": "cdcnorm_APPLIED"}, "  v: text\n", (), "a table apply keeps for itself"),
+        ({"a": "shop.t"}, "  v: text\n  cdcnorm_action: text\n", (), "cdcnorm_action of shop.t"),
+    ],
+    ids=["tombstones", "schema", "applied-log", "field"],
+)
+@pytest.mark.parametrize("kind", ["sqlite", "duckdb"])
+def test_tables_apply_would_mix_are_refused_before_anything_is_written(
+    tmp_path: Path,
+    capsys: pytest.CaptureFixture[str],
+    kind: str,
+    tables: dict[str, str],
+    fields: str,
+    extra: tuple[str, ...],
+    says: str,
+) -> None:
+    if kind == "sqlite" and extra:
+        pytest.skip("SQLite has no schemas")
+    mdir, landing = _placement_case(tmp_path, tables, fields)
+    capsys.readouterr()
+    db = tmp_path / "w.db"
+    assert cli("apply", str(landing), "--mappings", str(mdir), "--target", f"{kind}:///{db}", *extra) == 3
+    err = capsys.readouterr().err
+    assert says in err and "Traceback" not in err
+    assert re.search(r"mappings/\w\.yaml:\d+: ", err), err  # the mapping file, and its line
+    if db.exists():  # nothing was made in the target
+        con = duckdb.connect(str(db)) if kind == "duckdb" else sqlite3.connect(db)
+        assert con.execute(
+            "SELECT count(*) FROM information_schema.tables"
+            if kind == "duckdb"
+            else "SELECT count(*) FROM sqlite_master"
+        ).fetchone() == (0,)
+        con.close()
+
+
+def test_tables_in_different_schemas_or_of_other_names_apply_side_by_side(tmp_path: Path) -> None:
+    mdir, landing = _placement_case(tmp_path, {"a": "north.t", "b": "south.t", "c": "north.t_deleted"})
+    url = f"duckdb:///{tmp_path / 'w.duckdb'}"
+    _apply(landing, mdir, url)
+    con = duckdb.connect(str(tmp_path / "w.duckdb"))
+    names = set(con.execute("SELECT table_schema, table_name FROM information_schema.tables").fetchall())
+    assert {("north", "t"), ("south", "t"), ("north", "t_deleted"), ("north", "t__deleted")} <= names
+
+
+def test_sqlite_and_duckdb_take_table_names_that_differ_in_case_as_one() -> None:
+    """The negative control of the refusal's case rule: SQLite and DuckDB themselves (the oracles) take
+    "shop.X__deleted" and "shop.x__deleted" as one table, quoted or not."""
+    con = sqlite3.connect(":memory:")
+    con.execute('CREATE TABLE "shop.X__deleted" (a)')
+    with pytest.raises(sqlite3.OperationalError, match="already exists"):
+        con.execute('CREATE TABLE "shop.x__deleted" (a)')
+    d = duckdb.connect()
+    d.execute('CREATE TABLE "X__deleted" (a INT)')
+    with pytest.raises(duckdb.CatalogException):
+        d.execute('CREATE TABLE "x__deleted" (a INT)')

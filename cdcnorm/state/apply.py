@@ -15,6 +15,7 @@ are those of a real apply and nothing changes.
 
 from __future__ import annotations
 
+import json
 import time
 from collections.abc import Callable
 from contextlib import AbstractContextManager, ExitStack, nullcontext
@@ -26,14 +27,18 @@ import duckdb
 import sqlalchemy as sa
 
 from cdcnorm.engines.duckdb import DuckDBEngine
-from cdcnorm.errors import InputError, TargetError, counted, per_second
+from cdcnorm.errors import InputError, MappingError, TargetError, counted, per_second
 from cdcnorm.inputs import checksum
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.sql import ident
 from cdcnorm.state.events import EventFile, event_files, load_events
 from cdcnorm.state.snapshot import latest
 from cdcnorm.targets.base import (
+    ACTION,
+    APPLIED,
+    BATCH,
     POSITION,
+    TOMBSTONES,
     Counts,
     Session,
     Tables,
@@ -155,6 +160,61 @@ def _check_values(
         )
 
 
+def placed(target: Target, mappings: list[LoadedMapping], schema: str | None = None) -> list[TableSpec]:
+    """Where each mapping's table goes in ``target`` (with ``--schema``, if given): refused, naming
+    the mapping file, when a field is named like a column apply adds, or when two of the tables apply
+    makes (a table, its tombstones, the applied log) would be one table in the target. Names are
+    compared ignoring case, as DuckDB and SQLite compare even quoted names (common practice)."""
+    specs = []
+    owners: dict[tuple[str, str], tuple[str, LoadedMapping]] = {}
+    for lm in mappings:
+        m = lm.mapping
+        for added in (POSITION, ACTION):
+            if added in m.fields:
+                raise MappingError(
+                    f"field {added} of {m.table} has the name of a column apply adds to its table",
+                    file=str(lm.path),
+                    line=lm.field_lines.get(added),
+                    field=added,
+                    expected=f"field names other than {POSITION} and {ACTION}",
+                    found=added,
+                    hint="rename the field, keeping its raw column with from: (e.g. "
+                    f"{added}_1: {{from: {json.dumps(m.raw_column(added))}}})",
+                )
+        spec = target.spec(m.table, schema, tuple(m.fields), tuple(m.key), lm.field_types)
+        specs.append(spec)
+        folded = (spec.schema or "").casefold()
+        for name, role in ((spec.name, "table"), (spec.name + TOMBSTONES, "tombstone table")):
+            shown = f"{spec.schema}.{name}" if spec.schema else name
+            if name.casefold() in (APPLIED, BATCH):
+                raise MappingError(
+                    f"the {role} of {m.table} would be {shown}, a table apply keeps for itself",
+                    file=str(lm.path),
+                    line=1,
+                    field="table",
+                    expected=f"a table name whose {role} is not {APPLIED} or {BATCH}",
+                    found=m.table,
+                    hint="rename the table in the mapping",
+                )
+            other = owners.get((folded, name.casefold()))
+            if other is not None:
+                other_role, other_lm = other
+                raise MappingError(
+                    f"the {role} of {m.table} and the {other_role} of {other_lm.table} ({other_lm.path}) "
+                    f"would both be {shown} in {target.shown}",
+                    file=str(lm.path),
+                    line=1,
+                    field="table",
+                    expected=f"tables that apply keeps apart (names compared ignoring case; T{TOMBSTONES} "
+                    "holds the tombstones of table T)",
+                    found=m.table,
+                    hint="rename one of the tables in its mapping"
+                    + (", or apply them to different schemas with --table and --schema" if schema else ""),
+                )
+            owners[(folded, name.casefold())] = (role, lm)
+    return specs
+
+
 def apply_table(
     engine: DuckDBEngine,
     mapping: LoadedMapping,
@@ -169,7 +229,7 @@ def apply_table(
     """Apply one table's new event files to ``target``; ``progress(label, keys done, keys)`` hears
     each batch."""
     m = mapping.mapping
-    spec = target.spec(m.table, schema, tuple(m.fields), tuple(m.key), mapping.field_types)
+    (spec,) = placed(target, [mapping], schema)
     tables = build_tables(spec, target.column_type, target.position_type())
     report = TableApply(m.table, spec.shown)
     files = event_files(landing, m.table)

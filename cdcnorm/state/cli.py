@@ -181,7 +181,7 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
 
 def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
     from cdcnorm.cli import showing_progress
-    from cdcnorm.state.apply import apply_table
+    from cdcnorm.state.apply import apply_table, placed
     from cdcnorm.targets import target_for
     from cdcnorm.targets.base import scrub
 
@@ -198,6 +198,9 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
     landing = Path(args.landing)
     mappings = load_mappings(Path(args.mappings))
     chosen = _chosen(mappings, args.table)
+    # before anything is written: every table apply makes has a place of its own (with --schema,
+    # among the tables of this apply; without it, among every mapping's, as each will be applied)
+    placed(target, chosen if args.schema is not None else mappings, args.schema)
 
     import duckdb
     import psycopg

@@ -113,12 +113,6 @@ def build_tables(
 ) -> Tables:
     md = sa.MetaData()
     schema = q(spec.schema) if spec.schema else None
-    if POSITION in spec.fields or ACTION in spec.fields:
-        raise UsageError(
-            f"a field of {spec.table} is named like a column cdcnorm adds",
-            field=POSITION if POSITION in spec.fields else ACTION,
-            hint="rename the field in the mapping",
-        )
     cols = [
         sa.Column(
             q(f),

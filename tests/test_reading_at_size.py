@@ -432,6 +432,31 @@ def test_csv_encoding(convert: ConvertFn, encoding: str, raw: bytes, text: str) 
     assert e["values"]["a"] == text
 
 
+@pytest.mark.parametrize("encoding", ["latin-1", "cp1252"])
+def test_a_utf8_byte_order_mark_is_read_as_utf8_whatever_csv_encoding_says(
+    convert: ConvertFn, encoding: str
+) -> None:
+    # A byte order mark names its encoding: the WHATWG Encoding Standard's decode lets it override
+    # the label (from memory). Before, the mark was dropped and the UTF-8 text read as 8-bit text
+    # without a word: "Zoë €" became "ZoÃ« â‚¬". Python's codecs are the reference for both files.
+    utf8 = "Zoë €".encode()
+    assert utf8.decode(encoding, "replace") != "Zoë €"  # the negative control: what the label would make
+    eight = "Åse".encode(encoding)
+    done = convert(
+        PLAIN + f"csv: {{encoding: {encoding}}}\n",
+        {
+            "n1.csv": b"\xef\xbb\xbfop,pos,id,a\nI,1,1," + utf8 + b"\n",
+            "n2.csv": b"op,pos,id,a\nI,2,2," + eight + b"\n",
+        },
+    )
+    assert [e["values"]["a"] for e in done.events("t.notes")] == [
+        utf8.decode("utf-8"),
+        eight.decode(encoding),
+    ]
+    (note,) = [n for n in last_run(done.out)["notes"] if "UTF-8" in n["note"]]
+    assert note["file"] == "n1.csv" and "read as UTF-8" in note["note"] and "byte order mark" in note["note"]
+
+
 @pytest.mark.parametrize(
     ("encoding", "codec", "bom"),
     [

@@ -65,6 +65,7 @@ class _Reading:
 
     internal: list[str]
     delimiter: str
+    encoding: str  # the files' codec name (csv.encoding, or UTF-8 for a file that starts with its mark)
     mapping: Mapping
     engine: DuckDBEngine
     raw: RawTable
@@ -76,11 +77,26 @@ def _delimiter(path: Path, mapping: Mapping) -> str:
     return "\t" if streams.base_name(path).lower().endswith(".tsv") and d == "," else d
 
 
-def _header(f: RawFile, delimiter: str, mapping: Mapping) -> tuple[list[str], bool]:
-    """The column names, and whether any record follows the header."""
+def _encoding(f: RawFile, raw: bytes, mapping: Mapping) -> str:
+    """The codec of a file starting with ``raw``: ``csv.encoding``, unless the file starts with
+    UTF-8's byte order mark and ``csv.encoding`` is an 8-bit codec: then UTF-8, with a note. The
+    mark names the encoding, as the WHATWG Encoding Standard's decode has a byte order mark override
+    the label (from memory); read as cp1252 or latin-1, every non-ASCII character of a UTF-8 dump
+    would turn into two or three others without an error."""
+    encoding = mapping.csv.encoding
+    if raw.startswith(b"\xef\xbb\xbf") and not encoding.startswith(("utf-8", "utf-16", "utf-32")):
+        f.notes.append(
+            f"read as UTF-8, not as csv.encoding's {encoding}: the file starts with UTF-8's byte order mark"
+        )
+        return "utf-8"
+    return encoding
+
+
+def _header(f: RawFile, delimiter: str, mapping: Mapping) -> tuple[list[str], bool, str]:
+    """The column names, whether any record follows the header, and the file's codec."""
     opts = mapping.csv
     raw = streams.head(f.path)
-    encoding = opts.encoding
+    encoding = _encoding(f, raw, mapping)
     # decoded before the line end is looked for: in UTF-16 or UTF-32 a line end is not one byte,
     # and other characters hold the bytes of LF and CR (U+010A is 0A 01 in UTF-16LE). Bytes that do
     # not decode become lone surrogates (only the header row must be valid text)
@@ -101,9 +117,9 @@ def _header(f: RawFile, delimiter: str, mapping: Mapping) -> tuple[list[str], bo
     if not opts.header:
         if not opts.columns:
             raise InputError("csv.header is false but csv.columns names no columns", file=str(f.path))
-        return list(opts.columns), bool(head.strip())
+        return list(opts.columns), bool(head.strip()), encoding
     if not head.strip():
-        return [], False
+        return [], False, encoding
     ends = [i for i in (head.find("\n"), head.find("\r")) if i >= 0]
     nl = min(ends) if ends else -1  # the header's line ends at LF, CRLF or CR
     text = head if nl < 0 else head[:nl]
@@ -115,18 +131,18 @@ def _header(f: RawFile, delimiter: str, mapping: Mapping) -> tuple[list[str], bo
     more = nl >= 0 and bool(head[nl + 1 :].strip())
     if nl >= 0 and len(raw) == (1 << 20) and not more:
         more = True  # the header's line fills the first block: let the reader decide
-    return columns, more
+    return columns, more, encoding
 
 
 def read_files(
     files: list[RawFile], mapping: Mapping, engine: DuckDBEngine, raw: RawTable, scratch: Path
 ) -> None:
     """Load the table's CSV files: one fast engine scan per header, the careful path where needed."""
-    groups: dict[tuple[str, tuple[str, ...]], list[RawFile]] = {}
+    groups: dict[tuple[str, tuple[str, ...], str], list[RawFile]] = {}
     for f in files:
         f.format = FORMAT
         delimiter = _delimiter(f.path, mapping)
-        columns, more = _header(f, delimiter, mapping)
+        columns, more, encoding = _header(f, delimiter, mapping)
         f.columns = columns
         if not columns or not more:
             f.empty = True
@@ -138,10 +154,10 @@ def read_files(
         dupes = sorted({c for c in columns if columns.count(c) > 1})
         if dupes:
             raise InputError(f"the header repeats column names {dupes}", file=str(f.path), line=1)
-        groups.setdefault((delimiter, tuple(columns)), []).append(f)
-    for (delimiter, names), group in groups.items():
+        groups.setdefault((delimiter, tuple(columns), encoding), []).append(f)
+    for (delimiter, names, encoding), group in groups.items():
         internal = [raw.internal(c) for c in names]
-        reading = _Reading(internal, delimiter, mapping, engine, raw, scratch)
+        reading = _Reading(internal, delimiter, encoding, mapping, engine, raw, scratch)
         careful = _fast(group, reading)
         if careful:
             _careful(careful, reading)
@@ -198,7 +214,7 @@ def count_blocks(chunks: Iterable[bytes], quote: str, header: bool) -> tuple[int
 def _fast(group: list[RawFile], r: _Reading) -> list[RawFile]:
     """Scan the group with the engine's reader; return the files that need the careful path."""
     opts = r.mapping.csv
-    if opts.encoding.lower() not in ENGINE_ENCODINGS:
+    if r.encoding.lower() not in ENGINE_ENCODINGS:
         return group
     if len(group) >= JOIN_MIN:
         group = _joined(group, r)
@@ -310,7 +326,7 @@ def _joined(group: list[RawFile], r: _Reading) -> list[RawFile]:
     return alone
 
 
-def csv_syntax(mapping: Mapping, delimiter: str, header: bool | None = None) -> CsvSyntax:
+def csv_syntax(mapping: Mapping, delimiter: str, encoding: str, header: bool | None = None) -> CsvSyntax:
     """What the engine's reader is told of a table's CSV files (``header``: the mapping's by default)."""
     opts = mapping.csv
     return CsvSyntax(
@@ -318,7 +334,7 @@ def csv_syntax(mapping: Mapping, delimiter: str, header: bool | None = None) -> 
         delimiter=delimiter,
         quote=opts.quote,
         nulls=tuple(mapping.nulls) or (NEVER,),
-        encoding=ENGINE_ENCODINGS[opts.encoding.lower()],
+        encoding=ENGINE_ENCODINGS[encoding.lower()],
         max_line=MAX_RECORD_BYTES,
     )
 
@@ -327,7 +343,9 @@ def _scan(
     r: _Reading, staged: str, paths: list[str], header: bool | None = None
 ) -> tuple[set[str], dict[str, tuple[int, int, int]]] | None:
     """The engine's strict scan of ``paths`` into ``staged`` (``header``: the mapping's by default)."""
-    return r.engine.scan_csv(staged, paths, r.internal, csv_syntax(r.mapping, r.delimiter, header))
+    return r.engine.scan_csv(
+        staged, paths, r.internal, csv_syntax(r.mapping, r.delimiter, r.encoding, header)
+    )
 
 
 class _Overlong(Exception):
@@ -469,7 +487,7 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
         for f in files:
             number = 0
             good = 0
-            records = _records(_lines(f, opts.encoding), r.delimiter, opts.quote, len(r.internal))
+            records = _records(_lines(f, r.encoding), r.delimiter, opts.quote, len(r.internal))
             if opts.header:
                 next(records, None)
             for text, reason in records:
@@ -490,7 +508,15 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
                         flush_bad()
             f.rows = good
             f.malformed = number - good
-            f.notes.append("read record by record (the fast reader rejected it)")
+            f.notes.append(
+                "read record by record ("
+                + (
+                    "the fast reader rejected it"
+                    if r.encoding.lower() in ENGINE_ENCODINGS
+                    else f"the fast reader does not read {r.encoding}"
+                )
+                + ")"
+            )
             any_good = any_good or good > 0
     flush_bad()
     if any_good:

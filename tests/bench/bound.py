@@ -50,7 +50,9 @@ def statement(
     raw.add_relation(source, internal)
     plan = compile_table(mapping, raw)
     # the conversion's own reader, without keeping rejects (a record it cannot split fails the bound)
-    syntax = csv_syntax(mapping.mapping, mapping.mapping.csv.delimiter, header=True)
+    syntax = csv_syntax(
+        mapping.mapping, mapping.mapping.csv.delimiter, mapping.mapping.csv.encoding, header=True
+    )
     scan = engine.csv_scan([str(p) for p in dumps], internal, syntax, rejects=None)
     setup = [
         f"CREATE VIEW {ident(source)} AS SELECT 0 AS __file, 0 AS __row, CAST(NULL AS VARCHAR) AS __enc, * "

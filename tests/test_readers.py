@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import re
 from pathlib import Path
 from typing import Any
@@ -170,6 +171,27 @@ def test_jsonl_file_of_malformed_lines_only_is_quarantined_not_drift(convert: Co
     quarantined = done.quarantine("t.notes")
     assert [q["_cdcnorm"]["text"] for q in quarantined] == ['{"op": "I", "pos": 1, broken', '{"op": ']
     assert done.events("t.notes") == []
+
+
+def test_a_jsonl_line_escaping_a_lone_surrogate_is_quarantined_saying_so(convert: ConvertFn) -> None:
+    # RFC 8259 section 8.2 leaves "\udc00" alone unpredictable, RFC 7493 section 2.1 forbids it (from
+    # memory); the engine's parser refuses the line. Before, the reason said the line was not JSON
+    # at all; a pair (one character, as Python's json module reads it) is read.
+    pair = '"\\ud83d\\ude00"'
+    assert json.loads(pair) == "\U0001f600"
+    lines = [
+        '{"op": "I", "pos": 1, "id": 1, "a": "x\\udc00", "b": "y"}',
+        '{"op": "I", "pos": 2, "id": 2, "a": ' + pair + ', "b": "y"}',
+        '{"op": "I", "pos": 3, "id": 3, "a": "x", "b": "y"',
+    ]
+    done = convert(MAPPING, {"n.jsonl": "\n".join(lines) + "\n"})
+    reasons = {
+        q["_cdcnorm"]["row"]: q["_cdcnorm"]["reasons"][0]["reason"] for q in done.quarantine("t.notes")
+    }
+    assert set(reasons) == {1, 3} and "surrogate" in reasons[1] and "RFC 7493" in reasons[1]
+    assert reasons[3] == "not valid JSON (RFC 8259)"
+    assert [e["values"]["a"] for e in done.events("t.notes")] == ["\U0001f600"]
+    assert done.quarantine("t.notes")[0]["_cdcnorm"]["text"] == lines[0]
 
 
 def test_jsonl_nested_flat_and_malformed_lines(convert: ConvertFn) -> None:

@@ -185,6 +185,23 @@ def test_float_date_time_text_json(convert: ConvertFn) -> None:
     assert j[2][0] == 12345678901234567890
 
 
+def test_a_json_escape_of_a_lone_surrogate_is_refused_with_its_own_reason(convert: ConvertFn) -> None:
+    # RFC 8259 section 8.2: "\ud800" alone is grammatical but names no character (its meaning is
+    # unpredictable); I-JSON, RFC 7493 section 2.1, forbids it (from memory). Python's codecs agree
+    # that it is no text: its json module parses it, and UTF-8 cannot encode the result.
+    with pytest.raises(UnicodeEncodeError):
+        json.loads('"\\ud800"').encode("utf-8")
+    pair = '"\\ud83d\\ude00"'
+    assert json.loads(pair).encode("utf-8") == "\U0001f600".encode()  # a pair is one character
+    raw = ['"\\ud800"', '"x\\udfff"', pair, '"\\\\ud800"', '"\\ud800\\ud800"', "[1,"]
+    got = type_values(convert, "json", raw)
+    lone = [r for _, r in got]
+    assert lone[0] == lone[1] == lone[4] and lone[0] is not None and "surrogate" in lone[0]
+    assert got[2] == (json.loads(pair), None)
+    assert got[3] == ("\\ud800", None)  # an escaped backslash, then letters: valid
+    assert lone[5] == "not valid JSON (RFC 8259)"
+
+
 @pytest.mark.parametrize(
     ("spec", "value_type"),
     [

@@ -736,6 +736,7 @@ class DuckDBEngine:
         Returns the merged structure of each file's objects (JSON text) by file id."""
         src = ident(lines)
         from cdcnorm.types.json import (
+            invalid_reason,
             json_path,
             outside_strings_of_valid,
             rfc8259,
@@ -797,7 +798,7 @@ class DuckDBEngine:
             f"INSERT INTO {ident(malformed)} SELECT __file, __row, "
             "CASE WHEN line IS NULL THEN to_base64(raw) ELSE line END, "
             "CASE WHEN line IS NULL THEN 'not UTF-8 (text shown base64)' "
-            "WHEN NOT valid THEN 'not valid JSON (RFC 8259)' "
+            f"WHEN NOT valid THEN {invalid_reason('line')} "
             "WHEN kind <> 'OBJECT' THEN 'not a JSON object' "
             "WHEN repeated = '' THEN 'the object repeats a member name (RFC 7493 section 2.3): which value is meant is unclear' "
             "WHEN repeated IS NOT NULL THEN 'the object ' || repeated || ' repeats a member name (RFC 7493 section 2.3): which value is meant is unclear' "

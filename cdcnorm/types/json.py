@@ -75,6 +75,29 @@ def repeated_name(x: str) -> str:
     )
 
 
+#: Why the engine refuses a text that escapes half of a surrogate pair alone (``"\ud800"``):
+#: RFC 8259 section 8.2 allows it by the grammar and leaves its meaning unpredictable; I-JSON,
+#: RFC 7493 section 2.1, forbids it (both from memory).
+LONE_SURROGATE = (
+    "a \\u escape of half a surrogate pair alone (D800-DFFF): RFC 8259 section 8.2 leaves its meaning "
+    "unpredictable, RFC 7493 section 2.1 forbids it"
+)
+
+
+def lone_surrogate(x: str) -> str:
+    """SQL: the JSON text ``x`` has a ``\\u`` escape of a surrogate that is not half of a pair
+    (a high one, D800-DBFF, followed by a low one, DC00-DFFF). Escaped backslashes are removed first,
+    so ``\\\\ud800`` (a backslash, then the letters) is not one."""
+    unescaped = f"replace({x}, '\\\\', '')"
+    pair = r"\\u[dD][89abAB][0-9a-fA-F]{2}\\u[dD][c-fC-F][0-9a-fA-F]{2}"
+    return f"regexp_matches(regexp_replace({unescaped}, '{pair}', '', 'g'), '\\\\u[dD][89a-fA-F][0-9a-fA-F]{{2}}')"
+
+
+def invalid_reason(x: str) -> str:
+    """SQL: why the engine's parser refuses the text ``x``."""
+    return f"CASE WHEN {lone_surrogate(x)} THEN 'not valid JSON here: {LONE_SURROGATE}' ELSE 'not valid JSON (RFC 8259)' END"
+
+
 def minify(x: str) -> str:
     """SQL: the JSON text without the whitespace between its tokens; tokens kept as written."""
     return f"array_to_string(regexp_extract_all({x}, '{STRING}|[^\\s\"]+'), '')"
@@ -92,7 +115,7 @@ class JsonType(FieldType):
 
     def explain(self, x: str) -> str:
         return (
-            f"CASE WHEN NOT json_valid({x}) THEN 'not valid JSON (RFC 8259)' "
+            f"CASE WHEN NOT json_valid({x}) THEN {invalid_reason(x)} "
             f"WHEN {bare_words(x)} THEN 'not valid JSON (RFC 8259): NaN, Infinity and other bare words are not JSON values' "
             f"WHEN {trailing_comma(x)} THEN 'not valid JSON (RFC 8259): a comma before ] or }}' "
             "ELSE 'an object repeats a member name (RFC 7493 section 2.3; its meaning would depend on the reader)' END"

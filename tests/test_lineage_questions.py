@@ -65,6 +65,34 @@ def test_unresolvable_references_are_reported_not_guessed(tmp_path: Path) -> Non
     assert trace(project, "amb.id")["unresolved"][0]["reason"] == "ambiguous"
 
 
+def test_a_column_named_without_its_table_says_where_it_was_looked_for(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: "m.sql:1: m: not in schema: amout", naming neither the tables searched nor the
+    # closest names (they were in --json only)
+    models = tmp_path / "models"
+    models.mkdir()
+    (models / "m.sql").write_text(
+        "WITH c AS (SELECT id AS cid FROM shop.customers)\nSELECT amout FROM shop.orders o JOIN c ON c.cid = o.customer_id"
+    )
+    (tmp_path / "catalog.yaml").write_text(json.dumps({"tables": SCHEMA}))
+    capsys.readouterr()
+    args = (
+        "--models",
+        str(models),
+        "--mappings",
+        str(tmp_path / "none"),
+        "--catalog",
+        str(tmp_path / "catalog.yaml"),
+    )
+    assert cli("trace", "m.amout", *args) == 11
+    out = capsys.readouterr().out
+    assert "m.sql:2: m: not in schema: amout (in none of shop.orders, c; candidates: amount)" in out
+    assert cli("trace", "m.amout", *args, "--json") == 11
+    (d,) = json.loads(capsys.readouterr().out)["unresolved"]
+    assert d["searched"] == ["shop.orders", "c"] and d["candidates"] == ["amount"]
+
+
 def test_a_file_that_cannot_be_parsed_makes_answers_about_a_table_it_names_incomplete(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:

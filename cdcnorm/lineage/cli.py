@@ -12,6 +12,7 @@ from rich.text import Text
 from rich.tree import Tree
 
 from cdcnorm.errors import EXIT_BREAKS, EXIT_INCOMPLETE, EXIT_OK, UsageError, counted, did_you_mean
+from cdcnorm.lineage.diagnostics import rendered
 
 if TYPE_CHECKING:
     from cdcnorm.lineage.graph import Project
@@ -373,5 +374,4 @@ def _print_unresolved(tree: Tree, answer: dict[str, Any]) -> None:
         )
     )
     for d in answer["unresolved"]:
-        where = f"{d['file']}:{d['line']}" if d["line"] else d["file"]
-        b.add(f"{where}: {d['model']}: {d['reason']}: {d['reference']}", style="yellow")
+        b.add(Text(rendered(d), style="yellow"))

@@ -28,15 +28,15 @@ class Diagnostic:
     reason: str
     reference: str
     candidates: tuple[str, ...] = field(default_factory=tuple)
+    #: the tables (or CTEs, derived tables) a column without a table name was looked for in
+    searched: tuple[str, ...] = field(default_factory=tuple)
 
     @property
     def unresolved(self) -> bool:
         return self.reason not in NOTES
 
     def render(self) -> str:
-        where = f"{self.file}:{self.line}" if self.line else self.file
-        cand = f" (candidates: {', '.join(self.candidates)})" if self.candidates else ""
-        return f"{where}: {self.model}: {self.reason}: {self.reference}{cand}"
+        return rendered(self.as_dict())
 
     def as_dict(self) -> dict[str, Any]:
         return {
@@ -46,4 +46,15 @@ class Diagnostic:
             "reason": self.reason,
             "reference": self.reference,
             "candidates": list(self.candidates),
+            "searched": list(self.searched),
         }
+
+
+def rendered(d: dict[str, Any]) -> str:
+    """One diagnostic (``as_dict``'s form) as a line: where, the model, the reason, the reference,
+    and, where known, the tables searched and the closest names."""
+    where = f"{d['file']}:{d['line']}" if d["line"] else d["file"]
+    notes = [f"in none of {', '.join(d['searched'])}"] if d.get("searched") else []
+    notes += [f"candidates: {', '.join(d['candidates'])}"] if d.get("candidates") else []
+    more = f" ({'; '.join(notes)})" if notes else ""
+    return f"{where}: {d['model']}: {d['reason']}: {d['reference']}{more}"

@@ -771,7 +771,11 @@ class StatementResolver:
                     for c in self._source_columns(scope, a):
                         shown.setdefault(c, info.shown(c) if info else c)
                 close = difflib.get_close_matches(name, sorted(shown), n=3)
-                self._diag(line, "not in schema", name, [shown[c] for c in close])
+                searched = []
+                for a in scope.selected_sources:
+                    src = scope.sources.get(a)
+                    searched.append(".".join(table_parts(src)) if isinstance(src, exp.Table) else a)
+                self._diag(line, "not in schema", name, [shown[c] for c in close], searched)
             return Deps()
         return self._column_of(table, name, scope, line)
 
@@ -877,11 +881,26 @@ class StatementResolver:
             s = s.parent
         return None
 
-    def _diag(self, line: int | None, reason: str, reference: str, candidates: Iterable[str] = ()) -> None:
+    def _diag(
+        self,
+        line: int | None,
+        reason: str,
+        reference: str,
+        candidates: Iterable[str] = (),
+        searched: Iterable[str] = (),
+    ) -> None:
         key = (reason, reference)
         if key in self._reported:
             return
         self._reported.add(key)
         self.diagnostics.append(
-            Diagnostic(self.file, line or self.default_line, self.model, reason, reference, tuple(candidates))
+            Diagnostic(
+                self.file,
+                line or self.default_line,
+                self.model,
+                reason,
+                reference,
+                tuple(candidates),
+                tuple(searched),
+            )
         )

@@ -363,7 +363,7 @@ def _ledger_rows(tl: ledger_mod.TableLedger) -> list[tuple[str, ledger_mod.FileC
 
 
 def _json_value(v: object) -> object:
-    """A stage row's value in --json as the envelope writes it: bytes as base64 (RFC 4648), times
+    """A stage row's value as the envelope writes it (in --json and the table): bytes as base64 (RFC 4648), times
     as RFC 3339 (UTC as Z), the rest (decimals, UUIDs) as its text."""
     if isinstance(v, bytes | bytearray | memoryview):
         return base64.b64encode(bytes(v)).decode("ascii")
@@ -387,7 +387,7 @@ def _show_stage(result: Result, stage: str, limit: int, table: str | None, as_js
         for col in data.column_names:
             t.add_column(col, overflow="fold")
         for row in data.to_pylist():
-            t.add_row(*("NULL" if v is None else str(v) for v in row.values()))
+            t.add_row(*("NULL" if v is None else str(_json_value(v)) for v in row.values()))
         print_table(out, t)
 
 

@@ -352,6 +352,13 @@ def test_stop_after_json_writes_values_as_the_envelope_does(capsys: pytest.Captu
     stamps = [r["booked_at"] for r in rows if r["booked_at"]]
     assert stamps and all(re.fullmatch(r"\d{4}-\d\d-\d\dT\d\d:\d\d:\d\d(\.\d+)?Z", t) for t in stamps), stamps
     assert all(dt.datetime.fromisoformat(t).utcoffset() == dt.timedelta(0) for t in stamps)
+    # the table shows the same forms (before: b'foobar' and 2026-03-01 08:00:00+00:00 there)
+    assert cli(*args[:-1], "--table", "ferry.passengers", "--limit", "1") == 0
+    shown = capsys.readouterr().out
+    assert "b'" not in shown and "Zm9vYmFy" in shown  # RFC 4648 section 10: BASE64("foobar")
+    assert cli(*args[:-1], "--table", "ferry.bookings") == 0
+    shown = capsys.readouterr().out
+    assert stamps[0] in shown and "+00:00" not in shown
 
 
 def test_stop_after_shows_positions_as_the_envelope_writes_them(capsys: pytest.CaptureFixture[str]) -> None:

@@ -450,15 +450,30 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
     return EXIT_OK
 
 
-def _print_hidden(hidden: list[str]) -> None:
-    if hidden:
-        shown = ", ".join(hidden[:5]) + (f" and {len(hidden) - 5} more" if len(hidden) > 5 else "")
-        out.print(
-            f"note: left out {len(hidden)} hidden file{'s' if len(hidden) > 1 else ''} (a name starting "
-            f"with a dot: a copy in progress, by common practice): {shown}; name a file to read it",
-            markup=False,
-            soft_wrap=True,
-        )
+def _print_hidden(hidden: list[str], markers: list[str]) -> None:
+    """The files the input folders hold that the run left out, and why."""
+    for files, what, why, how in (
+        (
+            hidden,
+            "hidden file",
+            "a name starting with a dot: a copy in progress, by common practice",
+            "name a file to read it",
+        ),
+        (
+            markers,
+            "marker file",
+            "a name starting with an underscore that no mapping reads: a writer's marker or metadata, "
+            "as _SUCCESS, by common practice",
+            "a mapping whose files pattern matches one reads it",
+        ),
+    ):
+        if files:
+            shown = ", ".join(files[:5]) + (f" and {len(files) - 5} more" if len(files) > 5 else "")
+            out.print(
+                f"note: left out {counted(len(files), what)} ({why}): {shown}; {how}",
+                markup=False,
+                soft_wrap=True,
+            )
 
 
 def _report_run(
@@ -476,6 +491,7 @@ def _report_run(
                     "waiting": result.waiting,
                     "skipped": result.skipped,
                     "hidden": hidden,
+                    "markers": result.markers,
                     "notes": file_notes(result),
                     "memory_note": result.memory_note,
                 }
@@ -486,7 +502,7 @@ def _report_run(
         return
     if skipped:
         out.print("skipped, converted before: " + ", ".join(skipped))
-    _print_hidden(hidden)
+    _print_hidden(hidden, result.markers)
     if result.run is None:
         out.print(f"nothing new to convert: no run was added to {landing}")
         return
@@ -604,6 +620,7 @@ def _report_check(result: Result, args: argparse.Namespace, hidden: list[str]) -
         "drift": drift,
         "tables": result.ledger.as_dict()["tables"],
         "hidden": hidden,
+        "markers": result.markers,
         "memory_note": result.memory_note,
     }
     if args.json:
@@ -657,7 +674,7 @@ def _report_check(result: Result, args: argparse.Namespace, hidden: list[str]) -
             for reason, n in sorted(tl.reasons.items()):
                 out.print(f"{name}: {n} x {reason}")
         _print_notes(result)
-        _print_hidden(hidden)
+        _print_hidden(hidden, result.markers)
         for d in drift:
             out.print(Text.assemble(("drift", "red"), " ", d))
     return 4 if drift else EXIT_OK

@@ -19,19 +19,36 @@ def _matches(path: Path, pattern: str) -> bool:
     return fnmatch.fnmatchcase(path.name, pattern) or fnmatch.fnmatchcase(streams.base_name(path), pattern)
 
 
+def _readers(path: Path, mappings: Sequence[LoadedMapping]) -> list[LoadedMapping]:
+    """The mappings that would read ``path``: by their file globs, or, for a JSON Lines file named
+    ``<table>.jsonl`` or in a folder named ``<table>`` (as the quarantine files are:
+    quarantine/<table>/<run>.jsonl), that table's."""
+    matches = [m for m in mappings if any(_matches(path, g) for g in m.mapping.files)]
+    if not matches:
+        base = streams.base_name(path)
+        if ".jsonl" in base:
+            names = {base.split(".jsonl")[0], path.parent.name}
+            matches = [m for m in mappings if m.table in names]
+    return matches
+
+
+def set_aside_markers(
+    files: list[Path], mappings: Sequence[LoadedMapping], inputs: Iterable[str | Path]
+) -> tuple[list[Path], list[Path]]:
+    """(the files to read, the marker files left out): a file found in a folder whose name starts
+    with an underscore and that no mapping would read is a writer's marker or metadata file by
+    common practice (``_SUCCESS``, ``_committed_<id>``, as data lake writers leave beside their
+    output), left out and named to the user. A file named on the command line is never one."""
+    given = {Path(i) for i in inputs if not Path(i).is_dir()}
+    markers = [f for f in files if f.name.startswith("_") and f not in given and not _readers(f, mappings)]
+    return [f for f in files if f not in markers], markers
+
+
 def route(files: Iterable[Path], mappings: Sequence[LoadedMapping]) -> dict[str, list[Path]]:
-    """Which mapping reads each file: by the mapping's file globs, or a JSON Lines file named
-    ``<table>.jsonl`` or in a folder named ``<table>``."""
+    """Which mapping reads each file (``_readers``); a file none or several would read stops the run."""
     by_table: dict[str, list[Path]] = {m.table: [] for m in mappings}
     for path in files:
-        matches = [m for m in mappings if any(_matches(path, g) for g in m.mapping.files)]
-        if not matches:
-            # a JSON Lines file named after a table, or in a folder named after one (as the
-            # quarantine files are: quarantine/<table>/<run>.jsonl), goes to that table
-            base = streams.base_name(path)
-            if ".jsonl" in base:
-                names = {base.split(".jsonl")[0], path.parent.name}
-                matches = [m for m in mappings if m.table in names]
+        matches = _readers(path, mappings)
         if not matches:
             globs = [g for m in mappings for g in m.mapping.files]
             near = closest(path.name, globs + [m.table for m in mappings])

@@ -33,7 +33,7 @@ from cdcnorm.errors import (
     name_list,
     per_second,
 )
-from cdcnorm.inputs import display_names, expand_inputs, gather_inputs, route, text_path
+from cdcnorm.inputs import display_names, expand_inputs, gather_inputs, route, set_aside_markers, text_path
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.plan import Plan, RawRelation, Source
 from cdcnorm.readers import RawFile, RawTable, reader_for, streams
@@ -151,6 +151,7 @@ class Result:
     inputs: list[dict[str, Any]] = field(default_factory=list)
     skipped: list[dict[str, Any]] = field(default_factory=list)
     hidden: list[str] = field(default_factory=list)  # hidden files the input folders hold, not read
+    markers: list[str] = field(default_factory=list)  # marker files the input folders hold, not read
     pending: int = 0  # before-images this run's tables leave waiting
     waiting: int = 0  # before-images waiting in the whole landing area after this run
 
@@ -416,6 +417,7 @@ def run(
     """Read, plan, execute and (when ``options.write``) write every table as one run of the
     landing area ``options.out``. ``notice`` hears the memory note when the run starts."""
     options = options or Options()
+    inputs = list(inputs)  # read twice: the files, then which of them were named, not found
     if stop_after is not None and stop_after not in STAGE_NAMES:
         raise UsageError(f"unknown stage {stop_after!r}; stages are {', '.join(STAGE_NAMES)}")
     if options.fmt not in WRITERS:
@@ -424,16 +426,18 @@ def run(
         if folder is not None:
             text_path(folder, what)
     files, hidden_files = gather_inputs(inputs, recursive=options.recursive)
+    files, marker_files = set_aside_markers(files, mappings, inputs)
     if not files and options.settle is None:
         raise UsageError("no input files given")
     routed = route(files, mappings)
     hidden = [str(h) for h in hidden_files]
+    markers = [str(m) for m in marker_files]
     with scratch_folder(options.scratch) as scratch, engine_errors(scratch):
         if not (options.write and options.out is not None and stop_after is None):
             result = _run(
                 mappings, routed, options, scratch, stop_after, progress, strict_drift, None, notice
             )
-            result.hidden = hidden
+            result.hidden, result.markers = hidden, markers
             return result
         from cdcnorm.landing import open_landing
         from cdcnorm.landing.outputs import commit_run, new_inputs
@@ -445,10 +449,12 @@ def run(
             has_pending = options.settle is not None and any(area.waiting(m.table) for m in mappings)
             if not any(routed.values()) and not has_pending:
                 engine = DuckDBEngine(temp_directory=str(scratch / "spill"))
-                return Result(engine, {}, ledger_mod.Ledger(), [], skipped=skipped, hidden=hidden)
+                return Result(
+                    engine, {}, ledger_mod.Ledger(), [], skipped=skipped, hidden=hidden, markers=markers
+                )
             result = _run(mappings, routed, options, scratch, None, progress, strict_drift, area, notice)
             result.skipped = skipped
-            result.hidden = hidden
+            result.hidden, result.markers = hidden, markers
             commit_run(result, area, options, inputs_info, later, progress)
         if options.max_rejects is not None and result.quarantined > options.max_rejects:
             raise RejectLimitError(
@@ -689,7 +695,9 @@ def show_plans(
 
     render = renderer(engine_name)
     temporary = bool(engine_class(engine_name).TEMPORARY)
-    routed = route(expand_inputs(inputs, recursive=options.recursive), mappings)
+    inputs = list(inputs)
+    files = set_aside_markers(expand_inputs(inputs, recursive=options.recursive), mappings, inputs)[0]
+    routed = route(files, mappings)
     with scratch_folder(options.scratch) as scratch, engine_errors(scratch):
         engine = DuckDBEngine(temp_directory=str(scratch / "spill"))
         zones.register(engine, mappings)

@@ -147,6 +147,46 @@ def test_hidden_files_in_a_folder_are_left_out_and_named(
     assert [Path(h).name for h in hidden] == ["passengers-3.csv", ".passengers-2.csv"]  # by path
 
 
+def test_marker_files_in_a_folder_are_left_out_and_named(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: a feed folder a data lake writer filled (its files and _SUCCESS, _committed_<id>: common
+    # practice) stopped the run, "_SUCCESS: this file matches no mapping" (exit 4)
+    dumps = tmp_path / "dumps"
+    dumps.mkdir()
+    shutil.copy(DUMPS / "passengers.csv", dumps / "passengers.csv")
+    shutil.copy(
+        DUMPS / "passengers.csv", dumps / "_passengers-2.csv"
+    )  # a mapping's pattern would not take it
+    (dumps / "_SUCCESS").write_bytes(b"")
+    (dumps / "_committed_8213").write_text('{"added": ["passengers.csv"]}\n')
+    out = tmp_path / "area"
+    assert cli("convert", "--mappings", str(MAPPINGS), str(dumps), "--out", str(out)) == 0
+    printed = " ".join(capsys.readouterr().out.split())
+    assert "note: left out 3 marker files" in printed and "_SUCCESS" in printed
+    assert [i["name"] for i in last_run(out)["inputs"]] == ["passengers.csv"]
+    assert sorted(Path(m).name for m in last_run(out)["markers"]) == [
+        "_SUCCESS",
+        "_committed_8213",
+        "_passengers-2.csv",
+    ]
+    assert cli("check", "--mappings", str(MAPPINGS), str(dumps), "--json") == 0
+    assert len(json.loads(capsys.readouterr().out)["markers"]) == 3
+    # a marker a mapping's pattern matches is read; a file named on the command line is never a marker
+    shutil.copy(DUMPS / "passengers.csv", dumps / "_passengers.csv")
+    mine = tmp_path / "mappings"
+    shutil.copytree(MAPPINGS, mine)
+    text = (mine / "passengers.yaml").read_text()
+    (mine / "passengers.yaml").write_text(
+        text.replace('files: ["passengers*.csv"]', 'files: ["passengers*.csv", "_passengers.csv"]')
+    )
+    assert cli("check", "--mappings", str(mine), str(dumps), "--json") == 0
+    report = json.loads(capsys.readouterr().out)
+    assert "_passengers.csv" in {f["file"] for f in report["files"]} and len(report["markers"]) == 3
+    assert cli("check", "--mappings", str(MAPPINGS), str(dumps / "_SUCCESS")) == 4
+    assert "matches no mapping" in capsys.readouterr().err
+
+
 def test_check_reports_unmapped_columns_and_rejects(capsys: pytest.CaptureFixture[str]) -> None:
     assert cli("check", "--mappings", str(MAPPINGS), str(DUMPS), "--json") == 0
     report = json.loads(capsys.readouterr().out)

@@ -196,6 +196,7 @@ def commit_run(
             "inputs": inputs,
             "skipped": result.skipped,
             "hidden": result.hidden,
+            "markers": result.markers,
             "notes": file_notes(result),
             "ledger": result.ledger.as_dict(),
             "pending": result.pending,

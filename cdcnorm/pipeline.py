@@ -316,7 +316,7 @@ def read_all(
         by_format: dict[str, list[RawFile]] = {}
         modules = {}
         for f in raw.files:
-            module = reader_for(f.path, options.input_format)
+            module = reader_for(f.path, options.input_format or by_name[table].mapping.format)
             modules[module.FORMAT] = module
             by_format.setdefault(module.FORMAT, []).append(f)
         for fmt, files in by_format.items():
@@ -507,12 +507,17 @@ def _run(
 ) -> Result:
     from cdcnorm.landing import memory
 
+    by_name = {m.table: m for m in mappings}
     engine = DuckDBEngine(
         memory_limit=options.memory_limit,
         threads=options.threads,
         temp_directory=str(scratch / "spill"),
         spill_limit=options.spill_limit,
-        input_bytes=sum(streams.planned_size(p) for paths in routed.values() for p in paths),
+        input_bytes=sum(
+            streams.planned_size(p, options.input_format or by_name[t].mapping.format)
+            for t, paths in routed.items()
+            for p in paths
+        ),
     )
     if (note := engine.memory_note()) is not None:
         notice(note)

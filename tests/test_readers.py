@@ -608,3 +608,71 @@ def test_lookup_leaves_a_large_share_of_the_rows_to_the_join(tmp_path: Path) -> 
     assert engine.lookup(big, "few") is not None  # at most a quarter of its 3,000 rows: by rowid
     assert engine.lookup(big, "many") is None
     assert engine.lookup("no_such_view", "few") is None
+
+
+def test_a_mapping_names_the_format_its_files_names_do_not_tell(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], convert: ConvertFn
+) -> None:
+    # some lake writers name JSON Lines part-0000.json (common practice); before, no mapping could say
+    # so, and the file stopped the run (exit 4) with no hint of --input-format
+    import gzip
+
+    line = '{"op": "I", "pos": %d, "id": %d, "a": "x", "b": "y"}\n'
+    files: dict[str, str | bytes] = {
+        "n-0.json": line % (1, 1),
+        "n-1.json.gz": gzip.compress((line % (2, 2)).encode()),
+    }
+    done = convert(MAPPING + "format: jsonl\n", files)
+    assert [e["origin"]["file"] for e in done.events("t.notes")] == ["n-0.json", "n-1.json.gz"]
+    # without it: exit 4, the file named, the way out given
+    (tmp_path / "m").mkdir()
+    (tmp_path / "m" / "t.yaml").write_text(MAPPING)
+    (tmp_path / "d").mkdir()
+    (tmp_path / "d" / "n-0.json").write_text(line % (1, 1))
+    capsys.readouterr()
+    assert (
+        cli("convert", str(tmp_path / "d"), "--mappings", str(tmp_path / "m"), "--out", str(tmp_path / "o"))
+        == 4
+    )
+    err = " ".join(capsys.readouterr().err.split())
+    assert (
+        "n-0.json: cannot tell this file's format from its name" in err
+        and "format: csv | jsonl | parquet" in err
+    )
+    # --input-format reads every input so, over a mapping's format
+    assert (
+        cli(
+            "convert",
+            str(tmp_path / "d"),
+            "--mappings",
+            str(tmp_path / "m"),
+            "--out",
+            str(tmp_path / "o"),
+            "--input-format",
+            "jsonl",
+        )
+        == 0
+    )
+    (tmp_path / "m" / "t.yaml").write_text(MAPPING + "format: csv\n")
+    assert (
+        cli(
+            "check",
+            str(tmp_path / "d"),
+            "--mappings",
+            str(tmp_path / "m"),
+            "--input-format",
+            "jsonl",
+            "--json",
+        )
+        == 0
+    )
+    # a Parquet file named .dat, by its mapping's format
+    (tmp_path / "m" / "t.yaml").write_text(MAPPING + "format: parquet\n")
+    (tmp_path / "p").mkdir()
+    pq.write_table(
+        pa.table({"op": ["I"], "pos": [3], "id": [3], "a": ["p"], "b": ["q"]}), tmp_path / "p" / "n-2.dat"
+    )
+    capsys.readouterr()
+    assert cli("check", str(tmp_path / "p"), "--mappings", str(tmp_path / "m"), "--json") == 0
+    (f,) = json.loads(capsys.readouterr().out)["files"]
+    assert f["format"] == "parquet" and f["rows"] == 1

@@ -773,6 +773,11 @@ def test_a_run_plans_its_memory_for_the_text_its_files_hold(tmp_path: Path) -> N
     for name in ("a.csv.gz", "a.csv.bz2", "a.parquet"):  # counted as five times their size
         assert streams.planned_size(tmp_path / name) == 5 * (tmp_path / name).stat().st_size
     assert streams.planned_size(tmp_path / "gone.csv") == 0
+    # a format the mapping names counts over the name's suffix (Parquet named .dat, text named .pq)
+    (tmp_path / "a.dat").write_bytes((tmp_path / "a.parquet").read_bytes())
+    assert streams.planned_size(tmp_path / "a.dat", "parquet") == 5 * (tmp_path / "a.dat").stat().st_size
+    (tmp_path / "b.pq").write_bytes(text)
+    assert streams.planned_size(tmp_path / "b.pq", "csv") == len(text)
 
 
 def test_a_note_says_when_the_input_is_large_for_the_limit(
@@ -791,7 +796,7 @@ def test_a_note_says_when_the_input_is_large_for_the_limit(
     )
     (tmp_path / "s.csv").write_text("op,pos,id\nI,1,1\n", encoding="utf-8")
     # as if the file held 500 GiB of text: no test writes that much
-    monkeypatch.setattr(streams, "planned_size", lambda path: 500 * GiB)
+    monkeypatch.setattr(streams, "planned_size", lambda path, fmt=None: 500 * GiB)
     args = ["convert", "--mappings", str(tmp_path / "m"), str(tmp_path / "s.csv"), "--memory-limit", "2GB"]
     assert cli(*args, "--out", str(tmp_path / "a")) == 0
     said = capsys.readouterr()

@@ -242,6 +242,11 @@ class Mapping(Strict):
     change: ChangeSpec
     fields: dict[str, Annotated[FieldSpec, Field()]]
     csv: CsvOptions = Field(default_factory=CsvOptions, description="CSV dialect of this table's CSV dumps.")
+    format: Literal["csv", "jsonl", "parquet"] | None = Field(
+        default=None,
+        description="Format of this table's dumps whatever their names end in (JSON Lines written as "
+        "part-0000.json, say); by default each file's suffix tells it.",
+    )
     unused: list[str] = Field(
         default_factory=list,
         description="Raw columns no field reads, on purpose (a nested object's name covers its "

@@ -34,6 +34,9 @@ def reader_for(path: Path, fmt: str | None = None) -> ModuleType:
         "cannot tell this file's format from its name",
         file=str(path),
         expected=f"a name ending in {suffixes}, optionally followed by {', '.join(streams.COMPRESSIONS)}",
+        found=path.name,
+        hint=f"name the format of the table's files in its mapping (format: {' | '.join(READERS)}), or of "
+        "every input with --input-format",
     )
 
 

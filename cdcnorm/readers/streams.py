@@ -56,15 +56,18 @@ def blocks(path: Path, size: int = BLOCK) -> Iterator[bytes]:
         raise _fail(path, e) from None
 
 
-def planned_size(path: Path) -> int:
-    """The bytes ``path`` holds as text, estimated from its size (0 when it cannot be read)."""
+def planned_size(path: Path, fmt: str | None = None) -> int:
+    """The bytes ``path`` holds as text, estimated from its size (0 when it cannot be read);
+    ``fmt``: the format the file is read as, where a mapping or the command line names it."""
+    from cdcnorm.readers.parquet import FORMAT as PARQUET
     from cdcnorm.readers.parquet import SUFFIXES as COLUMNAR  # the names the Parquet reader takes
 
     try:
         size = path.stat().st_size
     except OSError:
         return 0
-    packed = compression(path) is not None or base_name(path).lower().endswith(COLUMNAR)
+    columnar = fmt == PARQUET if fmt else base_name(path).lower().endswith(COLUMNAR)
+    packed = compression(path) is not None or columnar
     return size * COMPRESSED_SIZE_FACTOR if packed else size
 
 

@@ -804,10 +804,11 @@ def _placement_case(tmp_path: Path, tables: dict[str, str], fields: str = "  v: 
     ],
     ids=["tombstones", "schema", "applied-log", "field"],
 )
-@pytest.mark.parametrize("kind", ["sqlite", "duckdb"])
+@pytest.mark.parametrize("kind", ["sqlite", "duckdb", "postgresql"])
 def test_tables_apply_would_mix_are_refused_before_anything_is_written(
     tmp_path: Path,
     capsys: pytest.CaptureFixture[str],
+    request: pytest.FixtureRequest,
     kind: str,
     tables: dict[str, str],
     fields: str,
@@ -819,10 +820,24 @@ def test_tables_apply_would_mix_are_refused_before_anything_is_written(
     mdir, landing = _placement_case(tmp_path, tables, fields)
     capsys.readouterr()
     db = tmp_path / "w.db"
-    assert cli("apply", str(landing), "--mappings", str(mdir), "--target", f"{kind}:///{db}", *extra) == 3
+    url = request.getfixturevalue("pg_url") if kind == "postgresql" else f"{kind}:///{db}"
+    assert cli("apply", str(landing), "--mappings", str(mdir), "--target", url, *extra) == 3
     err = capsys.readouterr().err
     assert says in err and "Traceback" not in err
     assert re.search(r"mappings/\w\.yaml:\d+: ", err), err  # the mapping file, and its line
+    if kind == "postgresql":  # nothing was made in the target
+        import sqlalchemy as sa
+
+        engine = sa.create_engine(url)
+        with engine.connect() as c:
+            made = c.execute(
+                sa.text(
+                    "SELECT count(*) FROM information_schema.tables "
+                    "WHERE table_schema NOT IN ('pg_catalog', 'information_schema')"
+                )
+            ).scalar()
+        engine.dispose()
+        assert made == 0
     if db.exists():  # nothing was made in the target
         con = duckdb.connect(str(db)) if kind == "duckdb" else sqlite3.connect(db)
         assert con.execute(

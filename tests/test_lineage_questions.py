@@ -1223,3 +1223,21 @@ def test_a_catalog_that_states_a_key_twice_is_refused(
     assert cli("trace", "m.id", *args, "--catalog", str(tmp_path / name)) == 2
     err = capsys.readouterr().err
     assert said in err and "Traceback" not in err
+
+
+def test_an_edit_that_breaks_exits_8_even_when_the_answer_is_incomplete(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # a CI gate reads the exit code first: a break found is certain, so 8 wins over 11, and the
+    # answer still says that more may break
+    models = tmp_path / "models"
+    models.mkdir()
+    (models / "m1.sql").write_text("SELECT fare, not_a_column FROM ferry.bookings")
+    (models / "m2.sql").write_text("SELECT fare * 2 AS fare2 FROM m1")
+    args = ("--models", str(models), "--mappings", str(MAPPINGS))
+    capsys.readouterr()
+    assert cli("impact", *args, "ferry.bookings.fare", "--drop", "--json") == 8
+    answer = json.loads(capsys.readouterr().out)
+    assert answer["complete"] is False and answer["unresolved"][0]["reference"] == "not_a_column"
+    assert [b["model"] for b in answer["broken_models"]] == ["m1"]
+    assert cli("impact", *args, "ferry.bookings.fare") == 11  # no edit, nothing breaks: incomplete

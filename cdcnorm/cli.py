@@ -504,7 +504,16 @@ def _report_run(
         out.print("skipped, converted before: " + ", ".join(skipped))
     _print_hidden(hidden, result.markers)
     if result.run is None:
-        out.print(f"nothing new to convert: no run was added to {landing}")
+        if getattr(args, "command", None) == "settle":
+            out.print(
+                f"nothing to settle: no before-image waits below --before {args.before} "
+                f"({counted(result.waiting, 'before-image')} {'waits' if result.waiting == 1 else 'wait'} "
+                f"at or above it); no run was added to {landing}",
+                markup=False,
+                soft_wrap=True,
+            )
+        else:
+            out.print(f"nothing new to convert: no run was added to {landing}")
         return
     print_table(out, _ledger_table(result))
     if any(len(tl.files) > LEDGER_FILES for tl in result.ledger.tables.values()):

@@ -455,6 +455,12 @@ def run(
             result = _run(mappings, routed, options, scratch, None, progress, strict_drift, area, notice)
             result.skipped = skipped
             result.hidden, result.markers = hidden, markers
+            total = result.ledger.total
+            if not any(routed.values()) and total.quarantined == total.emitted == total.merged == 0:
+                # a settle that ends no wait (every image is at or above --before): a run would
+                # change nothing, so none is added
+                result.waiting = total.pending
+                return result
             commit_run(result, area, options, inputs_info, later, progress)
         if options.max_rejects is not None and result.quarantined > options.max_rejects:
             raise RejectLimitError(

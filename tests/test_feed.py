@@ -225,6 +225,15 @@ def test_settle_ends_the_wait(tmp_path: Path, capsys: pytest.CaptureFixture[str]
     report = json.loads(capsys.readouterr().out)
     assert report["pending"] == 1 and report["ledger"]["total"]["pending_in"] == 2
     assert report["ledger"]["total"]["quarantined"] == 1
+    # a settle that ends no wait adds no run (before: an empty run, 1 carried in and 1 left waiting)
+    runs = sorted((landing / "runs").glob("*.json"))
+    assert cli("settle", str(landing), "--mappings", str(m), "--before", "7") == 0
+    said = " ".join(capsys.readouterr().out.split())
+    assert (
+        "nothing to settle: no before-image waits below --before 7 (1 before-image waits at or above it)"
+        in said
+    )
+    assert sorted((landing / "runs").glob("*.json")) == runs
     (q,) = [
         json.loads(x)
         for x in sorted((landing / "quarantine" / "t.cabins").glob("*"))[-1].read_text().splitlines()

@@ -505,12 +505,15 @@ def _report_run(
     _print_hidden(hidden, result.markers)
     if result.run is None:
         if getattr(args, "command", None) == "settle":
+            n = result.waiting
+            why = (
+                "no before-image waits"
+                if n == 0
+                else f"no before-image waits below --before {args.before} ({counted(n, 'before-image')} "
+                f"{'waits' if n == 1 else 'wait'} at or above it)"
+            )
             out.print(
-                f"nothing to settle: no before-image waits below --before {args.before} "
-                f"({counted(result.waiting, 'before-image')} {'waits' if result.waiting == 1 else 'wait'} "
-                f"at or above it); no run was added to {landing}",
-                markup=False,
-                soft_wrap=True,
+                f"nothing to settle: {why}; no run was added to {landing}", markup=False, soft_wrap=True
             )
         else:
             out.print(f"nothing new to convert: no run was added to {landing}")

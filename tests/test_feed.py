@@ -242,6 +242,9 @@ def test_settle_ends_the_wait(tmp_path: Path, capsys: pytest.CaptureFixture[str]
     assert "settled" in q["_cdcnorm"]["reasons"][0]["reason"] and q["_cdcnorm"]["file"] == "c1.csv"
     assert cli("settle", str(landing), "--mappings", str(m), "--all", "--quiet") == 0
     assert last_run(landing)["pending"] == 0
+    capsys.readouterr()
+    assert cli("settle", str(landing), "--mappings", str(m), "--all") == 0
+    assert "nothing to settle: no before-image waits; no run was added" in capsys.readouterr().out
     assert cli("settle", str(landing), "--mappings", str(m), "--before", "x", "--quiet") == 2
 
 

@@ -864,3 +864,42 @@ def test_sqlite_and_duckdb_take_table_names_that_differ_in_case_as_one() -> None
     d.execute('CREATE TABLE "X__deleted" (a INT)')
     with pytest.raises(duckdb.CatalogException):
         d.execute('CREATE TABLE "x__deleted" (a INT)')
+
+
+@pytest.mark.parametrize("command", ["snapshot", "apply"])
+def test_a_folder_that_is_no_landing_area_is_refused(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], command: str
+) -> None:
+    # before: the dumps folder given by mistake (or an empty folder) gave empty state, and apply
+    # made empty tables in the target and exited 0
+    mappings = ROOT / "mappings"
+    out = (
+        ["--out", str(tmp_path / "state")]
+        if command == "snapshot"
+        else ["--target", f"sqlite:///{tmp_path / 'w.db'}"]
+    )
+    (tmp_path / "empty").mkdir()
+    for folder, found in (
+        (ROOT / "examples" / "dumps", "4 entries: bookings-archive.csv"),
+        (tmp_path / "empty", "an empty folder"),
+    ):
+        assert cli(command, str(folder), "--mappings", str(mappings), *out) == 4
+        err = " ".join(capsys.readouterr().err.split())
+        assert "this folder holds no runs and no event files" in err and found in err
+    assert not (tmp_path / "w.db").exists() and not (tmp_path / "state").exists()
+    # a landing area, and its events folder, are read
+    landing = tmp_path / "landing"
+    assert (
+        cli(
+            "convert",
+            "--quiet",
+            "--mappings",
+            str(mappings),
+            str(ROOT / "examples" / "dumps"),
+            "--out",
+            str(landing),
+        )
+        == 0
+    )
+    assert cli(command, str(landing), "--mappings", str(mappings), *out, "--quiet") == 0
+    assert cli(command, str(landing / "events"), "--mappings", str(mappings), *out, "--quiet") == 0

@@ -18,6 +18,7 @@ from cdcnorm.landing.area import writable_folder
 from cdcnorm.mapping import load_mappings
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.scratch import scratch_folder
+from cdcnorm.state.events import check_landing
 from cdcnorm.tables import print_table
 
 #: Where ``apply`` finds its target when --target is not given (keeps a password off the command line).
@@ -125,6 +126,7 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
     from cdcnorm.state.events import event_files, load_events
 
     landing = Path(args.landing)
+    check_landing(landing)
     mappings = load_mappings(Path(args.mappings))
     chosen = _chosen(mappings, args.table)
     folder = Path(args.out)
@@ -196,6 +198,7 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
         raise UsageError("--batch-rows must be at least 1", found=str(args.batch_rows))
     target = target_for(url, args.wait)
     landing = Path(args.landing)
+    check_landing(landing)
     mappings = load_mappings(Path(args.mappings))
     chosen = _chosen(mappings, args.table)
     # before anything is written: every table apply makes has a place of its own (with --schema,

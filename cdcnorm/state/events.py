@@ -33,7 +33,7 @@ import sqlglot
 from sqlglot import exp
 
 from cdcnorm.engines.duckdb import DuckDBEngine
-from cdcnorm.errors import InputError
+from cdcnorm.errors import InputError, name_list
 from cdcnorm.landing import runs
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.mapping.model import FieldSpec
@@ -87,6 +87,35 @@ def events_root(landing: Path) -> Path:
             found="no such folder" if not landing.exists() else "a file",
         )
     return landing / "events" if (landing / "events").is_dir() else landing
+
+
+def check_landing(landing: Path) -> None:
+    """``landing`` is a landing area (it has runs) or a folder of ``<table>/`` folders holding event
+    files; anything else (the dumps folder given by mistake, an empty folder) is refused, since its
+    state would be empty tables and apply would make them without a word."""
+    root = events_root(landing)
+    if (landing / runs.RUNS).is_dir():
+        return
+    if any(
+        f.suffix in SUFFIXES and not f.name.startswith(".")
+        for folder in root.iterdir()
+        if folder.is_dir()
+        for f in folder.iterdir()
+    ):
+        return
+    entries = list(landing.iterdir())
+    raise InputError(
+        "this folder holds no runs and no event files",
+        file=str(landing),
+        expected="a landing area written by cdcnorm convert (its --out folder), or a folder of "
+        "<table>/ folders of event files (.jsonl, .parquet)",
+        found="an empty folder"
+        if not entries
+        else f"{len(entries):,} {'entry' if len(entries) == 1 else 'entries'}: "
+        + name_list(sorted(e.name for e in entries)[:5])
+        + (", ..." if len(entries) > 5 else ""),
+        hint="name the folder cdcnorm convert wrote with --out",
+    )
 
 
 def event_files(landing: Path, table: str) -> list[EventFile]:

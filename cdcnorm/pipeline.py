@@ -404,6 +404,26 @@ def compile_table(
     return plan
 
 
+def _out_apart(out: Path, inputs: Iterable[str | Path]) -> None:
+    """The landing area is not an input folder, nor inside one: the next run would read its files as
+    dumps (its quarantine files as rows to convert again) with ``--recursive``, and stop on its
+    sub-folders without."""
+    where = out.resolve()
+    for raw in inputs:
+        folder = Path(raw)
+        if not folder.is_dir():
+            continue
+        inside = folder.resolve() in where.parents
+        if where == folder.resolve() or inside:
+            raise UsageError(
+                f"--out {out} is {'inside ' if inside else ''}the input folder {folder}: the next run "
+                "would find the landing area among the dumps",
+                expected="a landing area apart from the dumps",
+                found=str(out),
+                hint=f"write it to a folder of its own, e.g. --out {folder.resolve().parent / 'landing'}",
+            )
+
+
 def run(
     mappings: Sequence[LoadedMapping],
     inputs: Iterable[str | Path],
@@ -425,6 +445,8 @@ def run(
     for folder, what in ((options.out, "landing area"), (options.scratch, "scratch folder")):
         if folder is not None:
             text_path(folder, what)
+    if options.out is not None and options.write:
+        _out_apart(options.out, inputs)
     files, hidden_files = gather_inputs(inputs, recursive=options.recursive)
     files, marker_files = set_aside_markers(files, mappings, inputs)
     if not files and options.settle is None:

@@ -409,3 +409,20 @@ def test_runs_starting_at_once_on_a_new_landing_area_do_not_trip_over_each_other
     with ThreadPoolExecutor(8) as pool:
         list(pool.map(lambda _: [_check_folder(root) for _ in range(50)], range(8)))
     assert root.is_dir() and list(root.iterdir()) == []
+
+
+def test_a_landing_area_in_an_input_folder_is_refused(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: --out the dumps folder itself was accepted; the next run stopped on its sub-folders
+    # and suggested --recursive, which would have read the quarantine files as rows to convert again
+    m, landing, p = _landing_cli(tmp_path, {"c1.csv": "I,1,A1,1\n"})
+    dumps = p["c1.csv"].parent
+    for out in (dumps, dumps / "landing"):
+        for extra in ((), ("--recursive",)):
+            assert cli("convert", "--mappings", str(m), str(dumps), "--out", str(out), *extra) == 2
+            err = " ".join(capsys.readouterr().err.split())
+            assert "the next run would find the landing area among the dumps" in err, err
+    assert sorted(q.name for q in dumps.iterdir()) == ["c1.csv"]  # nothing was written there
+    # a landing area beside the folder is fine
+    assert cli("convert", "--quiet", "--mappings", str(m), str(dumps), "--out", str(landing)) == 0

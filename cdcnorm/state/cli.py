@@ -18,7 +18,6 @@ from cdcnorm.landing.area import writable_folder
 from cdcnorm.mapping import load_mappings
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.scratch import scratch_folder
-from cdcnorm.state.events import check_landing
 from cdcnorm.tables import print_table
 
 #: Where ``apply`` finds its target when --target is not given (keeps a password off the command line).
@@ -123,7 +122,7 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
     from cdcnorm.engines.duckdb import engine_errors
     from cdcnorm.names import path_part
     from cdcnorm.state import snapshot
-    from cdcnorm.state.events import event_files, load_events
+    from cdcnorm.state.events import check_landing, event_files, load_events
 
     landing = Path(args.landing)
     check_landing(landing)
@@ -197,6 +196,8 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
     if args.batch_rows < 1:
         raise UsageError("--batch-rows must be at least 1", found=str(args.batch_rows))
     target = target_for(url, args.wait)
+    from cdcnorm.state.events import check_landing  # which imports sqlglot: not at the module's top
+
     landing = Path(args.landing)
     check_landing(landing)
     mappings = load_mappings(Path(args.mappings))

@@ -156,14 +156,19 @@ def test_csv_options_that_cannot_read_a_file_are_refused(tmp_path: Path, csv: st
             GOOD.replace("key: [booking_id]", "key: [doc]") + "  doc: {from: body, type: json}\n",
             "key field doc is json",
         ),
+        # before: loaded, and every file of the table then "matches no mapping" (patterns match names)
+        (
+            GOOD.replace('files: ["bookings*.csv"]', 'files: ["bookings*.csv", "2026-*/bookings*.csv"]'),
+            "files pattern '2026-*/bookings*.csv' has a folder in it",
+        ),
     ],
-    ids=["no-codes", "key-twice", "field-without-name", "json-key"],
+    ids=["no-codes", "key-twice", "field-without-name", "json-key", "folder-in-pattern"],
 )
 def test_mappings_the_plan_cannot_run_are_refused_on_load(tmp_path: Path, text: str, said: str) -> None:
     err = _load(tmp_path, text)
     assert said in err.message
     # the line of the key at fault, not line 1
-    assert err.line == {"change.action.codes": 5, "key": 3, "fields.": 10}[err.field or ""]
+    assert err.line == {"change.action.codes": 5, "key": 3, "fields.": 10, "files": 2}[err.field or ""]
 
 
 def test_a_key_that_is_not_a_field_is_named_with_the_closest_field(tmp_path: Path) -> None:

@@ -260,6 +260,19 @@ class Mapping(Strict):
             return {str(k): _field_shorthand(v) for k, v in value.items()}
         return value
 
+    @field_validator("files")
+    @classmethod
+    def _patterns_of_names(cls, v: list[str]) -> list[str]:
+        for pattern in v:
+            if "/" in pattern:  # no file name holds one (POSIX)
+                name = pattern.rsplit("/", 1)[-1]
+                raise ValueError(
+                    f"files pattern {pattern!r} has a folder in it, but patterns match file names only, "
+                    f"so it would match no file; write {name!r} and give the folders as inputs "
+                    "(--recursive reads sub-folders)"
+                )
+        return v
+
     @field_validator("table")
     @classmethod
     def _table_is_a_safe_name(cls, v: str) -> str:

@@ -903,3 +903,41 @@ def test_a_folder_that_is_no_landing_area_is_refused(
     )
     assert cli(command, str(landing), "--mappings", str(mappings), *out, "--quiet") == 0
     assert cli(command, str(landing / "events"), "--mappings", str(mappings), *out, "--quiet") == 0
+
+
+def test_apply_of_one_table_is_refused_only_for_its_own_places(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # two other mappings that would mix do not stop the apply of a third; one of them applied on
+    # its own is refused, since the other's tombstones would be its table
+    mdir, landing = _placement_case(tmp_path, {"x": "shop.x", "y": "shop.y", "z": "shop.y__deleted"})
+    url = f"sqlite:///{tmp_path / 'w.db'}"
+    capsys.readouterr()
+    assert cli("apply", str(landing), "--mappings", str(mdir), "--target", url, "--table", "shop.x") == 0
+    assert (
+        cli("apply", str(landing), "--mappings", str(mdir), "--target", url, "--table", "shop.y__deleted")
+        == 3
+    )
+    assert "tombstone table of shop.y" in capsys.readouterr().err
+    assert cli("apply", str(landing), "--mappings", str(mdir), "--target", url) == 3
+    con = sqlite3.connect(tmp_path / "w.db")
+    names = {n for (n,) in con.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+    con.close()
+    assert names == {"shop.x", "shop.x__deleted", "cdcnorm_applied"}
+
+
+def test_a_mapping_postgresql_cannot_name_stops_only_its_own_apply(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], pg_url: str
+) -> None:
+    # PostgreSQL cuts identifiers longer than max_identifier_length bytes (63: the server says so
+    # below); a mapping whose table it would cut does not stop the apply of another table
+    import psycopg
+
+    with psycopg.connect(pg_url) as c:
+        assert c.execute("SHOW max_identifier_length").fetchone() == ("63",)
+    long_name = "shop." + "t" * 70
+    mdir, landing = _placement_case(tmp_path, {"x": "shop.x", "y": long_name})
+    capsys.readouterr()
+    assert cli("apply", str(landing), "--mappings", str(mdir), "--target", pg_url, "--table", "shop.x") == 0
+    assert cli("apply", str(landing), "--mappings", str(mdir), "--target", pg_url, "--table", long_name) == 2
+    assert "too long for the target" in capsys.readouterr().err

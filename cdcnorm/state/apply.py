@@ -27,7 +27,7 @@ import duckdb
 import sqlalchemy as sa
 
 from cdcnorm.engines.duckdb import DuckDBEngine
-from cdcnorm.errors import InputError, MappingError, TargetError, counted, per_second
+from cdcnorm.errors import CdcnormError, InputError, MappingError, TargetError, counted, per_second
 from cdcnorm.inputs import checksum
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.sql import ident
@@ -160,17 +160,28 @@ def _check_values(
         )
 
 
-def placed(target: Target, mappings: list[LoadedMapping], schema: str | None = None) -> list[TableSpec]:
-    """Where each mapping's table goes in ``target`` (with ``--schema``, if given): refused, naming
-    the mapping file, when a field is named like a column apply adds, or when two of the tables apply
-    makes (a table, its tombstones, the applied log) would be one table in the target. Names are
-    compared ignoring case, as DuckDB and SQLite compare even quoted names (common practice)."""
-    specs = []
+def placed(
+    target: Target,
+    mappings: list[LoadedMapping],
+    schema: str | None = None,
+    *,
+    applied: list[LoadedMapping] | None = None,
+) -> list[TableSpec]:
+    """Where the tables of ``applied`` (default: every mapping) go in ``target`` (with ``--schema``,
+    if given), in their order: refused, naming the mapping file, when a field is named like a column
+    apply adds, or when a table apply makes for one of them (a table, its tombstones, the applied
+    log) would be one table in the target with another that ``mappings`` make. Names are compared
+    ignoring case, as DuckDB and SQLite compare even quoted names (common practice). The other
+    mappings only take their places: one the target cannot hold is not this apply's to refuse."""
+    applying = mappings if applied is None else applied
+    chosen = {id(lm) for lm in applying}
+    specs: dict[int, TableSpec] = {}
     owners: dict[tuple[str, str], tuple[str, LoadedMapping]] = {}
-    for lm in mappings:
+    for lm in [*applying, *(lm for lm in mappings if id(lm) not in chosen)]:
         m = lm.mapping
+        mine = id(lm) in chosen
         for added in (POSITION, ACTION):
-            if added in m.fields:
+            if mine and added in m.fields:
                 raise MappingError(
                     f"field {added} of {m.table} has the name of a column apply adds to its table",
                     file=str(lm.path),
@@ -181,12 +192,18 @@ def placed(target: Target, mappings: list[LoadedMapping], schema: str | None = N
                     hint="rename the field, keeping its raw column with from: (e.g. "
                     f"{added}_1: {{from: {json.dumps(m.raw_column(added))}}})",
                 )
-        spec = target.spec(m.table, schema, tuple(m.fields), tuple(m.key), lm.field_types)
-        specs.append(spec)
+        try:
+            spec = target.spec(m.table, schema, tuple(m.fields), tuple(m.key), lm.field_types)
+        except CdcnormError:
+            if mine:
+                raise
+            continue
+        if mine:
+            specs[id(lm)] = spec
         folded = (spec.schema or "").casefold()
         for name, role in ((spec.name, "table"), (spec.name + TOMBSTONES, "tombstone table")):
             shown = f"{spec.schema}.{name}" if spec.schema else name
-            if name.casefold() in (APPLIED, BATCH):
+            if mine and name.casefold() in (APPLIED, BATCH):
                 raise MappingError(
                     f"the {role} of {m.table} would be {shown}, a table apply keeps for itself",
                     file=str(lm.path),
@@ -197,7 +214,7 @@ def placed(target: Target, mappings: list[LoadedMapping], schema: str | None = N
                     hint="rename the table in the mapping",
                 )
             other = owners.get((folded, name.casefold()))
-            if other is not None:
+            if other is not None and (mine or id(other[1]) in chosen):
                 other_role, other_lm = other
                 raise MappingError(
                     f"the {role} of {m.table} and the {other_role} of {other_lm.table} ({other_lm.path}) "
@@ -211,8 +228,8 @@ def placed(target: Target, mappings: list[LoadedMapping], schema: str | None = N
                     hint="rename one of the tables in its mapping"
                     + (", or apply them to different schemas with --table and --schema" if schema else ""),
                 )
-            owners[(folded, name.casefold())] = (role, lm)
-    return specs
+            owners.setdefault((folded, name.casefold()), (role, lm))
+    return [specs[id(lm)] for lm in applying]
 
 
 def apply_table(

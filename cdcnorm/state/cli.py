@@ -204,7 +204,7 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
     chosen = _chosen(mappings, args.table)
     # before anything is written: every table apply makes has a place of its own (with --schema,
     # among the tables of this apply; without it, among every mapping's, as each will be applied)
-    placed(target, chosen if args.schema is not None else mappings, args.schema)
+    placed(target, chosen if args.schema is not None else mappings, args.schema, applied=chosen)
 
     import duckdb
     import psycopg

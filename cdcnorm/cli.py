@@ -445,8 +445,8 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
         _show_stage(result, stop, args.limit, args.table, args.json)
         return EXIT_OK
     if check:
-        return _report_check(result, args, result.hidden)
-    _report_run(result, args, Path(args.out), result.hidden, time.monotonic() - began)
+        return _report_check(result, args)
+    _report_run(result, args, Path(args.out), time.monotonic() - began)
     return EXIT_OK
 
 
@@ -477,7 +477,7 @@ def _print_hidden(hidden: list[str], markers: list[str]) -> None:
 
 
 def _report_run(
-    result: Result, args: argparse.Namespace, landing: Path, hidden: list[str], seconds: float | None = None
+    result: Result, args: argparse.Namespace, landing: Path, seconds: float | None = None
 ) -> None:
     skipped = [f"{s['name']} (run {s['converted_by']})" for s in result.skipped]
     if args.json:
@@ -490,7 +490,7 @@ def _report_run(
                     "pending": result.pending,
                     "waiting": result.waiting,
                     "skipped": result.skipped,
-                    "hidden": hidden,
+                    "hidden": result.hidden,
                     "markers": result.markers,
                     "notes": file_notes(result),
                     "memory_note": result.memory_note,
@@ -502,7 +502,7 @@ def _report_run(
         return
     if skipped:
         out.print("skipped, converted before: " + ", ".join(skipped))
-    _print_hidden(hidden, result.markers)
+    _print_hidden(result.hidden, result.markers)
     if result.run is None:
         if getattr(args, "command", None) == "settle":
             n = result.waiting
@@ -620,18 +620,18 @@ def cmd_settle(args: argparse.Namespace) -> int:
     options = Options(out=Path(args.landing), wait=args.wait, settle="all" if args.all else args.before)
     result = run(mappings, [], options)
     args.out = args.landing
-    _report_run(result, args, Path(args.landing), [])
+    _report_run(result, args, Path(args.landing))
     return EXIT_OK
 
 
-def _report_check(result: Result, args: argparse.Namespace, hidden: list[str]) -> int:
+def _report_check(result: Result, args: argparse.Namespace) -> int:
     sources = describe_sources(result)
     drift = [d.message() for d in result.drift]
     report = {
         "files": sources,
         "drift": drift,
         "tables": result.ledger.as_dict()["tables"],
-        "hidden": hidden,
+        "hidden": result.hidden,
         "markers": result.markers,
         "memory_note": result.memory_note,
     }
@@ -686,7 +686,7 @@ def _report_check(result: Result, args: argparse.Namespace, hidden: list[str]) -
             for reason, n in sorted(tl.reasons.items()):
                 out.print(f"{name}: {n} x {reason}")
         _print_notes(result)
-        _print_hidden(hidden, result.markers)
+        _print_hidden(result.hidden, result.markers)
         for d in drift:
             out.print(Text.assemble(("drift", "red"), " ", d))
     return 4 if drift else EXIT_OK

@@ -551,7 +551,6 @@ def _run(
         notice(note)
     zones.register(engine, mappings)
     read = read_all(mappings, routed, engine, options, progress, scratch)
-    by_name = {m.table: m for m in mappings}
     if area is not None and options.settle is not None:
         for m in mappings:  # a settle run visits every table with images waiting
             if m.table not in read and area.waiting(m.table):

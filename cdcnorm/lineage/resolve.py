@@ -765,16 +765,14 @@ class StatementResolver:
                 )
             else:
                 shown: dict[str, str] = {}
+                searched = []  # the tables (by name) and CTEs or derived tables (by alias) in scope
                 for a in scope.selected_sources:
                     src = scope.sources.get(a)
                     info = self.catalog.find(table_parts(src)) if isinstance(src, exp.Table) else None
+                    searched.append(".".join(table_parts(src)) if isinstance(src, exp.Table) else a)
                     for c in self._source_columns(scope, a):
                         shown.setdefault(c, info.shown(c) if info else c)
                 close = difflib.get_close_matches(name, sorted(shown), n=3)
-                searched = []
-                for a in scope.selected_sources:
-                    src = scope.sources.get(a)
-                    searched.append(".".join(table_parts(src)) if isinstance(src, exp.Table) else a)
                 self._diag(line, "not in schema", name, [shown[c] for c in close], searched)
             return Deps()
         return self._column_of(table, name, scope, line)

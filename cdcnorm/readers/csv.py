@@ -508,15 +508,9 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
                         flush_bad()
             f.rows = good
             f.malformed = number - good
-            f.notes.append(
-                "read record by record ("
-                + (
-                    "the fast reader rejected it"
-                    if r.encoding.lower() in ENGINE_ENCODINGS
-                    else f"the fast reader does not read {r.encoding}"
-                )
-                + ")"
-            )
+            fast = r.encoding.lower() in ENGINE_ENCODINGS
+            why = "the fast reader rejected it" if fast else f"the fast reader does not read {r.encoding}"
+            f.notes.append(f"read record by record ({why})")
             any_good = any_good or good > 0
     flush_bad()
     if any_good:

@@ -183,6 +183,7 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
 def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
     from cdcnorm.cli import showing_progress
     from cdcnorm.state.apply import apply_table, placed
+    from cdcnorm.state.events import check_landing
     from cdcnorm.targets import target_for
     from cdcnorm.targets.base import scrub
 
@@ -196,8 +197,6 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
     if args.batch_rows < 1:
         raise UsageError("--batch-rows must be at least 1", found=str(args.batch_rows))
     target = target_for(url, args.wait)
-    from cdcnorm.state.events import check_landing  # which imports sqlglot: not at the module's top
-
     landing = Path(args.landing)
     check_landing(landing)
     mappings = load_mappings(Path(args.mappings))

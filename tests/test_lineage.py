@@ -35,6 +35,26 @@ def test_construct(case: dict[str, Any], tmp_path: Path) -> None:
         assert got["influence"] == sorted(want["influence"]), (column, "influence")
 
 
+def test_a_column_copied_on_one_line_and_filtered_on_another_shows_each_edge_at_its_line(
+    tmp_path: Path,
+) -> None:
+    """The copy of a.id is on line 1 and its use in the WHERE on line 3: the value edge and the
+    influence edge each point at their own line (the influence edge once pointed at line 1)."""
+    project = project_from(
+        tmp_path,
+        {
+            "a.sql": "SELECT id, amount FROM shop.orders",
+            "b.sql": "SELECT a.id\nFROM a\nWHERE a.id > 10 AND a.amount > 0",
+        },
+        CASES["schema"],
+    )
+    edges = {
+        (u[2], data["kind"]): data["line"]
+        for u, v, data in project.graph.in_edges(("model", "b", "id"), data=True)
+    }
+    assert edges == {("id", "value"): 1, ("id", "influence"): 3, ("amount", "influence"): 3}
+
+
 @pytest.mark.parametrize("case", CASES["cases"], ids=[c["name"] for c in CASES["cases"]])
 def test_model_columns_are_named_as_duckdb_names_the_views_columns(
     case: dict[str, Any], tmp_path: Path

@@ -578,14 +578,17 @@ def _build_project(
             target: Node = ("model", name, col)
             g.add_node(target, kind="model", table=name, column=col)
             d = merged[col]
-            edges = [(src, "value", sub, "") for src, sub in d.value.items()]
-            edges += [(src, "influence", "", ",".join(sorted(cs))) for src, cs in d.influence.items()]
-            for src, kind, sub, clauses in edges:
+            edges = [(src, "value", sub, "", d.lines.get(src)) for src, sub in d.value.items()]
+            edges += [
+                (src, "influence", "", ",".join(sorted(cs)), d.influence_lines.get(src))
+                for src, cs in d.influence.items()
+            ]
+            for src, kind, sub, clauses, at in edges:
                 if src == target:
                     continue
                 if src not in g:
                     g.add_node(src, kind=src[0], table=src[1], column=src[2])
-                line = d.lines.get(src, lines[col])
+                line = at or lines[col]
                 batch.append(
                     (
                         src,

@@ -48,9 +48,16 @@ def compose(a: str, b: str) -> str:
 
 @dataclass
 class Deps:
+    """A column's sources: what flows into it (value) and what decides its rows (influence).
+
+    Each source keeps the line where it first flows in and, apart, the line where it first decides
+    rows: a column copied on one line and filtered on another is shown at each line for each edge.
+    """
+
     value: dict[Node, str] = field(default_factory=dict)
     influence: dict[Node, set[str]] = field(default_factory=dict)
     lines: dict[Node, int] = field(default_factory=dict)
+    influence_lines: dict[Node, int] = field(default_factory=dict)
 
     def add_value(self, node: Node, sub: str, line: int | None) -> None:
         self.value[node] = compose(self.value.get(node, sub), sub)
@@ -59,8 +66,8 @@ class Deps:
 
     def add_influence(self, node: Node, clauses: Iterable[str], line: int | None) -> None:
         self.influence.setdefault(node, set()).update(clauses)
-        if line and node not in self.lines:
-            self.lines[node] = line
+        if line and node not in self.influence_lines:
+            self.influence_lines[node] = line
 
     def merge(self, other: Deps, *, sub: str = "copy", as_influence: str | None = None) -> None:
         for node, s in other.value.items():
@@ -69,10 +76,15 @@ class Deps:
             else:
                 self.add_value(node, compose(sub, s), other.lines.get(node))
         for node, clauses in other.influence.items():
-            self.add_influence(node, clauses, other.lines.get(node))
+            self.add_influence(node, clauses, other.influence_lines.get(node))
 
     def copy(self) -> Deps:
-        return Deps(dict(self.value), {k: set(v) for k, v in self.influence.items()}, dict(self.lines))
+        return Deps(
+            dict(self.value),
+            {k: set(v) for k, v in self.influence.items()},
+            dict(self.lines),
+            dict(self.influence_lines),
+        )
 
     def __eq__(self, other: object) -> bool:
         return isinstance(other, Deps) and self.value == other.value and self.influence == other.influence
@@ -408,7 +420,7 @@ class StatementResolver:
             d = Deps()
             self.expr(target, scope, d, "copy", None)
             for node, clauses in rows.influence.items():
-                d.add_influence(node, clauses, rows.lines.get(node))
+                d.add_influence(node, clauses, rows.influence_lines.get(node))
             outs.append((proj.alias_or_name, d))
         return outs
 
@@ -456,7 +468,7 @@ class StatementResolver:
             for _, d in out:
                 for node, clauses in every.influence.items():
                     if "distinct" in clauses:
-                        d.add_influence(node, ["distinct"], every.lines.get(node))
+                        d.add_influence(node, ["distinct"], every.influence_lines.get(node))
         return out
 
     def _lateral_query(self, e: exp.Expr) -> Scope | None:

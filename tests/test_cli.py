@@ -641,6 +641,18 @@ def demo_landing(tmp_path_factory: pytest.TempPathFactory) -> Path:
         # before: sqlite:/// opened a database in memory, applied into it and exited 0
         (["apply", "{landing}", "--target", "sqlite:///"], 2, "names a database in memory"),
         (["apply", "{landing}", "--target", "duckdb:///:memory:"], 2, "names a database in memory"),
+        # before: exit 10 with the driver's "unable to open database file" and a hint about columns
+        (
+            ["apply", "{landing}", "--target", "sqlite:///{out}/w.db"],
+            2,
+            "out does not exist (apply makes the database file, not its folder)",
+        ),
+        (
+            ["apply", "{landing}", "--target", "duckdb:///{out}/w.duckdb"],
+            2,
+            "out does not exist (apply makes the database file, not its folder)",
+        ),
+        (["apply", "{landing}", "--target", "sqlite:///{landing}"], 2, "names a folder, not a database file"),
         # before: a traceback (ValueError: Unknown dialect)
         (
             ["trace", "people.person_id", "--models", "{models}", "--dialect", "postgress"],
@@ -656,7 +668,17 @@ def demo_landing(tmp_path_factory: pytest.TempPathFactory) -> Path:
         # before: 100,000 engine threads ran for minutes on the demo before they were all started
         (["convert", "{dumps}", "--out", "{out}", "--threads", "100000"], 2, "threads are too many: at most"),
     ],
-    ids=["snapshot-out-file", "sqlite-memory", "duckdb-memory", "dialect", "empty-dialect", "threads"],
+    ids=[
+        "snapshot-out-file",
+        "sqlite-memory",
+        "duckdb-memory",
+        "sqlite-no-folder",
+        "duckdb-no-folder",
+        "sqlite-folder",
+        "dialect",
+        "empty-dialect",
+        "threads",
+    ],
 )
 def test_odd_arguments_get_a_message_not_a_traceback(
     args: list[str],

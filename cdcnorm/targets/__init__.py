@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import shlex
+from pathlib import Path
+
 import sqlalchemy as sa
 
 from cdcnorm.errors import UsageError, did_you_mean
@@ -37,7 +40,28 @@ def target_for(url: str, wait: float) -> Target:
             expected=f"{scheme}:///path/to/warehouse.{suffix}",
             found=url,
         )
+    if scheme in ("sqlite", "duckdb"):
+        _check_file(Path(parsed.database or ""), url)
     return TARGETS[scheme](url, wait)
+
+
+def _check_file(path: Path, url: str) -> None:
+    """An embedded target's file is made by apply, its folder is not: say which is wrong before the
+    driver's own words ('unable to open database file')."""
+    if path.is_dir():
+        raise UsageError(
+            f"{url} names a folder, not a database file",
+            expected=f"a file path, e.g. {path / 'warehouse.db'}",
+            found=str(path),
+        )
+    folder = path.parent
+    if not folder.is_dir():
+        raise UsageError(
+            f"{url}: the folder {folder} does not exist (apply makes the database file, not its folder)",
+            expected="an existing folder",
+            found=str(folder),
+            hint=f"mkdir -p {shlex.quote(str(folder))}",
+        )
 
 
 __all__ = ["TARGETS", "Target", "target_for"]

@@ -643,7 +643,8 @@ def test_the_binding_check_finds_what_only_the_engine_sees(
 ) -> None:
     """DuckDB as the oracle: dropping a column named in SELECT * EXCLUDE (...) breaks that model
     and the two built on it; retyping a text column to integer breaks a model that compares it
-    with a text literal, when it runs. The graph alone sees neither."""
+    with a text literal, when it runs. The graph sees the EXCLUDE list's name go missing (before,
+    it saw neither break), not that the models built on it fail to bind, nor the retype's."""
     models = tmp_path / "models"
     models.mkdir()
     (models / "bookings_lean.sql").write_text("SELECT * EXCLUDE (seats) FROM ferry.bookings\n")
@@ -655,7 +656,10 @@ def test_the_binding_check_finds_what_only_the_engine_sees(
     args = ["--models", str(models), "--mappings", str(MAPPINGS), "--json"]
     assert cli("impact", *args, "ferry.bookings.seats", "--drop") == 8
     r = json.loads(capsys.readouterr().out)
-    assert r["value_dependents"] == [] and r["broken_models"] == []  # the graph sees no reader
+    assert r["value_dependents"] == []  # the graph sees no reader, but the EXCLUDE list's name
+    assert [(b["model"], b["reason"], b["reference"]) for b in r["broken_models"]] == [
+        ("bookings_lean", "not in schema", "seats")
+    ]
     broken = {b["model"]: b["reason"] for b in r["binding"]["broken"]}
     assert set(broken) == {"bookings_lean", "lean_fares", "lean_totals"}
     assert 'Column "seats" in EXCLUDE list not found' in broken["bookings_lean"]

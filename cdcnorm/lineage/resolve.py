@@ -235,6 +235,21 @@ def _with_column(schema: MappingSchema, query: exp.Expr, column: str, dialect: s
     return copy
 
 
+#: a star's lists of column names: EXCLUDE, REPLACE, RENAME (sqlglot's argument names)
+_STAR_LISTS = ("except_", "replace", "rename")
+#: the lists whose every name the engine requires among the star's columns: DuckDB refuses an
+#: EXCLUDE or REPLACE of a column the star does not cover, and passes over such a RENAME
+_STAR_LISTS_CHECKED = ("except_", "replace")
+
+
+def _source_names(select: exp.Select) -> list[str]:
+    """The names a qualified query's FROM and JOINs give their sources, in order."""
+    from_ = select.args.get("from_")
+    sources = [from_.this] if isinstance(from_, exp.From) else []
+    sources += [j.this for j in select.args.get("joins") or []]
+    return [str(x.alias_or_name) for x in sources]
+
+
 def _line(node: exp.Expr) -> int | None:
     for n in (node, getattr(node, "this", None)):
         if isinstance(n, exp.Expr):
@@ -284,6 +299,7 @@ class StatementResolver:
             except Refused as e:
                 self._diag(_line(query), "unsupported", str(e))
                 return None
+        self._check_star_lists(query, schema)
         qualified = None
         for _ in range(20):
             try:
@@ -890,6 +906,69 @@ class StatementResolver:
                 return None
             s = s.parent
         return None
+
+    def _check_star_lists(self, query: exp.Expr, schema: MappingSchema) -> None:
+        """A star's EXCLUDE and REPLACE lists name columns its sources must have: the engine refuses
+        the query otherwise, while qualification drops the name without a word (the answer would
+        look complete). Each star with such a list is expanded alone, without it, to learn
+        the columns it covers, and a listed name not among them is reported as not in schema."""
+        stars = [s for s in query.find_all(exp.Star) if any(s.args.get(k) for k in _STAR_LISTS_CHECKED)]
+        if not stars:
+            return
+        selects = list(query.find_all(exp.Select))
+        for star in stars:
+            select = star.find_ancestor(exp.Select)
+            at = next((i for i, x in enumerate(selects) if x is select), None)
+            if select is None or at is None:
+                continue
+            nth = next(i for i, x in enumerate(select.find_all(exp.Star)) if x is star)
+            probe = query.copy()
+            probe_select = list(probe.find_all(exp.Select))[at]
+            probe_star = list(probe_select.find_all(exp.Star))[nth]
+            projection = probe_star.parent if isinstance(probe_star.parent, exp.Column) else probe_star
+            if not any(p is projection for p in probe_select.expressions):
+                continue  # not a projection of its query (a function's argument): nothing to check
+            for k in _STAR_LISTS:
+                probe_star.set(k, None)
+            probe_select.set("expressions", [projection])
+            try:
+                qualified = qualify(
+                    probe,
+                    schema=schema,
+                    dialect=self.dialect,
+                    validate_qualify_columns=False,
+                    quote_identifiers=False,
+                )
+            except (OptimizeError, SchemaError):
+                continue  # the query's own qualification reports what is wrong
+            expanded = list(qualified.find_all(exp.Select))
+            if len(expanded) != len(selects):
+                continue
+            outs = expanded[at].selects
+            if any(isinstance(p, exp.Star) or isinstance(p.this, exp.Star) for p in outs):
+                continue  # over a table without a schema: reported as a star over unknown sources
+            names = [p.alias_or_name for p in outs]
+            folded = {folded_name(exp.to_identifier(n, quoted=True), self.dialect) for n in names}
+            loose = _dialect(self.dialect).NORMALIZATION_STRATEGY is NormalizationStrategy.CASE_INSENSITIVE
+            table = star.parent.table if isinstance(star.parent, exp.Column) else ""
+            sources = [table] if table else _source_names(expanded[at])
+            for key in _STAR_LISTS_CHECKED:
+                for item in star.args.get(key) or []:
+                    ident = (item.args.get("alias") if key == "replace" else item.this) or item
+                    if isinstance(ident, exp.Column):
+                        ident = ident.this
+                    name = str(ident.name)
+                    if folded_name(ident, self.dialect) in folded or (
+                        loose and name.casefold() in {n.casefold() for n in names}
+                    ):
+                        continue
+                    self._diag(
+                        _line(item) or _line(star) or _line(select),
+                        "not in schema",
+                        f"{table}.{name}" if table else name,
+                        difflib.get_close_matches(name, names, n=3),
+                        [] if table else sources,
+                    )
 
     def _diag(
         self,

@@ -70,6 +70,27 @@ STAR_LISTS = [
     "SELECT * FROM (SELECT * EXCLUDE (id, sku) FROM shop.items) t",
     "SELECT count(*) AS n FROM shop.orders",
 ]
+#: a misspelt name in each clause, and the same clauses spelt right (the engine binds those)
+MISSPELT = [
+    "SELECT id FROM shop.orders WHERE statsu = 'x'",
+    "SELECT status, count(*) AS n FROM shop.orders GROUP BY statsu",
+    "SELECT id FROM shop.orders ORDER BY placd_at",
+    "SELECT id FROM shop.orders ORDER BY placd_at LIMIT 3",
+    "SELECT sum(amount) OVER (PARTITION BY custmer_id) AS s FROM shop.orders",
+    "SELECT id FROM shop.orders QUALIFY row_number() OVER (ORDER BY placd) = 1",
+    "SELECT id FROM shop.orders HAVING count(amunt) > 1",
+    "SELECT id FROM shop.orders o WHERE EXISTS (SELECT 1 FROM shop.refunds r WHERE r.order_id = o.idd)",
+    "SELECT DISTINCT ON (custmer_id) id FROM shop.orders",
+    "SELECT string_agg(status, ',' ORDER BY placd) AS t FROM shop.orders",
+    "SELECT sum(amount) FILTER (WHERE stat = 'x') AS t FROM shop.orders",
+    "SELECT * FROM shop.orders UNPIVOT (v FOR k IN (amont, status))",
+    "SELECT order_id, unnest(tagz) AS t FROM shop.items",
+    "SELECT amount * 2 AS dbl FROM shop.orders ORDER BY dbl",
+    "SELECT amount * 2 AS dbl FROM shop.orders ORDER BY 1",
+    "SELECT amount AS a FROM shop.orders o ORDER BY o.placed_at DESC NULLS LAST",
+    "SELECT status FROM shop.orders GROUP BY status ORDER BY count(*)",
+    "SELECT id FROM shop.orders UNION ALL SELECT order_id FROM shop.refunds ORDER BY id",
+]
 
 
 def test_a_star_list_naming_a_column_its_sources_lack_is_reported_where_the_engine_refuses_it(
@@ -99,6 +120,29 @@ def test_a_star_list_naming_a_column_its_sources_lack_is_reported_where_the_engi
     assert [d.render() for d in project.diagnostics if d.model == "m1"] == [
         "m1.sql:1: m1: not in schema: staus (in none of orders; candidates: status)"
     ]
+
+
+def test_a_misspelt_name_in_any_clause_is_reported_where_the_engine_refuses_it(tmp_path: Path) -> None:
+    """DuckDB as the oracle: each model it refuses to create for a name its tables lack is
+    reported as not in schema, and each it creates is complete; an ORDER BY without LIMIT decides
+    no rows, but a misspelt name in it was passed over (the model was traced as complete)."""
+    import duckdb
+
+    con = duckdb.connect()
+    for name, cols in CASES["schema"].items():
+        schema, table = name.split(".")
+        con.execute(f"CREATE SCHEMA IF NOT EXISTS {schema}")
+        con.execute(f"CREATE TABLE {schema}.{table} ({', '.join(f'{c} {t}' for c, t in cols.items())})")
+    refused = set()
+    for i, sql in enumerate(MISSPELT):
+        try:
+            con.execute(f"CREATE VIEW m{i} AS {sql}")
+        except duckdb.BinderException:
+            refused.add(f"m{i}")
+    assert len(refused) == 13  # the oracle refuses every misspelt one
+    project = project_from(tmp_path, {f"m{i}.sql": sql for i, sql in enumerate(MISSPELT)}, CASES["schema"])
+    assert {d.model for d in project.diagnostics if d.reason == "not in schema"} == refused
+    assert {d.model for d in project.diagnostics} == refused
 
 
 @pytest.mark.parametrize("case", CASES["cases"], ids=[c["name"] for c in CASES["cases"]])

@@ -573,11 +573,13 @@ class StatementResolver:
                 for arg in [srf.this, *srf.expressions] if isinstance(srf, exp.Unnest) else [srf.this]:
                     if isinstance(arg, exp.Expr):
                         self.expr(arg, scope, d, "copy", "unnest")
-        if e.args.get("limit") is not None or e.args.get("offset") is not None:
-            order = e.args.get("order")
-            if order is not None:
-                for o in order.expressions:
-                    self.expr(o, scope, d, "copy", "limit")
+        order = e.args.get("order")
+        if order is not None:
+            # under LIMIT or OFFSET the order decides which rows appear; alone it decides none, but
+            # a name it reads must still exist (the engine refuses the query otherwise)
+            limited = e.args.get("limit") is not None or e.args.get("offset") is not None
+            for o in order.expressions:
+                self.expr(o, scope, d if limited else Deps(), "copy", "limit")
         self._pivot_rows(scope, d)
         for _alias, (_node, source) in scope.selected_sources.items():
             if isinstance(source, Scope):

@@ -172,3 +172,21 @@ def test_model_columns_are_named_as_duckdb_names_the_views_columns(
         assert described == project.models[model].columns, model
         checked += 1
     assert checked or any(s.kind in ("insert", "merge") for s in loaded.statements)
+
+
+def test_where_case_matters_a_name_that_differs_only_in_case_is_the_candidate(tmp_path: Path) -> None:
+    """PostgreSQL keeps quoted names exactly (the SQL standard folds only unquoted ones): "ID" is
+    not id, and shop."ORDERS" is not shop.orders. Before, "ID" offered no candidate (difflib
+    compares case) and shop."ORDERS" was taken for a table without a schema, its column inferred,
+    the answer complete."""
+    project = project_from(
+        tmp_path,
+        {"a.sql": 'SELECT o."ID" FROM shop.orders o', "b.sql": 'SELECT id FROM shop."ORDERS"'},
+        CASES["schema"],
+        dialect="postgres",
+    )
+    assert [d.render() for d in project.diagnostics] == [
+        "a.sql:1: a: not in schema: shop.orders.ID (candidates: id)",
+        "b.sql:1: b: unknown table: shop.ORDERS (candidates: shop.orders)",
+        "b.sql:1: b: inferred: shop.ORDERS.id",
+    ]

@@ -11,7 +11,6 @@ each model's output columns join the schema used to qualify the next.
 
 from __future__ import annotations
 
-import difflib
 from collections import defaultdict
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -27,6 +26,7 @@ from cdcnorm.lineage.resolve import (
     Deps,
     Node,
     StatementResolver,
+    close_names,
     declared_table,
     fold,
     folded_parts,
@@ -398,7 +398,7 @@ def resolve_model(
                         name,
                         "not in schema",
                         f"{name}.{extra[0]}",
-                        tuple(difflib.get_close_matches(extra[0], columns, n=3)),
+                        tuple(close_names(extra[0], columns)),
                     )
                 )
         earlier = list(columns)

@@ -250,6 +250,19 @@ def _source_names(select: exp.Select) -> list[str]:
     return [str(x.alias_or_name) for x in sources]
 
 
+def close_names(name: str, names: Iterable[str], n: int = 3, cutoff: float = 0.6) -> list[str]:
+    """The names closest to ``name``, ignoring case: where case matters (PostgreSQL's quoted
+    ``"ID"`` is not ``id``) a name that differs only in case is the likeliest one meant, and
+    difflib, which compares case, would not offer it."""
+    by_fold: dict[str, list[str]] = {}
+    for x in names:
+        by_fold.setdefault(x.casefold(), []).append(x)
+    out: list[str] = []
+    for f in difflib.get_close_matches(name.casefold(), list(by_fold), n=n, cutoff=cutoff):
+        out += [x for x in by_fold[f] if x not in out]
+    return out[:n]
+
+
 def _line(node: exp.Expr) -> int | None:
     for n in (node, getattr(node, "this", None)):
         if isinstance(n, exp.Expr):
@@ -802,7 +815,7 @@ class StatementResolver:
                     searched.append(".".join(table_parts(src)) if isinstance(src, exp.Table) else a)
                     for c in self._source_columns(scope, a):
                         shown.setdefault(c, info.shown(c) if info else c)
-                close = difflib.get_close_matches(name, sorted(shown), n=3)
+                close = close_names(name, sorted(shown))
                 self._diag(line, "not in schema", name, [shown[c] for c in close], searched)
             return Deps()
         return self._column_of(table, name, scope, line)
@@ -815,7 +828,7 @@ class StatementResolver:
                 line,
                 "unknown table",
                 f"{table}.{name}",
-                difflib.get_close_matches(table, list(scope.sources), n=3),
+                close_names(table, list(scope.sources)),
             )
             return Deps()
         if isinstance(src, Scope):
@@ -825,9 +838,7 @@ class StatementResolver:
                 return outs[name]
             if id(src) in self._busy:
                 return Deps()
-            self._diag(
-                line, "not in schema", f"{table}.{name}", difflib.get_close_matches(name, list(outs), n=3)
-            )
+            self._diag(line, "not in schema", f"{table}.{name}", close_names(name, list(outs)))
             return Deps()
         if isinstance(src, exp.Table):
             parts = table_parts(src)
@@ -839,7 +850,7 @@ class StatementResolver:
                     line,
                     "not in schema",
                     f"{info.name}.{name}",
-                    [info.shown(c) for c in difflib.get_close_matches(name, info.columns, n=3)],
+                    [info.shown(c) for c in close_names(name, info.columns)],
                 )
                 return Deps()
             d = Deps()
@@ -859,9 +870,7 @@ class StatementResolver:
             why = "the model reads itself" if itself else "a model in the cycle, not resolved yet"
             self._diag(_line(table) or line, "unknown table", f"{tname} ({why})")
             return Deps()
-        close = difflib.get_close_matches(
-            tname, [t.name for t in self.catalog.tables.values()], n=3, cutoff=0.8
-        )
+        close = close_names(tname, [t.name for t in self.catalog.tables.values()], cutoff=0.8)
         if close:
             self._diag(_line(table) or line, "unknown table", tname, close)
         node: Node = ("source", tname, name)
@@ -968,7 +977,7 @@ class StatementResolver:
                         _line(item) or _line(star) or _line(select),
                         "not in schema",
                         f"{table}.{name}" if table else name,
-                        difflib.get_close_matches(name, names, n=3),
+                        close_names(name, names),
                         [] if table else sources,
                     )
 

@@ -190,3 +190,17 @@ def test_where_case_matters_a_name_that_differs_only_in_case_is_the_candidate(tm
         "b.sql:1: b: unknown table: shop.ORDERS (candidates: shop.orders)",
         "b.sql:1: b: inferred: shop.ORDERS.id",
     ]
+
+
+def test_a_table_function_in_from_names_the_source_its_columns_are_inferred_in(tmp_path: Path) -> None:
+    """FROM read_parquet('trips.parquet') has no name parts: its columns were inferred into a table
+    named "" (source column ".a"). The call now names the source."""
+    project = project_from(
+        tmp_path,
+        {"raw_trips.sql": "SELECT a, b FROM read_parquet('trips.parquet') WHERE c > 0"},
+        CASES["schema"],
+    )
+    got = trace(project, "raw_trips.a")
+    assert got["value"] == ["read_parquet('trips.parquet').a"]
+    assert got["influence"] == ["read_parquet('trips.parquet').c"]
+    assert got["inferred"] == ["read_parquet('trips.parquet').a", "read_parquet('trips.parquet').c"]

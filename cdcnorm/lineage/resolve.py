@@ -273,6 +273,10 @@ def _line(node: exp.Expr) -> int | None:
 
 
 def table_parts(table: exp.Table) -> tuple[str, ...]:
+    if isinstance(table.this, exp.Func):
+        # FROM read_parquet('trips.parquet'): the call names the source (it has no name parts, and
+        # its columns were inferred into a table named "")
+        return (table.this.sql(dialect="duckdb", normalize_functions="lower"),)
     return tuple(p.name for p in table.parts)
 
 

@@ -945,3 +945,134 @@ def test_a_mapping_postgresql_cannot_name_stops_only_its_own_apply(
     assert cli("apply", str(landing), "--mappings", str(mdir), "--target", pg_url, "--table", "shop.x") == 0
     assert cli("apply", str(landing), "--mappings", str(mdir), "--target", pg_url, "--table", long_name) == 2
     assert "too long for the target" in capsys.readouterr().err
+
+
+def _keyed_case(tmp_path: Path, key: str, fmt: str = "jsonl") -> tuple[Path, Path]:
+    """A table keyed by ``key`` with inserts, an update and a delete, converted into a landing area."""
+    mdir = tmp_path / "mappings"
+    mdir.mkdir(exist_ok=True)
+    _rekey(mdir, key)
+    (tmp_path / "in").mkdir(exist_ok=True)
+    (tmp_path / "in" / "berths.csv").write_text(
+        "op,pos,id,region,v\nI,1,1,north,a\nI,2,2,north,b\nI,3,1,south,c\nU,4,1,north,a2\nD,5,2,north,\n"
+    )
+    landing = tmp_path / "landing"
+    args = ["convert", str(tmp_path / "in"), "--mappings", str(mdir), "--out", str(landing), "--quiet"]
+    assert cli(*args, "--format", fmt) == 0
+    return mdir, landing
+
+
+def _rekey(mdir: Path, key: str) -> None:
+    (mdir / "berths.yaml").write_text(
+        f"table: harbour.berths\nfiles: [berths.csv]\nkey: [{key}]\n"
+        "change:\n  action: {column: op, codes: {I: insert, U: after, D: delete}}\n"
+        "  position: {column: pos, kind: integer}\n"
+        "fields:\n  id: integer\n  region: text\n  v: text\n"
+    )
+
+
+def _target(kind: str, request: pytest.FixtureRequest, path: Path) -> str:
+    return request.getfixturevalue("pg_url") if kind == "postgresql" else f"{kind}:///{path}"
+
+
+def _drop(url: str, *tables: str) -> None:
+    """Drop tables of the target (harbour.berths: schema harbour where the database has schemas)."""
+    names = [t if url.startswith("sqlite") else ".".join(_q(p) for p in t.split(".", 1)) for t in tables]
+    sql = [f"DROP TABLE {_q(n) if url.startswith('sqlite') else n}" for n in names]
+    if url.startswith("sqlite"):
+        con = sqlite3.connect(url.removeprefix("sqlite:///"))
+        for s in sql:
+            con.execute(s)
+        con.commit()
+        con.close()
+    elif url.startswith("duckdb"):
+        dcon = duckdb.connect(url.removeprefix("duckdb:///"))
+        for s in sql:
+            dcon.execute(s)
+        dcon.close()
+    else:
+        import psycopg
+
+        with psycopg.connect(url) as pcon:
+            for s in sql:
+                pcon.execute(s)
+
+
+def _berths(url: str, key: str) -> State:
+    """The target's rows by ``key`` (field names joined by ", ")."""
+    schema, table = (None, "harbour.berths") if url.startswith("sqlite") else ("harbour", "berths")
+    # read by v, which no two rows of these cases share, then keyed by the key fields
+    rows = read_target(url, table, schema, "v", {"id": "integer", "region": "text", "v": "text"})
+    by_key = {tuple(r[k] for k in key.split(", ")): r for r in rows.values()}
+    assert len(by_key) == len(rows)
+    return by_key
+
+
+@pytest.mark.parametrize("kind", ["sqlite", "duckdb", "postgresql"])
+def test_a_table_dropped_from_the_target_is_applied_anew_not_left_empty(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], request: pytest.FixtureRequest, kind: str
+) -> None:
+    """Before, the applied log still named the events files, so a table dropped (to be made anew)
+    was made empty and apply said every event was already applied (exit 0). The oracle: the
+    same landing area applied into a new database."""
+    mdir, landing = _keyed_case(tmp_path, "id, region")
+    url = _target(kind, request, tmp_path / "w.db")
+    fresh = f"sqlite:///{tmp_path / 'fresh.db'}"
+    _apply(landing, mdir, url)
+    _apply(landing, mdir, fresh)
+    want = _berths(fresh, "id, region")
+    assert sorted(want) == [(1, "north"), (1, "south")]  # 2 deleted, 1 north updated
+    _drop(url, "harbour.berths")
+    capsys.readouterr()
+    assert cli("apply", str(landing), "--mappings", str(mdir), "--target", url) == 0
+    said = capsys.readouterr().err
+    assert "was not in the target, though its applied log named 1 events file" in said
+    assert _berths(url, "id, region") == want
+
+
+@pytest.mark.parametrize("kind", ["sqlite", "duckdb", "postgresql"])
+def test_a_key_edited_since_apply_made_the_table_is_named_before_anything_is_written(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], request: pytest.FixtureRequest, kind: str
+) -> None:
+    """Before, the database refused the upsert in its own words ('ON CONFLICT clause does not match
+    any PRIMARY KEY or UNIQUE constraint') with a hint about missing columns. Following the new
+    hint (drop both tables) applies everything under the new key, as into a new database."""
+    mdir, landing = _keyed_case(tmp_path, "id, region")
+    url = _target(kind, request, tmp_path / "w.db")
+    _apply(landing, mdir, url)
+    before = _berths(url, "id, region")
+    assert len(before) == 2
+    _rekey(mdir, "id")
+    capsys.readouterr()
+    assert cli("apply", str(landing), "--mappings", str(mdir), "--target", url) == 10
+    err = capsys.readouterr().err
+    assert "is keyed by (id, region), the mapping of harbour.berths by (id)" in err, err
+    assert "Traceback" not in err
+    assert _berths(url, "id, region") == before  # nothing written
+    _drop(url, "harbour.berths", "harbour.berths__deleted")
+    _apply(landing, mdir, url)
+    fresh = f"sqlite:///{tmp_path / 'fresh.db'}"
+    _apply(landing, mdir, fresh)
+    assert _berths(url, "id") == _berths(fresh, "id")
+    assert [r["v"] for r in _berths(url, "id").values()] == ["a2"]
+
+
+@pytest.mark.parametrize("fmt", ["jsonl", "parquet"])
+def test_events_written_under_another_key_are_named_not_read_as_null_keys(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], fmt: str
+) -> None:
+    """A field made part of the key since the events were written: their keys lack it. Before, JSON
+    Lines events read it as NULL (apply failed in the database's words, a NOT NULL constraint) and
+    Parquet events stopped with the engine's 'Could not find key' as a bug (exit 1)."""
+    mdir, landing = _keyed_case(tmp_path, "id", fmt)
+    _rekey(mdir, "id, region")
+    capsys.readouterr()
+    for args in (
+        ("snapshot", str(landing), "--mappings", str(mdir), "--out", str(tmp_path / "state")),
+        ("apply", str(landing), "--mappings", str(mdir), "--target", f"sqlite:///{tmp_path / 'w.db'}"),
+    ):
+        assert cli(*args) == 4
+        err = capsys.readouterr().err
+        assert "the events were written under another key of harbour.berths" in err, err
+        assert f"events/harbour.berths/{next(landing.glob('runs/*.json')).stem}.{fmt}" in err
+        assert "Traceback" not in err

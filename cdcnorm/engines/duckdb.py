@@ -199,6 +199,25 @@ def damaged_file(e: BaseException) -> InputError | None:
     )
 
 
+#: how an error a statement raises on purpose begins (``refusal``): the statement found a defect
+#: of its input, which is reported as such (exit 4), not as a bug of the plan
+REFUSED = "cdcnorm refuses the input: "
+
+
+def refusal(message_sql: str) -> str:
+    """SQL: stop the statement with the message (SQL text) as an input error (``refused_input``)."""
+    return f"error({lit(REFUSED)} || {message_sql})"
+
+
+def refused_input(e: BaseException) -> InputError | None:
+    """An error a statement raised on purpose (``refusal``) in our words; None for another."""
+    if not isinstance(e, duckdb.InvalidInputException):
+        return None
+    first = str(e).splitlines()[0]
+    at = first.find(REFUSED)
+    return None if at < 0 else InputError(first[at + len(REFUSED) :])
+
+
 @contextlib.contextmanager
 def engine_errors(temp: Path | str | None, where: str = "", writing: str | None = None) -> Iterator[None]:
     """Out of memory, out of spill space or a full disk, in our words: ``temp`` is where the spill
@@ -208,7 +227,7 @@ def engine_errors(temp: Path | str | None, where: str = "", writing: str | None 
     except duckdb.OutOfMemoryException as e:
         raise out_of_memory(e, where, None if temp is None else str(temp)) from None
     except (duckdb.Error, OSError) as e:
-        known = disk_full(e, writing) or damaged_file(e)
+        known = disk_full(e, writing) or damaged_file(e) or refused_input(e)
         if known is not None:
             raise known from None
         raise

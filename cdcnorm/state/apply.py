@@ -101,6 +101,7 @@ def _check_columns(session: Session, target: Target, spec: TableSpec, tables: Ta
                 found=declared[field_name],
                 hint=f"change the column's type to {want}, or drop the table and let apply create it",
             )
+    _check_key(session, target, spec, tables)
     for table in (tables.data, tables.tombstones):
         query = target.position_collation(table)
         rows = session.run(query) if query is not None else []
@@ -115,6 +116,28 @@ def _check_columns(session: Session, target: Target, spec: TableSpec, tables: Ta
                 found=collation,
                 hint=f'ALTER TABLE "{name}" ALTER COLUMN {POSITION} TYPE text COLLATE "C"',
             )
+
+
+def _check_key(session: Session, target: Target, spec: TableSpec, tables: Tables) -> None:
+    """The tables must be keyed by the mapping's key: every write names it as the conflict to
+    resolve, which the database refuses in its own words for another key (a key edited in the
+    mapping since apply made the tables)."""
+    want = list(spec.key)
+    for table in (tables.data, tables.tombstones):
+        have = [str(n) for (n,) in session.run(target.primary_key(table))]
+        if sorted(have) == sorted(want):
+            continue
+        name = f"{table.schema}.{table.name}" if table.schema else table.name
+        data = spec.shown
+        raise TargetError(
+            f'{target.shown}: table "{name}" is keyed by ({", ".join(have) or "no primary key"}), the '
+            f"mapping of {spec.table} by ({', '.join(want)})",
+            field=want[0],
+            expected=f"a primary key of ({', '.join(want)})",
+            found=f"({', '.join(have)})" if have else "no primary key",
+            hint=f'the key was edited since apply made the table: drop "{data}" and "{data}{TOMBSTONES}" '
+            "and apply again (tables made anew get every events file again), or restore the mapping's key",
+        )
 
 
 def _check_values(
@@ -276,13 +299,21 @@ def _apply(
     progress: Callable[[str, int, int], None],
 ) -> None:
     with transaction() as s:
+        existed = bool(s.run(target.declared_columns(tables.data)))
         _ensure(s, target, tables)
         _check_columns(s, target, spec, tables)
         a = tables.applied
-        done = {
-            str(sha): int(n)
-            for sha, n in s.run(sa.select(a.c.sha256, a.c.events).where(a.c.table_name == spec.name))
-        }
+        logged = a.c.table_name == spec.name
+        done = {str(sha): int(n) for sha, n in s.run(sa.select(a.c.sha256, a.c.events).where(logged))}
+        if done and not existed:
+            # the log speaks of a table that is no longer there (dropped, to be made anew): what it
+            # says was applied is in no table, so every file is applied into the new one
+            s.run(sa.delete(a).where(logged))
+            gone = f'"{spec.shown}" was not in the target, though its applied log named '
+            report.notes = (
+                gone + f"{counted(len(done), 'events file')}: every file is applied into it anew",
+            )
+            done = {}
     new = [f for f in files if digests[f.path] not in done]
     for f in files:
         if digests[f.path] in done:
@@ -294,7 +325,7 @@ def _apply(
         return
     progress(f"{mapping.table}: read {counted(len(new), 'new event file')}", 0, 1)
     events = load_events(engine, mapping, new, f"{mapping.mapping.slug}__apply_events")
-    report.notes = events.notes
+    report.notes = (*report.notes, *events.notes)
     try:
         per_file = dict(engine.rows(f"SELECT __source, count(*) FROM {ident(events.relation)} GROUP BY ALL"))
         last = latest(engine, events)

@@ -101,7 +101,8 @@ def _engine(args: argparse.Namespace, scratch: Path, mappings: list[LoadedMappin
 
 
 def _print_notes(err: Console, notes: list[tuple[str, Sequence[str]]]) -> None:
-    """How events written under other fields were read, a line each (``Events.notes``)."""
+    """How events written under other fields were read (``Events.notes``), and a table apply made
+    anew: a line each."""
     for table, lines in notes:
         for line in lines:
             err.print(f"note: {table}: {line}", markup=False, soft_wrap=True)

@@ -32,7 +32,7 @@ import duckdb
 import sqlglot
 from sqlglot import exp
 
-from cdcnorm.engines.duckdb import DuckDBEngine
+from cdcnorm.engines.duckdb import DuckDBEngine, refusal
 from cdcnorm.errors import InputError, name_list
 from cdcnorm.landing import runs
 from cdcnorm.mapping.load import LoadedMapping
@@ -43,6 +43,10 @@ from cdcnorm.types import FieldType, resolve
 
 #: The fields a run's events were written under: (name, value type) in the mapping's order.
 Written = tuple[tuple[str, str], ...]
+_KEY_HINT = (
+    "compact them under the mapping they were written with, or convert the table's dumps again into "
+    "a new landing area under the mapping as it is now"
+)
 
 SUFFIXES = {".jsonl": "jsonl", ".parquet": "parquet"}
 
@@ -182,6 +186,7 @@ def _retyped(mapping: LoadedMapping, types: dict[str, FieldType]) -> dict[str, F
 
 
 def _select(mapping: LoadedMapping, source: str, types: dict[str, FieldType], *, rendered: bool) -> str:
+    parse = "filename"
     cols = []
     retyped = _retyped(mapping, types)
     for i, (name, ftype) in enumerate(mapping.field_types.items()):
@@ -192,6 +197,15 @@ def _select(mapping: LoadedMapping, source: str, types: dict[str, FieldType], *,
         typed = _typed(mapping, name, old, rendered)
         if name in retyped:
             typed = ftype.cast(_as_text(old, typed))
+        if name in mapping.mapping.key:
+            # a key field is never NULL in an event (convert quarantines such a row): a NULL one is
+            # a field made part of the key since, which the events' keys lack (read as NULL, apply
+            # would fail in the target's words, or snapshot would make them one key)
+            said = (
+                f"{parse} || {lit(f': the events were written under another key of {mapping.table}: ')}"
+                f" || {lit(f'an event has no {name} in its key ({_KEY_HINT})')}"
+            )
+            typed = f"CASE WHEN {typed} IS NULL THEN {refusal(said)} ELSE {typed} END"
         cols.append(f"CAST({typed} AS {ftype.sql_type}) AS v{i}")
     return (
         "SELECT position AS __position, action AS __action, "
@@ -329,6 +343,41 @@ def _parquet_written(engine: DuckDBEngine, mapping: LoadedMapping, path: Path) -
     return tuple(out)
 
 
+def _key_members(engine: DuckDBEngine, paths: list[Path]) -> set[str] | None:
+    """The members of the ``key`` column of Parquet events files (None where it cannot be read)."""
+    files = ", ".join(lit(str(p)) for p in paths)
+    try:
+        ((_, typ, *_),) = engine.rows(
+            f"DESCRIBE SELECT key FROM read_parquet([{files}], union_by_name = true)"
+        )
+        struct = exp.DataType.build(str(typ), dialect="duckdb")
+    except (duckdb.Error, sqlglot.errors.SqlglotError, ValueError):
+        return None
+    return {m.name for m in struct.expressions}
+
+
+def _check_parquet_key(engine: DuckDBEngine, mapping: LoadedMapping, files: list[EventFile]) -> None:
+    """A key field none of the files' keys hold (a field made part of the key since) is named, with
+    the first file lacking it: the engine would only say it cannot find the struct's member."""
+    members = _key_members(engine, [f.path for f in files])
+    lacking = [k for k in mapping.mapping.key if members is not None and k not in members]
+    if not lacking:
+        return  # a file lacking one that others hold reads it as NULL, which _select refuses
+    first = next(
+        (f for f in files if not (_key_members(engine, [f.path]) or set()) >= set(mapping.mapping.key)),
+        files[0],
+    )
+    raise InputError(
+        f"the events were written under another key of {mapping.table}: their keys have no "
+        f"{', '.join(lacking)}",
+        file=str(first.path),
+        field=lacking[0],
+        expected=f"events keyed by ({', '.join(mapping.mapping.key)})",
+        found=f"keys of {', '.join(sorted(members or ()))}",
+        hint=_KEY_HINT,
+    )
+
+
 def load_events(
     engine: DuckDBEngine, mapping: LoadedMapping, files: list[EventFile], relation: str | None = None
 ) -> Events:
@@ -354,11 +403,12 @@ def load_events(
                     field=lacking[0],
                     expected=f"events keyed by ({', '.join(mapping.mapping.key)})",
                     found=f"fields {', '.join(types)}",
-                    hint="compact them under the mapping they were written with, or convert the table's "
-                    "dumps again into a new landing area under the mapping as it is now",
+                    hint=_KEY_HINT,
                 )
             notes += _notes(mapping, group, types)
             _check_retyped(engine, mapping, group, source, types)
+        if fmt == "parquet":
+            _check_parquet_key(engine, mapping, group)
         parts.append(_select(mapping, source, types, rendered=fmt == "jsonl"))
     if not parts:  # no events yet: an empty relation of the right shape
         cols = ", ".join(

@@ -342,6 +342,11 @@ class Target:
         """A query of (column name, declared type) rows of ``table`` as the target holds it."""
         raise NotImplementedError
 
+    def primary_key(self, table: sa.Table) -> sa.Executable:
+        """A query of the names of ``table``'s primary key columns (a row each; none where the
+        table has no primary key or does not exist)."""
+        raise NotImplementedError
+
     def position_collation(self, table: sa.Table) -> sa.Executable | None:
         """A query of the collation ``table``'s position column compares by, where the database
         has collations (one row); None where text always compares as bytes."""

@@ -60,6 +60,12 @@ class DuckDBTarget(Target):
             "WHERE table_schema = :s AND table_name = :t ORDER BY ordinal_position"
         ).bindparams(s=table.schema or "main", t=table.name)
 
+    def primary_key(self, table: sa.Table) -> sa.Executable:
+        return sa.text(
+            "SELECT unnest(constraint_column_names) FROM duckdb_constraints() "
+            "WHERE schema_name = :s AND table_name = :t AND constraint_type = 'PRIMARY KEY'"
+        ).bindparams(s=table.schema or "main", t=table.name)
+
     def column_type(self, ftype: FieldType) -> sa.types.TypeEngine[Any]:
         if ftype.name == "decimal":
             p, s = ftype.params

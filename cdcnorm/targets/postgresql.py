@@ -63,6 +63,13 @@ class PostgreSQLTarget(Target):
             "WHERE attrelid = to_regclass(:t) AND attnum > 0 AND NOT attisdropped ORDER BY attnum"
         ).bindparams(t=name)
 
+    def primary_key(self, table: sa.Table) -> sa.Executable:
+        return sa.text(
+            "SELECT a.attname FROM pg_index i JOIN pg_attribute a "
+            "ON a.attrelid = i.indrelid AND a.attnum = ANY(i.indkey) "
+            "WHERE i.indrelid = to_regclass(:t) AND i.indisprimary"
+        ).bindparams(t=self.sa_dialect.identifier_preparer.format_table(table))
+
     def position_collation(self, table: sa.Table) -> sa.Executable | None:
         # the column's own collation, or the database's when it has the default one
         return sa.text(

@@ -41,6 +41,11 @@ class SQLiteTarget(Target):
     def declared_columns(self, table: sa.Table) -> sa.Executable:
         return sa.text("SELECT name, type FROM pragma_table_info(:t)").bindparams(t=table.name)
 
+    def primary_key(self, table: sa.Table) -> sa.Executable:
+        return sa.text("SELECT name FROM pragma_table_info(:t) WHERE pk > 0 ORDER BY pk").bindparams(
+            t=table.name
+        )
+
     def why_not_exact(self, declared: str, ftype: FieldType) -> str | None:
         from cdcnorm.targets.columns import why_not_exact_sqlite
 

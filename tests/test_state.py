@@ -975,10 +975,10 @@ def _target(kind: str, request: pytest.FixtureRequest, path: Path) -> str:
     return request.getfixturevalue("pg_url") if kind == "postgresql" else f"{kind}:///{path}"
 
 
-def _drop(url: str, *tables: str) -> None:
+def _drop(url: str, *tables: str, verb: str = "DROP TABLE") -> None:
     """Drop tables of the target (harbour.berths: schema harbour where the database has schemas)."""
     names = [t if url.startswith("sqlite") else ".".join(_q(p) for p in t.split(".", 1)) for t in tables]
-    sql = [f"DROP TABLE {_q(n) if url.startswith('sqlite') else n}" for n in names]
+    sql = [f"{verb} {_q(n) if url.startswith('sqlite') else n}" for n in names]
     if url.startswith("sqlite"):
         con = sqlite3.connect(url.removeprefix("sqlite:///"))
         for s in sql:
@@ -996,6 +996,10 @@ def _drop(url: str, *tables: str) -> None:
         with psycopg.connect(url) as pcon:
             for s in sql:
                 pcon.execute(s)
+
+
+def _empty(url: str, *tables: str) -> None:
+    _drop(url, *tables, verb="DELETE FROM")
 
 
 def _berths(url: str, key: str) -> State:
@@ -1028,6 +1032,14 @@ def test_a_table_dropped_from_the_target_is_applied_anew_not_left_empty(
     said = capsys.readouterr().err
     assert "was not in the target, though its applied log named 1 events file" in said
     assert _berths(url, "id, region") == want
+    # both tables emptied (TRUNCATE, DELETE): every event applied leaves a row or a tombstone, so
+    # none left means the log speaks of rows the tables no longer hold
+    _empty(url, "harbour.berths", "harbour.berths__deleted")
+    assert cli("apply", str(landing), "--mappings", str(mdir), "--target", url) == 0
+    assert "was emptied, though its applied log named 1 events file of 5 events" in capsys.readouterr().err
+    assert _berths(url, "id, region") == want
+    assert cli("apply", str(landing), "--mappings", str(mdir), "--target", url) == 0
+    assert "anew" not in capsys.readouterr().err  # applied: nothing to do again
 
 
 @pytest.mark.parametrize("kind", ["sqlite", "duckdb", "postgresql"])

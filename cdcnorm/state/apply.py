@@ -305,13 +305,21 @@ def _apply(
         a = tables.applied
         logged = a.c.table_name == spec.name
         done = {str(sha): int(n) for sha, n in s.run(sa.select(a.c.sha256, a.c.events).where(logged))}
-        if done and not existed:
-            # the log speaks of a table that is no longer there (dropped, to be made anew): what it
-            # says was applied is in no table, so every file is applied into the new one
+        emptied = (
+            existed
+            and sum(done.values()) > 0
+            and not s.run(sa.select(sa.literal(1)).select_from(tables.data).limit(1))
+            and not s.run(sa.select(sa.literal(1)).select_from(tables.tombstones).limit(1))
+        )
+        if done and (not existed or emptied):
+            # the log speaks of a table that is no longer there (dropped, to be made anew), or
+            # of events of which neither a row nor a tombstone is left (both tables emptied: each
+            # event applied leaves one or the other): every file is applied into it again
             s.run(sa.delete(a).where(logged))
-            gone = f'"{spec.shown}" was not in the target, though its applied log named '
+            gone = f'"{spec.shown}" was not in the target' if not existed else f'"{spec.shown}" was emptied'
             report.notes = (
-                gone + f"{counted(len(done), 'events file')}: every file is applied into it anew",
+                f"{gone}, though its applied log named {counted(len(done), 'events file')} of "
+                f"{counted(sum(done.values()), 'event')}: every file is applied into it anew",
             )
             done = {}
     new = [f for f in files if digests[f.path] not in done]

@@ -1088,3 +1088,63 @@ def test_events_written_under_another_key_are_named_not_read_as_null_keys(
         assert "the events were written under another key of harbour.berths" in err, err
         assert f"events/harbour.berths/{next(landing.glob('runs/*.json')).stem}.{fmt}" in err
         assert "Traceback" not in err
+
+
+#: number tokens the engine's JSON parser would re-spell: 2.50 as 2.5, 1E2 as 100.0, -0 as 0, a long
+#: fraction through a double (0.1); and a string that looks like the reader's tag for numbers
+RISKY_JSON = (
+    '{"n":[1.0,-0,1E2,0.1000000000000000055511151231257827,2.50,12345678901234567890123,1e400,-0.0],'
+    '"s":"~n0~2.5"}'
+)
+
+
+@pytest.mark.parametrize("fmt", ["jsonl", "parquet"])
+def test_json_values_keep_their_tokens_through_snapshot_and_apply(tmp_path: Path, fmt: str) -> None:
+    """Events keep a json field's number tokens as written; snapshot and apply read them back. Before,
+    JSON Lines events went through the engine's JSON parser, which re-spelt the numbers
+    (0.1000000000000000055511151231257827 became 0.1, 2.50 became 2.5). Python's json module (with
+    Decimal numbers) is the oracle that the value is the one written, the text that it is spelt so.
+    A string's escapes are not tokens kept: \u00e9 may come back as é, the same string (RFC 8259
+    section 7)."""
+    import csv
+    from decimal import Decimal
+
+    import pyarrow.parquet as pq
+
+    mdir = tmp_path / "mappings"
+    mdir.mkdir()
+    (mdir / "j.yaml").write_text(
+        "table: lab.docs\nfiles: [docs.csv]\nkey: [id]\n"
+        "change:\n  action: {column: op, codes: {I: insert}}\n  position: {column: pos, kind: integer}\n"
+        "fields:\n  id: integer\n  doc: json\n  f: float\n"
+    )
+    (tmp_path / "in").mkdir()
+    quoted = RISKY_JSON.replace('"', '""')
+    escaped = '{"t":"\\u00e9\\ud83d\\ude00"}'.replace('"', '""')
+    (tmp_path / "in" / "docs.csv").write_text(
+        f'op,pos,id,doc,f\nI,1,1,"{quoted}",2.50\nI,2,2,"{escaped}",-0.0\n'
+    )
+    landing = tmp_path / "landing"
+    args = ["convert", str(tmp_path / "in"), "--mappings", str(mdir), "--out", str(landing), "--quiet"]
+    assert cli(*args, "--format", fmt) == 0
+    for out in ("jsonl", "csv", "parquet"):
+        _snapshot(landing, mdir, tmp_path / out, "--format", out, "--quiet")
+    lines = (tmp_path / "jsonl" / "lab.docs.jsonl").read_text().splitlines()
+    assert f'"doc":{RISKY_JSON},' in lines[0]
+    with open(tmp_path / "csv" / "lab.docs.csv", newline="") as f:
+        assert next(csv.DictReader(f))["doc"] == RISKY_JSON
+    assert pq.read_table(tmp_path / "parquet" / "lab.docs.parquet").column("doc")[0].as_py() == RISKY_JSON
+    for url in (f"sqlite:///{tmp_path / 'w.db'}", f"duckdb:///{tmp_path / 'w.duckdb'}"):
+        _apply(landing, mdir, url)
+    lite = sqlite3.connect(tmp_path / "w.db")
+    assert lite.execute('SELECT doc, f FROM "lab.docs" WHERE id = 1').fetchone() == (RISKY_JSON, 2.5)
+    lite.close()
+    duck = duckdb.connect(str(tmp_path / "w.duckdb"), read_only=True)
+    assert duck.execute("SELECT CAST(doc AS VARCHAR) FROM lab.docs WHERE id = 1").fetchone() == (RISKY_JSON,)
+    assert str(duck.execute("SELECT f FROM lab.docs WHERE id = 2").fetchone()[0]) == "-0.0"
+    duck.close()
+    # the oracle: the values read are the values written, numbers as exact decimals
+    exact = json.loads(RISKY_JSON, parse_float=Decimal)
+    assert exact["n"][3] == Decimal("0.1000000000000000055511151231257827")
+    assert json.loads(lines[0], parse_float=Decimal)["doc"] == exact
+    assert json.loads(lines[1])["doc"] == {"t": "\u00e9\U0001f600"}

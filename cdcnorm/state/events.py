@@ -25,6 +25,7 @@ mapping states.
 
 from __future__ import annotations
 
+import json
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -32,12 +33,13 @@ import duckdb
 import sqlglot
 from sqlglot import exp
 
-from cdcnorm.engines.duckdb import DuckDBEngine, refusal
+from cdcnorm.engines.duckdb import CSV_MIN_BUFFER, DuckDBEngine, refusal
 from cdcnorm.errors import InputError, name_list
 from cdcnorm.landing import runs
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.mapping.model import FieldSpec
 from cdcnorm.names import path_part
+from cdcnorm.readers.base import MAX_RECORD_BYTES
 from cdcnorm.sql import ident, lit
 from cdcnorm.types import FieldType, resolve
 
@@ -225,14 +227,66 @@ def _types(mapping: LoadedMapping, written: Written | None) -> dict[str, FieldTy
     }
 
 
-def _source(mapping: LoadedMapping, files: list[EventFile], types: dict[str, FieldType]) -> str:
+def _source(
+    engine: DuckDBEngine, mapping: LoadedMapping, files: list[EventFile], types: dict[str, FieldType]
+) -> str:
     paths = ", ".join(lit(str(f.path)) for f in files)
     if files[0].fmt == "parquet":
         return f"read_parquet([{paths}], filename = true, union_by_name = true)"
+    if any(t.name == "json" for t in types.values()):
+        # a line as long as the longest record a reader takes, in buffers the engine's memory holds
+        line = min(MAX_RECORD_BYTES, max(CSV_MIN_BUFFER, engine.engine_memory // 8))
+        return _tokens_kept(mapping, paths, types, engine.number_tag, line)
     return (
         f"read_json([{paths}], format = 'newline_delimited', filename = true, "
         f"columns = {_json_columns(mapping, types)})"
     )
+
+
+def _tokens_kept(mapping: LoadedMapping, paths: str, types: dict[str, FieldType], tag: str, line: int) -> str:
+    """The JSON Lines events as ``read_json`` gives them, but json fields with their tokens as
+    written: the engine's JSON parser re-renders numbers (``2.50`` as ``2.5``, ``1E2`` as
+    ``100.0``, a long fraction through a double), so each line's number tokens are made tagged
+    strings first (as the JSON Lines reader does), every member is read as text and untagged,
+    then cast to the type ``read_json`` would have given it."""
+    from cdcnorm.types.json import tag_numbers, untag
+
+    def struct(names: list[str]) -> str:
+        return "{" + ", ".join(f"{json.dumps(n)}: {json.dumps(_read_as(types[n]))}" for n in names) + "}"
+
+    key = [k for k in mapping.mapping.key if k in types]
+    shape = (
+        '{"action": "VARCHAR", "position": "VARCHAR", "committed_at": "VARCHAR"'
+        + (f', "key": {struct(key)}' if key else "")
+        + (f', "values": {struct(list(types))}' if types else "")
+        + "}"
+    )
+
+    def typed(part: str, names: list[str]) -> str:
+        whole = f"struct_extract(e, {lit(part)})"
+        members = ", ".join(
+            f"{ident(n)} := CAST({untag(f'CAST(struct_extract({whole}, {lit(n)}) AS VARCHAR)', tag)} "
+            f"AS {types[n].form_type})"
+            for n in names
+        )
+        return f", CASE WHEN {whole} IS NULL THEN NULL ELSE struct_pack({members}) END AS {ident(part)}"
+
+    lines = (
+        f"read_csv([{paths}], columns = {{'line': 'VARCHAR'}}, header = false, delim = chr(1), "
+        f"quote = '', escape = '', auto_detect = false, strict_mode = true, filename = true, "
+        f"max_line_size = {line}, buffer_size = {line})"
+    )
+    parsed = f"SELECT filename, from_json({tag_numbers('line', tag)}, {lit(shape)}) AS e FROM {lines}"
+    return (
+        "(SELECT e.action AS action, e.position AS position, "
+        f"CAST(e.committed_at AS TIMESTAMPTZ) AS committed_at{typed('key', key) if key else ''}"
+        f"{typed('values', list(types)) if types else ''}, filename FROM ({parsed}))"
+    )
+
+
+def _read_as(t: FieldType) -> str:
+    """The type a member is first read as: a json field as JSON, any other as its text."""
+    return "JSON" if t.name == "json" else "VARCHAR"
 
 
 def _runs(files: list[EventFile]) -> str:
@@ -392,7 +446,7 @@ def load_events(
     parts, notes = [], []
     for (fmt, written), group in groups.items():
         types = _types(mapping, written)
-        source = _source(mapping, group, types)
+        source = _source(engine, mapping, group, types)
         if written is not None:
             lacking = [k for k in mapping.mapping.key if k not in types]
             if lacking:  # their keys cannot be had: a key field added or renamed since

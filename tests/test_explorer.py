@@ -180,3 +180,28 @@ def test_an_incomplete_graph_says_so_in_every_format(
     page.wait_for_selector("body[data-ready='1']")
     assert not page.is_visible("#gaps") and "incomplete" not in page.title()
     page.close()
+
+
+def test_names_from_the_project_are_shown_as_text_never_run_as_markup(browser: Any, tmp_path: Path) -> None:
+    """A model file's name and a column's alias holding markup are shown as written. The wires'
+    titles were built as markup from the file names (``file:line``), so a file named
+    ``<img src=x onerror=...>.sql`` ran its script when the wires were drawn."""
+    models = tmp_path / "models"
+    models.mkdir()
+    evil = "<img src=x onerror=window.__hit=1>"
+    (models / f"{evil}.sql").write_text(
+        f'CREATE VIEW fares AS SELECT booking_id AS "{evil}", fare FROM ferry.bookings\n'
+    )
+    out = tmp_path / "p.html"
+    assert cli("lineage", "--models", str(models), "--mappings", str(MAPPINGS), "--out", str(out)) == 0
+    page = browser.new_page()
+    page.goto(out.as_uri())
+    page.wait_for_selector("body[data-ready='1']")
+    page.fill("#search", f"fares.{evil}")
+    page.press("#search", "Enter")
+    page.wait_for_timeout(300)
+    titles = page.eval_on_selector_all("svg path title", "els => els.map(e => e.textContent)")
+    assert f"value (copy) {evil}.sql:1" in titles  # the name, as text
+    assert page.evaluate("window.__hit") is None  # and no script ran
+    assert page.eval_on_selector_all("img", "els => els.length") == 0
+    page.close()

@@ -252,6 +252,10 @@ function anchor(id, right) {
   const r = el.getBoundingClientRect(), b = board.getBoundingClientRect();
   return [right ? r.right - b.left : r.left - b.left, r.top - b.top + r.height / 2];
 }
+// text from the project (file names, clauses) in the wires' markup: as text, never as markup
+function esc(text) {
+  return String(text).replace(/[&<>"']/g, ch => `&#${ch.charCodeAt(0)};`);
+}
 function draw() {
   wires.setAttribute("width", board.scrollWidth); wires.setAttribute("height", board.scrollHeight);
   const seen = new Set(), parts = [];
@@ -262,7 +266,7 @@ function draw() {
     const lit = focus && (e.to === focus || upSet.has(e.to)) && (e.from === focus || upSet.has(e.from))
              || focus && (e.from === focus || downSet.has(e.from)) && (e.to === focus || downSet.has(e.to));
     const mid = (x1 + x2) / 2;
-    parts.push(`<path class="${e.edge}${lit ? " lit" : ""}" d="M${x1},${y1} C${mid},${y1} ${mid},${y2} ${x2},${y2}"><title>${e.edge} (${e.how}) ${e.where}</title></path>`);
+    parts.push(`<path class="${e.edge}${lit ? " lit" : ""}" d="M${x1},${y1} C${mid},${y1} ${mid},${y2} ${x2},${y2}"><title>${esc(e.edge)} (${esc(e.how)}) ${esc(e.where)}</title></path>`);
   }
   wires.innerHTML = parts.join("");
 }

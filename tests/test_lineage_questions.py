@@ -343,6 +343,25 @@ def test_exports(demo: tuple, tmp_path: Path) -> None:  # type: ignore[type-arg]
         assert export(g, tmp_path / "g.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature
 
 
+@pytest.mark.skipif(shutil.which("dot") is None, reason="Graphviz's dot draws SVG (make setup installs it)")
+def test_a_diagram_shows_names_holding_markup_or_backslashes_as_written(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """Graphviz is the oracle: the SVG it draws holds each name as written. Before, a column named
+    <b>x</b> was passed to DOT as an HTML-like label and dot refused the file (a traceback), and a
+    backslash in a name was read as DOT's escape (a\\N shows the node's id)."""
+    models = tmp_path / "models"
+    models.mkdir()
+    names = ["<b>x</b>", "</script><img src=x>", "a\\Nb\\l", 'q"uote']
+    cols = ", ".join(f'booking_id AS "{n.replace(chr(34), chr(34) * 2)}"' for n in names)
+    (models / "odd.sql").write_text(f"SELECT {cols} FROM ferry.bookings\n")
+    svg = tmp_path / "odd.svg"
+    assert cli("lineage", "--models", str(models), "--mappings", str(MAPPINGS), "--out", str(svg)) == 0
+    texts = {t.text for t in ET.fromstring(svg.read_text()).iter() if t.tag.endswith("text")}
+    assert set(names) <= texts, texts
+    assert "Traceback" not in capsys.readouterr().err
+
+
 def test_lineage_commands_end_to_end(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     args = ["--models", str(MODELS), "--mappings", str(MAPPINGS)]
     assert cli("trace", *args, "daily_revenue.total_fare", "--json") == 0

@@ -13,7 +13,7 @@ import os
 import shutil
 from collections.abc import Sequence
 from pathlib import Path
-from typing import Any
+from typing import Any, cast
 
 import graphviz
 import networkx as nx
@@ -68,6 +68,12 @@ def table_level(g: nx.MultiDiGraph) -> nx.MultiDiGraph:
     return h
 
 
+def _text(s: str) -> str:
+    """A name from the project as a DOT label: as written, never an HTML-like label (``<...>``) or
+    an escape of DOT's (``\\N``, the node's name; ``\\l``, a line break)."""
+    return cast(str, graphviz.escape(s))  # a str that graphviz knows is no HTML: keep its class
+
+
 def _dot_id(n: Node) -> str:
     # no colon: DOT would read "a:b" as node a, port b
     return f"{n[0]} {n[1]}.{n[2]}"
@@ -78,7 +84,8 @@ FOCUS = "#ffd54f"
 
 def to_dot(g: nx.MultiDiGraph, title: str = "column lineage", focus: Node | None = None) -> graphviz.Digraph:
     dot = graphviz.Digraph(
-        "lineage", graph_attr={"rankdir": "LR", "label": title, "fontname": "Helvetica", "fontsize": "12"}
+        "lineage",
+        graph_attr={"rankdir": "LR", "label": _text(title), "fontname": "Helvetica", "fontsize": "12"},
     )
     dot.attr("node", shape="box", style="rounded,filled", fontname="Helvetica", fontsize="10")
     dot.attr("edge", fontname="Helvetica", fontsize="8")
@@ -98,7 +105,7 @@ def to_dot(g: nx.MultiDiGraph, title: str = "column lineage", focus: Node | None
             label = f"{table} (no schema: columns inferred from the models)"
         with dot.subgraph(name=f"cluster_{i}") as c:
             c.attr(
-                label=label,
+                label=_text(label),
                 style="rounded,dashed" if placeholder else "rounded",
                 color="#999999",
                 fontname="Helvetica",
@@ -106,15 +113,17 @@ def to_dot(g: nx.MultiDiGraph, title: str = "column lineage", focus: Node | None
             )
             for n in nodes:
                 if n == focus:  # the column asked about stands out
-                    c.node(_dot_id(n), n[2], fillcolor=FOCUS, penwidth="2.5", fontname="Helvetica-Bold")
+                    c.node(
+                        _dot_id(n), _text(n[2]), fillcolor=FOCUS, penwidth="2.5", fontname="Helvetica-Bold"
+                    )
                 elif placeholder:
                     text = "(no columns known)" if n[2] == "*" else n[2]
-                    c.node(_dot_id(n), text, fillcolor="#ffffff", style="rounded,dashed,filled")
+                    c.node(_dot_id(n), _text(text), fillcolor="#ffffff", style="rounded,dashed,filled")
                 else:
-                    c.node(_dot_id(n), n[2] if n[2] != "*" else table, fillcolor=COLOURS[kind])
+                    c.node(_dot_id(n), _text(n[2] if n[2] != "*" else table), fillcolor=COLOURS[kind])
     for u, v, k, d in sorted(g.edges(keys=True, data=True)):
         if k == "value":
-            dot.edge(_dot_id(u), _dot_id(v), label="" if d["sub"] == "copy" else d["sub"])
+            dot.edge(_dot_id(u), _dot_id(v), label="" if d["sub"] == "copy" else _text(d["sub"]))
         else:
             dot.edge(
                 _dot_id(u),
@@ -122,7 +131,7 @@ def to_dot(g: nx.MultiDiGraph, title: str = "column lineage", focus: Node | None
                 style="dashed",
                 color="#c0504d",
                 fontcolor="#c0504d",
-                label=d["clauses"],
+                label=_text(d["clauses"]),
             )
     return dot
 

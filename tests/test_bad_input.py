@@ -653,3 +653,39 @@ def test_a_damaged_file_of_a_landing_area_is_named_not_called_a_bug(
     err = capsys.readouterr().err
     assert err.startswith(f"error: {path}") and ": the file cannot be read: " in err
     assert "damaged or cut short" in err and "bug" not in err
+
+
+@pytest.mark.parametrize("command", ["runs", "snapshot", "apply", "convert", "settle"])
+@pytest.mark.parametrize("cut", ["half", "empty", "hollow"])
+def test_a_damaged_run_record_is_named_not_a_traceback(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], command: str, cut: str
+) -> None:
+    # before: every command on the landing area ended in a traceback (JSONDecodeError, KeyError)
+    from tests.conftest import ROOT
+
+    out, mappings = tmp_path / "o", str(ROOT / "mappings")
+    assert cli("convert", str(ROOT / "examples" / "dumps"), "--mappings", mappings, "--out", str(out)) == 0
+    (record,) = (out / "runs").glob("*.json")
+    whole = record.read_text()
+    record.write_text(
+        {"half": whole[: len(whole) // 2], "empty": "", "hollow": json.dumps({"run": record.stem})}[cut]
+    )
+    capsys.readouterr()
+    args = {
+        "runs": ["runs", str(out)],
+        "snapshot": ["snapshot", str(out), "--mappings", mappings, "--out", str(tmp_path / "state")],
+        "apply": ["apply", str(out), "--mappings", mappings, "--target", f"sqlite:///{tmp_path / 'w.db'}"],
+        "convert": [
+            "convert",
+            str(ROOT / "examples" / "next-day"),
+            "--mappings",
+            mappings,
+            "--out",
+            str(out),
+        ],
+        "settle": ["settle", str(out), "--mappings", mappings, "--all"],
+    }[command]
+    assert cli(*args) == 4
+    err = capsys.readouterr().err
+    assert err.startswith(f"error: {record}") and "damaged or cut short" in err, err
+    assert "Traceback" not in err

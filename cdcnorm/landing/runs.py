@@ -6,6 +6,8 @@ import json
 from pathlib import Path
 from typing import Any
 
+from cdcnorm.errors import InputError
+
 RUNS = "runs"
 
 
@@ -16,9 +18,31 @@ def records(root: Path) -> list[dict[str, Any]]:
         return []
     out = []
     for path in sorted(folder.glob("*.json")):
-        data: dict[str, Any] = json.loads(path.read_text(encoding="utf-8"))
+        try:
+            data = json.loads(path.read_text(encoding="utf-8"))
+        except (UnicodeDecodeError, json.JSONDecodeError) as e:
+            line = e.lineno if isinstance(e, json.JSONDecodeError) else None
+            raise _damaged(path, f"not JSON ({e})", line) from None
+        if not isinstance(data, dict) or data.get("run") != path.stem:
+            raise _damaged(path, f'not the record of run {path.stem} (its "run" member names another)', None)
+        lacking = [k for k, kind in (("inputs", list), ("ledger", dict)) if not isinstance(data.get(k), kind)]
+        if lacking or "total" not in data["ledger"]:
+            raise _damaged(path, f"a record without {' and '.join(lacking or ['its ledger total'])}", None)
         out.append(data)
     return out
+
+
+def _damaged(path: Path, found: str, line: int | None) -> InputError:
+    run = path.stem
+    return InputError(
+        f"the run record of {run} is damaged or cut short",
+        file=str(path),
+        line=line,
+        expected="the record convert writes last when it commits a run (JSON)",
+        found=found,
+        hint=f"restore it from a copy; or undo the run: remove its record and every file named {run}.* "
+        "under events/, quarantine/ and index/ (its inputs are then converted again)",
+    )
 
 
 def committed(root: Path) -> set[str]:

@@ -689,3 +689,36 @@ def test_a_damaged_run_record_is_named_not_a_traceback(
     err = capsys.readouterr().err
     assert err.startswith(f"error: {record}") and "damaged or cut short" in err, err
     assert "Traceback" not in err
+
+
+@pytest.mark.parametrize(
+    "journal",
+    [
+        '{"moves": [',  # cut short
+        '{"staging": 5, "moves": 3}',  # not a journal
+        '{"staging": "{precious}", "moves": []}',  # a folder outside the area, which replay removed
+        '{"staging": "staging-x", "moves": [["a", "../../escaped"]]}',  # a move out of the area
+    ],
+    ids=["cut-short", "not-a-journal", "outside-staging", "outside-move"],
+)
+def test_a_damaged_commit_journal_is_named_and_nothing_outside_the_area_is_touched(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], journal: str
+) -> None:
+    # before: a traceback (JSONDecodeError, TypeError), and a journal naming a folder outside the
+    # area had that folder removed by the replay (the folder here is the test's own)
+    from tests.conftest import ROOT
+
+    precious = tmp_path / "precious"
+    precious.mkdir()
+    (precious / "keep.txt").write_text("kept")
+    out, mappings = tmp_path / "o", str(ROOT / "mappings")
+    assert cli("convert", str(ROOT / "examples" / "dumps"), "--mappings", mappings, "--out", str(out)) == 0
+    (out / ".cdcnorm" / "journal.json").write_text(journal.replace("{precious}", str(precious)))
+    capsys.readouterr()
+    args = ["convert", str(ROOT / "examples" / "next-day"), "--mappings", mappings, "--out", str(out)]
+    assert cli(*args) == 4
+    err = capsys.readouterr().err
+    assert "the commit journal of the landing area is damaged" in err and "Traceback" not in err
+    assert (precious / "keep.txt").read_text() == "kept" and not (tmp_path / "escaped").exists()
+    (out / ".cdcnorm" / "journal.json").unlink()  # as the hint says: then the next run goes on
+    assert cli(*args) == 0

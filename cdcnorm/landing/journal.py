@@ -14,6 +14,8 @@ import os
 import shutil
 from pathlib import Path
 
+from cdcnorm.errors import InputError
+
 NAME = "journal.json"
 
 
@@ -40,14 +42,37 @@ def write(meta: Path, staging: Path, moves: list[tuple[str, str]]) -> None:
     _fsync_dir(meta)
 
 
+def _inside(name: object) -> str:
+    """A path the journal names, relative and inside the area (a damaged journal could name any)."""
+    if not isinstance(name, str):
+        raise TypeError(f"{name!r} is not a path")
+    parts = Path(name).parts
+    if not parts or Path(name).is_absolute() or ".." in parts:
+        raise ValueError(f"{name!r} is not a path inside the landing area")
+    return name
+
+
 def replay(root: Path, meta: Path) -> bool:
     """Finish a committed publish; True when there was one."""
     path = meta / NAME
     if not path.exists():
         return False
-    data = json.loads(path.read_text(encoding="utf-8"))
-    staging = meta / data["staging"]
-    for src, dst in data["moves"]:
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+        staging = meta / _inside(data["staging"])
+        if not staging.name.startswith("staging-"):
+            raise ValueError(f"{data['staging']!r} is no staging folder")
+        moves = [(_inside(src), _inside(dst)) for src, dst in data["moves"]]
+    except (UnicodeDecodeError, ValueError, KeyError, TypeError) as e:  # JSONDecodeError is a ValueError
+        raise InputError(
+            "the commit journal of the landing area is damaged: the run it was committing cannot be finished",
+            file=str(path),
+            expected='the journal convert writes atomically: {"staging": ..., "moves": [[from, to], ...]}',
+            found=f"{type(e).__name__}: {e}",
+            hint=f"remove {path} and any {meta}/staging-* folder: the run it named is then not committed "
+            "(its files in place are ignored, and its inputs are converted again)",
+        ) from None
+    for src, dst in moves:
         source, target = staging / src, root / dst
         if source.exists():
             target.parent.mkdir(parents=True, exist_ok=True)

@@ -426,3 +426,27 @@ def test_a_landing_area_in_an_input_folder_is_refused(
     assert sorted(q.name for q in dumps.iterdir()) == ["c1.csv"]  # nothing was written there
     # a landing area beside the folder is fine
     assert cli("convert", "--quiet", "--mappings", str(m), str(dumps), "--out", str(landing)) == 0
+
+
+@pytest.mark.parametrize("replace", [False, True])
+def test_a_folder_that_is_no_landing_area_but_holds_its_folder_names_is_refused(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], replace: bool
+) -> None:
+    """A project folder with its own runs/ (or index/, events/): before, convert mixed its files in
+    (a JSON file in runs/ read as a run record) and --replace removed them without a word."""
+    out = tmp_path / "project"
+    (out / "runs").mkdir(parents=True)
+    (out / "runs" / "notes.txt").write_text("the team's own notes")
+    (out / "index").mkdir()  # an empty folder of those names is harmless
+    args = ["convert", str(ROOT / "examples" / "dumps"), "--mappings", str(ROOT / "mappings")]
+    capsys.readouterr()
+    assert cli(*args, "--out", str(out), *(["--replace"] if replace else [])) == 2
+    err = capsys.readouterr().err
+    assert "is no landing area (it has no .cdcnorm folder), but it holds runs/" in err, err
+    assert (out / "runs" / "notes.txt").read_text() == "the team's own notes"
+    assert not (out / ".cdcnorm").exists() and not (out / "events").exists()
+    # a landing area itself, --replace empties as before
+    area = tmp_path / "area"
+    assert cli(*args, "--out", str(area), "--quiet") == 0
+    assert cli(*args, "--out", str(area), "--replace", "--quiet") == 0
+    assert len(list((area / "runs").glob("*.json"))) == 1

@@ -157,7 +157,25 @@ def _check_folder(root: Path) -> None:
                 expected="a folder of its own for a landing area",
                 hint=f"give --out a folder outside {parent}, or {parent} itself to add a run to it",
             )
+    if not (root / META).is_dir():
+        # not (yet) a landing area: folders of its names with files in them are someone else's,
+        # which a run would mix with its own (and --replace would remove)
+        taken = [f"{f}/" for f in DATA if (root / f).exists() and not _empty_folder(root / f)]
+        if taken:
+            raise UsageError(
+                f"{root} is no landing area (it has no {META} folder), but it holds {', '.join(taken)}",
+                file=str(root),
+                expected=f"a new or empty folder, or a landing area (made by convert: {META}/ beside "
+                f"{', '.join(f + '/' for f in DATA)})",
+                found=f"files in {', '.join(taken)} that convert did not write",
+                hint="give --out a folder of its own: a run would mix its files with these, and "
+                "--replace would remove them",
+            )
     writable_folder(root)
+
+
+def _empty_folder(path: Path) -> bool:
+    return path.is_dir() and not any(path.iterdir())
 
 
 @contextmanager

@@ -249,7 +249,7 @@ def _tokens_kept(mapping: LoadedMapping, paths: str, types: dict[str, FieldType]
     ``100.0``, a long fraction through a double), so each line's number tokens are made tagged
     strings first (as the JSON Lines reader does), every member is read as text and untagged,
     then cast to the type ``read_json`` would have given it."""
-    from cdcnorm.types.json import tag_numbers, untag
+    from cdcnorm.types.json import tag_numbers_of_valid, untag
 
     def struct(names: list[str]) -> str:
         return "{" + ", ".join(f"{json.dumps(n)}: {json.dumps(_read_as(types[n]))}" for n in names) + "}"
@@ -276,7 +276,10 @@ def _tokens_kept(mapping: LoadedMapping, paths: str, types: dict[str, FieldType]
         f"quote = '', escape = '', auto_detect = false, strict_mode = true, filename = true, "
         f"max_line_size = {line}, buffer_size = {line})"
     )
-    parsed = f"SELECT filename, from_json({tag_numbers('line', tag)}, {lit(shape)}) AS e FROM {lines}"
+    # events are valid JSON (cdcnorm wrote them): the fast tagging applies
+    parsed = (
+        f"SELECT filename, from_json({tag_numbers_of_valid('line', tag)}, {lit(shape)}) AS e FROM {lines}"
+    )
     return (
         "(SELECT e.action AS action, e.position AS position, "
         f"CAST(e.committed_at AS TIMESTAMPTZ) AS committed_at{typed('key', key) if key else ''}"

@@ -169,12 +169,34 @@ def tag_numbers(line: str, tag: str, risky: str | None = None) -> str:
     ``100.0``, ``-0`` as ``0`` and a long fraction through a double). Only texts with a number that
     could be re-rendered (a fraction, an exponent, ``-0``, 19 digits or more) are rewritten;
     ``risky``: SQL of ``risky_numbers(line)`` already computed."""
-    tokens = f"regexp_extract_all({line}, '{STRING}|{_NUMBER_TOKEN}|[^\"0-9-]+|-')"
-    tagged = (
+    return f"CASE WHEN {risky or risky_numbers(line)} THEN {_tagged(line, tag)} ELSE {line} END"
+
+
+def _tagged(text: str, tag: str) -> str:
+    """SQL: every number token of the text tagged, found by a regular expression over all of it."""
+    tokens = f"regexp_extract_all({text}, '{STRING}|{_NUMBER_TOKEN}|[^\"0-9-]+|-')"
+    return (
         f"array_to_string(list_transform({tokens}, lambda t: CASE WHEN regexp_full_match(t, '{_NUMBER_TOKEN}') "
         f"THEN '\"{tag}' || t || '\"' ELSE t END), '')"
     )
-    return f"CASE WHEN {risky or risky_numbers(line)} THEN {tagged} ELSE {line} END"
+
+
+def tag_numbers_of_valid(text: str, tag: str) -> str:
+    """SQL: ``_tagged`` (every number tagged) for a text the engine's ``json_valid`` takes, at a
+    fifth of its cost: a regular expression over the whole text costs about 12 s per million
+    300-byte lines, this about 2.5 s. Escaped backslashes and quotes (which a valid text has only
+    inside strings) are set aside as the control characters U+0002 and U+0001, which a valid text
+    holds nowhere unescaped (``json_valid`` refuses them, and the engine's ``to_json`` escapes
+    them); the text is cut at its quotes, and only the pieces outside strings are searched for
+    numbers. (A CASE choosing another way for other texts doubled the cost: the engine's lambdas
+    run slower inside one.)"""
+    set_aside = f"replace(replace({text}, '\\\\', chr(2)), '\\\"', chr(1))"
+    pieces = f"string_split({set_aside}, '\"')"
+    tagged = (
+        f"array_to_string(list_transform({pieces}, lambda piece, i: CASE WHEN i % 2 = 1 THEN "
+        f"regexp_replace(piece, '{_NUMBER_TOKEN}', '\"{tag}\\0\"', 'g') ELSE piece END), '\"')"
+    )
+    return f"replace(replace({tagged}, chr(1), '\\\"'), chr(2), '\\\\')"
 
 
 def untag(value: str, tag: str) -> str:

@@ -1148,3 +1148,46 @@ def test_json_values_keep_their_tokens_through_snapshot_and_apply(tmp_path: Path
     assert exact["n"][3] == Decimal("0.1000000000000000055511151231257827")
     assert json.loads(lines[0], parse_float=Decimal)["doc"] == exact
     assert json.loads(lines[1])["doc"] == {"t": "\u00e9\U0001f600"}
+
+
+def test_as_of_time_says_which_events_no_time_places(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """An event without a commit time (its row had none) cannot be placed before or after a time:
+    before, --as-of-time left it out without a word; it still is left out, and a note says so."""
+    mdir = tmp_path / "mappings"
+    mdir.mkdir()
+    (mdir / "t.yaml").write_text(
+        "table: lab.ct\nfiles: [t.csv]\nkey: [id]\n"
+        "change:\n  action: {column: op, codes: {I: insert, U: after}}\n  position: {column: pos, kind: integer}\n"
+        "  committed_at: {column: ts}\nfields:\n  id: integer\n  v: text\n"
+    )
+    (tmp_path / "in").mkdir()
+    (tmp_path / "in" / "t.csv").write_text(
+        "op,pos,ts,id,v\nI,1,2026-01-01T00:00:00Z,1,a\nU,2,,1,b\nU,3,2026-01-03T00:00:00Z,1,c\n"
+    )
+    landing = tmp_path / "landing"
+    assert (
+        cli("convert", str(tmp_path / "in"), "--mappings", str(mdir), "--out", str(landing), "--quiet") == 0
+    )
+    capsys.readouterr()
+    args = [
+        "snapshot",
+        str(landing),
+        "--mappings",
+        str(mdir),
+        "--out",
+        str(tmp_path / "s"),
+        "--format",
+        "jsonl",
+    ]
+    assert cli(*args, "--as-of-time", "2026-01-02T00:00:00Z", "--json") == 0
+    (table,) = json.loads(capsys.readouterr().out)["tables"]
+    assert table["notes"] == [
+        "1 event has no commit time, so no time places it: left out of the state (the first at position "
+        "00000000000000000002.2); --as-of POSITION places every event"
+    ]
+    assert json.loads((tmp_path / "s" / "lab.ct.jsonl").read_text())["v"] == "a"
+    assert cli(*args, "--as-of", "2") == 0  # by position, every event is placed: no note
+    assert "no commit time" not in capsys.readouterr().err
+    assert json.loads((tmp_path / "s" / "lab.ct.jsonl").read_text())["v"] == "b"

@@ -149,6 +149,7 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
                 as_of = snapshot.as_of_time(engine, m, args.as_of_time)
             progress(f"{m.table}: compact", i, len(chosen))
             state = snapshot.compact(engine, events, as_of)
+            unplaced = snapshot.left_out(engine, events, as_of)
             path = folder / (path_part(m.table) + snapshot.FORMATS[args.fmt])
             progress(f"{m.table}: write {path.name}", i, len(chosen))
             n = snapshot.write_snapshot(engine, events, state, path, args.fmt)
@@ -159,7 +160,7 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
                     "event_files": len(files),
                     "as_of": as_of.label,
                     "file": str(path),
-                    "notes": list(events.notes),
+                    "notes": [*events.notes, *([unplaced] if unplaced else [])],
                 }
             )
             engine.drop(state)

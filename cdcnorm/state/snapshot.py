@@ -17,7 +17,7 @@ from pathlib import Path
 
 from cdcnorm import positions
 from cdcnorm.engines.duckdb import DuckDBEngine
-from cdcnorm.errors import InputError, UsageError
+from cdcnorm.errors import InputError, UsageError, counted
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.sql import ident, lit
 from cdcnorm.state.events import Events
@@ -33,6 +33,25 @@ class AsOf:
 
     condition: str = "TRUE"  # SQL over the events relation
     label: str = "latest"
+    #: SQL over the events relation: the events the condition cannot place (left out, and said so)
+    unplaced: str | None = None
+    #: why they cannot be placed, for the note
+    why: str = ""
+
+
+def left_out(engine: DuckDBEngine, events: Events, as_of: AsOf) -> str | None:
+    """A note on the events ``as_of`` leaves out because it cannot place them, or None."""
+    if as_of.unplaced is None:
+        return None
+    ((n, first),) = engine.rows(
+        f"SELECT count(*), min(__position) FROM {ident(events.relation)} WHERE {as_of.unplaced}"
+    )
+    if not n:
+        return None
+    return (
+        f"{counted(int(n), 'event')} {'has' if n == 1 else 'have'} {as_of.why}: left out of the state "
+        f"(the first at position {first}); --as-of POSITION places every event"
+    )
 
 
 def position_part(mapping: LoadedMapping, position: str = "__position") -> str:
@@ -117,7 +136,7 @@ def as_of_time(engine: DuckDBEngine, mapping: LoadedMapping, text: str) -> AsOf:
             expected="an RFC 3339 timestamp, e.g. 2026-03-01T12:00:00Z",
             found=text,
         )
-    return AsOf(f"__cat <= {cast}", f"time {text}")
+    return AsOf(f"__cat <= {cast}", f"time {text}", "__cat IS NULL", "no commit time, so no time places it")
 
 
 def latest(engine: DuckDBEngine, events: Events, as_of: AsOf = AsOf(), relation: str | None = None) -> str:

@@ -210,6 +210,34 @@ def test_impact_of_a_retype_to_float(demo: tuple) -> None:  # type: ignore[type-
     changes = {v["column"]: v for v in r["value_changes"]}
     assert changes["stg_bookings.fare"]["how"].startswith("copied")
     assert "exact decimal becomes a float" in changes["daily_revenue.total_fare"]["change"]
+    # a mapping's float is a double: DuckDB, building the model over it, says DOUBLE (before, the
+    # binding check read `float` as SQL's, DuckDB's 4-byte FLOAT)
+    assert (changes["stg_bookings.fare"]["type_after"], changes["stg_bookings.fare"]["types_from"]) == (
+        "DOUBLE",
+        "duckdb",
+    )
+
+
+def test_impact_of_a_retype_of_a_model_column(demo: tuple) -> None:  # type: ignore[type-arg]
+    """A model column's type is its query's: before, a retype took it for TEXT (`TEXT -> float`),
+    called every reader "computed from it" with its type unchanged, and a retype to the same type
+    written otherwise (`decimal(12,2)` for `DECIMAL(12, 2)`) was a change."""
+    project, mappings, loaded = demo
+    r = impact(
+        project, "daily_revenue.total_fare", Edit("retype", "DOUBLE"), mappings=mappings, loaded=loaded
+    )
+    changes = {v["column"]: v for v in r["value_changes"]}
+    copied = changes["route_rankings.total_fare"]
+    assert copied["how"].startswith("copied") and copied["type_after"] == "DOUBLE"
+    assert "TEXT" not in copied["change"] and "an exact decimal becomes a float" in copied["change"]
+    same = impact(
+        project,
+        "daily_revenue.total_fare",
+        Edit("retype", copied["type_before"].lower().replace(" ", "")),
+        mappings=mappings,
+        loaded=loaded,
+    )
+    assert same["value_changes"] == []
 
 
 def test_a_dependent_is_a_copy_only_when_every_route_to_it_copies(tmp_path: Path) -> None:

@@ -47,7 +47,8 @@ def type_models(
     only: set[str] | None = None,
 ) -> dict[Node, str]:
     """Each model column's type (``UNKNOWN`` where sqlglot cannot tell), with ``edits`` applied
-    to the source tables first (a retype changes what every reader computes). ``only`` types
+    to the source tables first (a retype changes what every reader computes), and a model column's
+    retype to that column, which its readers then read. ``only`` types
     those models and the models they read, upstream first, and no other."""
     if only is not None:
         wanted = set(only)
@@ -81,6 +82,9 @@ def type_models(
             if st.kind == "insert":
                 found.update(project.declared.get(st.target, {}))
         for col in info.columns:
+            edit = (edits or {}).get(("model", name, col))
+            if edit is not None and edit[0] == "retype":  # the model's column retyped (its query edited)
+                found[col] = exp.DataType.build(edit[1], dialect=dialect).sql(dialect=dialect)
             types[("model", name, col)] = found.get(col, UNKNOWN)
         parts = sts[0].target if sts else (name,)
         catalog.add(declared_table("model", name, parts, list(info.columns), dialect, found, "model"))

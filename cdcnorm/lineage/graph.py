@@ -35,6 +35,7 @@ from cdcnorm.lineage.resolve import (
     written,
 )
 from cdcnorm.mapping.load import LoadedMapping
+from cdcnorm.types.base import FieldType
 
 SQL_TYPES = {
     "integer": "BIGINT",
@@ -124,7 +125,11 @@ class Project:
 
 
 def source_type(lm: LoadedMapping, field_name: str) -> str:
-    ftype = lm.field_types[field_name]
+    return sql_type_of(lm.field_types[field_name])
+
+
+def sql_type_of(ftype: FieldType) -> str:
+    """The SQL type of a mapping type (``float`` is DOUBLE: a mapping's float is a double)."""
     if ftype.name == "decimal":
         p, s = ftype.params
         return f"DECIMAL({p},{s})"

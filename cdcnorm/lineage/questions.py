@@ -15,6 +15,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import networkx as nx
+import sqlglot
 from sqlglot import exp
 
 from cdcnorm.errors import LineageError, did_you_mean
@@ -355,9 +356,31 @@ def _type_change(old: str, new: str, dialect: str) -> str | None:
         return f"the text narrows ({old} -> {new}): longer values no longer fit"
     if a[0] == "integer" and b[0] == "float" and (a[1] or 0) > 53:
         return f"a 64-bit integer becomes a float ({old} -> {new}): values above 2**53 lose precision"
-    if old.lower() != new.lower():
+    if _written(old, dialect) != _written(new, dialect):
         return f"the type changes ({old} -> {new})"
     return None
+
+
+def _as_mapping_type(value: str) -> str:
+    """A retype of a mapping's field as SQL: a mapping type's SQL type (``float`` -> DOUBLE,
+    ``text(12)`` -> VARCHAR(12)); any other text as written (an SQL type)."""
+    from cdcnorm.errors import MappingError
+    from cdcnorm.lineage.graph import sql_type_of
+    from cdcnorm.mapping.model import FieldSpec
+    from cdcnorm.types import resolve
+
+    try:
+        return sql_type_of(resolve(FieldSpec(type=value)))
+    except (MappingError, ValueError, KeyError):
+        return value
+
+
+def _written(type_text: str, dialect: str) -> str:
+    """A type as the dialect writes it (``decimal(12,2)`` and ``DECIMAL(12, 2)`` are one type)."""
+    try:
+        return str(exp.DataType.build(type_text, dialect=dialect).sql(dialect=dialect))
+    except (ValueError, sqlglot.errors.ParseError):
+        return type_text.lower()
 
 
 def impact(
@@ -395,6 +418,9 @@ def impact(
     if edit is None:
         return result
     g = project.graph
+    if edit.kind == "retype" and edit.value and node[0] in ("raw", "source") and node[1] in project.sources:
+        # a mapping's field takes a mapping's type (``float`` is a double, not SQL's 4-byte FLOAT)
+        edit = Edit(edit.kind, _as_mapping_type(edit.value))
     # the dump columns and canonical fields the edit touches (a raw column edit reaches its fields)
     if node[0] == "raw":
         raws, fields = [node], [s for s in g.successors(node) if s[0] == "source"]
@@ -470,15 +496,22 @@ def impact(
             "unavailable": [{"model": "*", "reason": "the edit is not of a source table's column"}],
         }
     if edit.kind == "retype" and edit.value:
-        old = g.nodes[node].get("type") or ("UNKNOWN" if g.nodes[node].get("inferred") else "TEXT")
+        from cdcnorm.lineage.annotate import type_models
+
+        affected = {n[1] for n in vdep}
+        if node[0] == "model":  # a model's column: its type is its query's, as sqlglot types it
+            affected.add(node[1])
+            typed_before = type_models(project, only=affected)
+            old = typed_before.get(node, "UNKNOWN")
+            retyped: dict[Node, Any] = {node: ("retype", edit.value)}
+        else:
+            old = g.nodes[node].get("type") or ("UNKNOWN" if g.nodes[node].get("inferred") else "TEXT")
+            retyped = {f: ("retype", edit.value) for f in fields}
         change = _type_change(old, edit.value, project.dialect)
         if change:
             # each dependent's type before and after, from sqlglot's type annotation
-            from cdcnorm.lineage.annotate import type_models
-
-            affected = {n[1] for n in vdep}
-            typed_before = type_models(project, only=affected)
-            retyped = {f: ("retype", edit.value) for f in fields}
+            if node[0] != "model":
+                typed_before = type_models(project, only=affected)
             typed_after = type_models(project, retyped, only=affected)
             computed = _computed_from(project, node)
             for n in vdep:

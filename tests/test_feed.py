@@ -450,3 +450,17 @@ def test_a_folder_that_is_no_landing_area_but_holds_its_folder_names_is_refused(
     assert cli(*args, "--out", str(area), "--quiet") == 0
     assert cli(*args, "--out", str(area), "--replace", "--quiet") == 0
     assert len(list((area / "runs").glob("*.json"))) == 1
+
+
+def test_a_landing_area_whose_cdcnorm_folder_was_removed_is_still_one(tmp_path: Path) -> None:
+    """.cdcnorm/ holds no data (lock, journal, staging): removed, the area's run records still say
+    what it is, and the next run adds to it."""
+    area = tmp_path / "area"
+    args = ["convert", str(ROOT / "examples" / "dumps"), "--mappings", str(ROOT / "mappings"), "--quiet"]
+    assert cli(*args, "--out", str(area)) == 0
+    import shutil
+
+    shutil.rmtree(area / ".cdcnorm")
+    nextday = ["convert", str(ROOT / "examples" / "next-day"), "--mappings", str(ROOT / "mappings")]
+    assert cli(*nextday, "--out", str(area), "--quiet") == 0
+    assert len(list((area / "runs").glob("*.json"))) == 2

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import errno
 import os
+import re
 import secrets
 import shutil
 import signal
@@ -19,6 +20,7 @@ from cdcnorm.landing import journal, lock, runs
 from cdcnorm.names import path_part
 
 META = ".cdcnorm"
+RUN_RECORD = re.compile(r"[0-9]{6}-[0-9]{8}T[0-9]{6}Z\.json")
 DATA = ("events", "quarantine", "index", runs.RUNS)
 
 
@@ -157,9 +159,10 @@ def _check_folder(root: Path) -> None:
                 expected="a folder of its own for a landing area",
                 hint=f"give --out a folder outside {parent}, or {parent} itself to add a run to it",
             )
-    if not (root / META).is_dir():
+    if not (root / META).is_dir() and not _run_records_only(root / runs.RUNS):
         # not (yet) a landing area: folders of its names with files in them are someone else's,
-        # which a run would mix with its own (and --replace would remove)
+        # which a run would mix with its own (and --replace would remove); a landing area whose
+        # .cdcnorm/ was removed (it holds no data) still has its run records
         taken = [f"{f}/" for f in DATA if (root / f).exists() and not _empty_folder(root / f)]
         if taken:
             raise UsageError(
@@ -176,6 +179,14 @@ def _check_folder(root: Path) -> None:
 
 def _empty_folder(path: Path) -> bool:
     return path.is_dir() and not any(path.iterdir())
+
+
+def _run_records_only(folder: Path) -> bool:
+    """Whether ``folder`` holds run records and nothing else (``000003-20261202T071328Z.json``)."""
+    if not folder.is_dir():
+        return False
+    names = [p.name for p in folder.iterdir()]
+    return bool(names) and all(RUN_RECORD.fullmatch(n) for n in names)
 
 
 @contextmanager

@@ -93,12 +93,9 @@ MISSPELT = [
 ]
 
 
-def test_a_star_list_naming_a_column_its_sources_lack_is_reported_where_the_engine_refuses_it(
-    tmp_path: Path,
-) -> None:
-    """DuckDB as the oracle: a model whose EXCLUDE or REPLACE list names a column the star does not
-    cover cannot be created, and lineage reports exactly those models as not in schema
-    (before, qualification dropped the name and every answer was complete)."""
+def _refused_by_duckdb(queries: list[str]) -> set[str]:
+    """The oracle: the models m0, m1, ... (one per query) DuckDB refuses to create over the cases'
+    schema, for a name it cannot bind."""
     import duckdb
 
     con = duckdb.connect()
@@ -107,11 +104,21 @@ def test_a_star_list_naming_a_column_its_sources_lack_is_reported_where_the_engi
         con.execute(f"CREATE SCHEMA IF NOT EXISTS {schema}")
         con.execute(f"CREATE TABLE {schema}.{table} ({', '.join(f'{c} {t}' for c, t in cols.items())})")
     refused = set()
-    for i, sql in enumerate(STAR_LISTS):
+    for i, sql in enumerate(queries):
         try:
             con.execute(f"CREATE VIEW m{i} AS {sql}")
         except duckdb.BinderException:
             refused.add(f"m{i}")
+    return refused
+
+
+def test_a_star_list_naming_a_column_its_sources_lack_is_reported_where_the_engine_refuses_it(
+    tmp_path: Path,
+) -> None:
+    """DuckDB as the oracle: a model whose EXCLUDE or REPLACE list names a column the star does not
+    cover cannot be created, and lineage reports exactly those models as not in schema
+    (before, qualification dropped the name and every answer was complete)."""
+    refused = _refused_by_duckdb(STAR_LISTS)
     # the oracle's answer, not ours: a RENAME of a column the star lacks is passed over (m9)
     assert refused == {"m1", "m4", "m7", "m10", "m11"}
     project = project_from(tmp_path, {f"m{i}.sql": sql for i, sql in enumerate(STAR_LISTS)}, CASES["schema"])
@@ -126,19 +133,7 @@ def test_a_misspelt_name_in_any_clause_is_reported_where_the_engine_refuses_it(t
     """DuckDB as the oracle: each model it refuses to create for a name its tables lack is
     reported as not in schema, and each it creates is complete; an ORDER BY without LIMIT decides
     no rows, but a misspelt name in it was passed over (the model was traced as complete)."""
-    import duckdb
-
-    con = duckdb.connect()
-    for name, cols in CASES["schema"].items():
-        schema, table = name.split(".")
-        con.execute(f"CREATE SCHEMA IF NOT EXISTS {schema}")
-        con.execute(f"CREATE TABLE {schema}.{table} ({', '.join(f'{c} {t}' for c, t in cols.items())})")
-    refused = set()
-    for i, sql in enumerate(MISSPELT):
-        try:
-            con.execute(f"CREATE VIEW m{i} AS {sql}")
-        except duckdb.BinderException:
-            refused.add(f"m{i}")
+    refused = _refused_by_duckdb(MISSPELT)
     assert len(refused) == 13  # the oracle refuses every misspelt one
     project = project_from(tmp_path, {f"m{i}.sql": sql for i, sql in enumerate(MISSPELT)}, CASES["schema"])
     assert {d.model for d in project.diagnostics if d.reason == "not in schema"} == refused

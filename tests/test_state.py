@@ -1111,12 +1111,11 @@ def test_json_values_keep_their_tokens_through_snapshot_and_apply(tmp_path: Path
 
     import pyarrow.parquet as pq
 
-    mdir = tmp_path / "mappings"
-    mdir.mkdir()
-    (mdir / "j.yaml").write_text(
+    mdir = _mappings(
+        tmp_path,
         "table: lab.docs\nfiles: [docs.csv]\nkey: [id]\n"
         "change:\n  action: {column: op, codes: {I: insert}}\n  position: {column: pos, kind: integer}\n"
-        "fields:\n  id: integer\n  doc: json\n  f: float\n"
+        "fields:\n  id: integer\n  doc: json\n  f: float\n",
     )
     (tmp_path / "in").mkdir()
     quoted = RISKY_JSON.replace('"', '""')
@@ -1155,12 +1154,11 @@ def test_as_of_time_says_which_events_no_time_places(
 ) -> None:
     """An event without a commit time (its row had none) cannot be placed before or after a time:
     before, --as-of-time left it out without a word; it still is left out, and a note says so."""
-    mdir = tmp_path / "mappings"
-    mdir.mkdir()
-    (mdir / "t.yaml").write_text(
+    mdir = _mappings(
+        tmp_path,
         "table: lab.ct\nfiles: [t.csv]\nkey: [id]\n"
         "change:\n  action: {column: op, codes: {I: insert, U: after}}\n  position: {column: pos, kind: integer}\n"
-        "  committed_at: {column: ts}\nfields:\n  id: integer\n  v: text\n"
+        "  committed_at: {column: ts}\nfields:\n  id: integer\n  v: text\n",
     )
     (tmp_path / "in").mkdir()
     (tmp_path / "in" / "t.csv").write_text(

@@ -1132,7 +1132,9 @@ def test_json_values_keep_their_tokens_through_snapshot_and_apply(tmp_path: Path
     assert f'"doc":{RISKY_JSON},' in lines[0]
     with open(tmp_path / "csv" / "lab.docs.csv", newline="") as f:
         assert next(csv.DictReader(f))["doc"] == RISKY_JSON
-    assert pq.read_table(tmp_path / "parquet" / "lab.docs.parquet").column("doc")[0].as_py() == RISKY_JSON
+    doc = pq.read_table(tmp_path / "parquet" / "lab.docs.parquet").column("doc")[0].as_py()
+    # a pyarrow without the JSON extension type (16.x, the oldest allowed) reads the column as bytes
+    assert (doc.decode() if isinstance(doc, bytes) else doc) == RISKY_JSON
     for url in (f"sqlite:///{tmp_path / 'w.db'}", f"duckdb:///{tmp_path / 'w.duckdb'}"):
         _apply(landing, mdir, url)
     lite = sqlite3.connect(tmp_path / "w.db")

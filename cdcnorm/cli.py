@@ -217,6 +217,10 @@ def build_parser() -> argparse.ArgumentParser:
     )
     which.add_argument("--all", action="store_true", help="settle every pending image")
     settle.add_argument(
+        "--table",
+        help="settle only this table's images (a --before position is then of its kind alone)",
+    )
+    settle.add_argument(
         "--wait",
         type=seconds,
         default=30.0,
@@ -600,8 +604,9 @@ def cmd_runs(args: argparse.Namespace) -> int:
 
 def cmd_settle(args: argparse.Namespace) -> int:
     from cdcnorm.pipeline import Options, position_key_of, run
+    from cdcnorm.state.cli import _chosen
 
-    mappings = load_mappings(Path(args.mappings))
+    mappings = _chosen(load_mappings(Path(args.mappings)), args.table)
     if args.before is not None:
         from cdcnorm import positions
         from cdcnorm.engines.duckdb import DuckDBEngine
@@ -612,10 +617,14 @@ def cmd_settle(args: argparse.Namespace) -> int:
         zones.register(engine, mappings)
         specs = [m.mapping.change.position for m in mappings]
         if not any(position_key_of(engine, p, args.before) is not None for p in specs):
+            kinds: dict[str, list[str]] = {}
+            for m in mappings:
+                kinds.setdefault(positions.expected(m.mapping.change.position), []).append(m.table)
             raise UsageError(
                 f"--before {args.before!r} is not a log position of any mapping",
-                expected=" or ".join(sorted({positions.expected(p) for p in specs})),
+                expected="; ".join(f"{', '.join(tables)}: {kind}" for kind, tables in sorted(kinds.items())),
                 found=args.before,
+                hint=None if args.table else "--table settles one table, by a position of its kind",
             )
     options = Options(out=Path(args.landing), wait=args.wait, settle="all" if args.all else args.before)
     result = run(mappings, [], options)

@@ -518,6 +518,7 @@ def _settle_key(engine: DuckDBEngine, mapping: LoadedMapping, settle: str | None
             f"--before {settle!r} is not a position of {mapping.table}",
             expected=positions.expected(spec),
             found=settle,
+            hint="settle the tables whose positions are of another kind one at a time, with --table",
         )
     return f"({key})"
 

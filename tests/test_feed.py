@@ -464,3 +464,35 @@ def test_a_landing_area_whose_cdcnorm_folder_was_removed_is_still_one(tmp_path: 
     nextday = ["convert", str(ROOT / "examples" / "next-day"), "--mappings", str(ROOT / "mappings")]
     assert cli(*nextday, "--out", str(area), "--quiet") == 0
     assert len(list((area / "runs").glob("*.json"))) == 2
+
+
+def test_settle_by_position_one_table_at_a_time_when_their_positions_differ_in_kind(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """Bookings (hex-pair positions) and passengers (hex) both have an image waiting: no one
+    --before is a position of both. Before, the only way out was --all; --table now settles one
+    table by a position of its kind, and the other's image keeps waiting."""
+    area = tmp_path / "area"
+    mappings = str(ROOT / "mappings")
+    assert (
+        cli(
+            "convert", str(ROOT / "examples" / "dumps"), "--mappings", mappings, "--out", str(area), "--quiet"
+        )
+        == 0
+    )
+    (tmp_path / "more").mkdir()
+    header = (ROOT / "examples" / "dumps" / "passengers.csv").read_text().splitlines()[0]
+    (tmp_path / "more" / "passengers-late.csv").write_text(
+        header + "\nB,0x0000002A000001F90001,1,9001,Ines Marrow,ines@example.org,gold,2019-04-01,Zm9vYmFy,"
+        "5DF41881-3AED-3515-88A7-2F4A814CF09E\n"
+    )
+    assert cli("convert", str(tmp_path / "more"), "--mappings", mappings, "--out", str(area), "--quiet") == 0
+    assert last_run(area)["waiting"] == 2
+    capsys.readouterr()
+    settle = ["settle", str(area), "--mappings", mappings, "--quiet"]
+    assert cli(*settle, "--before", "0x0000002A000001FA0000") == 2  # not a position of ferry.bookings
+    assert "with --table" in capsys.readouterr().err
+    assert cli(*settle, "--before", "0x0000002A000001FA0000", "--table", "ferry.passengers") == 0
+    record = last_run(area)
+    assert record["waiting_by_table"] == {"ferry.bookings": 1, "ferry.passengers": 0, "ferry.sailings": 0}
+    assert record["ledger"]["total"]["quarantined"] == 1

@@ -604,9 +604,9 @@ def cmd_runs(args: argparse.Namespace) -> int:
 
 def cmd_settle(args: argparse.Namespace) -> int:
     from cdcnorm.pipeline import Options, position_key_of, run
-    from cdcnorm.state.cli import _chosen
+    from cdcnorm.state.cli import chosen_mappings
 
-    mappings = _chosen(load_mappings(Path(args.mappings)), args.table)
+    mappings = chosen_mappings(load_mappings(Path(args.mappings)), args.table)
     if args.before is not None:
         from cdcnorm import positions
         from cdcnorm.engines.duckdb import DuckDBEngine

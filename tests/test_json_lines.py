@@ -150,12 +150,12 @@ def test_tagging_numbers_without_a_whole_text_expression_tags_as_the_expression_
     quotes, backslashes, digits and what looks like numbers (Python's json writes them)."""
     import duckdb
 
-    from cdcnorm.types.json import _tagged, tag_numbers_of_valid
+    from cdcnorm.types.json import tag_numbers, tag_numbers_of_valid
 
     con = duckdb.connect()
     assert con.execute("SELECT json_valid($1)", [text]).fetchone() == (True,)
     fast, slow = con.execute(
-        f"SELECT {tag_numbers_of_valid('$1', '~n~')}, {_tagged('$1', '~n~')}", [text]
+        f"SELECT {tag_numbers_of_valid('$1', '~n~')}, {tag_numbers('$1', '~n~')}", [text]
     ).fetchone()
     assert fast == slow
     # and tagged, the engine's parser keeps every number as written (json.loads is the oracle)

@@ -93,9 +93,8 @@ MISSPELT = [
 ]
 
 
-def _refused_by_duckdb(queries: list[str]) -> set[str]:
-    """The oracle: the models m0, m1, ... (one per query) DuckDB refuses to create over the cases'
-    schema, for a name it cannot bind."""
+def _cases_schema_in_duckdb() -> Any:
+    """A DuckDB database holding the golden cases' schema (empty tables), the oracle's."""
     import duckdb
 
     con = duckdb.connect()
@@ -103,6 +102,15 @@ def _refused_by_duckdb(queries: list[str]) -> set[str]:
         schema, table = name.split(".")
         con.execute(f"CREATE SCHEMA IF NOT EXISTS {schema}")
         con.execute(f"CREATE TABLE {schema}.{table} ({', '.join(f'{c} {t}' for c, t in cols.items())})")
+    return con
+
+
+def _refused_by_duckdb(queries: list[str]) -> set[str]:
+    """The oracle: the models m0, m1, ... (one per query) DuckDB refuses to create over the cases'
+    schema, for a name it cannot bind."""
+    import duckdb
+
+    con = _cases_schema_in_duckdb()
     refused = set()
     for i, sql in enumerate(queries):
         try:
@@ -146,15 +154,10 @@ def test_model_columns_are_named_as_duckdb_names_the_views_columns(
 ) -> None:
     """DuckDB as the oracle: each golden case's models, created in a real database over the case's
     schema, get the very column names lineage gives them (duplicates, stars, aliases, case)."""
-    import duckdb
 
     project = project_from(tmp_path, case["models"], CASES["schema"])
     loaded = load_models(tmp_path / "models", "duckdb")
-    con = duckdb.connect()
-    for name, cols in CASES["schema"].items():
-        schema, table = name.split(".")
-        con.execute(f"CREATE SCHEMA IF NOT EXISTS {schema}")
-        con.execute(f"CREATE TABLE {schema}.{table} ({', '.join(f'{c} {t}' for c, t in cols.items())})")
+    con = _cases_schema_in_duckdb()
     checked = 0
     for model in project.order:
         sts = [s for s in loaded.statements if s.name == model]

@@ -329,7 +329,7 @@ class DuckDBEngine:
         #: it, its columns, and each of its files' (id, first rowid, rows), for ``lookup``; one
         #: dict that sibling connections share
         self._numbered_views: dict[str, tuple[str, tuple[str, ...], tuple[tuple[int, int, int], ...]]] = {}
-        # marks JSON Lines numbers read as written (types/json.py: tag_numbers); random, so that
+        # marks JSON Lines numbers read as written (types/json.py: tag_numbers_of_valid); random, so that
         # no text of a dump can look like it
         self.number_tag = f"~n{secrets.token_hex(8)}~"
 

@@ -68,7 +68,7 @@ def add_commands(sub: Any) -> None:
     app.add_argument("--quiet", action="store_true", help="print nothing but errors and warnings")
 
 
-def _chosen(mappings: list[LoadedMapping], table: str | None) -> list[LoadedMapping]:
+def chosen_mappings(mappings: list[LoadedMapping], table: str | None) -> list[LoadedMapping]:
     """The mappings a command works on: all, or ``--table``'s (a misspelt name is suggested)."""
     if table is not None:
         names = [m.table for m in mappings]
@@ -128,7 +128,7 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
     landing = Path(args.landing)
     check_landing(landing)
     mappings = load_mappings(Path(args.mappings))
-    chosen = _chosen(mappings, args.table)
+    chosen = chosen_mappings(mappings, args.table)
     folder = Path(args.out)
     writable_folder(folder)  # before any work: a file there, or no right to write, is exit 4
     rows: list[dict[str, Any]] = []
@@ -202,7 +202,7 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
     landing = Path(args.landing)
     check_landing(landing)
     mappings = load_mappings(Path(args.mappings))
-    chosen = _chosen(mappings, args.table)
+    chosen = chosen_mappings(mappings, args.table)
     # before anything is written: every table apply makes has a place of its own (with --schema,
     # among the tables of this apply; without it, among every mapping's, as each will be applied)
     placed(target, chosen if args.schema is not None else mappings, args.schema, applied=chosen)

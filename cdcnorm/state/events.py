@@ -188,7 +188,6 @@ def _retyped(mapping: LoadedMapping, types: dict[str, FieldType]) -> dict[str, F
 
 
 def _select(mapping: LoadedMapping, source: str, types: dict[str, FieldType], *, rendered: bool) -> str:
-    parse = "filename"
     cols = []
     retyped = _retyped(mapping, types)
     for i, (name, ftype) in enumerate(mapping.field_types.items()):
@@ -204,7 +203,7 @@ def _select(mapping: LoadedMapping, source: str, types: dict[str, FieldType], *,
             # a field made part of the key since, which the events' keys lack (read as NULL, apply
             # would fail in the target's words, or snapshot would make them one key)
             said = (
-                f"{parse} || {lit(f': the events were written under another key of {mapping.table}: ')}"
+                f"filename || {lit(f': the events were written under another key of {mapping.table}: ')}"
                 f" || {lit(f'an event has no {name} in its key ({_KEY_HINT})')}"
             )
             typed = f"CASE WHEN {typed} IS NULL THEN {refusal(said)} ELSE {typed} END"

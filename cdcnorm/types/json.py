@@ -159,21 +159,17 @@ _NUMBER_TOKEN = "-?[0-9][0-9.eE+-]*"
 
 
 def risky_numbers(line: str, outside: str | None = None) -> str:
-    """SQL: the text has a number the engine could re-render (see ``tag_numbers``)."""
+    """SQL: the text has a number the engine could re-render (see ``tag_numbers``): the lines
+    without one need no tagging."""
     return f"regexp_matches({outside or outside_strings(line)}, '[0-9][.eE]|-0|[0-9]{{19,}}')"
 
 
-def tag_numbers(line: str, tag: str, risky: str | None = None) -> str:
+def tag_numbers(text: str, tag: str) -> str:
     """SQL: the JSON text with every number token outside strings made a string ``"<tag><token>"``,
     so the engine's parser hands the token back as written (it would re-render ``1e2`` as
-    ``100.0``, ``-0`` as ``0`` and a long fraction through a double). Only texts with a number that
-    could be re-rendered (a fraction, an exponent, ``-0``, 19 digits or more) are rewritten;
-    ``risky``: SQL of ``risky_numbers(line)`` already computed."""
-    return f"CASE WHEN {risky or risky_numbers(line)} THEN {_tagged(line, tag)} ELSE {line} END"
-
-
-def _tagged(text: str, tag: str) -> str:
-    """SQL: every number token of the text tagged, found by a regular expression over all of it."""
+    ``100.0``, ``-0`` as ``0`` and a long fraction through a double), found by a regular
+    expression over the whole text: right for any text, and the reference that
+    ``tag_numbers_of_valid`` is tested against."""
     tokens = f"regexp_extract_all({text}, '{STRING}|{_NUMBER_TOKEN}|[^\"0-9-]+|-')"
     return (
         f"array_to_string(list_transform({tokens}, lambda t: CASE WHEN regexp_full_match(t, '{_NUMBER_TOKEN}') "
@@ -182,8 +178,7 @@ def _tagged(text: str, tag: str) -> str:
 
 
 def tag_numbers_of_valid(text: str, tag: str) -> str:
-    """SQL: ``_tagged`` (every number tagged) for a text the engine's ``json_valid`` takes, at a
-    fifth of its cost: a regular expression over the whole text costs about 12 s per million
+    """SQL: ``tag_numbers`` for a text the engine's ``json_valid`` takes, at a fifth of its cost: a regular expression over the whole text costs about 12 s per million
     300-byte lines, this about 2.5 s. Escaped backslashes and quotes (which a valid text has only
     inside strings) are set aside as the control characters U+0002 and U+0001, which a valid text
     holds nowhere unescaped (``json_valid`` refuses them, and the engine's ``to_json`` escapes

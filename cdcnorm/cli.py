@@ -23,15 +23,55 @@ from rich.text import Text
 from cdcnorm import __version__
 from cdcnorm import ledger as ledger_mod
 from cdcnorm.engines import ENGINES
-from cdcnorm.errors import EXIT_OK, CdcnormError, InterruptedRun, UsageError, closest, counted, name_list
+from cdcnorm.errors import (
+    EXIT_OK,
+    EXIT_OUTPUT_CUT,
+    CdcnormError,
+    InterruptedRun,
+    UsageError,
+    closest,
+    counted,
+    name_list,
+)
 from cdcnorm.mapping import load_mappings
 from cdcnorm.pipeline import STAGE_NAMES, Notice, Options, Result, describe_sources, file_notes, run
 from cdcnorm.tables import print_table
 
-# No markup: what the consoles print holds names from users' files (a file "t[x].csv" was shown as
-# "t.csv", a column "a[/]b" ended in rich's MarkupError); styled parts are Text with a style.
-err = Console(stderr=True, highlight=False, markup=False, width=None if sys.stderr.isatty() else 200)
-out = Console(highlight=False, markup=False, soft_wrap=True, width=None if sys.stdout.isatty() else 200)
+
+class _Console(Console):
+    """A console whose reader may go away (``cdcnorm runs area | head``). Rich's own answer ends the
+    process with exit 1 wherever it was, a run half-converted; here the rest of this console's output
+    is dropped, the command goes on to its end, and ``main`` ends with EXIT_OUTPUT_CUT."""
+
+    cut = False
+
+    def on_broken_pipe(self) -> None:
+        self.quiet = True
+        self.cut = True
+        _silence(self.file)
+
+
+def _silence(stream: Any) -> None:
+    """Point a stream's descriptor at the null device: what is still buffered for it (flushed as the
+    interpreter ends) goes nowhere instead of raising BrokenPipeError again."""
+    try:
+        fd = stream.fileno()
+    except (AttributeError, OSError, ValueError):  # a stream without a descriptor (a test's capture)
+        return
+    null = os.open(os.devnull, os.O_WRONLY)
+    os.dup2(null, fd)
+    os.close(null)
+
+
+# No markup and no emoji codes: what the consoles print holds names and values from users' files (a
+# file "t[x].csv" was shown as "t.csv", a column "a[/]b" ended in rich's MarkupError, a column
+# ":x:" was shown as an emoji); styled parts are Text with a style.
+err = _Console(
+    stderr=True, highlight=False, markup=False, emoji=False, width=None if sys.stderr.isatty() else 200
+)
+out = _Console(
+    highlight=False, markup=False, emoji=False, soft_wrap=True, width=None if sys.stdout.isatty() else 200
+)
 
 
 _CHOICE = re.compile(r"invalid choice: '?(.*?)'? \(choose from (.*)\)$")
@@ -763,6 +803,19 @@ def _interrupted(command: str | None, argv: Sequence[str] | None) -> int:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
+    code = _main(argv)
+    if out.cut or err.cut:
+        if not err.cut:
+            err.print(
+                "note: the output's reader closed before its end (a pipe such as `| head`): the rest of "
+                f"the output was dropped; the command ran to its end (its own exit code: {code})",
+                soft_wrap=True,
+            )
+        return code if code != EXIT_OK else EXIT_OUTPUT_CUT
+    return code
+
+
+def _main(argv: Sequence[str] | None) -> int:
     command: str | None = None
     try:
         args = build_parser().parse_args(argv)
@@ -813,6 +866,6 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 def _report(e: CdcnormError, argv: Sequence[str] | None) -> int:
     if "--json" in (argv if argv is not None else sys.argv):
-        print(json.dumps(e.as_dict()), file=sys.stdout)
+        out.print(json.dumps(e.as_dict()), soft_wrap=True)
     err.print("error: " + e.render(), markup=False, soft_wrap=True)  # never broken inside a message
     return e.exit_code

@@ -28,6 +28,9 @@ EXIT_MEMORY = 12
 EXIT_DISK = 13
 #: 128 + SIGINT: what a shell reports for a process Ctrl-C stopped (common practice)
 EXIT_INTERRUPTED = 130
+#: the reader of the output went away (``| head``): 128 + SIGPIPE, as a shell reports a process that
+#: signal ended (common practice)
+EXIT_OUTPUT_CUT = 141
 
 
 def closest(name: str, candidates: Iterable[str]) -> str | None:

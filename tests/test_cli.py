@@ -478,6 +478,51 @@ def test_demo_runs_from_any_folder(tmp_path: Path) -> None:
     assert last_run(tmp_path / "build" / "demo")["ledger"]["balanced"]
 
 
+def _reader_gone(argv: list[str], cwd: Path) -> tuple[int, str]:
+    """Run the command with a reader that goes away before it writes anything: its exit code and
+    standard error."""
+    import subprocess
+    import sys
+
+    with subprocess.Popen(
+        [sys.executable, "-m", "cdcnorm", *argv],
+        cwd=cwd,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    ) as proc:
+        assert proc.stdout is not None and proc.stderr is not None
+        proc.stdout.close()
+        error = proc.stderr.read()
+        return proc.wait(), error
+
+
+def test_a_reader_that_goes_away_drops_the_output_not_the_run(tmp_path: Path) -> None:
+    """`cdcnorm demo | head -1`: the reader closes the pipe before the ledger is printed. The run
+    still commits, the rest of the output is dropped with a note, and the exit code is 141, as a shell
+    reports a process a broken pipe (SIGPIPE, 13) ended (common practice). Before, the console library
+    ended the process with exit 1 and no word."""
+    landing = tmp_path / "area"
+    code, error = _reader_gone(["demo", "--out", str(landing)], tmp_path)
+    assert code == 141, error
+    assert "the output's reader closed before its end" in error and "Traceback" not in error
+    assert last_run(landing)["ledger"]["balanced"]
+    # an error keeps its own exit code, the note added; a --json answer cut short is the same case
+    args = ["trace", "--models", str(ROOT / "examples" / "models"), "--mappings", str(MAPPINGS)]
+    for column, expected in (("ferry.bookings.nope", 7), ("ferry.bookings.fare", 141)):
+        code, error = _reader_gone([*args, column, "--json"], tmp_path)
+        assert code == expected, error
+        assert f"(its own exit code: {expected % 141})" in error and "Traceback" not in error
+
+
+def test_names_are_printed_as_they_are_spelt(capsys: pytest.CaptureFixture[str]) -> None:
+    """A name holding an emoji code (":x:") was printed as the emoji (rich's default): the message
+    named a column that does not exist."""
+    args = ["--models", str(ROOT / "examples" / "models"), "--mappings", str(MAPPINGS)]
+    assert cli("trace", *args, "ferry.bookings.:x:") == 7
+    assert "no column ferry.bookings.:x: in" in capsys.readouterr().err
+
+
 def test_a_log_gets_plain_progress_lines_on_a_long_run_and_none_on_a_short_one(
     tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
 ) -> None:

@@ -232,7 +232,7 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
         if args.json:
             # a model's answers are a list (one per column), a column's one answer
             payload: Any = answers if find_model(project, args.target) is not None else answers[0]
-            print(json.dumps(payload, indent=2))
+            out.print(json.dumps(payload, indent=2), soft_wrap=True)
         else:
             for a in answers:
                 out.print(_trace_tree(a), soft_wrap=False)
@@ -252,7 +252,7 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
             edit = Edit("retype", _sql_type(args.retype, args.dialect))
         result = impact(project, args.column, edit, mappings=mappings, loaded=loaded)
         if args.json:
-            print(json.dumps(result, indent=2))
+            out.print(json.dumps(result, indent=2), soft_wrap=True)
         else:
             _print_impact(result, out)
         if breaks(result):
@@ -282,7 +282,7 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
             "diagnostics": [d.as_dict() for d in project.diagnostics],
         }
         if args.json:
-            print(json.dumps(summary, indent=2))
+            out.print(json.dumps(summary, indent=2), soft_wrap=True)
         else:
             unit = "tables" if args.level == "table" else "columns"
             out.print(

@@ -96,3 +96,21 @@ def test_an_unknown_zone_name_suggests_the_closest(tmp_path, capsys: pytest.Capt
     assert cli("check", "--mappings", str(tmp_path / "m"), str(tmp_path)) == 3
     err = capsys.readouterr().err
     assert 'did you mean "Europe/Oslo"' in err and "t.yaml" in err
+
+
+def test_a_time_position_in_a_dst_gap_or_overlap_says_so(convert: ConvertFn) -> None:
+    """A local-time position in a DST gap or overlap is well formed: its reason says which, as a
+    timestamp field's does (it said "malformed position"). zoneinfo is the oracle for both times."""
+    mapping = MAPPING.replace("kind: integer", "kind: timestamp, zone: Europe/Oslo").replace("ZONE", "+00:00")
+    gap, overlap = datetime(2026, 3, 29, 2, 30), datetime(2026, 10, 25, 2, 30)
+    assert _zoneinfo(gap, "Europe/Oslo") == "gap" and _zoneinfo(overlap, "Europe/Oslo") == "overlap"
+    done = convert(
+        mapping,
+        {
+            "z.csv": f"op,pos,id,at\nI,{gap.isoformat()},1,\nI,{overlap.isoformat()},2,\nI,2026-02-30T01:00:00,3,\n"
+        },
+    )
+    why = {int(q["id"]): q["_cdcnorm"]["reasons"][0] for q in done.quarantine("t.ferries")}
+    assert {r["field"] for r in why.values()} == {"position"}
+    assert "a DST gap" in why[1]["reason"] and "a DST overlap" in why[2]["reason"]
+    assert why[3]["reason"] == "no such calendar date"

@@ -67,6 +67,12 @@ def type_rows(plan: Plan) -> Plan:
     )
     pos_col = plan.raw(ch.position.column)
     c.typed.append(("__pos", positions.position_key(ch.position, pos_col)))
+    # a time position says why, as a timestamp field does: a local time in a DST gap is well formed
+    why = (
+        timestamp_explain(f"s.{pos_col}", ch.position.zone)
+        if ch.position.kind == "timestamp"
+        else "'malformed position'"
+    )
     c.check(
         lambda s, t: f"{t}__pos IS NULL",
         _reason(
@@ -74,7 +80,7 @@ def type_rows(plan: Plan) -> Plan:
             ch.position.column,
             positions.expected(ch.position),
             f"s.{pos_col}",
-            f"CASE WHEN s.{pos_col} IS NULL THEN 'missing position' ELSE 'malformed position' END",
+            f"CASE WHEN s.{pos_col} IS NULL THEN 'missing position' ELSE {why} END",
         ),
     )
     if ch.sequence:

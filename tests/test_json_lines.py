@@ -173,3 +173,41 @@ def _number_tokens(text: str) -> list[str]:
         parse_constant=lambda t: 0,
     )
     return found
+
+
+def test_a_json_field_from_a_json_lines_member_of_each_kind(tmp_path: Path) -> None:
+    """A member read into a json field: an object, array, number or true is the JSON value as written;
+    a string is the JSON text it holds (a text column of JSON exported as a string), as a CSV cell
+    is; a string that is no JSON text is quarantined with its reason; null is NULL. Python's json
+    (RFC 8259) is the oracle for the values."""
+    from tests.conftest import Converted, main
+
+    members = {
+        1: '{"a":1.50}',
+        2: "[1,2e10]",
+        3: "1.50",
+        4: "true",
+        5: json.dumps('{"b": [null]}'),  # JSON text held in a string
+        6: json.dumps("x"),  # a string that is no JSON text
+        7: json.dumps(json.dumps("x")),  # a JSON string value, written as the text that holds it
+        8: "null",
+    }
+    mapping = MAPPING.replace('files: ["d*"]', 'files: ["d*"]\nformat: jsonl').split("fields:")[0]
+    (tmp_path / "m").mkdir()
+    (tmp_path / "m" / "t.yaml").write_text(mapping + "fields:\n  id: integer\n  doc: json\n")
+    lines = "".join(
+        f'{{"op":"I","pos":{k},"at":"2026-03-01T10:00:00Z","id":{k},"doc":{v}}}\n' for k, v in members.items()
+    )
+    (tmp_path / "d.jsonl").write_text(lines)
+    out = tmp_path / "out"
+    assert (
+        main(["convert", str(tmp_path / "d.jsonl"), "--mappings", str(tmp_path / "m"), "--out", str(out)])
+        == 0
+    )
+    done = Converted(out, 0)
+    got = {e["key"]["id"]: e["values"]["doc"] for e in done.events("t.lines")}
+    for k in (1, 2, 3, 4):
+        assert got[k] == json.loads(members[k])
+    assert got[5] == json.loads(json.loads(members[5])) and got[7] == "x" and got[8] is None
+    (q,) = done.quarantine("t.lines")
+    assert q["doc"] == "x" and q["_cdcnorm"]["reasons"][0]["reason"] == "not valid JSON (RFC 8259)"

@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import shutil
 import xml.etree.ElementTree as ET
+from decimal import Decimal
 from pathlib import Path
 from typing import Any
 
@@ -130,6 +131,42 @@ def test_a_file_that_cannot_be_parsed_makes_answers_about_a_table_it_names_incom
     (tmp_path / "models" / "half.sql").write_text(models["half.sql"] + " id > 0")
     assert cli("impact", "shop.orders.amount", *common, *catalog) == 0
     assert "half.amount_again" in capsys.readouterr().out
+
+
+def test_a_statement_sqlglot_reads_only_as_text_counts_as_not_parsed(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """sqlglot passes `CREATE VIEW v AS PIVOT ...` on as an opaque command: before, a warning went to
+    standard error, the view was passed over, and the impact of a column it reads said complete.
+    DuckDB (the oracle) creates the view, and it reads shop.orders.amount."""
+    pivot = "CREATE VIEW by_status AS PIVOT shop.orders ON status IN ('open', 'paid') USING sum(amount) GROUP BY customer_id"
+    con = duckdb.connect()
+    con.execute("CREATE SCHEMA shop")
+    con.execute("CREATE TABLE shop.orders (id INT, customer_id INT, amount DECIMAL(12,2), status TEXT)")
+    con.execute("INSERT INTO shop.orders VALUES (1, 7, 2.50, 'open'), (2, 7, 1.00, 'paid')")
+    con.execute(pivot)
+    assert con.execute("SELECT open, paid FROM by_status").fetchall() == [(Decimal("2.50"), Decimal("1.00"))]
+    models = {
+        "piv.sql": "-- the pivot\n" + pivot + ";",
+        # a command naming no table on the way, beside a model: answers through shop.customers stay whole
+        "setup.sql": "LOAD icu;\nCREATE VIEW regions AS SELECT region FROM shop.customers",
+    }
+    (tmp_path / "schema.yaml").write_text(json.dumps({"tables": SCHEMA}))
+    (tmp_path / "models").mkdir()
+    for name, text in models.items():
+        (tmp_path / "models" / name).write_text(text)
+    common = ("--models", str(tmp_path / "models"), "--mappings", str(tmp_path / "none"))
+    catalog = ("--catalog", str(tmp_path / "schema.yaml"))
+    capsys.readouterr()
+    assert cli("impact", "shop.orders.amount", *common, *catalog) == 11
+    printed = capsys.readouterr()
+    assert "piv.sql:2: piv: parse error: sqlglot reads this statement only as text" in printed.out
+    assert "Falling back" not in printed.err  # sqlglot's own warning, replaced by the diagnostic
+    assert cli("impact", "shop.customers.region", *common, *catalog) == 0
+    assert "regions.region" in capsys.readouterr().out
+    # the view's name is no typo: the message points at the file that may define it
+    assert cli("trace", "by_status", *common, *catalog) == 7
+    assert "piv.sql:2 could not be parsed and may define it" in capsys.readouterr().err
 
 
 def test_columns_of_tables_without_a_schema_are_inferred_only_when_one_source_can_own_them(

@@ -76,17 +76,18 @@ def _normalise(name: exp.Expr, dialect: str) -> tuple[str, ...]:
     return (norm.name,)
 
 
-def _statement_lines(tokens: list[Any]) -> list[int]:
-    """The line where each statement starts (statements split at top-level semicolons)."""
-    lines = []
+def _statement_tokens(tokens: list[Any]) -> list[list[Any]]:
+    """The tokens of each statement (statements split at top-level semicolons)."""
+    out: list[list[Any]] = []
     start = True
     for tok in tokens:
         if start:
-            lines.append(tok.line)
+            out.append([])
             start = False
+        out[-1].append(tok)
         if tok.token_type == TokenType.SEMICOLON:
             start = True
-    return lines
+    return out
 
 
 def _column_names(schema: exp.Expr | None, dialect: str) -> list[str] | None:
@@ -106,6 +107,21 @@ def _target_and_columns(target: exp.Expr, dialect: str) -> tuple[tuple[str, ...]
     if isinstance(target, exp.Schema):
         return _normalise(target.this, dialect), _column_names(target, dialect)
     return _normalise(target, dialect), None
+
+
+@contextlib.contextmanager
+def _quiet_parser() -> Iterator[None]:
+    """sqlglot logs a warning when it falls back to reading a statement as text (an exp.Command):
+    the statement is reported as a diagnostic instead, with its file and line."""
+    import logging
+
+    logger = logging.getLogger("sqlglot")
+    level = logger.level
+    logger.setLevel(logging.ERROR)
+    try:
+        yield
+    finally:
+        logger.setLevel(level)
 
 
 def _words(tokens: Sequence[Any] | None) -> frozenset[str] | None:
@@ -129,8 +145,10 @@ def load_model_file(path: Path, dialect: str, root: Path | None = None) -> Loade
     tokens = None
     try:
         tokens = d.tokenize(sql)  # once: for the parser and for each statement's first line
-        statements = d.parser().parse(tokens, sql)
-        lines = _statement_lines(tokens)
+        with _quiet_parser():
+            statements = d.parser().parse(tokens, sql)
+        each = _statement_tokens(tokens)
+        lines = [t[0].line for t in each]
     except (ParseError, TokenError) as e:
         errs = getattr(e, "errors", None) or [{}]
         line = errs[0].get("line") if isinstance(errs[0], dict) else None
@@ -150,6 +168,29 @@ def load_model_file(path: Path, dialect: str, root: Path | None = None) -> Loade
                 Diagnostic(shown, line, path.stem, "parse error", f"not a SQL statement: {text[:80]}")
             )
             out.unparsed[shown] = _words(tokens)
+            continue
+        if isinstance(stmt, exp.Command):
+            # syntax sqlglot only passes on as text (CREATE VIEW v AS PIVOT ..., CREATE TYPE, CALL):
+            # what it defines and reads is unknown, as for a statement that cannot be parsed. Before,
+            # sqlglot's warning went to standard error and the statement was passed over, so an
+            # answer through a table it reads said "complete".
+            toks = each[i] if i < len(each) else []
+            text = (
+                " ".join(sql[toks[0].start : toks[-1].end + 1].split()) if toks else stmt.sql(dialect=dialect)
+            )
+            out.diagnostics.append(
+                Diagnostic(
+                    shown,
+                    line,
+                    path.stem,
+                    "parse error",
+                    f"sqlglot reads this statement only as text, in dialect {dialect}: "
+                    f"{text[:80]}{'...' if len(text) > 80 else ''}",
+                )
+            )
+            words = _words(toks or tokens)
+            known = out.unparsed.get(shown, frozenset())
+            out.unparsed[shown] = None if words is None or known is None else known | words
             continue
         ms = _classify(stmt, path.stem, shown, line, dialect)
         if ms is None and isinstance(stmt, exp.Create) and isinstance(stmt.this, exp.Schema):

@@ -60,7 +60,24 @@ def find_column(project: Project, text: str) -> Node:
         best: Node = sorted(same, key=lambda n: kinds.index(n[0]))[0]
         return best
     names = sorted({node_name(n) for n in g.nodes})
-    raise LineageError(f"no column {text} in the mappings or models{did_you_mean(text, names)}")
+    raise LineageError(
+        f"no column {text} in the mappings or models{did_you_mean(text, names)}{_may_define(project, table)}"
+    )
+
+
+def _may_define(project: Project, name: str) -> str:
+    """For a name no model defines: the files that could not be parsed and name it (they may define
+    it), so a user is not sent to look for a misspelling."""
+    last = name.rsplit(".", 1)[-1].casefold()
+    hit = {f for f, words in project.unparsed.items() if words is None or last in words}
+    said = [
+        f"{d.file}:{d.line}" if d.line else d.file
+        for d in project.diagnostics
+        if d.reason == "parse error" and d.file in hit
+    ]
+    if not said:
+        return ""
+    return f"; {', '.join(dict.fromkeys(said))} could not be parsed and may define it (see lineage --json)"
 
 
 def model_columns(project: Project, name: str) -> list[Node]:
@@ -302,7 +319,7 @@ def trace_target(project: Project, target: str) -> list[dict[str, Any]]:
         models = sorted(project.models)
         raise LineageError(
             f"no model {target!r}{did_you_mean(target, models)}; write a model's name, or a column as "
-            "<table>.<column>"
+            f"<table>.<column>{_may_define(project, target)}"
         )
     model = target.rpartition(".")[0].removeprefix("model:")
     if model in opaque:

@@ -392,7 +392,7 @@ def compile_table(
         raw.internal(c)  # a mapped column no file has still has a name (its values are NULL)
     plan = Plan(
         mapping=mapping,
-        sources=tuple(Source(f.file_id, f.name, tuple(f.columns)) for f in raw.files),
+        sources=tuple(Source(f.file_id, f.name, tuple(f.columns), f.encoding) for f in raw.files),
         relations=tuple(RawRelation(name, tuple(cols)) for name, cols in raw.relations),
         internal={c: raw.internal(c) for c in raw.columns},
         malformed=raw.malformed_relation if any(f.malformed for f in raw.files) else None,

@@ -34,6 +34,7 @@ class Source:
     file_id: int
     name: str
     columns: tuple[str, ...]
+    encoding: str = "UTF-8"  # the codec its text was read with
 
 
 @dataclass(frozen=True)

@@ -3,6 +3,7 @@ over-long records, sub-folders, and a memory limit smaller than the input."""
 
 from __future__ import annotations
 
+import base64
 import bz2
 import gzip
 import io
@@ -430,6 +431,27 @@ def test_csv_encoding(convert: ConvertFn, encoding: str, raw: bytes, text: str) 
     done = convert(mapping, {"n.csv": b"op,pos,id,a\nI,1,1," + raw + b"\n"})
     (e,) = done.events("t.notes")
     assert e["values"]["a"] == text
+
+
+def test_a_cell_that_is_not_text_in_csv_encoding_names_that_encoding(convert: ConvertFn) -> None:
+    """0x81 has no character in cp1252 (Python's codec is the reference): the cell is quarantined with
+    its bytes, and its reason names cp1252, not UTF-8 (it said "expected UTF-8 text"). A file read as
+    UTF-8 (its byte order mark overrides the label) keeps the UTF-8 wording."""
+    with pytest.raises(UnicodeDecodeError):
+        b"\x81".decode("cp1252")
+    done = convert(
+        PLAIN + "csv: {encoding: cp1252}\n",
+        {
+            "n1.csv": b"op,pos,id,a\nI,1,1,bad\x81x\n",
+            "n2.csv": b"\xef\xbb\xbfop,pos,id,a\nI,2,2,bad\xffx\n",
+        },
+    )
+    why = {int(q["id"]): q["_cdcnorm"] for q in done.quarantine("t.notes")}
+    assert why[1]["reasons"][0]["expected"] == "cp1252 text"
+    assert why[1]["reasons"][0]["reason"] == "not cp1252 (found shows the bytes, base64)"
+    assert why[1]["raw_base64"] == {"a": base64.b64encode(b"bad\x81x").decode()}
+    assert why[2]["reasons"][0]["expected"] == "UTF-8 text"
+    assert why[2]["reasons"][0]["reason"] == "not UTF-8 (found shows the bytes, base64)"
 
 
 @pytest.mark.parametrize("encoding", ["latin-1", "cp1252"])

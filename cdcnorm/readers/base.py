@@ -36,6 +36,9 @@ class RawFile:
     path: Path
     name: str
     format: str = ""
+    #: the codec its text was read with (a CSV file's csv.encoding); a cell its bytes do not decode
+    #: in is quarantined as "not <encoding> text"
+    encoding: str = "UTF-8"
     columns: list[str] = field(default_factory=list)
     rows: int = 0  # records split into columns
     malformed: int = 0  # records that could not be

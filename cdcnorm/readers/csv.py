@@ -144,6 +144,7 @@ def read_files(
         delimiter = _delimiter(f.path, mapping)
         columns, more, encoding = _header(f, delimiter, mapping)
         f.columns = columns
+        f.encoding = "UTF-8" if encoding.lower().replace("_", "-") in ("utf-8", "utf8") else encoding
         if not columns or not more:
             f.empty = True
             f.columns_known = bool(columns)

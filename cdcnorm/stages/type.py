@@ -47,10 +47,17 @@ def type_rows(plan: Plan) -> Plan:
     ch = m.change
     c = _Checks()
 
+    # a cell whose bytes are not text in the codec its file was read with (UTF-8, or csv.encoding)
+    codecs = {s.file_id: s.encoding for s in plan.sources if s.encoding != "UTF-8"}
+    codec = "'UTF-8'"
+    if codecs:
+        whens = " ".join(f"WHEN {i} THEN {lit(e)}" for i, e in sorted(codecs.items()))
+        codec = f"CASE s.__file {whens} ELSE 'UTF-8' END"
     c.check(
         lambda s, t: f"{s}__enc IS NOT NULL",
         "{'field': CAST(NULL AS VARCHAR), 'column': array_to_string(json_keys(s.__enc), ', '), "
-        "'expected': 'UTF-8 text', 'found': s.__enc, 'reason': 'not UTF-8 (found shows the bytes, base64)'}",
+        f"'expected': {codec} || ' text', 'found': s.__enc, "
+        f"'reason': 'not ' || {codec} || ' (found shows the bytes, base64)'}}",
     )
     act_col = plan.raw(ch.action.column)
     codes = " ".join(f"WHEN {lit(k)} THEN {lit(v)}" for k, v in sorted(ch.action.codes.items()))

@@ -90,6 +90,11 @@ MISSPELT = [
     "SELECT amount AS a FROM shop.orders o ORDER BY o.placed_at DESC NULLS LAST",
     "SELECT status FROM shop.orders GROUP BY status ORDER BY count(*)",
     "SELECT id FROM shop.orders UNION ALL SELECT order_id FROM shop.refunds ORDER BY id",
+    # a LATERAL query: sqlglot qualifies a name no source in reach has with the LATERAL's own alias
+    "SELECT o.id, x.amont FROM shop.orders o, LATERAL (SELECT amont FROM shop.refunds r WHERE r.order_id = o.id) x",
+    "SELECT o.id, x.n FROM shop.orders o CROSS JOIN LATERAL (SELECT count(amont) AS n FROM shop.refunds) x",
+    "SELECT o.id, x.amount FROM shop.orders o, LATERAL (SELECT amount FROM shop.refunds r WHERE r.order_id = o.id) x",
+    "SELECT o.id, x.s FROM shop.orders o, LATERAL (SELECT status AS s FROM shop.refunds r WHERE r.order_id = id) x",
 ]
 
 
@@ -142,7 +147,7 @@ def test_a_misspelt_name_in_any_clause_is_reported_where_the_engine_refuses_it(t
     reported as not in schema, and each it creates is complete; an ORDER BY without LIMIT decides
     no rows, but a misspelt name in it was passed over (the model was traced as complete)."""
     refused = _refused_by_duckdb(MISSPELT)
-    assert len(refused) == 13  # the oracle refuses every misspelt one
+    assert len(refused) == 15  # the oracle refuses every misspelt one
     project = project_from(tmp_path, {f"m{i}.sql": sql for i, sql in enumerate(MISSPELT)}, CASES["schema"])
     assert {d.model for d in project.diagnostics if d.reason == "not in schema"} == refused
     assert {d.model for d in project.diagnostics} == refused

@@ -811,18 +811,33 @@ class StatementResolver:
                     [f"{t}.{name}" for t in owners],
                 )
             else:
-                shown: dict[str, str] = {}
-                searched = []  # the tables (by name) and CTEs or derived tables (by alias) in scope
-                for a in scope.selected_sources:
-                    src = scope.sources.get(a)
-                    info = self.catalog.find(table_parts(src)) if isinstance(src, exp.Table) else None
-                    searched.append(".".join(table_parts(src)) if isinstance(src, exp.Table) else a)
-                    for c in self._source_columns(scope, a):
-                        shown.setdefault(c, info.shown(c) if info else c)
-                close = close_names(name, sorted(shown))
-                self._diag(line, "not in schema", name, [shown[c] for c in close], searched)
+                self._not_in_scope(scope, name, line)
             return Deps()
         return self._column_of(table, name, scope, line)
+
+    def _not_in_scope(self, scope: Scope, name: str, line: int | None) -> None:
+        """A name without its table that no source in scope has: the tables searched and the names
+        close to it."""
+        shown: dict[str, str] = {}
+        searched = []  # the tables (by name) and CTEs or derived tables (by alias) in scope
+        for a in scope.selected_sources:
+            src = scope.sources.get(a)
+            info = self.catalog.find(table_parts(src)) if isinstance(src, exp.Table) else None
+            searched.append(".".join(table_parts(src)) if isinstance(src, exp.Table) else a)
+            for c in self._source_columns(scope, a):
+                shown.setdefault(c, info.shown(c) if info else c)
+        close = close_names(name, sorted(shown))
+        self._diag(line, "not in schema", name, [shown[c] for c in close], searched)
+
+    def _inside(self, scope: Scope, lateral: Scope) -> bool:
+        """Whether ``scope`` is the query of LATERAL ``lateral``, or inside it."""
+        sub = self._lateral_query(lateral.expression)
+        s: Scope | None = scope
+        while s is not None and sub is not None:
+            if s is sub:
+                return True
+            s = s.parent
+        return False
 
     def _column_of(self, table: str, name: str, scope: Scope, line: int | None) -> Deps:
         """Column ``name`` of the source ``table`` names in scope."""
@@ -837,6 +852,12 @@ class StatementResolver:
             return Deps()
         if isinstance(src, Scope):
             src = self._canonical(src)
+            if src.is_udtf and self._inside(scope, src):
+                # A LATERAL query cannot read its own output: sqlglot's qualify gives a name that no
+                # source in reach has the LATERAL's own alias (x.toolz inside "LATERAL (SELECT toolz
+                # FROM loans l2) x"), and the name was passed over without a word.
+                self._not_in_scope(scope, name, line)
+                return Deps()
             outs = dict(self.outputs(src))
             if name in outs:
                 return outs[name]

@@ -83,6 +83,37 @@ def test_convert_json_output_and_parquet_types(tmp_path: Path, capsys: pytest.Ca
     assert fares == [None if e["values"] is None else e["values"]["fare"] for e in lines]
 
 
+def test_parquet_files_of_every_run_share_one_schema(tmp_path: Path) -> None:
+    """The engine's Parquet writer marked a column required when this run's data held no NULL in it:
+    committed_at was required in a run whose rows all had a commit time and optional in the next,
+    and pyarrow's concat_tables (the oracle: it refuses tables whose schemas differ) could not
+    join the two runs' events, nor two days' snapshots. Every column is now optional."""
+    mdir = tmp_path / "m"
+    mdir.mkdir()
+    (mdir / "t.yaml").write_text(
+        'table: t\nfiles: ["t-*"]\nkey: [id]\nchange:\n  action: {column: op, codes: {I: insert}}\n'
+        "  position: {column: pos, kind: integer}\n  committed_at: {column: at}\nfields:\n  id: integer\n"
+        "  name: text\n"
+    )
+    days = {
+        "t-1.csv": "op,pos,at,id,name\nI,1,2026-03-01T10:00:00Z,1,a\n",
+        "t-2.csv": "op,pos,at,id,name\nI,2,,2,\n",
+    }
+    landing = tmp_path / "area"
+    events, states = [], []
+    for day, (name, text) in enumerate(days.items()):
+        (tmp_path / name).write_text(text)
+        args = ["--mappings", str(mdir), "--quiet"]
+        assert cli("convert", str(tmp_path / name), "--out", str(landing), "--format", "parquet", *args) == 0
+        assert cli("snapshot", str(landing), "--out", str(tmp_path / f"state{day}"), *args) == 0
+        states.append(pq.read_table(tmp_path / f"state{day}" / "t.parquet"))
+    events = [pq.read_table(f) for f in run_files(landing, "events", "t")]
+    assert len(events) == 2 and events[0].column("committed_at").null_count == 0
+    assert pa.concat_tables(events).column("committed_at").null_count == 1
+    assert pa.concat_tables(states).column("name").to_pylist() == ["a", "a", None]
+    assert all(f.nullable for t in events + states for f in t.schema)
+
+
 def test_output_is_byte_identical_whatever_the_input_order(tmp_path: Path) -> None:
     files = sorted(str(p) for p in DUMPS.iterdir())
     assert cli("convert", "--quiet", "--mappings", str(MAPPINGS), *files, "--out", str(tmp_path / "a")) == 0

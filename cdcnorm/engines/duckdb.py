@@ -490,16 +490,31 @@ class DuckDBEngine:
             "json": "FORMAT JSON",
             "lines": "FORMAT CSV, HEADER false, QUOTE '', ESCAPE '', DELIMITER '\x01'",
         }[fmt]
+        query = self.render(expression)
+        if fmt == "parquet":
+            query = self._optional_columns(query)
         try:
             with engine_errors(self.temp_directory, f"writing {path.name}", str(path)):
-                written = self.con.execute(
-                    f"COPY ({self.render(expression)}) TO {lit(str(tmp))} ({options})"
-                ).fetchone()
+                written = self.con.execute(f"COPY ({query}) TO {lit(str(tmp))} ({options})").fetchone()
                 os.replace(tmp, path)
             return int(written[0]) if written else 0
         finally:
             if tmp.exists():
                 tmp.unlink()
+
+    def _optional_columns(self, query: str) -> str:
+        """The query with every column optional (nullable) in the Parquet schema. The engine's
+        Parquet writer marks a column required when it can tell it holds no NULL (a column of this
+        run's data that happens to have none, a constant): the schema then changed from run to run
+        with the data (``committed_at`` required in one run's events, optional in the next), and
+        files of two runs could not be read as one table (pyarrow's concat_tables refuses them). A
+        CASE with a NULL branch is optional to the writer; the values and their order are the
+        query's (a projection keeps its input's order)."""
+        names = [r[0] for r in self.con.execute(f"DESCRIBE {query}").fetchall()]
+        cols = ", ".join(
+            f"CASE WHEN q.{ident(n)} IS NOT NULL THEN q.{ident(n)} END AS {ident(n)}" for n in names
+        )
+        return f"SELECT {cols} FROM ({query}) AS q"
 
     # --- loading dumps: what the readers ask of the engine ---------------------------------
     #

@@ -804,8 +804,10 @@ def _interrupted(command: str | None, argv: Sequence[str] | None) -> int:
 
 def main(argv: Sequence[str] | None = None) -> int:
     code = _main(argv)
-    if out.cut or err.cut:
-        if not err.cut:
+    # (a console put in their place, as a test does, has no such flag)
+    out_cut, err_cut = getattr(out, "cut", False), getattr(err, "cut", False)
+    if out_cut or err_cut:
+        if not err_cut:
             err.print(
                 "note: the output's reader closed before its end (a pipe such as `| head`): the rest of "
                 f"the output was dropped; the command ran to its end (its own exit code: {code})",

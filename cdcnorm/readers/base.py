@@ -36,9 +36,6 @@ class RawFile:
     path: Path
     name: str
     format: str = ""
-    #: the codec its text was read with (a CSV file's csv.encoding); a cell its bytes do not decode
-    #: in is quarantined as "not <encoding> text"
-    encoding: str = "UTF-8"
     columns: list[str] = field(default_factory=list)
     rows: int = 0  # records split into columns
     malformed: int = 0  # records that could not be
@@ -50,6 +47,9 @@ class RawFile:
     # candidates a drift message suggests for a dotted name the file lacks
     members: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    #: the codec its text was read with (a CSV file's csv.encoding); a cell its bytes do not decode
+    #: in is quarantined as "not <encoding> text"
+    encoding: str = "UTF-8"
 
     @property
     def rows_read(self) -> int:

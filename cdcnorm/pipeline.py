@@ -133,10 +133,31 @@ class Drift:
     field: str
     column: str
     suggestion: str | None
+    #: the columns a field's from lists as alternatives: none of which the file has, or (with
+    #: ``several``) the ones it has, more than one
+    alternatives: tuple[str, ...] = ()
+    several: bool = False
+
+    @property
+    def wanted(self) -> str:
+        """The column the field reads, or its alternatives, in words."""
+        if self.alternatives:
+            return "any of raw columns " + ", ".join(repr(c) for c in self.alternatives)
+        return f"raw column {self.column!r}"
+
+    @property
+    def problem(self) -> str:
+        """What is wrong, after "the mapping's field F reads ...": one clause."""
+        if self.several:
+            return (
+                f"one of raw columns {', '.join(repr(c) for c in self.alternatives)} (its from's "
+                "alternatives), and the file has each of them: which one holds its values is unknown"
+            )
+        return f"{self.wanted}, which the file does not have"
 
     def message(self) -> str:
         s = f' (did you mean "{self.suggestion}"?)' if self.suggestion else ""
-        return f"{self.file}: field {self.field} of {self.table} reads raw column {self.column!r}, which the file does not have{s}"
+        return f"{self.file}: field {self.field} of {self.table} reads {self.problem}{s}"
 
 
 @dataclass
@@ -268,6 +289,7 @@ def _shown_names(plan: Plan) -> dict[str, str]:
         }
     )
     for i, name in enumerate(plan.fields):
+        names[f"__from{i}"] = "raw:" + " or ".join(plan.mapping.mapping.raw_columns(name))
         names[f"v{i}"] = name
         names[f"p{i}"] = f"prior.{name}"
         names[f"a{i}"] = f"after.{name}"
@@ -275,6 +297,11 @@ def _shown_names(plan: Plan) -> dict[str, str]:
 
 
 def _drift_hint(d: Drift, columns: list[str]) -> str:
+    if d.several:
+        return (
+            f"set fields.{d.field}.from to the one that holds its values (a file may have one of the "
+            "alternatives only)"
+        )
     if len(columns) == 1:
         for sep in (";", "\t", "|"):
             if sep in columns[0]:
@@ -341,15 +368,26 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
     roles = {v: k for k, v in m.change_columns().items()}
     # the structs a mapped member is read through (a Parquet column "after" for "after.id")
     read_through = {".".join(keys) for keys in m.read_through()}
+    alternatives = m.alternatives()
+    # a column read only as one of a field's alternatives may be missing, if another is there
+    single = set(m.change_columns().values()) | {m.raw_column(f) for f in m.fields if f not in alternatives}
     for src in raw.files:
         if not src.columns_known:
             continue
+        spare = [c for c in src.columns if c not in wanted] + src.members
         for col in wanted:
-            if col not in src.columns:
+            if col not in src.columns and col in single:
                 fields = [f for f in m.fields if m.raw_column(f) == col] or [roles.get(col, col)]
                 # a renamed column is not mapped yet; a struct's members are candidates too
-                spare = [c for c in src.columns if c not in wanted] + src.members
                 drift.append(Drift(src.name, m.table, fields[0], col, closest(col, spare)))
+        for name, cols in alternatives.items():
+            has = [c for c in cols if c in src.columns]
+            if not has:
+                drift.append(Drift(src.name, m.table, name, cols[0], closest(cols[0], spare), tuple(cols)))
+            elif len(has) > 1:
+                # which one holds the field's value is unknown (in JSON Lines, lines may differ):
+                # never read one and leave the other's values behind without a word
+                drift.append(Drift(src.name, m.table, name, has[0], None, tuple(has), several=True))
         # a struct read through (Parquet ``after`` for ``after.id``): its members no field reads
         read_from = {keys[0] for keys in m.read_through()}
         unmapped[src.name] = [
@@ -578,11 +616,15 @@ def _run(
         d = drifts[0]
         columns = next(f.columns for f in runs[d.table].raw.files if f.name == d.file)
         raise DriftError(
-            f"schema drift: the mapping's field {d.field} reads raw column {d.column!r}, which this dump does not have"
+            f"schema drift: the mapping's field {d.field} reads {d.problem}"
             + (f" ({len(drifts) - 1} more drift errors: run cdcnorm check)" if len(drifts) > 1 else ""),
             file=d.file,
             field=d.field,
-            expected=f"a column named {d.column!r}",
+            expected=(
+                f"one of the columns {', '.join(repr(c) for c in d.alternatives)}, not several"
+                if d.several
+                else f"a column named {' or '.join(repr(c) for c in d.alternatives or (d.column,))}"
+            ),
             found="columns " + name_list(columns),
             hint=_drift_hint(d, columns),
         )

@@ -169,6 +169,25 @@ class Plan:
         """The quoted internal name of a raw column (what the plan's SQL says for it)."""
         return ident(self.internal[column])
 
+    def field_raw(self, name: str) -> str:
+        """The quoted name of the column holding a field's raw text: its raw column's internal
+        name, or, for a field whose ``from`` lists alternatives, the source stage's column of the
+        alternative each file has (``alternative_files``)."""
+        if name in self.mapping.mapping.alternatives():
+            return ident(f"__from{self.fields.index(name)}")
+        return self.raw(self.mapping.mapping.raw_column(name))
+
+    def alternative_files(self, name: str) -> list[tuple[str, list[int]]]:
+        """For each raw column field ``name`` may read, in ``from``'s order, the ids of the files
+        that read it: a file reads the first of the columns it has."""
+        taken: set[int] = set()
+        out = []
+        for col in self.mapping.mapping.raw_columns(name):
+            ids = [s.file_id for s in self.sources if col in s.columns and s.file_id not in taken]
+            taken.update(ids)
+            out.append((col, ids))
+        return out
+
     def raw_union(self, columns: list[str], wanted: str | None = None, lookup: Lookup | None = None) -> str:
         """SQL: ``__file``, ``__row``, ``__enc`` and the given internal columns of every raw
         relation (NULL where a relation lacks one); with ``wanted`` (a relation with ``__file``

@@ -171,3 +171,13 @@ def test_a_json_field_is_refused_by_name_on_spark(spark: Any, tmp_path: Path) ->
     with pytest.raises(UnsupportedByEngine, match="JSON") as caught:
         SparkEngine(spark).render(typed.expression)
     assert "DuckDB engine" in (caught.value.hint or "")
+
+
+def test_fields_read_from_renamed_columns_give_the_same_events_on_spark(spark: Any, tmp_path: Path) -> None:
+    """A field whose from lists alternatives reads, per file, the first of them the file has (the
+    source stage's CASE over file ids): the golden case, on both engines."""
+    case = ROOT / "tests" / "cases" / "source" / "renamed-columns"
+    (tmp_path / "mappings").mkdir()
+    shutil.copy(case / "mapping.yaml", tmp_path / "mappings" / "members.yaml")
+    compared = _same_on_both(spark, tmp_path / "mappings", case / "dumps", tmp_path / "scratch")
+    assert compared == {"club.members": (3, 2)}

@@ -496,8 +496,10 @@ def _build_project(
             col = f
             node: Node = ("source", lm.table, col)
             edit = (edits or {}).get(node)
-            raw: Node = ("raw", lm.table, lm.mapping.raw_column(f))
-            g.add_node(raw, kind="raw", table=lm.table, column=raw[2])
+            # a from of alternatives: the field reads whichever of them a file has
+            raws: list[Node] = [("raw", lm.table, c) for c in lm.mapping.raw_columns(f)]
+            for raw in raws:
+                g.add_node(raw, kind="raw", table=lm.table, column=raw[2])
             if edit is not None and edit[0] in ("drop", "rename"):
                 continue
             ftype = lm.field_types[f]
@@ -505,16 +507,17 @@ def _build_project(
             g.add_node(
                 node, kind="source", table=lm.table, column=col, type=source_type(lm, f), origin="mapping"
             )
-            g.add_edge(
-                raw,
-                node,
-                key="value",
-                kind="value",
-                sub=sub,
-                clauses="",
-                file=lm.path.name,
-                line=lm.field_lines.get(f, 0),
-            )
+            for raw in raws:
+                g.add_edge(
+                    raw,
+                    node,
+                    key="value",
+                    kind="value",
+                    sub=sub,
+                    clauses="",
+                    file=lm.path.name,
+                    line=lm.field_lines.get(f, 0),
+                )
     by_model: dict[str, list[ModelStatement]] = defaultdict(list)
     for st in loaded.statements:
         by_model[st.name].append(st)

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import dataclasses
 import itertools
+import json
 from collections.abc import Iterable
 from dataclasses import dataclass
 from typing import Any
@@ -440,7 +441,13 @@ def impact(
         edit = Edit(edit.kind, _as_mapping_type(edit.value))
     # the dump columns and canonical fields the edit touches (a raw column edit reaches its fields)
     if node[0] == "raw":
-        raws, fields = [node], [s for s in g.successors(node) if s[0] == "source"]
+        # a field whose from lists alternatives still reads the others: it does not break
+        raws = [node]
+        fields = [
+            s
+            for s in g.successors(node)
+            if s[0] == "source" and sum(1 for r in g.predecessors(s) if r[0] == "raw") == 1
+        ]
     elif node[0] == "source":
         raws, fields = [r for r in g.predecessors(node) if r[0] == "raw"], [node]
     else:
@@ -450,22 +457,33 @@ def impact(
     if edit.kind == "drop" or (edit.kind == "rename" and node[0] == "raw"):
         for r in raws:
             for f in g.successors(r):
-                if f[0] == "source":
-                    lm = project.sources[f[1]]
-                    result["broken_mappings"].append(
-                        {
-                            "mapping": lm.path.name,
-                            "table": f[1],
-                            "field": f[2],
-                            "raw_column": r[2],
-                            "reason": "the raw column is dropped"
-                            if edit.kind == "drop"
-                            else f"the raw column is renamed to {edit.value}",
-                            "fix": f"set fields.{f[2]}.from: {edit.value}"
-                            if edit.kind == "rename"
-                            else f"remove field {f[2]} (and what reads it)",
-                        }
-                    )
+                if f[0] != "source":
+                    continue
+                lm = project.sources[f[1]]
+                fix = (
+                    f"set fields.{f[2]}.from: {edit.value}"
+                    if edit.kind == "rename"
+                    else f"remove field {f[2]} (and what reads it)"
+                )
+                if node[0] == "raw" and f not in fields:
+                    # one of the field's from alternatives: dropped, the field still reads the
+                    # others (a dump with none of them stops as drift); renamed, the list needs the name
+                    if edit.kind != "rename":
+                        continue
+                    listed = lm.mapping.raw_columns(f[2])
+                    fix = f"set fields.{f[2]}.from: {json.dumps([edit.value if c == r[2] else c for c in listed])}"
+                result["broken_mappings"].append(
+                    {
+                        "mapping": lm.path.name,
+                        "table": f[1],
+                        "field": f[2],
+                        "raw_column": r[2],
+                        "reason": "the raw column is dropped"
+                        if edit.kind == "drop"
+                        else f"the raw column is renamed to {edit.value}",
+                        "fix": fix,
+                    }
+                )
     # A source column renamed at the source keeps its canonical field (the mapping's `from`
     # follows it), so only the mapping breaks; dropped, the field loses its data and every
     # reference to it breaks. A model column's drop or rename breaks its readers.

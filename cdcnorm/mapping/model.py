@@ -146,8 +146,11 @@ class FieldSpec(Strict):
     type: str = Field(
         description="integer, decimal(p,s), float, boolean, date, time, timestamp, text, bytes, uuid, json"
     )
-    from_: str | None = Field(
-        default=None, alias="from", description="Raw column name, when it differs from the field name."
+    from_: str | list[str] | None = Field(
+        default=None,
+        alias="from",
+        description="Raw column name, when it differs from the field name; a list names alternatives, "
+        "the first of them a file has is read (a column renamed at the source: [new_name, old_name]).",
     )
     zone: str | None = Field(
         default=None, description="timestamp: offset for values without one (default +00:00)."
@@ -166,6 +169,22 @@ class FieldSpec(Strict):
     @classmethod
     def _zone_ok(cls, v: str | None) -> str | None:
         return None if v is None else check_zone(v)
+
+    @field_validator("from_")
+    @classmethod
+    def _alternatives(cls, v: str | list[str] | None) -> str | list[str] | None:
+        if isinstance(v, list):
+            if not v:
+                raise ValueError("from lists no column; name one, or the alternatives a file may have")
+            twice = sorted({c for c in v if v.count(c) > 1})
+            if twice:
+                raise ValueError(f"from names {twice[0]!r} twice; name each alternative once")
+        return v
+
+    @property
+    def columns(self) -> list[str] | None:
+        """The raw columns ``from`` names, in order (None: the field's own name)."""
+        return [self.from_] if isinstance(self.from_, str) else self.from_
 
     @model_validator(mode="after")
     def _options_apply(self) -> FieldSpec:
@@ -320,7 +339,7 @@ class Mapping(Strict):
     @model_validator(mode="after")
     def _unused_columns_are_not_read(self) -> Mapping:
         readers = {col: f"change.{role}" for role, col in self.change_columns().items()}
-        readers |= {self.raw_column(f): f"field {f}" for f in self.fields}
+        readers |= {c: f"field {f}" for f in self.fields for c in self.raw_columns(f)}
         for name in self.unused:
             read = [col for col in readers if _covers(name, col)]
             if read:
@@ -337,8 +356,17 @@ class Mapping(Strict):
         return any(_covers(u, column) for u in self.unused)
 
     def raw_column(self, field: str) -> str:
-        spec = self.fields[field]
-        return spec.from_ or field
+        """The raw column a field reads (the first alternative, when ``from`` lists several)."""
+        return self.raw_columns(field)[0]
+
+    def raw_columns(self, field: str) -> list[str]:
+        """The raw columns a field may read: ``from``'s alternatives in order, the first a file has
+        being read; one for most fields."""
+        return self.fields[field].columns or [field]
+
+    def alternatives(self) -> dict[str, list[str]]:
+        """The fields whose ``from`` lists more than one column, and those columns."""
+        return {f: cols for f in self.fields if len(cols := self.raw_columns(f)) > 1}
 
     def change_columns(self) -> dict[str, str]:
         """Role -> raw column for the change metadata."""
@@ -356,7 +384,8 @@ class Mapping(Strict):
         for col in self.change_columns().values():
             seen.setdefault(col)
         for name in self.fields:
-            seen.setdefault(self.raw_column(name))
+            for col in self.raw_columns(name):
+                seen.setdefault(col)
         return list(seen)
 
     def read_through(self) -> list[tuple[str, ...]]:

@@ -7,12 +7,15 @@ from collections.abc import Callable
 from cdcnorm import positions
 from cdcnorm.plan import Plan
 from cdcnorm.sql import lit
+from cdcnorm.stages.source import alternative_named
 from cdcnorm.types.timestamp import timestamp_cast, timestamp_explain
 
 
-def _reason(field: str | None, column: str, expected: str, found: str, reason: str) -> str:
+def _reason(
+    field: str | None, column: str, expected: str, found: str, reason: str, column_sql: str | None = None
+) -> str:
     return (
-        f"{{'field': {lit(field) if field else 'CAST(NULL AS VARCHAR)'}, 'column': {lit(column)}, "
+        f"{{'field': {lit(field) if field else 'CAST(NULL AS VARCHAR)'}, 'column': {column_sql or lit(column)}, "
         f"'expected': {lit(expected)}, 'found': {found}, 'reason': {reason}}}"
     )
 
@@ -121,24 +124,30 @@ def type_rows(plan: Plan) -> Plan:
     else:
         c.typed.append(("__cat", "CAST(NULL AS TIMESTAMPTZ)"))
     keys = set(m.key)
+    alternatives = m.alternatives()
     for i, (name, ftype) in enumerate(plan.mapping.field_types.items()):
         column = m.raw_column(name)
-        raw = plan.raw(column)
+        raw = plan.field_raw(name)
+        # a field with alternatives names the column its row's file had
+        named = alternative_named(plan, name, "s.") if name in alternatives else None
         c.typed.append((f"v{i}", ftype.cast(raw)))
         if not ftype.accepts_any:
             c.check(
                 _invalid(raw, f"v{i}"),
-                _reason(name, column, ftype.describe(), f"s.{raw}", ftype.explain(f"s.{raw}")),
+                _reason(name, column, ftype.describe(), f"s.{raw}", ftype.explain(f"s.{raw}"), named),
             )
         if name in keys or m.fields[name].required:
             what = "missing key" if name in keys else "missing required value"
             c.check(
                 _missing(raw),
-                _reason(name, column, ftype.describe(), "CAST(NULL AS VARCHAR)", lit(what)),
+                _reason(name, column, ftype.describe(), "CAST(NULL AS VARCHAR)", lit(what), named),
             )
 
     src = plan.rel("source")
-    raw_cols = ", ".join(plan.raw(col) for col in m.mapped_columns())
+    raw_cols = ", ".join(
+        [plan.raw(col) for col in m.mapped_columns()]
+        + [plan.field_raw(name) for name in plan.fields if name in alternatives]
+    )
     inner = f"SELECT __file, __row, __enc, {raw_cols}, {', '.join(f'{sql} AS {n}' for n, sql in c.typed)} FROM {src}"
     ok = " AND ".join(c.ok)
     typed_cols = ", ".join(f"q.{n}" for n, _ in c.typed)

@@ -213,7 +213,7 @@ def placed(
                     expected=f"field names other than {POSITION} and {ACTION}",
                     found=added,
                     hint="rename the field, keeping its raw column with from: (e.g. "
-                    f"{added}_1: {{from: {json.dumps(m.raw_column(added))}}})",
+                    f"{added}_1: {{from: {json.dumps(m.fields[added].from_ or added)}}})",
                 )
         try:
             spec = target.spec(m.table, schema, tuple(m.fields), tuple(m.key), lm.field_types)

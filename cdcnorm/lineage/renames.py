@@ -47,6 +47,39 @@ def expand_renames(query: exp.Expr, schema: MappingSchema, dialect: str) -> exp.
     return query
 
 
+def name_unnest_columns(query: exp.Expr, dialect: str) -> exp.Expr:
+    """A copy of ``query`` in which ``UNNEST(x) AS t`` (one array, no column list) is written
+    ``UNNEST(x) AS t(t)``: the engine names its one column after the alias (DuckDB, PostgreSQL), so
+    ``SELECT * FROM items, unnest(tags) t`` has a column t. sqlglot's qualification knew no column
+    of t, and the star was "over unknown sources": the answer incomplete. Dialects whose unnest
+    alias names the column itself (BigQuery) need nothing."""
+    import sqlglot
+
+    if sqlglot.Dialect.get_or_raise(dialect).UNNEST_COLUMN_ONLY:
+        return query
+    bare = [u for u in query.find_all(exp.Unnest) if _unnamed(u)]
+    if not bare:
+        return query
+    query = query.copy()
+    for u in query.find_all(exp.Unnest):
+        if _unnamed(u):
+            alias = u.args["alias"]
+            alias.set("columns", [alias.this.copy()])
+    return query
+
+
+def _unnamed(u: exp.Unnest) -> bool:
+    alias = u.args.get("alias")
+    return (
+        isinstance(alias, exp.TableAlias)
+        and bool(alias.name)
+        and not alias.columns
+        and len(u.expressions) == 1
+        and not u.args.get("offset")
+        and isinstance(u.parent, (exp.From, exp.Join))
+    )
+
+
 def _listed(table: exp.Table) -> bool:
     alias = table.args.get("alias")
     return isinstance(alias, exp.TableAlias) and bool(alias.columns) and bool(table.name)

@@ -35,7 +35,7 @@ from sqlglot.optimizer.scope import Scope, build_scope
 from sqlglot.schema import MappingSchema
 
 from cdcnorm.lineage.diagnostics import Diagnostic
-from cdcnorm.lineage.renames import expand_renames
+from cdcnorm.lineage.renames import expand_renames, name_unnest_columns
 from cdcnorm.lineage.selectors import Refused, expand_columns
 
 Node = tuple[str, str, str]  # (kind: source | model | raw, table, column)
@@ -309,7 +309,7 @@ class StatementResolver:
 
     def resolve(self, query: exp.Expr, schema: MappingSchema | None = None) -> list[tuple[str, Deps]] | None:
         schema = schema or self.catalog.schema(self.dialect, query)
-        query = expand_renames(query, schema, self.dialect)
+        query = name_unnest_columns(expand_renames(query, schema, self.dialect), self.dialect)
         if query.find(exp.Columns):
             try:
                 query = expand_columns(query, schema, self.dialect)

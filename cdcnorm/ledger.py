@@ -111,9 +111,13 @@ def count_fates(
     rows are duplicates, conflicts (quarantined) or kept; kept before-images
     (this run's and those carried in) are merged (paired, same key), emitted
     (paired, key changed: a delete), pending, or settled (quarantined); every
-    other kept row is emitted as one event.
+    other kept row is emitted as one event. With ``change.images`` a record
+    holds both images: an update's row is emitted once, and a key change gives
+    it a delete event too.
     """
-    paired_mode = plan.mapping.mapping.change.updates == "paired"
+    change = plan.mapping.mapping.change
+    one_record = change.images is not None  # a record holding both images pairs with itself
+    paired_mode = change.updates == "paired" and not one_record
 
     def fc(file_id: int) -> FileCounts:
         return ledger.files.setdefault(ids[file_id], FileCounts())
@@ -155,13 +159,18 @@ def count_fates(
         def k(act: str, file_id: int = file_id) -> int:
             return kept.get((file_id, act), 0)
 
-        c.merged += merged.get(file_id, 0)
+        # with images, a key change is one row (emitted) that gives two events: no before row of
+        # its own is merged or emitted
+        rows_of_befores = 0 if one_record else 1
+        c.merged += merged.get(file_id, 0) * rows_of_befores
         c.pending += waiting.get((file_id, False), 0)
         c.quarantined += waiting.get((file_id, True), 0)
-        c.emitted += k("insert") + k("snapshot") + k("after") + k("delete") + rekeyed.get(file_id, 0)
+        c.emitted += (
+            k("insert") + k("snapshot") + k("after") + k("delete") + rekeyed.get(file_id, 0) * rows_of_befores
+        )
         c.upserts += k("insert") + k("snapshot") + k("after")
         c.deletes += k("delete") + rekeyed.get(file_id, 0)
-        if paired_mode:
+        if paired_mode or one_record:
             c.unpaired_after += k("after") - int(after_paired.get(file_id, 0))
 
 

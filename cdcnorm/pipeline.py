@@ -290,6 +290,9 @@ def _shown_names(plan: Plan) -> dict[str, str]:
     )
     for i, name in enumerate(plan.fields):
         names[f"__from{i}"] = "raw:" + " or ".join(plan.mapping.mapping.raw_columns(name))
+        names[f"__image{i}"] = f"raw image:{name}"  # change.images: the image a row's value is read from
+        names[f"__prior{i}"] = f"raw before:{name}"
+        names[f"b{i}"] = f"before.{name}"
         names[f"v{i}"] = name
         names[f"p{i}"] = f"prior.{name}"
         names[f"a{i}"] = f"after.{name}"

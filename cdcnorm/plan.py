@@ -175,7 +175,14 @@ class Plan:
         alternative each file has (``alternative_files``)."""
         if name in self.mapping.mapping.alternatives():
             return ident(f"__from{self.fields.index(name)}")
+        if self.mapping.mapping.change.images is not None:
+            return ident(f"__image{self.fields.index(name)}")
         return self.raw(self.mapping.mapping.raw_column(name))
+
+    def prior_raw(self, name: str) -> str:
+        """With ``change.images``: the quoted name of the source stage's column of a field's
+        before-image text on an update's row (NULL on other rows)."""
+        return ident(f"__prior{self.fields.index(name)}")
 
     def alternative_files(self, name: str) -> list[tuple[str, list[int]]]:
         """For each raw column field ``name`` may read, in ``from``'s order, the ids of the files

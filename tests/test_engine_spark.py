@@ -181,3 +181,13 @@ def test_fields_read_from_renamed_columns_give_the_same_events_on_spark(spark: A
     shutil.copy(case / "mapping.yaml", tmp_path / "mappings" / "members.yaml")
     compared = _same_on_both(spark, tmp_path / "mappings", case / "dumps", tmp_path / "scratch")
     assert compared == {"club.members": (3, 2)}
+
+
+def test_records_holding_both_images_give_the_same_events_on_spark(spark: Any, tmp_path: Path) -> None:
+    """change.images: the source stage picks each row's image, the pair stage pairs a record with
+    itself (a key change gives two events): the golden case, on both engines."""
+    case = ROOT / "tests" / "cases" / "pair" / "both-images"
+    (tmp_path / "mappings").mkdir()
+    shutil.copy(case / "mapping.yaml", tmp_path / "mappings" / "tools.yaml")
+    compared = _same_on_both(spark, tmp_path / "mappings", case / "dumps", tmp_path / "scratch")
+    assert compared == {"depot.tools": (10, 2)}

@@ -120,18 +120,22 @@ def _stage_table(
     )
     free_raw(trun, engine)  # the raw rows are needed no more: free them before the events are sorted
     written = 0
-    if counts.emitted:
-        progress(f"{table}: sort and write {counted(counts.emitted, 'event')}", 0, 1)
+    # one event per emitted row, but for a record holding both images whose update changed the key:
+    # it gives a delete and an upsert (change.images)
+    events = counts.upserts + counts.deletes
+    if events:
+        progress(f"{table}: sort and write {counted(events, 'event')}", 0, 1)
         rel = f"events/{part}/{run}{writer.SUFFIX}"
         # one streaming pass: the engine sorts the flat events, then builds and writes the envelopes
         ordered = f"({sorted_events(plan, '__files')}) AS ordered_events"
         written = writer.write(plan, engine, "__files", staging / rel, ordered)
         out["events"] = rel
     # The ledger is counted from aggregates; the files are written from the rows themselves.
-    if written != counts.emitted or lines != counts.quarantined:
+    if written != events or lines != counts.quarantined:
         raise LedgerError(
             f"{table}: wrote {written} events and {lines} quarantine lines, but the ledger counts "
-            f"{counts.emitted} emitted and {counts.quarantined} quarantined rows",
+            f"{events} events ({counts.upserts} upserts, {counts.deletes} deletes) and "
+            f"{counts.quarantined} quarantined rows",
             hint="this is a bug in cdcnorm; please report it with the inputs",
         )
     return out

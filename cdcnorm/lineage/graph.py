@@ -498,6 +498,9 @@ def _build_project(
             edit = (edits or {}).get(node)
             # a from of alternatives: the field reads whichever of them a file has
             raws: list[Node] = [("raw", lm.table, c) for c in lm.mapping.raw_columns(f)]
+            before = lm.mapping.before_column(f)  # change.images: a delete's value is its before-image's
+            if before is not None:
+                raws.append(("raw", lm.table, before))
             for raw in raws:
                 g.add_node(raw, kind="raw", table=lm.table, column=raw[2])
             if edit is not None and edit[0] in ("drop", "rename"):

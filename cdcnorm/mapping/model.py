@@ -129,6 +129,26 @@ class CommittedAtSpec(Strict):
         return check_zone(v)
 
 
+class ImagesSpec(Strict):
+    """A record that holds both images of its change, each a member of the record: a JSON Lines
+    object, a Parquet struct, or (CSV) the columns ``<member>.<field>``."""
+
+    before: str = Field(
+        min_length=1, description="The member holding the row before the change (null for an insert)."
+    )
+    after: str = Field(
+        min_length=1, description="The member holding the row after the change (null for a delete)."
+    )
+
+    @model_validator(mode="after")
+    def _two_members(self) -> ImagesSpec:
+        if self.before == self.after:
+            raise ValueError(
+                f"before and after name one member, {self.before!r}; name the two images' members"
+            )
+        return self
+
+
 class ChangeSpec(Strict):
     action: ActionSpec
     position: PositionSpec
@@ -138,6 +158,27 @@ class ChangeSpec(Strict):
         default="paired",
         description="paired: an update is a before row and an after row at one position; after-only: one after row.",
     )
+    images: ImagesSpec | None = Field(
+        default=None,
+        description="Each record holds both images of its change: an update's before-image is its prior, "
+        "a delete's is its key and last image. Fields are read from the images' members.",
+    )
+
+    @model_validator(mode="after")
+    def _images_or_updates(self) -> ChangeSpec:
+        if self.images is None:
+            return self
+        if "updates" in self.model_fields_set:
+            raise ValueError(
+                "updates does not apply with images: each record holds both images of its change; remove it"
+            )
+        befores = sorted(k for k, v in self.action.codes.items() if v == "before")
+        if befores:
+            raise ValueError(
+                f"action code {befores[0]!r} is a before-image, but with images a record is one whole "
+                "change: map its code to insert, after (an update), delete or snapshot"
+            )
+        return self
 
 
 class FieldSpec(Strict):
@@ -340,6 +381,7 @@ class Mapping(Strict):
     def _unused_columns_are_not_read(self) -> Mapping:
         readers = {col: f"change.{role}" for role, col in self.change_columns().items()}
         readers |= {c: f"field {f}" for f in self.fields for c in self.raw_columns(f)}
+        readers |= {c: f"field {f}" for f in self.fields if (c := self.before_column(f)) is not None}
         for name in self.unused:
             read = [col for col in readers if _covers(name, col)]
             if read:
@@ -351,18 +393,42 @@ class Mapping(Strict):
                 )
         return self
 
+    @model_validator(mode="after")
+    def _images_read_one_name(self) -> Mapping:
+        if self.change.images is None:
+            return self
+        listed = [f for f in self.fields if isinstance(self.fields[f].from_, list)]
+        if listed:
+            raise Located(
+                f"field {listed[0]} lists alternatives in from, which change.images does not take: each "
+                "field is read from the member of that name in both images",
+                "fields",
+                listed[0],
+                found=listed[0],
+            )
+        return self
+
     def left_out(self, column: str) -> bool:
         """Whether ``unused`` lists this raw column (or a nested object it is a member of)."""
         return any(_covers(u, column) for u in self.unused)
 
     def raw_column(self, field: str) -> str:
-        """The raw column a field reads (the first alternative, when ``from`` lists several)."""
+        """The raw column a field reads (the first alternative, when ``from`` lists several; its
+        after-image's member with ``change.images``)."""
         return self.raw_columns(field)[0]
 
     def raw_columns(self, field: str) -> list[str]:
         """The raw columns a field may read: ``from``'s alternatives in order, the first a file has
         being read; one for most fields."""
+        images = self.change.images
+        if images is not None:
+            return [f"{images.after}.{self.fields[field].from_ or field}"]
         return self.fields[field].columns or [field]
+
+    def before_column(self, field: str) -> str | None:
+        """With ``change.images``, the raw column of a field's before-image (None without)."""
+        images = self.change.images
+        return None if images is None else f"{images.before}.{self.fields[field].from_ or field}"
 
     def alternatives(self) -> dict[str, list[str]]:
         """The fields whose ``from`` lists more than one column, and those columns."""
@@ -386,6 +452,10 @@ class Mapping(Strict):
         for name in self.fields:
             for col in self.raw_columns(name):
                 seen.setdefault(col)
+        for name in self.fields:
+            before = self.before_column(name)
+            if before is not None:
+                seen.setdefault(before)
         return list(seen)
 
     def read_through(self) -> list[tuple[str, ...]]:

@@ -41,12 +41,12 @@ def build_envelopes(plan: Plan) -> Plan:
     FROM {kept} e WHERE e.__act IN ('insert', 'snapshot') OR (e.__act = 'after' AND {lonely_after})
     UNION ALL
     SELECT 'upsert', p.a_pos, p.a_seq, 2, 'after', p.a_cat, p.af, p.ar, {", ".join(f"p.a{i}" for i in range(n))},
-           p.same_key, {", ".join(f"CASE WHEN p.same_key THEN p.p{i} END" for i in range(n))},
-           CASE WHEN p.same_key THEN {changed} END
+           p.same_key AND p.__img, {", ".join(f"CASE WHEN p.same_key AND p.__img THEN p.p{i} END" for i in range(n))},
+           CASE WHEN p.same_key AND p.__img THEN {changed} END
     FROM {pairs} p WHERE NOT p.ghost
     UNION ALL
     SELECT 'delete', p.b_pos, p.b_seq, 1, 'before', p.b_cat, p.bf, p.br, {", ".join(f"p.p{i}" for i in range(n))},
-           TRUE, {", ".join(f"p.p{i}" for i in range(n))}, NULL
+           p.__img, {", ".join(f"CASE WHEN p.__img THEN p.p{i} END" for i in range(n))}, NULL
     FROM {pairs} p WHERE NOT p.same_key
     UNION ALL
     SELECT 'delete', {own}, {vals}, e.__image,

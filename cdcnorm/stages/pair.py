@@ -22,17 +22,22 @@ from cdcnorm.plan import Plan
 
 
 def pair_images(plan: Plan) -> Plan:
-    paired_mode = plan.mapping.mapping.change.updates == "paired"
+    change = plan.mapping.mapping.change
+    one_record = change.images is not None  # each record holds both images (b0..bn: the before's)
+    paired_mode = change.updates == "paired" and not one_record
     keys = plan.key_index
     n = len(plan.fields)
     values = ", ".join(f"v{i}" for i in range(n))
+    befores_in = ", " + ", ".join(f"b{i}" for i in range(n)) if one_record else ""
+    types = dict(_value_types(plan))
+    no_befores = ", " + ", ".join(f"CAST(NULL AS {types[i]}) AS b{i}" for i in range(n)) if one_record else ""
     deduped = plan.rel("deduped")
     plan = plan.add(
         "pair",
         "candidates",
-        f"SELECT __file, __row, __act, __pos, __seq, __cat, __rank, {values}, FALSE AS __carried "
+        f"SELECT __file, __row, __act, __pos, __seq, __cat, __rank, {values}{befores_in}, FALSE AS __carried "
         f"FROM {deduped} WHERE __fate = 'keep' UNION ALL "
-        f"SELECT __file, __row, 'before', __pos, __seq, __cat, 1, {values}, TRUE FROM {plan.rel('carried')}",
+        f"SELECT __file, __row, 'before', __pos, __seq, __cat, 1, {values}{no_befores}, TRUE FROM {plan.rel('carried')}",
     )
     candidates = plan.rel("candidates")
     same_key = " AND ".join(f"a.v{i} = b.v{i}" for i in keys)
@@ -83,7 +88,22 @@ def pair_images(plan: Plan) -> Plan:
     ghost_values = ", ".join(
         f"e.v{i}" if i in keys else f"CAST(NULL AS {t}) AS v{i}" for i, t in _value_types(plan)
     )
-    if paired_mode:
+    if one_record:
+        # An update's record holds its before-image: the row pairs with itself, a key change when
+        # the before-image's key differs. A before-image of the key alone (some databases write no
+        # more) is no image to show as prior: the update's prior, and its changed, stay null.
+        nonkey = [i for i in range(n) if i not in keys] or keys
+        before_key = " AND ".join(f"k.b{i} IS NOT NULL" for i in keys)
+        pairs = (
+            "SELECT k.__file AS af, k.__row AS ar, FALSE AS ghost, k.__file AS bf, k.__row AS br, "
+            f"({' AND '.join(f'k.b{i} = k.v{i}' for i in keys)}) AS same_key, "
+            "k.__pos AS a_pos, k.__seq AS a_seq, k.__cat AS a_cat, k.__pos AS b_pos, k.__seq AS b_seq, "
+            f"k.__cat AS b_cat, {', '.join(f'k.v{i} AS a{i}' for i in range(n))}, "
+            f"{', '.join(f'k.b{i} AS p{i}' for i in range(n))}, "
+            f"({' OR '.join(f'k.b{i} IS NOT NULL' for i in nonkey)}) AS __img "
+            f"FROM {kept} k WHERE k.__act = 'after' AND {before_key}"
+        )
+    elif paired_mode:
         # the after-images, and the ghosts of those emitted earlier: a step of its own, read twice
         plan = plan.add(
             "pair",
@@ -109,15 +129,15 @@ def pair_images(plan: Plan) -> Plan:
         lone_b = lone.format(side=befores, other=afters, same=same_xy)
         pick = "a.__file AS af, a.__row AS ar, a.__ghost AS ghost, b.__file AS bf, b.__row AS br"
         pairs = (
-            f"SELECT {pick}, TRUE AS same_key, {carried} FROM {afters} a JOIN {befores} b "
+            f"SELECT {pick}, TRUE AS same_key, {carried}, TRUE AS __img FROM {afters} a JOIN {befores} b "
             f"ON a.__pos = b.__pos AND a.__seq = b.__seq AND {same_key} UNION ALL "
-            f"SELECT {pick}, FALSE, {carried} FROM ({lone_a}) a JOIN ({lone_b}) b "
+            f"SELECT {pick}, FALSE, {carried}, TRUE FROM ({lone_a}) a JOIN ({lone_b}) b "
             "ON a.__pos = b.__pos AND a.__seq = b.__seq WHERE a.__n = 1 AND b.__n = 1"
         )
     else:
         pairs = (
             f"SELECT a.__file AS af, a.__row AS ar, FALSE AS ghost, a.__file AS bf, a.__row AS br, TRUE AS same_key, "
-            f"{carried} FROM {kept} a, {kept} b WHERE FALSE"
+            f"{carried}, TRUE AS __img FROM {kept} a, {kept} b WHERE FALSE"
         )
     plan = plan.add("pair", "pairs", pairs, materialize=True)
     p = plan.rel("pairs")
@@ -148,7 +168,8 @@ def pair_images(plan: Plan) -> Plan:
         "pair",
         "links",
         f"SELECT af AS f, ar AS r, same_key, {priors} FROM {p} WHERE NOT ghost "
-        f"UNION ALL SELECT bf, br, same_key, {nulls} FROM {p}",
+        # (a record holding both images is one row: its before-image is no row of its own)
+        f"UNION ALL SELECT bf, br, same_key, {nulls} FROM {p}{' WHERE FALSE' if one_record else ''}",
     )
     # `paired` is what --stop-after pair shows: every kept row with its role. The envelope
     # stage reads `pairs` and `kept` directly, and the ledger counts from their aggregates.
@@ -158,7 +179,7 @@ def pair_images(plan: Plan) -> Plan:
     )
     sql = (
         f"SELECT k.*, {role} AS __role, l.same_key AS __same_key, "
-        f"(k.__act = 'after' AND l.f IS NULL AND {str(paired_mode).upper()}) AS __unpaired_after, "
+        f"(k.__act = 'after' AND l.f IS NULL AND {str(paired_mode or one_record).upper()}) AS __unpaired_after, "
         f"{', '.join(f'l.p{i}' for i in range(n))} "
         f"FROM {kept} k LEFT JOIN {plan.rel('links')} l ON k.__file = l.f AND k.__row = l.r"
     )

@@ -7,7 +7,7 @@ from collections.abc import Callable
 from cdcnorm import positions
 from cdcnorm.plan import Plan
 from cdcnorm.sql import lit
-from cdcnorm.stages.source import alternative_named
+from cdcnorm.stages.source import alternative_named, image_named
 from cdcnorm.types.timestamp import timestamp_cast, timestamp_explain
 
 
@@ -125,11 +125,14 @@ def type_rows(plan: Plan) -> Plan:
         c.typed.append(("__cat", "CAST(NULL AS TIMESTAMPTZ)"))
     keys = set(m.key)
     alternatives = m.alternatives()
+    images = m.change.images is not None
     for i, (name, ftype) in enumerate(plan.mapping.field_types.items()):
         column = m.raw_column(name)
         raw = plan.field_raw(name)
-        # a field with alternatives names the column its row's file had
+        # a field with alternatives names the column its row's file had; with images, the image's
         named = alternative_named(plan, name, "s.") if name in alternatives else None
+        if images:
+            named = image_named(plan, name, "s.")
         c.typed.append((f"v{i}", ftype.cast(raw)))
         if not ftype.accepts_any:
             c.check(
@@ -142,11 +145,22 @@ def type_rows(plan: Plan) -> Plan:
                 _missing(raw),
                 _reason(name, column, ftype.describe(), "CAST(NULL AS VARCHAR)", lit(what), named),
             )
+        if images:
+            # an update's before-image: its prior (and its key, when the update changed the key)
+            prior = plan.prior_raw(name)
+            before = m.before_column(name) or ""
+            c.typed.append((f"b{i}", ftype.cast(prior)))
+            if not ftype.accepts_any:
+                c.check(
+                    _invalid(prior, f"b{i}"),
+                    _reason(name, before, ftype.describe(), f"s.{prior}", ftype.explain(f"s.{prior}")),
+                )
 
     src = plan.rel("source")
     raw_cols = ", ".join(
         [plan.raw(col) for col in m.mapped_columns()]
-        + [plan.field_raw(name) for name in plan.fields if name in alternatives]
+        + [plan.field_raw(name) for name in plan.fields if name in alternatives or images]
+        + [plan.prior_raw(name) for name in plan.fields if images]
     )
     inner = f"SELECT __file, __row, __enc, {raw_cols}, {', '.join(f'{sql} AS {n}' for n, sql in c.typed)} FROM {src}"
     ok = " AND ".join(c.ok)

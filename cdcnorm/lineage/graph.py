@@ -224,21 +224,24 @@ def _referenced_tables(stmt: ModelStatement, dialect: str) -> list[tuple[str, ..
     return out
 
 
-def _dedupe_names(names: list[str]) -> list[str]:
-    """Duplicate output names get _1, _2 ... (as DuckDB names the columns of such a view)."""
+def _dedupe_names(names: list[str], dialect: str = "duckdb") -> list[str]:
+    """Duplicate output names get _1, _2 ... (as DuckDB names the columns of such a view): names
+    are the same as the dialect matches them (``Amount`` and ``amount`` in DuckDB), and each keeps
+    its own spelling (``SELECT id AS "Amount", amount``: Amount, amount_1)."""
     seen: dict[str, int] = {}
     out = []
     for n in names:
-        if n in seen:
-            seen[n] += 1
-            candidate = f"{n}_{seen[n]}"
-            while candidate in seen:
-                seen[n] += 1
-                candidate = f"{n}_{seen[n]}"
-            seen[candidate] = 0
+        key = fold(n, dialect)
+        if key in seen:
+            seen[key] += 1
+            candidate = f"{n}_{seen[key]}"
+            while fold(candidate, dialect) in seen:
+                seen[key] += 1
+                candidate = f"{n}_{seen[key]}"
+            seen[fold(candidate, dialect)] = 0
             out.append(candidate)
         else:
-            seen[n] = 0
+            seen[key] = 0
             out.append(n)
     return out
 
@@ -274,7 +277,7 @@ def _merge_query(
             assignments.append(("", exp.null(), cond, matched))  # no value: it decides rows only
     if not assignments:
         return []
-    names = _dedupe_names(list(dict.fromkeys(a[0] for a in assignments if a[0])))
+    names = _dedupe_names(list(dict.fromkeys(a[0] for a in assignments if a[0])), dialect)
     parts = folded_parts(target, dialect) if isinstance(target, exp.Table) else stmt.target
     if catalog.find(tuple(parts)) is None:
         catalog.add(declared_table("model", stmt.name, tuple(parts), names, dialect, origin="model"))
@@ -383,7 +386,7 @@ def resolve_model(
             names = list(st.columns[: len(outs)]) + names[len(st.columns) :]
         elif st.kind == "insert" and columns:  # no column list: by position, as the table has them
             names = columns[: len(outs)] + names[len(columns) :]
-        names = _dedupe_names(names) if st.kind != "insert" else names
+        names = _dedupe_names(names, dialect) if st.kind != "insert" else names
         into_declared = st.kind in ("insert", "merge") and (
             (declared is not None and declared.kind == "source") or bool(made)
         )

@@ -383,9 +383,19 @@ class StatementResolver:
         for pivot in query.find_all(exp.Pivot):
             for made in self._pivot_names(pivot):
                 aliases.setdefault(fold(made, self.dialect), made)
+        # Projection by projection where they line up (no star): a name the dialect folds to an
+        # alias's is that alias only at the alias's own place. DuckDB names "SELECT id AS "Amount",
+        # amount" Amount and amount_1; by name alone, the second was shown as Amount too.
+        selects = query.selects if isinstance(query, exp.Query) else []
+        lined_up = len(selects) == len(outs) and not any(
+            isinstance(p, exp.Star) or isinstance(p.this, exp.Star) for p in selects
+        )
         out = []
-        for name, deps in outs:
+        for at, (name, deps) in enumerate(outs):
             shown = aliases.get(name)
+            if lined_up:
+                ident = selects[at].args.get("alias") if isinstance(selects[at], exp.Alias) else None
+                shown = written(ident, self.dialect) if isinstance(ident, exp.Identifier) else None
             if shown is None:
                 copies = {
                     n[2]

@@ -40,18 +40,10 @@ fields:
   qty: integer
 """
 
-PAIRED = """\
-table: t.stock
-files: ["s-*"]
-key: [id]
-change:
-  action: {column: op, codes: {I: insert, B: before, A: after, D: delete}}
-  position: {column: pos, kind: integer}
-fields:
-  id: integer
-  name: text
-  qty: integer
-"""
+# the same table with its updates as a before row and an after row at one position
+PAIRED = IMAGES.replace(
+    "{c: insert, u: after, d: delete}", "{I: insert, B: before, A: after, D: delete}"
+).replace("  images: {before: before, after: after}\n", "")
 
 
 def _events(mapping: str, name: str, text: str) -> list[dict[str, Any]]:

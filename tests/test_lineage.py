@@ -95,6 +95,9 @@ MISSPELT = [
     "SELECT o.id, x.n FROM shop.orders o CROSS JOIN LATERAL (SELECT count(amont) AS n FROM shop.refunds) x",
     "SELECT o.id, x.amount FROM shop.orders o, LATERAL (SELECT amount FROM shop.refunds r WHERE r.order_id = o.id) x",
     "SELECT o.id, x.s FROM shop.orders o, LATERAL (SELECT status AS s FROM shop.refunds r WHERE r.order_id = id) x",
+    # a LIMIT that is a query
+    "SELECT id FROM shop.orders ORDER BY id LIMIT (SELECT count(ordr_id) FROM shop.refunds)",
+    "SELECT id FROM shop.orders ORDER BY id LIMIT (SELECT count(order_id) FROM shop.refunds)",
 ]
 
 
@@ -147,7 +150,7 @@ def test_a_misspelt_name_in_any_clause_is_reported_where_the_engine_refuses_it(t
     reported as not in schema, and each it creates is complete; an ORDER BY without LIMIT decides
     no rows, but a misspelt name in it was passed over (the model was traced as complete)."""
     refused = _refused_by_duckdb(MISSPELT)
-    assert len(refused) == 15  # the oracle refuses every misspelt one
+    assert len(refused) == 16  # the oracle refuses every misspelt one
     project = project_from(tmp_path, {f"m{i}.sql": sql for i, sql in enumerate(MISSPELT)}, CASES["schema"])
     assert {d.model for d in project.diagnostics if d.reason == "not in schema"} == refused
     assert {d.model for d in project.diagnostics} == refused

@@ -607,6 +607,16 @@ class StatementResolver:
             limited = e.args.get("limit") is not None or e.args.get("offset") is not None
             for o in order.expressions:
                 self.expr(o, scope, d if limited else Deps(), "copy", "limit")
+        # a LIMIT or OFFSET that is a query (LIMIT (SELECT count(x) FROM r)) decides how many rows
+        # appear, and a name it reads must exist: it was passed over
+        for clause in ("limit", "offset"):
+            bound = e.args.get(clause)
+            if (
+                bound is not None
+                and isinstance(bound.expression, exp.Expr)
+                and not isinstance(bound.expression, exp.Literal)
+            ):
+                self.expr(bound.expression, scope, d, "copy", "limit")
         self._pivot_rows(scope, d)
         for _alias, (_node, source) in scope.selected_sources.items():
             if isinstance(source, Scope):

@@ -98,6 +98,11 @@ MISSPELT = [
     # a LIMIT that is a query
     "SELECT id FROM shop.orders ORDER BY id LIMIT (SELECT count(ordr_id) FROM shop.refunds)",
     "SELECT id FROM shop.orders ORDER BY id LIMIT (SELECT count(order_id) FROM shop.refunds)",
+    # a query read for its rows alone: the engine binds its columns all the same, but not those of
+    # a CTE no query reads
+    "SELECT count(*) AS n FROM (SELECT idd FROM shop.orders)",
+    "WITH a AS (SELECT id FROM shop.orders), b AS (SELECT idd FROM a) SELECT 1 AS one FROM b",
+    "WITH u AS (SELECT typo FROM shop.orders) SELECT id FROM shop.orders",
 ]
 
 
@@ -150,7 +155,7 @@ def test_a_misspelt_name_in_any_clause_is_reported_where_the_engine_refuses_it(t
     reported as not in schema, and each it creates is complete; an ORDER BY without LIMIT decides
     no rows, but a misspelt name in it was passed over (the model was traced as complete)."""
     refused = _refused_by_duckdb(MISSPELT)
-    assert len(refused) == 16  # the oracle refuses every misspelt one
+    assert len(refused) == 18  # the oracle refuses every misspelt one
     project = project_from(tmp_path, {f"m{i}.sql": sql for i, sql in enumerate(MISSPELT)}, CASES["schema"])
     assert {d.model for d in project.diagnostics if d.reason == "not in schema"} == refused
     assert {d.model for d in project.diagnostics} == refused

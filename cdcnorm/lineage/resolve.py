@@ -370,7 +370,23 @@ class StatementResolver:
                     self.unknown_tables.add(".".join(table_parts(source)))
         outs = self.outputs(root)
         self.row_deps = self.rows(root)
+        self._bind_the_rest(root)
         return self._shown(query, outs)
+
+    def _bind_the_rest(self, root: Scope) -> None:
+        """Resolve every column of every query the statement reads, as the engine binds them: a
+        misspelt name in a derived table or a CTE whose columns the outer query does not use
+        (``SELECT count(*) FROM (SELECT idd FROM t)``) was passed over, the answer complete. A CTE
+        no query reads is not bound (DuckDB creates the view), and is left alone here too."""
+        scopes = list(root.traverse())
+        read = {
+            id(src) for s in scopes for _node, src in s.selected_sources.values() if isinstance(src, Scope)
+        }
+        for s in scopes:
+            if s.is_cte and id(s) not in read and id(self._canonical(s)) not in read:
+                continue
+            if id(s) not in self._busy:
+                self.outputs(s)
 
     def _shown(self, query: exp.Expr, outs: list[tuple[str, Deps]]) -> list[tuple[str, Deps]]:
         """The statement's output names as the engine shows them: an alias as written (per the

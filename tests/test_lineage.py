@@ -215,3 +215,24 @@ def test_a_table_function_in_from_names_the_source_its_columns_are_inferred_in(t
     assert got["value"] == ["read_parquet('trips.parquet').a"]
     assert got["influence"] == ["read_parquet('trips.parquet').c"]
     assert got["inferred"] == ["read_parquet('trips.parquet').a", "read_parquet('trips.parquet').c"]
+
+
+def test_a_natural_join_that_shares_no_column_is_reported_as_the_engine_refuses_it(tmp_path: Path) -> None:
+    """DuckDB (the oracle) refuses a NATURAL JOIN of tables that share no column; lineage traced
+    such a model as complete. Tables whose columns are unknown are no reason to report it."""
+    import duckdb
+
+    queries = {
+        "none.sql": "SELECT * FROM shop.orders NATURAL JOIN (SELECT order_id AS idd FROM shop.refunds) r",
+        "some.sql": "SELECT * FROM shop.orders NATURAL JOIN (SELECT order_id AS id FROM shop.refunds) r",
+        "unknown.sql": "SELECT * FROM shop.orders NATURAL JOIN elsewhere.things",
+    }
+    con = _cases_schema_in_duckdb()
+    with pytest.raises(duckdb.BinderException, match="No columns found to join on"):
+        con.execute(f"CREATE VIEW v AS {queries['none.sql']}")
+    con.execute(f"CREATE VIEW w AS {queries['some.sql']}")
+    project = project_from(tmp_path, queries, CASES["schema"])
+    assert [(d.model, d.reason) for d in project.diagnostics if d.model != "unknown"] == [
+        ("none", "unsupported")
+    ]
+    assert not any(d.reason == "unsupported" for d in project.diagnostics if d.model == "unknown")

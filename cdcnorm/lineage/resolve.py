@@ -665,6 +665,19 @@ class StatementResolver:
         if natural:
             others = {c for a, cs in cols.items() if a != joined for c in cs}
             names = [c for c in cols.get(joined, []) if c in others]
+            known = all(
+                isinstance(src, Scope) or self.catalog.find(table_parts(src)) is not None
+                for a, src in scope.sources.items()
+                if a in cols and isinstance(src, (Scope, exp.Table))
+            )
+            if not names and known and cols.get(joined):
+                # the engine refuses it ("no columns found to join on"): never a complete answer
+                self._diag(
+                    _line(join) or self.default_line,
+                    "unsupported",
+                    f"NATURAL JOIN {joined}: it shares no column with the tables before it, so the "
+                    "engine refuses the query",
+                )
         for name in names:
             for alias, cs in cols.items():
                 if name in cs:

@@ -38,17 +38,43 @@ from cdcnorm.pipeline import STAGE_NAMES, Notice, Options, Result, describe_sour
 from cdcnorm.tables import print_table
 
 
-class _Console(Console):
-    """A console whose reader may go away (``cdcnorm runs area | head``). Rich's own answer ends the
-    process with exit 1 wherever it was, a run half-converted; here the rest of this console's output
-    is dropped, the command goes on to its end, and ``main`` ends with EXIT_OUTPUT_CUT."""
+class _Guarded:
+    """The standard stream of that name (looked up at each use: a test's capture takes its place),
+    whose reader may go away (``cdcnorm runs area | head``). The console library's own answer, where
+    it has one (its on_broken_pipe), ends the process with exit 1 wherever it was, a run
+    half-converted; the oldest version this project takes (rich 13.0.0) has none and lets
+    BrokenPipeError out, a traceback. Here the rest of the stream's output is dropped, the command
+    goes on to its end, and ``main`` ends with EXIT_OUTPUT_CUT."""
 
-    cut = False
+    def __init__(self, name: str) -> None:
+        self._name = name
+        self.cut = False
 
-    def on_broken_pipe(self) -> None:
-        self.quiet = True
+    @property
+    def _stream(self) -> Any:
+        return getattr(sys, self._name)
+
+    def write(self, text: str) -> int:
+        if not self.cut:
+            try:
+                return int(self._stream.write(text))
+            except BrokenPipeError:
+                self._gone()
+        return len(text)
+
+    def flush(self) -> None:
+        if not self.cut:
+            try:
+                self._stream.flush()
+            except BrokenPipeError:
+                self._gone()
+
+    def _gone(self) -> None:
         self.cut = True
-        _silence(self.file)
+        _silence(self._stream)
+
+    def __getattr__(self, name: str) -> Any:  # isatty, fileno, encoding ...: the stream's own
+        return getattr(self._stream, name)
 
 
 def _silence(stream: Any) -> None:
@@ -63,14 +89,25 @@ def _silence(stream: Any) -> None:
     os.close(null)
 
 
+_stdout, _stderr = _Guarded("stdout"), _Guarded("stderr")
+
 # No markup and no emoji codes: what the consoles print holds names and values from users' files (a
 # file "t[x].csv" was shown as "t.csv", a column "a[/]b" ended in rich's MarkupError, a column
 # ":x:" was shown as an emoji); styled parts are Text with a style.
-err = _Console(
-    stderr=True, highlight=False, markup=False, emoji=False, width=None if sys.stderr.isatty() else 200
+err = Console(
+    file=_stderr,  # type: ignore[arg-type]
+    highlight=False,
+    markup=False,
+    emoji=False,
+    width=None if sys.stderr.isatty() else 200,
 )
-out = _Console(
-    highlight=False, markup=False, emoji=False, soft_wrap=True, width=None if sys.stdout.isatty() else 200
+out = Console(
+    file=_stdout,  # type: ignore[arg-type]
+    highlight=False,
+    markup=False,
+    emoji=False,
+    soft_wrap=True,
+    width=None if sys.stdout.isatty() else 200,
 )
 
 
@@ -804,10 +841,8 @@ def _interrupted(command: str | None, argv: Sequence[str] | None) -> int:
 
 def main(argv: Sequence[str] | None = None) -> int:
     code = _main(argv)
-    # (a console put in their place, as a test does, has no such flag)
-    out_cut, err_cut = getattr(out, "cut", False), getattr(err, "cut", False)
-    if out_cut or err_cut:
-        if not err_cut:
+    if _stdout.cut or _stderr.cut:
+        if not _stderr.cut:
             err.print(
                 "note: the output's reader closed before its end (a pipe such as `| head`): the rest of "
                 f"the output was dropped; the command ran to its end (its own exit code: {code})",

@@ -371,7 +371,7 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
     roles = {v: k for k, v in m.change_columns().items()}
     # the structs a mapped member is read through (a Parquet column "after" for "after.id")
     read_through = {".".join(keys) for keys in m.read_through()}
-    alternatives = m.alternatives()
+    alternatives = m.alternatives
     # a column read only as one of a field's alternatives may be missing, if another is there
     single = set(m.change_columns().values()) | {m.raw_column(f) for f in m.fields if f not in alternatives}
     for src in raw.files:

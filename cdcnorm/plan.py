@@ -173,7 +173,7 @@ class Plan:
         """The quoted name of the column holding a field's raw text: its raw column's internal
         name, or, for a field whose ``from`` lists alternatives, the source stage's column of the
         alternative each file has (``alternative_files``)."""
-        if name in self.mapping.mapping.alternatives():
+        if name in self.mapping.mapping.alternatives:
             return ident(f"__from{self.fields.index(name)}")
         if self.mapping.mapping.change.images is not None:
             return ident(f"__image{self.fields.index(name)}")

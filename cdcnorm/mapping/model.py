@@ -7,6 +7,7 @@ are errors (with the closest valid key suggested), never ignored.
 from __future__ import annotations
 
 import re
+from functools import cached_property
 from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
@@ -430,8 +431,10 @@ class Mapping(Strict):
         images = self.change.images
         return None if images is None else f"{images.before}.{self.fields[field].from_ or field}"
 
+    @cached_property
     def alternatives(self) -> dict[str, list[str]]:
-        """The fields whose ``from`` lists more than one column, and those columns."""
+        """The fields whose ``from`` lists more than one column, and those columns (once per
+        mapping: the plan asks for every field, 300 of them in a wide table)."""
         return {f: cols for f in self.fields if len(cols := self.raw_columns(f)) > 1}
 
     def change_columns(self) -> dict[str, str]:

@@ -15,7 +15,7 @@ def unite_sources(plan: Plan) -> Plan:
     union = plan.raw_union(cols)
     if m.change.images is not None:
         return plan.add("source", "source", f"SELECT u.*, {_images(plan)} FROM ({union}) AS u")
-    alternatives = m.alternatives()
+    alternatives = m.alternatives
     if not alternatives:
         return plan.add("source", "source", union)
     picks = []

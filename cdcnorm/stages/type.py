@@ -124,7 +124,7 @@ def type_rows(plan: Plan) -> Plan:
     else:
         c.typed.append(("__cat", "CAST(NULL AS TIMESTAMPTZ)"))
     keys = set(m.key)
-    alternatives = m.alternatives()
+    alternatives = m.alternatives
     images = m.change.images is not None
     for i, (name, ftype) in enumerate(plan.mapping.field_types.items()):
         column = m.raw_column(name)

@@ -20,6 +20,7 @@ import sqlglot
 from sqlglot import exp
 
 from cdcnorm.errors import LineageError, did_you_mean
+from cdcnorm.lineage.diagnostics import Diagnostic
 from cdcnorm.lineage.graph import Project, declared_parts, node_name, normalise_column, simulate
 from cdcnorm.lineage.models import LoadedModels
 from cdcnorm.lineage.resolve import Node, same_table
@@ -69,13 +70,7 @@ def find_column(project: Project, text: str) -> Node:
 def _may_define(project: Project, name: str) -> str:
     """For a name no model defines: the files that could not be parsed and name it (they may define
     it), so a user is not sent to look for a misspelling."""
-    last = name.rsplit(".", 1)[-1].casefold()
-    hit = {f for f, words in project.unparsed.items() if words is None or last in words}
-    said = [
-        f"{d.file}:{d.line}" if d.line else d.file
-        for d in project.diagnostics
-        if d.reason == "parse error" and d.file in hit
-    ]
+    said = [f"{d.file}:{d.line}" if d.line else d.file for d in _parse_errors(project, {name})]
     if not said:
         return ""
     return f"; {', '.join(dict.fromkeys(said))} could not be parsed and may define it (see lineage --json)"
@@ -183,15 +178,18 @@ def _unparsed_readers(project: Project, nodes: set[Node]) -> list[dict[str, Any]
     """The parse errors of files that may read a table among ``nodes``: a statement that could not
     be parsed defines no model, so its dependents are unknown. A file counts when one of its words
     is the name (or the last part of the name) of such a table, or when its words cannot be told."""
+    tables = {n[1] for n in nodes if n[0] in ("source", "raw", "model")}
+    return [d.as_dict() for d in _parse_errors(project, tables)]
+
+
+def _parse_errors(project: Project, tables: set[str]) -> list[Diagnostic]:
+    """The parse errors of the files whose words name one of ``tables`` (the whole name or its
+    last part, in any case), or whose words cannot be told."""
     if not project.unparsed:
         return []
-    names: set[str] = set()
-    for n in nodes:
-        if n[0] in ("source", "raw", "model"):
-            names.add(n[1].casefold())
-            names.add(n[1].rsplit(".", 1)[-1].casefold())
+    names = {t.casefold() for t in tables} | {t.rsplit(".", 1)[-1].casefold() for t in tables}
     hit = {f for f, words in project.unparsed.items() if words is None or not names.isdisjoint(words)}
-    return [d.as_dict() for d in project.diagnostics if d.reason == "parse error" and d.file in hit]
+    return [d for d in project.diagnostics if d.reason == "parse error" and d.file in hit]
 
 
 def _unresolved_answer(column: str, diagnostics: list[dict[str, Any]]) -> dict[str, Any]:

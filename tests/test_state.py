@@ -1191,3 +1191,147 @@ def test_as_of_time_says_which_events_no_time_places(
     assert cli(*args, "--as-of", "2") == 0  # by position, every event is placed: no note
     assert "no commit time" not in capsys.readouterr().err
     assert json.loads((tmp_path / "s" / "lab.ct.jsonl").read_text())["v"] == "b"
+
+
+JSON_NULL_MAPPING = (
+    "table: lab.notes\nfiles: [notes.csv]\nkey: [id]\n"
+    "change:\n  action: {column: op, codes: {I: insert, B: before, A: after}}\n"
+    "  position: {column: pos, kind: integer}\n  updates: paired\n"
+    "fields:\n  id: integer\n  doc: json\n"
+)
+# id 1: the JSON null, then no value (the update's prior holds the JSON null); id 2: the JSON null
+# throughout; id 3: no value; id 4: an object holding a null member (nothing to mark)
+JSON_NULL_DUMP = 'op,pos,id,doc\nI,1,1,null\nB,2,1,null\nA,2,1,\nI,3,2,null\nI,4,3,\nI,5,4,"{""a"":null}"\n'
+
+
+@pytest.mark.parametrize("fmt", ["jsonl", "parquet"])
+def test_the_json_null_and_no_value_stay_apart_in_every_format(
+    tmp_path: Path, fmt: str, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """A json field holding the JSON value null is not a field without a value (PostgreSQL's
+    'null'::jsonb is not NULL, and SQLite's typeof tells the text 'null' from NULL: the oracle). A
+    JSON Lines event writes both as null, so such a field is named in the event's json_nulls member;
+    before, snapshot and apply read JSON Lines events' JSON nulls as no value, and the target held
+    NULL where the same run converted to Parquet gave 'null'."""
+    mdir = _mappings(tmp_path, JSON_NULL_MAPPING)
+    (tmp_path / "in").mkdir()
+    (tmp_path / "in" / "notes.csv").write_text(JSON_NULL_DUMP)
+    landing = tmp_path / "landing"
+    args = ["convert", str(tmp_path / "in"), "--mappings", str(mdir), "--out", str(landing), "--quiet"]
+    assert cli(*args, "--format", fmt) == 0
+    if fmt == "jsonl":
+        events = [json.loads(x) for x in next(landing.glob("events/*/*.jsonl")).read_text().splitlines()]
+        # RFC 8259: the member's value is an object of two arrays of field names
+        assert [e.get("json_nulls") for e in events] == [
+            {"values": ["doc"], "prior": []},
+            {"values": [], "prior": ["doc"]},
+            {"values": ["doc"], "prior": []},
+            None,
+            None,
+        ]
+        assert [e["values"]["doc"] for e in events] == [None, None, None, None, {"a": None}]
+        assert events[1]["changed"] == ["doc"]
+        # a line without a JSON null is the envelope as before: json_nulls is no member of it
+        assert list(events[3]) == [
+            "table", "action", "key", "position", "committed_at", "values", "prior", "changed", "origin"
+        ]  # fmt: skip
+    expected = [(1, None, "null"), (2, "null", "text"), (3, None, "null"), (4, '{"a":null}', "text")]
+    url = f"sqlite:///{tmp_path / 'w.db'}"
+    _apply(landing, mdir, url)
+    lite = sqlite3.connect(tmp_path / "w.db")
+    assert lite.execute('SELECT id, doc, typeof(doc) FROM "lab.notes" ORDER BY id').fetchall() == expected
+    lite.close()
+    duck_url = f"duckdb:///{tmp_path / 'w.duckdb'}"
+    _apply(landing, mdir, duck_url)
+    duck = duckdb.connect(str(tmp_path / "w.duckdb"), read_only=True)
+    got = duck.execute("SELECT id, CAST(doc AS VARCHAR), doc IS NULL FROM lab.notes ORDER BY id").fetchall()
+    assert got == [(1, None, True), (2, "null", False), (3, None, True), (4, '{"a":null}', False)]
+    duck.close()
+    _snapshot(landing, mdir, tmp_path / "csv", "--format", "csv", "--quiet")
+    # RFC 4180 as Python's csv module reads it: NULL is an empty field, the JSON null its text
+    assert (tmp_path / "csv" / "lab.notes.csv").read_text().splitlines()[1:3] == [
+        "1,,00000000000000000002.2",
+        "2,null,00000000000000000003.0",
+    ]
+    capsys.readouterr()
+    assert (
+        cli(
+            "snapshot",
+            str(landing),
+            "--mappings",
+            str(mdir),
+            "--out",
+            str(tmp_path / "j"),
+            "--format",
+            "jsonl",
+        )
+        == 0
+    )
+    err = capsys.readouterr().err
+    assert (
+        "note: lab.notes: the JSON value null (doc in 1 row) is written null in the JSON Lines state" in err
+    )
+
+
+POSITION_FIELD = (
+    "table: lab.crew\nfiles: [crew.csv]\nkey: [id]\n"
+    "change:\n  action: {column: op, codes: {I: insert}}\n  position: {column: pos, kind: integer}\n"
+    "fields:\n  id: integer\n  {name}: text\n"
+)
+
+
+@pytest.mark.parametrize("name", ["position", "Position"])
+def test_a_field_named_position_keeps_its_values_in_the_state(
+    tmp_path: Path, name: str, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """A state file adds each row's event position as a column: a field of that name (names that
+    differ only in case are one to the engine and the targets) kept it, and the event position went
+    to the engine's renamed column. Before, the Parquet state's position_1 held the field's values
+    (the positions were lost without a word) and the JSON Lines state ended in a traceback. Now the
+    position column is cdcnorm_position, as in apply's tables, with a note."""
+    import pyarrow.parquet as pq
+
+    mdir = _mappings(tmp_path, POSITION_FIELD.replace("{name}", name))
+    (tmp_path / "in").mkdir()
+    (tmp_path / "in" / "crew.csv").write_text(f"op,pos,id,{name}\nI,7,1,deckhand\nI,9,2,master\n")
+    landing = tmp_path / "landing"
+    assert (
+        cli("convert", str(tmp_path / "in"), "--mappings", str(mdir), "--out", str(landing), "--quiet") == 0
+    )
+    capsys.readouterr()
+    for fmt in ("parquet", "csv", "jsonl"):
+        _snapshot(landing, mdir, tmp_path / fmt, "--format", fmt)
+        assert "each row's event position is in the column cdcnorm_position" in capsys.readouterr().err
+    positions = ["00000000000000000007.0", "00000000000000000009.0"]
+    table = pq.read_table(tmp_path / "parquet" / "lab.crew.parquet")
+    assert table.column_names == ["id", name, "cdcnorm_position"]
+    assert table.column(name).to_pylist() == ["deckhand", "master"]
+    assert table.column("cdcnorm_position").to_pylist() == positions
+    import csv
+
+    with open(tmp_path / "csv" / "lab.crew.csv", newline="") as f:  # RFC 4180: Python's csv module
+        assert [r[name] for r in csv.DictReader(f)] == ["deckhand", "master"]
+    lines = [json.loads(x) for x in (tmp_path / "jsonl" / "lab.crew.jsonl").read_text().splitlines()]
+    assert lines[0] == {"id": 1, name: "deckhand", "cdcnorm_position": positions[0]}
+
+
+def test_fields_named_both_position_columns_are_refused_before_anything_is_written(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    mdir = _mappings(tmp_path, POSITION_FIELD.replace("{name}", "position") + "  cdcnorm_position: text\n")
+    (tmp_path / "in").mkdir()
+    (tmp_path / "in" / "crew.csv").write_text("op,pos,id,position,cdcnorm_position\nI,7,1,a,b\n")
+    landing = tmp_path / "landing"
+    assert (
+        cli("convert", str(tmp_path / "in"), "--mappings", str(mdir), "--out", str(landing), "--quiet") == 0
+    )
+    capsys.readouterr()
+    code = cli("snapshot", str(landing), "--mappings", str(mdir), "--out", str(tmp_path / "s"))
+    err = capsys.readouterr().err
+    assert code == 3, err
+    assert (
+        "fields position and cdcnorm_position of lab.crew have the names of the column a state file adds"
+        in err
+    )
+    assert "t.yaml:10" in err and "cdcnorm_position_1: {from:" in err
+    assert not (tmp_path / "s").exists()

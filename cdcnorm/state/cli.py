@@ -129,6 +129,8 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
     check_landing(landing)
     mappings = load_mappings(Path(args.mappings))
     chosen = chosen_mappings(mappings, args.table)
+    for m in chosen:  # before any work: fields named as the state's position column are refused
+        snapshot.position_column(m)
     folder = Path(args.out)
     writable_folder(folder)  # before any work: a file there, or no right to write, is exit 4
     rows: list[dict[str, Any]] = []
@@ -150,6 +152,8 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
             progress(f"{m.table}: compact", i, len(chosen))
             state = snapshot.compact(engine, events, as_of)
             unplaced = snapshot.left_out(engine, events, as_of)
+            moved = snapshot.position_note(m)
+            ambiguous = snapshot.json_null_note(engine, events, state) if args.fmt == "jsonl" else None
             path = folder / (path_part(m.table) + snapshot.FORMATS[args.fmt])
             progress(f"{m.table}: write {path.name}", i, len(chosen))
             n = snapshot.write_snapshot(engine, events, state, path, args.fmt)
@@ -160,7 +164,12 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
                     "event_files": len(files),
                     "as_of": as_of.label,
                     "file": str(path),
-                    "notes": [*events.notes, *([unplaced] if unplaced else [])],
+                    "notes": [
+                        *events.notes,
+                        *([unplaced] if unplaced else []),
+                        *([moved] if moved else []),
+                        *([ambiguous] if ambiguous else []),
+                    ],
                 }
             )
             engine.drop(state)

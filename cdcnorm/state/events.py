@@ -42,6 +42,7 @@ from cdcnorm.names import path_part
 from cdcnorm.readers.base import MAX_RECORD_BYTES
 from cdcnorm.sql import ident, lit
 from cdcnorm.types import FieldType, resolve
+from cdcnorm.writers.base import JSON_NULLS
 
 #: The fields a run's events were written under: (name, value type) in the mapping's order.
 Written = tuple[tuple[str, str], ...]
@@ -258,16 +259,23 @@ def _tokens_kept(mapping: LoadedMapping, paths: str, types: dict[str, FieldType]
         '{"action": "VARCHAR", "position": "VARCHAR", "committed_at": "VARCHAR"'
         + (f', "key": {struct(key)}' if key else "")
         + (f', "values": {struct(list(types))}' if types else "")
+        + f', "{JSON_NULLS}": {{"values": "VARCHAR[]"}}'
         + "}"
     )
+    # a json field holding the JSON null is written null, as no value is: the event's json_nulls
+    # member names it (see writers/base.py)
+    json_null = f"list_contains(struct_extract(struct_extract(e, {lit(JSON_NULLS)}), 'values'), {{}})"
 
     def typed(part: str, names: list[str]) -> str:
         whole = f"struct_extract(e, {lit(part)})"
-        members = ", ".join(
-            f"{ident(n)} := CAST({untag(f'CAST(struct_extract({whole}, {lit(n)}) AS VARCHAR)', tag)} "
-            f"AS {types[n].form_type})"
-            for n in names
-        )
+
+        def member(n: str) -> str:
+            value = f"CAST({untag(f'CAST(struct_extract({whole}, {lit(n)}) AS VARCHAR)', tag)} AS {types[n].form_type})"
+            if part == "values" and types[n].name == "json":
+                return f"CASE WHEN {json_null.format(lit(n))} THEN CAST('null' AS JSON) ELSE {value} END"
+            return value
+
+        members = ", ".join(f"{ident(n)} := {member(n)}" for n in names)
         return f", CASE WHEN {whole} IS NULL THEN NULL ELSE struct_pack({members}) END AS {ident(part)}"
 
     lines = (

@@ -11,13 +11,14 @@ by key: the same events give the same bytes.
 
 from __future__ import annotations
 
+import json
 import re
 from dataclasses import dataclass
 from pathlib import Path
 
 from cdcnorm import positions
 from cdcnorm.engines.duckdb import DuckDBEngine
-from cdcnorm.errors import InputError, UsageError, counted
+from cdcnorm.errors import InputError, MappingError, UsageError, counted
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.sql import ident, lit
 from cdcnorm.state.events import Events
@@ -189,6 +190,63 @@ def compact(engine: DuckDBEngine, events: Events, as_of: AsOf = AsOf(), relation
     return relation
 
 
+#: The column of a state file that holds each row's event position; ``FALLBACK_POSITION`` when a
+#: field has its name (names compared ignoring case, as the engine and the targets compare them).
+POSITION = "position"
+FALLBACK_POSITION = "cdcnorm_position"
+
+
+def position_column(mapping: LoadedMapping) -> str:
+    """The name of the state's position column for this mapping: ``position``, or
+    ``cdcnorm_position`` when a field is named ``position`` (the column's name in apply's tables
+    too); a mapping with fields of both names is refused, naming the field."""
+    taken = {f.casefold(): f for f in mapping.mapping.fields}
+    if POSITION not in taken:
+        return POSITION
+    if FALLBACK_POSITION not in taken:
+        return FALLBACK_POSITION
+    field = taken[FALLBACK_POSITION]
+    raise MappingError(
+        f"fields {taken[POSITION]} and {field} of {mapping.table} have the names of the column a state "
+        "file adds to each row for its position",
+        file=str(mapping.path),
+        line=mapping.field_lines.get(field),
+        field=field,
+        expected=f"a mapping without one of the fields {POSITION} and {FALLBACK_POSITION}",
+        found=field,
+        hint="rename one of them, keeping its raw column with from: (e.g. "
+        f"{field}_1: {{from: {json.dumps(mapping.mapping.fields[field].from_ or field)}}})",
+    )
+
+
+def position_note(mapping: LoadedMapping) -> str | None:
+    """A note when the state's position column is not ``position``."""
+    column = position_column(mapping)
+    if column == POSITION:
+        return None
+    return f"a field is named {POSITION}: each row's event position is in the column {column}"
+
+
+def json_null_note(engine: DuckDBEngine, events: Events, relation: str) -> str | None:
+    """A note for a JSON Lines state whose json fields hold the JSON value ``null`` in some rows: a
+    line writes it ``null``, as it writes no value (the Parquet and CSV state keep them apart, and so
+    do the JSON Lines events, whose ``json_nulls`` member names such fields)."""
+    ftypes = list(events.mapping.field_types.items())
+    json_fields = [(i, name) for i, (name, t) in enumerate(ftypes) if t.name == "json"]
+    if not json_fields:
+        return None
+    counts = ", ".join(f"count(*) FILTER (WHERE CAST(v{i} AS VARCHAR) = 'null')" for i, _ in json_fields)
+    (found,) = engine.rows(f"SELECT {counts} FROM {ident(relation)}")
+    held = [(name, int(n)) for (_, name), n in zip(json_fields, found, strict=True) if n]
+    if not held:
+        return None
+    said = ", ".join(f"{name} in {counted(n, 'row')}" for name, n in held)
+    return (
+        f"the JSON value null ({said}) is written null in the JSON Lines state, as no value is; "
+        "the Parquet and CSV state keep them apart"
+    )
+
+
 def state_projection(
     events: Events, relation: str, *, render: bool, as_line: bool = False, as_text: bool = False
 ) -> str:
@@ -203,7 +261,7 @@ def state_projection(
         if raw is not None and ftype.name == "json":  # spliced in as written (see types/json.py)
             v = raw.placeholder(f"v{i}")
         cols.append((name, f"CAST({v} AS VARCHAR)" if as_text else v))
-    cols.append(("position", "__position"))
+    cols.append((position_column(events.mapping), "__position"))
     if raw is not None:
         select = f"{raw.line(cols)} AS line"
     else:

@@ -80,16 +80,62 @@ def project(
     """
     raw = RawJson() if as_line else None
     cols = envelope_columns(plan, render=render, raw=raw)
-    select = [f"{raw.line(cols)} AS line"] if raw is not None else [f"{e} AS {ident(n)}" for n, e in cols]
+    nulls = json_nulls(plan) if raw is not None else None
+    select = (
+        [f"{raw.line(cols)} AS line", *([f"{nulls} AS __json_nulls"] if nulls else [])]
+        if raw is not None
+        else [f"{e} AS {ident(n)}" for n, e in cols]
+    )
     if relation is not None:
         select = [x.replace("f.name", "__fname") for x in select]
-        return f"SELECT {', '.join(select)} FROM {relation}"
+        return _with_json_nulls(f"SELECT {', '.join(select)} FROM {relation}", nulls)
     source = f"FROM {plan.rel('events')} JOIN {files_relation} f ON f.id = __file"
     if not sort_keys:
         order = ", ".join(e for _, e in sort_columns(plan))
-        return f"SELECT {', '.join(select)} {source} ORDER BY {order}"
+        return _with_json_nulls(f"SELECT {', '.join(select)} {source} ORDER BY {order}", nulls)
     select += [f"{e} AS {n}" for n, e in sort_columns(plan)]
-    return f"SELECT {', '.join(select)} {source}"
+    keys = "".join(f", {n}" for n, _ in sort_columns(plan))
+    return _with_json_nulls(f"SELECT {', '.join(select)} {source}", nulls, keys)
+
+
+#: The envelope member a JSON Lines event has when a json field of its ``values`` or ``prior``
+#: holds the JSON value ``null``, which its line can only write as ``null``, as it writes no value.
+JSON_NULLS = "json_nulls"
+
+
+def json_nulls(plan: Plan) -> str | None:
+    """SQL: a JSON Lines event's ``json_nulls`` member as JSON text, ``{"values": [...], "prior":
+    [...]}`` (the json fields holding the JSON null in each), or NULL when no field does; None for
+    a table without json fields."""
+    names = plan.fields
+    types = plan.mapping.field_types
+    json_fields = [i for i, n in enumerate(names) if types[n].name == "json"]
+    if not json_fields:
+        return None
+
+    def held(prefix: str, when: str) -> str:
+        items = ", ".join(
+            f"CASE WHEN {when} AND CAST({prefix}{i} AS VARCHAR) = 'null' THEN {lit(names[i])} END"
+            for i in json_fields
+        )
+        return f"list_filter([{items}], lambda x: x IS NOT NULL)"
+
+    values, prior = held("v", "__action = 'upsert'"), held("p", "__has_prior")
+    return (
+        f"CASE WHEN len({values}) + len({prior}) > 0 "
+        f"THEN CAST(to_json({{'values': {values}, 'prior': {prior}}}) AS VARCHAR) END"
+    )
+
+
+def _with_json_nulls(sql: str, nulls: str | None, keys: str = "") -> str:
+    """The lines of ``sql`` with the ``json_nulls`` member added as their last member where they
+    need it (every other line stays as it was); the order of the rows is ``sql``'s."""
+    if nulls is None:
+        return sql
+    return (
+        f"SELECT CASE WHEN __json_nulls IS NULL THEN line ELSE substr(line, 1, length(line) - 1) || "
+        f"',\"{JSON_NULLS}\":' || __json_nulls || '}}' END AS line{keys} FROM ({sql})"
+    )
 
 
 def write_events(

@@ -377,6 +377,8 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
     for src in raw.files:
         if not src.columns_known:
             continue
+        # a quarantine line's _cdcnorm member (fed back as JSON Lines) is no raw column
+        meta = quarantine.meta_column(src.columns) if src.format == "jsonl" else None
         spare = [c for c in src.columns if c not in wanted] + src.members
         for col in wanted:
             if col not in src.columns and col in single:
@@ -396,7 +398,7 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
         unmapped[src.name] = [
             c
             for c in src.columns
-            if c not in wanted and c not in read_through and not c.startswith(quarantine.META_KEY)
+            if c not in wanted and c not in read_through and not quarantine.in_meta(c, meta)
         ] + [c for c in src.members if c not in wanted and c.split(".")[0] in read_from]
     return drift, unmapped
 
@@ -433,7 +435,7 @@ def compile_table(
         raw.internal(c)  # a mapped column no file has still has a name (its values are NULL)
     plan = Plan(
         mapping=mapping,
-        sources=tuple(Source(f.file_id, f.name, tuple(f.columns), f.encoding) for f in raw.files),
+        sources=tuple(Source(f.file_id, f.name, tuple(f.columns), f.encoding, f.format) for f in raw.files),
         relations=tuple(RawRelation(name, tuple(cols)) for name, cols in raw.relations),
         internal={c: raw.internal(c) for c in raw.columns},
         malformed=raw.malformed_relation if any(f.malformed for f in raw.files) else None,

@@ -35,6 +35,7 @@ class Source:
     name: str
     columns: tuple[str, ...]
     encoding: str = "UTF-8"  # the codec its text was read with
+    format: str = ""  # the reader's name: csv, jsonl, parquet
 
 
 @dataclass(frozen=True)

@@ -1,8 +1,9 @@
 """The quarantine: every rejected row, with its raw values exactly as read and every reason.
 
 One JSON object per line in ``<out>/quarantine/<table>.jsonl``: the row's raw
-columns as they were read (text, or null for NULL), plus one reserved key,
-``_cdcnorm``, with the table, origin file and row, the reasons (field, raw
+columns as they were read (text, or null for NULL), plus one member,
+``_cdcnorm`` (``__cdcnorm`` for a row with a raw column ``_cdcnorm``: see
+``meta_key``; no column name is reserved), with the table, origin file and row, the reasons (field, raw
 column, expected, found, reason), and for cells that were not UTF-8 their
 bytes in base64. Because the raw columns stand at the top level, a fixed
 quarantine file is itself a JSON Lines dump: ``cdcnorm convert`` reads it back
@@ -11,11 +12,44 @@ quarantine file is itself a JSON Lines dump: ``cdcnorm convert`` reads it back
 
 from __future__ import annotations
 
+import re
+from collections.abc import Iterable
+
 from cdcnorm.plan import Lookup, Plan
 from cdcnorm.sql import ident, lit
 from cdcnorm.stages.order import position_text
 
 META_KEY = "_cdcnorm"
+_META_NAME = re.compile(r"_+cdcnorm")
+
+
+def _longest(names: Iterable[str]) -> str | None:
+    shaped = [n for n in names if _META_NAME.fullmatch(n)]
+    return max(shaped, key=len) if shaped else None
+
+
+def meta_column(columns: Iterable[str]) -> str | None:
+    """The member of a JSON Lines file that is a quarantine line's ``_cdcnorm`` object, not raw
+    columns: of the objects the reader flattened (``_cdcnorm.reasons``, ...) whose names are made
+    of underscores and ``cdcnorm``, the one with the most underscores (see ``meta_key``); None when
+    there is none. A member of that name that is no object (a string, say) is the dump's own."""
+    return _longest(c.split(".", 1)[0] for c in columns if "." in c)
+
+
+def meta_key(columns: Iterable[str]) -> str:
+    """The name of the ``_cdcnorm`` member in the quarantine lines of rows whose raw columns are
+    ``columns``: ``_cdcnorm``, with one underscore more than the longest raw column of that shape
+    (a dump column named ``_cdcnorm`` is kept, under its name), so that ``meta_column`` tells it
+    apart when the file is read back."""
+    taken = _longest(c.split(".", 1)[0] for c in columns)
+    return "_" + taken if taken else META_KEY
+
+
+def in_meta(column: str, meta: str | None) -> bool:
+    """The column is the ``_cdcnorm`` member ``meta`` or one of its members (a JSON Lines reader
+    flattens an object into a column per member: ``_cdcnorm.reasons``)."""
+    return meta is not None and (column == meta or column.startswith(meta + "."))
+
 
 _NO_REASONS = (
     'CAST([] AS STRUCT(field VARCHAR, "column" VARCHAR, expected VARCHAR, found VARCHAR, reason VARCHAR)[])'
@@ -96,11 +130,12 @@ def raw_rows(plan: Plan, wanted: str, lookup: Lookup | None = None) -> str:
     union = plan.raw_union(internal, wanted, lookup)
     by_columns: dict[tuple[str, ...], list[int]] = {}
     for src in plan.sources:
-        by_columns.setdefault(src.columns, []).append(src.file_id)
+        # the _cdcnorm member of a quarantine line fed back is not a raw column of the row; in a
+        # CSV or Parquet dump a column of that name is one
+        meta = meta_column(src.columns) if src.format == "jsonl" else None
+        by_columns.setdefault(tuple(c for c in src.columns if not in_meta(c, meta)), []).append(src.file_id)
     parts = []
-    for all_columns, ids in by_columns.items():
-        # the _cdcnorm member of a quarantine line fed back is not a raw column of the row
-        columns = tuple(c for c in all_columns if not c.startswith(META_KEY))
+    for columns, ids in by_columns.items():
         # json_object, not a struct: a struct's member names are case-insensitive, and a header may
         # hold both "name" and "Name"
         raw = (
@@ -109,14 +144,25 @@ def raw_rows(plan: Plan, wanted: str, lookup: Lookup | None = None) -> str:
             else "'{}'"
         )
         parts.append(
-            f"SELECT s.__file, s.__row, s.__enc, CAST({raw} AS VARCHAR) AS raw FROM ({union}) s "
-            f"WHERE s.__file IN ({', '.join(str(i) for i in ids)})"
+            f"SELECT s.__file, s.__row, s.__enc, CAST({raw} AS VARCHAR) AS raw, {lit(meta_key(columns))} AS meta "
+            f"FROM ({union}) s WHERE s.__file IN ({', '.join(str(i) for i in ids)})"
         )
     parts.append(
-        f"SELECT c.__file, c.__row, CAST(NULL AS VARCHAR) AS __enc, c.__raw AS raw FROM {plan.rel('carried')} c "
+        f"SELECT c.__file, c.__row, CAST(NULL AS VARCHAR) AS __enc, c.__raw AS raw, "
+        f"{_carried_meta_key('c.__raw')} AS meta FROM {plan.rel('carried')} c "
         f"SEMI JOIN {wanted} q ON c.__file = q.__file AND c.__row = q.__row"
     )
     return " UNION ALL ".join(parts)
+
+
+def _carried_meta_key(raw: str) -> str:
+    """SQL: ``meta_key`` of the raw columns of a carried row (``raw``, their JSON object)."""
+    tops = f"list_transform(json_keys({raw}), lambda k: split_part(k, '.', 1))"
+    taken = f"list_filter({tops}, lambda k: regexp_full_match(k, '{_META_NAME.pattern}'))"
+    return (
+        f"CASE WHEN len({taken}) > 0 THEN repeat('_', list_max(list_transform({taken}, lambda k: length(k))) - 6) "
+        f"|| 'cdcnorm' ELSE {lit(META_KEY)} END"
+    )
 
 
 def quarantine_lines(
@@ -129,9 +175,10 @@ def quarantine_lines(
         f"to_json({{'table': {lit(plan.mapping.table)}, 'file': f.name, 'row': r.__row, "
         f"'reasons': r.reasons, 'text': r.text, 'raw_base64': CAST(s.__enc AS JSON)}})"
     )
+    # the member's name is _cdcnorm unless a raw column of the row has it (meta_key)
     line = (
-        f"'{{\"{META_KEY}\":' || {meta} || CASE WHEN s.raw IS NULL OR s.raw = '{{}}' THEN '}}' "
-        "ELSE ',' || substr(s.raw, 2) END"
+        f"'{{' || to_json(coalesce(s.meta, {lit(META_KEY)})) || ':' || {meta} || "
+        "CASE WHEN s.raw IS NULL OR s.raw = '{}' THEN '}' ELSE ',' || substr(s.raw, 2) END"
     )
     return (
         f"SELECT line FROM (SELECT f.name AS __name, r.__row, {line} AS line FROM {rejected} r "

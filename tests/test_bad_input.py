@@ -722,3 +722,66 @@ def test_a_damaged_commit_journal_is_named_and_nothing_outside_the_area_is_touch
     assert (precious / "keep.txt").read_text() == "kept" and not (tmp_path / "escaped").exists()
     (out / ".cdcnorm" / "journal.json").unlink()  # as the hint says: then the next run goes on
     assert cli(*args) == 0
+
+
+@pytest.mark.parametrize("fmt", ["csv", "parquet", "jsonl"])
+def test_dump_columns_named_like_the_quarantine_member_are_kept_and_noted(
+    tmp_path: Path, fmt: str, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """A dump column named _cdcnorm, or starting so, is the dump's own: before, every such column
+    was taken for the quarantine line's member, so its value was dropped from the quarantined row
+    (the member took its name) and a column no field read got no note. Now only a JSON Lines
+    file's member of that shape is the quarantine's; a row holding a column _cdcnorm gets its
+    member as __cdcnorm, and that file fed back reads the same row again, bytes that were not UTF-8
+    included (RFC 4648 base64 is the oracle for them)."""
+    import base64
+
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    (tmp_path / "m").mkdir()
+    (tmp_path / "m" / "t.yaml").write_text(NOTES.replace("TYPE", "integer") + "  _cdcnorm: text\n")
+    (tmp_path / "in").mkdir()
+    header = ["op", "pos", "id", "a", "_cdcnorm", "_cdcnorm_batch"]
+    rows = [["I", "1", "1", "x", "hello", "b7"], ["I", "2", "2", "3", "ok", "b7"]]
+    if fmt == "csv":
+        text = "\n".join(",".join(r) for r in [header, *rows]).encode() + b"\nI,3,3,y,caf\xe9,b7\n"
+        (tmp_path / "in" / "n.csv").write_bytes(text)
+    elif fmt == "parquet":
+        pq.write_table(
+            pa.table({h: [r[i] for r in rows] for i, h in enumerate(header)}), tmp_path / "in" / "n.parquet"
+        )
+    else:
+        lines = [json.dumps(dict(zip(header, r, strict=True))) for r in rows]
+        (tmp_path / "in" / "n.jsonl").write_text("\n".join(lines) + "\n")
+    landing = tmp_path / "landing"
+    args = ["--mappings", str(tmp_path / "m"), "--out", str(landing)]
+    assert cli("convert", str(tmp_path / "in"), *args) == 0
+    said = capsys.readouterr()
+    assert "raw column _cdcnorm_batch read by no field of t.notes" in said.out + said.err
+    (first,) = (landing / "quarantine" / "t.notes").glob("*.jsonl")
+    q = [json.loads(x) for x in first.read_text().splitlines()]
+    assert q[0]["__cdcnorm"]["reasons"][0]["field"] == "a"
+    assert {k: q[0][k] for k in header} == dict(zip(header, rows[0], strict=True))
+    assert "_cdcnorm" not in q[0]["__cdcnorm"]
+    if fmt == "csv":
+        assert q[1]["_cdcnorm"] is None
+        assert base64.b64decode(q[1]["__cdcnorm"]["raw_base64"]["_cdcnorm"]) == b"caf\xe9"
+    # fed back unedited: the same rows quarantined again, every column kept
+    assert cli("convert", str(first), *args, "--quiet") == 0
+    (again,) = [p for p in (landing / "quarantine" / "t.notes").glob("*.jsonl") if p != first]
+    q2 = [json.loads(x) for x in again.read_text().splitlines()]
+    assert [{k: r[k] for k in header} for r in q2] == [{k: r[k] for k in header} for r in q]
+    assert [r["__cdcnorm"]["raw_base64"] for r in q2] == [r["__cdcnorm"]["raw_base64"] for r in q]
+    # fixed: the values set, the rows load with the column's values
+    fixed = first.read_text().replace('"a":"x"', '"a":"5"').replace('"a":"y"', '"a":"6"')
+    fixed = fixed.replace('"_cdcnorm":null', '"_cdcnorm":"café"')
+    (tmp_path / "fix").mkdir()
+    (tmp_path / "fix" / "t.notes.jsonl").write_text(fixed, encoding="utf-8")
+    assert cli("convert", str(tmp_path / "fix"), *args, "--quiet") == 0
+    values = sorted(
+        (e["values"]["id"], e["values"]["_cdcnorm"])
+        for p in (landing / "events" / "t.notes").glob("*.jsonl")
+        for e in map(json.loads, p.read_text().splitlines())
+    )
+    assert values == [(1, "hello"), (2, "ok"), *([(3, "café")] if fmt == "csv" else [])]

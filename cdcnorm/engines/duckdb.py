@@ -864,12 +864,18 @@ class DuckDBEngine:
         }
 
     def json_columns(
-        self, table: str, ok: str, paths: list[tuple[str, str, list[int] | None]], nulls: list[str]
+        self,
+        table: str,
+        ok: str,
+        paths: list[tuple[str, str, list[int] | None]],
+        nulls: list[str],
+        meta: dict[int, str] | None = None,
     ) -> None:
         """JSON objects -> one text column per (JSON path, internal name, the ids of the files
         that have the column, or None for every file: another file's rows have no value in it);
-        a string equal to a null token is NULL; objects and arrays stay JSON text."""
-        from cdcnorm.types.json import untag
+        a string equal to a null token is NULL; objects and arrays stay JSON text. ``meta``: the
+        quarantine's ``_cdcnorm`` member of each file that has one (file id -> its name)."""
+        from cdcnorm.types.json import json_path, untag
 
         # every path in one extraction (the object is parsed once, not once per column)
         listed = "[" + ", ".join(lit(path) for path, _, _ in paths) + "]"
@@ -885,7 +891,11 @@ class DuckDBEngine:
         # _cdcnorm.raw_base64, the cell itself null: while it is still null (not fixed), the cell
         # is again not UTF-8, with the same bytes, so the row is quarantined again, not loaded as NULL.
         # Only those (few) objects are looked at: the subquery would otherwise run for every row.
-        rb = "json_extract(j, '$._cdcnorm.raw_base64')"
+        by_file = " ".join(
+            f"WHEN {i} THEN json_extract(j, {lit(json_path((name, 'raw_base64')))})"
+            for i, name in (meta or {}).items()
+        )
+        rb = f"CASE __file {by_file} END" if by_file else "CAST(NULL AS JSON)"
         enc = (
             f"SELECT __file, __row, (SELECT CASE WHEN count(*) > 0 THEN "
             f"CAST(to_json(map(list(k), list(json_extract_string({rb}, k)))) AS VARCHAR) END "

@@ -22,6 +22,7 @@ import pyarrow as pa
 from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.errors import InputError
 from cdcnorm.mapping.model import Mapping
+from cdcnorm.quarantine import meta_column
 from cdcnorm.readers import streams
 from cdcnorm.readers.base import MAX_RECORD_BYTES, RawFile, RawTable
 from cdcnorm.sql import ident
@@ -192,6 +193,7 @@ def _read(files: list[RawFile], mapping: Mapping, engine: DuckDBEngine, raw: Raw
         ok,
         [(path, col, None if len(having) == every else having) for col, (path, having) in read.items()],
         tokens,
+        {f.file_id: name for f in files if (name := meta_column(f.columns))},
     )
     engine.drop(ok)
     raw.add_relation(rel, list(read))

@@ -161,6 +161,68 @@ def test_a_misspelt_name_in_any_clause_is_reported_where_the_engine_refuses_it(t
     assert {d.model for d in project.diagnostics} == refused
 
 
+#: what only the engine's binding sees: struct members, a function's arguments (each refused one
+#: next to the same query written right)
+ENGINE_ONLY = [
+    "SELECT s.b AS b FROM (SELECT {'a': id} AS s FROM shop.orders) t",
+    "SELECT s.a AS a FROM (SELECT {'a': id} AS s FROM shop.orders) t",
+    "SELECT t.s.amout AS x FROM (SELECT {'amount': amount, 'id': id} AS s FROM shop.orders) t",
+    "SELECT t.s.amount AS x FROM (SELECT {'amount': amount, 'id': id} AS s FROM shop.orders) t",
+    "SELECT struct_extract(s, 'idd') AS x FROM (SELECT {'id': id} AS s FROM shop.orders) t",
+    "SELECT struct_extract(s, 'id') AS x FROM (SELECT {'id': id} AS s FROM shop.orders) t",
+    "SELECT round(amount, 'x', 3) AS r FROM shop.orders",
+    "SELECT round(amount, 1) AS r FROM shop.orders",
+]
+
+
+def test_what_only_the_engine_refuses_makes_the_answer_incomplete(tmp_path: Path) -> None:
+    """DuckDB as the oracle: a model it refuses to bind for what the graph does not follow (a
+    struct's members, a function's arguments) is reported, and a trace through it is incomplete.
+    Before, a misspelt struct member was traced as complete."""
+    refused = _refused_by_duckdb(ENGINE_ONLY)
+    assert refused == {"m0", "m2", "m4", "m6"}  # the oracle refuses every misspelt one
+    project = project_from(tmp_path, {f"m{i}.sql": sql for i, sql in enumerate(ENGINE_ONLY)}, CASES["schema"])
+    assert {d.model for d in project.diagnostics} == refused
+    assert {d.reason for d in project.diagnostics} == {"refused by the engine"}
+    (m2,) = [d for d in project.diagnostics if d.model == "m2"]
+    assert 'Could not find key "amout" in struct' in m2.reference
+    assert not trace(project, "m2.x")["complete"]
+    assert trace(project, "m3.x")["complete"]
+
+
+#: columns without an alias that are no plain column: the engine names them by their text as it
+#: prints the expression, which no rule of thumb gives (CAST(... AS INTEGER) for ::INT, count() OVER () for count(*) OVER ())
+UNALIASED = (
+    "SELECT o.id, CAST(o.amount AS INT), o.amount::TEXT, o.amount + 1, upper(o.status), "
+    "count(*) OVER (), sum(o.amount) OVER (PARTITION BY o.customer_id), o.status IS NULL, "
+    "coalesce(o.customer_id, 0), -o.id FROM shop.orders o"
+)
+
+
+def test_columns_without_an_alias_are_named_as_the_engine_names_them(tmp_path: Path) -> None:
+    """DuckDB as the oracle: the columns of a view over expressions without an alias get the
+    engine's names, and a model reading one by that name resolves; before, they had sqlglot's
+    (amount for amount::TEXT, _col_3 for amount + 1), so a model reading the engine's name was
+    reported not in schema, and one reading amount was traced though the engine refuses it."""
+    con = _cases_schema_in_duckdb()
+    con.execute(f"CREATE VIEW wide AS {UNALIASED}")
+    described = [r[0] for r in con.execute("DESCRIBE wide").fetchall()]
+    assert described[1:4] == ["CAST(o.amount AS INTEGER)", "CAST(o.amount AS TEXT)", "(o.amount + 1)"]
+    reader = 'SELECT w."CAST(o.amount AS INTEGER)" AS whole, w."count() OVER ()" AS n FROM wide w'
+    wrong = "SELECT w.amount AS a FROM wide w"
+    con.execute(f"CREATE VIEW reader AS {reader}")
+    with pytest.raises(Exception, match="amount"):
+        con.execute(f"CREATE VIEW wrong AS {wrong}")
+    project = project_from(
+        tmp_path, {"wide.sql": f"CREATE VIEW wide AS {UNALIASED}", "reader.sql": reader, "wrong.sql": wrong},
+        CASES["schema"],
+    )  # fmt: skip
+    assert project.models["wide"].columns == described
+    assert [d.model for d in project.diagnostics] == ["wrong"]
+    whole = trace(project, "reader.whole")
+    assert whole["complete"] and whole["value"] == ["shop.orders.amount"]
+
+
 @pytest.mark.parametrize("case", CASES["cases"], ids=[c["name"] for c in CASES["cases"]])
 def test_model_columns_are_named_as_duckdb_names_the_views_columns(
     case: dict[str, Any], tmp_path: Path

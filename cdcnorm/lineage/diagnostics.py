@@ -15,6 +15,7 @@ REASONS = (
     "cycle",
     "duplicate model",
     "inferred",
+    "refused by the engine",
 )
 #: Reasons that are notes, not gaps: the answer is complete, with an assumption it names.
 NOTES = ("inferred",)

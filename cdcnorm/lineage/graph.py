@@ -12,6 +12,8 @@ each model's output columns join the schema used to qualify the next.
 from __future__ import annotations
 
 from collections import defaultdict
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -19,6 +21,7 @@ from typing import Any
 import networkx as nx
 from sqlglot import exp
 
+from cdcnorm.lineage.binding import Binder
 from cdcnorm.lineage.diagnostics import Diagnostic
 from cdcnorm.lineage.models import LoadedModels, ModelStatement, load_models, paused_gc
 from cdcnorm.lineage.resolve import (
@@ -426,6 +429,39 @@ def resolve_model(
     return Resolved(columns, lines, merged, diagnostics, unknown_tables, inferred)
 
 
+@contextmanager
+def _closing(binder: Binder | None) -> Iterator[None]:
+    try:
+        yield
+    finally:
+        if binder is not None:
+            binder.close()
+
+
+def _engine_check(one: Resolved, st: ModelStatement, bound: list[str] | str | None, name: str) -> None:
+    """What the engine's binding of the model adds to its resolution: a refusal the resolver did not
+    see is a gap (``refused by the engine``), and a column without an alias that is no plain column
+    (``CAST(id AS INTEGER)``, ``sum(amount)``) takes the engine's name, the one readers must use."""
+    if bound is None or any(d.unresolved for d in one.diagnostics):
+        return
+    if isinstance(bound, str):
+        one.diagnostics.append(Diagnostic(st.file, st.line, name, "refused by the engine", bound))
+        return
+    selects = st.query.selects if isinstance(st.query, exp.Query) else []
+    if st.columns or len(bound) != len(one.columns) or len(selects) != len(bound):
+        return
+    renamed = {}
+    for old, new, proj in zip(one.columns, bound, selects, strict=True):
+        if old != new and not isinstance(proj, (exp.Alias, exp.Column, exp.Star)) and new not in one.columns:
+            renamed[old] = new
+    if not renamed:
+        return
+    one.columns[:] = [renamed.get(c, c) for c in one.columns]
+    for old, new in renamed.items():
+        one.lines[new] = one.lines.pop(old)
+        one.merged[new] = one.merged.pop(old)
+
+
 def _visible(name: str, columns: list[str], edits: dict[Node, Any] | None) -> list[str]:
     """The columns readers of the model see, with a simulated edit of one of them applied."""
     visible = list(columns)
@@ -572,46 +608,51 @@ def _build_project(
     models: dict[str, ModelInfo] = {}
     catalog.pending = set(parts_of.values())
     unknown_tables: set[str] = set()
-    for name in order:
-        sts = by_model[name]
-        one = resolve_model(name, sts, catalog, dialect, loaded.declared)
-        diagnostics.extend(one.diagnostics)
-        unknown_tables |= one.unknown_tables
-        for guess in one.inferred:
-            g.add_node(
-                guess, kind="source", table=guess[1], column=guess[2], origin="inferred", inferred=True
-            )
-        columns, lines, merged = one.columns, one.lines, one.merged
-        models[name] = ModelInfo(name, sorted({s.file for s in sts}), columns, lines)
-        visible = _visible(name, columns, edits)
-        catalog.add(declared_table("model", name, parts_of[name], visible, dialect, origin="model"))
-        catalog.pending.discard(parts_of[name])
-        file_of = sts[0].file
-        batch: list[tuple[Node, Node, str, dict[str, Any]]] = []  # added at once: far cheaper
-        for col in columns:
-            target: Node = ("model", name, col)
-            g.add_node(target, kind="model", table=name, column=col)
-            d = merged[col]
-            edges = [(src, "value", sub, "", d.lines.get(src)) for src, sub in d.value.items()]
-            edges += [
-                (src, "influence", "", ",".join(sorted(cs)), d.influence_lines.get(src))
-                for src, cs in d.influence.items()
-            ]
-            for src, kind, sub, clauses, at in edges:
-                if src == target:
-                    continue
-                if src not in g:
-                    g.add_node(src, kind=src[0], table=src[1], column=src[2])
-                line = at or lines[col]
-                batch.append(
-                    (
-                        src,
-                        target,
-                        kind,
-                        {"kind": kind, "sub": sub, "clauses": clauses, "file": file_of, "line": line},
-                    )
+    # the engine binds DuckDB's models as they are (a simulated edit is impact's binding check's)
+    binder = Binder(catalog.tables.values(), loaded.declared) if dialect == "duckdb" and not edits else None
+    with _closing(binder):
+        for name in order:
+            sts = by_model[name]
+            one = resolve_model(name, sts, catalog, dialect, loaded.declared)
+            if binder is not None and len(sts) == 1:
+                _engine_check(one, sts[0], binder.bind(sts[0]), name)
+            diagnostics.extend(one.diagnostics)
+            unknown_tables |= one.unknown_tables
+            for guess in one.inferred:
+                g.add_node(
+                    guess, kind="source", table=guess[1], column=guess[2], origin="inferred", inferred=True
                 )
-        g.add_edges_from(batch)
+            columns, lines, merged = one.columns, one.lines, one.merged
+            models[name] = ModelInfo(name, sorted({s.file for s in sts}), columns, lines)
+            visible = _visible(name, columns, edits)
+            catalog.add(declared_table("model", name, parts_of[name], visible, dialect, origin="model"))
+            catalog.pending.discard(parts_of[name])
+            file_of = sts[0].file
+            batch: list[tuple[Node, Node, str, dict[str, Any]]] = []  # added at once: far cheaper
+            for col in columns:
+                target: Node = ("model", name, col)
+                g.add_node(target, kind="model", table=name, column=col)
+                d = merged[col]
+                edges = [(src, "value", sub, "", d.lines.get(src)) for src, sub in d.value.items()]
+                edges += [
+                    (src, "influence", "", ",".join(sorted(cs)), d.influence_lines.get(src))
+                    for src, cs in d.influence.items()
+                ]
+                for src, kind, sub, clauses, at in edges:
+                    if src == target:
+                        continue
+                    if src not in g:
+                        g.add_node(src, kind=src[0], table=src[1], column=src[2])
+                    line = at or lines[col]
+                    batch.append(
+                        (
+                            src,
+                            target,
+                            kind,
+                            {"kind": kind, "sub": sub, "clauses": clauses, "file": file_of, "line": line},
+                        )
+                    )
+            g.add_edges_from(batch)
     # a table without a schema from which no column could be inferred is still drawn, as a placeholder
     drawn = {n[1] for n in g.nodes if n[0] == "source"}
     for t in sorted(unknown_tables - drawn):

@@ -298,3 +298,30 @@ def test_a_natural_join_that_shares_no_column_is_reported_as_the_engine_refuses_
         ("none", "unsupported")
     ]
     assert not any(d.reason == "unsupported" for d in project.diagnostics if d.model == "unknown")
+
+
+def test_the_engine_check_in_a_process_of_its_own_gives_the_same_answers(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """A large project's binder runs in a process beside the resolver: the same refusals, the same
+    names, as when it runs in the build's own process (forced here for a small project)."""
+    from cdcnorm.lineage import binding
+
+    models = {f"m{i}.sql": sql for i, sql in enumerate(ENGINE_ONLY)}
+    models["wide.sql"] = f"CREATE VIEW wide AS {UNALIASED}"
+    models["reader.sql"] = 'SELECT w."CAST(o.amount AS INTEGER)" AS whole FROM wide w'
+
+    def answers(folder: str) -> tuple[list[str], list[str], bool]:
+        project = project_from(tmp_path / folder, models, CASES["schema"])
+        return (
+            sorted(d.render() for d in project.diagnostics),
+            project.models["wide"].columns,
+            trace(project, "reader.whole")["complete"],
+        )
+
+    (tmp_path / "a").mkdir()
+    (tmp_path / "b").mkdir()
+    here = answers("a")
+    monkeypatch.setattr(binding, "PROCESS_MODELS", 0)
+    assert answers("b") == here
+    assert len(here[0]) == 4 and here[1][1] == "CAST(o.amount AS INTEGER)" and here[2]

@@ -21,7 +21,7 @@ from typing import Any
 import networkx as nx
 from sqlglot import exp
 
-from cdcnorm.lineage.binding import Binder
+from cdcnorm.lineage.binding import EngineCheck, tables_to_bind
 from cdcnorm.lineage.diagnostics import Diagnostic
 from cdcnorm.lineage.models import LoadedModels, ModelStatement, load_models, paused_gc
 from cdcnorm.lineage.resolve import (
@@ -429,8 +429,14 @@ def resolve_model(
     return Resolved(columns, lines, merged, diagnostics, unknown_tables, inferred)
 
 
+def _may_rename(st: ModelStatement) -> bool:
+    """The model has a column the engine names itself (no alias, no plain column)."""
+    selects = st.query.selects if isinstance(st.query, exp.Query) else []
+    return not st.columns and any(not isinstance(p, (exp.Alias, exp.Column, exp.Star)) for p in selects)
+
+
 @contextmanager
-def _closing(binder: Binder | None) -> Iterator[None]:
+def _closing(binder: EngineCheck | None) -> Iterator[None]:
     try:
         yield
     finally:
@@ -609,13 +615,24 @@ def _build_project(
     catalog.pending = set(parts_of.values())
     unknown_tables: set[str] = set()
     # the engine binds DuckDB's models as they are (a simulated edit is impact's binding check's)
-    binder = Binder(catalog.tables.values(), loaded.declared) if dialect == "duckdb" and not edits else None
+    binder = (
+        EngineCheck(tables_to_bind(catalog.tables.values(), loaded.declared), len(order))
+        if dialect == "duckdb" and not edits
+        else None
+    )
+    later: list[tuple[Resolved, ModelStatement, str]] = []  # checked when the build is done
     with _closing(binder):
         for name in order:
             sts = by_model[name]
+            bound = binder is not None and len(sts) == 1
+            if binder is not None and bound:
+                binder.submit(name, sts[0])
             one = resolve_model(name, sts, catalog, dialect, loaded.declared)
-            if binder is not None and len(sts) == 1:
-                _engine_check(one, sts[0], binder.bind(sts[0]), name)
+            if binder is not None and bound:
+                if _may_rename(sts[0]):  # its readers must see the engine's names
+                    _engine_check(one, sts[0], binder.result(name), name)
+                else:
+                    later.append((one, sts[0], name))
             diagnostics.extend(one.diagnostics)
             unknown_tables |= one.unknown_tables
             for guess in one.inferred:
@@ -653,6 +670,10 @@ def _build_project(
                         )
                     )
             g.add_edges_from(batch)
+        for one, st, name in later:
+            had = len(one.diagnostics)
+            _engine_check(one, st, binder.result(name) if binder is not None else None, name)
+            diagnostics.extend(one.diagnostics[had:])
     # a table without a schema from which no column could be inferred is still drawn, as a placeholder
     drawn = {n[1] for n in g.nodes if n[0] == "source"}
     for t in sorted(unknown_tables - drawn):

@@ -1254,19 +1254,7 @@ def test_the_json_null_and_no_value_stay_apart_in_every_format(
         "2,null,00000000000000000003.0",
     ]
     capsys.readouterr()
-    assert (
-        cli(
-            "snapshot",
-            str(landing),
-            "--mappings",
-            str(mdir),
-            "--out",
-            str(tmp_path / "j"),
-            "--format",
-            "jsonl",
-        )
-        == 0
-    )
+    _snapshot(landing, mdir, tmp_path / "j", "--format", "jsonl")
     err = capsys.readouterr().err
     assert (
         "note: lab.notes: the JSON value null (doc in 1 row) is written null in the JSON Lines state" in err
@@ -1335,3 +1323,24 @@ def test_fields_named_both_position_columns_are_refused_before_anything_is_writt
     )
     assert "t.yaml:10" in err and "cdcnorm_position_1: {from:" in err
     assert not (tmp_path / "s").exists()
+
+
+@pytest.mark.parametrize("name", ["cdcnorm_position", "cdcnorm_action"])
+def test_a_field_named_as_a_column_apply_adds_is_refused_before_anything_is_written(
+    tmp_path: Path, name: str, capsys: pytest.CaptureFixture[str]
+) -> None:
+    mdir = _mappings(tmp_path, POSITION_FIELD.replace("{name}", name))
+    (tmp_path / "in").mkdir()
+    (tmp_path / "in" / "crew.csv").write_text(f"op,pos,id,{name}\nI,7,1,a\n")
+    landing = tmp_path / "landing"
+    assert (
+        cli("convert", str(tmp_path / "in"), "--mappings", str(mdir), "--out", str(landing), "--quiet") == 0
+    )
+    capsys.readouterr()
+    db = tmp_path / "w.db"
+    code = cli("apply", str(landing), "--mappings", str(mdir), "--target", f"sqlite:///{db}")
+    err = capsys.readouterr().err
+    assert code == 3, err
+    assert f"field {name} of lab.crew has the name of a column apply adds to its table" in err
+    assert "t.yaml:9" in err and f'{name}_1: {{from: "{name}"}}' in err
+    assert not db.exists() or not sqlite3.connect(db).execute("SELECT name FROM sqlite_master").fetchall()

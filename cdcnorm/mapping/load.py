@@ -6,6 +6,7 @@ what was found, and suggest the closest valid key or type.
 
 from __future__ import annotations
 
+import json
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -30,6 +31,20 @@ class LoadedMapping:
     @property
     def table(self) -> str:
         return self.mapping.table
+
+    def name_taken(self, field: str, message: str, expected: str) -> MappingError:
+        """The error for a field whose name a column cdcnorm adds to an output needs (apply's
+        tables, the state files): file and line, and the rename that keeps its raw column."""
+        source = self.mapping.fields[field].from_ or field
+        return MappingError(
+            message,
+            file=str(self.path),
+            line=self.field_lines.get(field),
+            field=field,
+            expected=expected,
+            found=field,
+            hint=f"rename the field, keeping its raw column with from: (e.g. {field}_1: {{from: {json.dumps(source)}}})",
+        )
 
 
 def _lines(node: yaml.Node, path: tuple[Any, ...], out: dict[tuple[Any, ...], int]) -> None:

@@ -15,7 +15,6 @@ are those of a real apply and nothing changes.
 
 from __future__ import annotations
 
-import json
 import time
 from collections.abc import Callable
 from contextlib import AbstractContextManager, ExitStack, nullcontext
@@ -205,15 +204,10 @@ def placed(
         mine = id(lm) in chosen
         for added in (POSITION, ACTION):
             if mine and added in m.fields:
-                raise MappingError(
+                raise lm.name_taken(
+                    added,
                     f"field {added} of {m.table} has the name of a column apply adds to its table",
-                    file=str(lm.path),
-                    line=lm.field_lines.get(added),
-                    field=added,
-                    expected=f"field names other than {POSITION} and {ACTION}",
-                    found=added,
-                    hint="rename the field, keeping its raw column with from: (e.g. "
-                    f"{added}_1: {{from: {json.dumps(m.fields[added].from_ or added)}}})",
+                    f"field names other than {POSITION} and {ACTION}",
                 )
         try:
             spec = target.spec(m.table, schema, tuple(m.fields), tuple(m.key), lm.field_types)

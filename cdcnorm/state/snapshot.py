@@ -11,14 +11,13 @@ by key: the same events give the same bytes.
 
 from __future__ import annotations
 
-import json
 import re
 from dataclasses import dataclass
 from pathlib import Path
 
 from cdcnorm import positions
 from cdcnorm.engines.duckdb import DuckDBEngine
-from cdcnorm.errors import InputError, MappingError, UsageError, counted
+from cdcnorm.errors import InputError, UsageError, counted
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.sql import ident, lit
 from cdcnorm.state.events import Events
@@ -205,17 +204,11 @@ def position_column(mapping: LoadedMapping) -> str:
         return POSITION
     if FALLBACK_POSITION not in taken:
         return FALLBACK_POSITION
-    field = taken[FALLBACK_POSITION]
-    raise MappingError(
-        f"fields {taken[POSITION]} and {field} of {mapping.table} have the names of the column a state "
-        "file adds to each row for its position",
-        file=str(mapping.path),
-        line=mapping.field_lines.get(field),
-        field=field,
-        expected=f"a mapping without one of the fields {POSITION} and {FALLBACK_POSITION}",
-        found=field,
-        hint="rename one of them, keeping its raw column with from: (e.g. "
-        f"{field}_1: {{from: {json.dumps(mapping.mapping.fields[field].from_ or field)}}})",
+    raise mapping.name_taken(
+        taken[FALLBACK_POSITION],
+        f"fields {taken[POSITION]} and {taken[FALLBACK_POSITION]} of {mapping.table} have the names of "
+        "the column a state file adds to each row for its position",
+        f"a mapping without one of the fields {POSITION} and {FALLBACK_POSITION}",
     )
 
 

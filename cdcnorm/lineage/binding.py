@@ -224,17 +224,22 @@ class EngineCheck:
         self._results: dict[str, Bound] = {}
         self._local: Binder | None = None
         self._process: Any = None
+        self._lost = False
         if models < PROCESS_MODELS:
             self._local = Binder(tables)
             return
         ctx = multiprocessing.get_context("spawn")  # never fork a process holding the engine's threads
         jobs_in, self._jobs = ctx.Pipe(duplex=False)
         self._answers, answers_out = ctx.Pipe(duplex=False)
-        self._process = ctx.Process(target=_serve, args=(tables, jobs_in, answers_out), daemon=True)
-        self._process.start()
-        jobs_in.close()
-        answers_out.close()
-        self._lost = False
+        try:
+            self._process = ctx.Process(target=_serve, args=(tables, jobs_in, answers_out), daemon=True)
+            self._process.start()
+        except OSError:  # no process to be had (a limit on them): the binder works here
+            self._process = None
+            self._local = Binder(tables)
+        finally:
+            jobs_in.close()
+            answers_out.close()
 
     def submit(self, name: str, st: ModelStatement) -> None:
         job = job_of(st)
@@ -247,8 +252,10 @@ class EngineCheck:
             return
         try:
             self._jobs.send((name, job))
-        except OSError:
+        except OSError:  # the process ended
             self._lost = True
+            self._results[name] = None
+        except Exception:  # a query too deep to pickle, say: this model is not bound
             self._results[name] = None
 
     def result(self, name: str) -> Bound:
@@ -270,6 +277,7 @@ class EngineCheck:
     def close(self) -> None:
         if self._local is not None:
             self._local.close()
+        if self._process is None:
             return
         with contextlib.suppress(OSError):
             self._jobs.send(None)
@@ -281,9 +289,11 @@ class EngineCheck:
 
 
 def _serve(tables: list[TableSpec], jobs: Any, answers: Any) -> None:
-    """The binder's process: binds each model sent, in order, and sends back what the engine says."""
-    binder = Binder(tables)
+    """The binder's process: binds each model sent, in order, and sends back what the engine says.
+    Ctrl-C reaches it with the build's process: it ends without a word (the build says it)."""
+    binder: Binder | None = None
     try:
+        binder = Binder(tables)
         while (message := jobs.recv()) is not None:
             name, job = message
             try:
@@ -291,10 +301,11 @@ def _serve(tables: list[TableSpec], jobs: Any, answers: Any) -> None:
             except Exception:
                 bound = None
             answers.send((name, bound))
-    except (EOFError, KeyboardInterrupt):
+    except (EOFError, OSError, KeyboardInterrupt):
         pass
     finally:
-        binder.close()
+        if binder is not None:
+            binder.close()
 
 
 def _in_our_words(message: str) -> str:

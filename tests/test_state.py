@@ -1270,6 +1270,19 @@ POSITION_FIELD = (
 )
 
 
+def _crew(tmp_path: Path, name: str, rows: str) -> tuple[Path, Path]:
+    """A table lab.crew with a field ``name``, its dump (``rows`` after the header) converted: the
+    mappings folder and the landing area."""
+    mdir = _mappings(tmp_path, POSITION_FIELD.replace("{name}", name))
+    (tmp_path / "in").mkdir()
+    (tmp_path / "in" / "crew.csv").write_text(f"op,pos,id,{name}\n{rows}")
+    landing = tmp_path / "landing"
+    assert (
+        cli("convert", str(tmp_path / "in"), "--mappings", str(mdir), "--out", str(landing), "--quiet") == 0
+    )
+    return mdir, landing
+
+
 @pytest.mark.parametrize("name", ["position", "Position"])
 def test_a_field_named_position_keeps_its_values_in_the_state(
     tmp_path: Path, name: str, capsys: pytest.CaptureFixture[str]
@@ -1281,13 +1294,7 @@ def test_a_field_named_position_keeps_its_values_in_the_state(
     position column is cdcnorm_position, as in apply's tables, with a note."""
     import pyarrow.parquet as pq
 
-    mdir = _mappings(tmp_path, POSITION_FIELD.replace("{name}", name))
-    (tmp_path / "in").mkdir()
-    (tmp_path / "in" / "crew.csv").write_text(f"op,pos,id,{name}\nI,7,1,deckhand\nI,9,2,master\n")
-    landing = tmp_path / "landing"
-    assert (
-        cli("convert", str(tmp_path / "in"), "--mappings", str(mdir), "--out", str(landing), "--quiet") == 0
-    )
+    mdir, landing = _crew(tmp_path, name, "I,7,1,deckhand\nI,9,2,master\n")
     capsys.readouterr()
     for fmt in ("parquet", "csv", "jsonl"):
         _snapshot(landing, mdir, tmp_path / fmt, "--format", fmt)
@@ -1331,13 +1338,7 @@ def test_fields_named_both_position_columns_are_refused_before_anything_is_writt
 def test_a_field_named_as_a_column_apply_adds_is_refused_before_anything_is_written(
     tmp_path: Path, name: str, capsys: pytest.CaptureFixture[str]
 ) -> None:
-    mdir = _mappings(tmp_path, POSITION_FIELD.replace("{name}", name))
-    (tmp_path / "in").mkdir()
-    (tmp_path / "in" / "crew.csv").write_text(f"op,pos,id,{name}\nI,7,1,a\n")
-    landing = tmp_path / "landing"
-    assert (
-        cli("convert", str(tmp_path / "in"), "--mappings", str(mdir), "--out", str(landing), "--quiet") == 0
-    )
+    mdir, landing = _crew(tmp_path, name, "I,7,1,a\n")
     capsys.readouterr()
     db = tmp_path / "w.db"
     code = cli("apply", str(landing), "--mappings", str(mdir), "--target", f"sqlite:///{db}")

@@ -1409,3 +1409,45 @@ def test_json_lines_and_parquet_events_give_the_same_state(
                 for i, v in zip(table.column("id").to_pylist(), docs, strict=True)
             }
         assert got["jsonl"] == got["parquet"] == state
+
+
+@pytest.mark.parametrize(
+    ("option", "value", "said"),
+    [
+        ("--as-of", "16/B374D848", "--as-of '16/B374D848' is not a position of ferry.passengers"),
+        (
+            "--as-of-time",
+            "2026-03-01T08:05:10Z",
+            "the mapping of ferry.passengers has no change.committed_at",
+        ),
+    ],
+)
+def test_an_as_of_one_table_cannot_take_stops_snapshot_before_any_file_is_written(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], option: str, value: str, said: str
+) -> None:
+    """The demo's bookings take a hex-pair position and have commit times; its passengers have a
+    20-digit hex position and no commit time. Snapshot of every table with a bookings position, or
+    a time, was refused at the passengers (exit 2) after the bookings' state file was written: a
+    folder of some tables' state as of that point, beside an error."""
+    mdir = ROOT / "mappings"
+    landing = tmp_path / "landing"
+    assert (
+        cli(
+            "convert",
+            str(ROOT / "examples" / "dumps"),
+            "--mappings",
+            str(mdir),
+            "--out",
+            str(landing),
+            "--quiet",
+        )
+        == 0
+    )
+    capsys.readouterr()
+    out = tmp_path / "state"
+    assert cli("snapshot", str(landing), "--mappings", str(mdir), "--out", str(out), option, value) == 2
+    assert said in capsys.readouterr().err
+    assert not out.exists() or not any(out.iterdir())
+    # one table: its state as usual
+    _snapshot(landing, mdir, out, option, value, "--table", "ferry.bookings", "--quiet")
+    assert [p.name for p in out.iterdir()] == ["ferry.bookings.parquet"]

@@ -8,7 +8,7 @@ import os
 import sqlite3
 from collections.abc import Sequence
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from rich.console import Console
 from rich.table import Table
@@ -19,6 +19,10 @@ from cdcnorm.mapping import load_mappings
 from cdcnorm.mapping.load import LoadedMapping
 from cdcnorm.scratch import scratch_folder
 from cdcnorm.tables import print_table
+
+if TYPE_CHECKING:
+    from cdcnorm.engines.duckdb import DuckDBEngine
+    from cdcnorm.state.snapshot import AsOf
 
 #: Where ``apply`` finds its target when --target is not given (keeps a password off the command line).
 TARGET_ENV = "CDCNORM_TARGET"
@@ -118,6 +122,17 @@ def _warn_unmapped(err: Console, landing: Path, mappings: str, missing: list[str
         )
 
 
+def _as_of(engine: DuckDBEngine, m: LoadedMapping, args: argparse.Namespace) -> AsOf:
+    """The events of table ``m`` that ``--as-of`` or ``--as-of-time`` keeps (all without them)."""
+    from cdcnorm.state import snapshot
+
+    if args.as_of is not None:
+        return snapshot.as_of_position(engine, m, args.as_of)
+    if args.as_of_time is not None:
+        return snapshot.as_of_time(engine, m, args.as_of_time)
+    return snapshot.AsOf()
+
+
 def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
     from cdcnorm.cli import showing_progress
     from cdcnorm.engines.duckdb import engine_errors
@@ -140,15 +155,15 @@ def cmd_snapshot(args: argparse.Namespace, out: Console, err: Console) -> int:
         showing_progress(args.quiet or args.json) as progress,
     ):
         engine = _engine(args, scratch, chosen)
+        # every table's --as-of or --as-of-time before any file is written: one the value does not
+        # fit (a position of another kind, a table without commit times) stops the command with
+        # nothing written, not after the tables before it
+        as_ofs = {m.table: _as_of(engine, m, args) for m in chosen}
         for i, m in enumerate(chosen):
             files = event_files(landing, m.table)
             progress(f"{m.table}: read {counted(len(files), 'event file')}", i, len(chosen))
             events = load_events(engine, m, files)
-            as_of = snapshot.AsOf()
-            if args.as_of is not None:
-                as_of = snapshot.as_of_position(engine, m, args.as_of)
-            elif args.as_of_time is not None:
-                as_of = snapshot.as_of_time(engine, m, args.as_of_time)
+            as_of = as_ofs[m.table]
             progress(f"{m.table}: compact", i, len(chosen))
             state = snapshot.compact(engine, events, as_of)
             unplaced = snapshot.left_out(engine, events, as_of)

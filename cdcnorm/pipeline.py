@@ -377,8 +377,6 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
     for src in raw.files:
         if not src.columns_known:
             continue
-        # a quarantine line's _cdcnorm member (fed back as JSON Lines) is no raw column
-        meta = quarantine.meta_column(src.columns) if src.format == "jsonl" else None
         spare = [c for c in src.columns if c not in wanted] + src.members
         for col in wanted:
             if col not in src.columns and col in single:
@@ -395,10 +393,11 @@ def find_drift(mapping: LoadedMapping, raw: RawTable) -> tuple[list[Drift], dict
                 drift.append(Drift(src.name, m.table, name, has[0], None, tuple(has), several=True))
         # a struct read through (Parquet ``after`` for ``after.id``): its members no field reads
         read_from = {keys[0] for keys in m.read_through()}
+        # a quarantine line's _cdcnorm member (fed back as JSON Lines) is no raw column
         unmapped[src.name] = [
             c
-            for c in src.columns
-            if c not in wanted and c not in read_through and not quarantine.in_meta(c, meta)
+            for c in quarantine.dump_columns(src.columns, src.format)
+            if c not in wanted and c not in read_through
         ] + [c for c in src.members if c not in wanted and c.split(".")[0] in read_from]
     return drift, unmapped
 

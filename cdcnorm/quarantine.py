@@ -45,10 +45,16 @@ def meta_key(columns: Iterable[str]) -> str:
     return "_" + taken if taken else META_KEY
 
 
-def in_meta(column: str, meta: str | None) -> bool:
-    """The column is the ``_cdcnorm`` member ``meta`` or one of its members (a JSON Lines reader
-    flattens an object into a column per member: ``_cdcnorm.reasons``)."""
-    return meta is not None and (column == meta or column.startswith(meta + "."))
+def dump_columns(columns: Iterable[str], fmt: str) -> tuple[str, ...]:
+    """A file's columns that are the dump's own, in order: all of them, but in a JSON Lines file
+    (a quarantine file fed back) the ``_cdcnorm`` member and its members, which the reader flattens
+    into a column each (``_cdcnorm.reasons``). In a CSV or Parquet dump a column of that name is
+    the dump's."""
+    columns = tuple(columns)
+    meta = meta_column(columns) if fmt == "jsonl" else None
+    if meta is None:
+        return columns
+    return tuple(c for c in columns if c != meta and not c.startswith(meta + "."))
 
 
 _NO_REASONS = (
@@ -130,10 +136,7 @@ def raw_rows(plan: Plan, wanted: str, lookup: Lookup | None = None) -> str:
     union = plan.raw_union(internal, wanted, lookup)
     by_columns: dict[tuple[str, ...], list[int]] = {}
     for src in plan.sources:
-        # the _cdcnorm member of a quarantine line fed back is not a raw column of the row; in a
-        # CSV or Parquet dump a column of that name is one
-        meta = meta_column(src.columns) if src.format == "jsonl" else None
-        by_columns.setdefault(tuple(c for c in src.columns if not in_meta(c, meta)), []).append(src.file_id)
+        by_columns.setdefault(dump_columns(src.columns, src.format), []).append(src.file_id)
     parts = []
     for columns, ids in by_columns.items():
         # json_object, not a struct: a struct's member names are case-insensitive, and a header may

@@ -21,7 +21,7 @@ from typing import Any
 import networkx as nx
 from sqlglot import exp
 
-from cdcnorm.lineage.binding import EngineCheck, tables_to_bind
+from cdcnorm.lineage.binding import Bound, EngineCheck, tables_to_bind
 from cdcnorm.lineage.diagnostics import Diagnostic
 from cdcnorm.lineage.models import LoadedModels, ModelStatement, load_models, paused_gc
 from cdcnorm.lineage.resolve import (
@@ -429,10 +429,18 @@ def resolve_model(
     return Resolved(columns, lines, merged, diagnostics, unknown_tables, inferred)
 
 
+def _named_by_engine(proj: exp.Expr) -> bool:
+    """A column of a query the engine names itself: no alias, no plain column, no star."""
+    return not isinstance(proj, (exp.Alias, exp.Column, exp.Star))
+
+
+def _selects(st: ModelStatement) -> list[exp.Expr]:
+    return st.query.selects if isinstance(st.query, exp.Query) else []
+
+
 def _may_rename(st: ModelStatement) -> bool:
-    """The model has a column the engine names itself (no alias, no plain column)."""
-    selects = st.query.selects if isinstance(st.query, exp.Query) else []
-    return not st.columns and any(not isinstance(p, (exp.Alias, exp.Column, exp.Star)) for p in selects)
+    """The model has a column the engine names itself (and no column list naming them all)."""
+    return not st.columns and any(_named_by_engine(p) for p in _selects(st))
 
 
 @contextmanager
@@ -444,7 +452,7 @@ def _closing(binder: EngineCheck | None) -> Iterator[None]:
             binder.close()
 
 
-def _engine_check(one: Resolved, st: ModelStatement, bound: list[str] | str | None, name: str) -> None:
+def _engine_check(one: Resolved, st: ModelStatement, bound: Bound, name: str) -> None:
     """What the engine's binding of the model adds to its resolution: a refusal the resolver did not
     see is a gap (``refused by the engine``), and a column without an alias that is no plain column
     (``CAST(id AS INTEGER)``, ``sum(amount)``) takes the engine's name, the one readers must use."""
@@ -453,13 +461,14 @@ def _engine_check(one: Resolved, st: ModelStatement, bound: list[str] | str | No
     if isinstance(bound, str):
         one.diagnostics.append(Diagnostic(st.file, st.line, name, "refused by the engine", bound))
         return
-    selects = st.query.selects if isinstance(st.query, exp.Query) else []
+    selects = _selects(st)
     if st.columns or len(bound) != len(one.columns) or len(selects) != len(bound):
         return
-    renamed = {}
-    for old, new, proj in zip(one.columns, bound, selects, strict=True):
-        if old != new and not isinstance(proj, (exp.Alias, exp.Column, exp.Star)) and new not in one.columns:
-            renamed[old] = new
+    renamed = {
+        old: new
+        for old, new, proj in zip(one.columns, bound, selects, strict=True)
+        if old != new and _named_by_engine(proj) and new not in one.columns
+    }
     if not renamed:
         return
     one.columns[:] = [renamed.get(c, c) for c in one.columns]
@@ -624,13 +633,13 @@ def _build_project(
     with _closing(binder):
         for name in order:
             sts = by_model[name]
-            bound = binder is not None and len(sts) == 1
-            if binder is not None and bound:
-                binder.submit(name, sts[0])
+            checked = binder if len(sts) == 1 else None  # one statement: a query to bind
+            if checked is not None:
+                checked.submit(name, sts[0])
             one = resolve_model(name, sts, catalog, dialect, loaded.declared)
-            if binder is not None and bound:
+            if checked is not None:
                 if _may_rename(sts[0]):  # its readers must see the engine's names
-                    _engine_check(one, sts[0], binder.result(name), name)
+                    _engine_check(one, sts[0], checked.result(name), name)
                 else:
                     later.append((one, sts[0], name))
             diagnostics.extend(one.diagnostics)

@@ -264,7 +264,9 @@ def _tokens_kept(mapping: LoadedMapping, paths: str, types: dict[str, FieldType]
     )
     # a json field holding the JSON null is written null, as no value is: the event's json_nulls
     # member names it (see writers/base.py)
-    json_null = f"list_contains(struct_extract(struct_extract(e, {lit(JSON_NULLS)}), 'values'), {{}})"
+
+    def json_null(n: str) -> str:
+        return f"list_contains(struct_extract(struct_extract(e, {lit(JSON_NULLS)}), 'values'), {lit(n)})"
 
     def typed(part: str, names: list[str]) -> str:
         whole = f"struct_extract(e, {lit(part)})"
@@ -272,7 +274,7 @@ def _tokens_kept(mapping: LoadedMapping, paths: str, types: dict[str, FieldType]
         def member(n: str) -> str:
             value = f"CAST({untag(f'CAST(struct_extract({whole}, {lit(n)}) AS VARCHAR)', tag)} AS {types[n].form_type})"
             if part == "values" and types[n].name == "json":
-                return f"CASE WHEN {json_null.format(lit(n))} THEN CAST('null' AS JSON) ELSE {value} END"
+                return f"CASE WHEN {json_null(n)} THEN CAST('null' AS JSON) ELSE {value} END"
             return value
 
         members = ", ".join(f"{ident(n)} := {member(n)}" for n in names)

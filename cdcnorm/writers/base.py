@@ -86,16 +86,18 @@ def project(
         if raw is not None
         else [f"{e} AS {ident(n)}" for n, e in cols]
     )
+    source = f"FROM {plan.rel('events')} JOIN {files_relation} f ON f.id = __file"
+    keys = ""
     if relation is not None:
         select = [x.replace("f.name", "__fname") for x in select]
-        return _with_json_nulls(f"SELECT {', '.join(select)} FROM {relation}", nulls)
-    source = f"FROM {plan.rel('events')} JOIN {files_relation} f ON f.id = __file"
-    if not sort_keys:
-        order = ", ".join(e for _, e in sort_columns(plan))
-        return _with_json_nulls(f"SELECT {', '.join(select)} {source} ORDER BY {order}", nulls)
-    select += [f"{e} AS {n}" for n, e in sort_columns(plan)]
-    keys = "".join(f", {n}" for n, _ in sort_columns(plan))
-    return _with_json_nulls(f"SELECT {', '.join(select)} {source}", nulls, keys)
+        sql = f"SELECT {', '.join(select)} FROM {relation}"
+    elif not sort_keys:
+        sql = f"SELECT {', '.join(select)} {source} ORDER BY {', '.join(e for _, e in sort_columns(plan))}"
+    else:
+        select += [f"{e} AS {n}" for n, e in sort_columns(plan)]
+        keys = "".join(f", {n}" for n, _ in sort_columns(plan))
+        sql = f"SELECT {', '.join(select)} {source}"
+    return _with_json_nulls(sql, nulls, keys)
 
 
 #: The envelope member a JSON Lines event has when a json field of its ``values`` or ``prior``

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import contextlib
 import multiprocessing
+import secrets
 from collections.abc import Iterable
 from dataclasses import dataclass
 from typing import Any
@@ -63,15 +64,9 @@ def _build(
     unavailable: dict[str, str] = {}
     types: EngineTypes = {}
     try:
-        for info in tables:
-            if info.kind != "source" or not info.columns:
-                continue
-            if len(info.parts) > 1:
-                con.execute(f"CREATE SCHEMA IF NOT EXISTS {ident(info.parts[-2])}")
-            name = ".".join(ident(p) for p in info.parts[-2:])
-            cols = ", ".join(f"{ident(info.shown(c))} {info.types.get(c) or 'VARCHAR'}" for c in info.columns)
-            con.execute(f"CREATE TABLE {name} ({cols})")
-            values = ", ".join(_sample(con, info.types.get(c) or "VARCHAR") for c in info.columns)
+        for parts, columns in tables_to_bind(tables, {}):
+            name = _create(con, parts, columns)
+            values = ", ".join(_sample(con, t) for t in columns.values())
             con.execute(f"INSERT INTO {name} VALUES ({values})")
         by_name: dict[str, list[ModelStatement]] = {}
         for st in statements:
@@ -85,19 +80,15 @@ def _build(
             st = sts[0]
             assert st.query is not None
             try:
-                # parsed in the models' dialect, written in DuckDB's: sqlglot's transpiler
-                query = st.query.sql(dialect="duckdb", unsupported_level=sqlglot.ErrorLevel.RAISE)
+                query = _in_duckdb(st.query)
             except sqlglot.errors.SqlglotError as e:
                 unavailable[model] = f"cannot transpile from {dialect}: {str(e).splitlines()[0]}"
                 continue
-            parts = st.target
-            if len(parts) > 1:
-                con.execute(f"CREATE SCHEMA IF NOT EXISTS {ident(parts[-2])}")
-            view = ".".join(ident(p) for p in parts[-2:])
+            view = _place(con, st.target)
             cols = f" ({', '.join(ident(c) for c in st.columns)})" if st.columns else ""
             try:
                 con.execute(f"CREATE VIEW {view}{cols} AS {query}")
-                con.execute(f"SELECT * FROM {view}").fetchall()  # run it over the synthetic rows
+                _run_view(con, view, st.target)
                 ok[model] = True
                 types[model] = {str(r[0]): str(r[1]) for r in con.execute(f"DESCRIBE {view}").fetchall()}
             except duckdb.Error as e:
@@ -143,21 +134,23 @@ class Binder:
         # one thread: binding is no work for more, and a process of its own shares the machine
         self.con = duckdb.connect(":memory:", config={**OFFLINE, "threads": 1})
         for parts, columns in tables:
-            cols = ", ".join(f"{ident(c)} {t}" for c, t in columns.items())
             # a type the engine does not know: the models reading the table are not bound
             with contextlib.suppress(duckdb.Error):
-                if len(parts) > 1:
-                    self.con.execute(f"CREATE SCHEMA IF NOT EXISTS {ident(parts[-2])}")
-                name = ".".join(ident(p) for p in parts[-2:])
-                self.con.execute(f"CREATE TABLE IF NOT EXISTS {name} ({cols})")
+                _create(self.con, parts, columns)
 
     def bind(self, job: Job) -> Bound:
-        made = _sql(job)
-        if made is None:
-            return None
-        sql, table = made
+        query_expr, columns, target = job
         try:
-            self.con.execute(sql)
+            query = _in_duckdb(query_expr)
+        except sqlglot.errors.SqlglotError:
+            return None
+        named = f" AS q({', '.join(ident(c) for c in columns)})" if columns else ""
+        try:
+            table = _place(self.con, target)
+            # an empty table of the model's columns, which its readers bind against: a view would
+            # be bound again with every view that reads it (a chain 7 models deep made the project's
+            # build 4 times slower); the engine binds the query as it would the view's
+            self.con.execute(f"CREATE OR REPLACE TABLE {table} AS SELECT * FROM ({query}){named} LIMIT 0")
             return [str(r[0]) for r in self.con.execute(f"DESCRIBE {table}").fetchall()]
         except duckdb.Error as e:
             first = str(e).strip().splitlines()[0]
@@ -190,22 +183,42 @@ def job_of(st: ModelStatement) -> Job | None:
     return st.query, tuple(st.columns) if st.columns else None, st.target
 
 
-def _sql(job: Job) -> tuple[str, str] | None:
-    """The SQL that binds a model (its empty table made from its query) and the table's name; None
-    for a query sqlglot cannot write in DuckDB's dialect."""
-    query_expr, columns, target = job
-    try:
-        query = query_expr.sql(dialect="duckdb", unsupported_level=sqlglot.ErrorLevel.RAISE)
-    except sqlglot.errors.SqlglotError:
-        return None
-    named = f" AS q({', '.join(ident(c) for c in columns)})" if columns else ""
-    table = ".".join(ident(p) for p in target[-2:])
-    # an empty table of the model's columns, which its readers bind against: a view would be
-    # bound again with every view that reads it (a chain 7 models deep made the project's build
-    # 4 times slower); the engine binds the query as it would the view's
-    create = f"CREATE OR REPLACE TABLE {table} AS SELECT * FROM ({query}){named} LIMIT 0"
-    schema = f"CREATE SCHEMA IF NOT EXISTS {ident(target[-2])}; " if len(target) > 1 else ""
-    return schema + create, table
+#: Names the rows of a view while they are copied: no model's name, whatever its files say
+_TOKEN = secrets.token_hex(8)
+
+
+def _run_view(con: duckdb.DuckDBPyConnection, view: str, parts: tuple[str, ...]) -> None:
+    """Run a model's view over the synthetic rows, and keep its rows as a table of the same name,
+    with the same columns and types: its readers then read them, instead of binding and running
+    this view again under each of them (a chain 7 models deep made the check of a 200-model project
+    take 11 s). When it fails to run, the view stays, and its readers fail as before."""
+    rows = _place(con, (*parts[:-1], f"__cdcnorm_rows_{_TOKEN}"))
+    con.execute(f"CREATE OR REPLACE TABLE {rows} AS SELECT * FROM {view}")
+    con.execute(f"DROP VIEW {view}")
+    con.execute(f"ALTER TABLE {rows} RENAME TO {ident(parts[-1])}")
+
+
+def _in_duckdb(query: exp.Expr) -> str:
+    """The query, parsed in the models' dialect, written in DuckDB's (sqlglot's transpiler); a
+    ``SqlglotError`` when it cannot be."""
+    return query.sql(dialect="duckdb", unsupported_level=sqlglot.ErrorLevel.RAISE)
+
+
+def _place(con: duckdb.DuckDBPyConnection, parts: tuple[str, ...]) -> str:
+    """The name of a table or view of these name parts in the engine's database (schema and name;
+    the schema made first, if it has one)."""
+    if len(parts) > 1:
+        con.execute(f"CREATE SCHEMA IF NOT EXISTS {ident(parts[-2])}")
+    return ".".join(ident(p) for p in parts[-2:])
+
+
+def _create(con: duckdb.DuckDBPyConnection, parts: tuple[str, ...], columns: dict[str, str]) -> str:
+    """An empty table of these columns (name -> SQL type); its name."""
+    name = _place(con, parts)
+    con.execute(
+        f"CREATE TABLE IF NOT EXISTS {name} ({', '.join(f'{ident(c)} {t}' for c, t in columns.items())})"
+    )
+    return name
 
 
 #: From this many models up, the binder works in a process of its own, beside the resolver (the

@@ -8,6 +8,7 @@ import bz2
 import gzip
 import io
 import json
+import lzma
 from pathlib import Path
 from typing import Any
 
@@ -211,6 +212,101 @@ def test_truncated_archive_is_a_clear_error(
     err = capsys.readouterr().err
     assert code == 4
     assert str(dump) in err and "truncated or corrupt" in err and "Traceback" not in err
+
+
+def _lz4(payload: bytes) -> bytes:
+    out = pa.BufferOutputStream()
+    with pa.CompressedOutputStream(out, "lz4") as s:  # the LZ4 frame format
+        s.write(payload)
+    return bytes(out.getvalue().to_pybytes())
+
+
+def test_xz_and_lz4_files_are_read_transparently(convert: ConvertFn) -> None:
+    # the archives are written by Python's lzma module and pyarrow's LZ4 frame writer
+    files: dict[str, str | bytes] = {
+        "n1.csv.xz": lzma.compress(csv_at(1).encode()),
+        "n2.csv.lz4": _lz4(csv_at(2).encode()),
+    }
+    plain = convert(PLAIN, {f"n{k}.csv": csv_at(k) for k in (1, 2)}).events("t.notes")
+    done = convert(PLAIN, files)
+    names = {"n1.csv": "n1.csv.xz", "n2.csv": "n2.csv.lz4"}
+    got = [(e["origin"]["file"], e["origin"]["row"], e["key"], e["values"]) for e in done.events("t.notes")]
+    assert got == [(names[e["origin"]["file"]], e["origin"]["row"], e["key"], e["values"]) for e in plain]
+    assert done.ledger()["balanced"] and done.ledger()["total"]["read"] == 6
+
+
+@pytest.mark.parametrize("name", ["n.csv.xz", "n.csv.lz4"])
+def test_truncated_xz_or_lz4_is_a_clear_error(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], name: str
+) -> None:
+    payload = (CSV * 2000).encode()
+    packed = lzma.compress(payload) if name.endswith(".xz") else _lz4(payload)
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN.replace('files: ["n*"]', 'files: ["n.csv"]'))
+    (dump := tmp_path / name).write_bytes(packed[: len(packed) // 2])
+    code = cli("convert", "--mappings", str(mdir), str(dump), "--out", str(tmp_path / "out"))
+    err = capsys.readouterr().err
+    assert code == 4
+    assert str(dump) in err and "truncated or corrupt" in err and "Traceback" not in err
+
+
+def _parquet_bytes() -> bytes:
+    sink = io.BytesIO()
+    pq.write_table(pa.table({"op": ["I"], "pos": ["1"], "id": ["1"], "a": ["x"]}), sink)
+    return sink.getvalue()
+
+
+@pytest.mark.parametrize(
+    ("name", "pack", "suffix"),
+    [
+        ("n.csv", gzip.compress, ".gz"),
+        ("n.jsonl", gzip.compress, ".gz"),
+        ("n.parquet", gzip.compress, ".gz"),
+        ("n.csv", bz2.compress, ".bz2"),
+        ("n.csv", lzma.compress, ".xz"),
+        ("n.csv", _lz4, ".lz4"),
+    ],
+)
+def test_an_archive_named_as_plain_text_is_a_clear_error(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], name: str, pack: Any, suffix: str
+) -> None:
+    # read as text, each of its records would be quarantined as bytes that are not UTF-8 (the
+    # JSON Lines reader did so, exit 0); the archives are written by Python's and pyarrow's codecs
+    payload = {
+        "n.csv": CSV.encode(),
+        "n.jsonl": b'{"op": "I", "pos": 1, "id": 1, "a": "x"}\n',
+        "n.parquet": _parquet_bytes(),
+    }[name]
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN.replace('files: ["n*"]', f'files: ["{name}"]'))
+    (dump := tmp_path / name).write_bytes(pack(payload))
+    code = cli("convert", "--mappings", str(mdir), str(dump), "--out", str(tmp_path / "out"))
+    err = capsys.readouterr().err
+    assert code == 4, err
+    assert f"{dump}: this file is a {suffix} archive, but its name does not say so" in err
+    assert f"hint: name it {name}{suffix} so it is decompressed as it is read" in err
+    assert not (tmp_path / "out" / "events").exists()
+    (dump.parent / f"{name}{suffix}").write_bytes(dump.read_bytes())  # renamed as the hint says, it reads
+    dump.unlink()
+    renamed = dump.parent / f"{name}{suffix}"
+    code = cli("convert", "--mappings", str(mdir), str(renamed), "--out", str(tmp_path / "out"))
+    assert code == 0, capsys.readouterr().err
+    ledger = last_run(tmp_path / "out")["ledger"]
+    assert ledger["balanced"] and ledger["total"]["read"] == ledger["total"]["emitted"] == (
+        3 if name == "n.csv" else 1
+    )
+
+
+def test_a_zip_file_is_refused_with_what_to_do(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    import zipfile
+
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN.replace('files: ["n*"]', 'files: ["n.csv"]'))
+    with zipfile.ZipFile(dump := tmp_path / "n.csv", "w") as z:  # Python's zipfile writes the archive
+        z.writestr("inner.csv", CSV)
+    code = cli("convert", "--mappings", str(mdir), str(dump), "--out", str(tmp_path / "out"))
+    err = capsys.readouterr().err
+    assert code == 4 and "this file is a .zip archive" in err and "unpack it first" in err
 
 
 def test_many_small_files_keep_their_record_numbers(convert: ConvertFn) -> None:

@@ -2,8 +2,8 @@
 
 Each reader module has ``FORMAT``, ``SUFFIXES`` and ``read_files(files, mapping, engine,
 raw, scratch)``, which loads a table's files of that format into the engine (see base.py).
-A compression suffix (``.gz``, ``.zst``, ``.bz2``) after the format's suffix is read
-transparently.
+A compression suffix (``.gz``, ``.zst``, ``.bz2``, ``.xz``, ``.lz4``) after the format's suffix is
+read transparently (streams.py); an archive whose name has none is refused, naming the suffix to add.
 """
 
 from __future__ import annotations

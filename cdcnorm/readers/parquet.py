@@ -15,6 +15,7 @@ import pyarrow.parquet as pq
 from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.errors import InputError
 from cdcnorm.mapping.model import Mapping
+from cdcnorm.readers import streams
 from cdcnorm.readers.base import RawFile, RawTable
 
 FORMAT = "parquet"
@@ -82,9 +83,12 @@ def read_files(
     nested = [tuple(c.split(".")) for c in mapping.mapped_columns() if "." in c]
     described: dict[str, list[tuple[tuple[str, ...], str, tuple[str, ...]]]] = {}
     groups: dict[tuple[tuple[tuple[str, ...], str, tuple[str, ...]], ...], list[RawFile]] = {}
+    # a compressed file (``.parquet.gz``) is decompressed first: the engine's Parquet reader reads
+    # only what the format itself compresses
+    where = {f.file_id: streams.engine_readable(f.path, scratch / "decompressed", reads=()) for f in files}
     for f in files:
         f.format = FORMAT
-        schema = _own_schema(f.path)
+        schema = _own_schema(where[f.file_id])
         own = list(schema.names) if schema is not None else None
         if schema is not None:
             _check_members(schema, nested, f.path)
@@ -103,7 +107,9 @@ def read_files(
             else schema.to_string(show_field_metadata=False, show_schema_metadata=False)
         )
         try:
-            cols = described[seen] if seen in described else engine.scan_parquet(f.path, nested, own)
+            cols = (
+                described[seen] if seen in described else engine.scan_parquet(where[f.file_id], nested, own)
+            )
         except duckdb.Error as e:
             raise _unreadable(f, e) from None
         if seen is not None:
@@ -114,15 +120,22 @@ def read_files(
     tokens = [t for t in mapping.nulls if t != ""]
     for shape, group in groups.items():
         internal = [raw.internal(".".join(k)) for k, _, _ in shape]
-        _load(group, list(shape), internal, tokens, engine, raw)
+        _load(group, where, list(shape), internal, tokens, engine, raw)
 
 
 def _unreadable(f: RawFile, e: duckdb.Error) -> InputError:
+    try:
+        with open(f.path, "rb") as start:
+            if misnamed := streams.misnamed_archive(f.path, start.read(16)):
+                return misnamed
+    except OSError:
+        pass
     return InputError(f"cannot read this Parquet file: {str(e).splitlines()[0]}", file=str(f.path))
 
 
 def _load(
     group: list[RawFile],
+    where: dict[int, Path],
     cols: list[tuple[tuple[str, ...], str, tuple[str, ...]]],
     internal: list[str],
     tokens: list[str],
@@ -130,7 +143,7 @@ def _load(
     raw: RawTable,
 ) -> None:
     staged = raw.relation("parquet")
-    paths = {str(f.path): f for f in group}
+    paths = {str(where[f.file_id]): f for f in group}
     try:
         spans = engine.load_parquet_as_text(
             staged,
@@ -144,13 +157,13 @@ def _load(
         if len(group) == 1:
             raise _unreadable(group[0], e) from None
         for f in group:  # find the file the engine cannot read
-            _load([f], cols, internal, tokens, engine, raw)
+            _load([f], where, cols, internal, tokens, engine, raw)
         return
     good = []
     for p, f in paths.items():
         f.rows, lo, hi = spans.get(p, (0, 0, -1))
         if f.rows and hi - lo + 1 != f.rows:
-            raise InputError("the engine did not keep this file's rows in order", file=p)
+            raise InputError("the engine did not keep this file's rows in order", file=str(f.path))
         f.empty = f.rows == 0
         if f.empty:
             f.notes.append("the file has no rows")

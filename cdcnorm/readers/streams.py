@@ -2,15 +2,17 @@
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+import lzma
+from collections.abc import Collection, Iterator
 from pathlib import Path
 
 import pyarrow as pa
 
 from cdcnorm.errors import InputError
 
-#: Compression suffixes read transparently, and the codec of each.
-COMPRESSIONS = {".gz": "gzip", ".zst": "zstd", ".bz2": "bz2"}
+#: Compression suffixes read transparently, and the codec of each (pyarrow's names; ``xz`` is
+#: Python's lzma module, which pyarrow's streams do not read).
+COMPRESSIONS = {".gz": "gzip", ".zst": "zstd", ".bz2": "bz2", ".xz": "xz", ".lz4": "lz4"}
 #: The ones the engine's own readers decompress while reading; the others are decompressed
 #: to a temporary file first (streamed, in bounded memory).
 ENGINE_READS = {".gz", ".zst"}
@@ -18,6 +20,51 @@ BLOCK = 16 << 20
 #: How many times its size a compressed dump (or a Parquet file) is counted when a run's memory
 #: is planned: change dumps compress 4-10x (the benchmark's CSV: 4.7x with gzip, 4.5x with zstd).
 COMPRESSED_SIZE_FACTOR = 5
+
+
+#: The first bytes of each archive a dump may arrive in, and the suffix that names it: gzip's ID1
+#: ID2 (RFC 1952, 2.3.1), Zstandard's frame magic 0xFD2FB528 little-endian (RFC 8878, 3.1.1), the
+#: xz file format's header magic (its specification, 2.1.1.1), the LZ4 frame's magic 0x184D2204
+#: little-endian (the LZ4 frame format), bzip2's "BZh", a block size digit and the block magic
+#: 0x314159265359 (from memory), a ZIP local file header "PK\3\4" (APPNOTE 4.3.7).
+ARCHIVE_MAGIC = (
+    (b"\x1f\x8b", ".gz"),
+    (b"\x28\xb5\x2f\xfd", ".zst"),
+    (b"\xfd7zXZ\x00", ".xz"),
+    (b"\x04\x22\x4d\x18", ".lz4"),
+    (b"PK\x03\x04", ".zip"),
+)
+_BZIP2_BLOCK = b"\x31\x41\x59\x26\x53\x59"
+
+
+def archive_in(start: bytes) -> str | None:
+    """The suffix of the archive whose bytes ``start`` begins with, if it is one."""
+    for magic, suffix in ARCHIVE_MAGIC:
+        if start.startswith(magic):
+            return suffix
+    if start[:3] == b"BZh" and start[3:4].isdigit() and start[4:10] == _BZIP2_BLOCK:
+        return ".bz2"
+    return None
+
+
+def misnamed_archive(path: Path, start: bytes) -> InputError | None:
+    """The error for a file, read as it is named (no compression suffix), whose bytes are an
+    archive: read as text, every record would be quarantined as bytes that are not text."""
+    suffix = archive_in(start)
+    if suffix is None or compression(path) is not None:
+        return None
+    if suffix in COMPRESSIONS:
+        hint = f"name it {path.name}{suffix} so it is decompressed as it is read"
+    else:
+        hint = f"unpack it first: cdcnorm reads {', '.join(COMPRESSIONS)} archives, not {suffix}"
+    return InputError(
+        f"this file is a {suffix} archive, but its name does not say so",
+        file=str(path),
+        expected="the format its name says"
+        + (f", or a name ending in {suffix}" if suffix in COMPRESSIONS else ""),
+        found=f"{suffix} archive bytes ({start[:6].hex(' ')})",
+        hint=hint,
+    )
 
 
 def compression(path: Path) -> str | None:
@@ -43,7 +90,16 @@ def blocks(path: Path, size: int = BLOCK) -> Iterator[bytes]:
     try:
         if codec is None:  # the plain file: a tenth of the cost of a stream per call, for many small files
             with open(path, "rb") as plain:
+                first = True
                 while block := plain.read(size):
+                    if first and (misnamed := misnamed_archive(path, block)):
+                        raise misnamed
+                    first = False
+                    yield block
+            return
+        if codec == "xz":
+            with lzma.open(path, "rb") as packed:
+                while block := packed.read(size):
                     yield block
             return
         with pa.input_stream(str(path), compression=codec) as stream:
@@ -52,7 +108,7 @@ def blocks(path: Path, size: int = BLOCK) -> Iterator[bytes]:
                 if not block:
                     return
                 yield block
-    except (OSError, pa.ArrowException, EOFError, ValueError) as e:
+    except (OSError, pa.ArrowException, EOFError, ValueError, lzma.LZMAError) as e:
         raise _fail(path, e) from None
 
 
@@ -78,9 +134,10 @@ def head(path: Path, size: int = 1 << 20) -> bytes:
     return b""
 
 
-def engine_readable(path: Path, scratch: Path) -> Path:
-    """A path the engine's readers can open: the file itself, or a decompressed copy in ``scratch``."""
-    if compression(path) is None or path.suffix.lower() in ENGINE_READS:
+def engine_readable(path: Path, scratch: Path, reads: Collection[str] = ENGINE_READS) -> Path:
+    """A path the engine's readers can open: the file itself, or a decompressed copy in ``scratch``;
+    ``reads``: the suffixes the reader decompresses itself (the Parquet reader: none)."""
+    if compression(path) is None or path.suffix.lower() in reads:
         return path
     scratch.mkdir(parents=True, exist_ok=True)
     target = scratch / f"{len(list(scratch.iterdir()))}-{base_name(path)}"

@@ -60,8 +60,9 @@ STAGE_NAMES = ["read", *(name for name, _ in STAGES)]
 #: the step whose rows --stop-after shows for a stage (else the stage's last step)
 STAGE_OUTPUT = {"type": "typed"}
 #: The materialised steps the writers and the events read after a run (the ``events`` view is
-#: over ``kept`` and ``pairs``); the others are dropped once the run is accounted for.
-RESULT_STEPS = ("kept", "pairs", "waiting")
+#: over ``kept`` and ``pairs``; the index remembers ``conflicted``); the others are dropped once
+#: the run is accounted for.
+RESULT_STEPS = ("kept", "pairs", "waiting", "conflicted")
 
 Progress = Callable[[str, int, int], None]
 
@@ -281,6 +282,7 @@ def _shown_names(plan: Plan) -> dict[str, str]:
             "__versions": "versions",
             "__earlier_run": "earlier run",
             "__other_fields": "other fields differ",
+            "__unsettled": "conflict not settled",
             "__same_key": "same key",
             "__unpaired_after": "unpaired after-image",
             "__action": "envelope action",
@@ -705,7 +707,12 @@ def _run_table(
         )
         began = time.perf_counter()
         if step.name == "seen":  # what earlier runs emitted, at the positions this run has
-            memory.load_earlier(engine, plan, area.emitted_files(table) if area else [])
+            memory.load_earlier(
+                engine,
+                plan,
+                area.emitted_files(table) if area else [],
+                area.conflicted_files(table) if area else [],
+            )
         if step.materialize:
             engine.materialize(step.relation, step.sql)
             for name in step.frees:

@@ -87,6 +87,15 @@ class Plan:
     earlier_orders: tuple[tuple[int, ...], ...] = ()
 
     @property
+    def fed_back(self) -> tuple[int, ...]:
+        """The ids of the files that are quarantine files fed back (JSON Lines whose lines carry the
+        ``_cdcnorm`` object): a version of a change they hold settles a conflict an earlier run
+        quarantined."""
+        from cdcnorm.quarantine import meta_column
+
+        return tuple(s.file_id for s in self.sources if s.format == "jsonl" and meta_column(s.columns))
+
+    @property
     def fewer_orders(self) -> list[int]:
         """The k (1-based) of the ``earlier_orders`` that lack fields the mapping has now."""
         return [k for k, o in enumerate(self.earlier_orders, start=1) if len(o) < len(self.fields)]

@@ -80,10 +80,15 @@ def rejected_rows(plan: Plan) -> str:
     )
     conflict = _reason(
         "CASE WHEN __earlier_run IS NULL THEN 'one version per (position, action, key)' "
+        "WHEN __unsettled THEN 'a version fed back from the quarantine of run ' || __earlier_run "
         "ELSE 'the version run ' || __earlier_run || ' emitted' END",
         "CASE WHEN __earlier_run IS NULL THEN CAST(__versions AS VARCHAR) || ' versions' "
+        "WHEN __unsettled THEN 'another delivery of the change' "
         "WHEN __other_fields THEN 'content under other fields' ELSE 'other content' END",
-        "CASE WHEN __earlier_run IS NULL THEN 'conflict' WHEN __other_fields THEN 'conflict with run ' || "
+        "CASE WHEN __earlier_run IS NULL THEN 'conflict' WHEN __unsettled THEN 'conflict with run ' || "
+        "__earlier_run || ', which quarantined versions of this change that differ: none is chosen until "
+        "one is fed back from its quarantine file' "
+        "WHEN __other_fields THEN 'conflict with run ' || "
         "__earlier_run || ', whose fields differ from the mapping''s now: its content cannot be compared' "
         "ELSE 'conflict with run ' || __earlier_run END",
     )

@@ -95,7 +95,14 @@ class Landing:
         return runs.committed(self.root)
 
     def emitted_files(self, table: str) -> list[Path]:
-        folder = self.root / "index" / "emitted" / path_part(table)
+        return self._index_files("emitted", table)
+
+    def conflicted_files(self, table: str) -> list[Path]:
+        """The identities runs quarantined as conflicts, with each version's digest."""
+        return self._index_files("conflicted", table)
+
+    def _index_files(self, kind: str, table: str) -> list[Path]:
+        folder = self.root / "index" / kind / path_part(table)
         done = self.committed()
         return sorted(p for p in folder.glob("*.parquet") if p.stem in done) if folder.is_dir() else []
 

@@ -37,6 +37,7 @@ they stated it are read by position).
 from __future__ import annotations
 
 import json
+from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
@@ -253,6 +254,7 @@ def earlier_columns(plan: Plan) -> dict[str, str]:
     cols.update({"__hash": "UHUGEINT", "__format": "INTEGER", "__run": "VARCHAR", "__unpaired": "BOOLEAN"})
     cols["__other_fields"] = "BOOLEAN"  # the file's fields differ from the mapping's: content not comparable
     cols["__order"] = "INTEGER"  # 0, or k: the file's fields are in plan.earlier_orders[k - 1]
+    cols["__conflicted"] = "BOOLEAN"  # a version of a change a run quarantined as a conflict
     return cols
 
 
@@ -299,12 +301,17 @@ def load_carried(engine: DuckDBEngine, plan: Plan, path: Path | None, first_id: 
     return ids
 
 
-def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
-    """Create ``<table>__earlier``: the identities earlier runs emitted, at the positions this
-    run's rows can meet (between the lowest and highest position of the run's good rows), from
-    identity files of either format."""
+def load_earlier(
+    engine: DuckDBEngine, plan: Plan, files: list[Path], conflicted: Sequence[Path] = ()
+) -> None:
+    """Create ``<table>__earlier``: the identities earlier runs emitted (``files``) or quarantined
+    as conflicts (``conflicted``, marked ``__conflicted``), at the positions this run's rows can
+    meet (between the lowest and highest position of the run's good rows), from identity files of
+    any format."""
     rel = plan.rel("earlier")
     empty = f"CREATE OR REPLACE TABLE {rel} AS {empty_relation(earlier_columns(plan))}"
+    marked = {str(f) for f in conflicted}
+    files = [*files, *conflicted]
     if not files:
         engine.execute(empty)
         return
@@ -332,14 +339,19 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
             )
     _check_order(plan, metadata, "identities emitted by earlier runs")
     layouts = {f: fields for f, keys in metadata.items() if (fields := _fields_of(keys)) is not None}
-    groups: dict[tuple[int, str, tuple[str, ...]], list[Path]] = {}
+    groups: dict[tuple[int, str, tuple[str, ...], bool], list[Path]] = {}
     for path in files:
         values = tuple(sorted(m for m in held_names.get(str(path), ()) if m[:1] == "v" and m[1:].isdigit()))
-        key = (_format(marks, stated, str(path)), json.dumps(layouts.get(str(path))), values)
+        key = (
+            _format(marks, stated, str(path)),
+            json.dumps(layouts.get(str(path))),
+            values,
+            str(path) in marked,
+        )
         groups.setdefault(key, []).append(path)
     parts = []
     hint = "a key field is compared with the one stored: keep the key, its names and types, or start a new landing area (another --out, or --replace)"
-    for (fmt, _, values), group in sorted(groups.items()):
+    for (fmt, _, values, is_conflict), group in sorted(groups.items()):
         stored = layouts.get(str(group[0]))
         order = _reordered(stored, layout(plan)) if stored is not None else None
         k = plan.earlier_orders.index(order) + 1 if order in plan.earlier_orders else 0
@@ -358,7 +370,7 @@ def load_earlier(engine: DuckDBEngine, plan: Plan, files: list[Path]) -> None:
                 found=f"identities keyed by ({', '.join(then)}): no {', '.join(lacking)}",
                 hint=hint,
             )
-        parts.append(_earlier_rows(plan, fmt, group, lo_key, hi_key, held, other, k))
+        parts.append(_earlier_rows(plan, fmt, group, lo_key, hi_key, held, other, k, is_conflict))
     engine.execute(f"CREATE OR REPLACE TABLE {rel} AS {' UNION ALL '.join(parts)}")
 
 
@@ -372,7 +384,15 @@ def _format(marks: set[tuple[str, str]], stated: dict[str, str], file: str) -> i
 
 
 def _earlier_rows(
-    plan: Plan, fmt: int, files: list[Path], lo: str, hi: str, held: dict[int, str], other: bool, order: int
+    plan: Plan,
+    fmt: int,
+    files: list[Path],
+    lo: str,
+    hi: str,
+    held: dict[int, str],
+    other: bool,
+    order: int,
+    conflicted: bool = False,
 ) -> str:
     """SQL: the identities of identity files of one format and one layout, keys restored (the
     key field ``i`` from the column ``held[i]``), between ``lo`` and ``hi``; ``other``: the files
@@ -395,6 +415,7 @@ def _earlier_rows(
         "__unpaired",
         f"{'TRUE' if other else 'FALSE'} AS __other_fields",
         f"{order} AS __order",
+        f"{'TRUE' if conflicted else 'FALSE'} AS __conflicted",
     ]
     if fmt >= 2 and _wide(plan, "__pos"):
         # the high halves alone let the reader skip row groups by their statistics
@@ -404,26 +425,31 @@ def _earlier_rows(
     return f"SELECT * FROM (SELECT {', '.join(cols)} FROM {src} WHERE {near}TRUE) WHERE __pos BETWEEN {lo} AND {hi}"
 
 
+def _stored_identity(plan: Plan) -> str:
+    """SQL: the stored columns of an identity and its digest (format 4) from the row ``k``
+    (``__pos``, ``__seq``, ``__act``, the key fields and ``__content``)."""
+    stored = [
+        x
+        for c in ("__pos", "__seq")
+        for x in (halves(f"k.{c}", c) if _wide(plan, c) else [f"{_store(plan, f'k.{c}', c)} AS {c}"])
+    ]
+    keys = "".join(f", k.v{i}" for i in plan.key_index)
+    return f"{', '.join(stored)}, k.__act{keys}, {', '.join(halves('k.__content', '__content'))}"
+
+
 def write_emitted(engine: DuckDBEngine, plan: Plan, path: Path, run: str) -> None:
     """The identities this run settled for good (format 4): every kept row (carried ones included)
     except the before-images left waiting; an after-image emitted without its before-image is marked."""
     paired = plan.mapping.mapping.change.updates == "paired"
     kept, waiting, pairs = plan.rel("kept"), plan.rel("waiting"), plan.rel("pairs")
-    keys = "".join(f", k.v{i}" for i in plan.key_index)
     unpaired = (
         f"(k.__act = 'after' AND NOT EXISTS (SELECT 1 FROM {pairs} q WHERE NOT q.ghost AND q.af = k.__file "
         "AND q.ar = k.__row))"
         if paired
         else "FALSE"
     )
-    stored = [
-        x
-        for c in ("__pos", "__seq")
-        for x in (halves(f"k.{c}", c) if _wide(plan, c) else [f"{_store(plan, f'k.{c}', c)} AS {c}"])
-    ]
     sql = (
-        f"SELECT {', '.join(stored)}, k.__act{keys}, {', '.join(halves('k.__content', '__content'))}, "
-        f"{lit(run)} AS __run, {unpaired} AS __unpaired "
+        f"SELECT {_stored_identity(plan)}, {lit(run)} AS __run, {unpaired} AS __unpaired "
         f"FROM (SELECT *, {plan.content()} AS __content FROM {kept}) k WHERE NOT EXISTS (SELECT 1 FROM {waiting} w "
         # sorted on the keys: their order is the stored columns' order, and cheaper to sort
         "WHERE NOT w.__settled AND w.__file = k.__file AND w.__row = k.__row) ORDER BY k.__pos, k.__seq"
@@ -431,6 +457,22 @@ def write_emitted(engine: DuckDBEngine, plan: Plan, path: Path, run: str) -> Non
     path.parent.mkdir(parents=True, exist_ok=True)
     metadata = _metadata(plan, (FORMAT_KEY, str(INDEX_FORMAT)))
     engine.execute(f"COPY ({sql}) TO {lit(str(path))} (FORMAT PARQUET, KV_METADATA {metadata})")
+
+
+def write_conflicted(engine: DuckDBEngine, plan: Plan, path: Path, run: str) -> int:
+    """The identities this run quarantined as conflicts among its own rows (``conflicted``), with
+    each version's digest, in the emitted identities' format: the next runs hold a later version of
+    such a change as a conflict too, until one is fed back from the quarantine. Written only when
+    there is one; returns how many versions."""
+    rel = plan.rel("conflicted")
+    count = int(engine.rows(f"SELECT count(*) FROM {rel}")[0][0])
+    if not count:
+        return 0
+    sql = f"SELECT {_stored_identity(plan)}, {lit(run)} AS __run, FALSE AS __unpaired FROM {rel} k ORDER BY k.__pos, k.__seq"
+    path.parent.mkdir(parents=True, exist_ok=True)
+    metadata = _metadata(plan, (FORMAT_KEY, str(INDEX_FORMAT)))
+    engine.execute(f"COPY ({sql}) TO {lit(str(path))} (FORMAT PARQUET, KV_METADATA {metadata})")
+    return count
 
 
 def write_pending(engine: DuckDBEngine, plan: Plan, path: Path, run: str, raw_rows: str) -> int:

@@ -111,6 +111,7 @@ def _stage_table(
     else:  # no file (its folder goes once every table is staged)
         (staging / rel).unlink(missing_ok=True)
     memory.write_emitted(engine, plan, staging / "index" / "emitted" / part / f"{run}.parquet", run)
+    memory.write_conflicted(engine, plan, staging / "index" / "conflicted" / part / f"{run}.parquet", run)
     out["pending"] = memory.write_pending(
         engine,
         plan,

@@ -8,7 +8,11 @@ Across runs (a landing area), the identities earlier runs emitted or merged
 (``<table>__earlier``) and the before-images still waiting (``<table>__carried``)
 count too: a row repeating one of them with the same content is a duplicate of
 that run; with other content it is a conflict, quarantined with the earlier
-run named.
+run named. So do the identities an earlier run quarantined as conflicts
+(``conflicted``, remembered in the index): a later version of such a change is
+quarantined too, whatever its content, until a version is fed back from the
+quarantine file (a re-delivery of one version must not settle what none was
+chosen for); once one is emitted, repeats are compared with it.
 
 Two different changes of one key at one position and sequence (an insert
 and a delete, say) cannot be ordered, except a before-image and its
@@ -80,19 +84,27 @@ def dedupe_rows(plan: Plan) -> Plan:
         f"e.__hash = CASE WHEN e.__format <= 2 THEN {plan.legacy_content('o.')} {format_3}{reordered}"
         f"ELSE {plan.content('o.')} END"
     )
+    # An identity an earlier run emitted is compared with what it emitted; one it only quarantined
+    # as a conflict (no version emitted since) makes every later version a conflict too, but a
+    # version fed back from the quarantine file, which settles it.
+    emitted = "NOT e.__conflicted"
+    fed_back = ", ".join(map(str, plan.fed_back))
+    settles = f"o.__file IN ({fed_back})" if fed_back else "FALSE"
     plan = plan.add(
         "dedupe",
         "seen",
-        f"SELECT o.__file, o.__row, o.__act, bool_and({same}) AS __same, "
-        "bool_or(e.__other_fields) AS __other_fields, "
+        "SELECT * FROM ("
+        f"SELECT o.__file, o.__row, o.__act, coalesce(bool_and({same}) FILTER (WHERE {emitted}), FALSE) AS __same, "
+        f"coalesce(bool_or(e.__other_fields) FILTER (WHERE {emitted}), FALSE) AS __other_fields, "
         # compared with identities written before fields were added: on the fields they digested
-        f"bool_or(e.__order IN ({', '.join(map(str, [-1, *plan.fewer_orders]))})) AS __fewer, "
-        f"min(e.__run) AS __earlier_run FROM {ordered} o JOIN ("
-        f"SELECT {earlier_cols}, __hash, __format, __run, __other_fields, __order FROM {plan.rel('earlier')} "
-        f"UNION ALL SELECT {carried_cols}, {plan.content()} AS __hash, {INDEX_FORMAT}, __run, FALSE, 0 "
+        f"coalesce(bool_or(e.__order IN ({', '.join(map(str, [-1, *plan.fewer_orders]))})) FILTER (WHERE {emitted}), FALSE) AS __fewer, "
+        f"NOT bool_or({emitted}) AS __unsettled, bool_or({settles}) AS __settles, "
+        f"coalesce(min(e.__run) FILTER (WHERE {emitted}), min(e.__run)) AS __earlier_run FROM {ordered} o JOIN ("
+        f"SELECT {earlier_cols}, __hash, __format, __run, __other_fields, __order, __conflicted FROM {plan.rel('earlier')} "
+        f"UNION ALL SELECT {carried_cols}, {plan.content()} AS __hash, {INDEX_FORMAT}, __run, FALSE, 0, FALSE "
         f"FROM {plan.rel('carried')}) e "
         f"ON {seen_on} "
-        "GROUP BY o.__file, o.__row, o.__act",
+        "GROUP BY o.__file, o.__row, o.__act) WHERE NOT (__unsettled AND __settles)",
         materialize=True,
     )
     # Two different changes of one key at one position and sequence cannot be ordered (an insert
@@ -113,15 +125,25 @@ def dedupe_rows(plan: Plan) -> Plan:
     plan = plan.add(
         "dedupe",
         "fates",
-        "SELECT __file, __row, __act, __fate, __versions, __earlier_run, __other_fields FROM ("
+        "SELECT __file, __row, __act, __fate, __versions, __earlier_run, __other_fields, __unsettled FROM ("
         "SELECT *, row_number() OVER (PARTITION BY __file, __row ORDER BY __rank) AS __n FROM ("
         f"SELECT __file, __row, __act, 'ambiguous' AS __fate, __acts AS __versions, "
-        f"CAST(NULL AS VARCHAR) AS __earlier_run, FALSE AS __other_fields, 0 AS __rank "
+        f"CAST(NULL AS VARCHAR) AS __earlier_run, FALSE AS __other_fields, FALSE AS __unsettled, 0 AS __rank "
         f"FROM {plan.rel('ambiguous')} UNION ALL "
-        "SELECT __file, __row, __act, CASE WHEN __same THEN 'duplicate' ELSE 'conflict' END, 1, __earlier_run, "
-        f"__other_fields, 1 FROM {plan.rel('seen')} UNION ALL "
-        "SELECT __file, __row, __act, __fate, __versions, CAST(NULL AS VARCHAR), FALSE, 2 "
+        "SELECT __file, __row, __act, CASE WHEN __same AND NOT __unsettled THEN 'duplicate' ELSE 'conflict' END, 1, "
+        f"__earlier_run, __other_fields, __unsettled, 1 FROM {plan.rel('seen')} UNION ALL "
+        "SELECT __file, __row, __act, __fate, __versions, CAST(NULL AS VARCHAR), FALSE, FALSE, 2 "
         f"FROM {plan.rel('repeat_fates')} WHERE __fate <> 'keep')) WHERE __n = 1",
+        materialize=True,
+    )
+    # the identities of this run's conflicts (no earlier run involved), and each version's digest:
+    # the index remembers them, so that a later delivery of one version does not settle them
+    keep_cols = ", ".join(f"o.{c}" for c in ["__pos", "__seq", "__act", *keys])
+    plan = plan.add(
+        "dedupe",
+        "conflicted",
+        f"SELECT {keep_cols}, {plan.content('o.')} AS __content FROM {ordered} o JOIN {plan.rel('fates')} f "
+        "ON o.__file = f.__file AND o.__row = f.__row WHERE f.__fate = 'conflict' AND f.__earlier_run IS NULL",
         materialize=True,
     )
     sql = (

@@ -223,6 +223,48 @@ def test_columns_without_an_alias_are_named_as_the_engine_names_them(tmp_path: P
     assert whole["complete"] and whole["value"] == ["shop.orders.amount"]
 
 
+#: expressions sqlglot writes otherwise than the file does, where the engine's name (or its
+#: answer) follows the text: len -> length, ** -> power, string_agg -> listagg, and an arrow
+#: lambda, which DuckDB 2 refuses and sqlglot rewrites into the lambda keyword
+AS_WRITTEN = (
+    "SELECT o.id, len(o.status), o.amount ** 2, string_agg(o.status, ',') OVER (), "
+    "date_trunc('month', DATE '2026-03-01') FROM shop.orders o"
+)
+ARROW = "SELECT list_transform([o.id], x -> x + 1) AS ids FROM shop.orders o"
+
+
+@pytest.mark.parametrize("size", ["here", "process"])
+def test_a_duckdb_model_is_bound_as_its_file_writes_it(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, size: str
+) -> None:
+    """DuckDB as the oracle, given the files' own text: the engine names a model's unaliased
+    columns from the text as written, and refuses what it refuses in it. Before, it was given
+    sqlglot's writing of the parsed query: len(o.status) was named length(o.status), so a reader of
+    the engine's name was "not in schema", and an arrow lambda, which DuckDB 2 refuses, was traced
+    as complete. The same in the build's process and in a process of its own."""
+    import duckdb
+
+    from cdcnorm.lineage import binding
+
+    con = _cases_schema_in_duckdb()
+    con.execute(f"CREATE VIEW written AS {AS_WRITTEN}")
+    described = [r[0] for r in con.execute("DESCRIBE written").fetchall()]
+    assert described[1:3] == ["len(o.status)", "(o.amount ** 2)"]
+    with pytest.raises(duckdb.BinderException, match="lambda"):
+        con.execute(f"CREATE VIEW arrow AS {ARROW}")
+    reader = 'SELECT w."len(o.status)" AS n FROM written w'
+    if size == "process":
+        monkeypatch.setattr(binding, "PROCESS_MODELS", 0)
+    project = project_from(
+        tmp_path,
+        {"written.sql": f"CREATE VIEW written AS {AS_WRITTEN};", "arrow.sql": ARROW, "reader.sql": reader},
+        CASES["schema"],
+    )
+    assert project.models["written"].columns == described
+    assert [(d.model, d.reason) for d in project.diagnostics] == [("arrow", "refused by the engine")]
+    assert trace(project, "reader.n")["complete"] and not trace(project, "arrow.ids")["complete"]
+
+
 @pytest.mark.parametrize("case", CASES["cases"], ids=[c["name"] for c in CASES["cases"]])
 def test_model_columns_are_named_as_duckdb_names_the_views_columns(
     case: dict[str, Any], tmp_path: Path
@@ -239,7 +281,7 @@ def test_model_columns_are_named_as_duckdb_names_the_views_columns(
         if not sts or any(s.kind not in ("create", "select") for s in sts):
             continue  # INSERT and MERGE change a table: nothing to describe
         st = sts[0]
-        sql = st.statement.sql("duckdb")
+        sql = st.text or st.statement.sql("duckdb")  # the file's own text, as the engine would run it
         con.execute(sql if st.kind == "create" else f'CREATE VIEW "{model}" AS {sql}')
         described = [r[0] for r in con.execute(f'DESCRIBE "{model}"').fetchall()]
         assert described == project.models[model].columns, model

@@ -625,7 +625,7 @@ def _build_project(
     unknown_tables: set[str] = set()
     # the engine binds DuckDB's models as they are (a simulated edit is impact's binding check's)
     binder = (
-        EngineCheck(tables_to_bind(catalog.tables.values(), loaded.declared), len(order))
+        EngineCheck(tables_to_bind(catalog.tables.values(), loaded.declared), len(order), dialect)
         if dialect == "duckdb" and not edits
         else None
     )

@@ -32,6 +32,8 @@ class ModelStatement:
     statement: exp.Expr
     query: exp.Expr | None  # the SELECT / set operation feeding the target (None for MERGE)
     columns: list[str] | None = None  # explicit column list (CREATE VIEW v (a, b), INSERT INTO t (a, b))
+    #: the statement's own text in its file, when its tokens tell it (``statement_query`` reads it back)
+    text: str | None = None
 
     @property
     def name(self) -> str:
@@ -156,8 +158,11 @@ def load_model_file(path: Path, dialect: str, root: Path | None = None) -> Loade
         out.diagnostics.append(Diagnostic(shown, line, path.stem, "parse error", message))
         out.unparsed[shown] = _words(tokens)
         return out
-    stmts = [s for s in statements if s is not None]
-    for i, stmt in enumerate(stmts):
+    # each statement's text, where the statements and the groups of tokens between semicolons are
+    # as many (a comment after the last semicolon, say, parses as one statement more: then none)
+    texts = [sql[t[0].start : t[-1].end + 1] for t in each] if len(each) == len(statements) else []
+    stmts = [(s, texts[k] if texts else None) for k, s in enumerate(statements) if s is not None]
+    for i, (stmt, own_text) in enumerate(stmts):
         line = lines[i] if i < len(lines) else 1
         if isinstance(
             stmt, (exp.Alias, exp.Column, exp.Identifier, exp.Literal, exp.Paren, exp.Binary, exp.Func)
@@ -193,6 +198,8 @@ def load_model_file(path: Path, dialect: str, root: Path | None = None) -> Loade
             out.unparsed[shown] = None if words is None or known is None else known | words
             continue
         ms = _classify(stmt, path.stem, shown, line, dialect)
+        if ms is not None:
+            ms.text = own_text
         if ms is None and isinstance(stmt, exp.Create) and isinstance(stmt.this, exp.Schema):
             typed = _declared_columns(stmt, dialect)
             if typed and isinstance(stmt.this.this, exp.Table):
@@ -208,6 +215,23 @@ def load_model_file(path: Path, dialect: str, root: Path | None = None) -> Loade
             continue
         out.statements.append(ms)
     return out
+
+
+def statement_query(text: str, dialect: str, target: tuple[str, ...]) -> exp.Expr | None:
+    """The query of a CREATE ... AS or a SELECT model from its statement's text (``ModelStatement.text``),
+    parsed again, as the loader takes it; None when the text does not parse to one such statement
+    of that target (a CREATE of another name), which no loaded statement's text does."""
+    try:
+        with _quiet_parser():
+            parsed = sqlglot.parse(text, read=dialect)
+    except (ParseError, TokenError):
+        return None
+    if len(parsed) != 1 or parsed[0] is None:
+        return None
+    ms = _classify(parsed[0], target[-1], "", 1, dialect)
+    if ms is None or ms.kind not in ("create", "select") or (ms.kind == "create" and ms.target != target):
+        return None
+    return ms.query
 
 
 def _classify(stmt: exp.Expr, stem: str, file: str, line: int, dialect: str) -> ModelStatement | None:

@@ -294,12 +294,22 @@ def unsupported(stmt: exp.Expr) -> str | None:
 @contextlib.contextmanager
 def paused_gc() -> Iterator[None]:
     """The build makes millions of objects that all live on (parsed models, the graph): the cyclic
-    collector's passes over them would find nothing to free, so it waits until the build is done."""
+    collector's passes over them would find nothing to free, so it waits until the build is done.
+
+    Then they go straight to the collector's oldest generation (``gc.freeze`` then ``gc.unfreeze``,
+    which moves them there and clears the young generation's count): re-enabled as they were, the
+    collector made two full passes over them, one at once and one at the first question (1.1 s
+    and 1.7 s after a 2,000-model build). The build's own scratch in cycles (the qualified copies
+    of the queries: 1.6 million objects for 2,000 models) goes at the oldest generation's next pass. An application that froze
+    objects itself keeps them frozen: then this is not done."""
     was = gc.isenabled()
     gc.disable()
     try:
         yield
     finally:
+        if gc.get_freeze_count() == 0:
+            gc.freeze()
+            gc.unfreeze()
         if was:
             gc.enable()
 

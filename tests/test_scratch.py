@@ -227,3 +227,28 @@ def test_a_small_limit_runs_fewer_threads_unless_told() -> None:
     assert threads(DuckDBEngine(memory_limit="300MB", threads=2)) == 2
     big = DuckDBEngine(memory_limit="16GB")
     assert threads(big) == min(cores, max(1, (int(16e9) - (256 << 20)) // THREAD_MEMORY))
+
+
+@pytest.mark.parametrize("shared", [False, True])
+def test_a_json_write_on_one_thread_leaves_the_engine_as_it_was(tmp_path: Path, shared: bool) -> None:
+    """A JSON write's rows are made on every thread and written on one (the engine's JSON writer
+    spun on two); the rows and their order are the query's (Python's json module reads them back),
+    the thread count is the engine's again after, no table is left over. While the database works
+    on two connections (small tables side by side), the thread count, which is the database's, is
+    not touched."""
+    from cdcnorm.engines.duckdb import DuckDBEngine
+
+    engine = DuckDBEngine(memory_limit="1GB", threads=2)
+    engine._shared = shared
+    query = "SELECT i AS n, 'r' || i AS t FROM range(200000) r(i) ORDER BY i DESC"
+    assert engine.copy(query, tmp_path / "out.jsonl", "json") == 200000
+    lines = (tmp_path / "out.jsonl").read_text().splitlines()
+    assert [json.loads(x) for x in lines[:2]] == [
+        {"n": 199999, "t": "r199999"},
+        {"n": 199998, "t": "r199998"},
+    ]
+    assert [json.loads(x)["n"] for x in lines] == list(range(199999, -1, -1))
+    assert engine.threads() == 2
+    assert engine.rows("SELECT count(*) FROM duckdb_tables() WHERE table_name LIKE '__cdcnorm_json%'") == [
+        (0,)
+    ]

@@ -174,6 +174,22 @@ def test_float_date_time_text_json(convert: ConvertFn) -> None:
     t = type_values(convert, "time", ["08:00:00", "23:59:59.5", "24:00:00", "08:00:00.1234567", "8:00:00"])
     assert [v for v, _ in t[:2]] == ["08:00:00", "23:59:59.5"]
     assert t[2][0] is None and t[3][1] == "more than 6 fractional digits (would truncate)" and t[4][0] is None
+    # RFC 3339 section 5.6's grammar (from memory): time-hour 00-23, time-minute 00-59,
+    # time-second up to 60 only for a leap second, which a time of day without its date cannot be;
+    # a time-numoffset is a time-hour and a time-minute. Python's time agrees on the ranges.
+    with pytest.raises(ValueError):
+        dt.time.fromisoformat("24:00:00")
+    r = type_values(
+        convert, "time", ["24:00:00", "12:61:00", "23:59:60", "12:00:61", "12:00:00+24:00", "8:00"]
+    )
+    assert [why for _, why in r] == [
+        "hour 24 out of range (00-23)",
+        "minute 61 out of range (00-59)",
+        "second 60, a leap second: taken in a timestamp, whose date tells it, not in a time of day",
+        "second 61 out of range (00-59)",
+        "offset out of range (-23:59 to +23:59)",
+        "not an HH:MM:SS[.ffffff][offset] time",
+    ]
     # RFC 3339 section 4.2: 18:50:00-04:00 is the same time as 22:50:00Z; offsets wrap around midnight
     z = type_values(convert, "time", ["18:50:00-04:00", "22:50:00Z", "00:30:00+01:00", "23:30:00.25-01:30"])
     assert [v for v, _ in z] == ["22:50:00", "22:50:00", "23:30:00", "01:00:00.25"]

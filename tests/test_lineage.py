@@ -367,3 +367,22 @@ def test_the_engine_check_in_a_process_of_its_own_gives_the_same_answers(
     monkeypatch.setattr(binding, "PROCESS_MODELS", 0)
     assert answers("b") == here
     assert len(here[0]) == 4 and here[1][1] == "CAST(o.amount AS INTEGER)" and here[2]
+
+
+def test_the_query_of_a_statement_is_read_from_its_own_text() -> None:
+    """What the binder gives DuckDB of a statement's text: all of a query; the part after a
+    CREATE's own AS (not one inside a column list, a CTE or a quoted name); nothing for a statement
+    that is no model's, or, parsed again, for the text of another model than the one named."""
+    from cdcnorm.lineage.binding import _query_text
+    from cdcnorm.lineage.models import statement_query
+
+    text = 'CREATE OR REPLACE VIEW mart."as" (a, b) AS WITH x AS (SELECT 1 AS a, 2 AS b) SELECT * FROM x;'
+    assert _query_text(text, "duckdb") == "WITH x AS (SELECT 1 AS a, 2 AS b) SELECT * FROM x"
+    assert _query_text("SELECT 1 AS a -- why\n, 2 AS b ;", "duckdb") == "SELECT 1 AS a -- why\n, 2 AS b"
+    assert _query_text("FROM t SELECT a", "duckdb") == "FROM t SELECT a"
+    assert _query_text("SELECT 1", "postgres") is None  # another dialect: sqlglot writes DuckDB's
+    assert _query_text("INSERT INTO t SELECT 1", "duckdb") is None
+    got = statement_query(text, "duckdb", ("mart", "as"))
+    assert got is not None and got.sql("duckdb") == "WITH x AS (SELECT 1 AS a, 2 AS b) SELECT * FROM x"
+    assert statement_query(text, "duckdb", ("mart", "other")) is None
+    assert statement_query("SELECT 1 AS a; SELECT 2 AS b", "duckdb", ("m",)) is None

@@ -141,15 +141,12 @@ class Binder:
                 _create(self.con, parts, columns)
 
     def bind(self, job: Job) -> Bound:
-        query_expr, columns, target = job
-        written = _query_text(*query_expr) if isinstance(query_expr, tuple) else None
-        if isinstance(query_expr, tuple) and written is None:  # parsed here, as the loader did
-            query_expr = statement_query(*query_expr, target) or exp.Null()
-            if isinstance(query_expr, exp.Null):
-                return None
+        given, columns, target = job
         try:
-            query = written or _in_duckdb(query_expr)  # type: ignore[arg-type]
+            query = self._sql_of(given, target)
         except sqlglot.errors.SqlglotError:
+            return None
+        if query is None:
             return None
         named = f" AS q({', '.join(ident(c) for c in columns)})" if columns else ""
         try:
@@ -166,6 +163,19 @@ class Binder:
 
     def close(self) -> None:
         self.con.close()
+
+    @staticmethod
+    def _sql_of(given: exp.Expr | tuple[str, str], target: tuple[str, ...]) -> str | None:
+        """The model's query as DuckDB SQL: a DuckDB statement's own text, else sqlglot's writing
+        of the parsed query (parsed here, as the loader did, when it came as text); None when the
+        text is not the model's statement."""
+        if not isinstance(given, tuple):
+            return _in_duckdb(given)
+        written = _query_text(*given)
+        if written is not None:
+            return written
+        parsed = statement_query(*given, target)
+        return None if parsed is None else _in_duckdb(parsed)
 
 
 def tables_to_bind(

@@ -50,6 +50,10 @@ def test_timestamp_forms_and_rejections(convert: ConvertFn) -> None:
         "2026-02-30T08:00:00Z",  # no such day
         "2026-03-01T24:00:00Z",  # hours are 00-23 (section 5.6)
         "01/03/2026 08:00",
+        "2026-13-01T08:00:00Z",  # date-month 01-12 (section 5.6)
+        "2026-03-01T08:60:00Z",  # time-minute 00-59
+        "2026-03-01T08:00:61Z",  # time-second up to 60, a leap second
+        "2026-03-01T08:00:00+24:00",  # an offset's hour is a time-hour
     ]
     got = type_values(convert, "timestamp", raw)
     assert got[0] == ("2026-03-01T08:00:00Z", None)
@@ -58,8 +62,17 @@ def test_timestamp_forms_and_rejections(convert: ConvertFn) -> None:
     assert got[3] == ("2026-03-01T08:00:00.123456Z", None)
     assert got[4][1] == "more than 6 fractional digits (would truncate)"
     assert got[5][1] == "no such calendar date"
-    assert got[6][1] == "not an RFC 3339 timestamp"
+    assert got[6][1] == "hour 24 out of range (00-23)"  # it said "not an RFC 3339 timestamp"
     assert got[7][1] == "not an RFC 3339 timestamp"
+    assert [why for _, why in got[8:]] == [
+        "month 13 out of range (01-12)",
+        "minute 60 out of range (00-59)",
+        "second 61 out of range (00-60, 60 only for a leap second)",
+        "offset out of range (-23:59 to +23:59)",
+    ]
+    for parts in ((2026, 3, 1, 24), (2026, 13, 1, 8), (2026, 3, 1, 8, 60)):  # Python's datetime agrees
+        with pytest.raises(ValueError):
+            dt.datetime(*parts)
 
 
 def test_timestamp_zone_for_values_without_offset(convert: ConvertFn) -> None:
@@ -177,8 +190,9 @@ def test_float_date_time_text_json(convert: ConvertFn) -> None:
     # RFC 3339 section 5.6's grammar (from memory): time-hour 00-23, time-minute 00-59,
     # time-second up to 60 only for a leap second, which a time of day without its date cannot be;
     # a time-numoffset is a time-hour and a time-minute. Python's time agrees on the ranges.
-    with pytest.raises(ValueError):
-        dt.time.fromisoformat("24:00:00")
+    for hms in ((24, 0, 0), (12, 61, 0), (23, 59, 60)):
+        with pytest.raises(ValueError):
+            dt.time(*hms)
     r = type_values(
         convert, "time", ["24:00:00", "12:61:00", "23:59:60", "12:00:61", "12:00:00+24:00", "8:00"]
     )

@@ -94,8 +94,30 @@ def timestamp_explain(x: str, zone: str = "+00:00") -> str:
         f"AND TRY_CAST(substr({x}, 1, 10) AS DATE) IS NOT NULL "
         "THEN 'outside the years 0001 to 9999 in UTC' "
         f"WHEN regexp_full_match({x}, {PATTERN}) THEN 'no such calendar date' "
+        f"{_out_of_range(x)}"
         "ELSE 'not an RFC 3339 timestamp' END"
     )
+
+
+def _out_of_range(x: str) -> str:
+    """SQL: CASE branches naming the part out of range of a value of RFC 3339's shape (section 5.6,
+    from memory: date-month 01-12, time-hour 00-23, time-minute 00-59, time-second up to 60, a leap
+    second; an offset's hour and minute likewise)."""
+    shaped = (
+        f"regexp_full_match({x}, '[0-9]{{4}}-[0-9]{{2}}-[0-9]{{2}}[Tt ][0-9]{{2}}:[0-9]{{2}}:[0-9]{{2}}"
+        "(\\.[0-9]+)?([Zz]|[+-][0-9]{2}(:?[0-9]{2})?)?')"
+    )
+    checks = [(6, "month", "01-12", "NOT BETWEEN '01' AND '12'"), (12, "hour", "00-23", "> '23'")]
+    checks += [
+        (15, "minute", "00-59", "> '59'"),
+        (18, "second", "00-60, 60 only for a leap second", "> '60'"),
+    ]
+    out = "".join(
+        f"WHEN {shaped} AND substr({x}, {at}, 2) {test} "
+        f"THEN '{what} ' || substr({x}, {at}, 2) || ' out of range ({allowed})' "
+        for at, what, allowed, test in checks
+    )
+    return out + f"WHEN {shaped} THEN 'offset out of range (-23:59 to +23:59)' "
 
 
 def timestamp_render(v: str) -> str:

@@ -286,6 +286,12 @@ def _quarantined(landing: Path, run: str) -> list[dict[str, Any]]:
     return [json.loads(x) for x in path.read_text(encoding="utf-8").splitlines()]
 
 
+def _run_into(landing: Path, m: Path, *paths: Path) -> str:
+    """Convert into the landing area (exit 0); the run's name."""
+    assert cli("convert", "--quiet", "--mappings", str(m), *map(str, paths), "--out", str(landing)) == 0
+    return str(last_run(landing)["run"])
+
+
 def test_a_conflict_stays_one_until_a_version_is_fed_back(tmp_path: Path) -> None:
     # run 1: two exports disagree on cabin A1 at position 1, so both versions are quarantined;
     # a later delivery of either version alone must not settle it without a word
@@ -299,15 +305,11 @@ def test_a_conflict_stays_one_until_a_version_is_fed_back(tmp_path: Path) -> Non
         },
     )
 
-    def convert(*paths: Path) -> str:
-        assert cli("convert", "--quiet", "--mappings", str(m), *map(str, paths), "--out", str(landing)) == 0
-        return str(last_run(landing)["run"])
-
-    run1 = convert(p["c-live.csv"], p["c-archive.csv"])
+    run1 = _run_into(landing, m, p["c-live.csv"], p["c-archive.csv"])
     assert _totals(landing)[-1]["quarantined"] == 2 and {
         e["key"]["cabin"] for e in _events(landing, "t.cabins")
     } == {"B2"}
-    run2 = convert(p["c-again.csv"])
+    run2 = _run_into(landing, m, p["c-again.csv"])
     (q,) = _quarantined(landing, run2)
     assert q["cabin"] == "A1" and q["deck"] == "2"
     reason = q["_cdcnorm"]["reasons"][0]
@@ -326,12 +328,12 @@ def test_a_conflict_stays_one_until_a_version_is_fed_back(tmp_path: Path) -> Non
     fix = tmp_path / "fix" / "t.cabins" / "chosen.jsonl"
     fix.parent.mkdir(parents=True)
     fix.write_text(chosen[0] + "\n")
-    run3 = convert(fix)
+    run3 = _run_into(landing, m, fix)
     settled = [e for e in _events(landing, "t.cabins") if e["key"]["cabin"] == "A1"]
     assert [(e["values"]["deck"], e["origin"]["file"]) for e in settled] == [(1, "chosen.jsonl")]
     # from then on a delivery is compared with what was emitted: the same version is a duplicate,
     # the other a conflict with the run that emitted it
-    convert(p["c-later.csv"])
+    _run_into(landing, m, p["c-later.csv"])
     total = _totals(landing)[-1]
     assert total["duplicate"] == 1 and total["quarantined"] == 1 and total["emitted"] == 1
     (q,) = _quarantined(landing, str(last_run(landing)["run"]))
@@ -340,44 +342,16 @@ def test_a_conflict_stays_one_until_a_version_is_fed_back(tmp_path: Path) -> Non
 
 def test_both_versions_fed_back_stay_a_conflict(tmp_path: Path) -> None:
     m, landing, p = _landing_cli(tmp_path, {"c-live.csv": "I,1,A1,1\n", "c-archive.csv": "I,1,A1,2\n"})
-    assert (
-        cli(
-            "convert",
-            "--quiet",
-            "--mappings",
-            str(m),
-            str(p["c-live.csv"]),
-            str(p["c-archive.csv"]),
-            "--out",
-            str(landing),
-        )
-        == 0
-    )
-    run1 = str(last_run(landing)["run"])
+    run1 = _run_into(landing, m, p["c-live.csv"], p["c-archive.csv"])
     fix = tmp_path / "fix" / "t.cabins" / "both.jsonl"
     fix.parent.mkdir(parents=True)
     fix.write_bytes((landing / "quarantine" / "t.cabins" / f"{run1}.jsonl").read_bytes())
-    assert cli("convert", "--quiet", "--mappings", str(m), str(fix), "--out", str(landing)) == 0
-    run2 = str(last_run(landing)["run"])
+    run2 = _run_into(landing, m, fix)
     assert _totals(landing)[-1]["quarantined"] == 2 and not _events(landing, "t.cabins")
-    assert [q["_cdcnorm"]["reasons"][0]["reason"] for q in _quarantined(landing, run2)] == [
-        "conflict",
-        "conflict",
-    ]
+    assert [q["_cdcnorm"]["reasons"][0]["reason"] for q in _quarantined(landing, run2)] == ["conflict"] * 2
     # remembered again: a later delivery of one version is still held
-    (tmp_path / "in" / "c-again.csv").write_text("op,pos,cabin,deck\nI,1,A1,1\nI,2,B2,1\n")
-    assert (
-        cli(
-            "convert",
-            "--quiet",
-            "--mappings",
-            str(m),
-            str(tmp_path / "in" / "c-again.csv"),
-            "--out",
-            str(landing),
-        )
-        == 0
-    )
+    (again := tmp_path / "in" / "c-again.csv").write_text("op,pos,cabin,deck\nI,1,A1,1\nI,2,B2,1\n")
+    _run_into(landing, m, again)
     assert _totals(landing)[-1]["quarantined"] == 1
     assert [e["key"]["cabin"] for e in _events(landing, "t.cabins")] == ["B2"]
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import lzma
 from collections.abc import Collection, Iterator
 from pathlib import Path
+from typing import BinaryIO
 
 import pyarrow as pa
 
@@ -84,30 +85,28 @@ def _fail(path: Path, e: Exception) -> InputError:
     return InputError(f"cannot read this file: {what} ({first})", file=str(path))
 
 
+def _opened(path: Path, codec: str | None) -> BinaryIO | pa.NativeFile:
+    """The file's bytes as a stream: the plain file as it is (a tenth of the cost of a stream per
+    call, for many small files), xz through Python's lzma module, the others through pyarrow's."""
+    if codec is None:
+        return open(path, "rb")
+    if codec == "xz":
+        return lzma.open(path, "rb")
+    return pa.input_stream(str(path), compression=codec)
+
+
 def blocks(path: Path, size: int = BLOCK) -> Iterator[bytes]:
-    """The file's bytes, decompressed, in blocks; a corrupt archive is an InputError naming it."""
+    """The file's bytes, decompressed, in blocks; a corrupt archive is an InputError naming it, and
+    so is an archive its name does not say it is (``misnamed_archive``)."""
     codec = compression(path)
     try:
-        if codec is None:  # the plain file: a tenth of the cost of a stream per call, for many small files
-            with open(path, "rb") as plain:
-                first = True
-                while block := plain.read(size):
-                    if first and (misnamed := misnamed_archive(path, block)):
-                        raise misnamed
-                    first = False
-                    yield block
-            return
-        if codec == "xz":
-            with lzma.open(path, "rb") as packed:
-                while block := packed.read(size):
-                    yield block
-            return
-        with pa.input_stream(str(path), compression=codec) as stream:
-            while True:
-                block = stream.read(size)
-                if not block:
-                    return
+        with _opened(path, codec) as stream:
+            block = stream.read(size)
+            if codec is None and (misnamed := misnamed_archive(path, block)):
+                raise misnamed
+            while block:
                 yield block
+                block = stream.read(size)
     except (OSError, pa.ArrowException, EOFError, ValueError, lzma.LZMAError) as e:
         raise _fail(path, e) from None
 

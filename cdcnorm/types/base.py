@@ -72,3 +72,18 @@ class FieldType:
     def unrender(self, v: str) -> str:
         """SQL: the typed value of ``v``, the rendered form read as ``form_type``: ``render``'s inverse."""
         return v
+
+
+#: An offset out of range, the last part a value of the right shape can have wrong.
+OFFSET_OUT_OF_RANGE = "'offset out of range (-23:59 to +23:59)'"
+
+
+def out_of_range(x: str, shaped: str, checks: list[tuple[int, str, str, str]]) -> str:
+    """SQL: CASE branches naming the part out of range of a time or timestamp text ``x`` of the
+    right shape (``shaped``, SQL): for each check (position, part, test, why), the two characters
+    at that position failing the test give ``<part> <value><why>``; then the offset."""
+    branches = "".join(
+        f"WHEN {shaped} AND substr({x}, {at}, 2) {test} THEN '{part} ' || substr({x}, {at}, 2) || '{why}' "
+        for at, part, test, why in checks
+    )
+    return f"{branches}WHEN {shaped} THEN {OFFSET_OUT_OF_RANGE} "

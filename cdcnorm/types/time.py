@@ -1,6 +1,6 @@
 from __future__ import annotations
 
-from cdcnorm.types.base import FieldType
+from cdcnorm.types.base import FieldType, out_of_range
 
 # RFC 3339 partial-time (hours 00-23, minutes 00-59, seconds 00-59, a fraction of up to
 # microseconds; further digits must be zeros: nothing is truncated), optionally with a
@@ -30,23 +30,20 @@ class TimeType(FieldType):
         # a value of the right shape whose parts are out of range is told which (RFC 3339 section
         # 5.6: time-hour 00-23, time-minute 00-59, time-second 00-58, 59 or 60 where a leap second
         # falls, which only a date can tell: a timestamp takes it, a time of day cannot)
-
-        def part(at: int) -> str:
-            return f"substr({x}, {at}, 2)"
-
         shaped = (
             rf"regexp_full_match({x}, '[0-9]{{2}}:[0-9]{{2}}:[0-9]{{2}}(\.[0-9]{{1,6}}0*)?"
             rf"([Zz]|[+-][0-9]{{2}}:[0-9]{{2}})?')"
         )
+        leap = ", a leap second: taken in a timestamp, whose date tells it, not in a time of day"
+        checks = [
+            (1, "hour", "> '23'", " out of range (00-23)"),
+            (4, "minute", "> '59'", " out of range (00-59)"),
+        ]
+        checks += [(7, "second", "= '60'", leap), (7, "second", "> '59'", " out of range (00-59)")]
         return (
             rf"CASE WHEN regexp_full_match({x}, '[0-9]{{2}}:[0-9]{{2}}:[0-9]{{2}}\.[0-9]{{7,}}.*') "
             "THEN 'more than 6 fractional digits (would truncate)' "
-            f"WHEN {shaped} AND {part(1)} > '23' THEN 'hour ' || {part(1)} || ' out of range (00-23)' "
-            f"WHEN {shaped} AND {part(4)} > '59' THEN 'minute ' || {part(4)} || ' out of range (00-59)' "
-            f"WHEN {shaped} AND {part(7)} = '60' "
-            "THEN 'second 60, a leap second: taken in a timestamp, whose date tells it, not in a time of day' "
-            f"WHEN {shaped} AND {part(7)} > '59' THEN 'second ' || {part(7)} || ' out of range (00-59)' "
-            f"WHEN {shaped} THEN 'offset out of range (-23:59 to +23:59)' "
+            f"{out_of_range(x, shaped, checks)}"
             "ELSE 'not an HH:MM:SS[.ffffff][offset] time' END"
         )
 

@@ -2,7 +2,7 @@ from __future__ import annotations
 
 from cdcnorm import zones
 from cdcnorm.sql import lit
-from cdcnorm.types.base import FieldType
+from cdcnorm.types.base import FieldType, out_of_range
 
 # RFC 3339 date-time (section 5.6) with ISO 8601's space separator, lower-case
 # t/z and +hh / +hhmm offsets also accepted. The fraction may have any length,
@@ -107,17 +107,13 @@ def _out_of_range(x: str) -> str:
         f"regexp_full_match({x}, '[0-9]{{4}}-[0-9]{{2}}-[0-9]{{2}}[Tt ][0-9]{{2}}:[0-9]{{2}}:[0-9]{{2}}"
         "(\\.[0-9]+)?([Zz]|[+-][0-9]{2}(:?[0-9]{2})?)?')"
     )
-    checks = [(6, "month", "01-12", "NOT BETWEEN '01' AND '12'"), (12, "hour", "00-23", "> '23'")]
+    checks = [(6, "month", "NOT BETWEEN '01' AND '12'", " out of range (01-12)")]
     checks += [
-        (15, "minute", "00-59", "> '59'"),
-        (18, "second", "00-60, 60 only for a leap second", "> '60'"),
+        (12, "hour", "> '23'", " out of range (00-23)"),
+        (15, "minute", "> '59'", " out of range (00-59)"),
     ]
-    out = "".join(
-        f"WHEN {shaped} AND substr({x}, {at}, 2) {test} "
-        f"THEN '{what} ' || substr({x}, {at}, 2) || ' out of range ({allowed})' "
-        for at, what, allowed, test in checks
-    )
-    return out + f"WHEN {shaped} THEN 'offset out of range (-23:59 to +23:59)' "
+    checks += [(18, "second", "> '60'", " out of range (00-60, 60 only for a leap second)")]
+    return out_of_range(x, shaped, checks)
 
 
 def timestamp_render(v: str) -> str:

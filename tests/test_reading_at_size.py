@@ -237,6 +237,15 @@ def test_xz_and_lz4_files_are_read_transparently(convert: ConvertFn) -> None:
     assert done.ledger()["balanced"] and done.ledger()["total"]["read"] == 6
 
 
+@pytest.mark.parametrize("name", ["n.csv.gz", "n.csv.bz2", "n.csv.xz", "n.csv.lz4"])
+def test_a_compressed_file_of_no_bytes_is_an_empty_file(convert: ConvertFn, name: str) -> None:
+    # a transfer that wrote nothing: read as 0 rows with the empty file's note, whatever the codec
+    # (Python's lzma module calls it a truncated archive; pyarrow's streams read it as no bytes)
+    done = convert(PLAIN, {name: b"", "n1.csv": csv_at(1)})
+    assert done.ledger()["balanced"] and done.ledger()["total"]["read"] == 3
+    assert {"table": "t.notes", "file": name, "note": "the file is empty"} in last_run(done.out)["notes"]
+
+
 def _parquet_bytes() -> bytes:
     sink = io.BytesIO()
     pq.write_table(pa.table({"op": ["I"], "pos": ["1"], "id": ["1"], "a": ["x"]}), sink)

@@ -100,6 +100,8 @@ def blocks(path: Path, size: int = BLOCK) -> Iterator[bytes]:
     so is an archive its name does not say it is (``misnamed_archive``)."""
     codec = compression(path)
     try:
+        if path.stat().st_size == 0:  # no bytes, whatever the name: an empty file (lzma calls it truncated)
+            return
         with _opened(path, codec) as stream:
             block = stream.read(size)
             if codec is None and (misnamed := misnamed_archive(path, block)):

@@ -230,18 +230,23 @@ def test_a_small_limit_runs_fewer_threads_unless_told() -> None:
 
 
 @pytest.mark.parametrize("shared", [False, True])
-def test_a_json_write_on_one_thread_leaves_the_engine_as_it_was(tmp_path: Path, shared: bool) -> None:
-    """A JSON write's rows are made on every thread and written on one (the engine's JSON writer
-    spun on two); the rows and their order are the query's (Python's json module reads them back),
-    the thread count is the engine's again after, no table is left over. While the database works
-    on two connections (small tables side by side), the thread count, which is the database's, is
-    not touched."""
+@pytest.mark.parametrize("fmt", ["json", "lines"])
+def test_a_write_of_lines_on_one_thread_leaves_the_engine_as_it_was(
+    tmp_path: Path, shared: bool, fmt: str
+) -> None:
+    """A JSON write's lines are made on every thread and written on one (the engine's writers of
+    text spun on two); the rows and their order are the query's (Python's json module reads them
+    back), the thread count is the engine's again after, no table is left over. While the database
+    works on two connections (small tables side by side), the thread count, which is the
+    database's, is not touched."""
     from cdcnorm.engines.duckdb import DuckDBEngine
 
     engine = DuckDBEngine(memory_limit="1GB", threads=2)
     engine._shared = shared
     query = "SELECT i AS n, 'r' || i AS t FROM range(200000) r(i) ORDER BY i DESC"
-    assert engine.copy(query, tmp_path / "out.jsonl", "json") == 200000
+    if fmt == "lines":
+        query = f"SELECT CAST(to_json(q) AS VARCHAR) AS line FROM ({query}) q"
+    assert engine.copy(query, tmp_path / "out.jsonl", fmt) == 200000
     lines = (tmp_path / "out.jsonl").read_text().splitlines()
     assert [json.loads(x) for x in lines[:2]] == [
         {"n": 199999, "t": "r199999"},
@@ -249,6 +254,49 @@ def test_a_json_write_on_one_thread_leaves_the_engine_as_it_was(tmp_path: Path, 
     ]
     assert [json.loads(x)["n"] for x in lines] == list(range(199999, -1, -1))
     assert engine.threads() == 2
-    assert engine.rows("SELECT count(*) FROM duckdb_tables() WHERE table_name LIKE '__cdcnorm_json%'") == [
+    assert engine.rows("SELECT count(*) FROM duckdb_tables() WHERE table_name LIKE '__cdcnorm_lines%'") == [
         (0,)
     ]
+
+
+def test_a_json_write_on_one_thread_writes_the_bytes_of_the_engines_json_writer(tmp_path: Path) -> None:
+    """Lines made by to_json, then written on one thread, are byte for byte what the engine's own
+    JSON writer (COPY ... FORMAT JSON, the oracle) writes for the same rows: names and their order,
+    NULL members, nested structs and lists, text escapes (RFC 8259 section 7: quotes, backslashes,
+    control characters; U+2028 and non-ASCII as they are), numbers, decimals, timestamps."""
+    from cdcnorm.engines.duckdb import DuckDBEngine
+
+    query = (
+        "SELECT i AS n, CASE WHEN i % 3 = 0 THEN NULL ELSE 'r' || i END AS \"a name\", "
+        "chr(1) || chr(10) || chr(13) || chr(9) || '\"\\/é€😀' || chr(8232) || i AS escapes, "
+        "{'s': CASE WHEN i % 2 = 0 THEN NULL ELSE i END, 'l': [i, NULL, -i]} AS nested, "
+        "CAST(i AS DOUBLE) / 7 AS x, CAST(-0.0 AS DOUBLE) AS z, CAST(1e300 AS DOUBLE) AS big, "
+        "CAST(i AS DECIMAL(18,3)) / 8 AS d, i % 2 = 0 AS b, "
+        "TIMESTAMPTZ '2026-03-01 12:00:00+00' + i * INTERVAL 1 SECOND AS ts, DATE '2026-01-02' AS day, "
+        "CAST(NULL AS INTEGER) AS nothing, [] AS empty "
+        "FROM range(50000) r(i) ORDER BY i DESC"
+    )
+    alone = DuckDBEngine(memory_limit="1GB", threads=2)
+    oracle = DuckDBEngine(memory_limit="1GB", threads=2)
+    oracle._shared = True  # the engine's JSON writer itself
+    assert alone.copy(query, tmp_path / "alone.jsonl", "json") == 50000
+    assert oracle.copy(query, tmp_path / "oracle.jsonl", "json") == 50000
+    written = (tmp_path / "alone.jsonl").read_bytes()
+    assert written == (tmp_path / "oracle.jsonl").read_bytes()
+    first = json.loads(written.splitlines()[0])
+    assert list(first) == [
+        "n",
+        "a name",
+        "escapes",
+        "nested",
+        "x",
+        "z",
+        "big",
+        "d",
+        "b",
+        "ts",
+        "day",
+        "nothing",
+        "empty",
+    ]
+    assert first["escapes"] == '\x01\n\r\t"\\/é€😀\u202849999'

@@ -95,6 +95,11 @@ def check_version(version: str = duckdb.__version__, sqlglot_version: str | None
 #: a smaller limit. Measured on the benchmark dump (10 fields): the events' sort failed with two
 #: threads at 107 and 143 MiB of engine memory each, and ran at 179 MiB each (5M rows).
 THREAD_MEMORY = 160 << 20
+#: COPY options of a file of one text per line: written as is (the texts are JSON texts, whose
+#: control characters are escaped, so none holds a line break), no header, no quoting.
+_LINES = "FORMAT CSV, HEADER false, QUOTE '', ESCAPE '', DELIMITER '\x01'"
+#: the alias of a row made one JSON object by ``to_json`` (a JSON write on one thread)
+_ROW = "__cdcnorm_row"
 #: The smallest read buffer of the engine's CSV reader (its longest line, too: see scan_csv).
 CSV_MIN_BUFFER = 4 << 20
 
@@ -486,25 +491,24 @@ class DuckDBEngine:
         """Write a query's rows to ``path`` atomically (temporary name, then rename); rows written."""
         path.parent.mkdir(parents=True, exist_ok=True)
         tmp = path.with_name(f"{path.name}.tmp-{os.getpid()}")
-        # "lines": one text column written as is, one value per line (the values hold no line break:
-        # they are JSON texts, whose control characters are escaped), no header, no quoting.
+        # "lines": one text column written as is, one value per line (see _LINES)
         options = {
             "parquet": "FORMAT PARQUET",
             # RFC 4180 with a header; NULL is an empty field, an empty text is quoted ("")
             "csv": "FORMAT CSV, HEADER true",
             # one JSON object per line (RFC 8259), the columns as its members in order
             "json": "FORMAT JSON",
-            "lines": "FORMAT CSV, HEADER false, QUOTE '', ESCAPE '', DELIMITER '\x01'",
+            "lines": _LINES,
         }[fmt]
         query = self.render(expression)
         if fmt == "parquet":
             query = self._optional_columns(query)
-        alone = fmt == "json" and not self._shared and self.threads() > 1
-        staged = ident(f"__cdcnorm_json_{secrets.token_hex(4)}")
+        alone = fmt in ("json", "lines") and not self._shared and self.threads() > 1
+        staged = ident(f"__cdcnorm_lines_{secrets.token_hex(4)}")
         try:
             with engine_errors(self.temp_directory, f"writing {path.name}", str(path)):
                 if alone:
-                    written = self._json_alone(query, staged, tmp, options)
+                    written = self._lines_alone(query, staged, tmp, fmt)
                 else:
                     written = self.con.execute(f"COPY ({query}) TO {lit(str(tmp))} ({options})").fetchone()
                 os.replace(tmp, path)
@@ -515,17 +519,20 @@ class DuckDBEngine:
             if tmp.exists():
                 tmp.unlink()
 
-    def _json_alone(self, query: str, staged: str, tmp: Path, options: str) -> Any:
-        """COPY to JSON on one thread, from the query's rows made (and sorted) on every thread. On
-        two threads the engine's JSON writer spent most of a large write spinning (sched_yield, in
-        kernel time): the 1M-row benchmark's events took 5.4-7.2 s in most runs, 2.3 s in others;
-        made first, then written on one thread, 2.5-2.6 s in every run (DuckDB 2.0.1); the whole
-        COPY on one thread, sort included, took 7% longer in a whole run."""
-        self.con.execute(f"CREATE TEMP TABLE {staged} AS {query}")
+    def _lines_alone(self, query: str, staged: str, tmp: Path, fmt: str) -> Any:
+        """Write one text per line on one thread, the lines made (a JSON write's ``to_json`` of each
+        row, the text the engine's JSON writer writes) and sorted on every thread first. On two
+        threads the engine's writers of text (JSON and CSV alike) spent most of a large write
+        spinning (sched_yield, in kernel time): the 1M-row benchmark's events took 5.4-7.2 s in most
+        runs, 2.3 s in others; with the rows made first and the JSON written on one thread, 2.6-2.9 s
+        in every run; with the lines made first too, 2.0-2.2 s (DuckDB 2.0.1). The whole COPY on one
+        thread, sort included, took 7% longer in a whole run."""
+        rows = f"SELECT to_json({_ROW}) AS line FROM ({query}) AS {_ROW}" if fmt == "json" else query
+        self.con.execute(f"CREATE TEMP TABLE {staged} AS {rows}")
         threads = self.threads()
         self.con.execute("SET threads = 1")
         try:
-            return self.con.execute(f"COPY {staged} TO {lit(str(tmp))} ({options})").fetchone()
+            return self.con.execute(f"COPY {staged} TO {lit(str(tmp))} ({_LINES})").fetchone()
         finally:
             self.con.execute(f"SET threads = {threads}")
 

@@ -229,20 +229,16 @@ def test_a_small_limit_runs_fewer_threads_unless_told() -> None:
     assert threads(big) == min(cores, max(1, (int(16e9) - (256 << 20)) // THREAD_MEMORY))
 
 
-@pytest.mark.parametrize("shared", [False, True])
 @pytest.mark.parametrize("fmt", ["json", "lines"])
-def test_a_write_of_lines_on_one_thread_leaves_the_engine_as_it_was(
-    tmp_path: Path, shared: bool, fmt: str
+def test_a_write_of_lines_keeps_the_querys_rows_and_order_and_leaves_the_engine_as_it_was(
+    tmp_path: Path, fmt: str
 ) -> None:
-    """A JSON write's lines are made on every thread and written on one (the engine's writers of
-    text spun on two); the rows and their order are the query's (Python's json module reads them
-    back), the thread count is the engine's again after, no table is left over. While the database
-    works on two connections (small tables side by side), the thread count, which is the
-    database's, is not touched."""
+    """A write of lines (streamed from the engine, several batches here) keeps the query's rows and
+    their order (Python's json module reads them back); the engine's thread count is untouched and
+    no table is left over."""
     from cdcnorm.engines.duckdb import DuckDBEngine
 
     engine = DuckDBEngine(memory_limit="1GB", threads=2)
-    engine._shared = shared
     query = "SELECT i AS n, 'r' || i AS t FROM range(200000) r(i) ORDER BY i DESC"
     if fmt == "lines":
         query = f"SELECT CAST(to_json(q) AS VARCHAR) AS line FROM ({query}) q"
@@ -254,36 +250,65 @@ def test_a_write_of_lines_on_one_thread_leaves_the_engine_as_it_was(
     ]
     assert [json.loads(x)["n"] for x in lines] == list(range(199999, -1, -1))
     assert engine.threads() == 2
-    assert engine.rows("SELECT count(*) FROM duckdb_tables() WHERE table_name LIKE '__cdcnorm_lines%'") == [
-        (0,)
-    ]
+    assert engine.rows("SELECT count(*) FROM duckdb_tables()") == [(0,)]
+    assert not list(tmp_path.glob("*.tmp-*"))
 
 
-def test_a_json_write_on_one_thread_writes_the_bytes_of_the_engines_json_writer(tmp_path: Path) -> None:
-    """Lines made by to_json, then written on one thread, are byte for byte what the engine's own
-    JSON writer (COPY ... FORMAT JSON, the oracle) writes for the same rows: names and their order,
-    NULL members, nested structs and lists, text escapes (RFC 8259 section 7: quotes, backslashes,
-    control characters; U+2028 and non-ASCII as they are), numbers, decimals, timestamps."""
+def test_an_error_of_the_engine_while_lines_stream_is_its_error_and_leaves_no_file(tmp_path: Path) -> None:
+    """An error the engine raises while lines stream to the file (Arrow passes it on as an OSError
+    with the engine's words) is the engine's error again: a statement's refusal of its input is an
+    input error (exit 4), not a traceback, and no file, whole or partial, is left."""
+    from cdcnorm.engines.duckdb import DuckDBEngine, refusal
+    from cdcnorm.errors import InputError
+
+    engine = DuckDBEngine(memory_limit="1GB", threads=2)
+    query = f"SELECT CASE WHEN i = 150000 THEN {refusal(chr(39) + 'row 150000 is wrong' + chr(39))} ELSE i END AS n FROM range(200000) r(i)"
+    with pytest.raises(InputError, match="row 150000 is wrong"):
+        engine.copy(query, tmp_path / "out.jsonl", "json")
+    assert list(tmp_path.iterdir()) == []
+
+
+#: the query of the byte for byte test: every kind of value a line of the envelope holds
+_EDGE_ROWS = (
+    "SELECT i AS n, CASE WHEN i % 3 = 0 THEN NULL ELSE 'r' || i END AS \"a name\", "
+    "chr(1) || chr(10) || chr(13) || chr(9) || '\"\\/é€😀' || chr(8232) || i AS escapes, "
+    "{'s': CASE WHEN i % 2 = 0 THEN NULL ELSE i END, 'l': [i, NULL, -i]} AS nested, "
+    "CAST(i AS DOUBLE) / 7 AS x, CAST(-0.0 AS DOUBLE) AS z, CAST(1e300 AS DOUBLE) AS big, "
+    "CAST(i AS DECIMAL(18,3)) / 8 AS d, i % 2 = 0 AS b, "
+    "TIMESTAMPTZ '2026-03-01 12:00:00+00' + i * INTERVAL 1 SECOND AS ts, DATE '2026-01-02' AS day, "
+    "CAST(NULL AS INTEGER) AS nothing, [] AS empty "
+    "FROM range(150000) r(i) ORDER BY i DESC"
+)
+
+
+@pytest.mark.parametrize("fmt", ["json", "lines"])
+def test_a_write_of_lines_writes_the_bytes_of_the_engines_own_writers(tmp_path: Path, fmt: str) -> None:
+    """The streamed lines are byte for byte what the engine's own writers write for the same rows
+    (the oracle: DuckDB's COPY ... FORMAT JSON, and its CSV writer with no quoting for a column of
+    texts): names and their order, NULL members, nested structs and lists, text escapes (RFC 8259
+    section 7: quotes, backslashes, control characters; U+2028 and non-ASCII as they are),
+    numbers, decimals, timestamps; a NULL text is an empty line."""
+    import duckdb
+
     from cdcnorm.engines.duckdb import DuckDBEngine
 
-    query = (
-        "SELECT i AS n, CASE WHEN i % 3 = 0 THEN NULL ELSE 'r' || i END AS \"a name\", "
-        "chr(1) || chr(10) || chr(13) || chr(9) || '\"\\/é€😀' || chr(8232) || i AS escapes, "
-        "{'s': CASE WHEN i % 2 = 0 THEN NULL ELSE i END, 'l': [i, NULL, -i]} AS nested, "
-        "CAST(i AS DOUBLE) / 7 AS x, CAST(-0.0 AS DOUBLE) AS z, CAST(1e300 AS DOUBLE) AS big, "
-        "CAST(i AS DECIMAL(18,3)) / 8 AS d, i % 2 = 0 AS b, "
-        "TIMESTAMPTZ '2026-03-01 12:00:00+00' + i * INTERVAL 1 SECOND AS ts, DATE '2026-01-02' AS day, "
-        "CAST(NULL AS INTEGER) AS nothing, [] AS empty "
-        "FROM range(50000) r(i) ORDER BY i DESC"
-    )
-    alone = DuckDBEngine(memory_limit="1GB", threads=2)
-    oracle = DuckDBEngine(memory_limit="1GB", threads=2)
-    oracle._shared = True  # the engine's JSON writer itself
-    assert alone.copy(query, tmp_path / "alone.jsonl", "json") == 50000
-    assert oracle.copy(query, tmp_path / "oracle.jsonl", "json") == 50000
-    written = (tmp_path / "alone.jsonl").read_bytes()
+    query = _EDGE_ROWS
+    options = "FORMAT JSON"
+    if fmt == "lines":
+        query = f"SELECT CASE WHEN q.n % 5 = 0 THEN NULL ELSE CAST(to_json(q) AS VARCHAR) END AS line FROM ({query}) q"
+        options = "FORMAT CSV, HEADER false, QUOTE '', ESCAPE '', DELIMITER '\x01'"
+    engine = DuckDBEngine(memory_limit="1GB", threads=2)
+    assert engine.copy(query, tmp_path / "written.jsonl", fmt) == 150000
+    oracle = duckdb.connect(config={"threads": 1})
+    oracle.execute("SET TimeZone = 'UTC'")
+    oracle.execute(f"COPY ({query}) TO '{tmp_path / 'oracle.jsonl'}' ({options})")
+    written = (tmp_path / "written.jsonl").read_bytes()
     assert written == (tmp_path / "oracle.jsonl").read_bytes()
-    first = json.loads(written.splitlines()[0])
+    lines = written.decode("utf-8").split("\n")
+    assert lines[-1] == ""  # every line ends with a line feed, the last one too
+    if fmt == "lines":
+        assert lines[4] == ""  # n = 149995: a NULL text
+    first = json.loads(lines[0])  # n = 149999
     assert list(first) == [
         "n",
         "a name",
@@ -299,4 +324,4 @@ def test_a_json_write_on_one_thread_writes_the_bytes_of_the_engines_json_writer(
         "nothing",
         "empty",
     ]
-    assert first["escapes"] == '\x01\n\r\t"\\/é€😀\u202849999'
+    assert first["escapes"] == '\x01\n\r\t"\\/é€😀\u2028149999'

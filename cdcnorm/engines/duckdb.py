@@ -13,6 +13,7 @@ import json
 import os
 import re
 import secrets
+import struct
 import threading
 from collections.abc import Callable, Collection, Iterator, Sequence
 from concurrent.futures import ThreadPoolExecutor, wait
@@ -95,13 +96,29 @@ def check_version(version: str = duckdb.__version__, sqlglot_version: str | None
 #: a smaller limit. Measured on the benchmark dump (10 fields): the events' sort failed with two
 #: threads at 107 and 143 MiB of engine memory each, and ran at 179 MiB each (5M rows).
 THREAD_MEMORY = 160 << 20
-#: COPY options of a file of one text per line: written as is (the texts are JSON texts, whose
-#: control characters are escaped, so none holds a line break), no header, no quoting.
-_LINES = "FORMAT CSV, HEADER false, QUOTE '', ESCAPE '', DELIMITER '\x01'"
-#: the alias of a row made one JSON object by ``to_json`` (a JSON write on one thread)
+#: the alias of a row made one line of text (``DuckDBEngine._write_lines``)
 _ROW = "__cdcnorm_row"
+#: rows per batch of a write of lines (``DuckDBEngine._write_lines``): the engine's vector
+LINE_BATCH = 2048
 #: The smallest read buffer of the engine's CSV reader (its longest line, too: see scan_csv).
 CSV_MIN_BUFFER = 4 << 20
+
+
+def _text_block(column: pa.Array) -> memoryview | bytes:
+    """The texts of a column without NULLs, one after the other: the slice of its data buffer that
+    its first and last offsets span (Arrow's layout of a string array)."""
+    if column.null_count:
+        raise ValueError("a line of text is NULL")
+    if column.type not in (pa.string(), pa.large_string()):
+        column = column.cast(pa.large_string())
+    if not len(column):
+        return b""
+    form = "<q" if column.type == pa.large_string() else "<i"
+    size = struct.calcsize(form)
+    offsets = column.buffers()[1]
+    (first,) = struct.unpack_from(form, offsets, column.offset * size)
+    (last,) = struct.unpack_from(form, offsets, (column.offset + len(column)) * size)
+    return memoryview(column.buffers()[2])[first:last]
 
 
 @dataclass(frozen=True)
@@ -223,6 +240,25 @@ def refused_input(e: BaseException) -> InputError | None:
     return None if at < 0 else InputError(first[at + len(REFUSED) :])
 
 
+#: the engine's errors by the words their messages begin with (``engine_error``)
+_ENGINE_ERRORS: dict[str, type[duckdb.Error]] = {
+    "Out of Memory Error": duckdb.OutOfMemoryException,
+    "Invalid Input Error": duckdb.InvalidInputException,
+    "IO Error": duckdb.IOException,
+    "INTERRUPT Error": duckdb.InterruptException,
+    "Conversion Error": duckdb.ConversionException,
+}
+
+
+def engine_error(e: OSError) -> duckdb.Error:
+    """The engine's error that a stream of Arrow batches passed on as an ``OSError`` with the
+    engine's message, as the engine's own exception again (so ``engine_errors`` and
+    ``interrupted`` tell it as they tell the engine's errors)."""
+    text = str(e)
+    kind = _ENGINE_ERRORS.get(text.partition(":")[0], duckdb.Error)
+    return kind(text)
+
+
 @contextlib.contextmanager
 def engine_errors(temp: Path | str | None, where: str = "", writing: str | None = None) -> Iterator[None]:
     """Out of memory, out of spill space or a full disk, in our words: ``temp`` is where the spill
@@ -330,9 +366,6 @@ class DuckDBEngine:
         _in_utc(self.con)
         # keep Arrow tables alive while DuckDB scans them
         self._registered: dict[str, pa.Table] = {}
-        #: True while this engine's database works on several connections at once (``spread``):
-        #: the number of threads, which is the database's, is then left alone
-        self._shared = False
         #: every numbered view (``number_rows``, ``number_joined_rows``): the scanned table under
         #: it, its columns, and each of its files' (id, first rowid, rows), for ``lookup``; one
         #: dict that sibling connections share
@@ -415,8 +448,6 @@ class DuckDBEngine:
                     failed.append(e)
 
         engines = [self, *(self.sibling() for _ in range(width - 1))]
-        for engine in engines:
-            engine._shared = True
         try:
             with ThreadPoolExecutor(max_workers=width) as pool:
                 running = [pool.submit(drain, engine) for engine in engines]
@@ -429,7 +460,6 @@ class DuckDBEngine:
                         engine.con.interrupt()
                     raise KeyboardInterrupt from None
         finally:
-            self._shared = False
             for engine in engines[1:]:
                 engine.con.close()
         if failed:
@@ -491,50 +521,63 @@ class DuckDBEngine:
         """Write a query's rows to ``path`` atomically (temporary name, then rename); rows written."""
         path.parent.mkdir(parents=True, exist_ok=True)
         tmp = path.with_name(f"{path.name}.tmp-{os.getpid()}")
-        # "lines": one text column written as is, one value per line (see _LINES)
-        options = {
-            "parquet": "FORMAT PARQUET",
-            # RFC 4180 with a header; NULL is an empty field, an empty text is quoted ("")
-            "csv": "FORMAT CSV, HEADER true",
-            # one JSON object per line (RFC 8259), the columns as its members in order
-            "json": "FORMAT JSON",
-            "lines": _LINES,
-        }[fmt]
         query = self.render(expression)
-        if fmt == "parquet":
-            query = self._optional_columns(query)
-        alone = fmt in ("json", "lines") and not self._shared and self.threads() > 1
-        staged = ident(f"__cdcnorm_lines_{secrets.token_hex(4)}")
         try:
             with engine_errors(self.temp_directory, f"writing {path.name}", str(path)):
-                if alone:
-                    written = self._lines_alone(query, staged, tmp, fmt)
+                if fmt in ("json", "lines"):
+                    written = self._write_lines(query, tmp, fmt)
                 else:
-                    written = self.con.execute(f"COPY ({query}) TO {lit(str(tmp))} ({options})").fetchone()
+                    written = self._copy(query, tmp, fmt)
                 os.replace(tmp, path)
-            return int(written[0]) if written else 0
+            return written
         finally:
-            if alone:
-                self.con.execute(f"DROP TABLE IF EXISTS {staged}")
             if tmp.exists():
                 tmp.unlink()
 
-    def _lines_alone(self, query: str, staged: str, tmp: Path, fmt: str) -> Any:
-        """Write one text per line on one thread, the lines made (a JSON write's ``to_json`` of each
-        row, the text the engine's JSON writer writes) and sorted on every thread first. On two
-        threads the engine's writers of text (JSON and CSV alike) spent most of a large write
-        spinning (sched_yield, in kernel time): the 1M-row benchmark's events took 5.4-7.2 s in most
-        runs, 2.3 s in others; with the rows made first and the JSON written on one thread, 2.6-2.9 s
-        in every run; with the lines made first too, 2.0-2.2 s (DuckDB 2.0.1). The whole COPY on one
-        thread, sort included, took 7% longer in a whole run."""
-        rows = f"SELECT to_json({_ROW}) AS line FROM ({query}) AS {_ROW}" if fmt == "json" else query
-        self.con.execute(f"CREATE TEMP TABLE {staged} AS {rows}")
-        threads = self.threads()
-        self.con.execute("SET threads = 1")
-        try:
-            return self.con.execute(f"COPY {staged} TO {lit(str(tmp))} ({_LINES})").fetchone()
-        finally:
-            self.con.execute(f"SET threads = {threads}")
+    def _copy(self, query: str, tmp: Path, fmt: str) -> int:
+        """The engine's own writer: Parquet (every column optional) or CSV (RFC 4180 with a header;
+        NULL is an empty field, an empty text is quoted)."""
+        if fmt == "parquet":
+            query, options = self._optional_columns(query), "FORMAT PARQUET"
+        elif fmt == "csv":
+            options = "FORMAT CSV, HEADER true"
+        else:
+            raise ValueError(f"no writer for {fmt!r}")
+        written = self.con.execute(f"COPY ({query}) TO {lit(str(tmp))} ({options})").fetchone()
+        return int(written[0]) if written else 0
+
+    def _write_lines(self, query: str, tmp: Path, fmt: str) -> int:
+        """Write one text per line: "json" one JSON object per row (RFC 8259), the columns as its
+        members in order (``to_json``: the engine's JSON writer's text); "lines" the first column's
+        text as is, NULL as an empty line (the texts are JSON texts, whose control characters are
+        escaped, so none holds a line break). The lines are made on every thread and streamed
+        from the engine a batch at a time, each batch's text written as one block: no row is
+        handled in Python, and no batch but the current one is held.
+
+        The engine's own writers of text (JSON and CSV alike) spent most of a large write spinning
+        on two threads (sched_yield, in kernel time: the 1M-row benchmark's events took 5.4-7.2 s
+        in most runs). Written on one thread instead, from the rows made on two, the 1M-row run
+        took the time this takes, and 3-4% more at 5M rows, with a larger peak (the rows held in a
+        table); from the lines made on two, 7% less at 1M rows but 13% more at 5M (the 1.9 GB
+        write took 10 s). Batches of 2,048 rows (the engine's vector) keep each block in the
+        processor's cache while the kernel copies it: with 65,536 rows the copy into the page
+        cache took twice the kernel time (DuckDB 2.0.1, 2 cores)."""
+        text = f"to_json({_ROW})" if fmt == "json" else "coalesce(CAST(#1 AS VARCHAR), '')"
+        reader = self.con.sql(f"SELECT {text} || chr(10) AS line FROM ({query}) AS {_ROW}").to_arrow_reader(
+            LINE_BATCH
+        )
+        rows = 0
+        batches = iter(reader)
+        with open(tmp, "wb") as out:
+            while True:
+                try:
+                    batch = next(batches)
+                except StopIteration:
+                    return rows
+                except OSError as e:  # the engine's error, as Arrow's stream passes it on
+                    raise engine_error(e) from None
+                out.write(_text_block(batch.column(0)))
+                rows += batch.num_rows
 
     def _optional_columns(self, query: str) -> str:
         """The query with every column optional (nullable) in the Parquet schema. The engine's

@@ -147,8 +147,8 @@ def write_events(
     written. ``relation`` holds them already sorted (see ``sorted_events``)."""
     json_lines = fmt == "json"
     # JSON values are spliced into each line's text as written (see RawJson); without them each
-    # rendered envelope is serialised by the engine (to_json: its JSON writer's bytes), on every
-    # thread, and the lines are written on one (DuckDBEngine.copy)
+    # rendered envelope is serialised by the engine (to_json: its JSON writer's bytes) and the
+    # lines are streamed to the file (DuckDBEngine.copy)
     spliced = json_lines and any(t.name == "json" for t in plan.mapping.field_types.values())
     sql = project(plan, files_relation, render=json_lines, as_line=spliced, relation=relation)
     return engine.copy(sql, path, "lines" if spliced else fmt)

@@ -9,7 +9,8 @@ it: if this one statement is already slower than the target, no arrangement of t
     python tests/bench/bound.py [--unsorted] [--jsonl] OUT MAPPINGS_FOLDER DUMP.csv [DUMP.csv ...]
 
 ``--unsorted`` leaves the sort out, to tell what putting the changes in order costs; ``--jsonl``
-writes JSON Lines with the engine's JSON writer (its own text of a timestamp, not RFC 3339).
+writes JSON Lines as the conversion writes them (``DuckDBEngine.copy``: each row's ``to_json``,
+streamed), with the engine's own text of a timestamp, not RFC 3339.
 
 The folder holds one mapping (``dumpgen.write_mapping``'s), and every dump has its header.
 """
@@ -31,15 +32,13 @@ from cdcnorm.sql import ident, lit
 
 def statement(
     engine: DuckDBEngine,
-    out: Path,
     mappings: Path,
     dumps: list[Path],
     *,
     sort: bool = True,
-    jsonl: bool = False,
 ) -> tuple[list[str], str]:
     """The statements that define the plan's source on ``engine`` (the conversion's engine, with its
-    plan functions and settings), and the one COPY."""
+    plan functions and settings), and the one query whose rows are written."""
     (mapping,) = load_mappings(mappings)
     with open(dumps[0], encoding="utf-8", newline="") as f:
         header = next(csv.reader(f))
@@ -67,13 +66,12 @@ def statement(
     position = positions.position_text(change.position, "__pos")
     if change.sequence:
         position += " || '.' || " + positions.sequence_text(change.sequence, change.position, "__seq")
-    copy = (
-        f'COPY (SELECT __act AS action, {{{keys}}} AS key, {position} AS position, __cat AS committed_at, {{{values}}} AS "values", '
+    query = (
+        f'SELECT __act AS action, {{{keys}}} AS key, {position} AS position, __cat AS committed_at, {{{values}}} AS "values", '
         "{'file': __file, 'row': __row} AS origin "
-        f"FROM (SELECT * FROM ({plan.step('typed').sql}) WHERE __ok{' ORDER BY __pos, __seq' if sort else ''})) "
-        f"TO {lit(str(out))} (FORMAT {'JSON' if jsonl else 'PARQUET'})"
+        f"FROM (SELECT * FROM ({plan.step('typed').sql}) WHERE __ok{' ORDER BY __pos, __seq' if sort else ''})"
     )
-    return setup, copy
+    return setup, query
 
 
 def main() -> None:
@@ -81,17 +79,18 @@ def main() -> None:
     flags = {"--unsorted", "--jsonl"}
     out, mappings, *dumps = [a for a in args if a not in flags]
     engine = DuckDBEngine()
-    setup, copy = statement(
+    setup, query = statement(
         engine,
-        Path(out),
         Path(mappings),
         [Path(d) for d in dumps],
         sort="--unsorted" not in args,
-        jsonl="--jsonl" in args,
     )
     for sql in setup:
         engine.con.execute(sql)
-    engine.con.execute(copy)
+    if "--jsonl" in args:
+        engine.copy(query, Path(out), "json")
+    else:
+        engine.con.execute(f"COPY ({query}) TO {lit(out)} (FORMAT PARQUET)")
 
 
 if __name__ == "__main__":

@@ -31,6 +31,7 @@ from cdcnorm.lineage.resolve import (
     StatementResolver,
     close_names,
     declared_table,
+    dedupe_names,
     fold,
     folded_parts,
     same_table,
@@ -227,28 +228,6 @@ def _referenced_tables(stmt: ModelStatement, dialect: str) -> list[tuple[str, ..
     return out
 
 
-def _dedupe_names(names: list[str], dialect: str = "duckdb") -> list[str]:
-    """Duplicate output names get _1, _2 ... (as DuckDB names the columns of such a view): names
-    are the same as the dialect matches them (``Amount`` and ``amount`` in DuckDB), and each keeps
-    its own spelling (``SELECT id AS "Amount", amount``: Amount, amount_1)."""
-    seen: dict[str, int] = {}
-    out = []
-    for n in names:
-        key = fold(n, dialect)
-        if key in seen:
-            seen[key] += 1
-            candidate = f"{n}_{seen[key]}"
-            while fold(candidate, dialect) in seen:
-                seen[key] += 1
-                candidate = f"{n}_{seen[key]}"
-            seen[fold(candidate, dialect)] = 0
-            out.append(candidate)
-        else:
-            seen[key] = 0
-            out.append(n)
-    return out
-
-
 def _written_column(col: exp.Expr, dialect: str) -> str:
     return written(col.this if isinstance(col, exp.Column) else col, dialect)
 
@@ -280,7 +259,7 @@ def _merge_query(
             assignments.append(("", exp.null(), cond, matched))  # no value: it decides rows only
     if not assignments:
         return []
-    names = _dedupe_names(list(dict.fromkeys(a[0] for a in assignments if a[0])), dialect)
+    names = dedupe_names(list(dict.fromkeys(a[0] for a in assignments if a[0])), dialect)
     parts = folded_parts(target, dialect) if isinstance(target, exp.Table) else stmt.target
     if catalog.find(tuple(parts)) is None:
         catalog.add(declared_table("model", stmt.name, tuple(parts), names, dialect, origin="model"))
@@ -389,7 +368,7 @@ def resolve_model(
             names = list(st.columns[: len(outs)]) + names[len(st.columns) :]
         elif st.kind == "insert" and columns:  # no column list: by position, as the table has them
             names = columns[: len(outs)] + names[len(columns) :]
-        names = _dedupe_names(names, dialect) if st.kind != "insert" else names
+        names = dedupe_names(names, dialect) if st.kind != "insert" else names
         into_declared = st.kind in ("insert", "merge") and (
             (declared is not None and declared.kind == "source") or bool(made)
         )
@@ -455,19 +434,25 @@ def _closing(binder: EngineCheck | None) -> Iterator[None]:
 def _engine_check(one: Resolved, st: ModelStatement, bound: Bound, name: str) -> None:
     """What the engine's binding of the model adds to its resolution: a refusal the resolver did not
     see is a gap (``refused by the engine``), and a column without an alias that is no plain column
-    (``CAST(id AS INTEGER)``, ``sum(amount)``) takes the engine's name, the one readers must use."""
+    (``CAST(id AS INTEGER)``, ``sum(amount)``) takes the engine's name, the one readers must use; so
+    does a name the engine spells otherwise (``Amount``, an alias of a CTE read by a star)."""
     if bound is None or any(d.unresolved for d in one.diagnostics):
         return
     if isinstance(bound, str):
         one.diagnostics.append(Diagnostic(st.file, st.line, name, "refused by the engine", bound))
         return
     selects = _selects(st)
-    if st.columns or len(bound) != len(one.columns) or len(selects) != len(bound):
+    if st.columns or len(bound) != len(one.columns):
         return
+    lined_up = len(selects) == len(bound)
     renamed = {
         old: new
-        for old, new, proj in zip(one.columns, bound, selects, strict=True)
-        if old != new and _named_by_engine(proj) and new not in one.columns
+        for at, (old, new) in enumerate(zip(one.columns, bound, strict=True))
+        if old != new
+        and new not in one.columns
+        # the engine's spelling of the same name (an alias's case, through a star over a CTE), or
+        # the engine's name of a column without an alias
+        and (fold(old, "duckdb") == fold(new, "duckdb") or (lined_up and _named_by_engine(selects[at])))
     }
     if not renamed:
         return

@@ -122,6 +122,67 @@ def fold(name: str, dialect: str) -> str:
     return str(d.normalize_identifier(exp.Identifier(this=name, quoted=quoted)).name)
 
 
+def dedupe_names(names: list[str], dialect: str = "duckdb") -> list[str]:
+    """Duplicate output names get _1, _2 ... (as DuckDB names the columns of such a view, a derived
+    table or a CTE): names are the same as the dialect matches them (``Amount`` and ``amount`` in
+    DuckDB), and each keeps its own spelling (``SELECT id AS "Amount", amount``: Amount, amount_1)."""
+    seen: dict[str, int] = {}
+    out = []
+    for n in names:
+        key = fold(n, dialect)
+        if key in seen:
+            seen[key] += 1
+            candidate = f"{n}_{seen[key]}"
+            while fold(candidate, dialect) in seen:
+                seen[key] += 1
+                candidate = f"{n}_{seen[key]}"
+            seen[fold(candidate, dialect)] = 0
+            out.append(candidate)
+        else:
+            seen[key] = 0
+            out.append(n)
+    return out
+
+
+#: dialects whose engine names the repeated columns of a derived table or CTE as ``dedupe_names``
+#: does (``SELECT * FROM (SELECT * FROM a JOIN b USING ...)``: id, id_1); others keep both names,
+#: and a star over them stays unresolved (reported)
+_RENAMES_REPEATS = frozenset({"duckdb"})
+
+
+def name_repeated_columns(qualified: exp.Expr, dialect: str) -> bool:
+    """Give the repeated output names of every derived table and CTE of a qualified query the
+    names the engine gives them (``dedupe_names``), in place; whether any changed. sqlglot leaves
+    a star over such a table unexpanded (``SELECT a.* FROM (SELECT * FROM b JOIN p ON ...) a``,
+    both with a column pid) and binds ``a.pid`` to the last of them, where DuckDB has pid and
+    pid_1, ``a.pid`` the first."""
+    if dialect not in _RENAMES_REPEATS:
+        return False
+    root = build_scope(qualified)
+    if root is None:
+        return False
+    changed = False
+    for scope in root.traverse():
+        if scope is root or not (scope.is_derived_table or scope.is_cte):
+            continue
+        holder = scope.expression.parent
+        alias = holder.args.get("alias") if holder is not None else None
+        if isinstance(alias, exp.TableAlias) and alias.columns:
+            continue  # named by its column list
+        if not isinstance(scope.expression, exp.Query):
+            continue
+        projections = scope.expression.selects
+        if any(isinstance(p, exp.Star) or isinstance(p.this, exp.Star) for p in projections):
+            continue  # a star left unexpanded (its sources unknown): reported where it is read
+        names = [p.alias_or_name for p in projections]
+        for proj, old, new in zip(projections, names, dedupe_names(names, dialect), strict=True):
+            if old != new:
+                inner = proj.this if isinstance(proj, exp.Alias) else proj
+                proj.replace(exp.alias_(inner.copy(), exp.to_identifier(new)))
+                changed = True
+    return changed
+
+
 def _qualify_words(message: str) -> str:
     """sqlglot's qualification error in words that say what is wrong in the model."""
     head, _, name = message.partition("Cannot automatically join: ")
@@ -317,7 +378,9 @@ class StatementResolver:
                 self._diag(_line(query), "unsupported", str(e))
                 return None
         self._check_star_lists(query, schema)
+        written_query = query  # its output names as written (``_shown``)
         qualified = None
+        named_repeats = False
         for _ in range(20):
             try:
                 qualified = qualify(
@@ -338,12 +401,30 @@ class StatementResolver:
                 if not missing:
                     self._diag(_line(query), "unsupported", _qualify_words(message))
                     return None
+                if not named_repeats:  # a name the engine gives a repeated column (j.id_1)?
+                    named_repeats = True
+                    named = self._with_repeats_named(query, schema)
+                    if named is not None:
+                        query = named
+                        continue
                 # A qualified reference to a column its table lacks: let qualification go on with a
                 # stand-in column; the resolver reports the reference as "not in schema".
                 schema = _with_column(schema, query, missing, self.dialect)
         if qualified is None:
             self._diag(_line(query), "unsupported", "too many unknown columns")
             return None
+        if name_repeated_columns(qualified, self.dialect):  # and expand the stars over them now
+            try:
+                qualified = qualify(
+                    qualified,
+                    schema=schema,
+                    dialect=self.dialect,
+                    validate_qualify_columns=False,
+                    quote_identifiers=False,
+                )
+            except OptimizeError as e:
+                self._diag(_line(query), "unsupported", _qualify_words(str(e).splitlines()[0]))
+                return None
         unnamed = (
             [p for p in qualified.selects if not p.alias_or_name] if isinstance(qualified, exp.Query) else []
         )
@@ -371,7 +452,26 @@ class StatementResolver:
         outs = self.outputs(root)
         self.row_deps = self.rows(root)
         self._bind_the_rest(root)
-        return self._shown(query, outs)
+        return self._shown(written_query, outs)
+
+    def _with_repeats_named(self, query: exp.Expr, schema: MappingSchema) -> exp.Expr | None:
+        """``query`` qualified as far as it goes, with the repeated names of its derived tables and
+        CTEs named as the engine names them (``name_repeated_columns``); None when none repeats. A
+        reference to such a name (``j.id_1``) is unknown to qualification until they are."""
+        if self.dialect not in _RENAMES_REPEATS:
+            return None
+        try:
+            partial = qualify(
+                query.copy(),
+                schema=schema,
+                dialect=self.dialect,
+                validate_qualify_columns=False,
+                quote_identifiers=False,
+                allow_partial_qualification=True,
+            )
+        except OptimizeError:
+            return None
+        return partial if name_repeated_columns(partial, self.dialect) else None
 
     def _bind_the_rest(self, root: Scope) -> None:
         """Resolve every column of every query the statement reads, as the engine binds them: a

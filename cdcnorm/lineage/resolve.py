@@ -383,13 +383,7 @@ class StatementResolver:
         named_repeats = False
         for _ in range(20):
             try:
-                qualified = qualify(
-                    query.copy(),
-                    schema=schema,
-                    dialect=self.dialect,
-                    validate_qualify_columns=False,
-                    quote_identifiers=False,
-                )
+                qualified = self._qualify(query.copy(), schema)
                 break
             except OptimizeError as e:
                 message = str(e).splitlines()[0]
@@ -415,13 +409,7 @@ class StatementResolver:
             return None
         if name_repeated_columns(qualified, self.dialect):  # and expand the stars over them now
             try:
-                qualified = qualify(
-                    qualified,
-                    schema=schema,
-                    dialect=self.dialect,
-                    validate_qualify_columns=False,
-                    quote_identifiers=False,
-                )
+                qualified = self._qualify(qualified, schema)
             except OptimizeError as e:
                 self._diag(_line(query), "unsupported", _qualify_words(str(e).splitlines()[0]))
                 return None
@@ -454,6 +442,18 @@ class StatementResolver:
         self._bind_the_rest(root)
         return self._shown(written_query, outs)
 
+    def _qualify(self, query: exp.Expr, schema: MappingSchema, *, partial: bool = False) -> exp.Expr:
+        """sqlglot's qualification as the resolver uses it: stars expanded, every column given its
+        source, names left unquoted; ``partial`` leaves a column it cannot place as it is."""
+        return qualify(
+            query,
+            schema=schema,
+            dialect=self.dialect,
+            validate_qualify_columns=False,
+            quote_identifiers=False,
+            allow_partial_qualification=partial,
+        )
+
     def _with_repeats_named(self, query: exp.Expr, schema: MappingSchema) -> exp.Expr | None:
         """``query`` qualified as far as it goes, with the repeated names of its derived tables and
         CTEs named as the engine names them (``name_repeated_columns``); None when none repeats. A
@@ -461,14 +461,7 @@ class StatementResolver:
         if self.dialect not in _RENAMES_REPEATS:
             return None
         try:
-            partial = qualify(
-                query.copy(),
-                schema=schema,
-                dialect=self.dialect,
-                validate_qualify_columns=False,
-                quote_identifiers=False,
-                allow_partial_qualification=True,
-            )
+            partial = self._qualify(query.copy(), schema, partial=True)
         except OptimizeError:
             return None
         return partial if name_repeated_columns(partial, self.dialect) else None

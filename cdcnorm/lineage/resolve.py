@@ -150,16 +150,13 @@ def dedupe_names(names: list[str], dialect: str = "duckdb") -> list[str]:
 _RENAMES_REPEATS = frozenset({"duckdb"})
 
 
-def name_repeated_columns(qualified: exp.Expr, dialect: str) -> bool:
-    """Give the repeated output names of every derived table and CTE of a qualified query the
-    names the engine gives them (``dedupe_names``), in place; whether any changed. sqlglot leaves
-    a star over such a table unexpanded (``SELECT a.* FROM (SELECT * FROM b JOIN p ON ...) a``,
-    both with a column pid) and binds ``a.pid`` to the last of them, where DuckDB has pid and
-    pid_1, ``a.pid`` the first."""
-    if dialect not in _RENAMES_REPEATS:
-        return False
-    root = build_scope(qualified)
-    if root is None:
+def name_repeated_columns(root: Scope | None, dialect: str) -> bool:
+    """Give the repeated output names of every derived table and CTE of a qualified query (its
+    scopes' ``root``) the names the engine gives them (``dedupe_names``), in place; whether any
+    changed. sqlglot leaves a star over such a table unexpanded (``SELECT a.* FROM (SELECT * FROM
+    b JOIN p ON ...) a``, both with a column pid) and binds ``a.pid`` to the last of them, where
+    DuckDB has pid and pid_1, ``a.pid`` the first."""
+    if dialect not in _RENAMES_REPEATS or root is None:
         return False
     changed = False
     for scope in root.traverse():
@@ -407,12 +404,14 @@ class StatementResolver:
         if qualified is None:
             self._diag(_line(query), "unsupported", "too many unknown columns")
             return None
-        if name_repeated_columns(qualified, self.dialect):  # and expand the stars over them now
+        root = build_scope(qualified)
+        if name_repeated_columns(root, self.dialect):  # and expand the stars over them now
             try:
                 qualified = self._qualify(qualified, schema)
             except OptimizeError as e:
                 self._diag(_line(query), "unsupported", _qualify_words(str(e).splitlines()[0]))
                 return None
+            root = build_scope(qualified)
         unnamed = (
             [p for p in qualified.selects if not p.alias_or_name] if isinstance(qualified, exp.Query) else []
         )
@@ -424,7 +423,6 @@ class StatementResolver:
                 "numbers?): give its values aliases, IN (TRUE AS yes, FALSE AS no)",
             )
             return None
-        root = build_scope(qualified)
         if root is None:
             self._diag(_line(query), "unsupported", "no query to resolve")
             return None
@@ -464,7 +462,7 @@ class StatementResolver:
             partial = self._qualify(query.copy(), schema, partial=True)
         except OptimizeError:
             return None
-        return partial if name_repeated_columns(partial, self.dialect) else None
+        return partial if name_repeated_columns(build_scope(partial), self.dialect) else None
 
     def _bind_the_rest(self, root: Scope) -> None:
         """Resolve every column of every query the statement reads, as the engine binds them: a

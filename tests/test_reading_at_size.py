@@ -9,6 +9,7 @@ import gzip
 import io
 import json
 import lzma
+import zipfile
 from pathlib import Path
 from typing import Any
 
@@ -199,6 +200,23 @@ def test_compressed_files_are_read_transparently(convert: ConvertFn) -> None:
     assert done.ledger()["balanced"] and done.ledger()["total"]["read"] == 10
 
 
+def _zip(payload: bytes, *names: str, method: int = zipfile.ZIP_DEFLATED) -> bytes:
+    """A .zip archive (APPNOTE; written by Python's zipfile module) holding ``payload`` under each
+    of ``names`` (one name unless given)."""
+    sink = io.BytesIO()
+    with zipfile.ZipFile(sink, "w", compression=method) as z:
+        for name in names or ("inner.csv",):
+            z.writestr(name, payload)
+    return sink.getvalue()
+
+
+def _empty_zip() -> bytes:
+    sink = io.BytesIO()
+    with zipfile.ZipFile(sink, "w"):  # its end of central directory record alone
+        pass
+    return sink.getvalue()
+
+
 def _lz4(payload: bytes) -> bytes:
     out = pa.BufferOutputStream()
     with pa.CompressedOutputStream(out, "lz4") as s:  # the LZ4 frame format
@@ -261,6 +279,7 @@ def _parquet_bytes() -> bytes:
         ("n.csv", bz2.compress, ".bz2"),
         ("n.csv", lzma.compress, ".xz"),
         ("n.csv", _lz4, ".lz4"),
+        ("n.csv", _zip, ".zip"),
     ],
 )
 def test_an_archive_named_as_plain_text_is_a_clear_error(
@@ -293,16 +312,96 @@ def test_an_archive_named_as_plain_text_is_a_clear_error(
     )
 
 
-def test_a_zip_file_is_refused_with_what_to_do(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    import zipfile
+def test_a_zip_archive_of_one_file_is_read_transparently(convert: ConvertFn) -> None:
+    # any method Python's zipfile reads: deflate, bzip2, lzma, stored; a folder entry is no file
+    sink = io.BytesIO()
+    with zipfile.ZipFile(sink, "w") as z:
+        z.mkdir("export")
+        z.writestr("export/2026-12-01.csv", csv_at(4), compress_type=zipfile.ZIP_STORED)
+    files: dict[str, str | bytes] = {
+        "n1.csv.zip": _zip(csv_at(1).encode()),
+        "n2.csv.zip": _zip(csv_at(2).encode(), method=zipfile.ZIP_BZIP2),
+        "n3.csv.zip": _zip(csv_at(3).encode(), method=zipfile.ZIP_LZMA),
+        "n4.csv.zip": sink.getvalue(),
+        "n5.jsonl.zip": _zip(b'{"op": "I", "pos": 99, "id": 99, "a": "j"}\n', "n5.jsonl"),
+        "n6.parquet.zip": _zip(_parquet_bytes(), "n6.parquet", method=zipfile.ZIP_STORED),
+    }
+    plain = convert(PLAIN, {f"n{k}.csv": csv_at(k) for k in (1, 2, 3, 4)}).events("t.notes")
+    done = convert(PLAIN, files)
+    got = [(e["origin"]["file"], e["origin"]["row"], e["key"], e["values"]) for e in done.events("t.notes")]
+    want = [(e["origin"]["file"] + ".zip", e["origin"]["row"], e["key"], e["values"]) for e in plain]
+    # the stream is ordered by position: n6's 1, the four CSV files' 11-43, n5's 99
+    first, last = (
+        ("n6.parquet.zip", 1, {"id": 1}, {"id": 1, "a": "x"}),
+        ("n5.jsonl.zip", 1, {"id": 99}, {"id": 99, "a": "j"}),
+    )
+    assert got == [first, *want, last]
+    assert done.ledger()["balanced"] and done.ledger()["total"]["read"] == 14
 
+
+@pytest.mark.parametrize(
+    ("archive", "said"),
+    [
+        (_zip(CSV.encode(), "a.csv", "b.csv"), "this .zip archive holds 2 files (a.csv, b.csv)"),
+        (
+            _zip(CSV.encode(), *(f"p{i}.csv" for i in range(7))),
+            "this .zip archive holds 7 files (p0.csv, p1.csv, p2.csv, p3.csv, p4.csv and 2 more)",
+        ),
+        (_empty_zip(), "this .zip archive holds 0 files"),
+    ],
+)
+def test_a_zip_archive_of_several_files_is_refused_with_what_to_do(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], archive: bytes, said: str
+) -> None:
     (mdir := tmp_path / "m").mkdir()
-    (mdir / "t.yaml").write_text(PLAIN.replace('files: ["n*"]', 'files: ["n.csv"]'))
-    with zipfile.ZipFile(dump := tmp_path / "n.csv", "w") as z:  # Python's zipfile writes the archive
-        z.writestr("inner.csv", CSV)
+    (mdir / "t.yaml").write_text(PLAIN)
+    (dump := tmp_path / "n.csv.zip").write_bytes(archive)
     code = cli("convert", "--mappings", str(mdir), str(dump), "--out", str(tmp_path / "out"))
     err = capsys.readouterr().err
-    assert code == 4 and "this file is a .zip archive" in err and "unpack it first" in err
+    assert code == 4 and f"{dump}: {said}" in err and "unpack it first" in err and "Traceback" not in err
+    assert not (tmp_path / "out" / "events").exists()
+
+
+def _encrypted(archive: bytes) -> bytes:
+    """``archive`` with its one file marked encrypted: bit 0 of the general purpose flags, in the
+    local file header (offset 6) and the central directory header (offset 8) (APPNOTE 4.3.7, 4.3.12)."""
+    out = bytearray(archive)
+    for signature, offset in ((b"PK\x03\x04", 6), (b"PK\x01\x02", 8)):
+        at = out.index(signature) + offset
+        out[at] |= 1
+    return bytes(out)
+
+
+def _bad_crc(archive: bytes) -> bytes:
+    """``archive`` (stored, not compressed) with one byte of its file changed: its CRC-32 no longer
+    matches (APPNOTE 4.4.7)."""
+    out = bytearray(archive)
+    at = out.index(b"I,2,2")
+    out[at + 2] = ord("7")
+    return bytes(out)
+
+
+@pytest.mark.parametrize(
+    ("archive", "said"),
+    [
+        (_zip(CSV.encode() * 50)[:-30], "truncated or corrupt zip archive"),
+        (
+            _bad_crc(_zip(CSV.encode(), method=zipfile.ZIP_STORED)),
+            "truncated or corrupt zip archive (Bad CRC-32",
+        ),
+        (_encrypted(_zip(CSV.encode())), "the archive's file inner.csv cannot be unpacked"),
+    ],
+)
+def test_a_broken_zip_archive_is_a_clear_error(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], archive: bytes, said: str
+) -> None:
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN)
+    (dump := tmp_path / "n.csv.zip").write_bytes(archive)
+    code = cli("convert", "--mappings", str(mdir), str(dump), "--out", str(tmp_path / "out"))
+    err = capsys.readouterr().err
+    assert code == 4 and f"{dump}: cannot read this file: " in err and said in err, err
+    assert "Traceback" not in err
 
 
 def test_many_small_files_keep_their_record_numbers(convert: ConvertFn) -> None:

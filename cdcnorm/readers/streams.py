@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import lzma
+import zipfile
 from collections.abc import Collection, Iterator
+from contextlib import contextmanager
 from pathlib import Path
 from typing import BinaryIO
 
@@ -12,8 +14,9 @@ import pyarrow as pa
 from cdcnorm.errors import InputError
 
 #: Compression suffixes read transparently, and the codec of each (pyarrow's names; ``xz`` is
-#: Python's lzma module, which pyarrow's streams do not read).
-COMPRESSIONS = {".gz": "gzip", ".zst": "zstd", ".bz2": "bz2", ".xz": "xz", ".lz4": "lz4"}
+#: Python's lzma module, which pyarrow's streams do not read; ``zip`` is Python's zipfile module,
+#: for an archive of one file).
+COMPRESSIONS = {".gz": "gzip", ".zst": "zstd", ".bz2": "bz2", ".xz": "xz", ".lz4": "lz4", ".zip": "zip"}
 #: The ones the engine's own readers decompress while reading; the others are decompressed
 #: to a temporary file first (streamed, in bounded memory).
 ENGINE_READS = {".gz", ".zst"}
@@ -85,7 +88,24 @@ def _fail(path: Path, e: Exception) -> InputError:
     return InputError(f"cannot read this file: {what} ({first})", file=str(path))
 
 
-def _opened(path: Path, codec: str | None) -> BinaryIO | pa.NativeFile:
+def zip_member(archive: zipfile.ZipFile, path: Path) -> zipfile.ZipInfo:
+    """The one file a ``.zip`` dump holds (folders aside); an archive of several files, or of none,
+    is an InputError listing them: which of them is the dump is not for cdcnorm to guess."""
+    members = [i for i in archive.infolist() if not i.is_dir()]
+    if len(members) == 1:
+        return members[0]
+    names = [i.filename for i in members]
+    shown = ", ".join(names[:5]) + (f" and {len(names) - 5} more" if len(names) > 5 else "")
+    raise InputError(
+        f"this .zip archive holds {len(names)} files" + (f" ({shown})" if names else ""),
+        file=str(path),
+        expected="a .zip archive of exactly one file (the dump)",
+        found=f"{len(names)} files",
+        hint="unpack it first and pass the files, or a folder of them, instead of the archive",
+    )
+
+
+def _stream(path: Path, codec: str | None) -> BinaryIO | pa.NativeFile:
     """The file's bytes as a stream: the plain file as it is (a tenth of the cost of a stream per
     call, for many small files), xz through Python's lzma module, the others through pyarrow's."""
     if codec is None:
@@ -93,6 +113,28 @@ def _opened(path: Path, codec: str | None) -> BinaryIO | pa.NativeFile:
     if codec == "xz":
         return lzma.open(path, "rb")
     return pa.input_stream(str(path), compression=codec)
+
+
+@contextmanager
+def _opened(path: Path, codec: str | None) -> Iterator[BinaryIO | pa.NativeFile]:
+    """The file's bytes as a stream (``_stream``), or the one file of a zip archive through Python's
+    zipfile module (any method it reads: stored, deflate, bzip2, lzma)."""
+    if codec != "zip":
+        with _stream(path, codec) as stream:
+            yield stream
+        return
+    with zipfile.ZipFile(path) as archive:
+        info = zip_member(archive, path)
+        try:
+            member = archive.open(info)
+        except (NotImplementedError, RuntimeError) as e:  # a method it does not read; encrypted
+            raise InputError(
+                f"cannot read this file: the archive's file {info.filename} cannot be unpacked ({e})",
+                file=str(path),
+                hint="unpack it with a tool that can, and pass the file instead of the archive",
+            ) from None
+        with member:
+            yield member
 
 
 def blocks(path: Path, size: int = BLOCK) -> Iterator[bytes]:
@@ -109,7 +151,14 @@ def blocks(path: Path, size: int = BLOCK) -> Iterator[bytes]:
             while block:
                 yield block
                 block = stream.read(size)
-    except (OSError, pa.ArrowException, EOFError, ValueError, lzma.LZMAError) as e:
+    except (
+        OSError,
+        pa.ArrowException,
+        EOFError,
+        ValueError,
+        lzma.LZMAError,
+        zipfile.BadZipFile,  # no central directory (a truncated archive), a bad CRC-32
+    ) as e:
         raise _fail(path, e) from None
 
 

@@ -26,6 +26,8 @@ EXIT_TARGET = 10
 EXIT_INCOMPLETE = 11
 EXIT_MEMORY = 12
 EXIT_DISK = 13
+#: ``apply --recheck``: the target differed from its events (repaired, unless --dry-run)
+EXIT_DIFFERS = 14
 #: 128 + SIGINT: what a shell reports for a process Ctrl-C stopped (common practice)
 EXIT_INTERRUPTED = 130
 #: the reader of the output went away (``| head``): 128 + SIGPIPE, as a shell reports a process that

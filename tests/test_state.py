@@ -1444,3 +1444,106 @@ def test_an_as_of_one_table_cannot_take_stops_snapshot_before_any_file_is_writte
     # one table: its state as usual
     _snapshot(landing, mdir, out, option, value, "--table", "ferry.bookings", "--quiet")
     assert [p.name for p in out.iterdir()] == ["ferry.bookings.parquet"]
+
+
+# --- apply --recheck: a target edited by hand ---------------------------------------------------
+
+
+def _recheck(landing: Path, mdir: Path, url: str, *extra: str) -> tuple[int, dict[str, Any]]:
+    """``apply --recheck`` through the CLI: its exit code and the one table's recheck counts."""
+    proc = subprocess.run(
+        _apply_cmd(landing, mdir, url, "--recheck", "--json", *extra),
+        capture_output=True,
+        text=True,
+        cwd=ROOT,
+    )
+    assert proc.returncode in (0, 14), proc.stderr
+    (table,) = json.loads(proc.stdout)["tables"]
+    return proc.returncode, table["recheck"]
+
+
+def _run_sql(url: str, table: str, statements: list[str]) -> list[Any]:
+    """Run ``statements`` on the target, ``{t}`` standing for the table and ``{d}`` for its
+    tombstones (``schema.name``: a schema where the database has schemas); the last one's rows."""
+    schema, name = table.split(".", 1)
+    t, d = (
+        (_q(table), _q(table + "__deleted"))
+        if url.startswith("sqlite")
+        else (f"{_q(schema)}.{_q(name)}", f"{_q(schema)}.{_q(name + '__deleted')}")
+    )
+    sql = [s.format(t=t, d=d) for s in statements]
+    if url.startswith("sqlite"):
+        con = sqlite3.connect(url.removeprefix("sqlite:///"))
+        rows = [con.execute(s).fetchall() for s in sql][-1]
+        con.commit()
+        con.close()
+    elif url.startswith("duckdb"):
+        dcon = duckdb.connect(url.removeprefix("duckdb:///"))
+        rows = [dcon.execute(s).fetchall() for s in sql][-1]
+        dcon.close()
+    else:
+        import psycopg
+
+        with psycopg.connect(url) as pcon:
+            for s in sql:
+                cur = pcon.execute(s)
+                rows = cur.fetchall() if cur.description else []
+    return rows
+
+
+def _tamper_and_recheck(
+    landing: Path, mdir: Path, url: str, table: str, key: str, types: dict[str, str], final: State
+) -> None:
+    """Apply, edit the target by hand, then ``apply --recheck``: a dry run counts each edit and
+    changes nothing; the recheck puts the table back to the source table's real contents (the
+    oracle ``final``), and keeps counting the one row no event accounts for until it is gone."""
+    name, schema = (
+        (table, None) if url.startswith("sqlite") else (table.split(".", 1)[1], table.split(".")[0])
+    )
+    text_field = next(f for f, ty in types.items() if ty == "text" and f != key)
+    code, clean = _recheck(landing, mdir, url)  # applied, then every value of every type compares equal
+    assert code == 0 and clean["restored"] == clean["repaired"] == clean["unmatched"] == 0
+    assert read_target(url, name, schema, key, types) == final
+    assert _recheck(landing, mdir, url) == (0, clean)  # nothing new to apply: the recheck alone
+    assert clean["keys"] >= len(final) + 1
+    tombs = _run_sql(url, table, ["SELECT count(*) FROM {d}"])[0][0]
+    assert tombs > 0
+    k = sorted(final)
+    nullable = next(f for f in types if f not in (key, text_field) and final[k[3]][f] is not None)
+    _run_sql(
+        url,
+        table,
+        [
+            f'DELETE FROM {{t}} WHERE "{key}" IN ({k[0]}, {k[1]})',  # rows deleted by hand
+            f'UPDATE {{t}} SET "{text_field}" = \'edited by hand\' WHERE "{key}" = {k[2]}',
+            f'UPDATE {{t}} SET "{nullable}" = NULL WHERE "{key}" = {k[3]}',
+            f"UPDATE {{t}} SET cdcnorm_position = '0' WHERE \"{key}\" = {k[4]}",  # an earlier position
+            "DELETE FROM {d}",  # tombstones deleted by hand
+            f"INSERT INTO {{t}} (\"{key}\", cdcnorm_position) VALUES ({k[-1] + 1000}, 'zz')",  # no event
+        ],
+    )
+    edited = read_target(url, name, schema, key, types)
+    want = {"keys": clean["keys"], "restored": 2 + tombs, "repaired": 3, "unmatched": 1}
+    assert _recheck(landing, mdir, url, "--dry-run") == (14, want)
+    assert read_target(url, name, schema, key, types) == edited  # the dry run changed nothing
+    assert _recheck(landing, mdir, url) == (14, want)
+    back = read_target(url, name, schema, key, types)
+    assert back.pop(k[-1] + 1000)[text_field] is None  # left as it is
+    assert back == final
+    assert _run_sql(url, table, ["SELECT count(*) FROM {d}"])[0][0] == tombs
+    assert _recheck(landing, mdir, url) == (14, {**want, "restored": 0, "repaired": 0})
+    _run_sql(url, table, [f'DELETE FROM {{t}} WHERE "{key}" = {k[-1] + 1000}'])
+    assert _recheck(landing, mdir, url) == (0, {**want, "restored": 0, "repaired": 0, "unmatched": 0})
+
+
+@pytest.mark.parametrize("kind", ["sqlite", "duckdb"])
+def test_recheck_puts_back_what_was_edited_by_hand(berths: Any, tmp_path: Path, kind: str) -> None:
+    mdir, landing, marks, _ = berths
+    url = f"{kind}:///{tmp_path / 'w.db'}"
+    _tamper_and_recheck(landing, mdir, url, "harbour.berths", "berth_id", SQLITE_TYPES, marks[-1][1])
+
+
+def test_recheck_of_every_type_into_every_target(parcels: Any, tmp_path: Path) -> None:
+    mdir, landing, _, final, pg_url = parcels
+    for url in (f"sqlite:///{tmp_path / 'w.db'}", f"duckdb:///{tmp_path / 'w.duckdb'}", pg_url):
+        _tamper_and_recheck(landing, mdir, url, "depot.parcels", "parcel_id", PG_TYPES, final)

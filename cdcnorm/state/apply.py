@@ -11,6 +11,15 @@
 
 ``dry_run`` does all of it in one transaction that is rolled back, so the counts
 are those of a real apply and nothing changes.
+
+``recheck`` then holds the table to every events file, those the log names
+too: the latest change of each key is staged again and compared with the
+table. A row gone (deleted by hand) or a tombstone gone comes back
+(``restored``); a row whose values, or position (to an earlier one), were
+edited since its change was applied is written again (``repaired``); rows that
+are not the latest upsert of their key at its position are counted
+(``unmatched``: written by hand or by another loader, or moved to a later
+position) and left as they are.
 """
 
 from __future__ import annotations
@@ -46,6 +55,7 @@ from cdcnorm.targets.base import (
     build_tables,
     classify,
     guarded_writes,
+    held,
 )
 
 #: Collations that compare text as bytes (PostgreSQL's; "C.UTF-8" and the like start with "C.").
@@ -64,6 +74,37 @@ class TableApply:
     files: int = 0
     #: how events written under other fields were read (``Events.notes``)
     notes: tuple[str, ...] = ()
+    #: with ``recheck``: how the table differed from every events file
+    recheck: Recheck | None = None
+
+
+@dataclass
+class Recheck:
+    """How a table differed from the latest change of each key of all its events files."""
+
+    keys: int = 0  #: keys compared
+    restored: int = 0  #: rows (or tombstones) gone from the target, written again
+    repaired: int = 0  #: rows edited since their change was applied (values or position), written again
+    #: rows that are not the latest upsert of their key at its position (left as they are): written
+    #: by hand or by another loader, or edited to a later position than any of the key's events
+    unmatched: int = 0
+
+    @property
+    def differs(self) -> bool:
+        return bool(self.restored or self.repaired or self.unmatched)
+
+    def as_dict(self) -> dict[str, int]:
+        return dict(self.__dict__)
+
+
+#: What each kind of ``classify``'s (with ``compare``) means when every file was applied already.
+RECHECK_KINDS = {
+    "inserted": "restored",
+    "deleted_absent": "restored",
+    "updated": "repaired",
+    "deleted": "repaired",
+    "differs": "repaired",
+}
 
 
 def _ensure(session: Session, target: Target, tables: Tables) -> None:
@@ -257,11 +298,13 @@ def apply_table(
     *,
     schema: str | None = None,
     dry_run: bool = False,
+    recheck: bool = False,
     batch_rows: int = BATCH_ROWS,
     progress: Callable[[str, int, int], None] = lambda label, done, total: None,
 ) -> TableApply:
     """Apply one table's new event files to ``target``; ``progress(label, keys done, keys)`` hears
-    each batch."""
+    each batch. ``recheck``: then compare the table with every events file and repair it
+    (``Recheck``)."""
     m = mapping.mapping
     (spec,) = placed(target, [mapping], schema)
     tables = build_tables(spec, target.column_type, target.position_type())
@@ -276,6 +319,10 @@ def apply_table(
         _apply(
             engine, mapping, target, spec, tables, files, digests, report, transaction, batch_rows, progress
         )
+        if recheck:
+            report.recheck = _recheck(
+                engine, mapping, target, spec, tables, files, report, transaction, batch_rows, progress
+            )
     return report
 
 
@@ -326,45 +373,31 @@ def _apply(
     if not new:
         return
     progress(f"{mapping.table}: read {counted(len(new), 'new event file')}", 0, 1)
-    events = load_events(engine, mapping, new, f"{mapping.mapping.slug}__apply_events")
-    report.notes = (*report.notes, *events.notes)
-    try:
-        per_file = dict(engine.rows(f"SELECT __source, count(*) FROM {ident(events.relation)} GROUP BY ALL"))
-        last = latest(engine, events)
-    except duckdb.Error as e:  # the engine could not read an events file
-        raise InputError(
-            f"an events file of {mapping.table} cannot be read: {str(e).splitlines()[0]}",
-            expected="event files as cdcnorm convert writes them",
-        ) from None
-    _check_values(engine, mapping, target, last, new)
-    total = sum(int(n) for n in per_file.values())
+    last, per_file = _latest(engine, mapping, target, new, report)
+    total = sum(per_file.values())
     keys = engine.count(last)
     report.events += total
     report.counts.compacted += total - keys
-    ftypes = list(mapping.field_types.values())
-    forms = [f"{target.batch_form(t, f'v{i}')} AS v{i}" for i, t in enumerate(ftypes)]
-    sql = f"SELECT {', '.join(forms)}, __position, __action FROM {ident(last)}"
-    reader = engine.con.sql(sql).to_arrow_reader(batch_rows)
-    assert reader is not None
+
+    def counted_kinds(s: Session) -> None:
+        for kind, n in s.run(classify(tables, tuple(mapping.mapping.key))):
+            report.counts.add(str(kind), int(n))
+
     writes = guarded_writes(tables, spec, target.insert)
-    done_rows = 0
-    began = time.perf_counter()
-    progress(f"{mapping.table}: apply {counted(keys, 'key')}", 0, keys)
-    for batch in reader:
-        if not batch.num_rows:
-            continue
-        with transaction() as s:
-            s.run(sa.schema.CreateTable(tables.batch, if_not_exists=True))
-            s.run(sa.delete(tables.batch))
-            s.stage(tables, batch)
-            for kind, n in s.run(classify(tables, tuple(mapping.mapping.key))):
-                report.counts.add(str(kind), int(n))
-            for statement in writes:
-                s.run(statement)
-        done_rows += batch.num_rows
-        rate = per_second(done_rows, began, "key")
-        label = f"{mapping.table}: applied {done_rows:,} of {keys:,} keys" + (f", {rate}" if rate else "")
-        progress(label, done_rows, keys)
+    _write_batches(
+        engine,
+        mapping,
+        target,
+        tables,
+        last,
+        keys,
+        writes,
+        counted_kinds,
+        transaction,
+        batch_rows,
+        progress,
+        ("apply", "applied"),
+    )
     now = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
     with transaction() as s:
         for f in new:
@@ -382,4 +415,122 @@ def _apply(
     engine.drop(last)
 
 
-__all__ = ["BATCH_ROWS", "POSITION", "TableApply", "apply_table"]
+def _latest(
+    engine: DuckDBEngine, mapping: LoadedMapping, target: Target, files: list[EventFile], report: TableApply
+) -> tuple[str, dict[str, int]]:
+    """The latest change of each key among ``files`` (an engine table) and the events each file holds."""
+    events = load_events(engine, mapping, files, f"{mapping.mapping.slug}__apply_events")
+    report.notes = tuple(dict.fromkeys((*report.notes, *events.notes)))
+    try:
+        per_file = {
+            str(f): int(n)
+            for f, n in engine.rows(f"SELECT __source, count(*) FROM {ident(events.relation)} GROUP BY ALL")
+        }
+        last = latest(engine, events)
+    except duckdb.Error as e:  # the engine could not read an events file
+        raise InputError(
+            f"an events file of {mapping.table} cannot be read: {str(e).splitlines()[0]}",
+            expected="event files as cdcnorm convert writes them",
+        ) from None
+    _check_values(engine, mapping, target, last, files)
+    return last, per_file
+
+
+def _write_batches(
+    engine: DuckDBEngine,
+    mapping: LoadedMapping,
+    target: Target,
+    tables: Tables,
+    last: str,
+    keys: int,
+    writes: list[sa.Executable],
+    before: Callable[[Session], None],
+    transaction: Callable[[], AbstractContextManager[Session]],
+    batch_rows: int,
+    progress: Callable[[str, int, int], None],
+    verbs: tuple[str, str],
+    after: Callable[[Session], None] = lambda s: None,
+) -> None:
+    """Stream the changes of ``last`` to the target in batches of keys: each batch staged, counted
+    (``before``), written (``writes``) and counted again (``after``) in one transaction; ``verbs``:
+    the progress lines' (``apply``, ``applied``)."""
+    ftypes = list(mapping.field_types.values())
+    forms = [f"{target.batch_form(t, f'v{i}')} AS v{i}" for i, t in enumerate(ftypes)]
+    sql = f"SELECT {', '.join(forms)}, __position, __action FROM {ident(last)}"
+    reader = engine.con.sql(sql).to_arrow_reader(batch_rows)
+    assert reader is not None
+    done_rows = 0
+    began = time.perf_counter()
+    progress(f"{mapping.table}: {verbs[0]} {counted(keys, 'key')}", 0, keys)
+    for batch in reader:
+        if not batch.num_rows:
+            continue
+        with transaction() as s:
+            s.run(sa.schema.CreateTable(tables.batch, if_not_exists=True))
+            s.run(sa.delete(tables.batch))
+            s.stage(tables, batch)
+            before(s)
+            for statement in writes:
+                s.run(statement)
+            after(s)
+        done_rows += batch.num_rows
+        rate = per_second(done_rows, began, "key")
+        label = f"{mapping.table}: {verbs[1]} {done_rows:,} of {keys:,} keys" + (f", {rate}" if rate else "")
+        progress(label, done_rows, keys)
+
+
+def _recheck(
+    engine: DuckDBEngine,
+    mapping: LoadedMapping,
+    target: Target,
+    spec: TableSpec,
+    tables: Tables,
+    files: list[EventFile],
+    report: TableApply,
+    transaction: Callable[[], AbstractContextManager[Session]],
+    batch_rows: int,
+    progress: Callable[[str, int, int], None],
+) -> Recheck:
+    """Compare the table with the latest change of each key of every events file (all applied by
+    now) and write again what differs: ``Recheck``."""
+    found = Recheck()
+    key = tuple(mapping.mapping.key)
+    matched = 0
+    if files:
+        progress(f"{mapping.table}: recheck {counted(len(files), 'event file')}", 0, 1)
+        last, _ = _latest(engine, mapping, target, files, report)
+        found.keys = engine.count(last)
+
+        def kinds(s: Session) -> None:
+            for kind, n in s.run(classify(tables, key, compare=True)):
+                if (fate := RECHECK_KINDS.get(str(kind))) is not None:
+                    setattr(found, fate, getattr(found, fate) + int(n))
+
+        def holds(s: Session) -> None:  # the upserts the table holds once the batch is written
+            nonlocal matched
+            matched += int(s.run(held(tables, key))[0][0])
+
+        writes = guarded_writes(tables, spec, target.insert, repair=True)
+        _write_batches(
+            engine,
+            mapping,
+            target,
+            tables,
+            last,
+            found.keys,
+            writes,
+            kinds,
+            transaction,
+            batch_rows,
+            progress,
+            ("recheck", "rechecked"),
+            after=holds,
+        )
+        engine.drop(last)
+    with transaction() as s:
+        rows = int(s.run(sa.select(sa.func.count()).select_from(tables.data))[0][0])
+    found.unmatched = rows - matched
+    return found
+
+
+__all__ = ["BATCH_ROWS", "POSITION", "Recheck", "TableApply", "apply_table"]

@@ -13,7 +13,7 @@ from typing import TYPE_CHECKING, Any
 from rich.console import Console
 from rich.table import Table
 
-from cdcnorm.errors import EXIT_OK, TargetError, UsageError, counted, did_you_mean
+from cdcnorm.errors import EXIT_DIFFERS, EXIT_OK, TargetError, UsageError, counted, did_you_mean
 from cdcnorm.landing.area import writable_folder
 from cdcnorm.mapping import load_mappings
 from cdcnorm.mapping.load import LoadedMapping
@@ -63,6 +63,12 @@ def add_commands(sub: Any) -> None:
     )
     app.add_argument("--schema", help="the schema of every table (instead of the table name's prefix)")
     app.add_argument("--dry-run", action="store_true", help="report what would change, change nothing")
+    app.add_argument(
+        "--recheck",
+        action="store_true",
+        help="then compare each table with all its events files, those applied before too: rows deleted or "
+        "edited by hand are written again, rows no event wrote are counted (exit 14 when any differs)",
+    )
     app.add_argument("--table", help="only this table")
     app.add_argument("--mappings", default="mappings", help="folder of mapping files (default: mappings/)")
     app.add_argument("--batch-rows", type=int, default=50_000, help="keys per batch (default 50000)")
@@ -257,6 +263,7 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
                         target,
                         schema=args.schema,
                         dry_run=args.dry_run,
+                        recheck=args.recheck,
                         batch_rows=args.batch_rows,
                         progress=progress,
                     )
@@ -280,18 +287,22 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
                 "events": r.events,
                 "files": r.files,
                 **r.counts.as_dict(),
+                **({"recheck": r.recheck.as_dict()} if r.recheck is not None else {}),
                 "notes": list(r.notes),
             }
             for r in reports
         ],
         "unmapped": missing,
     }
+    differs = [r for r in reports if r.recheck is not None and r.recheck.differs]
+    code = EXIT_DIFFERS if differs else EXIT_OK
     if args.json:
         out.print_json(json.dumps(data))
-        return EXIT_OK
+        return code
     if args.quiet:
         _warn_unmapped(err, landing, args.mappings, missing, "not applied")
-        return EXIT_OK
+        _say_differs(err, differs, args.dry_run)
+        return code
     title = f"{'dry run: would apply' if args.dry_run else 'applied'} {landing} to {target.shown}"
     t = Table(title=title)
     cols = [
@@ -311,9 +322,40 @@ def cmd_apply(args: argparse.Namespace, out: Console, err: Console) -> int:
     for row in data["tables"]:
         t.add_row(row["target_table"], *(str(row[c]) for c in cols[1:]))
     print_table(out, t)
+    if args.recheck:
+        verb = "would write again" if args.dry_run else "written again"
+        t = Table(title=f"rechecked against every events file ({verb}: restored, repaired)")
+        checks = ["keys", "restored", "repaired", "unmatched"]
+        for col in ["table", *checks]:
+            t.add_column(col, justify="left" if col == "table" else "right")
+        for r in reports:
+            assert r.recheck is not None
+            t.add_row(r.target_table, *(str(getattr(r.recheck, c)) for c in checks))
+        print_table(out, t)
     _print_notes(err, [(r.table, r.notes) for r in reports])
     _warn_unmapped(err, landing, args.mappings, missing, "not applied")
-    return EXIT_OK
+    _say_differs(err, differs, args.dry_run)
+    return code
+
+
+def _say_differs(err: Console, differs: list[Any], dry_run: bool) -> None:
+    """A line per table ``apply --recheck`` found differing from its events (``Recheck``)."""
+    for r in differs:
+        c = r.recheck
+        parts = [
+            f"{c.restored:,} gone (rows or tombstones deleted by hand?)" if c.restored else "",
+            f"{counted(c.repaired, 'row')} edited since applied" if c.repaired else "",
+            f"{counted(c.unmatched, 'row')} its events do not account for, left as they are"
+            if c.unmatched
+            else "",
+        ]
+        done = "would be written again (dry run)" if dry_run else "written again"
+        fixed = f"; the rows gone or edited {done}" if c.restored or c.repaired else ""
+        err.print(
+            f"warning: {r.target_table} differed from its events: {', '.join(p for p in parts if p)}{fixed}",
+            markup=False,
+            soft_wrap=True,
+        )
 
 
 def run_command(args: argparse.Namespace, out: Console, err: Console) -> int | None:

@@ -165,13 +165,24 @@ def _on_key(a: sa.Table, b: sa.Table, key: tuple[str, ...]) -> sa.ColumnElement[
     return sa.and_(*[a.c[k] == b.c[k] for k in key])
 
 
-def classify(t: Tables, key: tuple[str, ...]) -> sa.Select[Any]:
-    """What each staged change would do, counted: (kind, n) rows."""
+def _differs(row: Any, change: Any, fields: list[str]) -> sa.ColumnElement[bool]:
+    """True when any of ``fields`` of a row (its columns ``row``) holds other than a change's
+    (``change``), NULL being equal to NULL."""
+    return sa.or_(sa.false(), *[row[f].is_distinct_from(change[f]) for f in fields])
+
+
+def classify(t: Tables, key: tuple[str, ...], *, compare: bool = False) -> sa.Select[Any]:
+    """What each staged change would do, counted: (kind, n) rows. ``compare``: an upsert the row
+    already holds by position (already applied) whose values the row does not hold is ``differs``
+    (edited since it was applied: ``guarded_writes(repair=True)`` writes it again)."""
     b, d, r = t.batch, t.tombstones, t.data
     row_pos = sa.func.coalesce(r.c[POSITION], "")
     tomb_pos = sa.func.coalesce(d.c[POSITION], "")
     guard = sa.case((row_pos >= tomb_pos, row_pos), else_=tomb_pos)
+    values = [c.name for c in b.c if c.name not in (*key, POSITION, ACTION)]
+    edited = sa.and_(b.c[ACTION] == "upsert", r.c[POSITION] == b.c[POSITION], _differs(r.c, b.c, values))
     kind = sa.case(
+        *([(edited, "differs")] if compare else []),
         (b.c[POSITION] == guard, "already_applied"),
         (b.c[POSITION] < guard, "stale"),
         (sa.and_(b.c[ACTION] == "delete", r.c[key[0]].is_(None)), "deleted_absent"),
@@ -184,9 +195,19 @@ def classify(t: Tables, key: tuple[str, ...]) -> sa.Select[Any]:
     return sa.select(each.c.kind, sa.func.count()).group_by(each.c.kind)
 
 
-def guarded_writes(t: Tables, spec: TableSpec, insert: Callable[[sa.Table], Any]) -> list[sa.Executable]:
+def held(t: Tables, key: tuple[str, ...]) -> sa.Select[Any]:
+    """How many of the staged upserts the table holds as the row of their key, at their position: (n,)."""
+    b, r = t.batch, t.data
+    on = sa.and_(_on_key(b, r, key), r.c[POSITION] == b.c[POSITION])
+    return sa.select(sa.func.count()).select_from(b.join(r, on)).where(b.c[ACTION] == "upsert")
+
+
+def guarded_writes(
+    t: Tables, spec: TableSpec, insert: Callable[[sa.Table], Any], *, repair: bool = False
+) -> list[sa.Executable]:
     """The guarded statements of one batch, in order: upsert, drop superseded tombstones, delete,
-    write tombstones."""
+    write tombstones. ``repair``: an upsert also rewrites a row at its own position whose values
+    differ from it (``classify``'s ``differs``)."""
     b, d, r = t.batch, t.tombstones, t.data
     key = spec.key
     cols = [*spec.fields, POSITION]
@@ -197,10 +218,16 @@ def guarded_writes(t: Tables, spec: TableSpec, insert: Callable[[sa.Table], Any]
         .where(b.c[ACTION] == "upsert", newer_than_tomb)
     )
     up = insert(r).from_select([r.c[c] for c in cols], picked)
+    newer = r.c[POSITION] < up.excluded[POSITION]
+    if repair:
+        values = [c for c in spec.fields if c not in key]
+        newer = sa.or_(
+            newer, sa.and_(r.c[POSITION] == up.excluded[POSITION], _differs(r.c, up.excluded, values))
+        )
     up = up.on_conflict_do_update(
         index_elements=[r.c[k] for k in key],
         set_={r.c[c]: up.excluded[c] for c in cols if c not in key},
-        where=r.c[POSITION] < up.excluded[POSITION],
+        where=newer,
     )
 
     def batch_keys(action: str) -> sa.Select[Any]:

@@ -4,7 +4,8 @@
   reading those events and writing them as one Parquet file (DuckDB, one COPY);
 - apply of about 1M events into PostgreSQL against the floor of a plain COPY of the same rows
   (every event's fields and position, as CSV) into an empty table of the same types;
-- apply of the same events into SQLite (and DuckDB), timed.
+- apply of the same events into SQLite (and DuckDB), timed;
+- ``apply --recheck`` of each target right after (every key compared again, nothing differs), timed.
 
 Every command is a fresh process, timed from outside with its peak RSS. PostgreSQL is the
 server named by CDCNORM_TEST_PG (``.ci/run`` starts one; skipped without it).
@@ -168,6 +169,13 @@ def main() -> None:
             cdcnorm("apply", str(one), "--mappings", str(mappings), "--target", f"{kind}:///{target}")
         )
         report[f"apply_{kind}_s"], report[f"apply_{kind}_peak_mib"] = round(wall, 2), round(mib)
+        # the same target held to every events file again (nothing differs: every key compared)
+        wall, mib = run_isolated(
+            cdcnorm(
+                "apply", str(one), "--mappings", str(mappings), "--target", f"{kind}:///{target}", "--recheck"
+            )
+        )
+        report[f"recheck_{kind}_s"], report[f"recheck_{kind}_peak_mib"] = round(wall, 2), round(mib)
     url = os.environ.get("CDCNORM_TEST_PG")
     if url:
         import psycopg
@@ -187,6 +195,10 @@ def main() -> None:
         report["apply_postgresql_s"] = round(min(times["apply"]), 2)
         report["apply_postgresql_peak_mib"] = round(mem["apply"])
         report["apply_postgresql_ratio"] = round(min(times["apply"]) / min(times["copy"]), 2)
+        wall, mib = run_isolated(
+            cdcnorm("apply", str(one), "--mappings", str(mappings), "--target", url, "--recheck")
+        )
+        report["recheck_postgresql_s"], report["recheck_postgresql_peak_mib"] = round(wall, 2), round(mib)
     else:
         report["postgresql"] = "skipped: set CDCNORM_TEST_PG"
     print(json.dumps(report, indent=2))

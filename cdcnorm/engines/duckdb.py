@@ -15,7 +15,7 @@ import re
 import secrets
 import struct
 import threading
-from collections.abc import Callable, Collection, Iterator, Sequence
+from collections.abc import Callable, Collection, Iterator, Mapping, Sequence
 from concurrent.futures import ThreadPoolExecutor, wait
 from dataclasses import dataclass
 from importlib import metadata
@@ -805,15 +805,25 @@ class DuckDBEngine:
         columns: list[tuple[tuple[str, ...], str, str]],
         nulls: list[str],
         taken: Collection[str] = (),
+        blob_forms: Mapping[str, str] | None = None,
     ) -> dict[str, tuple[int, int, int]]:
-        """Load Parquet files of one schema, in one scan, with every value as text: BLOB as hex,
-        structs, lists and maps as JSON text; a text equal to a null token is NULL. ``columns``
-        are (engine keys, type, internal name), engine keys as ``scan_parquet`` gives them;
-        ``taken`` the files' own column names. The table has ``__fname``, the internal columns
-        and the rows in file order; returns, per path, (rows, first rowid, last rowid)."""
+        """Load Parquet files of one schema, in one scan, with every value as text: BLOB in the
+        form ``blob_forms`` gives by internal name (``hex``, the default; ``base64``, RFC 4648
+        section 4; ``uuid``: 16 bytes as 8-4-4-4-12 lower-case hex, RFC 9562 section 4, any other
+        length as hex), structs, lists and maps as JSON text; a text equal to a null token is NULL.
+        ``columns`` are (engine keys, type, internal name), engine keys as ``scan_parquet`` gives
+        them; ``taken`` the files' own column names. The table has ``__fname``, the internal
+        columns and the rows in file order; returns, per path, (rows, first rowid, last rowid)."""
+        forms = blob_forms or {}
 
-        def as_text(col: str, typ: str) -> str:
+        def as_text(col: str, typ: str, name: str) -> str:
             if typ == "BLOB":
+                form = forms.get(name, "hex")
+                if form == "base64":
+                    return f"to_base64({col})"
+                if form == "uuid":
+                    dashed = f"regexp_replace(lower(hex({col})), '^(.{{8}})(.{{4}})(.{{4}})(.{{4}})(.{{12}})$', '\\1-\\2-\\3-\\4-\\5')"
+                    return f"CASE WHEN octet_length({col}) = 16 THEN {dashed} ELSE hex({col}) END"
                 return f"hex({col})"
             if typ.startswith(("STRUCT", "MAP")) or typ.endswith("]"):
                 return f"CAST(to_json({col}) AS VARCHAR)"
@@ -825,7 +835,7 @@ class DuckDBEngine:
         fname = "__fname"
         while fname in taken:
             fname += "_"
-        parts = "".join(f", {as_text(parquet_member(k), t)} AS {ident(i)}" for k, t, i in columns)
+        parts = "".join(f", {as_text(parquet_member(k), t, i)} AS {ident(i)}" for k, t, i in columns)
         self.con.execute(
             f"CREATE TABLE {ident(table)} AS SELECT {ident(fname)} AS __fname{parts} "
             f"FROM read_parquet([{', '.join(lit(p) for p in paths)}], filename = {lit(fname)})"

@@ -1,5 +1,7 @@
-"""Parquet dumps, read by the engine: typed columns as their text, BLOB as hex, nested values
-(structs, lists, maps) as RFC 8259 JSON text. A mapped dotted column (``after.id``) that is not a
+"""Parquet dumps, read by the engine: typed columns as their text, BLOB as the text the fields
+reading it take (``blob_forms``: hex; base64 for a ``bytes`` field with ``encoding: base64``; a
+16-byte value's 8-4-4-4-12 form for a ``uuid`` field), nested values (structs, lists, maps) as
+RFC 8259 JSON text. A mapped dotted column (``after.id``) that is not a
 top-level column reads the member of a struct column, as a nested key of JSON Lines does. A string
 equal to a null token other than "" is NULL."""
 
@@ -37,6 +39,46 @@ def _members(prefix: str, struct_type: str) -> list[str]:
         else:
             out.append(name)
     return out
+
+
+#: How a BLOB column's bytes become the text a field reads (the engine adapter renders each).
+BLOB_FORMS = ("hex", "base64", "uuid")
+
+
+def blob_forms(mapping: Mapping) -> dict[str, dict[str, str]]:
+    """Raw column -> {field: the form of a BLOB value it reads}: ``base64`` for a bytes field with
+    ``encoding: base64`` (hex text would be misread as base64: ``0102`` is base64 too), ``uuid`` for
+    a uuid field (a UUID stored as 16 bytes with no logical type: RFC 9562 section 4 writes its
+    octets in order as 8-4-4-4-12 hex), ``hex`` otherwise (a bytes field's default, a hex position)."""
+    out: dict[str, dict[str, str]] = {}
+    for role, column in mapping.change_columns().items():
+        out.setdefault(column, {})[role] = "hex"
+    for name, spec in mapping.fields.items():
+        kind = spec.type.split("(")[0].strip().lower()
+        form = (
+            "base64" if kind == "bytes" and spec.encoding == "base64" else "uuid" if kind == "uuid" else "hex"
+        )
+        before = mapping.before_column(name)
+        for column in [*mapping.raw_columns(name), *([before] if before else [])]:
+            out.setdefault(column, {})[name] = form
+    return out
+
+
+def _blob_form(readers: dict[str, str], column: str, path: Path) -> str:
+    """The one form the fields reading BLOB column ``column`` take; fields that would read it in
+    different forms are an InputError (one text cannot be both)."""
+    forms = set(readers.values()) or {"hex"}
+    if len(forms) == 1:
+        return forms.pop()
+    said = ", ".join(f"{f} ({form})" for f, form in sorted(readers.items()))
+    raise InputError(
+        "fields read this binary column in different forms",
+        file=str(path),
+        field=column,
+        expected="fields that read a binary (BLOB) column as one form: hex, base64 or a UUID",
+        found=said,
+        hint="read it with one field, or give the bytes fields the same encoding",
+    )
 
 
 def _own_schema(path: Path) -> pa.Schema | None:
@@ -118,9 +160,15 @@ def read_files(
         f.members = [m for k, t, _ in cols if t.startswith("STRUCT") for m in _members(k[0], t)]
         groups.setdefault(tuple(cols), []).append(f)
     tokens = [t for t in mapping.nulls if t != ""]
+    readers = blob_forms(mapping)
     for shape, group in groups.items():
         internal = [raw.internal(".".join(k)) for k, _, _ in shape]
-        _load(group, where, list(shape), internal, tokens, engine, raw)
+        forms = {
+            i: _blob_form(readers.get(".".join(k), {}), ".".join(k), group[0].path)
+            for (k, t, _), i in zip(shape, internal, strict=True)
+            if t == "BLOB"
+        }
+        _load(group, where, list(shape), internal, tokens, engine, raw, forms)
 
 
 def _unreadable(f: RawFile, e: duckdb.Error) -> InputError:
@@ -141,6 +189,7 @@ def _load(
     tokens: list[str],
     engine: DuckDBEngine,
     raw: RawTable,
+    forms: dict[str, str],
 ) -> None:
     staged = raw.relation("parquet")
     paths = {str(where[f.file_id]): f for f in group}
@@ -151,13 +200,14 @@ def _load(
             [(e, t, i) for (_, t, e), i in zip(cols, internal, strict=True)],
             tokens,
             {k[0] for k, _, _ in cols},
+            forms,
         )
     except duckdb.Error as e:
         engine.drop(staged)
         if len(group) == 1:
             raise _unreadable(group[0], e) from None
         for f in group:  # find the file the engine cannot read
-            _load([f], where, cols, internal, tokens, engine, raw)
+            _load([f], where, cols, internal, tokens, engine, raw, forms)
         return
     good = []
     for p, f in paths.items():

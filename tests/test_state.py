@@ -1547,3 +1547,30 @@ def test_recheck_of_every_type_into_every_target(parcels: Any, tmp_path: Path) -
     mdir, landing, _, final, pg_url = parcels
     for url in (f"sqlite:///{tmp_path / 'w.db'}", f"duckdb:///{tmp_path / 'w.duckdb'}", pg_url):
         _tamper_and_recheck(landing, mdir, url, "depot.parcels", "parcel_id", PG_TYPES, final)
+
+
+@pytest.mark.parametrize("kind", ["sqlite", "duckdb", "postgresql"])
+def test_recheck_of_a_table_keyed_by_two_fields(
+    tmp_path: Path, request: pytest.FixtureRequest, kind: str
+) -> None:
+    # the oracle: the same landing area applied into a new database
+    mdir, landing = _keyed_case(tmp_path, "id, region")
+    url = _target(kind, request, tmp_path / "w.db")
+    fresh = f"sqlite:///{tmp_path / 'fresh.db'}"
+    _apply(landing, mdir, url)
+    _apply(landing, mdir, fresh)
+    want = _berths(fresh, "id, region")
+    _run_sql(
+        url,
+        "harbour.berths",
+        [
+            "DELETE FROM {t} WHERE id = 1 AND region = 'south'",
+            "UPDATE {t} SET v = 'by hand' WHERE id = 1 AND region = 'north'",
+            "INSERT INTO {t} (id, region, v, cdcnorm_position) VALUES (1, 'east', 'x', 'zz')",
+        ],
+    )
+    counts = {"keys": 3, "restored": 1, "repaired": 1, "unmatched": 1}
+    assert _recheck(landing, mdir, url) == (14, counts)
+    got = _berths(url, "id, region")
+    assert got.pop((1, "east"))["v"] == "x"
+    assert got == want

@@ -270,19 +270,14 @@ def test_parquet_dump(convert: ConvertFn, tmp_path: object) -> None:
     assert ev[1] == {"id": 1, "a": "x", "b": "AAE="} and ev[2]["a"] is None and ev[2]["b"] == ""
 
 
-BINARY = """
-table: t.tokens
-files: ["tok*"]
-key: [id]
-change:
-  action: {column: op, codes: {I: insert}}
-  position: {column: pos, kind: integer}
-fields:
-  id: integer
-  card: {type: bytes, encoding: base64}
-  blob: bytes
-  account: uuid
-"""
+#: bytes and uuid fields over binary columns (MAPPING's table, other fields)
+BINARY = (
+    MAPPING.replace("t.notes", "t.tokens")
+    .replace('["n*"]', '["tok*"]')
+    .replace(
+        "  a: text\n  b: text\n", "  card: {type: bytes, encoding: base64}\n  blob: bytes\n  account: uuid\n"
+    )
+)
 
 
 def _parquet(table: pa.Table) -> bytes:

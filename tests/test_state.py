@@ -1020,6 +1020,20 @@ def _berths(url: str, key: str) -> State:
     return by_key
 
 
+def _keyed_applied(
+    tmp_path: Path, request: pytest.FixtureRequest, kind: str
+) -> tuple[Path, Path, str, State]:
+    """``_keyed_case`` (keyed by id and region) applied into a ``kind`` target: mappings, landing
+    area, the target's URL, and the oracle: the rows of the same landing area applied into a new
+    SQLite database."""
+    mdir, landing = _keyed_case(tmp_path, "id, region")
+    url = _target(kind, request, tmp_path / "w.db")
+    fresh = f"sqlite:///{tmp_path / 'fresh.db'}"
+    _apply(landing, mdir, url)
+    _apply(landing, mdir, fresh)
+    return mdir, landing, url, _berths(fresh, "id, region")
+
+
 @pytest.mark.parametrize("kind", ["sqlite", "duckdb", "postgresql"])
 def test_a_table_dropped_from_the_target_is_applied_anew_not_left_empty(
     tmp_path: Path, capsys: pytest.CaptureFixture[str], request: pytest.FixtureRequest, kind: str
@@ -1027,12 +1041,7 @@ def test_a_table_dropped_from_the_target_is_applied_anew_not_left_empty(
     """Before, the applied log still named the events files, so a table dropped (to be made anew)
     was made empty and apply said every event was already applied (exit 0). The oracle: the
     same landing area applied into a new database."""
-    mdir, landing = _keyed_case(tmp_path, "id, region")
-    url = _target(kind, request, tmp_path / "w.db")
-    fresh = f"sqlite:///{tmp_path / 'fresh.db'}"
-    _apply(landing, mdir, url)
-    _apply(landing, mdir, fresh)
-    want = _berths(fresh, "id, region")
+    mdir, landing, url, want = _keyed_applied(tmp_path, request, kind)
     assert sorted(want) == [(1, "north"), (1, "south")]  # 2 deleted, 1 north updated
     _drop(url, "harbour.berths")
     capsys.readouterr()
@@ -1553,13 +1562,7 @@ def test_recheck_of_every_type_into_every_target(parcels: Any, tmp_path: Path) -
 def test_recheck_of_a_table_keyed_by_two_fields(
     tmp_path: Path, request: pytest.FixtureRequest, kind: str
 ) -> None:
-    # the oracle: the same landing area applied into a new database
-    mdir, landing = _keyed_case(tmp_path, "id, region")
-    url = _target(kind, request, tmp_path / "w.db")
-    fresh = f"sqlite:///{tmp_path / 'fresh.db'}"
-    _apply(landing, mdir, url)
-    _apply(landing, mdir, fresh)
-    want = _berths(fresh, "id, region")
+    mdir, landing, url, want = _keyed_applied(tmp_path, request, kind)
     _run_sql(
         url,
         "harbour.berths",

@@ -290,6 +290,25 @@ def placed(
     return [specs[id(lm)] for lm in applying]
 
 
+@dataclass(frozen=True)
+class _Table:
+    """What every step of one table's apply works with."""
+
+    engine: DuckDBEngine
+    mapping: LoadedMapping
+    target: Target
+    spec: TableSpec
+    tables: Tables
+    #: a transaction on the target (under --dry-run, the one transaction, rolled back at the end)
+    transaction: Callable[[], AbstractContextManager[Session]]
+    batch_rows: int
+    progress: Callable[[str, int, int], None]
+
+    @property
+    def key(self) -> tuple[str, ...]:
+        return tuple(self.mapping.mapping.key)
+
+
 def apply_table(
     engine: DuckDBEngine,
     mapping: LoadedMapping,
@@ -316,30 +335,16 @@ def apply_table(
         if dry_run:  # one transaction, rolled back: every batch sees the ones before it
             session = stack.enter_context(begin(rollback=True))
             transaction = lambda: nullcontext(session)  # noqa: E731
-        _apply(
-            engine, mapping, target, spec, tables, files, digests, report, transaction, batch_rows, progress
-        )
+        t = _Table(engine, mapping, target, spec, tables, transaction, batch_rows, progress)
+        _apply(t, files, digests, report)
         if recheck:
-            report.recheck = _recheck(
-                engine, mapping, target, spec, tables, files, report, transaction, batch_rows, progress
-            )
+            report.recheck = _recheck(t, files, report)
     return report
 
 
-def _apply(
-    engine: DuckDBEngine,
-    mapping: LoadedMapping,
-    target: Target,
-    spec: TableSpec,
-    tables: Tables,
-    files: list[EventFile],
-    digests: dict[Path, str],
-    report: TableApply,
-    transaction: Callable[[], AbstractContextManager[Session]],
-    batch_rows: int,
-    progress: Callable[[str, int, int], None],
-) -> None:
-    with transaction() as s:
+def _apply(t: _Table, files: list[EventFile], digests: dict[Path, str], report: TableApply) -> None:
+    target, spec, tables = t.target, t.spec, t.tables
+    with t.transaction() as s:
         existed = bool(s.run(target.declared_columns(tables.data)))
         _ensure(s, target, tables)
         _check_columns(s, target, spec, tables)
@@ -372,34 +377,21 @@ def _apply(
     report.files = len(files)
     if not new:
         return
-    progress(f"{mapping.table}: read {counted(len(new), 'new event file')}", 0, 1)
-    last, per_file = _latest(engine, mapping, target, new, report)
+    t.progress(f"{t.mapping.table}: read {counted(len(new), 'new event file')}", 0, 1)
+    last, per_file = _latest(t, new, report)
     total = sum(per_file.values())
-    keys = engine.count(last)
+    keys = t.engine.count(last)
     report.events += total
     report.counts.compacted += total - keys
 
     def counted_kinds(s: Session) -> None:
-        for kind, n in s.run(classify(tables, tuple(mapping.mapping.key))):
+        for kind, n in s.run(classify(tables, t.key)):
             report.counts.add(str(kind), int(n))
 
     writes = guarded_writes(tables, spec, target.insert)
-    _write_batches(
-        engine,
-        mapping,
-        target,
-        tables,
-        last,
-        keys,
-        writes,
-        counted_kinds,
-        transaction,
-        batch_rows,
-        progress,
-        ("apply", "applied"),
-    )
+    _write_batches(t, last, keys, writes, ("apply", "applied"), before=counted_kinds)
     now = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
-    with transaction() as s:
+    with t.transaction() as s:
         for f in new:
             s.run(
                 target.insert(tables.applied)
@@ -412,13 +404,12 @@ def _apply(
                 )
                 .on_conflict_do_nothing()  # another apply of the same file got there first
             )
-    engine.drop(last)
+    t.engine.drop(last)
 
 
-def _latest(
-    engine: DuckDBEngine, mapping: LoadedMapping, target: Target, files: list[EventFile], report: TableApply
-) -> tuple[str, dict[str, int]]:
+def _latest(t: _Table, files: list[EventFile], report: TableApply) -> tuple[str, dict[str, int]]:
     """The latest change of each key among ``files`` (an engine table) and the events each file holds."""
+    engine, mapping = t.engine, t.mapping
     events = load_events(engine, mapping, files, f"{mapping.mapping.slug}__apply_events")
     report.notes = tuple(dict.fromkeys((*report.notes, *events.notes)))
     try:
@@ -432,103 +423,73 @@ def _latest(
             f"an events file of {mapping.table} cannot be read: {str(e).splitlines()[0]}",
             expected="event files as cdcnorm convert writes them",
         ) from None
-    _check_values(engine, mapping, target, last, files)
+    _check_values(engine, mapping, t.target, last, files)
     return last, per_file
 
 
 def _write_batches(
-    engine: DuckDBEngine,
-    mapping: LoadedMapping,
-    target: Target,
-    tables: Tables,
+    t: _Table,
     last: str,
     keys: int,
     writes: list[sa.Executable],
-    before: Callable[[Session], None],
-    transaction: Callable[[], AbstractContextManager[Session]],
-    batch_rows: int,
-    progress: Callable[[str, int, int], None],
     verbs: tuple[str, str],
+    *,
+    before: Callable[[Session], None],
     after: Callable[[Session], None] = lambda s: None,
 ) -> None:
     """Stream the changes of ``last`` to the target in batches of keys: each batch staged, counted
     (``before``), written (``writes``) and counted again (``after``) in one transaction; ``verbs``:
     the progress lines' (``apply``, ``applied``)."""
-    ftypes = list(mapping.field_types.values())
-    forms = [f"{target.batch_form(t, f'v{i}')} AS v{i}" for i, t in enumerate(ftypes)]
+    ftypes = list(t.mapping.field_types.values())
+    forms = [f"{t.target.batch_form(ft, f'v{i}')} AS v{i}" for i, ft in enumerate(ftypes)]
     sql = f"SELECT {', '.join(forms)}, __position, __action FROM {ident(last)}"
-    reader = engine.con.sql(sql).to_arrow_reader(batch_rows)
+    reader = t.engine.con.sql(sql).to_arrow_reader(t.batch_rows)
     assert reader is not None
     done_rows = 0
     began = time.perf_counter()
-    progress(f"{mapping.table}: {verbs[0]} {counted(keys, 'key')}", 0, keys)
+    table = t.mapping.table
+    t.progress(f"{table}: {verbs[0]} {counted(keys, 'key')}", 0, keys)
     for batch in reader:
         if not batch.num_rows:
             continue
-        with transaction() as s:
-            s.run(sa.schema.CreateTable(tables.batch, if_not_exists=True))
-            s.run(sa.delete(tables.batch))
-            s.stage(tables, batch)
+        with t.transaction() as s:
+            s.run(sa.schema.CreateTable(t.tables.batch, if_not_exists=True))
+            s.run(sa.delete(t.tables.batch))
+            s.stage(t.tables, batch)
             before(s)
             for statement in writes:
                 s.run(statement)
             after(s)
         done_rows += batch.num_rows
         rate = per_second(done_rows, began, "key")
-        label = f"{mapping.table}: {verbs[1]} {done_rows:,} of {keys:,} keys" + (f", {rate}" if rate else "")
-        progress(label, done_rows, keys)
+        label = f"{table}: {verbs[1]} {done_rows:,} of {keys:,} keys" + (f", {rate}" if rate else "")
+        t.progress(label, done_rows, keys)
 
 
-def _recheck(
-    engine: DuckDBEngine,
-    mapping: LoadedMapping,
-    target: Target,
-    spec: TableSpec,
-    tables: Tables,
-    files: list[EventFile],
-    report: TableApply,
-    transaction: Callable[[], AbstractContextManager[Session]],
-    batch_rows: int,
-    progress: Callable[[str, int, int], None],
-) -> Recheck:
+def _recheck(t: _Table, files: list[EventFile], report: TableApply) -> Recheck:
     """Compare the table with the latest change of each key of every events file (all applied by
     now) and write again what differs: ``Recheck``."""
     found = Recheck()
-    key = tuple(mapping.mapping.key)
     matched = 0
     if files:
-        progress(f"{mapping.table}: recheck {counted(len(files), 'event file')}", 0, 1)
-        last, _ = _latest(engine, mapping, target, files, report)
-        found.keys = engine.count(last)
+        t.progress(f"{t.mapping.table}: recheck {counted(len(files), 'event file')}", 0, 1)
+        last, _ = _latest(t, files, report)
+        found.keys = t.engine.count(last)
 
         def kinds(s: Session) -> None:
-            for kind, n in s.run(classify(tables, key, compare=True)):
+            for kind, n in s.run(classify(t.tables, t.key, compare=True)):
                 if (fate := RECHECK_KINDS.get(str(kind))) is not None:
                     setattr(found, fate, getattr(found, fate) + int(n))
 
         def holds(s: Session) -> None:  # the upserts the table holds once the batch is written
             nonlocal matched
-            matched += int(s.run(held(tables, key))[0][0])
+            matched += int(s.run(held(t.tables, t.key))[0][0])
 
-        writes = guarded_writes(tables, spec, target.insert, repair=True)
-        _write_batches(
-            engine,
-            mapping,
-            target,
-            tables,
-            last,
-            found.keys,
-            writes,
-            kinds,
-            transaction,
-            batch_rows,
-            progress,
-            ("recheck", "rechecked"),
-            after=holds,
-        )
-        engine.drop(last)
-    with transaction() as s:
-        rows = int(s.run(sa.select(sa.func.count()).select_from(tables.data))[0][0])
+        writes = guarded_writes(t.tables, t.spec, t.target.insert, repair=True)
+        _write_batches(t, last, found.keys, writes, ("recheck", "rechecked"), before=kinds, after=holds)
+        t.engine.drop(last)
+    with t.transaction() as s:
+        rows = int(s.run(sa.select(sa.func.count()).select_from(t.tables.data))[0][0])
     found.unmatched = rows - matched
     return found
 

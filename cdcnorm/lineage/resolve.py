@@ -321,6 +321,38 @@ def close_names(name: str, names: Iterable[str], n: int = 3, cutoff: float = 0.6
     return out[:n]
 
 
+#: How a query reads a member of a struct: ``s.info.f``, ``s.info['f']``, ``struct_extract(s.info, 'f')``
+_MEMBER_ACCESS = (exp.Dot, exp.Bracket, exp.StructExtract)
+
+
+def _member_path(node: exp.Expr) -> tuple[exp.Column, list[str]] | None:
+    """A column and the member names read from it (``s.info.f.g``: ``s.info``, [f, g]); None for
+    anything else (a list's element by position, a function's result)."""
+    members: list[str] = []
+    while not isinstance(node, exp.Column):
+        if isinstance(node, exp.Dot) and isinstance(node.expression, exp.Identifier):
+            members.append(node.expression.name)
+        elif (
+            isinstance(node, exp.Bracket)
+            and len(node.expressions) == 1
+            and isinstance(node.expressions[0], exp.Literal)
+            and node.expressions[0].is_string
+        ):
+            members.append(node.expressions[0].name)
+        elif (
+            isinstance(node, exp.StructExtract)
+            and isinstance(node.expression, exp.Literal)
+            and node.expression.is_string
+        ):
+            members.append(node.expression.name)
+        else:
+            return None
+        node = node.this
+    if not isinstance(node.this, exp.Identifier):
+        return None
+    return node, members[::-1]
+
+
 def _line(node: exp.Expr) -> int | None:
     for n in (node, getattr(node, "this", None)):
         if isinstance(n, exp.Expr):
@@ -839,9 +871,78 @@ class StatementResolver:
             for arg in node.iter_expressions():
                 self.expr(arg, scope, d, "aggregate", infl)
             return
+        if isinstance(node, _MEMBER_ACCESS) and self._member(node, scope, d, ctx, infl):
+            return
         sub = compose(ctx, "transform")
         for part in node.iter_expressions():
             self.expr(part, scope, d, sub, infl)
+
+    def _member(self, node: exp.Expr, scope: Scope, d: Deps, ctx: str, infl: str | None) -> bool:
+        """A member of a struct a CTE or derived table builds (``s.info.f`` over ``{'f': fare, 'n':
+        seats} AS info``): only that member's sources flow in, with the rows of the query that
+        builds it. False when the member's expression cannot be told (a struct from a table, a
+        function's result, a set operation): the whole struct's sources are taken, as before."""
+        path = _member_path(node)
+        if path is None or not path[1]:
+            return False
+        col, members = path
+        src = self._find_source(col.table, scope) if col.table else None
+        if not isinstance(src, Scope):
+            return False
+        src = self._canonical(src)
+        if id(src) in self._busy:
+            return False
+        found = self._member_of(col.name, members, src)
+        if found is None:
+            return False
+        member, inner = found
+        m = Deps()
+        self.expr(member, inner, m, "copy", None)
+        rows = self.rows(src)
+        for n, clauses in rows.influence.items():
+            m.add_influence(n, clauses, rows.influence_lines.get(n))
+        if infl:
+            d.merge(m, as_influence=infl)
+        else:
+            d.merge(m, sub=ctx)
+        return True
+
+    def _member_of(self, name: str, members: list[str], src: Scope) -> tuple[exp.Expr, Scope] | None:
+        """The expression of member path ``members`` of output ``name`` of ``src``, and the scope
+        it is read in; None when it cannot be told."""
+        sel = src.expression
+        if not isinstance(sel, exp.Select) or src.is_udtf:
+            return None
+        projs = [p for p in sel.expressions if p.alias_or_name == name]
+        if len(projs) != 1:
+            return None
+        e: exp.Expr = projs[0].this if isinstance(projs[0], exp.Alias) else projs[0]
+        while True:
+            while isinstance(e, exp.Paren):
+                e = e.this
+            if not members:
+                return e, src
+            if isinstance(e, exp.Struct):
+                items = [
+                    (i.this.name, i.expression)
+                    for i in e.expressions
+                    if isinstance(i, exp.PropertyEQ) and isinstance(i.this, exp.Identifier | exp.Literal)
+                ]
+                same = [v for k, v in items if k == members[0]]
+                if len(same) != 1:  # a member named in another case: the one that matches, if one does
+                    same = [v for k, v in items if k.lower() == members[0].lower()]
+                if len(same) != 1:
+                    return None
+                e, members = same[0], members[1:]
+                continue
+            # a struct the query takes from one of its own sources, whole or a member of it
+            path = _member_path(e)
+            if path is None or not path[0].table:
+                return None
+            inner = self._find_source(path[0].table, src)
+            if not isinstance(inner, Scope) or id(self._canonical(inner)) in self._busy:
+                return None
+            return self._member_of(path[0].name, [*path[1], *members], self._canonical(inner))
 
     def _subquery(self, inner: exp.Expr, d: Deps, sub: str, infl: str | None, *, exists: bool) -> None:
         scope = self._scope_of.get(id(inner))

@@ -394,6 +394,34 @@ def test_a_zip_archive_that_is_not_one_readable_dump_is_a_clear_error(
     assert "Traceback" not in err and not (tmp_path / "out" / "events").exists()
 
 
+@pytest.mark.parametrize(
+    ("name", "packed", "inner"),
+    [
+        ("n.csv.gz", gzip.compress(gzip.compress(CSV.encode())), ".gz"),
+        ("n.jsonl.gz", gzip.compress(gzip.compress(b'{"op": "I", "pos": 1, "id": 1}\n')), ".gz"),
+        ("n.csv.zip", _zip(gzip.compress(CSV.encode())), ".gz"),
+        ("n.csv.bz2", bz2.compress(_zip(CSV.encode())), ".zip"),
+        ("n.parquet.gz", gzip.compress(bz2.compress(_parquet_bytes())), ".bz2"),
+    ],
+)
+def test_an_archive_inside_an_archive_is_a_clear_error(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], name: str, packed: bytes, inner: str
+) -> None:
+    # decompressed once, the bytes were read as text: "the header row is not utf-8 text, set
+    # csv.encoding" for a CSV, every line quarantined for JSON Lines (exit 0); the archives are
+    # written by Python's gzip, bz2 and zipfile modules
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN)
+    (dump := tmp_path / name).write_bytes(packed)
+    code = cli("convert", "--mappings", str(mdir), str(dump), "--out", str(tmp_path / "out"))
+    err = capsys.readouterr().err
+    outer = Path(name).suffix
+    assert code == 4, err
+    assert f"{dump}: this {outer} archive holds another archive ({inner}), not a dump" in err
+    assert f"hint: unpack it once and name what comes out for what it is: {name[: -len(outer)]}{inner}" in err
+    assert "Traceback" not in err and not (tmp_path / "out" / "events").exists()
+
+
 def test_many_small_files_keep_their_record_numbers(convert: ConvertFn) -> None:
     files: dict[str, str | bytes] = {
         f"n{i:04d}.csv": f"op,pos,id,a\nI,{2 * i + 1},{2 * i + 1},x\nI,{2 * i + 2},{2 * i + 2},y\n"

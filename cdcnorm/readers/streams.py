@@ -71,6 +71,23 @@ def misnamed_archive(path: Path, start: bytes) -> InputError | None:
     )
 
 
+def nested_archive(path: Path, start: bytes) -> InputError | None:
+    """The error for an archive whose content, decompressed, is an archive again (a gzip file
+    compressed twice, a .zip holding a .gz): read as text, its bytes would be taken for a header or
+    records that are not text."""
+    inner = archive_in(start)
+    if inner is None:
+        return None
+    outer = path.suffix.lower()
+    return InputError(
+        f"this {outer} archive holds another archive ({inner}), not a dump",
+        file=str(path),
+        expected=f"a {outer} archive of the dump itself",
+        found=f"{inner} archive bytes ({start[:6].hex(' ')}) once decompressed",
+        hint=f"unpack it once and name what comes out for what it is: {base_name(path)}{inner}",
+    )
+
+
 def compression(path: Path) -> str | None:
     return COMPRESSIONS.get(path.suffix.lower())
 
@@ -148,6 +165,8 @@ def blocks(path: Path, size: int = BLOCK) -> Iterator[bytes]:
             block = stream.read(size)
             if codec is None and (misnamed := misnamed_archive(path, block)):
                 raise misnamed
+            if codec is not None and (nested := nested_archive(path, block)):
+                raise nested
             while block:
                 yield block
                 block = stream.read(size)

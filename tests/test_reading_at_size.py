@@ -422,6 +422,24 @@ def test_an_archive_inside_an_archive_is_a_clear_error(
     assert "Traceback" not in err and not (tmp_path / "out" / "events").exists()
 
 
+@pytest.mark.parametrize("name", ["n.csv", "n.jsonl", "n.csv.gz"])
+def test_a_parquet_file_named_as_text_is_a_clear_error(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], name: str
+) -> None:
+    # read as CSV its bytes were a header of odd names ("expected a column named 'op', found
+    # columns PAR1..."); the file is written by pyarrow
+    payload = _parquet_bytes()
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN)
+    (dump := tmp_path / name).write_bytes(gzip.compress(payload) if name.endswith(".gz") else payload)
+    code = cli("convert", "--mappings", str(mdir), str(dump), "--out", str(tmp_path / "out"))
+    err = capsys.readouterr().err
+    fmt = "jsonl" if ".jsonl" in name else "csv"
+    assert code == 4, err
+    assert f"{dump}: this file is Parquet, but it is read as {fmt}" in err
+    assert "hint: name it n.parquet, or set format: parquet in its mapping" in err and "Traceback" not in err
+
+
 def test_many_small_files_keep_their_record_numbers(convert: ConvertFn) -> None:
     files: dict[str, str | bytes] = {
         f"n{i:04d}.csv": f"op,pos,id,a\nI,{2 * i + 1},{2 * i + 1},x\nI,{2 * i + 2},{2 * i + 2},y\n"

@@ -96,6 +96,8 @@ def _header(f: RawFile, delimiter: str, mapping: Mapping) -> tuple[list[str], bo
     """The column names, whether any record follows the header, and the file's codec."""
     opts = mapping.csv
     raw = streams.head(f.path)
+    if wrong := streams.parquet_read_as_text(f.path, raw, "csv"):
+        raise wrong
     encoding = _encoding(f, raw, mapping)
     # decoded before the line end is looked for: in UTF-16 or UTF-32 a line end is not one byte,
     # and other characters hold the bytes of LF and CR (U+010A is 0A 01 in UTF-16LE). Bytes that do

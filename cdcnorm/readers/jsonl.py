@@ -63,6 +63,8 @@ def _batches(f: RawFile) -> Iterator[pa.RecordBatch]:
     first = True
     for block in streams.blocks(f.path):
         data = carry + block
+        if first and (wrong := streams.parquet_read_as_text(f.path, data, "jsonl")):
+            raise wrong
         if first and not (len(data) < len(BOM) and BOM.startswith(data)):  # else: wait for more
             # RFC 8259, section 8.1: a parser may ignore a byte order mark rather than treat it as
             # an error; as in a CSV file, it is not part of the first record

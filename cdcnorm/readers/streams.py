@@ -88,6 +88,25 @@ def nested_archive(path: Path, start: bytes) -> InputError | None:
     )
 
 
+#: The first four bytes of a Parquet file (its specification: "PAR1" begins and ends the file).
+PARQUET_MAGIC = b"PAR1"
+
+
+def parquet_read_as_text(path: Path, start: bytes, fmt: str) -> InputError | None:
+    """The error for a Parquet file read as text (``fmt``: csv or jsonl) because of its name: its
+    bytes would be taken for a header of odd names, or lines that are not JSON."""
+    if not start.startswith(PARQUET_MAGIC):
+        return None
+    stem = base_name(path).rsplit(".", 1)[0] if "." in base_name(path) else base_name(path)
+    return InputError(
+        f"this file is Parquet, but it is read as {fmt} (its name, or its mapping's format, says so)",
+        file=str(path),
+        expected=f"{fmt} text",
+        found=f"Parquet's magic bytes {PARQUET_MAGIC.decode()} at the start",
+        hint=f"name it {stem}.parquet, or set format: parquet in its mapping (--input-format parquet)",
+    )
+
+
 def compression(path: Path) -> str | None:
     return COMPRESSIONS.get(path.suffix.lower())
 

@@ -531,8 +531,16 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
     return EXIT_OK
 
 
-def _print_hidden(hidden: list[str], markers: list[str]) -> None:
-    """The files the input folders hold that the run left out, and why."""
+def _print_hidden(hidden: list[str], markers: list[str], repeated: list[str]) -> None:
+    """The files the input folders hold that the run left out, and why; the inputs named twice."""
+    if repeated:
+        shown = ", ".join(repeated[:5]) + (f" and {len(repeated) - 5} more" if len(repeated) > 5 else "")
+        out.print(
+            f"note: {counted(len(repeated), 'input')} named more than once (given again, or in a folder "
+            f"given too), read once: {shown}",
+            markup=False,
+            soft_wrap=True,
+        )
     for files, what, why, how in (
         (
             hidden,
@@ -573,6 +581,7 @@ def _report_run(
                     "skipped": result.skipped,
                     "hidden": result.hidden,
                     "markers": result.markers,
+                    "repeated": result.repeated,
                     "notes": file_notes(result),
                     "memory_note": result.memory_note,
                 }
@@ -583,7 +592,7 @@ def _report_run(
         return
     if skipped:
         out.print("skipped, converted before: " + ", ".join(skipped))
-    _print_hidden(result.hidden, result.markers)
+    _print_hidden(result.hidden, result.markers, result.repeated)
     if result.run is None:
         if getattr(args, "command", None) == "settle":
             n = result.waiting
@@ -719,6 +728,7 @@ def _report_check(result: Result, args: argparse.Namespace) -> int:
         "tables": result.ledger.as_dict()["tables"],
         "hidden": result.hidden,
         "markers": result.markers,
+        "repeated": result.repeated,
         "memory_note": result.memory_note,
     }
     if args.json:
@@ -772,7 +782,7 @@ def _report_check(result: Result, args: argparse.Namespace) -> int:
             for reason, n in sorted(tl.reasons.items()):
                 out.print(f"{name}: {n} x {reason}")
         _print_notes(result)
-        _print_hidden(result.hidden, result.markers)
+        _print_hidden(result.hidden, result.markers, result.repeated)
         for d in drift:
             out.print(Text.assemble(("drift", "red"), " ", d))
     return 4 if drift else EXIT_OK

@@ -138,11 +138,14 @@ def _walk(root: Path) -> Iterator[Path]:
         yield from _files_in(folder, todo)
 
 
-def gather_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> tuple[list[Path], list[Path]]:
-    """``expand_inputs``'s files, and the hidden files (a name starting with a dot, or inside a
-    hidden folder) the given folders hold and it leaves out: partial copies by common practice (a
-    copy in progress under a dotted temporary name), said to the user rather than read or dropped
-    silently. One walk of each folder gives both."""
+def gather_inputs(
+    inputs: Iterable[str | Path], *, recursive: bool = False
+) -> tuple[list[Path], list[Path], list[Path]]:
+    """``expand_inputs``'s files; the hidden files (a name starting with a dot, or inside a hidden
+    folder) the given folders hold and it leaves out: partial copies by common practice (a copy in
+    progress under a dotted temporary name), said to the user rather than read or dropped silently;
+    and the files named again (a file given twice, or in a folder given too): read once, and said.
+    One walk of each folder gives them all."""
     out: list[Path] = []
     hidden: list[Path] = []
     for raw in inputs:
@@ -170,13 +173,16 @@ def gather_inputs(inputs: Iterable[str | Path], *, recursive: bool = False) -> t
             raise InputError("no such file", file=str(p))
     seen: set[Path] = set()
     unique = []
+    again = []
     for p in out:
         text_path(p, "dump file")
         r = p.resolve()
         if r not in seen:
             seen.add(r)
             unique.append(p)
-    return unique, hidden
+        elif p not in again:
+            again.append(p)
+    return unique, hidden, again
 
 
 def display_names(files: list[Path]) -> dict[Path, str]:

@@ -174,6 +174,7 @@ class Result:
     skipped: list[dict[str, Any]] = field(default_factory=list)
     hidden: list[str] = field(default_factory=list)  # hidden files the input folders hold, not read
     markers: list[str] = field(default_factory=list)  # marker files the input folders hold, not read
+    repeated: list[str] = field(default_factory=list)  # inputs named more than once, read once
     pending: int = 0  # before-images this run's tables leave waiting
     waiting: int = 0  # before-images waiting in the whole landing area after this run
 
@@ -491,19 +492,20 @@ def run(
             text_path(folder, what)
     if options.out is not None and options.write:
         _out_apart(options.out, inputs)
-    files, hidden_files = gather_inputs(inputs, recursive=options.recursive)
+    files, hidden_files, again = gather_inputs(inputs, recursive=options.recursive)
     files, marker_files = set_aside_markers(files, mappings, inputs)
     if not files and options.settle is None:
         raise UsageError("no input files given")
     routed = route(files, mappings)
     hidden = [str(h) for h in hidden_files]
     markers = [str(m) for m in marker_files]
+    repeated = [str(r) for r in again]
     with scratch_folder(options.scratch) as scratch, engine_errors(scratch):
         if not (options.write and options.out is not None and stop_after is None):
             result = _run(
                 mappings, routed, options, scratch, stop_after, progress, strict_drift, None, notice
             )
-            result.hidden, result.markers = hidden, markers
+            result.hidden, result.markers, result.repeated = hidden, markers, repeated
             return result
         from cdcnorm.landing import open_landing
         from cdcnorm.landing.outputs import commit_run, new_inputs
@@ -516,11 +518,18 @@ def run(
             if not any(routed.values()) and not has_pending:
                 engine = DuckDBEngine(temp_directory=str(scratch / "spill"))
                 return Result(
-                    engine, {}, ledger_mod.Ledger(), [], skipped=skipped, hidden=hidden, markers=markers
+                    engine,
+                    {},
+                    ledger_mod.Ledger(),
+                    [],
+                    skipped=skipped,
+                    hidden=hidden,
+                    markers=markers,
+                    repeated=repeated,
                 )
             result = _run(mappings, routed, options, scratch, None, progress, strict_drift, area, notice)
             result.skipped = skipped
-            result.hidden, result.markers = hidden, markers
+            result.hidden, result.markers, result.repeated = hidden, markers, repeated
             total = result.ledger.total
             if not any(routed.values()) and total.quarantined == total.emitted == total.merged == 0:
                 # a settle that ends no wait (every image is at or above --before): a run would

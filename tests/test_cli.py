@@ -178,6 +178,31 @@ def test_hidden_files_in_a_folder_are_left_out_and_named(
     assert [Path(h).name for h in hidden] == ["passengers-3.csv", ".passengers-2.csv"]  # by path
 
 
+def test_an_input_named_twice_is_read_once_and_named(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: a file given again, or in a folder given too (overlapping globs), was read once
+    # without a word
+    dumps = tmp_path / "dumps"
+    dumps.mkdir()
+    shutil.copy(DUMPS / "passengers.csv", dumps / "passengers.csv")
+    again = str(dumps / "passengers.csv")
+    out = tmp_path / "area"
+    assert cli("convert", "--mappings", str(MAPPINGS), str(dumps), again, again, "--out", str(out)) == 0
+    printed = capsys.readouterr().out
+    assert (
+        f"note: 1 input named more than once (given again, or in a folder given too), read once: {again}"
+        in printed
+    )
+    run = last_run(out)
+    assert [i["name"] for i in run["inputs"]] == ["passengers.csv"] and run["repeated"] == [again]
+    with open(DUMPS / "passengers.csv", newline="") as f:  # its records, by Python's csv module
+        records = len(list(csv.reader(f))) - 1
+    assert run["ledger"]["total"]["read"] == records  # the file's rows, once
+    assert cli("check", "--mappings", str(MAPPINGS), again, again, "--json") == 0
+    assert json.loads(capsys.readouterr().out)["repeated"] == [again]
+
+
 def test_marker_files_in_a_folder_are_left_out_and_named(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:

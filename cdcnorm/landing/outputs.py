@@ -202,6 +202,7 @@ def commit_run(
             "skipped": result.skipped,
             "hidden": result.hidden,
             "markers": result.markers,
+            "repeated": result.repeated,
             "notes": file_notes(result),
             "ledger": result.ledger.as_dict(),
             "pending": result.pending,

@@ -531,8 +531,17 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
     return EXIT_OK
 
 
-def _print_hidden(hidden: list[str], markers: list[str], repeated: list[str]) -> None:
-    """The files the input folders hold that the run left out, and why; the inputs named twice."""
+def _print_hidden(result: Result) -> None:
+    """The files the input folders hold that the run left out, and why; the inputs named twice; the
+    tables no input was for."""
+    hidden, markers, repeated = result.hidden, result.markers, result.repeated
+    if result.no_input:
+        out.print(
+            f"note: no input for {counted(len(result.no_input), 'table')} (no file given matches its "
+            f"mapping's files patterns): {', '.join(result.no_input)}",
+            markup=False,
+            soft_wrap=True,
+        )
     if repeated:
         shown = ", ".join(repeated[:5]) + (f" and {len(repeated) - 5} more" if len(repeated) > 5 else "")
         out.print(
@@ -582,6 +591,7 @@ def _report_run(
                     "hidden": result.hidden,
                     "markers": result.markers,
                     "repeated": result.repeated,
+                    "no_input": result.no_input,
                     "notes": file_notes(result),
                     "memory_note": result.memory_note,
                 }
@@ -592,7 +602,7 @@ def _report_run(
         return
     if skipped:
         out.print("skipped, converted before: " + ", ".join(skipped))
-    _print_hidden(result.hidden, result.markers, result.repeated)
+    _print_hidden(result)
     if result.run is None:
         if getattr(args, "command", None) == "settle":
             n = result.waiting
@@ -729,6 +739,7 @@ def _report_check(result: Result, args: argparse.Namespace) -> int:
         "hidden": result.hidden,
         "markers": result.markers,
         "repeated": result.repeated,
+        "no_input": result.no_input,
         "memory_note": result.memory_note,
     }
     if args.json:
@@ -782,7 +793,7 @@ def _report_check(result: Result, args: argparse.Namespace) -> int:
             for reason, n in sorted(tl.reasons.items()):
                 out.print(f"{name}: {n} x {reason}")
         _print_notes(result)
-        _print_hidden(result.hidden, result.markers, result.repeated)
+        _print_hidden(result)
         for d in drift:
             out.print(Text.assemble(("drift", "red"), " ", d))
     return 4 if drift else EXIT_OK

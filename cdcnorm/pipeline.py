@@ -175,6 +175,7 @@ class Result:
     hidden: list[str] = field(default_factory=list)  # hidden files the input folders hold, not read
     markers: list[str] = field(default_factory=list)  # marker files the input folders hold, not read
     repeated: list[str] = field(default_factory=list)  # inputs named more than once, read once
+    no_input: list[str] = field(default_factory=list)  # tables no input file is for
     pending: int = 0  # before-images this run's tables leave waiting
     waiting: int = 0  # before-images waiting in the whole landing area after this run
 
@@ -500,12 +501,14 @@ def run(
     hidden = [str(h) for h in hidden_files]
     markers = [str(m) for m in marker_files]
     repeated = [str(r) for r in again]
+    no_input = [t for t, paths in routed.items() if not paths] if files else []
     with scratch_folder(options.scratch) as scratch, engine_errors(scratch):
         if not (options.write and options.out is not None and stop_after is None):
             result = _run(
                 mappings, routed, options, scratch, stop_after, progress, strict_drift, None, notice
             )
             result.hidden, result.markers, result.repeated = hidden, markers, repeated
+            result.no_input = no_input
             return result
         from cdcnorm.landing import open_landing
         from cdcnorm.landing.outputs import commit_run, new_inputs
@@ -526,10 +529,12 @@ def run(
                     hidden=hidden,
                     markers=markers,
                     repeated=repeated,
+                    no_input=no_input,
                 )
             result = _run(mappings, routed, options, scratch, None, progress, strict_drift, area, notice)
             result.skipped = skipped
             result.hidden, result.markers, result.repeated = hidden, markers, repeated
+            result.no_input = no_input
             total = result.ledger.total
             if not any(routed.values()) and total.quarantined == total.emitted == total.merged == 0:
                 # a settle that ends no wait (every image is at or above --before): a run would

@@ -154,7 +154,7 @@ def test_convert_notes_raw_columns_no_field_reads_unless_unused_lists_them(
     p = mappings / "bookings.yaml"
     p.write_text(p.read_text().replace("unused: [export_batch]", "unused: [export_batch, gate_code]"))
     assert cli("convert", "--mappings", str(mappings), str(dumps), "--out", str(tmp_path / "b")) == 0
-    assert "note:" not in capsys.readouterr().out
+    assert "read by no field" not in capsys.readouterr().out  # (the other tables have no input: noted)
     assert last_run(tmp_path / "b")["notes"] == []
 
 
@@ -201,6 +201,19 @@ def test_an_input_named_twice_is_read_once_and_named(
     assert run["ledger"]["total"]["read"] == records  # the file's rows, once
     assert cli("check", "--mappings", str(MAPPINGS), again, again, "--json") == 0
     assert json.loads(capsys.readouterr().out)["repeated"] == [again]
+
+
+def test_a_mapping_no_input_is_for_is_named(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # before: a delivery that did not come (no passengers or sailings file tonight) passed without a word
+    out = tmp_path / "area"
+    assert (
+        cli("convert", "--mappings", str(MAPPINGS), str(DUMPS / "bookings-live.csv"), "--out", str(out)) == 0
+    )
+    said = "note: no input for 2 tables (no file given matches its mapping's files patterns): "
+    assert said + "ferry.passengers, ferry.sailings" in capsys.readouterr().out
+    assert last_run(out)["no_input"] == ["ferry.passengers", "ferry.sailings"]
+    assert cli("convert", "--mappings", str(MAPPINGS), str(DUMPS), "--out", str(tmp_path / "all")) == 0
+    assert "no input" not in capsys.readouterr().out and last_run(tmp_path / "all")["no_input"] == []
 
 
 def test_marker_files_in_a_folder_are_left_out_and_named(

@@ -203,6 +203,7 @@ def commit_run(
             "hidden": result.hidden,
             "markers": result.markers,
             "repeated": result.repeated,
+            "no_input": result.no_input,
             "notes": file_notes(result),
             "ledger": result.ledger.as_dict(),
             "pending": result.pending,

@@ -178,14 +178,21 @@ def test_hidden_files_in_a_folder_are_left_out_and_named(
     assert [Path(h).name for h in hidden] == ["passengers-3.csv", ".passengers-2.csv"]  # by path
 
 
+def _folder_of(tmp_path: Path, *names: str) -> Path:
+    """A folder ``dumps`` holding copies of the demo's dump files ``names``."""
+    dumps = tmp_path / "dumps"
+    dumps.mkdir()
+    for name in names:
+        shutil.copy(DUMPS / name, dumps / name)
+    return dumps
+
+
 def test_an_input_named_twice_is_read_once_and_named(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
     # before: a file given again, or in a folder given too (overlapping globs), was read once
     # without a word
-    dumps = tmp_path / "dumps"
-    dumps.mkdir()
-    shutil.copy(DUMPS / "passengers.csv", dumps / "passengers.csv")
+    dumps = _folder_of(tmp_path, "passengers.csv")
     again = str(dumps / "passengers.csv")
     out = tmp_path / "area"
     assert cli("convert", "--mappings", str(MAPPINGS), str(dumps), again, again, "--out", str(out)) == 0
@@ -221,9 +228,7 @@ def test_marker_files_in_a_folder_are_left_out_and_named(
 ) -> None:
     # before: a feed folder a data lake writer filled (its files and _SUCCESS, _committed_<id>: common
     # practice) stopped the run, "_SUCCESS: this file matches no mapping" (exit 4)
-    dumps = tmp_path / "dumps"
-    dumps.mkdir()
-    shutil.copy(DUMPS / "passengers.csv", dumps / "passengers.csv")
+    dumps = _folder_of(tmp_path, "passengers.csv")
     shutil.copy(
         DUMPS / "passengers.csv", dumps / "_passengers-2.csv"
     )  # a mapping's pattern would not take it

@@ -315,9 +315,11 @@ def test_an_archive_named_as_plain_text_is_a_clear_error(
 def test_a_zip_archive_of_one_file_is_read_transparently(convert: ConvertFn) -> None:
     # any method Python's zipfile reads: deflate, bzip2, lzma, stored; a folder entry is no file
     sink = io.BytesIO()
-    with zipfile.ZipFile(sink, "w") as z:
+    with zipfile.ZipFile(sink, "w") as z:  # as macOS writes one: a resource fork and .DS_Store beside it
         z.mkdir("export")
         z.writestr("export/2026-12-01.csv", csv_at(4), compress_type=zipfile.ZIP_STORED)
+        z.writestr("__MACOSX/export/._2026-12-01.csv", b"\x00\x05\x16\x07")
+        z.writestr("export/.DS_Store", b"Bud1")
     files: dict[str, str | bytes] = {
         "n1.csv.zip": _zip(csv_at(1).encode()),
         "n2.csv.zip": _zip(csv_at(2).encode(), method=zipfile.ZIP_BZIP2),

@@ -124,10 +124,19 @@ def _fail(path: Path, e: Exception) -> InputError:
     return InputError(f"cannot read this file: {what} ({first})", file=str(path))
 
 
+def _metadata(name: str) -> bool:
+    """A zip member that is an operating system's metadata, not data: macOS archives add
+    ``__MACOSX/._<name>`` (AppleDouble resource forks) and ``.DS_Store`` beside each file, and a
+    hidden file is never a dump (as in a folder). Common practice."""
+    parts = name.split("/")
+    return parts[0] == "__MACOSX" or any(part.startswith(".") for part in parts if part)
+
+
 def zip_member(archive: zipfile.ZipFile, path: Path) -> zipfile.ZipInfo:
-    """The one file a ``.zip`` dump holds (folders aside); an archive of several files, or of none,
-    is an InputError listing them: which of them is the dump is not for cdcnorm to guess."""
-    members = [i for i in archive.infolist() if not i.is_dir()]
+    """The one file a ``.zip`` dump holds (folders and ``_metadata`` aside); an archive of several
+    files, or of none, is an InputError listing them: which of them is the dump is not for cdcnorm
+    to guess."""
+    members = [i for i in archive.infolist() if not i.is_dir() and not _metadata(i.filename)]
     if len(members) == 1:
         return members[0]
     names = [i.filename for i in members]

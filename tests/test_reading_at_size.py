@@ -372,6 +372,13 @@ UNPACK = "hint: unpack it first and pass the files, or a folder of them, instead
             ["this .zip archive holds 7 files (p0.csv, p1.csv, p2.csv, p3.csv, p4.csv and 2 more)", UNPACK],
         ),
         (_empty_zip(), ["this .zip archive holds 0 files", UNPACK]),
+        (
+            _zip(CSV.encode(), ".n.csv", "__MACOSX/._n.csv"),
+            [
+                "this .zip archive holds 0 files",
+                "found: 0 files, besides metadata and hidden files: .n.csv, __MACOSX/._n.csv",
+            ],
+        ),
         (_zip(CSV.encode() * 50)[:-30], ["cannot read this file: truncated or corrupt zip archive"]),
         (
             _bad_crc(_zip(CSV.encode(), method=zipfile.ZIP_STORED)),
@@ -382,7 +389,7 @@ UNPACK = "hint: unpack it first and pass the files, or a folder of them, instead
             ["cannot read this file: the archive's file inner.csv cannot be unpacked"],
         ),
     ],
-    ids=["two-files", "seven-files", "no-file", "truncated", "bad-crc", "encrypted"],
+    ids=["two-files", "seven-files", "no-file", "hidden-only", "truncated", "bad-crc", "encrypted"],
 )
 def test_a_zip_archive_that_is_not_one_readable_dump_is_a_clear_error(
     tmp_path: Path, capsys: pytest.CaptureFixture[str], archive: bytes, said: list[str]

@@ -136,16 +136,22 @@ def zip_member(archive: zipfile.ZipFile, path: Path) -> zipfile.ZipInfo:
     """The one file a ``.zip`` dump holds (folders and ``_metadata`` aside); an archive of several
     files, or of none, is an InputError listing them: which of them is the dump is not for cdcnorm
     to guess."""
-    members = [i for i in archive.infolist() if not i.is_dir() and not _metadata(i.filename)]
+    files = [i for i in archive.infolist() if not i.is_dir()]
+    members = [i for i in files if not _metadata(i.filename)]
     if len(members) == 1:
         return members[0]
+
+    def listed(names: list[str]) -> str:
+        return ", ".join(names[:5]) + (f" and {len(names) - 5} more" if len(names) > 5 else "")
+
     names = [i.filename for i in members]
-    shown = ", ".join(names[:5]) + (f" and {len(names) - 5} more" if len(names) > 5 else "")
+    left = [i.filename for i in files if _metadata(i.filename)]
     raise InputError(
-        f"this .zip archive holds {len(names)} files" + (f" ({shown})" if names else ""),
+        f"this .zip archive holds {len(names)} files" + (f" ({listed(names)})" if names else ""),
         file=str(path),
         expected="a .zip archive of exactly one file (the dump)",
-        found=f"{len(names)} files",
+        found=f"{len(names)} files"
+        + (f", besides metadata and hidden files: {listed(left)}" if left else ""),
         hint="unpack it first and pass the files, or a folder of them, instead of the archive",
     )
 

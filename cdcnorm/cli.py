@@ -31,6 +31,7 @@ from cdcnorm.errors import (
     UsageError,
     closest,
     counted,
+    first_of,
     name_list,
 )
 from cdcnorm.mapping import load_mappings
@@ -543,10 +544,9 @@ def _print_hidden(result: Result) -> None:
             soft_wrap=True,
         )
     if repeated:
-        shown = ", ".join(repeated[:5]) + (f" and {len(repeated) - 5} more" if len(repeated) > 5 else "")
         out.print(
             f"note: {counted(len(repeated), 'input')} named more than once (given again, or in a folder "
-            f"given too), read once: {shown}",
+            f"given too), read once: {first_of(repeated)}",
             markup=False,
             soft_wrap=True,
         )
@@ -566,9 +566,8 @@ def _print_hidden(result: Result) -> None:
         ),
     ):
         if files:
-            shown = ", ".join(files[:5]) + (f" and {len(files) - 5} more" if len(files) > 5 else "")
             out.print(
-                f"note: left out {counted(len(files), what)} ({why}): {shown}; {how}",
+                f"note: left out {counted(len(files), what)} ({why}): {first_of(files)}; {how}",
                 markup=False,
                 soft_wrap=True,
             )

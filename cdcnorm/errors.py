@@ -11,7 +11,7 @@ from __future__ import annotations
 import difflib
 import json
 import time
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 
 EXIT_OK = 0
 EXIT_USAGE = 2
@@ -57,6 +57,11 @@ def per_second(n: int, since: float, noun: str = "row") -> str:
     until there is something to measure."""
     spent = time.perf_counter() - since
     return f"{n / spent:,.0f} {noun}s/s" if n and spent > 0.05 else ""
+
+
+def first_of(names: Sequence[str], n: int = 5) -> str:
+    """The first ``n`` of ``names``, comma-separated, and how many more: ``a, b and 3 more``."""
+    return ", ".join(names[:n]) + (f" and {len(names) - n} more" if len(names) > n else "")
 
 
 def name_list(names: Iterable[str]) -> str:

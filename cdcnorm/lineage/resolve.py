@@ -886,11 +886,8 @@ class StatementResolver:
         if path is None or not path[1]:
             return False
         col, members = path
-        src = self._find_source(col.table, scope) if col.table else None
-        if not isinstance(src, Scope):
-            return False
-        src = self._canonical(src)
-        if id(src) in self._busy:
+        src = self._built_in(col, scope)
+        if src is None:
             return False
         found = self._member_of(col.name, members, src)
         if found is None:
@@ -906,6 +903,14 @@ class StatementResolver:
         else:
             d.merge(m, sub=ctx)
         return True
+
+    def _built_in(self, col: exp.Column, scope: Scope) -> Scope | None:
+        """The CTE or derived table ``col`` reads, when it is one and is not being resolved now."""
+        src = self._find_source(col.table, scope) if col.table else None
+        if not isinstance(src, Scope):
+            return None
+        src = self._canonical(src)
+        return None if id(src) in self._busy else src
 
     def _member_of(self, name: str, members: list[str], src: Scope) -> tuple[exp.Expr, Scope] | None:
         """The expression of member path ``members`` of output ``name`` of ``src``, and the scope
@@ -937,12 +942,10 @@ class StatementResolver:
                 continue
             # a struct the query takes from one of its own sources, whole or a member of it
             path = _member_path(e)
-            if path is None or not path[0].table:
+            inner = self._built_in(path[0], src) if path is not None else None
+            if path is None or inner is None:
                 return None
-            inner = self._find_source(path[0].table, src)
-            if not isinstance(inner, Scope) or id(self._canonical(inner)) in self._busy:
-                return None
-            return self._member_of(path[0].name, [*path[1], *members], self._canonical(inner))
+            return self._member_of(path[0].name, [*path[1], *members], inner)
 
     def _subquery(self, inner: exp.Expr, d: Deps, sub: str, infl: str | None, *, exists: bool) -> None:
         scope = self._scope_of.get(id(inner))

@@ -228,9 +228,14 @@ class FieldSpec(Strict):
         """The raw columns ``from`` names, in order (None: the field's own name)."""
         return [self.from_] if isinstance(self.from_, str) else self.from_
 
+    @property
+    def kind(self) -> str:
+        """The type's name without its parameters: ``decimal`` for ``decimal(12,2)``."""
+        return self.type.split("(")[0].strip().lower()
+
     @model_validator(mode="after")
     def _options_apply(self) -> FieldSpec:
-        name = self.type.split("(")[0].strip().lower()
+        name = self.kind
         for option, types in (("zone", ("timestamp",)), ("encoding", ("bytes",)), ("max_length", ("text",))):
             if getattr(self, option) is not None and name not in types:
                 raise ValueError(

@@ -41,10 +41,6 @@ def _members(prefix: str, struct_type: str) -> list[str]:
     return out
 
 
-#: How a BLOB column's bytes become the text a field reads (the engine adapter renders each).
-BLOB_FORMS = ("hex", "base64", "uuid")
-
-
 def blob_forms(mapping: Mapping) -> dict[str, dict[str, str]]:
     """Raw column -> {field: the form of a BLOB value it reads}: ``base64`` for a bytes field with
     ``encoding: base64`` (hex text would be misread as base64: ``0102`` is base64 too), ``uuid`` for
@@ -54,9 +50,8 @@ def blob_forms(mapping: Mapping) -> dict[str, dict[str, str]]:
     for role, column in mapping.change_columns().items():
         out.setdefault(column, {})[role] = "hex"
     for name, spec in mapping.fields.items():
-        kind = spec.type.split("(")[0].strip().lower()
-        form = (
-            "base64" if kind == "bytes" and spec.encoding == "base64" else "uuid" if kind == "uuid" else "hex"
+        form = {"bytes": "base64" if spec.encoding == "base64" else "hex", "uuid": "uuid"}.get(
+            spec.kind, "hex"
         )
         before = mapping.before_column(name)
         for column in [*mapping.raw_columns(name), *([before] if before else [])]:

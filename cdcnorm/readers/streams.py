@@ -11,7 +11,7 @@ from typing import BinaryIO
 
 import pyarrow as pa
 
-from cdcnorm.errors import InputError
+from cdcnorm.errors import InputError, first_of
 
 #: Compression suffixes read transparently, and the codec of each (pyarrow's names; ``xz`` is
 #: Python's lzma module, which pyarrow's streams do not read; ``zip`` is Python's zipfile module,
@@ -97,7 +97,7 @@ def parquet_read_as_text(path: Path, start: bytes, fmt: str) -> InputError | Non
     bytes would be taken for a header of odd names, or lines that are not JSON."""
     if not start.startswith(PARQUET_MAGIC):
         return None
-    stem = base_name(path).rsplit(".", 1)[0] if "." in base_name(path) else base_name(path)
+    stem = Path(base_name(path)).stem
     return InputError(
         f"this file is Parquet, but it is read as {fmt} (its name, or its mapping's format, says so)",
         file=str(path),
@@ -140,18 +140,14 @@ def zip_member(archive: zipfile.ZipFile, path: Path) -> zipfile.ZipInfo:
     members = [i for i in files if not _metadata(i.filename)]
     if len(members) == 1:
         return members[0]
-
-    def listed(names: list[str]) -> str:
-        return ", ".join(names[:5]) + (f" and {len(names) - 5} more" if len(names) > 5 else "")
-
     names = [i.filename for i in members]
     left = [i.filename for i in files if _metadata(i.filename)]
     raise InputError(
-        f"this .zip archive holds {len(names)} files" + (f" ({listed(names)})" if names else ""),
+        f"this .zip archive holds {len(names)} files" + (f" ({first_of(names)})" if names else ""),
         file=str(path),
         expected="a .zip archive of exactly one file (the dump)",
         found=f"{len(names)} files"
-        + (f", besides metadata and hidden files: {listed(left)}" if left else ""),
+        + (f", besides metadata and hidden files: {first_of(left)}" if left else ""),
         hint="unpack it first and pass the files, or a folder of them, instead of the archive",
     )
 

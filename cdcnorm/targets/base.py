@@ -179,10 +179,13 @@ def classify(t: Tables, key: tuple[str, ...], *, compare: bool = False) -> sa.Se
     row_pos = sa.func.coalesce(r.c[POSITION], "")
     tomb_pos = sa.func.coalesce(d.c[POSITION], "")
     guard = sa.case((row_pos >= tomb_pos, row_pos), else_=tomb_pos)
-    values = [c.name for c in b.c if c.name not in (*key, POSITION, ACTION)]
-    edited = sa.and_(b.c[ACTION] == "upsert", r.c[POSITION] == b.c[POSITION], _differs(r.c, b.c, values))
+    edits = []
+    if compare:
+        values = [c.name for c in b.c if c.name not in (*key, POSITION, ACTION)]
+        edited = sa.and_(b.c[ACTION] == "upsert", r.c[POSITION] == b.c[POSITION], _differs(r.c, b.c, values))
+        edits.append((edited, "differs"))
     kind = sa.case(
-        *([(edited, "differs")] if compare else []),
+        *edits,
         (b.c[POSITION] == guard, "already_applied"),
         (b.c[POSITION] < guard, "stale"),
         (sa.and_(b.c[ACTION] == "delete", r.c[key[0]].is_(None)), "deleted_absent"),

@@ -52,14 +52,18 @@ def route(files: Iterable[Path], mappings: Sequence[LoadedMapping]) -> dict[str,
         if not matches:
             globs = [g for m in mappings for g in m.mapping.files]
             near = closest(path.name, globs + [m.table for m in mappings])
+            if streams.tar_named(path):
+                hint = f"its name says it is a tar archive: unpack it first (tar -xf {path.name}) and pass the files"
+            elif near:
+                hint = f"closest mapping pattern: {near}"
+            else:
+                hint = "add its pattern to a mapping's files list"
             raise InputError(
                 "this file matches no mapping",
                 file=str(path),
                 expected="a file name matching one of " + ", ".join(globs),
                 found=path.name,
-                hint=f"closest mapping pattern: {near}"
-                if near
-                else "add its pattern to a mapping's files list",
+                hint=hint,
             )
         if len(matches) > 1:
             raise InputError(

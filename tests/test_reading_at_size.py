@@ -9,6 +9,8 @@ import gzip
 import io
 import json
 import lzma
+import os
+import tarfile
 import zipfile
 from pathlib import Path
 from typing import Any
@@ -17,6 +19,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
+from cdcnorm.readers import streams
 from tests.conftest import ConvertFn, cli, last_run, run_files, write_files
 
 # Names a dump may use that look like the plan's own columns, and names that need quoting.
@@ -1100,3 +1103,77 @@ def test_a_path_that_is_not_utf8_text_is_refused_by_name(
     code = cli("convert", "--mappings", str(mdir), str(good), "--out", out)
     err = capsys.readouterr().err
     assert code == 4 and "out-\\xfe: the landing area's name is not UTF-8 text" in err
+
+
+def _tar(payload: bytes, *names: str, fmt: int = tarfile.GNU_FORMAT) -> bytes:
+    """A tar archive (POSIX.1 ustar, GNU or pax headers; written by Python's tarfile module)
+    holding ``payload`` under each of ``names``."""
+    sink = io.BytesIO()
+    with tarfile.open(fileobj=sink, mode="w", format=fmt) as bundle:
+        for name in names:
+            info = tarfile.TarInfo(name)
+            info.size = len(payload)
+            bundle.addfile(info, io.BytesIO(payload))
+    return sink.getvalue()
+
+
+@pytest.mark.parametrize(
+    ("name", "packed", "held"),
+    [
+        ("n.csv", _tar(CSV.encode(), "n1.csv", "n2.csv"), "n1.csv, n2.csv"),
+        ("n.csv", _tar(CSV.encode(), "day/n1.csv", fmt=tarfile.USTAR_FORMAT), "day/n1.csv"),
+        ("n.jsonl", _tar(b'{"op": "I", "pos": 1, "id": 1}\n', "n.jsonl", fmt=tarfile.PAX_FORMAT), "n.jsonl"),
+        ("n.csv.gz", gzip.compress(_tar(CSV.encode(), *(f"p{i}.csv" for i in range(7)))), "p0.csv, p1.csv"),
+        ("n.csv.bz2", bz2.compress(_tar(CSV.encode(), "n1.csv")), "n1.csv"),
+        ("n.csv.zip", _zip(_tar(CSV.encode(), "n1.csv")), "n1.csv"),
+        ("n.parquet", _tar(_parquet_bytes(), "n.parquet"), "n.parquet"),
+        ("n.csv", _tar(os.urandom(300_000), *(f"big{i}.csv" for i in range(9))), "big0.csv"),
+    ],
+)
+def test_a_tar_archive_given_as_a_dump_is_a_clear_error(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], name: str, packed: bytes, held: str
+) -> None:
+    # its header block was read as the CSV header ("expected a column named 'op', found columns
+    # "n1.csv\u0000\u0000..."), or as a line of JSON; the archives are written by Python's tarfile
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN)
+    (dump := tmp_path / name).write_bytes(packed)
+    code = cli("convert", "--mappings", str(mdir), str(dump), "--out", str(tmp_path / "out"))
+    err = capsys.readouterr().err
+    assert code == 4, err
+    assert f"{dump}: this file is a tar archive ({held}" in err and "), not a dump" in err
+    assert "found: a tar header block (its magic 'ustar' at byte 257)" in err
+    assert f"hint: unpack it first (tar -xf {name}) and pass the files, or a folder of them" in err
+    assert "Traceback" not in err and not (tmp_path / "out" / "events").exists()
+
+
+def test_a_big_tar_archive_names_the_files_its_start_shows(tmp_path: Path) -> None:
+    # nine 3 MiB files: the first 16 MiB show the first six headers, not the archive's end
+    start = _tar(os.urandom(3 << 20), *(f"big{i}.csv" for i in range(9)))[: streams.BLOCK]
+    error = streams.tar_bundle(tmp_path / "n.csv", start)
+    assert error is not None
+    assert "(big0.csv, big1.csv, big2.csv, big3.csv, big4.csv and more)" in error.message
+
+
+def test_text_that_holds_ustar_where_a_tar_header_would_is_read_as_text(convert: ConvertFn) -> None:
+    # the magic alone is not taken for an archive: a tar header's checksum must add up too
+    header = "op,pos,id,a\n"
+    filler = "x" * (streams.TAR_MAGIC_AT - len(header) - len("I,1,1,"))
+    text = f"{header}I,1,1,{filler}ustar  and more\n"
+    assert text.encode()[streams.TAR_MAGIC_AT :].startswith(streams.TAR_MAGIC)
+    done = convert(PLAIN, {"n.csv": text})
+    (event,) = done.events("t.notes")
+    assert event["values"]["a"] == f"{filler}ustar  and more"
+
+
+@pytest.mark.parametrize("name", ["n.tar.gz", "n.tgz", "n.tar"])
+def test_a_file_named_as_a_tar_archive_says_so(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], name: str
+) -> None:
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN.replace('["n*"]', '["n*.csv"]'))
+    (dump := tmp_path / name).write_bytes(_tar(CSV.encode(), "n1.csv"))
+    code = cli("convert", "--mappings", str(mdir), str(dump), "--out", str(tmp_path / "out"))
+    err = capsys.readouterr().err
+    assert code == 4 and f"{dump}: this file matches no mapping" in err, err
+    assert f"hint: its name says it is a tar archive: unpack it first (tar -xf {name})" in err

@@ -169,8 +169,9 @@ def read_files(
 def _unreadable(f: RawFile, e: duckdb.Error) -> InputError:
     try:
         with open(f.path, "rb") as start:
-            if misnamed := streams.misnamed_archive(f.path, start.read(16)):
-                return misnamed
+            head = start.read(1 << 16)
+            if wrong := streams.misnamed_archive(f.path, head) or streams.tar_bundle(f.path, head):
+                return wrong
     except OSError:
         pass
     return InputError(f"cannot read this Parquet file: {str(e).splitlines()[0]}", file=str(f.path))

@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import io
 import lzma
+import tarfile
 import zipfile
 from collections.abc import Collection, Iterator
 from contextlib import contextmanager
@@ -107,6 +109,57 @@ def parquet_read_as_text(path: Path, start: bytes, fmt: str) -> InputError | Non
     )
 
 
+#: A tar archive's header block: its magic field "ustar" at offset 257 (POSIX.1, the ustar
+#: interchange format; GNU tar writes "ustar  " and a NUL there, POSIX "ustar" and a NUL).
+TAR_MAGIC, TAR_MAGIC_AT = b"ustar", 257
+#: Names a tar archive goes by (common practice): .tar, and .tgz/.tbz2/.txz for a compressed one.
+TAR_SUFFIXES = (".tar", ".tgz", ".tbz", ".tbz2", ".txz", ".tzst")
+
+
+def tar_named(path: Path) -> bool:
+    """The file's name says it is a tar archive: ``a.tar``, ``a.tgz``, ``a.tar.gz``."""
+    return path.suffix.lower() in TAR_SUFFIXES or Path(base_name(path)).suffix.lower() == ".tar"
+
+
+def tar_members(start: bytes) -> tuple[list[str], bool] | None:
+    """The names of the files a tar archive beginning with ``start`` holds, as far as ``start``
+    shows them (Python's tarfile module reads the headers), and whether ``start`` reaches the
+    archive's end; None when ``start`` is not a tar archive's first header."""
+    if start[TAR_MAGIC_AT : TAR_MAGIC_AT + len(TAR_MAGIC)] != TAR_MAGIC:
+        return None
+    try:  # and a header whose checksum adds up: text that happens to hold "ustar" there is no archive
+        tarfile.TarInfo.frombuf(start[: tarfile.BLOCKSIZE], "utf-8", "surrogateescape")
+    except tarfile.HeaderError:
+        return None
+    names: list[str] = []
+    try:
+        with tarfile.open(fileobj=io.BytesIO(start), mode="r|") as bundle:
+            for member in bundle:
+                if member.isfile():
+                    names.append(member.name)
+    except (tarfile.TarError, EOFError, OSError):  # ``start`` ends inside the archive: the names so far
+        return names, False
+    return names, True
+
+
+def tar_bundle(path: Path, start: bytes) -> InputError | None:
+    """The error for a tar archive given as a dump (named or not as one, compressed or not): its
+    header blocks would be read as the first line of text."""
+    members = tar_members(start)
+    if members is None:
+        return None
+    names, whole = members
+    shown = first_of(names) if whole else ", ".join(names[:5]) + " and more"
+    held = f" ({shown})" if names else ""
+    return InputError(
+        f"this file is a tar archive{held}, not a dump",
+        file=str(path),
+        expected="one dump per file (CSV, JSON Lines or Parquet), as it is or compressed by itself",
+        found=f"a tar header block (its magic {TAR_MAGIC.decode()!r} at byte {TAR_MAGIC_AT})",
+        hint=f"unpack it first (tar -xf {path.name}) and pass the files, or a folder of them",
+    )
+
+
 def compression(path: Path) -> str | None:
     return COMPRESSIONS.get(path.suffix.lower())
 
@@ -197,6 +250,8 @@ def blocks(path: Path, size: int = BLOCK) -> Iterator[bytes]:
                 raise misnamed
             if codec is not None and (nested := nested_archive(path, block)):
                 raise nested
+            if bundle := tar_bundle(path, block):
+                raise bundle
             while block:
                 yield block
                 block = stream.read(size)

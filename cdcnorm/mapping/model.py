@@ -251,8 +251,20 @@ def _field_shorthand(value: Any) -> Any:
 
 
 class CsvOptions(Strict):
-    delimiter: str = Field(default=",", min_length=1, max_length=1)
+    delimiter: str = Field(
+        default=",",
+        min_length=1,
+        max_length=1,
+        description="Field separator (a tab with escapes: backslash).",
+    )
     quote: str = Field(default='"', min_length=1, max_length=1)
+    escapes: Literal["quotes", "backslash"] = Field(
+        default="quotes",
+        description="quotes: RFC 4180 (fields quoted, a quote doubled). backslash: PostgreSQL's COPY text"
+        " format: nothing is quoted, \\N alone is NULL, \\b \\f \\n \\r \\t \\v are control"
+        " characters, a backslash before any other character is that character; octal and hex"
+        " sequences are quarantined.",
+    )
     header: bool = Field(default=True, description="false: columns are named by `columns`.")
     columns: list[str] | None = Field(
         default=None, description="Column names when the file has no header row."
@@ -262,6 +274,15 @@ class CsvOptions(Strict):
         description="Text encoding of the dumps (any Python codec name: utf-8, latin-1, cp1252, ...).",
     )
 
+    @model_validator(mode="before")
+    @classmethod
+    def _text_format_delimiter(cls, data: Any) -> Any:
+        # COPY's text format separates fields by a tab unless told otherwise (PostgreSQL's
+        # documentation, COPY, "Text Format")
+        if isinstance(data, dict) and data.get("escapes") == "backslash" and "delimiter" not in data:
+            return {**data, "delimiter": "\t"}
+        return data
+
     @model_validator(mode="after")
     def _readable(self) -> CsvOptions:
         # a delimiter equal to the quote, or a line end as either, leaves records that cannot be
@@ -269,7 +290,14 @@ class CsvOptions(Strict):
         for name, ch in (("delimiter", self.delimiter), ("quote", self.quote)):
             if ch in "\r\n":
                 raise ValueError(f"csv.{name} cannot be a line end: records end at line ends")
-        if self.delimiter == self.quote:
+        if self.escapes == "backslash":
+            if "quote" in self.model_fields_set:
+                raise ValueError(
+                    "csv.quote does not apply with escapes: backslash: nothing is quoted in that format"
+                )
+            if self.delimiter == "\\":
+                raise ValueError("csv.delimiter cannot be a backslash with escapes: backslash")
+        elif self.delimiter == self.quote:
             raise ValueError(
                 f"csv.delimiter and csv.quote are both {self.delimiter!r}: fields could not be told apart"
             )

@@ -18,6 +18,12 @@ quoted empty field ("") stays an empty string. Two paths, one result:
   records after it. The good records are copied, byte for byte and numbered,
   to a scratch file that pyarrow parses (so NULL versus "" stays exact), and
   cells that are not valid text are kept as bytes (base64 in ``__enc``).
+
+With ``csv.escapes: backslash`` the files are PostgreSQL's COPY text format:
+nothing is quoted, a record is one line, and a backslash escapes the character
+after it. Both paths split records the same way (the engine's reader where no
+field holds an escaped delimiter, which a tab never is), keep the cells as
+written, and the engine then decodes them (``DuckDBEngine.unescape_text``).
 """
 
 from __future__ import annotations
@@ -25,6 +31,7 @@ from __future__ import annotations
 import codecs
 import csv as stdcsv
 import io
+import re
 from collections import deque
 from collections.abc import Iterable, Iterator
 from concurrent.futures import ThreadPoolExecutor
@@ -35,7 +42,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.csv as pacsv
 
-from cdcnorm.engines.duckdb import CsvSyntax, DuckDBEngine
+from cdcnorm.engines.duckdb import TEXT_ESCAPES, CsvSyntax, DuckDBEngine
 from cdcnorm.errors import InputError
 from cdcnorm.mapping.model import Mapping
 from cdcnorm.readers import streams
@@ -54,9 +61,45 @@ COUNT_BLOCK = 4 << 20
 #: The smallest block the careful path's parser reads at a time (it reads several ahead, outside the
 #: engine's memory: 4 MiB blocks held about 90 MiB more than 1 MiB blocks at 1M rows).
 CAREFUL_BLOCK = 1 << 20
+#: COPY's text format (PostgreSQL's documentation, COPY, "Text Format"; TEXT_ESCAPES: the letters
+#: that stand for control characters after a backslash, any other character after one stands for
+#: itself): ``\N`` alone is NULL; ``\.`` alone on the last line ends the data.
+TEXT_NULL = "\\N"
+TEXT_END = "\\."
 #: Files of at most this size are read together when a table has at least JOIN_MIN of them.
 SMALL_FILE = 1 << 20
 JOIN_MIN = 16
+
+
+def backslashed(mapping: Mapping) -> bool:
+    """The table's CSV files are COPY's text format (``csv.escapes: backslash``)."""
+    return mapping.csv.escapes == "backslash"
+
+
+def _quote(mapping: Mapping) -> str | None:
+    """The character that quotes a field, None where nothing is quoted."""
+    return None if backslashed(mapping) else mapping.csv.quote
+
+
+def split_escaped(line: str, delimiter: str) -> list[str]:
+    """The fields of one line of COPY's text format, still escaped: the line split at every
+    delimiter no backslash escapes."""
+    fields = []
+    start = 0
+    for m in re.finditer(r"\\.|" + re.escape(delimiter), line, re.S):
+        if m.group() == delimiter:
+            fields.append(line[start : m.start()])
+            start = m.end()
+    fields.append(line[start:])
+    return fields
+
+
+def unescape(field: str) -> str | None:
+    """A field of COPY's text format decoded; None when it is not one COPY writes: an octal or hex
+    sequence (``\101``, ``\x41``: bytes, not characters) or a lone backslash at its end."""
+    if re.search(r"\\(?:[0-7x]|$)", re.sub(r"\\\\", "", field)):
+        return None
+    return re.sub(r"\\(.)", lambda m: TEXT_ESCAPES.get(m[1], m[1]), field, flags=re.S)
 
 
 @dataclass(frozen=True)
@@ -129,7 +172,20 @@ def _header(f: RawFile, delimiter: str, mapping: Mapping) -> tuple[list[str], bo
         raise InputError(
             f"the header row is not {encoding} text", file=str(f.path), line=1, hint="set csv.encoding"
         )
-    columns = next(stdcsv.reader([text], delimiter=delimiter, quotechar=opts.quote), [])
+    if backslashed(mapping):
+        columns = []
+        for i, name in enumerate(split_escaped(text, delimiter)):
+            plain = unescape(name)
+            if plain is None:
+                raise InputError(
+                    f"the header's column {i + 1} ({name}) is not COPY text: an octal or hex sequence, or a lone backslash",
+                    file=str(f.path),
+                    line=1,
+                    hint="csv.escapes: backslash reads PostgreSQL's COPY text format",
+                )
+            columns.append(plain)
+    else:
+        columns = next(stdcsv.reader([text], delimiter=delimiter, quotechar=opts.quote), [])
     more = nl >= 0 and bool(head[nl + 1 :].strip())
     if nl >= 0 and len(raw) == (1 << 20) and not more:
         more = True  # the header's line fills the first block: let the reader decide
@@ -161,21 +217,43 @@ def read_files(
     for (delimiter, names, encoding), group in groups.items():
         internal = [raw.internal(c) for c in names]
         reading = _Reading(internal, delimiter, encoding, mapping, engine, raw, scratch)
+        first = len(raw.relations)
         careful = _fast(group, reading)
         if careful:
             _careful(careful, reading)
+        if backslashed(mapping):
+            _unescape(reading, group, first)
 
 
-def count_records(path: Path, quote: str, header: bool) -> tuple[int, bool]:
+def _unescape(r: _Reading, group: list[RawFile], first: int) -> None:
+    """Decode the cells of COPY's text format in the relations read from ``first`` on; a record
+    with a cell COPY does not write (``unescape``) becomes malformed, counted on its file."""
+    tokens = [TEXT_NULL, *(t for t in r.mapping.nulls if t != "")]  # an empty cell is an empty text
+    named = [(c, r.raw.columns[int(c[1:])]) for c in r.internal]
+    malformed = r.raw.ensure_malformed(r.engine)
+    by_id = {f.file_id: f for f in group}
+    for i in range(first, len(r.raw.relations)):
+        relation, columns = r.raw.relations[i]
+        view = f"{relation}_text"
+        cells = [(c, name) for c, name in named if c in columns]
+        bad = r.engine.unescape_text(view, relation, cells, tokens, r.delimiter, malformed)
+        r.raw.relations[i] = (view, columns)
+        for file_id, n in bad.items():
+            by_id[file_id].rows -= n
+            by_id[file_id].malformed += n
+
+
+def count_records(path: Path, quote: str | None, header: bool) -> tuple[int, bool]:
     """The number of data records by quote parity, independently of any CSV parser, and whether the
     quotes balance. A line break ends a record only outside quotes (RFC 4180 doubles a quote inside a
-    quoted field, which keeps the parity); blank lines are not records. Vectorised over blocks."""
+    quoted field, which keeps the parity); blank lines are not records. Vectorised over blocks.
+    ``quote`` None: nothing is quoted, every line break ends a record."""
     return count_blocks(streams.blocks(path, COUNT_BLOCK), quote, header)
 
 
-def count_blocks(chunks: Iterable[bytes], quote: str, header: bool) -> tuple[int, bool]:
+def count_blocks(chunks: Iterable[bytes], quote: str | None, header: bool) -> tuple[int, bool]:
     """``count_records`` over the bytes of a file given in blocks."""
-    q = ord(quote)
+    q = -1 if quote is None else ord(quote)  # no byte equals -1: no quote toggles the parity
     parity = 0
     last_end = -1
     pos = 0
@@ -184,7 +262,7 @@ def count_blocks(chunks: Iterable[bytes], quote: str, header: bool) -> tuple[int
     for chunk in chunks:
         buf = np.frombuffer(chunk, dtype=np.uint8)
         nl = np.flatnonzero(buf == 10)
-        isq = (buf == q).view(np.uint8)
+        isq = (buf == q).view(np.uint8) if q >= 0 else np.zeros(len(buf), np.uint8)
         if len(nl):
             starts = np.concatenate(([0], nl + 1))
             if starts[-1] == len(buf):
@@ -227,7 +305,8 @@ def _fast(group: list[RawFile], r: _Reading) -> list[RawFile]:
     # The engine's reader does not report every broken record when it scans many files at once, so
     # every file's records are also counted independently, by a thread, while the engine scans.
     with ThreadPoolExecutor(max_workers=1) as pool:
-        counted = {p: pool.submit(count_records, Path(p), opts.quote, opts.header) for p in paths}
+        quote = _quote(r.mapping)
+        counted = {p: pool.submit(count_records, Path(p), quote, opts.header) for p in paths}
         staged = r.raw.relation("csv")
         scanned = _scan(r, staged, list(paths))
         counts = {p: c.result() for p, c in counted.items()}
@@ -258,7 +337,7 @@ def _fast(group: list[RawFile], r: _Reading) -> list[RawFile]:
     return [f for p, f in paths.items() if p in rejected]
 
 
-def _body(f: RawFile, header: bool, quote: str) -> tuple[bytes, bytes, int] | None:
+def _body(f: RawFile, header: bool, quote: str | None) -> tuple[bytes, bytes, int] | None:
     """A small file's records without its header, ending in a line end, with that line end and
     the number of records; None for a file that is not small or whose quotes do not balance."""
     if f.path.stat().st_size > SMALL_FILE:
@@ -293,7 +372,7 @@ def _joined(group: list[RawFile], r: _Reading) -> list[RawFile]:
     alone: list[RawFile] = []
     by_end: dict[bytes, list[tuple[RawFile, bytes, int]]] = {}
     for f in group:
-        small = _body(f, opts.header, opts.quote)
+        small = _body(f, opts.header, _quote(r.mapping))
         if small is None:
             alone.append(f)
         else:
@@ -335,8 +414,9 @@ def csv_syntax(mapping: Mapping, delimiter: str, encoding: str, header: bool | N
     return CsvSyntax(
         header=opts.header if header is None else header,
         delimiter=delimiter,
-        quote=opts.quote,
-        nulls=tuple(mapping.nulls) or (NEVER,),
+        quote=opts.quote if not backslashed(mapping) else "",  # the engine's reader: "" quotes nothing
+        # COPY's text format: the cells are kept as written (null tokens too), then decoded
+        nulls=(tuple(mapping.nulls) or (NEVER,)) if not backslashed(mapping) else (NEVER,),
         encoding=ENGINE_ENCODINGS[encoding.lower()],
         max_line=MAX_RECORD_BYTES,
     )
@@ -451,6 +531,32 @@ def _records(
             pending.extendleft(reversed(rest))  # resume at the line after the record's first line
 
 
+def _text_records(
+    lines: Iterator[str], delimiter: str, expected: int, f: RawFile
+) -> Iterator[tuple[str, str | None]]:
+    """``_records`` for COPY's text format: a record is one line (blank lines are not records).
+    ``\\.`` alone on the file's last line is COPY's end-of-data marker, not a record (noted on
+    ``f``); anywhere else it is malformed."""
+    marker: str | None = None
+    for line in lines:
+        text = _strip_end(line)
+        if not text:
+            continue
+        if marker is not None:
+            yield marker, "COPY's end-of-data marker \\. before the file's last line"
+            marker = None
+        if text == TEXT_END:
+            marker = text
+            continue
+        if len(text) > MAX_RECORD_BYTES:
+            yield text[:1024], f"a record longer than {MAX_RECORD_BYTES >> 20} MiB"
+            continue
+        found = len(split_escaped(text, delimiter))
+        yield text, None if found == expected else f"expected {expected} fields, found {found}"
+    if marker is not None:
+        f.notes.append("its last line, \\., is COPY's end-of-data marker: not a record")
+
+
 def _careful(files: list[RawFile], r: _Reading) -> None:
     """Read files record by record, all into one relation: their good records numbered into one
     scratch file (file id, record number, the record's text) that is parsed and decoded once, their
@@ -466,6 +572,7 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
     bad_text: list[str] = []
     bad_reason: list[str] = []
     malformed = r.raw.ensure_malformed(r.engine)
+    text_format = backslashed(r.mapping)
 
     def flush_bad() -> None:
         if not bad_rows:
@@ -490,16 +597,23 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
         for f in files:
             number = 0
             good = 0
-            records = _records(_lines(f, r.encoding), r.delimiter, opts.quote, len(r.internal))
+            if text_format:
+                records = _text_records(_lines(f, r.encoding), r.delimiter, len(r.internal), f)
+            else:
+                records = _records(_lines(f, r.encoding), r.delimiter, opts.quote, len(r.internal))
             if opts.header:
                 next(records, None)
             for text, reason in records:
                 number += 1
                 if reason is None:
                     good += 1
-                    line = f"{f.file_id}{r.delimiter}{number}{r.delimiter}{text}\n".encode(
-                        "utf-8", "surrogateescape"
-                    )
+                    if text_format:  # the cells as written, quoted as RFC 4180 fields
+                        cells = ",".join(
+                            '"' + c.replace('"', '""') + '"' for c in split_escaped(text, r.delimiter)
+                        )
+                        text = cells
+                    sep = "," if text_format else r.delimiter
+                    line = f"{f.file_id}{sep}{number}{sep}{text}\n".encode("utf-8", "surrogateescape")
                     longest = max(longest, len(line))
                     out.write(line)
                 else:
@@ -526,13 +640,17 @@ def _load_cleaned(cleaned: Path, r: _Reading, longest: int) -> None:
     holds two of the ``longest`` records and is at least CAREFUL_BLOCK: the parser's blocks (a few
     at a time, parsed in parallel) are outside the engine's memory, so they stay as small as the
     records allow, not sized for the longest record possible."""
-    tokens = list(r.mapping.nulls)
+    text_format = backslashed(r.mapping)
+    tokens = [] if text_format else list(r.mapping.nulls)  # COPY text: decoded afterwards
     names = ["__file", "__row", *r.internal]
     reader = pacsv.open_csv(
         str(cleaned),
         read_options=pacsv.ReadOptions(column_names=names, block_size=max(CAREFUL_BLOCK, 2 * longest)),
         parse_options=pacsv.ParseOptions(
-            delimiter=r.delimiter, quote_char=r.mapping.csv.quote, double_quote=True, newlines_in_values=True
+            delimiter="," if text_format else r.delimiter,
+            quote_char='"' if text_format else r.mapping.csv.quote,
+            double_quote=True,
+            newlines_in_values=True,
         ),
         convert_options=pacsv.ConvertOptions(
             column_types={"__file": pa.int32(), "__row": pa.int64(), **{c: pa.binary() for c in r.internal}},

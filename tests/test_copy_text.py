@@ -16,7 +16,7 @@ from typing import Any
 
 import pytest
 
-from cdcnorm.readers.csv import split_escaped, unescape
+from cdcnorm.readers.csv import count_blocks, split_escaped, unescape
 from tests.conftest import ConvertFn, cli, last_run
 
 MAPPING = """
@@ -69,21 +69,22 @@ def test_copy_text_cells_decode_as_postgresql_documents(convert: ConvertFn) -> N
 
 
 def test_cells_copy_does_not_write_are_quarantined_with_their_record(convert: ConvertFn) -> None:
-    # octal and hex sequences name bytes (COPY FROM reads them, COPY TO never writes them), a lone
-    # backslash at a cell's end escapes the delimiter or line end after it
-    cells = ["ok", "bad\\101", "bad\\x41", "tail\\", "\\\\101 fine"]
-    done = convert(MAPPING, {"n.csv": _dump(cells)})
+    # octal and hex sequences name bytes (COPY FROM reads them, COPY TO never writes them; \0, a NUL,
+    # is no text PostgreSQL holds); a lone backslash ends the last cell of a file with no line end
+    cells = ["ok", "bad\\101", "bad\\x41", "\\\\101 fine", "nul\\0", "tail\\"]
+    done = convert(MAPPING, {"n.csv": _dump(cells).removesuffix("\n")})
     values = {e["key"]["id"]: e["values"]["a"] for e in done.events("t.notes")}
-    assert values == {1: "ok", 5: "\\101 fine"}
+    assert values == {1: "ok", 4: "\\101 fine"}
     quarantined = {q["_cdcnorm"]["row"]: q["_cdcnorm"] for q in done.quarantine("t.notes")}
-    assert sorted(quarantined) == [2, 3, 4]
+    assert sorted(quarantined) == [2, 3, 5, 6]
     assert quarantined[2]["text"] == "I\t2\t2\tbad\\101"
-    assert quarantined[4]["text"] == "I\t4\t4\ttail\\"
+    assert quarantined[6]["text"] == "I\t6\t6\ttail\\"
     assert all(
-        q["reasons"][0]["reason"].startswith("column a: an octal or hex") for q in quarantined.values()
+        q["reasons"][0]["reason"].startswith("column a: a backslash sequence that names a byte")
+        for q in quarantined.values()
     )
     ledger = done.ledger()
-    assert ledger["balanced"] and ledger["total"]["read"] == 5 and ledger["total"]["quarantined"] == 3
+    assert ledger["balanced"] and ledger["total"]["read"] == 6 and ledger["total"]["quarantined"] == 4
 
 
 def test_an_escaped_delimiter_is_read_record_by_record_with_the_same_values(convert: ConvertFn) -> None:
@@ -126,6 +127,66 @@ def test_many_small_copy_text_files_read_together(convert: ConvertFn) -> None:
     (q,) = done.quarantine("t.notes")
     assert q["_cdcnorm"]["file"] == "n999.csv" and q["_cdcnorm"]["row"] == 1
     assert done.ledger()["balanced"]
+
+
+def test_a_backslash_before_a_line_break_or_a_tab_makes_it_data(convert: ConvertFn) -> None:
+    # a dump that escapes its delimiter and line breaks with a backslash and the character itself
+    # (as MySQL's SELECT ... INTO OUTFILE writes them: from memory); PostgreSQL's COPY FROM reads a
+    # backslash and a line break as that line break (its documentation, COPY, "Text Format"; the
+    # PostgreSQL test below checks it against the server)
+    B = "\\"
+    text = (
+        "op\tpos\tid\ta\n"
+        f"I\t1\t1\tline1{B}\nline2{B}\nline3\n"  # one record over three lines
+        f"I\t2\t2\tx{B}\ty\n"  # an escaped tab
+        f"I\t3\t3\tplain\n"
+        f"I\t4\t4\tcr{B}\r\n"  # escapes the CR of a CRLF: the LF ends the record
+        f"I\t5\t5\tends in{B}{B}\n"  # an escaped backslash, then the record's end
+        f"I\t6\t6\tlast{B}\n"  # the file ends inside the record: its line break is data
+    )
+    done = convert(MAPPING, {"n.csv": text})
+    events = {e["key"]["id"]: e for e in done.events("t.notes")}
+    values = {k: e["values"]["a"] for k, e in events.items()}
+    assert values == {
+        1: "line1\nline2\nline3",
+        2: "x\ty",
+        3: "plain",
+        4: "cr\r",
+        5: "ends in\\",
+        6: "last\n",
+    }
+    assert {k: e["origin"]["row"] for k, e in events.items()} == {
+        k: k for k in range(1, 7)
+    }  # records, not lines
+    assert done.ledger()["balanced"] and done.ledger()["total"]["read"] == 6
+
+
+def test_an_escaped_line_break_joins_what_looks_like_two_records(convert: ConvertFn) -> None:
+    # each line alone has the right field count, so only the independent count of records (a line
+    # break after an odd run of backslashes ends none) sends the file to the record-by-record path:
+    # the one record has 7 fields, as PostgreSQL's COPY FROM would say too ("extra data")
+    done = convert(MAPPING, {"n.csv": "op\tpos\tid\ta\nI\t1\t1\tx\\\nI\t2\t2\ty\nI\t3\t3\tz\n"})
+    assert [e["key"]["id"] for e in done.events("t.notes")] == [3]
+    (q,) = done.quarantine("t.notes")
+    assert q["_cdcnorm"]["text"] == "I\t1\t1\tx\\\nI\t2\t2\ty"
+    assert q["_cdcnorm"]["reasons"][0]["reason"] == "expected 4 fields, found 7"
+    assert q["_cdcnorm"]["row"] == 1 and done.ledger()["total"]["read"] == 2
+
+
+@pytest.mark.parametrize(
+    ("blocks", "escaped"),
+    [
+        ([b"I\t1\\\\\n"], False),  # an escaped backslash, then the record's end
+        ([b"I\t1\\\n2\n"], True),
+        ([b"I\t1\\", b"\nx\n"], True),  # across blocks
+        ([b"I\t1\\", b"\\\nx\n"], False),
+        ([b"\\" * 3, b"\\\n"], False),  # four backslashes, two blocks
+        ([b"\\" * 3, b"\n"], True),
+        ([b"x\\\r\n"], True),  # escapes the CR
+    ],
+)
+def test_the_record_count_sees_escaped_line_breaks(blocks: list[bytes], escaped: bool) -> None:
+    assert count_blocks(blocks, None, False)[1] is not escaped
 
 
 @pytest.mark.parametrize(
@@ -253,6 +314,47 @@ def test_postgresql_copy_text_dump_reads_to_the_values_postgresql_holds(
         assert e["values"]["amount"] == (None if amount is None else f"{amount:.2f}")
         assert datetime.fromisoformat(e["values"]["at"].replace("Z", "+00:00")) == at  # the same instant
     assert last_run(out)["ledger"]["balanced"]
+
+
+def test_what_postgresql_copy_from_reads_is_what_cdcnorm_reads(
+    pg_url: str, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # the server as the oracle of the format's reading: the same bytes through COPY ... FROM STDIN
+    import psycopg
+
+    B = b"\\"
+    cells = [
+        b"line1" + B + b"\nline2",  # a backslash and a line break: that line break
+        b"x" + B + b"\ty",  # a backslash and a tab: a tab
+        b"cr" + B + b"\rz",
+        b"p" + B + b"qz" + B + B,  # any other character stands for itself
+        B + b"N",
+        b"",
+        B + b"b" + B + b"f" + B + b"v" + B + b"n" + B + b"t" + B + b"r",
+        "naïve 😀".encode(),
+        b"end" + B + b"\n",  # escapes the file's last line break
+    ]
+    dump = b"".join(b"I\t%d\t%d\t%s\n" % (i + 1, i + 1, c) for i, c in enumerate(cells))
+    with psycopg.connect(pg_url) as conn:
+        conn.execute("CREATE TABLE t (op text, pos integer, id integer, a text)")
+        with conn.cursor() as cur:
+            with cur.copy("COPY t FROM STDIN") as copy:
+                copy.write(dump)
+            held = dict(cur.execute("SELECT id, a FROM t").fetchall())
+    (tmp_path / "n.csv").write_bytes(dump)
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(
+        MAPPING.replace(
+            "{escapes: backslash}", "{escapes: backslash, header: false, columns: [op, pos, id, a]}"
+        )
+    )
+    out = tmp_path / "out"
+    code = cli("convert", str(tmp_path / "n.csv"), "--mappings", str(mdir), "--out", str(out))
+    assert code == 0, capsys.readouterr().err
+    files = sorted((out / "events" / "t.notes").glob("*.jsonl"))
+    events = [json.loads(line) for p in files for line in p.read_text(encoding="utf-8").splitlines()]
+    assert {e["key"]["id"]: e["values"]["a"] for e in events} == held
+    assert len(held) == len(cells)
 
 
 def _pg_literal(text: str) -> str:

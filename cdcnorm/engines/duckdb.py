@@ -795,9 +795,10 @@ class DuckDBEngine:
         controls = " ".join(
             f"WHEN t = {lit(chr(92) + k)} THEN chr({ord(v)})" for k, v in TEXT_ESCAPES.items()
         )
+        why = ": a backslash sequence that names a byte (an octal \\0 or \\101, a hex \\x41), or a lone backslash at its end: COPY writes neither"
         reason = " ".join(
             f"WHEN contains({ident(c)}, '\\') AND NOT regexp_full_match({ident(c)}, {lit(_TEXT_CELL)}) "
-            f"THEN {lit(f'column {name}: an octal or hex backslash sequence, or a lone backslash at its end (COPY writes neither)')}"
+            f"THEN {lit('column ' + name + why)}"
             for c, name in columns
         )
         reason = f"CASE {reason} END" if columns else "NULL"

@@ -247,13 +247,16 @@ def count_records(path: Path, quote: str | None, header: bool) -> tuple[int, boo
     """The number of data records by quote parity, independently of any CSV parser, and whether the
     quotes balance. A line break ends a record only outside quotes (RFC 4180 doubles a quote inside a
     quoted field, which keeps the parity); blank lines are not records. Vectorised over blocks.
-    ``quote`` None: nothing is quoted, every line break ends a record."""
+    ``quote`` None (COPY's text format): nothing is quoted, and the second value says whether no
+    backslash escapes a line break (which the engine's reader would take for a record's end)."""
     return count_blocks(streams.blocks(path, COUNT_BLOCK), quote, header)
 
 
 def count_blocks(chunks: Iterable[bytes], quote: str | None, header: bool) -> tuple[int, bool]:
     """``count_records`` over the bytes of a file given in blocks."""
     q = -1 if quote is None else ord(quote)  # no byte equals -1: no quote toggles the parity
+    escaped = False  # a backslash escapes a line break (COPY's text format)
+    run = 0  # the backslashes the bytes so far end with
     parity = 0
     last_end = -1
     pos = 0
@@ -263,6 +266,8 @@ def count_blocks(chunks: Iterable[bytes], quote: str | None, header: bool) -> tu
         buf = np.frombuffer(chunk, dtype=np.uint8)
         nl = np.flatnonzero(buf == 10)
         isq = (buf == q).view(np.uint8) if q >= 0 else np.zeros(len(buf), np.uint8)
+        if q < 0 and not escaped:
+            escaped, run = _escaped_break(buf, run)
         if len(nl):
             starts = np.concatenate(([0], nl + 1))
             if starts[-1] == len(buf):
@@ -289,7 +294,28 @@ def count_blocks(chunks: Iterable[bytes], quote: str | None, header: bool) -> tu
     rest = pos - 1 - last_end  # bytes after the last record's line break
     if rest > 1 or (rest == 1 and last_byte != 13):
         count += 1
-    return count - (1 if header and count else 0), parity == 0
+    return count - (1 if header and count else 0), parity == 0 and not escaped
+
+
+def _escaped_break(buf: np.ndarray, run: int) -> tuple[bool, int]:
+    """Whether an odd run of backslashes (one escaping the next byte) stands before a line break (LF
+    or CR) in ``buf``, whose bytes follow ``run`` backslashes; and the run ``buf`` ends with. Only
+    the line breaks right after a backslash are looked at one by one: few, in a dump."""
+    breaks = np.flatnonzero((buf == 10) | (buf == 13))
+    after = breaks[breaks > 0]
+    candidates = after[buf[after - 1] == 92].tolist()
+    if len(breaks) and breaks[0] == 0 and run % 2:
+        return True, 0
+    for at in candidates:
+        start = at - 1
+        while start > 0 and buf[start - 1] == 92:
+            start -= 1
+        if (at - start + (run if start == 0 else 0)) % 2:
+            return True, 0
+    tail = len(buf)
+    while tail > 0 and buf[tail - 1] == 92:
+        tail -= 1
+    return False, len(buf) - tail + (run if tail == 0 else 0)
 
 
 def _fast(group: list[RawFile], r: _Reading) -> list[RawFile]:
@@ -531,15 +557,41 @@ def _records(
             pending.extendleft(reversed(rest))  # resume at the line after the record's first line
 
 
+def _escapes_its_end(text: str) -> bool:
+    """``text`` ends in an odd run of backslashes: its last one escapes what follows."""
+    return (len(text) - len(text.rstrip("\\"))) % 2 == 1
+
+
+def _text_lines(lines: Iterator[str]) -> Iterator[str]:
+    """The records of COPY's text format, each without its line end: a line whose line break a
+    backslash escapes goes on with the next line (the break is data, as PostgreSQL's COPY FROM
+    reads a backslash and a line break), and at the end of the file the record ends there. A
+    backslash before the CR of a CRLF escapes the CR: the LF ends the record."""
+    pending = ""
+    for line in lines:
+        record = pending + line
+        body = _strip_end(record)
+        end = record[len(body) :]
+        if end in ("\n", "\r") and _escapes_its_end(body):
+            pending = record
+            if len(pending) > MAX_RECORD_BYTES:
+                yield pending  # too long: ``_text_records`` says so
+                pending = ""
+            continue
+        pending = ""
+        yield record[:-1] if end == "\r\n" and _escapes_its_end(body) else body
+    if pending:
+        yield pending
+
+
 def _text_records(
     lines: Iterator[str], delimiter: str, expected: int, f: RawFile
 ) -> Iterator[tuple[str, str | None]]:
-    """``_records`` for COPY's text format: a record is one line (blank lines are not records).
-    ``\\.`` alone on the file's last line is COPY's end-of-data marker, not a record (noted on
-    ``f``); anywhere else it is malformed."""
+    """``_records`` for COPY's text format: a record is one line, or more where a backslash escapes
+    a line break (``_text_lines``); blank lines are not records. ``\\.`` alone on the file's last
+    line is COPY's end-of-data marker, not a record (noted on ``f``); anywhere else it is malformed."""
     marker: str | None = None
-    for line in lines:
-        text = _strip_end(line)
+    for text in _text_lines(lines):
         if not text:
             continue
         if marker is not None:

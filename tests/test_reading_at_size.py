@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import base64
 import bz2
+import contextlib
 import gzip
 import io
 import json
@@ -1177,3 +1178,93 @@ def test_a_file_named_as_a_tar_archive_says_so(
     err = capsys.readouterr().err
     assert code == 4 and f"{dump}: this file matches no mapping" in err, err
     assert f"hint: its name says it is a tar archive: unpack it first (tar -xf {name})" in err
+
+
+def _sqlite_bytes(tmp_path: Path) -> bytes:
+    import sqlite3
+
+    db = tmp_path / "made.db"
+    with contextlib.closing(sqlite3.connect(db)) as conn:
+        conn.execute("CREATE TABLE changes (op TEXT, pos INTEGER)")
+        conn.commit()
+    return db.read_bytes()
+
+
+def _arrow_bytes(kind: str) -> bytes:
+    sink = io.BytesIO()
+    table = pa.table({"op": ["I"], "pos": [1]})
+    if kind == "orc":
+        import pyarrow.orc as orc
+
+        orc.write_table(table, sink)
+    else:
+        import pyarrow.feather as feather
+
+        feather.write_feather(table, sink)
+    return sink.getvalue()
+
+
+def _workbook() -> bytes:
+    """The parts an Excel .xlsx package starts with (ECMA-376 part 2, from memory), zipped."""
+    sink = io.BytesIO()
+    with zipfile.ZipFile(sink, "w") as z:
+        z.writestr("[Content_Types].xml", '<?xml version="1.0"?><Types/>')
+        z.writestr("xl/workbook.xml", '<?xml version="1.0"?><workbook/>')
+    return sink.getvalue()
+
+
+@pytest.mark.parametrize(
+    ("name", "make", "what"),
+    [
+        # the header of PostgreSQL's COPY binary format (its documentation, COPY, "Binary Format")
+        (
+            "n.csv",
+            lambda _: b"PGCOPY\n\xff\r\n\x00" + bytes(8) + b"\xff\xff",
+            "PostgreSQL's COPY binary format",
+        ),
+        ("n.csv.gz", lambda t: gzip.compress(_sqlite_bytes(t)), "an SQLite database"),  # by sqlite3
+        (
+            "n.jsonl",
+            lambda _: b"Obj\x01\x04\x14avro.codec\x08null\x00" + bytes(16),
+            "an Avro file",
+        ),  # its spec
+        ("n.parquet", lambda _: _arrow_bytes("feather"), "an Arrow IPC (Feather) file"),  # by pyarrow
+        ("n.csv", lambda _: _arrow_bytes("orc"), "an ORC file"),  # by pyarrow
+        (
+            "n.csv",
+            lambda _: b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1" + bytes(504),
+            "an OLE2 compound file",
+        ),  # MS-CFB
+        ("n.csv", lambda _: _workbook(), "an Office Open XML document"),
+    ],
+)
+def test_a_file_of_another_format_is_a_clear_error(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], name: str, make: Any, what: str
+) -> None:
+    # read as text, its bytes were a header of odd names (exit 4 for schema drift, naming columns
+    # such as "SQLite format 3\u0000..."), or every line quarantined as not JSON (exit 0)
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN)
+    (dump := tmp_path / name).write_bytes(make(tmp_path))
+    code = cli("convert", "--mappings", str(mdir), str(dump), "--out", str(tmp_path / "out"))
+    err = capsys.readouterr().err
+    assert code == 4, err
+    assert f"{dump}: this file is {what}" in err and ", not a dump cdcnorm reads" in err, err
+    assert "Traceback" not in err and not (tmp_path / "out" / "events").exists()
+
+
+def test_a_workbook_in_a_zip_is_named_as_one(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN)
+    (dump := tmp_path / "n.csv.zip").write_bytes(_workbook())
+    code = cli("convert", "--mappings", str(mdir), str(dump), "--out", str(tmp_path / "out"))
+    err = capsys.readouterr().err
+    assert code == 4 and f"{dump}: this .zip archive is an Office Open XML document" in err, err
+    assert "hint: save the sheet as CSV" in err
+
+
+def test_a_text_that_starts_like_an_orc_file_is_read_as_text(convert: ConvertFn) -> None:
+    orc_named = PLAIN.replace("id: integer", "ORC_ID: integer").replace("key: [id]", "key: [ORC_ID]")
+    text = "ORC_ID,op,pos,a\n1,I,1,x\n"
+    done = convert(orc_named, {"n.csv": text})
+    assert [e["key"]["ORC_ID"] for e in done.events("t.notes")] == [1]

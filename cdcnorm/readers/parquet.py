@@ -170,7 +170,8 @@ def _unreadable(f: RawFile, e: duckdb.Error) -> InputError:
     try:
         with open(f.path, "rb") as start:
             head = start.read(1 << 16)
-            if wrong := streams.misnamed_archive(f.path, head) or streams.tar_bundle(f.path, head):
+            wrong = streams.foreign_format(f.path, head) or streams.misnamed_archive(f.path, head)
+            if wrong := wrong or streams.tar_bundle(f.path, head):
                 return wrong
     except OSError:
         pass

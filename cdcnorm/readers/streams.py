@@ -160,6 +160,55 @@ def tar_bundle(path: Path, start: bytes) -> InputError | None:
     )
 
 
+#: Files of other formats a dump folder may hold, by their first bytes: what each is, and what to
+#: do instead. PostgreSQL's COPY binary header "PGCOPY\n\377\r\n\0" (its documentation, COPY,
+#: "Binary Format"); SQLite's "SQLite format 3\0" (its file format, "The Database Header"); an Avro
+#: object container file's "Obj" and 1 (Avro's specification, "Object Container Files"); Arrow's
+#: IPC file "ARROW1" and its padding (the Arrow columnar format, "IPC File Format"); an OLE2 compound
+#: file, as Excel's .xls (MS-CFB, 2.2); ORC's "ORC" (its specification), with binary bytes after it
+#: (a text starting with "ORC" is no ORC file).
+FOREIGN_FORMATS = (
+    (
+        b"PGCOPY\n\xff\r\n\x00",
+        "PostgreSQL's COPY binary format",
+        "write it as text: COPY ... TO ... (FORMAT csv), or the default text format with csv.escapes: backslash",
+    ),
+    (b"SQLite format 3\x00", "an SQLite database", "export the change table as CSV, JSON Lines or Parquet"),
+    (b"Obj\x01", "an Avro file", "convert it to Parquet or JSON Lines"),
+    (b"ARROW1\x00\x00", "an Arrow IPC (Feather) file", "convert it to Parquet"),
+    (
+        b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1",
+        "an OLE2 compound file (an Excel .xls workbook, say)",
+        "save the sheet as CSV",
+    ),
+    (b"ORC", "an ORC file", "convert it to Parquet"),
+)
+#: An Office Open XML document (an Excel .xlsx workbook) is a zip archive whose parts include
+#: "[Content_Types].xml" (ECMA-376 part 2, Open Packaging Conventions: from memory).
+OOXML_PART = "[Content_Types].xml"
+OOXML = ("an Office Open XML document (an Excel .xlsx workbook, say)", "save the sheet as CSV")
+
+
+def foreign_format(path: Path, start: bytes) -> InputError | None:
+    """The error for a file of a format no reader reads (``FOREIGN_FORMATS``), given as a dump: read
+    as text its bytes would be a header of odd names or lines that are not JSON."""
+    formats: tuple[tuple[bytes, str, str], ...] = FOREIGN_FORMATS
+    if start.startswith(b"PK\x03\x04") and OOXML_PART.encode() in start[:4096]:
+        formats = ((b"PK\x03\x04", *OOXML),)
+    for magic, what, hint in formats:
+        if start.startswith(magic):
+            if magic == b"ORC" and not any(b < 0x20 and b not in b"\t\n\r" for b in start[3:64]):
+                continue  # text (a header "ORC_ID,...") has no control characters but these
+            return InputError(
+                f"this file is {what}, not a dump cdcnorm reads",
+                file=str(path),
+                expected="CSV, JSON Lines or Parquet",
+                found=f"{what}: its first bytes {start[: len(magic)].hex(' ')}",
+                hint=hint,
+            )
+    return None
+
+
 def compression(path: Path) -> str | None:
     return COMPRESSIONS.get(path.suffix.lower())
 
@@ -195,6 +244,8 @@ def zip_member(archive: zipfile.ZipFile, path: Path) -> zipfile.ZipInfo:
         return members[0]
     names = [i.filename for i in members]
     left = [i.filename for i in files if _metadata(i.filename)]
+    if OOXML_PART in names:
+        raise InputError(f"this .zip archive is {OOXML[0]}, not a dump", file=str(path), hint=OOXML[1])
     raise InputError(
         f"this .zip archive holds {len(names)} files" + (f" ({first_of(names)})" if names else ""),
         file=str(path),
@@ -246,12 +297,12 @@ def blocks(path: Path, size: int = BLOCK) -> Iterator[bytes]:
             return
         with _opened(path, codec) as stream:
             block = stream.read(size)
+            if wrong := foreign_format(path, block) or tar_bundle(path, block):
+                raise wrong
             if codec is None and (misnamed := misnamed_archive(path, block)):
                 raise misnamed
             if codec is not None and (nested := nested_archive(path, block)):
                 raise nested
-            if bundle := tar_bundle(path, block):
-                raise bundle
             while block:
                 yield block
                 block = stream.read(size)

@@ -296,6 +296,46 @@ def test_a_dependent_is_a_copy_only_when_every_route_to_it_copies(tmp_path: Path
     }
 
 
+def test_an_influence_path_holds_an_influence_edge(tmp_path: Path) -> None:
+    # `b.x` copies `a.x` and is filtered by `a.y`, both copies of shop.orders.amount: the shortest
+    # path of all was the copy, so the influence answer showed no influence edge and no kind
+    project = project_from(
+        tmp_path,
+        {"a.sql": "SELECT amount AS x, amount AS y FROM shop.orders", "b.sql": "SELECT x FROM a WHERE y > 0"},
+        SCHEMA,
+    )
+    got = trace(project, "b.x")
+    assert got["influence"] == ["shop.orders.amount"]
+    assert got["influence_kinds"] == {"shop.orders.amount": ["filter"]}
+    (path,) = [p for p in got["paths"] if p["lineage"] == "influence"]
+    assert [(s["to"], s["edge"]) for s in path["steps"]] == [("a.y", "value"), ("b.x", "influence")]
+    assert got["more_paths"] == {"value": [], "influence": []}
+
+
+def test_trace_shows_as_many_paths_as_asked_shortest_first(tmp_path: Path) -> None:
+    # shop.orders.amount reaches `c.z` through `a.x` and `a.y`, and through `d.w` a step longer
+    project = project_from(
+        tmp_path,
+        {
+            "a.sql": "SELECT amount AS x, amount AS y FROM shop.orders",
+            "d.sql": "SELECT x AS w FROM a",
+            "c.sql": "SELECT a.x + a.y + d.w AS z FROM a, d",
+        },
+        SCHEMA,
+    )
+    one = trace(project, "c.z")
+    assert len([p for p in one["paths"] if p["lineage"] == "value"]) == 1
+    assert one["more_paths"]["value"] == ["shop.orders.amount"]
+    every = trace(project, "c.z", paths=10)
+    routes = sorted(tuple(s["to"] for s in p["steps"]) for p in every["paths"] if p["lineage"] == "value")
+    assert routes == [("a.x", "c.z"), ("a.x", "d.w", "c.z"), ("a.y", "c.z")]
+    lengths = [len(p["steps"]) for p in every["paths"] if p["lineage"] == "value"]
+    assert lengths == sorted(lengths) and every["more_paths"]["value"] == []
+    two = trace(project, "c.z", paths=2)
+    assert [len(p["steps"]) for p in two["paths"] if p["lineage"] == "value"] == [2, 2]
+    assert two["more_paths"]["value"] == ["shop.orders.amount"]
+
+
 SIZES = (
     "SELECT CASE WHEN amount > 100 THEN 'big' ELSE 'small' END AS size, amount * 2 AS doubled,\n"
     "  CAST(amount AS BIGINT) AS whole, sum(amount) OVER () AS total FROM shop.orders\n"
@@ -438,11 +478,18 @@ def test_lineage_commands_end_to_end(tmp_path: Path, capsys: pytest.CaptureFixtu
         "influence_kinds",
         "raw",
         "paths",
+        "more_paths",
         "unresolved",
         "complete",
         "inferred",
     }
     assert one["complete"] is True
+    assert one["more_paths"] == {"value": [], "influence": ["ferry.bookings.refunded"]}
+    assert cli("trace", *args, "daily_revenue.total_fare", "--json", "--paths", "50") == 0
+    every = json.loads(capsys.readouterr().out)
+    assert every["more_paths"] == {"value": [], "influence": []}
+    refunded = [p for p in every["paths"] if p["source"] == "ferry.bookings.refunded"]
+    assert len(refunded) > 1 and all(any(s["edge"] == "influence" for s in p["steps"]) for p in refunded)
     assert one["value"] == ["ferry.bookings.fare", "ferry.bookings.seats"]
     assert "ferry.bookings.refunded" in one["influence"] and "ferry.bookings.is_refunded" in one["raw"]
     assert cli("trace", *args, "daily_revenue", "--json") == 0

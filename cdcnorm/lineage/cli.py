@@ -45,6 +45,14 @@ def add_commands(sub: Any) -> None:
     _common(t)
     t.add_argument("target", help="<model>.<column>, or a model name for all its columns")
     t.add_argument(
+        "--paths",
+        type=int,
+        default=1,
+        metavar="N",
+        help="show up to N paths from each source, shortest first (default 1); the answer names the "
+        "sources with more",
+    )
+    t.add_argument(
         "--influence",
         metavar="KINDS",
         help="show and follow only these influence kinds, comma-separated: "
@@ -195,6 +203,7 @@ def _trace_tree(answer: dict[str, Any]) -> Tree:
     for p in answer["paths"]:
         if p["lineage"] == "value":
             add_path(branch, p)
+    more = answer.get("more_paths", {})
     branch = tree.add(f"influence lineage: {counted(len(answer['influence']), 'source column')}")
     # grouped by kind: join keys that only connect tables apart from the filters that decide rows
     from cdcnorm.lineage.questions import KIND_NAMES
@@ -202,9 +211,14 @@ def _trace_tree(answer: dict[str, Any]) -> Tree:
     for kind in KIND_NAMES:
         group = [p for p in answer["paths"] if p["lineage"] == "influence" and kind in p.get("kinds", [])]
         if group:
-            sub = branch.add(f"{kind}: {len(group)}")
+            sub = branch.add(f"{kind}: {len({p['source'] for p in group})}")
             for p in group:
                 add_path(sub, p)
+    for lineage in ("value", "influence"):
+        if more.get(lineage):
+            tree.add(
+                f"other {lineage} paths from: {', '.join(more[lineage])} (--paths N shows up to N a source)"
+            )
     if answer["raw"]:
         tree.add("dump columns: " + ", ".join(answer["raw"]))
     _print_unresolved(tree, answer)
@@ -228,7 +242,9 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
                     hint="write --influence none for value lineage alone, or name kinds: join,filter",
                 )
             project = with_influence(project, [] if kinds == ["none"] else kinds)
-        answers = trace_target(project, args.target)
+        if args.paths < 1:
+            raise UsageError(f"--paths must be at least 1, found {args.paths}")
+        answers = trace_target(project, args.target, args.paths)
         if args.json:
             # a model's answers are a list (one per column), a column's one answer
             payload: Any = answers if find_model(project, args.target) is not None else answers[0]

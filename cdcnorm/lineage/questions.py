@@ -103,13 +103,41 @@ def _downstream(project: Project, node: Node) -> tuple[set[Node], set[Node]]:
     return _reach(project, node, up=False)
 
 
-def _path(project: Project, a: Node, b: Node, value_only: bool) -> list[dict[str, Any]]:
+#: How many paths ``_paths`` looks at for one source before it says there may be more: the
+#: influence paths are the simple paths with an influence edge, among all simple paths.
+PATHS_LOOKED_AT = 10_000
+
+
+def _paths(
+    project: Project, a: Node, b: Node, value_only: bool, most: int
+) -> tuple[list[list[dict[str, Any]]], bool]:
+    """Up to ``most`` paths from ``a`` to ``b``, shortest first (networkx's shortest simple paths),
+    and whether there are more: for value lineage the paths of value edges, for influence lineage
+    the paths with at least one influence edge (the shortest path of all may have none: a source
+    copied to one column and filtering through another would show no influence)."""
     g = project.graph
-    view = project.view().value if value_only else g
-    try:
-        nodes = nx.shortest_path(view, a, b)
-    except nx.NetworkXNoPath:
-        nodes = nx.shortest_path(g, a, b)
+    view = project.view().value if value_only else project.view().every
+
+    def counts(nodes: list[Node]) -> bool:
+        return value_only or any(g.has_edge(u, v, "influence") for u, v in itertools.pairwise(nodes))
+
+    # networkx's shortest path first, as a single path has always been chosen; then the others
+    first = nx.shortest_path(view if value_only else g, a, b)
+    paths = itertools.chain([first] if counts(first) else [], nx.shortest_simple_paths(view, a, b))
+    found: list[list[Node]] = []
+    for looked, nodes in enumerate(paths, start=1):
+        if counts(nodes) and nodes not in found:
+            if len(found) == most:
+                return [_steps(project, n, value_only) for n in found], True
+            found.append(nodes)
+        if looked >= PATHS_LOOKED_AT:
+            return [_steps(project, n, value_only) for n in found], True
+    return [_steps(project, n, value_only) for n in found], False
+
+
+def _steps(project: Project, nodes: list[Node], value_only: bool) -> list[dict[str, Any]]:
+    """A path's steps: for value lineage its value edges, else an influence edge where a step has one."""
+    g = project.graph
     steps = []
     for u, v in itertools.pairwise(nodes):
         edges = g.get_edge_data(u, v)
@@ -203,6 +231,7 @@ def _unresolved_answer(column: str, diagnostics: list[dict[str, Any]]) -> dict[s
         "influence_kinds": {},
         "raw": [],
         "paths": [],
+        "more_paths": {"value": [], "influence": []},
         "unresolved": diagnostics,
         "complete": False,
     }
@@ -258,7 +287,9 @@ def with_influence(project: Project, kinds: Iterable[str]) -> Project:
     return dataclasses.replace(project, graph=h, views=None)
 
 
-def trace(project: Project, column: str) -> dict[str, Any]:
+def trace(project: Project, column: str, paths: int = 1) -> dict[str, Any]:
+    """Where ``column``'s values come from and what decides its rows; ``paths``: how many paths to
+    show per source and lineage, shortest first."""
     node = find_column(project, column)
     value, influence = _upstream(project, node)
     vsrc = sorted(n for n in value if n[0] == "source")
@@ -266,13 +297,24 @@ def trace(project: Project, column: str) -> dict[str, Any]:
     raw = sorted({r for s in (*vsrc, *isrc) for r in project.graph.predecessors(s) if r[0] == "raw"})
     if node[0] == "source":
         raw = sorted({*raw, *(r for r in project.graph.predecessors(node) if r[0] == "raw")})
-    paths = [
-        {"source": node_name(s), "lineage": "value", "steps": _path(project, s, node, True)} for s in vsrc
-    ]
-    for s in isrc:
-        steps = _path(project, s, node, False)
-        kinds = sorted({k for st in steps if st["edge"] == "influence" for k in kinds_of(st["how"])})
-        paths.append({"source": node_name(s), "lineage": "influence", "kinds": kinds, "steps": steps})
+    shown: list[dict[str, Any]] = []
+    more: dict[str, list[str]] = {"value": [], "influence": []}
+    for lineage, sources in (("value", vsrc), ("influence", isrc)):
+        for s in sources:
+            found, cut = _paths(project, s, node, lineage == "value", paths)
+            if cut:
+                more[lineage].append(node_name(s))
+            for steps in found:
+                entry: dict[str, Any] = {"source": node_name(s), "lineage": lineage, "steps": steps}
+                if lineage == "influence":  # the kinds of this path's influence edges
+                    entry["kinds"] = sorted(
+                        {k for st in steps if st["edge"] == "influence" for k in kinds_of(st["how"])}
+                    )
+                shown.append(entry)
+    kinds: dict[str, set[str]] = {}
+    for p in shown:
+        if p["lineage"] == "influence":
+            kinds.setdefault(p["source"], set()).update(p["kinds"])
     on_the_way = {node} | value | influence
     # a file that could not be parsed and names a table on the way may define it or write to it
     unresolved = unresolved_on(project, on_the_way) + _unparsed_readers(project, on_the_way)
@@ -281,9 +323,11 @@ def trace(project: Project, column: str) -> dict[str, Any]:
         "column": node_name(node),
         "value": [node_name(n) for n in vsrc],
         "influence": [node_name(n) for n in isrc],
-        "influence_kinds": {p["source"]: p["kinds"] for p in paths if p["lineage"] == "influence"},
+        "influence_kinds": {source: sorted(k) for source, k in kinds.items()},
         "raw": [node_name(n) for n in raw],
-        "paths": paths,
+        "paths": shown,
+        # the sources with more paths than shown, by lineage (``paths`` per source are shown)
+        "more_paths": more,
         "unresolved": unresolved,
         "complete": not unresolved,
     }
@@ -303,8 +347,9 @@ def find_model(project: Project, text: str) -> str | None:
     return same[0] if len(same) == 1 else None
 
 
-def trace_target(project: Project, target: str) -> list[dict[str, Any]]:
-    """``trace model`` answers for each of its columns; ``trace table.column`` for one."""
+def trace_target(project: Project, target: str, paths: int = 1) -> list[dict[str, Any]]:
+    """``trace model`` answers for each of its columns; ``trace table.column`` for one (``paths``
+    per source, as ``trace`` shows them)."""
     opaque = unresolved_models(project)
     named = find_model(project, target)
     if named is not None:
@@ -312,7 +357,7 @@ def trace_target(project: Project, target: str) -> list[dict[str, Any]]:
     if target in opaque:
         return [_unresolved_answer(target, opaque[target])]
     if target in project.models:
-        return [trace(project, node_name(n)) for n in model_columns(project, target)]
+        return [trace(project, node_name(n), paths) for n in model_columns(project, target)]
     if "." not in target.removeprefix("model:").removeprefix("field:").removeprefix("dump:"):
         # before: "write a column as <table>.<column>" for a model name in another case
         models = sorted(project.models)
@@ -323,7 +368,7 @@ def trace_target(project: Project, target: str) -> list[dict[str, Any]]:
     model = target.rpartition(".")[0].removeprefix("model:")
     if model in opaque:
         return [_unresolved_answer(target, opaque[model])]
-    return [trace(project, target)]
+    return [trace(project, target, paths)]
 
 
 @dataclass

@@ -18,19 +18,9 @@ import pytest
 
 from cdcnorm.readers.csv import count_blocks, split_escaped, unescape
 from tests.conftest import ConvertFn, cli, last_run
+from tests.test_bad_input import NOTES
 
-MAPPING = """
-table: t.notes
-files: ["n*"]
-key: [id]
-csv: {escapes: backslash}
-change:
-  action: {column: op, codes: {I: insert, D: delete}}
-  position: {column: pos, kind: integer}
-fields:
-  id: integer
-  a: text
-"""
+MAPPING = NOTES.replace("a: TYPE", "a: text").replace("key: [id]\n", "key: [id]\ncsv: {escapes: backslash}\n")
 
 #: Each cell as COPY's text format writes it, and the value it stands for (PostgreSQL's
 #: documentation, COPY, "Text Format": \b \f \n \r \t \v, a backslash before any other character

@@ -16,7 +16,7 @@ import pytest
 from cdcnorm.lineage.export import export
 from cdcnorm.lineage.graph import build_project
 from cdcnorm.lineage.models import load_models
-from cdcnorm.lineage.questions import Edit, impact, trace
+from cdcnorm.lineage.questions import Edit, _path_counts, impact, trace
 from cdcnorm.mapping import load_mappings
 from tests.conftest import ROOT, cli
 from tests.test_lineage import CASES, project_from
@@ -240,6 +240,16 @@ def test_trace_reaches_the_dump_columns(demo: tuple) -> None:  # type: ignore[ty
     assert "ferry.bookings.pax_name" in answer["raw"]  # the mapping renames pax_name to passenger
 
 
+def test_paths_are_counted_as_networkx_lists_them(demo: tuple) -> None:  # type: ignore[type-arg]
+    project = demo[0]
+    views = project.view()
+    for node in [n for n in project.graph.nodes if n[0] == "model"]:
+        by_value, by_any = _path_counts(project, node)
+        for n in nx.ancestors(views.every, node):
+            assert by_any[n] == len(list(nx.all_simple_paths(views.every, n, node))), (n, node)
+            assert by_value.get(n, 0) == len(list(nx.all_simple_paths(views.value, n, node))), (n, node)
+
+
 def test_impact_of_a_retype_to_float(demo: tuple) -> None:  # type: ignore[type-arg]
     project, mappings, loaded = demo
     r = impact(project, "ferry.bookings.fare", Edit("retype", "float"), mappings=mappings, loaded=loaded)
@@ -331,6 +341,15 @@ def test_trace_shows_as_many_paths_as_asked_shortest_first(tmp_path: Path) -> No
     assert routes == [("a.x", "c.z"), ("a.x", "d.w", "c.z"), ("a.y", "c.z")]
     lengths = [len(p["steps"]) for p in every["paths"] if p["lineage"] == "value"]
     assert lengths == sorted(lengths) and every["more_paths"]["value"] == []
+    # the paths counted without listing them are networkx's simple paths, listed
+    views = project.view()
+    node = ("model", "c", "z")
+    by_value, by_any = _path_counts(project, node)
+    for n in by_any:
+        if n != node:
+            assert by_value.get(n, 0) == len(list(nx.all_simple_paths(views.value, n, node)))
+            assert by_any[n] == len(list(nx.all_simple_paths(views.every, n, node)))
+    assert by_value[("source", "shop.orders", "amount")] == 3
     two = trace(project, "c.z", paths=2)
     assert [len(p["steps"]) for p in two["paths"] if p["lineage"] == "value"] == [2, 2]
     assert two["more_paths"]["value"] == ["shop.orders.amount"]

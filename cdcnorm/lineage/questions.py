@@ -11,6 +11,7 @@ from __future__ import annotations
 import dataclasses
 import itertools
 import json
+from collections import deque
 from collections.abc import Iterable
 from dataclasses import dataclass
 from typing import Any
@@ -103,36 +104,73 @@ def _downstream(project: Project, node: Node) -> tuple[set[Node], set[Node]]:
     return _reach(project, node, up=False)
 
 
-#: How many paths ``_paths`` looks at for one source before it says there may be more: the
-#: influence paths are the simple paths with an influence edge, among all simple paths.
+#: How many simple paths ``_paths`` looks at for one source when more than one is asked for: the
+#: influence paths are those with an influence edge, among all simple paths.
 PATHS_LOOKED_AT = 10_000
 
 
-def _paths(
-    project: Project, a: Node, b: Node, value_only: bool, most: int
-) -> tuple[list[list[dict[str, Any]]], bool]:
-    """Up to ``most`` paths from ``a`` to ``b``, shortest first (networkx's shortest simple paths),
-    and whether there are more: for value lineage the paths of value edges, for influence lineage
-    the paths with at least one influence edge (the shortest path of all may have none: a source
-    copied to one column and filtering through another would show no influence)."""
+def _path_counts(project: Project, node: Node) -> tuple[dict[Node, int], dict[Node, int]]:
+    """How many paths lead from each ancestor of ``node`` to it: of value edges alone, and of any
+    edges. One pass over its ancestors in topological order (the graph of models is acyclic), so
+    ``trace`` knows which sources have more paths than it shows without listing them."""
+    views = project.view()
+    counted = []
+    for view in (views.value, views.every):
+        reverse = view.reverse(copy=False)
+        ways: dict[Node, int] = {node: 1}
+        for n in reversed(list(nx.dfs_postorder_nodes(reverse, node))):
+            if n != node:
+                ways[n] = sum(ways.get(m, 0) for m in view.successors(n))
+        counted.append(ways)
+    return counted[0], counted[1]
+
+
+def _influence_path(project: Project, a: Node, b: Node) -> list[Node]:
+    """A shortest path from ``a`` to ``b`` with at least one influence edge: networkx's shortest path
+    when it has one (as a single path has always been chosen), else a breadth-first search over
+    (node, influence crossed yet) pairs."""
+    g = project.graph
+    first: list[Node] = nx.shortest_path(g, a, b)
+    if any(g.has_edge(u, v, "influence") for u, v in itertools.pairwise(first)):
+        return first
+    every = project.view().every
+    start = (a, False)
+    came: dict[tuple[Node, bool], tuple[Node, bool] | None] = {start: None}
+    todo = deque([start])
+    while todo:
+        u, crossed = here = todo.popleft()
+        if u == b and crossed:
+            path = []
+            at: tuple[Node, bool] | None = here
+            while at is not None:
+                path.append(at[0])
+                at = came[at]
+            return path[::-1]
+        for v in every.successors(u):
+            there = (v, crossed or g.has_edge(u, v, "influence"))
+            if there not in came:
+                came[there] = here
+                todo.append(there)
+    return first  # not reached for a source in the influence lineage
+
+
+def _paths(project: Project, a: Node, b: Node, value_only: bool, most: int) -> list[list[dict[str, Any]]]:
+    """Up to ``most`` paths from ``a`` to ``b``, shortest first (networkx's shortest simple paths):
+    for value lineage the paths of value edges, for influence lineage the paths with at least one
+    influence edge (the shortest path of all may have none: a source copied to one column and
+    filtering through another would show no influence)."""
     g = project.graph
     view = project.view().value if value_only else project.view().every
-
-    def counts(nodes: list[Node]) -> bool:
-        return value_only or any(g.has_edge(u, v, "influence") for u, v in itertools.pairwise(nodes))
-
-    # networkx's shortest path first, as a single path has always been chosen; then the others
-    first = nx.shortest_path(view if value_only else g, a, b)
-    paths = itertools.chain([first] if counts(first) else [], nx.shortest_simple_paths(view, a, b))
-    found: list[list[Node]] = []
-    for looked, nodes in enumerate(paths, start=1):
-        if counts(nodes) and nodes not in found:
-            if len(found) == most:
-                return [_steps(project, n, value_only) for n in found], True
-            found.append(nodes)
-        if looked >= PATHS_LOOKED_AT:
-            return [_steps(project, n, value_only) for n in found], True
-    return [_steps(project, n, value_only) for n in found], False
+    first = nx.shortest_path(view, a, b) if value_only else _influence_path(project, a, b)
+    found: list[list[Node]] = [first]
+    if most > 1:
+        for looked, nodes in enumerate(nx.shortest_simple_paths(view, a, b), start=1):
+            counts = value_only or any(g.has_edge(u, v, "influence") for u, v in itertools.pairwise(nodes))
+            if counts and nodes not in found:
+                found.append(nodes)
+            if len(found) == most or looked >= PATHS_LOOKED_AT:
+                break
+    return [_steps(project, n, value_only) for n in found]
 
 
 def _steps(project: Project, nodes: list[Node], value_only: bool) -> list[dict[str, Any]]:
@@ -299,10 +337,12 @@ def trace(project: Project, column: str, paths: int = 1) -> dict[str, Any]:
         raw = sorted({*raw, *(r for r in project.graph.predecessors(node) if r[0] == "raw")})
     shown: list[dict[str, Any]] = []
     more: dict[str, list[str]] = {"value": [], "influence": []}
+    by_value, by_any = _path_counts(project, node)
     for lineage, sources in (("value", vsrc), ("influence", isrc)):
         for s in sources:
-            found, cut = _paths(project, s, node, lineage == "value", paths)
-            if cut:
+            found = _paths(project, s, node, lineage == "value", paths)
+            there = by_value.get(s, 0) if lineage == "value" else by_any.get(s, 0) - by_value.get(s, 0)
+            if there > len(found):
                 more[lineage].append(node_name(s))
             for steps in found:
                 entry: dict[str, Any] = {"source": node_name(s), "lineage": lineage, "steps": steps}

@@ -125,13 +125,18 @@ def _path_counts(project: Project, node: Node) -> tuple[dict[Node, int], dict[No
     return counted[0], counted[1]
 
 
+def _crosses_influence(project: Project, nodes: list[Node]) -> bool:
+    """A step of the path ``nodes`` has an influence edge."""
+    return any(project.graph.has_edge(u, v, "influence") for u, v in itertools.pairwise(nodes))
+
+
 def _influence_path(project: Project, a: Node, b: Node) -> list[Node]:
     """A shortest path from ``a`` to ``b`` with at least one influence edge: networkx's shortest path
     when it has one (as a single path has always been chosen), else a breadth-first search over
     (node, influence crossed yet) pairs."""
     g = project.graph
     first: list[Node] = nx.shortest_path(g, a, b)
-    if any(g.has_edge(u, v, "influence") for u, v in itertools.pairwise(first)):
+    if _crosses_influence(project, first):
         return first
     every = project.view().every
     start = (a, False)
@@ -159,14 +164,12 @@ def _paths(project: Project, a: Node, b: Node, value_only: bool, most: int) -> l
     for value lineage the paths of value edges, for influence lineage the paths with at least one
     influence edge (the shortest path of all may have none: a source copied to one column and
     filtering through another would show no influence)."""
-    g = project.graph
     view = project.view().value if value_only else project.view().every
     first = nx.shortest_path(view, a, b) if value_only else _influence_path(project, a, b)
     found: list[list[Node]] = [first]
     if most > 1:
         for looked, nodes in enumerate(nx.shortest_simple_paths(view, a, b), start=1):
-            counts = value_only or any(g.has_edge(u, v, "influence") for u, v in itertools.pairwise(nodes))
-            if counts and nodes not in found:
+            if (value_only or _crosses_influence(project, nodes)) and nodes not in found:
                 found.append(nodes)
             if len(found) == most or looked >= PATHS_LOOKED_AT:
                 break
@@ -337,6 +340,7 @@ def trace(project: Project, column: str, paths: int = 1) -> dict[str, Any]:
         raw = sorted({*raw, *(r for r in project.graph.predecessors(node) if r[0] == "raw")})
     shown: list[dict[str, Any]] = []
     more: dict[str, list[str]] = {"value": [], "influence": []}
+    kinds: dict[str, set[str]] = {}  # an influence source's kinds, along the paths shown
     by_value, by_any = _path_counts(project, node)
     for lineage, sources in (("value", vsrc), ("influence", isrc)):
         for s in sources:
@@ -350,11 +354,8 @@ def trace(project: Project, column: str, paths: int = 1) -> dict[str, Any]:
                     entry["kinds"] = sorted(
                         {k for st in steps if st["edge"] == "influence" for k in kinds_of(st["how"])}
                     )
+                    kinds.setdefault(entry["source"], set()).update(entry["kinds"])
                 shown.append(entry)
-    kinds: dict[str, set[str]] = {}
-    for p in shown:
-        if p["lineage"] == "influence":
-            kinds.setdefault(p["source"], set()).update(p["kinds"])
     on_the_way = {node} | value | influence
     # a file that could not be parsed and names a table on the way may define it or write to it
     unresolved = unresolved_on(project, on_the_way) + _unparsed_readers(project, on_the_way)

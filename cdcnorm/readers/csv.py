@@ -299,23 +299,26 @@ def count_blocks(chunks: Iterable[bytes], quote: str | None, header: bool) -> tu
 
 def _escaped_break(buf: np.ndarray, run: int) -> tuple[bool, int]:
     """Whether an odd run of backslashes (one escaping the next byte) stands before a line break (LF
-    or CR) in ``buf``, whose bytes follow ``run`` backslashes; and the run ``buf`` ends with. Only
-    the line breaks right after a backslash are looked at one by one: few, in a dump."""
+    or CR) in ``buf``, whose bytes follow ``run`` backslashes; and the run ``buf`` ends with. Each
+    run's length is the distance to the last byte before it that is no backslash (vectorised; the
+    positions of those bytes are found only when a line break follows a backslash)."""
+    if not len(buf):
+        return False, run
     breaks = np.flatnonzero((buf == 10) | (buf == 13))
-    after = breaks[breaks > 0]
-    candidates = after[buf[after - 1] == 92].tolist()
     if len(breaks) and breaks[0] == 0 and run % 2:
         return True, 0
-    for at in candidates:
-        start = at - 1
-        while start > 0 and buf[start - 1] == 92:
-            start -= 1
-        if (at - start + (run if start == 0 else 0)) % 2:
+    at = breaks[breaks > 0]
+    at = at[buf[at - 1] == 92]
+    if len(at):
+        others = np.flatnonzero(buf != 92)
+        last = np.searchsorted(others, at) - 1  # the last byte before each break that is no backslash
+        runs = np.where(last >= 0, at - 1 - others[np.maximum(last, 0)], at + run)
+        if np.any(runs % 2):
             return True, 0
-    tail = len(buf)
-    while tail > 0 and buf[tail - 1] == 92:
-        tail -= 1
-    return False, len(buf) - tail + (run if tail == 0 else 0)
+    if buf[-1] != 92:
+        return False, 0
+    other = buf[::-1] != 92  # the run the block ends with: up to its last byte that is no backslash
+    return False, int(np.argmax(other)) if other.any() else len(buf) + run
 
 
 def _fast(group: list[RawFile], r: _Reading) -> list[RawFile]:
@@ -625,6 +628,7 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
     bad_reason: list[str] = []
     malformed = r.raw.ensure_malformed(r.engine)
     text_format = backslashed(r.mapping)
+    sep, _, _ = _cleaned_syntax(r)
 
     def flush_bad() -> None:
         if not bad_rows:
@@ -660,11 +664,9 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
                 if reason is None:
                     good += 1
                     if text_format:  # the cells as written, quoted as RFC 4180 fields
-                        cells = ",".join(
+                        text = ",".join(
                             '"' + c.replace('"', '""') + '"' for c in split_escaped(text, r.delimiter)
                         )
-                        text = cells
-                    sep = "," if text_format else r.delimiter
                     line = f"{f.file_id}{sep}{number}{sep}{text}\n".encode("utf-8", "surrogateescape")
                     longest = max(longest, len(line))
                     out.write(line)
@@ -687,22 +689,27 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
     cleaned.unlink()
 
 
+def _cleaned_syntax(r: _Reading) -> tuple[str, str, list[str]]:
+    """How the careful path's scratch file is written and parsed: (delimiter, quote, null tokens).
+    A CSV record is copied as it is; COPY text's cells are written as RFC 4180 fields, kept as
+    written (null tokens too) until ``_unescape`` decodes them."""
+    if backslashed(r.mapping):
+        return ",", '"', []
+    return r.delimiter, r.mapping.csv.quote, list(r.mapping.nulls)
+
+
 def _load_cleaned(cleaned: Path, r: _Reading, longest: int) -> None:
     """Parse the numbered good records (cells as bytes), then decode them in the engine. A block
     holds two of the ``longest`` records and is at least CAREFUL_BLOCK: the parser's blocks (a few
     at a time, parsed in parallel) are outside the engine's memory, so they stay as small as the
     records allow, not sized for the longest record possible."""
-    text_format = backslashed(r.mapping)
-    tokens = [] if text_format else list(r.mapping.nulls)  # COPY text: decoded afterwards
+    delimiter, quote, tokens = _cleaned_syntax(r)
     names = ["__file", "__row", *r.internal]
     reader = pacsv.open_csv(
         str(cleaned),
         read_options=pacsv.ReadOptions(column_names=names, block_size=max(CAREFUL_BLOCK, 2 * longest)),
         parse_options=pacsv.ParseOptions(
-            delimiter="," if text_format else r.delimiter,
-            quote_char='"' if text_format else r.mapping.csv.quote,
-            double_quote=True,
-            newlines_in_values=True,
+            delimiter=delimiter, quote_char=quote, double_quote=True, newlines_in_values=True
         ),
         convert_options=pacsv.ConvertOptions(
             column_types={"__file": pa.int32(), "__row": pa.int64(), **{c: pa.binary() for c in r.internal}},

@@ -169,9 +169,7 @@ def read_files(
 def _unreadable(f: RawFile, e: duckdb.Error) -> InputError:
     try:
         with open(f.path, "rb") as start:
-            head = start.read(1 << 16)
-            wrong = streams.foreign_format(f.path, head) or streams.misnamed_archive(f.path, head)
-            if wrong := wrong or streams.tar_bundle(f.path, head):
+            if wrong := streams.refused_start(f.path, start.read(1 << 16), decompressed=False):
                 return wrong
     except OSError:
         pass

@@ -209,6 +209,14 @@ def foreign_format(path: Path, start: bytes) -> InputError | None:
     return None
 
 
+def refused_start(path: Path, start: bytes, decompressed: bool) -> InputError | None:
+    """The error for a file whose first bytes (``start``, after any decompression) are no dump:
+    another format, a tar archive, or an archive again (``decompressed``: ``nested_archive``) or
+    an archive its name does not say it is (``misnamed_archive``)."""
+    wrong = foreign_format(path, start) or tar_bundle(path, start)
+    return wrong or (nested_archive(path, start) if decompressed else misnamed_archive(path, start))
+
+
 def compression(path: Path) -> str | None:
     return COMPRESSIONS.get(path.suffix.lower())
 
@@ -297,12 +305,8 @@ def blocks(path: Path, size: int = BLOCK) -> Iterator[bytes]:
             return
         with _opened(path, codec) as stream:
             block = stream.read(size)
-            if wrong := foreign_format(path, block) or tar_bundle(path, block):
+            if wrong := refused_start(path, block, decompressed=codec is not None):
                 raise wrong
-            if codec is None and (misnamed := misnamed_archive(path, block)):
-                raise misnamed
-            if codec is not None and (nested := nested_archive(path, block)):
-                raise nested
             while block:
                 yield block
                 block = stream.read(size)

@@ -173,3 +173,62 @@ def pg_url() -> Iterator[str]:
     finally:
         with psycopg.connect(url.set(drivername="postgresql").render_as_string(False), autocommit=True) as c:
             c.execute(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)')
+
+
+#: A MariaDB (or MySQL) server for the tests of their dumps (``.ci/run`` starts a throw-away one and
+#: sets this), e.g. mysql://root@127.0.0.1:33061. Its ``secure_file_priv`` folder must be one this
+#: process can read and write: the server writes the dumps there, and reads the tests' files from
+#: there. Without it those tests are skipped, unless CDCNORM_REQUIRE_MYSQL is set (as in CI).
+MYSQL_ENV = "CDCNORM_TEST_MYSQL"
+
+
+@dataclass
+class MySQL:
+    """A connection to a fresh database on the test server, and the folder it reads and writes."""
+
+    cursor: Any
+    files: Path
+
+
+@pytest.fixture
+def mysql() -> Iterator[MySQL]:
+    import uuid
+    from urllib.parse import urlsplit
+
+    base = os.environ.get(MYSQL_ENV)
+    if not base:
+        if os.environ.get("CDCNORM_REQUIRE_MYSQL"):
+            pytest.fail(
+                f"{MYSQL_ENV} is not set, and CDCNORM_REQUIRE_MYSQL says a MariaDB server is required"
+            )
+        pytest.skip(f"no MariaDB server: set {MYSQL_ENV} (see .ci/run)")
+    import pymysql
+
+    url = urlsplit(base)
+    con = pymysql.connect(
+        host=url.hostname,
+        port=url.port or 3306,
+        user=url.username or "root",
+        password=url.password or "",
+        autocommit=True,
+        charset="utf8mb4",
+    )
+    name = f"cdcnorm_{uuid.uuid4().hex[:12]}"
+    cur = con.cursor()
+    cur.execute(f"CREATE DATABASE {name} CHARACTER SET utf8mb4")
+    cur.execute(f"USE {name}")
+    cur.execute("SELECT @@secure_file_priv")
+    folder = cur.fetchone()[0]
+    if not folder:
+        pytest.fail("the MariaDB server has no secure_file_priv folder: start it with --secure-file-priv")
+    files = Path(folder) / name
+    files.mkdir()
+    files.chmod(0o777)  # the server's user writes here
+    try:
+        yield MySQL(cur, files)
+    finally:
+        cur.execute(f"DROP DATABASE {name}")
+        con.close()
+        import shutil
+
+        shutil.rmtree(files, ignore_errors=True)

@@ -182,7 +182,8 @@ def test_the_record_count_sees_escaped_line_breaks(blocks: list[bytes], escaped:
 @pytest.mark.parametrize(
     ("csv_options", "said"),
     [
-        ('{escapes: backslash, quote: "\'"}', "csv.quote does not apply with escapes: backslash"),
+        ('{escapes: backslash, quote: "\\\\"}', "csv.quote cannot be a backslash"),
+        ('{escapes: backslash, quote: "|", delimiter: "|"}', "csv.delimiter and csv.quote are both '|'"),
         ('{escapes: backslash, delimiter: "\\\\"}', "csv.delimiter cannot be a backslash"),
         ("{escapes: backslashes}", "escapes"),
     ],

@@ -128,6 +128,7 @@ class CsvSyntax:
     header: bool
     delimiter: str
     quote: str
+    escape: str  # what escapes a quote inside quotes: the quote itself (RFC 4180), a backslash, or ""
     nulls: tuple[str, ...]  # texts read as NULL, unquoted (never empty: the reader needs one)
     encoding: str  # the engine's name of the encoding
     max_line: int  # the longest record, in bytes
@@ -631,7 +632,7 @@ class DuckDBEngine:
         return (
             f"read_csv([{', '.join(lit(p) for p in paths)}], columns = {cols}, "
             f"header = {str(syntax.header).lower()}, delim = {lit(syntax.delimiter)}, "
-            f"quote = {lit(syntax.quote)}, escape = {lit(syntax.quote)}, auto_detect = false, "
+            f"quote = {lit(syntax.quote)}, escape = {lit(syntax.escape)}, auto_detect = false, "
             f"allow_quoted_nulls = false, nullstr = [{', '.join(lit(t) for t in syntax.nulls)}], "
             f"encoding = {lit(syntax.encoding)}, strict_mode = true, {kept}"
             f"max_line_size = {line}, buffer_size = {line}, filename = '__fname', parallel = true)"
@@ -829,6 +830,20 @@ class DuckDBEngine:
         self.con.execute(f"CREATE VIEW {ident(view)} AS {decoded(ident(source))}")
         self._decoding_views[view] = (source, decoded)
         return lost
+
+    def mark_nulls(self, view: str, source: str, columns: list[str], token: str) -> None:
+        """A view ``view`` of ``source`` in which a cell of ``columns`` equal to ``token`` is NULL
+        (a token the engine's reader cannot be told of, as it holds the reader's escape)."""
+        cells = "".join(
+            f", CASE WHEN {ident(c)} = {lit(token)} THEN NULL ELSE {ident(c)} END AS {ident(c)}"
+            for c in columns
+        )
+
+        def marked(relation: str) -> str:
+            return f"SELECT __file, __row, __enc{cells} FROM {relation}"
+
+        self.con.execute(f"CREATE VIEW {ident(view)} AS {marked(ident(source))}")
+        self._decoding_views[view] = (source, marked)
 
     def create_malformed(self, table: str) -> None:
         self.con.execute(

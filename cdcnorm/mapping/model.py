@@ -263,7 +263,9 @@ class CsvOptions(Strict):
         description="quotes: RFC 4180 (fields quoted, a quote doubled). backslash: PostgreSQL's COPY text"
         " format: nothing is quoted, \\N alone is NULL, \\b \\f \\n \\r \\t \\v are control"
         " characters, a backslash before any other character is that character; octal and hex"
-        " sequences are quarantined.",
+        " sequences are quarantined. backslash with a quote given: MySQL's and MariaDB's SELECT ..."
+        " INTO OUTFILE with ENCLOSED BY: fields may be quoted, a backslash escapes in or out of quotes"
+        " (\\0 \\b \\n \\r \\t \\Z are control characters), \\N and the unquoted word NULL are NULL.",
     )
     header: bool = Field(default=True, description="false: columns are named by `columns`.")
     columns: list[str] | None = Field(
@@ -291,13 +293,10 @@ class CsvOptions(Strict):
             if ch in "\r\n":
                 raise ValueError(f"csv.{name} cannot be a line end: records end at line ends")
         if self.escapes == "backslash":
-            if "quote" in self.model_fields_set:
-                raise ValueError(
-                    "csv.quote does not apply with escapes: backslash: nothing is quoted in that format"
-                )
-            if self.delimiter == "\\":
-                raise ValueError("csv.delimiter cannot be a backslash with escapes: backslash")
-        elif self.delimiter == self.quote:
+            for name, ch in (("delimiter", self.delimiter), ("quote", self.quote)):
+                if ch == "\\":
+                    raise ValueError(f"csv.{name} cannot be a backslash with escapes: backslash")
+        if self.quoted and self.delimiter == self.quote:
             raise ValueError(
                 f"csv.delimiter and csv.quote are both {self.delimiter!r}: fields could not be told apart"
             )
@@ -309,6 +308,12 @@ class CsvOptions(Strict):
             repeated = sorted({c for c in self.columns if self.columns.count(c) > 1})
             raise ValueError(f"csv.columns repeats {repeated}: which column a field means is unclear")
         return self
+
+    @property
+    def quoted(self) -> bool:
+        """Fields may be quoted: always with escapes: quotes; with escapes: backslash only where a
+        quote is given (MySQL's ENCLOSED BY form; without one, COPY's text format quotes nothing)."""
+        return self.escapes == "quotes" or "quote" in self.model_fields_set
 
     @field_validator("encoding")
     @classmethod

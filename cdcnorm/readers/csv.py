@@ -24,6 +24,16 @@ nothing is quoted, a record is one line, and a backslash escapes the character
 after it. Both paths split records the same way (the engine's reader where no
 field holds an escaped delimiter, which a tab never is), keep the cells as
 written, and the engine then decodes them (``DuckDBEngine.unescape_text``).
+
+With ``csv.escapes: backslash`` and a ``csv.quote`` the files are MySQL's and
+MariaDB's ``SELECT ... INTO OUTFILE`` with ``ENCLOSED BY``: fields may be quoted,
+and a backslash escapes inside and outside quotes, read as ``LOAD DATA`` reads
+them (``decode_enclosed``). The engine's reader drops a backslash before any
+character, so it reads a file only where that is the whole decoding: no
+``\\0 \\b \\n \\r \\t \\Z`` and no ``\\N`` inside quotes, and outside quotes no
+backslash but a whole ``\\N`` cell (the record count checks, ``_EnclosedCheck``),
+whose ``\\N`` cells the engine then reads as NULL; any other file goes the
+careful path, which splits and decodes each record in Python.
 """
 
 from __future__ import annotations
@@ -66,6 +76,12 @@ CAREFUL_BLOCK = 1 << 20
 #: itself): ``\N`` alone is NULL; ``\.`` alone on the last line ends the data.
 TEXT_NULL = "\\N"
 TEXT_END = "\\."
+#: ``LOAD DATA``'s escapes (MySQL's and MariaDB's documentation, LOAD DATA, "Field and Line
+#: Handling"; checked against MariaDB in tests/test_mysql_dumps.py): after a backslash these letters
+#: stand for control characters, any other character for itself; ``\N`` alone is NULL, quoted or not.
+ENCLOSED_ESCAPES = {"0": "\0", "b": "\b", "n": "\n", "r": "\r", "t": "\t", "Z": "\x1a"}
+#: With ``ENCLOSED BY``, ``LOAD DATA`` reads the unquoted word NULL as NULL (same documentation).
+ENCLOSED_NULL_WORD = "NULL"
 #: Files of at most this size are read together when a table has at least JOIN_MIN of them.
 SMALL_FILE = 1 << 20
 JOIN_MIN = 16
@@ -76,9 +92,64 @@ def backslashed(mapping: Mapping) -> bool:
     return mapping.csv.escapes == "backslash"
 
 
+def enclosed(mapping: Mapping) -> bool:
+    """The table's CSV files are MySQL's ``INTO OUTFILE`` with ``ENCLOSED BY`` (``csv.escapes:
+    backslash`` and a ``csv.quote``)."""
+    return backslashed(mapping) and mapping.csv.quoted
+
+
+def text_format(mapping: Mapping) -> bool:
+    """The table's CSV files are COPY's text format: a backslash escapes, and nothing is quoted."""
+    return backslashed(mapping) and not mapping.csv.quoted
+
+
 def _quote(mapping: Mapping) -> str | None:
     """The character that quotes a field, None where nothing is quoted."""
-    return None if backslashed(mapping) else mapping.csv.quote
+    return None if text_format(mapping) else mapping.csv.quote
+
+
+def _escaping(mapping: Mapping, delimiter: str) -> str | None:
+    """What the record count needs of the enclosed form (``count_blocks``): its delimiter; None for
+    the other forms."""
+    return delimiter if enclosed(mapping) else None
+
+
+def split_enclosed(text: str, delimiter: str, quote: str) -> list[str] | None:
+    """The fields of one record of the enclosed form, as written (quotes and escapes kept); None when
+    the record does not split so (a quoted field followed by anything but the delimiter)."""
+    d, q = re.escape(delimiter), re.escape(quote)
+    field = re.compile(f"{q}(?:[^{q}\\\\]|\\\\.|{q}{q})*{q}(?={d}|$)|(?!{q})(?:[^{d}\\\\]|\\\\.)*", re.S)
+    fields = []
+    pos = 0
+    while True:
+        m = field.match(text, pos)
+        if m is None:  # a quote opens a field it does not close
+            return None
+        fields.append(m.group())
+        pos = m.end()
+        if pos == len(text):
+            return fields
+        if text[pos] != delimiter:
+            return None
+        pos += 1
+
+
+def decode_enclosed(field: str, quote: str, tokens: Iterable[str]) -> str | None:
+    """A field of the enclosed form as ``LOAD DATA`` reads it; None for NULL: ``\\N`` (quoted or
+    not) and, unquoted, one of ``tokens`` (the word NULL and the mapping's null tokens). In quotes a
+    doubled quote is one; a backslash and a character is ``ENCLOSED_ESCAPES``' control character or
+    that character."""
+    if len(field) >= 2 and field[0] == quote and field[-1] == quote:
+        body = field[1:-1]
+        if body == TEXT_NULL:
+            return None
+        pattern = "\\\\(.)|" + re.escape(quote * 2)
+    else:
+        if field == TEXT_NULL or field in tokens:
+            return None
+        body = field
+        pattern = "\\\\(.)"
+    return re.sub(pattern, lambda m: ENCLOSED_ESCAPES.get(m[1], m[1]) if m[1] else quote, body, flags=re.S)
 
 
 def split_escaped(line: str, delimiter: str) -> list[str]:
@@ -172,7 +243,18 @@ def _header(f: RawFile, delimiter: str, mapping: Mapping) -> tuple[list[str], bo
         raise InputError(
             f"the header row is not {encoding} text", file=str(f.path), line=1, hint="set csv.encoding"
         )
-    if backslashed(mapping):
+    if enclosed(mapping):
+        names = split_enclosed(text, delimiter, opts.quote)
+        decoded = [decode_enclosed(n, opts.quote, ()) for n in names or []]
+        if names is None or any(p is None for p in decoded):
+            raise InputError(
+                "the header row does not split into names: a quote opens a name it does not close, or a name is \\N",
+                file=str(f.path),
+                line=1,
+                hint="csv.escapes: backslash with a csv.quote reads MySQL's SELECT ... INTO OUTFILE ... ENCLOSED BY",
+            )
+        columns = [p for p in decoded if p is not None]
+    elif text_format(mapping):
         columns = []
         for i, name in enumerate(split_escaped(text, delimiter)):
             plain = unescape(name)
@@ -219,9 +301,11 @@ def read_files(
         reading = _Reading(internal, delimiter, encoding, mapping, engine, raw, scratch)
         first = len(raw.relations)
         careful = _fast(group, reading)
+        if enclosed(mapping):
+            _mark_nulls(reading, first)
         if careful:
             _careful(careful, reading)
-        if backslashed(mapping):
+        if text_format(mapping):
             _unescape(reading, group, first)
 
 
@@ -243,17 +327,122 @@ def _unescape(r: _Reading, group: list[RawFile], first: int) -> None:
             by_id[file_id].malformed += n
 
 
-def count_records(path: Path, quote: str | None, header: bool) -> tuple[int, bool]:
+def _mark_nulls(r: _Reading, first: int) -> None:
+    """The enclosed form's relations the engine's reader read, from ``first`` on: a ``\\N`` cell is
+    NULL (``_EnclosedCheck`` let no other cell read as ``\\N`` there)."""
+    for i in range(first, len(r.raw.relations)):
+        relation, columns = r.raw.relations[i]
+        view = f"{relation}_nulls"
+        r.engine.mark_nulls(view, relation, [c for c in r.internal if c in columns], TEXT_NULL)
+        r.raw.relations[i] = (view, columns)
+
+
+def count_records(
+    path: Path, quote: str | None, header: bool, escaping: str | None = None
+) -> tuple[int, bool]:
     """The number of data records by quote parity, independently of any CSV parser, and whether the
     quotes balance. A line break ends a record only outside quotes (RFC 4180 doubles a quote inside a
     quoted field, which keeps the parity); blank lines are not records. Vectorised over blocks.
     ``quote`` None (COPY's text format): nothing is quoted, and the second value says whether no
-    backslash escapes a line break (which the engine's reader would take for a record's end)."""
-    return count_blocks(streams.blocks(path, COUNT_BLOCK), quote, header)
+    backslash escapes a line break (which the engine's reader would take for a record's end).
+    ``escaping``, the delimiter of the enclosed form: a backslash escapes a quote too, and the second
+    value also says whether the engine's reader reads every field as ``LOAD DATA`` does
+    (``_EnclosedCheck``)."""
+    return count_blocks(streams.blocks(path, COUNT_BLOCK), quote, header, escaping)
 
 
-def count_blocks(chunks: Iterable[bytes], quote: str | None, header: bool) -> tuple[int, bool]:
+class _EnclosedCheck:
+    """What the record count finds of the enclosed form's backslashes, block by block (each block
+    holds every backslash run it has whole, with the two bytes after it: ``_whole_runs``): which
+    quotes a backslash escapes, and whether the engine's reader, which drops a backslash before any
+    character and does not look at backslashes outside quotes, reads every field as ``LOAD DATA``
+    does. It does where, inside quotes, no backslash escapes 0 b n r t Z or N and no escaped
+    backslash comes before an N (``"\\\\N"`` would read as ``\\N``, which stands for NULL), and
+    where, outside quotes, every backslash is a whole ``\\N`` cell."""
+
+    def __init__(self, quote: int, delimiter: str) -> None:
+        self.quote = quote
+        self.delimiter = ord(delimiter)
+        self.last = 10  # the byte before the block (a line start at the file's start)
+        self.plain = True
+        self.special = np.frombuffer(b"0bnrtZN", np.uint8)
+
+    def unquote(self, buf: np.ndarray, isq: np.ndarray, parity: int, final: bool) -> None:
+        """Clear in ``isq`` (1 at each quote of ``buf``) the quotes a backslash escapes, and check the
+        block's backslashes; ``parity``: of the unescaped quotes before the block. Backslashes are
+        few: their runs are found among their positions, not over the block."""
+        bpos = np.flatnonzero(buf == 92)
+        if len(bpos):
+            cut = np.flatnonzero(np.diff(bpos) != 1)
+            starts = bpos[np.concatenate(([0], cut + 1))]
+            ends = bpos[np.concatenate((cut, [len(bpos) - 1]))]
+            n = len(buf)
+            after = ends + 1
+            nxt = np.where(after < n, buf[np.minimum(after, n - 1)], -1)  # -1: the file ends
+            odd = (ends - starts) % 2 == 0
+            isq[after[odd & (nxt == self.quote)]] = 0  # an odd run escapes the quote after it
+            if self.plain:
+                # the quote parity before each run: no quote stands at a run's start, a backslash
+                before = np.bitwise_xor.accumulate(
+                    np.bitwise_xor.reduceat(isq, np.concatenate(([0], starts)))
+                )
+                inside = (before[:-1] ^ parity) & 1 == 1
+                self._check(buf, starts, ends, nxt, odd, inside, final)
+        if len(buf):
+            self.last = int(buf[-1])
+
+    def _check(
+        self,
+        buf: np.ndarray,
+        starts: np.ndarray,
+        ends: np.ndarray,
+        nxt: np.ndarray,
+        odd: np.ndarray,
+        inside: np.ndarray,
+        final: bool,
+    ) -> None:
+        n = len(buf)
+        special = np.isin(nxt, self.special)
+        if np.any(inside & special & (odd | (nxt == ord("N")))):
+            self.plain = False
+        out = ~inside
+        if out.any():
+            s, e, c = starts[out], ends[out], nxt[out]
+            before = np.where(s > 0, buf[np.maximum(s - 1, 0)], self.last)
+            beyond = np.where(e + 2 < n, buf[np.minimum(e + 2, n - 1)], -1)
+            ends_cell = (beyond == self.delimiter) | (beyond == 10) | (beyond == 13) | (beyond == -1)
+            starts_cell = (before == self.delimiter) | (before == 10) | (before == 13)
+            null = (s == e) & (c == ord("N")) & starts_cell & ends_cell
+            if not null.all():
+                self.plain = False
+        if not final and ends[-1] + 2 >= n:  # a run cut at ``_whole_runs``' limit
+            self.plain = False
+
+
+def _whole_runs(chunks: Iterable[bytes], limit: int) -> Iterator[tuple[bytes, bool]]:
+    """The blocks cut again so that each holds its backslash runs whole with the two bytes after
+    them, and whether it is the last; a run longer than ``limit`` bytes is cut anyway (the check
+    then finds its end beyond the block, and the file is not plain)."""
+    held = b""
+    for chunk in chunks:
+        data = held + chunk if held else chunk
+        cut = len(data)
+        while cut > 0 and (b := data.rfind(b"\\", max(0, cut - 3), cut)) >= 0:
+            cut = b
+        if cut == 0 and len(data) > limit:
+            cut = len(data)
+        held = data[cut:]
+        if cut:
+            yield data[:cut], False
+    yield held, True
+
+
+def count_blocks(
+    chunks: Iterable[bytes], quote: str | None, header: bool, escaping: str | None = None
+) -> tuple[int, bool]:
     """``count_records`` over the bytes of a file given in blocks."""
+    check = _EnclosedCheck(ord(quote), escaping) if escaping is not None and quote is not None else None
+    blocks = _whole_runs(chunks, 4 * COUNT_BLOCK) if check is not None else ((c, False) for c in chunks)
     q = -1 if quote is None else ord(quote)  # no byte equals -1: no quote toggles the parity
     escaped = False  # a backslash escapes a line break (COPY's text format)
     run = 0  # the backslashes the bytes so far end with
@@ -262,10 +451,12 @@ def count_blocks(chunks: Iterable[bytes], quote: str | None, header: bool) -> tu
     pos = 0
     last_byte = 10
     count = 0
-    for chunk in chunks:
+    for chunk, final in blocks:
         buf = np.frombuffer(chunk, dtype=np.uint8)
         nl = np.flatnonzero(buf == 10)
         isq = (buf == q).view(np.uint8) if q >= 0 else np.zeros(len(buf), np.uint8)
+        if check is not None:
+            check.unquote(buf, isq, parity, final)
         if q < 0 and not escaped:
             escaped, run = _escaped_break(buf, run)
         if len(nl):
@@ -294,7 +485,8 @@ def count_blocks(chunks: Iterable[bytes], quote: str | None, header: bool) -> tu
     rest = pos - 1 - last_end  # bytes after the last record's line break
     if rest > 1 or (rest == 1 and last_byte != 13):
         count += 1
-    return count - (1 if header and count else 0), parity == 0 and not escaped
+    plain = check is None or check.plain
+    return count - (1 if header and count else 0), parity == 0 and not escaped and plain
 
 
 def _escaped_break(buf: np.ndarray, run: int) -> tuple[bool, int]:
@@ -334,8 +526,8 @@ def _fast(group: list[RawFile], r: _Reading) -> list[RawFile]:
     # The engine's reader does not report every broken record when it scans many files at once, so
     # every file's records are also counted independently, by a thread, while the engine scans.
     with ThreadPoolExecutor(max_workers=1) as pool:
-        quote = _quote(r.mapping)
-        counted = {p: pool.submit(count_records, Path(p), quote, opts.header) for p in paths}
+        quote, escaping = _quote(r.mapping), _escaping(r.mapping, r.delimiter)
+        counted = {p: pool.submit(count_records, Path(p), quote, opts.header, escaping) for p in paths}
         staged = r.raw.relation("csv")
         scanned = _scan(r, staged, list(paths))
         counts = {p: c.result() for p, c in counted.items()}
@@ -366,7 +558,9 @@ def _fast(group: list[RawFile], r: _Reading) -> list[RawFile]:
     return [f for p, f in paths.items() if p in rejected]
 
 
-def _body(f: RawFile, header: bool, quote: str | None) -> tuple[bytes, bytes, int] | None:
+def _body(
+    f: RawFile, header: bool, quote: str | None, escaping: str | None
+) -> tuple[bytes, bytes, int] | None:
     """A small file's records without its header, ending in a line end, with that line end and
     the number of records; None for a file that is not small or whose quotes do not balance."""
     if f.path.stat().st_size > SMALL_FILE:
@@ -382,7 +576,7 @@ def _body(f: RawFile, header: bool, quote: str | None) -> tuple[bytes, bytes, in
         return None
     end = b"\r\n" if nl and data[nl - 1] == 13 else b"\n"  # the first line's end is the file's
     body = data[nl + 1 :] if header else data
-    records, balanced = count_blocks([body], quote, False)
+    records, balanced = count_blocks([body], quote, False, escaping)
     if not balanced:
         return None
     if body and not body.endswith(b"\n"):
@@ -401,7 +595,7 @@ def _joined(group: list[RawFile], r: _Reading) -> list[RawFile]:
     alone: list[RawFile] = []
     by_end: dict[bytes, list[tuple[RawFile, bytes, int]]] = {}
     for f in group:
-        small = _body(f, opts.header, _quote(r.mapping))
+        small = _body(f, opts.header, _quote(r.mapping), _escaping(r.mapping, r.delimiter))
         if small is None:
             alone.append(f)
         else:
@@ -440,12 +634,20 @@ def _joined(group: list[RawFile], r: _Reading) -> list[RawFile]:
 def csv_syntax(mapping: Mapping, delimiter: str, encoding: str, header: bool | None = None) -> CsvSyntax:
     """What the engine's reader is told of a table's CSV files (``header``: the mapping's by default)."""
     opts = mapping.csv
+    if enclosed(mapping):
+        # the engine's reader takes no null token holding its escape: ``\\N`` is read as written
+        # and made NULL after (``_mark_nulls``); an unquoted empty field is an empty text
+        tokens = (ENCLOSED_NULL_WORD, *(t for t in mapping.nulls if t and "\\" not in t))
+        nulls = tuple(dict.fromkeys(tokens))
+    else:
+        # COPY's text format: the cells are kept as written (null tokens too), then decoded
+        nulls = (tuple(mapping.nulls) or (NEVER,)) if not backslashed(mapping) else (NEVER,)
     return CsvSyntax(
         header=opts.header if header is None else header,
         delimiter=delimiter,
-        quote=opts.quote if not backslashed(mapping) else "",  # the engine's reader: "" quotes nothing
-        # COPY's text format: the cells are kept as written (null tokens too), then decoded
-        nulls=(tuple(mapping.nulls) or (NEVER,)) if not backslashed(mapping) else (NEVER,),
+        quote=opts.quote if opts.quoted else "",  # the engine's reader: "" quotes nothing
+        escape="\\" if enclosed(mapping) else (opts.quote if opts.quoted else ""),
+        nulls=nulls,
         encoding=ENGINE_ENCODINGS[encoding.lower()],
         max_line=MAX_RECORD_BYTES,
     )
@@ -508,10 +710,11 @@ def _strip_end(text: str) -> str:
 
 
 def _records(
-    lines: Iterator[str], delimiter: str, quote: str, expected: int
+    lines: Iterator[str], delimiter: str, quote: str, expected: int, escape: str | None = None
 ) -> Iterator[tuple[str, str | None]]:
     """(raw text of the record without its line end, None) for a good record, or
-    (raw text, reason) for a malformed one; blank lines are not records."""
+    (raw text, reason) for a malformed one; blank lines are not records. ``escape``: the character
+    that escapes the next one, in quotes or not (the enclosed form's backslash)."""
     pending: deque[str] = deque()
     consumed: list[str] = []
     size = [0]
@@ -532,7 +735,9 @@ def _records(
             yield line
 
     while True:
-        reader = stdcsv.reader(feed(), delimiter=delimiter, quotechar=quote, doublequote=True, strict=True)
+        reader = stdcsv.reader(
+            feed(), delimiter=delimiter, quotechar=quote, doublequote=True, escapechar=escape, strict=True
+        )
         try:
             while True:
                 consumed.clear()
@@ -627,7 +832,9 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
     bad_text: list[str] = []
     bad_reason: list[str] = []
     malformed = r.raw.ensure_malformed(r.engine)
-    text_format = backslashed(r.mapping)
+    copy_text = text_format(r.mapping)
+    mysql = enclosed(r.mapping)
+    tokens = {ENCLOSED_NULL_WORD, *(t for t in r.mapping.nulls if t)}
     sep, _, _ = _cleaned_syntax(r)
 
     def flush_bad() -> None:
@@ -653,20 +860,27 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
         for f in files:
             number = 0
             good = 0
-            if text_format:
+            if copy_text:
                 records = _text_records(_lines(f, r.encoding), r.delimiter, len(r.internal), f)
             else:
-                records = _records(_lines(f, r.encoding), r.delimiter, opts.quote, len(r.internal))
+                escape = "\\" if mysql else None
+                records = _records(_lines(f, r.encoding), r.delimiter, opts.quote, len(r.internal), escape)
             if opts.header:
                 next(records, None)
             for text, reason in records:
                 number += 1
+                cells = split_enclosed(text, r.delimiter, opts.quote) if mysql and reason is None else None
+                if mysql and reason is None and cells is None:
+                    reason = "broken quoting: a quote opens a field it does not close"
                 if reason is None:
                     good += 1
-                    if text_format:  # the cells as written, quoted as RFC 4180 fields
+                    if copy_text:  # the cells as written, quoted as RFC 4180 fields
                         text = ",".join(
                             '"' + c.replace('"', '""') + '"' for c in split_escaped(text, r.delimiter)
                         )
+                    elif cells is not None:  # the cells decoded; NULL an unquoted empty field
+                        values = (decode_enclosed(c, opts.quote, tokens) for c in cells)
+                        text = ",".join("" if v is None else '"' + v.replace('"', '""') + '"' for v in values)
                     line = f"{f.file_id}{sep}{number}{sep}{text}\n".encode("utf-8", "surrogateescape")
                     longest = max(longest, len(line))
                     out.write(line)
@@ -681,6 +895,8 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
             f.malformed = number - good
             fast = r.encoding.lower() in ENGINE_ENCODINGS
             why = "the fast reader rejected it" if fast else f"the fast reader does not read {r.encoding}"
+            if fast and mysql:
+                why = "the fast reader rejected it, or does not decode all its backslashes"
             f.notes.append(f"read record by record ({why})")
             any_good = any_good or good > 0
     flush_bad()
@@ -692,9 +908,12 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
 def _cleaned_syntax(r: _Reading) -> tuple[str, str, list[str]]:
     """How the careful path's scratch file is written and parsed: (delimiter, quote, null tokens).
     A CSV record is copied as it is; COPY text's cells are written as RFC 4180 fields, kept as
-    written (null tokens too) until ``_unescape`` decodes them."""
-    if backslashed(r.mapping):
+    written (null tokens too) until ``_unescape`` decodes them; the enclosed form's cells are
+    written decoded, as RFC 4180 fields, a NULL as an unquoted empty field."""
+    if text_format(r.mapping):
         return ",", '"', []
+    if enclosed(r.mapping):  # decoded already: an unquoted empty field is NULL, "" an empty text
+        return ",", '"', [""]
     return r.delimiter, r.mapping.csv.quote, list(r.mapping.nulls)
 
 

@@ -1,0 +1,328 @@
+"""CSV files as MySQL and MariaDB write them with ``SELECT ... INTO OUTFILE ... ENCLOSED BY``
+(``csv.escapes: backslash`` with a ``csv.quote``): fields may be quoted, a backslash escapes inside
+and outside quotes, ``\\N`` is NULL.
+
+The oracle is a real MariaDB server: it writes the dumps with ``SELECT ... INTO OUTFILE`` and reads
+hand-made files with ``LOAD DATA INFILE``, and cdcnorm must read the values the server holds. The
+offline tests hold the values the server gave (MariaDB 10.11, checked again by the server tests)."""
+
+from __future__ import annotations
+
+import json
+import random
+from typing import Any
+
+import pytest
+from hypothesis import HealthCheck, example, given, settings
+from hypothesis import strategies as st
+
+from cdcnorm.readers.csv import count_blocks, decode_enclosed, split_enclosed
+from tests.conftest import ConvertFn, MySQL, last_run
+from tests.test_bad_input import NOTES
+
+
+def _mapping(csv: str) -> str:
+    """The notes table, its dumps headerless (as OUTFILE writes them) in the enclosed form ``csv``."""
+    options = f"csv: {{escapes: backslash, {csv}header: false, columns: [op, pos, id, a]}}"
+    return NOTES.replace("a: TYPE", "a: text").replace("key: [id]\n", f"key: [id]\n{options}\n")
+
+
+MAPPING = _mapping('quote: "\\"", delimiter: ",", ')
+
+#: Cells of a hand-made file and what MariaDB's ``LOAD DATA INFILE ... FIELDS TERMINATED BY ','
+#: OPTIONALLY ENCLOSED BY '"' ESCAPED BY '\\'`` reads them as (MariaDB 10.11; the server test
+#: ``test_load_data_reads_hand_made_cells_as_cdcnorm_does`` checks each again). None is NULL.
+LOAD_DATA = [
+    ("plain", "plain"),
+    ('"quoted"', "quoted"),
+    ('""', ""),  # an empty text
+    ("", ""),  # an unquoted empty field is an empty text too
+    ("\\N", None),
+    ('"\\N"', None),  # quoted or not
+    ("NULL", None),  # the unquoted word, with ENCLOSED BY
+    ('"NULL"', "NULL"),
+    ('"\\\\N"', "\\N"),  # an escaped backslash and N
+    ('"a\\Nb"', "aNb"),
+    ('"\\0\\b\\n\\r\\t\\Z"', "\x00\b\n\r\t\x1a"),
+    ('"\\x\\f\\v\\%\\_"', "xfv%_"),  # any other character after a backslash is itself
+    ('"a""b"', 'a"b'),  # a doubled quote in quotes is one
+    ('"O\\"Brien"', 'O"Brien'),
+    ('"p,q"', "p,q"),
+    ("a\\,b", "a,b"),  # outside quotes a backslash escapes too
+    ("ab\\ncd", "ab\ncd"),
+    ('"line1\\\nline2"', "line1\nline2"),  # an escaped line break, as OUTFILE writes one
+    ('"raw\nbreak"', "raw\nbreak"),  # a line break in quotes
+    ('"naïve 😀"', "naïve 😀"),
+]
+
+
+def _load_data_file(cells: list[str]) -> str:
+    return "".join(f"I,{i + 1},{i + 1},{c}\n" for i, c in enumerate(cells))
+
+
+def _values(done: Any, table: str = "t.notes") -> dict[int, object]:
+    return {e["key"]["id"]: e["values"]["a"] for e in done.events(table)}
+
+
+def _careful_files(done: Any) -> set[str]:
+    return {n["file"] for n in last_run(done.out)["notes"] if n["note"].startswith("read record by record")}
+
+
+def test_enclosed_cells_read_as_load_data_reads_them(convert: ConvertFn) -> None:
+    done = convert(MAPPING, {"n.csv": _load_data_file([c for c, _ in LOAD_DATA])})
+    assert _values(done) == {i + 1: v for i, (_, v) in enumerate(LOAD_DATA)}
+    assert done.ledger()["balanced"] and not done.quarantine("t.notes")
+    assert _careful_files(done) == {"n.csv"}  # \0, \n, quoted \N: the engine's reader cannot decode them
+
+
+def test_a_file_the_engine_reads_gives_the_same_values_as_one_read_record_by_record(
+    convert: ConvertFn,
+) -> None:
+    # only what the engine's reader decodes itself: escaped quotes and backslashes, escaped and raw
+    # line breaks in quotes, \N and NULL unquoted
+    tame = [
+        (c, v)
+        for c, v in LOAD_DATA
+        if c
+        in ("plain", '""', "", "\\N", "NULL", '"NULL"', '"O\\"Brien"', '"p,q"', '"raw\nbreak"', '"naïve 😀"')
+        or c == '"line1\\\nline2"'
+    ]
+    cells = [c for c, _ in tame] + ['"back\\\\slash"', "\\N"]
+    fast = convert(MAPPING, {"n.csv": _load_data_file(cells)})
+    careful = convert(MAPPING, {"n.csv": _load_data_file(cells) + "I,99,99,\\Z\n"})  # \Z: record by record
+    assert _careful_files(fast) == set() and _careful_files(careful) == {"n.csv"}
+    expected = {i + 1: v for i, (_, v) in enumerate(tame)} | {
+        len(tame) + 1: "back\\slash",
+        len(tame) + 2: None,
+    }
+    assert _values(fast) == expected
+    assert _values(careful) == expected | {99: "\x1a"}
+
+
+def test_broken_quoting_is_quarantined_and_reading_resumes_at_the_next_line(convert: ConvertFn) -> None:
+    text = 'I,1,1,"ok"\nI,2,2,"unterminated\nI,3,3,"x"y"\nI,4,4,"fine \\" quote"\nI,5,5,a,b\n'
+    done = convert(MAPPING, {"n.csv": text})
+    assert _values(done) == {1: "ok", 4: 'fine " quote'}
+    quarantined = {q["_cdcnorm"]["row"]: q["_cdcnorm"] for q in done.quarantine("t.notes")}
+    assert sorted(quarantined) == [2, 3, 4 + 1]
+    assert quarantined[2]["text"] == 'I,2,2,"unterminated'
+    assert quarantined[5]["reasons"][0]["reason"] == "expected 4 fields, found 5"
+    ledger = done.ledger()
+    assert ledger["balanced"] and ledger["total"]["read"] == 5 and ledger["total"]["quarantined"] == 3
+
+
+def test_a_header_row_is_decoded_too(convert: ConvertFn) -> None:
+    mapping = MAPPING.replace("header: false, columns: [op, pos, id, a]", "header: true")
+    done = convert(
+        mapping.replace("  a: text", '  "a\\"b": text'), {"n.csv": '"op","pos","id","a\\"b"\nI,1,1,x\n'}
+    )
+    assert [e["values"]['a"b'] for e in done.events("t.notes")] == ["x"]
+
+
+def test_many_small_enclosed_files_read_together_with_their_nulls(convert: ConvertFn) -> None:
+    files: dict[str, str | bytes] = {f"n{i:03d}.csv": f'I,{i + 1},{i + 1},"v{i}\\""\n' for i in range(30)}
+    files |= {f"n{i:03d}.csv": f"I,{i + 1},{i + 1},\\N\n" for i in range(30, 40)}
+    files["n999.csv"] = 'I,500,500,"tab\\t"\n'  # read record by record
+    done = convert(MAPPING, files)
+    expected: dict[int, object] = {i + 1: f'v{i}"' for i in range(30)} | {i + 1: None for i in range(30, 40)}
+    assert _values(done) == expected | {500: "tab\t"}
+    assert done.ledger()["balanced"] and _careful_files(done) == {"n999.csv"}
+
+
+# --- the record count's check, which decides whether the engine's reader may read a file ----------
+
+
+@pytest.mark.parametrize(
+    ("text", "plain"),
+    [
+        (
+            'I,1,1,"a\\"b\\\\c"\n',
+            True,
+        ),  # escaped quote and backslash in quotes: the reader drops the backslash
+        ("I,1,1,\\N\n\\N,2,2,x\n", True),  # whole \N cells, at a line's end and start
+        ('I,1,1,"a\\0b"\n', False),  # \0 is a NUL: the reader would read 0
+        ('I,1,1,"\\N"\n', False),  # NULL in quotes: the reader would read N
+        ('I,1,1,"\\\\N"\n', False),  # the text \N: the reader would read \N, which stands for NULL
+        ("I,1,1,ab\\\\cd\n", False),  # a backslash outside quotes: the reader keeps it
+        ("I,1,1,\\Nx\n", False),  # \N and more is N and more
+        ('I,1,1,"a\\\nb"\n', True),  # an escaped line break in quotes
+        ("I,1,1,a\\\nb\n", False),  # an escaped line break outside quotes
+    ],
+)
+def test_the_record_count_says_which_files_the_engine_reads_exactly(text: str, plain: bool) -> None:
+    data = text.encode()
+    whole = count_blocks([data], '"', False, ",")
+    assert whole[1] is plain
+    for cut in range(1, len(data)):  # however the file's blocks fall
+        assert count_blocks([data[:cut], data[cut:]], '"', False, ",") == whole
+
+
+def _outfile(value: str | None) -> str:
+    """A value as SELECT ... INTO OUTFILE ... ENCLOSED BY '"' writes it (MySQL's documentation,
+    SELECT ... INTO, from memory; the server test below checks what MariaDB writes): NULL as \\N; a
+    backslash, the quote and a NUL escaped (NUL as \\0), and a line break, the first character of the
+    line terminator, escaped as a backslash and itself."""
+    if value is None:
+        return "\\N"
+    body = value.replace("\\", "\\\\").replace('"', '\\"').replace("\x00", "\\0").replace("\n", "\\\n")
+    return f'"{body}"'
+
+
+ALPHABET = st.sampled_from(['"', "\\", ",", "\n", "\r", "\t", "\x00", "N", "0", "a", "é", "😀", " "])
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(st.one_of(st.none(), st.text(ALPHABET, max_size=6)), min_size=1, max_size=8), st.data())
+def test_outfile_text_splits_and_decodes_back_to_its_values_however_its_blocks_fall(
+    values: list[str | None], data: st.DataObject
+) -> None:
+    text = _load_data_file([_outfile(v) for v in values])
+    lines = text.encode()
+    cuts = sorted(data.draw(st.lists(st.integers(0, len(lines)), max_size=4)))
+    blocks = [lines[a:b] for a, b in zip([0, *cuts], [*cuts, len(lines)], strict=True)]
+    count, _ = count_blocks(blocks, '"', False, ",")
+    assert count == len(values)
+    assert count_blocks(blocks, '"', False, ",") == count_blocks([lines], '"', False, ",")
+    records = [f"I,{i + 1},{i + 1},{_outfile(v)}" for i, v in enumerate(values)]
+    decoded = [decode_enclosed(split_enclosed(r, ",", '"')[3], '"', {"NULL"}) for r in records]  # type: ignore[index]
+    assert decoded == values
+
+
+@settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(st.lists(st.one_of(st.none(), st.text(ALPHABET, max_size=6)), min_size=1, max_size=8))
+def test_convert_reads_outfile_values_back(convert: ConvertFn, values: list[str | None]) -> None:
+    done = convert(MAPPING, {"n.csv": _load_data_file([_outfile(v) for v in values])})
+    assert _values(done) == {i + 1: v for i, v in enumerate(values)}
+    assert done.ledger()["balanced"]
+
+
+# --- the server as the oracle -------------------------------------------------------------------
+
+#: Characters the server's dumps are drawn from: every one OUTFILE escapes or quotes, control
+#: characters, and text outside ASCII.
+SERVER_ALPHABET = [
+    '"',
+    "'",
+    "\\",
+    ",",
+    "|",
+    "\t",
+    "\n",
+    "\r",
+    "\x00",
+    "\x1a",
+    "\b",
+    "N",
+    "0",
+    "a",
+    "é",
+    "😀",
+    " ",
+]
+
+#: (FIELDS and LINES options of SELECT ... INTO OUTFILE, the mapping's csv options for them)
+FORMS = [
+    ("FIELDS TERMINATED BY ',' OPTIONALLY ENCLOSED BY '\"'", 'quote: "\\"", delimiter: ",", '),
+    ("FIELDS TERMINATED BY ',' ENCLOSED BY '\"'", 'quote: "\\"", delimiter: ",", '),
+    (
+        "FIELDS TERMINATED BY ',' OPTIONALLY ENCLOSED BY '\"' LINES TERMINATED BY '\\r\\n'",
+        'quote: "\\"", delimiter: ",", ',
+    ),
+    ("FIELDS OPTIONALLY ENCLOSED BY '\"'", 'quote: "\\"", '),  # a tab between fields, the server's default
+    ("FIELDS TERMINATED BY '|' ENCLOSED BY ''''", 'quote: "\'", delimiter: "|", '),
+]
+
+
+def _server_rows(rng: random.Random, n: int, tame: bool) -> list[str | None]:
+    alphabet = [c for c in SERVER_ALPHABET if c not in "\\\x00\x1a\b"] if tame else SERVER_ALPHABET
+    special = ["\\N", "NULL", "", "N", "\\", '"', "'"] if not tame else ["NULL", "", "N", '"']
+    out: list[str | None] = []
+    for i in range(n):
+        if i % 9 == 0:
+            out.append(None)
+        elif i % 9 == 1:
+            out.append(rng.choice(special))
+        else:
+            out.append("".join(rng.choice(alphabet) for _ in range(rng.randint(1, 12))))
+    return out
+
+
+@pytest.mark.parametrize(("options", "csv"), FORMS)
+def test_outfile_dumps_read_as_the_server_holds_them(
+    convert: ConvertFn, mysql: MySQL, options: str, csv: str
+) -> None:
+    rng = random.Random(options)
+    cur = mysql.cursor
+    cur.execute("CREATE TABLE notes (op CHAR(1), pos BIGINT, id INT, a TEXT CHARACTER SET utf8mb4)")
+    wild = _server_rows(rng, 400, tame=False)
+    tame = _server_rows(rng, 200, tame=True)
+    rows = [("I", i + 1, i + 1, v) for i, v in enumerate(wild + tame)]
+    cur.executemany("INSERT INTO notes VALUES (%s, %s, %s, %s)", rows)
+    files: dict[str, str | bytes] = {}
+    for name, where in (("n-wild.csv", f"id <= {len(wild)}"), ("n-tame.csv", f"id > {len(wild)}")):
+        path = mysql.files / name
+        cur.execute(
+            f"SELECT op, pos, id, a FROM notes WHERE {where} ORDER BY id "
+            f"INTO OUTFILE '{path}' CHARACTER SET utf8mb4 {options}"
+        )
+        files[name] = path.read_bytes()
+    cur.execute("SELECT id, a FROM notes")
+    held = dict(cur.fetchall())
+    done = convert(_mapping(csv), files)
+    assert _values(done) == held
+    assert done.ledger()["balanced"] and not done.quarantine("t.notes")
+    # the tame dump holds no escape the engine's reader cannot decode: it reads it itself
+    assert _careful_files(done) == {"n-wild.csv"}
+
+
+def test_load_data_reads_hand_made_cells_as_cdcnorm_does(convert: ConvertFn, mysql: MySQL) -> None:
+    cur = mysql.cursor
+    cur.execute("CREATE TABLE notes (op CHAR(1), pos BIGINT, id INT, a TEXT CHARACTER SET utf8mb4)")
+    text = _load_data_file([c for c, _ in LOAD_DATA])
+    path = mysql.files / "hand-made.csv"
+    path.write_text(text, encoding="utf-8")
+    path.chmod(0o644)
+    cur.execute("SET sql_mode = ''")
+    cur.execute(
+        f"LOAD DATA INFILE '{path}' INTO TABLE notes CHARACTER SET utf8mb4 "
+        "FIELDS TERMINATED BY ',' OPTIONALLY ENCLOSED BY '\"' ESCAPED BY '\\\\'"
+    )
+    cur.execute("SHOW WARNINGS")
+    assert cur.fetchall() == ()
+    cur.execute("SELECT id, a FROM notes")
+    held = dict(cur.fetchall())
+    assert held == {i + 1: v for i, (_, v) in enumerate(LOAD_DATA)}  # the table above is the server's
+    done = convert(MAPPING, {"n.csv": text})
+    assert _values(done) == held
+    assert json.dumps(done.ledger()["total"]) and done.ledger()["balanced"]
+
+
+#: Pieces of a quoted field's text, and of an unquoted field, as a hand-made file may hold them; those
+#: the engine's reader decodes itself come more often, so that many files are read by it.
+QUOTED_PIECES = st.sampled_from(
+    ["\\\\", '\\"', "N", "a", ",", '""', "é"] * 3 + ["\\N", "\\0", "\\n", "\\t", "\\x"]
+)
+UNQUOTED = st.sampled_from(["\\N", "NULL", "", "a", "N", "0"] * 2 + ["\\\\", "\\,", "a\\Nb", "\\Nx"])
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(
+    st.lists(
+        st.one_of(UNQUOTED, st.lists(QUOTED_PIECES, max_size=4).map(lambda p: '"' + "".join(p) + '"')),
+        min_size=1,
+        max_size=10,
+    )
+)
+@example(cells=["\\N", "\\\\"])  # a NULL beside an escaped backslash outside quotes
+@example(cells=['"\\\\N"', "\\N"])  # the text \N beside a NULL
+def test_the_engine_reads_a_file_only_where_it_reads_what_load_data_reads(
+    convert: ConvertFn, cells: list[str]
+) -> None:
+    # whichever path reads the file (the engine's reader only where the record count finds it
+    # plain), every field reads as decode_enclosed reads it, the table of LOAD DATA's reading above
+    text = _load_data_file(cells)
+    done = convert(MAPPING, {"n.csv": text})
+    expected = {i + 1: decode_enclosed(c, '"', {"NULL"}) for i, c in enumerate(cells)}
+    assert _values(done) == expected
+    if not count_blocks([text.encode()], '"', False, ",")[1]:
+        assert _careful_files(done) == {"n.csv"}  # the engine's reader may reject a plain file too

@@ -326,3 +326,27 @@ def test_the_engine_reads_a_file_only_where_it_reads_what_load_data_reads(
     assert _values(done) == expected
     if not count_blocks([text.encode()], '"', False, ",")[1]:
         assert _careful_files(done) == {"n.csv"}  # the engine's reader may reject a plain file too
+
+
+def test_the_servers_default_outfile_reads_as_copy_text(convert: ConvertFn, mysql: MySQL) -> None:
+    # SELECT ... INTO OUTFILE with no FIELDS options writes a tab between fields, quotes nothing and
+    # escapes with a backslash: csv.escapes: backslash without a quote reads it, except a NUL, which
+    # it writes as \0 and COPY's text format reads as an octal byte: such a record is quarantined
+    rng = random.Random(7)
+    cur = mysql.cursor
+    cur.execute("CREATE TABLE notes (op CHAR(1), pos BIGINT, id INT, a TEXT CHARACTER SET utf8mb4)")
+    values = _server_rows(rng, 300, tame=False)
+    cur.executemany(
+        "INSERT INTO notes VALUES (%s, %s, %s, %s)", [("I", i + 1, i + 1, v) for i, v in enumerate(values)]
+    )
+    path = mysql.files / "n.txt"
+    cur.execute(f"SELECT op, pos, id, a FROM notes ORDER BY id INTO OUTFILE '{path}' CHARACTER SET utf8mb4")
+    cur.execute("SELECT id, a FROM notes")
+    held = dict(cur.fetchall())
+    mapping = _mapping("").replace('files: ["n*"]', 'files: ["n*"]\nformat: csv')  # a .txt file
+    done = convert(mapping, {"n.txt": path.read_bytes()})
+    with_nul = {k for k, v in held.items() if v is not None and "\x00" in v}
+    assert with_nul and len(with_nul) < len(held)
+    assert _values(done) == {k: v for k, v in held.items() if k not in with_nul}
+    assert {q["_cdcnorm"]["row"] for q in done.quarantine("t.notes")} == with_nul  # rows in id order
+    assert done.ledger()["balanced"]

@@ -13,6 +13,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from cdcnorm.readers.csv import line_end
 from tests.conftest import ConvertFn, cli, insert_only_mapping, last_run
 from tests.test_bad_input import NESTED, NESTED_FIELDS
 
@@ -104,6 +105,39 @@ def test_broken_quotes_and_line_ends_resume_at_the_next_line(
     assert {q["_cdcnorm"]["row"]: q["_cdcnorm"]["text"] for q in done.quarantine("t.notes")} == bad
     ledger = done.ledger()
     assert ledger["balanced"] and ledger["total"]["read"] == len(good) + len(bad)
+
+
+def test_a_carriage_return_alone_is_no_line_end_in_a_file_of_lf_line_ends(convert: ConvertFn) -> None:
+    # before, a CR alone ended a line wherever it stood: "I,1,1,ab<CR>cd" became the record
+    # I,1,1,ab, emitted with the value cut short, and a malformed record "cd". RFC 4180 allows a
+    # line break in a quoted field only (section 2, rules 6 and 7; its TEXTDATA holds no CR), so the
+    # record is quarantined whole, with its text; in quotes the CR is data
+    data = 'op,pos,id,a,b\nI,1,1,ab\rcd,y\nI,2,2,"in\rquotes",y\r\nI,3,3,x,y\n'
+    done = convert(MAPPING, {"n.csv": data})
+    assert {e["key"]["id"]: e["values"]["a"] for e in done.events("t.notes")} == {2: "in\rquotes", 3: "x"}
+    (q,) = done.quarantine("t.notes")
+    assert q["_cdcnorm"]["row"] == 1 and q["_cdcnorm"]["text"] == "I,1,1,ab\rcd,y"
+    assert q["_cdcnorm"]["reasons"][0]["reason"].startswith(
+        "a carriage return (CR) alone in an unquoted field"
+    )
+    ledger = done.ledger()
+    assert ledger["balanced"] and ledger["total"]["read"] == 3
+
+
+@pytest.mark.parametrize(
+    ("head", "header", "end"),
+    [
+        ("op,pos\nI,1", True, "\n"),
+        ("op,pos\r\nI,1", True, "\r\n"),
+        ("op,pos\rI,1\rI,2", True, "\r"),
+        ('op,pos\rI,"a\r\nb"\r', True, "\r"),  # CR ends; a CRLF in quotes is data
+        ("I,a\rb\nI,c\n", False, "\n"),  # no header: a CR before the first LF is data
+        ("I,1\rI,2\r", False, "\r"),  # no LF at all: CR ends the lines
+        ("I,1", False, "\n"),
+    ],
+)
+def test_a_files_line_end_is_told_by_its_first_line(head: str, header: bool, end: str) -> None:
+    assert line_end(head, header) == end
 
 
 def test_files_read_record_by_record_together_read_as_each_alone(convert: ConvertFn) -> None:

@@ -666,11 +666,33 @@ class _Overlong(Exception):
     pass
 
 
-def _lines(f: RawFile, encoding: str) -> Iterator[str]:
-    """The file's text lines, each with its own line end (LF, CRLF or CR); bytes that do not
-    decode stay as lone surrogates and are written back unchanged."""
+def line_end(head: str, header: bool) -> str:
+    """The line end of a file that starts with ``head``: its first line's (LF, CRLF or CR). A CR
+    alone ends the lines only where the header row ends so, or, in a file with no header row, where
+    no LF comes at all; elsewhere a CR alone is data: MySQL's SELECT ... INTO OUTFILE writes one as
+    it is (a test against MariaDB shows it), and read as a line end it would cut a value short."""
+    lf, cr = head.find("\n"), head.find("\r")
+    if header and cr >= 0 and (lf < 0 or cr < lf) and head[cr + 1 : cr + 2] != "\n":
+        return "\r"
+    if not header and lf < 0:
+        return "\r" if cr >= 0 else "\n"
+    return "\r\n" if lf > 0 and head[lf - 1] == "\r" else "\n"
+
+
+def _line_end_of(f: RawFile, encoding: str, header: bool) -> str:
+    """``line_end`` of a file."""
+    decoder = codecs.getincrementaldecoder(encoding)("surrogateescape")
+    return line_end(decoder.decode(streams.head(f.path, 1 << 16), final=False), header)
+
+
+def _lines(f: RawFile, encoding: str, end: str) -> Iterator[str]:
+    """The file's text lines, each with its own line end (``end`` being the file's, ``line_end``:
+    lines end at each CR where it is CR, else at each LF, with a CR before it where there is one);
+    bytes that do not decode stay as lone surrogates and are written back unchanged."""
     stream = io.BufferedReader(_BlockReader(f.path), buffer_size=1 << 20)
-    text = io.TextIOWrapper(stream, encoding=encoding, errors="surrogateescape", newline="")
+    text = io.TextIOWrapper(
+        stream, encoding=encoding, errors="surrogateescape", newline="\r" if end == "\r" else "\n"
+    )
     first = True
     for line in text:
         if first:
@@ -757,6 +779,8 @@ def _records(
                 reason = f"a record longer than {MAX_RECORD_BYTES >> 20} MiB, or an unterminated quote"
             elif "unexpected end of data" in str(e):
                 reason = "unterminated quote: the quoted field runs to the end of the file"
+            elif "new-line character seen in unquoted field" in str(e):
+                reason = "a carriage return (CR) alone in an unquoted field, in a file whose lines end with LF: quote the field"
             else:
                 reason = f"broken quoting: {e}"
             yield _strip_end(consumed[0]), reason
@@ -770,15 +794,18 @@ def _escapes_its_end(text: str) -> bool:
     return (len(text) - len(text.rstrip("\\"))) % 2 == 1
 
 
-def _text_lines(lines: Iterator[str]) -> Iterator[str]:
+def _text_lines(lines: Iterator[str], ends: str = "\n") -> Iterator[str]:
     """The records of COPY's text format, each without its line end: a line whose line break a
     backslash escapes goes on with the next line (the break is data, as PostgreSQL's COPY FROM
     reads a backslash and a line break), and at the end of the file the record ends there. A
-    backslash before the CR of a CRLF escapes the CR: the LF ends the record."""
+    backslash before the CR of a CRLF escapes the CR: the LF ends the record. ``ends``: the file's
+    line end (``line_end``), as COPY FROM takes it from the first line: in a file of LF ends, a CR
+    before an LF is data."""
     pending = ""
     for line in lines:
         record = pending + line
-        body = _strip_end(record)
+        cut = 2 if ends == "\r\n" and record.endswith("\r\n") else int(record.endswith(("\n", "\r")))
+        body = record[: len(record) - cut]
         end = record[len(body) :]
         if end in ("\n", "\r") and _escapes_its_end(body):
             pending = record
@@ -793,13 +820,13 @@ def _text_lines(lines: Iterator[str]) -> Iterator[str]:
 
 
 def _text_records(
-    lines: Iterator[str], delimiter: str, expected: int, f: RawFile
+    lines: Iterator[str], delimiter: str, expected: int, f: RawFile, ends: str = "\n"
 ) -> Iterator[tuple[str, str | None]]:
     """``_records`` for COPY's text format: a record is one line, or more where a backslash escapes
     a line break (``_text_lines``); blank lines are not records. ``\\.`` alone on the file's last
     line is COPY's end-of-data marker, not a record (noted on ``f``); anywhere else it is malformed."""
     marker: str | None = None
-    for text in _text_lines(lines):
+    for text in _text_lines(lines, ends):
         if not text:
             continue
         if marker is not None:
@@ -861,10 +888,12 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
             number = 0
             good = 0
             if copy_text:
-                records = _text_records(_lines(f, r.encoding), r.delimiter, len(r.internal), f)
+                ends = _line_end_of(f, r.encoding, opts.header)
+                records = _text_records(_lines(f, r.encoding, ends), r.delimiter, len(r.internal), f, ends)
             else:
                 escape = "\\" if mysql else None
-                records = _records(_lines(f, r.encoding), r.delimiter, opts.quote, len(r.internal), escape)
+                lines = _lines(f, r.encoding, _line_end_of(f, r.encoding, opts.header))
+                records = _records(lines, r.delimiter, opts.quote, len(r.internal), escape)
             if opts.header:
                 next(records, None)
             for text, reason in records:

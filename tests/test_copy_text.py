@@ -3,7 +3,7 @@ backslash escapes the character after it, ``\\N`` alone is NULL.
 
 The escapes are those of PostgreSQL's documentation (COPY, "File Formats", "Text Format"); the
 oracle is a real PostgreSQL server that writes the dump with COPY ... TO STDOUT and reads the
-values back through psycopg."""
+values back through psycopg; the same test reads its CSV format (RFC 4180) too."""
 
 from __future__ import annotations
 
@@ -256,10 +256,20 @@ def _pg_rows(rng: random.Random, n: int) -> list[tuple[Any, ...]]:
 
 
 @pytest.mark.parametrize(
-    ("delimiter", "header"), [("\t", False), ("|", False), (",", True)], ids=["tab", "pipe", "comma-header"]
+    ("fmt", "delimiter", "header"),
+    [
+        ("text", "\t", False),
+        ("text", "|", False),
+        ("text", ",", True),
+        # COPY's CSV format, read as RFC 4180: NULL an unquoted empty field, an empty text ""
+        ("csv", ",", True),
+        ("csv", "|", False),
+        ("csv, FORCE_QUOTE *", ",", True),  # every value quoted but NULL
+    ],
+    ids=["tab", "pipe", "comma-header", "csv-header", "csv-pipe", "csv-force-quote"],
 )
-def test_postgresql_copy_text_dump_reads_to_the_values_postgresql_holds(
-    pg_url: str, tmp_path: Path, capsys: pytest.CaptureFixture[str], delimiter: str, header: bool
+def test_postgresql_copy_dump_reads_to_the_values_postgresql_holds(
+    pg_url: str, tmp_path: Path, capsys: pytest.CaptureFixture[str], fmt: str, delimiter: str, header: bool
 ) -> None:
     import psycopg
 
@@ -280,7 +290,9 @@ def test_postgresql_copy_text_dump_reads_to_the_values_postgresql_holds(
                     for lsn, seq, id_, note, amount in _pg_rows(rng, 400)
                 ],
             )
-            options = f"FORMAT text, DELIMITER {_pg_literal(delimiter)}" + (", HEADER true" if header else "")
+            options = f"FORMAT {fmt}, DELIMITER {_pg_literal(delimiter)}" + (
+                ", HEADER true" if header else ""
+            )
             dump = bytearray()
             with cur.copy(f"COPY (SELECT * FROM changes ORDER BY id) TO STDOUT ({options})") as copy:
                 for block in copy:
@@ -292,7 +304,10 @@ def test_postgresql_copy_text_dump_reads_to_the_values_postgresql_holds(
     extra = f", delimiter: {json.dumps(delimiter)}"
     if not header:
         extra += ", header: false, columns: [lsn, seq, op, id, note, amount, at]"
-    (mdir / "t.yaml").write_text(PG_MAPPING % extra)
+    mapping = PG_MAPPING % extra
+    if fmt != "text":
+        mapping = mapping.replace("escapes: backslash", "escapes: quotes")
+    (mdir / "t.yaml").write_text(mapping)
     out = tmp_path / "out"
     code = cli("convert", str(tmp_path / "notes.csv"), "--mappings", str(mdir), "--out", str(out))
     assert code == 0, capsys.readouterr().err

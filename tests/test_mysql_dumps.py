@@ -350,3 +350,65 @@ def test_the_servers_default_outfile_reads_as_copy_text(convert: ConvertFn, mysq
     assert _values(done) == {k: v for k, v in held.items() if k not in with_nul}
     assert {q["_cdcnorm"]["row"] for q in done.quarantine("t.notes")} == with_nul  # rows in id order
     assert done.ledger()["balanced"]
+
+
+def test_typed_columns_of_an_outfile_dump_read_as_the_server_holds_them(
+    convert: ConvertFn, mysql: MySQL
+) -> None:
+    # numbers and times as the server writes them (unquoted with OPTIONALLY ENCLOSED BY), typed by
+    # the mapping: each value equal to what the server holds (psycopg's sibling, pymysql, reads it)
+    from datetime import UTC, datetime
+    from decimal import Decimal
+
+    rng = random.Random(4180)
+    cur = mysql.cursor
+    cur.execute(
+        "CREATE TABLE notes (op CHAR(1), pos BIGINT, id INT, amount DECIMAL(12,2), ratio DOUBLE, "
+        "at DATETIME(6), flag TINYINT(1), note TEXT CHARACTER SET utf8mb4)"
+    )
+    rows = []
+    for i in range(200):
+        rows.append(
+            (
+                "I",
+                i + 1,
+                i + 1,
+                None if i % 11 == 0 else Decimal(rng.randint(-(10**9), 10**9)) / 100,
+                None if i % 13 == 0 else rng.choice([0.1, -2.5e-7, 1e300, 123456.789, 0.0, rng.random()]),
+                None
+                if i % 17 == 0
+                else datetime(2026, 1, 1, tzinfo=None).replace(
+                    microsecond=rng.randint(0, 999999), second=i % 60
+                ),
+                None if i % 19 == 0 else rng.randint(0, 1),
+                rng.choice(["plain", 'say "hi"', "a,b", "line\nbreak", ""]),
+            )
+        )
+    cur.executemany("INSERT INTO notes VALUES (%s, %s, %s, %s, %s, %s, %s, %s)", rows)
+    path = mysql.files / "n.csv"
+    cur.execute(
+        f"SELECT * FROM notes ORDER BY id INTO OUTFILE '{path}' CHARACTER SET utf8mb4 "
+        "FIELDS TERMINATED BY ',' OPTIONALLY ENCLOSED BY '\"'"
+    )
+    cur.execute("SELECT id, amount, ratio, at, flag, note FROM notes")
+    held = {r[0]: r[1:] for r in cur.fetchall()}
+    mapping = NOTES.replace(
+        "key: [id]\n",
+        "key: [id]\n" + 'csv: {escapes: backslash, quote: "\\"", delimiter: ",", '
+        "header: false, columns: [op, pos, id, amount, ratio, at, flag, note]}\n",
+    ).replace(
+        "  a: TYPE",
+        "  amount: decimal(12,2)\n  ratio: float\n  at: timestamp\n  flag: boolean\n  note: text",
+    )
+    done = convert(mapping, {"n.csv": path.read_bytes()})
+    assert done.ledger()["balanced"] and not done.quarantine("t.notes")
+    events = {e["key"]["id"]: e["values"] for e in done.events("t.notes")}
+    assert len(events) == len(held) == 200
+    for key, (amount, ratio, at, flag, note) in held.items():
+        v = events[key]
+        assert v["amount"] == (None if amount is None else f"{amount:.2f}")
+        assert v["ratio"] == ratio  # the same double (RFC 8259 numbers, Python's float)
+        got = None if v["at"] is None else datetime.fromisoformat(v["at"].replace("Z", "+00:00"))
+        assert got == (None if at is None else at.replace(tzinfo=UTC))  # a DATETIME read as UTC
+        assert v["flag"] == (None if flag is None else bool(flag))
+        assert v["note"] == note

@@ -312,7 +312,10 @@ def _drift_hint(d: Drift, columns: list[str]) -> str:
     if len(columns) == 1:
         for sep in (";", "\t", "|"):
             if sep in columns[0]:
-                return f"the file seems to use {sep!r} between fields: set csv.delimiter in the mapping"
+                said = f"the file seems to use {sep!r} between fields: set csv.delimiter in the mapping"
+                if sep == "\t":  # COPY's text format, and MySQL's INTO OUTFILE by default
+                    said += " (a PostgreSQL COPY or MySQL INTO OUTFILE text dump: csv.escapes: backslash, whose delimiter is a tab)"
+                return said
     key = (
         f"fields.{d.field}.from"
         if d.field not in ("action", "position", "sequence", "committed_at")
@@ -777,9 +780,34 @@ def _account(trun: TableRun, engine: DuckDBEngine) -> ledger_mod.TableLedger:
                     f"then, {'it is a duplicate' if n == 1 else 'they are duplicates'}, and {names} of "
                     f"{'that change is' if n == 1 else 'those changes are'} in no event"
                 )
+    _note_null_marks(trun, engine)
     for reason, n in engine.rows(ledger_mod.reason_counts(ident(rejected))):
         tl.reasons[str(reason)] = int(n)
     return tl
+
+
+def _note_null_marks(trun: TableRun, engine: DuckDBEngine) -> None:
+    """A note on each RFC 4180 CSV file whose text fields hold ``\\N``, read as that text: MySQL and
+    PostgreSQL write it for NULL in their own dumps, which the mapping does not say these are."""
+    mapping = trun.mapping.mapping
+    if mapping.csv.escapes != "quotes" or "\\N" in mapping.nulls:
+        return
+    texts = [(i, f) for i, (f, t) in enumerate(trun.mapping.field_types.items()) if t.name == "text"]
+    by_id = {f.file_id: f for f in trun.raw.files if f.format == "csv"}
+    if not texts or not by_id:
+        return
+    marked = " OR ".join(f"v{i} = {lit(chr(92) + 'N')}" for i, _ in texts)
+    for file_id, n in engine.rows(
+        f"SELECT __file, count(*) FROM {trun.plan.rel('typed')} WHERE __ok AND ({marked}) GROUP BY ALL ORDER BY 1"
+    ):
+        if file_id in by_id:
+            names = ", ".join(f for _, f in texts)
+            by_id[file_id].notes.append(
+                f"{'1 row holds' if n == 1 else f'{n} rows hold'} \\N in text field"
+                f"{'s' if len(texts) != 1 else ''} {names}, kept as that text: MySQL and PostgreSQL write "
+                "\\N for NULL in their own dumps; if this is one, set csv.escapes: backslash in the mapping "
+                '(with csv.quote for MySQL\'s ENCLOSED BY form), or add "\\N" to nulls'
+            )
 
 
 def show_plans(

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import random
+from pathlib import Path
 from typing import Any
 
 import pytest
@@ -17,7 +18,7 @@ from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 from cdcnorm.readers.csv import count_blocks, decode_enclosed, split_enclosed
-from tests.conftest import ConvertFn, MySQL, last_run
+from tests.conftest import ConvertFn, MySQL, cli, last_run
 from tests.test_bad_input import NOTES
 
 
@@ -412,3 +413,37 @@ def test_typed_columns_of_an_outfile_dump_read_as_the_server_holds_them(
         assert got == (None if at is None else at.replace(tzinfo=UTC))  # a DATETIME read as UTC
         assert v["flag"] == (None if flag is None else bool(flag))
         assert v["note"] == note
+
+
+def test_a_database_dump_read_as_rfc_4180_is_told_what_it_may_be(
+    convert: ConvertFn, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # before: the \N of a NULL became the text \N without a word, and an escaped quote was
+    # "broken quoting" with no hint of why
+    plain = NOTES.replace("a: TYPE", "a: text")
+    text = 'op,pos,id,a\n"I",1,1,"O\\"Brien, Pat"\n"I",2,2,\\N\n"I",3,3,"plain"\n'
+    done = convert(plain, {"n.csv": text})
+    assert _values(done) == {2: "\\N", 3: "plain"}  # read as RFC 4180 reads it: nothing changed
+    (q,) = done.quarantine("t.notes")
+    assert (
+        "a backslash before a quote, as MySQL's INTO OUTFILE escapes one"
+        in q["_cdcnorm"]["reasons"][0]["reason"]
+    )
+    notes = [n["note"] for n in last_run(done.out)["notes"]]
+    assert any(n.startswith("1 row holds \\N in text field a, kept as that text") for n in notes), notes
+    # a tab-separated dump read with the default delimiter: the hint names the text format
+    (tmp_path / "m").mkdir()
+    (tmp_path / "m" / "t.yaml").write_text(plain)
+    (tmp_path / "n.csv").write_text("op\tpos\tid\ta\nI\t1\t1\tx\n")
+    assert (
+        cli(
+            "convert",
+            str(tmp_path / "n.csv"),
+            "--mappings",
+            str(tmp_path / "m"),
+            "--out",
+            str(tmp_path / "o"),
+        )
+        == 4
+    )
+    assert "csv.escapes: backslash, whose delimiter is a tab" in capsys.readouterr().err

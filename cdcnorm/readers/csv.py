@@ -83,6 +83,8 @@ TEXT_END = "\\."
 ENCLOSED_ESCAPES = {"0": "\0", "b": "\b", "n": "\n", "r": "\r", "t": "\t", "Z": "\x1a"}
 #: With ``ENCLOSED BY``, ``LOAD DATA`` reads the unquoted word NULL as NULL (same documentation).
 ENCLOSED_NULL_WORD = "NULL"
+#: What a dump in the enclosed form read as RFC 4180 needs.
+ENCLOSED_HINT = "if the file is one, set csv.escapes: backslash and csv.quote in the mapping"
 #: Files of at most this size are read together when a table has at least JOIN_MIN of them.
 SMALL_FILE = 1 << 20
 JOIN_MIN = 16
@@ -802,6 +804,10 @@ def _records(
                 reason = "a carriage return (CR) alone in an unquoted field, in a file whose lines end with LF: quote the field"
             else:
                 reason = f"broken quoting: {e}"
+            if escape is None and "\\" + quote in consumed[0]:
+                reason += (
+                    f" (a backslash before a quote, as MySQL's INTO OUTFILE escapes one: {ENCLOSED_HINT})"
+                )
             yield _strip_end(consumed[0]), reason, []
             rest = consumed[1:]
             consumed.clear()

@@ -124,6 +124,17 @@ def test_a_carriage_return_alone_is_no_line_end_in_a_file_of_lf_line_ends(conver
     assert ledger["balanced"] and ledger["total"]["read"] == 3
 
 
+def test_a_headerless_file_of_cr_line_ends_keeps_a_line_feed_in_quotes(convert: ConvertFn) -> None:
+    headerless = MAPPING.replace(
+        "key: [id]\n", "key: [id]\ncsv: {header: false, columns: [op, pos, id, a, b]}\n"
+    )
+    data = 'I,1,1,"two\nlines",y\rI,2,2,x,y\rI,3,3,"a\rb",y\r'
+    done = convert(headerless, {"n.csv": data})
+    values = {e["key"]["id"]: e["values"]["a"] for e in done.events("t.notes")}
+    assert values == {1: "two\nlines", 2: "x", 3: "a\rb"}
+    assert done.ledger()["balanced"] and not done.quarantine("t.notes")
+
+
 @pytest.mark.parametrize(
     ("head", "header", "end"),
     [
@@ -133,6 +144,8 @@ def test_a_carriage_return_alone_is_no_line_end_in_a_file_of_lf_line_ends(conver
         ('op,pos\rI,"a\r\nb"\r', True, "\r"),  # CR ends; a CRLF in quotes is data
         ("I,a\rb\nI,c\n", False, "\n"),  # no header: a CR before the first LF is data
         ("I,1\rI,2\r", False, "\r"),  # no LF at all: CR ends the lines
+        ('I,"a\nb"\rI,2\rI,3\r', False, "\r"),  # CRs alone outnumber the LF in quotes
+        ("I,a\rb\nI,c\rd\nI,e\n", False, "\n"),  # LFs outnumber the CRs in values
         ("I,1", False, "\n"),
     ],
 )

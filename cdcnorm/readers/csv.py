@@ -689,13 +689,14 @@ class _Overlong(Exception):
 def line_end(head: str, header: bool) -> str:
     """The line end of a file that starts with ``head``: its first line's (LF, CRLF or CR). A CR
     alone ends the lines only where the header row ends so, or, in a file with no header row, where
-    no LF comes at all; elsewhere a CR alone is data: MySQL's SELECT ... INTO OUTFILE writes one as
-    it is (a test against MariaDB shows it), and read as a line end it would cut a value short."""
+    CRs alone outnumber LFs (a line break in a quoted field is the exception, not the rule);
+    elsewhere a CR alone is data: MySQL's SELECT ... INTO OUTFILE writes one as it is (a test
+    against MariaDB shows it), and read as a line end it would cut a value short."""
     lf, cr = head.find("\n"), head.find("\r")
     if header and cr >= 0 and (lf < 0 or cr < lf) and head[cr + 1 : cr + 2] != "\n":
         return "\r"
-    if not header and lf < 0:
-        return "\r" if cr >= 0 else "\n"
+    if not header and head.count("\r") - head.count("\r\n") > head.count("\n"):
+        return "\r"
     return "\r\n" if lf > 0 and head[lf - 1] == "\r" else "\n"
 
 

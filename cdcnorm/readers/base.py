@@ -50,6 +50,8 @@ class RawFile:
     #: the codec its text was read with (a CSV file's csv.encoding); a cell its bytes do not decode
     #: in is quarantined as "not <encoding> text"
     encoding: str = "UTF-8"
+    #: a CSV file's line end, as its first line shows it (readers/csv.py: line_end)
+    line_end: str = "\n"
 
     @property
     def rows_read(self) -> int:

@@ -250,6 +250,7 @@ def _header(f: RawFile, delimiter: str, mapping: Mapping) -> tuple[list[str], bo
             line=1,
             hint="set csv.encoding (utf-16-le or utf-16-be for UTF-16 without a byte order mark)",
         ) from None
+    f.line_end = line_end(head, opts.header)
     if not opts.header:
         if not opts.columns:
             raise InputError("csv.header is false but csv.columns names no columns", file=str(f.path))
@@ -391,16 +392,9 @@ class _EnclosedCheck:
         """Clear in ``isq`` (1 at each quote of ``buf``) the quotes a backslash escapes, and check the
         block's backslashes; ``parity``: of the unescaped quotes before the block. Backslashes are
         few: their runs are found among their positions, not over the block."""
-        bpos = np.flatnonzero(buf == 92)
-        if len(bpos):
-            cut = np.flatnonzero(np.diff(bpos) != 1)
-            starts = bpos[np.concatenate(([0], cut + 1))]
-            ends = bpos[np.concatenate((cut, [len(bpos) - 1]))]
-            n = len(buf)
-            after = ends + 1
-            nxt = np.where(after < n, buf[np.minimum(after, n - 1)], -1)  # -1: the file ends
-            odd = (ends - starts) % 2 == 0
-            isq[after[odd & (nxt == self.quote)]] = 0  # an odd run escapes the quote after it
+        starts, ends, nxt, odd = _backslash_runs(buf)
+        if len(starts):
+            isq[ends[odd & (nxt == self.quote)] + 1] = 0  # an odd run escapes the quote after it
             if self.plain:
                 # the quote parity before each run: no quote stands at a run's start, a backslash
                 before = np.bitwise_xor.accumulate(
@@ -439,6 +433,20 @@ class _EnclosedCheck:
             self.plain = False
 
 
+def _backslash_runs(buf: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The block's runs of backslashes: where each starts and ends, the byte after it (-1 where the
+    block ends), and whether it is odd (its last backslash escapes that byte). Backslashes are few:
+    the runs are found among their positions, not over the block."""
+    bpos = np.flatnonzero(buf == 92)
+    cut = np.flatnonzero(np.diff(bpos) != 1)
+    starts = bpos[np.concatenate(([0], cut + 1))] if len(bpos) else bpos
+    ends = bpos[np.concatenate((cut, [len(bpos) - 1]))] if len(bpos) else bpos
+    after = ends + 1
+    n = len(buf)
+    nxt = np.where(after < n, buf[np.minimum(after, n - 1)], -1)
+    return starts, ends, nxt, (ends - starts) % 2 == 0
+
+
 def _whole_runs(chunks: Iterable[bytes], limit: int) -> Iterator[tuple[bytes, bool]]:
     """The blocks cut again so that each holds its backslash runs whole with the two bytes after
     them, and whether it is the last; a run longer than ``limit`` bytes is cut anyway (the check
@@ -462,10 +470,11 @@ def count_blocks(
 ) -> tuple[int, bool]:
     """``count_records`` over the bytes of a file given in blocks."""
     check = _EnclosedCheck(ord(quote), escaping) if escaping is not None and quote is not None else None
-    blocks = _whole_runs(chunks, 4 * COUNT_BLOCK) if check is not None else ((c, False) for c in chunks)
+    # the forms a backslash escapes in see each run of backslashes whole, in one block
+    whole = check is not None or quote is None
+    blocks = _whole_runs(chunks, 4 * COUNT_BLOCK) if whole else ((c, False) for c in chunks)
     q = -1 if quote is None else ord(quote)  # no byte equals -1: no quote toggles the parity
     escaped = False  # a backslash escapes a line break (COPY's text format)
-    run = 0  # the backslashes the bytes so far end with
     parity = 0
     last_end = -1
     pos = 0
@@ -478,7 +487,11 @@ def count_blocks(
         if check is not None:
             check.unquote(buf, isq, parity, final)
         if q < 0 and not escaped:
-            escaped, run = _escaped_break(buf, run)
+            _, ends, nxt, odd = _backslash_runs(buf)
+            # a run cut at ``_whole_runs``' limit may escape what the next block starts with
+            escaped = bool(np.any(odd & ((nxt == 10) | (nxt == 13)))) or (
+                not final and len(ends) > 0 and ends[-1] + 2 >= len(buf)
+            )
         if len(nl):
             starts = np.concatenate(([0], nl + 1))
             if starts[-1] == len(buf):
@@ -507,30 +520,6 @@ def count_blocks(
         count += 1
     plain = check is None or check.plain
     return count - (1 if header and count else 0), parity == 0 and not escaped and plain
-
-
-def _escaped_break(buf: np.ndarray, run: int) -> tuple[bool, int]:
-    """Whether an odd run of backslashes (one escaping the next byte) stands before a line break (LF
-    or CR) in ``buf``, whose bytes follow ``run`` backslashes; and the run ``buf`` ends with. Each
-    run's length is the distance to the last byte before it that is no backslash (vectorised; the
-    positions of those bytes are found only when a line break follows a backslash)."""
-    if not len(buf):
-        return False, run
-    breaks = np.flatnonzero((buf == 10) | (buf == 13))
-    if len(breaks) and breaks[0] == 0 and run % 2:
-        return True, 0
-    at = breaks[breaks > 0]
-    at = at[buf[at - 1] == 92]
-    if len(at):
-        others = np.flatnonzero(buf != 92)
-        last = np.searchsorted(others, at) - 1  # the last byte before each break that is no backslash
-        runs = np.where(last >= 0, at - 1 - others[np.maximum(last, 0)], at + run)
-        if np.any(runs % 2):
-            return True, 0
-    if buf[-1] != 92:
-        return False, 0
-    other = buf[::-1] != 92  # the run the block ends with: up to its last byte that is no backslash
-    return False, int(np.argmax(other)) if other.any() else len(buf) + run
 
 
 def _fast(group: list[RawFile], r: _Reading) -> list[RawFile]:
@@ -698,12 +687,6 @@ def line_end(head: str, header: bool) -> str:
     if not header and head.count("\r") - head.count("\r\n") > head.count("\n"):
         return "\r"
     return "\r\n" if lf > 0 and head[lf - 1] == "\r" else "\n"
-
-
-def _line_end_of(f: RawFile, encoding: str, header: bool) -> str:
-    """``line_end`` of a file."""
-    decoder = codecs.getincrementaldecoder(encoding)("surrogateescape")
-    return line_end(decoder.decode(streams.head(f.path, 1 << 16), final=False), header)
 
 
 def _lines(f: RawFile, encoding: str, end: str) -> Iterator[str]:
@@ -915,16 +898,14 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
             good = 0
             records: Iterator[tuple[str, str | None, list[str]]]
             if copy_text:
-                ends = _line_end_of(f, r.encoding, opts.header)
+                lines = _lines(f, r.encoding, f.line_end)
                 records = (
                     (t, why, [])
-                    for t, why in _text_records(
-                        _lines(f, r.encoding, ends), r.delimiter, len(r.internal), f, ends
-                    )
+                    for t, why in _text_records(lines, r.delimiter, len(r.internal), f, f.line_end)
                 )
             else:
                 escape = "\\" if mysql else None
-                lines = _lines(f, r.encoding, _line_end_of(f, r.encoding, opts.header))
+                lines = _lines(f, r.encoding, f.line_end)
                 records = _records(lines, r.delimiter, opts.quote, len(r.internal), escape)
             if opts.header:
                 next(records, None)

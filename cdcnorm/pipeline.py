@@ -314,7 +314,10 @@ def _drift_hint(d: Drift, columns: list[str]) -> str:
             if sep in columns[0]:
                 said = f"the file seems to use {sep!r} between fields: set csv.delimiter in the mapping"
                 if sep == "\t":  # COPY's text format, and MySQL's INTO OUTFILE by default
-                    said += " (a PostgreSQL COPY or MySQL INTO OUTFILE text dump: csv.escapes: backslash, whose delimiter is a tab)"
+                    said += (
+                        " (a PostgreSQL COPY or MySQL INTO OUTFILE text dump: csv.escapes: backslash, whose"
+                        " delimiter is a tab; tab-separated text that quotes and escapes nothing: csv.escapes: none)"
+                    )
                 return said
     key = (
         f"fields.{d.field}.from"

@@ -16,6 +16,10 @@ ACTIONS = ("delete", "insert", "before", "after", "snapshot")
 Action = Literal["delete", "insert", "before", "after", "snapshot"]
 PositionKind = Literal["integer", "hex", "hex-pair", "timestamp", "text"]
 
+#: The longest delimiter plain text (``csv.escapes: none``) takes: bulk-copy exports separate
+#: fields by a few characters no value holds (``|~|``, say).
+MAX_PLAIN_DELIMITER = 16
+
 _ZONE = re.compile(r"^(Z|UTC|[+-](0\d|1\d|2[0-3]):?[0-5]\d)$")
 
 
@@ -254,18 +258,21 @@ class CsvOptions(Strict):
     delimiter: str = Field(
         default=",",
         min_length=1,
-        max_length=1,
-        description="Field separator (a tab with escapes: backslash).",
+        max_length=MAX_PLAIN_DELIMITER,
+        description="Field separator (a tab with escapes: backslash or none); one character, or up to"
+        f" {MAX_PLAIN_DELIMITER} with escapes: none.",
     )
     quote: str = Field(default='"', min_length=1, max_length=1)
-    escapes: Literal["quotes", "backslash"] = Field(
+    escapes: Literal["quotes", "backslash", "none"] = Field(
         default="quotes",
         description="quotes: RFC 4180 (fields quoted, a quote doubled). backslash: PostgreSQL's COPY text"
         " format: nothing is quoted, \\N alone is NULL, \\b \\f \\n \\r \\t \\v are control"
         " characters, a backslash before any other character is that character; octal and hex"
         " sequences are quarantined. backslash with a quote given: MySQL's and MariaDB's SELECT ..."
         " INTO OUTFILE with ENCLOSED BY: fields may be quoted, a backslash escapes in or out of quotes"
-        " (\\0 \\b \\n \\r \\t \\Z are control characters), \\N and the unquoted word NULL are NULL.",
+        " (\\0 \\b \\n \\r \\t \\Z are control characters), \\N and the unquoted word NULL are NULL."
+        " none: plain delimited text (tab-separated values, bulk-copy exports): nothing is quoted or"
+        " escaped, a record is one line, every delimiter separates fields; no quote is given.",
     )
     header: bool = Field(default=True, description="false: columns are named by `columns`.")
     columns: list[str] | None = Field(
@@ -281,7 +288,11 @@ class CsvOptions(Strict):
     def _text_format_delimiter(cls, data: Any) -> Any:
         # COPY's text format separates fields by a tab unless told otherwise (PostgreSQL's
         # documentation, COPY, "Text Format")
-        if isinstance(data, dict) and data.get("escapes") == "backslash" and "delimiter" not in data:
+        if (
+            isinstance(data, dict)
+            and data.get("escapes") in ("backslash", "none")
+            and "delimiter" not in data
+        ):
             return {**data, "delimiter": "\t"}
         return data
 
@@ -290,8 +301,15 @@ class CsvOptions(Strict):
         # a delimiter equal to the quote, or a line end as either, leaves records that cannot be
         # told apart (RFC 4180 section 2 separates fields by a comma and quotes them with DQUOTE)
         for name, ch in (("delimiter", self.delimiter), ("quote", self.quote)):
-            if ch in "\r\n":
-                raise ValueError(f"csv.{name} cannot be a line end: records end at line ends")
+            if "\r" in ch or "\n" in ch:
+                raise ValueError(f"csv.{name} cannot hold a line end: records end at line ends")
+        if self.escapes == "none" and "quote" in self.model_fields_set:
+            raise ValueError("csv.quote is given, but with escapes: none nothing is quoted: drop quote")
+        if self.escapes != "none" and len(self.delimiter) > 1:
+            raise ValueError(
+                f"csv.delimiter {self.delimiter!r} is more than one character, which only plain text"
+                " reads: set csv.escapes: none (nothing quoted or escaped), or give one character"
+            )
         if self.escapes == "backslash":
             for name, ch in (("delimiter", self.delimiter), ("quote", self.quote)):
                 if ch == "\\":
@@ -313,7 +331,7 @@ class CsvOptions(Strict):
     def quoted(self) -> bool:
         """Fields may be quoted: always with escapes: quotes; with escapes: backslash only where a
         quote is given (MySQL's ENCLOSED BY form; without one, COPY's text format quotes nothing)."""
-        return self.escapes == "quotes" or "quote" in self.model_fields_set
+        return self.escapes == "quotes" or (self.escapes == "backslash" and "quote" in self.model_fields_set)
 
     @field_validator("encoding")
     @classmethod

@@ -34,6 +34,13 @@ character, so it reads a file only where that is the whole decoding: no
 backslash but a whole ``\\N`` cell (the record count checks, ``_EnclosedCheck``),
 whose ``\\N`` cells the engine then reads as NULL; any other file goes the
 careful path, which splits and decodes each record in Python.
+
+With ``csv.escapes: none`` the files are plain delimited text: nothing is quoted
+or escaped, a record is one line, every delimiter (up to 16 characters)
+separates two fields. The engine's reader reads them with no quote and no escape
+(a delimiter of at most 4 bytes); the careful path splits each line
+(``_plain_records``), and a line of too few fields right after a record makes
+that record malformed too, since a line break in its last value may have cut it.
 """
 
 from __future__ import annotations
@@ -85,6 +92,11 @@ ENCLOSED_ESCAPES = {"0": "\0", "b": "\b", "n": "\n", "r": "\r", "t": "\t", "Z": 
 ENCLOSED_NULL_WORD = "NULL"
 #: What a dump in the enclosed form read as RFC 4180 needs.
 ENCLOSED_HINT = "if the file is one, set csv.escapes: backslash and csv.quote in the mapping"
+#: The engine's reader takes a delimiter of at most this many bytes; plain text's longer ones go
+#: the careful path.
+ENGINE_DELIMITER = 4
+#: What a tab-separated dump whose values hold quotes, read as RFC 4180, needs.
+PLAIN_HINT = "if the file quotes nothing, as tab-separated and bulk-copy exports do, set csv.escapes: none"
 #: Files of at most this size are read together when a table has at least JOIN_MIN of them.
 SMALL_FILE = 1 << 20
 JOIN_MIN = 16
@@ -106,15 +118,22 @@ def text_format(mapping: Mapping) -> bool:
     return backslashed(mapping) and not mapping.csv.quoted
 
 
+def plain(mapping: Mapping) -> bool:
+    """The table's CSV files are plain delimited text (``csv.escapes: none``): nothing is quoted or
+    escaped, a record is one line, and every delimiter separates two fields."""
+    return mapping.csv.escapes == "none"
+
+
 def _quote(mapping: Mapping) -> str | None:
     """The character that quotes a field, None where nothing is quoted."""
-    return None if text_format(mapping) else mapping.csv.quote
+    return None if text_format(mapping) or plain(mapping) else mapping.csv.quote
 
 
-def _escaping(mapping: Mapping, delimiter: str) -> str | None:
-    """What the record count needs of the enclosed form (``count_blocks``): its delimiter; None for
-    the other forms."""
-    return delimiter if enclosed(mapping) else None
+def _counting(mapping: Mapping, delimiter: str) -> tuple[str | None, str | None, bool]:
+    """How the record count (``count_blocks``) reads the table's files: the quote (None where
+    nothing is quoted), the enclosed form's delimiter (None for the other forms), and whether a
+    backslash may escape a line break (COPY's text format)."""
+    return _quote(mapping), delimiter if enclosed(mapping) else None, text_format(mapping)
 
 
 @functools.cache
@@ -278,15 +297,17 @@ def _header(f: RawFile, delimiter: str, mapping: Mapping) -> tuple[list[str], bo
     elif text_format(mapping):
         columns = []
         for i, name in enumerate(split_escaped(text, delimiter)):
-            plain = unescape(name)
-            if plain is None:
+            name_text = unescape(name)
+            if name_text is None:
                 raise InputError(
                     f"the header's column {i + 1} ({name}) is not COPY text: an octal or hex sequence, or a lone backslash",
                     file=str(f.path),
                     line=1,
                     hint="csv.escapes: backslash reads PostgreSQL's COPY text format",
                 )
-            columns.append(plain)
+            columns.append(name_text)
+    elif plain(mapping):
+        columns = text.split(delimiter)
     else:
         columns = next(stdcsv.reader([text], delimiter=delimiter, quotechar=opts.quote), [])
     more = nl >= 0 and bool(head[nl + 1 :].strip())
@@ -359,17 +380,18 @@ def _mark_nulls(r: _Reading, first: int) -> None:
 
 
 def count_records(
-    path: Path, quote: str | None, header: bool, escaping: str | None = None
+    path: Path, quote: str | None, header: bool, escaping: str | None = None, breaks: bool = True
 ) -> tuple[int, bool]:
     """The number of data records by quote parity, independently of any CSV parser, and whether the
     quotes balance. A line break ends a record only outside quotes (RFC 4180 doubles a quote inside a
     quoted field, which keeps the parity); blank lines are not records. Vectorised over blocks.
     ``quote`` None (COPY's text format): nothing is quoted, and the second value says whether no
-    backslash escapes a line break (which the engine's reader would take for a record's end).
+    backslash escapes a line break (which the engine's reader would take for a record's end);
+    ``breaks`` False (plain text): no backslash escapes anything, and every line is a record.
     ``escaping``, the delimiter of the enclosed form: a backslash escapes a quote too, and the second
     value also says whether the engine's reader reads every field as ``LOAD DATA`` does
     (``_EnclosedCheck``)."""
-    return count_blocks(streams.blocks(path, COUNT_BLOCK), quote, header, escaping)
+    return count_blocks(streams.blocks(path, COUNT_BLOCK), quote, header, escaping, breaks)
 
 
 class _EnclosedCheck:
@@ -466,12 +488,13 @@ def _whole_runs(chunks: Iterable[bytes], limit: int) -> Iterator[tuple[bytes, bo
 
 
 def count_blocks(
-    chunks: Iterable[bytes], quote: str | None, header: bool, escaping: str | None = None
+    chunks: Iterable[bytes], quote: str | None, header: bool, escaping: str | None = None, breaks: bool = True
 ) -> tuple[int, bool]:
     """``count_records`` over the bytes of a file given in blocks."""
     check = _EnclosedCheck(ord(quote), escaping) if escaping is not None and quote is not None else None
     # the forms a backslash escapes in see each run of backslashes whole, in one block
-    whole = check is not None or quote is None
+    breaks = breaks and quote is None
+    whole = check is not None or breaks
     blocks = _whole_runs(chunks, 4 * COUNT_BLOCK) if whole else ((c, False) for c in chunks)
     q = -1 if quote is None else ord(quote)  # no byte equals -1: no quote toggles the parity
     escaped = False  # a backslash escapes a line break (COPY's text format)
@@ -486,7 +509,7 @@ def count_blocks(
         isq = (buf == q).view(np.uint8) if q >= 0 else np.zeros(len(buf), np.uint8)
         if check is not None:
             check.unquote(buf, isq, parity, final)
-        if q < 0 and not escaped:
+        if breaks and not escaped:
             _, ends, nxt, odd = _backslash_runs(buf)
             # a run cut at ``_whole_runs``' limit may escape what the next block starts with
             escaped = bool(np.any(odd & ((nxt == 10) | (nxt == 13)))) or (
@@ -525,7 +548,7 @@ def count_blocks(
 def _fast(group: list[RawFile], r: _Reading) -> list[RawFile]:
     """Scan the group with the engine's reader; return the files that need the careful path."""
     opts = r.mapping.csv
-    if r.encoding.lower() not in ENGINE_ENCODINGS:
+    if r.encoding.lower() not in ENGINE_ENCODINGS or len(r.delimiter.encode("utf-8")) > ENGINE_DELIMITER:
         return group
     if len(group) >= JOIN_MIN:
         group = _joined(group, r)
@@ -535,8 +558,10 @@ def _fast(group: list[RawFile], r: _Reading) -> list[RawFile]:
     # The engine's reader does not report every broken record when it scans many files at once, so
     # every file's records are also counted independently, by a thread, while the engine scans.
     with ThreadPoolExecutor(max_workers=1) as pool:
-        quote, escaping = _quote(r.mapping), _escaping(r.mapping, r.delimiter)
-        counted = {p: pool.submit(count_records, Path(p), quote, opts.header, escaping) for p in paths}
+        quote, escaping, breaks = _counting(r.mapping, r.delimiter)
+        counted = {
+            p: pool.submit(count_records, Path(p), quote, opts.header, escaping, breaks) for p in paths
+        }
         staged = r.raw.relation("csv")
         scanned = _scan(r, staged, list(paths))
         counts = {p: c.result() for p, c in counted.items()}
@@ -568,7 +593,7 @@ def _fast(group: list[RawFile], r: _Reading) -> list[RawFile]:
 
 
 def _body(
-    f: RawFile, header: bool, quote: str | None, escaping: str | None
+    f: RawFile, header: bool, counting: tuple[str | None, str | None, bool]
 ) -> tuple[bytes, bytes, int] | None:
     """A small file's records without its header, ending in a line end, with that line end and
     the number of records; None for a file that is not small or whose quotes do not balance."""
@@ -585,7 +610,8 @@ def _body(
         return None
     end = b"\r\n" if nl and data[nl - 1] == 13 else b"\n"  # the first line's end is the file's
     body = data[nl + 1 :] if header else data
-    records, balanced = count_blocks([body], quote, False, escaping)
+    quote, escaping, breaks = counting
+    records, balanced = count_blocks([body], quote, False, escaping, breaks)
     if not balanced:
         return None
     if body and not body.endswith(b"\n"):
@@ -604,7 +630,7 @@ def _joined(group: list[RawFile], r: _Reading) -> list[RawFile]:
     alone: list[RawFile] = []
     by_end: dict[bytes, list[tuple[RawFile, bytes, int]]] = {}
     for f in group:
-        small = _body(f, opts.header, _quote(r.mapping), _escaping(r.mapping, r.delimiter))
+        small = _body(f, opts.header, _counting(r.mapping, r.delimiter))
         if small is None:
             alone.append(f)
         else:
@@ -792,6 +818,8 @@ def _records(
                 reason += (
                     f" (a backslash before a quote, as MySQL's INTO OUTFILE escapes one: {ENCLOSED_HINT})"
                 )
+            elif escape is None and delimiter == "\t":
+                reason += f" ({PLAIN_HINT})"
             yield _strip_end(consumed[0]), reason, []
             rest = consumed[1:]
             consumed.clear()
@@ -853,6 +881,54 @@ def _text_records(
         f.notes.append("its last line, \\., is COPY's end-of-data marker: not a record")
 
 
+def _plain_records(
+    lines: Iterator[str], delimiter: str, expected: int, ends: str = "\n"
+) -> Iterator[tuple[str, str | None, list[str]]]:
+    """``_records`` for plain text: a record is one line (``ends``: the file's line end, as in
+    ``_text_lines``), its fields split at every delimiter; blank lines are not records. Nothing
+    escapes a line break, so a value holding one splits its record in two: where the break is in
+    the last field, the first part has every field, and the rest is a line of too few (one, unless
+    the value holds a delimiter too). Such a line is malformed, and so is the record before it,
+    which may be cut short: neither is read as if whole."""
+    held: tuple[str, str | None, list[str]] | None = None  # the last record, until the next line
+    rest = False  # the held line has too few fields and follows a record (or such lines)
+    for line in lines:
+        cut = 2 if ends == "\r\n" and line.endswith("\r\n") else int(line.endswith(("\n", "\r")))
+        text = line[: len(line) - cut]
+        if not text:
+            continue
+        if len(text) > MAX_RECORD_BYTES:
+            record: tuple[str, str | None, list[str]] = (
+                text[:1024],
+                f"a record longer than {MAX_RECORD_BYTES >> 20} MiB",
+                [],
+            )
+            rest = False
+        else:
+            row = text.split(delimiter)
+            found = f"expected {expected} fields, found {len(row)}"
+            record = (text, None, row) if len(row) == expected else (text, found, [])
+            after = held is not None and (held[1] is None or rest)
+            if held is not None and held[1] is None and len(row) < expected:
+                held = (held[0], PLAIN_CUT, [])
+            rest = after and len(row) < expected
+            if rest:
+                record = (text, f"{found}, after a record: {PLAIN_REST}", [])
+        if held is not None:
+            yield held
+        held = record
+    if held is not None:
+        yield held
+
+
+#: Why the record before a line without a delimiter is quarantined, and why that line is.
+PLAIN_CUT = (
+    "the next line has too few fields, as the rest of a value with a line break would"
+    " (nothing escapes one in plain text): this record may be cut short"
+)
+PLAIN_REST = "it may be the rest of that record's last value, cut by a line break"
+
+
 def _careful(files: list[RawFile], r: _Reading) -> None:
     """Read files record by record, all into one relation: their good records numbered into one
     scratch file (file id, record number, the record's text) that is parsed and decoded once, their
@@ -870,6 +946,8 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
     malformed = r.raw.ensure_malformed(r.engine)
     copy_text = text_format(r.mapping)
     mysql = enclosed(r.mapping)
+    bare = plain(r.mapping)
+    nulls = set(r.mapping.nulls)
     tokens = {ENCLOSED_NULL_WORD, *(t for t in r.mapping.nulls if t)}
     sep, _, _ = _cleaned_syntax(r)
 
@@ -903,6 +981,9 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
                     (t, why, [])
                     for t, why in _text_records(lines, r.delimiter, len(r.internal), f, f.line_end)
                 )
+            elif bare:
+                lines = _lines(f, r.encoding, f.line_end)
+                records = _plain_records(lines, r.delimiter, len(r.internal), f.line_end)
             else:
                 escape = "\\" if mysql else None
                 lines = _lines(f, r.encoding, f.line_end)
@@ -922,6 +1003,8 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
                         text = ",".join(
                             '"' + c.replace('"', '""') + '"' for c in split_escaped(text, r.delimiter)
                         )
+                    elif bare:  # the cells as RFC 4180 fields, a null token as an unquoted empty one
+                        text = ",".join("" if c in nulls else '"' + c.replace('"', '""') + '"' for c in row)
                     elif decoded is not None:
                         text = decoded
                     line = f"{f.file_id}{sep}{number}{sep}{text}\n".encode("utf-8", "surrogateescape")
@@ -938,7 +1021,9 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
             f.malformed = number - good
             fast = r.encoding.lower() in ENGINE_ENCODINGS
             why = "the fast reader rejected it" if fast else f"the fast reader does not read {r.encoding}"
-            if fast and mysql:
+            if fast and len(r.delimiter.encode("utf-8")) > ENGINE_DELIMITER:
+                why = f"the fast reader takes no delimiter longer than {ENGINE_DELIMITER} bytes"
+            elif fast and mysql:
                 why = "the fast reader rejected it, or does not decode all its backslashes"
             f.notes.append(f"read record by record ({why})")
             any_good = any_good or good > 0
@@ -971,7 +1056,7 @@ def _cleaned_syntax(r: _Reading) -> tuple[str, str, list[str]]:
     written decoded, as RFC 4180 fields, a NULL as an unquoted empty field."""
     if text_format(r.mapping):
         return ",", '"', []
-    if enclosed(r.mapping):  # decoded already: an unquoted empty field is NULL, "" an empty text
+    if enclosed(r.mapping) or plain(r.mapping):  # an unquoted empty field is NULL, "" an empty text
         return ",", '"', [""]
     return r.delimiter, r.mapping.csv.quote, list(r.mapping.nulls)
 

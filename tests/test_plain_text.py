@@ -14,6 +14,7 @@ from __future__ import annotations
 import csv
 import io
 import random
+from pathlib import Path
 from typing import Any
 
 import pytest
@@ -21,7 +22,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from cdcnorm.readers.csv import count_blocks
-from tests.conftest import ConvertFn, MySQL, last_run
+from tests.conftest import ConvertFn, MySQL, cli, last_run
 from tests.test_bad_input import NOTES
 
 
@@ -147,6 +148,35 @@ def test_a_delimiter_of_several_characters_separates_fields(
     if careful:
         note = next(n["note"] for n in last_run(done.out)["notes"])
         assert note == "read record by record (the fast reader takes no delimiter longer than 4 bytes)"
+
+
+@pytest.mark.parametrize("careful", [False, True], ids=["engine", "record-by-record"])
+def test_a_bulk_copy_dumps_empty_text_as_one_nul_character_and_null_as_nothing(
+    convert: ConvertFn, careful: bool
+) -> None:
+    # SQL Server's bcp utility, writing a file, "represents an empty string as a null and a null
+    # string as an empty string" (SQL Server's documentation, bcp Utility, argument out, as quoted by
+    # third-party pages): an empty text is one NUL character, NULL an empty field. csv.empty says so
+    cells = ["\0", "", "x\0y", "\0\0", "plain"]
+    text = _dump(cells, "|~|", "\r\n") + ("I|~|99\r\n" if careful else "")
+    done = convert(_mapping(', delimiter: "|~|", empty: "\\0"' + HEADERLESS), {"n.csv": text})
+    expected: dict[int, object] = {1: "", 2: None, 3: "x\0y", 4: "\0\0", 5: "plain"}
+    if careful:  # the last record is cut short: the malformed line after it says so
+        expected.pop(5)
+    assert _values(done) == expected
+    assert _careful_files(done) == ({"n.csv"} if careful else set())
+    assert done.ledger()["balanced"]
+
+
+def test_an_empty_text_token_that_is_also_a_null_token_is_refused(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    (tmp_path / "m").mkdir()
+    (tmp_path / "m" / "notes.yaml").write_text(_mapping(', empty: "-"', 'nulls: ["", "-"]\n'))
+    (tmp_path / "n.tsv").write_text("op\tpos\tid\ta\nI\t1\t1\t-\n")
+    code = cli("check", "--mappings", str(tmp_path / "m"), str(tmp_path / "n.tsv"))
+    err = capsys.readouterr().err
+    assert code == 3 and "csv.empty is '-', which nulls lists too" in err and "notes.yaml:" in err
 
 
 def test_many_small_plain_files_read_together(convert: ConvertFn) -> None:

@@ -831,11 +831,13 @@ class DuckDBEngine:
         self._decoding_views[view] = (source, decoded)
         return lost
 
-    def mark_nulls(self, view: str, source: str, columns: list[str], token: str) -> None:
-        """A view ``view`` of ``source`` in which a cell of ``columns`` equal to ``token`` is NULL
-        (a token the engine's reader cannot be told of, as it holds the reader's escape)."""
+    def replace_cells(self, view: str, source: str, columns: list[str], token: str, to: str | None) -> None:
+        """A view ``view`` of ``source`` in which a cell of ``columns`` equal to ``token`` is the
+        text ``to``, or NULL for None (a null token the engine's reader cannot be told of, as it
+        holds the reader's escape; an empty text a dump writes as a token, ``csv.empty``)."""
+        value = "NULL" if to is None else lit(to)
         cells = "".join(
-            f", CASE WHEN {ident(c)} = {lit(token)} THEN NULL ELSE {ident(c)} END AS {ident(c)}"
+            f", CASE WHEN {ident(c)} = {lit(token)} THEN {value} ELSE {ident(c)} END AS {ident(c)}"
             for c in columns
         )
 

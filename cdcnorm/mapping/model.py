@@ -282,6 +282,12 @@ class CsvOptions(Strict):
         default="utf-8",
         description="Text encoding of the dumps (any Python codec name: utf-8, latin-1, cp1252, ...).",
     )
+    empty: str | None = Field(
+        default=None,
+        min_length=1,
+        description="A field that is exactly this text is an empty text: SQL Server's bcp writes an empty"
+        ' string as one NUL character ("\\0") and NULL as an empty field.',
+    )
 
     @model_validator(mode="before")
     @classmethod
@@ -432,6 +438,17 @@ class Mapping(Strict):
                     "key",
                     found=k,
                 )
+        return self
+
+    @model_validator(mode="after")
+    def _empty_is_not_null(self) -> Mapping:
+        if self.csv.empty is not None and self.csv.empty in self.nulls:
+            raise Located(
+                f"csv.empty is {self.csv.empty!r}, which nulls lists too: a field cannot be NULL and an empty text",
+                "csv",
+                "empty",
+                found=self.csv.empty,
+            )
         return self
 
     @model_validator(mode="after")

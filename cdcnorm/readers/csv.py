@@ -349,6 +349,8 @@ def read_files(
             _careful(careful, reading)
         if text_format(mapping):
             _unescape(reading, group, first)
+        if mapping.csv.empty is not None:
+            _mark_empty(reading, first, mapping.csv.empty)
 
 
 def _unescape(r: _Reading, group: list[RawFile], first: int) -> None:
@@ -375,7 +377,17 @@ def _mark_nulls(r: _Reading, first: int) -> None:
     for i in range(first, len(r.raw.relations)):
         relation, columns = r.raw.relations[i]
         view = f"{relation}_nulls"
-        r.engine.mark_nulls(view, relation, [c for c in r.internal if c in columns], TEXT_NULL)
+        r.engine.replace_cells(view, relation, [c for c in r.internal if c in columns], TEXT_NULL, None)
+        r.raw.relations[i] = (view, columns)
+
+
+def _mark_empty(r: _Reading, first: int, token: str) -> None:
+    """The relations read from ``first`` on, whichever path read them: a cell that is exactly
+    ``token`` (``csv.empty``) is an empty text."""
+    for i in range(first, len(r.raw.relations)):
+        relation, columns = r.raw.relations[i]
+        view = f"{relation}_empty"
+        r.engine.replace_cells(view, relation, [c for c in r.internal if c in columns], token, "")
         r.raw.relations[i] = (view, columns)
 
 

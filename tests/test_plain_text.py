@@ -288,3 +288,87 @@ def test_escaped_by_nothing_outfile_dumps_read_as_the_server_holds_them(
         "line",
     ]
     assert done.ledger()["balanced"]
+
+
+# --- a change table as a bulk-copy export writes it ---------------------------------------------------
+
+#: The change table of an invented parcel-locker operator, named the way some databases name their
+#: change tables' columns, as a bulk-copy export writes it: no header, fields separated by ``|~|``,
+#: CRLF line ends, binary log positions as hex digits without ``0x``, times as ``YYYY-MM-DD
+#: hh:mm:ss.fff`` (from memory), an empty text as one NUL character and NULL as nothing.
+BCP_MAPPING = """\
+table: lockers.deliveries
+files: ["deliveries-*.dat"]
+format: csv
+key: [delivery_id]
+csv:
+  escapes: none
+  delimiter: "|~|"
+  empty: "\\0"
+  header: false
+  columns: ["__$start_lsn", "__$seqval", "__$operation", "__$update_mask", "__$commit_time", delivery_id, note, fee]
+unused: ["__$update_mask"]
+change:
+  action: {column: "__$operation", codes: {"1": delete, "2": insert, "3": before, "4": after}}
+  position: {column: "__$start_lsn", kind: hex, width: 20}
+  sequence: {column: "__$seqval", kind: hex}
+  committed_at: {column: "__$commit_time"}
+  updates: paired
+fields:
+  delivery_id: integer
+  note: text
+  fee: decimal(12,2)
+"""
+
+BCP_ROWS = [
+    # lsn, seqval, operation, update mask, commit time, delivery_id, note, fee
+    (
+        "0000002A000001F00003",
+        "0000002A000001F00002",
+        "2",
+        "07",
+        "2026-03-01 07:59:00.000",
+        "1",
+        '"Leave at door"',
+        "4.50",
+    ),
+    (
+        "0000002A000001F00003",
+        "0000002A000001F00004",
+        "2",
+        "07",
+        "2026-03-01 07:59:00.000",
+        "2",
+        "C:\\lockers\\",
+        "3.00",
+    ),
+    (
+        "0000002B000000100002",
+        "0000002B000000100002",
+        "3",
+        "02",
+        "2026-03-01 08:10:00.000",
+        "1",
+        '"Leave at door"',
+        "4.50",
+    ),
+    ("0000002B000000100002", "0000002B000000100002", "4", "02", "2026-03-01 08:10:00.000", "1", "\0", "4.50"),
+    ("0000002C000000080001", "0000002C000000080001", "1", "07", "2026-03-01 09:00:00.000", "2", "", "3.00"),
+]
+
+
+def test_a_change_table_written_by_a_bulk_copy_export_converts_to_its_events(convert: ConvertFn) -> None:
+    text = "".join("|~|".join(row) + "\r\n" for row in BCP_ROWS)
+    done = convert(BCP_MAPPING, {"deliveries-0001.dat": text})
+    events = done.events("lockers.deliveries")
+    assert [(e["action"], e["key"]["delivery_id"]) for e in events] == [
+        ("upsert", 1),
+        ("upsert", 2),
+        ("upsert", 1),
+        ("delete", 2),
+    ]
+    assert [e["values"]["note"] for e in events[:3]] == ['"Leave at door"', "C:\\lockers\\", ""]
+    assert events[2]["changed"] == ["note"]  # the before-image's quotes against the empty text
+    assert events[3]["prior"]["note"] is None  # NULL: an empty field
+    assert events[0]["committed_at"] == "2026-03-01T07:59:00Z"
+    assert done.ledger()["balanced"] and not done.quarantine("lockers.deliveries")

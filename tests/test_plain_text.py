@@ -18,7 +18,7 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 from cdcnorm.readers.csv import count_blocks
@@ -199,6 +199,23 @@ def test_a_tab_separated_dump_read_as_rfc_4180_is_told_it_may_be_plain_text(conv
     assert _values(convert(_mapping(""), {"n.tsv": text})) == {1: '"open', 2: "ok"}
 
 
+@pytest.mark.parametrize("escapes", ["none", "backslash"])
+@pytest.mark.parametrize("last", ["\r", "y\r"])
+def test_a_cr_before_an_lf_is_data_where_the_lines_end_with_lf(
+    convert: ConvertFn, escapes: str, last: str
+) -> None:
+    # MySQL's and MariaDB's OUTFILE write a CR as it is (tests/test_mysql_dumps.py): in a file of LF
+    # line ends it is data. The engine's reader dropped it where it was a last field's whole text
+    # (the value became NULL); such a file is now read record by record
+    mapping = _mapping(HEADERLESS).replace("escapes: none", f"escapes: {escapes}")
+    text = f"I\t1\t1\t\nI\t2\t2\t{last}\n"
+    done = convert(mapping, {"n.tsv": text})
+    assert _values(done) == {1: "" if escapes == "backslash" else None, 2: last}
+    assert _careful_files(done) == {"n.tsv"}
+    assert count_blocks([text.encode()], None, False, None, escapes == "backslash", True)[1] is False
+    assert count_blocks([text.encode()], None, False, None, escapes == "backslash")[1] is True
+
+
 def test_the_record_count_of_plain_text_counts_lines_whatever_backslashes_and_quotes_they_hold() -> None:
     data = b'a\\\nb"\n"c\\\r\n\n'
     assert count_blocks([data], None, False, None, False) == (3, True)
@@ -216,6 +233,7 @@ PLAIN_ALPHABET = st.sampled_from([*'ab"\\ ,;|~N', "é", "😀", "\r"])
     st.sampled_from(["\t", "|~|", ";"]),
     st.sampled_from(["\n", "\r\n"]),
 )
+@example(values=[None, "\r"], delimiter="\t", end="\n")  # the engine's reader dropped that CR
 def test_whichever_path_reads_a_plain_file_the_values_are_those_written(
     convert: ConvertFn, values: list[str | None], delimiter: str, end: str
 ) -> None:
@@ -234,8 +252,9 @@ def test_whichever_path_reads_a_plain_file_the_values_are_those_written(
     assert _values(fast) == expected
     assert _values(careful) == {k: v for k, v in expected.items() if k != len(values)}
     assert _careful_files(careful) == {"n.txt"}
-    if delimiter != "|~|" and "\r" not in text.replace("\r\n", ""):
-        # Python's csv module takes a delimiter of one character, and a CR alone as a line end
+    if delimiter != "|~|" and "\r" not in text.replace(end, ""):
+        # Python's csv module takes a delimiter of one character, a CR alone as a line end, and
+        # drops a CR before an LF even where the lines end with LF
         rows = list(csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, quoting=csv.QUOTE_NONE))
         assert {int(r[2]): r[3] or None for r in rows} == expected
 

@@ -392,7 +392,12 @@ def _mark_empty(r: _Reading, first: int, token: str) -> None:
 
 
 def count_records(
-    path: Path, quote: str | None, header: bool, escaping: str | None = None, breaks: bool = True
+    path: Path,
+    quote: str | None,
+    header: bool,
+    escaping: str | None = None,
+    breaks: bool = True,
+    lf_only: bool = False,
 ) -> tuple[int, bool]:
     """The number of data records by quote parity, independently of any CSV parser, and whether the
     quotes balance. A line break ends a record only outside quotes (RFC 4180 doubles a quote inside a
@@ -400,10 +405,13 @@ def count_records(
     ``quote`` None (COPY's text format): nothing is quoted, and the second value says whether no
     backslash escapes a line break (which the engine's reader would take for a record's end);
     ``breaks`` False (plain text): no backslash escapes anything, and every line is a record.
+    ``lf_only`` (nothing quoted, lines that end with LF): a CR before an LF is data, which the
+    engine's reader may take for part of a CRLF line end and drop, so the second value is False
+    where there is one.
     ``escaping``, the delimiter of the enclosed form: a backslash escapes a quote too, and the second
     value also says whether the engine's reader reads every field as ``LOAD DATA`` does
     (``_EnclosedCheck``)."""
-    return count_blocks(streams.blocks(path, COUNT_BLOCK), quote, header, escaping, breaks)
+    return count_blocks(streams.blocks(path, COUNT_BLOCK), quote, header, escaping, breaks, lf_only)
 
 
 class _EnclosedCheck:
@@ -500,7 +508,12 @@ def _whole_runs(chunks: Iterable[bytes], limit: int) -> Iterator[tuple[bytes, bo
 
 
 def count_blocks(
-    chunks: Iterable[bytes], quote: str | None, header: bool, escaping: str | None = None, breaks: bool = True
+    chunks: Iterable[bytes],
+    quote: str | None,
+    header: bool,
+    escaping: str | None = None,
+    breaks: bool = True,
+    lf_only: bool = False,
 ) -> tuple[int, bool]:
     """``count_records`` over the bytes of a file given in blocks."""
     check = _EnclosedCheck(ord(quote), escaping) if escaping is not None and quote is not None else None
@@ -515,9 +528,12 @@ def count_blocks(
     pos = 0
     last_byte = 10
     count = 0
+    cr_data = False  # a CR before an LF, in a file of LF line ends (``lf_only``)
     for chunk, final in blocks:
         buf = np.frombuffer(chunk, dtype=np.uint8)
         nl = np.flatnonzero(buf == 10)
+        if lf_only and not cr_data and len(nl):
+            cr_data = bool(np.any(buf[nl[nl > 0] - 1] == 13)) or (nl[0] == 0 and last_byte == 13)
         isq = (buf == q).view(np.uint8) if q >= 0 else np.zeros(len(buf), np.uint8)
         if check is not None:
             check.unquote(buf, isq, parity, final)
@@ -554,7 +570,7 @@ def count_blocks(
     if rest > 1 or (rest == 1 and last_byte != 13):
         count += 1
     plain = check is None or check.plain
-    return count - (1 if header and count else 0), parity == 0 and not escaped and plain
+    return count - (1 if header and count else 0), parity == 0 and not escaped and plain and not cr_data
 
 
 def _fast(group: list[RawFile], r: _Reading) -> list[RawFile]:
@@ -572,7 +588,16 @@ def _fast(group: list[RawFile], r: _Reading) -> list[RawFile]:
     with ThreadPoolExecutor(max_workers=1) as pool:
         quote, escaping, breaks = _counting(r.mapping, r.delimiter)
         counted = {
-            p: pool.submit(count_records, Path(p), quote, opts.header, escaping, breaks) for p in paths
+            p: pool.submit(
+                count_records,
+                Path(p),
+                quote,
+                opts.header,
+                escaping,
+                breaks,
+                quote is None and f.line_end == "\n",
+            )
+            for p, f in paths.items()
         }
         staged = r.raw.relation("csv")
         scanned = _scan(r, staged, list(paths))
@@ -623,7 +648,7 @@ def _body(
     end = b"\r\n" if nl and data[nl - 1] == 13 else b"\n"  # the first line's end is the file's
     body = data[nl + 1 :] if header else data
     quote, escaping, breaks = counting
-    records, balanced = count_blocks([body], quote, False, escaping, breaks)
+    records, balanced = count_blocks([body], quote, False, escaping, breaks, quote is None and end == b"\n")
     if not balanced:
         return None
     if body and not body.endswith(b"\n"):

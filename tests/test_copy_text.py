@@ -16,7 +16,8 @@ from typing import Any
 
 import pytest
 
-from cdcnorm.readers.csv import count_blocks, split_escaped, unescape
+from cdcnorm.readers.count import count_blocks
+from cdcnorm.readers.forms import split_escaped, unescape
 from tests.conftest import ConvertFn, cli, last_run
 from tests.test_bad_input import NOTES
 

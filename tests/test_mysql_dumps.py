@@ -17,7 +17,8 @@ import pytest
 from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
-from cdcnorm.readers.csv import count_blocks, decode_enclosed, split_enclosed
+from cdcnorm.readers.count import count_blocks
+from cdcnorm.readers.forms import decode_enclosed, split_enclosed
 from tests.conftest import ConvertFn, MySQL, cli, last_run
 from tests.test_bad_input import NOTES
 

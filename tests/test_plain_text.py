@@ -21,7 +21,7 @@ import pytest
 from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
-from cdcnorm.readers.csv import count_blocks
+from cdcnorm.readers.count import count_blocks
 from tests.conftest import ConvertFn, MySQL, cli, last_run
 from tests.test_bad_input import NOTES
 

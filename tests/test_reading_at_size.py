@@ -775,8 +775,10 @@ def test_over_long_record_is_quarantined_and_reading_resumes(
     convert: ConvertFn, monkeypatch: pytest.MonkeyPatch
 ) -> None:
     from cdcnorm.readers import csv as csv_reader
+    from cdcnorm.readers import forms
 
-    monkeypatch.setattr(csv_reader, "MAX_RECORD_BYTES", 1 << 20)
+    monkeypatch.setattr(csv_reader, "MAX_RECORD_BYTES", 1 << 20)  # the engine's reader's line
+    monkeypatch.setattr(forms, "MAX_RECORD_BYTES", 1 << 20)  # a record read record by record
     big = "z" * (3 << 20)
     done = convert(PLAIN, {"n.csv": f"op,pos,id,a\nI,1,1,x\nI,2,2,{big}\nI,3,3,y\n"})
     assert [e["key"]["id"] for e in done.events("t.notes")] == [1, 3]

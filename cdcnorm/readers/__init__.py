@@ -2,6 +2,8 @@
 
 Each reader module has ``FORMAT``, ``SUFFIXES`` and ``read_files(files, mapping, engine,
 raw, scratch)``, which loads a table's files of that format into the engine (see base.py).
+The CSV reader's helpers are modules of their own: ``forms.py`` (how a record of each CSV form
+splits and decodes) and ``count.py`` (the independent record count).
 A compression suffix (``.gz``, ``.zst``, ``.bz2``, ``.xz``, ``.lz4``) after the format's suffix is
 read transparently (streams.py); an archive whose name has none is refused, naming the suffix to add.
 """

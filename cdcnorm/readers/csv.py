@@ -31,7 +31,7 @@ and a backslash escapes inside and outside quotes, read as ``LOAD DATA`` reads
 them (``decode_enclosed``). The engine's reader drops a backslash before any
 character, so it reads a file only where that is the whole decoding: no
 ``\\0 \\b \\n \\r \\t \\Z`` and no ``\\N`` inside quotes, and outside quotes no
-backslash but a whole ``\\N`` cell (the record count checks, ``_EnclosedCheck``),
+backslash but a whole ``\\N`` cell (the record count checks, ``count._EnclosedCheck``),
 whose ``\\N`` cells the engine then reads as NULL; any other file goes the
 careful path, which splits and decodes each record in Python.
 
@@ -39,32 +39,49 @@ With ``csv.escapes: none`` the files are plain delimited text: nothing is quoted
 or escaped, a record is one line, every delimiter (up to 16 characters)
 separates two fields. The engine's reader reads them with no quote and no escape
 (a delimiter of at most 4 bytes); the careful path splits each line
-(``_plain_records``), and a line of too few fields right after a record makes
+(``plain_records``), and a line of too few fields right after a record makes
 that record malformed too, since a line break in its last value may have cut it.
+
+This module routes the files and loads them; how a record of each form splits
+and decodes is in ``forms.py``, the independent record count in ``count.py``.
 """
 
 from __future__ import annotations
 
 import codecs
 import csv as stdcsv
-import functools
 import io
-import re
-from collections import deque
-from collections.abc import Iterable, Iterator
+from collections.abc import Iterator
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 
-import numpy as np
 import pyarrow as pa
 import pyarrow.csv as pacsv
 
-from cdcnorm.engines.duckdb import TEXT_ESCAPES, CsvSyntax, DuckDBEngine
+from cdcnorm.engines.duckdb import CsvSyntax, DuckDBEngine
 from cdcnorm.errors import InputError
 from cdcnorm.mapping.model import Mapping
 from cdcnorm.readers import streams
 from cdcnorm.readers.base import MAX_RECORD_BYTES, RawFile, RawTable
+from cdcnorm.readers.count import count_blocks, count_records
+from cdcnorm.readers.forms import (
+    ENCLOSED_NULL_WORD,
+    TEXT_NULL,
+    backslashed,
+    counting_of,
+    decode_enclosed,
+    enclosed,
+    enclosed_record,
+    plain,
+    plain_records,
+    rfc_records,
+    split_enclosed,
+    split_escaped,
+    text_format,
+    text_records,
+    unescape,
+)
 
 FORMAT = "csv"
 SUFFIXES = (".csv", ".tsv")
@@ -74,142 +91,15 @@ ENGINE_ENCODINGS = {"utf-8": "utf-8", "iso8859-1": "latin-1"}
 #: An unquoted field can never hold a bare line break, so this null token never matches:
 #: it stands for "no null tokens" where the engine insists on at least one.
 NEVER = "\n"
-#: Block size of the independent record count: small, so its numpy buffers stay small too.
-COUNT_BLOCK = 4 << 20
 #: The smallest block the careful path's parser reads at a time (it reads several ahead, outside the
 #: engine's memory: 4 MiB blocks held about 90 MiB more than 1 MiB blocks at 1M rows).
 CAREFUL_BLOCK = 1 << 20
-#: COPY's text format (PostgreSQL's documentation, COPY, "Text Format"; TEXT_ESCAPES: the letters
-#: that stand for control characters after a backslash, any other character after one stands for
-#: itself): ``\N`` alone is NULL; ``\.`` alone on the last line ends the data.
-TEXT_NULL = "\\N"
-TEXT_END = "\\."
-#: ``LOAD DATA``'s escapes (MySQL's and MariaDB's documentation, LOAD DATA, "Field and Line
-#: Handling"; checked against MariaDB in tests/test_mysql_dumps.py): after a backslash these letters
-#: stand for control characters, any other character for itself; ``\N`` alone is NULL, quoted or not.
-ENCLOSED_ESCAPES = {"0": "\0", "b": "\b", "n": "\n", "r": "\r", "t": "\t", "Z": "\x1a"}
-#: With ``ENCLOSED BY``, ``LOAD DATA`` reads the unquoted word NULL as NULL (same documentation).
-ENCLOSED_NULL_WORD = "NULL"
-#: What a dump in the enclosed form read as RFC 4180 needs.
-ENCLOSED_HINT = "if the file is one, set csv.escapes: backslash and csv.quote in the mapping"
 #: The engine's reader takes a delimiter of at most this many bytes; plain text's longer ones go
 #: the careful path.
 ENGINE_DELIMITER = 4
-#: What a tab-separated dump whose values hold quotes, read as RFC 4180, needs.
-PLAIN_HINT = "if the file quotes nothing, as tab-separated and bulk-copy exports do, set csv.escapes: none"
 #: Files of at most this size are read together when a table has at least JOIN_MIN of them.
 SMALL_FILE = 1 << 20
 JOIN_MIN = 16
-
-
-def backslashed(mapping: Mapping) -> bool:
-    """The table's CSV files are COPY's text format (``csv.escapes: backslash``)."""
-    return mapping.csv.escapes == "backslash"
-
-
-def enclosed(mapping: Mapping) -> bool:
-    """The table's CSV files are MySQL's ``INTO OUTFILE`` with ``ENCLOSED BY`` (``csv.escapes:
-    backslash`` and a ``csv.quote``)."""
-    return backslashed(mapping) and mapping.csv.quoted
-
-
-def text_format(mapping: Mapping) -> bool:
-    """The table's CSV files are COPY's text format: a backslash escapes, and nothing is quoted."""
-    return backslashed(mapping) and not mapping.csv.quoted
-
-
-def plain(mapping: Mapping) -> bool:
-    """The table's CSV files are plain delimited text (``csv.escapes: none``): nothing is quoted or
-    escaped, a record is one line, and every delimiter separates two fields."""
-    return mapping.csv.escapes == "none"
-
-
-def _quote(mapping: Mapping) -> str | None:
-    """The character that quotes a field, None where nothing is quoted."""
-    return None if text_format(mapping) or plain(mapping) else mapping.csv.quote
-
-
-def _counting(mapping: Mapping, delimiter: str) -> tuple[str | None, str | None, bool]:
-    """How the record count (``count_blocks``) reads the table's files: the quote (None where
-    nothing is quoted), the enclosed form's delimiter (None for the other forms), and whether a
-    backslash may escape a line break (COPY's text format)."""
-    return _quote(mapping), delimiter if enclosed(mapping) else None, text_format(mapping)
-
-
-@functools.cache
-def _enclosed_field(delimiter: str, quote: str) -> re.Pattern[str]:
-    """The pattern of a field of the enclosed form as written (quoted, or not starting with a quote),
-    then the delimiter after it or the record's end."""
-    d, q = re.escape(delimiter), re.escape(quote)
-    # runs of plain characters matched whole between escapes (a loop per character is 2x slower)
-    quoted = f"{q}[^{q}\\\\]*(?:(?:\\\\.|{q}{q})[^{q}\\\\]*)*{q}(?={d}|$)"
-    field = f"{quoted}|(?!{q})[^{d}\\\\]*(?:\\\\.[^{d}\\\\]*)*"
-    return re.compile(f"({field})({d}|$)", re.S)
-
-
-@functools.cache
-def _enclosed_escapes(quote: str | None) -> re.Pattern[str]:
-    """The pattern of the escapes in a quoted field's text (``quote``: a doubled quote is one too),
-    or in an unquoted one's (None)."""
-    return re.compile("\\\\(.)" + (f"|{re.escape(quote * 2)}" if quote else ""), re.S)
-
-
-def split_enclosed(text: str, delimiter: str, quote: str) -> list[str] | None:
-    """The fields of one record of the enclosed form, as written (quotes and escapes kept); None when
-    the record does not split so (a quoted field followed by anything but the delimiter)."""
-    fields = []
-    pos = 0
-    for m in _enclosed_field(delimiter, quote).finditer(text):
-        if m.start() != pos:  # a quote opens a field it does not close, or text follows a closing one
-            return None
-        fields.append(m[1])
-        if not m[2]:  # the record's end
-            return fields
-        pos = m.end()
-    return None  # pragma: no cover - a field matches at the record's end, which ends the loop
-
-
-def decode_enclosed(field: str, quote: str, tokens: Iterable[str]) -> str | None:
-    """A field of the enclosed form as ``LOAD DATA`` reads it; None for NULL: ``\\N`` (quoted or
-    not) and, unquoted, one of ``tokens`` (the word NULL and the mapping's null tokens). In quotes a
-    doubled quote is one; a backslash and a character is ``ENCLOSED_ESCAPES``' control character or
-    that character."""
-    if len(field) >= 2 and field[0] == quote and field[-1] == quote:
-        body = field[1:-1]
-        if "\\" not in body and quote * 2 not in body:
-            return body
-        if body == TEXT_NULL:
-            return None
-        pattern = _enclosed_escapes(quote)
-    else:
-        if field == TEXT_NULL or field in tokens:
-            return None
-        if "\\" not in field:
-            return field
-        body = field
-        pattern = _enclosed_escapes(None)
-    return pattern.sub(lambda m: ENCLOSED_ESCAPES.get(m[1], m[1]) if m[1] else quote, body)
-
-
-def split_escaped(line: str, delimiter: str) -> list[str]:
-    """The fields of one line of COPY's text format, still escaped: the line split at every
-    delimiter no backslash escapes."""
-    fields = []
-    start = 0
-    for m in re.finditer(r"\\.|" + re.escape(delimiter), line, re.S):
-        if m.group() == delimiter:
-            fields.append(line[start : m.start()])
-            start = m.end()
-    fields.append(line[start:])
-    return fields
-
-
-def unescape(field: str) -> str | None:
-    """A field of COPY's text format decoded; None when it is not one COPY writes: an octal or hex
-    sequence (``\101``, ``\x41``: bytes, not characters) or a lone backslash at its end."""
-    if re.search(r"\\(?:[0-7x]|$)", re.sub(r"\\\\", "", field)):
-        return None
-    return re.sub(r"\\(.)", lambda m: TEXT_ESCAPES.get(m[1], m[1]), field, flags=re.S)
 
 
 @dataclass(frozen=True)
@@ -373,7 +263,7 @@ def _unescape(r: _Reading, group: list[RawFile], first: int) -> None:
 
 def _mark_nulls(r: _Reading, first: int) -> None:
     """The enclosed form's relations the engine's reader read, from ``first`` on: a ``\\N`` cell is
-    NULL (``_EnclosedCheck`` let no other cell read as ``\\N`` there)."""
+    NULL (``count._EnclosedCheck`` let no other cell read as ``\\N`` there)."""
     for i in range(first, len(r.raw.relations)):
         relation, columns = r.raw.relations[i]
         view = f"{relation}_nulls"
@@ -391,188 +281,6 @@ def _mark_empty(r: _Reading, first: int, token: str) -> None:
         r.raw.relations[i] = (view, columns)
 
 
-def count_records(
-    path: Path,
-    quote: str | None,
-    header: bool,
-    escaping: str | None = None,
-    breaks: bool = True,
-    lf_only: bool = False,
-) -> tuple[int, bool]:
-    """The number of data records by quote parity, independently of any CSV parser, and whether the
-    quotes balance. A line break ends a record only outside quotes (RFC 4180 doubles a quote inside a
-    quoted field, which keeps the parity); blank lines are not records. Vectorised over blocks.
-    ``quote`` None (COPY's text format): nothing is quoted, and the second value says whether no
-    backslash escapes a line break (which the engine's reader would take for a record's end);
-    ``breaks`` False (plain text): no backslash escapes anything, and every line is a record.
-    ``lf_only`` (nothing quoted, lines that end with LF): a CR before an LF is data, which the
-    engine's reader may take for part of a CRLF line end and drop, so the second value is False
-    where there is one.
-    ``escaping``, the delimiter of the enclosed form: a backslash escapes a quote too, and the second
-    value also says whether the engine's reader reads every field as ``LOAD DATA`` does
-    (``_EnclosedCheck``)."""
-    return count_blocks(streams.blocks(path, COUNT_BLOCK), quote, header, escaping, breaks, lf_only)
-
-
-class _EnclosedCheck:
-    """What the record count finds of the enclosed form's backslashes, block by block (each block
-    holds every backslash run it has whole, with the two bytes after it: ``_whole_runs``): which
-    quotes a backslash escapes, and whether the engine's reader, which drops a backslash before any
-    character and does not look at backslashes outside quotes, reads every field as ``LOAD DATA``
-    does. It does where, inside quotes, no backslash escapes 0 b n r t Z or N and no escaped
-    backslash comes before an N (``"\\\\N"`` would read as ``\\N``, which stands for NULL), and
-    where, outside quotes, every backslash is a whole ``\\N`` cell."""
-
-    def __init__(self, quote: int, delimiter: str) -> None:
-        self.quote = quote
-        self.delimiter = ord(delimiter)
-        self.last = 10  # the byte before the block (a line start at the file's start)
-        self.plain = True
-        self.special = np.frombuffer(b"0bnrtZN", np.uint8)
-
-    def unquote(self, buf: np.ndarray, isq: np.ndarray, parity: int, final: bool) -> None:
-        """Clear in ``isq`` (1 at each quote of ``buf``) the quotes a backslash escapes, and check the
-        block's backslashes; ``parity``: of the unescaped quotes before the block. Backslashes are
-        few: their runs are found among their positions, not over the block."""
-        starts, ends, nxt, odd = _backslash_runs(buf)
-        if len(starts):
-            isq[ends[odd & (nxt == self.quote)] + 1] = 0  # an odd run escapes the quote after it
-            if self.plain:
-                # the quote parity before each run: no quote stands at a run's start, a backslash
-                before = np.bitwise_xor.accumulate(
-                    np.bitwise_xor.reduceat(isq, np.concatenate(([0], starts)))
-                )
-                inside = (before[:-1] ^ parity) & 1 == 1
-                self._check(buf, starts, ends, nxt, odd, inside, final)
-        if len(buf):
-            self.last = int(buf[-1])
-
-    def _check(
-        self,
-        buf: np.ndarray,
-        starts: np.ndarray,
-        ends: np.ndarray,
-        nxt: np.ndarray,
-        odd: np.ndarray,
-        inside: np.ndarray,
-        final: bool,
-    ) -> None:
-        n = len(buf)
-        special = np.isin(nxt, self.special)
-        if np.any(inside & special & (odd | (nxt == ord("N")))):
-            self.plain = False
-        out = ~inside
-        if out.any():
-            s, e, c = starts[out], ends[out], nxt[out]
-            before = np.where(s > 0, buf[np.maximum(s - 1, 0)], self.last)
-            beyond = np.where(e + 2 < n, buf[np.minimum(e + 2, n - 1)], -1)
-            ends_cell = (beyond == self.delimiter) | (beyond == 10) | (beyond == 13) | (beyond == -1)
-            starts_cell = (before == self.delimiter) | (before == 10) | (before == 13)
-            null = (s == e) & (c == ord("N")) & starts_cell & ends_cell
-            if not null.all():
-                self.plain = False
-        if not final and ends[-1] + 2 >= n:  # a run cut at ``_whole_runs``' limit
-            self.plain = False
-
-
-def _backslash_runs(buf: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """The block's runs of backslashes: where each starts and ends, the byte after it (-1 where the
-    block ends), and whether it is odd (its last backslash escapes that byte). Backslashes are few:
-    the runs are found among their positions, not over the block."""
-    bpos = np.flatnonzero(buf == 92)
-    cut = np.flatnonzero(np.diff(bpos) != 1)
-    starts = bpos[np.concatenate(([0], cut + 1))] if len(bpos) else bpos
-    ends = bpos[np.concatenate((cut, [len(bpos) - 1]))] if len(bpos) else bpos
-    after = ends + 1
-    n = len(buf)
-    nxt = np.where(after < n, buf[np.minimum(after, n - 1)], -1)
-    return starts, ends, nxt, (ends - starts) % 2 == 0
-
-
-def _whole_runs(chunks: Iterable[bytes], limit: int) -> Iterator[tuple[bytes, bool]]:
-    """The blocks cut again so that each holds its backslash runs whole with the two bytes after
-    them, and whether it is the last; a run longer than ``limit`` bytes is cut anyway (the check
-    then finds its end beyond the block, and the file is not plain)."""
-    held = b""
-    for chunk in chunks:
-        data = held + chunk if held else chunk
-        cut = len(data)
-        while cut > 0 and (b := data.rfind(b"\\", max(0, cut - 3), cut)) >= 0:
-            cut = b
-        if cut == 0 and len(data) > limit:
-            cut = len(data)
-        held = data[cut:]
-        if cut:
-            yield data[:cut], False
-    yield held, True
-
-
-def count_blocks(
-    chunks: Iterable[bytes],
-    quote: str | None,
-    header: bool,
-    escaping: str | None = None,
-    breaks: bool = True,
-    lf_only: bool = False,
-) -> tuple[int, bool]:
-    """``count_records`` over the bytes of a file given in blocks."""
-    check = _EnclosedCheck(ord(quote), escaping) if escaping is not None and quote is not None else None
-    # the forms a backslash escapes in see each run of backslashes whole, in one block
-    breaks = breaks and quote is None
-    whole = check is not None or breaks
-    blocks = _whole_runs(chunks, 4 * COUNT_BLOCK) if whole else ((c, False) for c in chunks)
-    q = -1 if quote is None else ord(quote)  # no byte equals -1: no quote toggles the parity
-    escaped = False  # a backslash escapes a line break (COPY's text format)
-    parity = 0
-    last_end = -1
-    pos = 0
-    last_byte = 10
-    count = 0
-    cr_data = False  # a CR before an LF, in a file of LF line ends (``lf_only``)
-    for chunk, final in blocks:
-        buf = np.frombuffer(chunk, dtype=np.uint8)
-        nl = np.flatnonzero(buf == 10)
-        if lf_only and not cr_data and len(nl):
-            cr_data = bool(np.any(buf[nl[nl > 0] - 1] == 13)) or (nl[0] == 0 and last_byte == 13)
-        isq = (buf == q).view(np.uint8) if q >= 0 else np.zeros(len(buf), np.uint8)
-        if check is not None:
-            check.unquote(buf, isq, parity, final)
-        if breaks and not escaped:
-            _, ends, nxt, odd = _backslash_runs(buf)
-            # a run cut at ``_whole_runs``' limit may escape what the next block starts with
-            escaped = bool(np.any(odd & ((nxt == 10) | (nxt == 13)))) or (
-                not final and len(ends) > 0 and ends[-1] + 2 >= len(buf)
-            )
-        if len(nl):
-            starts = np.concatenate(([0], nl + 1))
-            if starts[-1] == len(buf):
-                starts = starts[:-1]
-            acc = np.bitwise_xor.accumulate(np.bitwise_xor.reduceat(isq, starts)) ^ parity
-            ends = nl[acc[: len(nl)] == 0] + pos  # the line breaks outside quotes
-            parity = int(acc[-1])
-        else:
-            ends = nl
-            parity ^= int(np.count_nonzero(isq) & 1)
-        if len(ends):
-            prev = np.empty_like(ends)
-            prev[0] = last_end
-            prev[1:] = ends[:-1]
-            gap = ends - prev
-            at = ends - 1 - pos
-            before = np.where(at >= 0, buf[np.maximum(at, 0)], last_byte)
-            empty = (gap == 1) | ((gap == 2) & (before == 13))
-            count += int(len(ends) - np.count_nonzero(empty))
-            last_end = int(ends[-1])
-        pos += len(buf)
-        if len(buf):
-            last_byte = int(buf[-1])
-    rest = pos - 1 - last_end  # bytes after the last record's line break
-    if rest > 1 or (rest == 1 and last_byte != 13):
-        count += 1
-    plain = check is None or check.plain
-    return count - (1 if header and count else 0), parity == 0 and not escaped and plain and not cr_data
-
-
 def _fast(group: list[RawFile], r: _Reading) -> list[RawFile]:
     """Scan the group with the engine's reader; return the files that need the careful path."""
     opts = r.mapping.csv
@@ -586,7 +294,7 @@ def _fast(group: list[RawFile], r: _Reading) -> list[RawFile]:
     # The engine's reader does not report every broken record when it scans many files at once, so
     # every file's records are also counted independently, by a thread, while the engine scans.
     with ThreadPoolExecutor(max_workers=1) as pool:
-        quote, escaping, breaks = _counting(r.mapping, r.delimiter)
+        quote, escaping, breaks = counting_of(r.mapping, r.delimiter)
         counted = {
             p: pool.submit(
                 count_records,
@@ -667,7 +375,7 @@ def _joined(group: list[RawFile], r: _Reading) -> list[RawFile]:
     alone: list[RawFile] = []
     by_end: dict[bytes, list[tuple[RawFile, bytes, int]]] = {}
     for f in group:
-        small = _body(f, opts.header, _counting(r.mapping, r.delimiter))
+        small = _body(f, opts.header, counting_of(r.mapping, r.delimiter))
         if small is None:
             alone.append(f)
         else:
@@ -734,10 +442,6 @@ def _scan(
     )
 
 
-class _Overlong(Exception):
-    pass
-
-
 def line_end(head: str, header: bool) -> str:
     """The line end of a file that starts with ``head``: its first line's (LF, CRLF or CR). A CR
     alone ends the lines only where the header row ends so, or, in a file with no header row, where
@@ -790,182 +494,6 @@ class _BlockReader(io.RawIOBase):
         return n
 
 
-def _strip_end(text: str) -> str:
-    if text.endswith("\r\n"):
-        return text[:-2]
-    if text.endswith(("\n", "\r")):
-        return text[:-1]
-    return text
-
-
-def _records(
-    lines: Iterator[str], delimiter: str, quote: str, expected: int, escape: str | None = None
-) -> Iterator[tuple[str, str | None, list[str]]]:
-    """(raw text of the record without its line end, None, its fields as the parser read them) for
-    a good record, or (raw text, reason, []) for a malformed one; blank lines are not records.
-    ``escape``: the character that escapes the next one, in quotes or not (the enclosed form's
-    backslash, which the parser drops)."""
-    pending: deque[str] = deque()
-    consumed: list[str] = []
-    size = [0]
-
-    def feed() -> Iterator[str]:
-        while True:
-            if pending:
-                line = pending.popleft()
-            else:
-                nxt = next(lines, None)
-                if nxt is None:
-                    return
-                line = nxt
-            consumed.append(line)
-            size[0] += len(line)
-            if size[0] > MAX_RECORD_BYTES:
-                raise _Overlong
-            yield line
-
-    while True:
-        reader = stdcsv.reader(
-            feed(), delimiter=delimiter, quotechar=quote, doublequote=True, escapechar=escape, strict=True
-        )
-        try:
-            while True:
-                consumed.clear()
-                size[0] = 0
-                row = next(reader, None)
-                if row is None:
-                    return
-                if not row:
-                    continue  # a blank line
-                text = _strip_end("".join(consumed))
-                if len(row) != expected:
-                    yield text, f"expected {expected} fields, found {len(row)}", []
-                else:
-                    yield text, None, row
-        except (stdcsv.Error, _Overlong) as e:
-            if isinstance(e, _Overlong):
-                reason = f"a record longer than {MAX_RECORD_BYTES >> 20} MiB, or an unterminated quote"
-            elif "unexpected end of data" in str(e):
-                reason = "unterminated quote: the quoted field runs to the end of the file"
-            elif "new-line character seen in unquoted field" in str(e):
-                reason = "a carriage return (CR) alone in an unquoted field, in a file whose lines end with LF: quote the field"
-            else:
-                reason = f"broken quoting: {e}"
-            if escape is None and "\\" + quote in consumed[0]:
-                reason += (
-                    f" (a backslash before a quote, as MySQL's INTO OUTFILE escapes one: {ENCLOSED_HINT})"
-                )
-            elif escape is None and delimiter == "\t":
-                reason += f" ({PLAIN_HINT})"
-            yield _strip_end(consumed[0]), reason, []
-            rest = consumed[1:]
-            consumed.clear()
-            pending.extendleft(reversed(rest))  # resume at the line after the record's first line
-
-
-def _escapes_its_end(text: str) -> bool:
-    """``text`` ends in an odd run of backslashes: its last one escapes what follows."""
-    return (len(text) - len(text.rstrip("\\"))) % 2 == 1
-
-
-def _text_lines(lines: Iterator[str], ends: str = "\n") -> Iterator[str]:
-    """The records of COPY's text format, each without its line end: a line whose line break a
-    backslash escapes goes on with the next line (the break is data, as PostgreSQL's COPY FROM
-    reads a backslash and a line break), and at the end of the file the record ends there. A
-    backslash before the CR of a CRLF escapes the CR: the LF ends the record. ``ends``: the file's
-    line end (``line_end``), as COPY FROM takes it from the first line: in a file of LF ends, a CR
-    before an LF is data."""
-    pending = ""
-    for line in lines:
-        record = pending + line
-        cut = 2 if ends == "\r\n" and record.endswith("\r\n") else int(record.endswith(("\n", "\r")))
-        body = record[: len(record) - cut]
-        end = record[len(body) :]
-        if end in ("\n", "\r") and _escapes_its_end(body):
-            pending = record
-            if len(pending) > MAX_RECORD_BYTES:
-                yield pending  # too long: ``_text_records`` says so
-                pending = ""
-            continue
-        pending = ""
-        yield record[:-1] if end == "\r\n" and _escapes_its_end(body) else body
-    if pending:
-        yield pending
-
-
-def _text_records(
-    lines: Iterator[str], delimiter: str, expected: int, f: RawFile, ends: str = "\n"
-) -> Iterator[tuple[str, str | None]]:
-    """``_records`` for COPY's text format: a record is one line, or more where a backslash escapes
-    a line break (``_text_lines``); blank lines are not records. ``\\.`` alone on the file's last
-    line is COPY's end-of-data marker, not a record (noted on ``f``); anywhere else it is malformed."""
-    marker: str | None = None
-    for text in _text_lines(lines, ends):
-        if not text:
-            continue
-        if marker is not None:
-            yield marker, "COPY's end-of-data marker \\. before the file's last line"
-            marker = None
-        if text == TEXT_END:
-            marker = text
-            continue
-        if len(text) > MAX_RECORD_BYTES:
-            yield text[:1024], f"a record longer than {MAX_RECORD_BYTES >> 20} MiB"
-            continue
-        found = len(split_escaped(text, delimiter))
-        yield text, None if found == expected else f"expected {expected} fields, found {found}"
-    if marker is not None:
-        f.notes.append("its last line, \\., is COPY's end-of-data marker: not a record")
-
-
-def _plain_records(
-    lines: Iterator[str], delimiter: str, expected: int, ends: str = "\n"
-) -> Iterator[tuple[str, str | None, list[str]]]:
-    """``_records`` for plain text: a record is one line (``ends``: the file's line end, as in
-    ``_text_lines``), its fields split at every delimiter; blank lines are not records. Nothing
-    escapes a line break, so a value holding one splits its record in two: where the break is in
-    the last field, the first part has every field, and the rest is a line of too few (one, unless
-    the value holds a delimiter too). Such a line is malformed, and so is the record before it,
-    which may be cut short: neither is read as if whole."""
-    held: tuple[str, str | None, list[str]] | None = None  # the last record, until the next line
-    rest = False  # the held line has too few fields and follows a record (or such lines)
-    for line in lines:
-        cut = 2 if ends == "\r\n" and line.endswith("\r\n") else int(line.endswith(("\n", "\r")))
-        text = line[: len(line) - cut]
-        if not text:
-            continue
-        if len(text) > MAX_RECORD_BYTES:
-            record: tuple[str, str | None, list[str]] = (
-                text[:1024],
-                f"a record longer than {MAX_RECORD_BYTES >> 20} MiB",
-                [],
-            )
-            rest = False
-        else:
-            row = text.split(delimiter)
-            found = f"expected {expected} fields, found {len(row)}"
-            record = (text, None, row) if len(row) == expected else (text, found, [])
-            after = held is not None and (held[1] is None or rest)
-            if held is not None and held[1] is None and len(row) < expected:
-                held = (held[0], PLAIN_CUT, [])
-            rest = after and len(row) < expected
-            if rest:
-                record = (text, f"{found}, after a record: {PLAIN_REST}", [])
-        if held is not None:
-            yield held
-        held = record
-    if held is not None:
-        yield held
-
-
-#: Why the record before a line without a delimiter is quarantined, and why that line is.
-PLAIN_CUT = (
-    "the next line has too few fields, as the rest of a value with a line break would"
-    " (nothing escapes one in plain text): this record may be cut short"
-)
-PLAIN_REST = "it may be the rest of that record's last value, cut by a line break"
-
-
 def _careful(files: list[RawFile], r: _Reading) -> None:
     """Read files record by record, all into one relation: their good records numbered into one
     scratch file (file id, record number, the record's text) that is parsed and decoded once, their
@@ -1016,22 +544,22 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
                 lines = _lines(f, r.encoding, f.line_end)
                 records = (
                     (t, why, [])
-                    for t, why in _text_records(lines, r.delimiter, len(r.internal), f, f.line_end)
+                    for t, why in text_records(lines, r.delimiter, len(r.internal), f, f.line_end)
                 )
             elif bare:
                 lines = _lines(f, r.encoding, f.line_end)
-                records = _plain_records(lines, r.delimiter, len(r.internal), f.line_end)
+                records = plain_records(lines, r.delimiter, len(r.internal), f.line_end)
             else:
                 escape = "\\" if mysql else None
                 lines = _lines(f, r.encoding, f.line_end)
-                records = _records(lines, r.delimiter, opts.quote, len(r.internal), escape)
+                records = rfc_records(lines, r.delimiter, opts.quote, len(r.internal), escape)
             if opts.header:
                 next(records, None)
             for text, reason, row in records:
                 number += 1
                 decoded = None
                 if mysql and reason is None:
-                    decoded = _enclosed_record(text, row, r.delimiter, opts.quote, tokens)
+                    decoded = enclosed_record(text, row, r.delimiter, opts.quote, tokens)
                     if decoded is None:
                         reason = "broken quoting: a quote opens a field it does not close"
                 if reason is None:
@@ -1068,22 +596,6 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
     if any_good:
         _load_cleaned(cleaned, r, longest)
     cleaned.unlink()
-
-
-def _enclosed_record(text: str, row: list[str], delimiter: str, quote: str, tokens: set[str]) -> str | None:
-    """A good record of the enclosed form as the careful path's scratch file holds it: its fields
-    decoded (``decode_enclosed``), each quoted as an RFC 4180 field, NULL as an unquoted empty one;
-    None when it does not split (``split_enclosed``). ``row``: its fields as Python's csv module read
-    them, which drops each backslash: the decoding itself where the record holds none, and no field
-    is a null token (an unquoted one is NULL, a quoted one is not, and the module does not say which)."""
-    if "\\" not in text and tokens.isdisjoint(row):
-        values: Iterable[str | None] = row
-    else:
-        cells = split_enclosed(text, delimiter, quote)
-        if cells is None:
-            return None
-        values = [decode_enclosed(c, quote, tokens) for c in cells]
-    return ",".join("" if v is None else '"' + v.replace('"', '""') + '"' for v in values)
 
 
 def _cleaned_syntax(r: _Reading) -> tuple[str, str, list[str]]:

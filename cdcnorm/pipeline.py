@@ -10,6 +10,7 @@ plan; the writers (writers/), the quarantine and the ledger read its results.
 from __future__ import annotations
 
 import json
+import re
 import threading
 import time
 from collections.abc import Callable, Iterable, Sequence
@@ -35,6 +36,7 @@ from cdcnorm.errors import (
 )
 from cdcnorm.inputs import display_names, expand_inputs, gather_inputs, route, set_aside_markers, text_path
 from cdcnorm.mapping.load import LoadedMapping
+from cdcnorm.mapping.model import MAX_PLAIN_DELIMITER
 from cdcnorm.plan import Plan, RawRelation, Source
 from cdcnorm.readers import RawFile, RawTable, reader_for, streams
 from cdcnorm.scratch import scratch_folder
@@ -303,22 +305,37 @@ def _shown_names(plan: Plan) -> dict[str, str]:
     return names
 
 
+def _separator(header: str) -> str | None:
+    """The separator a header row read as one column seems to use: a tab, or the one run of
+    punctuation between its names where every such run is the same (``;``, ``|``, ``|~|``)."""
+    if "\t" in header:
+        return "\t"
+    runs: set[str] = set(re.findall(r"[^\w\s$.\-\"'()\[\]]+", header))
+    if len(runs) == 1 and len(sep := runs.pop()) <= MAX_PLAIN_DELIMITER:
+        return sep
+    return None
+
+
 def _drift_hint(d: Drift, columns: list[str]) -> str:
     if d.several:
         return (
             f"set fields.{d.field}.from to the one that holds its values (a file may have one of the "
             "alternatives only)"
         )
-    if len(columns) == 1:
-        for sep in (";", "\t", "|"):
-            if sep in columns[0]:
-                said = f"the file seems to use {sep!r} between fields: set csv.delimiter in the mapping"
-                if sep == "\t":  # COPY's text format, and MySQL's INTO OUTFILE by default
-                    said += (
-                        " (a PostgreSQL COPY or MySQL INTO OUTFILE text dump: csv.escapes: backslash, whose"
-                        " delimiter is a tab; tab-separated text that quotes and escapes nothing: csv.escapes: none)"
-                    )
-                return said
+    sep = _separator(columns[0]) if len(columns) == 1 else None
+    if sep is not None:
+        if len(sep) > 1:  # only plain text takes a delimiter of several characters
+            return (
+                f"the file seems to use {sep!r} between fields: set csv.escapes: none and csv.delimiter: "
+                f"{json.dumps(sep)} in the mapping (plain text, as bulk-copy exports write it)"
+            )
+        said = f"the file seems to use {sep!r} between fields: set csv.delimiter in the mapping"
+        if sep == "\t":  # COPY's text format, and MySQL's INTO OUTFILE by default
+            said += (
+                " (a PostgreSQL COPY or MySQL INTO OUTFILE text dump: csv.escapes: backslash, whose"
+                " delimiter is a tab; tab-separated text that quotes and escapes nothing: csv.escapes: none)"
+            )
+        return said
     key = (
         f"fields.{d.field}.from"
         if d.field not in ("action", "position", "sequence", "committed_at")

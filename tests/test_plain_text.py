@@ -391,3 +391,24 @@ def test_a_change_table_written_by_a_bulk_copy_export_converts_to_its_events(con
     assert events[3]["prior"]["note"] is None  # NULL: an empty field
     assert events[0]["committed_at"] == "2026-03-01T07:59:00Z"
     assert done.ledger()["balanced"] and not done.quarantine("lockers.deliveries")
+
+
+@pytest.mark.parametrize(
+    ("header", "said"),
+    [
+        ("op|~|pos|~|id|~|a", 'set csv.escapes: none and csv.delimiter: "|~|" in the mapping'),
+        ("op;pos;id;a", "the file seems to use ';' between fields: set csv.delimiter"),
+        ("op\tpos\tid\ta", "tab-separated text that quotes and escapes nothing: csv.escapes: none"),
+    ],
+    ids=["bulk-copy", "semicolon", "tab"],
+)
+def test_a_header_read_as_one_column_names_the_separator_it_seems_to_use(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], header: str, said: str
+) -> None:
+    (tmp_path / "m").mkdir()
+    (tmp_path / "m" / "notes.yaml").write_text(NOTES.replace("a: TYPE", "a: text"))
+    sep = header[2 : header.index("pos")]
+    (tmp_path / "n.csv").write_text(header + "\n" + sep.join(["I", "1", "1", "x"]) + "\n")
+    out = str(tmp_path / "o")
+    assert cli("convert", "--mappings", str(tmp_path / "m"), str(tmp_path / "n.csv"), "--out", out) == 4
+    assert said in capsys.readouterr().err

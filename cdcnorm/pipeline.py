@@ -807,10 +807,11 @@ def _account(trun: TableRun, engine: DuckDBEngine) -> ledger_mod.TableLedger:
 
 
 def _note_null_marks(trun: TableRun, engine: DuckDBEngine) -> None:
-    """A note on each RFC 4180 CSV file whose text fields hold ``\\N``, read as that text: MySQL and
-    PostgreSQL write it for NULL in their own dumps, which the mapping does not say these are."""
+    """A note on each RFC 4180 or plain-text CSV file whose text fields hold ``\\N``, read as that
+    text: MySQL and PostgreSQL write it for NULL in their own dumps, as Hive's text tables do in
+    plain text, which the mapping does not say these are."""
     mapping = trun.mapping.mapping
-    if mapping.csv.escapes != "quotes" or "\\N" in mapping.nulls:
+    if mapping.csv.escapes == "backslash" or "\\N" in mapping.nulls:
         return
     texts = [(i, f) for i, (f, t) in enumerate(trun.mapping.field_types.items()) if t.name == "text"]
     by_id = {f.file_id: f for f in trun.raw.files if f.format == "csv"}
@@ -822,12 +823,16 @@ def _note_null_marks(trun: TableRun, engine: DuckDBEngine) -> None:
     ):
         if file_id in by_id:
             names = ", ".join(f for _, f in texts)
-            by_id[file_id].notes.append(
-                f"{'1 row holds' if n == 1 else f'{n} rows hold'} \\N in text field"
-                f"{'s' if len(texts) != 1 else ''} {names}, kept as that text: MySQL and PostgreSQL write "
-                "\\N for NULL in their own dumps; if this is one, set csv.escapes: backslash in the mapping "
-                '(with csv.quote for MySQL\'s ENCLOSED BY form), or add "\\N" to nulls'
-            )
+            said = f"{'1 row holds' if n == 1 else f'{n} rows hold'} \\N in text field"
+            said += f"{'s' if len(texts) != 1 else ''} {names}, kept as that text: "
+            if mapping.csv.escapes == "none":  # plain text: nothing escapes, so \N is a null token
+                said += 'some tools write \\N for NULL in plain text (Hive\'s text tables); if so, add "\\N" to nulls'
+            else:
+                said += (
+                    "MySQL and PostgreSQL write \\N for NULL in their own dumps; if this is one, set csv.escapes: "
+                    'backslash in the mapping (with csv.quote for MySQL\'s ENCLOSED BY form), or add "\\N" to nulls'
+                )
+            by_id[file_id].notes.append(said)
 
 
 def show_plans(

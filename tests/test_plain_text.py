@@ -412,3 +412,16 @@ def test_a_header_read_as_one_column_names_the_separator_it_seems_to_use(
     out = str(tmp_path / "o")
     assert cli("convert", "--mappings", str(tmp_path / "m"), str(tmp_path / "n.csv"), "--out", out) == 4
     assert said in capsys.readouterr().err
+
+
+def test_a_null_mark_in_plain_text_is_kept_as_text_with_a_note_naming_nulls(convert: ConvertFn) -> None:
+    # Hive's text tables write \N for NULL in plain text, \x01 between fields (common practice)
+    text = "I\x011\x011\x01\\N\nI\x012\x012\x01x\n"
+    done = convert(_mapping(', delimiter: "\\x01"' + HEADERLESS), {"n.csv": text})
+    assert _values(done) == {1: "\\N", 2: "x"}
+    (note,) = [n["note"] for n in last_run(done.out)["notes"]]
+    assert (
+        note.startswith("1 row holds \\N in text field a, kept as that text") and 'add "\\N" to nulls' in note
+    )
+    again = convert(_mapping(', delimiter: "\\x01"' + HEADERLESS, 'nulls: ["", "\\\\N"]\n'), {"n.csv": text})
+    assert _values(again) == {1: None, 2: "x"} and not last_run(again.out)["notes"]

@@ -40,6 +40,7 @@ test: lint
 
 bench: setup
 	$(BIN)/python tests/bench/bench_convert.py --rows 1000000 5000000 --limited 20000000 --small-files 3000
+	$(BIN)/python tests/bench/bench_forms.py --rows 1000000 --pairs 3
 	$(BIN)/python tests/bench/bench_feed.py --nights 30 --rows 200000
 	$(BIN)/python tests/bench/bench_state.py --runs 5 --rows-per-run 1500000
 	$(BIN)/python tests/bench/bench_lineage.py

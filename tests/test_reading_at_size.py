@@ -744,6 +744,36 @@ def test_utf16_dumps(convert: ConvertFn, encoding: str, codec: str, bom: bytes) 
     assert done.ledger()["balanced"] and done.ledger()["total"]["read"] == 2
 
 
+@pytest.mark.parametrize("encoding", ["cp1252", "utf-16", "utf-16-le", "utf-16-be"])
+def test_a_dump_in_another_encoding_is_read_by_the_engine_from_a_utf8_copy(
+    convert: ConvertFn, encoding: str
+) -> None:
+    # The engine's reader decodes UTF-8 and Latin-1 only: any other encoding was read record by
+    # record, 3 to 4 times as long. A UTF-8 copy of the file (Python's codec decodes it: the
+    # reference) is read by the engine's reader; a file with a byte that does not decode is still
+    # read record by record, to the same values, that cell quarantined with its bytes
+    text = 'op,pos,id,a\nI,1,1,"Åsa, ""€"""\nI,2,2,"two\r\nlines"\nI,3,3,\nI,4,4,""\n'
+    raw = text.encode(encoding)
+    assert raw.decode(encoding).removeprefix("\ufeff") == text
+    mapping = PLAIN + f"csv: {{encoding: {encoding}}}\n"
+    expected = {1: 'Åsa, "€"', 2: "two\r\nlines", 3: None, 4: ""}
+    done = convert(mapping, {"n.csv": raw})
+    assert {e["key"]["id"]: e["values"]["a"] for e in done.events("t.notes")} == expected
+    assert not last_run(done.out)["notes"]  # the engine's reader read the copy
+    tail = "utf-16-le" if encoding == "utf-16" else encoding  # no second byte order mark
+    bad = b"I,5,5,bad\x81\n" if encoding == "cp1252" else "I,5,5,bad\ud800\n".encode(tail, "surrogatepass")
+    with pytest.raises(UnicodeDecodeError):
+        (raw + bad).decode(encoding)
+    careful = convert(mapping, {"n.csv": raw + bad})
+    assert {e["key"]["id"]: e["values"]["a"] for e in careful.events("t.notes")} == expected
+    (q,) = careful.quarantine("t.notes")
+    assert q["_cdcnorm"]["row"] == 5 and careful.ledger()["balanced"]
+    (note,) = [n["note"] for n in last_run(careful.out)["notes"]]
+    assert (
+        note == f"read record by record (the fast reader rejected it, or a byte of it is not {encoding} text)"
+    )
+
+
 def test_utf16_without_a_byte_order_mark_needs_its_byte_order(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
@@ -1248,3 +1278,23 @@ def test_a_text_that_starts_like_an_orc_file_is_read_as_text(convert: ConvertFn)
     text = "ORC_ID,op,pos,a\n1,I,1,x\n"
     done = convert(orc_named, {"n.csv": text})
     assert [e["key"]["ORC_ID"] for e in done.events("t.notes")] == [1]
+
+
+def test_an_unpaired_surrogate_deep_in_a_utf16_dump_is_quarantined_not_a_traceback(
+    convert: ConvertFn,
+) -> None:
+    # 00 D8 is half a surrogate pair alone: Python's UTF-16 codec (the reference) cannot decode it.
+    # Past the first MiB (the header's block) it ended the run in a traceback: the careful path's
+    # error handler took bytes 0x80-0xFF only
+    rows = "op,pos,id,a\n" + "".join(f"I,{i},{i},value {i}\n" for i in range(1, 60_001))
+    bad = "I,60001,60001,bad\ud800x\n".encode("utf-16-le", "surrogatepass")
+    raw = rows.encode("utf-16-le") + bad + "I,60002,60002,ok\n".encode("utf-16-le")
+    assert len(rows.encode("utf-16-le")) > 2 << 20
+    with pytest.raises(UnicodeDecodeError, match="illegal UTF-16 surrogate"):
+        bad.decode("utf-16-le")
+    done = convert(PLAIN + "csv: {encoding: utf-16-le}\n", {"n.csv": raw})
+    (q,) = done.quarantine("t.notes")
+    assert q["_cdcnorm"]["row"] == 60_001 and q["_cdcnorm"]["reasons"][0]["expected"] == "utf-16-le text"
+    assert base64.b64decode(q["_cdcnorm"]["raw_base64"]["a"]) == b"bad\x00\xd8x"  # the unit as it was
+    ledger = done.ledger()
+    assert ledger["balanced"] and ledger["total"]["read"] == 60_002 and ledger["total"]["emitted"] == 60_001

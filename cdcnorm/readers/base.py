@@ -18,10 +18,31 @@ file in a :class:`RawFile`. All files of one table share one :class:`RawTable`:
 
 from __future__ import annotations
 
+import codecs
 from dataclasses import dataclass, field
 from pathlib import Path
 
 from cdcnorm.engines.duckdb import DuckDBEngine
+
+
+def _bytes_as_surrogates(e: UnicodeError) -> tuple[str | bytes, int]:
+    """Decoding: each byte that does not decode becomes the lone surrogate U+DC00 + byte; encoding:
+    such a surrogate becomes its byte again. Python's ``surrogateescape`` does the same for bytes
+    0x80-0xFF only, but a unit UTF-16 cannot decode (an unpaired surrogate, 00 D8) holds a byte below
+    0x80 too: it raised, and a UTF-16 dump read record by record ended in a traceback. The bytes are
+    kept as they were, so a cell holding them is not valid text and is quarantined as bytes."""
+    if isinstance(e, UnicodeDecodeError):
+        return "".join(chr(0xDC00 + b) for b in e.object[e.start : e.end]), e.end
+    if isinstance(e, UnicodeEncodeError):
+        held = e.object[e.start : e.end]
+        if all("\udc00" <= c <= "\udcff" for c in held):
+            return bytes(ord(c) - 0xDC00 for c in held), e.end
+    raise e
+
+
+#: The error handler the readers decode and write back undecodable bytes with (``_bytes_as_surrogates``).
+BYTES_AS_SURROGATES = "cdcnorm-bytes"
+codecs.register_error(BYTES_AS_SURROGATES, _bytes_as_surrogates)
 
 #: The longest record (or field) the readers take, in bytes. A longer CSV record is quarantined
 #: as malformed (its first line, with the reason) and reading resumes at the next line.

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import codecs
 import io
 import lzma
 import tarfile
@@ -353,4 +354,28 @@ def engine_readable(path: Path, scratch: Path, reads: Collection[str] = ENGINE_R
     with open(target, "wb") as out:
         for block in blocks(path):
             out.write(block)
+    return target
+
+
+def transcoded(path: Path, scratch: Path, encoding: str) -> Path | None:
+    """A UTF-8 copy in ``scratch`` of a text file in ``encoding`` (decompressed too), which the
+    engine's reader, decoding only UTF-8 and Latin-1, can read; None where a byte does not decode
+    (the careful path keeps such a cell as bytes). A byte order mark at the start is left out (the
+    header's reading leaves it out too); line ends and every other character stay as they are, so
+    records and their numbers do too. Streamed in blocks: memory stays bounded."""
+    scratch.mkdir(parents=True, exist_ok=True)
+    target = scratch / f"{len(list(scratch.iterdir()))}-{base_name(path)}"
+    decoder = codecs.getincrementaldecoder(encoding)("strict")
+    start = True
+    try:
+        with open(target, "w", encoding="utf-8", newline="") as out:
+            for block in blocks(path):
+                text = decoder.decode(block)
+                if start and text:
+                    text, start = text.removeprefix("\ufeff"), False
+                out.write(text)
+            out.write(decoder.decode(b"", final=True))
+    except UnicodeError:  # a byte that does not decode, or a lone surrogate that does not encode
+        target.unlink()
+        return None
     return target

@@ -16,7 +16,7 @@ from typing import Any
 
 import pytest
 
-from cdcnorm.readers.count import count_blocks
+from cdcnorm.readers.count import Counting, count_blocks
 from cdcnorm.readers.forms import split_escaped, unescape
 from tests.conftest import ConvertFn, cli, last_run
 from tests.test_bad_input import NOTES
@@ -177,7 +177,7 @@ def test_an_escaped_line_break_joins_what_looks_like_two_records(convert: Conver
     ],
 )
 def test_the_record_count_sees_escaped_line_breaks(blocks: list[bytes], escaped: bool) -> None:
-    assert count_blocks(blocks, None, False)[1] is not escaped
+    assert count_blocks(blocks, False, Counting(None))[1] is not escaped
 
 
 @pytest.mark.parametrize(

@@ -17,7 +17,7 @@ import pytest
 from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
-from cdcnorm.readers.count import count_blocks
+from cdcnorm.readers.count import Counting, count_blocks
 from cdcnorm.readers.forms import decode_enclosed, split_enclosed
 from tests.conftest import ConvertFn, MySQL, cli, last_run
 from tests.test_bad_input import NOTES
@@ -30,6 +30,8 @@ def _mapping(csv: str) -> str:
 
 
 MAPPING = _mapping('quote: "\\"", delimiter: ",", ')
+#: How the record count reads that form: quoted by ", a backslash escaping in and out of quotes.
+ENCLOSED_COUNT = Counting('"', ",")
 
 #: Cells of a hand-made file and what MariaDB's ``LOAD DATA INFILE ... FIELDS TERMINATED BY ','
 #: OPTIONALLY ENCLOSED BY '"' ESCAPED BY '\\'`` reads them as (MariaDB 10.11; the server test
@@ -153,10 +155,10 @@ def test_many_small_enclosed_files_read_together_with_their_nulls(convert: Conve
 )
 def test_the_record_count_says_which_files_the_engine_reads_exactly(text: str, plain: bool) -> None:
     data = text.encode()
-    whole = count_blocks([data], '"', False, ",")
+    whole = count_blocks([data], False, ENCLOSED_COUNT)
     assert whole[1] is plain
     for cut in range(1, len(data)):  # however the file's blocks fall
-        assert count_blocks([data[:cut], data[cut:]], '"', False, ",") == whole
+        assert count_blocks([data[:cut], data[cut:]], False, ENCLOSED_COUNT) == whole
 
 
 def _outfile(value: str | None) -> str:
@@ -182,9 +184,9 @@ def test_outfile_text_splits_and_decodes_back_to_its_values_however_its_blocks_f
     lines = text.encode()
     cuts = sorted(data.draw(st.lists(st.integers(0, len(lines)), max_size=4)))
     blocks = [lines[a:b] for a, b in zip([0, *cuts], [*cuts, len(lines)], strict=True)]
-    count, _ = count_blocks(blocks, '"', False, ",")
+    count, _ = count_blocks(blocks, False, ENCLOSED_COUNT)
     assert count == len(values)
-    assert count_blocks(blocks, '"', False, ",") == count_blocks([lines], '"', False, ",")
+    assert count_blocks(blocks, False, ENCLOSED_COUNT) == count_blocks([lines], False, ENCLOSED_COUNT)
     records = [f"I,{i + 1},{i + 1},{_outfile(v)}" for i, v in enumerate(values)]
     decoded = [decode_enclosed(split_enclosed(r, ",", '"')[3], '"', {"NULL"}) for r in records]  # type: ignore[index]
     assert decoded == values
@@ -326,7 +328,7 @@ def test_the_engine_reads_a_file_only_where_it_reads_what_load_data_reads(
     done = convert(MAPPING, {"n.csv": text})
     expected = {i + 1: decode_enclosed(c, '"', {"NULL"}) for i, c in enumerate(cells)}
     assert _values(done) == expected
-    if not count_blocks([text.encode()], '"', False, ",")[1]:
+    if not count_blocks([text.encode()], False, ENCLOSED_COUNT)[1]:
         assert _careful_files(done) == {"n.csv"}  # the engine's reader may reject a plain file too
 
 

@@ -21,7 +21,7 @@ import pytest
 from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
-from cdcnorm.readers.count import count_blocks
+from cdcnorm.readers.count import Counting, count_blocks
 from tests.conftest import ConvertFn, MySQL, cli, last_run
 from tests.test_bad_input import NOTES
 
@@ -212,14 +212,18 @@ def test_a_cr_before_an_lf_is_data_where_the_lines_end_with_lf(
     done = convert(mapping, {"n.tsv": text})
     assert _values(done) == {1: "" if escapes == "backslash" else None, 2: last}
     assert _careful_files(done) == {"n.tsv"}
-    assert count_blocks([text.encode()], None, False, None, escapes == "backslash", True)[1] is False
-    assert count_blocks([text.encode()], None, False, None, escapes == "backslash")[1] is True
+    assert (
+        count_blocks([text.encode()], False, Counting(None, None, escapes == "backslash", True))[1] is False
+    )
+    assert count_blocks([text.encode()], False, Counting(None, None, escapes == "backslash"))[1] is True
 
 
 def test_the_record_count_of_plain_text_counts_lines_whatever_backslashes_and_quotes_they_hold() -> None:
     data = b'a\\\nb"\n"c\\\r\n\n'
-    assert count_blocks([data], None, False, None, False) == (3, True)
-    assert count_blocks([data], None, False)[1] is False  # COPY's text format: a backslash escapes a break
+    assert count_blocks([data], False, Counting(None, None, False)) == (3, True)
+    assert (
+        count_blocks([data], False, Counting(None))[1] is False
+    )  # COPY's text format: a backslash escapes a break
 
 
 # --- both paths read the same values ------------------------------------------------------------------

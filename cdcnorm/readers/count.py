@@ -10,6 +10,7 @@ which keeps the parity); blank lines are not records. Vectorised over blocks wit
 from __future__ import annotations
 
 from collections.abc import Iterable, Iterator
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -20,27 +21,34 @@ from cdcnorm.readers import streams
 COUNT_BLOCK = 4 << 20
 
 
-def count_records(
-    path: Path,
-    quote: str | None,
-    header: bool,
-    escaping: str | None = None,
-    breaks: bool = True,
-    lf_only: bool = False,
-) -> tuple[int, bool]:
+@dataclass(frozen=True)
+class Counting:
+    """How the record count reads a table's files (``forms.counting_of`` says, per form)."""
+
+    #: the quote; None where nothing is quoted (COPY's text format, plain text)
+    quote: str | None
+    #: the enclosed form's delimiter: a backslash escapes a quote too, and the count also says
+    #: whether the engine's reader reads every field as ``LOAD DATA`` does (``_EnclosedCheck``)
+    escaping: str | None = None
+    #: where nothing is quoted: a backslash may escape a line break (COPY's text format), which
+    #: the engine's reader would take for a record's end; False for plain text
+    breaks: bool = True
+    #: where nothing is quoted and the lines end with LF: a CR before an LF is data, which the
+    #: engine's reader may take for part of a CRLF line end and drop
+    lf_only: bool = False
+
+    def with_lines_ending(self, lf: bool) -> Counting:
+        """These rules for a file whose lines end with LF (``lf``) or not."""
+        return replace(self, lf_only=self.quote is None and lf)
+
+
+def count_records(path: Path, header: bool, how: Counting) -> tuple[int, bool]:
     """The number of data records by quote parity, independently of any CSV parser, and whether the
-    quotes balance. A line break ends a record only outside quotes (RFC 4180 doubles a quote inside a
-    quoted field, which keeps the parity); blank lines are not records. Vectorised over blocks.
-    ``quote`` None (COPY's text format): nothing is quoted, and the second value says whether no
-    backslash escapes a line break (which the engine's reader would take for a record's end);
-    ``breaks`` False (plain text): no backslash escapes anything, and every line is a record.
-    ``lf_only`` (nothing quoted, lines that end with LF): a CR before an LF is data, which the
-    engine's reader may take for part of a CRLF line end and drop, so the second value is False
-    where there is one.
-    ``escaping``, the delimiter of the enclosed form: a backslash escapes a quote too, and the second
-    value also says whether the engine's reader reads every field as ``LOAD DATA`` does
-    (``_EnclosedCheck``)."""
-    return count_blocks(streams.blocks(path, COUNT_BLOCK), quote, header, escaping, breaks, lf_only)
+    engine's reader may read the file: its quotes balance, and ``how`` finds nothing that reader
+    would read otherwise. A line break ends a record only outside quotes (RFC 4180 doubles a quote
+    inside a quoted field, which keeps the parity); blank lines are not records. Vectorised over
+    blocks."""
+    return count_blocks(streams.blocks(path, COUNT_BLOCK), header, how)
 
 
 class _EnclosedCheck:
@@ -136,18 +144,12 @@ def _whole_runs(chunks: Iterable[bytes], limit: int) -> Iterator[tuple[bytes, bo
     yield held, True
 
 
-def count_blocks(
-    chunks: Iterable[bytes],
-    quote: str | None,
-    header: bool,
-    escaping: str | None = None,
-    breaks: bool = True,
-    lf_only: bool = False,
-) -> tuple[int, bool]:
+def count_blocks(chunks: Iterable[bytes], header: bool, how: Counting) -> tuple[int, bool]:
     """``count_records`` over the bytes of a file given in blocks."""
+    quote, escaping, lf_only = how.quote, how.escaping, how.lf_only
     check = _EnclosedCheck(ord(quote), escaping) if escaping is not None and quote is not None else None
     # the forms a backslash escapes in see each run of backslashes whole, in one block
-    breaks = breaks and quote is None
+    breaks = how.breaks and quote is None
     whole = check is not None or breaks
     blocks = _whole_runs(chunks, 4 * COUNT_BLOCK) if whole else ((c, False) for c in chunks)
     q = -1 if quote is None else ord(quote)  # no byte equals -1: no quote toggles the parity

@@ -64,7 +64,7 @@ from cdcnorm.errors import InputError
 from cdcnorm.mapping.model import Mapping
 from cdcnorm.readers import streams
 from cdcnorm.readers.base import BYTES_AS_SURROGATES, MAX_RECORD_BYTES, RawFile, RawTable
-from cdcnorm.readers.count import count_blocks, count_records
+from cdcnorm.readers.count import Counting, count_blocks, count_records
 from cdcnorm.readers.forms import (
     ENCLOSED_NULL_WORD,
     TEXT_NULL,
@@ -324,17 +324,9 @@ def _fast_paths(paths: dict[str, RawFile], r: _Reading) -> list[RawFile]:
     # The engine's reader does not report every broken record when it scans many files at once, so
     # every file's records are also counted independently, by a thread, while the engine scans.
     with ThreadPoolExecutor(max_workers=1) as pool:
-        quote, escaping, breaks = counting_of(r.mapping, r.delimiter)
+        how = counting_of(r.mapping, r.delimiter)
         counted = {
-            p: pool.submit(
-                count_records,
-                Path(p),
-                quote,
-                opts.header,
-                escaping,
-                breaks,
-                quote is None and f.line_end == "\n",
-            )
+            p: pool.submit(count_records, Path(p), opts.header, how.with_lines_ending(f.line_end == "\n"))
             for p, f in paths.items()
         }
         staged = r.raw.relation("csv")
@@ -367,9 +359,7 @@ def _fast_paths(paths: dict[str, RawFile], r: _Reading) -> list[RawFile]:
     return [f for p, f in paths.items() if p in rejected]
 
 
-def _body(
-    f: RawFile, header: bool, counting: tuple[str | None, str | None, bool]
-) -> tuple[bytes, bytes, int] | None:
+def _body(f: RawFile, header: bool, how: Counting) -> tuple[bytes, bytes, int] | None:
     """A small file's records without its header, ending in a line end, with that line end and
     the number of records; None for a file that is not small or whose quotes do not balance."""
     if f.path.stat().st_size > SMALL_FILE:
@@ -385,8 +375,7 @@ def _body(
         return None
     end = b"\r\n" if nl and data[nl - 1] == 13 else b"\n"  # the first line's end is the file's
     body = data[nl + 1 :] if header else data
-    quote, escaping, breaks = counting
-    records, balanced = count_blocks([body], quote, False, escaping, breaks, quote is None and end == b"\n")
+    records, balanced = count_blocks([body], False, how.with_lines_ending(end == b"\n"))
     if not balanced:
         return None
     if body and not body.endswith(b"\n"):

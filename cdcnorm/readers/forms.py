@@ -24,6 +24,7 @@ from collections.abc import Iterable, Iterator
 from cdcnorm.engines.duckdb import TEXT_ESCAPES
 from cdcnorm.mapping.model import Mapping
 from cdcnorm.readers.base import MAX_RECORD_BYTES, RawFile
+from cdcnorm.readers.count import Counting
 
 #: COPY's text format (PostgreSQL's documentation, COPY, "Text Format"; TEXT_ESCAPES: the letters
 #: that stand for control characters after a backslash, any other character after one stands for
@@ -79,11 +80,10 @@ def quote_of(mapping: Mapping) -> str | None:
     return None if text_format(mapping) or plain(mapping) else mapping.csv.quote
 
 
-def counting_of(mapping: Mapping, delimiter: str) -> tuple[str | None, str | None, bool]:
-    """How the record count (``count_blocks``) reads the table's files: the quote (None where
-    nothing is quoted), the enclosed form's delimiter (None for the other forms), and whether a
-    backslash may escape a line break (COPY's text format)."""
-    return quote_of(mapping), delimiter if enclosed(mapping) else None, text_format(mapping)
+def counting_of(mapping: Mapping, delimiter: str) -> Counting:
+    """How the record count reads the table's files: the quote (None where nothing is quoted), the
+    enclosed form's delimiter, and whether a backslash may escape a line break (COPY's text format)."""
+    return Counting(quote_of(mapping), delimiter if enclosed(mapping) else None, text_format(mapping))
 
 
 @functools.cache

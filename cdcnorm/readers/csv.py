@@ -75,6 +75,7 @@ from cdcnorm.readers.forms import (
     enclosed_record,
     plain,
     plain_records,
+    rfc_line,
     rfc_records,
     split_enclosed,
     split_escaped,
@@ -234,13 +235,13 @@ def read_files(
         first = len(raw.relations)
         careful = _fast(group, reading)
         if enclosed(mapping):
-            _mark_nulls(reading, first)
+            _replace_cells(reading, first, TEXT_NULL, None, "nulls")
         if careful:
             _careful(careful, reading)
         if text_format(mapping):
             _unescape(reading, group, first)
         if mapping.csv.empty is not None:
-            _mark_empty(reading, first, mapping.csv.empty)
+            _replace_cells(reading, first, mapping.csv.empty, "", "empty")
 
 
 def _unescape(r: _Reading, group: list[RawFile], first: int) -> None:
@@ -261,23 +262,15 @@ def _unescape(r: _Reading, group: list[RawFile], first: int) -> None:
             by_id[file_id].malformed += n
 
 
-def _mark_nulls(r: _Reading, first: int) -> None:
-    """The enclosed form's relations the engine's reader read, from ``first`` on: a ``\\N`` cell is
-    NULL (``count._EnclosedCheck`` let no other cell read as ``\\N`` there)."""
+def _replace_cells(r: _Reading, first: int, token: str, to: str | None, name: str) -> None:
+    """The relations read from ``first`` on, whichever path read them, under a view (``name`` its
+    suffix) in which a cell that is exactly ``token`` is the text ``to`` (NULL for None): the
+    enclosed form's ``\\N`` (``count._EnclosedCheck`` let no other cell read as ``\\N`` where the
+    engine's reader read it), ``csv.empty``'s empty text."""
     for i in range(first, len(r.raw.relations)):
         relation, columns = r.raw.relations[i]
-        view = f"{relation}_nulls"
-        r.engine.replace_cells(view, relation, [c for c in r.internal if c in columns], TEXT_NULL, None)
-        r.raw.relations[i] = (view, columns)
-
-
-def _mark_empty(r: _Reading, first: int, token: str) -> None:
-    """The relations read from ``first`` on, whichever path read them: a cell that is exactly
-    ``token`` (``csv.empty``) is an empty text."""
-    for i in range(first, len(r.raw.relations)):
-        relation, columns = r.raw.relations[i]
-        view = f"{relation}_empty"
-        r.engine.replace_cells(view, relation, [c for c in r.internal if c in columns], token, "")
+        view = f"{relation}_{name}"
+        r.engine.replace_cells(view, relation, [c for c in r.internal if c in columns], token, to)
         r.raw.relations[i] = (view, columns)
 
 
@@ -435,7 +428,7 @@ def csv_syntax(mapping: Mapping, delimiter: str, encoding: str, header: bool | N
     opts = mapping.csv
     if enclosed(mapping):
         # the engine's reader takes no null token holding its escape: ``\\N`` is read as written
-        # and made NULL after (``_mark_nulls``); an unquoted empty field is an empty text
+        # and made NULL after (``_replace_cells``); an unquoted empty field is an empty text
         tokens = (ENCLOSED_NULL_WORD, *(t for t in mapping.nulls if t and "\\" not in t))
         nulls = tuple(dict.fromkeys(tokens))
     else:
@@ -559,18 +552,16 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
             number = 0
             good = 0
             records: Iterator[tuple[str, str | None, list[str]]]
+            lines = _lines(f, r.encoding, f.line_end)
             if copy_text:
-                lines = _lines(f, r.encoding, f.line_end)
                 records = (
                     (t, why, [])
                     for t, why in text_records(lines, r.delimiter, len(r.internal), f, f.line_end)
                 )
             elif bare:
-                lines = _lines(f, r.encoding, f.line_end)
                 records = plain_records(lines, r.delimiter, len(r.internal), f.line_end)
             else:
                 escape = "\\" if mysql else None
-                lines = _lines(f, r.encoding, f.line_end)
                 records = rfc_records(lines, r.delimiter, opts.quote, len(r.internal), escape)
             if opts.header:
                 next(records, None)
@@ -583,12 +574,10 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
                         reason = "broken quoting: a quote opens a field it does not close"
                 if reason is None:
                     good += 1
-                    if copy_text:  # the cells as written, quoted as RFC 4180 fields
-                        text = ",".join(
-                            '"' + c.replace('"', '""') + '"' for c in split_escaped(text, r.delimiter)
-                        )
-                    elif bare:  # the cells as RFC 4180 fields, a null token as an unquoted empty one
-                        text = ",".join("" if c in nulls else '"' + c.replace('"', '""') + '"' for c in row)
+                    if copy_text:  # the cells as written, decoded later
+                        text = rfc_line(split_escaped(text, r.delimiter))
+                    elif bare:  # a null token is NULL
+                        text = rfc_line(None if c in nulls else c for c in row)
                     elif decoded is not None:
                         text = decoded
                     line = f"{f.file_id}{sep}{number}{sep}{text}\n".encode("utf-8", BYTES_AS_SURROGATES)

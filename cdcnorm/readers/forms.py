@@ -344,6 +344,12 @@ PLAIN_CUT = (
 PLAIN_REST = "it may be the rest of that record's last value, cut by a line break"
 
 
+def rfc_line(values: Iterable[str | None]) -> str:
+    """Values as one RFC 4180 record (no line end), as the careful path's scratch file holds them:
+    each text quoted, a quote doubled, NULL an unquoted empty field."""
+    return ",".join("" if v is None else '"' + v.replace('"', '""') + '"' for v in values)
+
+
 def enclosed_record(text: str, row: list[str], delimiter: str, quote: str, tokens: set[str]) -> str | None:
     """A good record of the enclosed form as the careful path's scratch file holds it: its fields
     decoded (``decode_enclosed``), each quoted as an RFC 4180 field, NULL as an unquoted empty one;
@@ -357,4 +363,4 @@ def enclosed_record(text: str, row: list[str], delimiter: str, quote: str, token
         if cells is None:
             return None
         values = [decode_enclosed(c, quote, tokens) for c in cells]
-    return ",".join("" if v is None else '"' + v.replace('"', '""') + '"' for v in values)
+    return rfc_line(values)

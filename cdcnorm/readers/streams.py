@@ -344,13 +344,18 @@ def head(path: Path, size: int = 1 << 20) -> bytes:
     return b""
 
 
+def _scratch_copy(path: Path, scratch: Path) -> Path:
+    """A new path in ``scratch`` for a copy of ``path`` (numbered: two inputs may share a name)."""
+    scratch.mkdir(parents=True, exist_ok=True)
+    return scratch / f"{len(list(scratch.iterdir()))}-{base_name(path)}"
+
+
 def engine_readable(path: Path, scratch: Path, reads: Collection[str] = ENGINE_READS) -> Path:
     """A path the engine's readers can open: the file itself, or a decompressed copy in ``scratch``;
     ``reads``: the suffixes the reader decompresses itself (the Parquet reader: none)."""
     if compression(path) is None or path.suffix.lower() in reads:
         return path
-    scratch.mkdir(parents=True, exist_ok=True)
-    target = scratch / f"{len(list(scratch.iterdir()))}-{base_name(path)}"
+    target = _scratch_copy(path, scratch)
     with open(target, "wb") as out:
         for block in blocks(path):
             out.write(block)
@@ -363,8 +368,7 @@ def transcoded(path: Path, scratch: Path, encoding: str) -> Path | None:
     (the careful path keeps such a cell as bytes). A byte order mark at the start is left out (the
     header's reading leaves it out too); line ends and every other character stay as they are, so
     records and their numbers do too. Streamed in blocks: memory stays bounded."""
-    scratch.mkdir(parents=True, exist_ok=True)
-    target = scratch / f"{len(list(scratch.iterdir()))}-{base_name(path)}"
+    target = _scratch_copy(path, scratch)
     decoder = codecs.getincrementaldecoder(encoding)("strict")
     start = True
     try:

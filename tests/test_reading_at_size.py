@@ -1295,6 +1295,105 @@ def test_an_unpaired_surrogate_deep_in_a_utf16_dump_is_quarantined_not_a_traceba
     done = convert(PLAIN + "csv: {encoding: utf-16-le}\n", {"n.csv": raw})
     (q,) = done.quarantine("t.notes")
     assert q["_cdcnorm"]["row"] == 60_001 and q["_cdcnorm"]["reasons"][0]["expected"] == "utf-16-le text"
-    assert base64.b64decode(q["_cdcnorm"]["raw_base64"]["a"]) == b"bad\x00\xd8x"  # the unit as it was
+    # the cell's bytes as the dump holds them (before: its good characters in UTF-8, b"bad\x00\xd8x")
+    assert base64.b64decode(q["_cdcnorm"]["raw_base64"]["a"]) == "bad".encode("utf-16-le") + b"\x00\xd8x\x00"
     ledger = done.ledger()
     assert ledger["balanced"] and ledger["total"]["read"] == 60_002 and ledger["total"]["emitted"] == 60_001
+
+
+def _units(codec: str, *parts: str | bytes) -> bytes:
+    """Text parts in ``codec`` (Python's codec: the reference), byte parts as they are."""
+    return b"".join(p if isinstance(p, bytes) else p.encode(codec) for p in parts)
+
+
+@pytest.mark.parametrize(
+    ("encoding", "codec", "bom"),
+    [("utf-16-le", "utf-16-le", b""), ("utf-16-be", "utf-16-be", b""), ("utf-16", "utf-16-be", b"\xfe\xff")],
+    ids=["le", "be", "be-by-its-mark"],
+)
+def test_a_utf16_unit_that_does_not_decode_keeps_its_bytes_whatever_they_are(
+    convert: ConvertFn, encoding: str, codec: str, bom: bytes
+) -> None:
+    # A lone surrogate unit (Python's codec cannot decode one: the reference) whose bytes are a
+    # comma, a quote or a line feed: written back as themselves to the careful path's scratch file,
+    # they split its record there, and the run ended in a traceback (pyarrow: "Expected 4 columns,
+    # got 5"). Each such cell is quarantined with its bytes as the dump holds them.
+    def unit(low: int) -> bytes:
+        return bytes((low, 0xD8)) if codec.endswith("le") else bytes((0xD8, low))
+
+    parts = {2: ("a", unit(0x2C), "b"), 3: ("x", unit(0x22)), 4: (unit(0x0A),)}
+    raw = bom + _units(codec, "op,pos,id,a\nI,1,1,ok\n")
+    for i, cell in parts.items():
+        raw += _units(codec, f"I,{i},{i},", *cell, "\n")
+    with pytest.raises(UnicodeDecodeError):
+        raw.decode(encoding)
+    done = convert(PLAIN + f"csv: {{encoding: {encoding}}}\n", {"n.csv": raw})
+    assert [e["values"]["a"] for e in done.events("t.notes")] == ["ok"]
+    got = {int(q["id"]): q["_cdcnorm"] for q in done.quarantine("t.notes")}
+    assert {i: base64.b64decode(q["raw_base64"]["a"]) for i, q in got.items()} == {
+        i: _units(codec, *cell) for i, cell in parts.items()
+    }
+    assert all(q["reasons"][0]["expected"] == f"{encoding} text" for q in got.values())
+    assert done.ledger()["balanced"] and done.ledger()["total"]["read"] == 4
+
+
+def test_an_odd_last_byte_of_a_utf16_dump_is_not_read_as_a_character(convert: ConvertFn) -> None:
+    # A UTF-16 file cut one byte into a unit (Python's codec: "truncated data"). The byte 0x41
+    # was written back as itself and read as the letter A: a malformed record "A" (no line end
+    # after the last record), or a last value with an A it does not hold. Now the record is shown as
+    # its bytes, base64, and the value is quarantined with its bytes.
+    head = "op,pos,id,a\nI,1,1,ok\n".encode("utf-16-le")
+    with pytest.raises(UnicodeDecodeError, match="truncated data"):
+        (head + b"A").decode("utf-16-le")
+    mapping = PLAIN + "csv: {encoding: utf-16-le}\n"
+    other = "op,pos,id,a\nI,3,3,ok\nI,2,2,cut".encode("utf-16-le") + b"A"
+    done = convert(mapping, {"n1.csv": head + b"A", "n2.csv": other})
+    by_file = {q["_cdcnorm"]["file"]: q["_cdcnorm"] for q in done.quarantine("t.notes")}
+    assert base64.b64decode(by_file["n1.csv"]["text"]) == b"A"
+    assert by_file["n1.csv"]["reasons"][0]["reason"] == (
+        "expected 4 fields, found 1; not utf-16-le text (text shown base64)"
+    )
+    assert base64.b64decode(by_file["n2.csv"]["raw_base64"]["a"]) == "cut".encode("utf-16-le") + b"A"
+    assert [e["values"]["a"] for e in done.events("t.notes")] == ["ok", "ok"]
+    assert done.ledger()["balanced"] and done.ledger()["total"]["read"] == 4
+
+
+@pytest.mark.parametrize(
+    ("encoding", "bad"), [("utf-8", b"a\xff\xfeb"), ("cp1252", "é".encode("cp1252") + b"\x81")]
+)
+def test_a_malformed_record_with_bytes_that_do_not_decode_is_shown_as_its_bytes(
+    convert: ConvertFn, encoding: str, bad: bytes
+) -> None:
+    # A record of the wrong length whose bytes do not all decode (Python's codec: the reference)
+    # was shown with U+FFFD in place of each such byte: the record's bytes were lost. It is shown as
+    # the base64 of its bytes, as a JSON line that is not UTF-8 is.
+    with pytest.raises(UnicodeDecodeError):
+        bad.decode(encoding)
+    record = b"I,2,2," + bad + b",extra"
+    done = convert(
+        PLAIN + f"csv: {{encoding: {encoding}}}\n", {"n.csv": b"op,pos,id,a\nI,1,1,ok\n" + record + b"\n"}
+    )
+    (q,) = done.quarantine("t.notes")
+    assert base64.b64decode(q["_cdcnorm"]["text"]) == record
+    assert (
+        q["_cdcnorm"]["reasons"][0]["reason"]
+        == f"expected 4 fields, found 5; not {encoding} text (text shown base64)"
+    )
+    assert done.ledger()["balanced"]
+
+
+def test_a_copy_text_record_with_a_cell_that_is_not_text_is_shown_as_its_bytes(convert: ConvertFn) -> None:
+    # COPY's text format (PostgreSQL's documentation, COPY, "Text Format"): an octal escape makes the
+    # record malformed; a cell of it that is not UTF-8 (Python's codec: the reference) was shown
+    # as one U+FFFD, its bytes lost. The record is shown as its bytes, base64.
+    bad = b"a\xffb"
+    with pytest.raises(UnicodeDecodeError):
+        bad.decode("utf-8")
+    record = b"I\t2\t2\\101\t" + bad
+    done = convert(
+        PLAIN + "csv: {escapes: backslash}\n", {"n.csv": b"op\tpos\tid\ta\nI\t1\t1\tok\n" + record + b"\n"}
+    )
+    (q,) = done.quarantine("t.notes")
+    assert base64.b64decode(q["_cdcnorm"]["text"]) == record
+    assert q["_cdcnorm"]["reasons"][0]["reason"].endswith("; not UTF-8 text (text shown base64)")
+    assert [e["values"]["a"] for e in done.events("t.notes")] == ["ok"]

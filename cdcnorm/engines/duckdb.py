@@ -784,13 +784,15 @@ class DuckDBEngine:
         nulls: Sequence[str],
         delimiter: str,
         malformed: str,
+        encoding: str = "utf-8",
     ) -> dict[int, int]:
         """COPY's text format (PostgreSQL's documentation, COPY, "Text Format"): a view ``view`` of
         ``source`` with its cells decoded: a cell equal to one of ``nulls`` is NULL; after a
         backslash, b f n r t v stand for their control characters and any other character for
         itself. A row with a cell COPY never writes (an octal ``\\101`` or hex ``\\x41`` sequence,
         which name bytes, or a lone backslash at its end) is left out of the view and appended to
-        ``malformed`` with its record's text (the cells joined by ``delimiter``) and the reason.
+        ``malformed`` with its record's text (the cells joined by ``delimiter``; the base64 of their
+        bytes where a cell is not text in the dump's ``encoding``) and the reason.
         Returns how many rows each file id lost so. ``columns``: (internal name, raw name), in the
         file's order. A cell with no backslash is not looked at twice."""
         controls = " ".join(
@@ -810,12 +812,29 @@ class DuckDBEngine:
             f"lambda t: CASE WHEN t[1] <> '\\' THEN t {controls} ELSE t[2] END), '') END AS {ident(c)}"
             for c, _ in columns
         )
-        # a cell the reader could not decode is NULL here (listed in __enc): shown as U+FFFD
-        text = f"concat_ws({lit(delimiter)}, {', '.join(f'coalesce({ident(c)}, chr(65533))' for c, _ in columns)})"
+
+        # A cell the reader could not decode is NULL here, its bytes in __enc: the record is then
+        # shown as the base64 of its bytes (as the careful path shows one), not with a character in
+        # place of the cell. The member of a name in __enc, as a JSON pointer (RFC 6901, section 3).
+        def pointer(name: str) -> str:
+            return lit("/" + name.replace("~", "~0").replace("/", "~1"))
+
+        text = f"concat_ws({lit(delimiter)}, {', '.join(ident(c) for c, _ in columns)})"
+        cell_bytes = [
+            f"coalesce(encode({ident(c)}), from_base64(json_extract_string(__enc, {pointer(name)})))"
+            for c, name in columns
+        ]
+        as_bytes = f" || encode({lit(delimiter)}) || ".join(cell_bytes) if columns else "''::BLOB"
+        shown = f"CASE WHEN __enc IS NULL THEN {text} ELSE to_base64({as_bytes}) END"
+        # (in a dump not in UTF-8 the other cells' bytes are their text's in UTF-8)
+        note = "; not UTF-8 text (text shown base64)"
+        if encoding.lower().replace("_", "-") not in ("utf-8", "utf8"):
+            note = f"; a cell is not {encoding} text (text shown base64, the other cells in UTF-8)"
+        why = f"__bad || CASE WHEN __enc IS NULL THEN '' ELSE {lit(note)} END"
         counted = f"SELECT __file, count(*) FROM {ident(malformed)} GROUP BY __file"
         before = dict(self.rows(counted))
         self.con.execute(
-            f"INSERT INTO {ident(malformed)} SELECT __file, __row, {text}, __bad "
+            f"INSERT INTO {ident(malformed)} SELECT __file, __row, {shown}, {why} "
             f"FROM (SELECT *, {reason} AS __bad FROM {ident(source)}) WHERE __bad IS NOT NULL"
         )
         lost = {
@@ -846,6 +865,18 @@ class DuckDBEngine:
 
         self.con.execute(f"CREATE VIEW {ident(view)} AS {marked(ident(source))}")
         self._decoding_views[view] = (source, marked)
+
+    def set_column(self, table: str, column: str, values: pa.Table) -> None:
+        """Set ``column`` of the rows of ``table`` that ``values`` (``__file``, ``__row``, ``column``)
+        names to its values there."""
+        self.con.register("__set_values", values)
+        try:
+            self.con.execute(
+                f"UPDATE {ident(table)} t SET {ident(column)} = v.{ident(column)} FROM __set_values v "
+                "WHERE t.__file = v.__file AND t.__row = v.__row"
+            )
+        finally:
+            self.con.unregister("__set_values")
 
     def create_malformed(self, table: str) -> None:
         self.con.execute(

@@ -18,7 +18,10 @@ file in a :class:`RawFile`. All files of one table share one :class:`RawTable`:
 
 from __future__ import annotations
 
+import base64
 import codecs
+import re
+import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -43,6 +46,82 @@ def _bytes_as_surrogates(e: UnicodeError) -> tuple[str | bytes, int]:
 #: The error handler the readers decode and write back undecodable bytes with (``_bytes_as_surrogates``).
 BYTES_AS_SURROGATES = "cdcnorm-bytes"
 codecs.register_error(BYTES_AS_SURROGATES, _bytes_as_surrogates)
+
+
+def _bytes_escaped(e: UnicodeError) -> tuple[str | bytes, int]:
+    """Encoding to UTF-8: each undecodable byte ``b`` (the lone surrogate U+DC00 + b) becomes the two
+    bytes 0xF8 + b // 64, 0x80 + b % 64. Neither is ASCII, so no byte of a file in UTF-16 or another
+    encoding whose bytes are not UTF-8's (a 0x2C unit, a comma) can split or quote a field of the
+    careful path's UTF-8 scratch file, and 0xF8-0xFB start no UTF-8 sequence (RFC 3629, section 3), so
+    the cell stays not valid text. Decoding UTF-8: such a pair becomes the surrogate again
+    (``original_bytes``)."""
+    if isinstance(e, UnicodeEncodeError):
+        held = e.object[e.start : e.end]
+        if all("\udc00" <= c <= "\udcff" for c in held):
+            return b"".join(bytes((0xF8 | (ord(c) - 0xDC00) >> 6, 0x80 | ord(c) & 0x3F)) for c in held), e.end
+    if isinstance(e, UnicodeDecodeError):
+        pair = e.object[e.start : e.start + 2]
+        if len(pair) == 2 and 0xF8 <= pair[0] <= 0xFB and 0x80 <= pair[1] <= 0xBF:
+            return chr(0xDC00 + ((pair[0] & 0x03) << 6 | pair[1] & 0x3F)), e.start + 2
+    raise e
+
+
+#: The error handler of the careful path's scratch file for dumps not in UTF-8 (``_bytes_escaped``).
+BYTES_ESCAPED = "cdcnorm-escaped"
+codecs.register_error(BYTES_ESCAPED, _bytes_escaped)
+
+
+def writing_codec(encoding: str, start: bytes) -> str:
+    """The codec that writes text back to the bytes it was read from, in a file in ``encoding`` that
+    starts with ``start``: a codec that takes its byte order from a byte order mark (utf-16, utf-32)
+    becomes the order the file's mark gives or, without one, the machine's, as Python's decoder
+    reads it; utf-8-sig becomes utf-8 (the mark is not a record's)."""
+    name = codecs.lookup(encoding).name
+    marks = {
+        "utf-16": (codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE),
+        "utf-32": (codecs.BOM_UTF32_LE, codecs.BOM_UTF32_BE),
+    }
+    if name in marks:
+        little, big = marks[name]
+        order = (
+            "le" if start.startswith(little) else "be" if start.startswith(big) else sys.byteorder[0] + "e"
+        )
+        return f"{name}-{order}"
+    return "utf-8" if name == "utf-8-sig" else name
+
+
+def is_utf8(encoding: str) -> bool:
+    """Text in ``encoding`` is written to UTF-8 as its own bytes, undecodable ones too."""
+    return codecs.lookup(encoding).name in ("utf-8", "utf-8-sig", "ascii")
+
+
+def original_bytes(cell: bytes, codec: str) -> bytes:
+    """The bytes in the dump of a cell that the careful path wrote to its scratch file with
+    ``BYTES_ESCAPED`` (its good characters as UTF-8, each undecodable byte escaped): its text
+    written back in ``codec`` (``writing_codec``), each undecodable byte as it was."""
+    return written(cell.decode("utf-8", BYTES_ESCAPED), codec)
+
+
+def written(text: str, codec: str) -> bytes:
+    """``text`` in ``codec``, each undecodable byte (a lone surrogate U+DC00 + byte) as it was. Not
+    through the codec's error handler: UTF-16's and UTF-32's take only whole units from one, and a
+    file's last, odd byte is not one."""
+    return b"".join(
+        bytes(ord(c) - 0xDC00 for c in piece) if _UNDECODED.match(piece) else piece.encode(codec)
+        for piece in _PIECES.findall(text)
+    )
+
+
+def shown_base64(text: str, codec: str) -> str | None:
+    """The bytes of a record's text, base64, where it holds a byte that did not decode (the
+    quarantine shows such a record so, not with a replacement character); None where it is text."""
+    if not _UNDECODED.search(text):
+        return None
+    return base64.b64encode(written(text, codec)).decode("ascii")
+
+
+_UNDECODED = re.compile("[\udc00-\udcff]")
+_PIECES = re.compile("[\udc00-\udcff]+|[^\udc00-\udcff]+")
 
 #: The longest record (or field) the readers take, in bytes. A longer CSV record is quarantined
 #: as malformed (its first line, with the reason) and reading resumes at the next line.

@@ -48,9 +48,11 @@ and decodes is in ``forms.py``, the independent record count in ``count.py``.
 
 from __future__ import annotations
 
+import base64
 import codecs
 import csv as stdcsv
 import io
+import json
 from collections.abc import Iterator
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, replace
@@ -63,7 +65,17 @@ from cdcnorm.engines.duckdb import CsvSyntax, DuckDBEngine
 from cdcnorm.errors import InputError
 from cdcnorm.mapping.model import Mapping
 from cdcnorm.readers import streams
-from cdcnorm.readers.base import BYTES_AS_SURROGATES, MAX_RECORD_BYTES, RawFile, RawTable
+from cdcnorm.readers.base import (
+    BYTES_AS_SURROGATES,
+    BYTES_ESCAPED,
+    MAX_RECORD_BYTES,
+    RawFile,
+    RawTable,
+    is_utf8,
+    original_bytes,
+    shown_base64,
+    writing_codec,
+)
 from cdcnorm.readers.count import Counting, count_blocks, count_records
 from cdcnorm.readers.forms import (
     ENCLOSED_NULL_WORD,
@@ -83,6 +95,7 @@ from cdcnorm.readers.forms import (
     text_records,
     unescape,
 )
+from cdcnorm.sql import ident
 
 FORMAT = "csv"
 SUFFIXES = (".csv", ".tsv")
@@ -255,7 +268,7 @@ def _unescape(r: _Reading, group: list[RawFile], first: int) -> None:
         relation, columns = r.raw.relations[i]
         view = f"{relation}_text"
         cells = [(c, name) for c, name in named if c in columns]
-        bad = r.engine.unescape_text(view, relation, cells, tokens, r.delimiter, malformed)
+        bad = r.engine.unescape_text(view, relation, cells, tokens, r.delimiter, malformed, r.encoding)
         r.raw.relations[i] = (view, columns)
         for file_id, n in bad.items():
             by_id[file_id].rows -= n
@@ -535,9 +548,7 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
             {
                 "__file": pa.array(bad_files, pa.int32()),
                 "__row": pa.array(bad_rows, pa.int64()),
-                "text": pa.array(
-                    [t.encode("utf-8", BYTES_AS_SURROGATES).decode("utf-8", "replace") for t in bad_text]
-                ),
+                "text": pa.array(bad_text, pa.string()),
                 "reason": pa.array(bad_reason, pa.string()),
             }
         )
@@ -547,8 +558,17 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
 
     any_good = False
     longest = 0  # bytes of the longest good record written (the parser's block must hold one)
+    # A byte that does not decode is written to the scratch file as itself where the dump is UTF-8,
+    # escaped where it is not (BYTES_ESCAPED: a UTF-16 unit's byte may be a comma or a quote), and
+    # each file's codec writes such a cell back to its bytes once the rows are read.
+    utf8 = is_utf8(r.encoding)
+    undecoded = BYTES_AS_SURROGATES if utf8 else BYTES_ESCAPED
+    writing: dict[int, str] = {}
     with open(cleaned, "wb") as out:
         for f in files:
+            codec = writing[f.file_id] = (
+                "utf-8" if utf8 else writing_codec(r.encoding, streams.head(f.path, 4))
+            )
             number = 0
             good = 0
             records: Iterator[tuple[str, str | None, list[str]]]
@@ -580,14 +600,17 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
                         text = rfc_line(None if c in nulls else c for c in row)
                     elif decoded is not None:
                         text = decoded
-                    line = f"{f.file_id}{sep}{number}{sep}{text}\n".encode("utf-8", BYTES_AS_SURROGATES)
+                    line = f"{f.file_id}{sep}{number}{sep}{text}\n".encode("utf-8", undecoded)
                     longest = max(longest, len(line))
                     out.write(line)
                 else:
+                    shown = shown_base64(text, codec)  # not a replacement character for a byte
                     bad_files.append(f.file_id)
                     bad_rows.append(number)
-                    bad_text.append(text)
-                    bad_reason.append(reason)
+                    bad_text.append(text if shown is None else shown)
+                    bad_reason.append(
+                        reason if shown is None else f"{reason}; not {r.encoding} text (text shown base64)"
+                    )
                     if len(bad_rows) >= 10_000:
                         flush_bad()
             f.rows = good
@@ -603,8 +626,31 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
             any_good = any_good or good > 0
     flush_bad()
     if any_good:
-        _load_cleaned(cleaned, r, longest)
+        staged = _load_cleaned(cleaned, r, longest)
+        if not utf8:
+            _restore_bytes(staged, r, writing)
     cleaned.unlink()
+
+
+def _restore_bytes(relation: str, r: _Reading, writing: dict[int, str]) -> None:
+    """The cells of ``relation`` that are not valid text hold the careful path's scratch bytes (good
+    characters as UTF-8, undecodable bytes escaped): give them the bytes the dump holds, in each
+    file's codec (``writing``), as ``__enc`` shows them. Only the rows with such a cell are looked at."""
+    bad = r.engine.arrow(f"SELECT __file, __row, __enc FROM {ident(relation)} WHERE __enc IS NOT NULL")
+    if not bad.num_rows:
+        return
+    encs = []
+    for file_id, enc in zip(bad["__file"].to_pylist(), bad["__enc"].to_pylist(), strict=True):
+        cells = json.loads(enc)
+        restored = (
+            (name, base64.b64encode(original_bytes(base64.b64decode(b64), writing[file_id])).decode("ascii"))
+            for name, b64 in cells.items()
+        )
+        # the form decode_text writes (json.dumps of each name, no spaces)
+        encs.append("{" + ",".join(f"{json.dumps(n)}:{json.dumps(b)}" for n, b in restored) + "}")
+    r.engine.set_column(
+        relation, "__enc", bad.select(["__file", "__row"]).append_column("__enc", pa.array(encs))
+    )
 
 
 def _cleaned_syntax(r: _Reading) -> tuple[str, str, list[str]]:
@@ -619,7 +665,7 @@ def _cleaned_syntax(r: _Reading) -> tuple[str, str, list[str]]:
     return r.delimiter, r.mapping.csv.quote, list(r.mapping.nulls)
 
 
-def _load_cleaned(cleaned: Path, r: _Reading, longest: int) -> None:
+def _load_cleaned(cleaned: Path, r: _Reading, longest: int) -> str:
     """Parse the numbered good records (cells as bytes), then decode them in the engine. A block
     holds two of the ``longest`` records and is at least CAREFUL_BLOCK: the parser's blocks (a few
     at a time, parsed in parallel) are outside the engine's memory, so they stay as small as the
@@ -644,3 +690,4 @@ def _load_cleaned(cleaned: Path, r: _Reading, longest: int) -> None:
     r.engine.decode_text(staged, staged + "_bin", [(c, r.raw.columns[int(c[1:])]) for c in r.internal])
     r.engine.drop(staged + "_bin")
     r.raw.add_relation(staged, r.internal)
+    return staged

@@ -812,3 +812,44 @@ def test_a_mapping_names_the_format_its_files_names_do_not_tell(
     assert cli("check", str(tmp_path / "p"), "--mappings", str(tmp_path / "m"), "--json") == 0
     (f,) = json.loads(capsys.readouterr().out)["files"]
     assert f["format"] == "parquet" and f["rows"] == 1
+
+
+def test_parquet_decimals_of_more_than_38_digits_keep_every_digit(convert: ConvertFn) -> None:
+    # The engine reads a Parquet DECIMAL of more than 38 digits (pyarrow's decimal256) as a DOUBLE:
+    # 12345678901234567890123456789012345678.12 became "1.2345678901234568e+37", and a text field
+    # read it so without a word. Python's decimal is the reference for each value's digits.
+    from decimal import Decimal
+
+    values = [
+        Decimal("12345678901234567890123456789012345678.12"),
+        Decimal("-0.10"),
+        Decimal("123456789012345678.25"),
+    ]
+    assert float(values[0]) != values[0]  # what a floating-point number makes of it
+    wide = pa.decimal256(40, 2)
+    table = pa.table(
+        {
+            "op": ["I", "I", "I"],
+            "pos": pa.array([1, 2, 3], pa.int64()),
+            "id": pa.array([1, 2, 3], pa.int64()),
+            "a": pa.array(values, wide),
+            "b": pa.array(values, wide),
+            "n": pa.array([{"x": v} for v in values], pa.struct([("x", wide)])),
+        }
+    )
+    mapping = MAPPING.replace("  b: text", "  b: decimal(20,2)\n  n: json") + "unused: []\n"
+    done = convert(mapping, {"n.parquet": _parquet(table)})
+    events = {e["key"]["id"]: e["values"] for e in done.events("t.notes")}
+    # a text field: the exact digits, the scale's zeros kept (the decimal's own text)
+    assert {i: v["a"] for i, v in events.items()} == {2: "-0.10", 3: "123456789012345678.25"}
+    assert {i: v["b"] for i, v in events.items()} == {2: "-0.10", 3: "123456789012345678.25"}
+    assert events[3]["n"] == {"x": "123456789012345678.25"}  # nested: a JSON string, told in the note
+    (q,) = done.quarantine("t.notes")  # 38 integer digits do not fit decimal(20,2)
+    assert q["_cdcnorm"]["row"] == 1 and q["a"] == q["b"] == str(values[0])
+    assert Decimal(q["b"]) == values[0]
+    (note,) = [n["note"] for n in last_run(done.out)["notes"]]
+    assert note == (
+        "decimals of more than 38 digits read as their exact text (a, b, n): the engine reads them as "
+        "floating-point numbers; in n they are JSON strings"
+    )
+    assert done.ledger()["balanced"]

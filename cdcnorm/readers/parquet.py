@@ -3,7 +3,11 @@ reading it take (``blob_forms``: hex; base64 for a ``bytes`` field with ``encodi
 16-byte value's 8-4-4-4-12 form for a ``uuid`` field), nested values (structs, lists, maps) as
 RFC 8259 JSON text. A mapped dotted column (``after.id``) that is not a
 top-level column reads the member of a struct column, as a nested key of JSON Lines does. A string
-equal to a null token other than "" is NULL."""
+equal to a null token other than "" is NULL.
+
+The engine reads a decimal of more than 38 digits (Parquet's DECIMAL; pyarrow's decimal256) as a
+floating-point number, which changes its value: a file holding one is read from a copy in scratch in
+which such decimals are their exact text (``_exact_decimals``), with a note."""
 
 from __future__ import annotations
 
@@ -76,6 +80,61 @@ def _blob_form(readers: dict[str, str], column: str, path: Path) -> str:
     )
 
 
+#: The most digits of a decimal the engine reads as one (DuckDB's DECIMAL: 38); a longer one it
+#: reads as a DOUBLE.
+ENGINE_DECIMAL_DIGITS = 38
+#: Rows of a file converted at a time for its exact copy (memory stays bounded).
+COPY_BATCH = 64 * 1024
+
+
+def _as_text_type(typ: pa.DataType) -> pa.DataType:
+    """``typ`` with every decimal of more than ENGINE_DECIMAL_DIGITS digits, nested ones too, made
+    text (pyarrow's cast writes a decimal's exact digits, its scale's zeros kept)."""
+    if pa.types.is_decimal(typ) and typ.precision > ENGINE_DECIMAL_DIGITS:
+        return pa.string()
+    if pa.types.is_struct(typ):
+        return pa.struct(
+            [f.with_type(_as_text_type(f.type)) for f in (typ.field(i) for i in range(typ.num_fields))]
+        )
+    if pa.types.is_map(typ):
+        return pa.map_(_as_text_type(typ.key_type), typ.item_field.with_type(_as_text_type(typ.item_type)))
+    if pa.types.is_large_list(typ):
+        return pa.large_list(typ.value_field.with_type(_as_text_type(typ.value_type)))
+    if pa.types.is_fixed_size_list(typ):
+        return pa.list_(typ.value_field.with_type(_as_text_type(typ.value_type)), typ.list_size)
+    if pa.types.is_list(typ):
+        return pa.list_(typ.value_field.with_type(_as_text_type(typ.value_type)))
+    return typ
+
+
+def _exact_decimals(f: RawFile, path: Path, schema: pa.Schema, scratch: Path) -> Path:
+    """``path``, or where it holds a decimal of more than ENGINE_DECIMAL_DIGITS digits, a copy of it
+    in ``scratch`` in which each such decimal is its exact text (streamed a batch of rows at a time;
+    the rows stay in order), with a note on ``f`` naming the columns."""
+    exact = pa.schema([fd.with_type(_as_text_type(fd.type)) for fd in schema], metadata=schema.metadata)
+    changed = [fd.name for fd, to in zip(schema, exact, strict=True) if fd.type != to.type]
+    if not changed:
+        return path
+    scratch.mkdir(parents=True, exist_ok=True)
+    target = scratch / f"{f.file_id}-{streams.base_name(f.path)}"
+    try:
+        with pq.ParquetWriter(target, exact) as out:
+            for batch in pq.ParquetFile(path).iter_batches(batch_size=COPY_BATCH):
+                out.write_table(pa.Table.from_batches([batch]).cast(exact))
+    except (pa.ArrowException, OSError) as e:
+        target.unlink(missing_ok=True)
+        raise InputError(
+            f"cannot read this Parquet file: {str(e).splitlines()[0]}", file=str(f.path)
+        ) from None
+    nested = [n for n in changed if not pa.types.is_decimal(schema.field(n).type)]
+    f.notes.append(
+        f"decimals of more than {ENGINE_DECIMAL_DIGITS} digits read as their exact text ({', '.join(changed)}): "
+        "the engine reads them as floating-point numbers"
+        + (f"; in {', '.join(nested)} they are JSON strings" if nested else "")
+    )
+    return target
+
+
 def _own_schema(path: Path) -> pa.Schema | None:
     """The file's schema as it states it (the engine renames a name that differs from another only
     in case); None when pyarrow cannot read it."""
@@ -129,6 +188,7 @@ def read_files(
         own = list(schema.names) if schema is not None else None
         if schema is not None:
             _check_members(schema, nested, f.path)
+            where[f.file_id] = _exact_decimals(f, where[f.file_id], schema, scratch / "decimals")
         repeated = sorted(n for n, k in Counter(own or []).items() if k > 1)
         if repeated:  # as a CSV header that repeats a name: which one a mapping means is unknown
             raise InputError(

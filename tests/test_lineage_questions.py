@@ -22,6 +22,15 @@ from tests.conftest import ROOT, cli
 from tests.test_lineage import CASES, project_from
 
 MODELS = ROOT / "examples" / "models"
+
+
+def _empty(folder: Path) -> str:
+    """An empty mappings folder: lineage with no mappings (a folder named that is not there is an
+    error)."""
+    folder.mkdir(exist_ok=True)
+    return str(folder)
+
+
 MAPPINGS = ROOT / "mappings"
 SCHEMA = CASES["schema"]
 
@@ -82,7 +91,7 @@ def test_a_column_named_without_its_table_says_where_it_was_looked_for(
         "--models",
         str(models),
         "--mappings",
-        str(tmp_path / "none"),
+        _empty(tmp_path / "none"),
         "--catalog",
         str(tmp_path / "catalog.yaml"),
     )
@@ -119,7 +128,7 @@ def test_a_file_that_cannot_be_parsed_makes_answers_about_a_table_it_names_incom
     # through the CLI: exit 11 (incomplete), the file and line of the parse error named
     (tmp_path / "models" / "words.sql").unlink()
     (tmp_path / "schema.yaml").write_text(json.dumps({"tables": SCHEMA}))
-    common = ("--models", str(tmp_path / "models"), "--mappings", str(tmp_path / "none"))
+    common = ("--models", str(tmp_path / "models"), "--mappings", _empty(tmp_path / "none"))
     catalog = ("--catalog", str(tmp_path / "schema.yaml"))
     capsys.readouterr()
     assert cli("impact", "shop.orders.amount", *common, *catalog) == 11
@@ -155,7 +164,7 @@ def test_a_statement_sqlglot_reads_only_as_text_counts_as_not_parsed(
     (tmp_path / "models").mkdir()
     for name, text in models.items():
         (tmp_path / "models" / name).write_text(text)
-    common = ("--models", str(tmp_path / "models"), "--mappings", str(tmp_path / "none"))
+    common = ("--models", str(tmp_path / "models"), "--mappings", _empty(tmp_path / "none"))
     catalog = ("--catalog", str(tmp_path / "schema.yaml"))
     capsys.readouterr()
     assert cli("impact", "shop.orders.amount", *common, *catalog) == 11
@@ -949,6 +958,29 @@ def test_a_project_file_holds_the_settings_and_options_override_it(
     assert 'did you mean "models"' in capsys.readouterr().err
 
 
+def test_a_mappings_folder_named_that_is_not_there_is_an_error(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """A --mappings folder that is not there (a typo, a link to nothing) was passed over: the answer
+    came without the mappings' schemas, every source column "inferred", exit 0. It is a mapping
+    error (exit 3), as for convert; a mapping file named is read; the default folder may be missing."""
+    (tmp_path / "models").mkdir()
+    (tmp_path / "models" / "m.sql").write_text("SELECT b.fare * 2 AS doubled FROM ferry.bookings AS b\n")
+    monkeypatch.chdir(tmp_path)
+    (tmp_path / "gone").symlink_to(tmp_path / "nowhere")
+    for missing in ("mapings", "gone"):
+        assert cli("trace", "m.doubled", "--mappings", missing) == 3
+        assert f"{missing}: mappings folder does not exist" in capsys.readouterr().err
+        assert cli("impact", "ferry.bookings.fare", "--mappings", missing) == 3
+        capsys.readouterr()
+    bookings = ROOT / "mappings" / "bookings.yaml"
+    assert cli("trace", "m.doubled", "--json", "--mappings", str(bookings)) == 0
+    answer = json.loads(capsys.readouterr().out)
+    assert answer["value"] == ["ferry.bookings.fare"] and not answer.get("inferred")
+    assert cli("trace", "m.doubled", "--json") == 0  # no mappings/ here: none, as before
+    assert json.loads(capsys.readouterr().out)["inferred"] == ["ferry.bookings.fare"]
+
+
 TRIPLEGS = """
 table: Fleet.TripLegs
 files: ["legs-*.csv"]
@@ -1373,7 +1405,7 @@ def test_a_catalog_that_states_a_key_twice_is_refused(
     (tmp_path / "models").mkdir()
     (tmp_path / "models" / "m.sql").write_text("SELECT id FROM shop.orders")
     (tmp_path / name).write_text(text)
-    args = ("--models", str(tmp_path / "models"), "--mappings", str(tmp_path / "none"))
+    args = ("--models", str(tmp_path / "models"), "--mappings", _empty(tmp_path / "none"))
     assert cli("trace", "m.id", *args, "--catalog", str(tmp_path / name)) == 2
     err = capsys.readouterr().err
     assert said in err and "Traceback" not in err

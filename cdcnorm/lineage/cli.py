@@ -136,6 +136,9 @@ def project_settings(folder: Path) -> tuple[dict[str, Any], Path | None]:
 def _settle_settings(args: argparse.Namespace) -> None:
     """Command-line options over the project file over the built-in defaults."""
     found, _ = project_settings(Path.cwd())
+    # mappings named on the command line or in the project file must be there; the default folder
+    # may be missing (lineage needs no mappings)
+    args.mappings_named = getattr(args, "mappings", None) is not None or "mappings" in found
     for key, default in SETTINGS.items():
         if key == "catalog":
             args.catalog = list(found.get("catalog", [])) + list(args.catalog or [])
@@ -172,9 +175,12 @@ def load_project(args: argparse.Namespace) -> tuple[Project, list[Any], Any]:
     _settle_settings(args)
     _check_dialect(args.dialect)
     mappings_dir = Path(args.mappings)
-    # lineage needs no mappings: a missing or empty folder is none
+    # lineage needs no mappings: a missing default folder, or an empty folder, is none; but a folder
+    # named that is not there is an error, and a mapping file named is read (before, both were
+    # passed over: the answer went on without their schemas, every column "inferred")
     has_mappings = mappings_dir.is_dir() and any(mappings_dir.glob("*.y*ml"))
-    mappings = load_mappings(mappings_dir) if has_mappings else []
+    named = args.mappings_named and not mappings_dir.is_dir()
+    mappings = load_mappings(mappings_dir) if has_mappings or named else []
     models_dir = Path(args.models)
     if not models_dir.exists():
         raise UsageError(f"models folder {models_dir} does not exist", hint="pass --models")

@@ -1455,6 +1455,32 @@ def test_an_as_of_one_table_cannot_take_stops_snapshot_before_any_file_is_writte
     assert [p.name for p in out.iterdir()] == ["ferry.bookings.parquet"]
 
 
+def test_as_of_time_without_an_offset_is_refused_not_read_as_utc(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """RFC 3339 (section 5.6) gives every time its offset. A time without one was read as UTC
+    without a word; it names no instant until its zone is known, so it is refused (exit 2) with
+    the UTC spelling suggested, and with an offset the same instant as its UTC form (Python's
+    datetime is the reference: 09:05:10+01:00 is 08:05:10Z)."""
+    import datetime as dt
+
+    mdir, landing = _demo_landing(tmp_path)
+    capsys.readouterr()
+    args = ("snapshot", str(landing), "--mappings", str(mdir), "--table", "ferry.bookings", "--json")
+    assert cli(*args, "--out", str(tmp_path / "a"), "--as-of-time", "2026-03-01T08:05:10") == 2
+    err = capsys.readouterr().err
+    assert "has no offset" in err and "add Z for UTC (2026-03-01T08:05:10Z)" in err
+    assert not (tmp_path / "a").exists() or not any((tmp_path / "a").iterdir())
+    local = dt.datetime.fromisoformat("2026-03-01T09:05:10+01:00")
+    assert local.astimezone(dt.UTC).isoformat() == "2026-03-01T08:05:10+00:00"
+    states = []
+    for out, when in (("z", "2026-03-01T08:05:10Z"), ("o", "2026-03-01T09:05:10+01:00")):
+        assert cli(*args, "--out", str(tmp_path / out), "--as-of-time", when) == 0
+        capsys.readouterr()
+        states.append((tmp_path / out / "ferry.bookings.parquet").read_bytes())
+    assert states[0] == states[1]
+
+
 # --- apply --recheck: a target edited by hand ---------------------------------------------------
 
 

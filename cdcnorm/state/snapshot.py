@@ -127,14 +127,22 @@ def as_of_time(engine: DuckDBEngine, mapping: LoadedMapping, text: str) -> AsOf:
             file=str(mapping.path),
             hint="use --as-of POSITION, or map the commit time column",
         )
-    from cdcnorm.types.timestamp import timestamp_cast
+    from cdcnorm.types.timestamp import has_offset, timestamp_cast
 
     cast = timestamp_cast(lit(text), "+00:00")
-    if engine.rows(f"SELECT {cast}")[0][0] is None:
+    valid, offset = engine.rows(f"SELECT {cast} IS NOT NULL, {has_offset(lit(text))}")[0]
+    if not valid:
         raise UsageError(
             f"--as-of-time {text!r} is not a timestamp",
             expected="an RFC 3339 timestamp, e.g. 2026-03-01T12:00:00Z",
             found=text,
+        )
+    if not offset:  # RFC 3339 section 5.6: a time has its offset; UTC is not guessed
+        raise UsageError(
+            f"--as-of-time {text!r} has no offset: which time it means depends on a zone",
+            expected="an RFC 3339 timestamp with its offset, e.g. 2026-03-01T12:00:00Z",
+            found=text,
+            hint=f"add Z for UTC ({text}Z), or the offset of the time meant",
         )
     return AsOf(f"__cat <= {cast}", f"time {text}", "__cat IS NULL", "no commit time, so no time places it")
 

@@ -33,7 +33,8 @@ def _unleaped(x: str) -> str:
     return f"CASE WHEN {_leap(x)} THEN substr({upper}, 1, 17) || '59' || substr({upper}, 20) ELSE {upper} END"
 
 
-def _has_offset(x: str) -> str:
+def has_offset(x: str) -> str:
+    """SQL: the timestamp text ``x`` ends with an offset (``Z`` or ``+hh:mm``/``-hh:mm``)."""
     tail = f"substr(upper({x}), 20)"
     return f"(contains({tail}, 'Z') OR contains({tail}, '+') OR contains({tail}, '-'))"
 
@@ -49,15 +50,15 @@ def timestamp_cast(x: str, zone: str) -> str:
     zone = normalise_zone(zone)
     leap = _leap(x)
     unleaped = _unleaped(x)
-    has_offset = _has_offset(x)
+    offset = has_offset(x)
     # Each part is written once (a part used twice is bound twice: the plan of a table with two
     # timestamp fields took 18 ms more to bind when the text held each part up to eight times).
     if zones.is_fixed(zone):
-        zoned = f"{unleaped} || CASE WHEN {has_offset} THEN '' ELSE {lit(zone)} END"
+        zoned = f"{unleaped} || CASE WHEN {offset} THEN '' ELSE {lit(zone)} END"
         cast = f"TRY_CAST({zoned} AS TIMESTAMPTZ)"
     else:  # a named zone: a local time joins the zone's periods (zones.py)
         cast = (
-            f"CASE WHEN {has_offset} THEN TRY_CAST({unleaped} AS TIMESTAMPTZ) "
+            f"CASE WHEN {offset} THEN TRY_CAST({unleaped} AS TIMESTAMPTZ) "
             f"ELSE {zones.local_to_utc(_local(x), zone)} END"
         )
     adjusted = f"{cast} + CASE WHEN {leap} THEN INTERVAL 1 SECOND ELSE INTERVAL 0 SECOND END"
@@ -65,7 +66,7 @@ def timestamp_cast(x: str, zone: str) -> str:
     # engine's own zone, UTC, is the mapping's): the engine's cast takes them as they are.
     plain = f"NOT {leap} AND NOT contains({x}, 't') AND NOT contains({x}, 'z')"
     if zone != "+00:00":
-        plain += f" AND {has_offset}"
+        plain += f" AND {offset}"
     value = f"CASE WHEN {plain} THEN TRY_CAST({x} AS TIMESTAMPTZ) ELSE {adjusted} END"
     # RFC 3339 has years 0000-9999; in UTC a time must stay within 0001-01-01 and 9999-12-31
     # (9999-12-31T23:00:00-02:00 is in year 10000: it would sort before year 0001 as text)
@@ -78,9 +79,9 @@ def timestamp_explain(x: str, zone: str = "+00:00") -> str:
     named = ""
     if not zones.is_fixed(zone):
         local = _local(x)
-        has_offset = _has_offset(x)
+        offset = has_offset(x)
         n = zones.matches(local, zone)
-        where = f"regexp_full_match({x}, {PATTERN}) AND NOT {has_offset} AND {local} IS NOT NULL"
+        where = f"regexp_full_match({x}, {PATTERN}) AND NOT {offset} AND {local} IS NOT NULL"
         named = (
             f"WHEN {where} AND {n} = 0 AND year({local}) BETWEEN {zones.FIRST_YEAR} AND {zones.LAST_YEAR} "
             f"THEN {lit(f'no such local time in {zone}: the clocks jumped over it (a DST gap)')} "

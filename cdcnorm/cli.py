@@ -38,6 +38,9 @@ from cdcnorm.mapping import load_mappings
 from cdcnorm.pipeline import STAGE_NAMES, Notice, Options, Result, describe_sources, file_notes, run
 from cdcnorm.tables import print_table
 
+#: Rows --stop-after shows unless --limit says.
+STAGE_ROWS = 20
+
 
 class _Guarded:
     """The standard stream of that name (looked up at each use: a test's capture takes its place),
@@ -275,7 +278,7 @@ def build_parser() -> argparse.ArgumentParser:
         "(default: duckdb, the engine convert runs)",
     )
     conv.add_argument("--stop-after", choices=STAGE_NAMES, help="run up to this stage and show its output")
-    conv.add_argument("--limit", type=_count, default=20, help="rows shown by --stop-after (default 20)")
+    conv.add_argument("--limit", type=_count, help=f"rows shown by --stop-after (default {STAGE_ROWS})")
     conv.add_argument("--table", help="with --show-plan/--stop-after: only this table")
 
     runs_cmd = sub.add_parser(
@@ -418,6 +421,7 @@ def _ledger_table(result: Result) -> Table:
 #: pending rows (as many) and one row of the others' counts: a row a file made 3,000 two-row files'
 #: ledger a 3,000-line screen that took 4.3 s to lay out, twice the run (6.8 s in all, now 2.5 s).
 LEDGER_FILES = 20
+
 T = TypeVar("T")
 
 
@@ -491,6 +495,10 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
                 "--table goes with --show-plan or --stop-after",
                 hint="to convert one table only, name only its files (or its mapping file with --mappings)",
             )
+    if getattr(args, "limit", None) is not None and not args.stop_after:
+        raise UsageError(
+            "--limit goes with --stop-after", hint="--stop-after STAGE --limit N shows N rows of that stage"
+        )
     options = Options(
         out=None if check else Path(args.out),
         fmt=getattr(args, "fmt", "jsonl"),
@@ -524,7 +532,7 @@ def cmd_convert(args: argparse.Namespace, *, check: bool = False) -> int:
             notice=_notice(args.quiet or args.json),
         )
     if stop:
-        _show_stage(result, stop, args.limit, args.table, args.json)
+        _show_stage(result, stop, STAGE_ROWS if args.limit is None else args.limit, args.table, args.json)
         return EXIT_OK
     if check:
         return _report_check(result, args)

@@ -162,6 +162,8 @@ def _notes(tmp_path: Path) -> tuple[Path, Path]:
         (["--wait", "soon"], "'soon' is not a number of seconds"),
         (["--table", "t.note", "--show-plan"], 'did you mean "t.notes"'),
         (["--table", "t.notes"], "--table goes with --show-plan or --stop-after"),
+        # before: accepted and passed over, the whole conversion run as though it were not given
+        (["--limit", "5"], "--limit goes with --stop-after"),
     ],
 )
 def test_options_are_checked_before_anything_runs(

@@ -270,6 +270,39 @@ def test_jsonl_nested_flat_and_malformed_lines(convert: ConvertFn) -> None:
     assert done.ledger()["total"]["read"] == 5
 
 
+@pytest.mark.parametrize(
+    ("codec", "mark", "said"),
+    [
+        ("utf-16-le", b"\xff\xfe", "UTF-16LE"),
+        ("utf-16-be", b"", "UTF-16BE"),
+        ("utf-32-le", b"", "UTF-32LE"),
+        ("utf-32-be", b"\x00\x00\xfe\xff", "UTF-32BE"),
+    ],
+)
+def test_a_json_lines_file_in_utf16_or_utf32_is_refused_naming_its_encoding(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], codec: str, mark: bytes, said: str
+) -> None:
+    # RFC 8259, section 8.1: JSON exchanged between systems is UTF-8. A UTF-16 file was read as
+    # UTF-8 lines: cut at each 0A byte, every piece quarantined as bytes, exit 0 (Python's codecs
+    # write the files: the reference)
+    text = '{"op": "I", "pos": 1, "id": 1, "a": "x", "b": "y"}\n{"op": "I", "pos": 2, "id": 2, "a": "ĊĊ", "b": "y"}\n'
+    (tmp_path / "m").mkdir()
+    (tmp_path / "m" / "t.yaml").write_text(MAPPING)
+    (tmp_path / "n.jsonl").write_bytes(mark + text.encode(codec))
+    args = (
+        "convert",
+        str(tmp_path / "n.jsonl"),
+        "--mappings",
+        str(tmp_path / "m"),
+        "--out",
+        str(tmp_path / "o"),
+    )
+    assert cli(*args) == 4
+    err = capsys.readouterr().err
+    assert f"n.jsonl: the file is {said} text, and JSON Lines are UTF-8 (RFC 8259, section 8.1)" in err
+    assert f"iconv -f {said} -t UTF-8" in err and "Traceback" not in err
+
+
 def test_a_byte_order_mark_before_the_first_json_line_is_not_part_of_it(convert: ConvertFn) -> None:
     # RFC 8259, section 8.1: a parser may ignore a byte order mark rather than treat it as an error;
     # as in a CSV file, it is not part of the first record. Anywhere else it is the line's content.

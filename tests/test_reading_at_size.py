@@ -1397,3 +1397,31 @@ def test_a_copy_text_record_with_a_cell_that_is_not_text_is_shown_as_its_bytes(c
     assert base64.b64decode(q["_cdcnorm"]["text"]) == record
     assert q["_cdcnorm"]["reasons"][0]["reason"].endswith("; not UTF-8 text (text shown base64)")
     assert [e["values"]["a"] for e in done.events("t.notes")] == ["ok"]
+
+
+@pytest.mark.parametrize(
+    ("codec", "mark", "said", "setting"),
+    [
+        ("utf-16-le", b"", "UTF-16LE", "utf-16-le"),
+        ("utf-16-le", b"\xff\xfe", "UTF-16LE", "utf-16-le"),
+        ("utf-16-be", b"\xfe\xff", "UTF-16BE", "utf-16-be"),
+        ("utf-32-le", b"", "UTF-32LE", "utf-32-le"),
+    ],
+)
+def test_a_csv_file_in_utf16_read_as_utf8_names_its_encoding(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], codec: str, mark: bytes, said: str, setting: str
+) -> None:
+    # Without a byte order mark, UTF-16's NUL bytes are valid UTF-8: the header read as "o\0p\0",
+    # and the run stopped on schema drift, suggesting the column "o p ". The file's encoding is told
+    # (Python's codecs write it: the reference), and the setting that reads it is named; with it,
+    # the file converts.
+    (mdir := tmp_path / "m").mkdir()
+    (mdir / "t.yaml").write_text(PLAIN)
+    write_files(tmp_path / "d", {"n.csv": mark + CSV.encode(codec)})
+    args = ("convert", "--mappings", str(mdir), str(tmp_path / "d"), "--out", str(tmp_path / "o"))
+    assert cli(*args) == 4
+    err = capsys.readouterr().err
+    assert f"n.csv:1: the file is {said} text, and csv.encoding is utf-8" in err
+    assert f"set csv.encoding: {setting} in the mapping" in err
+    (mdir / "t.yaml").write_text(PLAIN + f"csv: {{encoding: {setting}}}\n")
+    assert cli(*args, "--quiet") == 0

@@ -156,6 +156,17 @@ def _header(f: RawFile, delimiter: str, mapping: Mapping) -> tuple[list[str], bo
     if wrong := streams.parquet_read_as_text(f.path, raw, "csv"):
         raise wrong
     encoding = _encoding(f, raw, mapping)
+    wide = streams.wide_unicode(raw)
+    if wide and not codecs.lookup(encoding).name.startswith(("utf-16", "utf-32")):
+        # read as 8-bit text, its NUL bytes would be part of every name and value
+        raise InputError(
+            f"the file is {wide} text, and csv.encoding is {encoding}",
+            file=str(f.path),
+            line=1,
+            expected=f"{encoding} text",
+            found=wide,
+            hint=f"set csv.encoding: {wide.lower()[:-2]}-{wide.lower()[-2:]} in the mapping",
+        )
     # decoded before the line end is looked for: in UTF-16 or UTF-32 a line end is not one byte,
     # and other characters hold the bytes of LF and CR (U+010A is 0A 01 in UTF-16LE). Bytes that do
     # not decode become lone surrogates (only the header row must be valid text)

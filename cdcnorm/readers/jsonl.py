@@ -91,24 +91,9 @@ def _batches(f: RawFile) -> Iterator[pa.RecordBatch]:
 
 def _not_utf8(path: Path, start: bytes) -> InputError | None:
     """The error for a file in UTF-16 or UTF-32, which JSON Lines are not (RFC 8259, section 8.1:
-    JSON exchanged between systems is UTF-8): told by a byte order mark, or by the NUL bytes
-    around the first ASCII character (RFC 4627, section 3, from memory). Read line by line, its
-    every line would be quarantined as bytes, the records miscounted at each 0A byte."""
-    marks = {
-        b"\x00\x00\xfe\xff": "UTF-32BE",
-        b"\xff\xfe\x00\x00": "UTF-32LE",
-        b"\xfe\xff": "UTF-16BE",
-        b"\xff\xfe": "UTF-16LE",
-    }
-    found = next((name for mark, name in marks.items() if start.startswith(mark)), None)
-    if found is None and len(start) >= 4:
-        nuls = (start[0] == 0, start[1] == 0, start[2] == 0, start[3] == 0)
-        found = {
-            (True, True, True, False): "UTF-32BE",
-            (False, True, True, True): "UTF-32LE",
-            (True, False, True, False): "UTF-16BE",
-            (False, True, False, True): "UTF-16LE",
-        }.get(nuls)
+    JSON exchanged between systems is UTF-8). Read line by line, its every line would be quarantined
+    as bytes, the records miscounted at each 0A byte."""
+    found = streams.wide_unicode(start)
     if found is None:
         return None
     return InputError(

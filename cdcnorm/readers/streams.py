@@ -218,6 +218,28 @@ def refused_start(path: Path, start: bytes, decompressed: bool) -> InputError | 
     return wrong or (nested_archive(path, start) if decompressed else misnamed_archive(path, start))
 
 
+def wide_unicode(start: bytes) -> str | None:
+    """``UTF-16LE``, ``UTF-16BE``, ``UTF-32LE`` or ``UTF-32BE`` where a file's first bytes are
+    text in that encoding, told by a byte order mark or by the NUL bytes around the first ASCII
+    character (RFC 4627, section 3, from memory); None otherwise."""
+    marks = {
+        b"\x00\x00\xfe\xff": "UTF-32BE",
+        b"\xff\xfe\x00\x00": "UTF-32LE",
+        b"\xfe\xff": "UTF-16BE",
+        b"\xff\xfe": "UTF-16LE",
+    }
+    found = next((name for mark, name in marks.items() if start.startswith(mark)), None)
+    if found is None and len(start) >= 4:
+        nuls = (start[0] == 0, start[1] == 0, start[2] == 0, start[3] == 0)
+        found = {
+            (True, True, True, False): "UTF-32BE",
+            (False, True, True, True): "UTF-32LE",
+            (True, False, True, False): "UTF-16BE",
+            (False, True, False, True): "UTF-16LE",
+        }.get(nuls)
+    return found
+
+
 def compression(path: Path) -> str | None:
     return COMPRESSIONS.get(path.suffix.lower())
 

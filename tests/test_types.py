@@ -6,9 +6,12 @@ import base64
 import datetime as dt
 import json
 import uuid
-from decimal import ROUND_HALF_UP, Decimal, InvalidOperation
+from decimal import ROUND_HALF_UP, Decimal, InvalidOperation, localcontext
+from typing import Any
 
 import pytest
+from hypothesis import example, given, settings
+from hypothesis import strategies as st
 
 from cdcnorm.mapping.model import FieldSpec
 from cdcnorm.types import resolve
@@ -249,3 +252,55 @@ def test_a_value_type_reads_back_as_itself(spec: dict[str, object], value_type: 
     assert ftype.value_type() == value_type
     again = resolve(FieldSpec(type=value_type))
     assert again.value_type() == value_type and again.sql_type == ftype.sql_type
+
+
+def _decimal_texts() -> st.SearchStrategy[str]:
+    """Decimal texts as dumps write them: a sign, integer digits, a fraction that may end in zeros,
+    and now and then an exponent."""
+    digits = st.text("0123456789", max_size=40)
+    mantissa = st.builds(
+        lambda sign, whole, frac, zeros, dot: sign + whole + (("." + frac + "0" * zeros) if dot else ""),
+        st.sampled_from(["", "-", "+"]),
+        digits,
+        st.text("0123456789", max_size=8),
+        st.integers(0, 40),
+        st.booleans(),
+    ).filter(lambda m: any(c.isdigit() for c in m))
+    exponent = st.one_of(st.just(""), st.integers(-45, 45).map(lambda e: f"E{e:+d}"))
+    # exponent notation is read up to 60 characters (DecimalType.cast)
+    return st.builds(lambda m, e: m + e, mantissa, exponent).filter(lambda t: "E" not in t or len(t) <= 60)
+
+
+@settings(max_examples=300, deadline=None)
+@example((38, 2), "1.250")
+@example((38, 0), "1.0")
+@example((2, 2), "-.5")
+@given(st.integers(1, 38).flatmap(lambda p: st.tuples(st.just(p), st.integers(0, p))), _decimal_texts())
+def test_decimal_of_any_precision_against_python_decimal(ps: tuple[int, int], text: str) -> None:
+    """Python's decimal is the oracle (the SQL standard's exact DECIMAL(p,s): at most p-s integer
+    digits, nothing rounded): a text passes exactly when its value needs no rounding at scale s and
+    fits, and then as that value with s fractional digits. Zeros at the end of a fraction round
+    nothing: decimal(38,2) refused 1.250, and decimal(38,0) 1.0. A decimal(p,p) is written with its
+    0 before the point: it was .50 (the engine's text)."""
+    from cdcnorm.engines.duckdb import DuckDBEngine
+    from cdcnorm.sql import lit
+
+    p, s = ps
+    ftype = resolve(FieldSpec(type=f"decimal({p},{s})"))
+    engine = _ENGINE.setdefault("engine", DuckDBEngine())
+    # the value as the envelope writes it (its render), 0.50 for decimal(2,2) too
+    ((got,),) = engine.rows(f"SELECT {ftype.render('v')} FROM (SELECT {ftype.cast(lit(text))} AS v)")
+    with localcontext(prec=200):  # wide enough for every text drawn: no rounding in the oracle
+        exact = Decimal(text)
+        quantum = Decimal(1).scaleb(-s)
+        fits = exact.quantize(quantum) == exact and abs(exact) < Decimal(10) ** (p - s)
+        if fits:
+            # an exact DECIMAL has no negative zero: -0.0 is 0 (Python's keeps the sign)
+            assert got == format(
+                exact.quantize(quantum).copy_abs() if not exact else exact.quantize(quantum), "f"
+            )
+        else:
+            assert got is None, (text, p, s)
+
+
+_ENGINE: dict[str, Any] = {}

@@ -60,7 +60,13 @@ class DecimalType(FieldType):
         # Equal to its wide exact cast means no digit was rounded away. The wide cast itself is
         # exact only up to 38-(p-s) fractional digits, so longer fractions are counted first.
         fits = f"TRY_CAST({x} AS {wide}) = TRY_CAST({x} AS {narrow})"
-        short = f"(strpos({x}, '.') = 0 OR length({x}) - strpos({x}, '.') <= {38 - (p - s)})"
+        # Its fraction's zeros at the end round nothing away: counted without them where the text
+        # is longer (only there: the count costs a regular expression). Without that, a decimal of
+        # precision 38 took no zero beyond its scale: 1.250 was refused by decimal(38,2)
+        short = (
+            f"(strpos({x}, '.') = 0 OR length({x}) - strpos({x}, '.') <= {38 - (p - s)} "
+            f"OR {self._frac_digits(x)} <= {38 - (p - s)})"
+        )
         return (
             f"CASE WHEN NOT regexp_full_match({x}, {PATTERN}) THEN NULL "
             f"WHEN NOT contains(lower({x}), 'e') THEN CASE WHEN {short} AND {fits} THEN TRY_CAST({x} AS {narrow}) END "
@@ -82,5 +88,17 @@ class DecimalType(FieldType):
         )
 
     def render(self, v: str) -> str:
-        # DuckDB prints a decimal with exactly its declared scale: 12.30, 7.00.
+        # DuckDB prints a decimal with exactly its declared scale: 12.30, 7.00; but one whose scale
+        # is its precision, decimal(p,p), without its integer digit: .50, -.05. A decimal's text
+        # has at least one digit before the point (the SQL standard's exact numeric literal allows
+        # none, but Python's decimal, PostgreSQL and RFC 8259 numbers write the 0): 0.50, -0.05
+        p, s = self.params
+        text = f"CAST({v} AS VARCHAR)"
+        if p != s:
+            return text
+        return f"CASE WHEN {v} < 0 THEN '-0' || substr({text}, 2) ELSE '0' || {text} END"
+
+    def canonical(self, v: str) -> str:
+        # the engine's own text, as the digests stored in landing areas were made (.50 included):
+        # a change here needs a new index format
         return f"CAST({v} AS VARCHAR)"

@@ -827,7 +827,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
         quiet=False,
         show_plan=False,
         stop_after=None,
-        limit=20,
+        limit=None,
         table=None,
     )
     code = cmd_convert(ns)

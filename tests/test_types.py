@@ -275,13 +275,16 @@ def _decimal_texts() -> st.SearchStrategy[str]:
 @example((38, 2), "1.250")
 @example((38, 0), "1.0")
 @example((2, 2), "-.5")
+@example((38, 34), "10000E-1")
+@example((38, 34), "0.00001E6")
 @given(st.integers(1, 38).flatmap(lambda p: st.tuples(st.just(p), st.integers(0, p))), _decimal_texts())
 def test_decimal_of_any_precision_against_python_decimal(ps: tuple[int, int], text: str) -> None:
     """Python's decimal is the oracle (the SQL standard's exact DECIMAL(p,s): at most p-s integer
     digits, nothing rounded): a text passes exactly when its value needs no rounding at scale s and
     fits, and then as that value with s fractional digits. Zeros at the end of a fraction round
     nothing: decimal(38,2) refused 1.250, and decimal(38,0) 1.0. A decimal(p,p) is written with its
-    0 before the point: it was .50 (the engine's text)."""
+    0 before the point: it was .50 (the engine's text). Exponent notation is read whatever zeros
+    its digits carry: decimal(38,34) refused 10000E-1 (1000.0) and 0.00001E6 (10)."""
     from cdcnorm.engines.duckdb import DuckDBEngine
     from cdcnorm.sql import lit
 

@@ -53,6 +53,21 @@ class DecimalType(FieldType):
         exp = f"TRY_CAST(regexp_extract({x}, '[eE]([+-]?[0-9]+)$', 1) AS BIGINT)"
         return f"(rtrim({digits}, '0') = '' OR -({exp} - {frac} + {zeros}) <= {s})"
 
+    def _normalised(self, x: str) -> str:
+        """SQL: exponent notation written as 0.<digits>E<exponent>, the digits without the zeros
+        before and after them (zero as 0). The engine's cast reads the digits before the exponent
+        at the target scale first: 10000E-1 (1000.0) and 0.00001E6 (10) did not fit decimal(38,34)
+        on the way, and were refused."""
+        mant = f"regexp_extract({x}, '^[+-]?([0-9]*[.]?[0-9]*)', 1)"
+        whole = f"regexp_extract({x}, '^[+-]?([0-9]*)', 1)"
+        digits = f"replace({mant}, '.', '')"
+        lead = f"(length({digits}) - length(ltrim({digits}, '0')))"
+        body = f"rtrim(ltrim({digits}, '0'), '0')"
+        exp = f"TRY_CAST(regexp_extract({x}, '[eE]([+-]?[0-9]+)$', 1) AS BIGINT)"
+        sign = f"CASE WHEN substr({x}, 1, 1) = '-' THEN '-' ELSE '' END"
+        shifted = f"CAST({exp} + length({whole}) - {lead} AS VARCHAR)"
+        return f"CASE WHEN {body} = '' THEN '0' ELSE {sign} || '0.' || {body} || 'E' || {shifted} END"
+
     def cast(self, x: str) -> str:
         p, s = self.params
         wide = f"DECIMAL(38,{38 - (p - s)})"  # every value with p-s integer digits, exactly
@@ -73,7 +88,7 @@ class DecimalType(FieldType):
             # exponent notation: no digit beyond the scale, so the engine's exact cast at scale s
             # rounds nothing; narrowing at the same scale only fails (too many integer digits)
             f"WHEN length({x}) <= 60 AND {self._exact_in_scale(x)} "
-            f"THEN TRY_CAST(TRY_CAST({x} AS DECIMAL(38,{s})) AS {narrow}) END"
+            f"THEN TRY_CAST(TRY_CAST({self._normalised(x)} AS DECIMAL(38,{s})) AS {narrow}) END"
         )
 
     def explain(self, x: str) -> str:
@@ -96,7 +111,11 @@ class DecimalType(FieldType):
         text = f"CAST({v} AS VARCHAR)"
         if p != s:
             return text
-        return f"CASE WHEN {v} < 0 THEN '-0' || substr({text}, 2) ELSE '0' || {text} END"
+        # only where the text lacks it: an engine that writes the 0 (Spark) keeps its text
+        return (
+            f"CASE WHEN substr({text}, 1, 1) = '.' THEN '0' || {text} "
+            f"WHEN substr({text}, 1, 2) = '-.' THEN '-0' || substr({text}, 2) ELSE {text} END"
+        )
 
     def canonical(self, v: str) -> str:
         # the engine's own text, as the digests stored in landing areas were made (.50 included):

@@ -40,7 +40,11 @@ def add_commands(sub: Any) -> None:
     when.add_argument(
         "--as-of", metavar="POSITION", help="the state at this position (raw or normalised form)"
     )
-    when.add_argument("--as-of-time", metavar="TIME", help="the state of the changes committed by this time")
+    when.add_argument(
+        "--as-of-time",
+        metavar="TIME",
+        help="the state of the changes committed by this RFC 3339 time, its offset included (e.g. 2026-03-01T12:00:00Z)",
+    )
     snap.add_argument(
         "--format",
         dest="fmt",

@@ -5,6 +5,21 @@ from cdcnorm.types.base import FieldType
 PATTERN = r"'[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?'"
 
 
+def _mantissa(x: str) -> str:
+    """SQL: the digits and point of a decimal text before its exponent, without the sign."""
+    return f"regexp_extract({x}, '^[+-]?([0-9]*[.]?[0-9]*)', 1)"
+
+
+def _digits(x: str) -> str:
+    """SQL: the mantissa's digits, without its point."""
+    return f"replace({_mantissa(x)}, '.', '')"
+
+
+def _exponent(x: str) -> str:
+    """SQL: the exponent of a text in exponent notation, as a number."""
+    return f"TRY_CAST(regexp_extract({x}, '[eE]([+-]?[0-9]+)$', 1) AS BIGINT)"
+
+
 class DecimalType(FieldType):
     """Exact decimal(p,s): a value needing rounding or more than p-s integer digits is rejected.
 
@@ -46,11 +61,10 @@ class DecimalType(FieldType):
         digits D times 10^(e - len(fraction)); its last non-zero digit needs
         -(e - len(fraction) + trailing zeros of D) fractional places."""
         s = self.params[1]
-        mant = f"regexp_extract({x}, '^[+-]?([0-9]*[.]?[0-9]*)', 1)"
-        digits = f"replace({mant}, '.', '')"
-        frac = f"length(regexp_extract({mant}, '[.]([0-9]*)', 1))"
+        digits = _digits(x)
+        frac = f"length(regexp_extract({_mantissa(x)}, '[.]([0-9]*)', 1))"
         zeros = f"(length({digits}) - length(rtrim({digits}, '0')))"
-        exp = f"TRY_CAST(regexp_extract({x}, '[eE]([+-]?[0-9]+)$', 1) AS BIGINT)"
+        exp = _exponent(x)
         return f"(rtrim({digits}, '0') = '' OR -({exp} - {frac} + {zeros}) <= {s})"
 
     def _normalised(self, x: str) -> str:
@@ -58,12 +72,11 @@ class DecimalType(FieldType):
         before and after them (zero as 0). The engine's cast reads the digits before the exponent
         at the target scale first: 10000E-1 (1000.0) and 0.00001E6 (10) did not fit decimal(38,34)
         on the way, and were refused."""
-        mant = f"regexp_extract({x}, '^[+-]?([0-9]*[.]?[0-9]*)', 1)"
         whole = f"regexp_extract({x}, '^[+-]?([0-9]*)', 1)"
-        digits = f"replace({mant}, '.', '')"
+        digits = _digits(x)
         lead = f"(length({digits}) - length(ltrim({digits}, '0')))"
         body = f"rtrim(ltrim({digits}, '0'), '0')"
-        exp = f"TRY_CAST(regexp_extract({x}, '[eE]([+-]?[0-9]+)$', 1) AS BIGINT)"
+        exp = _exponent(x)
         sign = f"CASE WHEN substr({x}, 1, 1) = '-' THEN '-' ELSE '' END"
         shifted = f"CAST({exp} + length({whole}) - {lead} AS VARCHAR)"
         return f"CASE WHEN {body} = '' THEN '0' ELSE {sign} || '0.' || {body} || 'E' || {shifted} END"

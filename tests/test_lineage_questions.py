@@ -931,6 +931,10 @@ def test_rename_tells_the_dump_column_from_the_canonical_field(capsys: pytest.Ca
     assert field["broken_mappings"] == []
     assert [m["model"] for m in field["broken_models"]] == ["stg_bookings"]
     assert {m["model"] for m in field["binding"]["broken"]} >= {"stg_bookings", "daily_revenue"}
+    # a rename to the column's own name is no edit: it answered "no breaks" and exit 0
+    for column in ("ferry.bookings.fare", "stg_bookings.fare", "ferry.bookings.pax_name"):
+        assert cli("impact", *args, column, "--rename", column.rsplit(".", 1)[1]) == 2
+        assert "is the column's own name: nothing would change" in capsys.readouterr().err
 
 
 def test_a_project_file_holds_the_settings_and_options_override_it(

@@ -269,6 +269,13 @@ def run_command(args: argparse.Namespace, out: Console) -> int:
                 raise UsageError(
                     "--rename needs the column's new name", expected="a name, e.g. --rename fare_gbp"
                 )
+            if args.rename == find_column(project, args.column)[2]:
+                # before: an answer of no breaks and the column's row changes, exit 0, for no edit
+                raise UsageError(
+                    f"--rename {args.rename} is the column's own name: nothing would change",
+                    expected="another name, e.g. --rename fare_gbp",
+                    found=args.rename,
+                )
             edit = Edit("rename", args.rename)
         elif args.retype is not None:
             edit = Edit("retype", _sql_type(args.retype, args.dialect))

@@ -218,6 +218,12 @@ def test_jsonl_file_of_malformed_lines_only_is_quarantined_not_drift(convert: Co
     quarantined = done.quarantine("t.notes")
     assert [q["_cdcnorm"]["text"] for q in quarantined] == ['{"op": "I", "pos": 1, broken', '{"op": ']
     assert done.events("t.notes") == []
+    # and a note asks whether it is JSON Lines at all (before: nothing but the ledger said so)
+    (note,) = [n["note"] for n in last_run(done.out)["notes"]]
+    assert (
+        note
+        == "no line of it is a JSON object (2 quarantined): is it JSON Lines? (--input-format reads every input as one format)"
+    )
 
 
 def test_a_jsonl_line_escaping_a_lone_surrogate_is_quarantined_saying_so(convert: ConvertFn) -> None:

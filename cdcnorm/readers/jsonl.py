@@ -198,6 +198,11 @@ def _read(files: list[RawFile], mapping: Mapping, engine: DuckDBEngine, raw: Raw
             f.empty = True
             f.notes.append("the file is empty")
             continue
+        if f.rows == 0:  # every line quarantined: likely no JSON Lines at all (a CSV file, say)
+            f.notes.append(
+                f"no line of it is a JSON object ({f.malformed:,} quarantined): is it JSON Lines? "
+                "(--input-format reads every input as one format)"
+            )
         paths = _columns(f, structures.get(f.file_id), mapping)
         f.columns = [".".join(p) for p in paths]
         for p, c in zip(paths, f.columns, strict=True):

@@ -162,6 +162,45 @@ def test_zero_padded_hex_positions_give_the_same_events_on_spark(spark: Any, tmp
     assert _same_on_both(spark, tmp_path / "mappings", dumps, tmp_path / "scratch") == {"t.hex": (4, 1)}
 
 
+def test_decimals_of_every_precision_give_the_same_events_on_spark(spark: Any, tmp_path: Path) -> None:
+    """Zeros after a fraction's last digit, exponent notation with zeros around its digits, and a
+    decimal(p,p) written with its 0 before the point: the same envelopes and rejections on both
+    engines (Spark writes that 0 itself; the plan adds it only where the text lacks it). Python's
+    decimal is the reference for the values kept."""
+    from decimal import Decimal
+
+    (tmp_path / "mappings").mkdir()
+    (tmp_path / "mappings" / "t.yaml").write_text(
+        "table: t.dec\nfiles: ['d*.csv']\nkey: [id]\nchange:\n"
+        "  action: {column: op, codes: {I: insert}}\n"
+        "  position: {column: pos, kind: integer}\nfields:\n  id: integer\n"
+        "  a: decimal(38,2)\n  b: decimal(2,2)\n  c: decimal(38,34)\n",
+        encoding="utf-8",
+    )
+    rows = [
+        ("1.250", "-.5", "10000E-1"),
+        ("1.0", ".05", "0.00001E6"),
+        ("123456789012345678901234567890123456.70", "0", "-1.5E0"),
+        ("1.255", "0.5", "1"),  # a digit beyond decimal(38,2)'s scale: quarantined on both
+    ]
+    dumps = tmp_path / "dumps"
+    dumps.mkdir()
+    body = "".join(f"I,{i},{i},{a},{b},{c}\n" for i, (a, b, c) in enumerate(rows, start=1))
+    (dumps / "d.csv").write_text("op,pos,id,a,b,c\n" + body, encoding="utf-8")
+    assert _same_on_both(spark, tmp_path / "mappings", dumps, tmp_path / "scratch") == {"t.dec": (3, 1)}
+    duck, ((plan, raw),) = _read(tmp_path / "mappings", dumps, tmp_path / "again")
+    values = [e["values"] for e in _run(duck, plan, raw, duck)["envelopes"]]
+    assert [(v["a"], v["b"], v["c"]) for v in values] == [
+        ("1.25", "-0.50", "1000.0000000000000000000000000000000000"),
+        ("1.00", "0.05", "10.0000000000000000000000000000000000"),
+        ("123456789012345678901234567890123456.70", "0.00", "-1.5000000000000000000000000000000000"),
+    ]
+    assert all(
+        Decimal(v["a"]) == Decimal(r[0]) and Decimal(v["b"]) == Decimal(r[1])
+        for v, r in zip(values, rows[:3], strict=True)
+    )
+
+
 def test_a_json_field_is_refused_by_name_on_spark(spark: Any, tmp_path: Path) -> None:
     from cdcnorm.engines.spark import SparkEngine, UnsupportedByEngine
 

@@ -892,3 +892,37 @@ def test_parquet_decimals_of_more_than_38_digits_keep_every_digit(convert: Conve
         "floating-point numbers; in n they are JSON strings"
     )
     assert done.ledger()["balanced"]
+
+
+def test_the_header_again_in_a_file_is_one_reason_not_one_per_field(convert: ConvertFn) -> None:
+    """Exports joined with their headers (``cat a.csv b.csv``, or gzip members appended: RFC 1952,
+    section 2.2, a gzip file is a series of members, read as one stream) hold the header again as
+    a record. It was quarantined with one reason per mapped column ("unknown action code", "not an
+    integer", ...); it is one reason naming it. A record that merely holds a column's name in one
+    field still gets the field's own reason."""
+    import gzip
+
+    head = "op,pos,id,a,b\n"
+    joined = head + "I,1,1,x,y\n" + head + "I,2,2,x,y\n"
+    members = gzip.compress((head + "I,3,3,x,y\n").encode()) + gzip.compress((head + "I,4,4,x,y\n").encode())
+    assert gzip.decompress(members).decode().count(head) == 2  # Python's gzip reads both members
+    done = convert(
+        MAPPING, {"n-joined.csv": joined, "n-members.csv.gz": members, "n-one.csv": head + "I,5,id,a,b\n"}
+    )
+    why = {
+        (q["_cdcnorm"]["file"], q["_cdcnorm"]["row"]): q["_cdcnorm"]["reasons"]
+        for q in done.quarantine("t.notes")
+    }
+    again = [
+        {
+            "field": None,
+            "column": None,
+            "expected": "a data record",
+            "found": "the names of the columns",
+            "reason": "the header row again: files joined with their headers, or a header in a file read as headerless",
+        }
+    ]
+    assert why[("n-joined.csv", 2)] == again and why[("n-members.csv.gz", 2)] == again
+    assert [r["reason"] for r in why[("n-one.csv", 1)]] == ["not an integer"]
+    assert sorted(e["key"]["id"] for e in done.events("t.notes")) == [1, 2, 3, 4]
+    assert done.ledger()["balanced"]

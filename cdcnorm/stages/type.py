@@ -171,8 +171,31 @@ def type_rows(plan: Plan) -> Plan:
         f"SELECT q.__file, q.__row, {typed_cols}, ({ok}) AS __ok FROM ({inner}) q",
         materialize=True,
     )
+    reasons = f"list_filter([{', '.join(c.reasons)}], lambda x: x IS NOT NULL)"
+    # A record whose cells are its columns' names is the header again (files joined with their
+    # headers, as ``cat`` joins exports, or a header in a file read as headerless): one reason that
+    # says so, not one per field that the names are not valid values. The change columns must be
+    # their names; another mapped column may be absent from the file (NULL).
+    change_cols = set(m.change_columns().values())
+    named = " AND ".join(
+        f"s.{plan.raw(col)} = {lit(col)}"
+        if col in change_cols
+        else f"coalesce(s.{plan.raw(col)} = {lit(col)}, TRUE)"
+        for col in m.mapped_columns()
+    )
+    header = _reason(
+        None,
+        "",
+        "a data record",
+        "'the names of the columns'",
+        lit(
+            "the header row again: files joined with their headers, or a header in a file read as headerless"
+        ),
+        column_sql="CAST(NULL AS VARCHAR)",
+    )
+    reasons = f"CASE WHEN {named} THEN [{header}] ELSE {reasons} END"
     rejects = (
-        f"SELECT t.__file, t.__row, list_filter([{', '.join(c.reasons)}], lambda x: x IS NOT NULL) AS reasons "
+        f"SELECT t.__file, t.__row, {reasons} AS reasons "
         f"FROM {plan.rel('typed')} t JOIN {src} s ON s.__file = t.__file AND s.__row = t.__row WHERE NOT t.__ok"
     )
     return plan.add("type", "rejects", rejects)

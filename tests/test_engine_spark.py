@@ -137,17 +137,22 @@ def test_the_benchmark_dump_gives_the_same_events_on_spark(spark: Any, tmp_path:
     assert events > 10_000 and quarantined > 0
 
 
+def _one_mapping(tmp_path: Path, table: str, prefix: str, position: str, fields: str) -> None:
+    """A mapping folder ``tmp_path/mappings`` of one insert-only table keyed by an integer ``id``:
+    its files ``<prefix>*.csv``, the rest of its position's braces, its fields after ``id``."""
+    (tmp_path / "mappings").mkdir()
+    (tmp_path / "mappings" / "t.yaml").write_text(
+        f"table: {table}\nfiles: ['{prefix}*.csv']\nkey: [id]\nchange:\n"
+        "  action: {column: op, codes: {I: insert}}\n"
+        f"  position: {{column: pos, {position}\nfields:\n  id: integer\n{fields}",
+        encoding="utf-8",
+    )
+
+
 def test_zero_padded_hex_positions_give_the_same_events_on_spark(spark: Any, tmp_path: Path) -> None:
     """Leading zeros do not count towards a hex width: a 44-digit text with 14 significant digits
     is a valid 20-digit position on both engines (Spark's lpad would cut the text, not pad it)."""
-    (tmp_path / "mappings").mkdir()
-    (tmp_path / "mappings" / "t.yaml").write_text(
-        "table: t.hex\nfiles: ['h*.csv']\nkey: [id]\nchange:\n"
-        "  action: {column: op, codes: {I: insert}}\n"
-        "  position: {column: pos, kind: hex, width: 20}\n"
-        "  sequence: {column: seq, kind: hex}\nfields:\n  id: integer\n",
-        encoding="utf-8",
-    )
+    _one_mapping(tmp_path, "t.hex", "h", "kind: hex, width: 20}\n  sequence: {column: seq, kind: hex}", "")
     dumps = tmp_path / "dumps"
     dumps.mkdir()
     rows = [
@@ -169,13 +174,12 @@ def test_decimals_of_every_precision_give_the_same_events_on_spark(spark: Any, t
     decimal is the reference for the values kept."""
     from decimal import Decimal
 
-    (tmp_path / "mappings").mkdir()
-    (tmp_path / "mappings" / "t.yaml").write_text(
-        "table: t.dec\nfiles: ['d*.csv']\nkey: [id]\nchange:\n"
-        "  action: {column: op, codes: {I: insert}}\n"
-        "  position: {column: pos, kind: integer}\nfields:\n  id: integer\n"
+    _one_mapping(
+        tmp_path,
+        "t.dec",
+        "d",
+        "kind: integer}",
         "  a: decimal(38,2)\n  b: decimal(2,2)\n  c: decimal(38,34)\n",
-        encoding="utf-8",
     )
     rows = [
         ("1.250", "-.5", "10000E-1"),

@@ -26,6 +26,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from cdcnorm.engines.duckdb import DuckDBEngine
+from cdcnorm.readers import streams
 
 
 def _bytes_as_surrogates(e: UnicodeError) -> tuple[str | bytes, int]:
@@ -77,15 +78,9 @@ def writing_codec(encoding: str, start: bytes) -> str:
     becomes the order the file's mark gives or, without one, the machine's, as Python's decoder
     reads it; utf-8-sig becomes utf-8 (the mark is not a record's)."""
     name = codecs.lookup(encoding).name
-    marks = {
-        "utf-16": (codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE),
-        "utf-32": (codecs.BOM_UTF32_LE, codecs.BOM_UTF32_BE),
-    }
-    if name in marks:
-        little, big = marks[name]
-        order = (
-            "le" if start.startswith(little) else "be" if start.startswith(big) else sys.byteorder[0] + "e"
-        )
+    if name in ("utf-16", "utf-32"):
+        found = (streams.wide_unicode(start) or "").lower().replace("-", "")  # utf16le, say
+        order = found[-2:] if found.startswith(name.replace("-", "")) else sys.byteorder[0] + "e"
         return f"{name}-{order}"
     return "utf-8" if name == "utf-8-sig" else name
 

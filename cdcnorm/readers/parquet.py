@@ -115,8 +115,7 @@ def _exact_decimals(f: RawFile, path: Path, schema: pa.Schema, scratch: Path) ->
     changed = [fd.name for fd, to in zip(schema, exact, strict=True) if fd.type != to.type]
     if not changed:
         return path
-    scratch.mkdir(parents=True, exist_ok=True)
-    target = scratch / f"{f.file_id}-{streams.base_name(f.path)}"
+    target = streams.scratch_copy(f.path, scratch)
     try:
         with pq.ParquetWriter(target, exact) as out:
             for batch in pq.ParquetFile(path).iter_batches(batch_size=COPY_BATCH):

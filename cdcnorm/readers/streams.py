@@ -366,7 +366,7 @@ def head(path: Path, size: int = 1 << 20) -> bytes:
     return b""
 
 
-def _scratch_copy(path: Path, scratch: Path) -> Path:
+def scratch_copy(path: Path, scratch: Path) -> Path:
     """A new path in ``scratch`` for a copy of ``path`` (numbered: two inputs may share a name)."""
     scratch.mkdir(parents=True, exist_ok=True)
     return scratch / f"{len(list(scratch.iterdir()))}-{base_name(path)}"
@@ -377,7 +377,7 @@ def engine_readable(path: Path, scratch: Path, reads: Collection[str] = ENGINE_R
     ``reads``: the suffixes the reader decompresses itself (the Parquet reader: none)."""
     if compression(path) is None or path.suffix.lower() in reads:
         return path
-    target = _scratch_copy(path, scratch)
+    target = scratch_copy(path, scratch)
     with open(target, "wb") as out:
         for block in blocks(path):
             out.write(block)
@@ -390,7 +390,7 @@ def transcoded(path: Path, scratch: Path, encoding: str) -> Path | None:
     (the careful path keeps such a cell as bytes). A byte order mark at the start is left out (the
     header's reading leaves it out too); line ends and every other character stay as they are, so
     records and their numbers do too. Streamed in blocks: memory stays bounded."""
-    target = _scratch_copy(path, scratch)
+    target = scratch_copy(path, scratch)
     decoder = codecs.getincrementaldecoder(encoding)("strict")
     start = True
     try:

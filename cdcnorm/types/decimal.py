@@ -10,6 +10,11 @@ def _mantissa(x: str) -> str:
     return f"regexp_extract({x}, '^[+-]?([0-9]*[.]?[0-9]*)', 1)"
 
 
+def _whole(x: str) -> str:
+    """SQL: the digits of a decimal text before its point, without the sign."""
+    return f"regexp_extract({x}, '^[+-]?([0-9]*)', 1)"
+
+
 def _digits(x: str) -> str:
     """SQL: the mantissa's digits, without its point."""
     return f"replace({_mantissa(x)}, '.', '')"
@@ -51,7 +56,7 @@ class DecimalType(FieldType):
         return f"decimal({p},{s})"
 
     def _int_digits(self, x: str) -> str:
-        return f"length(ltrim(regexp_extract({x}, '^[+-]?([0-9]*)', 1), '0'))"
+        return f"length(ltrim({_whole(x)}, '0'))"
 
     def _frac_digits(self, x: str) -> str:
         return rf"length(rtrim(regexp_extract({x}, '\.([0-9]*)', 1), '0'))"
@@ -72,7 +77,7 @@ class DecimalType(FieldType):
         before and after them (zero as 0). The engine's cast reads the digits before the exponent
         at the target scale first: 10000E-1 (1000.0) and 0.00001E6 (10) did not fit decimal(38,34)
         on the way, and were refused."""
-        whole = f"regexp_extract({x}, '^[+-]?([0-9]*)', 1)"
+        whole = _whole(x)
         digits = _digits(x)
         lead = f"(length({digits}) - length(ltrim({digits}, '0')))"
         body = f"rtrim(ltrim({digits}, '0'), '0')"

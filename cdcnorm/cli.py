@@ -251,7 +251,10 @@ def build_parser() -> argparse.ArgumentParser:
         "--out", default="build", help="the landing area: a folder that accumulates runs (default: build/)"
     )
     conv.add_argument(
-        "--replace", action="store_true", help="empty the landing area first (a one-off conversion)"
+        "--replace",
+        action="store_true",
+        help="this run replaces the landing area's contents when it commits (a one-off conversion; "
+        "a run that fails leaves the area as it was)",
     )
     conv.add_argument(
         "--wait",

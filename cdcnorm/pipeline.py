@@ -116,7 +116,7 @@ class Options:
     scratch: Path | None = None  # where the run's temporary folder goes (default: the system's)
     spill_limit: str | None = None  # most temporary disk the engine may use (default: its own)
     wait: float = 30.0  # seconds to wait for another run's lock on the landing area
-    replace: bool = False  # empty the landing area first
+    replace: bool = False  # the run replaces the landing area's contents when it commits
     settle: str | None = None  # "all", or a raw position: pending images below it go to quarantine
 
 
@@ -537,8 +537,7 @@ def run(
         from cdcnorm.landing.outputs import commit_run, new_inputs
 
         with open_landing(options.out, options.wait) as area:
-            if options.replace:
-                area.clear()
+            area.replacing = options.replace  # the earlier runs' files go when this one commits
             routed, inputs_info, skipped, later = new_inputs(area, routed)
             has_pending = options.settle is not None and any(area.waiting(m.table) for m in mappings)
             if not any(routed.values()) and not has_pending:

@@ -29,7 +29,7 @@ from hypothesis import strategies as st
 
 from cdcnorm.mapping import load_mappings
 from cdcnorm.pipeline import Options, run
-from tests.conftest import ROOT, cli, last_run
+from tests.conftest import ROOT, cli, landing_outputs, last_run
 from tests.test_oracle_sqlite import MAPPING, SCHEMA, final_table, workload
 from tests.test_properties import MAPPING as MOORINGS
 from tests.test_properties import SETTINGS, _csv, _log, ops
@@ -525,6 +525,93 @@ def test_a_folder_that_is_no_landing_area_but_holds_its_folder_names_is_refused(
     assert cli(*args, "--out", str(area), "--quiet") == 0
     assert cli(*args, "--out", str(area), "--replace", "--quiet") == 0
     assert len(list((area / "runs").glob("*.json"))) == 1
+
+
+def _replace_args(area: Path, *inputs: Path) -> list[str]:
+    return ["convert", *map(str, inputs), "--mappings", str(ROOT / "mappings"), "--out", str(area), "--quiet"]
+
+
+def test_replace_takes_effect_only_when_its_run_commits(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """--replace emptied the landing area before the run: a run that then failed (schema drift,
+    exit 4) left an empty area, every earlier run's events, identities and quarantine gone. The
+    earlier files now go as the replacing run commits, and not before."""
+    dumps, nextday = ROOT / "examples" / "dumps", ROOT / "examples" / "next-day"
+    area = tmp_path / "area"
+    assert cli(*_replace_args(area, dumps)) == 0
+    assert cli(*_replace_args(area, nextday)) == 0
+    before = _visible(area)
+    assert len([f for f in before if f.startswith("runs/")]) == 2
+    drifted = tmp_path / "drifted" / "bookings-2026-03-03.csv"
+    drifted.parent.mkdir()
+    drifted.write_text("op,log_pos\n2,0/1\n")
+    capsys.readouterr()
+    assert cli(*_replace_args(area, drifted), "--replace") == 4
+    assert "schema drift" in capsys.readouterr().err
+    assert _visible(area) == before  # every file as it was, byte for byte
+    assert not list((area / ".cdcnorm").glob("staging-*"))
+
+    # a replacing run that commits reads the area as empty (the inputs converted before are not
+    # skipped) and leaves its own files only: the same events as a run into a new area
+    assert cli(*_replace_args(area, dumps), "--replace") == 0
+    fresh = tmp_path / "fresh"
+    assert cli(*_replace_args(fresh, dumps)) == 0
+    record = last_run(area)
+    assert record["skipped"] == [] and record["options"]["replace"] is True
+    assert [p.name for p in (area / "runs").iterdir()] == [f"{record['run']}.json"]
+    assert all(Path(f).name.startswith(record["run"]) for f in _visible(area)), sorted(_visible(area))
+    assert landing_outputs(area) == landing_outputs(fresh)
+    assert record["ledger"] == last_run(fresh)["ledger"]
+
+
+@pytest.mark.parametrize("where", ["clearing", "moving"])
+def test_a_replacing_run_stopped_in_its_commit_is_finished_by_the_next_opening(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str], where: str
+) -> None:
+    """Committed, a replacing run's journal names the folders it clears: the next opening of the
+    area finishes both the clearing and the moves, whichever was under way when it stopped."""
+    from cdcnorm.landing import journal, open_landing
+
+    dumps, nextday = ROOT / "examples" / "dumps", ROOT / "examples" / "next-day"
+    area, fresh = tmp_path / "area", tmp_path / "fresh"
+    assert cli(*_replace_args(area, dumps)) == 0
+    assert cli(*_replace_args(fresh, nextday)) == 0
+    meta = area / ".cdcnorm"
+    done: list[Path] = []
+    real_replace, real_unlink = os.replace, Path.unlink
+
+    def committing(target: Any) -> bool:  # a step of the publish, once the journal is written
+        return (meta / journal.NAME).exists() and Path(target).parent != meta
+
+    def replace(src: Any, dst: Any) -> None:
+        if where == "moving" and committing(dst):
+            done.append(Path(dst))
+            if len(done) == 2:  # one file moved in, the next move fails
+                raise OSError(5, "Input/output error")
+        real_replace(src, dst)
+
+    def unlink(path: Path, missing_ok: bool = False) -> None:
+        if where == "clearing" and committing(path):
+            done.append(path)
+            if len(done) == 2:  # one earlier file removed, the next removal fails
+                raise OSError(5, "Input/output error")
+        real_unlink(path, missing_ok=missing_ok)
+
+    monkeypatch.setattr(journal.os, "replace", replace)
+    monkeypatch.setattr(Path, "unlink", unlink)
+    capsys.readouterr()
+    assert cli(*_replace_args(area, nextday), "--replace") != 0
+    assert "is committed, but moving its files into place stopped" in capsys.readouterr().err
+    monkeypatch.undo()
+    assert len(done) == 2 and (meta / journal.NAME).exists()
+    with open_landing(area, wait=5):
+        pass
+    assert not (meta / journal.NAME).exists() and not list(meta.glob("staging-*"))
+    run = last_run(area)["run"]
+    assert [p.name for p in (area / "runs").iterdir()] == [f"{run}.json"]
+    assert all(Path(f).name.startswith(run) for f in _visible(area)), sorted(_visible(area))
+    assert landing_outputs(area) == landing_outputs(fresh)
 
 
 def test_a_landing_area_whose_cdcnorm_folder_was_removed_is_still_one(tmp_path: Path) -> None:

@@ -27,6 +27,9 @@ DATA = ("events", "quarantine", "index", runs.RUNS)
 @dataclass
 class Landing:
     root: Path
+    #: the run replaces the area's contents (``convert --replace``): it reads the area as empty,
+    #: and its commit removes the earlier runs' files; until then they stay as they were
+    replacing: bool = False
 
     @property
     def meta(self) -> Path:
@@ -43,12 +46,8 @@ class Landing:
             for tmp in (self.root / folder).rglob("*.tmp-*"):
                 tmp.unlink()
 
-    def clear(self) -> None:
-        for folder in DATA:
-            shutil.rmtree(self.root / folder, ignore_errors=True)
-
     def next_run(self) -> str:
-        done = runs.committed(self.root)
+        done = self.committed()
         number = 1 + max((int(r.split("-")[0]) for r in done), default=0)
         return f"{number:06d}-{datetime.now(UTC):%Y%m%dT%H%M%SZ}"
 
@@ -76,7 +75,7 @@ class Landing:
         files = sorted(p.relative_to(staging).as_posix() for p in staging.rglob("*") if p.is_file())
         moves = [(f, f) for f in files if f != record] + [(record, record)]
         with _ctrl_c_held():
-            journal.write(self.meta, staging, moves)
+            journal.write(self.meta, staging, moves, DATA if self.replacing else ())
             try:
                 journal.replay(self.root, self.meta)
             except OSError as e:  # committed: the journal is written, only the moves are left
@@ -92,7 +91,8 @@ class Landing:
                 ) from None
 
     def committed(self) -> set[str]:
-        return runs.committed(self.root)
+        """The runs committed before this one (none when it replaces them)."""
+        return set() if self.replacing else runs.committed(self.root)
 
     def emitted_files(self, table: str) -> list[Path]:
         return self._index_files("emitted", table)

@@ -5,6 +5,10 @@ A run's files are complete in its staging folder before the journal is written
 the moves are made in order, the run record last, and the journal is removed.
 If the process dies in between, the next opening of the area replays the
 remaining moves (a move whose source is gone is already done).
+
+A run that replaces the area's contents (``convert --replace``) names the folders it clears:
+every file in them that is not one of the run's own is removed before the moves. Replayed
+again, the clearing keeps the files already moved in, so it too can stop anywhere and resume.
 """
 
 from __future__ import annotations
@@ -27,12 +31,13 @@ def _fsync_dir(folder: Path) -> None:
         os.close(fd)
 
 
-def write(meta: Path, staging: Path, moves: list[tuple[str, str]]) -> None:
-    """Record the moves (paths relative to the area) that publish ``staging``."""
+def write(meta: Path, staging: Path, moves: list[tuple[str, str]], clear: tuple[str, ...] = ()) -> None:
+    """Record the moves (paths relative to the area) that publish ``staging``, and the folders
+    whose other files the run replaces (``clear``)."""
     tmp = meta / (NAME + ".tmp")
     try:
         with open(tmp, "w", encoding="utf-8") as f:
-            json.dump({"staging": staging.name, "moves": moves}, f)
+            json.dump({"staging": staging.name, "moves": moves, "clear": list(clear)}, f)
             f.flush()
             os.fsync(f.fileno())
         os.replace(tmp, meta / NAME)
@@ -63,6 +68,10 @@ def replay(root: Path, meta: Path) -> bool:
         if not staging.name.startswith("staging-"):
             raise ValueError(f"{data['staging']!r} is no staging folder")
         moves = [(_inside(src), _inside(dst)) for src, dst in data["moves"]]
+        folders = data.get("clear", [])
+        if not isinstance(folders, list):
+            raise TypeError(f"{folders!r} is no list of folders")
+        clear = [_inside(folder) for folder in folders]
     except (UnicodeDecodeError, ValueError, KeyError, TypeError) as e:  # JSONDecodeError is a ValueError
         raise InputError(
             "the commit journal of the landing area is damaged: the run it was committing cannot be finished",
@@ -72,6 +81,8 @@ def replay(root: Path, meta: Path) -> bool:
             hint=f"remove {path} and any {meta}/staging-* folder: the run it named is then not committed "
             "(its files in place are ignored, and its inputs are converted again)",
         ) from None
+    if clear:
+        _clear(root, clear, {dst for _, dst in moves})
     for src, dst in moves:
         source, target = staging / src, root / dst
         if source.exists():
@@ -81,3 +92,18 @@ def replay(root: Path, meta: Path) -> bool:
     path.unlink()
     shutil.rmtree(staging, ignore_errors=True)
     return True
+
+
+def _clear(root: Path, folders: list[str], keep: set[str]) -> None:
+    """Remove every file under ``folders`` but those ``keep`` names (the run's own, moved in or
+    still to be), then the folders left empty."""
+    for name in folders:
+        folder = root / name
+        if not folder.is_dir():
+            continue
+        for path in sorted(folder.rglob("*"), reverse=True):  # a folder's files before the folder
+            if path.is_dir():
+                if not any(path.iterdir()):
+                    path.rmdir()
+            elif path.relative_to(root).as_posix() not in keep:
+                path.unlink()

@@ -44,8 +44,8 @@ def new_inputs(
     """Leave out inputs an earlier run converted (same SHA-256). Only a file whose size equals an
     earlier input's can be one, so only those are hashed before the run; the others are hashed
     while it converts, for the run record."""
-    earlier = runs.records(area.root)
-    by_sha = runs.checksums(area.root)
+    earlier = [] if area.replacing else runs.records(area.root)
+    by_sha = {} if area.replacing else runs.checksums(area.root)
     sizes = {item["bytes"] for rec in earlier for item in rec.get("inputs", [])}
     later = Checksums()
     kept: dict[str, list[Path]] = {}

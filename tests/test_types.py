@@ -173,10 +173,60 @@ def test_integer_is_64_bit_and_never_wraps(convert: ConvertFn) -> None:
 
 
 def test_boolean_spellings(convert: ConvertFn) -> None:
-    raw = ["true", "FALSE", "t", "F", "1", "0", "Yes", "no", "maybe", "y"]
+    raw = ["true", "FALSE", "t", "F", "1", "0", "Yes", "no", "y", "Off", " on\t", "maybe", "o", "yess", "01"]
     got = type_values(convert, "boolean", raw)
-    assert [v for v, _ in got[:8]] == [True, False, True, False, True, False, True, False]
-    assert got[8][0] is None and got[9][0] is None
+    assert [v for v, _ in got[:11]] == [True, False, True, False, True, False, True, False, True, False, True]
+    assert all(v is None for v, _ in got[11:])
+    assert got[11][1] == "not a boolean: true/false, yes/no, on/off, 1/0 (any case), or t, f, y, n"
+
+
+#: every word PostgreSQL's boolean input names, each prefix, in three cases, with and without the
+#: whitespace it ignores, and near misses
+BOOLEAN_CANDIDATES = sorted(
+    {
+        variant
+        for word in ("true", "false", "yes", "no", "on", "off", "1", "0")
+        for n in range(1, len(word) + 1)
+        for case in (word[:n], word[:n].upper(), word[:n].title())
+        for variant in (case, f" {case}", f"{case} ", f"\t{case}\n", f"\r{case}\x0b\x0c")
+    }
+    | {
+        "truee",
+        "yess",
+        "onn",
+        "offf",
+        "01",
+        "10",
+        "2",
+        "-1",
+        "t rue",
+        "nope",
+        "ja",
+        "\u00a0true",
+        "ｔｒｕｅ",
+        "   ",
+    }
+)
+
+
+def test_boolean_spellings_as_postgresql_reads_them(convert: ConvertFn, pg_url: str) -> None:
+    """A real PostgreSQL server as the oracle: each text is a boolean exactly when ``text::boolean``
+    takes it there, and the same one."""
+    import psycopg
+
+    expected: list[bool | None] = []
+    with psycopg.connect(pg_url.replace("postgresql+psycopg", "postgresql"), autocommit=True) as c:
+        for text in BOOLEAN_CANDIDATES:
+            try:
+                row = c.execute("SELECT %s::boolean", (text,)).fetchone()
+                expected.append(None if row is None else row[0])
+            except psycopg.errors.InvalidTextRepresentation:
+                expected.append(None)
+    got = type_values(convert, "boolean", BOOLEAN_CANDIDATES)
+    assert [v for v, _ in got] == expected, [
+        (t, v, e) for t, (v, _), e in zip(BOOLEAN_CANDIDATES, got, expected, strict=True) if v != e
+    ]
+    assert sum(e is not None for e in expected) > 100  # most candidates are booleans
 
 
 def test_float_date_time_text_json(convert: ConvertFn) -> None:

@@ -2,18 +2,27 @@ from __future__ import annotations
 
 from cdcnorm.types.base import FieldType
 
-TRUE = "('true', 't', '1', 'yes')"
-FALSE = "('false', 'f', '0', 'no')"
+#: What PostgreSQL's boolean input reads (its documentation, "Boolean Type": true/yes/on/1 and
+#: false/no/off/0, case-insensitive, with leading and trailing whitespace ignored, and "unique
+#: prefixes of these strings are also accepted"): t tr tru true, y ye yes, on, 1; f fa fal fals
+#: false, n no, of off, 0 ("o" alone is no prefix of one word only). tests/test_types.py holds
+#: every spelling against a real PostgreSQL server.
+TRUE = "('t', 'tr', 'tru', 'true', 'y', 'ye', 'yes', 'on', '1')"
+FALSE = "('f', 'fa', 'fal', 'fals', 'false', 'n', 'no', 'of', 'off', '0')"
+#: the whitespace PostgreSQL ignores around a boolean (C's isspace: space, tab, LF, VT, FF, CR)
+SPACE = "' ' || chr(9) || chr(10) || chr(11) || chr(12) || chr(13)"
 
 
 class BooleanType(FieldType):
-    """true/false/t/f/1/0/yes/no in any case."""
+    """What PostgreSQL's boolean input reads: true/false, yes/no, on/off, 1/0 in any case, or a
+    prefix of one word only (t, f, y, n), whitespace around it ignored."""
 
     name = "boolean"
     sql_type = "BOOLEAN"
 
     def cast(self, x: str) -> str:
-        return f"CASE WHEN lower({x}) IN {TRUE} THEN TRUE WHEN lower({x}) IN {FALSE} THEN FALSE END"
+        word = f"lower(trim({x}, {SPACE}))"
+        return f"CASE WHEN {word} IN {TRUE} THEN TRUE WHEN {word} IN {FALSE} THEN FALSE END"
 
     def explain(self, x: str) -> str:
-        return "'not one of true/false/t/f/1/0/yes/no'"
+        return "'not a boolean: true/false, yes/no, on/off, 1/0 (any case), or t, f, y, n'"

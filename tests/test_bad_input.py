@@ -14,7 +14,7 @@ from hypothesis import strategies as st
 
 from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.sql import lit
-from tests.conftest import ConvertFn, cli, last_run
+from tests.conftest import Converted, ConvertFn, cli, last_run
 
 NOTES = """
 table: t.notes
@@ -463,6 +463,53 @@ def test_json_lines_blank_lines_are_not_records(convert: ConvertFn) -> None:
     ledger = done.ledger()
     assert ledger["balanced"] and ledger["total"]["read"] == 4 and len(done.events("t.notes")) == 2
     assert sorted(q["_cdcnorm"]["row"] for q in done.quarantine("t.notes")) == [6, 7]
+
+
+def _blank_notes(done: Converted) -> dict[str, list[str]]:
+    return {n["file"]: [n["note"]] for n in last_run(done.out)["notes"] if "blank line" in n["note"]}
+
+
+BLANK_CSV = "op,pos,id,a\nI,1,1,x\n\nI,2,2,y\r\n\r\n\nI,3,3,z\n\n"
+
+
+@pytest.mark.parametrize(
+    ("form", "body", "extra"),
+    [
+        ("RFC 4180, the engine's reader", BLANK_CSV, ""),
+        ("RFC 4180, record by record (a broken quote)", BLANK_CSV.replace("I,3,3,z", 'I,3,3,"z'), ""),
+        # a CR is data in these forms, whose lines end as the first line's does
+        ("COPY's text format", BLANK_CSV.replace(",", "\t").replace("\r", ""), "csv: {escapes: backslash}"),
+        (
+            "plain text, record by record",
+            BLANK_CSV.replace(",", "|~|").replace("\r", ""),
+            'csv: {escapes: none, delimiter: "|~|"}',
+        ),
+    ],
+)
+def test_blank_lines_are_not_records_and_a_note_counts_them(
+    convert: ConvertFn, form: str, body: str, extra: str
+) -> None:
+    """Blank lines were left out of every count without a word: a dump's lines and its ledger's
+    rows then differed with nothing to say why. They are still no records (a CSV record number
+    counts records), and the run notes how many each file had."""
+    done = convert(NOTES.replace("TYPE", "text") + extra, {"n.csv": body})
+    ledger = done.ledger()
+    assert ledger["balanced"] and ledger["total"]["read"] == 3, form
+    assert [e["origin"]["row"] for e in done.events("t.notes")] == [1, 2, 3][: len(done.events("t.notes"))]
+    assert _blank_notes(done) == {"n.csv": ["4 blank lines: not records, not counted as read"]}, form
+
+
+def test_blank_lines_of_many_small_files_and_of_json_lines_are_noted(convert: ConvertFn) -> None:
+    """Small files read as one (twenty here), and JSON Lines, whose record numbers are line numbers."""
+    files: dict[str, str | bytes] = {f"n{i:02d}.csv": f"op,pos,id,a\nI,{i},{i},x\n" for i in range(1, 21)}
+    files["n05.csv"] = "op,pos,id,a\n\nI,5,5,x\n"
+    done = convert(NOTES.replace("TYPE", "text"), files)
+    assert done.ledger()["total"]["read"] == 20
+    assert _blank_notes(done) == {"n05.csv": ["a blank line: not records, not counted as read"]}
+    lines = '{"op":"I","pos":1,"id":1,"a":"x"}\n\n \n{"op":"I","pos":2,"id":2,"a":"y"}\n'
+    done = convert(NOTES.replace("TYPE", "text"), {"n.jsonl": lines})
+    assert [e["origin"]["row"] for e in done.events("t.notes")] == [1, 4]
+    assert _blank_notes(done) == {"n.jsonl": ["2 blank lines: not records, not counted as read"]}
 
 
 _json_strings = st.text(st.sampled_from('"\\,]}: aeN1u'), max_size=8)

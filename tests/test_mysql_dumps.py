@@ -184,7 +184,7 @@ def test_outfile_text_splits_and_decodes_back_to_its_values_however_its_blocks_f
     lines = text.encode()
     cuts = sorted(data.draw(st.lists(st.integers(0, len(lines)), max_size=4)))
     blocks = [lines[a:b] for a, b in zip([0, *cuts], [*cuts, len(lines)], strict=True)]
-    count, _ = count_blocks(blocks, False, ENCLOSED_COUNT)
+    count = count_blocks(blocks, False, ENCLOSED_COUNT).records
     assert count == len(values)
     assert count_blocks(blocks, False, ENCLOSED_COUNT) == count_blocks([lines], False, ENCLOSED_COUNT)
     records = [f"I,{i + 1},{i + 1},{_outfile(v)}" for i, v in enumerate(values)]

@@ -134,6 +134,7 @@ class RawFile:
     columns: list[str] = field(default_factory=list)
     rows: int = 0  # records split into columns
     malformed: int = 0  # records that could not be
+    blank: int = 0  # blank lines: not records (a note says how many)
     empty: bool = False
     # False when the file states no columns to hold against the mapping: a file of no bytes, or
     # JSON Lines with no line that parses (its columns come from its objects)
@@ -151,6 +152,12 @@ class RawFile:
     @property
     def rows_read(self) -> int:
         return self.rows + self.malformed
+
+    def note_blank(self) -> None:
+        """Say how many blank lines the file had, if any: they are not records, so no count shows them."""
+        if self.blank:
+            lines = "a blank line" if self.blank == 1 else f"{self.blank:,} blank lines"
+            self.notes.append(f"{lines}: not records, not counted as read")
 
 
 @dataclass

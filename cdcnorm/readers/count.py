@@ -12,6 +12,7 @@ from __future__ import annotations
 from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, replace
 from pathlib import Path
+from typing import NamedTuple
 
 import numpy as np
 
@@ -42,7 +43,18 @@ class Counting:
         return replace(self, lf_only=self.quote is None and lf)
 
 
-def count_records(path: Path, header: bool, how: Counting) -> tuple[int, bool]:
+class Counted(NamedTuple):
+    """What the record count finds in a file."""
+
+    #: data records (the header left out)
+    records: int
+    #: whether the engine's reader may read the file
+    readable: bool
+    #: blank lines (outside quotes): not records, and in no count but this one
+    blank: int = 0
+
+
+def count_records(path: Path, header: bool, how: Counting) -> Counted:
     """The number of data records by quote parity, independently of any CSV parser, and whether the
     engine's reader may read the file: its quotes balance, and ``how`` finds nothing that reader
     would read otherwise. A line break ends a record only outside quotes (RFC 4180 doubles a quote
@@ -144,7 +156,7 @@ def _whole_runs(chunks: Iterable[bytes], limit: int) -> Iterator[tuple[bytes, bo
     yield held, True
 
 
-def count_blocks(chunks: Iterable[bytes], header: bool, how: Counting) -> tuple[int, bool]:
+def count_blocks(chunks: Iterable[bytes], header: bool, how: Counting) -> Counted:
     """``count_records`` over the bytes of a file given in blocks."""
     quote, escaping, lf_only = how.quote, how.escaping, how.lf_only
     check = _EnclosedCheck(ord(quote), escaping) if escaping is not None and quote is not None else None
@@ -159,6 +171,7 @@ def count_blocks(chunks: Iterable[bytes], header: bool, how: Counting) -> tuple[
     pos = 0
     last_byte = 10
     count = 0
+    blank = 0
     cr_data = False  # a CR before an LF, in a file of LF line ends (``lf_only``)
     for chunk, final in blocks:
         buf = np.frombuffer(chunk, dtype=np.uint8)
@@ -192,7 +205,8 @@ def count_blocks(chunks: Iterable[bytes], header: bool, how: Counting) -> tuple[
             at = ends - 1 - pos
             before = np.where(at >= 0, buf[np.maximum(at, 0)], last_byte)
             empty = (gap == 1) | ((gap == 2) & (before == 13))
-            count += int(len(ends) - np.count_nonzero(empty))
+            blank += int(np.count_nonzero(empty))
+            count += len(ends) - int(np.count_nonzero(empty))
             last_end = int(ends[-1])
         pos += len(buf)
         if len(buf):
@@ -201,4 +215,5 @@ def count_blocks(chunks: Iterable[bytes], header: bool, how: Counting) -> tuple[
     if rest > 1 or (rest == 1 and last_byte != 13):
         count += 1
     plain = check is None or check.plain
-    return count - (1 if header and count else 0), parity == 0 and not escaped and plain and not cr_data
+    readable = parity == 0 and not escaped and plain and not cr_data
+    return Counted(count - (1 if header and count else 0), readable, blank)

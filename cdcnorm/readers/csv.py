@@ -266,6 +266,8 @@ def read_files(
             _unescape(reading, group, first)
         if mapping.csv.empty is not None:
             _replace_cells(reading, first, mapping.csv.empty, "", "empty")
+    for f in files:
+        f.note_blank()
 
 
 def _unescape(r: _Reading, group: list[RawFile], first: int) -> None:
@@ -361,13 +363,13 @@ def _fast_paths(paths: dict[str, RawFile], r: _Reading) -> list[RawFile]:
     good = []
     for p, f in paths.items():
         n, lo, hi = spans.get(p, (0, 0, -1))
-        records, balanced = counts[p]
+        records, balanced, blank = counts[p]
         if p in rejected or n != records or not balanced:
             rejected.add(p)
             continue
         if n and hi - lo + 1 != n:  # the engine's insertion order did not keep the file together
             raise InputError("the engine did not keep this file's records in order", file=str(f.path))
-        f.rows = n
+        f.rows, f.blank = n, blank
         good.append((p, f.file_id, lo, n))
     if good:
         view = f"{staged}_rows"
@@ -376,9 +378,10 @@ def _fast_paths(paths: dict[str, RawFile], r: _Reading) -> list[RawFile]:
     return [f for p, f in paths.items() if p in rejected]
 
 
-def _body(f: RawFile, header: bool, how: Counting) -> tuple[bytes, bytes, int] | None:
-    """A small file's records without its header, ending in a line end, with that line end and
-    the number of records; None for a file that is not small or whose quotes do not balance."""
+def _body(f: RawFile, header: bool, how: Counting) -> tuple[bytes, bytes, int, int] | None:
+    """A small file's records without its header, ending in a line end, with that line end, the
+    number of records and of blank lines; None for a file that is not small or whose quotes do not
+    balance."""
     if f.path.stat().st_size > SMALL_FILE:
         return None
     data = b""
@@ -392,12 +395,12 @@ def _body(f: RawFile, header: bool, how: Counting) -> tuple[bytes, bytes, int] |
         return None
     end = b"\r\n" if nl and data[nl - 1] == 13 else b"\n"  # the first line's end is the file's
     body = data[nl + 1 :] if header else data
-    records, balanced = count_blocks([body], False, how.with_lines_ending(end == b"\n"))
+    records, balanced, blank = count_blocks([body], False, how.with_lines_ending(end == b"\n"))
     if not balanced:
         return None
     if body and not body.endswith(b"\n"):
         body += end
-    return body, end, records
+    return body, end, records, blank
 
 
 def _joined(group: list[RawFile], r: _Reading) -> list[RawFile]:
@@ -409,34 +412,35 @@ def _joined(group: list[RawFile], r: _Reading) -> list[RawFile]:
     with the larger ones and those whose quotes do not balance, to be read one by one."""
     opts = r.mapping.csv
     alone: list[RawFile] = []
-    by_end: dict[bytes, list[tuple[RawFile, bytes, int]]] = {}
+    by_end: dict[bytes, list[tuple[RawFile, bytes, int, int]]] = {}
     for f in group:
         small = _body(f, opts.header, counting_of(r.mapping, r.delimiter))
         if small is None:
             alone.append(f)
         else:
-            by_end.setdefault(small[1], []).append((f, small[0], small[2]))
+            body, end, records, blank = small
+            by_end.setdefault(end, []).append((f, body, records, blank))
     r.scratch.mkdir(parents=True, exist_ok=True)
     for n, members in enumerate(by_end[end] for end in sorted(by_end)):
         if len(members) < JOIN_MIN:
-            alone.extend(f for f, _, _ in members)
+            alone.extend(f for f, _, _, _ in members)
             continue
         joined = r.scratch / f"joined-{n}.csv"
         with open(joined, "wb") as out:
-            for _, body, _ in members:
+            for _, body, _, _ in members:
                 out.write(body)
         staged = r.raw.relation("joined")
         scanned = _scan(r, staged, [str(joined)], header=False)
-        total = sum(records for _, _, records in members)
+        total = sum(records for _, _, records, _ in members)
         n_rows, lo, hi = scanned[1].get(str(joined), (0, 0, -1)) if scanned else (0, 0, -1)
         if scanned is None or scanned[0] or n_rows != total or (n_rows and hi - lo + 1 != n_rows):
             r.engine.drop(staged)
-            alone.extend(f for f, _, _ in members)
+            alone.extend(f for f, _, _, _ in members)
             joined.unlink()
             continue
         firsts = []
-        for f, _, records in members:
-            f.rows = records
+        for f, _, records, blank in members:
+            f.rows, f.blank = records, blank
             if records:
                 firsts.append((f.file_id, lo, records))
                 lo += records
@@ -582,6 +586,7 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
             )
             number = 0
             good = 0
+            f.blank = 0
             records: Iterator[tuple[str, str | None, list[str]]]
             lines = _lines(f, r.encoding, f.line_end)
             if copy_text:
@@ -590,10 +595,10 @@ def _careful(files: list[RawFile], r: _Reading) -> None:
                     for t, why in text_records(lines, r.delimiter, len(r.internal), f, f.line_end)
                 )
             elif bare:
-                records = plain_records(lines, r.delimiter, len(r.internal), f.line_end)
+                records = plain_records(lines, r.delimiter, len(r.internal), f, f.line_end)
             else:
                 escape = "\\" if mysql else None
-                records = rfc_records(lines, r.delimiter, opts.quote, len(r.internal), escape)
+                records = rfc_records(lines, r.delimiter, opts.quote, len(r.internal), f, escape)
             if opts.header:
                 next(records, None)
             for text, reason, row in records:

@@ -175,10 +175,11 @@ class Overlong(Exception):
 
 
 def rfc_records(
-    lines: Iterator[str], delimiter: str, quote: str, expected: int, escape: str | None = None
+    lines: Iterator[str], delimiter: str, quote: str, expected: int, f: RawFile, escape: str | None = None
 ) -> Iterator[tuple[str, str | None, list[str]]]:
     """(raw text of the record without its line end, None, its fields as the parser read them) for
-    a good record, or (raw text, reason, []) for a malformed one; blank lines are not records.
+    a good record, or (raw text, reason, []) for a malformed one; blank lines are not records
+    (counted on ``f``).
     ``escape``: the character that escapes the next one, in quotes or not (the enclosed form's
     backslash, which the parser drops)."""
     pending: deque[str] = deque()
@@ -211,8 +212,9 @@ def rfc_records(
                 row = next(reader, None)
                 if row is None:
                     return
-                if not row:
-                    continue  # a blank line
+                if not row:  # a blank line
+                    f.blank += 1
+                    continue
                 text = strip_end("".join(consumed))
                 if len(row) != expected:
                     yield text, f"expected {expected} fields, found {len(row)}", []
@@ -273,11 +275,12 @@ def text_records(
     lines: Iterator[str], delimiter: str, expected: int, f: RawFile, ends: str = "\n"
 ) -> Iterator[tuple[str, str | None]]:
     """``rfc_records`` for COPY's text format: a record is one line, or more where a backslash escapes
-    a line break (``text_lines``); blank lines are not records. ``\\.`` alone on the file's last
+    a line break (``text_lines``); blank lines are not records (counted on ``f``). ``\\.`` alone on the file's last
     line is COPY's end-of-data marker, not a record (noted on ``f``); anywhere else it is malformed."""
     marker: str | None = None
     for text in text_lines(lines, ends):
         if not text:
+            f.blank += 1
             continue
         if marker is not None:
             yield marker, "COPY's end-of-data marker \\. before the file's last line"
@@ -295,10 +298,11 @@ def text_records(
 
 
 def plain_records(
-    lines: Iterator[str], delimiter: str, expected: int, ends: str = "\n"
+    lines: Iterator[str], delimiter: str, expected: int, f: RawFile, ends: str = "\n"
 ) -> Iterator[tuple[str, str | None, list[str]]]:
     """``rfc_records`` for plain text: a record is one line (``ends``: the file's line end, as in
-    ``text_lines``), its fields split at every delimiter; blank lines are not records. Nothing
+    ``text_lines``), its fields split at every delimiter; blank lines are not records (counted on
+    ``f``). Nothing
     escapes a line break, so a value holding one splits its record in two: where the break is in
     the last field, the first part has every field, and the rest is a line of too few (one, unless
     the value holds a delimiter too). Such a line is malformed, and so is the record before it,
@@ -309,6 +313,7 @@ def plain_records(
         cut = 2 if ends == "\r\n" and line.endswith("\r\n") else int(line.endswith(("\n", "\r")))
         text = line[: len(line) - cut]
         if not text:
+            f.blank += 1
             continue
         if len(text) > MAX_RECORD_BYTES:
             record: tuple[str, str | None, list[str]] = (

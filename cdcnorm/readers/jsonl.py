@@ -183,6 +183,7 @@ def _read(files: list[RawFile], mapping: Mapping, engine: DuckDBEngine, raw: Raw
     malformed = raw.ensure_malformed(engine)
     # the objects on the way to a mapped nested column: a name repeated in one is ambiguous too
     structures = engine.split_json_lines(lines, ok, malformed, mapping.read_through())
+    every_line = dict(engine.rows(f"SELECT __file, count(*) FROM {ident(lines)} GROUP BY ALL"))
     engine.drop(lines)
     ids = ", ".join(str(f.file_id) for f in files)
     bad = dict(
@@ -193,6 +194,8 @@ def _read(files: list[RawFile], mapping: Mapping, engine: DuckDBEngine, raw: Raw
     for f in files:
         f.malformed = int(bad.get(f.file_id, 0))
         f.rows = int(good.get(f.file_id, 0))
+        f.blank = int(every_line.get(f.file_id, 0)) - f.rows - f.malformed  # lines neither good nor bad
+        f.note_blank()
         f.columns_known = f.rows > 0
         if f.rows == 0 and f.malformed == 0:
             f.empty = True

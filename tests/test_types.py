@@ -172,6 +172,41 @@ def test_integer_is_64_bit_and_never_wraps(convert: ConvertFn) -> None:
     assert all(r == "not an integer" for _, r in got[5:])
 
 
+#: timestamps with a space before the offset, as SQL Server writes a datetimeoffset (seven
+#: fractional digits, from memory of its documentation) and PostgreSQL reads one; and near misses
+SPACED_OFFSETS = [
+    "2026-03-01 08:00:00.1230000 +01:00",
+    "2026-03-01 08:00:00.0000000 -05:30",
+    "2026-03-01 23:30:00 +14:00",
+    "2026-03-01T08:00:00 Z",
+    "2026-03-01 08:00:00 z",
+    "2026-03-01 08:00:00 +0100",
+    "2026-03-01 08:00:00 -03",
+    "1990-12-31 15:59:60 -08:00",
+    "0001-01-01 00:30:00 +00:30",
+    "2026-03-01 08:00:00  +01:00",  # two spaces: no
+    "2026-03-01 08:00:00 ",  # a space and no offset: no
+    "2026-03-01 08:00:00.1234567 +01:00",  # would truncate: no
+]
+
+
+def test_a_space_before_the_offset_reads_as_postgresql_reads_it(convert: ConvertFn, pg_url: str) -> None:
+    """A real PostgreSQL server as the oracle: each spaced form cdcnorm takes is the instant
+    ``text::timestamptz`` gives there (a leap second as the next minute's first instant, as there)."""
+    import psycopg
+
+    got = type_values(convert, "timestamp", SPACED_OFFSETS)
+    assert [v is not None for v, _ in got] == [True] * 9 + [False] * 3, got
+    assert [r for _, r in got[9:]] == ["not an RFC 3339 timestamp"] * 2 + [
+        "more than 6 fractional digits (would truncate)"
+    ]
+    with psycopg.connect(pg_url, autocommit=True) as c:
+        c.execute("SET TimeZone = 'UTC'")
+        for text, (value, _) in zip(SPACED_OFFSETS[:9], got[:9], strict=True):
+            row = c.execute("SELECT %s::timestamptz", (text,)).fetchone()
+            assert row is not None and row[0] == dt.datetime.fromisoformat(value.replace("Z", "+00:00")), text
+
+
 def test_boolean_spellings(convert: ConvertFn) -> None:
     raw = ["true", "FALSE", "t", "F", "1", "0", "Yes", "no", "y", "Off", " on\t", "maybe", "o", "yess", "01"]
     got = type_values(convert, "boolean", raw)

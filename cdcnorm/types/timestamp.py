@@ -5,13 +5,15 @@ from cdcnorm.sql import lit
 from cdcnorm.types.base import FieldType, out_of_range
 
 # RFC 3339 date-time (section 5.6) with ISO 8601's space separator, lower-case
-# t/z and +hh / +hhmm offsets also accepted. The fraction may have any length,
-# but digits past microseconds must be zeros: nothing is truncated silently.
-# Seconds may be 60 (a leap second): it is taken as the first instant of the
-# next minute, as PostgreSQL does, since POSIX time has no value for it.
+# t/z and +hh / +hhmm offsets also accepted, and one space before the offset
+# (SQL Server writes its datetimeoffset so, 2026-03-01 08:00:00.1230000 +01:00;
+# PostgreSQL reads it). The fraction may have any length, but digits past
+# microseconds must be zeros: nothing is truncated silently. Seconds may be 60
+# (a leap second): it is taken as the first instant of the next minute, as
+# PostgreSQL does, since POSIX time has no value for it.
 PATTERN = (
     r"'[0-9]{4}-(0[1-9]|1[0-2])-[0-3][0-9][Tt ]([01][0-9]|2[0-3]):[0-5][0-9]:([0-5][0-9]|60)"
-    r"(\.[0-9]{1,6}0*)?([Zz]|[+-]([01][0-9]|2[0-3])(:?[0-5][0-9])?)?'"
+    r"(\.[0-9]{1,6}0*)?( ?([Zz]|[+-]([01][0-9]|2[0-3])(:?[0-5][0-9])?))?'"
 )
 
 
@@ -28,8 +30,9 @@ def _leap(x: str) -> str:
 
 
 def _unleaped(x: str) -> str:
-    """SQL: the text upper-cased, a leap second :60 written :59 (added back after the cast)."""
-    upper = f"upper({x})"
+    """SQL: the text upper-cased, without a space before its offset (which the engine's cast does
+    not read), a leap second :60 written :59 (added back after the cast)."""
+    upper = f"replace(replace(replace(upper({x}), ' Z', 'Z'), ' +', '+'), ' -', '-')"
     return f"CASE WHEN {_leap(x)} THEN substr({upper}, 1, 17) || '59' || substr({upper}, 20) ELSE {upper} END"
 
 
@@ -62,9 +65,10 @@ def timestamp_cast(x: str, zone: str) -> str:
             f"ELSE {zones.local_to_utc(_local(x), zone)} END"
         )
     adjusted = f"{cast} + CASE WHEN {leap} THEN INTERVAL 1 SECOND ELSE INTERVAL 0 SECOND END"
-    # Most values need none of that: no leap second, no lower-case t or z, and an offset (or the
-    # engine's own zone, UTC, is the mapping's): the engine's cast takes them as they are.
-    plain = f"NOT {leap} AND NOT contains({x}, 't') AND NOT contains({x}, 'z')"
+    # Most values need none of that: no leap second, no lower-case t or z, no space before the
+    # offset, and an offset (or the engine's own zone, UTC, is the mapping's): the engine's cast
+    # takes them as they are.
+    plain = f"NOT {leap} AND NOT contains({x}, 't') AND NOT contains({x}, 'z') AND NOT contains(substr({x}, 20), ' ')"
     if zone != "+00:00":
         plain += f" AND {offset}"
     value = f"CASE WHEN {plain} THEN TRY_CAST({x} AS TIMESTAMPTZ) ELSE {adjusted} END"
@@ -106,7 +110,7 @@ def _out_of_range(x: str) -> str:
     second; an offset's hour and minute likewise)."""
     shaped = (
         f"regexp_full_match({x}, '[0-9]{{4}}-[0-9]{{2}}-[0-9]{{2}}[Tt ][0-9]{{2}}:[0-9]{{2}}:[0-9]{{2}}"
-        "(\\.[0-9]+)?([Zz]|[+-][0-9]{2}(:?[0-9]{2})?)?')"
+        "(\\.[0-9]+)?( ?([Zz]|[+-][0-9]{2}(:?[0-9]{2})?))?')"
     )
     checks = [(6, "month", "NOT BETWEEN '01' AND '12'", " out of range (01-12)")]
     checks += [

@@ -125,6 +125,13 @@ def test_a_table_name_that_would_escape_the_output_folder_is_refused(
         ("codes: {010: insert}", "action code 8 was read as a int"),
         ("position: {column: pos, kind: integer, width: 8}", "width applies to hex positions only"),
         ("a: {type: integer, max_length: 3}", "max_length applies to text fields only"),
+        ("a: {type: integer, epoch: ms}", "epoch applies to timestamp fields only"),
+        ("a: {type: timestamp, epoch: ms, zone: '+01:00'}", "zone does not apply to a count since the epoch"),
+        ("a: {type: timestamp, epoch: minutes}", "epoch"),
+        (
+            "position: {column: pos, kind: integer}\n  committed_at: {column: a, epoch: s, zone: Z}",
+            "zone does not apply to a count since the epoch",
+        ),
     ],
 )
 def test_mapping_options_that_do_not_apply_are_refused(

@@ -206,6 +206,30 @@ def test_decimals_of_every_precision_give_the_same_events_on_spark(spark: Any, t
     )
 
 
+def test_epoch_counts_and_spaced_offsets_give_the_same_events_on_spark(spark: Any, tmp_path: Path) -> None:
+    """Timestamps given as counts since the epoch (every unit, the first and last instant of
+    years 0001-9999, nanoseconds that would truncate) and written with a space before the offset:
+    the same envelopes and rejections on both engines."""
+    _one_mapping(
+        tmp_path,
+        "t.ticks",
+        "e",
+        "kind: integer}\n  committed_at: {column: ts, epoch: ms}",
+        "  s: {type: timestamp, epoch: s}\n  ns: {type: timestamp, epoch: ns}\n  at: timestamp\n  flag: boolean\n",
+    )
+    rows = [
+        ("1772352000250", "-62135596800", "1772352000123456000", "2026-03-01 08:00:00.1230000 +01:00", "Y"),
+        ("-1", "253402300799", "-62135596800000000000", "2026-03-01 08:00:00 -05:30", " off "),
+        ("0", "0", "1772352000123456789", "2026-03-01T08:00:00Z", "t"),  # would truncate
+        ("253402300800000", "1", "0", "2026-03-01T08:00:00Z", "f"),  # after year 9999
+    ]
+    dumps = tmp_path / "dumps"
+    dumps.mkdir()
+    body = "".join(f"I,{i},{i},{','.join(r)}\n" for i, r in enumerate(rows, start=1))
+    (dumps / "e.csv").write_text("op,pos,id,ts,s,ns,at,flag\n" + body, encoding="utf-8")
+    assert _same_on_both(spark, tmp_path / "mappings", dumps, tmp_path / "scratch") == {"t.ticks": (2, 2)}
+
+
 def test_a_json_field_is_refused_by_name_on_spark(spark: Any, tmp_path: Path) -> None:
     from cdcnorm.engines.spark import SparkEngine, UnsupportedByEngine
 

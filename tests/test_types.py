@@ -172,6 +172,108 @@ def test_integer_is_64_bit_and_never_wraps(convert: ConvertFn) -> None:
     assert all(r == "not an integer" for _, r in got[5:])
 
 
+_EPOCH = dt.datetime(1970, 1, 1, tzinfo=dt.UTC)
+#: microseconds per unit of ``epoch`` (Python's datetime as the reference: years 0001-9999 in UTC)
+_PER = {"s": 1_000_000, "ms": 1_000, "us": 1}
+_FIRST = dt.datetime(1, 1, 1, tzinfo=dt.UTC) - _EPOCH
+_LAST = dt.datetime(9999, 12, 31, 23, 59, 59, 999999, tzinfo=dt.UTC) - _EPOCH
+
+
+def _span(unit: str) -> tuple[int, int]:
+    """The counts of ``unit`` that lie in years 0001-9999 (UTC), by Python's datetime."""
+    first, last = _FIRST // dt.timedelta(microseconds=1), _LAST // dt.timedelta(microseconds=1)
+    if unit == "ns":
+        return first * 1000, last * 1000 + 999
+    per = _PER[unit]
+    return -(-first // per), last // per
+
+
+def _epoch_counts(unit: str) -> st.SearchStrategy[int]:
+    lo, hi = _span(unit)
+    return st.integers(lo - 10**6, hi + 10**6) | st.sampled_from([lo, hi, lo - 1, hi + 1, 0, -1, 1])
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.sampled_from(["s", "ms", "us", "ns"]).flatmap(lambda u: st.tuples(st.just(u), _epoch_counts(u))))
+def test_epoch_counts_are_the_instants_python_datetime_makes_of_them(drawn: tuple[str, int]) -> None:
+    """Python's datetime is the oracle: a count of ``unit`` since 1970-01-01T00:00:00Z is that
+    instant when it lies in years 0001-9999 (UTC) and, in nanoseconds, is whole microseconds."""
+    from cdcnorm.engines.duckdb import DuckDBEngine
+    from cdcnorm.sql import lit
+
+    unit, count = drawn
+    ftype = resolve(FieldSpec(type="timestamp", epoch=unit))  # type: ignore[arg-type]
+    engine = _ENGINE.setdefault("engine", DuckDBEngine())
+    text = lit(str(count))
+    ((value, reason),) = engine.rows(
+        f"SELECT {ftype.render('v')}, CASE WHEN v IS NULL THEN {ftype.explain(text)} END "
+        f"FROM (SELECT {ftype.cast(text)} AS v)"
+    )
+    lo, hi = _span(unit)
+    if not lo <= count <= hi:
+        assert (value, reason) == (None, "outside the years 0001 to 9999 in UTC"), count
+    elif unit == "ns" and count % 1000:
+        assert (value, reason) == (None, "nanoseconds below the microsecond (would truncate)"), count
+    else:
+        micros = count // 1000 if unit == "ns" else count * _PER[unit]
+        expected = _EPOCH + dt.timedelta(microseconds=micros)  # Python's datetime
+        assert dt.datetime.fromisoformat(value.replace("Z", "+00:00")) == expected, (unit, count, value)
+
+
+def test_epoch_counts_through_a_conversion(convert: ConvertFn) -> None:
+    lo, hi = _span("ms")
+    counts = [lo, hi, lo - 1, hi + 1, 0, -1, 1_772_352_000_250]
+    got = type_values(convert, "{type: timestamp, epoch: ms}", [str(c) for c in counts])
+    assert [v for v, _ in got] == [
+        "0001-01-01T00:00:00Z",
+        "9999-12-31T23:59:59.999Z",
+        None,
+        None,
+        "1970-01-01T00:00:00Z",
+        "1969-12-31T23:59:59.999Z",
+        "2026-03-01T08:00:00.25Z",  # Python's datetime: 1772352000 s after 1970
+    ]
+    assert _EPOCH + dt.timedelta(seconds=1_772_352_000) == dt.datetime(2026, 3, 1, 8, tzinfo=dt.UTC)
+    assert [r for _, r in got[2:4]] == ["outside the years 0001 to 9999 in UTC"] * 2
+
+
+def test_epoch_counts_that_are_no_whole_numbers_are_named(convert: ConvertFn) -> None:
+    raw = ["+1700000000", "0001700000000", "1.5", "1e9", " 1", "", "1" * 40]
+    got = type_values(convert, "{type: timestamp, epoch: s}", raw)
+    assert [v for v, _ in got[:2]] == ["2023-11-14T22:13:20Z"] * 2  # 1.7e9 s after 1970, by Python's datetime
+    assert dt.datetime(2023, 11, 14, 22, 13, 20, tzinfo=dt.UTC).timestamp() == 1_700_000_000
+    # a quoted empty cell is an empty text, not NULL (RFC 4180 quoting; NULL is an unquoted one)
+    assert [r for _, r in got[2:6]] == ["not a whole number of seconds since 1970-01-01T00:00:00Z"] * 4
+    assert got[6][1] == "outside the years 0001 to 9999 in UTC"
+
+
+def test_a_commit_time_in_epoch_milliseconds_from_a_json_number(convert: ConvertFn) -> None:
+    mapping = """
+    table: t.ticks
+    files: ["t*.jsonl"]
+    key: [id]
+    change:
+      action: {column: op, codes: {c: insert}}
+      position: {column: pos, kind: integer}
+      committed_at: {column: ts_ms, epoch: ms}
+    fields:
+      id: integer
+    """
+    lines = [
+        '{"op": "c", "pos": 1, "ts_ms": 1772352000250, "id": 1}',
+        '{"op": "c", "pos": 2, "ts_ms": 1772352000.5, "id": 2}',
+    ]
+    done = convert(mapping, {"t.jsonl": "\n".join(lines) + "\n"})
+    (event,) = done.events("t.ticks")
+    # 1772352000 s after 1970 is 2026-03-01T08:00:00Z (Python's datetime)
+    assert _EPOCH + dt.timedelta(seconds=1772352000) == dt.datetime(2026, 3, 1, 8, tzinfo=dt.UTC)
+    assert event["committed_at"] == "2026-03-01T08:00:00.25Z"
+    (q,) = done.quarantine("t.ticks")
+    (reason,) = q["_cdcnorm"]["reasons"]
+    assert reason["expected"] == "a whole number of milliseconds since 1970-01-01T00:00:00Z"
+    assert reason["found"] == "1772352000.5"
+
+
 #: timestamps with a space before the offset, as SQL Server writes a datetimeoffset (seven
 #: fractional digits, from memory of its documentation) and PostgreSQL reads one; and near misses
 SPACED_OFFSETS = [

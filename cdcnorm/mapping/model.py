@@ -124,14 +124,29 @@ class SequenceSpec(Strict):
     )
 
 
+#: why a count since the epoch takes no zone
+EPOCH_ZONE = "zone does not apply to a count since the epoch, which is in UTC; remove one of zone and epoch"
+
+
 class CommittedAtSpec(Strict):
     column: str
     zone: str = Field(default="+00:00", description="Offset for values written without one.")
+    epoch: Literal["s", "ms", "us", "ns"] | None = Field(
+        default=None,
+        description="The values are whole seconds, milliseconds, microseconds or nanoseconds since "
+        "1970-01-01T00:00:00Z (not RFC 3339 text).",
+    )
 
     @field_validator("zone")
     @classmethod
     def _zone_ok(cls, v: str) -> str:
         return check_zone(v)
+
+    @model_validator(mode="after")
+    def _one_way(self) -> CommittedAtSpec:
+        if self.epoch is not None and "zone" in self.model_fields_set:
+            raise ValueError(EPOCH_ZONE)
+        return self
 
 
 class ImagesSpec(Strict):
@@ -201,6 +216,11 @@ class FieldSpec(Strict):
     zone: str | None = Field(
         default=None, description="timestamp: offset for values without one (default +00:00)."
     )
+    epoch: Literal["s", "ms", "us", "ns"] | None = Field(
+        default=None,
+        description="timestamp: the values are whole seconds, milliseconds, microseconds or "
+        "nanoseconds since 1970-01-01T00:00:00Z (not RFC 3339 text).",
+    )
     encoding: Literal["hex", "base64"] | None = Field(
         default=None, description="bytes: hex or base64 (default hex)."
     )
@@ -240,11 +260,14 @@ class FieldSpec(Strict):
     @model_validator(mode="after")
     def _options_apply(self) -> FieldSpec:
         name = self.kind
-        for option, types in (("zone", ("timestamp",)), ("encoding", ("bytes",)), ("max_length", ("text",))):
+        options = (("zone", ("timestamp",)), ("epoch", ("timestamp",)), ("encoding", ("bytes",)))
+        for option, types in (*options, ("max_length", ("text",))):
             if getattr(self, option) is not None and name not in types:
                 raise ValueError(
                     f"{option} applies to {' and '.join(types)} fields only, not to {self.type}; remove it"
                 )
+        if self.epoch is not None and self.zone is not None:
+            raise ValueError(EPOCH_ZONE)
         return self
 
 

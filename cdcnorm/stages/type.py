@@ -8,7 +8,13 @@ from cdcnorm import positions
 from cdcnorm.plan import Plan
 from cdcnorm.sql import lit
 from cdcnorm.stages.source import alternative_named, image_named
-from cdcnorm.types.timestamp import timestamp_cast, timestamp_explain
+from cdcnorm.types.timestamp import (
+    epoch_cast,
+    epoch_expected,
+    epoch_explain,
+    timestamp_cast,
+    timestamp_explain,
+)
 
 
 def _reason(
@@ -110,16 +116,23 @@ def type_rows(plan: Plan) -> Plan:
         c.typed.append(("__seq", positions.NO_SEQUENCE))  # no sequence: one constant
     if ch.committed_at:
         col = plan.raw(ch.committed_at.column)
-        c.typed.append(("__cat", timestamp_cast(col, ch.committed_at.zone)))
-        c.check(
-            _invalid(col, "__cat"),
-            _reason(
-                "committed_at",
-                ch.committed_at.column,
+        epoch = ch.committed_at.epoch
+        if epoch:
+            cast, expected, why = (
+                epoch_cast(col, epoch),
+                epoch_expected(epoch),
+                epoch_explain(f"s.{col}", epoch),
+            )
+        else:
+            zone = ch.committed_at.zone
+            cast, expected, why = (
+                timestamp_cast(col, zone),
                 "an RFC 3339 timestamp",
-                f"s.{col}",
-                timestamp_explain(f"s.{col}", ch.committed_at.zone),
-            ),
+                timestamp_explain(f"s.{col}", zone),
+            )
+        c.typed.append(("__cat", cast))
+        c.check(
+            _invalid(col, "__cat"), _reason("committed_at", ch.committed_at.column, expected, f"s.{col}", why)
         )
     else:
         c.typed.append(("__cat", "CAST(NULL AS TIMESTAMPTZ)"))
@@ -137,13 +150,13 @@ def type_rows(plan: Plan) -> Plan:
         if not ftype.accepts_any:
             c.check(
                 _invalid(raw, f"v{i}"),
-                _reason(name, column, ftype.describe(), f"s.{raw}", ftype.explain(f"s.{raw}"), named),
+                _reason(name, column, ftype.expected(), f"s.{raw}", ftype.explain(f"s.{raw}"), named),
             )
         if name in keys or m.fields[name].required:
             what = "missing key" if name in keys else "missing required value"
             c.check(
                 _missing(raw),
-                _reason(name, column, ftype.describe(), "CAST(NULL AS VARCHAR)", lit(what), named),
+                _reason(name, column, ftype.expected(), "CAST(NULL AS VARCHAR)", lit(what), named),
             )
         if images:
             # an update's before-image: its prior (and its key, when the update changed the key)
@@ -153,7 +166,7 @@ def type_rows(plan: Plan) -> Plan:
             if not ftype.accepts_any:
                 c.check(
                     _invalid(prior, f"b{i}"),
-                    _reason(name, before, ftype.describe(), f"s.{prior}", ftype.explain(f"s.{prior}")),
+                    _reason(name, before, ftype.expected(), f"s.{prior}", ftype.explain(f"s.{prior}")),
                 )
 
     src = plan.rel("source")

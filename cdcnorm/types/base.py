@@ -36,6 +36,10 @@ class FieldType:
     def describe(self) -> str:
         return self.name
 
+    def expected(self) -> str:
+        """What a raw text must be, as a quarantine reason's ``expected`` says it."""
+        return self.describe()
+
     def value_type(self) -> str:
         """The spelling of the values' type alone, which ``types.resolve`` reads back: what a
         run record states of each field, to read events written under another mapping. Options

@@ -141,14 +141,78 @@ def timestamp_canonical(v: str) -> str:
     return f"CAST(epoch_us({v}) AS VARCHAR)"
 
 
+#: Epoch units (``epoch``): the name of what a value counts since 1970-01-01T00:00:00Z, and the
+#: exact factor (a DECIMAL: multiplied, it stays exact) that makes it microseconds.
+EPOCH_UNITS = {
+    "s": ("seconds", "CAST(1000000 AS DECIMAL(7,0))", 1_000_000),
+    "ms": ("milliseconds", "CAST(1000 AS DECIMAL(4,0))", 1_000),
+    "us": ("microseconds", "CAST(1 AS DECIMAL(1,0))", 1),
+    "ns": ("nanoseconds", "CAST(0.001 AS DECIMAL(4,3))", None),
+}
+EPOCH_PATTERN = "'[+-]?[0-9]+'"
+#: digits of a count read: more than any count of years 0001-9999 needs (21 in nanoseconds)
+_EPOCH_DIGITS = 22
+
+
+def epoch_expected(unit: str) -> str:
+    return f"a whole number of {EPOCH_UNITS[unit][0]} since 1970-01-01T00:00:00Z"
+
+
+def _span(unit: str) -> tuple[int, int]:
+    """The counts of ``unit`` whose instants lie in years 0001-9999 (UTC)."""
+    per = EPOCH_UNITS[unit][2]
+    if per is None:  # nanoseconds: any in the first to the last microsecond
+        return FIRST_US * 1000, LAST_US * 1000 + 999
+    return -(-FIRST_US // per), LAST_US // per
+
+
+def _count(x: str) -> str:
+    """SQL: the count ``x`` holds, an exact DECIMAL (NULL for more than 22 digits)."""
+    return f"TRY_CAST({x} AS DECIMAL({_EPOCH_DIGITS},0))"
+
+
+def _in_span(x: str, unit: str) -> str:
+    lo, hi = _span(unit)
+    return f"{_count(x)} BETWEEN {lo} AND {hi}"
+
+
+def epoch_cast(x: str, unit: str) -> str:
+    """SQL: raw text ``x``, a whole number of ``unit`` since 1970-01-01T00:00:00Z -> TIMESTAMPTZ,
+    NULL when it is no such number, lies outside years 0001-9999, or (nanoseconds) would lose
+    digits below the microsecond. Exact: the count is a DECIMAL scaled by a DECIMAL factor, never
+    a floating-point number (years 0001-9999 need 58 bits of microseconds)."""
+    us = f"{_count(x)} * {EPOCH_UNITS[unit][1]}"
+    whole = f" AND {_count(x)} % 1000 = 0" if unit == "ns" else ""
+    return (
+        f"CASE WHEN regexp_full_match({x}, {EPOCH_PATTERN}) AND {_in_span(x, unit)}{whole} "
+        f"THEN CAST(make_timestamp(CAST({us} AS BIGINT)) AS TIMESTAMPTZ) END"
+    )
+
+
+def epoch_explain(x: str, unit: str) -> str:
+    below = "ELSE 'nanoseconds below the microsecond (would truncate)' " if unit == "ns" else ""
+    return (
+        f"CASE WHEN NOT regexp_full_match({x}, {EPOCH_PATTERN}) THEN {lit('not ' + epoch_expected(unit))} "
+        f"WHEN NOT coalesce({_in_span(x, unit)}, FALSE) THEN 'outside the years 0001 to 9999 in UTC' "
+        f"{below}END"
+    )
+
+
 class TimestampType(FieldType):
     name = "timestamp"
     sql_type = "TIMESTAMPTZ"
 
+    def expected(self) -> str:
+        return epoch_expected(self.spec.epoch) if self.spec.epoch else self.describe()
+
     def cast(self, x: str) -> str:
+        if self.spec.epoch:
+            return epoch_cast(x, self.spec.epoch)
         return timestamp_cast(x, self.spec.zone or "+00:00")
 
     def explain(self, x: str) -> str:
+        if self.spec.epoch:
+            return epoch_explain(x, self.spec.epoch)
         return timestamp_explain(x, self.spec.zone or "+00:00")
 
     def render(self, v: str) -> str:

@@ -9,8 +9,8 @@ it: if this one statement is already slower than the target, no arrangement of t
     python tests/bench/bound.py [--unsorted] [--jsonl] OUT MAPPINGS_FOLDER DUMP.csv [DUMP.csv ...]
 
 ``--unsorted`` leaves the sort out, to tell what putting the changes in order costs; ``--jsonl``
-writes JSON Lines as the conversion writes them (``DuckDBEngine.copy``: each row's ``to_json``,
-streamed), with the engine's own text of a timestamp, not RFC 3339.
+writes JSON Lines as the conversion writes them (each row's ``to_json`` made first, the lines then
+sorted and streamed: ``DuckDBEngine.copy``), with the engine's own text of a timestamp, not RFC 3339.
 
 The folder holds one mapping (``dumpgen.write_mapping``'s), and every dump has its header.
 """
@@ -36,6 +36,7 @@ def statement(
     dumps: list[Path],
     *,
     sort: bool = True,
+    lines: bool = False,
 ) -> tuple[list[str], str]:
     """The statements that define the plan's source on ``engine`` (the conversion's engine, with its
     plan functions and settings), and the one query whose rows are written."""
@@ -66,12 +67,21 @@ def statement(
     position = positions.position_text(change.position, "__pos")
     if change.sequence:
         position += " || '.' || " + positions.sequence_text(change.sequence, change.position, "__seq")
-    query = (
-        f'SELECT __act AS action, {{{keys}}} AS key, {position} AS position, __cat AS committed_at, {{{values}}} AS "values", '
-        "{'file': __file, 'row': __row} AS origin "
-        f"FROM (SELECT * FROM ({plan.step('typed').sql}) WHERE __ok{' ORDER BY __pos, __seq' if sort else ''})"
-    )
-    return setup, query
+    members = [
+        ("action", "__act"),
+        ("key", f"{{{keys}}}"),
+        ("position", position),
+        ("committed_at", "__cat"),
+        ("values", f"{{{values}}}"),
+        ("origin", "{'file': __file, 'row': __row}"),
+    ]
+    typed = f"SELECT * FROM ({plan.step('typed').sql}) WHERE __ok"
+    order = " ORDER BY __pos, __seq" if sort else ""
+    if lines:  # each row's line made first, then the lines sorted, as the conversion writes them
+        line = "to_json({" + ", ".join(f"{lit(n)}: {e}" for n, e in members) + "})"
+        return setup, f"SELECT line FROM (SELECT {line} AS line, __pos, __seq FROM ({typed})){order}"
+    columns = ", ".join(f"{e} AS {ident(n)}" for n, e in members)
+    return setup, f"SELECT {columns} FROM ({typed}{order})"
 
 
 def main() -> None:
@@ -84,11 +94,12 @@ def main() -> None:
         Path(mappings),
         [Path(d) for d in dumps],
         sort="--unsorted" not in args,
+        lines="--jsonl" in args,
     )
     for sql in setup:
         engine.con.execute(sql)
     if "--jsonl" in args:
-        engine.copy(query, Path(out), "json")
+        engine.copy(query, Path(out), "lines")
     else:
         engine.con.execute(f"COPY ({query}) TO {lit(out)} (FORMAT PARQUET)")
 

@@ -41,7 +41,8 @@ def _damaged(path: Path, found: str, line: int | None) -> InputError:
         expected="the record convert writes last when it commits a run (JSON)",
         found=found,
         hint=f"restore it from a copy; or undo the run: remove its record and every file named {run}.* "
-        "under events/, quarantine/ and index/ (its inputs are then converted again)",
+        "under events/, quarantine/ and index/ (its inputs are then converted again); or start the "
+        "area anew: convert every dump with --replace (the area stays as it is unless that run commits)",
     )
 
 

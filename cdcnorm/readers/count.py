@@ -205,8 +205,9 @@ def count_blocks(chunks: Iterable[bytes], header: bool, how: Counting) -> Counte
             at = ends - 1 - pos
             before = np.where(at >= 0, buf[np.maximum(at, 0)], last_byte)
             empty = (gap == 1) | ((gap == 2) & (before == 13))
-            blank += int(np.count_nonzero(empty))
-            count += len(ends) - int(np.count_nonzero(empty))
+            blanks = int(np.count_nonzero(empty))
+            blank += blanks
+            count += len(ends) - blanks
             last_end = int(ends[-1])
         pos += len(buf)
         if len(buf):

@@ -800,9 +800,58 @@ def _account(trun: TableRun, engine: DuckDBEngine) -> ledger_mod.TableLedger:
                     f"{'that change is' if n == 1 else 'those changes are'} in no event"
                 )
     _note_null_marks(trun, engine)
+    _note_sub_microseconds(trun, engine)
     for reason, n in engine.rows(ledger_mod.reason_counts(ident(rejected))):
         tl.reasons[str(reason)] = int(n)
     return tl
+
+
+#: what a note says ``sub_microsecond`` did to a value
+SUB_MICROSECOND_DONE = {
+    "round": "rounded to the nearest microsecond, ties to the even one (sub_microsecond: round)",
+    "truncate": "cut to the microsecond (sub_microsecond: truncate)",
+}
+
+
+def _note_sub_microseconds(trun: TableRun, engine: DuckDBEngine) -> None:
+    """A note on each file whose rows (not quarantined) had time or timestamp values with digits
+    below the microsecond that the mapping's ``sub_microsecond`` rounded or cut: how many, per field."""
+    from cdcnorm.types.timestamp import epoch_fine, has_fine_digits
+
+    plan, mapping = trun.plan, trun.mapping.mapping
+    counts: list[tuple[str, str, str]] = []  # (field, SQL count, what was done)
+    images = mapping.change.images is not None
+    for name, ftype in trun.mapping.field_types.items():
+        sub = mapping.fields[name].sub_microsecond
+        if sub in SUB_MICROSECOND_DONE:
+            raws = [plan.field_raw(name)] + ([plan.prior_raw(name)] if images else [])
+            fine = [ftype.fine(f"s.{r}") for r in raws]
+            counts.append(
+                (name, " + ".join(f"count_if(coalesce({f}, FALSE))" for f in fine), SUB_MICROSECOND_DONE[sub])
+            )
+    cat = mapping.change.committed_at
+    if cat is not None and cat.sub_microsecond in SUB_MICROSECOND_DONE:
+        col = f"s.{plan.raw(cat.column)}"
+        cat_fine = epoch_fine(col) if cat.epoch else has_fine_digits(col, 19)
+        counts.append(
+            (
+                "committed_at",
+                f"count_if(coalesce({cat_fine}, FALSE))",
+                SUB_MICROSECOND_DONE[cat.sub_microsecond],
+            )
+        )
+    by_id = {f.file_id: f for f in trun.raw.files}
+    if not counts or not by_id:
+        return
+    rows = engine.rows(
+        f"SELECT t.__file, {', '.join(sql for _, sql, _ in counts)} FROM {plan.rel('typed')} t "
+        f"JOIN {plan.rel('source')} s ON s.__file = t.__file AND s.__row = t.__row WHERE t.__ok GROUP BY ALL ORDER BY 1"
+    )
+    for file_id, *ns in rows:
+        for (name, _, done), n in zip(counts, ns, strict=True):
+            if n and file_id in by_id:
+                values = "1 value" if n == 1 else f"{n:,} values"
+                by_id[file_id].notes.append(f"{values} of {name} had digits below the microsecond: {done}")
 
 
 def _note_null_marks(trun: TableRun, engine: DuckDBEngine) -> None:

@@ -208,14 +208,17 @@ def test_decimals_of_every_precision_give_the_same_events_on_spark(spark: Any, t
 
 def test_epoch_counts_and_spaced_offsets_give_the_same_events_on_spark(spark: Any, tmp_path: Path) -> None:
     """Timestamps given as counts since the epoch (every unit, the first and last instant of
-    years 0001-9999, nanoseconds that would truncate) and written with a space before the offset:
-    the same envelopes and rejections on both engines."""
+    years 0001-9999, nanoseconds that would truncate) and written with a space before the offset,
+    digits below the microsecond rounded (ties to even) or cut: the same envelopes and rejections on
+    both engines."""
     _one_mapping(
         tmp_path,
         "t.ticks",
         "e",
         "kind: integer}\n  committed_at: {column: ts, epoch: ms}",
-        "  s: {type: timestamp, epoch: s}\n  ns: {type: timestamp, epoch: ns}\n  at: timestamp\n  flag: boolean\n",
+        "  s: {type: timestamp, epoch: s}\n  ns: {type: timestamp, epoch: ns}\n  at: timestamp\n  flag: boolean\n"
+        "  near: {type: timestamp, sub_microsecond: round}\n"
+        "  cut: {type: timestamp, epoch: ns, sub_microsecond: truncate}\n",
     )
     rows = [
         ("1772352000250", "-62135596800", "1772352000123456000", "2026-03-01 08:00:00.1230000 +01:00", "Y"),
@@ -223,11 +226,34 @@ def test_epoch_counts_and_spaced_offsets_give_the_same_events_on_spark(spark: An
         ("0", "0", "1772352000123456789", "2026-03-01T08:00:00Z", "t"),  # would truncate
         ("253402300800000", "1", "0", "2026-03-01T08:00:00Z", "f"),  # after year 9999
     ]
+    fine = [
+        ("2026-03-01 08:00:00.1234565 +01:00", "-1500"),  # a tie, down; cut to the earlier microsecond
+        ("2026-03-01T08:00:00.1234575Z", "1772352000123456789"),  # a tie, up
+        ("2026-12-31T23:59:59.99999951Z", "1"),  # up into the next year
+        ("2026-03-01T08:00:00Z", "0"),
+    ]
     dumps = tmp_path / "dumps"
     dumps.mkdir()
-    body = "".join(f"I,{i},{i},{','.join(r)}\n" for i, r in enumerate(rows, start=1))
-    (dumps / "e.csv").write_text("op,pos,id,ts,s,ns,at,flag\n" + body, encoding="utf-8")
+    body = "".join(
+        f"I,{i},{i},{','.join(r + f)}\n" for i, (r, f) in enumerate(zip(rows, fine, strict=True), start=1)
+    )
+    (dumps / "e.csv").write_text("op,pos,id,ts,s,ns,at,flag,near,cut\n" + body, encoding="utf-8")
     assert _same_on_both(spark, tmp_path / "mappings", dumps, tmp_path / "scratch") == {"t.ticks": (2, 2)}
+
+
+def test_a_time_field_is_refused_by_name_on_spark(tmp_path: Path) -> None:
+    """Spark has no time-of-day type: a plan with a time field is refused with that reason when
+    rendered, not sent to a session that answers with its own wording."""
+    from cdcnorm.engines.spark import UnsupportedByEngine, render
+
+    _one_mapping(tmp_path, "t.clock", "c", "kind: integer}", "  at: {type: time, sub_microsecond: round}\n")
+    dumps = tmp_path / "dumps"
+    dumps.mkdir()
+    (dumps / "c.csv").write_text("op,pos,id,at\nI,1,1,08:00:00.1234567\n", encoding="utf-8")
+    _, ((plan, _),) = _read(tmp_path / "mappings", dumps, tmp_path / "scratch")
+    with pytest.raises(UnsupportedByEngine, match="no time-of-day type") as caught:
+        render(plan.step("typed").expression)
+    assert "DuckDB engine" in (caught.value.hint or "")
 
 
 def test_a_json_field_is_refused_by_name_on_spark(spark: Any, tmp_path: Path) -> None:

@@ -15,6 +15,7 @@ from hypothesis import strategies as st
 
 from cdcnorm.mapping.model import FieldSpec
 from cdcnorm.types import resolve
+from cdcnorm.types.timestamp import TOO_FINE, TOO_FINE_NS
 from tests.conftest import ConvertFn
 from tests.typing_helper import type_values
 
@@ -63,7 +64,7 @@ def test_timestamp_forms_and_rejections(convert: ConvertFn) -> None:
     assert got[1] == ("2026-03-01T08:00:00Z", None)
     assert got[2] == ("2026-03-01T08:00:00Z", None)
     assert got[3] == ("2026-03-01T08:00:00.123456Z", None)
-    assert got[4][1] == "more than 6 fractional digits (would truncate)"
+    assert got[4][1] == TOO_FINE
     assert got[5][1] == "no such calendar date"
     assert got[6][1] == "hour 24 out of range (00-23)"  # it said "not an RFC 3339 timestamp"
     assert got[7][1] == "not an RFC 3339 timestamp"
@@ -213,7 +214,7 @@ def test_epoch_counts_are_the_instants_python_datetime_makes_of_them(drawn: tupl
     if not lo <= count <= hi:
         assert (value, reason) == (None, "outside the years 0001 to 9999 in UTC"), count
     elif unit == "ns" and count % 1000:
-        assert (value, reason) == (None, "nanoseconds below the microsecond (would truncate)"), count
+        assert (value, reason) == (None, TOO_FINE_NS), count
     else:
         micros = count // 1000 if unit == "ns" else count * _PER[unit]
         expected = _EPOCH + dt.timedelta(microseconds=micros)  # Python's datetime
@@ -299,9 +300,7 @@ def test_a_space_before_the_offset_reads_as_postgresql_reads_it(convert: Convert
 
     got = type_values(convert, "timestamp", SPACED_OFFSETS)
     assert [v is not None for v, _ in got] == [True] * 9 + [False] * 3, got
-    assert [r for _, r in got[9:]] == ["not an RFC 3339 timestamp"] * 2 + [
-        "more than 6 fractional digits (would truncate)"
-    ]
+    assert [r for _, r in got[9:]] == ["not an RFC 3339 timestamp"] * 2 + [TOO_FINE]
     with psycopg.connect(pg_url, autocommit=True) as c:
         c.execute("SET TimeZone = 'UTC'")
         for text, (value, _) in zip(SPACED_OFFSETS[:9], got[:9], strict=True):
@@ -376,7 +375,7 @@ def test_float_date_time_text_json(convert: ConvertFn) -> None:
     assert d[1][1] == "no such calendar date" and d[2][1] == "not a YYYY-MM-DD date"
     t = type_values(convert, "time", ["08:00:00", "23:59:59.5", "24:00:00", "08:00:00.1234567", "8:00:00"])
     assert [v for v, _ in t[:2]] == ["08:00:00", "23:59:59.5"]
-    assert t[2][0] is None and t[3][1] == "more than 6 fractional digits (would truncate)" and t[4][0] is None
+    assert t[2][0] is None and t[3][1] == TOO_FINE and t[4][0] is None
     # RFC 3339 section 5.6's grammar (from memory): time-hour 00-23, time-minute 00-59,
     # time-second up to 60 only for a leap second, which a time of day without its date cannot be;
     # a time-numoffset is a time-hour and a time-minute. Python's time agrees on the ranges.

@@ -16,7 +16,7 @@ here, as rewrites of the expression tree before rendering:
 
 What Spark has no counterpart for is refused by name (``UnsupportedByEngine``),
 never rendered into SQL that means something else: a ``json`` field, whose
-checks read DuckDB's JSON tree.
+checks read DuckDB's JSON tree, and a ``time`` field (Spark has no time-of-day type).
 
 pyspark is an optional dependency (``pip install 'cdcnorm[spark]'``); this
 module imports it only when a session is made.
@@ -111,6 +111,11 @@ def _rewrite(node: exp.Expr) -> exp.Expr:
         return exp.Unhex(this=exp.MD5(this=args[0]))
     if name == "EPOCH_US":
         return exp.Anonymous(this="unix_micros", expressions=args)
+    if isinstance(node, exp.DataType) and node.is_type(exp.DataType.Type.TIME):
+        raise UnsupportedByEngine(
+            "the Spark engine cannot run a time field: Spark has no time-of-day type (TIME is refused there)",
+            hint="convert tables with time fields on the DuckDB engine, or map the column as text",
+        )
     json_type = isinstance(node, exp.DataType) and node.is_type(exp.DataType.Type.JSON)
     if name in REFUSED or json_type or isinstance(node, REFUSED_NODES):
         what = name.lower() if name else "the JSON type" if json_type else node.sql(dialect=PLAN_DIALECT)

@@ -127,6 +127,29 @@ class SequenceSpec(Strict):
 #: why a count since the epoch takes no zone
 EPOCH_ZONE = "zone does not apply to a count since the epoch, which is in UTC; remove one of zone and epoch"
 
+#: what a time or timestamp with non-zero digits below the microsecond becomes (the engines, the
+#: events and the targets hold microseconds): quarantined (reject, the default), rounded to the
+#: nearest microsecond (ties to the even one, as PostgreSQL reads such text), or truncated (as
+#: Python's datetime.fromisoformat reads it)
+SubMicrosecond = Literal["reject", "round", "truncate"]
+SUB_MICROSECOND_DESCRIPTION = (
+    "time, timestamp: a value with non-zero digits below the microsecond (SQL Server's datetime2(7), "
+    "nanoseconds since the epoch) is quarantined (reject, the default), rounded to the nearest "
+    "microsecond, ties to the even one (round), or cut (truncate); convert notes how many per file."
+)
+
+
+def check_sub_microsecond(sub: str | None, epoch: str | None) -> None:
+    """``sub_microsecond`` only where digits below the microsecond can be: text, or nanoseconds."""
+    if sub is not None and epoch in ("s", "ms", "us"):
+        raise ValueError(
+            f"sub_microsecond does not apply to a count of whole {EPOCH_NAMES[epoch]}, which has no digits "
+            "below the microsecond; remove it (it applies to RFC 3339 text and to epoch: ns)"
+        )
+
+
+EPOCH_NAMES = {"s": "seconds", "ms": "milliseconds", "us": "microseconds", "ns": "nanoseconds"}
+
 
 class CommittedAtSpec(Strict):
     column: str
@@ -136,6 +159,7 @@ class CommittedAtSpec(Strict):
         description="The values are whole seconds, milliseconds, microseconds or nanoseconds since "
         "1970-01-01T00:00:00Z (not RFC 3339 text).",
     )
+    sub_microsecond: SubMicrosecond | None = Field(default=None, description=SUB_MICROSECOND_DESCRIPTION)
 
     @field_validator("zone")
     @classmethod
@@ -146,6 +170,7 @@ class CommittedAtSpec(Strict):
     def _one_way(self) -> CommittedAtSpec:
         if self.epoch is not None and "zone" in self.model_fields_set:
             raise ValueError(EPOCH_ZONE)
+        check_sub_microsecond(self.sub_microsecond, self.epoch)
         return self
 
 
@@ -221,6 +246,7 @@ class FieldSpec(Strict):
         description="timestamp: the values are whole seconds, milliseconds, microseconds or "
         "nanoseconds since 1970-01-01T00:00:00Z (not RFC 3339 text).",
     )
+    sub_microsecond: SubMicrosecond | None = Field(default=None, description=SUB_MICROSECOND_DESCRIPTION)
     encoding: Literal["hex", "base64"] | None = Field(
         default=None, description="bytes: hex or base64 (default hex)."
     )
@@ -260,7 +286,12 @@ class FieldSpec(Strict):
     @model_validator(mode="after")
     def _options_apply(self) -> FieldSpec:
         name = self.kind
-        options = (("zone", ("timestamp",)), ("epoch", ("timestamp",)), ("encoding", ("bytes",)))
+        options: tuple[tuple[str, tuple[str, ...]], ...] = (
+            ("zone", ("timestamp",)),
+            ("epoch", ("timestamp",)),
+            ("sub_microsecond", ("time", "timestamp")),
+            ("encoding", ("bytes",)),
+        )
         for option, types in (*options, ("max_length", ("text",))):
             if getattr(self, option) is not None and name not in types:
                 raise ValueError(
@@ -268,6 +299,7 @@ class FieldSpec(Strict):
                 )
         if self.epoch is not None and self.zone is not None:
             raise ValueError(EPOCH_ZONE)
+        check_sub_microsecond(self.sub_microsecond, self.epoch)
         return self
 
 

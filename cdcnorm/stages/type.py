@@ -117,18 +117,19 @@ def type_rows(plan: Plan) -> Plan:
     if ch.committed_at:
         col = plan.raw(ch.committed_at.column)
         epoch = ch.committed_at.epoch
+        sub = ch.committed_at.sub_microsecond or "reject"
         if epoch:
             cast, expected, why = (
-                epoch_cast(col, epoch),
+                epoch_cast(col, epoch, sub),
                 epoch_expected(epoch),
-                epoch_explain(f"s.{col}", epoch),
+                epoch_explain(f"s.{col}", epoch, sub),
             )
         else:
             zone = ch.committed_at.zone
             cast, expected, why = (
-                timestamp_cast(col, zone),
+                timestamp_cast(col, zone, sub),
                 "an RFC 3339 timestamp",
-                timestamp_explain(f"s.{col}", zone),
+                timestamp_explain(f"s.{col}", zone, sub),
             )
         c.typed.append(("__cat", cast))
         c.check(

@@ -59,6 +59,11 @@ class FieldType:
         """SQL: why raw text ``x`` is not a valid value (only evaluated when it is not)."""
         return "'not a valid " + self.describe() + "'"
 
+    def fine(self, x: str) -> str | None:
+        """SQL: raw text ``x`` (valid) had digits below the microsecond that ``sub_microsecond``
+        rounded or cut, which convert notes; None when the type reads none so."""
+        return None
+
     def render(self, v: str) -> str:
         """SQL: the JSON form of typed value ``v`` (a string, number, boolean or JSON value)."""
         return v

@@ -17,6 +17,10 @@ PATTERN = (
 )
 
 
+#: why a value with non-zero digits below the microsecond is quarantined (``sub_microsecond`` reject)
+TOO_FINE = "more than 6 fractional digits (would truncate; sub_microsecond: round or truncate in the mapping keeps the value)"
+TOO_FINE_NS = "nanoseconds below the microsecond (would truncate; sub_microsecond: round or truncate in the mapping keeps the value)"
+
 FIRST_US = -62135596800000000  # 0001-01-01T00:00:00Z in microseconds since 1970 (Python datetime)
 LAST_US = 253402300799999999  # 9999-12-31T23:59:59.999999Z
 
@@ -47,8 +51,48 @@ def _local(x: str) -> str:
     return f"TRY_CAST(replace({_unleaped(x)}, 'T', ' ') AS TIMESTAMP)"
 
 
-def timestamp_cast(x: str, zone: str) -> str:
-    """SQL: raw text -> TIMESTAMPTZ in UTC, NULL when invalid."""
+def fine_digits(x: str, at: int) -> str:
+    """SQL: the fractional digits past the sixth of time text ``x`` whose seconds end at character
+    ``at`` (19 in a timestamp, 8 in a time of day): '' when there are none."""
+    return f"regexp_extract({x}, '^.{{{at}}}\\.[0-9]{{6}}([0-9]*)', 1)"
+
+
+def to_microseconds(x: str, at: int) -> str:
+    """SQL: time text ``x`` with its fractional digits past the sixth left out (the rest as it is)."""
+    return f"substr({x}, 1, {at + 7}) || substr({x}, {at + 8} + length({fine_digits(x, at)}))"
+
+
+def rounds_up(x: str, at: int) -> str:
+    """SQL: rounding ``x`` to the nearest microsecond goes up: its digits past the sixth are more
+    than half a microsecond, or exactly half and the sixth digit is odd (ties to even, as
+    PostgreSQL's input rounds)."""
+    beyond = f"rtrim({fine_digits(x, at)}, '0')"
+    odd = f"substr({x}, {at + 7}, 1) IN ('1', '3', '5', '7', '9')"
+    return f"({beyond} > '5' OR ({beyond} = '5' AND {odd}))"
+
+
+def has_fine_digits(x: str, at: int) -> str:
+    """SQL: ``x`` has a non-zero digit below the microsecond (what ``sub_microsecond`` applies to)."""
+    return f"regexp_matches({x}, '^.{{{at}}}\\.[0-9]{{6}}[0-9]*[1-9]')"
+
+
+#: one microsecond more, or none (rounding up)
+ONE_MICROSECOND = "INTERVAL 1 MICROSECOND"
+NO_MICROSECOND = "INTERVAL 0 MICROSECOND"
+
+
+def timestamp_cast(x: str, zone: str, sub: str = "reject") -> str:
+    """SQL: raw text -> TIMESTAMPTZ in UTC, NULL when invalid. ``sub`` (``sub_microsecond``) says
+    what a value with non-zero digits below the microsecond becomes: NULL (reject), rounded to the
+    nearest microsecond (round), or cut (truncate)."""
+    if sub == "reject":
+        return _timestamp_cast(x, x, zone, None)
+    up = rounds_up(x, 19) if sub == "round" else None
+    return _timestamp_cast(to_microseconds(x, 19), x, zone, up)
+
+
+def _timestamp_cast(x: str, raw: str, zone: str, up: str | None) -> str:
+    """SQL: text ``x`` (``raw``'s, to microseconds) -> TIMESTAMPTZ; one microsecond more when ``up``."""
     # the pattern has been matched, so plain string tests suffice below
     zone = normalise_zone(zone)
     leap = _leap(x)
@@ -72,6 +116,8 @@ def timestamp_cast(x: str, zone: str) -> str:
     if zone != "+00:00":
         plain += f" AND {offset}"
     value = f"CASE WHEN {plain} THEN TRY_CAST({x} AS TIMESTAMPTZ) ELSE {adjusted} END"
+    if up is not None:  # rounded: checked for the range as it is, 9999-12-31T23:59:59.9999995Z is not
+        value = f"({value} + CASE WHEN {up} THEN {ONE_MICROSECOND} ELSE {NO_MICROSECOND} END)"
     # RFC 3339 has years 0000-9999; in UTC a time must stay within 0001-01-01 and 9999-12-31
     # (9999-12-31T23:00:00-02:00 is in year 10000: it would sort before year 0001 as text)
     # only a year 0000, 0001 or 9999 can leave the range once an offset or a leap second applies
@@ -79,7 +125,11 @@ def timestamp_cast(x: str, zone: str) -> str:
     return f"CASE WHEN regexp_full_match({x}, {PATTERN}) AND {in_range} THEN {value} END"
 
 
-def timestamp_explain(x: str, zone: str = "+00:00") -> str:
+def timestamp_explain(x: str, zone: str = "+00:00", sub: str = "reject") -> str:
+    """SQL: why text ``x`` is no timestamp (only evaluated when it is not). Read with ``sub`` round
+    or truncate, what is wrong is told of its text to microseconds."""
+    if sub != "reject":
+        x = to_microseconds(x, 19)
     named = ""
     if not zones.is_fixed(zone):
         local = _local(x)
@@ -94,7 +144,7 @@ def timestamp_explain(x: str, zone: str = "+00:00") -> str:
         )
     return (
         f"CASE {named}WHEN regexp_full_match({x}, '.{{19}}\\.[0-9]{{7,}}.*') "
-        "THEN 'more than 6 fractional digits (would truncate)' "
+        f"THEN {lit(TOO_FINE)} "
         f"WHEN regexp_full_match({x}, {PATTERN}) AND substr({x}, 1, 4) IN ('0000', '0001', '9999') "
         f"AND TRY_CAST(substr({x}, 1, 10) AS DATE) IS NOT NULL "
         "THEN 'outside the years 0001 to 9999 in UTC' "
@@ -158,9 +208,13 @@ def epoch_expected(unit: str) -> str:
     return f"a whole number of {EPOCH_UNITS[unit][0]} since 1970-01-01T00:00:00Z"
 
 
-def _span(unit: str) -> tuple[int, int]:
-    """The counts of ``unit`` whose instants lie in years 0001-9999 (UTC)."""
+def _span(unit: str, sub: str = "reject") -> tuple[int, int]:
+    """The counts of ``unit`` whose instants lie in years 0001-9999 (UTC), read with ``sub``."""
     per = EPOCH_UNITS[unit][2]
+    if per is None and sub == "round":  # half a microsecond either side, ties to the even one
+        # (the first microsecond is even, the last odd: a tie below the first rounds up to it,
+        # a tie above the last up past it)
+        return FIRST_US * 1000 - 500, LAST_US * 1000 + 499
     if per is None:  # nanoseconds: any in the first to the last microsecond
         return FIRST_US * 1000, LAST_US * 1000 + 999
     return -(-FIRST_US // per), LAST_US // per
@@ -171,29 +225,45 @@ def _count(x: str) -> str:
     return f"TRY_CAST({x} AS DECIMAL({_EPOCH_DIGITS},0))"
 
 
-def _in_span(x: str, unit: str) -> str:
-    lo, hi = _span(unit)
+def _in_span(x: str, unit: str, sub: str = "reject") -> str:
+    lo, hi = _span(unit, sub)
     return f"{_count(x)} BETWEEN {lo} AND {hi}"
 
 
-def epoch_cast(x: str, unit: str) -> str:
+def epoch_fine(x: str) -> str:
+    """SQL: a count of nanoseconds ``x`` (read) is no whole number of microseconds."""
+    return f"{_count(x)} % 1000 <> 0"
+
+
+def epoch_cast(x: str, unit: str, sub: str = "reject") -> str:
     """SQL: raw text ``x``, a whole number of ``unit`` since 1970-01-01T00:00:00Z -> TIMESTAMPTZ,
-    NULL when it is no such number, lies outside years 0001-9999, or (nanoseconds) would lose
-    digits below the microsecond. Exact: the count is a DECIMAL scaled by a DECIMAL factor, never
-    a floating-point number (years 0001-9999 need 58 bits of microseconds)."""
+    NULL when it is no such number, lies outside years 0001-9999, or (nanoseconds, ``sub`` reject)
+    would lose digits below the microsecond; with ``sub`` round they are rounded to the nearest
+    microsecond (ties to the even one), with truncate cut (towards the earlier instant). Exact:
+    the count is a DECIMAL scaled by a DECIMAL factor, never a floating-point number (years
+    0001-9999 need 58 bits of microseconds)."""
     us = f"{_count(x)} * {EPOCH_UNITS[unit][1]}"
-    whole = f" AND {_count(x)} % 1000 = 0" if unit == "ns" else ""
+    whole = f" AND {_count(x)} % 1000 = 0" if unit == "ns" and sub == "reject" else ""
+    micros = f"CAST({us} AS BIGINT)"
+    if unit == "ns" and sub == "truncate":
+        micros = f"CAST(floor({us}) AS BIGINT)"
+    elif unit == "ns" and sub == "round":
+        below = f"({us} - floor({us}))"
+        up = f"({below} > 0.5 OR ({below} = 0.5 AND floor({us}) % 2 <> 0))"
+        micros = f"(CAST(floor({us}) AS BIGINT) + CASE WHEN {up} THEN 1 ELSE 0 END)"
     return (
-        f"CASE WHEN regexp_full_match({x}, {EPOCH_PATTERN}) AND {_in_span(x, unit)}{whole} "
-        f"THEN CAST(make_timestamp(CAST({us} AS BIGINT)) AS TIMESTAMPTZ) END"
+        f"CASE WHEN regexp_full_match({x}, {EPOCH_PATTERN}) AND {_in_span(x, unit, sub)}{whole} "
+        f"THEN CAST(make_timestamp({micros}) AS TIMESTAMPTZ) END"
     )
 
 
-def epoch_explain(x: str, unit: str) -> str:
-    below = "ELSE 'nanoseconds below the microsecond (would truncate)' " if unit == "ns" else ""
+def epoch_explain(x: str, unit: str, sub: str = "reject") -> str:
+    below = ""
+    if unit == "ns" and sub == "reject":
+        below = f"ELSE {lit(TOO_FINE_NS)} "
     return (
         f"CASE WHEN NOT regexp_full_match({x}, {EPOCH_PATTERN}) THEN {lit('not ' + epoch_expected(unit))} "
-        f"WHEN NOT coalesce({_in_span(x, unit)}, FALSE) THEN 'outside the years 0001 to 9999 in UTC' "
+        f"WHEN NOT coalesce({_in_span(x, unit, sub)}, FALSE) THEN 'outside the years 0001 to 9999 in UTC' "
         f"{below}END"
     )
 
@@ -206,14 +276,21 @@ class TimestampType(FieldType):
         return epoch_expected(self.spec.epoch) if self.spec.epoch else self.describe()
 
     def cast(self, x: str) -> str:
+        sub = self.spec.sub_microsecond or "reject"
         if self.spec.epoch:
-            return epoch_cast(x, self.spec.epoch)
-        return timestamp_cast(x, self.spec.zone or "+00:00")
+            return epoch_cast(x, self.spec.epoch, sub)
+        return timestamp_cast(x, self.spec.zone or "+00:00", sub)
 
     def explain(self, x: str) -> str:
+        sub = self.spec.sub_microsecond or "reject"
         if self.spec.epoch:
-            return epoch_explain(x, self.spec.epoch)
-        return timestamp_explain(x, self.spec.zone or "+00:00")
+            return epoch_explain(x, self.spec.epoch, sub)
+        return timestamp_explain(x, self.spec.zone or "+00:00", sub)
+
+    def fine(self, x: str) -> str | None:
+        if not self.spec.sub_microsecond or self.spec.sub_microsecond == "reject":
+            return None
+        return epoch_fine(x) if self.spec.epoch else has_fine_digits(x, 19)
 
     def render(self, v: str) -> str:
         return timestamp_render(v)

@@ -7,10 +7,12 @@ from cdcnorm.types.base import FieldType
 #: prefixes of these strings are also accepted"): t tr tru true, y ye yes, on, 1; f fa fal fals
 #: false, n no, of off, 0 ("o" alone is no prefix of one word only). tests/test_types.py holds
 #: every spelling against a real PostgreSQL server.
-TRUE = "('t', 'tr', 'tru', 'true', 'y', 'ye', 'yes', 'on', '1')"
-FALSE = "('f', 'fa', 'fal', 'fals', 'false', 'n', 'no', 'of', 'off', '0')"
-#: the whitespace PostgreSQL ignores around a boolean (C's isspace: space, tab, LF, VT, FF, CR)
-SPACE = "' ' || chr(9) || chr(10) || chr(11) || chr(12) || chr(13)"
+#: As patterns (ASCII letters in either case only, as PostgreSQL compares them: a Unicode case
+#: folding would take the long s of "yeſ" for an s), each with the whitespace PostgreSQL ignores
+#: around a boolean (C's isspace: space, tab, LF, VT, FF, CR) on either side.
+TRUE = "([Tt]([Rr]([Uu][Ee]?)?)?|[Yy]([Ee][Ss]?)?|[Oo][Nn]|1)"
+FALSE = "([Ff]([Aa]([Ll]([Ss][Ee]?)?)?)?|[Nn][Oo]?|[Oo][Ff][Ff]?|0)"
+SPACE = r"[ \t\n\x0b\f\r]*"
 
 
 class BooleanType(FieldType):
@@ -21,12 +23,13 @@ class BooleanType(FieldType):
     sql_type = "BOOLEAN"
 
     def cast(self, x: str) -> str:
-        # the text as it is first: trimming a list of characters costs the engine five times what
-        # the rest does (0.14 s against 0.03 s per 1M values), and a dump's flags rarely need it
-        word, trimmed = f"lower({x})", f"lower(trim({x}, {SPACE}))"
+        # Two patterns, not lists of words: a list of five or more constants is a join in the
+        # engine's plan (its IN-clause rewrite), and a table with 40 boolean fields took two
+        # seconds to plan that way; the patterns also read faster (0.10 s against 0.16 s per 2M
+        # values, lower-casing and trimming the text left out).
         return (
-            f"CASE WHEN {word} IN {TRUE} THEN TRUE WHEN {word} IN {FALSE} THEN FALSE "
-            f"WHEN {trimmed} IN {TRUE} THEN TRUE WHEN {trimmed} IN {FALSE} THEN FALSE END"
+            f"CASE WHEN regexp_full_match({x}, '{SPACE}{TRUE}{SPACE}') THEN TRUE "
+            f"WHEN regexp_full_match({x}, '{SPACE}{FALSE}{SPACE}') THEN FALSE END"
         )
 
     def explain(self, x: str) -> str:

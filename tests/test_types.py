@@ -138,8 +138,21 @@ def test_rfc4648_section_10_base64_and_base16(convert: ConvertFn) -> None:
     # RFC 4648 section 3.3: characters outside the alphabet are rejected; section 4: padding
     bad = type_values(convert, "{type: bytes, encoding: base64}", ["Zm9v!", "Zg=", "Zm9vY", "Zm 9v"])
     assert all(v is None for v, _ in bad)
-    bad16 = type_values(convert, "{type: bytes, encoding: hex}", ["6", "6G", "0x66"])
+    bad16 = type_values(convert, "{type: bytes, encoding: hex}", ["6", "6G", "0x0x66", "x66", "0x6"])
     assert all(v is None for v, _ in bad16)
+    assert [r for _, r in bad16] == ["an odd number of hex digits"] + [
+        f'not hex: the characters "{c}" are not hex digits' for c in ("G", "x", "x")
+    ] + ["an odd number of hex digits"]
+
+
+def test_hex_bytes_as_postgresql_and_sql_server_write_them(convert: ConvertFn) -> None:
+    """PostgreSQL's text form of bytea (``\\x`` then hex, what its COPY writes) and SQL Server's
+    binary constant (``0x`` then hex, as its tools write a varbinary; from memory of its
+    documentation): the bytes Python's ``bytes.fromhex`` reads from the digits."""
+    texts = ["\\x666f6f", "0x666F6F", "0X00ff10", "0x", "\\x"]
+    got = type_values(convert, "bytes", texts)
+    for text, (value, reason) in zip(texts, got, strict=True):
+        assert reason is None and base64.b64decode(value) == bytes.fromhex(text[2:]), text
 
 
 def test_rfc9562_uuid_forms(convert: ConvertFn) -> None:

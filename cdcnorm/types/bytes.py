@@ -8,6 +8,15 @@ HEX = "'([0-9A-Fa-f]{2})*'"
 BASE64 = "'([A-Za-z0-9+/]{4})*([A-Za-z0-9+/]{2}==|[A-Za-z0-9+/]{3}=)?'"
 
 
+def hex_digits(x: str) -> str:
+    """SQL: the hex digits of ``x`` without a prefix: PostgreSQL's text form of bytea (what its
+    COPY writes) starts with ``\\x``; SQL Server's tools write a varbinary as a binary constant,
+    ``0x`` then the digits (from memory of its documentation). Neither prefix is hex, so taking it
+    off changes no valid text's meaning."""
+    prefixed = f"starts_with({x}, '\\x') OR starts_with({x}, '0x') OR starts_with({x}, '0X')"
+    return f"CASE WHEN {prefixed} THEN substr({x}, 3) ELSE {x} END"
+
+
 class BytesType(FieldType):
     """Binary data written as hex or base64 text; emitted as base64."""
 
@@ -26,14 +35,13 @@ class BytesType(FieldType):
 
     def cast(self, x: str) -> str:
         if self.encoding == "hex":
-            # PostgreSQL's text form of bytea (what its COPY writes) starts with \x: accepted
-            digits = f"CASE WHEN starts_with({x}, '\\x') THEN substr({x}, 3) ELSE {x} END"
+            digits = hex_digits(x)
             return f"CASE WHEN regexp_full_match({digits}, {HEX}) THEN unhex({digits}) END"
         return f"CASE WHEN regexp_full_match({x}, {BASE64}) THEN from_base64({x}) END"
 
     def explain(self, x: str) -> str:
         if self.encoding == "hex":
-            digits = f"CASE WHEN starts_with({x}, '\\x') THEN substr({x}, 3) ELSE {x} END"
+            digits = hex_digits(x)
             others = f"regexp_replace({digits}, '[0-9A-Fa-f]', '', 'g')"
             return (
                 f"CASE WHEN {others} <> '' THEN 'not hex: the characters ' || to_json({others}) || ' are not hex digits' "

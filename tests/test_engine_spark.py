@@ -256,6 +256,23 @@ def test_a_time_field_is_refused_by_name_on_spark(tmp_path: Path) -> None:
     assert "DuckDB engine" in (caught.value.hint or "")
 
 
+def test_a_layout_is_refused_by_name_on_spark(tmp_path: Path) -> None:
+    """Spark's datetime patterns parse otherwise than the engine's strptime (month names in one
+    case only): a field with a layout is refused when rendered, with that reason."""
+    from cdcnorm.engines.spark import UnsupportedByEngine, render
+
+    _one_mapping(
+        tmp_path, "t.orders", "o", "kind: integer}", "  at: {type: timestamp, layout: '%d-%b-%Y %H:%M'}\n"
+    )
+    dumps = tmp_path / "dumps"
+    dumps.mkdir()
+    (dumps / "o.csv").write_text("op,pos,id,at\nI,1,1,01-MAR-2026 08:00\n", encoding="utf-8")
+    _, ((plan, _),) = _read(tmp_path / "mappings", dumps, tmp_path / "scratch")
+    with pytest.raises(UnsupportedByEngine, match="layout") as caught:
+        render(plan.step("typed").expression)
+    assert "DuckDB engine" in (caught.value.hint or "")
+
+
 def test_a_json_field_is_refused_by_name_on_spark(spark: Any, tmp_path: Path) -> None:
     from cdcnorm.engines.spark import SparkEngine, UnsupportedByEngine
 

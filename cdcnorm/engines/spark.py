@@ -16,7 +16,8 @@ here, as rewrites of the expression tree before rendering:
 
 What Spark has no counterpart for is refused by name (``UnsupportedByEngine``),
 never rendered into SQL that means something else: a ``json`` field, whose
-checks read DuckDB's JSON tree, and a ``time`` field (Spark has no time-of-day type).
+checks read DuckDB's JSON tree, a ``time`` field (Spark has no time-of-day type), and a
+``layout`` of a date or timestamp (Spark's datetime patterns parse differently).
 
 pyspark is an optional dependency (``pip install 'cdcnorm[spark]'``); this
 module imports it only when a session is made.
@@ -111,6 +112,12 @@ def _rewrite(node: exp.Expr) -> exp.Expr:
         return exp.Unhex(this=exp.MD5(this=args[0]))
     if name == "EPOCH_US":
         return exp.Anonymous(this="unix_micros", expressions=args)
+    if name == "TRY_STRPTIME":
+        raise UnsupportedByEngine(
+            "the Spark engine cannot run a field's layout: Spark's datetime patterns parse differently "
+            "(month names in one case only, other digit counts), so no rendering is known to read the same",
+            hint="convert tables with layout fields on the DuckDB engine",
+        )
     if isinstance(node, exp.DataType) and node.is_type(exp.DataType.Type.TIME):
         raise UnsupportedByEngine(
             "the Spark engine cannot run a time field: Spark has no time-of-day type (TIME is refused there)",

@@ -247,6 +247,11 @@ class FieldSpec(Strict):
         "nanoseconds since 1970-01-01T00:00:00Z (not RFC 3339 text).",
     )
     sub_microsecond: SubMicrosecond | None = Field(default=None, description=SUB_MICROSECOND_DESCRIPTION)
+    layout: str | None = Field(
+        default=None,
+        description="date, timestamp: how the values are written when not as RFC 3339, in strftime codes "
+        "(%Y %m %b %B %d %H %I %p %M %S %f %z %%): '%d/%m/%Y %H:%M:%S', '%d-%b-%Y'.",
+    )
     encoding: Literal["hex", "base64"] | None = Field(
         default=None, description="bytes: hex or base64 (default hex)."
     )
@@ -290,6 +295,7 @@ class FieldSpec(Strict):
             ("zone", ("timestamp",)),
             ("epoch", ("timestamp",)),
             ("sub_microsecond", ("time", "timestamp")),
+            ("layout", ("date", "timestamp")),
             ("encoding", ("bytes",)),
         )
         for option, types in (*options, ("max_length", ("text",))):
@@ -300,6 +306,20 @@ class FieldSpec(Strict):
         if self.epoch is not None and self.zone is not None:
             raise ValueError(EPOCH_ZONE)
         check_sub_microsecond(self.sub_microsecond, self.epoch)
+        if self.layout is not None:
+            from cdcnorm.types.formats import parse_layout
+
+            if self.epoch is not None:
+                raise ValueError("layout and epoch are two ways to write a timestamp; keep one of them")
+            if self.sub_microsecond is not None:
+                raise ValueError(
+                    "sub_microsecond does not apply with a layout, whose %f reads up to 6 digits; remove it"
+                )
+            layout = parse_layout(self.layout, name)
+            if layout.has_offset and self.zone is not None:
+                raise ValueError(
+                    f"zone does not apply: layout {self.layout!r} reads each value's own offset (%z); remove it"
+                )
         return self
 
 

@@ -3,6 +3,7 @@ from __future__ import annotations
 from cdcnorm import zones
 from cdcnorm.sql import lit
 from cdcnorm.types.base import FieldType, out_of_range
+from cdcnorm.types.formats import Layout, format_cast, format_expected, format_explain, parse_layout
 
 # RFC 3339 date-time (section 5.6) with ISO 8601's space separator, lower-case
 # t/z and +hh / +hhmm offsets also accepted, and one space before the offset
@@ -272,17 +273,27 @@ class TimestampType(FieldType):
     name = "timestamp"
     sql_type = "TIMESTAMPTZ"
 
+    @property
+    def _layout(self) -> Layout | None:
+        return parse_layout(self.spec.layout, "timestamp") if self.spec.layout else None
+
     def expected(self) -> str:
+        if self._layout:
+            return format_expected(self._layout, "timestamp")
         return epoch_expected(self.spec.epoch) if self.spec.epoch else self.describe()
 
     def cast(self, x: str) -> str:
         sub = self.spec.sub_microsecond or "reject"
+        if self._layout:
+            return format_cast(x, self._layout, "timestamp", self.spec.zone or "+00:00")
         if self.spec.epoch:
             return epoch_cast(x, self.spec.epoch, sub)
         return timestamp_cast(x, self.spec.zone or "+00:00", sub)
 
     def explain(self, x: str) -> str:
         sub = self.spec.sub_microsecond or "reject"
+        if self._layout:
+            return format_explain(x, self._layout, "timestamp", self.spec.zone or "+00:00")
         if self.spec.epoch:
             return epoch_explain(x, self.spec.epoch, sub)
         return timestamp_explain(x, self.spec.zone or "+00:00", sub)

@@ -206,6 +206,31 @@ def test_decimals_of_every_precision_give_the_same_events_on_spark(spark: Any, t
     )
 
 
+def test_numbers_with_a_decimal_comma_and_group_marks_give_the_same_events_on_spark(
+    spark: Any, tmp_path: Path
+) -> None:
+    """decimal_mark and group_mark: the same values and the same reasons on both engines."""
+    _one_mapping(
+        tmp_path,
+        "t.marks",
+        "m",
+        "kind: integer}",
+        "  a: {type: 'decimal(12,2)', decimal_mark: ',', group_mark: '.'}\n"
+        '  b: {type: float, decimal_mark: \',\', group_mark: "\\u202f"}\n  c: {type: integer, group_mark: "\'"}\n',
+    )
+    rows = [
+        ("1.234,56", "1\u202f234,5e3", "1'234'567"),
+        ("-,5", "0,1", "12"),
+        ("12.34", "1,5", "1'234"),  # a point that groups two digits: quarantined on both
+        ("1.234.567,8", "1\u202f23,5", "1'23"),  # misgrouped b and c: quarantined on both
+    ]
+    dumps = tmp_path / "dumps"
+    dumps.mkdir()
+    body = "".join(f'I,{i},{i},"{a}","{b}","{c}"\n' for i, (a, b, c) in enumerate(rows, start=1))
+    (dumps / "m.csv").write_text("op,pos,id,a,b,c\n" + body, encoding="utf-8")
+    assert _same_on_both(spark, tmp_path / "mappings", dumps, tmp_path / "scratch") == {"t.marks": (2, 2)}
+
+
 def test_epoch_counts_and_spaced_offsets_give_the_same_events_on_spark(spark: Any, tmp_path: Path) -> None:
     """Timestamps given as counts since the epoch (every unit, the first and last instant of
     years 0001-9999, nanoseconds that would truncate) and written with a space before the offset,

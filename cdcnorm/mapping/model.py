@@ -252,6 +252,14 @@ class FieldSpec(Strict):
         description="date, timestamp: how the values are written when not as RFC 3339, in strftime codes "
         "(%Y %m %b %B %d %H %I %p %M %S %f %z %%): '%d/%m/%Y %H:%M:%S', '%d-%b-%Y'.",
     )
+    decimal_mark: Literal[".", ","] | None = Field(
+        default=None, description="decimal, float: the mark before the fraction (default a point)."
+    )
+    group_mark: Literal[".", ",", " ", "\u00a0", "\u202f", "'"] | None = Field(
+        default=None,
+        description="integer, decimal, float: the mark between groups of three digits (1.234.567), "
+        "where the values have one (default none).",
+    )
     encoding: Literal["hex", "base64"] | None = Field(
         default=None, description="bytes: hex or base64 (default hex)."
     )
@@ -296,6 +304,8 @@ class FieldSpec(Strict):
             ("epoch", ("timestamp",)),
             ("sub_microsecond", ("time", "timestamp")),
             ("layout", ("date", "timestamp")),
+            ("decimal_mark", ("decimal", "float")),
+            ("group_mark", ("integer", "decimal", "float")),
             ("encoding", ("bytes",)),
         )
         for option, types in (*options, ("max_length", ("text",))):
@@ -306,6 +316,12 @@ class FieldSpec(Strict):
         if self.epoch is not None and self.zone is not None:
             raise ValueError(EPOCH_ZONE)
         check_sub_microsecond(self.sub_microsecond, self.epoch)
+        fraction = name in ("decimal", "float")  # an integer has no decimal mark: any group mark
+        if fraction and self.group_mark is not None and self.group_mark == (self.decimal_mark or "."):
+            raise ValueError(
+                f"group_mark {self.group_mark!r} is the decimal mark too: set decimal_mark to the other "
+                "(1.234,5 is group_mark '.', decimal_mark ',')"
+            )
         if self.layout is not None:
             from cdcnorm.types.formats import parse_layout
 

@@ -1,6 +1,7 @@
 from __future__ import annotations
 
 from cdcnorm.types.base import FieldType
+from cdcnorm.types.marks import guarded_cast, guarded_explain
 
 PATTERN = r"'[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?'"
 
@@ -87,6 +88,12 @@ class DecimalType(FieldType):
         return f"CASE WHEN {body} = '' THEN '0' ELSE {sign} || '0.' || {body} || 'E' || {shifted} END"
 
     def cast(self, x: str) -> str:
+        return guarded_cast(x, self.spec, True, self._cast)
+
+    def explain(self, x: str) -> str:
+        return guarded_explain(x, self.spec, True, "a decimal number", self._explain)
+
+    def _cast(self, x: str) -> str:
         p, s = self.params
         wide = f"DECIMAL(38,{38 - (p - s)})"  # every value with p-s integer digits, exactly
         narrow = self.sql_type
@@ -109,7 +116,7 @@ class DecimalType(FieldType):
             f"THEN TRY_CAST(TRY_CAST({self._normalised(x)} AS DECIMAL(38,{s})) AS {narrow}) END"
         )
 
-    def explain(self, x: str) -> str:
+    def _explain(self, x: str) -> str:
         p, s = self.params
         return (
             f"CASE WHEN NOT regexp_full_match({x}, {PATTERN}) THEN 'not a decimal number' "

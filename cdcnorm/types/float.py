@@ -1,6 +1,7 @@
 from __future__ import annotations
 
 from cdcnorm.types.base import FieldType
+from cdcnorm.types.marks import guarded_cast, guarded_explain
 
 PATTERN = r"'[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?'"
 
@@ -19,13 +20,19 @@ class FloatType(FieldType):
     sql_type = "DOUBLE"
 
     def cast(self, x: str) -> str:
+        return guarded_cast(x, self.spec, True, self._cast)
+
+    def explain(self, x: str) -> str:
+        return guarded_explain(x, self.spec, True, "a number", self._explain)
+
+    def _cast(self, x: str) -> str:
         v = f"TRY_CAST({x} AS DOUBLE)"
         underflow = f"(abs({v}) < {MIN_NORMAL} AND regexp_full_match({x}, {NONZERO}))"
         return (
             f"CASE WHEN regexp_full_match({x}, {PATTERN}) AND NOT isinf({v}) AND NOT {underflow} THEN {v} END"
         )
 
-    def explain(self, x: str) -> str:
+    def _explain(self, x: str) -> str:
         return (
             f"CASE WHEN NOT regexp_full_match({x}, {PATTERN}) THEN 'not a number' "
             f"WHEN abs(TRY_CAST({x} AS DOUBLE)) < {MIN_NORMAL} THEN 'underflows: below the smallest normal double' "

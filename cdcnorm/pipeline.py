@@ -753,7 +753,7 @@ def _run_table(
             engine.materialize(step.relation, step.sql)
             for name in step.frees:
                 engine.drop(plan.step(name).relation)
-        else:
+        elif not step.on_demand or stop_after is not None:
             engine.view(step.relation, step.sql)
         if step.materialize and (speed := per_second(rows, began)):
             last = f"; {step.name} ran at {speed}"
@@ -775,7 +775,11 @@ def rejected_relation(trun: TableRun) -> str:
 def _account(trun: TableRun, engine: DuckDBEngine) -> ledger_mod.TableLedger:
     plan = trun.plan
     rejected = rejected_relation(trun)
-    engine.materialize(rejected, quarantine.rejected_rows(plan))
+    ((invalid,),) = engine.rows(f"SELECT count(*) FROM {plan.rel('typed')} WHERE NOT __ok")
+    if invalid:  # the reasons are made only where some row has them
+        step = plan.step("rejects")
+        engine.view(step.relation, step.sql)
+    engine.materialize(rejected, quarantine.rejected_rows(plan, all_valid=not invalid))
     tl = ledger_mod.TableLedger(trun.mapping.table)
     ids = {s.file_id: s.name for s in plan.sources} | trun.carried
     for f in trun.raw.files:

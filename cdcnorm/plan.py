@@ -57,6 +57,9 @@ class Step:
     #: earlier materialised steps this one is the last reader of: dropped once it has run, so a
     #: whole copy of the rows does not stay in the engine's memory (or its spill files) to the end
     frees: tuple[str, ...] = ()
+    #: a view no later step reads, made only when what reads it needs it (``rejects``: when some
+    #: row is not valid); every engine can still make it, and ``--show-plan`` shows it
+    on_demand: bool = False
 
     @cached_property
     def expression(self) -> exp.Expr:
@@ -246,9 +249,16 @@ class Plan:
         return ident(self.relation(name))
 
     def add(
-        self, stage: str, name: str, sql: str, *, materialize: bool = False, frees: tuple[str, ...] = ()
+        self,
+        stage: str,
+        name: str,
+        sql: str,
+        *,
+        materialize: bool = False,
+        frees: tuple[str, ...] = (),
+        on_demand: bool = False,
     ) -> Plan:
-        step = Step(stage, name, self.relation(name), sql, materialize, frees)
+        step = Step(stage, name, self.relation(name), sql, materialize, frees, on_demand)
         return replace(self, steps=(*self.steps, step))
 
     def step(self, name: str) -> Step:

@@ -69,9 +69,10 @@ def _reason(expected: str, found: str, reason: str) -> str:
     )
 
 
-def rejected_rows(plan: Plan) -> str:
+def rejected_rows(plan: Plan, all_valid: bool = False) -> str:
     """SQL: (__file, __row, reasons, text) of every quarantined row of the table, including the
-    records the reader could not split (``plan.malformed``)."""
+    records the reader could not split (``plan.malformed``). ``all_valid``: every typed row is
+    valid, so the reasons (``rejects``) are not read, nor need to be made."""
     paired_mode = plan.mapping.mapping.change.updates == "paired"
     unpaired = (
         "'before-image without an after-image: settled, it waits no more'"
@@ -120,6 +121,8 @@ def rejected_rows(plan: Plan) -> str:
         f"SELECT __file, __row, {unpairable} AS reasons, CAST(NULL AS VARCHAR) AS text "
         f"FROM {plan.rel('unpairable')}",
     ]
+    if all_valid:
+        parts = parts[1:]
     if plan.malformed:
         parts.append(
             f"SELECT __file, __row, {_reason(lit('a well-formed record'), 'text', 'reason')} AS reasons, "

@@ -212,4 +212,6 @@ def type_rows(plan: Plan) -> Plan:
         f"SELECT t.__file, t.__row, {reasons} AS reasons "
         f"FROM {plan.rel('typed')} t JOIN {src} s ON s.__file = t.__file AND s.__row = t.__row WHERE NOT t.__ok"
     )
-    return plan.add("type", "rejects", rejects)
+    # only the quarantine reads the reasons: made when some row is not valid (binding them is
+    # most of a small table's accounting)
+    return plan.add("type", "rejects", rejects, on_demand=True)

@@ -140,13 +140,13 @@ def test_a_date_in_a_layout(convert: ConvertFn) -> None:
     ("spec", "message"),
     [
         ({"type": "timestamp", "layout": "%d/%m/%y %H:%M"}, "%y is a year without its century"),
-        ({"type": "timestamp", "layout": "%d/%m %H:%M"}, "names no the year (%Y)"),
-        ({"type": "timestamp", "layout": "%d/%Y"}, "names no the month (%m, %b or %B), no the hour"),
+        ({"type": "timestamp", "layout": "%d/%m %H:%M"}, "names no year (%Y)"),
+        ({"type": "timestamp", "layout": "%d/%Y"}, "names no month (%m, %b or %B), no hour"),
         (
             {"type": "timestamp", "layout": "%d/%m/%Y %I:%M"},
             "%I (a 12-hour clock) and %p (AM or PM) go together",
         ),
-        ({"type": "timestamp", "layout": "%d/%m/%Y %H:%M:%Q"}, "'%Q' is not a code formats read"),
+        ({"type": "timestamp", "layout": "%d/%m/%Y %H:%M:%Q"}, "'%Q' is not a code a layout reads"),
         ({"type": "timestamp", "layout": "%d/%m/%Y %H:%M:%s"}, 'did you mean "%S"'),
         ({"type": "timestamp", "layout": "%d/%m/%Y %H:%M %d"}, "names %d twice"),
         ({"type": "timestamp", "layout": "%d/%m/%Y %H:%M.%f"}, "a fraction (%f) needs the second"),

@@ -110,39 +110,39 @@ def parse_layout(text: str, kind: str) -> Layout:
             continue
         code = text[i : i + 2]
         if code in REFUSED:
-            raise ValueError(f"format {text!r}: {REFUSED[code]}")
+            raise ValueError(f"layout {text!r}: {REFUSED[code]}")
         if code not in CODES:
             raise ValueError(
-                f"format {text!r}: {code!r} is not a code formats read{did_you_mean(code, CODES)}; "
+                f"layout {text!r}: {code!r} is not a code a layout reads{did_you_mean(code, CODES)}; "
                 f"they are {', '.join(CODES)}"
             )
         if code != "%%" and code in codes:
-            raise ValueError(f"format {text!r} names {code} twice; name each part once")
+            raise ValueError(f"layout {text!r} names {code} twice; name each part once")
         if kind == "date" and code not in DATE_CODES:
-            raise ValueError(f"format {text!r}: a date has no time of day or offset ({code}); remove it")
+            raise ValueError(f"layout {text!r}: a date has no time of day or offset ({code}); remove it")
         codes.append(code)
         parts.append(CODES[code][1])
         i += 2
     found = set(codes)
-    need = [("%Y", "the year (%Y)"), ("%d", "the day of the month (%d)")]
+    need = [("%Y", "year (%Y)"), ("%d", "day of the month (%d)")]
     missing = [what for code, what in need if code not in found]
     if not found & {"%m", "%b", "%B"}:
-        missing.insert(1, "the month (%m, %b or %B)")
+        missing.insert(1, "month (%m, %b or %B)")
     if kind == "timestamp":
         if not found & {"%H", "%I"}:
-            missing.append("the hour (%H, or %I with %p)")
+            missing.append("hour (%H, or %I with %p)")
         if "%M" not in found:
-            missing.append("the minute (%M)")
+            missing.append("minute (%M)")
     if missing:
-        raise ValueError(f"format {text!r} names no {', no '.join(missing)}; a value needs every part")
+        raise ValueError(f"layout {text!r} names no {', no '.join(missing)}; a value needs every part")
     if len(found & {"%m", "%b", "%B"}) > 1:
-        raise ValueError(f"format {text!r} names the month twice; write one of %m, %b and %B")
+        raise ValueError(f"layout {text!r} names the month twice; write one of %m, %b and %B")
     if len(found & {"%H", "%I"}) > 1:
-        raise ValueError(f"format {text!r} names the hour twice; write %H, or %I with %p")
+        raise ValueError(f"layout {text!r} names the hour twice; write %H, or %I with %p")
     if ("%I" in found) != ("%p" in found):
-        raise ValueError(f"format {text!r}: %I (a 12-hour clock) and %p (AM or PM) go together")
+        raise ValueError(f"layout {text!r}: %I (a 12-hour clock) and %p (AM or PM) go together")
     if "%f" in found and "%S" not in found:
-        raise ValueError(f"format {text!r}: a fraction (%f) needs the second (%S) it is a fraction of")
+        raise ValueError(f"layout {text!r}: a fraction (%f) needs the second (%S) it is a fraction of")
     return Layout(text, "".join(parts), frozenset(found))
 
 

@@ -1,6 +1,7 @@
 from __future__ import annotations
 
 from cdcnorm.types.base import FieldType
+from cdcnorm.types.marks import expected as marks_expected
 from cdcnorm.types.marks import guarded_cast, guarded_explain
 
 PATTERN = r"'[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?'"
@@ -86,6 +87,9 @@ class DecimalType(FieldType):
         sign = f"CASE WHEN substr({x}, 1, 1) = '-' THEN '-' ELSE '' END"
         shifted = f"CAST({exp} + length({whole}) - {lead} AS VARCHAR)"
         return f"CASE WHEN {body} = '' THEN '0' ELSE {sign} || '0.' || {body} || 'E' || {shifted} END"
+
+    def expected(self) -> str:
+        return marks_expected(self.spec, True, self.describe())
 
     def cast(self, x: str) -> str:
         return guarded_cast(x, self.spec, True, self._cast)

@@ -1,6 +1,7 @@
 from __future__ import annotations
 
 from cdcnorm.types.base import FieldType
+from cdcnorm.types.marks import expected as marks_expected
 from cdcnorm.types.marks import guarded_cast, guarded_explain
 
 PATTERN = r"'[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?'"
@@ -18,6 +19,9 @@ class FloatType(FieldType):
 
     name = "float"
     sql_type = "DOUBLE"
+
+    def expected(self) -> str:
+        return marks_expected(self.spec, True, self.describe())
 
     def cast(self, x: str) -> str:
         return guarded_cast(x, self.spec, True, self._cast)

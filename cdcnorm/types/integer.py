@@ -1,6 +1,7 @@
 from __future__ import annotations
 
 from cdcnorm.types.base import FieldType
+from cdcnorm.types.marks import expected as marks_expected
 from cdcnorm.types.marks import guarded_cast, guarded_explain
 
 PATTERN = "'[+-]?[0-9]+'"
@@ -11,6 +12,9 @@ class IntegerType(FieldType):
 
     name = "integer"
     sql_type = "BIGINT"
+
+    def expected(self) -> str:
+        return marks_expected(self.spec, False, self.describe())
 
     def cast(self, x: str) -> str:
         return guarded_cast(x, self.spec, False, self._cast)

@@ -56,6 +56,11 @@ def described(spec: FieldSpec, fraction: bool) -> str:
     return " and ".join(said)
 
 
+def expected(spec: FieldSpec, fraction: bool, plain_expected: str) -> str:
+    """What a quarantine reason says a value must be: the type, and its marks where it has any."""
+    return f"{plain_expected} written with {described(spec, fraction)}" if marked(spec) else plain_expected
+
+
 def guarded_cast(x: str, spec: FieldSpec, fraction: bool, cast: Callable[[str], str]) -> str:
     return cast(plain(x, spec, fraction)) if marked(spec) else cast(x)
 

@@ -266,34 +266,29 @@ def test_epoch_counts_and_spaced_offsets_give_the_same_events_on_spark(spark: An
     assert _same_on_both(spark, tmp_path / "mappings", dumps, tmp_path / "scratch") == {"t.ticks": (2, 2)}
 
 
-def test_a_time_field_is_refused_by_name_on_spark(tmp_path: Path) -> None:
-    """Spark has no time-of-day type: a plan with a time field is refused with that reason when
-    rendered, not sent to a session that answers with its own wording."""
+@pytest.mark.parametrize(
+    ("field", "value", "refusal"),
+    [
+        # Spark has no time-of-day type
+        ("{type: time, sub_microsecond: round}", "08:00:00.1234567", "no time-of-day type"),
+        # Spark's datetime patterns parse otherwise than the engine's strptime (month names in one
+        # case only)
+        ("{type: timestamp, layout: '%d-%b-%Y %H:%M'}", "01-MAR-2026 08:00", "layout"),
+    ],
+)
+def test_what_spark_reads_otherwise_is_refused_by_name(
+    tmp_path: Path, field: str, value: str, refusal: str
+) -> None:
+    """A plan Spark would read otherwise is refused with the reason when rendered, not sent to a
+    session that answers with its own wording."""
     from cdcnorm.engines.spark import UnsupportedByEngine, render
 
-    _one_mapping(tmp_path, "t.clock", "c", "kind: integer}", "  at: {type: time, sub_microsecond: round}\n")
+    _one_mapping(tmp_path, "t.clock", "c", "kind: integer}", f"  at: {field}\n")
     dumps = tmp_path / "dumps"
     dumps.mkdir()
-    (dumps / "c.csv").write_text("op,pos,id,at\nI,1,1,08:00:00.1234567\n", encoding="utf-8")
+    (dumps / "c.csv").write_text(f"op,pos,id,at\nI,1,1,{value}\n", encoding="utf-8")
     _, ((plan, _),) = _read(tmp_path / "mappings", dumps, tmp_path / "scratch")
-    with pytest.raises(UnsupportedByEngine, match="no time-of-day type") as caught:
-        render(plan.step("typed").expression)
-    assert "DuckDB engine" in (caught.value.hint or "")
-
-
-def test_a_layout_is_refused_by_name_on_spark(tmp_path: Path) -> None:
-    """Spark's datetime patterns parse otherwise than the engine's strptime (month names in one
-    case only): a field with a layout is refused when rendered, with that reason."""
-    from cdcnorm.engines.spark import UnsupportedByEngine, render
-
-    _one_mapping(
-        tmp_path, "t.orders", "o", "kind: integer}", "  at: {type: timestamp, layout: '%d-%b-%Y %H:%M'}\n"
-    )
-    dumps = tmp_path / "dumps"
-    dumps.mkdir()
-    (dumps / "o.csv").write_text("op,pos,id,at\nI,1,1,01-MAR-2026 08:00\n", encoding="utf-8")
-    _, ((plan, _),) = _read(tmp_path / "mappings", dumps, tmp_path / "scratch")
-    with pytest.raises(UnsupportedByEngine, match="layout") as caught:
+    with pytest.raises(UnsupportedByEngine, match=refusal) as caught:
         render(plan.step("typed").expression)
     assert "DuckDB engine" in (caught.value.hint or "")
 

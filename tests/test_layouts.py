@@ -13,14 +13,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from pydantic import ValidationError
 
-from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.mapping.model import FieldSpec
-from cdcnorm.sql import lit
-from cdcnorm.types import resolve
 from tests.conftest import ConvertFn
-from tests.typing_helper import type_values
-
-_ENGINE: dict[str, DuckDBEngine] = {}
+from tests.typing_helper import type_values, typed_text
 
 #: layouts real exports write: a European and a US spreadsheet's, Oracle's default text of a
 #: TIMESTAMP (DD-MON-YYYY HH.MI.SSXFF AM, with a four-digit year), a log's, a written-out date
@@ -33,16 +28,6 @@ LAYOUTS = [
     "%d.%m.%Y %H:%M:%S.%f %z",
     "[%Y-%m-%d|%H:%M:%S]",
 ]
-
-
-def _typed(spec: dict[str, str], text: str) -> tuple[str | None, str | None]:
-    ftype = resolve(FieldSpec(**spec))  # type: ignore[arg-type]
-    engine = _ENGINE.setdefault("engine", DuckDBEngine())
-    ((value, reason),) = engine.rows(
-        f"SELECT {ftype.render('v')}, CASE WHEN v IS NULL THEN {ftype.explain(lit(text))} END "
-        f"FROM (SELECT {ftype.cast(lit(text))} AS v)"
-    )
-    return value, reason
 
 
 def _instant(value: str) -> dt.datetime:
@@ -66,7 +51,7 @@ def test_what_python_writes_in_a_layout_reads_back_as_that_instant(
     if lower:  # month names and AM/PM in any case
         text = text.lower()
     spec = {"type": "timestamp", "layout": layout} | ({} if "%z" in layout else {"zone": zone})
-    value, reason = _typed(spec, text)
+    value, reason = typed_text(spec, text)
     expected = dt.datetime.strptime(text, layout)  # Python's strptime
     if expected.tzinfo is None:
         expected = expected.replace(tzinfo=offset)
@@ -93,23 +78,23 @@ def test_what_python_refuses_is_quarantined_with_a_reason() -> None:
     for text, why in texts.items():
         with pytest.raises(ValueError):
             dt.datetime.strptime(text, layout)  # Python refuses it too
-        value, reason = _typed({"type": "timestamp", "layout": layout}, text)
+        value, reason = typed_text({"type": "timestamp", "layout": layout}, text)
         assert value is None and reason is not None and reason.startswith(why), (text, reason)
-    value, reason = _typed({"type": "timestamp", "layout": layout}, "1-Mar-2026 08:05 PM")
+    value, reason = typed_text({"type": "timestamp", "layout": layout}, "1-Mar-2026 08:05 PM")
     assert reason is None and value == "2026-03-01T20:05:00Z"
-    assert _typed({"type": "timestamp", "layout": layout}, "x")[1] == (
+    assert typed_text({"type": "timestamp", "layout": layout}, "x")[1] == (
         f'not a timestamp written as "{layout}" (such as "{example}")'
     )
 
 
 def test_an_instant_outside_years_0001_to_9999_is_named() -> None:
     layout = "%Y-%m-%d %H:%M:%S %z"
-    assert _typed({"type": "timestamp", "layout": layout}, "9999-12-31 23:59:59 -0100") == (
+    assert typed_text({"type": "timestamp", "layout": layout}, "9999-12-31 23:59:59 -0100") == (
         None,
         "outside the years 0001 to 9999 in UTC",
     )
-    assert _typed({"type": "timestamp", "layout": layout}, "0001-01-01 00:30:00 +0100")[0] is None
-    assert _typed({"type": "timestamp", "layout": layout}, "9999-12-31 23:59:59 +0100") == (
+    assert typed_text({"type": "timestamp", "layout": layout}, "0001-01-01 00:30:00 +0100")[0] is None
+    assert typed_text({"type": "timestamp", "layout": layout}, "9999-12-31 23:59:59 +0100") == (
         "9999-12-31T22:59:59Z",
         None,
     )

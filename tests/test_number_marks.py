@@ -14,28 +14,13 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from pydantic import ValidationError
 
-from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.mapping.model import FieldSpec
-from cdcnorm.sql import lit
-from cdcnorm.types import resolve
 from tests.conftest import ConvertFn
-from tests.typing_helper import type_values
-
-_ENGINE: dict[str, DuckDBEngine] = {}
+from tests.typing_helper import type_values, typed_text
 
 #: (decimal mark, group mark): German and Danish exports, French (a narrow no-break space, or a
 #: no-break space), Swiss, English reports, and a decimal comma without grouping
 CONVENTIONS = [(",", "."), (",", "\u202f"), (",", "\u00a0"), (".", "'"), (".", ","), (",", None)]
-
-
-def _typed(spec: dict[str, str | None], text: str) -> tuple[object, str | None]:
-    ftype = resolve(FieldSpec(**spec))  # type: ignore[arg-type]
-    engine = _ENGINE.setdefault("engine", DuckDBEngine())
-    ((value, reason),) = engine.rows(
-        f"SELECT {ftype.render('v')}, CASE WHEN v IS NULL THEN {ftype.explain(lit(text))} END "
-        f"FROM (SELECT {ftype.cast(lit(text))} AS v)"
-    )
-    return value, reason
 
 
 def _written(number: Decimal, decimal: str, group: str | None) -> str:
@@ -55,12 +40,12 @@ def test_a_number_in_another_convention_is_the_value_python_writes(
     decimal, group = marks
     text = _written(number, decimal, group)
     spec = {"decimal_mark": decimal, "group_mark": group}
-    value, reason = _typed({"type": "decimal(16,2)"} | spec, text)
+    value, reason = typed_text({"type": "decimal(16,2)"} | spec, text)
     assert reason is None and Decimal(str(value)) == number, (text, value, reason)
-    as_float, reason = _typed({"type": "float"} | spec, text)
+    as_float, reason = typed_text({"type": "float"} | spec, text)
     assert reason is None and as_float == float(number), (text, as_float)
     whole = number.to_integral_value()
-    value, reason = _typed({"type": "integer", "group_mark": group}, _written(whole, decimal, group))
+    value, reason = typed_text({"type": "integer", "group_mark": group}, _written(whole, decimal, group))
     assert reason is None and value == int(whole), (whole, value, reason)
 
 

@@ -12,7 +12,6 @@ import datetime as dt
 import json
 from decimal import ROUND_FLOOR, ROUND_HALF_EVEN, Decimal
 from pathlib import Path
-from typing import Any
 
 import pytest
 from hypothesis import example, given, settings
@@ -20,31 +19,16 @@ from hypothesis import strategies as st
 from pydantic import ValidationError
 
 from cdcnorm.cli import main
-from cdcnorm.engines.duckdb import DuckDBEngine
 from cdcnorm.mapping.model import CommittedAtSpec, FieldSpec
-from cdcnorm.sql import lit
-from cdcnorm.types import resolve
 from cdcnorm.types.timestamp import TOO_FINE
 from tests.conftest import ConvertFn
-from tests.typing_helper import type_values
+from tests.typing_helper import type_values, typed_text
 
-_ENGINE: dict[str, DuckDBEngine] = {}
 _EPOCH = dt.datetime(1970, 1, 1, tzinfo=dt.UTC)
 _LAST_US = (dt.datetime(9999, 12, 31, 23, 59, 59, 999999, tzinfo=dt.UTC) - _EPOCH) // dt.timedelta(
     microseconds=1
 )
 _FIRST_US = (dt.datetime(1, 1, 1, tzinfo=dt.UTC) - _EPOCH) // dt.timedelta(microseconds=1)
-
-
-def _typed(spec: dict[str, Any], text: str) -> tuple[str | None, str | None]:
-    """(JSON value, None) or (None, reason) of one raw text, typed in the engine."""
-    ftype = resolve(FieldSpec(**spec))
-    engine = _ENGINE.setdefault("engine", DuckDBEngine())
-    ((value, reason),) = engine.rows(
-        f"SELECT {ftype.render('v')}, CASE WHEN v IS NULL THEN {ftype.explain(lit(text))} END "
-        f"FROM (SELECT {ftype.cast(lit(text))} AS v)"
-    )
-    return value, reason
 
 
 def _instant(value: str) -> dt.datetime:
@@ -165,7 +149,7 @@ def test_fine_fractions_against_python(seconds: int, digits: str, offset: str, s
     the oracle: the instant of ``<date>T<time>.<digits><offset>`` read with round or truncate."""
     local = (_EPOCH + dt.timedelta(seconds=seconds)).replace(tzinfo=None)
     text = f"{local.isoformat(timespec='seconds')}.{digits}{offset}"
-    value, reason = _typed({"type": "timestamp", "sub_microsecond": sub}, text)
+    value, reason = typed_text({"type": "timestamp", "sub_microsecond": sub}, text)
     fraction = Decimal("0." + digits)
     micros = int(
         (fraction * 1_000_000).quantize(Decimal(1), ROUND_HALF_EVEN if sub == "round" else ROUND_FLOOR)
@@ -188,7 +172,7 @@ def test_nanoseconds_since_the_epoch_against_python_decimal(count: int, sub: str
     """A count of nanoseconds read with round (ties to even) or truncate (towards the earlier
     instant) is the instant Python's decimal and datetime make of it, when that lies in years
     0001-9999 (UTC); else it is quarantined with that reason."""
-    value, reason = _typed({"type": "timestamp", "epoch": "ns", "sub_microsecond": sub}, str(count))
+    value, reason = typed_text({"type": "timestamp", "epoch": "ns", "sub_microsecond": sub}, str(count))
     rounding = ROUND_HALF_EVEN if sub == "round" else ROUND_FLOOR
     micros = int((Decimal(count) / 1000).quantize(Decimal(1), rounding))
     if not _FIRST_US <= micros <= _LAST_US:

@@ -6,7 +6,25 @@ import csv
 import io
 from typing import Any
 
+from cdcnorm.engines.duckdb import DuckDBEngine
+from cdcnorm.mapping.model import FieldSpec
+from cdcnorm.sql import lit
+from cdcnorm.types import resolve
 from tests.conftest import ConvertFn
+
+_ENGINE: dict[str, DuckDBEngine] = {}
+
+
+def typed_text(spec: dict[str, Any], text: str) -> tuple[Any, str | None]:
+    """(JSON value, None) or (None, reason) of one raw text typed by a field of ``spec`` in the
+    engine alone (one engine per test process): for properties over many values."""
+    ftype = resolve(FieldSpec(**spec))
+    engine = _ENGINE.setdefault("engine", DuckDBEngine())
+    ((value, reason),) = engine.rows(
+        f"SELECT {ftype.render('v')}, CASE WHEN v IS NULL THEN {ftype.explain(lit(text))} END "
+        f"FROM (SELECT {ftype.cast(lit(text))} AS v)"
+    )
+    return value, reason
 
 
 def type_values(convert: ConvertFn, type_spec: str, values: list[str]) -> list[tuple[Any, str | None]]:

@@ -38,7 +38,7 @@ def _instant(value: str) -> dt.datetime:
 @given(
     st.datetimes(dt.datetime(1000, 1, 1, 0, 0), dt.datetime(9998, 12, 31, 0, 0)),
     st.sampled_from(LAYOUTS),
-    st.sampled_from(["+00:00", "+05:30", "-08:00"]),
+    st.sampled_from(["+00:00", "+05:30", "-08:00", "+0530", "-0800", "Z"]),
     st.booleans(),
 )
 def test_what_python_writes_in_a_layout_reads_back_as_that_instant(
@@ -46,6 +46,7 @@ def test_what_python_writes_in_a_layout_reads_back_as_that_instant(
 ) -> None:
     """Python's strftime writes the text; the instant cdcnorm reads is the one Python's strptime
     reads from it (the field's zone for a layout without %z, the text's offset with one)."""
+    # Python's datetime reads the offset (a mapping may write it +05:30, -0800 or Z)
     offset = dt.datetime.fromisoformat("2000-01-01T00:00:00" + zone).tzinfo
     text = when.replace(tzinfo=offset).strftime(layout)
     if lower:  # month names and AM/PM in any case

@@ -156,12 +156,13 @@ def _parsed(x: str, layout: Layout) -> str:
 
 
 def _minutes(zone: str) -> int:
-    """The minutes east of UTC of a fixed offset (``+05:30``, ``Z``)."""
-    if zone in ("Z", "UTC", "+00:00", "-00:00"):
+    """The minutes east of UTC of a fixed offset as a mapping writes one (``zones.FIXED``:
+    ``Z``, ``UTC``, ``+05:30``, ``-0800``)."""
+    if zone in ("Z", "UTC"):
         return 0
     sign = -1 if zone.startswith("-") else 1
-    hours, _, minutes = zone[1:].partition(":")
-    return sign * (int(hours) * 60 + int(minutes or 0))
+    digits = zone[1:].replace(":", "")
+    return sign * (int(digits[:2]) * 60 + int(digits[2:]))
 
 
 def _instant(x: str, layout: Layout, zone: str) -> str:

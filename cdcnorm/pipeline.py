@@ -47,6 +47,7 @@ from cdcnorm.stages.order import order_rows
 from cdcnorm.stages.pair import pair_images
 from cdcnorm.stages.source import unite_sources
 from cdcnorm.stages.type import type_rows
+from cdcnorm.types import resolve
 from cdcnorm.writers import WRITERS
 
 #: The plan-building stages, in order. ``read`` comes before them all.
@@ -820,8 +821,6 @@ SUB_MICROSECOND_DONE = {
 def _note_sub_microseconds(trun: TableRun, engine: DuckDBEngine) -> None:
     """A note on each file whose rows (not quarantined) had time or timestamp values with digits
     below the microsecond that the mapping's ``sub_microsecond`` rounded or cut: how many, per field."""
-    from cdcnorm.types.timestamp import epoch_fine, has_fine_digits
-
     plan, mapping = trun.plan, trun.mapping.mapping
     counts: list[tuple[str, str, str]] = []  # (field, SQL count, what was done)
     images = mapping.change.images is not None
@@ -835,8 +834,7 @@ def _note_sub_microseconds(trun: TableRun, engine: DuckDBEngine) -> None:
             )
     cat = mapping.change.committed_at
     if cat is not None and cat.sub_microsecond in SUB_MICROSECOND_DONE:
-        col = f"s.{plan.raw(cat.column)}"
-        cat_fine = epoch_fine(col) if cat.epoch else has_fine_digits(col, 19)
+        cat_fine = resolve(cat.as_field()).fine(f"s.{plan.raw(cat.column)}")
         counts.append(
             (
                 "committed_at",

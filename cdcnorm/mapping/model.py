@@ -173,6 +173,11 @@ class CommittedAtSpec(Strict):
         check_sub_microsecond(self.sub_microsecond, self.epoch)
         return self
 
+    def as_field(self) -> FieldSpec:
+        """The commit time as a timestamp field reads it (its cast, reason and ``sub_microsecond``)."""
+        zone = None if self.epoch else self.zone
+        return FieldSpec(type="timestamp", zone=zone, epoch=self.epoch, sub_microsecond=self.sub_microsecond)
+
 
 class ImagesSpec(Strict):
     """A record that holds both images of its change, each a member of the record: a JSON Lines

@@ -8,13 +8,8 @@ from cdcnorm import positions
 from cdcnorm.plan import Plan
 from cdcnorm.sql import lit
 from cdcnorm.stages.source import alternative_named, image_named
-from cdcnorm.types.timestamp import (
-    epoch_cast,
-    epoch_expected,
-    epoch_explain,
-    timestamp_cast,
-    timestamp_explain,
-)
+from cdcnorm.types import resolve
+from cdcnorm.types.timestamp import epoch_expected, timestamp_explain
 
 
 def _reason(
@@ -116,21 +111,10 @@ def type_rows(plan: Plan) -> Plan:
         c.typed.append(("__seq", positions.NO_SEQUENCE))  # no sequence: one constant
     if ch.committed_at:
         col = plan.raw(ch.committed_at.column)
+        ftype = resolve(ch.committed_at.as_field())
         epoch = ch.committed_at.epoch
-        sub = ch.committed_at.sub_microsecond or "reject"
-        if epoch:
-            cast, expected, why = (
-                epoch_cast(col, epoch, sub),
-                epoch_expected(epoch),
-                epoch_explain(f"s.{col}", epoch, sub),
-            )
-        else:
-            zone = ch.committed_at.zone
-            cast, expected, why = (
-                timestamp_cast(col, zone, sub),
-                "an RFC 3339 timestamp",
-                timestamp_explain(f"s.{col}", zone, sub),
-            )
+        expected = epoch_expected(epoch) if epoch else "an RFC 3339 timestamp"
+        cast, why = ftype.cast(col), ftype.explain(f"s.{col}")
         c.typed.append(("__cat", cast))
         c.check(
             _invalid(col, "__cat"), _reason("committed_at", ch.committed_at.column, expected, f"s.{col}", why)

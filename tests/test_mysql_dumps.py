@@ -450,3 +450,17 @@ def test_a_database_dump_read_as_rfc_4180_is_told_what_it_may_be(
         == 4
     )
     assert "csv.escapes: backslash, whose delimiter is a tab" in capsys.readouterr().err
+
+
+def test_a_trailing_null_word_beyond_the_columns_is_malformed_not_dropped(convert: ConvertFn) -> None:
+    # the engine's reader drops trailing cells beyond the columns where they are its null token
+    # (the word NULL here); LOAD DATA warns that such a row held more data than there were input
+    # columns (MariaDB's warning 1262, from memory)
+    done = convert(MAPPING, {"n.csv": 'I,1,1,"x",NULL\nI,2,2,NULL\nI,3,3,x,NULL,NULL\nI,4,4,"y"\n'})
+    assert _values(done) == {2: None, 4: "y"}
+    quarantined = {q["_cdcnorm"]["row"]: q["_cdcnorm"] for q in done.quarantine("t.notes")}
+    assert {row: q["reasons"][0]["reason"] for row, q in quarantined.items()} == {
+        1: "expected 4 fields, found 5",
+        3: "expected 4 fields, found 6",
+    }
+    assert quarantined[1]["text"] == 'I,1,1,"x",NULL' and done.ledger()["balanced"]

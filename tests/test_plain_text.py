@@ -429,3 +429,16 @@ def test_a_null_mark_in_plain_text_is_kept_as_text_with_a_note_naming_nulls(conv
     )
     again = convert(_mapping(', delimiter: "\\x01"' + HEADERLESS, 'nulls: ["", "\\\\N"]\n'), {"n.csv": text})
     assert _values(again) == {1: None, 2: "x"} and not last_run(again.out)["notes"]
+
+
+def test_trailing_null_cells_beyond_the_columns_are_malformed_not_dropped(convert: ConvertFn) -> None:
+    # the engine's reader drops trailing cells beyond the columns where they are null tokens
+    text = "op\tpos\tid\ta\nI\t1\t1\tx\t\nI\t2\t2\tx\tNULL\nI\t3\t3\t\nI\t4\t4\tx\t\tNULL\nI\t5\t5\ty\n"
+    done = convert(_mapping("", 'nulls: ["", "NULL"]\n'), {"n.tsv": text})
+    # Python's csv module with QUOTE_NONE as the reference of the cells of each line
+    rows = list(csv.reader(io.StringIO(text), delimiter="\t", quoting=csv.QUOTE_NONE))[1:]
+    assert _values(done) == {int(r[2]): r[3] or None for r in rows if len(r) == 4} == {3: None, 5: "y"}
+    assert {row: q["reasons"][0]["reason"] for row, q in _quarantined(done).items()} == {
+        i + 1: f"expected 4 fields, found {len(r)}" for i, r in enumerate(rows) if len(r) != 4
+    }
+    assert done.ledger()["balanced"]

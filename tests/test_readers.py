@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import csv
+import io
 import json
 import re
 from pathlib import Path
@@ -13,7 +15,10 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from cdcnorm.readers.csv import line_end
+from cdcnorm.engines.duckdb import DuckDBEngine
+from cdcnorm.mapping.model import Mapping
+from cdcnorm.readers.count import Counting, count_blocks
+from cdcnorm.readers.csv import csv_syntax, line_end
 from tests.conftest import ConvertFn, cli, insert_only_mapping, last_run
 from tests.test_bad_input import NESTED, NESTED_FIELDS
 
@@ -189,6 +194,136 @@ def test_wrong_field_count_keeps_record_numbers(convert: ConvertFn) -> None:
     assert set(bad) == {2, 4}
     assert bad[2]["text"] == "I,2,2,x" and bad[2]["reasons"][0]["reason"] == "expected 5 fields, found 4"
     assert bad[4]["text"] == "I,4,4,x,y,z"
+
+
+#: The notes table whose unquoted empty fields and NULL words are NULL.
+NULLS_MAPPING = MAPPING + 'nulls: ["", "NULL"]\n'
+
+
+def _fields_by_rfc_4180(data: str) -> list[list[str]]:
+    """The data records of a CSV text as Python's csv module splits them (RFC 4180)."""
+    return list(csv.reader(io.StringIO(data, newline="")))[1:]
+
+
+@pytest.mark.parametrize("end", ["\n", "\r\n"])
+@pytest.mark.parametrize("final", [True, False])
+def test_trailing_null_fields_beyond_the_columns_are_malformed_not_dropped(
+    convert: ConvertFn, end: str, final: bool
+) -> None:
+    # The engine's reader drops trailing fields beyond the columns where they are all unquoted null
+    # tokens, without a reject: each such record must still be malformed, its text kept.
+    lines = [
+        "I,1,1,x,y,",
+        "I,2,2,x,",  # five fields, the last empty: a NULL b
+        "I,3,3,x,y,NULL",
+        "I,4,4,x,y,,",
+        'I,5,5,"x\n,",y,',
+        "I,6,6,x,y",
+        'I,7,7,"a,b",',
+        "I,9,9,x,y,NULL,NULL",
+    ]
+    data = "op,pos,id,a,b" + end + end.join(lines) + (end if final else "")
+    records = _fields_by_rfc_4180(data)
+    done = convert(NULLS_MAPPING, {"n.csv": data})
+    good = [int(r[2]) for r in records if len(r) == 5]
+    assert [e["key"]["id"] for e in done.events("t.notes")] == good == [2, 6, 7]
+    assert {e["key"]["id"]: e["values"]["b"] for e in done.events("t.notes")} == {2: None, 6: "y", 7: None}
+    bad = {q["_cdcnorm"]["row"]: q["_cdcnorm"] for q in done.quarantine("t.notes")}
+    assert {row: q["reasons"][0]["reason"] for row, q in bad.items()} == {
+        i + 1: f"expected 5 fields, found {len(r)}" for i, r in enumerate(records) if len(r) != 5
+    }
+    assert bad[1]["text"] == "I,1,1,x,y," and bad[5]["text"] == 'I,5,5,"x\n,",y,'
+    assert done.ledger()["balanced"] and done.ledger()["total"]["read"] == len(lines)
+
+
+def test_a_trailing_null_field_in_one_of_many_small_files_is_malformed(convert: ConvertFn) -> None:
+    # many small files are read joined as one: the one record with a field too many is still found
+    files: dict[str, str | bytes] = {
+        f"n{i:02d}.csv": f"op,pos,id,a,b\nI,{i},{i},x,y\nI,{i + 100},{i + 100},x,\n" for i in range(30)
+    }
+    files["n07.csv"] = "op,pos,id,a,b\nI,7,7,x,y,\nI,107,107,x,\n"
+    done = convert(NULLS_MAPPING, files)
+    assert len(done.events("t.notes")) == 59
+    ((q),) = done.quarantine("t.notes")
+    assert (q["_cdcnorm"]["file"], q["_cdcnorm"]["row"], q["_cdcnorm"]["text"]) == (
+        "n07.csv",
+        1,
+        "I,7,7,x,y,",
+    )
+    assert done.ledger()["balanced"]
+
+
+_CELLS = st.one_of(
+    st.sampled_from(["", "NULL", '""', '"NULL"']),
+    st.text("ab ", min_size=1, max_size=3),
+    st.text('a,"\n\r', max_size=4).map(lambda t: '"' + t.replace('"', '""') + '"'),
+)
+
+
+@settings(max_examples=150, deadline=None)
+@given(
+    records=st.lists(st.lists(_CELLS, min_size=3, max_size=6), min_size=1, max_size=10),
+    crlf=st.booleans(),
+    final=st.booleans(),
+    cuts=st.lists(st.integers(1, 120), max_size=4),
+)
+def test_a_file_the_record_count_gives_the_engine_is_read_as_rfc_4180_splits_it(
+    tmp_path_factory: pytest.TempPathFactory,
+    records: list[list[str]],
+    crlf: bool,
+    final: bool,
+    cuts: list[int],
+) -> None:
+    """Where the independent record count lets the engine's reader read a file and that reader
+    rejects nothing, it read each record as Python's csv module splits it (RFC 4180), four fields,
+    the unquoted null tokens NULL; a record of more fields that ends with a null token is never
+    given to it. Counting in blocks cut anywhere finds what counting the whole file finds."""
+    end = "\r\n" if crlf else "\n"
+    data = "c0,c1,c2,c3" + end + end.join(",".join(r) for r in records) + (end if final else "")
+    raw = data.encode()
+    how = Counting('"').with_nulls(4, b",", (b"", b"NULL")).with_lines_ending(not crlf)
+    whole = count_blocks([raw], True, how)
+    at = sorted({min(c, len(raw)) for c in cuts})
+    blocks = [raw[i:j] for i, j in zip([0, *at], [*at, len(raw)], strict=True)]
+    assert count_blocks(blocks, True, how) == whole
+    split = _fields_by_rfc_4180(data)
+    assert [len(r) for r in split] == [
+        len(r) for r in records
+    ]  # the written records, as RFC 4180 splits them
+    dropped = any(len(r) > 4 and r[-1] in ("", "NULL") for r in records)
+    if dropped:
+        assert not whole.readable
+    if not whole.readable or whole.records != len(records):
+        return
+    path = tmp_path_factory.mktemp("trailing") / "n.csv"
+    path.write_bytes(raw)
+    mapping = Mapping.model_validate(
+        {
+            "table": "t",
+            "files": ["n.csv"],
+            "key": ["c0"],
+            "nulls": ["", "NULL"],
+            "change": {
+                "action": {"column": "c1", "codes": {"I": "insert"}},
+                "position": {"column": "c2", "kind": "text"},
+            },
+            "fields": {"c0": "text"},
+            "unused": ["c3"],
+        }
+    )
+    engine = DuckDBEngine()
+    scanned = engine.scan_csv("t", [str(path)], ["c0", "c1", "c2", "c3"], csv_syntax(mapping, ",", "utf-8"))
+    assert scanned is not None
+    rejected, _ = scanned
+    if rejected:
+        return  # the careful path reads the file
+    rows = [list(r) for r in engine.rows("SELECT c0, c1, c2, c3 FROM t ORDER BY rowid")]
+    assert all(len(r) == 4 for r in records)
+    expected = [
+        [None if c in ("", "NULL") else csv_cell for c, csv_cell in zip(r, s, strict=True)]
+        for r, s in zip(records, split, strict=True)
+    ]
+    assert rows == expected
 
 
 def test_invalid_utf8_is_quarantined_with_its_bytes(convert: ConvertFn) -> None:

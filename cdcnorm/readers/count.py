@@ -37,10 +37,21 @@ class Counting:
     #: where nothing is quoted and the lines end with LF: a CR before an LF is data, which the
     #: engine's reader may take for part of a CRLF line end and drop
     lf_only: bool = False
+    #: where the engine's reader is given null tokens: the file's number of columns and its
+    #: delimiter (``_TrailingNulls`` counts the fields of the records that end with a null token)
+    columns: int = 0
+    delimiter: bytes = b""
+    #: the unquoted null tokens, as the file's bytes
+    null_tokens: tuple[bytes, ...] = ()
 
     def with_lines_ending(self, lf: bool) -> Counting:
         """These rules for a file whose lines end with LF (``lf``) or not."""
         return replace(self, lf_only=self.quote is None and lf)
+
+    def with_nulls(self, columns: int, delimiter: bytes, tokens: tuple[bytes, ...]) -> Counting:
+        """These rules for a file of ``columns`` columns separated by ``delimiter`` whose unquoted
+        ``tokens`` the engine's reader reads as NULL."""
+        return replace(self, columns=columns, delimiter=delimiter, null_tokens=tokens)
 
 
 class Counted(NamedTuple):
@@ -124,6 +135,107 @@ class _EnclosedCheck:
             self.plain = False
 
 
+class _TrailingNulls:
+    """Whether any record that ends with an unquoted null token holds more fields than the file has
+    columns. The engine's reader drops a record's trailing fields beyond the columns without a word
+    where they are all unquoted null tokens (``I,1,1,bolt,`` under four columns with the null token
+    "" reads as ``I,1,1,bolt``, strict mode or not; a test shows it), so such a file goes the
+    careful path, which finds the record malformed. Only the records that end so are counted: the
+    delimiters outside quotes of a block are found when some record of the block ends so, else only
+    those after the block's last record end (where a record may go on in the next block)."""
+
+    def __init__(self, how: Counting, header: bool) -> None:
+        self.columns = how.columns
+        self.delimiter = how.delimiter
+        self.ends = [np.frombuffer(how.delimiter + t, np.uint8) for t in how.null_tokens]
+        self.keep = max(len(e) for e in self.ends) + 1
+        self.before = np.zeros(0, np.uint8)  # the last bytes of the blocks before
+        self.carry = 0  # delimiters outside quotes since the last record's end
+        self.skip = 1 if header else 0  # the header row, which is no record to check
+        self.over = False
+
+    def block(
+        self, buf: np.ndarray, isq: np.ndarray, parity: int, breaks: np.ndarray, empty: np.ndarray
+    ) -> None:
+        """Check the records that end in ``buf``: ``breaks`` are the line breaks outside quotes in
+        it, ``empty`` says which end a blank line, ``parity`` is of the quotes before the block."""
+        if self.over:
+            return
+        ext = np.concatenate((self.before, buf)) if len(self.before) else buf
+        shift = len(ext) - len(buf)
+        line = np.flatnonzero(~empty)  # the records' places among the breaks
+        if self.skip and len(line):
+            line = line[self.skip :]
+            self.skip = 0
+        ends = breaks[line] + shift
+        cr = (ends > 0) & (ext[np.maximum(ends - 1, 0)] == 13)
+        hit = self._ending(ext, ends - cr)  # the text of a record ends before its CR
+        if hit.any():
+            if len(self.delimiter) != 1:  # a delimiter of several bytes is not counted here
+                self.over = True
+                return
+            rec = line[hit]
+            starts = np.concatenate(([0], breaks[:-1] + 1))
+            fields = self._fields(buf, isq, parity, starts[rec], breaks[rec])
+            fields += np.where(rec == 0, self.carry, 0)  # the block's first record began before it
+            if np.any(fields > self.columns):
+                self.over = True
+                return
+        tail = int(breaks[-1]) + 1 if len(breaks) else 0
+        n = len(self._outside(buf[tail:], isq[tail:], 0 if len(breaks) else parity))
+        self.carry = n if len(breaks) else self.carry + n
+        self.before = ext[-self.keep :].copy()
+
+    def finish(self, last_record: bool) -> None:
+        """Check the file's last record where no line break ends it (``last_record``)."""
+        if self.over or not last_record or self.skip:
+            return
+        ext = self.before
+        at = np.array([len(ext) - (1 if len(ext) and ext[-1] == 13 else 0)])
+        if self._ending(ext, at).any() and (len(self.delimiter) != 1 or self.carry + 1 > self.columns):
+            self.over = True
+
+    def _ending(self, ext: np.ndarray, last: np.ndarray) -> np.ndarray:
+        """Which texts ending at ``last`` in ``ext`` end with the delimiter and a null token."""
+        hit = np.zeros(len(last), bool)
+        for end in self.ends:
+            ok = last >= len(end)
+            for k in range(len(end)):
+                at = np.where(ok, last - len(end) + k, 0)
+                ok &= ext[at] == end[k]
+            hit |= ok
+        return hit
+
+    def _fields(
+        self, buf: np.ndarray, isq: np.ndarray, parity: int, lo: np.ndarray, hi: np.ndarray
+    ) -> np.ndarray:
+        """The number of fields of the records of ``buf`` from ``lo`` to ``hi`` (sorted, apart) as
+        far as the block holds them: the delimiters outside quotes among theirs, plus one
+        (``parity``: of the quotes before the block)."""
+        at = np.flatnonzero(buf == self.delimiter[0])
+        first, last = np.searchsorted(at, lo), np.searchsorted(at, hi)
+        counts = last - first
+        total = int(counts.sum())
+        if not total:
+            return counts + 1
+        which = np.repeat(np.arange(len(lo)), counts)  # each of their delimiters' record
+        offsets = np.cumsum(counts) - counts
+        mine = at[np.arange(total) - np.repeat(offsets - first, counts)]
+        quotes = np.flatnonzero(isq.view(bool))
+        inside = (np.searchsorted(quotes, mine) + parity) & 1
+        outside = np.bincount(which, weights=1 - inside, minlength=len(lo)).astype(np.int64)
+        return outside + 1
+
+    def _outside(self, buf: np.ndarray, isq: np.ndarray, parity: int) -> np.ndarray:
+        """Where the delimiters outside quotes are in ``buf`` (``parity``: of the quotes before it)."""
+        at = np.flatnonzero(buf == self.delimiter[0])
+        quotes = np.flatnonzero(isq.view(bool))
+        if not len(quotes):
+            return at if parity == 0 else at[:0]
+        outside: np.ndarray = at[(np.searchsorted(quotes, at) + parity) & 1 == 0]
+        return outside
+
+
 def _backslash_runs(buf: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """The block's runs of backslashes: where each starts and ends, the byte after it (-1 where the
     block ends), and whether it is odd (its last backslash escapes that byte). Backslashes are few:
@@ -173,6 +285,7 @@ def count_blocks(chunks: Iterable[bytes], header: bool, how: Counting) -> Counte
     count = 0
     blank = 0
     cr_data = False  # a CR before an LF, in a file of LF line ends (``lf_only``)
+    nulls = _TrailingNulls(how, header) if how.null_tokens and how.columns else None
     for chunk, final in blocks:
         buf = np.frombuffer(chunk, dtype=np.uint8)
         nl = np.flatnonzero(buf == 10)
@@ -187,34 +300,43 @@ def count_blocks(chunks: Iterable[bytes], header: bool, how: Counting) -> Counte
             escaped = bool(np.any(odd & ((nxt == 10) | (nxt == 13)))) or (
                 not final and len(ends) > 0 and ends[-1] + 2 >= len(buf)
             )
+        parity_in = parity
         if len(nl):
             starts = np.concatenate(([0], nl + 1))
             if starts[-1] == len(buf):
                 starts = starts[:-1]
             acc = np.bitwise_xor.accumulate(np.bitwise_xor.reduceat(isq, starts)) ^ parity
-            ends = nl[acc[: len(nl)] == 0] + pos  # the line breaks outside quotes
+            cuts = nl[acc[: len(nl)] == 0]  # the line breaks outside quotes
             parity = int(acc[-1])
         else:
-            ends = nl
+            cuts = nl
             parity ^= int(np.count_nonzero(isq) & 1)
+        ends = cuts + pos
+        empty = np.zeros(0, bool)
         if len(ends):
             prev = np.empty_like(ends)
             prev[0] = last_end
             prev[1:] = ends[:-1]
             gap = ends - prev
-            at = ends - 1 - pos
+            at = cuts - 1
             before = np.where(at >= 0, buf[np.maximum(at, 0)], last_byte)
             empty = (gap == 1) | ((gap == 2) & (before == 13))
             blanks = int(np.count_nonzero(empty))
             blank += blanks
             count += len(ends) - blanks
             last_end = int(ends[-1])
+        if nulls is not None:
+            nulls.block(buf, isq, parity_in, cuts, empty)
         pos += len(buf)
         if len(buf):
             last_byte = int(buf[-1])
     rest = pos - 1 - last_end  # bytes after the last record's line break
-    if rest > 1 or (rest == 1 and last_byte != 13):
+    unended = rest > 1 or (rest == 1 and last_byte != 13)
+    if unended:
         count += 1
     plain = check is None or check.plain
-    readable = parity == 0 and not escaped and plain and not cr_data
+    if nulls is not None:
+        nulls.finish(unended)
+    fits = nulls is None or not nulls.over
+    readable = parity == 0 and not escaped and plain and not cr_data and fits
     return Counted(count - (1 if header and count else 0), readable, blank)

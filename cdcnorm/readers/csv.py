@@ -343,7 +343,7 @@ def _fast_paths(paths: dict[str, RawFile], r: _Reading) -> list[RawFile]:
     # The engine's reader does not report every broken record when it scans many files at once, so
     # every file's records are also counted independently, by a thread, while the engine scans.
     with ThreadPoolExecutor(max_workers=1) as pool:
-        how = counting_of(r.mapping, r.delimiter)
+        how = _counting(r)
         counted = {
             p: pool.submit(count_records, Path(p), opts.header, how.with_lines_ending(f.line_end == "\n"))
             for p, f in paths.items()
@@ -414,7 +414,7 @@ def _joined(group: list[RawFile], r: _Reading) -> list[RawFile]:
     alone: list[RawFile] = []
     by_end: dict[bytes, list[tuple[RawFile, bytes, int, int]]] = {}
     for f in group:
-        small = _body(f, opts.header, counting_of(r.mapping, r.delimiter))
+        small = _body(f, opts.header, _counting(r))
         if small is None:
             alone.append(f)
         else:
@@ -471,6 +471,24 @@ def csv_syntax(mapping: Mapping, delimiter: str, encoding: str, header: bool | N
         encoding=ENGINE_ENCODINGS[encoding.lower()],
         max_line=MAX_RECORD_BYTES,
     )
+
+
+def _counting(r: _Reading) -> Counting:
+    """How the record count reads the files of ``r`` (``forms.counting_of``), with what it needs to
+    find the records whose trailing null tokens the engine's reader would drop
+    (``count._TrailingNulls``): the column count, the delimiter and the null tokens, as bytes of the
+    encoding the engine's reader reads."""
+    codec = ENGINE_ENCODINGS[r.encoding.lower()]
+    tokens = []
+    for t in csv_syntax(r.mapping, r.delimiter, r.encoding).nulls:
+        if t == NEVER:  # no null tokens
+            continue
+        try:
+            tokens.append(t.encode(codec))
+        except UnicodeEncodeError:  # no text of the file reads as this token
+            continue
+    how = counting_of(r.mapping, r.delimiter)
+    return how.with_nulls(len(r.internal), r.delimiter.encode(codec), tuple(tokens)) if tokens else how
 
 
 def _scan(

@@ -431,14 +431,40 @@ def test_a_null_mark_in_plain_text_is_kept_as_text_with_a_note_naming_nulls(conv
     assert _values(again) == {1: None, 2: "x"} and not last_run(again.out)["notes"]
 
 
-def test_trailing_null_cells_beyond_the_columns_are_malformed_not_dropped(convert: ConvertFn) -> None:
+@pytest.mark.parametrize("delimiter", ["\t", "|~|"])
+def test_trailing_null_cells_beyond_the_columns_are_malformed_not_dropped(
+    convert: ConvertFn, delimiter: str
+) -> None:
     # the engine's reader drops trailing cells beyond the columns where they are null tokens
     text = "op\tpos\tid\ta\nI\t1\t1\tx\t\nI\t2\t2\tx\tNULL\nI\t3\t3\t\nI\t4\t4\tx\t\tNULL\nI\t5\t5\ty\n"
-    done = convert(_mapping("", 'nulls: ["", "NULL"]\n'), {"n.tsv": text})
+    text = text.replace("\t", delimiter)
+    options = "" if delimiter == "\t" else ', delimiter: "|~|"'
+    done = convert(_mapping(options, 'nulls: ["", "NULL"]\n'), {"n.tsv": text})
     # Python's csv module with QUOTE_NONE as the reference of the cells of each line
-    rows = list(csv.reader(io.StringIO(text), delimiter="\t", quoting=csv.QUOTE_NONE))[1:]
+    rows = [line.split(delimiter) for line in text.splitlines()[1:]]
+    if delimiter == "\t":
+        assert rows == list(csv.reader(io.StringIO(text), delimiter="\t", quoting=csv.QUOTE_NONE))[1:]
     assert _values(done) == {int(r[2]): r[3] or None for r in rows if len(r) == 4} == {3: None, 5: "y"}
     assert {row: q["reasons"][0]["reason"] for row, q in _quarantined(done).items()} == {
         i + 1: f"expected 4 fields, found {len(r)}" for i, r in enumerate(rows) if len(r) != 4
     }
     assert done.ledger()["balanced"]
+
+
+@pytest.mark.parametrize("delimiter", ["\t", "|~|", "||"])
+def test_the_cells_of_records_ending_in_a_null_token_are_counted_wherever_the_blocks_cut(
+    delimiter: str,
+) -> None:
+    # a record that ends with the delimiter (an empty last cell) has as many cells as delimiters
+    # plus one, as str.split finds them (left to right, no overlaps); too many of them, and the file
+    # is not the engine reader's to read
+    lines = ["I", "1", "1", "a"], ["I", "2", "2", ""], ["I", "3", "3", "b"]
+    good = "".join(delimiter.join(r) + "\n" for r in lines).encode()
+    bad = good + delimiter.join(["I", "4", "4", "c", ""]).encode() + b"\n" + good
+    how = Counting(None, None, False, True).with_nulls(4, delimiter.encode(), (b"",))
+    for data, readable in ((good, True), (bad, False)):
+        whole = count_blocks([data], False, how)
+        assert whole.readable is readable
+        for cut in range(1, len(data)):
+            assert count_blocks([data[:cut], data[cut:]], False, how) == whole
+    assert [len(line.split(delimiter)) for line in bad.decode().splitlines()].count(5) == 1

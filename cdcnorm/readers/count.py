@@ -20,6 +20,9 @@ from cdcnorm.readers import streams
 
 #: Block size of the independent record count: small, so its numpy buffers stay small too.
 COUNT_BLOCK = 4 << 20
+#: The most bytes of one record the count keeps from block to block to count a delimiter of several
+#: bytes in it; a longer record that ends with a null token sends its file the careful way.
+WIDE_TAIL = 1 << 20
 
 
 @dataclass(frozen=True)
@@ -135,6 +138,54 @@ class _EnclosedCheck:
             self.plain = False
 
 
+class _SpacedQuotes:
+    """Whether a space stands just outside a quote: before an opening one or after a closing one
+    (`` "s"``, ``"s" ``). RFC 4180 has no such field; the engine's reader takes one space before an
+    opening quote and any after a closing one for padding and drops them (`` "s" `` reads as ``s``,
+    ``"a" "b"`` as ``a b``; a test shows it), where the careful path keeps an unquoted field as
+    written and finds text after a closing quote broken. Such a file goes the careful path. Only
+    the quotes beside a space are looked at (a quoted text holds a few), each opening where an even
+    number of quotes comes before it; the masks reuse one buffer (new ones cost page faults)."""
+
+    def __init__(self) -> None:
+        self.last = 10  # the byte before the block
+        self.closing = False  # the block before ended with a closing quote
+        self.found = False
+        self.work = np.empty(0, bool)
+
+    def block(self, buf: np.ndarray, isq: np.ndarray, parity: int, parity_after: int) -> None:
+        """Look at ``buf`` (``isq``: 1 at each quote that counts; ``parity``: of those before it,
+        ``parity_after``: of those up to its end)."""
+        n = len(buf)
+        if self.found or not n:
+            return
+        if self.closing and buf[0] == 32:
+            self.found = True
+            return
+        if len(self.work) < 2 * n:
+            self.work = np.empty(2 * n, bool)
+        space, pair = self.work[:n], self.work[n : 2 * n - 1]
+        quote = isq.view(bool)
+        np.equal(buf, 32, out=space)
+        spaced = [np.flatnonzero(np.logical_and(space[:-1], quote[1:], out=pair)) + 1]
+        if quote[0] and self.last == 32:
+            spaced.append(np.zeros(1, np.int64))
+        spaced.append(np.flatnonzero(np.logical_and(quote[:-1], space[1:], out=pair)))
+        opening, closing = np.concatenate(spaced[:-1]), spaced[-1]
+        if len(opening) or len(closing):
+            at = np.unique(np.concatenate(([0], opening, closing)))
+            # the parity of the quotes before each: of the runs between them, accumulated
+            runs = np.bitwise_xor.accumulate(np.bitwise_xor.reduceat(isq, at))
+            before = np.concatenate(([0], runs[:-1])) ^ parity
+            if np.any(before[np.searchsorted(at, opening)] == 0) or np.any(
+                before[np.searchsorted(at, closing)] == 1
+            ):
+                self.found = True
+                return
+        self.closing = bool(quote[-1]) and parity_after == 0
+        self.last = int(buf[-1])
+
+
 class _TrailingNulls:
     """Whether any record that ends with an unquoted null token holds more fields than the file has
     columns. The engine's reader drops a record's trailing fields beyond the columns without a word
@@ -142,7 +193,10 @@ class _TrailingNulls:
     "" reads as ``I,1,1,bolt``, strict mode or not; a test shows it), so such a file goes the
     careful path, which finds the record malformed. Only the records that end so are counted: the
     delimiters outside quotes of a block are found when some record of the block ends so, else only
-    those after the block's last record end (where a record may go on in the next block)."""
+    those after the block's last record end (where a record may go on in the next block). A
+    delimiter of several bytes (plain text's ``|~|``) is counted in each such record's bytes as the
+    engine's reader finds it, left to right without overlaps (``bytes.count``); in a quoted form,
+    such a record sends its file the careful way uncounted."""
 
     def __init__(self, how: Counting, header: bool) -> None:
         self.columns = how.columns
@@ -153,6 +207,10 @@ class _TrailingNulls:
         self.carry = 0  # delimiters outside quotes since the last record's end
         self.skip = 1 if header else 0  # the header row, which is no record to check
         self.over = False
+        self.wide = len(how.delimiter) > 1
+        self.quoted = how.quote is not None
+        self.tail = b""  # (a wide delimiter) the bytes since the last record's end, up to WIDE_TAIL
+        self.long = False  # (a wide delimiter) the record going on is longer than WIDE_TAIL
 
     def block(
         self, buf: np.ndarray, isq: np.ndarray, parity: int, breaks: np.ndarray, empty: np.ndarray
@@ -170,21 +228,45 @@ class _TrailingNulls:
         ends = breaks[line] + shift
         cr = (ends > 0) & (ext[np.maximum(ends - 1, 0)] == 13)
         hit = self._ending(ext, ends - cr)  # the text of a record ends before its CR
+        starts = np.concatenate(([0], breaks[:-1] + 1))
         if hit.any():
-            if len(self.delimiter) != 1:  # a delimiter of several bytes is not counted here
-                self.over = True
-                return
             rec = line[hit]
-            starts = np.concatenate(([0], breaks[:-1] + 1))
-            fields = self._fields(buf, isq, parity, starts[rec], breaks[rec])
-            fields += np.where(rec == 0, self.carry, 0)  # the block's first record began before it
-            if np.any(fields > self.columns):
-                self.over = True
+            if self.wide:
+                self.over = self.quoted or self._wide_over(buf, starts[rec], breaks[rec])
+            else:
+                fields = self._fields(buf, isq, parity, starts[rec], breaks[rec])
+                fields += np.where(rec == 0, self.carry, 0)  # the block's first record began before it
+                self.over = bool(np.any(fields > self.columns))
+            if self.over:
                 return
         tail = int(breaks[-1]) + 1 if len(breaks) else 0
-        n = len(self._outside(buf[tail:], isq[tail:], 0 if len(breaks) else parity))
-        self.carry = n if len(breaks) else self.carry + n
+        if self.wide:
+            self._keep_tail(buf[tail:].tobytes(), bool(len(breaks)))
+        else:
+            n = len(self._outside(buf[tail:], isq[tail:], 0 if len(breaks) else parity))
+            self.carry = n if len(breaks) else self.carry + n
         self.before = ext[-self.keep :].copy()
+
+    def _wide_over(self, buf: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> bool:
+        """Whether a record of ``buf`` from ``lo`` to ``hi`` holds too many fields, counted in its
+        bytes (the one that starts the block with the bytes before it)."""
+        for a, b in zip(lo.tolist(), hi.tolist(), strict=True):
+            if a == 0 and self.long:
+                return True
+            text = (self.tail if a == 0 else b"") + buf[a:b].tobytes()
+            if text.count(self.delimiter) + 1 > self.columns:
+                return True
+        return False
+
+    def _keep_tail(self, piece: bytes, fresh: bool) -> None:
+        """Keep the bytes since the last record's end (``fresh``: one ended in this block)."""
+        if fresh:
+            self.tail, self.long = b"", False
+        if self.long:
+            return
+        self.tail += piece
+        if len(self.tail) > WIDE_TAIL:
+            self.tail, self.long = b"", True
 
     def finish(self, last_record: bool) -> None:
         """Check the file's last record where no line break ends it (``last_record``)."""
@@ -192,8 +274,12 @@ class _TrailingNulls:
             return
         ext = self.before
         at = np.array([len(ext) - (1 if len(ext) and ext[-1] == 13 else 0)])
-        if self._ending(ext, at).any() and (len(self.delimiter) != 1 or self.carry + 1 > self.columns):
-            self.over = True
+        if not self._ending(ext, at).any():
+            return
+        if self.wide:
+            self.over = self.quoted or self.long or self.tail.count(self.delimiter) + 1 > self.columns
+        else:
+            self.over = self.carry + 1 > self.columns
 
     def _ending(self, ext: np.ndarray, last: np.ndarray) -> np.ndarray:
         """Which texts ending at ``last`` in ``ext`` end with the delimiter and a null token."""
@@ -286,6 +372,7 @@ def count_blocks(chunks: Iterable[bytes], header: bool, how: Counting) -> Counte
     blank = 0
     cr_data = False  # a CR before an LF, in a file of LF line ends (``lf_only``)
     nulls = _TrailingNulls(how, header) if how.null_tokens and how.columns else None
+    spaced = _SpacedQuotes() if q >= 0 else None
     for chunk, final in blocks:
         buf = np.frombuffer(chunk, dtype=np.uint8)
         nl = np.flatnonzero(buf == 10)
@@ -327,6 +414,8 @@ def count_blocks(chunks: Iterable[bytes], header: bool, how: Counting) -> Counte
             last_end = int(ends[-1])
         if nulls is not None:
             nulls.block(buf, isq, parity_in, cuts, empty)
+        if spaced is not None:
+            spaced.block(buf, isq, parity_in, parity)
         pos += len(buf)
         if len(buf):
             last_byte = int(buf[-1])
@@ -338,5 +427,6 @@ def count_blocks(chunks: Iterable[bytes], header: bool, how: Counting) -> Counte
     if nulls is not None:
         nulls.finish(unended)
     fits = nulls is None or not nulls.over
-    readable = parity == 0 and not escaped and plain and not cr_data and fits
+    padded = spaced is not None and spaced.found
+    readable = parity == 0 and not escaped and plain and not cr_data and fits and not padded
     return Counted(count - (1 if header and count else 0), readable, blank)

@@ -366,3 +366,21 @@ def test_what_postgresql_copy_from_reads_is_what_cdcnorm_reads(
 
 def _pg_literal(text: str) -> str:
     return "E'\\t'" if text == "\t" else f"'{text}'"
+
+
+def test_an_escaped_delimiter_where_the_split_would_give_the_right_count_is_read_as_copy_reads_it(
+    convert: ConvertFn,
+) -> None:
+    # a backslash before the delimiter makes it data (PostgreSQL's documentation, COPY, "Text
+    # Format"): `I 2 x\<TAB>` is three fields, the last a tab, even where splitting at every tab
+    # would give the four the file's header names
+    files: dict[str, str | bytes] = {
+        "n1.csv": "op\tpos\tid\ta\nI\t1\t1\tok\nI\t2\tx\\\t\n",
+        "n2.csv": "op\tpos\tid\ta\nI\t3\t3\ty\\\tz\n",
+    }
+    done = convert(MAPPING, files)
+    assert {e["key"]["id"]: e["values"]["a"] for e in done.events("t.notes")} == {1: "ok", 3: "y\tz"}
+    (q,) = done.quarantine("t.notes")
+    assert q["_cdcnorm"]["text"] == "I\t2\tx\\\t"
+    assert q["_cdcnorm"]["reasons"][0]["reason"] == "expected 4 fields, found 3"
+    assert done.ledger()["balanced"]

@@ -34,8 +34,9 @@ class Counting:
     #: the enclosed form's delimiter: a backslash escapes a quote too, and the count also says
     #: whether the engine's reader reads every field as ``LOAD DATA`` does (``_EnclosedCheck``)
     escaping: str | None = None
-    #: where nothing is quoted: a backslash may escape a line break (COPY's text format), which
-    #: the engine's reader would take for a record's end; False for plain text
+    #: where nothing is quoted: a backslash may escape a line break or the delimiter (COPY's text
+    #: format), which the engine's reader would take for a record's end or a field's; False for
+    #: plain text
     breaks: bool = True
     #: where nothing is quoted and the lines end with LF: a CR before an LF is data, which the
     #: engine's reader may take for part of a CRLF line end and drop
@@ -360,6 +361,9 @@ def count_blocks(chunks: Iterable[bytes], header: bool, how: Counting) -> Counte
     check = _EnclosedCheck(ord(quote), escaping) if escaping is not None and quote is not None else None
     # the forms a backslash escapes in see each run of backslashes whole, in one block
     breaks = how.breaks and quote is None
+    # COPY's text format: a backslash escapes the delimiter too, where the engine's reader would
+    # split (the careful path reads such a record as COPY FROM does)
+    split = how.delimiter[0] if breaks and len(how.delimiter) == 1 else -1
     whole = check is not None or breaks
     blocks = _whole_runs(chunks, 4 * COUNT_BLOCK) if whole else ((c, False) for c in chunks)
     q = -1 if quote is None else ord(quote)  # no byte equals -1: no quote toggles the parity
@@ -384,7 +388,7 @@ def count_blocks(chunks: Iterable[bytes], header: bool, how: Counting) -> Counte
         if breaks and not escaped:
             _, ends, nxt, odd = _backslash_runs(buf)
             # a run cut at ``_whole_runs``' limit may escape what the next block starts with
-            escaped = bool(np.any(odd & ((nxt == 10) | (nxt == 13)))) or (
+            escaped = bool(np.any(odd & ((nxt == 10) | (nxt == 13) | (nxt == split)))) or (
                 not final and len(ends) > 0 and ends[-1] + 2 >= len(buf)
             )
         parity_in = parity

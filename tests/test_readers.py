@@ -12,7 +12,7 @@ from typing import Any
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
-from hypothesis import given, settings
+from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from cdcnorm.engines.duckdb import DuckDBEngine
@@ -348,6 +348,53 @@ def test_a_file_the_record_count_gives_the_engine_is_read_as_rfc_4180_splits_it(
         for r, s in zip(records, split, strict=True)
     ]
     assert rows == expected
+
+
+#: Pieces of cells that the two ways of reading a CSV file could read differently: quotes in and
+#: out of place, spaces beside them, line breaks, NUL, null tokens, a byte order mark.
+_QUIRKS = ["", "x", " ", '"', '""', '"q"', '" q "', 'a"b', ",", "\r", "\n", "\r\n", "\t", "\x00"]
+_QUIRKS += ["NULL", "\\", "é", "\ufeff", ' "s"', '"s" ', '"a""b"', '"a\nb"', '"a\r\nb"', '"\r"']
+
+
+def _read_both_ways(done: Any) -> tuple[dict[int, Any], dict[int, tuple[str, list[str]]]]:
+    """A run's events by record number and its quarantine (text, reasons), a broken quote's reason
+    told only as such: where the quoted field runs to depends on what follows the record."""
+    events = {e["origin"]["row"]: e["values"] for e in done.events("t.notes")}
+    kept = {}
+    for q in done.quarantine("t.notes"):
+        meta = q["_cdcnorm"]
+        reasons = [r["reason"] for r in meta["reasons"]]
+        quote = ("unterminated quote", "broken quoting")
+        kept[meta["row"]] = (meta["text"], ["quote" if r.startswith(quote) else r for r in reasons])
+    return events, kept
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(
+    cells=st.lists(
+        st.lists(st.lists(st.sampled_from(_QUIRKS), max_size=3), min_size=2, max_size=2), max_size=6
+    ),
+    crlf=st.booleans(),
+    nulls=st.sampled_from(['[""]', '["", "NULL"]', "[]"]),
+)
+def test_the_engines_reader_and_the_careful_one_read_a_file_alike(
+    convert: ConvertFn, cells: list[list[list[str]]], crlf: bool, nulls: str
+) -> None:
+    """The same file read by the engine's reader and, with a broken record after it, by the careful
+    path (the record count sends it there) gives the same events and the same quarantine."""
+    end = "\r\n" if crlf else "\n"
+    lines = [
+        ",".join(["I", str(i + 1), str(i + 1), *("".join(c) for c in row)]) for i, row in enumerate(cells)
+    ]
+    data = "op,pos,id,a,b" + end + "".join(line + end for line in lines)
+    poison = 'I,99,99,"x"y,z'
+    mapping = MAPPING + f"nulls: {nulls}\n"
+    fast = _read_both_ways(convert(mapping, {"n.csv": data}))
+    careful_run = convert(mapping, {"n.csv": data + poison + end})
+    careful = _read_both_ways(careful_run)
+    assert "n.csv" in {n["file"] for n in last_run(careful_run.out)["notes"]}  # read record by record
+    events, kept = careful
+    assert (events, {row: q for row, q in kept.items() if q[0] != poison}) == fast
 
 
 def test_invalid_utf8_is_quarantined_with_its_bytes(convert: ConvertFn) -> None:

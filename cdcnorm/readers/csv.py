@@ -413,8 +413,9 @@ def _joined(group: list[RawFile], r: _Reading) -> list[RawFile]:
     opts = r.mapping.csv
     alone: list[RawFile] = []
     by_end: dict[bytes, list[tuple[RawFile, bytes, int, int]]] = {}
+    how = _counting(r)
     for f in group:
-        small = _body(f, opts.header, _counting(r))
+        small = _body(f, opts.header, how)
         if small is None:
             alone.append(f)
         else:

@@ -41,11 +41,11 @@ class Counting:
     #: where nothing is quoted and the lines end with LF: a CR before an LF is data, which the
     #: engine's reader may take for part of a CRLF line end and drop
     lf_only: bool = False
-    #: where the engine's reader is given null tokens: the file's number of columns and its
-    #: delimiter (``_TrailingNulls`` counts the fields of the records that end with a null token)
+    #: the file's number of columns and its delimiter (``_TrailingNulls`` counts the fields of the
+    #: records that end with a null token; COPY's text format may escape the delimiter)
     columns: int = 0
     delimiter: bytes = b""
-    #: the unquoted null tokens, as the file's bytes
+    #: the unquoted null tokens the engine's reader is given, as the file's bytes
     null_tokens: tuple[bytes, ...] = ()
 
     def with_lines_ending(self, lf: bool) -> Counting:

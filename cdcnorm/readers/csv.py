@@ -475,10 +475,10 @@ def csv_syntax(mapping: Mapping, delimiter: str, encoding: str, header: bool | N
 
 
 def _counting(r: _Reading) -> Counting:
-    """How the record count reads the files of ``r`` (``forms.counting_of``), with what it needs to
-    find the records whose trailing null tokens the engine's reader would drop
-    (``count._TrailingNulls``): the column count, the delimiter and the null tokens, as bytes of the
-    encoding the engine's reader reads."""
+    """How the record count reads the files of ``r`` (``forms.counting_of``), with the delimiter
+    (which COPY's text format may escape) and what it needs to find the records whose trailing null
+    tokens the engine's reader would drop (``count._TrailingNulls``): the column count and the null
+    tokens, as bytes of the encoding the engine's reader reads."""
     codec = ENGINE_ENCODINGS[r.encoding.lower()]
     tokens = []
     for t in csv_syntax(r.mapping, r.delimiter, r.encoding).nulls:
@@ -489,7 +489,7 @@ def _counting(r: _Reading) -> Counting:
         except UnicodeEncodeError:  # no text of the file reads as this token
             continue
     how = counting_of(r.mapping, r.delimiter)
-    return how.with_nulls(len(r.internal), r.delimiter.encode(codec), tuple(tokens)) if tokens else how
+    return how.with_nulls(len(r.internal), r.delimiter.encode(codec), tuple(tokens))
 
 
 def _scan(

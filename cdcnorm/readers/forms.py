@@ -20,7 +20,6 @@ import functools
 import re
 from collections import deque
 from collections.abc import Iterable, Iterator
-from dataclasses import replace
 
 from cdcnorm.engines.duckdb import TEXT_ESCAPES
 from cdcnorm.mapping.model import Mapping
@@ -84,9 +83,8 @@ def quote_of(mapping: Mapping) -> str | None:
 def counting_of(mapping: Mapping, delimiter: str) -> Counting:
     """How the record count reads the table's files: the quote (None where nothing is quoted), the
     enclosed form's delimiter, and whether a backslash may escape a line break or the delimiter
-    (COPY's text format, whose delimiter it is then given)."""
-    how = Counting(quote_of(mapping), delimiter if enclosed(mapping) else None, text_format(mapping))
-    return replace(how, delimiter=delimiter.encode()) if text_format(mapping) else how
+    (COPY's text format)."""
+    return Counting(quote_of(mapping), delimiter if enclosed(mapping) else None, text_format(mapping))
 
 
 @functools.cache

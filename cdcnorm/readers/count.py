@@ -249,8 +249,26 @@ class _TrailingNulls:
         self.before = ext[-self.keep :].copy()
 
     def _wide_over(self, buf: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> bool:
-        """Whether a record of ``buf`` from ``lo`` to ``hi`` holds too many fields, counted in its
-        bytes (the one that starts the block with the bytes before it)."""
+        """Whether a record of ``buf`` from ``lo`` to ``hi`` holds too many fields: the places where
+        the delimiter's bytes all match, counted per record, where no two are closer than its
+        length (they never are unless the delimiter's end repeats its start, as ``||`` in ``|||``);
+        else, and for the record that started in a block before, its bytes counted one by one."""
+        k, places = len(self.delimiter), max(len(buf) - len(self.delimiter) + 1, 0)
+        match = buf[:places] == self.delimiter[0]
+        for j in range(1, k):
+            match &= buf[j : places + j] == self.delimiter[j]
+        at = np.flatnonzero(match)
+        inside = lo > 0
+        if not np.any(np.diff(at) < k):
+            fields = np.searchsorted(at, hi[inside] - k + 1) - np.searchsorted(at, lo[inside]) + 1
+            if np.any(fields > self.columns):
+                return True
+            lo, hi = lo[~inside], hi[~inside]
+        return self._counted_over(buf, lo, hi)
+
+    def _counted_over(self, buf: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> bool:
+        """``_wide_over`` by counting each record's bytes (``bytes.count``: left to right, no
+        overlaps), the one that starts the block with the bytes before it."""
         for a, b in zip(lo.tolist(), hi.tolist(), strict=True):
             if a == 0 and self.long:
                 return True
